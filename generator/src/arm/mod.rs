@@ -1,0 +1,141 @@
+//! The arm description: what the user wrote, validated, with exact numbers.
+//!
+//! Everything downstream (derivation, reference, emitters) reads an [`Arm`]; nothing
+//! downstream ever sees TOML. Numbers are exact rationals because the derivation is
+//! exact: a decimal `0.12` in the file is the rational `3/25`, not a binary float.
+
+mod parse;
+mod validate;
+
+pub use parse::{parse_arm_file, parse_arm_str, ArmError};
+
+use num_rational::BigRational;
+use num_traits::{ToPrimitive, Zero};
+
+/// Exact rational number used throughout the derivation.
+pub type Rational = BigRational;
+
+/// Highest curvature degree an arm file may ask for.
+pub const MAX_CURVATURE_DEGREE: u32 = 8;
+/// Highest expansion order an arm file may ask for.
+pub const MAX_EXPANSION_ORDER: u32 = 10;
+/// Expansion order used when the file does not say.
+pub const DEFAULT_EXPANSION_ORDER: u32 = 4;
+
+/// A polynomial in the normalised arc coordinate σ ∈ [0, 1], lowest power first.
+/// A uniform property is a polynomial of degree 0.
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct SigmaPoly {
+    pub coeffs: Vec<Rational>,
+}
+
+impl SigmaPoly {
+    pub fn constant(c: Rational) -> Self {
+        SigmaPoly { coeffs: vec![c] }
+    }
+    pub fn zero() -> Self {
+        SigmaPoly { coeffs: vec![Rational::zero()] }
+    }
+    pub fn is_zero(&self) -> bool {
+        self.coeffs.iter().all(|c| c.is_zero())
+    }
+    /// Value at σ in double precision (for the numeric reference and messages).
+    pub fn eval_f64(&self, sigma: f64) -> f64 {
+        self.coeffs
+            .iter()
+            .rev()
+            .fold(0.0, |acc, c| acc * sigma + c.to_f64().unwrap_or(f64::NAN))
+    }
+    /// Coefficients in double precision, lowest power first.
+    pub fn coeffs_f64(&self) -> Vec<f64> {
+        self.coeffs.iter().map(|c| c.to_f64().unwrap_or(f64::NAN)).collect()
+    }
+}
+
+/// One segment of the backbone, base to tip.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Segment {
+    /// Length `L_j` [m], > 0.
+    pub length: Rational,
+    /// Degree `m_j` of the curvature polynomial (0 = constant curvature).
+    pub curvature_degree: u32,
+    /// Linear mass density `ρ_j(σ)` [kg/m], > 0 on [0, 1].
+    pub density: SigmaPoly,
+    /// Bending stiffness `EI_j(σ)` [N m²], > 0 on [0, 1].
+    pub bending_stiffness: SigmaPoly,
+    /// Rotary inertia per length `ι_j(σ)` [kg m], ≥ 0 on [0, 1].
+    pub rotary_inertia: SigmaPoly,
+    /// Bending damping `β_j(σ)` [N m² s], ≥ 0 on [0, 1].
+    pub damping: SigmaPoly,
+}
+
+impl Segment {
+    /// Number of configuration coordinates of this segment, `m_j + 1`.
+    pub fn n_coords(&self) -> usize {
+        self.curvature_degree as usize + 1
+    }
+}
+
+/// Optional point payload at the tip.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct Payload {
+    /// Mass `M` [kg], ≥ 0.
+    pub mass: Rational,
+    /// Rotary inertia `J` [kg m²], ≥ 0.
+    pub rotary_inertia: Rational,
+}
+
+/// One actuator; segments are 0-based here (the file is 1-based).
+#[derive(Clone, Debug, PartialEq)]
+pub enum Actuator {
+    /// Tendon at signed offset `d` [m] from the base to the end of segment `through_segment`.
+    Tendon { offset: Rational, through_segment: usize },
+    /// Bending moment spread uniformly over one segment (one input, N m).
+    Moment { segment: usize },
+    /// Force at the end of one segment, in the base frame (two inputs: Fx, Fy).
+    EndForce { segment: usize },
+}
+
+impl Actuator {
+    /// Number of scalar inputs (columns of A) this actuator contributes.
+    pub fn n_inputs(&self) -> usize {
+        match self {
+            Actuator::EndForce { .. } => 2,
+            _ => 1,
+        }
+    }
+}
+
+/// A validated arm: every invariant of MODEL.md holds (positive lengths and
+/// stiffness, actuators on existing segments, orders within range).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Arm {
+    /// Code prefix, `[a-z][a-z0-9_]*`.
+    pub name: String,
+    /// Gravity `g` [m/s²] in the base frame.
+    pub gravity: [Rational; 2],
+    /// Expansion order `N` of the truncated kinematics.
+    pub expansion_order: u32,
+    pub segments: Vec<Segment>,
+    pub payload: Payload,
+    pub actuators: Vec<Actuator>,
+}
+
+impl Arm {
+    /// Total number of configuration coordinates `n`.
+    pub fn n_coords(&self) -> usize {
+        self.segments.iter().map(Segment::n_coords).sum()
+    }
+    /// Total number of inputs `k` (columns of A).
+    pub fn n_inputs(&self) -> usize {
+        self.actuators.iter().map(Actuator::n_inputs).sum()
+    }
+    /// Index in `q` of the first coordinate of segment `j` (0-based).
+    pub fn coord_offset(&self, j: usize) -> usize {
+        self.segments[..j].iter().map(Segment::n_coords).sum()
+    }
+    /// The same arm at another expansion order.
+    pub fn with_order(&self, order: u32) -> Arm {
+        Arm { expansion_order: order, ..self.clone() }
+    }
+}

@@ -1,0 +1,686 @@
+//! Derivation: from a validated [`Arm`] to the exact dynamics as a [`Program`].
+//!
+//! The chain is assembled like a hand derivation of a serial mechanism. Each segment
+//! contributes a few exact local integrals (mass, first and second moments of its
+//! backbone, their Jacobian counterparts), written in its own base frame; the chain
+//! rotates them by the cumulative angle and adds the base point's motion. `B` comes
+//! out of that composition, and everything that is a derivative (`G = ∂U_g/∂q`, the
+//! Christoffel symbols of `C`, the tip and end-force Jacobians) is produced by exact
+//! symbolic differentiation of the program, so no derivative is written twice by hand.
+
+use crate::arm::{Actuator, Arm, Segment};
+use crate::exact::{int, Q};
+use crate::ir::{Cx, Id, Node, Program, Var};
+use crate::local_form::{mono_exp, Atom, CForm, LinForm, Mono, MONO_ONE};
+use crate::segment_integrals::{by_power, Field, Reducer};
+use num_traits::{One, Zero};
+use std::collections::HashMap;
+
+/// The derived model: output nodes of one program, exact to the expansion order.
+#[derive(Clone, Debug)]
+pub struct Model {
+    pub arm: Arm,
+    pub program: Program,
+    /// Number of coordinates `n`.
+    pub n: usize,
+    /// Number of inputs `k`.
+    pub n_inputs: usize,
+    /// `B`, n×n (symmetric: `inertia[i][k] == inertia[k][i]`).
+    pub inertia: Vec<Vec<Id>>,
+    /// `C(q, q̇)`, n×n.
+    pub coriolis: Vec<Vec<Id>>,
+    /// `G = ∂U_g/∂q`, n.
+    pub gravity: Vec<Id>,
+    /// `K`, n×n, constant.
+    pub stiffness: Vec<Vec<Id>>,
+    /// `D`, n×n, constant.
+    pub damping: Vec<Vec<Id>>,
+    /// `A(q)`, n×k.
+    pub actuation: Vec<Vec<Id>>,
+    /// Tip `[x, y, angle]`.
+    pub tip_pose: [Id; 3],
+    /// Tip Jacobian, 3×n.
+    pub tip_jacobian: Vec<Vec<Id>>,
+    /// `½ q̇ᵀ B q̇`.
+    pub kinetic_energy: Id,
+    /// `U_g + ½ qᵀ K q`.
+    pub potential_energy: Id,
+    /// Backbone `[x, y, angle]` inside each segment, in terms of [`Var::Sigma`] and
+    /// [`Var::PoseNu`].
+    pub pose: Vec<[Id; 3]>,
+}
+
+/// Derives the model of `arm` at its expansion order.
+pub fn derive(arm: &Arm) -> Model {
+    // The differentiator recurses over the program's depth; give it room.
+    let arm = arm.clone();
+    std::thread::Builder::new()
+        .stack_size(512 << 20)
+        .spawn(move || Deriver::new(&arm).run())
+        .expect("spawning the derivation thread")
+        .join()
+        .expect("derivation thread")
+}
+
+/// One segment's exact local quantities, lowered to program nodes.
+struct LocalQuantities {
+    /// Local end point `r(1)`.
+    end: Cx,
+    /// Its Jacobian columns `∂r(1)/∂q_{j,i}`.
+    end_jac: Vec<Cx>,
+    /// Mass `L ∫ρ`.
+    mass: Q,
+    /// First moment `L ∫ρ r`.
+    first: Cx,
+    /// Its derivatives `L ∫ρ ∂r/∂q_{j,i}`.
+    first_jac: Vec<Cx>,
+    /// Second moment `L ∫ρ |r|²`.
+    second: Id,
+    /// `L ∫ρ Im(conj(r) ∂r/∂q_{j,i})`: the moment of the segment's own motion about its base.
+    swirl: Vec<Id>,
+    /// `L ∫ρ Re(conj(∂r/∂q_{j,i}) ∂r/∂q_{j,k})`.
+    gram: Vec<Vec<Id>>,
+}
+
+struct Deriver<'a> {
+    arm: &'a Arm,
+    p: Program,
+    reducer: Reducer,
+    offsets: Vec<usize>,
+    lengths: Vec<Q>,
+    /// Nodes lowered from an exact local form: their derivatives are taken on the form.
+    local: HashMap<Id, (usize, LinForm)>,
+    dmemo: HashMap<(Id, usize), Id>,
+}
+
+impl<'a> Deriver<'a> {
+    fn new(arm: &'a Arm) -> Self {
+        let offsets = (0..arm.segments.len()).map(|j| arm.coord_offset(j)).collect();
+        Deriver {
+            arm,
+            p: Program::new(),
+            reducer: Reducer::new(),
+            offsets,
+            lengths: arm.segments.iter().map(|s| s.length.clone()).collect(),
+            local: HashMap::new(),
+            dmemo: HashMap::new(),
+        }
+    }
+
+    fn n(&self) -> usize {
+        self.arm.n_coords()
+    }
+
+    /// Segment and local index of coordinate `x`.
+    fn coord(&self, x: usize) -> (usize, usize) {
+        let j = self.offsets.iter().rposition(|&o| o <= x).unwrap_or(0);
+        (j, x - self.offsets[j])
+    }
+
+    /// `∂Φ_j/∂q_x`, with Φ_j the angle at the end of segment `j` (exact, linear in q).
+    fn dphi(&self, j: usize, x: usize) -> Q {
+        let (jx, i) = self.coord(x);
+        if jx <= j {
+            &self.lengths[jx] / int(i as i64 + 1)
+        } else {
+            Q::zero()
+        }
+    }
+
+    fn q(&mut self, x: usize) -> Id {
+        self.p.var(Var::Q(x as u16))
+    }
+
+    /// `Φ_j` as a linear node (j = −1 → 0 is `None`).
+    fn phi_node(&mut self, j: Option<usize>) -> Id {
+        let Some(j) = j else { return self.p.zero() };
+        let terms: Vec<(Q, Id)> = (0..self.offsets[j] + self.arm.segments[j].n_coords())
+            .map(|x| (self.dphi(j, x), self.q(x)))
+            .collect();
+        self.p.lin_comb(&terms)
+    }
+
+    /// `e^{iΦ_{j−1}}`, the rotation of segment `j`'s base frame.
+    fn base_rotation(&mut self, j: usize) -> Cx {
+        if j == 0 {
+            Cx { re: self.p.one(), im: self.p.zero() }
+        } else {
+            let s = (j - 1) as u16;
+            Cx { re: self.p.var(Var::CosPhi(s)), im: self.p.var(Var::SinPhi(s)) }
+        }
+    }
+
+    fn mono_node(&mut self, seg: usize, mono: Mono) -> Id {
+        let mut factors = Vec::new();
+        for i in 1..=self.arm.segments[seg].curvature_degree as usize {
+            let e = mono_exp(mono, i);
+            let qv = self.q(self.offsets[seg] + i);
+            factors.extend(std::iter::repeat_n(qv, e as usize));
+        }
+        self.p.product(&factors)
+    }
+
+    fn atom_node(&mut self, seg: usize, atom: Atom, pose: bool) -> Id {
+        let s = seg as u16;
+        match (atom, pose) {
+            (Atom::One, _) => self.p.one(),
+            (Atom::NuRe(n), false) => self.p.var(Var::Nu { seg: s, n, im: false }),
+            (Atom::NuIm(n), false) => self.p.var(Var::Nu { seg: s, n, im: true }),
+            (Atom::NuRe(n), true) => self.p.var(Var::PoseNu { seg: s, n, im: false }),
+            (Atom::NuIm(n), true) => self.p.var(Var::PoseNu { seg: s, n, im: true }),
+        }
+    }
+
+    /// Lowers a local form: `Σ_mono q^mono · (Σ_atom c·atom)`, and remembers the form
+    /// so that derivatives of the node are taken exactly on it.
+    fn lower(&mut self, seg: usize, form: &LinForm) -> Id {
+        let id = self.lower_with(seg, form, false);
+        self.local.entry(id).or_insert_with(|| (seg, form.clone()));
+        id
+    }
+
+    fn lower_with(&mut self, seg: usize, form: &LinForm, pose: bool) -> Id {
+        let mut groups: Vec<(Mono, Vec<(Q, Id)>)> = Vec::new();
+        for ((mono, atom), c) in &form.terms {
+            let a = self.atom_node(seg, *atom, pose);
+            match groups.last_mut() {
+                Some((m, v)) if *m == *mono => v.push((c.clone(), a)),
+                _ => groups.push((*mono, vec![(c.clone(), a)])),
+            }
+        }
+        let mut terms = Vec::with_capacity(groups.len());
+        for (mono, lin) in groups {
+            let inner = self.p.lin_comb(&lin);
+            let m = self.mono_node(seg, mono);
+            terms.push(self.p.mul(m, inner));
+        }
+        self.p.sum(&terms)
+    }
+
+    fn lower_cx(&mut self, seg: usize, form: &CForm) -> Cx {
+        Cx { re: self.lower(seg, &form.re), im: self.lower(seg, &form.im) }
+    }
+
+    fn scaled(form: &CForm, c: &Q) -> CForm {
+        let mut out = CForm::new();
+        out.re.add_form(&form.re, c);
+        out.im.add_form(&form.im, c);
+        out
+    }
+
+    fn local_quantities(&mut self, j: usize) -> LocalQuantities {
+        let seg: &Segment = &self.arm.segments[j];
+        let l = seg.length.clone();
+        let m = seg.curvature_degree as usize;
+        let order = self.arm.expansion_order as usize;
+        let field = Field::backbone(&l, m, order);
+        let jac: Vec<Field> = (0..=m)
+            .map(|i| if i == 0 { field.derivative_base(&l) } else { field.derivative_coord(i) })
+            .collect();
+        let end_w = self.reducer.end_point();
+        let rho = self.reducer.weight(&seg.density.coeffs);
+
+        let end_f = self.reducer.single(&field, end_w);
+        let end = self.lower_cx(j, &end_f);
+        let end_jac = jac
+            .iter()
+            .map(|f| {
+                let form = self.reducer.single(f, end_w);
+                self.lower_cx(j, &form)
+            })
+            .collect();
+        let first_f = Self::scaled(&self.reducer.single(&field, rho), &l);
+        let first = self.lower_cx(j, &first_f);
+        let first_jac = jac
+            .iter()
+            .map(|f| {
+                let form = Self::scaled(&self.reducer.single(f, rho), &l);
+                self.lower_cx(j, &form)
+            })
+            .collect();
+        let mut second_f = self.reducer.double(&field, &field, rho).re;
+        second_f = scale_form(&second_f, &l);
+        let second = self.lower(j, &second_f);
+        let swirl = jac
+            .iter()
+            .map(|f| {
+                let form = scale_form(&self.reducer.double(&field, f, rho).im, &l);
+                self.lower(j, &form)
+            })
+            .collect();
+        let mut gram = vec![vec![self.p.zero(); m + 1]; m + 1];
+        for a in 0..=m {
+            for b in a..=m {
+                let form = scale_form(&self.reducer.double(&jac[a], &jac[b], rho).re, &l);
+                let id = self.lower(j, &form);
+                gram[a][b] = id;
+                gram[b][a] = id;
+            }
+        }
+        let mass = &l * crate::exact::integral01(&seg.density.coeffs);
+        LocalQuantities { end, end_jac, mass, first, first_jac, second, swirl, gram }
+    }
+
+    /// Exact derivative of node `id` with respect to `q[x]`.
+    fn d(&mut self, id: Id, x: usize) -> Id {
+        if let Some(&r) = self.dmemo.get(&(id, x)) {
+            return r;
+        }
+        let r = if let Some((seg, form)) = self.local.get(&id).cloned() {
+            let (jx, i) = self.coord(x);
+            if jx != seg {
+                self.p.zero()
+            } else {
+                let df = if i == 0 {
+                    scale_form(&form.derivative_a(), &self.lengths[seg])
+                } else {
+                    form.derivative_coord(i)
+                };
+                self.lower(seg, &df)
+            }
+        } else {
+            match self.p.node(id).clone() {
+                Node::Const(_) => self.p.zero(),
+                Node::Var(v) => self.d_var(v, x),
+                Node::Add(a, b) => {
+                    let (da, db) = (self.d(a, x), self.d(b, x));
+                    self.p.add(da, db)
+                }
+                Node::Mul(a, b) => {
+                    let (da, db) = (self.d(a, x), self.d(b, x));
+                    let t1 = self.p.mul(da, b);
+                    let t2 = self.p.mul(a, db);
+                    self.p.add(t1, t2)
+                }
+                Node::Neg(a) => {
+                    let da = self.d(a, x);
+                    self.p.neg(da)
+                }
+            }
+        };
+        self.dmemo.insert((id, x), r);
+        r
+    }
+
+    fn d_cx(&mut self, z: Cx, x: usize) -> Cx {
+        Cx { re: self.d(z.re, x), im: self.d(z.im, x) }
+    }
+
+    fn d_var(&mut self, v: Var, x: usize) -> Id {
+        match v {
+            Var::Q(i) => {
+                if i as usize == x {
+                    self.p.one()
+                } else {
+                    self.p.zero()
+                }
+            }
+            Var::Qd(_) | Var::Sigma => self.p.zero(),
+            Var::Nu { seg, n, im } | Var::PoseNu { seg, n, im } => {
+                let seg = seg as usize;
+                if x != self.offsets[seg] {
+                    return self.p.zero();
+                }
+                let pose = matches!(v, Var::PoseNu { .. });
+                let mut f = LinForm::new();
+                f.add_term(MONO_ONE, if im { Atom::NuIm(n) } else { Atom::NuRe(n) }, &Q::one());
+                let df = scale_form(&f.derivative_a(), &self.lengths[seg]);
+                let body = self.lower_with(seg, &df, pose);
+                if pose {
+                    let s = self.p.var(Var::Sigma);
+                    self.p.mul(s, body)
+                } else {
+                    body
+                }
+            }
+            Var::CosPhi(j) => {
+                let w = self.dphi(j as usize, x);
+                let s = self.p.var(Var::SinPhi(j));
+                self.p.scale(&-w, s)
+            }
+            Var::SinPhi(j) => {
+                let w = self.dphi(j as usize, x);
+                let c = self.p.var(Var::CosPhi(j));
+                self.p.scale(&w, c)
+            }
+        }
+    }
+
+    fn gravity_dot(&mut self, z: Cx) -> Id {
+        let g = &self.arm.gravity;
+        let t = [(g[0].clone(), z.re), (g[1].clone(), z.im)];
+        self.p.lin_comb(&t)
+    }
+
+    fn run(mut self) -> Model {
+        let n = self.n();
+        let arm = self.arm;
+        let segs = arm.segments.len();
+        // B as lists of terms, summed at the end.
+        let mut b_terms: Vec<Vec<Vec<Id>>> = vec![vec![Vec::new(); n]; n];
+        let mut b_const: Vec<Vec<Q>> = vec![vec![Q::zero(); n]; n];
+        let mut potential_terms: Vec<Id> = Vec::new();
+        let mut pos = self.p.cx_zero();
+        let mut ends: Vec<Cx> = Vec::with_capacity(segs);
+        let mut pose = Vec::with_capacity(segs);
+
+        for j in 0..segs {
+            let seg = &arm.segments[j];
+            let off = self.offsets[j];
+            let own = off..off + seg.n_coords();
+            let lq = self.local_quantities(j);
+            let e = self.base_rotation(j);
+            let jac_prev: Vec<Cx> = (0..off).map(|x| self.d_cx(pos, x)).collect();
+            let omega: Vec<Q> = (0..off).map(|x| if j == 0 { Q::zero() } else { self.dphi(j - 1, x) }).collect();
+            let e_first = self.p.cx_mul(e, lq.first);
+            let z = self.p.cx_times_i(e_first);
+            // (a) both coordinates before this segment: the segment rides on the base.
+            for x in 0..off {
+                for y in x..off {
+                    let mut t = Vec::new();
+                    let dot = self.p.cx_dot(jac_prev[x], jac_prev[y]);
+                    t.push(self.p.scale(&lq.mass, dot));
+                    let dx = self.p.cx_dot(jac_prev[x], z);
+                    t.push(self.p.scale(&omega[y], dx));
+                    let dy = self.p.cx_dot(jac_prev[y], z);
+                    t.push(self.p.scale(&omega[x], dy));
+                    t.push(self.p.scale(&(&omega[x] * &omega[y]), lq.second));
+                    b_terms[x][y].extend(t);
+                }
+            }
+            // (b) one coordinate before, one of this segment.
+            for x in 0..off {
+                for (i, y) in own.clone().enumerate() {
+                    let ef = self.p.cx_mul(e, lq.first_jac[i]);
+                    let dot = self.p.cx_dot(jac_prev[x], ef);
+                    let sw = self.p.scale(&omega[x], lq.swirl[i]);
+                    b_terms[x][y].push(dot);
+                    b_terms[x][y].push(sw);
+                }
+            }
+            // (c) both of this segment.
+            for (i, x) in own.clone().enumerate() {
+                for (k, y) in own.clone().enumerate().skip(i) {
+                    b_terms[x][y].push(lq.gram[i][k]);
+                }
+            }
+            // Rotary inertia: φ̇ is linear in q̇, so its share of B is constant.
+            self.rotary_inertia(j, &omega, &mut b_const);
+            // Gravity: U_g = −g·(m P_{j−1} + e^{iΦ_{j−1}} R1).
+            let gp = self.gravity_dot(pos);
+            let ge = self.gravity_dot(e_first);
+            let gm = self.p.scale(&lq.mass, gp);
+            let u = self.p.add(gm, ge);
+            potential_terms.push(self.p.neg(u));
+            // Pose inside the segment and the next base point.
+            pose.push(self.segment_pose(j, pos, e));
+            let e_end = self.p.cx_mul(e, lq.end);
+            pos = self.p.cx_add(pos, e_end);
+            let _ = &lq.end_jac; // the end's own Jacobian comes from differentiating `pos`
+            ends.push(pos);
+        }
+
+        // Tip payload.
+        let tip_jac: Vec<Cx> = (0..n).map(|x| self.d_cx(pos, x)).collect();
+        let last = segs - 1;
+        let omega_tip: Vec<Q> = (0..n).map(|x| self.dphi(last, x)).collect();
+        for x in 0..n {
+            for y in x..n {
+                if !arm.payload.mass.is_zero() {
+                    let dot = self.p.cx_dot(tip_jac[x], tip_jac[y]);
+                    b_terms[x][y].push(self.p.scale(&arm.payload.mass, dot));
+                }
+                b_const[x][y] += &arm.payload.rotary_inertia * &omega_tip[x] * &omega_tip[y];
+            }
+        }
+        if !arm.payload.mass.is_zero() {
+            let gp = self.gravity_dot(pos);
+            potential_terms.push(self.p.scale(&-arm.payload.mass.clone(), gp));
+        }
+
+        let mut inertia = vec![vec![self.p.zero(); n]; n];
+        for x in 0..n {
+            for y in x..n {
+                let c = self.p.constant(b_const[x][y].clone());
+                let mut t = std::mem::take(&mut b_terms[x][y]);
+                t.push(c);
+                let id = self.p.sum(&t);
+                inertia[x][y] = id;
+                inertia[y][x] = id;
+            }
+        }
+        let u_gravity = self.p.sum(&potential_terms);
+        let gravity: Vec<Id> = (0..n).map(|x| self.d(u_gravity, x)).collect();
+
+        // Christoffel symbols of the first kind.
+        let mut db = vec![vec![vec![self.p.zero(); n]; n]; n];
+        for l in 0..n {
+            for x in 0..n {
+                for y in x..n {
+                    let v = self.d(inertia[x][y], l);
+                    db[l][x][y] = v;
+                    db[l][y][x] = v;
+                }
+            }
+        }
+        let qd: Vec<Id> = (0..n).map(|i| self.p.var(Var::Qd(i as u16))).collect();
+        let half = Q::new(1.into(), 2.into());
+        let mut coriolis = vec![vec![self.p.zero(); n]; n];
+        for i in 0..n {
+            for k in 0..n {
+                let mut terms = Vec::with_capacity(n);
+                for l in 0..n {
+                    let a = self.p.add(db[l][i][k], db[k][i][l]);
+                    let g = self.p.sub(a, db[i][k][l]);
+                    let gq = self.p.mul(g, qd[l]);
+                    terms.push(gq);
+                }
+                let s = self.p.sum(&terms);
+                coriolis[i][k] = self.p.scale(&half, s);
+            }
+        }
+
+        let stiffness = self.block_matrix(|s| &s.bending_stiffness.coeffs);
+        let damping = self.block_matrix(|s| &s.damping.coeffs);
+        let actuation = self.actuation(&ends);
+
+        let tip_angle = self.phi_node(Some(last));
+        let tip_pose = [pos.re, pos.im, tip_angle];
+        let tip_jacobian = vec![
+            tip_jac.iter().map(|c| c.re).collect(),
+            tip_jac.iter().map(|c| c.im).collect(),
+            omega_tip.iter().map(|w| self.p.constant(w.clone())).collect(),
+        ];
+
+        let kinetic_energy = {
+            let bq: Vec<Id> = (0..n)
+                .map(|i| {
+                    let t: Vec<Id> = (0..n).map(|k| self.p.mul(inertia[i][k], qd[k])).collect();
+                    self.p.sum(&t)
+                })
+                .collect();
+            let t: Vec<Id> = (0..n).map(|i| self.p.mul(qd[i], bq[i])).collect();
+            let s = self.p.sum(&t);
+            self.p.scale(&half, s)
+        };
+        let potential_energy = {
+            let qv: Vec<Id> = (0..n).map(|i| self.q(i)).collect();
+            let mut t = Vec::new();
+            for i in 0..n {
+                for k in 0..n {
+                    let qq = self.p.mul(qv[i], qv[k]);
+                    t.push(self.p.mul(stiffness[i][k], qq));
+                }
+            }
+            let s = self.p.sum(&t);
+            let elastic = self.p.scale(&half, s);
+            self.p.add(u_gravity, elastic)
+        };
+
+        Model {
+            arm: arm.clone(),
+            program: self.p,
+            n,
+            n_inputs: arm.n_inputs(),
+            inertia,
+            coriolis,
+            gravity,
+            stiffness,
+            damping,
+            actuation,
+            tip_pose,
+            tip_jacobian,
+            kinetic_energy,
+            potential_energy,
+            pose,
+        }
+    }
+
+    /// `L ∫ι ∂φ/∂q_x ∂φ/∂q_y dσ`, with `∂φ/∂q_x = ω_x` for earlier coordinates and
+    /// `L σ^{i+1}/(i+1)` for this segment's.
+    fn rotary_inertia(&self, j: usize, omega: &[Q], b: &mut [Vec<Q>]) {
+        let seg = &self.arm.segments[j];
+        if seg.rotary_inertia.is_zero() {
+            return;
+        }
+        let l = &seg.length;
+        let iota = &seg.rotary_inertia.coeffs;
+        let moment = |p: usize| -> Q {
+            iota.iter().enumerate().fold(Q::zero(), |acc, (c, ic)| acc + ic / int((p + c + 1) as i64))
+        };
+        let off = self.offsets[j];
+        let own = seg.n_coords();
+        for x in 0..off {
+            for y in x..off {
+                b[x][y] += l * &omega[x] * &omega[y] * moment(0);
+            }
+            for i in 0..own {
+                b[x][off + i] += l * &omega[x] * l / int(i as i64 + 1) * moment(i + 1);
+            }
+        }
+        for i in 0..own {
+            for k in i..own {
+                b[off + i][off + k] +=
+                    l * l * l / int(((i + 1) * (k + 1)) as i64) * moment(i + k + 2);
+            }
+        }
+    }
+
+    /// Block-diagonal `L ∫ f(σ) σ^{i+k} dσ` (stiffness or damping).
+    fn block_matrix(&mut self, f: impl Fn(&Segment) -> &Vec<Q>) -> Vec<Vec<Id>> {
+        let n = self.n();
+        let mut m = vec![vec![self.p.zero(); n]; n];
+        for (j, seg) in self.arm.segments.iter().enumerate() {
+            let off = self.offsets[j];
+            let coeffs = f(seg);
+            for i in 0..seg.n_coords() {
+                for k in 0..seg.n_coords() {
+                    let v = coeffs.iter().enumerate().fold(Q::zero(), |acc, (c, fc)| {
+                        acc + fc / int((i + k + c + 1) as i64)
+                    }) * &seg.length;
+                    m[off + i][off + k] = self.p.constant(v);
+                }
+            }
+        }
+        m
+    }
+
+    fn actuation(&mut self, ends: &[Cx]) -> Vec<Vec<Id>> {
+        let n = self.n();
+        let mut cols: Vec<Vec<Id>> = Vec::new();
+        for act in &self.arm.actuators {
+            match act {
+                Actuator::Tendon { offset, through_segment } => {
+                    let col = (0..n)
+                        .map(|x| {
+                            let (j, i) = self.coord(x);
+                            if j <= *through_segment {
+                                let v = offset * &self.lengths[j] / int(i as i64 + 1);
+                                self.p.constant(v)
+                            } else {
+                                self.p.zero()
+                            }
+                        })
+                        .collect();
+                    cols.push(col);
+                }
+                Actuator::Moment { segment } => {
+                    let col = (0..n)
+                        .map(|x| {
+                            let (j, i) = self.coord(x);
+                            if j == *segment {
+                                let v = &self.lengths[j] / int(i as i64 + 1);
+                                self.p.constant(v)
+                            } else {
+                                self.p.zero()
+                            }
+                        })
+                        .collect();
+                    cols.push(col);
+                }
+                Actuator::EndForce { segment } => {
+                    let end = ends[*segment];
+                    let jac: Vec<Cx> = (0..n).map(|x| self.d_cx(end, x)).collect();
+                    cols.push(jac.iter().map(|c| c.re).collect());
+                    cols.push(jac.iter().map(|c| c.im).collect());
+                }
+            }
+        }
+        // n×k, rows are coordinates
+        (0..n).map(|x| cols.iter().map(|c| c[x]).collect()).collect()
+    }
+
+    /// Backbone pose inside segment `j` at σ: `P_{j−1} + e^{iΦ_{j−1}} Σ_s σ^{s+1} C_s μ_s(aσ)`,
+    /// since `∫_0^σ τ^s e^{iaτ} dτ = σ^{s+1} ∫_0^1 t^s e^{iaσt} dt`, and
+    /// `φ = Φ_{j−1} + L Σ_i q_i σ^{i+1}/(i+1)`.
+    fn segment_pose(&mut self, j: usize, base: Cx, e: Cx) -> [Id; 3] {
+        let seg = &self.arm.segments[j];
+        let l = seg.length.clone();
+        let m = seg.curvature_degree as usize;
+        let field = Field::backbone(&l, m, self.arm.expansion_order as usize);
+        let sigma = self.p.var(Var::Sigma);
+        let mut acc = self.p.cx_zero();
+        for (s, terms) in by_power(&field) {
+            // C_s(q)
+            let mut cs = CForm::new();
+            for t in terms {
+                cs.re.add_term(t.mono, Atom::One, &t.re);
+                cs.im.add_term(t.mono, Atom::One, &t.im);
+            }
+            let c = Cx { re: self.lower_with(j, &cs.re, true), im: self.lower_with(j, &cs.im, true) };
+            // μ_s on Legendre moments: t^s = Σ λ_n P̃_n
+            let mut mono = vec![Q::zero(); s as usize + 1];
+            mono[s as usize] = Q::one();
+            let lambda = self.reducer.tables().to_legendre(&mono);
+            let mut mu = CForm::new();
+            for (k, lk) in lambda.iter().enumerate() {
+                mu.re.add_term(MONO_ONE, Atom::NuRe(k as u16), lk);
+                mu.im.add_term(MONO_ONE, Atom::NuIm(k as u16), lk);
+            }
+            let mu = Cx { re: self.lower_with(j, &mu.re, true), im: self.lower_with(j, &mu.im, true) };
+            let cm = self.p.cx_mul(c, mu);
+            let pw = self.p.product(&vec![sigma; s as usize + 1]);
+            let term = Cx { re: self.p.mul(pw, cm.re), im: self.p.mul(pw, cm.im) };
+            acc = self.p.cx_add(acc, term);
+        }
+        let rotated = self.p.cx_mul(e, acc);
+        let p = self.p.cx_add(base, rotated);
+        let prev = if j == 0 { None } else { Some(j - 1) };
+        let phi0 = self.phi_node(prev);
+        let mut terms = vec![(Q::one(), phi0)];
+        for i in 0..=m {
+            let q = self.q(self.offsets[j] + i);
+            let pw = self.p.product(&vec![sigma; i + 1]);
+            let qs = self.p.mul(q, pw);
+            terms.push((&l / int(i as i64 + 1), qs));
+        }
+        let angle = self.p.lin_comb(&terms);
+        [p.re, p.im, angle]
+    }
+}
+
+fn scale_form(f: &LinForm, c: &Q) -> LinForm {
+    let mut out = LinForm::new();
+    out.add_form(f, c);
+    out
+}

@@ -1,0 +1,17 @@
+//! arcwright: exact Lagrangian dynamics of planar polynomial-curvature soft arms,
+//! emitted as code.
+//!
+//! Data flows one way: [`arm`] (parse and validate) → [`derive`] (exact algebra into an
+//! [`ir::Program`]) → [`evaluate`] (double-precision evaluation) and, independently,
+//! [`reference`] (quadrature, the yardstick every derived number is checked against).
+
+pub mod arm;
+pub mod derive;
+pub mod evaluate;
+pub mod exact;
+pub mod ir;
+pub mod local_form;
+pub mod moments;
+pub mod reference;
+pub mod segment_integrals;
+pub mod terms;
