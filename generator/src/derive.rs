@@ -12,7 +12,7 @@ use crate::arm::{Actuator, Arm, Segment};
 use crate::exact::{int, Q};
 use crate::ir::{Cx, Id, Node, Program, Var};
 use crate::local_form::{mono_exp, Atom, CForm, LinForm, Mono, MONO_ONE};
-use crate::segment_integrals::{by_power, Field, Reducer};
+use crate::segment_integrals::{by_power, Field, Reducer, WeightId};
 use num_traits::{One, Zero};
 use std::collections::HashMap;
 
@@ -66,8 +66,6 @@ pub fn derive(arm: &Arm) -> Model {
 struct LocalQuantities {
     /// Local end point `r(1)`.
     end: Cx,
-    /// Its Jacobian columns `∂r(1)/∂q_{j,i}`.
-    end_jac: Vec<Cx>,
     /// Mass `L ∫ρ`.
     mass: Q,
     /// First moment `L ∫ρ r`.
@@ -82,6 +80,17 @@ struct LocalQuantities {
     gram: Vec<Vec<Id>>,
 }
 
+/// A field grouped by power of τ.
+type Groups = Vec<(u32, Cx)>;
+
+/// Which kernel of a segment: a single integral `S_s` or a double integral `D_st`
+/// against weight `w`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+enum KernelKey {
+    Single { w: WeightId, s: u32 },
+    Double { w: WeightId, s: u32, t: u32 },
+}
+
 struct Deriver<'a> {
     arm: &'a Arm,
     p: Program,
@@ -90,6 +99,9 @@ struct Deriver<'a> {
     lengths: Vec<Q>,
     /// Nodes lowered from an exact local form: their derivatives are taken on the form.
     local: HashMap<Id, (usize, LinForm)>,
+    /// Kernel nodes by segment and key, and the key of each kernel part.
+    kernels: HashMap<(usize, KernelKey), Cx>,
+    kernel_of: HashMap<Id, (usize, KernelKey, bool)>,
     dmemo: HashMap<(Id, usize), Id>,
 }
 
@@ -103,6 +115,8 @@ impl<'a> Deriver<'a> {
             offsets,
             lengths: arm.segments.iter().map(|s| s.length.clone()).collect(),
             local: HashMap::new(),
+            kernels: HashMap::new(),
+            kernel_of: HashMap::new(),
             dmemo: HashMap::new(),
         }
     }
@@ -201,11 +215,104 @@ impl<'a> Deriver<'a> {
         Cx { re: self.lower(seg, &form.re), im: self.lower(seg, &form.im) }
     }
 
-    fn scaled(form: &CForm, c: &Q) -> CForm {
-        let mut out = CForm::new();
-        out.re.add_form(&form.re, c);
-        out.im.add_form(&form.im, c);
-        out
+    /// A field grouped by power of τ: `V = Σ_s τ^s e^{iaτ} C_s(q)`, each `C_s` a complex
+    /// polynomial node in the segment's higher coordinates.
+    fn field_groups(&mut self, seg: usize, field: &Field) -> Groups {
+        by_power(field)
+            .into_iter()
+            .map(|(s, terms)| {
+                let mut c = CForm::new();
+                for t in terms {
+                    c.re.add_term(t.mono, Atom::One, &t.re);
+                    c.im.add_term(t.mono, Atom::One, &t.im);
+                }
+                (s, self.lower_cx(seg, &c))
+            })
+            .collect()
+    }
+
+    /// The kernel node of segment `seg` (see [`crate::segment_integrals`]).
+    fn kernel(&mut self, seg: usize, key: KernelKey) -> Cx {
+        if let Some(k) = self.kernels.get(&(seg, key)) {
+            return *k;
+        }
+        let mut re = LinForm::new();
+        let mut im = LinForm::new();
+        match key {
+            KernelKey::Single { w, s } => {
+                for (n, c) in self.reducer.single_kernel(w, s).iter().enumerate() {
+                    re.add_term(MONO_ONE, Atom::NuRe(n as u16), c);
+                    im.add_term(MONO_ONE, Atom::NuIm(n as u16), c);
+                }
+            }
+            KernelKey::Double { w, s, t } => {
+                let (sum, diff) = self.reducer.double_kernel(w, s, t);
+                for (n, c) in sum.iter().enumerate() {
+                    re.add_term(MONO_ONE, Atom::NuRe(n as u16), c);
+                }
+                for (n, c) in diff.iter().enumerate() {
+                    im.add_term(MONO_ONE, Atom::NuIm(n as u16), c);
+                }
+            }
+        }
+        let k = Cx { re: self.lower_with(seg, &re, false), im: self.lower_with(seg, &im, false) };
+        for (id, part_im) in [(k.re, false), (k.im, true)] {
+            if self.p.as_const(id).is_none() {
+                self.kernel_of.entry(id).or_insert((seg, key, part_im));
+            }
+        }
+        self.kernels.insert((seg, key), k);
+        k
+    }
+
+    /// `∂/∂q_{seg,0}` of a kernel part: `L ∂/∂a`, with `S_s' = i S_{s+1}` and
+    /// `D_st' = i (D_{s,t+1} − D_{s+1,t})` (differentiate under the integral sign).
+    fn d_kernel(&mut self, seg: usize, key: KernelKey, part_im: bool) -> Id {
+        let x = match key {
+            KernelKey::Single { w, s } => self.kernel(seg, KernelKey::Single { w, s: s + 1 }),
+            KernelKey::Double { w, s, t } => {
+                let a = self.kernel(seg, KernelKey::Double { w, s, t: t + 1 });
+                let b = self.kernel(seg, KernelKey::Double { w, s: s + 1, t });
+                Cx { re: self.p.sub(a.re, b.re), im: self.p.sub(a.im, b.im) }
+            }
+        };
+        let l = self.lengths[seg].clone();
+        // i·X = −Im X + i Re X
+        if part_im {
+            self.p.scale(&l, x.re)
+        } else {
+            self.p.scale(&-l, x.im)
+        }
+    }
+
+    /// `Σ_s C_s S_s`: the single integral of a grouped field against weight `w`.
+    fn single(&mut self, seg: usize, f: &Groups, w: WeightId) -> Cx {
+        let mut acc = Vec::new();
+        for &(s, c) in f {
+            let k = self.kernel(seg, KernelKey::Single { w, s });
+            acc.push(self.p.cx_mul(c, k));
+        }
+        self.cx_sum(&acc)
+    }
+
+    /// `Σ_{s,t} conj(A_s) B_t D_st`: the double integral of two grouped fields.
+    fn double(&mut self, seg: usize, a: &Groups, b: &Groups, w: WeightId) -> Cx {
+        let mut acc = Vec::new();
+        for &(s, ca) in a {
+            let conj = Cx { re: ca.re, im: self.p.neg(ca.im) };
+            for &(t, cb) in b {
+                let k = self.kernel(seg, KernelKey::Double { w, s, t });
+                let z = self.p.cx_mul(conj, cb);
+                acc.push(self.p.cx_mul(z, k));
+            }
+        }
+        self.cx_sum(&acc)
+    }
+
+    fn cx_sum(&mut self, terms: &[Cx]) -> Cx {
+        let re: Vec<Id> = terms.iter().map(|c| c.re).collect();
+        let im: Vec<Id> = terms.iter().map(|c| c.im).collect();
+        Cx { re: self.p.sum(&re), im: self.p.sum(&im) }
     }
 
     fn local_quantities(&mut self, j: usize) -> LocalQuantities {
@@ -214,51 +321,44 @@ impl<'a> Deriver<'a> {
         let m = seg.curvature_degree as usize;
         let order = self.arm.expansion_order as usize;
         let field = Field::backbone(&l, m, order);
-        let jac: Vec<Field> = (0..=m)
-            .map(|i| if i == 0 { field.derivative_base(&l) } else { field.derivative_coord(i) })
+        let v = self.field_groups(j, &field);
+        let jac: Vec<Groups> = (0..=m)
+            .map(|i| {
+                let f = if i == 0 { field.derivative_base(&l) } else { field.derivative_coord(i) };
+                self.field_groups(j, &f)
+            })
             .collect();
         let end_w = self.reducer.end_point();
         let rho = self.reducer.weight(&seg.density.coeffs);
 
-        let end_f = self.reducer.single(&field, end_w);
-        let end = self.lower_cx(j, &end_f);
-        let end_jac = jac
-            .iter()
-            .map(|f| {
-                let form = self.reducer.single(f, end_w);
-                self.lower_cx(j, &form)
+        let end = self.single(j, &v, end_w);
+        let first = self.single(j, &v, rho);
+        let first = self.p.cx_scale(&l, first);
+        let first_jac = (0..=m)
+            .map(|i| {
+                let f = self.single(j, &jac[i], rho);
+                self.p.cx_scale(&l, f)
             })
             .collect();
-        let first_f = Self::scaled(&self.reducer.single(&field, rho), &l);
-        let first = self.lower_cx(j, &first_f);
-        let first_jac = jac
-            .iter()
-            .map(|f| {
-                let form = Self::scaled(&self.reducer.single(f, rho), &l);
-                self.lower_cx(j, &form)
-            })
-            .collect();
-        let mut second_f = self.reducer.double(&field, &field, rho).re;
-        second_f = scale_form(&second_f, &l);
-        let second = self.lower(j, &second_f);
-        let swirl = jac
-            .iter()
-            .map(|f| {
-                let form = scale_form(&self.reducer.double(&field, f, rho).im, &l);
-                self.lower(j, &form)
+        let second = self.double(j, &v, &v, rho);
+        let second = self.p.scale(&l, second.re);
+        let swirl = (0..=m)
+            .map(|i| {
+                let d = self.double(j, &v, &jac[i], rho);
+                self.p.scale(&l, d.im)
             })
             .collect();
         let mut gram = vec![vec![self.p.zero(); m + 1]; m + 1];
         for a in 0..=m {
             for b in a..=m {
-                let form = scale_form(&self.reducer.double(&jac[a], &jac[b], rho).re, &l);
-                let id = self.lower(j, &form);
+                let d = self.double(j, &jac[a], &jac[b], rho);
+                let id = self.p.scale(&l, d.re);
                 gram[a][b] = id;
                 gram[b][a] = id;
             }
         }
         let mass = &l * crate::exact::integral01(&seg.density.coeffs);
-        LocalQuantities { end, end_jac, mass, first, first_jac, second, swirl, gram }
+        LocalQuantities { end, mass, first, first_jac, second, swirl, gram }
     }
 
     /// Exact derivative of node `id` with respect to `q[x]`.
@@ -266,7 +366,13 @@ impl<'a> Deriver<'a> {
         if let Some(&r) = self.dmemo.get(&(id, x)) {
             return r;
         }
-        let r = if let Some((seg, form)) = self.local.get(&id).cloned() {
+        let r = if let Some(&(seg, key, part_im)) = self.kernel_of.get(&id) {
+            if x == self.offsets[seg] {
+                self.d_kernel(seg, key, part_im)
+            } else {
+                self.p.zero()
+            }
+        } else if let Some((seg, form)) = self.local.get(&id).cloned() {
             let (jx, i) = self.coord(x);
             if jx != seg {
                 self.p.zero()
@@ -416,7 +522,6 @@ impl<'a> Deriver<'a> {
             pose.push(self.segment_pose(j, pos, e));
             let e_end = self.p.cx_mul(e, lq.end);
             pos = self.p.cx_add(pos, e_end);
-            let _ = &lq.end_jac; // the end's own Jacobian comes from differentiating `pos`
             ends.push(pos);
         }
 

@@ -10,11 +10,14 @@
 //!   substitution `u = τ' − τ` on each half of the square turns into
 //!   `∫_0^1 Q_A(u) e^{iau} du + ∫_0^1 Q_B(u) e^{−iau} du` with polynomials `Q_A`, `Q_B`.
 //!
-//! Both end as `Σ c_n ν_n(a)` on shifted Legendre polynomials: no powers of `1/a`, no
-//! special case at the straight segment.
+//! Both are sums over the field's powers `s, t` of polynomial coefficients times
+//! *kernels* that depend on `a` alone: `S_s = ∫_0^1 τ^s Ρ(τ) e^{iaτ} dτ` and
+//! `D_st = ∫_0^1 P(σ) conj(I_s(σ)) I_t(σ) dσ` with `I_s(σ) = ∫_0^σ τ^s e^{iaτ} dτ`. Each
+//! kernel is an exact rational combination `Σ c_n ν_n(a)` of shifted-Legendre moments:
+//! no powers of `1/a`, no special case at the straight segment.
 
 use crate::exact::{int, tail_integral, Tables, Q};
-use crate::local_form::{mono_exp, mono_mul, mono_unit, Atom, CForm, LinForm, Mono, MONO_ONE};
+use crate::local_form::{mono_exp, mono_mul, mono_unit, Mono, MONO_ONE};
 use num_traits::{One, Zero};
 use std::collections::{BTreeMap, HashMap};
 
@@ -133,7 +136,7 @@ pub struct Reducer {
 }
 
 /// A weight registered with a [`Reducer`].
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
 pub struct WeightId(usize);
 
 impl Default for Reducer {
@@ -178,7 +181,7 @@ impl Reducer {
     }
 
     /// Legendre coefficients of `τ^s Ρ(τ)`.
-    fn single_kernel(&mut self, w: WeightId, s: u32) -> Vec<Q> {
+    pub fn single_kernel(&mut self, w: WeightId, s: u32) -> Vec<Q> {
         if let Some(k) = self.single_cache.get(&(w.0, s)) {
             return k.clone();
         }
@@ -218,7 +221,7 @@ impl Reducer {
 
     /// `(Σ, Δ)` with `Re D = Σ_n Σ_n·Re ν_n`, `Im D = Σ_n Δ_n·Im ν_n` where
     /// `D = ∫_0^1 P(σ) conj(I_s(σ)) I_t(σ) dσ` and `I_s(σ) = ∫_0^σ τ^s e^{iaτ} dτ`.
-    fn double_kernel(&mut self, w: WeightId, s: u32, t: u32) -> (Vec<Q>, Vec<Q>) {
+    pub fn double_kernel(&mut self, w: WeightId, s: u32, t: u32) -> (Vec<Q>, Vec<Q>) {
         if let Some(k) = self.double_cache.get(&(w.0, s, t)) {
             return k.clone();
         }
@@ -236,65 +239,6 @@ impl Reducer {
         self.double_cache.insert((w.0, t, s), (sum.clone(), neg));
         (sum, diff)
     }
-
-    /// `∫_0^1 P(σ) ∫_0^σ V(τ) dτ dσ`, complex.
-    pub fn single(&mut self, field: &Field, w: WeightId) -> CForm {
-        let mut out = CForm::new();
-        for t in &field.terms {
-            let k = self.single_kernel(w, t.s);
-            for (n, kn) in k.iter().enumerate() {
-                if kn.is_zero() {
-                    continue;
-                }
-                let n = n as u16;
-                // (re + i im)(Re ν + i Im ν)
-                let re = &t.re * kn;
-                let im = &t.im * kn;
-                out.re.add_term(t.mono, Atom::NuRe(n), &re);
-                out.re.add_term(t.mono, Atom::NuIm(n), &-im.clone());
-                out.im.add_term(t.mono, Atom::NuIm(n), &re);
-                out.im.add_term(t.mono, Atom::NuRe(n), &im);
-            }
-        }
-        out
-    }
-
-    /// `∫_0^1 P(σ) conj(∫_0^σ V₁) (∫_0^σ V₂) dσ`, complex.
-    pub fn double(&mut self, f1: &Field, f2: &Field, w: WeightId) -> CForm {
-        // Collect conj(c1)·c2 by (monomial, s, t) first: many pairs share a kernel.
-        let mut coeffs: BTreeMap<(Mono, u32, u32), (Q, Q)> = BTreeMap::new();
-        for a in &f1.terms {
-            for b in &f2.terms {
-                let zr = &a.re * &b.re + &a.im * &b.im;
-                let zi = &a.re * &b.im - &a.im * &b.re;
-                let e = coeffs
-                    .entry((mono_mul(a.mono, b.mono), a.s, b.s))
-                    .or_insert_with(|| (Q::zero(), Q::zero()));
-                e.0 += zr;
-                e.1 += zi;
-            }
-        }
-        let mut out = CForm::new();
-        for ((mono, s, t), (zr, zi)) in coeffs {
-            if zr.is_zero() && zi.is_zero() {
-                continue;
-            }
-            let (sum, diff) = self.double_kernel(w, s, t);
-            // z·D with Re D = Σ sum·Re ν, Im D = Σ diff·Im ν
-            for (n, (sn, dn)) in sum.iter().zip(diff.iter()).enumerate() {
-                let n = n as u16;
-                if !sn.is_zero() {
-                    out.re.add_term(mono, Atom::NuRe(n), &(&zr * sn));
-                    out.im.add_term(mono, Atom::NuRe(n), &(&zi * sn));
-                }
-                if !dn.is_zero() {
-                    out.re.add_term(mono, Atom::NuIm(n), &-(&zi * dn));
-                    out.im.add_term(mono, Atom::NuIm(n), &(&zr * dn));
-                }
-            }
-        }
-        out
-    }
 }
 
 /// The field's terms grouped by power of τ: `Σ_s τ^s C_s(q)`, for pose queries.
@@ -306,9 +250,3 @@ pub fn by_power(field: &Field) -> BTreeMap<u32, Vec<&FieldTerm>> {
     map
 }
 
-/// Real form of a constant rational (used for exact constant local quantities).
-pub fn constant_form(c: &Q) -> LinForm {
-    let mut f = LinForm::new();
-    f.add_term(MONO_ONE, Atom::One, c);
-    f
-}
