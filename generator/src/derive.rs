@@ -295,18 +295,39 @@ impl<'a> Deriver<'a> {
         self.cx_sum(&acc)
     }
 
-    /// `Σ_{s,t} conj(A_s) B_t D_st`: the double integral of two grouped fields.
-    fn double(&mut self, seg: usize, a: &Groups, b: &Groups, w: WeightId) -> Cx {
+    /// `Re` (or `Im`, with `im`) of `Σ_{s,t} conj(A_s) B_t D_st`: the double integral of
+    /// two grouped fields. Only the part asked for is built; when `A` and `B` are the same
+    /// field the Hermitian kernel (`D_ts = conj D_st`) halves the work.
+    fn double(&mut self, seg: usize, a: &Groups, b: &Groups, w: WeightId, im: bool) -> Id {
+        let same = a == b;
         let mut acc = Vec::new();
-        for &(s, ca) in a {
-            let conj = Cx { re: ca.re, im: self.p.neg(ca.im) };
-            for &(t, cb) in b {
+        for (ia, &(s, ca)) in a.iter().enumerate() {
+            for (ib, &(t, cb)) in b.iter().enumerate() {
+                if same && ib < ia {
+                    continue;
+                }
                 let k = self.kernel(seg, KernelKey::Double { w, s, t });
-                let z = self.p.cx_mul(conj, cb);
-                acc.push(self.p.cx_mul(z, k));
+                // z = conj(A_s) B_t
+                let rr = self.p.mul(ca.re, cb.re);
+                let ii = self.p.mul(ca.im, cb.im);
+                let zr = self.p.add(rr, ii);
+                let ri = self.p.mul(ca.re, cb.im);
+                let ir = self.p.mul(ca.im, cb.re);
+                let zi = self.p.sub(ri, ir);
+                let term = if im {
+                    let x = self.p.mul(zr, k.im);
+                    let y = self.p.mul(zi, k.re);
+                    self.p.add(x, y)
+                } else {
+                    let x = self.p.mul(zr, k.re);
+                    let y = self.p.mul(zi, k.im);
+                    self.p.sub(x, y)
+                };
+                let twice = same && ib > ia;
+                acc.push(if twice { self.p.scale(&int(2), term) } else { term });
             }
         }
-        self.cx_sum(&acc)
+        self.p.sum(&acc)
     }
 
     fn cx_sum(&mut self, terms: &[Cx]) -> Cx {
@@ -340,19 +361,19 @@ impl<'a> Deriver<'a> {
                 self.p.cx_scale(&l, f)
             })
             .collect();
-        let second = self.double(j, &v, &v, rho);
-        let second = self.p.scale(&l, second.re);
+        let second = self.double(j, &v, &v, rho, false);
+        let second = self.p.scale(&l, second);
         let swirl = (0..=m)
             .map(|i| {
-                let d = self.double(j, &v, &jac[i], rho);
-                self.p.scale(&l, d.im)
+                let d = self.double(j, &v, &jac[i], rho, true);
+                self.p.scale(&l, d)
             })
             .collect();
         let mut gram = vec![vec![self.p.zero(); m + 1]; m + 1];
         for a in 0..=m {
             for b in a..=m {
-                let d = self.double(j, &jac[a], &jac[b], rho);
-                let id = self.p.scale(&l, d.re);
+                let d = self.double(j, &jac[a], &jac[b], rho, false);
+                let id = self.p.scale(&l, d);
                 gram[a][b] = id;
                 gram[b][a] = id;
             }

@@ -6,7 +6,9 @@
 //! [`reference`] (quadrature, the yardstick every derived number is checked against).
 
 pub mod arm;
+pub mod cli;
 pub mod derive;
+pub mod dynamics;
 pub mod evaluate;
 pub mod exact;
 pub mod ir;

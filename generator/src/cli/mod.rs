@@ -1,0 +1,118 @@
+//! The `arcwright` command line. Exit codes: 0 ok, 1 a check failed, 2 bad input.
+
+mod eval;
+mod json;
+
+use clap::{Parser, Subcommand};
+use std::fmt;
+use std::process::ExitCode;
+
+/// Exact dynamics of planar soft continuum arms, as code you can read and trust.
+#[derive(Parser, Debug)]
+#[command(name = "arcwright", version, about, long_about = None)]
+pub struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand, Debug)]
+enum Command {
+    Eval(eval::EvalArgs),
+}
+
+/// A command failure with the exit code it maps to.
+#[derive(Debug)]
+pub enum CliError {
+    /// Bad input: arm file, option values. Exit 2.
+    Input(String),
+    /// A check or computation failed on valid input. Exit 1.
+    Failed(String),
+}
+
+impl fmt::Display for CliError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            CliError::Input(m) | CliError::Failed(m) => f.write_str(m),
+        }
+    }
+}
+
+impl CliError {
+    fn code(&self) -> u8 {
+        match self {
+            CliError::Input(_) => 2,
+            CliError::Failed(_) => 1,
+        }
+    }
+}
+
+/// Runs the command line; returns the process exit code.
+pub fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let code = if e.use_stderr() { 2 } else { 0 };
+            let _ = e.print();
+            return ExitCode::from(code);
+        }
+    };
+    let result = match cli.command {
+        Command::Eval(args) => eval::run(&args),
+    };
+    match result {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(e) => {
+            eprintln!("error: {e}");
+            ExitCode::from(e.code())
+        }
+    }
+}
+
+/// Writes to standard output; a closed pipe (`arcwright … | head`) is not an error.
+pub(crate) fn print_stdout(text: &str) -> Result<(), CliError> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(()),
+        Err(e) => Err(CliError::Failed(format!("writing to standard output: {e}"))),
+    }
+}
+
+/// Parses a comma-separated vector option such as `--q "0.1, -2, 3e-1"`.
+pub(crate) fn parse_vector(option: &str, text: &str, expected: usize) -> Result<Vec<f64>, CliError> {
+    let text = text.trim();
+    let parts: Vec<&str> = if text.is_empty() { Vec::new() } else { text.split(',').collect() };
+    let mut out = Vec::with_capacity(parts.len());
+    for (i, p) in parts.iter().enumerate() {
+        let p = p.trim();
+        let v: f64 = p.parse().map_err(|_| {
+            CliError::Input(format!("--{option}: entry {} is `{p}`, not a number", i + 1))
+        })?;
+        if !v.is_finite() {
+            return Err(CliError::Input(format!("--{option}: entry {} is `{p}`, not a finite number", i + 1)));
+        }
+        out.push(v);
+    }
+    if out.len() != expected {
+        return Err(CliError::Input(format!(
+            "--{option}: expected {expected} comma-separated numbers, got {}",
+            out.len()
+        )));
+    }
+    Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn vectors_parse_and_reject() {
+        assert_eq!(parse_vector("q", " 1, -2.5,3e-1 ", 3).unwrap(), vec![1.0, -2.5, 0.3]);
+        assert!(parse_vector("q", "1,2", 3).unwrap_err().to_string().contains("expected 3"));
+        assert!(parse_vector("q", "1,x,3", 3).unwrap_err().to_string().contains("entry 2"));
+        assert!(parse_vector("q", "1,NaN,3", 3).unwrap_err().to_string().contains("finite"));
+        assert_eq!(parse_vector("u", "", 0).unwrap(), Vec::<f64>::new());
+    }
+}
