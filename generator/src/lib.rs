@@ -9,6 +9,7 @@ pub mod arm;
 pub mod cli;
 pub mod derive;
 pub mod dynamics;
+pub mod emit;
 pub mod evaluate;
 pub mod exact;
 pub mod ir;

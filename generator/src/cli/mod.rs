@@ -1,6 +1,7 @@
 //! The `arcwright` command line. Exit codes: 0 ok, 1 a check failed, 2 bad input.
 
 mod eval;
+mod generate;
 mod json;
 
 use clap::{Parser, Subcommand};
@@ -18,6 +19,7 @@ pub struct Cli {
 #[derive(Subcommand, Debug)]
 enum Command {
     Eval(eval::EvalArgs),
+    Generate(generate::GenerateArgs),
 }
 
 /// A command failure with the exit code it maps to.
@@ -58,6 +60,7 @@ pub fn main() -> ExitCode {
     };
     let result = match cli.command {
         Command::Eval(args) => eval::run(&args),
+        Command::Generate(args) => generate::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

@@ -1,0 +1,129 @@
+//! Function bodies shared by the three languages: the spelling of leaves, the
+//! preamble (moments, cumulative angles, kernel rows) and the straight-line part.
+
+use super::number::{literal, Precision};
+use super::plan::{AngleStep, Plan};
+use super::printer::{statement, Syntax};
+use super::schedule::{Block, Expr, Factor, Leaf, Term};
+use crate::exact::Q;
+use crate::ir::Var;
+use num_traits::One;
+
+/// Leaf and literal spelling common to C, Rust and Python: `q[i]`, `qd[i]`, `sigma`,
+/// `nu[i]` (flat moments), `pnu[i]` (pose moments), `cphi[j]`, `sphi[j]`, `t<k>`,
+/// `kern[r]`.
+pub struct Spelling<'a> {
+    pub plan: &'a Plan,
+    pub precision: Precision,
+    /// Moment count of the pose moments of the function being printed.
+    pub pose_count: usize,
+}
+
+impl Syntax for Spelling<'_> {
+    fn leaf(&self, leaf: &Leaf) -> String {
+        match leaf {
+            Leaf::Temp(t) => format!("t{t}"),
+            Leaf::Kernel(r) => format!("kern[{r}]"),
+            Leaf::Input(v) => match *v {
+                Var::Q(i) => format!("q[{i}]"),
+                Var::Qd(i) => format!("qd[{i}]"),
+                Var::Sigma => "sigma".into(),
+                Var::Nu { seg, n, im } => format!("nu[{}]", self.plan.layout.index(seg, n, im)),
+                Var::PoseNu { n, im, .. } => {
+                    format!("pnu[{}]", n as usize + if im { self.pose_count } else { 0 })
+                }
+                Var::CosPhi(j) => format!("cphi[{j}]"),
+                Var::SinPhi(j) => format!("sphi[{j}]"),
+            },
+        }
+    }
+
+    fn literal(&self, q: &Q) -> String {
+        literal(q, self.precision)
+    }
+}
+
+fn q_term(c: &Q, idx: usize) -> Term {
+    Term {
+        coef: c.clone(),
+        factors: vec![Factor::Leaf(Leaf::Input(Var::Q(idx as u16)))],
+    }
+}
+
+/// `Σ c_i q[i]`, the increment of the cumulative angle over one segment.
+pub fn angle_increment(step: &AngleStep) -> Expr {
+    Expr {
+        terms: step.terms.iter().map(|(c, i)| q_term(c, *i)).collect(),
+    }
+}
+
+/// The moment argument `a_j = L_j q_{j,0}` (times σ for a pose).
+pub fn moment_argument(plan: &Plan, seg: usize, pose: bool) -> Expr {
+    let mut t = q_term(&plan.seg_length[seg], plan.seg_offset[seg]);
+    if pose {
+        t.factors.push(Factor::Leaf(Leaf::Input(Var::Sigma)));
+    }
+    if t.coef.is_one() {
+        t.coef = Q::one();
+    }
+    Expr { terms: vec![t] }
+}
+
+/// How one language declares a temporary and ends a statement.
+pub struct StmtStyle {
+    /// `const double `, `let `, or ``.
+    pub decl: String,
+    pub end: &'static str,
+    pub indent: usize,
+    /// Wrap continued expressions in parentheses (Python).
+    pub parens: bool,
+}
+
+/// The temporaries of a block, one statement each.
+pub fn temporaries(block: &Block, syn: &dyn Syntax, style: &StmtStyle) -> String {
+    let mut out = String::new();
+    for s in &block.stmts {
+        let prefix = format!("{}t{} = ", style.decl, s.temp);
+        out.push_str(&statement(
+            &prefix,
+            &s.expr,
+            style.end,
+            syn,
+            style.indent,
+            style.parens,
+        ));
+    }
+    out
+}
+
+/// `target(i) = output_i` for every output of a block (`return output_i` for an empty target).
+pub fn outputs(
+    block: &Block,
+    syn: &dyn Syntax,
+    style: &StmtStyle,
+    target: impl Fn(usize) -> String,
+) -> String {
+    let mut out = String::new();
+    for (i, e) in block.outputs.iter().enumerate() {
+        let t = target(i);
+        let prefix = if t.is_empty() {
+            "return ".to_string()
+        } else {
+            format!("{t} = ")
+        };
+        out.push_str(&statement(
+            &prefix,
+            e,
+            style.end,
+            syn,
+            style.indent,
+            style.parens,
+        ));
+    }
+    out
+}
+
+/// One expression on a single line.
+pub fn inline(e: &Expr, syn: &dyn Syntax) -> String {
+    super::printer::inline(e, syn)
+}

@@ -1,0 +1,429 @@
+//! C99 output: `c/NAME.h`, `c/NAME.c` and the cross-check `c/test_NAME.c`.
+
+use super::body::{
+    angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
+};
+use super::golden::Golden;
+use super::number::{literal, Precision};
+use super::plan::{moment_ops, Func, Plan, UPWARD_LIMIT};
+use super::templates::render;
+use super::Meta;
+use crate::exact::{int, Q};
+use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
+use serde::Serialize;
+use tera::Context;
+
+#[derive(Serialize)]
+struct CFunc {
+    rows: String,
+    formula: String,
+    ops: String,
+    signature: String,
+    body: String,
+}
+
+fn real(p: Precision) -> &'static str {
+    match p {
+        Precision::F32 => "float",
+        Precision::F64 => "double",
+    }
+}
+
+/// Comma-separated values, several per line, indented.
+pub(super) fn wrap_list(items: &[String], indent: usize) -> String {
+    let pad = " ".repeat(indent);
+    let mut out = String::new();
+    let mut line = pad.clone();
+    for (i, it) in items.iter().enumerate() {
+        let piece = if i + 1 < items.len() {
+            format!("{it},")
+        } else {
+            it.clone()
+        };
+        if line.len() > indent && line.len() + 1 + piece.len() > super::printer::WIDTH {
+            out.push_str(line.trim_end());
+            out.push('\n');
+            line = pad.clone();
+        }
+        if line.len() > indent {
+            line.push(' ');
+        }
+        line.push_str(&piece);
+    }
+    out.push_str(&line);
+    out
+}
+
+/// Smallest unsigned type for values up to `max`.
+fn uint_type(max: usize) -> &'static str {
+    if max <= u8::MAX as usize {
+        "unsigned char"
+    } else if max <= u16::MAX as usize {
+        "unsigned short"
+    } else {
+        "unsigned long"
+    }
+}
+
+struct Printer<'a> {
+    plan: &'a Plan,
+    precision: Precision,
+    name: &'a str,
+}
+
+impl Printer<'_> {
+    fn real(&self) -> &'static str {
+        real(self.precision)
+    }
+    fn fs(&self) -> &'static str {
+        if self.precision == Precision::F32 {
+            "f"
+        } else {
+            ""
+        }
+    }
+
+    /// The body of one function: declarations and preamble, temporaries, outputs.
+    fn body(
+        &self,
+        func: &Func,
+        fname: &str,
+        pose_seg: Option<usize>,
+        target: &dyn Fn(usize) -> String,
+    ) -> (String, String) {
+        let b = &func.block;
+        let plan = self.plan;
+        let r = self.real();
+        let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
+        let syn = Spelling {
+            plan,
+            precision: self.precision,
+            pose_count,
+        };
+        let style = StmtStyle {
+            decl: format!("const {r} "),
+            end: ";",
+            indent: 4,
+            parens: false,
+        };
+        let mut out = String::new();
+        let mut rows = String::new();
+        let needs_nu = b.nu_count.iter().any(|&c| c > 0);
+        if needs_nu {
+            out.push_str(&format!(
+                "    {r} nu[{}_NU_LEN];\n",
+                self.name.to_uppercase()
+            ));
+        }
+        if pose_count > 0 {
+            out.push_str(&format!("    {r} pnu[{}];\n", 2 * pose_count));
+        }
+        if !b.kernels.is_empty() {
+            out.push_str(&format!("    {r} kern[{}];\n", b.kernels.len()));
+            let items: Vec<String> = b.kernels.iter().map(|k| k.to_string()).collect();
+            let max = b.kernels.iter().copied().max().unwrap_or(0);
+            rows = format!(
+                "static const {} {}_{fname}_rows[{}] = {{\n{}\n}};\n",
+                uint_type(max),
+                self.name,
+                b.kernels.len(),
+                wrap_list(&items, 4)
+            );
+        }
+        if b.angles > 0 {
+            out.push_str(&format!(
+                "    {r} cphi[{}];\n    {r} sphi[{}];\n    {r} phi;\n",
+                b.angles, b.angles
+            ));
+        }
+        for (seg, &c) in b.nu_count.iter().enumerate() {
+            if c > 0 {
+                let off = plan.layout.offset[seg];
+                let im = off + plan.layout.count[seg];
+                let arg = inline(&moment_argument(plan, seg, false), &syn);
+                out.push_str(&format!(
+                    "    {}_moments({arg}, {c}, &nu[{off}], &nu[{im}]);\n",
+                    self.name
+                ));
+            }
+        }
+        if let Some(seg) = pose_seg {
+            if pose_count > 0 {
+                let arg = inline(&moment_argument(plan, seg, true), &syn);
+                out.push_str(&format!(
+                    "    {}_moments({arg}, {pose_count}, &pnu[0], &pnu[{pose_count}]);\n",
+                    self.name
+                ));
+            }
+        }
+        for j in 0..b.angles {
+            let inc = inline(&angle_increment(&plan.angle_steps[j]), &syn);
+            if j == 0 {
+                out.push_str(&format!("    phi = {inc};\n"));
+            } else {
+                out.push_str(&format!("    phi += {inc};\n"));
+            }
+            out.push_str(&format!(
+                "    cphi[{j}] = cos{}(phi);\n    sphi[{j}] = sin{}(phi);\n",
+                self.fs(),
+                self.fs()
+            ));
+        }
+        if !b.kernels.is_empty() {
+            out.push_str(&format!(
+                "    {n}_kernels({n}_{fname}_rows, {}, nu, kern);\n",
+                b.kernels.len(),
+                n = self.name
+            ));
+        }
+        if !b.reads_q && fname != "stiffness" && fname != "damping" {
+            out.push_str("    (void)q;\n");
+        }
+        out.push_str(&temporaries(b, &syn, &style));
+        out.push_str(&outputs(b, &syn, &style, target));
+        (rows, out)
+    }
+}
+
+pub fn emit(
+    plan: &Plan,
+    meta: &Meta,
+    precision: Precision,
+    golden: &Golden,
+) -> Result<Vec<(String, String)>, String> {
+    let name = plan.name.as_str();
+    let up = name.to_uppercase();
+    let r = real(precision);
+    let p = Printer {
+        plan,
+        precision,
+        name,
+    };
+    let n = plan.n;
+    let k = plan.k;
+    let ops_line = |f: &Func| format!("Operations: {}.", f.ops);
+
+    let mut funcs: Vec<CFunc> = Vec::new();
+    let mut push = |fname: &str,
+                    formula: &str,
+                    func: &Func,
+                    signature: String,
+                    target: &dyn Fn(usize) -> String,
+                    _ret: bool| {
+        let (rows, body) = p.body(func, fname, None, target);
+        funcs.push(CFunc {
+            rows,
+            formula: formula.into(),
+            ops: ops_line(func),
+            signature,
+            body,
+        });
+    };
+    let flat = |arr: &'static str| move |i: usize| format!("{arr}[{i}]");
+    push(
+        "inertia",
+        "B(q), n x n, row-major.",
+        &plan.inertia,
+        format!("void {name}_inertia(const {r} q[], {r} B[])"),
+        &flat("B"),
+        false,
+    );
+    push(
+        "coriolis",
+        "C(q, q'), n x n, row-major.",
+        &plan.coriolis,
+        format!("void {name}_coriolis(const {r} q[], const {r} qd[], {r} C[])"),
+        &flat("C"),
+        false,
+    );
+    push(
+        "gravity",
+        "G(q) = dU_g/dq.",
+        &plan.gravity,
+        format!("void {name}_gravity(const {r} q[], {r} G[])"),
+        &flat("G"),
+        false,
+    );
+    push(
+        "stiffness",
+        "K, n x n, row-major.",
+        &plan.stiffness,
+        format!("void {name}_stiffness({r} K[])"),
+        &flat("K"),
+        false,
+    );
+    push(
+        "damping",
+        "D, n x n, row-major.",
+        &plan.damping,
+        format!("void {name}_damping({r} D[])"),
+        &flat("D"),
+        false,
+    );
+    push(
+        "actuation",
+        "A(q), n x k, row-major.",
+        &plan.actuation,
+        format!("void {name}_actuation(const {r} q[], {r} A[])"),
+        &flat("A"),
+        false,
+    );
+    push(
+        "tip_jacobian",
+        "Tip Jacobian, 3 x n, row-major.",
+        &plan.tip_jacobian,
+        format!("void {name}_tip_jacobian(const {r} q[], {r} J[])"),
+        &flat("J"),
+        false,
+    );
+    push(
+        "kinetic_energy",
+        "T = 1/2 q'^T B q'.",
+        &plan.kinetic_energy,
+        format!("{r} {name}_kinetic_energy(const {r} q[], const {r} qd[])"),
+        &|_| String::new(),
+        true,
+    );
+    push(
+        "potential_energy",
+        "U = U_g + 1/2 q^T K q.",
+        &plan.potential_energy,
+        format!("{r} {name}_potential_energy(const {r} q[])"),
+        &|_| String::new(),
+        true,
+    );
+    let ntri = n * (n + 1) / 2;
+    let dyn_target = move |i: usize| {
+        if i < ntri {
+            format!("m[{i}]")
+        } else if i < ntri + n {
+            format!("h[{}]", i - ntri)
+        } else {
+            format!("a[{}]", i - ntri - n)
+        }
+    };
+    let a_param = if k > 0 {
+        format!(", {r} a[]")
+    } else {
+        String::new()
+    };
+    push(
+        "dynamics_terms",
+        "Terms of forward dynamics: m = lower triangle of B packed by rows, h = C q' + G + K q + D q', a = A.",
+        &plan.dynamics,
+        format!("static void {name}_dynamics_terms(const {r} q[], const {r} qd[], {r} m[], {r} h[]{a_param})"),
+        &dyn_target,
+        false,
+    );
+    let mut pose_names = Vec::new();
+    for (j, f) in plan.pose.iter().enumerate() {
+        let fname = format!("pose_segment{j}");
+        let (rows, body) = p.body(f, &fname, Some(j), &|i| format!("pose[{i}]"));
+        pose_names.push(format!("{name}_{fname}"));
+        let mut body = body;
+        if !f.block.reads_sigma {
+            body = format!("    (void)sigma;\n{body}");
+        }
+        funcs.push(CFunc {
+            rows,
+            formula: format!("Backbone pose [x, y, angle] of segment {j} at sigma."),
+            ops: ops_line(f),
+            signature: format!("static void {name}_{fname}(const {r} q[], {r} sigma, {r} pose[3])"),
+            body,
+        });
+    }
+
+    let lit = |q: &Q| literal(q, precision);
+    let mm = plan.moment_max;
+    let odd_inv: Vec<String> = (0..mm)
+        .map(|n| lit(&(Q::from_integer(1.into()) / int(2 * n as i64 + 1))))
+        .collect();
+    let series: Vec<String> = (0..mm)
+        .map(|n| {
+            let row: Vec<String> = (1..SERIES_TERMS)
+                .map(|kk| {
+                    lit(&(Q::from_integer(1.into()) / int((kk * (2 * n + 2 * kk + 1)) as i64)))
+                })
+                .collect();
+            format!("{{\n{}\n    }}", wrap_list(&row, 8))
+        })
+        .collect();
+    let rows = &plan.table.rows;
+    let mut start = vec![0usize];
+    let mut index = Vec::new();
+    let mut coef = Vec::new();
+    for row in rows {
+        for (i, c) in row {
+            index.push(i.to_string());
+            coef.push(lit(c));
+        }
+        start.push(index.len());
+    }
+    let nnz = index.len();
+    let (big, small) = match precision {
+        Precision::F64 => ("1e200", "1e-200"),
+        Precision::F32 => ("1e30f", "1e-30f"),
+    };
+
+    let mut ctx = Context::new();
+    ctx.insert("name", name);
+    ctx.insert("name_upper", &up);
+    ctx.insert("version", &meta.version);
+    ctx.insert("arm_sha256", &meta.arm_sha256);
+    ctx.insert("order", &meta.order);
+    ctx.insert("n", &n);
+    ctx.insert("k", &k);
+    ctx.insert("nseg", &plan.segments);
+    ctx.insert("real", r);
+    ctx.insert("sfx", if precision == Precision::F32 { "f" } else { "" });
+    ctx.insert("fs", p.fs());
+    ctx.insert("big", big);
+    ctx.insert("small", small);
+    ctx.insert("nu_len", &plan.layout.len.max(1));
+    ctx.insert("moment_max", &mm);
+    ctx.insert("series_terms", &SERIES_TERMS);
+    ctx.insert("miller_extra", &MILLER_EXTRA);
+    ctx.insert("upward_limit", &UPWARD_LIMIT);
+    ctx.insert("moment_ops", &moment_ops(mm, false).to_string());
+    ctx.insert("odd_inv", &wrap_list(&odd_inv, 4));
+    ctx.insert("series", &format!("    {}", series.join(",\n    ")));
+    ctx.insert("kernel_rows", &rows.len());
+    ctx.insert("kernel_nnz", &nnz);
+    ctx.insert("start_type", uint_type(nnz));
+    ctx.insert("index_type", uint_type(plan.layout.len));
+    ctx.insert("row_type", uint_type(rows.len()));
+    ctx.insert(
+        "kernel_start",
+        &wrap_list(&start.iter().map(|s| s.to_string()).collect::<Vec<_>>(), 4),
+    );
+    ctx.insert("kernel_index", &wrap_list(&index, 4));
+    ctx.insert("kernel_coef", &wrap_list(&coef, 4));
+    ctx.insert("functions", &funcs);
+    ctx.insert("pose_names", &pose_names);
+    for (key, f) in [
+        ("inertia", &plan.inertia),
+        ("coriolis", &plan.coriolis),
+        ("gravity", &plan.gravity),
+        ("stiffness", &plan.stiffness),
+        ("damping", &plan.damping),
+        ("actuation", &plan.actuation),
+        ("tip_jacobian", &plan.tip_jacobian),
+        ("kinetic_energy", &plan.kinetic_energy),
+        ("potential_energy", &plan.potential_energy),
+        ("dynamics", &plan.dynamics),
+    ] {
+        ctx.insert(format!("{key}_ops"), &ops_line(f));
+    }
+    ctx.insert(
+        "pose_ops",
+        &plan.pose.iter().map(ops_line).collect::<Vec<_>>(),
+    );
+    ctx.insert("golden", &golden.c_data(precision));
+    ctx.insert("rtol", &golden.rtol(precision));
+
+    Ok(vec![
+        (format!("c/{name}.h"), render("c/header.h", &ctx)?),
+        (format!("c/{name}.c"), render("c/source.c", &ctx)?),
+        (format!("c/test_{name}.c"), render("c/test.c", &ctx)?),
+    ])
+}

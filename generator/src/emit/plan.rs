@@ -1,0 +1,237 @@
+//! What every target language emits, decided once: the functions, their schedules,
+//! the shared moment-kernel table and each function's operation count. The language
+//! modules only print a [`Plan`].
+
+use super::ops::Ops;
+use super::schedule::{Block, KernelTable, NuLayout, Scheduler};
+use crate::derive::Model;
+use crate::exact::{int, Q};
+use crate::ir::{Id, Program};
+use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
+use num_traits::Zero;
+
+/// Above this `|x| = |a|/2` the emitted moment routines use the upward recurrence
+/// (stable while `n < |x|`) instead of Miller's, which keeps every loop bound fixed.
+pub const UPWARD_LIMIT: usize = 64;
+
+/// One emitted function's schedule and its cost.
+#[derive(Clone, Debug)]
+pub struct Func {
+    pub block: Block,
+    /// Everything the function executes: straight-line code, kernel rows, moment
+    /// routines, angles, and the function's own loops (Cholesky).
+    pub ops: Ops,
+}
+
+/// One segment's contribution to the cumulative angle: `Φ_j = Φ_{j−1} + Σ_i c_i q[index_i]`.
+#[derive(Clone, Debug)]
+pub struct AngleStep {
+    pub terms: Vec<(Q, usize)>,
+}
+
+#[derive(Clone, Debug)]
+pub struct Plan {
+    pub name: String,
+    pub n: usize,
+    pub k: usize,
+    pub segments: usize,
+    /// `L_j` and the index of `q_{j,0}` per segment (moment argument `a_j = L_j q_{j,0}`).
+    pub seg_length: Vec<Q>,
+    pub seg_offset: Vec<usize>,
+    pub angle_steps: Vec<AngleStep>,
+    pub layout: NuLayout,
+    /// Size of the scratch array for one moment evaluation (largest count anywhere).
+    pub moment_max: usize,
+    pub table: KernelTable,
+    pub inertia: Func,
+    pub coriolis: Func,
+    pub gravity: Func,
+    pub stiffness: Func,
+    pub damping: Func,
+    pub actuation: Func,
+    pub tip_jacobian: Func,
+    pub kinetic_energy: Func,
+    pub potential_energy: Func,
+    /// Roots: lower triangle of B (row-major, `k ≤ i`), then `h = C q̇ + G + K q + D q̇`,
+    /// then A (n×k row-major).
+    pub dynamics: Func,
+    pub pose: Vec<Func>,
+}
+
+/// Worst-case operations of one moment evaluation of `count` moments, at argument
+/// `scale · q` (scale ≠ 1 costs one multiplication; a pose argument one more).
+pub fn moment_ops(count: usize, pose: bool) -> Ops {
+    if count == 0 {
+        return Ops::default();
+    }
+    let m = count;
+    let terms = SERIES_TERMS - 1;
+    let series = Ops {
+        add: terms * m,
+        mul: 2 + m * (2 + 2 * terms + 1),
+        ..Ops::default()
+    };
+    let steps = (m - 1).max(UPWARD_LIMIT) + MILLER_EXTRA;
+    let miller = Ops {
+        add: steps + 1,
+        mul: 2 * steps + 2 + m,
+        div: 2,
+        ..Ops::default()
+    };
+    let upward = Ops {
+        add: m,
+        mul: 2 * m + 1,
+        div: 1,
+        ..Ops::default()
+    };
+    let common = Ops {
+        mul: 2 + 2 * m + usize::from(pose),
+        trig: 2,
+        ..Ops::default()
+    };
+    series.max(miller).max(upward) + common
+}
+
+/// Solving `B q̈ = A u − h` by Cholesky, plus forming the right-hand side.
+pub fn dynamics_loop_ops(n: usize, k: usize) -> Ops {
+    let mut ops = Ops {
+        add: n * k + n,
+        mul: n * k,
+        ..Ops::default()
+    };
+    for i in 0..n {
+        for j in 0..=i {
+            ops.add += j;
+            ops.mul += j;
+            if i == j {
+                ops.sqrt += 1;
+            } else {
+                ops.div += 1;
+            }
+        }
+        // forward and back substitution
+        ops.add += 2 * i;
+        ops.mul += 2 * i;
+        ops.div += 2;
+    }
+    ops
+}
+
+impl Plan {
+    pub fn new(model: &Model, use_kernels: bool) -> Plan {
+        let arm = &model.arm;
+        let n = model.n;
+        let segs = arm.segments.len();
+        // The forward-dynamics roots live in a copy of the program.
+        let mut prog: Program = model.program.clone();
+        let qd: Vec<Id> = (0..n)
+            .map(|i| prog.var(crate::ir::Var::Qd(i as u16)))
+            .collect();
+        let qv: Vec<Id> = (0..n)
+            .map(|i| prog.var(crate::ir::Var::Q(i as u16)))
+            .collect();
+        let mut dyn_roots: Vec<Id> = Vec::new();
+        for i in 0..n {
+            for k in 0..=i {
+                dyn_roots.push(model.inertia[i][k]);
+            }
+        }
+        for i in 0..n {
+            let mut terms = vec![model.gravity[i]];
+            for k in 0..n {
+                let d = prog.add(model.coriolis[i][k], model.damping[i][k]);
+                terms.push(prog.mul(d, qd[k]));
+                terms.push(prog.mul(model.stiffness[i][k], qv[k]));
+            }
+            dyn_roots.push(prog.sum(&terms));
+        }
+        dyn_roots.extend(model.actuation.iter().flatten().copied());
+
+        let mut all_roots = crate::evaluate::main_roots(model);
+        all_roots.extend(dyn_roots.iter().copied());
+        let layout = NuLayout::of(&prog, &all_roots, segs);
+        let mut sched = Scheduler::new(&prog, &layout);
+        let flat = |m: &Vec<Vec<Id>>| -> Vec<Id> { m.iter().flatten().copied().collect() };
+
+        let seg_length: Vec<Q> = arm.segments.iter().map(|s| s.length.clone()).collect();
+        let seg_offset: Vec<usize> = (0..segs).map(|j| arm.coord_offset(j)).collect();
+        let angle_steps: Vec<AngleStep> = (0..segs)
+            .map(|j| AngleStep {
+                terms: (0..arm.segments[j].n_coords())
+                    .map(|i| (&seg_length[j] / int(i as i64 + 1), seg_offset[j] + i))
+                    .collect(),
+            })
+            .collect();
+        let angle_ops = |count: usize| -> Ops {
+            let mut ops = Ops::default();
+            for step in &angle_steps[..count] {
+                ops.mul += step.terms.len();
+                ops.add += step.terms.len();
+                ops.trig += 2;
+            }
+            ops
+        };
+        let func = |sched: &mut Scheduler, roots: &[Id], pose: bool| -> Func {
+            let block = sched.block(roots, use_kernels && !pose);
+            let mut ops = block.ops + angle_ops(block.angles);
+            for (&c, &pc) in block.nu_count.iter().zip(&block.pose_nu_count) {
+                ops += moment_ops(c, false) + moment_ops(pc, true);
+            }
+            Func { block, ops }
+        };
+        let inertia = func(&mut sched, &flat(&model.inertia), false);
+        let coriolis = func(&mut sched, &flat(&model.coriolis), false);
+        let gravity = func(&mut sched, &model.gravity, false);
+        let stiffness = func(&mut sched, &flat(&model.stiffness), false);
+        let damping = func(&mut sched, &flat(&model.damping), false);
+        let actuation = func(&mut sched, &flat(&model.actuation), false);
+        let tip_jacobian = func(&mut sched, &flat(&model.tip_jacobian), false);
+        let kinetic_energy = func(&mut sched, &[model.kinetic_energy], false);
+        let potential_energy = func(&mut sched, &[model.potential_energy], false);
+        let mut dynamics = func(&mut sched, &dyn_roots, false);
+        dynamics.ops += dynamics_loop_ops(n, model.n_inputs);
+        let pose: Vec<Func> = model
+            .pose
+            .iter()
+            .map(|p| func(&mut sched, p, true))
+            .collect();
+        let table = sched.table.clone();
+        let moment_max = layout
+            .count
+            .iter()
+            .chain(pose.iter().flat_map(|f| f.block.pose_nu_count.iter()))
+            .copied()
+            .max()
+            .unwrap_or(0)
+            .max(2);
+        debug_assert!(seg_length.iter().all(|l| !l.is_zero()));
+        Plan {
+            name: arm.name.clone(),
+            n,
+            k: model.n_inputs,
+            segments: segs,
+            seg_length,
+            seg_offset,
+            angle_steps,
+            layout,
+            moment_max,
+            table,
+            inertia,
+            coriolis,
+            gravity,
+            stiffness,
+            damping,
+            actuation,
+            tip_jacobian,
+            kinetic_energy,
+            potential_energy,
+            dynamics,
+            pose,
+        }
+    }
+
+    /// Total non-zeros of the kernel table.
+    pub fn table_nnz(&self) -> usize {
+        self.table.rows.iter().map(Vec::len).sum()
+    }
+}

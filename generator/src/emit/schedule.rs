@@ -1,0 +1,520 @@
+//! Scheduling a program's DAG into straight-line statements over named temporaries,
+//! language-neutral: the emitters only choose syntax.
+//!
+//! For one group of outputs (one emitted function):
+//! - only live nodes are scheduled ([`Program::live`]);
+//! - a node used more than once becomes a temporary `t<k>`; a node used once is
+//!   inlined into its user, so sums flatten into one signed sum of products,
+//!   `x * 1` and `0 + x` never appear, and `a + (−b)` prints as `a − b`;
+//! - a *moment kernel* — a linear combination of two or more Legendre moments with
+//!   rational coefficients, `Σ_n c_n ν_n` — is not printed as code at all: its
+//!   coefficients go into one sparse table shared by every function, and a function
+//!   evaluates the rows it needs in a loop. These combinations are about half of all
+//!   operations of a derived model; as a table they cost the same flops but a
+//!   fraction of the code size and compile time.
+
+use super::ops::Ops;
+use crate::exact::Q;
+use crate::ir::{Id, Node, Program, Var};
+use num_traits::{One, Signed, Zero};
+use std::collections::BTreeMap;
+
+/// Where each segment's Legendre moments live in the flat moment array `nu`:
+/// `Re ν_n` at `offset[seg] + n`, `Im ν_n` at `offset[seg] + count[seg] + n`.
+#[derive(Clone, Debug)]
+pub struct NuLayout {
+    pub offset: Vec<usize>,
+    pub count: Vec<usize>,
+    pub len: usize,
+}
+
+impl NuLayout {
+    /// The layout of every `Var::Nu` a program's live roots read.
+    pub fn of(prog: &Program, roots: &[Id], segments: usize) -> NuLayout {
+        let live = prog.live(roots);
+        let mut count = vec![0usize; segments];
+        for (i, node) in prog.nodes().iter().enumerate() {
+            if let (true, Node::Var(Var::Nu { seg, n, .. })) = (live[i], node) {
+                let c = &mut count[*seg as usize];
+                *c = (*c).max(*n as usize + 1);
+            }
+        }
+        let mut offset = Vec::with_capacity(segments);
+        let mut len = 0;
+        for c in &count {
+            offset.push(len);
+            len += 2 * c;
+        }
+        NuLayout { offset, count, len }
+    }
+
+    pub fn index(&self, seg: u16, n: u16, im: bool) -> usize {
+        let s = seg as usize;
+        self.offset[s] + n as usize + if im { self.count[s] } else { 0 }
+    }
+}
+
+/// A value an expression reads.
+#[derive(Clone, Debug, PartialEq)]
+pub enum Leaf {
+    /// A runtime input or runtime-computed variable (q, q̇, σ, moments, cos/sin Φ).
+    Input(Var),
+    /// Temporary `t<k>`.
+    Temp(usize),
+    /// Row `k` of this function's kernel list (`kern[k]`).
+    Kernel(usize),
+}
+
+#[derive(Clone, Debug, PartialEq)]
+pub enum Factor {
+    Leaf(Leaf),
+    /// A short flat sum inside a product.
+    Paren(Expr),
+}
+
+/// `coef · Π factors` (a constant when there are no factors).
+#[derive(Clone, Debug, PartialEq)]
+pub struct Term {
+    pub coef: Q,
+    pub factors: Vec<Factor>,
+}
+
+/// A signed sum of products; no terms means 0.
+#[derive(Clone, Debug, PartialEq, Default)]
+pub struct Expr {
+    pub terms: Vec<Term>,
+}
+
+impl Expr {
+    fn leaf(l: Leaf) -> Expr {
+        Expr {
+            terms: vec![Term {
+                coef: Q::one(),
+                factors: vec![Factor::Leaf(l)],
+            }],
+        }
+    }
+
+    fn constant(c: Q) -> Expr {
+        if c.is_zero() {
+            Expr::default()
+        } else {
+            Expr {
+                terms: vec![Term {
+                    coef: c,
+                    factors: Vec::new(),
+                }],
+            }
+        }
+    }
+
+    fn negate(mut self) -> Expr {
+        for t in &mut self.terms {
+            t.coef = -t.coef.clone();
+        }
+        self
+    }
+
+    fn is_flat(&self) -> bool {
+        self.terms
+            .iter()
+            .all(|t| t.factors.iter().all(|f| matches!(f, Factor::Leaf(_))))
+    }
+
+    /// Puts a positive term first so the sum does not start with a unary minus.
+    fn lead_positive(&mut self) {
+        if self.terms.first().is_some_and(|t| t.coef.is_negative()) {
+            if let Some(p) = self.terms.iter().position(|t| t.coef.is_positive()) {
+                let t = self.terms.remove(p);
+                self.terms.insert(0, t);
+            }
+        }
+        for t in &mut self.terms {
+            for f in &mut t.factors {
+                if let Factor::Paren(e) = f {
+                    e.lead_positive();
+                }
+            }
+        }
+    }
+
+    /// Operations this expression costs as printed.
+    pub fn ops(&self) -> Ops {
+        let mut ops = Ops::default();
+        if self.terms.is_empty() {
+            return ops;
+        }
+        ops.add += self.terms.len() - 1;
+        let first = &self.terms[0];
+        if first.coef.is_negative() && first.coef.abs().is_one() && !first.factors.is_empty() {
+            ops.add += 1; // unary minus on a variable
+        }
+        for t in &self.terms {
+            if t.factors.is_empty() {
+                continue;
+            }
+            ops.mul += t.factors.len() - 1;
+            if !t.coef.abs().is_one() {
+                ops.mul += 1;
+            }
+            for f in &t.factors {
+                if let Factor::Paren(e) = f {
+                    ops += e.ops();
+                }
+            }
+        }
+        ops
+    }
+}
+
+/// `temp = expr`.
+#[derive(Clone, Debug)]
+pub struct Stmt {
+    pub temp: usize,
+    pub expr: Expr,
+}
+
+/// One row of the shared kernel table: `Σ coef · nu[index]`.
+pub type KernelRow = Vec<(usize, Q)>;
+
+/// Kernel rows of all functions, in first-use order, deduplicated by node.
+#[derive(Clone, Debug, Default)]
+pub struct KernelTable {
+    pub rows: Vec<KernelRow>,
+    by_node: BTreeMap<Id, usize>,
+}
+
+/// One function's schedule.
+#[derive(Clone, Debug)]
+pub struct Block {
+    /// Table rows this function evaluates, in `kern[]` order.
+    pub kernels: Vec<usize>,
+    pub stmts: Vec<Stmt>,
+    /// One expression per requested root.
+    pub outputs: Vec<Expr>,
+    /// Moments needed per segment (0 = none), from `Var::Nu`.
+    pub nu_count: Vec<usize>,
+    /// Moments needed from `Var::PoseNu`, per segment.
+    pub pose_nu_count: Vec<usize>,
+    /// Highest `j` of `cos Φ_j`/`sin Φ_j` read, plus one.
+    pub angles: usize,
+    /// Whether `q`, `q̇` or σ are read (directly, or through moments and angles).
+    pub reads_q: bool,
+    pub reads_qd: bool,
+    pub reads_sigma: bool,
+    /// Straight-line and kernel-table operations (moments and angles not included).
+    pub ops: Ops,
+}
+
+pub struct Scheduler<'p> {
+    prog: &'p Program,
+    layout: &'p NuLayout,
+    /// Number of moment leaves below a node when it is a linear form in `Var::Nu`, else 0.
+    lin: Vec<u32>,
+    pub table: KernelTable,
+}
+
+struct BlockState {
+    kernel_pos: BTreeMap<usize, usize>,
+    kernels: Vec<usize>,
+    temp_of: BTreeMap<u32, usize>,
+    stmts: Vec<Stmt>,
+    next_temp: usize,
+}
+
+impl<'p> Scheduler<'p> {
+    pub fn new(prog: &'p Program, layout: &'p NuLayout) -> Self {
+        let nodes = prog.nodes();
+        let mut lin = vec![0u32; nodes.len()];
+        for (i, node) in nodes.iter().enumerate() {
+            lin[i] = match node {
+                Node::Var(Var::Nu { .. }) => 1,
+                Node::Neg(a) => lin[a.index()],
+                Node::Mul(a, b) if matches!(nodes[a.index()], Node::Const(_)) => lin[b.index()],
+                Node::Add(a, b) if lin[a.index()] > 0 && lin[b.index()] > 0 => {
+                    lin[a.index()] + lin[b.index()]
+                }
+                _ => 0,
+            };
+        }
+        Scheduler {
+            prog,
+            layout,
+            lin,
+            table: KernelTable::default(),
+        }
+    }
+
+    fn is_kernel_candidate(&self, i: usize) -> bool {
+        self.lin[i] >= 2
+    }
+
+    /// Coefficients of a linear form in the moments.
+    fn collect_linear(&self, id: Id, scale: &Q, acc: &mut BTreeMap<usize, Q>) {
+        match self.prog.node(id) {
+            Node::Var(Var::Nu { seg, n, im }) => {
+                *acc.entry(self.layout.index(*seg, *n, *im))
+                    .or_insert_with(Q::zero) += scale;
+            }
+            Node::Neg(a) => self.collect_linear(*a, &-scale.clone(), acc),
+            Node::Mul(a, b) => {
+                let c = self.prog.as_const(*a).cloned().unwrap_or_else(Q::one);
+                self.collect_linear(*b, &(scale * c), acc);
+            }
+            Node::Add(a, b) => {
+                self.collect_linear(*a, scale, acc);
+                self.collect_linear(*b, scale, acc);
+            }
+            _ => unreachable!("not a linear form in the moments"),
+        }
+    }
+
+    fn table_row(&mut self, id: Id) -> usize {
+        if let Some(&r) = self.table.by_node.get(&id) {
+            return r;
+        }
+        let mut acc = BTreeMap::new();
+        self.collect_linear(id, &Q::one(), &mut acc);
+        let row: KernelRow = acc.into_iter().filter(|(_, c)| !c.is_zero()).collect();
+        let r = self.table.rows.len();
+        self.table.rows.push(row);
+        self.table.by_node.insert(id, r);
+        r
+    }
+
+    /// Schedules the given roots. `kernels` turns moment kernels into table rows.
+    pub fn block(&mut self, roots: &[Id], use_kernels: bool) -> Block {
+        let prog = self.prog;
+        let nodes = prog.nodes();
+        let n = nodes.len();
+        // Pass 1: which linear forms are consumed by non-linear code (kernel roots).
+        let mut kroot = vec![false; n];
+        if use_kernels {
+            let live = prog.live(roots);
+            for i in 0..n {
+                if !live[i] || self.lin[i] > 0 {
+                    continue;
+                }
+                match &nodes[i] {
+                    Node::Add(a, b) | Node::Mul(a, b) => {
+                        for c in [a, b] {
+                            if self.is_kernel_candidate(c.index()) {
+                                kroot[c.index()] = true;
+                            }
+                        }
+                    }
+                    Node::Neg(a) if self.is_kernel_candidate(a.index()) => kroot[a.index()] = true,
+                    _ => {}
+                }
+            }
+            for r in roots {
+                if self.is_kernel_candidate(r.index()) {
+                    kroot[r.index()] = true;
+                }
+            }
+        }
+        // Pass 2: liveness and use counts, stopping at kernel roots.
+        let mut live = vec![false; n];
+        let mut uses = vec![0u32; n];
+        for r in roots {
+            live[r.index()] = true;
+            uses[r.index()] += 1;
+        }
+        for i in (0..n).rev() {
+            if !live[i] || kroot[i] {
+                continue;
+            }
+            match &nodes[i] {
+                Node::Add(a, b) | Node::Mul(a, b) => {
+                    for c in [a, b] {
+                        live[c.index()] = true;
+                        uses[c.index()] += 1;
+                    }
+                }
+                Node::Neg(a) => {
+                    live[a.index()] = true;
+                    uses[a.index()] += 1;
+                }
+                _ => {}
+            }
+        }
+        // Inputs the block reads.
+        let segs = self.layout.count.len();
+        let mut nu_count = vec![0usize; segs];
+        let mut pose_nu_count = vec![0usize; segs];
+        let mut angles = 0usize;
+        let (mut reads_q, mut reads_qd, mut reads_sigma) = (false, false, false);
+        let mut note_var = |v: &Var| match *v {
+            Var::Nu { seg, n, .. } => {
+                let c = &mut nu_count[seg as usize];
+                *c = (*c).max(n as usize + 1);
+            }
+            Var::PoseNu { seg, n, .. } => {
+                let c = &mut pose_nu_count[seg as usize];
+                *c = (*c).max(n as usize + 1);
+            }
+            Var::CosPhi(j) | Var::SinPhi(j) => angles = angles.max(j as usize + 1),
+            Var::Q(_) => reads_q = true,
+            Var::Qd(_) => reads_qd = true,
+            Var::Sigma => reads_sigma = true,
+        };
+        for i in 0..n {
+            if !live[i] {
+                continue;
+            }
+            if let Node::Var(v) = &nodes[i] {
+                note_var(v);
+            }
+        }
+        let mut st = BlockState {
+            kernel_pos: BTreeMap::new(),
+            kernels: Vec::new(),
+            temp_of: BTreeMap::new(),
+            stmts: Vec::new(),
+            next_temp: 0,
+        };
+        // Kernel rows first, in node order (deterministic).
+        for i in 0..n {
+            if live[i] && kroot[i] {
+                let row = self.table_row(Id(i as u32));
+                for (idx, _) in &self.table.rows[row] {
+                    // the moments a kernel reads count as read
+                    let (seg, k) = self.layout_seg(*idx);
+                    nu_count[seg] = nu_count[seg].max(k + 1);
+                }
+                st.kernel_pos.insert(i, st.kernels.len());
+                st.kernels.push(row);
+            }
+        }
+        for i in 0..n {
+            let is_op = matches!(nodes[i], Node::Add(..) | Node::Mul(..) | Node::Neg(..));
+            if live[i] && !kroot[i] && is_op && uses[i] >= 2 {
+                let mut expr = self.build(Id(i as u32), &kroot, &mut st);
+                expr.lead_positive();
+                let t = st.next_temp;
+                st.next_temp += 1;
+                st.stmts.push(Stmt { temp: t, expr });
+                st.temp_of.insert(i as u32, t);
+            }
+        }
+        let mut outputs = Vec::with_capacity(roots.len());
+        for r in roots {
+            let mut e = self.operand(*r, &kroot, &mut st);
+            e.lead_positive();
+            outputs.push(e);
+        }
+        let mut ops = Ops::default();
+        for s in &st.stmts {
+            ops += s.expr.ops();
+        }
+        for e in &outputs {
+            ops += e.ops();
+        }
+        for &row in &st.kernels {
+            let nnz = self.table.rows[row].len();
+            ops += Ops {
+                add: nnz,
+                mul: nnz,
+                ..Ops::default()
+            };
+        }
+        reads_q |= angles > 0 || nu_count.iter().chain(&pose_nu_count).any(|&c| c > 0);
+        reads_sigma |= pose_nu_count.iter().any(|&c| c > 0);
+        Block {
+            kernels: st.kernels,
+            stmts: st.stmts,
+            outputs,
+            nu_count,
+            pose_nu_count,
+            angles,
+            reads_q,
+            reads_qd,
+            reads_sigma,
+            ops,
+        }
+    }
+
+    /// Segment and moment order of a flat moment index.
+    fn layout_seg(&self, idx: usize) -> (usize, usize) {
+        let l = self.layout;
+        let seg = l.offset.iter().rposition(|&o| o <= idx).unwrap_or(0);
+        let mut k = idx - l.offset[seg];
+        if k >= l.count[seg] {
+            k -= l.count[seg];
+        }
+        (seg, k)
+    }
+
+    /// The expression that reads node `id` from its user's point of view.
+    fn operand(&mut self, id: Id, kroot: &[bool], st: &mut BlockState) -> Expr {
+        let i = id.index();
+        if let Some(&t) = st.temp_of.get(&(i as u32)) {
+            return Expr::leaf(Leaf::Temp(t));
+        }
+        if kroot[i] {
+            return Expr::leaf(Leaf::Kernel(st.kernel_pos[&i]));
+        }
+        match self.prog.node(id) {
+            Node::Const(c) => Expr::constant(c.clone()),
+            Node::Var(v) => Expr::leaf(Leaf::Input(*v)),
+            _ => self.build(id, kroot, st),
+        }
+    }
+
+    /// The inlined expression of an operation node.
+    fn build(&mut self, id: Id, kroot: &[bool], st: &mut BlockState) -> Expr {
+        match self.prog.node(id).clone() {
+            Node::Add(a, b) => {
+                let mut e = self.operand(a, kroot, st);
+                e.terms.extend(self.operand(b, kroot, st).terms);
+                e
+            }
+            Node::Neg(a) => self.operand(a, kroot, st).negate(),
+            Node::Mul(a, b) => {
+                let ea = self.operand(a, kroot, st);
+                let eb = self.operand(b, kroot, st);
+                let ta = self.as_term(ea, st);
+                let tb = self.as_term(eb, st);
+                let mut factors = ta.factors;
+                factors.extend(tb.factors);
+                Expr {
+                    terms: vec![Term {
+                        coef: ta.coef * tb.coef,
+                        factors,
+                    }],
+                }
+            }
+            Node::Const(c) => Expr::constant(c),
+            Node::Var(v) => Expr::leaf(Leaf::Input(v)),
+        }
+    }
+
+    /// A factor of a product: a single term as it is, a short flat sum in parentheses,
+    /// anything longer in a temporary of its own.
+    fn as_term(&mut self, mut e: Expr, st: &mut BlockState) -> Term {
+        match e.terms.len() {
+            0 => Term {
+                coef: Q::zero(),
+                factors: Vec::new(),
+            },
+            1 => e.terms.pop().unwrap_or_else(|| unreachable!()),
+            k => {
+                e.lead_positive();
+                if k <= 4 && e.is_flat() {
+                    Term {
+                        coef: Q::one(),
+                        factors: vec![Factor::Paren(e)],
+                    }
+                } else {
+                    let t = st.next_temp;
+                    st.next_temp += 1;
+                    st.stmts.push(Stmt { temp: t, expr: e });
+                    Term {
+                        coef: Q::one(),
+                        factors: vec![Factor::Leaf(Leaf::Temp(t))],
+                    }
+                }
+            }
+        }
+    }
+}
