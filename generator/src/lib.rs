@@ -15,6 +15,7 @@ pub mod exact;
 pub mod ir;
 pub mod local_form;
 pub mod moments;
+pub mod optimise;
 pub mod reference;
 pub mod segment_integrals;
 pub mod terms;
