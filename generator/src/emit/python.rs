@@ -1,5 +1,321 @@
-//! Python output (in progress).
-use super::{golden::Golden, plan::Plan, Meta, OutFile};
-pub fn emit(_p: &Plan, _m: &Meta, _g: &Golden) -> Result<Vec<OutFile>, String> {
-    Ok(vec![])
+//! Python output: `python/NAME.py` (NumPy arrays in and out, docstrings, a
+//! `solve_ivp`-ready right-hand side) and `python/test_NAME.py`.
+
+use super::body::{
+    angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
+};
+use super::c::wrap_list;
+use super::golden::{Golden, SIGMAS};
+use super::number::{f64_literal, golden_literal, literal, Precision};
+use super::plan::{moment_ops, Func, Plan, UPWARD_LIMIT};
+use super::templates::render;
+use super::{Meta, OutFile};
+use crate::exact::{int, Q};
+use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
+use serde::Serialize;
+use tera::Context;
+
+#[derive(Serialize)]
+struct PyFunc {
+    rows: String,
+    formula: String,
+    ops: String,
+    signature: String,
+    body: String,
+}
+
+fn tuple(items: &[String], indent: usize) -> String {
+    if items.is_empty() {
+        return "()".into();
+    }
+    format!("(\n{},\n)", wrap_list(items, indent))
+}
+
+struct Spec<'a> {
+    fname: &'a str,
+    formula: &'a str,
+    params: &'a [&'a str],
+    init: &'a str,
+    ret: &'a str,
+}
+
+fn function(
+    plan: &Plan,
+    f: &Func,
+    spec: &Spec,
+    pose_seg: Option<usize>,
+    target: &dyn Fn(usize) -> String,
+) -> PyFunc {
+    let b = &f.block;
+    let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
+    let syn = Spelling {
+        plan,
+        precision: Precision::F64,
+        pose_count,
+    };
+    let style = StmtStyle {
+        decl: String::new(),
+        end: "",
+        indent: 4,
+        parens: true,
+    };
+    let mut out = String::new();
+    let mut rows = String::new();
+    for p in spec.params {
+        match *p {
+            "q" | "qd" if pose_seg.is_none() || *p == "q" => {
+                out.push_str(&format!("    {p} = _vector({p}, NQ, \"{p}\")\n"));
+            }
+            _ => {}
+        }
+    }
+    if b.nu_count.iter().any(|&c| c > 0) {
+        out.push_str("    nu = [0.0] * _NU_LEN\n");
+    }
+    for (seg, &c) in b.nu_count.iter().enumerate() {
+        if c > 0 {
+            let off = plan.layout.offset[seg];
+            let arg = inline(&moment_argument(plan, seg, false), &syn);
+            out.push_str(&format!(
+                "    _moments({arg}, {c}, nu, {off}, {})\n",
+                off + plan.layout.count[seg]
+            ));
+        }
+    }
+    if let (Some(seg), true) = (pose_seg, pose_count > 0) {
+        let arg = inline(&moment_argument(plan, seg, true), &syn);
+        out.push_str(&format!("    pnu = [0.0] * {}\n", 2 * pose_count));
+        out.push_str(&format!(
+            "    _moments({arg}, {pose_count}, pnu, 0, {pose_count})\n"
+        ));
+    }
+    if b.angles > 0 {
+        out.push_str(&format!(
+            "    cphi = [0.0] * {a}\n    sphi = [0.0] * {a}\n",
+            a = b.angles
+        ));
+        for j in 0..b.angles {
+            let inc = inline(&angle_increment(&plan.angle_steps[j]), &syn);
+            let op = if j == 0 { "=" } else { "+=" };
+            out.push_str(&format!("    phi {op} {inc}\n    cphi[{j}] = math.cos(phi)\n    sphi[{j}] = math.sin(phi)\n"));
+        }
+    }
+    if !b.kernels.is_empty() {
+        let upper = spec.fname.trim_start_matches('_').to_uppercase();
+        let items: Vec<String> = b.kernels.iter().map(|k| k.to_string()).collect();
+        rows = format!("_{upper}_ROWS = {}\n", tuple(&items, 4));
+        out.push_str(&format!("    kern = _kernels(_{upper}_ROWS, nu)\n"));
+    }
+    out.push_str(spec.init);
+    out.push_str(&temporaries(b, &syn, &style));
+    out.push_str(&outputs(b, &syn, &style, target));
+    out.push_str(spec.ret);
+    PyFunc {
+        rows,
+        formula: spec.formula.into(),
+        ops: format!("Operations: {}.", f.ops),
+        signature: format!("{}({})", spec.fname, spec.params.join(", ")),
+        body: out,
+    }
+}
+
+pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, String> {
+    let name = plan.name.as_str();
+    let n = plan.n;
+    let k = plan.k;
+    let mut funcs = Vec::new();
+    let mat = |i: usize, cols: usize| format!("out[{}, {}]", i / cols.max(1), i % cols.max(1));
+    let zeros = |r: &str, c: &str| format!("    out = np.zeros(({r}, {c}))\n");
+    let nn = zeros("NQ", "NQ");
+    let ret = "    return out\n";
+    let specs: Vec<(Spec, &Func, Box<dyn Fn(usize) -> String>)> = vec![
+        (
+            Spec { fname: "inertia", formula: "Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.", params: &["q"], init: &nn, ret },
+            &plan.inertia,
+            Box::new(move |i| mat(i, n)),
+        ),
+        (
+            Spec { fname: "coriolis", formula: "Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ.", params: &["q", "qd"], init: &nn, ret },
+            &plan.coriolis,
+            Box::new(move |i| mat(i, n)),
+        ),
+        (
+            Spec { fname: "gravity", formula: "Gravity vector G(q) = dU_g/dq, length NQ.", params: &["q"], init: "    out = np.zeros(NQ)\n", ret },
+            &plan.gravity,
+            Box::new(|i| format!("out[{i}]")),
+        ),
+        (
+            Spec { fname: "stiffness", formula: "Stiffness matrix K (constant, block diagonal): elastic energy 1/2 q^T K q.", params: &[], init: &nn, ret },
+            &plan.stiffness,
+            Box::new(move |i| mat(i, n)),
+        ),
+        (
+            Spec { fname: "damping", formula: "Damping matrix D (constant): dissipation 1/2 q'^T D q'.", params: &[], init: &nn, ret },
+            &plan.damping,
+            Box::new(move |i| mat(i, n)),
+        ),
+        (
+            Spec { fname: "actuation", formula: "Actuation matrix A(q), NQ x NU: generalized force A u.", params: &["q"], init: "    out = np.zeros((NQ, NU))\n", ret },
+            &plan.actuation,
+            Box::new(move |i| mat(i, k)),
+        ),
+        (
+            Spec { fname: "tip_jacobian", formula: "Tip Jacobian, 3 x NQ: rows dx/dq, dy/dq, dangle/dq.", params: &["q"], init: "    out = np.zeros((3, NQ))\n", ret },
+            &plan.tip_jacobian,
+            Box::new(move |i| mat(i, n)),
+        ),
+        (
+            Spec { fname: "kinetic_energy", formula: "Kinetic energy T = 1/2 q'^T B(q) q' [J].", params: &["q", "qd"], init: "", ret: "" },
+            &plan.kinetic_energy,
+            Box::new(|_| String::new()),
+        ),
+        (
+            Spec { fname: "potential_energy", formula: "Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.", params: &["q"], init: "", ret: "" },
+            &plan.potential_energy,
+            Box::new(|_| String::new()),
+        ),
+    ];
+    for (spec, f, target) in &specs {
+        funcs.push(function(plan, f, spec, None, target.as_ref()));
+    }
+    let ntri = n * (n + 1) / 2;
+    let init = format!(
+        "    m = [0.0] * {ntri}\n    h = [0.0] * NQ\n    a = [[0.0] * NU for _ in range(NQ)]\n"
+    );
+    let dspec = Spec {
+        fname: "_dynamics_terms",
+        formula: "Forward-dynamics terms (q, qd: lists of floats): lower triangle of B packed by rows, h = C q' + G + K q + D q', and A.",
+        params: &["q", "qd"],
+        init: &init,
+        ret: "    return m, h, a\n",
+    };
+    let mut dyn_fn = function(plan, &plan.dynamics, &dspec, None, &move |i| {
+        if i < ntri {
+            format!("m[{i}]")
+        } else if i < ntri + n {
+            format!("h[{}]", i - ntri)
+        } else {
+            let x = i - ntri - n;
+            format!("a[{}][{}]", x / k.max(1), x % k.max(1))
+        }
+    });
+    // q and qd arrive as lists already.
+    dyn_fn.body = dyn_fn.body.replace(
+        "    q = _vector(q, NQ, \"q\")\n    qd = _vector(qd, NQ, \"qd\")\n",
+        "",
+    );
+    funcs.push(dyn_fn);
+    let mut pose_names = Vec::new();
+    for (j, f) in plan.pose.iter().enumerate() {
+        let fname = format!("_pose_segment{j}");
+        let formula = format!("Backbone pose [x, y, angle] of segment {j} at sigma.");
+        let spec = Spec {
+            fname: &fname,
+            formula: &formula,
+            params: &["q", "sigma"],
+            init: "    out = np.zeros(3)\n",
+            ret,
+        };
+        funcs.push(function(plan, f, &spec, Some(j), &|i| format!("out[{i}]")));
+        pose_names.push(fname.clone());
+    }
+
+    let lit = |q: &Q| literal(q, Precision::F64);
+    let mm = plan.moment_max;
+    let odd_inv: Vec<String> = (0..mm)
+        .map(|n| lit(&(Q::from_integer(1.into()) / int(2 * n as i64 + 1))))
+        .collect();
+    let series: Vec<String> = (0..mm)
+        .map(|n| {
+            let row: Vec<String> = (1..SERIES_TERMS)
+                .map(|kk| {
+                    lit(&(Q::from_integer(1.into()) / int((kk * (2 * n + 2 * kk + 1)) as i64)))
+                })
+                .collect();
+            format!("({})", row.join(", "))
+        })
+        .collect();
+    let mut start = vec!["0".to_string()];
+    let mut index = Vec::new();
+    let mut coef = Vec::new();
+    for row in &plan.table.rows {
+        for (i, c) in row {
+            index.push(i.to_string());
+            coef.push(lit(c));
+        }
+        start.push(index.len().to_string());
+    }
+    let mut ctx = Context::new();
+    ctx.insert("name", name);
+    ctx.insert("version", &meta.version);
+    ctx.insert("arm_sha256", &meta.arm_sha256);
+    ctx.insert("order", &meta.order);
+    ctx.insert("n", &n);
+    ctx.insert("k", &k);
+    ctx.insert("nseg", &plan.segments);
+    ctx.insert("nu_len", &plan.layout.len.max(1));
+    ctx.insert("moment_max", &mm);
+    ctx.insert("series_terms", &SERIES_TERMS);
+    ctx.insert("miller_extra", &MILLER_EXTRA);
+    ctx.insert("upward_limit", &UPWARD_LIMIT);
+    ctx.insert("moment_ops", &moment_ops(mm, false).to_string());
+    ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&odd_inv, 4)));
+    ctx.insert("series", &format!("\n    {},\n", series.join(",\n    ")));
+    ctx.insert("kernel_rows", &plan.table.rows.len());
+    ctx.insert("kernel_start", &format!("\n{},\n", wrap_list(&start, 4)));
+    ctx.insert("kernel_index", &format!("\n{},\n", wrap_list(&index, 4)));
+    ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&coef, 4)));
+    ctx.insert("functions", &funcs);
+    ctx.insert("pose_names", &pose_names);
+    ctx.insert(
+        "dynamics_ops",
+        &format!("Operations: {}.", plan.dynamics.ops),
+    );
+    ctx.insert("golden", &golden_python(golden));
+    ctx.insert(
+        "sigmas",
+        &SIGMAS
+            .iter()
+            .map(|s| f64_literal(*s))
+            .collect::<Vec<_>>()
+            .join(", "),
+    );
+    Ok(vec![
+        (
+            format!("python/{name}.py"),
+            render("python/module.py", &ctx)?,
+        ),
+        (
+            format!("python/test_{name}.py"),
+            render("python/test.py", &ctx)?,
+        ),
+    ])
+}
+
+fn golden_python(g: &Golden) -> String {
+    let mut out = String::from("LABELS = [\n");
+    for l in &g.labels {
+        out.push_str(&format!("    {l:?},\n"));
+    }
+    out.push_str("]\n");
+    for a in &g.arrays {
+        out.push_str(&format!("G_{} = np.array([\n", a.name.to_uppercase()));
+        for c in 0..g.labels.len() {
+            let items = if a.len == 0 {
+                Vec::new()
+            } else {
+                g.literals(a.name, c)
+            };
+            out.push_str(&format!("    [\n{}\n    ],\n", wrap_list(&items, 8)));
+        }
+        out.push_str("])\n");
+    }
+    for name in ["B", "C", "G", "K", "D", "A", "J", "T", "V", "pose"] {
+        out.push_str(&format!(
+            "SCALE_{} = {}\n",
+            name.to_uppercase(),
+            golden_literal(g.scale(name))
+        ));
+    }
+    out
 }

@@ -1,0 +1,308 @@
+//! The emitted code of every demo arm (examples/*.toml), built and run in its own
+//! language against the golden values it ships with: C with gcc (strict warnings, and
+//! as C++ with g++), the Rust crate with `cargo test`, Python with python3 + NumPy.
+//! Also: `generated/` is byte-for-byte what the generator writes today, the f32 C
+//! compiles without a single promotion to double, and (when arm-none-eabi-gcc is
+//! installed) the f32 C builds for a Cortex-M4F, with its flash size printed.
+//!
+//! A missing tool skips its check with a printed reason (CI installs them all).
+
+use arcwright::arm::parse_arm_file;
+use arcwright::derive::derive;
+use arcwright::emit::{emit, write::write_tree, Options, Precision};
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::sync::{Mutex, OnceLock};
+
+fn root() -> PathBuf {
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .expect("workspace root")
+        .to_path_buf()
+}
+
+fn arms() -> Vec<PathBuf> {
+    let mut v: Vec<PathBuf> = std::fs::read_dir(root().join("examples"))
+        .expect("examples/")
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|e| e == "toml"))
+        .collect();
+    v.sort();
+    v
+}
+
+fn arm_name(path: &Path) -> String {
+    path.file_stem().unwrap().to_string_lossy().into_owned()
+}
+
+/// Generates (once per arm and precision) into target/emitted-tests/<precision>/<arm>.
+fn generated(path: &Path, precision: Precision) -> PathBuf {
+    static DONE: OnceLock<Mutex<BTreeMap<String, PathBuf>>> = OnceLock::new();
+    let key = format!("{precision:?}/{}", arm_name(path));
+    let mut done = DONE
+        .get_or_init(|| Mutex::new(BTreeMap::new()))
+        .lock()
+        .unwrap_or_else(|e| e.into_inner());
+    if let Some(p) = done.get(&key) {
+        return p.clone();
+    }
+    let out = root().join("target/emitted-tests").join(&key);
+    let text = std::fs::read_to_string(path).expect("arm file");
+    let (arm, _) = parse_arm_file(path).expect("demo arm parses");
+    let model = derive(&arm);
+    let files = emit(&model, &text, Options { precision }).expect("emits");
+    write_tree(&out, &files).expect("writes");
+    done.insert(key, out.clone());
+    out
+}
+
+fn have(tool: &str, arg: &str) -> bool {
+    Command::new(tool)
+        .arg(arg)
+        .output()
+        .is_ok_and(|o| o.status.success())
+}
+
+fn run(cmd: &mut Command, what: &str) -> String {
+    let out = cmd
+        .output()
+        .unwrap_or_else(|e| panic!("{what}: cannot run: {e}"));
+    let text = format!(
+        "{}{}",
+        String::from_utf8_lossy(&out.stdout),
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert!(out.status.success(), "{what} failed:\n{text}");
+    text
+}
+
+const STRICT: &[&str] = &[
+    "-Wall",
+    "-Wextra",
+    "-Werror",
+    "-pedantic",
+    "-Wconversion",
+    "-Wshadow",
+];
+
+fn files_under(dir: &Path) -> BTreeMap<PathBuf, Vec<u8>> {
+    let mut out = BTreeMap::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap_or_else(|e| panic!("{}: {e}", d.display())) {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                if p.file_name()
+                    .is_some_and(|n| n == "target" || n == "__pycache__")
+                {
+                    continue;
+                }
+                stack.push(p);
+            } else if p.file_name().is_some_and(|n| n != "Cargo.lock") {
+                out.insert(
+                    p.strip_prefix(dir).unwrap().to_path_buf(),
+                    std::fs::read(&p).unwrap(),
+                );
+            }
+        }
+    }
+    out
+}
+
+#[test]
+fn generated_folder_is_current() {
+    for arm in arms() {
+        let name = arm_name(&arm);
+        let fresh = files_under(&generated(&arm, Precision::F64));
+        let committed_dir = root().join("generated").join(&name);
+        assert!(committed_dir.is_dir(), "generated/{name} is missing: run `arcwright generate examples/{name}.toml --out generated/{name}`");
+        let committed = files_under(&committed_dir);
+        let a: Vec<_> = fresh.keys().collect();
+        let b: Vec<_> = committed.keys().collect();
+        assert_eq!(
+            a, b,
+            "generated/{name} has other files than the generator writes; regenerate it"
+        );
+        for (p, bytes) in &fresh {
+            assert!(
+                committed[p] == *bytes,
+                "generated/{name}/{} is stale: run `arcwright generate examples/{name}.toml --out generated/{name}`",
+                p.display()
+            );
+        }
+    }
+}
+
+#[test]
+fn c_matches_reference() {
+    if !have("gcc", "--version") {
+        println!("SKIP C checks: gcc not found");
+        return;
+    }
+    for arm in arms() {
+        let name = arm_name(&arm);
+        let dir = generated(&arm, Precision::F64).join("c");
+        let exe = dir.join(format!("test_{name}"));
+        // -O0: the straight-line code takes a minute at -O1/-O2 (see the bench).
+        run(
+            Command::new("gcc")
+                .args(["-std=c99", "-O0"])
+                .args(STRICT)
+                .arg(dir.join(format!("test_{name}.c")))
+                .arg(dir.join(format!("{name}.c")))
+                .args(["-lm", "-o"])
+                .arg(&exe),
+            &format!("gcc {name}"),
+        );
+        let text = run(&mut Command::new(&exe), &format!("C cross-check of {name}"));
+        println!("C {name}: {}", text.lines().last().unwrap_or(""));
+        if have("g++", "--version") {
+            run(
+                Command::new("g++")
+                    .args(["-x", "c++", "-O0", "-fsyntax-only"])
+                    .args(STRICT)
+                    .arg(dir.join(format!("{name}.c"))),
+                &format!("g++ {name}"),
+            );
+        } else {
+            println!("SKIP C++ build: g++ not found");
+        }
+    }
+}
+
+#[test]
+fn c_single_precision_never_promotes_to_double() {
+    if !have("gcc", "--version") {
+        println!("SKIP f32 C checks: gcc not found");
+        return;
+    }
+    for arm in arms() {
+        let name = arm_name(&arm);
+        let dir = generated(&arm, Precision::F32).join("c");
+        run(
+            Command::new("gcc")
+                .args(["-std=c99", "-fsyntax-only", "-Wdouble-promotion"])
+                .args(STRICT)
+                .arg(dir.join(format!("{name}.c"))),
+            &format!("gcc f32 {name}"),
+        );
+        if have("arm-none-eabi-gcc", "--version") {
+            let obj = dir.join(format!("{name}.o"));
+            run(
+                Command::new("arm-none-eabi-gcc")
+                    .args([
+                        "-std=c99",
+                        "-mcpu=cortex-m4",
+                        "-mfpu=fpv4-sp-d16",
+                        "-mfloat-abi=hard",
+                        "-Os",
+                        "-c",
+                    ])
+                    .args(STRICT)
+                    .arg("-Wdouble-promotion")
+                    .arg(dir.join(format!("{name}.c")))
+                    .arg("-o")
+                    .arg(&obj),
+                &format!("arm-none-eabi-gcc {name}"),
+            );
+            if have("arm-none-eabi-size", "--version") {
+                let size = run(
+                    Command::new("arm-none-eabi-size").arg(&obj),
+                    "arm-none-eabi-size",
+                );
+                println!("Cortex-M4F f32 -Os {name}:\n{size}");
+            }
+        } else {
+            println!("SKIP Cortex-M4F build of {name}: arm-none-eabi-gcc not found (apt-get install gcc-arm-none-eabi)");
+        }
+    }
+}
+
+#[test]
+fn rust_crate_matches_reference() {
+    let target = root().join("target/generated-rust");
+    for arm in arms() {
+        let name = arm_name(&arm);
+        let dir = generated(&arm, Precision::F64).join("rust");
+        let text = run(
+            Command::new(env!("CARGO"))
+                .args(["test", "--quiet"])
+                .current_dir(&dir)
+                .env("CARGO_TARGET_DIR", &target)
+                .env("RUSTFLAGS", "-D warnings"),
+            &format!("cargo test of the {name} crate"),
+        );
+        assert!(
+            text.contains("5 passed"),
+            "{name}: golden tests did not run:\n{text}"
+        );
+    }
+}
+
+#[test]
+fn python_matches_reference() {
+    let numpy = Command::new("python3")
+        .args(["-c", "import numpy"])
+        .output()
+        .is_ok_and(|o| o.status.success());
+    if !numpy {
+        println!("SKIP Python checks: python3 with numpy not found (pip install -r tests/requirements.txt)");
+        return;
+    }
+    for arm in arms() {
+        let name = arm_name(&arm);
+        let dir = generated(&arm, Precision::F64).join("python");
+        let text = run(
+            Command::new("python3")
+                .arg(dir.join(format!("test_{name}.py")))
+                .env("PYTHONDONTWRITEBYTECODE", "1"),
+            &format!("Python cross-check of {name}"),
+        );
+        println!("Python {name}: {}", text.lines().last().unwrap_or(""));
+    }
+}
+
+#[test]
+fn generate_cli_refuses_foreign_folder_and_bad_precision() {
+    let bin = env!("CARGO_BIN_EXE_arcwright");
+    let tmp = root().join("target/emitted-tests/cli");
+    let _ = std::fs::remove_dir_all(&tmp);
+    std::fs::create_dir_all(tmp.join("mine")).unwrap();
+    std::fs::write(tmp.join("mine/notes.txt"), "keep me").unwrap();
+    let arm = root().join("examples/reach_arm.toml");
+    let out = Command::new(bin)
+        .arg("generate")
+        .arg(&arm)
+        .arg("--out")
+        .arg(tmp.join("mine"))
+        .output()
+        .unwrap();
+    assert_eq!(
+        out.status.code(),
+        Some(2),
+        "{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    assert_eq!(
+        std::fs::read_to_string(tmp.join("mine/notes.txt")).unwrap(),
+        "keep me"
+    );
+    let out = Command::new(bin)
+        .arg("generate")
+        .arg(&arm)
+        .args(["--precision", "f16", "--out"])
+        .arg(tmp.join("x"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    let out = Command::new(bin)
+        .arg("generate")
+        .arg(tmp.join("missing.toml"))
+        .arg("--out")
+        .arg(tmp.join("y"))
+        .output()
+        .unwrap();
+    assert_eq!(out.status.code(), Some(2));
+    assert!(!tmp.join("y").exists());
+}
