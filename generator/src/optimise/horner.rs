@@ -46,23 +46,6 @@ impl Default for Settings {
     }
 }
 
-impl Settings {
-    pub fn from_env() -> Self {
-        let g = |k: &str, d: usize| {
-            std::env::var(k)
-                .ok()
-                .and_then(|v| v.parse().ok())
-                .unwrap_or(d)
-        };
-        let d = Settings::default();
-        Settings {
-            cap: g("ARCW_CAP", d.cap),
-            inline_shared: g("ARCW_INLINE", d.inline_shared),
-            inline_linear: g("ARCW_LIN", d.inline_linear),
-        }
-    }
-}
-
 struct Emitter<'a> {
     out: &'a mut Program,
     memo: HashMap<Poly, Id>,

@@ -7,7 +7,9 @@
 //!    Horner). Multi-use nodes stay atoms, so the source's sharing survives; the
 //!    rebuild goes through the hash-consing [`Program`], which merges equal
 //!    subexpressions across all functions of the model.
-//! 2. [`egraph`]: `egg` on windows of the result (a bounded cone at a time) with only
+//! 2. [`linear`]: common sub-sums of the exact linear forms (the moment kernels
+//!    `Σ c_n ν_n`), by greedy extraction of the most frequent scaled pair.
+//! 3. [`egraph`]: `egg` on windows of the result (a bounded cone at a time) with only
 //!    rewrites that pay (factoring, constant folding, sign moves), extraction by a
 //!    flop-counting cost made DAG-aware by re-extraction, a window's result taken only
 //!    if it is cheaper. Hard limits on nodes, iterations and time per window and in
@@ -18,6 +20,7 @@
 
 mod egraph;
 mod horner;
+mod linear;
 mod report;
 
 pub use report::{FunctionOps, Report};
@@ -115,7 +118,9 @@ pub fn optimise(model: &Model, limits: &Limits) -> (Model, Report) {
     let funcs = functions(model);
     let roots: Vec<Id> = funcs.iter().flat_map(|(_, r)| r.iter().copied()).collect();
 
-    let (p1, ids1) = horner::run(&model.program, &roots, &horner::Settings::from_env());
+    let (p1, ids1) = horner::run(&model.program, &roots, &horner::Settings::default());
+    // Common sub-sums of the moment kernels, with a share of the time budget.
+    let (p1, ids1) = linear::run(&p1, &ids1, limits.time_limit / 4);
     let after_factoring = start.elapsed();
     let (p2, ids2, eg) = egraph::run(&p1, &ids1, limits);
 

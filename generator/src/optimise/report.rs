@@ -41,7 +41,7 @@ pub struct Report {
     pub total_after: OpCount,
     pub nodes_before: usize,
     pub nodes_after: usize,
-    /// After the exact factoring stage, before the e-graph.
+    /// After the exact stages (factoring, linear sub-sums), before the e-graph.
     pub after_factoring: OpCount,
     pub factoring_time: Duration,
     pub egraph: EgraphStats,
@@ -91,7 +91,7 @@ impl fmt::Display for Report {
         )?;
         writeln!(
             f,
-            "nodes {} → {}; factoring → {} in {:.2?}",
+            "nodes {} → {}; exact stages (Horner, linear sums) → {} in {:.2?}",
             self.nodes_before,
             self.nodes_after,
             ops(&self.after_factoring).trim_start(),
