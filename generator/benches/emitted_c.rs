@@ -1,0 +1,211 @@
+//! Speed and size of the emitted C for examples/reach_arm.toml (two segments, degree 2,
+//! order 4), against the Rust numeric reference: `cargo bench --bench emitted_c`.
+//!
+//! Prints: op counts per function, gcc -O2 compile time and object size, ns per call of
+//! B + C + G in C and in the reference (and the derived-program interpreter), the f32
+//! Cortex-M4F flash size when arm-none-eabi-gcc is installed, and `generate` end to end.
+
+use arcwright::arm::parse_arm_file;
+use arcwright::derive::derive;
+use arcwright::emit::{emit, plan::Plan, write::write_tree, Options, Precision};
+use arcwright::evaluate::Evaluator;
+use arcwright::reference::{Kinematics, Reference};
+use std::path::Path;
+use std::process::Command;
+use std::time::Instant;
+
+const DRIVER: &str = r#"
+#define _POSIX_C_SOURCE 199309L
+#include "reach_arm.h"
+#include <stdio.h>
+#include <time.h>
+int main(void) {
+    double q[REACH_ARM_NQ] = {9.0, -4.0, 3.0, 12.0, 5.0, -6.0};
+    double qd[REACH_ARM_NQ] = {0.3, -0.2, 0.1, 0.4, 0.2, -0.1};
+    double B[36], C[36], G[6], sink = 0.0;
+    struct timespec a, b;
+    long i, n = 20000;
+    clock_gettime(CLOCK_MONOTONIC, &a);
+    for (i = 0; i < n; ++i) {
+        q[0] += 1e-9;
+        reach_arm_inertia(q, B);
+        reach_arm_coriolis(q, qd, C);
+        reach_arm_gravity(q, G);
+        sink += B[7] + C[8] + G[2];
+    }
+    clock_gettime(CLOCK_MONOTONIC, &b);
+    printf("%.0f %g\n", ((double)(b.tv_sec - a.tv_sec) * 1e9 + (double)(b.tv_nsec - a.tv_nsec)) / (double)n, sink);
+    return 0;
+}
+"#;
+
+fn main() {
+    let root = Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .unwrap()
+        .to_path_buf();
+    let arm_path = root.join("examples/reach_arm.toml");
+    let text = std::fs::read_to_string(&arm_path).unwrap();
+    let (arm, _) = parse_arm_file(&arm_path).unwrap();
+
+    let t = Instant::now();
+    let model = derive(&arm);
+    let files = emit(&model, &text, Options::default()).unwrap();
+    let out = root.join("target/bench-emitted/reach_arm");
+    write_tree(&out, &files).unwrap();
+    println!(
+        "generate (derive + plan + golden + emit + write), in-process: {:.2?}",
+        t.elapsed()
+    );
+
+    let plan = Plan::new(&model, true);
+    println!(
+        "kernel table: {} rows, {} non-zeros",
+        plan.table.rows.len(),
+        plan.table_nnz()
+    );
+    for (name, f) in [
+        ("inertia", &plan.inertia),
+        ("coriolis", &plan.coriolis),
+        ("gravity", &plan.gravity),
+        ("actuation", &plan.actuation),
+        ("tip_jacobian", &plan.tip_jacobian),
+        ("kinetic_energy", &plan.kinetic_energy),
+        ("potential_energy", &plan.potential_energy),
+        ("forward_dynamics", &plan.dynamics),
+    ] {
+        println!("ops {name:>17}: {}", f.ops);
+    }
+    let plain = Plan::new(&model, false);
+    println!(
+        "without the kernel table: inertia {}, coriolis {}",
+        plain.inertia.ops, plain.coriolis.ops
+    );
+
+    let c = out.join("c");
+    std::fs::write(c.join("bench.c"), DRIVER).unwrap();
+    let t = Instant::now();
+    let ok = Command::new("gcc")
+        .args(["-std=c99", "-O2", "-c", "reach_arm.c", "-o", "reach_arm.o"])
+        .current_dir(&c)
+        .status()
+        .is_ok_and(|s| s.success());
+    if !ok {
+        println!("gcc not available: no C figures");
+        return;
+    }
+    println!("gcc -O2 compile of reach_arm.c: {:.1?}", t.elapsed());
+    let size = Command::new("size")
+        .arg("reach_arm.o")
+        .current_dir(&c)
+        .output()
+        .unwrap();
+    print!(
+        "object size (gcc -O2, f64):\n{}",
+        String::from_utf8_lossy(&size.stdout)
+    );
+    Command::new("gcc")
+        .args([
+            "-std=c99",
+            "-O2",
+            "bench.c",
+            "reach_arm.o",
+            "-lm",
+            "-o",
+            "bench",
+        ])
+        .current_dir(&c)
+        .status()
+        .unwrap();
+    let run = Command::new(c.join("bench")).output().unwrap();
+    let ns: f64 = String::from_utf8_lossy(&run.stdout)
+        .split_whitespace()
+        .next()
+        .unwrap()
+        .parse()
+        .unwrap();
+    println!("emitted C (f64, -O2), B + C + G: {ns:.0} ns/call");
+
+    let q = [9.0, -4.0, 3.0, 12.0, 5.0, -6.0];
+    let qd = [0.3, -0.2, 0.1, 0.4, 0.2, -0.1];
+    let reference = Reference::new(&arm, Kinematics::Truncated(arm.expansion_order));
+    let n = 200;
+    let t = Instant::now();
+    let mut sink = 0.0;
+    for _ in 0..n {
+        sink += reference.inertia(&q)[1][1]
+            + reference.coriolis(&q, &qd)[1][2]
+            + reference.gravity(&q)[2];
+    }
+    let ns_ref = t.elapsed().as_nanos() as f64 / n as f64;
+    println!(
+        "Rust numeric reference, B + C + G: {ns_ref:.0} ns/call ({:.0}x the C) [{sink:.3}]",
+        ns_ref / ns
+    );
+    let ev = Evaluator::new(&model);
+    let t = Instant::now();
+    for _ in 0..n {
+        sink += ev.terms(&q, &qd).b[1][1];
+    }
+    let ns_ev = t.elapsed().as_nanos() as f64 / n as f64;
+    println!("derived-program interpreter, all terms: {ns_ev:.0} ns/call [{sink:.3}]");
+
+    // f32 for a Cortex-M4F.
+    let out32 = root.join("target/bench-emitted/reach_arm_f32");
+    let files32 = emit(
+        &model,
+        &text,
+        Options {
+            precision: Precision::F32,
+        },
+    )
+    .unwrap();
+    write_tree(&out32, &files32).unwrap();
+    let c32 = out32.join("c");
+    let t = Instant::now();
+    let arm_ok = Command::new("arm-none-eabi-gcc")
+        .args([
+            "-std=c99",
+            "-mcpu=cortex-m4",
+            "-mfpu=fpv4-sp-d16",
+            "-mfloat-abi=hard",
+            "-Os",
+            "-c",
+            "reach_arm.c",
+            "-o",
+            "m4.o",
+        ])
+        .current_dir(&c32)
+        .status()
+        .is_ok_and(|s| s.success());
+    if arm_ok {
+        println!("arm-none-eabi-gcc -Os compile: {:.1?}", t.elapsed());
+        let size = Command::new("arm-none-eabi-size")
+            .arg("m4.o")
+            .current_dir(&c32)
+            .output()
+            .unwrap();
+        print!(
+            "Cortex-M4F (f32, -Os) size:\n{}",
+            String::from_utf8_lossy(&size.stdout)
+        );
+    } else {
+        println!("arm-none-eabi-gcc not available: no Cortex-M4F size");
+    }
+
+    let bin = root.join("target/release/arcwright");
+    if bin.exists() {
+        let t = Instant::now();
+        let st = Command::new(&bin)
+            .arg("generate")
+            .arg(&arm_path)
+            .arg("--out")
+            .arg(root.join("target/bench-emitted/cli"))
+            .status()
+            .unwrap();
+        println!(
+            "`arcwright generate` (release binary) end to end: {:.2?} ({st})",
+            t.elapsed()
+        );
+    }
+}
