@@ -14,7 +14,7 @@ use crate::ir::{Cx, Id, Node, Program, Var};
 use crate::local_form::{mono_exp, Atom, CForm, LinForm, Mono, MONO_ONE};
 use crate::segment_integrals::{by_power, Field, Reducer, WeightId};
 use num_traits::{One, Zero};
-use std::collections::HashMap;
+use rustc_hash::FxHashMap as HashMap;
 
 /// The derived model: output nodes of one program, exact to the expansion order.
 #[derive(Clone, Debug)]
@@ -91,6 +91,9 @@ enum KernelKey {
     Double { w: WeightId, s: u32, t: u32 },
 }
 
+/// Row `s` of segment `seg`'s kernel matrix (weight `w`) applied to a grouped field.
+type AppliedKey = (usize, WeightId, Groups, u32);
+
 struct Deriver<'a> {
     arm: &'a Arm,
     p: Program,
@@ -102,6 +105,9 @@ struct Deriver<'a> {
     /// Kernel nodes by segment and key, and the key of each kernel part.
     kernels: HashMap<(usize, KernelKey), Cx>,
     kernel_of: HashMap<Id, (usize, KernelKey, bool)>,
+    /// Rows of kernel matrices applied to grouped fields, shared across forms.
+    applied: HashMap<AppliedKey, Cx>,
+    applied_of: HashMap<Id, (AppliedKey, bool)>,
     dmemo: HashMap<(Id, usize), Id>,
 }
 
@@ -114,10 +120,12 @@ impl<'a> Deriver<'a> {
             reducer: Reducer::new(),
             offsets,
             lengths: arm.segments.iter().map(|s| s.length.clone()).collect(),
-            local: HashMap::new(),
-            kernels: HashMap::new(),
-            kernel_of: HashMap::new(),
-            dmemo: HashMap::new(),
+            local: HashMap::default(),
+            kernels: HashMap::default(),
+            kernel_of: HashMap::default(),
+            applied: HashMap::default(),
+            applied_of: HashMap::default(),
+            dmemo: HashMap::default(),
         }
     }
 
@@ -296,38 +304,84 @@ impl<'a> Deriver<'a> {
     }
 
     /// `Re` (or `Im`, with `im`) of `Σ_{s,t} conj(A_s) B_t D_st`: the double integral of
-    /// two grouped fields. Only the part asked for is built; when `A` and `B` are the same
-    /// field the Hermitian kernel (`D_ts = conj D_st`) halves the work.
+    /// two grouped fields, as `Σ_s conj(A_s) Y_s` with `Y = 𝔻 B` shared by every form
+    /// that has `B` on the right (the Gram entries of one column, the swirl terms).
     fn double(&mut self, seg: usize, a: &Groups, b: &Groups, w: WeightId, im: bool) -> Id {
-        let same = a == b;
-        let mut acc = Vec::new();
-        for (ia, &(s, ca)) in a.iter().enumerate() {
-            for (ib, &(t, cb)) in b.iter().enumerate() {
-                if same && ib < ia {
-                    continue;
-                }
-                let k = self.kernel(seg, KernelKey::Double { w, s, t });
-                // z = conj(A_s) B_t
-                let rr = self.p.mul(ca.re, cb.re);
-                let ii = self.p.mul(ca.im, cb.im);
-                let zr = self.p.add(rr, ii);
-                let ri = self.p.mul(ca.re, cb.im);
-                let ir = self.p.mul(ca.im, cb.re);
-                let zi = self.p.sub(ri, ir);
-                let term = if im {
-                    let x = self.p.mul(zr, k.im);
-                    let y = self.p.mul(zi, k.re);
-                    self.p.add(x, y)
-                } else {
-                    let x = self.p.mul(zr, k.re);
-                    let y = self.p.mul(zi, k.im);
-                    self.p.sub(x, y)
-                };
-                let twice = same && ib > ia;
-                acc.push(if twice { self.p.scale(&int(2), term) } else { term });
-            }
+        let mut acc = Vec::with_capacity(a.len());
+        for &(s, ca) in a {
+            let y = self.kernel_apply(seg, b, w, s);
+            let term = if im {
+                let x = self.p.mul(ca.re, y.im);
+                let z = self.p.mul(ca.im, y.re);
+                self.p.sub(x, z)
+            } else {
+                let x = self.p.mul(ca.re, y.re);
+                let z = self.p.mul(ca.im, y.im);
+                self.p.add(x, z)
+            };
+            acc.push(term);
         }
         self.p.sum(&acc)
+    }
+
+    /// `Y_s = Σ_t D_st B_t`, row `s` of the kernel matrix applied to a grouped field.
+    fn kernel_apply(&mut self, seg: usize, b: &Groups, w: WeightId, s: u32) -> Cx {
+        let key = (seg, w, b.clone(), s);
+        if let Some(y) = self.applied.get(&key) {
+            return *y;
+        }
+        let mut terms = Vec::with_capacity(b.len());
+        for &(t, cb) in b {
+            let k = self.kernel(seg, KernelKey::Double { w, s, t });
+            terms.push(self.p.cx_mul(k, cb));
+        }
+        let y = self.cx_sum(&terms);
+        self.applied.insert(key.clone(), y);
+        for (id, part_im) in [(y.re, false), (y.im, true)] {
+            if self.p.as_const(id).is_none() {
+                self.applied_of.entry(id).or_insert_with(|| (key.clone(), part_im));
+            }
+        }
+        y
+    }
+
+    /// `∂Y_s/∂q_x` for `Y = 𝔻 B`, as rows of the kernel matrix applied to other fields,
+    /// so the Coriolis terms reuse the columns `B` already computed:
+    /// `∂Y_s/∂q_{j,i} = (𝔻 ∂B/∂q_{j,i})_s` for `i ≥ 1` (kernels do not depend on it), and
+    /// `∂Y_s/∂q_{j,0} = L i ((𝔻 τB)_s − Y_{s+1})` from `D_st' = i(D_{s,t+1} − D_{s+1,t})`
+    /// (the coefficients of `B` do not depend on `a`).
+    fn d_applied(&mut self, key: &AppliedKey, part_im: bool, x: usize) -> Id {
+        let (seg, w, b, s) = key.clone();
+        let (jx, i) = self.coord(x);
+        if jx != seg {
+            return self.p.zero();
+        }
+        let y = if i == 0 {
+            let shifted: Groups = b.iter().map(|&(t, c)| (t + 1, c)).collect();
+            let ys = self.kernel_apply(seg, &shifted, w, s);
+            let y1 = self.kernel_apply(seg, &b, w, s + 1);
+            let diff = Cx { re: self.p.sub(ys.re, y1.re), im: self.p.sub(ys.im, y1.im) };
+            let l = self.lengths[seg].clone();
+            let idiff = self.p.cx_times_i(diff);
+            self.p.cx_scale(&l, idiff)
+        } else {
+            let mut db: Groups = Vec::with_capacity(b.len());
+            for &(t, c) in &b {
+                let dc = Cx { re: self.d(c.re, x), im: self.d(c.im, x) };
+                if !(self.p.is_zero(dc.re) && self.p.is_zero(dc.im)) {
+                    db.push((t, dc));
+                }
+            }
+            if db.is_empty() {
+                return self.p.zero();
+            }
+            self.kernel_apply(seg, &db, w, s)
+        };
+        if part_im {
+            y.im
+        } else {
+            y.re
+        }
     }
 
     fn cx_sum(&mut self, terms: &[Cx]) -> Cx {
@@ -387,7 +441,9 @@ impl<'a> Deriver<'a> {
         if let Some(&r) = self.dmemo.get(&(id, x)) {
             return r;
         }
-        let r = if let Some(&(seg, key, part_im)) = self.kernel_of.get(&id) {
+        let r = if let Some((key, part_im)) = self.applied_of.get(&id).cloned() {
+            self.d_applied(&key, part_im, x)
+        } else if let Some(&(seg, key, part_im)) = self.kernel_of.get(&id) {
             if x == self.offsets[seg] {
                 self.d_kernel(seg, key, part_im)
             } else {

@@ -9,7 +9,7 @@
 
 use crate::exact::Q;
 use num_traits::{One, Zero};
-use std::collections::HashMap;
+use rustc_hash::FxHashMap as HashMap;
 
 /// Handle of a node. Nodes are created children-first, so ids are a topological order.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -68,7 +68,7 @@ impl Default for Program {
 
 impl Program {
     pub fn new() -> Self {
-        let mut p = Program { nodes: Vec::new(), index: HashMap::new() };
+        let mut p = Program { nodes: Vec::new(), index: HashMap::default() };
         p.intern(Node::Const(Q::zero()));
         p.intern(Node::Const(Q::one()));
         p
@@ -300,7 +300,7 @@ pub struct OpCount {
 }
 
 /// A complex value as a pair of real nodes (planar vectors and unit rotations).
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
 pub struct Cx {
     pub re: Id,
     pub im: Id,
