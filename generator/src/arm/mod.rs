@@ -106,6 +106,38 @@ impl Actuator {
     }
 }
 
+/// Where `arcwright report` samples configurations: the optional `[workspace]` table.
+///
+/// A sample bends every segment by a base bending `a_j = L_j q_{j,0}` with
+/// `|a_j| ≤ base_bending`, and its higher coefficients add at most `extra_bending` of
+/// bending anywhere along the segment: `Σ_{i≥1} |L_j q_{j,i}| / (i+1) ≤ extra_bending`.
+#[derive(Clone, Debug, PartialEq)]
+pub struct Workspace {
+    /// Largest base bending `|L_j q_{j,0}|` of a segment [rad], > 0.
+    pub base_bending: f64,
+    /// Largest extra bending from the higher curvature coefficients [rad], ≥ 0.
+    pub extra_bending: f64,
+    /// Number of sampled configurations, ≥ 1.
+    pub samples: usize,
+    /// Seed of the deterministic sampler.
+    pub seed: u64,
+}
+
+impl Default for Workspace {
+    /// π of base bending, π/2 of extra bending, 200 samples, seed 1.
+    fn default() -> Self {
+        Workspace {
+            base_bending: std::f64::consts::PI,
+            extra_bending: std::f64::consts::FRAC_PI_2,
+            samples: 200,
+            seed: 1,
+        }
+    }
+}
+
+/// Largest number of workspace samples an arm file may ask for.
+pub const MAX_WORKSPACE_SAMPLES: usize = 1_000_000;
+
 /// A validated arm: every invariant of MODEL.md holds (positive lengths and
 /// stiffness, actuators on existing segments, orders within range).
 #[derive(Clone, Debug, PartialEq)]
@@ -119,6 +151,8 @@ pub struct Arm {
     pub segments: Vec<Segment>,
     pub payload: Payload,
     pub actuators: Vec<Actuator>,
+    /// The `[workspace]` table, if the file has one (sampling bounds for reports).
+    pub workspace: Option<Workspace>,
 }
 
 impl Arm {
@@ -133,6 +167,10 @@ impl Arm {
     /// Index in `q` of the first coordinate of segment `j` (0-based).
     pub fn coord_offset(&self, j: usize) -> usize {
         self.segments[..j].iter().map(Segment::n_coords).sum()
+    }
+    /// The workspace to sample: the file's `[workspace]` table or the default.
+    pub fn workspace_or_default(&self) -> Workspace {
+        self.workspace.clone().unwrap_or_default()
     }
     /// The same arm at another expansion order.
     pub fn with_order(&self, order: u32) -> Arm {

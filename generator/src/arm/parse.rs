@@ -139,6 +139,7 @@ pub(super) struct RawArm {
     pub segments: Vec<RawSegment>,
     pub payload: Option<RawPayload>,
     pub actuators: Vec<RawActuator>,
+    pub workspace: Option<RawWorkspace>,
 }
 
 #[derive(Debug)]
@@ -155,6 +156,14 @@ pub(super) struct RawSegment {
 pub(super) struct RawPayload {
     pub mass: Option<Sp<Rational>>,
     pub rotary_inertia: Option<Sp<Rational>>,
+}
+
+#[derive(Debug)]
+pub(super) struct RawWorkspace {
+    pub base_bending: Option<Sp<Rational>>,
+    pub extra_bending: Option<Sp<Rational>>,
+    pub samples: Option<Sp<i64>>,
+    pub seed: Option<Sp<i64>>,
 }
 
 #[derive(Debug)]
@@ -178,6 +187,7 @@ const ROOT_KEYS: &[&str] = &[
     "segment",
     "payload",
     "actuator",
+    "workspace",
 ];
 const SEGMENT_KEYS: &[&str] = &[
     "length",
@@ -188,6 +198,7 @@ const SEGMENT_KEYS: &[&str] = &[
     "damping",
 ];
 const PAYLOAD_KEYS: &[&str] = &["mass", "rotary_inertia"];
+const WORKSPACE_KEYS: &[&str] = &["base_bending", "extra_bending", "samples", "seed"];
 const ACTUATOR_KINDS: &[&str] = &["tendon", "moment", "end_force"];
 const TENDON_KEYS: &[&str] = &["kind", "offset", "through_segment"];
 const MOMENT_KEYS: &[&str] = &["kind", "segment"];
@@ -308,6 +319,25 @@ pub(super) fn read_raw(ctx: &Ctx) -> Result<RawArm, ArmError> {
         actuators.push(read_actuator(ctx, tab)?);
     }
 
+    let workspace = match root.get("workspace") {
+        Some((item, at)) => {
+            let t = item.as_table_like().ok_or_else(|| {
+                ctx.field_err(
+                    at,
+                    "workspace",
+                    format!("expected a table ([workspace]), got {}", item_kind(item)),
+                )
+            })?;
+            let tab = Tab {
+                t,
+                at,
+                path: "workspace".to_string(),
+            };
+            Some(read_workspace(ctx, &tab)?)
+        }
+        None => None,
+    };
+
     Ok(RawArm {
         name,
         gravity,
@@ -316,6 +346,7 @@ pub(super) fn read_raw(ctx: &Ctx) -> Result<RawArm, ArmError> {
         segments,
         payload,
         actuators,
+        workspace,
     })
 }
 
@@ -361,6 +392,28 @@ fn read_payload(ctx: &Ctx, tab: &Tab) -> Result<RawPayload, ArmError> {
     Ok(RawPayload {
         mass,
         rotary_inertia,
+    })
+}
+
+fn read_workspace(ctx: &Ctx, tab: &Tab) -> Result<RawWorkspace, ArmError> {
+    check_keys(ctx, tab, WORKSPACE_KEYS)?;
+    let num = |key: &str| -> Result<Option<Sp<Rational>>, ArmError> {
+        match tab.get(key) {
+            Some((item, at)) => Ok(Some(read_number(ctx, item, at, &tab.field_name(key))?)),
+            None => Ok(None),
+        }
+    };
+    let int = |key: &str| -> Result<Option<Sp<i64>>, ArmError> {
+        match tab.get(key) {
+            Some((item, at)) => Ok(Some(read_int(ctx, item, at, &tab.field_name(key))?)),
+            None => Ok(None),
+        }
+    };
+    Ok(RawWorkspace {
+        base_bending: num("base_bending")?,
+        extra_bending: num("extra_bending")?,
+        samples: int("samples")?,
+        seed: int("seed")?,
     })
 }
 
@@ -1028,11 +1081,11 @@ mod tests {
             "unknown key `mas` in payload; did you mean `mass`?",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\ncurvature = 3\n"),
+            &format!("name = \"a\"\n{SEG}[limits]\ncurvature = 3\n"),
             7,
             2,
             None,
-            "unknown key `workspace` at the top level",
+            "unknown key `limits` at the top level",
         );
         err_at(
             &format!("name = \"a\"\n{SEG}[[actuator]]\nkind = \"tendon\"\nofset = 0.01\n"),
@@ -1302,6 +1355,106 @@ mod tests {
             );
         }
         assert_eq!(hang.segments[2].density.coeffs, vec![q(6, 25), q(-2, 25)]);
+    }
+
+    #[test]
+    fn workspace_table() {
+        use crate::arm::Workspace;
+        // Absent: None, and the default bounds apply.
+        let arm = ok(&format!("name = \"a\"\n{SEG}"));
+        assert_eq!(arm.workspace, None);
+        assert_eq!(arm.workspace_or_default(), Workspace::default());
+        // Every key.
+        let arm = ok(&format!(
+            "name = \"a\"\n{SEG}[workspace]\nbase_bending = 2.5\nextra_bending = 0\nsamples = 40\nseed = 7\n"
+        ));
+        assert_eq!(
+            arm.workspace,
+            Some(Workspace {
+                base_bending: 2.5,
+                extra_bending: 0.0,
+                samples: 40,
+                seed: 7
+            })
+        );
+        // Missing keys take their defaults; inline tables work too.
+        let arm = ok(&format!(
+            "name = \"a\"\nworkspace = {{ samples = 12 }}\n{SEG}"
+        ));
+        let ws = arm.workspace.unwrap();
+        assert_eq!(ws.samples, 12);
+        assert_eq!(ws.base_bending, Workspace::default().base_bending);
+        assert_eq!(ws.seed, Workspace::default().seed);
+        // An empty table is all defaults.
+        let arm = ok(&format!("name = \"a\"\n{SEG}[workspace]\n"));
+        assert_eq!(arm.workspace, Some(Workspace::default()));
+    }
+
+    #[test]
+    fn workspace_errors() {
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bend = 1\n"),
+            8,
+            1,
+            Some("workspace"),
+            "unknown key `base_bend` in workspace; did you mean `base_bending`?",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bending = 0\n"),
+            8,
+            16,
+            Some("workspace.base_bending"),
+            "workspace.base_bending: must be in (0, 4π] rad",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nextra_bending = -0.1\n"),
+            8,
+            17,
+            Some("workspace.extra_bending"),
+            "must be in [0, 4π] rad (4π ≈ 12.5664), got -0.1",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bending = 13\n"),
+            8,
+            16,
+            Some("workspace.base_bending"),
+            "got 13",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nsamples = 0\n"),
+            8,
+            11,
+            Some("workspace.samples"),
+            "workspace.samples: must be an integer in 1..=1000000, got 0",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nsamples = 2.5\n"),
+            8,
+            11,
+            Some("workspace.samples"),
+            "expected an integer, got the float `2.5`",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nseed = -3\n"),
+            8,
+            8,
+            Some("workspace.seed"),
+            "workspace.seed: must be a non-negative integer, got -3",
+        );
+        err_at(
+            &format!("name = \"a\"\nworkspace = 3\n{SEG}"),
+            2,
+            13,
+            Some("workspace"),
+            "expected a table ([workspace]), got an integer",
+        );
+        err_at(
+            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bending = \"pi\"\n"),
+            8,
+            16,
+            Some("workspace.base_bending"),
+            "expected a number, got a string",
+        );
     }
 
     #[test]
