@@ -12,6 +12,7 @@ pub mod dynamics;
 pub mod emit;
 pub mod evaluate;
 pub mod exact;
+pub mod integrate;
 pub mod ir;
 pub mod local_form;
 pub mod moments;
