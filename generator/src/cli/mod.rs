@@ -3,6 +3,11 @@
 mod eval;
 mod generate;
 mod json;
+mod new;
+mod plot;
+mod progress;
+mod report;
+mod simulate;
 
 use clap::{Parser, Subcommand};
 use std::fmt;
@@ -14,12 +19,18 @@ use std::process::ExitCode;
 pub struct Cli {
     #[command(subcommand)]
     command: Command,
+    /// No progress bars or notes on standard error; results and errors only.
+    #[arg(long, short, global = true)]
+    quiet: bool,
 }
 
 #[derive(Subcommand, Debug)]
 enum Command {
     Eval(eval::EvalArgs),
     Generate(generate::GenerateArgs),
+    Report(report::ReportArgs),
+    Simulate(simulate::SimulateArgs),
+    New(new::NewArgs),
 }
 
 /// A command failure with the exit code it maps to.
@@ -58,9 +69,13 @@ pub fn main() -> ExitCode {
             return ExitCode::from(code);
         }
     };
+    progress::set_quiet(cli.quiet);
     let result = match cli.command {
         Command::Eval(args) => eval::run(&args),
         Command::Generate(args) => generate::run(&args),
+        Command::Report(args) => report::run(&args),
+        Command::Simulate(args) => simulate::run(&args),
+        Command::New(args) => new::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,

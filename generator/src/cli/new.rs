@@ -1,0 +1,141 @@
+//! `arcwright new`: a commented starter arm file to edit.
+
+use super::{progress, CliError};
+use crate::arm::parse_arm_str;
+use clap::Args;
+use std::path::{Path, PathBuf};
+
+/// The starter file, with `{name}` and `{file}` to fill in.
+const STARTER: &str = include_str!("starter_arm.toml");
+
+/// Write a commented starter arm file (two tapered segments, tendons, a payload).
+///
+/// Every number in it is a placeholder to replace with your arm's; the comments say
+/// what each field means and which units it takes. Refuses to overwrite an existing
+/// file unless --force is given.
+#[derive(Args, Debug)]
+#[command(
+    after_help = "Example:\n  arcwright new gripper_arm.toml\n  arcwright eval gripper_arm.toml --q \"2,0,3,0\""
+)]
+pub struct NewArgs {
+    /// Where to write the file.
+    #[arg(default_value = "arm.toml")]
+    path: PathBuf,
+    /// The arm's name (code prefix, [a-z][a-z0-9_]*); default: from the file name.
+    #[arg(long)]
+    name: Option<String>,
+    /// Overwrite the file if it exists.
+    #[arg(long)]
+    force: bool,
+}
+
+/// `[a-z][a-z0-9_]*`, at most 64 characters: what the arm file accepts as a name.
+fn is_name(s: &str) -> bool {
+    let b = s.as_bytes();
+    !b.is_empty()
+        && b.len() <= 64
+        && b[0].is_ascii_lowercase()
+        && b.iter()
+            .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || *c == b'_')
+}
+
+/// A name from the file stem: lower case, other characters as `_`, `arm` if that
+/// does not make a valid name.
+fn name_from_path(path: &Path) -> String {
+    let stem = path.file_stem().and_then(|s| s.to_str()).unwrap_or("");
+    let mut name: String = stem
+        .chars()
+        .map(|c| {
+            if c.is_ascii_alphanumeric() {
+                c.to_ascii_lowercase()
+            } else {
+                '_'
+            }
+        })
+        .collect();
+    name.truncate(64);
+    if is_name(&name) {
+        name
+    } else {
+        "arm".to_string()
+    }
+}
+
+/// The starter text for `name`, mentioning `file` in its usage hints.
+pub(crate) fn starter_text(name: &str, file: &str) -> String {
+    STARTER.replace("{name}", name).replace("{file}", file)
+}
+
+pub fn run(args: &NewArgs) -> Result<(), CliError> {
+    let name = match &args.name {
+        Some(n) if is_name(n) => n.clone(),
+        Some(n) => {
+            return Err(CliError::Input(format!(
+                "--name: `{n}` is not a valid arm name (lower case letter first, then lower case letters, digits or _; at most 64)"
+            )))
+        }
+        None => name_from_path(&args.path),
+    };
+    if args.path.exists() && !args.force {
+        return Err(CliError::Input(format!(
+            "{} already exists; pass --force to overwrite it",
+            args.path.display()
+        )));
+    }
+    let file = args.path.display().to_string();
+    let file_hint = if file.contains(' ') {
+        format!("\"{file}\"")
+    } else {
+        file.clone()
+    };
+    let text = starter_text(&name, &file_hint);
+    // The starter must be a valid arm: check before writing anything.
+    parse_arm_str(&text, &file).map_err(|e| {
+        CliError::Failed(format!("internal error: the starter arm is invalid: {e}"))
+    })?;
+    if let Some(dir) = args.path.parent().filter(|d| !d.as_os_str().is_empty()) {
+        if !dir.is_dir() {
+            return Err(CliError::Input(format!(
+                "{}: no such directory",
+                dir.display()
+            )));
+        }
+    }
+    std::fs::write(&args.path, text)
+        .map_err(|e| CliError::Input(format!("writing {file}: {e}")))?;
+    progress::wrote(&args.path);
+    progress::note(&format!("edit it, then try: arcwright report {file_hint}"));
+    Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::derive::derive;
+    use crate::evaluate::Evaluator;
+
+    #[test]
+    fn starter_parses_derives_and_sags_under_gravity() {
+        let arm = parse_arm_str(&starter_text("starter", "arm.toml"), "arm.toml").unwrap();
+        assert_eq!(arm.name, "starter");
+        assert_eq!(arm.n_coords(), 4);
+        assert_eq!(arm.n_inputs(), 3);
+        assert_eq!(arm.workspace_or_default(), crate::arm::Workspace::default());
+        let model = derive(&arm);
+        let t = Evaluator::new(&model).terms(&[0.0; 4], &[0.0; 4]);
+        // Horizontal arm: gravity pulls the curvature negative, so G is positive.
+        assert!(t.g[0] > 0.0, "{:?}", t.g);
+        assert!(t.b[0][0] > 0.0);
+    }
+
+    #[test]
+    fn names_from_paths() {
+        assert_eq!(
+            name_from_path(Path::new("dir/Gripper-Arm.toml")),
+            "gripper_arm"
+        );
+        assert_eq!(name_from_path(Path::new("2arm.toml")), "arm");
+        assert_eq!(name_from_path(Path::new("arm.toml")), "arm");
+        assert!(is_name("a_1") && !is_name("A") && !is_name("_a") && !is_name(""));
+    }
+}
