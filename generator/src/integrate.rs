@@ -114,6 +114,9 @@ const D5: f64 = 701980252875.0 / 199316789632.0;
 const D6: f64 = -1453857185.0 / 822651844.0;
 const D7: f64 = 69997945.0 / 29380423.0;
 
+/// The solution at the requested output times: `(t, y(t))`.
+pub type Samples = Vec<(f64, Vec<f64>)>;
+
 /// Integrates `y' = f(t, y)` from `t0` to `t1 > t0` and returns the solution at each
 /// of `outputs` (ascending, inside `[t0, t1]`; values outside are skipped), computed
 /// by the continuous extension. `on_step(t)` is called after each accepted step.
@@ -125,7 +128,7 @@ pub fn integrate<E, F>(
     outputs: &[f64],
     opts: &Options,
     mut on_step: impl FnMut(f64),
-) -> Result<(Vec<(f64, Vec<f64>)>, Stats), IntegrateError<E>>
+) -> Result<(Samples, Stats), IntegrateError<E>>
 where
     F: FnMut(f64, &[f64], &mut [f64]) -> Result<(), E>,
 {
