@@ -143,7 +143,10 @@ fn c_matches_reference() {
     for arm in arms() {
         let name = arm_name(&arm);
         let dir = generated(&arm, Precision::F64).join("c");
-        let exe = dir.join(format!("test_{name}"));
+        // Build products go outside the output tree (another test reads it).
+        let bin = root().join("target/emitted-tests/bin");
+        std::fs::create_dir_all(&bin).unwrap();
+        let exe = bin.join(format!("test_{name}"));
         // -O0: the straight-line code takes a minute at -O1/-O2 (see the bench).
         run(
             Command::new("gcc")
@@ -188,7 +191,9 @@ fn c_single_precision_never_promotes_to_double() {
             &format!("gcc f32 {name}"),
         );
         if have("arm-none-eabi-gcc", "--version") {
-            let obj = dir.join(format!("{name}.o"));
+            let bin = root().join("target/emitted-tests/bin");
+            std::fs::create_dir_all(&bin).unwrap();
+            let obj = bin.join(format!("{name}_cortex_m4.o"));
             run(
                 Command::new("arm-none-eabi-gcc")
                     .args([

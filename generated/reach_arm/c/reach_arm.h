@@ -48,7 +48,7 @@ extern "C" {
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 11366 add, 14606 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10931 add, 14474 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_inertia(const double q[], double B[]);
 
@@ -56,13 +56,13 @@ void reach_arm_inertia(const double q[], double B[]);
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 24433 add, 30637 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 18352 add, 24141 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_coriolis(const double q[], const double qd[], double C[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1469 add, 2260 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1339 add, 2227 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity(const double q[], double G[]);
 
@@ -97,19 +97,19 @@ void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 927 add, 1579 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 853 add, 1555 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_tip_jacobian(const double q[], double J[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 11401 add, 14649 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10966 add, 14517 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_kinetic_energy(const double q[], const double qd[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 1035 add, 1607 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 960 add, 1594 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_potential_energy(const double q[]);
 
@@ -121,7 +121,7 @@ double reach_arm_potential_energy(const double q[]);
  * on an error qdd is filled with NaN.
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 26974 add, 34934 mul, 31 div, 6 sqrt, 6 trig.
+ * Operations: 19218 add, 25422 mul, 31 div, 6 sqrt, 6 trig.
  */
 int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);

@@ -17,11 +17,14 @@ pub struct Spelling<'a> {
     pub precision: Precision,
     /// Moment count of the pose moments of the function being printed.
     pub pose_count: usize,
+    /// Temporaries as elements `t[k]` of one array instead of variables `t<k>`.
+    pub temp_array: bool,
 }
 
 impl Syntax for Spelling<'_> {
     fn leaf(&self, leaf: &Leaf) -> String {
         match leaf {
+            Leaf::Temp(t) if self.temp_array => format!("t[{t}]"),
             Leaf::Temp(t) => format!("t{t}"),
             Leaf::Kernel(r) => format!("kern[{r}]"),
             Leaf::Input(v) => match *v {
@@ -77,13 +80,19 @@ pub struct StmtStyle {
     pub indent: usize,
     /// Wrap continued expressions in parentheses (Python).
     pub parens: bool,
+    /// Temporaries are elements of an array `t` (declared by the caller).
+    pub temp_array: bool,
 }
 
 /// The temporaries of a block, one statement each.
 pub fn temporaries(block: &Block, syn: &dyn Syntax, style: &StmtStyle) -> String {
     let mut out = String::new();
     for s in &block.stmts {
-        let prefix = format!("{}t{} = ", style.decl, s.temp);
+        let prefix = if style.temp_array {
+            format!("t[{}] = ", s.temp)
+        } else {
+            format!("{}t{} = ", style.decl, s.temp)
+        };
         out.push_str(&statement(
             &prefix,
             &s.expr,

@@ -99,12 +99,14 @@ impl Printer<'_> {
             plan,
             precision: self.precision,
             pose_count,
+            temp_array: false,
         };
         let style = StmtStyle {
             decl: format!("const {r} "),
             end: ";",
             indent: 4,
             parens: false,
+            temp_array: false,
         };
         let mut out = String::new();
         let mut rows = String::new();

@@ -172,7 +172,23 @@ impl Plan {
             ops
         };
         let func = |sched: &mut Scheduler, roots: &[Id], pose: bool| -> Func {
-            let block = sched.block(roots, use_kernels && !pose);
+            // The kernel table pays when kernels share little; where the program already
+            // shares sub-sums between kernels, straight-line code is cheaper. Take the
+            // schedule with fewer operations (the table keeps only rows in use).
+            let plain = sched.block(roots, false);
+            let block = if use_kernels && !pose {
+                let saved = sched.table.clone();
+                let with_table = sched.block(roots, true);
+                let cost = |b: &Block| b.ops.add + b.ops.mul;
+                if cost(&with_table) < cost(&plain) {
+                    with_table
+                } else {
+                    sched.table = saved;
+                    plain
+                }
+            } else {
+                plain
+            };
             let mut ops = block.ops + angle_ops(block.angles);
             for (&c, &pc) in block.nu_count.iter().zip(&block.pose_nu_count) {
                 ops += moment_ops(c, false) + moment_ops(pc, true);

@@ -52,12 +52,14 @@ fn function(
         plan,
         precision: Precision::F64,
         pose_count,
+        temp_array: false,
     };
     let style = StmtStyle {
         decl: String::new(),
         end: "",
         indent: 4,
         parens: true,
+        temp_array: false,
     };
     let mut out = String::new();
     let mut rows = String::new();

@@ -65,12 +65,14 @@ fn body(
         plan,
         precision: Precision::F64,
         pose_count,
+        temp_array: true,
     };
     let style = StmtStyle {
         decl: "let ".into(),
         end: ";",
         indent: 4,
         parens: false,
+        temp_array: true,
     };
     let mut out = String::new();
     let mut rows = String::new();
@@ -127,6 +129,12 @@ fn body(
         ));
     }
     out.push_str(init);
+    let temps = b.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
+    if temps > 0 {
+        // One array, not one `let` per temporary: rustc nests a debug-info scope per
+        // `let`, and thousands of them overflow LLVM's DWARF writer.
+        out.push_str(&format!("let mut t = [0.0f64; {temps}];\n"));
+    }
     out.push_str(&temporaries(b, &syn, &style));
     out.push_str(&outputs(b, &syn, &style, target));
     out.push_str(ret);
