@@ -191,9 +191,8 @@ fn c_single_precision_never_promotes_to_double() {
             &format!("gcc f32 {name}"),
         );
         if have("arm-none-eabi-gcc", "--version") {
-            let bin = root().join("target/emitted-tests/bin");
-            std::fs::create_dir_all(&bin).unwrap();
-            let obj = bin.join(format!("{name}_cortex_m4.o"));
+            // Warning-clean for the Cortex-M4F target; the full -Os build and its flash
+            // size are measured by `cargo bench --bench emitted_c` (minutes per arm).
             run(
                 Command::new("arm-none-eabi-gcc")
                     .args([
@@ -201,23 +200,13 @@ fn c_single_precision_never_promotes_to_double() {
                         "-mcpu=cortex-m4",
                         "-mfpu=fpv4-sp-d16",
                         "-mfloat-abi=hard",
-                        "-Os",
-                        "-c",
+                        "-fsyntax-only",
                     ])
                     .args(STRICT)
                     .arg("-Wdouble-promotion")
-                    .arg(dir.join(format!("{name}.c")))
-                    .arg("-o")
-                    .arg(&obj),
+                    .arg(dir.join(format!("{name}.c"))),
                 &format!("arm-none-eabi-gcc {name}"),
             );
-            if have("arm-none-eabi-size", "--version") {
-                let size = run(
-                    Command::new("arm-none-eabi-size").arg(&obj),
-                    "arm-none-eabi-size",
-                );
-                println!("Cortex-M4F f32 -Os {name}:\n{size}");
-            }
         } else {
             println!("SKIP Cortex-M4F build of {name}: arm-none-eabi-gcc not found (apt-get install gcc-arm-none-eabi)");
         }

@@ -2,11 +2,12 @@
 
 use super::eval::load_arm;
 use super::CliError;
+use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
 use crate::derive::{derive, Model};
-use crate::emit::{emit, write::write_tree, Options, Precision};
+use crate::emit::{emit, write::write_tree, OutFile, Options, Precision};
 use crate::optimise::{optimise, Limits};
 use clap::{Args, ValueEnum};
-use std::path::PathBuf;
+use std::path::{Path, PathBuf};
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
 pub enum PrecisionArg {
@@ -14,34 +15,64 @@ pub enum PrecisionArg {
     F64,
 }
 
+/// A target language of `generate`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum Language {
+    C,
+    Rust,
+    Python,
+}
+
+impl Language {
+    /// The output subfolder holding this language's files.
+    fn folder(self) -> &'static str {
+        match self {
+            Language::C => "c/",
+            Language::Rust => "rust/",
+            Language::Python => "python/",
+        }
+    }
+}
+
 /// Write C (DIR/c), Rust (DIR/rust) and Python (DIR/python) code for an arm.
 ///
 /// Each language gets the inertia, Coriolis, gravity, stiffness, damping and actuation
 /// terms, backbone poses, the tip Jacobian, energies and forward dynamics, and a test
-/// that compares them with golden values of the numeric reference. DIR is replaced as
-/// a whole (atomically); an existing DIR must be an earlier arcwright output.
+/// that compares them with golden values of the numeric reference. DIR also receives a
+/// copy of the arm file (arm.toml, with the order used). DIR is replaced as a whole
+/// (atomically); an existing DIR must be an earlier arcwright output.
 #[derive(Args, Debug)]
-#[command(
-    after_help = "Example:\n  arcwright generate examples/reach_arm.toml --out generated/reach_arm"
-)]
+#[command(after_help = "Examples:\n  \
+    arcwright generate examples/reach_arm.toml --out generated/reach_arm\n  \
+    arcwright generate examples/reach_arm.toml --out fw/model --lang c --precision f32\n  \
+    arcwright generate examples/reach_arm.toml --out generated/reach_arm --check   # in CI: exit 1 if stale")]
 pub struct GenerateArgs {
     /// Arm file (TOML).
     arm: PathBuf,
     /// Output folder.
     #[arg(long)]
     out: PathBuf,
+    /// Languages to write, comma-separated.
+    #[arg(long, value_enum, value_delimiter = ',', default_value = "c,rust,python")]
+    lang: Vec<Language>,
+    /// Expansion order N, overriding the arm file (the recorded arm.toml says N).
+    #[arg(long)]
+    order: Option<u32>,
     /// Floating-point type of the C code (Rust and Python use f64).
     #[arg(long, value_enum, default_value = "f64")]
     precision: PrecisionArg,
+    /// Write nothing; list the files that would change and exit 1 if any would.
+    #[arg(long)]
+    check: bool,
     /// Run the e-graph optimiser on the derived model before emitting.
     #[arg(long)]
     optimise: bool,
 }
 
 /// The model the emitters print: derived, and optimised on request. The optimiser is
-/// opt-in for now: measured on examples/reach_arm.toml, its output currently prints to
-/// more operations than the derived program (the emitters' moment-kernel table catches
-/// less of it) and takes ~9 s, so the default emits the derived model directly.
+/// opt-in for now: measured on examples/reach_arm.toml, its output prints to more
+/// operations than the derived program and takes seconds, so the default emits the
+/// derived model directly.
 fn model_for_emission(arm: &crate::arm::Arm, optimised: bool) -> Model {
     let model = derive(arm);
     if optimised {
@@ -51,16 +82,91 @@ fn model_for_emission(arm: &crate::arm::Arm, optimised: bool) -> Model {
     }
 }
 
+/// The arm file's text with `expansion_order` set to `order`, comments kept.
+fn with_order(text: &str, order: u32) -> Result<String, CliError> {
+    let mut doc: toml_edit::DocumentMut =
+        text.parse().map_err(|e| CliError::Input(format!("re-reading the arm file: {e}")))?;
+    doc["expansion_order"] = toml_edit::value(i64::from(order));
+    Ok(doc.to_string())
+}
+
 pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
-    let arm = load_arm(&args.arm, None)?;
-    let text = std::fs::read_to_string(&args.arm)
+    // Validate the file as written first, so errors point into it.
+    load_arm(&args.arm, args.order)?;
+    let mut text = std::fs::read_to_string(&args.arm)
         .map_err(|e| CliError::Input(format!("reading {}: {e}", args.arm.display())))?;
+    if let Some(order) = args.order.filter(|n| *n <= MAX_EXPANSION_ORDER) {
+        text = with_order(&text, order)?;
+    }
+    let arm = parse_arm_str(&text, &args.arm.display().to_string())
+        .map_err(|e| CliError::Input(e.to_string()))?;
     let precision = match args.precision {
         PrecisionArg::F32 => Precision::F32,
         PrecisionArg::F64 => Precision::F64,
     };
     let model = model_for_emission(&arm, args.optimise);
-    let files = emit(&model, &text, Options { precision }).map_err(CliError::Failed)?;
+    let files: Vec<OutFile> = emit(&model, &text, Options { precision })
+        .map_err(CliError::Failed)?
+        .into_iter()
+        .filter(|(path, _)| !path.contains('/') || args.lang.iter().any(|l| path.starts_with(l.folder())))
+        .collect();
+    if args.check {
+        let changes = changed_files(&args.out, &files);
+        if changes.is_empty() {
+            return super::print_stdout(&format!("{} is up to date\n", args.out.display()));
+        }
+        let mut msg = format!("{} is stale; `generate` would change:\n", args.out.display());
+        for c in &changes {
+            msg.push_str(&format!("  {c}\n"));
+        }
+        super::print_stdout(&msg)?;
+        return Err(CliError::Failed(format!("{} file(s) would change", changes.len())));
+    }
     write_tree(&args.out, &files).map_err(CliError::Input)?;
     Ok(())
+}
+
+/// Files that differ between what `generate` would write and what `dir` holds, as
+/// `changed PATH`, `new PATH` and `removed PATH`, sorted by path.
+fn changed_files(dir: &Path, files: &[OutFile]) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut expected: Vec<&str> = Vec::new();
+    for (path, text) in files {
+        expected.push(path);
+        match std::fs::read(dir.join(path)) {
+            Ok(bytes) if bytes == text.as_bytes() => {}
+            Ok(_) => out.push(format!("changed {path}")),
+            Err(_) => out.push(format!("new     {path}")),
+        }
+    }
+    for path in files_under(dir) {
+        if !expected.contains(&path.as_str()) {
+            out.push(format!("removed {path}"));
+        }
+    }
+    out.sort_by(|a, b| a[8..].cmp(&b[8..]));
+    out
+}
+
+/// Relative paths of the files below `dir` (build products of the shipped tests excluded).
+fn files_under(dir: &Path) -> Vec<String> {
+    let mut out = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        let Ok(entries) = std::fs::read_dir(&d) else { continue };
+        for e in entries.flatten() {
+            let p = e.path();
+            if p.is_dir() {
+                if p.file_name().is_some_and(|n| n != "target" && n != "__pycache__") {
+                    stack.push(p);
+                }
+            } else if let Ok(rel) = p.strip_prefix(dir) {
+                let rel = rel.to_string_lossy().replace('\\', "/");
+                if rel != "rust/Cargo.lock" {
+                    out.push(rel);
+                }
+            }
+        }
+    }
+    out
 }

@@ -59,6 +59,9 @@ impl Default for Options {
     }
 }
 
+/// Name of the copy of the arm file at the top of every output folder.
+pub const RECORDED_ARM: &str = "arm.toml";
+
 /// One output file: path relative to the output folder, and its text.
 pub type OutFile = (String, String);
 
@@ -84,6 +87,9 @@ fn emit_inner(model: &Model, arm_text: &str, options: Options) -> Result<Vec<Out
     files.extend(rust::emit(&plan, &meta, &golden)?);
     files.extend(python::emit(&plan, &meta, &golden)?);
     files.push((write::MARKER.to_string(), write::marker_text(&meta)));
+    // The arm file itself, so that the folder says what model it holds and can be
+    // re-derived and checked (`arcwright verify`) or compared without the original.
+    files.push((RECORDED_ARM.to_string(), arm_text.to_string()));
     files.sort();
     Ok(files)
 }
