@@ -1,5 +1,7 @@
 //! The `arcwright` command line. Exit codes: 0 ok, 1 a check failed, 2 bad input.
 
+mod compare;
+mod completions;
 mod eval;
 mod generate;
 mod json;
@@ -8,6 +10,7 @@ mod plot;
 mod progress;
 mod report;
 mod simulate;
+mod verify;
 
 use clap::{Parser, Subcommand};
 use std::fmt;
@@ -31,6 +34,9 @@ enum Command {
     Report(report::ReportArgs),
     Simulate(simulate::SimulateArgs),
     New(new::NewArgs),
+    Verify(verify::VerifyArgs),
+    Compare(compare::CompareArgs),
+    Completions(completions::CompletionsArgs),
 }
 
 /// A command failure with the exit code it maps to.
@@ -76,6 +82,9 @@ pub fn main() -> ExitCode {
         Command::Report(args) => report::run(&args),
         Command::Simulate(args) => simulate::run(&args),
         Command::New(args) => new::run(&args),
+        Command::Verify(args) => verify::run(&args),
+        Command::Compare(args) => compare::run(&args),
+        Command::Completions(args) => completions::run(&args),
     };
     match result {
         Ok(()) => ExitCode::SUCCESS,
