@@ -3,15 +3,13 @@
 use super::body::{
     angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
 };
+use super::constants::{base_context, strings, MomentConstants};
 use super::golden::Golden;
-use super::number::{literal, Precision};
-use super::plan::{moment_ops, Func, Plan, UPWARD_LIMIT};
+use super::number::Precision;
+use super::plan::{Func, Plan};
 use super::templates::render;
 use super::Meta;
-use crate::exact::{int, Q};
-use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use serde::Serialize;
-use tera::Context;
 
 #[derive(Serialize)]
 struct CFunc {
@@ -335,71 +333,35 @@ pub fn emit(
         });
     }
 
-    let lit = |q: &Q| literal(q, precision);
-    let mm = plan.moment_max;
-    let odd_inv: Vec<String> = (0..mm)
-        .map(|n| lit(&(Q::from_integer(1.into()) / int(2 * n as i64 + 1))))
-        .collect();
-    let series: Vec<String> = (0..mm)
-        .map(|n| {
-            let row: Vec<String> = (1..SERIES_TERMS)
-                .map(|kk| {
-                    lit(&(Q::from_integer(1.into()) / int((kk * (2 * n + 2 * kk + 1)) as i64)))
-                })
-                .collect();
-            format!("{{\n{}\n    }}", wrap_list(&row, 8))
-        })
+    let mc = MomentConstants::new(plan, precision);
+    let series: Vec<String> = mc
+        .series
+        .iter()
+        .map(|row| format!("{{\n{}\n    }}", wrap_list(row, 8)))
         .collect();
     let rows = &plan.table.rows;
-    let mut start = vec![0usize];
-    let mut index = Vec::new();
-    let mut coef = Vec::new();
-    for row in rows {
-        for (i, c) in row {
-            index.push(i.to_string());
-            coef.push(lit(c));
-        }
-        start.push(index.len());
-    }
-    let nnz = index.len();
+    let nnz = mc.index.len();
     let (big, small) = match precision {
         Precision::F64 => ("1e200", "1e-200"),
         Precision::F32 => ("1e30f", "1e-30f"),
     };
 
-    let mut ctx = Context::new();
-    ctx.insert("name", name);
+    let mut ctx = base_context(name, meta, plan, n, k);
     ctx.insert("name_upper", &up);
-    ctx.insert("version", &meta.version);
-    ctx.insert("arm_sha256", &meta.arm_sha256);
-    ctx.insert("order", &meta.order);
-    ctx.insert("n", &n);
-    ctx.insert("k", &k);
-    ctx.insert("nseg", &plan.segments);
     ctx.insert("real", r);
     ctx.insert("sfx", if precision == Precision::F32 { "f" } else { "" });
     ctx.insert("fs", p.fs());
     ctx.insert("big", big);
     ctx.insert("small", small);
-    ctx.insert("nu_len", &plan.layout.len.max(1));
-    ctx.insert("moment_max", &mm);
-    ctx.insert("series_terms", &SERIES_TERMS);
-    ctx.insert("miller_extra", &MILLER_EXTRA);
-    ctx.insert("upward_limit", &UPWARD_LIMIT);
-    ctx.insert("moment_ops", &moment_ops(mm, false).to_string());
-    ctx.insert("odd_inv", &wrap_list(&odd_inv, 4));
+    ctx.insert("odd_inv", &wrap_list(&mc.odd_inv, 4));
     ctx.insert("series", &format!("    {}", series.join(",\n    ")));
-    ctx.insert("kernel_rows", &rows.len());
     ctx.insert("kernel_nnz", &nnz);
     ctx.insert("start_type", uint_type(nnz));
     ctx.insert("index_type", uint_type(plan.layout.len));
     ctx.insert("row_type", uint_type(rows.len()));
-    ctx.insert(
-        "kernel_start",
-        &wrap_list(&start.iter().map(|s| s.to_string()).collect::<Vec<_>>(), 4),
-    );
-    ctx.insert("kernel_index", &wrap_list(&index, 4));
-    ctx.insert("kernel_coef", &wrap_list(&coef, 4));
+    ctx.insert("kernel_start", &wrap_list(&strings(&mc.start), 4));
+    ctx.insert("kernel_index", &wrap_list(&strings(&mc.index), 4));
+    ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
     for (key, f) in [

@@ -9,6 +9,7 @@
 
 pub mod body;
 pub mod c;
+pub mod constants;
 pub mod golden;
 pub mod number;
 pub mod ops;

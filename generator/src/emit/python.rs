@@ -5,15 +5,13 @@ use super::body::{
     angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
 };
 use super::c::wrap_list;
+use super::constants::{base_context, strings, MomentConstants};
 use super::golden::{Golden, SIGMAS};
-use super::number::{f64_literal, golden_literal, literal, Precision};
-use super::plan::{moment_ops, Func, Plan, UPWARD_LIMIT};
+use super::number::{f64_literal, golden_literal, Precision};
+use super::plan::{Func, Plan};
 use super::templates::render;
 use super::{Meta, OutFile};
-use crate::exact::{int, Q};
-use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use serde::Serialize;
-use tera::Context;
 
 #[derive(Serialize)]
 struct PyFunc {
@@ -222,51 +220,24 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         pose_names.push(fname.clone());
     }
 
-    let lit = |q: &Q| literal(q, Precision::F64);
-    let mm = plan.moment_max;
-    let odd_inv: Vec<String> = (0..mm)
-        .map(|n| lit(&(Q::from_integer(1.into()) / int(2 * n as i64 + 1))))
+    let mc = MomentConstants::new(plan, Precision::F64);
+    let series: Vec<String> = mc
+        .series
+        .iter()
+        .map(|row| format!("({})", row.join(", ")))
         .collect();
-    let series: Vec<String> = (0..mm)
-        .map(|n| {
-            let row: Vec<String> = (1..SERIES_TERMS)
-                .map(|kk| {
-                    lit(&(Q::from_integer(1.into()) / int((kk * (2 * n + 2 * kk + 1)) as i64)))
-                })
-                .collect();
-            format!("({})", row.join(", "))
-        })
-        .collect();
-    let mut start = vec!["0".to_string()];
-    let mut index = Vec::new();
-    let mut coef = Vec::new();
-    for row in &plan.table.rows {
-        for (i, c) in row {
-            index.push(i.to_string());
-            coef.push(lit(c));
-        }
-        start.push(index.len().to_string());
-    }
-    let mut ctx = Context::new();
-    ctx.insert("name", name);
-    ctx.insert("version", &meta.version);
-    ctx.insert("arm_sha256", &meta.arm_sha256);
-    ctx.insert("order", &meta.order);
-    ctx.insert("n", &n);
-    ctx.insert("k", &k);
-    ctx.insert("nseg", &plan.segments);
-    ctx.insert("nu_len", &plan.layout.len.max(1));
-    ctx.insert("moment_max", &mm);
-    ctx.insert("series_terms", &SERIES_TERMS);
-    ctx.insert("miller_extra", &MILLER_EXTRA);
-    ctx.insert("upward_limit", &UPWARD_LIMIT);
-    ctx.insert("moment_ops", &moment_ops(mm, false).to_string());
-    ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&odd_inv, 4)));
+    let mut ctx = base_context(name, meta, plan, n, k);
+    ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&mc.odd_inv, 4)));
     ctx.insert("series", &format!("\n    {},\n", series.join(",\n    ")));
-    ctx.insert("kernel_rows", &plan.table.rows.len());
-    ctx.insert("kernel_start", &format!("\n{},\n", wrap_list(&start, 4)));
-    ctx.insert("kernel_index", &format!("\n{},\n", wrap_list(&index, 4)));
-    ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&coef, 4)));
+    ctx.insert(
+        "kernel_start",
+        &format!("\n{},\n", wrap_list(&strings(&mc.start), 4)),
+    );
+    ctx.insert(
+        "kernel_index",
+        &format!("\n{},\n", wrap_list(&strings(&mc.index), 4)),
+    );
+    ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&mc.coef, 4)));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
     ctx.insert(

@@ -1,0 +1,85 @@
+//! What every language's moment routine and kernel table print, computed once: the
+//! series and recurrence constants as exact literals, the kernel table in compressed
+//! rows, and the template context entries all languages share.
+
+use super::number::{literal, Precision};
+use super::plan::{moment_ops, Plan, UPWARD_LIMIT};
+use super::Meta;
+use crate::exact::{int, Q};
+use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
+use tera::Context;
+
+/// Literals of the moment routine and of the kernel table.
+pub struct MomentConstants {
+    /// `1/(2n+1)` for `n < moment_max`.
+    pub odd_inv: Vec<String>,
+    /// Power-series factors `1/(k(2n+2k+1))`, `k = 1..SERIES_TERMS`, one row per `n`.
+    pub series: Vec<Vec<String>>,
+    /// Kernel table in compressed rows: row starts, column indices, coefficients.
+    pub start: Vec<usize>,
+    pub index: Vec<usize>,
+    pub coef: Vec<String>,
+}
+
+impl MomentConstants {
+    pub fn new(plan: &Plan, precision: Precision) -> Self {
+        let lit = |q: &Q| literal(q, precision);
+        let one = || Q::from_integer(1.into());
+        let mm = plan.moment_max;
+        let odd_inv = (0..mm)
+            .map(|n| lit(&(one() / int(2 * n as i64 + 1))))
+            .collect();
+        let series = (0..mm)
+            .map(|n| {
+                (1..SERIES_TERMS)
+                    .map(|k| lit(&(one() / int((k * (2 * n + 2 * k + 1)) as i64))))
+                    .collect()
+            })
+            .collect();
+        let mut start = vec![0usize];
+        let mut index = Vec::new();
+        let mut coef = Vec::new();
+        for row in &plan.table.rows {
+            for (i, c) in row {
+                index.push(*i);
+                coef.push(lit(c));
+            }
+            start.push(index.len());
+        }
+        MomentConstants {
+            odd_inv,
+            series,
+            start,
+            index,
+            coef,
+        }
+    }
+}
+
+/// Context entries every language's templates read.
+pub fn base_context(name: &str, meta: &Meta, plan: &Plan, n: usize, k: usize) -> Context {
+    let mut ctx = Context::new();
+    ctx.insert("name", name);
+    ctx.insert("version", &meta.version);
+    ctx.insert("arm_sha256", &meta.arm_sha256);
+    ctx.insert("order", &meta.order);
+    ctx.insert("n", &n);
+    ctx.insert("k", &k);
+    ctx.insert("nseg", &plan.segments);
+    ctx.insert("nu_len", &plan.layout.len.max(1));
+    ctx.insert("moment_max", &plan.moment_max);
+    ctx.insert("series_terms", &SERIES_TERMS);
+    ctx.insert("miller_extra", &MILLER_EXTRA);
+    ctx.insert("upward_limit", &UPWARD_LIMIT);
+    ctx.insert(
+        "moment_ops",
+        &moment_ops(plan.moment_max, false).to_string(),
+    );
+    ctx.insert("kernel_rows", &plan.table.rows.len());
+    ctx
+}
+
+/// Numbers as strings, for lists that templates print.
+pub fn strings(v: &[usize]) -> Vec<String> {
+    v.iter().map(usize::to_string).collect()
+}
