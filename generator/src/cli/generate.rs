@@ -104,8 +104,14 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
         PrecisionArg::F32 => Precision::F32,
         PrecisionArg::F64 => Precision::F64,
     };
+    let bar = super::progress::bar(2, "generate");
+    bar.set_message("deriving");
     let model = model_for_emission(&arm, args.optimise);
-    let files: Vec<OutFile> = emit(&model, &text, Options { precision })
+    bar.inc(1);
+    bar.set_message("emitting and computing golden values");
+    let emitted = emit(&model, &text, Options { precision });
+    bar.finish_and_clear();
+    let files: Vec<OutFile> = emitted
         .map_err(CliError::Failed)?
         .into_iter()
         .filter(|(path, _)| !path.contains('/') || args.lang.iter().any(|l| path.starts_with(l.folder())))
@@ -123,6 +129,7 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
         return Err(CliError::Failed(format!("{} file(s) would change", changes.len())));
     }
     write_tree(&args.out, &files).map_err(CliError::Input)?;
+    super::progress::wrote(&args.out);
     Ok(())
 }
 
