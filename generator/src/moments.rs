@@ -14,6 +14,10 @@ pub const SERIES_LIMIT: f64 = 1.0;
 pub const SERIES_TERMS: usize = 12;
 /// Extra start depth of Miller's recurrence beyond `max(nmax, |x|)`.
 pub const MILLER_EXTRA: usize = 24;
+/// Beyond `|x| = UPWARD_LIMIT` (segment bending above 128 rad, twenty turns) the
+/// upward recurrence from `j_0, j_1` takes over, so every loop has a fixed bound; it is
+/// stable for `n < |x|`, and a NaN argument lands there and stays NaN.
+pub const UPWARD_LIMIT: usize = 64;
 
 /// Spherical Bessel functions `j_0(x) … j_nmax(x)` into `out` (length `nmax + 1`).
 pub fn spherical_bessel(x: f64, out: &mut [f64]) {
@@ -33,6 +37,17 @@ pub fn spherical_bessel(x: f64, out: &mut [f64]) {
                 sum += term;
             }
             *slot = lead * sum;
+        }
+        return;
+    }
+    let (s, c) = x.sin_cos();
+    if !(x.abs() <= UPWARD_LIMIT as f64) {
+        out[0] = s / x;
+        if nmax > 0 {
+            out[1] = (out[0] - c) / x;
+        }
+        for n in 2..=nmax {
+            out[n] = (2 * n - 1) as f64 / x * out[n - 1] - out[n - 2];
         }
         return;
     }
@@ -62,11 +77,14 @@ pub fn spherical_bessel(x: f64, out: &mut [f64]) {
             }
         }
     }
-    let (s, c) = x.sin_cos();
     let j0 = s / x;
     let j1 = (s / x - c) / x;
     // f_1 is the value one step above f_0: `above` after the loop.
-    let scale = if j0.abs() >= j1.abs() { j0 / cur } else { j1 / above };
+    let scale = if j0.abs() >= j1.abs() {
+        j0 / cur
+    } else {
+        j1 / above
+    };
     for v in out.iter_mut() {
         *v *= scale;
     }
@@ -99,8 +117,18 @@ mod tests {
     /// with `P̃_n` by Bonnet's recursion: an independent check of the closed form.
     fn by_quadrature(a: f64, n: usize) -> (f64, f64) {
         // 8-point Gauss–Legendre nodes and weights on [−1, 1] (Abramowitz & Stegun, Table 25.4).
-        const X: [f64; 4] = [0.1834346424956498, 0.5255324099163290, 0.7966664774136267, 0.9602898564975363];
-        const W: [f64; 4] = [0.3626837833783620, 0.3137066458778873, 0.2223810344533745, 0.1012285362903763];
+        const X: [f64; 4] = [
+            0.1834346424956498,
+            0.5255324099163290,
+            0.7966664774136267,
+            0.9602898564975363,
+        ];
+        const W: [f64; 4] = [
+            0.3626837833783620,
+            0.3137066458778873,
+            0.2223810344533745,
+            0.1012285362903763,
+        ];
         let panels = 64;
         let (mut re, mut im) = (0.0, 0.0);
         for p in 0..panels {
@@ -132,14 +160,36 @@ mod tests {
     #[test]
     fn moments_match_quadrature_across_branches() {
         let n = 12;
-        for &a in &[0.0, 1e-9, -1e-9, 0.5, 1.999, 2.001, -3.0, std::f64::consts::PI, 3.0 * std::f64::consts::PI, -9.7, 25.0] {
+        for &a in &[
+            0.0,
+            1e-9,
+            -1e-9,
+            0.5,
+            1.999,
+            2.001,
+            -3.0,
+            std::f64::consts::PI,
+            3.0 * std::f64::consts::PI,
+            -9.7,
+            25.0,
+        ] {
             let mut re = vec![0.0; n];
             let mut im = vec![0.0; n];
             legendre_moments(a, &mut re, &mut im);
             for k in 0..n {
                 let (qr, qi) = by_quadrature(a, k);
-                assert!((re[k] - qr).abs() < 2e-15, "Re ν_{k}({a}): {} vs {}", re[k], qr);
-                assert!((im[k] - qi).abs() < 2e-15, "Im ν_{k}({a}): {} vs {}", im[k], qi);
+                assert!(
+                    (re[k] - qr).abs() < 2e-15,
+                    "Re ν_{k}({a}): {} vs {}",
+                    re[k],
+                    qr
+                );
+                assert!(
+                    (im[k] - qi).abs() < 2e-15,
+                    "Im ν_{k}({a}): {} vs {}",
+                    im[k],
+                    qi
+                );
             }
         }
     }
@@ -152,7 +202,38 @@ mod tests {
         spherical_bessel(SERIES_LIMIT, &mut hi);
         for n in 0..20 {
             let scale = lo[n].abs().max(1e-300);
-            assert!((lo[n] - hi[n]).abs() / scale < 1e-13, "j_{n}: {} vs {}", lo[n], hi[n]);
+            assert!(
+                (lo[n] - hi[n]).abs() / scale < 1e-13,
+                "j_{n}: {} vs {}",
+                lo[n],
+                hi[n]
+            );
+        }
+    }
+
+    #[test]
+    fn huge_and_nan_arguments_stay_finite_or_nan_without_panicking() {
+        let mut j = vec![0.0; 30];
+        for x in [1e300, -1e300, 1e6, f64::INFINITY] {
+            spherical_bessel(x, &mut j);
+            assert!(
+                j.iter().all(|v| v.is_finite() || x.is_infinite()),
+                "x = {x}: {j:?}"
+            );
+        }
+        spherical_bessel(f64::NAN, &mut j);
+        assert!(j[0].is_nan());
+        // Just past the switch, the upward branch agrees with Miller's for n < |x|.
+        let mut miller = vec![0.0; 30];
+        spherical_bessel(UPWARD_LIMIT as f64, &mut miller);
+        spherical_bessel(UPWARD_LIMIT as f64 * (1.0 + 1e-15), &mut j);
+        for n in 0..30 {
+            assert!(
+                (j[n] - miller[n]).abs() < 1e-13,
+                "j_{n}: {} vs {}",
+                j[n],
+                miller[n]
+            );
         }
     }
 
@@ -162,7 +243,11 @@ mod tests {
         for &x in &[0.3, 1.5, 4.0, 12.0] {
             let mut j = vec![0.0; 60];
             spherical_bessel(x, &mut j);
-            let s: f64 = j.iter().enumerate().map(|(n, v)| (2 * n + 1) as f64 * v * v).sum();
+            let s: f64 = j
+                .iter()
+                .enumerate()
+                .map(|(n, v)| (2 * n + 1) as f64 * v * v)
+                .sum();
             assert!((s - 1.0).abs() < 1e-13, "x = {x}: {s}");
         }
     }

@@ -12,7 +12,7 @@ use num_traits::Zero;
 
 /// Above this `|x| = |a|/2` the emitted moment routines use the upward recurrence
 /// (stable while `n < |x|`) instead of Miller's, which keeps every loop bound fixed.
-pub const UPWARD_LIMIT: usize = 64;
+pub use crate::moments::UPWARD_LIMIT;
 
 /// One emitted function's schedule and its cost.
 #[derive(Clone, Debug)]
