@@ -15,28 +15,79 @@ fn arcwright(args: &[&str]) -> Output {
 }
 
 fn json(out: &Output) -> serde_json::Value {
-    assert!(out.status.success(), "stderr: {}", String::from_utf8_lossy(&out.stderr));
+    assert!(
+        out.status.success(),
+        "stderr: {}",
+        String::from_utf8_lossy(&out.stderr)
+    );
     serde_json::from_slice(&out.stdout).expect("eval prints JSON")
 }
 
 #[test]
 fn eval_prints_every_quantity_and_agrees_with_the_reference() {
     let q = "8,-20,15,12,5,-30";
-    let model = json(&arcwright(&["eval", "examples/reach_arm.toml", "--q", q, "--qd", "1,0,0,0,0,-2", "--u", "0.2,0,0.1,0"]));
-    for key in ["n", "B", "C", "G", "K", "D", "A", "tip_pose", "tip_jacobian", "kinetic_energy", "potential_energy", "qdd"] {
+    let model = json(&arcwright(&[
+        "eval",
+        "examples/reach_arm.toml",
+        "--q",
+        q,
+        "--qd",
+        "1,0,0,0,0,-2",
+        "--u",
+        "0.2,0,0.1,0",
+    ]));
+    for key in [
+        "n",
+        "B",
+        "C",
+        "G",
+        "K",
+        "D",
+        "A",
+        "tip_pose",
+        "tip_jacobian",
+        "kinetic_energy",
+        "potential_energy",
+        "qdd",
+    ] {
         assert!(model.get(key).is_some(), "missing {key}");
     }
     assert_eq!(model["n"], 6);
     assert_eq!(model["A"].as_array().unwrap().len(), 6);
     assert_eq!(model["A"][0].as_array().unwrap().len(), 4);
     assert_eq!(model["tip_jacobian"].as_array().unwrap().len(), 3);
-    let reference = json(&arcwright(&["eval", "examples/reach_arm.toml", "--q", q, "--qd", "1,0,0,0,0,-2", "--reference"]));
+    let reference = json(&arcwright(&[
+        "eval",
+        "examples/reach_arm.toml",
+        "--q",
+        q,
+        "--qd",
+        "1,0,0,0,0,-2",
+        "--reference",
+    ]));
     let b = |v: &serde_json::Value| -> Vec<Vec<f64>> {
-        v["B"].as_array().unwrap().iter().map(|r| r.as_array().unwrap().iter().map(|x| x.as_f64().unwrap()).collect()).collect()
+        v["B"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| {
+                r.as_array()
+                    .unwrap()
+                    .iter()
+                    .map(|x| x.as_f64().unwrap())
+                    .collect()
+            })
+            .collect()
     };
     assert!(rel_err(&b(&model), &b(&reference), 0.0) < 1e-12);
     // The untruncated kinematics differ, but only by the truncation error.
-    let exact = json(&arcwright(&["eval", "examples/reach_arm.toml", "--q", q, "--exact"]));
+    let exact = json(&arcwright(&[
+        "eval",
+        "examples/reach_arm.toml",
+        "--q",
+        q,
+        "--exact",
+    ]));
     let e = rel_err(&b(&model), &b(&exact), 0.0);
     assert!(e > 0.0 && e < 1e-2, "truncation error {e}");
 }
@@ -45,7 +96,14 @@ fn eval_prints_every_quantity_and_agrees_with_the_reference() {
 fn eval_order_override_changes_the_model() {
     let q = "8,-20,15,12,5,-30";
     let n4 = json(&arcwright(&["eval", "examples/reach_arm.toml", "--q", q]));
-    let n1 = json(&arcwright(&["eval", "examples/reach_arm.toml", "--q", q, "--order", "1"]));
+    let n1 = json(&arcwright(&[
+        "eval",
+        "examples/reach_arm.toml",
+        "--q",
+        q,
+        "--order",
+        "1",
+    ]));
     assert_ne!(n4["tip_pose"], n1["tip_pose"]);
     let out = arcwright(&["eval", "examples/reach_arm.toml", "--q", q, "--order", "11"]);
     assert_eq!(out.status.code(), Some(2));

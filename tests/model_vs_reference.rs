@@ -32,7 +32,10 @@ fn compare(m: &Terms, r: &Terms, qd: &[f64]) -> Vec<(&'static str, f64)> {
         ("D", rel_err(&m.d, &r.d, 1e-300)),
         ("A", rel_err(&m.a, &r.a, 1e-12)),
         ("tip_pose", rel_err_vec(&m.tip_pose, &r.tip_pose, 1e-12)),
-        ("tip_jacobian", rel_err(&m.tip_jacobian, &r.tip_jacobian, 0.0)),
+        (
+            "tip_jacobian",
+            rel_err(&m.tip_jacobian, &r.tip_jacobian, 0.0),
+        ),
         (
             "kinetic_energy",
             (m.kinetic_energy - r.kinetic_energy).abs() / (0.5 * nb * qd_norm * qd_norm),
@@ -77,7 +80,10 @@ fn check_arm(name: &str, randoms: usize) {
                 let pm = ev.pose(q, seg, sigma);
                 let pr = rf.pose(q, seg, sigma);
                 let e = rel_err_vec(&pm, &pr, 1e-12);
-                assert!(e < TOL, "{name}: pose of segment {seg} at σ = {sigma}, {label}: {pm:?} vs {pr:?}");
+                assert!(
+                    e < TOL,
+                    "{name}: pose of segment {seg} at σ = {sigma}, {label}: {pm:?} vs {pr:?}"
+                );
             }
         }
     }

@@ -42,11 +42,18 @@ fn constant_curvature_is_a_circular_arc() {
                 } else {
                     // 1 − cos x = 2 sin²(x/2), without cancellation near κ = 0
                     let half = (0.5 * kappa * s).sin();
-                    [(kappa * s).sin() / kappa, 2.0 * half * half / kappa, kappa * s]
+                    [
+                        (kappa * s).sin() / kappa,
+                        2.0 * half * half / kappa,
+                        kappa * s,
+                    ]
                 };
                 let got = ev.pose(&[kappa], 0, sigma);
                 for k in 0..3 {
-                    assert!((got[k] - want[k]).abs() < 1e-15, "κ = {kappa}, σ = {sigma}, N = {order}: {got:?} vs {want:?}");
+                    assert!(
+                        (got[k] - want[k]).abs() < 1e-15,
+                        "κ = {kappa}, σ = {sigma}, N = {order}: {got:?} vs {want:?}"
+                    );
                 }
             }
         }
@@ -62,24 +69,42 @@ fn constant_curvature_is_a_circular_arc() {
 #[test]
 fn clamped_free_beam_frequencies_are_the_ritz_limit() {
     let roots = outside_json("beam_frequencies.json");
-    let beta: Vec<f64> = (0..2).map(|i| roots["roots"][i]["beta_L"].as_f64().unwrap()).collect();
+    let beta: Vec<f64> = (0..2)
+        .map(|i| roots["roots"][i]["beta_L"].as_f64().unwrap())
+        .collect();
     let (l, rho, ei) = (0.25_f64, 0.4_f64, 0.03_f64);
-    let omega: Vec<f64> = beta.iter().map(|b| b * b * (ei / (rho * l.powi(4))).sqrt()).collect();
+    let omega: Vec<f64> = beta
+        .iter()
+        .map(|b| b * b * (ei / (rho * l.powi(4))).sqrt())
+        .collect();
     let mut prev = [f64::INFINITY; 2];
     let mut last_err = [0.0; 2];
     for degree in 1..=6 {
         let arm = arm_from(&uniform_segment(degree, 1, ""));
         let model = derive(&arm);
-        let t = Evaluator::new(&model).terms(&vec![0.0; arm.n_coords()], &vec![0.0; arm.n_coords()]);
+        let t =
+            Evaluator::new(&model).terms(&vec![0.0; arm.n_coords()], &vec![0.0; arm.n_coords()]);
         let w2 = generalized_eigenvalues(&t.k, &t.b);
         for k in 0..2 {
             let w = w2[k].sqrt();
-            assert!(w >= omega[k] * (1.0 - 1e-9), "degree {degree}: ω_{} = {w} below the exact {}", k + 1, omega[k]);
-            assert!(w <= prev[k] * (1.0 + 1e-9), "degree {degree}: ω_{} rose", k + 1);
+            assert!(
+                w >= omega[k] * (1.0 - 1e-9),
+                "degree {degree}: ω_{} = {w} below the exact {}",
+                k + 1,
+                omega[k]
+            );
+            assert!(
+                w <= prev[k] * (1.0 + 1e-9),
+                "degree {degree}: ω_{} rose",
+                k + 1
+            );
             prev[k] = w;
             last_err[k] = (w - omega[k]) / omega[k];
         }
-        println!("degree {degree}: ω1 error {:.2e}, ω2 error {:.2e}", last_err[0], last_err[1]);
+        println!(
+            "degree {degree}: ω1 error {:.2e}, ω2 error {:.2e}",
+            last_err[0], last_err[1]
+        );
     }
     assert!(last_err[0] < 1e-9, "ω1 error at degree 6: {}", last_err[0]);
     assert!(last_err[1] < 1e-5, "ω2 error at degree 6: {}", last_err[1]);
@@ -103,10 +128,20 @@ fn generalized_eigenvalues(k: &[Vec<f64>], b: &[Vec<f64>]) -> Vec<f64> {
         }
         y
     };
-    let cols: Vec<Vec<f64>> = (0..n).map(|c| lsolve(&(0..n).map(|r| k[r][c]).collect::<Vec<_>>())).collect();
+    let cols: Vec<Vec<f64>> = (0..n)
+        .map(|c| lsolve(&(0..n).map(|r| k[r][c]).collect::<Vec<_>>()))
+        .collect();
     // cols[c] = column c of L⁻¹K; M = L⁻¹ (L⁻¹K)ᵀ
-    let m_cols: Vec<Vec<f64>> = (0..n).map(|c| lsolve(&(0..n).map(|r| cols[r][c]).collect::<Vec<_>>())).collect();
-    let m: Vec<Vec<f64>> = (0..n).map(|r| (0..n).map(|c| 0.5 * (m_cols[c][r] + m_cols[r][c])).collect()).collect();
+    let m_cols: Vec<Vec<f64>> = (0..n)
+        .map(|c| lsolve(&(0..n).map(|r| cols[r][c]).collect::<Vec<_>>()))
+        .collect();
+    let m: Vec<Vec<f64>> = (0..n)
+        .map(|r| {
+            (0..n)
+                .map(|c| 0.5 * (m_cols[c][r] + m_cols[r][c]))
+                .collect()
+        })
+        .collect();
     symmetric_eigenvalues(m)
 }
 
@@ -120,7 +155,10 @@ fn generalized_eigenvalues(k: &[Vec<f64>], b: &[Vec<f64>]) -> Vec<f64> {
 fn small_deflection_cantilever_formulas() {
     let (l, rho, ei) = (0.25_f64, 0.4_f64, 0.03_f64);
     // Tip force P along +y, linearised at rest: K q = A(0) u.
-    let arm = arm_from(&format!("{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n", uniform_segment(1, 2, "")));
+    let arm = arm_from(&format!(
+        "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
+        uniform_segment(1, 2, "")
+    ));
     let model = derive(&arm);
     let t = Evaluator::new(&model).terms(&[0.0, 0.0], &[0.0, 0.0]);
     let p = 1e-3;
@@ -128,7 +166,10 @@ fn small_deflection_cantilever_formulas() {
     let q = solve(t.k.clone(), rhs);
     let tip_y: f64 = (0..2).map(|i| t.tip_jacobian[1][i] * q[i]).sum();
     let want = p * l.powi(3) / (3.0 * ei);
-    assert!((tip_y - want).abs() < 1e-12 * want, "tip force: {tip_y} vs {want}");
+    assert!(
+        (tip_y - want).abs() < 1e-12 * want,
+        "tip force: {tip_y} vs {want}"
+    );
 
     // Own weight, horizontal arm: K q = −G(0).
     let g = 9.81;
@@ -138,7 +179,10 @@ fn small_deflection_cantilever_formulas() {
     let q = solve(t.k.clone(), t.g.iter().map(|x| -x).collect());
     let tip_y: f64 = (0..3).map(|i| t.tip_jacobian[1][i] * q[i]).sum();
     let want = -rho * g * l.powi(4) / (8.0 * ei);
-    assert!((tip_y - want).abs() < 1e-12 * want.abs(), "own weight: {tip_y} vs {want}");
+    assert!(
+        (tip_y - want).abs() < 1e-12 * want.abs(),
+        "own weight: {tip_y} vs {want}"
+    );
 }
 
 /// Static equilibrium `K q = A(q) u` by Newton's method with a difference Jacobian.
@@ -185,7 +229,10 @@ fn large_deflection_elastica() {
         let y = case["y_tip_over_L"]["value"].as_f64().unwrap();
         let theta = case["theta_tip"]["value"].as_f64().unwrap();
         let p = alpha * ei / (l * l);
-        let text = format!("{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n", uniform_segment(7, 0, ""));
+        let text = format!(
+            "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
+            uniform_segment(7, 0, "")
+        );
         let arm = arm_from(&text);
         let rf = Reference::new(&arm, Kinematics::Exact);
         let k = rf.stiffness();
@@ -193,14 +240,22 @@ fn large_deflection_elastica() {
         let q = static_equilibrium(
             |q| {
                 let a = rf.actuation(q);
-                (0..n).map(|i| (0..n).map(|c| k[i][c] * q[c]).sum::<f64>() - a[i][1] * p).collect()
+                (0..n)
+                    .map(|i| (0..n).map(|c| k[i][c] * q[c]).sum::<f64>() - a[i][1] * p)
+                    .collect()
             },
             n,
         );
         let tip = rf.tip_pose(&q);
-        let err = ((tip[0] / l - x).abs()).max((tip[1] / l - y).abs()).max((tip[2] - theta).abs());
+        let err = ((tip[0] / l - x).abs())
+            .max((tip[1] / l - y).abs())
+            .max((tip[2] - theta).abs());
         println!("α = {alpha}: exact kinematics, degree 7: tip error {err:.2e}");
-        assert!(err < 2e-6, "α = {alpha}: tip {:?} vs ({x}, {y}, {theta})", [tip[0] / l, tip[1] / l, tip[2]]);
+        assert!(
+            err < 2e-6,
+            "α = {alpha}: tip {:?} vs ({x}, {y}, {theta})",
+            [tip[0] / l, tip[1] / l, tip[2]]
+        );
     }
     // The derived model converges with the order (moderate load, degree 3).
     let case = &data["cases"][2];
@@ -209,7 +264,10 @@ fn large_deflection_elastica() {
     let p = alpha * ei / (l * l);
     let mut errs = Vec::new();
     for order in [2, 4, 6] {
-        let text = format!("{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n", uniform_segment(3, order, ""));
+        let text = format!(
+            "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
+            uniform_segment(3, order, "")
+        );
         let arm = arm_from(&text);
         let model = derive(&arm);
         let ev = Evaluator::new(&model);
@@ -218,7 +276,9 @@ fn large_deflection_elastica() {
         let q = static_equilibrium(
             |q| {
                 let t = ev.terms(q, &zero);
-                (0..n).map(|i| (0..n).map(|c| t.k[i][c] * q[c]).sum::<f64>() - t.a[i][1] * p).collect()
+                (0..n)
+                    .map(|i| (0..n).map(|c| t.k[i][c] * q[c]).sum::<f64>() - t.a[i][1] * p)
+                    .collect()
             },
             n,
         );
@@ -273,9 +333,21 @@ mass = 0.005
     let mut drift: f64 = 0.0;
     for _ in 0..2000 {
         let k1 = f(&x);
-        let k2 = f(&x.iter().zip(&k1).map(|(a, b)| a + 0.5 * dt * b).collect::<Vec<_>>());
-        let k3 = f(&x.iter().zip(&k2).map(|(a, b)| a + 0.5 * dt * b).collect::<Vec<_>>());
-        let k4 = f(&x.iter().zip(&k3).map(|(a, b)| a + dt * b).collect::<Vec<_>>());
+        let k2 = f(&x
+            .iter()
+            .zip(&k1)
+            .map(|(a, b)| a + 0.5 * dt * b)
+            .collect::<Vec<_>>());
+        let k3 = f(&x
+            .iter()
+            .zip(&k2)
+            .map(|(a, b)| a + 0.5 * dt * b)
+            .collect::<Vec<_>>());
+        let k4 = f(&x
+            .iter()
+            .zip(&k3)
+            .map(|(a, b)| a + dt * b)
+            .collect::<Vec<_>>());
         for i in 0..2 * n {
             x[i] += dt / 6.0 * (k1[i] + 2.0 * k2[i] + 2.0 * k3[i] + k4[i]);
         }
@@ -303,16 +375,36 @@ fn bdot_minus_two_c_is_skew() {
         };
         let diff = |h: f64| -> Vec<Vec<f64>> {
             let (p, m) = (b_at(h), b_at(-h));
-            p.iter().zip(&m).map(|(rp, rm)| rp.iter().zip(rm).map(|(a, b)| (a - b) / (2.0 * h)).collect()).collect()
+            p.iter()
+                .zip(&m)
+                .map(|(rp, rm)| {
+                    rp.iter()
+                        .zip(rm)
+                        .map(|(a, b)| (a - b) / (2.0 * h))
+                        .collect()
+                })
+                .collect()
         };
         let h = 1e-4;
         let (d1, d2) = (diff(h), diff(h / 2.0));
-        let bdot: Vec<Vec<f64>> =
-            d1.iter().zip(&d2).map(|(r1, r2)| r1.iter().zip(r2).map(|(a, b)| (4.0 * b - a) / 3.0).collect()).collect();
+        let bdot: Vec<Vec<f64>> = d1
+            .iter()
+            .zip(&d2)
+            .map(|(r1, r2)| {
+                r1.iter()
+                    .zip(r2)
+                    .map(|(a, b)| (4.0 * b - a) / 3.0)
+                    .collect()
+            })
+            .collect();
         let c = ev.terms(&q, &qd).c;
         let n = arm.n_coords();
-        let s: Vec<Vec<f64>> = (0..n).map(|i| (0..n).map(|k| bdot[i][k] - 2.0 * c[i][k]).collect()).collect();
-        let sym: Vec<Vec<f64>> = (0..n).map(|i| (0..n).map(|k| s[i][k] + s[k][i]).collect()).collect();
+        let s: Vec<Vec<f64>> = (0..n)
+            .map(|i| (0..n).map(|k| bdot[i][k] - 2.0 * c[i][k]).collect())
+            .collect();
+        let sym: Vec<Vec<f64>> = (0..n)
+            .map(|i| (0..n).map(|k| s[i][k] + s[k][i]).collect())
+            .collect();
         let ratio = frob(&sym) / frob(&bdot);
         assert!(ratio < 1e-7, "‖(Ḃ−2C) + (Ḃ−2C)ᵀ‖ / ‖Ḃ‖ = {ratio:.2e}");
     }
@@ -342,7 +434,11 @@ mass = 0.05
     let ev = Evaluator::new(&model);
     let num = |v: &serde_json::Value| v.as_str().unwrap().parse::<f64>().unwrap();
     let mat = |v: &serde_json::Value| -> Vec<Vec<f64>> {
-        v.as_array().unwrap().iter().map(|r| r.as_array().unwrap().iter().map(num).collect()).collect()
+        v.as_array()
+            .unwrap()
+            .iter()
+            .map(|r| r.as_array().unwrap().iter().map(num).collect())
+            .collect()
     };
     for state in data["states"].as_array().unwrap() {
         let q: Vec<f64> = state["q"].as_array().unwrap().iter().map(num).collect();
@@ -350,12 +446,37 @@ mass = 0.05
         let t = ev.terms(&q, &qd);
         let b = mat(&state["B"]["value"]);
         let c = mat(&state["C"]["value"]);
-        let g: Vec<f64> = state["G"]["value"].as_array().unwrap().iter().map(num).collect();
-        let tip: Vec<f64> = state["tip"]["value"].as_array().unwrap().iter().map(num).collect();
-        assert!(rel_err(&t.b, &b, 0.0) < 1e-13, "B at {q:?}: {:?} vs {b:?}", t.b);
-        assert!(rel_err(&t.c, &c, 1e-12 * frob(&b)) < 1e-12, "C at {q:?}: {:?} vs {c:?}", t.c);
-        assert!(rel_err_vec(&t.g, &g, 1e-12) < 1e-13, "G at {q:?}: {:?} vs {g:?}", t.g);
-        assert!(rel_err_vec(&t.tip_pose[..2], &tip, 1e-12) < 1e-13, "tip at {q:?}");
+        let g: Vec<f64> = state["G"]["value"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(num)
+            .collect();
+        let tip: Vec<f64> = state["tip"]["value"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(num)
+            .collect();
+        assert!(
+            rel_err(&t.b, &b, 0.0) < 1e-13,
+            "B at {q:?}: {:?} vs {b:?}",
+            t.b
+        );
+        assert!(
+            rel_err(&t.c, &c, 1e-12 * frob(&b)) < 1e-12,
+            "C at {q:?}: {:?} vs {c:?}",
+            t.c
+        );
+        assert!(
+            rel_err_vec(&t.g, &g, 1e-12) < 1e-13,
+            "G at {q:?}: {:?} vs {g:?}",
+            t.g
+        );
+        assert!(
+            rel_err_vec(&t.tip_pose[..2], &tip, 1e-12) < 1e-13,
+            "tip at {q:?}"
+        );
     }
     // K is exact: EI L/(i+k+1) (MODEL.md), and SymPy's exact fractions say the same.
     let t = ev.terms(&[0.0, 0.0], &[0.0, 0.0]);
@@ -366,7 +487,11 @@ mass = 0.05
     for i in 0..2 {
         for k in 0..2 {
             let want = fraction(&data["K"]["value"][i][k]);
-            assert!((t.k[i][k] - want).abs() <= 1e-16 * want, "K[{i}][{k}]: {} vs {want}", t.k[i][k]);
+            assert!(
+                (t.k[i][k] - want).abs() <= 1e-16 * want,
+                "K[{i}][{k}]: {} vs {want}",
+                t.k[i][k]
+            );
         }
     }
 }
@@ -384,9 +509,14 @@ fn truncation_error_falls_with_order() {
     for order in 0..=8 {
         let model = derive(&arm.with_order(order));
         let t = Evaluator::new(&model).terms(&q, &qd);
-        let err = rel_err(&t.b, &te.b, 0.0).max(rel_err_vec(&t.tip_pose, &te.tip_pose, 0.0)).max(rel_err_vec(&t.g, &te.g, 0.0));
+        let err = rel_err(&t.b, &te.b, 0.0)
+            .max(rel_err_vec(&t.tip_pose, &te.tip_pose, 0.0))
+            .max(rel_err_vec(&t.g, &te.g, 0.0));
         println!("order {order}: truncation error {err:.2e}");
-        assert!(err < prev, "order {order}: {err:.2e} did not fall below {prev:.2e}");
+        assert!(
+            err < prev,
+            "order {order}: {err:.2e} did not fall below {prev:.2e}"
+        );
         prev = err;
     }
     assert!(prev < 1e-6, "order 8: {prev:.2e}");

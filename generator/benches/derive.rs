@@ -45,7 +45,9 @@ fn time_derive(label: &str, arm: &Arm, runs: usize) {
         let c = model.program.count_ops(&main_roots(&model));
         ops = c.adds + c.muls + c.negs;
     }
-    println!("{label:<44} derive {best:>8.3} s   program {nodes:>8} nodes, {ops:>8} ops (unoptimised)");
+    println!(
+        "{label:<44} derive {best:>8.3} s   program {nodes:>8} nodes, {ops:>8} ops (unoptimised)"
+    );
 }
 
 fn coriolis_digits(arm: &Arm) {
@@ -70,9 +72,13 @@ fn coriolis_digits(arm: &Arm) {
 
 fn main() {
     let root = Path::new(env!("CARGO_MANIFEST_DIR")).parent().unwrap();
-    let demo = parse_arm_file(&root.join("examples/reach_arm.toml")).unwrap().0;
+    let demo = parse_arm_file(&root.join("examples/reach_arm.toml"))
+        .unwrap()
+        .0;
     time_derive("reach_arm (2 segments, degree 2, order 4)", &demo, 5);
-    let taper = parse_arm_file(&root.join("examples/hanging_taper.toml")).unwrap().0;
+    let taper = parse_arm_file(&root.join("examples/hanging_taper.toml"))
+        .unwrap()
+        .0;
     time_derive("hanging_taper (3 segments, tapered)", &taper, 3);
     let three = parse_arm_str(THREE_SEGMENTS, "bench").unwrap();
     time_derive("3 segments, degree 3, order 6", &three, 1);
@@ -81,7 +87,11 @@ fn main() {
             "name = \"one\"\ngravity = [0.0, -9.81]\nexpansion_order = {order}\n[[segment]]\nlength = 0.3\ncurvature_degree = {degree}\ndensity = 0.5\nbending_stiffness = 0.02\n"
         );
         let arm = parse_arm_str(&text, "bench").unwrap();
-        time_derive(&format!("1 segment, degree {degree}, order {order}"), &arm, 5);
+        time_derive(
+            &format!("1 segment, degree {degree}, order {order}"),
+            &arm,
+            5,
+        );
         coriolis_digits(&arm);
     }
 }

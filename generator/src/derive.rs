@@ -113,7 +113,9 @@ struct Deriver<'a> {
 
 impl<'a> Deriver<'a> {
     fn new(arm: &'a Arm) -> Self {
-        let offsets = (0..arm.segments.len()).map(|j| arm.coord_offset(j)).collect();
+        let offsets = (0..arm.segments.len())
+            .map(|j| arm.coord_offset(j))
+            .collect();
         Deriver {
             arm,
             p: Program::new(),
@@ -165,10 +167,16 @@ impl<'a> Deriver<'a> {
     /// `e^{iΦ_{j−1}}`, the rotation of segment `j`'s base frame.
     fn base_rotation(&mut self, j: usize) -> Cx {
         if j == 0 {
-            Cx { re: self.p.one(), im: self.p.zero() }
+            Cx {
+                re: self.p.one(),
+                im: self.p.zero(),
+            }
         } else {
             let s = (j - 1) as u16;
-            Cx { re: self.p.var(Var::CosPhi(s)), im: self.p.var(Var::SinPhi(s)) }
+            Cx {
+                re: self.p.var(Var::CosPhi(s)),
+                im: self.p.var(Var::SinPhi(s)),
+            }
         }
     }
 
@@ -186,10 +194,26 @@ impl<'a> Deriver<'a> {
         let s = seg as u16;
         match (atom, pose) {
             (Atom::One, _) => self.p.one(),
-            (Atom::NuRe(n), false) => self.p.var(Var::Nu { seg: s, n, im: false }),
-            (Atom::NuIm(n), false) => self.p.var(Var::Nu { seg: s, n, im: true }),
-            (Atom::NuRe(n), true) => self.p.var(Var::PoseNu { seg: s, n, im: false }),
-            (Atom::NuIm(n), true) => self.p.var(Var::PoseNu { seg: s, n, im: true }),
+            (Atom::NuRe(n), false) => self.p.var(Var::Nu {
+                seg: s,
+                n,
+                im: false,
+            }),
+            (Atom::NuIm(n), false) => self.p.var(Var::Nu {
+                seg: s,
+                n,
+                im: true,
+            }),
+            (Atom::NuRe(n), true) => self.p.var(Var::PoseNu {
+                seg: s,
+                n,
+                im: false,
+            }),
+            (Atom::NuIm(n), true) => self.p.var(Var::PoseNu {
+                seg: s,
+                n,
+                im: true,
+            }),
         }
     }
 
@@ -220,7 +244,10 @@ impl<'a> Deriver<'a> {
     }
 
     fn lower_cx(&mut self, seg: usize, form: &CForm) -> Cx {
-        Cx { re: self.lower(seg, &form.re), im: self.lower(seg, &form.im) }
+        Cx {
+            re: self.lower(seg, &form.re),
+            im: self.lower(seg, &form.im),
+        }
     }
 
     /// A field grouped by power of τ: `V = Σ_s τ^s e^{iaτ} C_s(q)`, each `C_s` a complex
@@ -263,7 +290,10 @@ impl<'a> Deriver<'a> {
                 }
             }
         }
-        let k = Cx { re: self.lower_with(seg, &re, false), im: self.lower_with(seg, &im, false) };
+        let k = Cx {
+            re: self.lower_with(seg, &re, false),
+            im: self.lower_with(seg, &im, false),
+        };
         for (id, part_im) in [(k.re, false), (k.im, true)] {
             if self.p.as_const(id).is_none() {
                 self.kernel_of.entry(id).or_insert((seg, key, part_im));
@@ -281,7 +311,10 @@ impl<'a> Deriver<'a> {
             KernelKey::Double { w, s, t } => {
                 let a = self.kernel(seg, KernelKey::Double { w, s, t: t + 1 });
                 let b = self.kernel(seg, KernelKey::Double { w, s: s + 1, t });
-                Cx { re: self.p.sub(a.re, b.re), im: self.p.sub(a.im, b.im) }
+                Cx {
+                    re: self.p.sub(a.re, b.re),
+                    im: self.p.sub(a.im, b.im),
+                }
             }
         };
         let l = self.lengths[seg].clone();
@@ -339,7 +372,9 @@ impl<'a> Deriver<'a> {
         self.applied.insert(key.clone(), y);
         for (id, part_im) in [(y.re, false), (y.im, true)] {
             if self.p.as_const(id).is_none() {
-                self.applied_of.entry(id).or_insert_with(|| (key.clone(), part_im));
+                self.applied_of
+                    .entry(id)
+                    .or_insert_with(|| (key.clone(), part_im));
             }
         }
         y
@@ -360,14 +395,20 @@ impl<'a> Deriver<'a> {
             let shifted: Groups = b.iter().map(|&(t, c)| (t + 1, c)).collect();
             let ys = self.kernel_apply(seg, &shifted, w, s);
             let y1 = self.kernel_apply(seg, &b, w, s + 1);
-            let diff = Cx { re: self.p.sub(ys.re, y1.re), im: self.p.sub(ys.im, y1.im) };
+            let diff = Cx {
+                re: self.p.sub(ys.re, y1.re),
+                im: self.p.sub(ys.im, y1.im),
+            };
             let l = self.lengths[seg].clone();
             let idiff = self.p.cx_times_i(diff);
             self.p.cx_scale(&l, idiff)
         } else {
             let mut db: Groups = Vec::with_capacity(b.len());
             for &(t, c) in &b {
-                let dc = Cx { re: self.d(c.re, x), im: self.d(c.im, x) };
+                let dc = Cx {
+                    re: self.d(c.re, x),
+                    im: self.d(c.im, x),
+                };
                 if !(self.p.is_zero(dc.re) && self.p.is_zero(dc.im)) {
                     db.push((t, dc));
                 }
@@ -387,7 +428,10 @@ impl<'a> Deriver<'a> {
     fn cx_sum(&mut self, terms: &[Cx]) -> Cx {
         let re: Vec<Id> = terms.iter().map(|c| c.re).collect();
         let im: Vec<Id> = terms.iter().map(|c| c.im).collect();
-        Cx { re: self.p.sum(&re), im: self.p.sum(&im) }
+        Cx {
+            re: self.p.sum(&re),
+            im: self.p.sum(&im),
+        }
     }
 
     fn local_quantities(&mut self, j: usize) -> LocalQuantities {
@@ -399,7 +443,11 @@ impl<'a> Deriver<'a> {
         let v = self.field_groups(j, &field);
         let jac: Vec<Groups> = (0..=m)
             .map(|i| {
-                let f = if i == 0 { field.derivative_base(&l) } else { field.derivative_coord(i) };
+                let f = if i == 0 {
+                    field.derivative_base(&l)
+                } else {
+                    field.derivative_coord(i)
+                };
                 self.field_groups(j, &f)
             })
             .collect();
@@ -433,7 +481,15 @@ impl<'a> Deriver<'a> {
             }
         }
         let mass = &l * crate::exact::integral01(&seg.density.coeffs);
-        LocalQuantities { end, mass, first, first_jac, second, swirl, gram }
+        LocalQuantities {
+            end,
+            mass,
+            first,
+            first_jac,
+            second,
+            swirl,
+            gram,
+        }
     }
 
     /// Exact derivative of node `id` with respect to `q[x]`.
@@ -486,7 +542,10 @@ impl<'a> Deriver<'a> {
     }
 
     fn d_cx(&mut self, z: Cx, x: usize) -> Cx {
-        Cx { re: self.d(z.re, x), im: self.d(z.im, x) }
+        Cx {
+            re: self.d(z.re, x),
+            im: self.d(z.im, x),
+        }
     }
 
     fn d_var(&mut self, v: Var, x: usize) -> Id {
@@ -506,7 +565,11 @@ impl<'a> Deriver<'a> {
                 }
                 let pose = matches!(v, Var::PoseNu { .. });
                 let mut f = LinForm::new();
-                f.add_term(MONO_ONE, if im { Atom::NuIm(n) } else { Atom::NuRe(n) }, &Q::one());
+                f.add_term(
+                    MONO_ONE,
+                    if im { Atom::NuIm(n) } else { Atom::NuRe(n) },
+                    &Q::one(),
+                );
                 let df = scale_form(&f.derivative_a(), &self.lengths[seg]);
                 let body = self.lower_with(seg, &df, pose);
                 if pose {
@@ -554,7 +617,15 @@ impl<'a> Deriver<'a> {
             let lq = self.local_quantities(j);
             let e = self.base_rotation(j);
             let jac_prev: Vec<Cx> = (0..off).map(|x| self.d_cx(pos, x)).collect();
-            let omega: Vec<Q> = (0..off).map(|x| if j == 0 { Q::zero() } else { self.dphi(j - 1, x) }).collect();
+            let omega: Vec<Q> = (0..off)
+                .map(|x| {
+                    if j == 0 {
+                        Q::zero()
+                    } else {
+                        self.dphi(j - 1, x)
+                    }
+                })
+                .collect();
             let e_first = self.p.cx_mul(e, lq.first);
             let z = self.p.cx_times_i(e_first);
             // (a) both coordinates before this segment: the segment rides on the base.
@@ -671,7 +742,10 @@ impl<'a> Deriver<'a> {
         let tip_jacobian = vec![
             tip_jac.iter().map(|c| c.re).collect(),
             tip_jac.iter().map(|c| c.im).collect(),
-            omega_tip.iter().map(|w| self.p.constant(w.clone())).collect(),
+            omega_tip
+                .iter()
+                .map(|w| self.p.constant(w.clone()))
+                .collect(),
         ];
 
         let kinetic_energy = {
@@ -728,7 +802,9 @@ impl<'a> Deriver<'a> {
         let l = &seg.length;
         let iota = &seg.rotary_inertia.coeffs;
         let moment = |p: usize| -> Q {
-            iota.iter().enumerate().fold(Q::zero(), |acc, (c, ic)| acc + ic / int((p + c + 1) as i64))
+            iota.iter()
+                .enumerate()
+                .fold(Q::zero(), |acc, (c, ic)| acc + ic / int((p + c + 1) as i64))
         };
         let off = self.offsets[j];
         let own = seg.n_coords();
@@ -772,7 +848,10 @@ impl<'a> Deriver<'a> {
         let mut cols: Vec<Vec<Id>> = Vec::new();
         for act in &self.arm.actuators {
             match act {
-                Actuator::Tendon { offset, through_segment } => {
+                Actuator::Tendon {
+                    offset,
+                    through_segment,
+                } => {
                     let col = (0..n)
                         .map(|x| {
                             let (j, i) = self.coord(x);
@@ -809,7 +888,9 @@ impl<'a> Deriver<'a> {
             }
         }
         // n×k, rows are coordinates
-        (0..n).map(|x| cols.iter().map(|c| c[x]).collect()).collect()
+        (0..n)
+            .map(|x| cols.iter().map(|c| c[x]).collect())
+            .collect()
     }
 
     /// Backbone pose inside segment `j` at σ: `P_{j−1} + e^{iΦ_{j−1}} Σ_s σ^{s+1} C_s μ_s(aσ)`,
@@ -829,7 +910,10 @@ impl<'a> Deriver<'a> {
                 cs.re.add_term(t.mono, Atom::One, &t.re);
                 cs.im.add_term(t.mono, Atom::One, &t.im);
             }
-            let c = Cx { re: self.lower_with(j, &cs.re, true), im: self.lower_with(j, &cs.im, true) };
+            let c = Cx {
+                re: self.lower_with(j, &cs.re, true),
+                im: self.lower_with(j, &cs.im, true),
+            };
             // μ_s on Legendre moments: t^s = Σ λ_n P̃_n
             let mut mono = vec![Q::zero(); s as usize + 1];
             mono[s as usize] = Q::one();
@@ -839,10 +923,16 @@ impl<'a> Deriver<'a> {
                 mu.re.add_term(MONO_ONE, Atom::NuRe(k as u16), lk);
                 mu.im.add_term(MONO_ONE, Atom::NuIm(k as u16), lk);
             }
-            let mu = Cx { re: self.lower_with(j, &mu.re, true), im: self.lower_with(j, &mu.im, true) };
+            let mu = Cx {
+                re: self.lower_with(j, &mu.re, true),
+                im: self.lower_with(j, &mu.im, true),
+            };
             let cm = self.p.cx_mul(c, mu);
             let pw = self.p.product(&vec![sigma; s as usize + 1]);
-            let term = Cx { re: self.p.mul(pw, cm.re), im: self.p.mul(pw, cm.im) };
+            let term = Cx {
+                re: self.p.mul(pw, cm.re),
+                im: self.p.mul(pw, cm.im),
+            };
             acc = self.p.cx_add(acc, term);
         }
         let rotated = self.p.cx_mul(e, acc);

@@ -16,7 +16,10 @@ impl fmt::Display for DynamicsError {
     fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
         match self {
             DynamicsError::NotPositiveDefinite { pivot } => {
-                write!(f, "inertia matrix is not positive definite (Cholesky pivot {pivot})")
+                write!(
+                    f,
+                    "inertia matrix is not positive definite (Cholesky pivot {pivot})"
+                )
             }
             DynamicsError::NonFinite(what) => write!(f, "{what} is not finite"),
         }
@@ -50,7 +53,12 @@ pub fn generalized_force(t: &Terms, q: &[f64], qd: &[f64], u: &[f64]) -> Vec<f64
 }
 
 /// `q̈` at the state the terms were evaluated at.
-pub fn forward_dynamics(t: &Terms, q: &[f64], qd: &[f64], u: &[f64]) -> Result<Vec<f64>, DynamicsError> {
+pub fn forward_dynamics(
+    t: &Terms,
+    q: &[f64],
+    qd: &[f64],
+    u: &[f64],
+) -> Result<Vec<f64>, DynamicsError> {
     finite(q, "q")?;
     finite(qd, "qd")?;
     finite(u, "u")?;
@@ -109,6 +117,9 @@ mod tests {
         assert!((4.0 * x[0] + 2.0 * x[1] - 2.0).abs() < 1e-15);
         assert!((2.0 * x[0] + 3.0 * x[1] - 1.0).abs() < 1e-15);
         let bad = vec![vec![1.0, 2.0], vec![2.0, 1.0]];
-        assert_eq!(cholesky_solve(&bad, &[1.0, 1.0]), Err(DynamicsError::NotPositiveDefinite { pivot: 1 }));
+        assert_eq!(
+            cholesky_solve(&bad, &[1.0, 1.0]),
+            Err(DynamicsError::NotPositiveDefinite { pivot: 1 })
+        );
     }
 }

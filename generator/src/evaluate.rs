@@ -63,10 +63,23 @@ impl<'m> Evaluator<'m> {
             .collect();
         let main = Tape::new(model, &main_roots(model));
         let poses = model.pose.iter().map(|p| Tape::new(model, p)).collect();
-        Evaluator { model, consts, moments, pose_moments, main, poses }
+        Evaluator {
+            model,
+            consts,
+            moments,
+            pose_moments,
+            main,
+            poses,
+        }
     }
 
-    fn state<'a>(&self, q: &'a [f64], qd: &'a [f64], sigma: f64, pose_seg: Option<usize>) -> State<'a> {
+    fn state<'a>(
+        &self,
+        q: &'a [f64],
+        qd: &'a [f64],
+        sigma: f64,
+        pose_seg: Option<usize>,
+    ) -> State<'a> {
         let arm = &self.model.arm;
         let mut nu = Vec::new();
         let mut pose_nu = Vec::new();
@@ -81,7 +94,11 @@ impl<'m> Evaluator<'m> {
             let mut im = vec![0.0; self.moments[j]];
             legendre_moments(a, &mut re, &mut im);
             nu.push((re, im));
-            let pm = if pose_seg == Some(j) { self.pose_moments[j] } else { 0 };
+            let pm = if pose_seg == Some(j) {
+                self.pose_moments[j]
+            } else {
+                0
+            };
             let mut re = vec![0.0; pm];
             let mut im = vec![0.0; pm];
             if pm > 0 {
@@ -94,7 +111,15 @@ impl<'m> Evaluator<'m> {
             cos_phi.push(phi.cos());
             sin_phi.push(phi.sin());
         }
-        State { q, qd, sigma, nu, pose_nu, cos_phi, sin_phi }
+        State {
+            q,
+            qd,
+            sigma,
+            nu,
+            pose_nu,
+            cos_phi,
+            sin_phi,
+        }
     }
 
     fn run(&self, tape: &Tape, st: &State) -> Vec<f64> {
@@ -110,11 +135,19 @@ impl<'m> Evaluator<'m> {
                     Var::Sigma => st.sigma,
                     Var::Nu { seg, n, im } => {
                         let (re, imv) = &st.nu[seg as usize];
-                        if im { imv[n as usize] } else { re[n as usize] }
+                        if im {
+                            imv[n as usize]
+                        } else {
+                            re[n as usize]
+                        }
                     }
                     Var::PoseNu { seg, n, im } => {
                         let (re, imv) = &st.pose_nu[seg as usize];
-                        if im { imv[n as usize] } else { re[n as usize] }
+                        if im {
+                            imv[n as usize]
+                        } else {
+                            re[n as usize]
+                        }
                     }
                     Var::CosPhi(j) => st.cos_phi[j as usize],
                     Var::SinPhi(j) => st.sin_phi[j as usize],
@@ -133,7 +166,9 @@ impl<'m> Evaluator<'m> {
         let st = self.state(q, qd, 0.0, None);
         let v = self.run(&self.main, &st);
         let mat = |ids: &Vec<Vec<Id>>| -> Matrix {
-            ids.iter().map(|r| r.iter().map(|id| v[id.index()]).collect()).collect()
+            ids.iter()
+                .map(|r| r.iter().map(|id| v[id.index()]).collect())
+                .collect()
         };
         Terms {
             n: m.n,
@@ -143,7 +178,11 @@ impl<'m> Evaluator<'m> {
             k: mat(&m.stiffness),
             d: mat(&m.damping),
             a: mat(&m.actuation),
-            tip_pose: [v[m.tip_pose[0].index()], v[m.tip_pose[1].index()], v[m.tip_pose[2].index()]],
+            tip_pose: [
+                v[m.tip_pose[0].index()],
+                v[m.tip_pose[1].index()],
+                v[m.tip_pose[2].index()],
+            ],
             tip_jacobian: mat(&m.tip_jacobian),
             kinetic_energy: v[m.kinetic_energy.index()],
             potential_energy: v[m.potential_energy.index()],
@@ -162,7 +201,14 @@ impl<'m> Evaluator<'m> {
 /// Every output of the model except the pose programs.
 pub fn main_roots(m: &Model) -> Vec<Id> {
     let mut roots = Vec::new();
-    for mat in [&m.inertia, &m.coriolis, &m.stiffness, &m.damping, &m.actuation, &m.tip_jacobian] {
+    for mat in [
+        &m.inertia,
+        &m.coriolis,
+        &m.stiffness,
+        &m.damping,
+        &m.actuation,
+        &m.tip_jacobian,
+    ] {
         roots.extend(mat.iter().flatten().copied());
     }
     roots.extend(m.gravity.iter().copied());
@@ -175,7 +221,12 @@ pub fn main_roots(m: &Model) -> Vec<Id> {
 impl Tape {
     fn new(model: &Model, roots: &[Id]) -> Tape {
         let live = model.program.live(roots);
-        let nodes = live.iter().enumerate().filter(|(_, l)| **l).map(|(i, _)| i as u32).collect();
+        let nodes = live
+            .iter()
+            .enumerate()
+            .filter(|(_, l)| **l)
+            .map(|(i, _)| i as u32)
+            .collect();
         Tape { nodes }
     }
 }

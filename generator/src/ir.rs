@@ -68,7 +68,10 @@ impl Default for Program {
 
 impl Program {
     pub fn new() -> Self {
-        let mut p = Program { nodes: Vec::new(), index: HashMap::default() };
+        let mut p = Program {
+            nodes: Vec::new(),
+            index: HashMap::default(),
+        };
         p.intern(Node::Const(Q::zero()));
         p.intern(Node::Const(Q::one()));
         p
@@ -213,7 +216,11 @@ impl Program {
 
     /// Sum of many terms as a balanced tree, so that depth stays logarithmic.
     pub fn sum(&mut self, terms: &[Id]) -> Id {
-        let terms: Vec<Id> = terms.iter().copied().filter(|&t| !self.is_zero(t)).collect();
+        let terms: Vec<Id> = terms
+            .iter()
+            .copied()
+            .filter(|&t| !self.is_zero(t))
+            .collect();
         self.sum_balanced(&terms)
     }
 
@@ -308,11 +315,17 @@ pub struct Cx {
 
 impl Program {
     pub fn cx_zero(&self) -> Cx {
-        Cx { re: self.zero(), im: self.zero() }
+        Cx {
+            re: self.zero(),
+            im: self.zero(),
+        }
     }
 
     pub fn cx_add(&mut self, a: Cx, b: Cx) -> Cx {
-        Cx { re: self.add(a.re, b.re), im: self.add(a.im, b.im) }
+        Cx {
+            re: self.add(a.re, b.re),
+            im: self.add(a.im, b.im),
+        }
     }
 
     pub fn cx_mul(&mut self, a: Cx, b: Cx) -> Cx {
@@ -320,16 +333,25 @@ impl Program {
         let ii = self.mul(a.im, b.im);
         let ri = self.mul(a.re, b.im);
         let ir = self.mul(a.im, b.re);
-        Cx { re: self.sub(rr, ii), im: self.add(ri, ir) }
+        Cx {
+            re: self.sub(rr, ii),
+            im: self.add(ri, ir),
+        }
     }
 
     /// `i·a`
     pub fn cx_times_i(&mut self, a: Cx) -> Cx {
-        Cx { re: self.neg(a.im), im: a.re }
+        Cx {
+            re: self.neg(a.im),
+            im: a.re,
+        }
     }
 
     pub fn cx_scale(&mut self, c: &Q, a: Cx) -> Cx {
-        Cx { re: self.scale(c, a.re), im: self.scale(c, a.im) }
+        Cx {
+            re: self.scale(c, a.re),
+            im: self.scale(c, a.im),
+        }
     }
 
     /// `Re(conj(a)·b)`, the planar dot product.

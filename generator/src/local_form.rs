@@ -106,7 +106,11 @@ impl LinForm {
             let nn = i64::from(n);
             let den = Q::from_integer((2 * (2 * nn + 1)).into());
             out.add_term(*m, atom(n), &(&c / Q::from_integer(2.into())));
-            out.add_term(*m, atom(n + 1), &(&c * Q::from_integer((nn + 1).into()) / &den));
+            out.add_term(
+                *m,
+                atom(n + 1),
+                &(&c * Q::from_integer((nn + 1).into()) / &den),
+            );
             if n > 0 {
                 out.add_term(*m, atom(n - 1), &(&c * Q::from_integer(nn.into()) / &den));
             }
@@ -152,7 +156,11 @@ mod tests {
         let mut f = LinForm::new();
         f.add_term(m, Atom::One, &int(3));
         let d = f.derivative_coord(1);
-        assert_eq!(d.terms.get(&(mono_mul(mono_unit(1), mono_unit(3)), Atom::One)), Some(&int(6)));
+        assert_eq!(
+            d.terms
+                .get(&(mono_mul(mono_unit(1), mono_unit(3)), Atom::One)),
+            Some(&int(6))
+        );
     }
 
     #[test]

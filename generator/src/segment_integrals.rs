@@ -63,7 +63,9 @@ impl Field {
                 let mut next: BTreeMap<(Mono, u32), Q> = BTreeMap::new();
                 for ((m, s), c) in &power {
                     for (dm, ds, dc) in &delta {
-                        let e = next.entry((mono_mul(*m, *dm), s + ds)).or_insert_with(Q::zero);
+                        let e = next
+                            .entry((mono_mul(*m, *dm), s + ds))
+                            .or_insert_with(Q::zero);
                         *e += c * dc;
                     }
                 }
@@ -233,7 +235,8 @@ impl Reducer {
         let get = |v: &Vec<Q>, n: usize| v.get(n).cloned().unwrap_or_else(Q::zero);
         let sum: Vec<Q> = (0..len).map(|n| get(&a, n) + get(&b, n)).collect();
         let diff: Vec<Q> = (0..len).map(|n| get(&a, n) - get(&b, n)).collect();
-        self.double_cache.insert((w.0, s, t), (sum.clone(), diff.clone()));
+        self.double_cache
+            .insert((w.0, s, t), (sum.clone(), diff.clone()));
         // D_ts = conj(D_st)
         let neg: Vec<Q> = diff.iter().map(|d| -d).collect();
         self.double_cache.insert((w.0, t, s), (sum.clone(), neg));
@@ -249,4 +252,3 @@ pub fn by_power(field: &Field) -> BTreeMap<u32, Vec<&FieldTerm>> {
     }
     map
 }
-

@@ -8,7 +8,10 @@ use rand_chacha::ChaCha8Rng;
 use std::path::{Path, PathBuf};
 
 pub fn repo_root() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR")).parent().unwrap().to_path_buf()
+    Path::new(env!("CARGO_MANIFEST_DIR"))
+        .parent()
+        .unwrap()
+        .to_path_buf()
 }
 
 pub fn demo_arm(name: &str) -> Arm {
@@ -81,14 +84,19 @@ pub fn q_with_a(arm: &Arm, a: f64, rest: f64) -> Vec<f64> {
 }
 
 pub fn mat_vec(m: &[Vec<f64>], v: &[f64]) -> Vec<f64> {
-    m.iter().map(|r| r.iter().zip(v).map(|(a, b)| a * b).sum()).collect()
+    m.iter()
+        .map(|r| r.iter().zip(v).map(|(a, b)| a * b).sum())
+        .collect()
 }
 
 /// Eigenvalues of a symmetric matrix by cyclic Jacobi rotations, ascending.
 pub fn symmetric_eigenvalues(mut a: Vec<Vec<f64>>) -> Vec<f64> {
     let n = a.len();
     for _sweep in 0..100 {
-        let off: f64 = (0..n).flat_map(|i| (0..n).filter(move |&j| j != i).map(move |j| (i, j))).map(|(i, j)| a[i][j] * a[i][j]).sum();
+        let off: f64 = (0..n)
+            .flat_map(|i| (0..n).filter(move |&j| j != i).map(move |j| (i, j)))
+            .map(|(i, j)| a[i][j] * a[i][j])
+            .sum();
         if off < 1e-30 * frob(&a).powi(2) {
             break;
         }
@@ -126,7 +134,9 @@ pub fn symmetric_eigenvalues(mut a: Vec<Vec<f64>>) -> Vec<f64> {
 pub fn solve(mut a: Vec<Vec<f64>>, mut b: Vec<f64>) -> Vec<f64> {
     let n = b.len();
     for c in 0..n {
-        let p = (c..n).max_by(|&i, &j| a[i][c].abs().partial_cmp(&a[j][c].abs()).unwrap()).unwrap();
+        let p = (c..n)
+            .max_by(|&i, &j| a[i][c].abs().partial_cmp(&a[j][c].abs()).unwrap())
+            .unwrap();
         a.swap(c, p);
         b.swap(c, p);
         for r in c + 1..n {

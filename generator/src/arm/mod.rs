@@ -34,7 +34,9 @@ impl SigmaPoly {
         SigmaPoly { coeffs: vec![c] }
     }
     pub fn zero() -> Self {
-        SigmaPoly { coeffs: vec![Rational::zero()] }
+        SigmaPoly {
+            coeffs: vec![Rational::zero()],
+        }
     }
     pub fn is_zero(&self) -> bool {
         self.coeffs.iter().all(|c| c.is_zero())
@@ -48,7 +50,10 @@ impl SigmaPoly {
     }
     /// Coefficients in double precision, lowest power first.
     pub fn coeffs_f64(&self) -> Vec<f64> {
-        self.coeffs.iter().map(|c| c.to_f64().unwrap_or(f64::NAN)).collect()
+        self.coeffs
+            .iter()
+            .map(|c| c.to_f64().unwrap_or(f64::NAN))
+            .collect()
     }
 }
 
@@ -89,7 +94,10 @@ pub struct Payload {
 #[derive(Clone, Debug, PartialEq)]
 pub enum Actuator {
     /// Tendon at signed offset `d` [m] from the base to the end of segment `through_segment`.
-    Tendon { offset: Rational, through_segment: usize },
+    Tendon {
+        offset: Rational,
+        through_segment: usize,
+    },
     /// Bending moment spread uniformly over one segment (one input, N m).
     Moment { segment: usize },
     /// Force at the end of one segment, in the base frame (two inputs: Fx, Fy).
@@ -174,6 +182,9 @@ impl Arm {
     }
     /// The same arm at another expansion order.
     pub fn with_order(&self, order: u32) -> Arm {
-        Arm { expansion_order: order, ..self.clone() }
+        Arm {
+            expansion_order: order,
+            ..self.clone()
+        }
     }
 }

@@ -17,7 +17,9 @@ use std::path::PathBuf;
 /// evaluate the independent quadrature reference instead (of the truncated and of the
 /// untruncated kinematics). Vectors are comma-separated, segment-major.
 #[derive(Args, Debug)]
-#[command(after_help = "Example:\n  arcwright eval examples/reach_arm.toml --q \"1,0,0,2,0,0\" --qd \"0,0,0,0.5,0,0\" --u \"0.2,0,0,0\"")]
+#[command(
+    after_help = "Example:\n  arcwright eval examples/reach_arm.toml --q \"1,0,0,2,0,0\" --qd \"0,0,0,0.5,0,0\" --u \"0.2,0,0,0\""
+)]
 pub struct EvalArgs {
     /// Arm file (TOML).
     arm: PathBuf,

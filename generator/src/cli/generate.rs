@@ -4,7 +4,7 @@ use super::eval::load_arm;
 use super::CliError;
 use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
 use crate::derive::{derive, Model};
-use crate::emit::{emit, write::write_tree, OutFile, Options, Precision};
+use crate::emit::{emit, write::write_tree, Options, OutFile, Precision};
 use crate::optimise::{optimise, Limits};
 use clap::{Args, ValueEnum};
 use std::path::{Path, PathBuf};
@@ -53,7 +53,12 @@ pub struct GenerateArgs {
     #[arg(long)]
     out: PathBuf,
     /// Languages to write, comma-separated.
-    #[arg(long, value_enum, value_delimiter = ',', default_value = "c,rust,python")]
+    #[arg(
+        long,
+        value_enum,
+        value_delimiter = ',',
+        default_value = "c,rust,python"
+    )]
     lang: Vec<Language>,
     /// Expansion order N, overriding the arm file (the recorded arm.toml says N).
     #[arg(long)]
@@ -84,8 +89,9 @@ fn model_for_emission(arm: &crate::arm::Arm, optimised: bool) -> Model {
 
 /// The arm file's text with `expansion_order` set to `order`, comments kept.
 fn with_order(text: &str, order: u32) -> Result<String, CliError> {
-    let mut doc: toml_edit::DocumentMut =
-        text.parse().map_err(|e| CliError::Input(format!("re-reading the arm file: {e}")))?;
+    let mut doc: toml_edit::DocumentMut = text
+        .parse()
+        .map_err(|e| CliError::Input(format!("re-reading the arm file: {e}")))?;
     doc["expansion_order"] = toml_edit::value(i64::from(order));
     Ok(doc.to_string())
 }
@@ -114,19 +120,27 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
     let files: Vec<OutFile> = emitted
         .map_err(CliError::Failed)?
         .into_iter()
-        .filter(|(path, _)| !path.contains('/') || args.lang.iter().any(|l| path.starts_with(l.folder())))
+        .filter(|(path, _)| {
+            !path.contains('/') || args.lang.iter().any(|l| path.starts_with(l.folder()))
+        })
         .collect();
     if args.check {
         let changes = changed_files(&args.out, &files);
         if changes.is_empty() {
             return super::print_stdout(&format!("{} is up to date\n", args.out.display()));
         }
-        let mut msg = format!("{} is stale; `generate` would change:\n", args.out.display());
+        let mut msg = format!(
+            "{} is stale; `generate` would change:\n",
+            args.out.display()
+        );
         for c in &changes {
             msg.push_str(&format!("  {c}\n"));
         }
         super::print_stdout(&msg)?;
-        return Err(CliError::Failed(format!("{} file(s) would change", changes.len())));
+        return Err(CliError::Failed(format!(
+            "{} file(s) would change",
+            changes.len()
+        )));
     }
     write_tree(&args.out, &files).map_err(CliError::Input)?;
     super::progress::wrote(&args.out);
@@ -160,11 +174,15 @@ fn files_under(dir: &Path) -> Vec<String> {
     let mut out = Vec::new();
     let mut stack = vec![dir.to_path_buf()];
     while let Some(d) = stack.pop() {
-        let Ok(entries) = std::fs::read_dir(&d) else { continue };
+        let Ok(entries) = std::fs::read_dir(&d) else {
+            continue;
+        };
         for e in entries.flatten() {
             let p = e.path();
             if p.is_dir() {
-                if p.file_name().is_some_and(|n| n != "target" && n != "__pycache__") {
+                if p.file_name()
+                    .is_some_and(|n| n != "target" && n != "__pycache__")
+                {
                     stack.push(p);
                 }
             } else if let Ok(rel) = p.strip_prefix(dir) {

@@ -14,7 +14,9 @@ pub fn to_string(v: &Value) -> String {
 
 fn flat(v: &Value) -> bool {
     match v {
-        Value::Array(items) => items.iter().all(|i| !matches!(i, Value::Array(_) | Value::Object(_))),
+        Value::Array(items) => items
+            .iter()
+            .all(|i| !matches!(i, Value::Array(_) | Value::Object(_))),
         _ => true,
     }
 }

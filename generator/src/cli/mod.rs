@@ -107,17 +107,31 @@ pub(crate) fn print_stdout(text: &str) -> Result<(), CliError> {
 }
 
 /// Parses a comma-separated vector option such as `--q "0.1, -2, 3e-1"`.
-pub(crate) fn parse_vector(option: &str, text: &str, expected: usize) -> Result<Vec<f64>, CliError> {
+pub(crate) fn parse_vector(
+    option: &str,
+    text: &str,
+    expected: usize,
+) -> Result<Vec<f64>, CliError> {
     let text = text.trim();
-    let parts: Vec<&str> = if text.is_empty() { Vec::new() } else { text.split(',').collect() };
+    let parts: Vec<&str> = if text.is_empty() {
+        Vec::new()
+    } else {
+        text.split(',').collect()
+    };
     let mut out = Vec::with_capacity(parts.len());
     for (i, p) in parts.iter().enumerate() {
         let p = p.trim();
         let v: f64 = p.parse().map_err(|_| {
-            CliError::Input(format!("--{option}: entry {} is `{p}`, not a number", i + 1))
+            CliError::Input(format!(
+                "--{option}: entry {} is `{p}`, not a number",
+                i + 1
+            ))
         })?;
         if !v.is_finite() {
-            return Err(CliError::Input(format!("--{option}: entry {} is `{p}`, not a finite number", i + 1)));
+            return Err(CliError::Input(format!(
+                "--{option}: entry {} is `{p}`, not a finite number",
+                i + 1
+            )));
         }
         out.push(v);
     }
@@ -136,10 +150,22 @@ mod tests {
 
     #[test]
     fn vectors_parse_and_reject() {
-        assert_eq!(parse_vector("q", " 1, -2.5,3e-1 ", 3).unwrap(), vec![1.0, -2.5, 0.3]);
-        assert!(parse_vector("q", "1,2", 3).unwrap_err().to_string().contains("expected 3"));
-        assert!(parse_vector("q", "1,x,3", 3).unwrap_err().to_string().contains("entry 2"));
-        assert!(parse_vector("q", "1,NaN,3", 3).unwrap_err().to_string().contains("finite"));
+        assert_eq!(
+            parse_vector("q", " 1, -2.5,3e-1 ", 3).unwrap(),
+            vec![1.0, -2.5, 0.3]
+        );
+        assert!(parse_vector("q", "1,2", 3)
+            .unwrap_err()
+            .to_string()
+            .contains("expected 3"));
+        assert!(parse_vector("q", "1,x,3", 3)
+            .unwrap_err()
+            .to_string()
+            .contains("entry 2"));
+        assert!(parse_vector("q", "1,NaN,3", 3)
+            .unwrap_err()
+            .to_string()
+            .contains("finite"));
         assert_eq!(parse_vector("u", "", 0).unwrap(), Vec::<f64>::new());
     }
 }
