@@ -117,17 +117,6 @@ impl LinForm {
         }
         out
     }
-
-    /// Highest moment index the form uses.
-    pub fn max_moment(&self) -> Option<u16> {
-        self.terms
-            .keys()
-            .filter_map(|(_, a)| match a {
-                Atom::One => None,
-                Atom::NuRe(n) | Atom::NuIm(n) => Some(*n),
-            })
-            .max()
-    }
 }
 
 /// A complex local quantity (a planar vector in the segment's base frame).

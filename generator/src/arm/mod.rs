@@ -41,13 +41,6 @@ impl SigmaPoly {
     pub fn is_zero(&self) -> bool {
         self.coeffs.iter().all(|c| c.is_zero())
     }
-    /// Value at σ in double precision (for the numeric reference and messages).
-    pub fn eval_f64(&self, sigma: f64) -> f64 {
-        self.coeffs
-            .iter()
-            .rev()
-            .fold(0.0, |acc, c| acc * sigma + c.to_f64().unwrap_or(f64::NAN))
-    }
     /// Coefficients in double precision, lowest power first.
     pub fn coeffs_f64(&self) -> Vec<f64> {
         self.coeffs
