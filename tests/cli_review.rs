@@ -306,6 +306,26 @@ fn verify_reads_the_recorded_arm_of_the_shipped_output() {
     assert!(text.contains("kinetic_energy"), "{text}");
 }
 
+/// A machine without compilers or Python: every shipped check is skipped with its
+/// reason, and what verify can do in-process still runs.
+#[test]
+fn verify_without_compilers_says_what_it_skipped() {
+    let empty = tempfile::tempdir().unwrap();
+    let out = Command::new(env!("CARGO_BIN_EXE_arcwright"))
+        .args(["verify", "generated/reach_arm", "--samples", "4", "-q"])
+        .current_dir(repo_root())
+        .env("PATH", empty.path())
+        .env_remove("CC")
+        .output()
+        .expect("running arcwright");
+    let text = stdout(&out);
+    assert_eq!(out.status.code(), Some(0), "{}", describe(&out));
+    assert!(text.contains("C test       skipped"), "{text}");
+    assert!(text.contains("Rust test    skipped"), "{text}");
+    assert!(text.contains("Python test  skipped"), "{text}");
+    assert!(text.contains("files        ok"), "{text}");
+}
+
 #[test]
 fn bash_completions_mention_the_program() {
     let out = arcwright(&["completions", "bash"]);

@@ -463,6 +463,11 @@ fn run_rust(shipped: &Path) -> Outcome {
     let Some(cargo) = cargo else {
         return Outcome::Skipped("no cargo on PATH".into());
     };
+    // cargo alone is not a toolchain: without a runnable rustc the check cannot run,
+    // which is a skip, not a failure of the shipped code.
+    if find_program("rustc").is_none() {
+        return Outcome::Skipped("cargo found but no rustc on PATH".into());
+    }
     // A target folder that outlives the run, so a second verify compiles incrementally.
     let target = std::env::temp_dir().join("arcwright-verify-target");
     match Command::new(&cargo)
