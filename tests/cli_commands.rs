@@ -1,31 +1,13 @@
 //! `arcwright report`, `simulate` and `new` driven like a user drives them: files
 //! written and readable, numbers that make sense, clear errors and exit codes.
 
-use std::path::{Path, PathBuf};
+#[path = "common/mod.rs"]
+mod common;
+
+use common::{arcwright, stderr, stdout};
+
+use std::path::Path;
 use std::process::{Command, Output};
-
-fn repo_root() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .parent()
-        .expect("workspace root")
-        .to_path_buf()
-}
-
-fn arcwright(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_arcwright"))
-        .args(args)
-        .current_dir(repo_root())
-        .output()
-        .expect("running arcwright")
-}
-
-fn stdout(out: &Output) -> String {
-    String::from_utf8_lossy(&out.stdout).into_owned()
-}
-
-fn stderr(out: &Output) -> String {
-    String::from_utf8_lossy(&out.stderr).into_owned()
-}
 
 fn ok(out: &Output) -> String {
     assert!(

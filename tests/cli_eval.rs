@@ -4,15 +4,7 @@
 mod common;
 
 use common::*;
-use std::process::{Command, Output};
-
-fn arcwright(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_arcwright"))
-        .args(args)
-        .current_dir(repo_root())
-        .output()
-        .expect("running arcwright")
-}
+use std::process::Output;
 
 fn json(out: &Output) -> serde_json::Value {
     assert!(

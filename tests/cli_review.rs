@@ -3,28 +3,14 @@
 //! generated into a temporary folder (the demo arm's C file takes minutes to compile)
 //! and skips the Rust cross-check, which compiles a crate.
 
+#[path = "common/mod.rs"]
+mod common;
+
+use common::{arcwright, repo_root, stdout};
+
 use std::fs;
 use std::path::{Path, PathBuf};
 use std::process::{Command, Output};
-
-fn repo_root() -> PathBuf {
-    Path::new(env!("CARGO_MANIFEST_DIR"))
-        .parent()
-        .expect("workspace root")
-        .to_path_buf()
-}
-
-fn arcwright(args: &[&str]) -> Output {
-    Command::new(env!("CARGO_BIN_EXE_arcwright"))
-        .args(args)
-        .current_dir(repo_root())
-        .output()
-        .expect("running arcwright")
-}
-
-fn stdout(out: &Output) -> String {
-    String::from_utf8_lossy(&out.stdout).into_owned()
-}
 
 fn describe(out: &Output) -> String {
     format!(

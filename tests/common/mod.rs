@@ -6,12 +6,30 @@ use num_traits::ToPrimitive;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 use std::path::{Path, PathBuf};
+use std::process::{Command, Output};
 
 pub fn repo_root() -> PathBuf {
     Path::new(env!("CARGO_MANIFEST_DIR"))
         .parent()
         .unwrap()
         .to_path_buf()
+}
+
+/// Runs the `arcwright` binary from the repository root.
+pub fn arcwright(args: &[&str]) -> Output {
+    Command::new(env!("CARGO_BIN_EXE_arcwright"))
+        .args(args)
+        .current_dir(repo_root())
+        .output()
+        .expect("running arcwright")
+}
+
+pub fn stdout(out: &Output) -> String {
+    String::from_utf8_lossy(&out.stdout).into_owned()
+}
+
+pub fn stderr(out: &Output) -> String {
+    String::from_utf8_lossy(&out.stderr).into_owned()
 }
 
 pub fn demo_arm(name: &str) -> Arm {
