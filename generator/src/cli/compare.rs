@@ -12,6 +12,7 @@ use crate::arm::{Actuator, Arm, SigmaPoly, MAX_WORKSPACE_SAMPLES};
 use crate::derive::derive;
 use crate::dynamics::forward_dynamics;
 use crate::emit::golden::SIGMAS;
+use crate::emit::FUNCTIONS;
 use crate::evaluate::Evaluator;
 use clap::Args;
 use num_traits::ToPrimitive;
@@ -53,21 +54,6 @@ pub struct CompareArgs {
     #[arg(long)]
     json: bool,
 }
-
-/// The emitted functions, in the order the emitters write them.
-const FUNCTIONS: [&str; 11] = [
-    "inertia",
-    "coriolis",
-    "gravity",
-    "stiffness",
-    "damping",
-    "actuation",
-    "pose",
-    "tip_jacobian",
-    "kinetic_energy",
-    "potential_energy",
-    "forward_dynamics",
-];
 
 /// Relative change below which two outputs count as equal (rounding only).
 const SAME: f64 = 1e-12;

@@ -60,6 +60,21 @@ impl Default for Options {
     }
 }
 
+/// The emitted functions, in the order the emitters write them.
+pub const FUNCTIONS: [&str; 11] = [
+    "inertia",
+    "coriolis",
+    "gravity",
+    "stiffness",
+    "damping",
+    "actuation",
+    "pose",
+    "tip_jacobian",
+    "kinetic_energy",
+    "potential_energy",
+    "forward_dynamics",
+];
+
 /// Name of the copy of the arm file at the top of every output folder.
 pub const RECORDED_ARM: &str = "arm.toml";
 
