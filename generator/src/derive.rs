@@ -4,9 +4,10 @@
 //! contributes a few exact local integrals (mass, first and second moments of its
 //! backbone, their Jacobian counterparts), written in its own base frame; the chain
 //! rotates them by the cumulative angle and adds the base point's motion. `B` comes
-//! out of that composition, and everything that is a derivative (`G = ∂U_g/∂q`, the
-//! Christoffel symbols of `C`, the tip and end-force Jacobians) is produced by exact
-//! symbolic differentiation of the program, so no derivative is written twice by hand.
+//! out of that composition, and so does `C`, as `∫ρ Jᵀ J̇` (see
+//! `Deriver::coriolis_of_segment` for why that is the Christoffel matrix). The other
+//! derivatives (`G = ∂U_g/∂q`, the tip and end-force Jacobians, `J̇` of the chain) come
+//! from exact symbolic differentiation of the program.
 
 use crate::arm::{Actuator, Arm, Segment};
 use crate::exact::{int, Q};
@@ -78,6 +79,23 @@ struct LocalQuantities {
     swirl: Vec<Id>,
     /// `L ∫ρ Re(conj(∂r/∂q_{j,i}) ∂r/∂q_{j,k})`.
     gram: Vec<Vec<Id>>,
+    /// The velocity-dependent local integrals the Coriolis matrix needs.
+    rates: LocalRates,
+}
+
+/// A segment's local integrals that carry `q̇`: with `r_i = ∂r/∂q_{j,i}` and
+/// `ṙ_k = Σ_l r_kl q̇_{j,l}` (the time derivative of `r_k` from the segment's own motion).
+struct LocalRates {
+    /// `L ∫ρ Re(conj(r) r_i)`.
+    rr: Vec<Id>,
+    /// `L ∫ρ Im(conj(r_i) r_k)`.
+    gram_im: Vec<Vec<Id>>,
+    /// `L ∫ρ ṙ_k`.
+    first_dot: Vec<Cx>,
+    /// `L ∫ρ Im(conj(r) ṙ_k)`.
+    swirl_dot: Vec<Id>,
+    /// `L ∫ρ Re(conj(r_i) ṙ_k)`.
+    gram_dot: Vec<Vec<Id>>,
 }
 
 /// A field grouped by power of τ.
@@ -271,6 +289,18 @@ impl<'a> Deriver<'a> {
         if let Some(k) = self.kernels.get(&(seg, key)) {
             return *k;
         }
+        // D_ts = conj(D_st): the kernel matrix is Hermitian, so half of it is free.
+        if let KernelKey::Double { w, s, t } = key {
+            if s > t {
+                let k = self.kernel(seg, KernelKey::Double { w, s: t, t: s });
+                let k = Cx {
+                    re: k.re,
+                    im: self.p.neg(k.im),
+                };
+                self.kernels.insert((seg, key), k);
+                return k;
+            }
+        }
         let mut re = LinForm::new();
         let mut im = LinForm::new();
         match key {
@@ -441,14 +471,35 @@ impl<'a> Deriver<'a> {
         let order = self.arm.expansion_order as usize;
         let field = Field::backbone(&l, m, order);
         let v = self.field_groups(j, &field);
-        let jac: Vec<Groups> = (0..=m)
-            .map(|i| {
-                let f = if i == 0 {
-                    field.derivative_base(&l)
-                } else {
-                    field.derivative_coord(i)
-                };
-                self.field_groups(j, &f)
+        let derivative = |f: &Field, i: usize| {
+            if i == 0 {
+                f.derivative_base(&l)
+            } else {
+                f.derivative_coord(i)
+            }
+        };
+        let jac_fields: Vec<Field> = (0..=m).map(|i| derivative(&field, i)).collect();
+        let jac: Vec<Groups> = jac_fields.iter().map(|f| self.field_groups(j, f)).collect();
+        // ṙ_k's field: Σ_l q̇_{j,l} ∂V_k/∂q_{j,l}, grouped by power of τ.
+        let off = self.offsets[j];
+        let jac_dot: Vec<Groups> = jac_fields
+            .iter()
+            .map(|fk| {
+                let mut by_s: std::collections::BTreeMap<u32, Vec<Cx>> = Default::default();
+                for ll in 0..=m {
+                    let qd = self.p.var(Var::Qd((off + ll) as u16));
+                    let g = self.field_groups(j, &derivative(fk, ll));
+                    for (s, c) in g {
+                        let t = Cx {
+                            re: self.p.mul(c.re, qd),
+                            im: self.p.mul(c.im, qd),
+                        };
+                        by_s.entry(s).or_default().push(t);
+                    }
+                }
+                by_s.into_iter()
+                    .map(|(s, terms)| (s, self.cx_sum(&terms)))
+                    .collect()
             })
             .collect();
         let end_w = self.reducer.end_point();
@@ -480,6 +531,43 @@ impl<'a> Deriver<'a> {
                 gram[b][a] = id;
             }
         }
+        let rr: Vec<Id> = (0..=m)
+            .map(|i| {
+                let d = self.double(j, &v, &jac[i], rho, false);
+                self.p.scale(&l, d)
+            })
+            .collect();
+        let mut gram_im = vec![vec![self.p.zero(); m + 1]; m + 1];
+        for a in 0..=m {
+            for b in a + 1..=m {
+                let d = self.double(j, &jac[a], &jac[b], rho, true);
+                let id = self.p.scale(&l, d);
+                gram_im[a][b] = id;
+                gram_im[b][a] = self.p.neg(id);
+            }
+        }
+        let first_dot = (0..=m)
+            .map(|k| {
+                let f = self.single(j, &jac_dot[k], rho);
+                self.p.cx_scale(&l, f)
+            })
+            .collect();
+        let swirl_dot = (0..=m)
+            .map(|k| {
+                let d = self.double(j, &v, &jac_dot[k], rho, true);
+                self.p.scale(&l, d)
+            })
+            .collect();
+        let gram_dot = (0..=m)
+            .map(|i| {
+                (0..=m)
+                    .map(|k| {
+                        let d = self.double(j, &jac[i], &jac_dot[k], rho, false);
+                        self.p.scale(&l, d)
+                    })
+                    .collect()
+            })
+            .collect();
         let mass = &l * crate::exact::integral01(&seg.density.coeffs);
         LocalQuantities {
             end,
@@ -489,6 +577,13 @@ impl<'a> Deriver<'a> {
             second,
             swirl,
             gram,
+            rates: LocalRates {
+                rr,
+                gram_im,
+                first_dot,
+                swirl_dot,
+                gram_dot,
+            },
         }
     }
 
@@ -605,6 +700,9 @@ impl<'a> Deriver<'a> {
         // B as lists of terms, summed at the end.
         let mut b_terms: Vec<Vec<Vec<Id>>> = vec![vec![Vec::new(); n]; n];
         let mut b_const: Vec<Vec<Q>> = vec![vec![Q::zero(); n]; n];
+        // C = Σ_j ∫ρ Jᵀ J̇ (+ the payload's share), as lists of terms.
+        let mut c_terms: Vec<Vec<Vec<Id>>> = vec![vec![Vec::new(); n]; n];
+        let qd: Vec<Id> = (0..n).map(|i| self.p.var(Var::Qd(i as u16))).collect();
         let mut potential_terms: Vec<Id> = Vec::new();
         let mut pos = self.p.cx_zero();
         let mut ends: Vec<Cx> = Vec::with_capacity(segs);
@@ -658,6 +756,7 @@ impl<'a> Deriver<'a> {
                     b_terms[x][y].push(lq.gram[i][k]);
                 }
             }
+            self.coriolis_of_segment(j, &lq, e, &jac_prev, &omega, &qd, &mut c_terms);
             // Rotary inertia: φ̇ is linear in q̇, so its share of B is constant.
             self.rotary_inertia(j, &omega, &mut b_const);
             // Gravity: U_g = −g·(m P_{j−1} + e^{iΦ_{j−1}} R1).
@@ -687,6 +786,15 @@ impl<'a> Deriver<'a> {
             }
         }
         if !arm.payload.mass.is_zero() {
+            let tip_dot: Vec<Cx> = tip_jac.iter().map(|&jy| self.rate(jy, n, &qd)).collect();
+            for x in 0..n {
+                for y in 0..n {
+                    let dot = self.p.cx_dot(tip_jac[x], tip_dot[y]);
+                    c_terms[x][y].push(self.p.scale(&arm.payload.mass, dot));
+                }
+            }
+        }
+        if !arm.payload.mass.is_zero() {
             let gp = self.gravity_dot(pos);
             potential_terms.push(self.p.scale(&-arm.payload.mass.clone(), gp));
         }
@@ -705,33 +813,11 @@ impl<'a> Deriver<'a> {
         let u_gravity = self.p.sum(&potential_terms);
         let gravity: Vec<Id> = (0..n).map(|x| self.d(u_gravity, x)).collect();
 
-        // Christoffel symbols of the first kind.
-        let mut db = vec![vec![vec![self.p.zero(); n]; n]; n];
-        for l in 0..n {
-            for x in 0..n {
-                for y in x..n {
-                    let v = self.d(inertia[x][y], l);
-                    db[l][x][y] = v;
-                    db[l][y][x] = v;
-                }
-            }
-        }
-        let qd: Vec<Id> = (0..n).map(|i| self.p.var(Var::Qd(i as u16))).collect();
         let half = Q::new(1.into(), 2.into());
-        let mut coriolis = vec![vec![self.p.zero(); n]; n];
-        for i in 0..n {
-            for k in 0..n {
-                let mut terms = Vec::with_capacity(n);
-                for l in 0..n {
-                    let a = self.p.add(db[l][i][k], db[k][i][l]);
-                    let g = self.p.sub(a, db[i][k][l]);
-                    let gq = self.p.mul(g, qd[l]);
-                    terms.push(gq);
-                }
-                let s = self.p.sum(&terms);
-                coriolis[i][k] = self.p.scale(&half, s);
-            }
-        }
+        let coriolis: Vec<Vec<Id>> = c_terms
+            .into_iter()
+            .map(|row| row.into_iter().map(|t| self.p.sum(&t)).collect())
+            .collect();
 
         let stiffness = self.block_matrix(|s| &s.bending_stiffness.coeffs);
         let damping = self.block_matrix(|s| &s.damping.coeffs);
@@ -789,6 +875,129 @@ impl<'a> Deriver<'a> {
             kinetic_energy,
             potential_energy,
             pose,
+        }
+    }
+
+    /// `Σ_l ∂z/∂q_l q̇_l` for a chain quantity `z` that depends on the first `upto`
+    /// coordinates.
+    fn rate(&mut self, z: Cx, upto: usize, qd: &[Id]) -> Cx {
+        let mut terms = Vec::with_capacity(upto);
+        for l in 0..upto {
+            let dz = self.d_cx(z, l);
+            terms.push(Cx {
+                re: self.p.mul(dz.re, qd[l]),
+                im: self.p.mul(dz.im, qd[l]),
+            });
+        }
+        self.cx_sum(&terms)
+    }
+
+    /// Segment `j`'s share of `C_xy = ∫ρ Re(conj(J_x) J̇_y) L dσ`, which for an inertia
+    /// of this Gram form equals the Christoffel-symbol Coriolis matrix of MODEL.md:
+    /// with `H_xy = ∂²p/∂q_x∂q_y` symmetric, `∂_l B_xy + ∂_y B_xl − ∂_x B_yl =
+    /// 2∫ρ J_x·H_yl`. Inside the segment `p = P + E r` (`E = e^{iΦ_{j−1}}`,
+    /// `Ė = iΦ̇E`), so an earlier coordinate has `J_x = P_x + iω_x E r`,
+    /// `J̇_x = Ṗ_x − ω_x Φ̇ E r + iω_x E ṙ`, and one of the segment's own has
+    /// `J_i = E r_i`, `J̇_i = iΦ̇ E r_i + E ṙ_i`; every product of these is one of the
+    /// segment's local integrals. The rotary inertia adds nothing: `φ` is linear in `q`.
+    #[allow(clippy::too_many_arguments)]
+    fn coriolis_of_segment(
+        &mut self,
+        j: usize,
+        lq: &LocalQuantities,
+        e: Cx,
+        jac_prev: &[Cx],
+        omega: &[Q],
+        qd: &[Id],
+        c: &mut [Vec<Vec<Id>>],
+    ) {
+        let off = self.offsets[j];
+        let own = self.arm.segments[j].n_coords();
+        let rt = &lq.rates;
+        let phi_dot = {
+            let t: Vec<(Q, Id)> = (0..off).map(|x| (omega[x].clone(), qd[x])).collect();
+            self.p.lin_comb(&t)
+        };
+        let p_dot: Vec<Cx> = jac_prev.iter().map(|&px| self.rate(px, off, qd)).collect();
+        // E·first, iE·first, iE·L∫ρṙ, and L∫ρ Re(conj(r) ṙ).
+        let e_first = self.p.cx_mul(e, lq.first);
+        let ie_first = self.p.cx_times_i(e_first);
+        let r_dot1 = {
+            let t: Vec<Cx> = (0..own)
+                .map(|i| Cx {
+                    re: self.p.mul(lq.first_jac[i].re, qd[off + i]),
+                    im: self.p.mul(lq.first_jac[i].im, qd[off + i]),
+                })
+                .collect();
+            self.cx_sum(&t)
+        };
+        let e_rdot = self.p.cx_mul(e, r_dot1);
+        let ie_rdot = self.p.cx_times_i(e_rdot);
+        let s_dot = {
+            let t: Vec<Id> = (0..own)
+                .map(|i| self.p.mul(rt.rr[i], qd[off + i]))
+                .collect();
+            self.p.sum(&t)
+        };
+        let e_first_jac: Vec<Cx> = (0..own)
+            .map(|k| self.p.cx_mul(e, lq.first_jac[k]))
+            .collect();
+        let ie_first_jac: Vec<Cx> = e_first_jac.iter().map(|&z| self.p.cx_times_i(z)).collect();
+        let e_first_dot: Vec<Cx> = (0..own)
+            .map(|k| self.p.cx_mul(e, rt.first_dot[k]))
+            .collect();
+        // Σ_k q̇_k L∫ρ Im(conj(r_i) r_k), the swirl of r_i against ṙ.
+        let gram_im_dot: Vec<Id> = (0..own)
+            .map(|i| {
+                let t: Vec<Id> = (0..own)
+                    .map(|k| self.p.mul(rt.gram_im[i][k], qd[off + k]))
+                    .collect();
+                self.p.sum(&t)
+            })
+            .collect();
+        // (a) both coordinates before this segment.
+        for x in 0..off {
+            for y in 0..off {
+                let mut t = Vec::new();
+                let d = self.p.cx_dot(jac_prev[x], p_dot[y]);
+                t.push(self.p.scale(&lq.mass, d));
+                let d = self.p.cx_dot(jac_prev[x], e_first);
+                let d = self.p.mul(phi_dot, d);
+                t.push(self.p.scale(&-omega[y].clone(), d));
+                let d = self.p.cx_dot(jac_prev[x], ie_rdot);
+                t.push(self.p.scale(&omega[y], d));
+                let d = self.p.cx_dot(ie_first, p_dot[y]);
+                t.push(self.p.scale(&omega[x], d));
+                t.push(self.p.scale(&(&omega[x] * &omega[y]), s_dot));
+                c[x][y].extend(t);
+            }
+        }
+        // (b) x before, y = this segment's coordinate k; (c) the transpose case.
+        for x in 0..off {
+            for k in 0..own {
+                let y = off + k;
+                let d = self.p.cx_dot(jac_prev[x], ie_first_jac[k]);
+                c[x][y].push(self.p.mul(phi_dot, d));
+                c[x][y].push(self.p.cx_dot(jac_prev[x], e_first_dot[k]));
+                let d = self.p.mul(phi_dot, rt.rr[k]);
+                c[x][y].push(self.p.scale(&omega[x], d));
+                c[x][y].push(self.p.scale(&omega[x], rt.swirl_dot[k]));
+
+                let i = k;
+                let (xi, yb) = (off + i, x);
+                c[xi][yb].push(self.p.cx_dot(e_first_jac[i], p_dot[yb]));
+                let d = self.p.mul(phi_dot, rt.rr[i]);
+                c[xi][yb].push(self.p.scale(&-omega[yb].clone(), d));
+                c[xi][yb].push(self.p.scale(&-omega[yb].clone(), gram_im_dot[i]));
+            }
+        }
+        // (d) both of this segment.
+        for i in 0..own {
+            for k in 0..own {
+                let d = self.p.mul(phi_dot, rt.gram_im[i][k]);
+                c[off + i][off + k].push(self.p.neg(d));
+                c[off + i][off + k].push(rt.gram_dot[i][k]);
+            }
         }
     }
 
