@@ -4,7 +4,7 @@
 use super::number::{literal, Precision};
 use super::plan::{AngleStep, Plan};
 use super::printer::{statement, Syntax};
-use super::schedule::{Block, Expr, Factor, Leaf, Term};
+use super::schedule::{Block, Expr, Factor, Leaf, Stmt, Term};
 use crate::exact::Q;
 use crate::ir::Var;
 use num_traits::One;
@@ -19,12 +19,18 @@ pub struct Spelling<'a> {
     pub pose_count: usize,
     /// Temporaries as elements `t[k]` of one array instead of variables `t<k>`.
     pub temp_array: bool,
+    /// With `temp_array`: the array slot of each temporary (see [`temp_slots`]);
+    /// `None` keeps one slot per temporary.
+    pub slots: Option<&'a [usize]>,
 }
 
 impl Syntax for Spelling<'_> {
     fn leaf(&self, leaf: &Leaf) -> String {
         match leaf {
-            Leaf::Temp(t) if self.temp_array => format!("t[{t}]"),
+            Leaf::Temp(t) if self.temp_array => match self.slots {
+                Some(slots) => format!("t[{}]", slots[*t]),
+                None => format!("t[{t}]"),
+            },
             Leaf::Temp(t) => format!("t{t}"),
             Leaf::Kernel(r) => format!("kern[{r}]"),
             Leaf::Input(v) => match *v {
@@ -86,10 +92,15 @@ pub struct StmtStyle {
 
 /// The temporaries of a block, one statement each.
 pub fn temporaries(block: &Block, syn: &dyn Syntax, style: &StmtStyle) -> String {
+    statements(&block.stmts, syn, style)
+}
+
+/// Some statements of a block, one each.
+pub fn statements(stmts: &[Stmt], syn: &dyn Syntax, style: &StmtStyle) -> String {
     let mut out = String::new();
-    for s in &block.stmts {
+    for s in stmts {
         let prefix = if style.temp_array {
-            format!("t[{}] = ", s.temp)
+            format!("{} = ", syn.leaf(&Leaf::Temp(s.temp)))
         } else {
             format!("{}t{} = ", style.decl, s.temp)
         };
@@ -135,4 +146,66 @@ pub fn outputs(
 /// One expression on a single line.
 pub fn inline(e: &Expr, syn: &dyn Syntax) -> String {
     super::printer::inline(e, syn)
+}
+
+/// Calls `f` on every leaf an expression reads.
+pub fn for_each_leaf(e: &Expr, f: &mut dyn FnMut(&Leaf)) {
+    for t in &e.terms {
+        for factor in &t.factors {
+            match factor {
+                Factor::Leaf(l) => f(l),
+                Factor::Paren(inner) => for_each_leaf(inner, f),
+            }
+        }
+    }
+}
+
+/// Array slots for a block's temporaries, reused once a temporary is dead: a
+/// temporary's slot is freed after its last reader, so the scratch array holds the
+/// most temporaries ever alive at once rather than all of them (which matters on a
+/// microcontroller's stack). Returns the slot of each temporary and the slot count.
+pub fn temp_slots(block: &Block) -> (Vec<usize>, usize) {
+    let n = block.stmts.len();
+    let temps = block.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
+    // Last statement reading each temporary; outputs read after every statement.
+    let mut last = vec![0usize; temps];
+    for (k, s) in block.stmts.iter().enumerate() {
+        last[s.temp] = last[s.temp].max(k);
+        for_each_leaf(&s.expr, &mut |l| {
+            if let Leaf::Temp(t) = l {
+                last[*t] = last[*t].max(k);
+            }
+        });
+    }
+    for e in &block.outputs {
+        for_each_leaf(e, &mut |l| {
+            if let Leaf::Temp(t) = l {
+                last[*t] = n;
+            }
+        });
+    }
+    // Temporaries whose last reader is statement k, freed once k is written.
+    let mut dies_at: Vec<Vec<usize>> = vec![Vec::new(); n + 1];
+    for s in &block.stmts {
+        dies_at[last[s.temp]].push(s.temp);
+    }
+    let mut slot = vec![usize::MAX; temps];
+    let mut free: std::collections::BTreeSet<usize> = std::collections::BTreeSet::new();
+    let mut count = 0usize;
+    for (k, s) in block.stmts.iter().enumerate() {
+        let c = match free.pop_first() {
+            Some(c) => c,
+            None => {
+                count += 1;
+                count - 1
+            }
+        };
+        slot[s.temp] = c;
+        // Slots of temporaries read for the last time here are free for the next one;
+        // this statement's own target cannot be among them unless nothing reads it.
+        for &t in &dies_at[k] {
+            free.insert(slot[t]);
+        }
+    }
+    (slot, count)
 }

@@ -50,7 +50,9 @@ pub struct Plan {
     pub damping: Func,
     pub actuation: Func,
     pub tip_jacobian: Func,
-    pub kinetic_energy: Func,
+    /// The kinetic energy is `½ q̇ᵀ B q̇` over the emitted inertia function, not code of
+    /// its own (it would repeat all of `B`): its cost is `B`'s plus the quadratic form.
+    pub kinetic_energy: Ops,
     pub potential_energy: Func,
     /// Roots: lower triangle of B (row-major, `k ≤ i`), then `h = C q̇ + G + K q + D q̇`,
     /// then A (n×k row-major).
@@ -202,7 +204,12 @@ impl Plan {
         let damping = func(&mut sched, &flat(&model.damping), false);
         let actuation = func(&mut sched, &flat(&model.actuation), false);
         let tip_jacobian = func(&mut sched, &flat(&model.tip_jacobian), false);
-        let kinetic_energy = func(&mut sched, &[model.kinetic_energy], false);
+        let kinetic_energy = inertia.ops
+            + Ops {
+                add: n * n,
+                mul: n * n + n + 1,
+                ..Ops::default()
+            };
         let potential_energy = func(&mut sched, &[model.potential_energy], false);
         let mut dynamics = func(&mut sched, &dyn_roots, false);
         dynamics.ops += dynamics_loop_ops(n, model.n_inputs);

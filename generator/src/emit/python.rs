@@ -51,6 +51,7 @@ fn function(
         precision: Precision::F64,
         pose_count,
         temp_array: false,
+        slots: None,
     };
     let style = StmtStyle {
         decl: String::new(),
@@ -165,11 +166,6 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             Box::new(move |i| mat(i, n)),
         ),
         (
-            Spec { fname: "kinetic_energy", formula: "Kinetic energy T = 1/2 q'^T B(q) q' [J].", params: &["q", "qd"], init: "", ret: "" },
-            &plan.kinetic_energy,
-            Box::new(|_| String::new()),
-        ),
-        (
             Spec { fname: "potential_energy", formula: "Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.", params: &["q"], init: "", ret: "" },
             &plan.potential_energy,
             Box::new(|_| String::new()),
@@ -178,6 +174,18 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     for (spec, f, target) in &specs {
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
+    // Before the potential energy, the last of the list.
+    funcs.insert(
+        funcs.len() - 1,
+        PyFunc {
+            rows: String::new(),
+            formula: "Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().".into(),
+            ops: format!("Operations: {}.", plan.kinetic_energy),
+            signature: "kinetic_energy(q, qd)".into(),
+            body: "    qd = np.asarray(_vector(qd, NQ, \"qd\"))\n    return float(0.5 * qd @ inertia(q) @ qd)\n"
+                .into(),
+        },
+    );
     let ntri = n * (n + 1) / 2;
     let init = format!(
         "    m = [0.0] * {ntri}\n    h = [0.0] * NQ\n    a = [[0.0] * NU for _ in range(NQ)]\n"

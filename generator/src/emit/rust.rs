@@ -3,7 +3,7 @@
 //! syntax error is a generator error, never a file) and formatted with `prettyplease`.
 
 use super::body::{
-    angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
+    angle_increment, inline, moment_argument, outputs, temp_slots, temporaries, Spelling, StmtStyle,
 };
 use super::c::wrap_list;
 use super::constants::{base_context, strings, MomentConstants};
@@ -59,11 +59,14 @@ fn body(
 ) -> (String, String) {
     let b = &func.block;
     let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
+    // Temporaries share array slots once dead, to keep the stack small.
+    let (slots, slot_count) = temp_slots(b);
     let syn = Spelling {
         plan,
         precision: Precision::F64,
         pose_count,
         temp_array: true,
+        slots: Some(&slots),
     };
     let style = StmtStyle {
         decl: "let ".into(),
@@ -127,11 +130,10 @@ fn body(
         ));
     }
     out.push_str(init);
-    let temps = b.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
-    if temps > 0 {
+    if slot_count > 0 {
         // One array, not one `let` per temporary: rustc nests a debug-info scope per
         // `let`, and thousands of them overflow LLVM's DWARF writer.
-        out.push_str(&format!("let mut t = [0.0f64; {temps}];\n"));
+        out.push_str(&format!("let mut t = [0.0f64; {slot_count}];\n"));
     }
     out.push_str(&temporaries(b, &syn, &style));
     out.push_str(&outputs(b, &syn, &style, target));
@@ -249,19 +251,6 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         "out\n",
     );
     push(
-        "kinetic_energy",
-        "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J].",
-        &plan.kinetic_energy,
-        format!(
-            "pub fn kinetic_energy({}: &[f64; NQ], {}: &[f64; NQ]) -> f64",
-            q_param(&plan.kinetic_energy),
-            qd_param(&plan.kinetic_energy)
-        ),
-        "",
-        &|_| String::new(),
-        "",
-    );
-    push(
         "potential_energy",
         "Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.",
         &plan.potential_energy,
@@ -297,6 +286,22 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         },
         "(m, h, a)\n",
     );
+    let kinetic = RFunc {
+        rows: String::new(),
+        formula: "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].".into(),
+        ops: format!("Operations: {}.", plan.kinetic_energy),
+        signature: "pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64".into(),
+        body: "let b = inertia(q);\nlet mut t = 0.0;\nfor i in 0..NQ {\n\
+               let mut bqd = 0.0;\nfor k in 0..NQ {\nbqd += b[i][k] * qd[k];\n}\n\
+               t += qd[i] * bqd;\n}\n0.5 * t\n"
+            .into(),
+    };
+    // The kinetic energy goes before the potential energy.
+    let at = funcs
+        .iter()
+        .position(|f| f.signature.contains("potential_energy("))
+        .unwrap_or(funcs.len());
+    funcs.insert(at, kinetic);
     let mut pose_names = Vec::new();
     for (j, f) in plan.pose.iter().enumerate() {
         let fname = format!("pose_segment{j}");
