@@ -387,6 +387,28 @@ impl<'a> Deriver<'a> {
         self.p.sum(&acc)
     }
 
+    /// The same form as [`Self::double`], `Re`/`Im` of `a^H 𝔻 b`, summed the other way:
+    /// `𝔻` is Hermitian, so `a^H 𝔻 b = Σ_t conj((𝔻a)_t) b_t`. Pays when `𝔻a` is already
+    /// computed and `b` is new (the `q̇`-carrying fields of the Coriolis terms): `K`
+    /// products per form instead of `K²` for a new column.
+    fn double_flipped(&mut self, seg: usize, a: &Groups, b: &Groups, w: WeightId, im: bool) -> Id {
+        let mut acc = Vec::with_capacity(b.len());
+        for &(t, cb) in b {
+            let y = self.kernel_apply(seg, a, w, t);
+            let term = if im {
+                let x = self.p.mul(y.re, cb.im);
+                let z = self.p.mul(y.im, cb.re);
+                self.p.sub(x, z)
+            } else {
+                let x = self.p.mul(y.re, cb.re);
+                let z = self.p.mul(y.im, cb.im);
+                self.p.add(x, z)
+            };
+            acc.push(term);
+        }
+        self.p.sum(&acc)
+    }
+
     /// `Y_s = Σ_t D_st B_t`, row `s` of the kernel matrix applied to a grouped field.
     fn kernel_apply(&mut self, seg: usize, b: &Groups, w: WeightId, s: u32) -> Cx {
         let key = (seg, w, b.clone(), s);
@@ -554,7 +576,7 @@ impl<'a> Deriver<'a> {
             .collect();
         let swirl_dot = (0..=m)
             .map(|k| {
-                let d = self.double(j, &v, &jac_dot[k], rho, true);
+                let d = self.double_flipped(j, &v, &jac_dot[k], rho, true);
                 self.p.scale(&l, d)
             })
             .collect();
@@ -562,7 +584,7 @@ impl<'a> Deriver<'a> {
             .map(|i| {
                 (0..=m)
                     .map(|k| {
-                        let d = self.double(j, &jac[i], &jac_dot[k], rho, false);
+                        let d = self.double_flipped(j, &jac[i], &jac_dot[k], rho, false);
                         self.p.scale(&l, d)
                     })
                     .collect()
