@@ -364,27 +364,21 @@ pub fn emit(
         &|_| String::new(),
         true,
     );
-    let ntri = n * (n + 1) / 2;
-    let dyn_target = move |i: usize| {
-        if i < ntri {
-            format!("m[{i}]")
-        } else if i < ntri + n {
-            format!("h[{}]", i - ntri)
-        } else {
-            format!("a[{}]", i - ntri - n)
-        }
-    };
-    let a_param = if k > 0 {
-        format!(", {r} a[]")
-    } else {
-        String::new()
-    };
+    let nn = n * n;
     push(
-        "dynamics_terms",
-        "Terms of forward dynamics: m = lower triangle of B packed by rows, h = C q' + G + K q + D q', a = A.",
-        &plan.dynamics,
-        format!("static void {name}_dynamics_terms(const {r} q[], const {r} qd[], {r} m[], {r} h[]{a_param})"),
-        &dyn_target,
+        "terms",
+        "B(q), C(q, q') (both n x n, row-major) and G(q) in one call.",
+        &plan.terms,
+        format!("void {name}_terms(const {r} q[], const {r} qd[], {r} B[], {r} C[], {r} G[])"),
+        &move |i: usize| {
+            if i < nn {
+                format!("B[{i}]")
+            } else if i < 2 * nn {
+                format!("C[{}]", i - nn)
+            } else {
+                format!("G[{}]", i - 2 * nn)
+            }
+        },
         false,
     );
     let kinetic = CFunc {
@@ -465,7 +459,7 @@ pub fn emit(
         ("actuation", &plan.actuation),
         ("tip_jacobian", &plan.tip_jacobian),
         ("potential_energy", &plan.potential_energy),
-        ("dynamics", &plan.dynamics),
+        ("terms", &plan.terms),
     ] {
         ctx.insert(format!("{key}_ops"), &ops_line(f));
     }
@@ -473,6 +467,7 @@ pub fn emit(
         "kinetic_energy_ops",
         &format!("Operations: {}.", plan.kinetic_energy),
     );
+    ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     ctx.insert(
         "pose_ops",
         &plan.pose.iter().map(ops_line).collect::<Vec<_>>(),

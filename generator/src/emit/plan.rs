@@ -54,9 +54,11 @@ pub struct Plan {
     /// its own (it would repeat all of `B`): its cost is `B`'s plus the quadratic form.
     pub kinetic_energy: Ops,
     pub potential_energy: Func,
-    /// Roots: lower triangle of B (row-major, `k ≤ i`), then `h = C q̇ + G + K q + D q̇`,
-    /// then A (n×k row-major).
-    pub dynamics: Func,
+    /// `B`, `C` (both n×n row-major) and `G` together: what a model-based controller
+    /// asks for at every step, with the moments and kernels they share computed once.
+    pub terms: Func,
+    /// Forward dynamics over `terms`, `A`, `K`, `D` and a Cholesky solve.
+    pub dynamics: Ops,
     pub pose: Vec<Func>,
 }
 
@@ -124,35 +126,15 @@ impl Plan {
         let arm = &model.arm;
         let n = model.n;
         let segs = arm.segments.len();
-        // The forward-dynamics roots live in a copy of the program.
-        let mut prog: Program = model.program.clone();
-        let qd: Vec<Id> = (0..n)
-            .map(|i| prog.var(crate::ir::Var::Qd(i as u16)))
-            .collect();
-        let qv: Vec<Id> = (0..n)
-            .map(|i| prog.var(crate::ir::Var::Q(i as u16)))
-            .collect();
-        let mut dyn_roots: Vec<Id> = Vec::new();
-        for i in 0..n {
-            for k in 0..=i {
-                dyn_roots.push(model.inertia[i][k]);
-            }
-        }
-        for i in 0..n {
-            let mut terms = vec![model.gravity[i]];
-            for k in 0..n {
-                let d = prog.add(model.coriolis[i][k], model.damping[i][k]);
-                terms.push(prog.mul(d, qd[k]));
-                terms.push(prog.mul(model.stiffness[i][k], qv[k]));
-            }
-            dyn_roots.push(prog.sum(&terms));
-        }
-        dyn_roots.extend(model.actuation.iter().flatten().copied());
+        let prog: &Program = &model.program;
+        // `terms`: B, C (row-major) and G in one schedule, sharing everything.
+        let mut terms_roots: Vec<Id> = model.inertia.iter().flatten().copied().collect();
+        terms_roots.extend(model.coriolis.iter().flatten().copied());
+        terms_roots.extend(model.gravity.iter().copied());
 
-        let mut all_roots = crate::evaluate::main_roots(model);
-        all_roots.extend(dyn_roots.iter().copied());
-        let layout = NuLayout::of(&prog, &all_roots, segs);
-        let mut sched = Scheduler::new(&prog, &layout);
+        let all_roots = crate::evaluate::main_roots(model);
+        let layout = NuLayout::of(prog, &all_roots, segs);
+        let mut sched = Scheduler::new(prog, &layout);
         let flat = |m: &Vec<Vec<Id>>| -> Vec<Id> { m.iter().flatten().copied().collect() };
 
         let seg_length: Vec<Q> = arm.segments.iter().map(|s| s.length.clone()).collect();
@@ -211,8 +193,12 @@ impl Plan {
                 ..Ops::default()
             };
         let potential_energy = func(&mut sched, &[model.potential_energy], false);
-        let mut dynamics = func(&mut sched, &dyn_roots, false);
-        dynamics.ops += dynamics_loop_ops(n, model.n_inputs);
+        let terms = func(&mut sched, &terms_roots, false);
+        let dynamics = terms.ops
+            + actuation.ops
+            + stiffness.ops
+            + damping.ops
+            + dynamics_loop_ops(n, model.n_inputs);
         let pose: Vec<Func> = model
             .pose
             .iter()
@@ -248,6 +234,7 @@ impl Plan {
             tip_jacobian,
             kinetic_energy,
             potential_energy,
+            terms,
             dynamics,
             pose,
         }

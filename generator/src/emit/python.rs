@@ -186,33 +186,29 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
                 .into(),
         },
     );
-    let ntri = n * (n + 1) / 2;
-    let init = format!(
-        "    m = [0.0] * {ntri}\n    h = [0.0] * NQ\n    a = [[0.0] * NU for _ in range(NQ)]\n"
-    );
-    let dspec = Spec {
-        fname: "_dynamics_terms",
-        formula: "Forward-dynamics terms (q, qd: lists of floats): lower triangle of B packed by rows, h = C q' + G + K q + D q', and A.",
+    let nn2 = n * n;
+    let tspec = Spec {
+        fname: "terms",
+        formula: "B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).",
         params: &["q", "qd"],
-        init: &init,
-        ret: "    return m, h, a\n",
+        init: "    b = np.zeros((NQ, NQ))\n    c = np.zeros((NQ, NQ))\n    g = np.zeros(NQ)\n",
+        ret: "    return b, c, g\n",
     };
-    let mut dyn_fn = function(plan, &plan.dynamics, &dspec, None, &move |i| {
-        if i < ntri {
-            format!("m[{i}]")
-        } else if i < ntri + n {
-            format!("h[{}]", i - ntri)
-        } else {
-            let x = i - ntri - n;
-            format!("a[{}][{}]", x / k.max(1), x % k.max(1))
-        }
-    });
-    // q and qd arrive as lists already.
-    dyn_fn.body = dyn_fn.body.replace(
-        "    q = _vector(q, NQ, \"q\")\n    qd = _vector(qd, NQ, \"qd\")\n",
-        "",
-    );
-    funcs.push(dyn_fn);
+    funcs.push(function(
+        plan,
+        &plan.terms,
+        &tspec,
+        None,
+        &move |i: usize| {
+            if i < nn2 {
+                format!("b[{}, {}]", i / n, i % n)
+            } else if i < 2 * nn2 {
+                format!("c[{}, {}]", (i - nn2) / n, (i - nn2) % n)
+            } else {
+                format!("g[{}]", i - 2 * nn2)
+            }
+        },
+    ));
     let mut pose_names = Vec::new();
     for (j, f) in plan.pose.iter().enumerate() {
         let fname = format!("_pose_segment{j}");
@@ -248,10 +244,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&mc.coef, 4)));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
-    ctx.insert(
-        "dynamics_ops",
-        &format!("Operations: {}.", plan.dynamics.ops),
-    );
+    ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     ctx.insert("golden", &golden_python(golden));
     ctx.insert(
         "sigmas",

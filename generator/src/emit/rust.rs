@@ -262,29 +262,27 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &|_| String::new(),
         "",
     );
-    let ntri = n * (n + 1) / 2;
+    let nn2 = n * n;
     push(
-        "dynamics_terms",
-        "Forward-dynamics terms: lower triangle of `B` packed by rows, `h = C q̇ + G + K q + D q̇`, and `A`.",
-        &plan.dynamics,
+        "terms",
+        "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.",
+        &plan.terms,
         format!(
-            "fn dynamics_terms({}: &[f64; NQ], {}: &[f64; NQ]) -> ([f64; {ntri}], [f64; NQ], {})",
-            q_param(&plan.dynamics),
-            qd_param(&plan.dynamics),
-            mat("NQ", "NU")
+            "pub fn terms({}: &[f64; NQ], {}: &[f64; NQ]) -> ({nn}, {nn}, [f64; NQ])",
+            q_param(&plan.terms),
+            qd_param(&plan.terms),
         ),
-        &format!("let mut m = [0.0; {ntri}];\nlet mut h = [0.0; NQ];\nlet mut a = [[0.0; NU]; NQ];\n"),
-        &move |i| {
-            if i < ntri {
-                format!("m[{i}]")
-            } else if i < ntri + n {
-                format!("h[{}]", i - ntri)
+        "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n",
+        &move |i: usize| {
+            if i < nn2 {
+                format!("b[{}][{}]", i / n, i % n)
+            } else if i < 2 * nn2 {
+                format!("c[{}][{}]", (i - nn2) / n, (i - nn2) % n)
             } else {
-                let x = i - ntri - n;
-                format!("a[{}][{}]", x / k.max(1), x % k.max(1))
+                format!("g[{}]", i - 2 * nn2)
             }
         },
-        "(m, h, a)\n",
+        "(b, c, g)\n",
     );
     let kinetic = RFunc {
         rows: String::new(),
@@ -350,7 +348,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("kernel_coef", &mc.coef.join(", "));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
-    ctx.insert("dynamics_ops", &ops_line(&plan.dynamics));
+    ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(
         "sigmas",
