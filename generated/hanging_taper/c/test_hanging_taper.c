@@ -718,6 +718,15 @@ int main(void)
         check("C", c, m, g_C[c], HANGING_TAPER_NQ * HANGING_TAPER_NQ, scale_C);
         hanging_taper_gravity(q, v);
         check("G", c, v, g_G[c], HANGING_TAPER_NQ, scale_G);
+        {
+            double tb[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double tc[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double tg[HANGING_TAPER_NQ];
+            hanging_taper_terms(q, qd, tb, tc, tg);
+            check("terms: B", c, tb, g_B[c], HANGING_TAPER_NQ * HANGING_TAPER_NQ, scale_B);
+            check("terms: C", c, tc, g_C[c], HANGING_TAPER_NQ * HANGING_TAPER_NQ, scale_C);
+            check("terms: G", c, tg, g_G[c], HANGING_TAPER_NQ, scale_G);
+        }
         hanging_taper_stiffness(m);
         check("K", c, m, g_K[c], HANGING_TAPER_NQ * HANGING_TAPER_NQ, scale_K);
         hanging_taper_damping(m);

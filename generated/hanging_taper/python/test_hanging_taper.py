@@ -671,6 +671,10 @@ def test_inertia_coriolis_gravity():
         _check(f"B [{label}]", arm.inertia(q), G_B[c], SCALE_B)
         _check(f"C [{label}]", arm.coriolis(q, qd), G_C[c], SCALE_C)
         _check(f"G [{label}]", arm.gravity(q), G_G[c], SCALE_G)
+        b, cc, g = arm.terms(q, qd)
+        _check(f"terms: B [{label}]", b, G_B[c], SCALE_B)
+        _check(f"terms: C [{label}]", cc, G_C[c], SCALE_C)
+        _check(f"terms: G [{label}]", g, G_G[c], SCALE_G)
 
 
 def test_constant_terms_actuation_jacobian():

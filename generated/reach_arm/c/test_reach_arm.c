@@ -576,6 +576,15 @@ int main(void)
         check("C", c, m, g_C[c], REACH_ARM_NQ * REACH_ARM_NQ, scale_C);
         reach_arm_gravity(q, v);
         check("G", c, v, g_G[c], REACH_ARM_NQ, scale_G);
+        {
+            double tb[REACH_ARM_NQ * REACH_ARM_NQ];
+            double tc[REACH_ARM_NQ * REACH_ARM_NQ];
+            double tg[REACH_ARM_NQ];
+            reach_arm_terms(q, qd, tb, tc, tg);
+            check("terms: B", c, tb, g_B[c], REACH_ARM_NQ * REACH_ARM_NQ, scale_B);
+            check("terms: C", c, tc, g_C[c], REACH_ARM_NQ * REACH_ARM_NQ, scale_C);
+            check("terms: G", c, tg, g_G[c], REACH_ARM_NQ, scale_G);
+        }
         reach_arm_stiffness(m);
         check("K", c, m, g_K[c], REACH_ARM_NQ * REACH_ARM_NQ, scale_K);
         reach_arm_damping(m);

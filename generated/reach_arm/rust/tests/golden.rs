@@ -1552,6 +1552,10 @@ fn inertia_coriolis_gravity_match_reference() {
         check("B", c, &flat(&inertia(&q))[..NQ * NQ], &G_B[c], SCALE_B, f);
         check("C", c, &flat(&coriolis(&q, &qd))[..NQ * NQ], &G_C[c], SCALE_C, f);
         check("G", c, &gravity(&q), &G_G[c], SCALE_G, f);
+        let (b, cc, g) = terms(&q, &qd);
+        check("terms: B", c, &flat(&b)[..NQ * NQ], &G_B[c], SCALE_B, f);
+        check("terms: C", c, &flat(&cc)[..NQ * NQ], &G_C[c], SCALE_C, f);
+        check("terms: G", c, &g, &G_G[c], SCALE_G, f);
     });
 }
 #[test]
