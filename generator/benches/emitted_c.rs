@@ -78,7 +78,6 @@ fn main() {
     );
     for (name, f) in [
         ("inertia", &plan.inertia),
-        ("coriolis", &plan.coriolis),
         ("gravity", &plan.gravity),
         ("actuation", &plan.actuation),
         ("tip_jacobian", &plan.tip_jacobian),
@@ -91,8 +90,8 @@ fn main() {
     println!("ops {:>17}: {}", "forward_dynamics", plan.dynamics);
     let plain = Plan::new(&model, false);
     println!(
-        "without the kernel table: inertia {}, coriolis {}",
-        plain.inertia.ops, plain.coriolis.ops
+        "without the kernel table: inertia {}, terms {}",
+        plain.inertia.ops, plain.terms.ops
     );
 
     let c = out.join("c");
@@ -183,7 +182,9 @@ fn main() {
             "-mcpu=cortex-m4",
             "-mfpu=fpv4-sp-d16",
             "-mfloat-abi=hard",
+            "-mthumb",
             "-Os",
+            "-fstack-usage",
             "-c",
             "reach_arm.c",
             "-o",
@@ -203,6 +204,23 @@ fn main() {
             "Cortex-M4F (f32, -Os) size:\n{}",
             String::from_utf8_lossy(&size.stdout)
         );
+        // Stack frames (gcc -fstack-usage): a public function's frame plus its largest
+        // part is its worst case; forward dynamics adds the frame of terms.
+        if let Ok(su) = std::fs::read_to_string(c32.join("m4.su")) {
+            let mut frames: Vec<(usize, String)> = su
+                .lines()
+                .filter_map(|l| {
+                    let mut f = l.split('\t');
+                    let name = f.next()?.rsplit(':').next()?.to_string();
+                    Some((f.next()?.parse().ok()?, name))
+                })
+                .collect();
+            frames.sort();
+            println!("largest stack frames on the Cortex-M4F [bytes]:");
+            for (bytes, name) in frames.iter().rev().take(6) {
+                println!("  {bytes:>6}  {name}");
+            }
+        }
     } else {
         println!("arm-none-eabi-gcc not available: no Cortex-M4F size");
     }

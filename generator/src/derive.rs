@@ -525,30 +525,42 @@ impl<'a> Deriver<'a> {
             })
             .collect();
         let end_w = self.reducer.end_point();
-        let rho = self.reducer.weight(&seg.density.coeffs);
+        // The kernels see the density's shape only (its first non-zero coefficient
+        // scaled to 1), so that segments whose densities differ by a factor share their
+        // kernel rows in the emitted table; the factor goes into `lw`.
+        let scale = seg
+            .density
+            .coeffs
+            .iter()
+            .find(|c| !c.is_zero())
+            .cloned()
+            .unwrap_or_else(Q::one);
+        let shape: Vec<Q> = seg.density.coeffs.iter().map(|c| c / &scale).collect();
+        let rho = self.reducer.weight(&shape);
+        let lw = &l * &scale;
 
         let end = self.single(j, &v, end_w);
         let first = self.single(j, &v, rho);
-        let first = self.p.cx_scale(&l, first);
+        let first = self.p.cx_scale(&lw, first);
         let first_jac = (0..=m)
             .map(|i| {
                 let f = self.single(j, &jac[i], rho);
-                self.p.cx_scale(&l, f)
+                self.p.cx_scale(&lw, f)
             })
             .collect();
         let second = self.double(j, &v, &v, rho, false);
-        let second = self.p.scale(&l, second);
+        let second = self.p.scale(&lw, second);
         let swirl = (0..=m)
             .map(|i| {
                 let d = self.double(j, &v, &jac[i], rho, true);
-                self.p.scale(&l, d)
+                self.p.scale(&lw, d)
             })
             .collect();
         let mut gram = vec![vec![self.p.zero(); m + 1]; m + 1];
         for a in 0..=m {
             for b in a..=m {
                 let d = self.double(j, &jac[a], &jac[b], rho, false);
-                let id = self.p.scale(&l, d);
+                let id = self.p.scale(&lw, d);
                 gram[a][b] = id;
                 gram[b][a] = id;
             }
@@ -556,14 +568,14 @@ impl<'a> Deriver<'a> {
         let rr: Vec<Id> = (0..=m)
             .map(|i| {
                 let d = self.double(j, &v, &jac[i], rho, false);
-                self.p.scale(&l, d)
+                self.p.scale(&lw, d)
             })
             .collect();
         let mut gram_im = vec![vec![self.p.zero(); m + 1]; m + 1];
         for a in 0..=m {
             for b in a + 1..=m {
                 let d = self.double(j, &jac[a], &jac[b], rho, true);
-                let id = self.p.scale(&l, d);
+                let id = self.p.scale(&lw, d);
                 gram_im[a][b] = id;
                 gram_im[b][a] = self.p.neg(id);
             }
@@ -571,13 +583,13 @@ impl<'a> Deriver<'a> {
         let first_dot = (0..=m)
             .map(|k| {
                 let f = self.single(j, &jac_dot[k], rho);
-                self.p.cx_scale(&l, f)
+                self.p.cx_scale(&lw, f)
             })
             .collect();
         let swirl_dot = (0..=m)
             .map(|k| {
                 let d = self.double_flipped(j, &v, &jac_dot[k], rho, true);
-                self.p.scale(&l, d)
+                self.p.scale(&lw, d)
             })
             .collect();
         let gram_dot = (0..=m)
@@ -585,7 +597,7 @@ impl<'a> Deriver<'a> {
                 (0..=m)
                     .map(|k| {
                         let d = self.double_flipped(j, &jac[i], &jac_dot[k], rho, false);
-                        self.p.scale(&l, d)
+                        self.p.scale(&lw, d)
                     })
                     .collect()
             })

@@ -48,7 +48,7 @@ extern "C" {
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 8767 add, 12119 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10614 add, 13424 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_inertia(const double q[], double B[]);
 
@@ -56,13 +56,13 @@ void reach_arm_inertia(const double q[], double B[]);
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 11242 add, 15668 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_coriolis(const double q[], const double qd[], double C[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1339 add, 2227 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1469 add, 2260 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity(const double q[], double G[]);
 
@@ -97,7 +97,7 @@ void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 853 add, 1555 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 927 add, 1579 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_tip_jacobian(const double q[], double J[]);
 
@@ -106,20 +106,20 @@ void reach_arm_tip_jacobian(const double q[], double J[]);
  * reach_arm_coriolis and reach_arm_gravity and the same values. This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 11972 add, 16840 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_terms(const double q[], const double qd[], double B[], double C[],
     double G[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 8803 add, 12162 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10650 add, 13467 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_kinetic_energy(const double q[], const double qd[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 960 add, 1594 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1035 add, 1607 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_potential_energy(const double q[]);
 
@@ -131,7 +131,7 @@ double reach_arm_potential_energy(const double q[]);
  * on an error qdd is filled with NaN.
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 12067 add, 16929 mul, 31 div, 6 sqrt, 6 trig.
+ * Operations: 14674 add, 18847 mul, 31 div, 6 sqrt, 6 trig.
  */
 int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);

@@ -8,7 +8,7 @@ use super::constants::{base_context, strings, MomentConstants};
 use super::golden::Golden;
 use super::number::Precision;
 use super::plan::{Func, Plan};
-use super::schedule::{Block, Leaf, Stmt};
+use super::schedule::{Block, KernelUse, Leaf, Stmt};
 use super::templates::render;
 use super::Meta;
 use crate::ir::Var;
@@ -53,6 +53,19 @@ pub(super) fn wrap_list(items: &[String], indent: usize) -> String {
     }
     out.push_str(&line);
     out
+}
+
+/// `row, base` of every kernel use, flat.
+pub(super) fn use_pairs(uses: &[KernelUse]) -> Vec<String> {
+    uses.iter()
+        .flat_map(|u| [u.row.to_string(), u.base.to_string()])
+        .collect()
+}
+
+/// Largest value in any function's kernel-use pairs: every such array, and the kernel
+/// routine's parameter, share one element type.
+pub(super) fn use_max(plan: &Plan) -> usize {
+    plan.table.rows.len().max(plan.layout.len)
 }
 
 /// Smallest unsigned type for values up to `max`.
@@ -131,14 +144,15 @@ impl Printer<'_> {
         }
         if !b.kernels.is_empty() {
             out.push_str(&format!("    {r} kern[{}];\n", b.kernels.len()));
-            let items: Vec<String> = b.kernels.iter().map(|k| k.to_string()).collect();
-            let max = b.kernels.iter().copied().max().unwrap_or(0);
+            let items = use_pairs(&b.kernels);
+            let max = use_max(plan);
             rows = format!(
-                "static const {} {}_{fname}_rows[{}] = {{\n{}\n}};\n",
+                "/* Kernels of {n}_{fname}: pairs (row, moment base). */\n\
+                 static const {} {n}_{fname}_rows[{}] = {{\n{}\n}};\n",
                 uint_type(max),
-                self.name,
-                b.kernels.len(),
-                wrap_list(&items, 4)
+                2 * b.kernels.len(),
+                wrap_list(&items, 4),
+                n = self.name,
             );
         }
         if b.angles > 0 {
@@ -309,14 +323,6 @@ pub fn emit(
         false,
     );
     push(
-        "coriolis",
-        "C(q, q'), n x n, row-major.",
-        &plan.coriolis,
-        format!("void {name}_coriolis(const {r} q[], const {r} qd[], {r} C[])"),
-        &flat("C"),
-        false,
-    );
-    push(
         "gravity",
         "G(q) = dU_g/dq.",
         &plan.gravity,
@@ -395,6 +401,20 @@ pub fn emit(
             f = p.fs(),
         ),
     };
+    // C alone needs nearly everything B and G need too, so it costs about as much as
+    // terms: it is terms, keeping C.
+    let coriolis = CFunc {
+        rows: String::new(),
+        formula: "C(q, q'), n x n, row-major, from terms (C shares nearly all of its work \
+                  with B and G)."
+            .into(),
+        ops: ops_line(&plan.terms),
+        signature: format!("void {name}_coriolis(const {r} q[], const {r} qd[], {r} C[])"),
+        body: format!(
+            "    {r} B[{up}_NQ * {up}_NQ];\n    {r} G[{up}_NQ];\n    {name}_terms(q, qd, B, C, G);\n"
+        ),
+    };
+    funcs.insert(1, coriolis);
     // The kinetic energy goes before the potential energy.
     let at = funcs
         .iter()
@@ -425,8 +445,7 @@ pub fn emit(
         .iter()
         .map(|row| format!("{{\n{}\n    }}", wrap_list(row, 8)))
         .collect();
-    let rows = &plan.table.rows;
-    let nnz = mc.index.len();
+    let nnz = mc.coef.len();
     let (big, small) = match precision {
         Precision::F64 => ("1e200", "1e-200"),
         Precision::F32 => ("1e30f", "1e-30f"),
@@ -443,16 +462,16 @@ pub fn emit(
     ctx.insert("series", &format!("    {}", series.join(",\n    ")));
     ctx.insert("kernel_nnz", &nnz);
     ctx.insert("start_type", uint_type(nnz));
-    ctx.insert("index_type", uint_type(plan.layout.len));
-    ctx.insert("row_type", uint_type(rows.len()));
+    ctx.insert("index_type", uint_type(plan.moment_max));
+    ctx.insert("row_type", uint_type(use_max(plan)));
     ctx.insert("kernel_start", &wrap_list(&strings(&mc.start), 4));
-    ctx.insert("kernel_index", &wrap_list(&strings(&mc.index), 4));
+    ctx.insert("kernel_first", &wrap_list(&strings(&mc.first), 4));
     ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
     for (key, f) in [
         ("inertia", &plan.inertia),
-        ("coriolis", &plan.coriolis),
+        ("coriolis", &plan.terms),
         ("gravity", &plan.gravity),
         ("stiffness", &plan.stiffness),
         ("damping", &plan.damping),

@@ -1,6 +1,5 @@
 //! What every language's moment routine and kernel table print, computed once: the
-//! series and recurrence constants as exact literals, the kernel table in compressed
-//! rows, and the template context entries all languages share.
+//! series and recurrence constants as exact literals, the kernel table in bands, and the template context entries all languages share.
 
 use super::number::{literal, Precision};
 use super::plan::{moment_ops, Plan, UPWARD_LIMIT};
@@ -15,9 +14,11 @@ pub struct MomentConstants {
     pub odd_inv: Vec<String>,
     /// Power-series factors `1/(k(2n+2k+1))`, `k = 1..SERIES_TERMS`, one row per `n`.
     pub series: Vec<Vec<String>>,
-    /// Kernel table in compressed rows: row starts, column indices, coefficients.
+    /// Kernel table in bands: row `r`'s coefficients are `coef[start[r]..start[r+1]]`,
+    /// for the moments `first[r]`, `first[r] + 1`, … (zeros inside a band kept, so that
+    /// the evaluation is a contiguous dot product with no index array).
     pub start: Vec<usize>,
-    pub index: Vec<usize>,
+    pub first: Vec<usize>,
     pub coef: Vec<String>,
 }
 
@@ -37,20 +38,24 @@ impl MomentConstants {
             })
             .collect();
         let mut start = vec![0usize];
-        let mut index = Vec::new();
+        let mut first = Vec::new();
         let mut coef = Vec::new();
         for row in &plan.table.rows {
-            for (i, c) in row {
-                index.push(*i);
-                coef.push(lit(c));
+            let lo = row.first().map_or(0, |(n, _)| *n);
+            let hi = row.last().map_or(0, |(n, _)| *n + 1);
+            let mut band = vec![Q::from_integer(0.into()); hi.saturating_sub(lo)];
+            for (n, c) in row {
+                band[n - lo] = c.clone();
             }
-            start.push(index.len());
+            first.push(lo);
+            coef.extend(band.iter().map(lit));
+            start.push(coef.len());
         }
         MomentConstants {
             odd_inv,
             series,
             start,
-            index,
+            first,
             coef,
         }
     }

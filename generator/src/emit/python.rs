@@ -4,7 +4,7 @@
 use super::body::{
     angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
 };
-use super::c::wrap_list;
+use super::c::{use_pairs, wrap_list};
 use super::constants::{base_context, strings, MomentConstants};
 use super::golden::{Golden, SIGMAS};
 use super::number::{f64_literal, golden_literal, Precision};
@@ -103,8 +103,11 @@ fn function(
     }
     if !b.kernels.is_empty() {
         let upper = spec.fname.trim_start_matches('_').to_uppercase();
-        let items: Vec<String> = b.kernels.iter().map(|k| k.to_string()).collect();
-        rows = format!("_{upper}_ROWS = {}\n", tuple(&items, 4));
+        let items = use_pairs(&b.kernels);
+        rows = format!(
+            "# pairs (row, moment base)\n_{upper}_ROWS = {}\n",
+            tuple(&items, 4)
+        );
         out.push_str(&format!("    kern = _kernels(_{upper}_ROWS, nu)\n"));
     }
     out.push_str(spec.init);
@@ -131,42 +134,81 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let ret = "    return out\n";
     let specs: Vec<(Spec, &Func, Box<dyn Fn(usize) -> String>)> = vec![
         (
-            Spec { fname: "inertia", formula: "Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.", params: &["q"], init: &nn, ret },
+            Spec {
+                fname: "inertia",
+                formula:
+                    "Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.",
+                params: &["q"],
+                init: &nn,
+                ret,
+            },
             &plan.inertia,
             Box::new(move |i| mat(i, n)),
         ),
         (
-            Spec { fname: "coriolis", formula: "Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ.", params: &["q", "qd"], init: &nn, ret },
-            &plan.coriolis,
-            Box::new(move |i| mat(i, n)),
-        ),
-        (
-            Spec { fname: "gravity", formula: "Gravity vector G(q) = dU_g/dq, length NQ.", params: &["q"], init: "    out = np.zeros(NQ)\n", ret },
+            Spec {
+                fname: "gravity",
+                formula: "Gravity vector G(q) = dU_g/dq, length NQ.",
+                params: &["q"],
+                init: "    out = np.zeros(NQ)\n",
+                ret,
+            },
             &plan.gravity,
             Box::new(|i| format!("out[{i}]")),
         ),
         (
-            Spec { fname: "stiffness", formula: "Stiffness matrix K (constant, block diagonal): elastic energy 1/2 q^T K q.", params: &[], init: &nn, ret },
+            Spec {
+                fname: "stiffness",
+                formula:
+                    "Stiffness matrix K (constant, block diagonal): elastic energy 1/2 q^T K q.",
+                params: &[],
+                init: &nn,
+                ret,
+            },
             &plan.stiffness,
             Box::new(move |i| mat(i, n)),
         ),
         (
-            Spec { fname: "damping", formula: "Damping matrix D (constant): dissipation 1/2 q'^T D q'.", params: &[], init: &nn, ret },
+            Spec {
+                fname: "damping",
+                formula: "Damping matrix D (constant): dissipation 1/2 q'^T D q'.",
+                params: &[],
+                init: &nn,
+                ret,
+            },
             &plan.damping,
             Box::new(move |i| mat(i, n)),
         ),
         (
-            Spec { fname: "actuation", formula: "Actuation matrix A(q), NQ x NU: generalized force A u.", params: &["q"], init: "    out = np.zeros((NQ, NU))\n", ret },
+            Spec {
+                fname: "actuation",
+                formula: "Actuation matrix A(q), NQ x NU: generalized force A u.",
+                params: &["q"],
+                init: "    out = np.zeros((NQ, NU))\n",
+                ret,
+            },
             &plan.actuation,
             Box::new(move |i| mat(i, k)),
         ),
         (
-            Spec { fname: "tip_jacobian", formula: "Tip Jacobian, 3 x NQ: rows dx/dq, dy/dq, dangle/dq.", params: &["q"], init: "    out = np.zeros((3, NQ))\n", ret },
+            Spec {
+                fname: "tip_jacobian",
+                formula: "Tip Jacobian, 3 x NQ: rows dx/dq, dy/dq, dangle/dq.",
+                params: &["q"],
+                init: "    out = np.zeros((3, NQ))\n",
+                ret,
+            },
             &plan.tip_jacobian,
             Box::new(move |i| mat(i, n)),
         ),
         (
-            Spec { fname: "potential_energy", formula: "Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.", params: &["q"], init: "", ret: "" },
+            Spec {
+                fname: "potential_energy",
+                formula: "Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.",
+                params: &["q"],
+                init: "",
+                ret: "",
+            },
             &plan.potential_energy,
             Box::new(|_| String::new()),
         ),
@@ -174,6 +216,17 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     for (spec, f, target) in &specs {
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
+    // C alone needs nearly everything B and G need too: it is terms(), keeping C.
+    funcs.insert(
+        1,
+        PyFunc {
+            rows: String::new(),
+            formula: "Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.".into(),
+            ops: format!("Operations: {}.", plan.terms.ops),
+            signature: "coriolis(q, qd)".into(),
+            body: "    return terms(q, qd)[1]\n".into(),
+        },
+    );
     // Before the potential energy, the last of the list.
     funcs.insert(
         funcs.len() - 1,
@@ -238,8 +291,8 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &format!("\n{},\n", wrap_list(&strings(&mc.start), 4)),
     );
     ctx.insert(
-        "kernel_index",
-        &format!("\n{},\n", wrap_list(&strings(&mc.index), 4)),
+        "kernel_first",
+        &format!("\n{},\n", wrap_list(&strings(&mc.first), 4)),
     );
     ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&mc.coef, 4)));
     ctx.insert("functions", &funcs);

@@ -5,7 +5,7 @@
 use super::body::{
     angle_increment, inline, moment_argument, outputs, temp_slots, temporaries, Spelling, StmtStyle,
 };
-use super::c::wrap_list;
+use super::c::{use_max, use_pairs, wrap_list};
 use super::constants::{base_context, strings, MomentConstants};
 use super::golden::{Golden, SIGMAS};
 use super::number::Precision;
@@ -117,11 +117,12 @@ fn body(
     }
     if !b.kernels.is_empty() {
         let upper = fname.to_uppercase();
-        let items: Vec<String> = b.kernels.iter().map(|k| k.to_string()).collect();
+        let items = use_pairs(&b.kernels);
+        let max = use_max(plan);
         rows = format!(
-            "static {upper}_ROWS: [{}; {}] = [{}];\n",
-            uint(b.kernels.iter().copied().max().unwrap_or(0)),
-            b.kernels.len(),
+            "/// Kernels of `{fname}`: pairs (row, moment base).\nstatic {upper}_ROWS: [{}; {}] = [{}];\n",
+            uint(max),
+            2 * b.kernels.len(),
             wrap_list(&items, 4)
         );
         out.push_str(&format!(
@@ -176,19 +177,6 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         format!(
             "pub fn inertia({}: &[f64; NQ]) -> {nn}",
             q_param(&plan.inertia)
-        ),
-        "let mut out = [[0.0; NQ]; NQ];\n",
-        &mat_target(n),
-        "out\n",
-    );
-    push(
-        "coriolis",
-        "Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ.",
-        &plan.coriolis,
-        format!(
-            "pub fn coriolis({}: &[f64; NQ], {}: &[f64; NQ]) -> {nn}",
-            q_param(&plan.coriolis),
-            qd_param(&plan.coriolis)
         ),
         "let mut out = [[0.0; NQ]; NQ];\n",
         &mat_target(n),
@@ -294,6 +282,17 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
                t += qd[i] * bqd;\n}\n0.5 * t\n"
             .into(),
     };
+    // C alone needs nearly everything B and G need too: it is `terms`, keeping C.
+    funcs.insert(
+        1,
+        RFunc {
+            rows: String::new(),
+            formula: "Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.".into(),
+            ops: ops_line(&plan.terms),
+            signature: format!("pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> {nn}"),
+            body: "terms(q, qd).1\n".into(),
+        },
+    );
     // The kinetic energy goes before the potential energy.
     let at = funcs
         .iter()
@@ -339,12 +338,12 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let mut ctx = base_context(name, meta, plan, n, k);
     ctx.insert("odd_inv", &mc.odd_inv.join(", "));
     ctx.insert("series", &series.join(", "));
-    ctx.insert("kernel_nnz", &mc.index.len());
-    ctx.insert("start_type", uint(mc.index.len()));
-    ctx.insert("index_type", uint(plan.layout.len));
-    ctx.insert("row_type", uint(plan.table.rows.len()));
+    ctx.insert("kernel_nnz", &mc.coef.len());
+    ctx.insert("start_type", uint(mc.coef.len()));
+    ctx.insert("index_type", uint(plan.moment_max));
+    ctx.insert("row_type", uint(use_max(plan)));
     ctx.insert("kernel_start", &strings(&mc.start).join(", "));
-    ctx.insert("kernel_index", &strings(&mc.index).join(", "));
+    ctx.insert("kernel_first", &strings(&mc.first).join(", "));
     ctx.insert("kernel_coef", &mc.coef.join(", "));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);

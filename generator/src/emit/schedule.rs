@@ -49,10 +49,18 @@ impl NuLayout {
     }
 
     pub fn index(&self, seg: u16, n: u16, im: bool) -> usize {
+        self.base(seg, im) + n as usize
+    }
+
+    /// Where segment `seg`'s real (or imaginary) moments start.
+    pub fn base(&self, seg: u16, im: bool) -> usize {
         let s = seg as usize;
-        self.offset[s] + n as usize + if im { self.count[s] } else { 0 }
+        self.offset[s] + if im { self.count[s] } else { 0 }
     }
 }
+
+/// Marks a linear form whose moments come from more than one base.
+const MIXED: usize = usize::MAX;
 
 /// A value an expression reads.
 #[derive(Clone, Debug, PartialEq)]
@@ -174,21 +182,32 @@ pub struct Stmt {
     pub expr: Expr,
 }
 
-/// One row of the shared kernel table: `Σ coef · nu[index]`.
+/// One row of the shared kernel table: `Σ coef · nu[base + n]` over its `(n, coef)`,
+/// with `base` the start of one segment's real or imaginary moments. A row is a
+/// pattern, not a value: every segment (and both parts) with the same weight shape
+/// reads the same row at its own base.
 pub type KernelRow = Vec<(usize, Q)>;
 
-/// Kernel rows of all functions, in first-use order, deduplicated by node.
+/// One evaluation of a kernel row: the row and the moment base it reads.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct KernelUse {
+    pub row: usize,
+    pub base: usize,
+}
+
+/// Kernel rows of all functions, in first-use order, deduplicated by pattern.
 #[derive(Clone, Debug, Default)]
 pub struct KernelTable {
     pub rows: Vec<KernelRow>,
-    by_node: BTreeMap<Id, usize>,
+    by_row: BTreeMap<KernelRow, usize>,
+    by_node: BTreeMap<Id, KernelUse>,
 }
 
 /// One function's schedule.
 #[derive(Clone, Debug)]
 pub struct Block {
     /// Table rows this function evaluates, in `kern[]` order.
-    pub kernels: Vec<usize>,
+    pub kernels: Vec<KernelUse>,
     pub stmts: Vec<Stmt>,
     /// One expression per requested root.
     pub outputs: Vec<Expr>,
@@ -211,12 +230,15 @@ pub struct Scheduler<'p> {
     layout: &'p NuLayout,
     /// Number of moment leaves below a node when it is a linear form in `Var::Nu`, else 0.
     lin: Vec<u32>,
+    /// For a linear form in the moments: the one moment base all its leaves read
+    /// ([`NuLayout::base`]), or `MIXED` when they read several.
+    base: Vec<usize>,
     pub table: KernelTable,
 }
 
 struct BlockState {
     kernel_pos: BTreeMap<usize, usize>,
-    kernels: Vec<usize>,
+    kernels: Vec<KernelUse>,
     temp_of: BTreeMap<u32, usize>,
     stmts: Vec<Stmt>,
     next_temp: usize,
@@ -226,27 +248,35 @@ impl<'p> Scheduler<'p> {
     pub fn new(prog: &'p Program, layout: &'p NuLayout) -> Self {
         let nodes = prog.nodes();
         let mut lin = vec![0u32; nodes.len()];
+        let mut base = vec![MIXED; nodes.len()];
         for (i, node) in nodes.iter().enumerate() {
-            lin[i] = match node {
-                Node::Var(Var::Nu { .. }) => 1,
-                Node::Neg(a) => lin[a.index()],
-                Node::Mul(a, b) if matches!(nodes[a.index()], Node::Const(_)) => lin[b.index()],
-                Node::Add(a, b) if lin[a.index()] > 0 && lin[b.index()] > 0 => {
-                    lin[a.index()] + lin[b.index()]
+            (lin[i], base[i]) = match node {
+                Node::Var(Var::Nu { seg, im, .. }) => (1, layout.base(*seg, *im)),
+                Node::Neg(a) => (lin[a.index()], base[a.index()]),
+                Node::Mul(a, b) if matches!(nodes[a.index()], Node::Const(_)) => {
+                    (lin[b.index()], base[b.index()])
                 }
-                _ => 0,
+                Node::Add(a, b) if lin[a.index()] > 0 && lin[b.index()] > 0 => {
+                    let same = base[a.index()] == base[b.index()];
+                    (
+                        lin[a.index()] + lin[b.index()],
+                        if same { base[a.index()] } else { MIXED },
+                    )
+                }
+                _ => (0, MIXED),
             };
         }
         Scheduler {
             prog,
             layout,
             lin,
+            base,
             table: KernelTable::default(),
         }
     }
 
     fn is_kernel_candidate(&self, i: usize) -> bool {
-        self.lin[i] >= 2
+        self.lin[i] >= 2 && self.base[i] != MIXED
     }
 
     /// Coefficients of a linear form in the moments.
@@ -269,17 +299,26 @@ impl<'p> Scheduler<'p> {
         }
     }
 
-    fn table_row(&mut self, id: Id) -> usize {
-        if let Some(&r) = self.table.by_node.get(&id) {
-            return r;
+    fn table_row(&mut self, id: Id) -> KernelUse {
+        if let Some(&u) = self.table.by_node.get(&id) {
+            return u;
         }
         let mut acc = BTreeMap::new();
         self.collect_linear(id, &Q::one(), &mut acc);
-        let row: KernelRow = acc.into_iter().filter(|(_, c)| !c.is_zero()).collect();
-        let r = self.table.rows.len();
-        self.table.rows.push(row);
-        self.table.by_node.insert(id, r);
-        r
+        let base = self.base[id.index()];
+        let row: KernelRow = acc
+            .into_iter()
+            .filter(|(_, c)| !c.is_zero())
+            .map(|(i, c)| (i - base, c))
+            .collect();
+        let next = self.table.rows.len();
+        let r = *self.table.by_row.entry(row.clone()).or_insert(next);
+        if r == next {
+            self.table.rows.push(row);
+        }
+        let u = KernelUse { row: r, base };
+        self.table.by_node.insert(id, u);
+        u
     }
 
     /// Schedules the given roots. `kernels` turns moment kernels into table rows.
@@ -376,14 +415,14 @@ impl<'p> Scheduler<'p> {
         // Kernel rows first, in node order (deterministic).
         for i in 0..n {
             if live[i] && kroot[i] {
-                let row = self.table_row(Id(i as u32));
-                for (idx, _) in &self.table.rows[row] {
+                let u = self.table_row(Id(i as u32));
+                for (n, _) in &self.table.rows[u.row] {
                     // the moments a kernel reads count as read
-                    let (seg, k) = self.layout_seg(*idx);
+                    let (seg, k) = self.layout_seg(u.base + n);
                     nu_count[seg] = nu_count[seg].max(k + 1);
                 }
                 st.kernel_pos.insert(i, st.kernels.len());
-                st.kernels.push(row);
+                st.kernels.push(u);
             }
         }
         for i in 0..n {
@@ -410,8 +449,8 @@ impl<'p> Scheduler<'p> {
         for e in &outputs {
             ops += e.ops();
         }
-        for &row in &st.kernels {
-            let nnz = self.table.rows[row].len();
+        for u in &st.kernels {
+            let nnz = self.table.rows[u.row].len();
             ops += Ops {
                 add: nnz,
                 mul: nnz,
