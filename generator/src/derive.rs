@@ -125,7 +125,6 @@ struct Deriver<'a> {
     kernel_of: HashMap<Id, (usize, KernelKey, bool)>,
     /// Rows of kernel matrices applied to grouped fields, shared across forms.
     applied: HashMap<AppliedKey, Cx>,
-    applied_of: HashMap<Id, (AppliedKey, bool)>,
     dmemo: HashMap<(Id, usize), Id>,
 }
 
@@ -144,7 +143,6 @@ impl<'a> Deriver<'a> {
             kernels: HashMap::default(),
             kernel_of: HashMap::default(),
             applied: HashMap::default(),
-            applied_of: HashMap::default(),
             dmemo: HashMap::default(),
         }
     }
@@ -421,60 +419,8 @@ impl<'a> Deriver<'a> {
             terms.push(self.p.cx_mul(k, cb));
         }
         let y = self.cx_sum(&terms);
-        self.applied.insert(key.clone(), y);
-        for (id, part_im) in [(y.re, false), (y.im, true)] {
-            if self.p.as_const(id).is_none() {
-                self.applied_of
-                    .entry(id)
-                    .or_insert_with(|| (key.clone(), part_im));
-            }
-        }
+        self.applied.insert(key, y);
         y
-    }
-
-    /// `∂Y_s/∂q_x` for `Y = 𝔻 B`, as rows of the kernel matrix applied to other fields,
-    /// so the Coriolis terms reuse the columns `B` already computed:
-    /// `∂Y_s/∂q_{j,i} = (𝔻 ∂B/∂q_{j,i})_s` for `i ≥ 1` (kernels do not depend on it), and
-    /// `∂Y_s/∂q_{j,0} = L i ((𝔻 τB)_s − Y_{s+1})` from `D_st' = i(D_{s,t+1} − D_{s+1,t})`
-    /// (the coefficients of `B` do not depend on `a`).
-    fn d_applied(&mut self, key: &AppliedKey, part_im: bool, x: usize) -> Id {
-        let (seg, w, b, s) = key.clone();
-        let (jx, i) = self.coord(x);
-        if jx != seg {
-            return self.p.zero();
-        }
-        let y = if i == 0 {
-            let shifted: Groups = b.iter().map(|&(t, c)| (t + 1, c)).collect();
-            let ys = self.kernel_apply(seg, &shifted, w, s);
-            let y1 = self.kernel_apply(seg, &b, w, s + 1);
-            let diff = Cx {
-                re: self.p.sub(ys.re, y1.re),
-                im: self.p.sub(ys.im, y1.im),
-            };
-            let l = self.lengths[seg].clone();
-            let idiff = self.p.cx_times_i(diff);
-            self.p.cx_scale(&l, idiff)
-        } else {
-            let mut db: Groups = Vec::with_capacity(b.len());
-            for &(t, c) in &b {
-                let dc = Cx {
-                    re: self.d(c.re, x),
-                    im: self.d(c.im, x),
-                };
-                if !(self.p.is_zero(dc.re) && self.p.is_zero(dc.im)) {
-                    db.push((t, dc));
-                }
-            }
-            if db.is_empty() {
-                return self.p.zero();
-            }
-            self.kernel_apply(seg, &db, w, s)
-        };
-        if part_im {
-            y.im
-        } else {
-            y.re
-        }
     }
 
     fn cx_sum(&mut self, terms: &[Cx]) -> Cx {
@@ -626,9 +572,7 @@ impl<'a> Deriver<'a> {
         if let Some(&r) = self.dmemo.get(&(id, x)) {
             return r;
         }
-        let r = if let Some((key, part_im)) = self.applied_of.get(&id).cloned() {
-            self.d_applied(&key, part_im, x)
-        } else if let Some(&(seg, key, part_im)) = self.kernel_of.get(&id) {
+        let r = if let Some(&(seg, key, part_im)) = self.kernel_of.get(&id) {
             if x == self.offsets[seg] {
                 self.d_kernel(seg, key, part_im)
             } else {
@@ -916,11 +860,11 @@ impl<'a> Deriver<'a> {
     /// coordinates.
     fn rate(&mut self, z: Cx, upto: usize, qd: &[Id]) -> Cx {
         let mut terms = Vec::with_capacity(upto);
-        for l in 0..upto {
+        for (l, &qdl) in qd.iter().enumerate().take(upto) {
             let dz = self.d_cx(z, l);
             terms.push(Cx {
-                re: self.p.mul(dz.re, qd[l]),
-                im: self.p.mul(dz.im, qd[l]),
+                re: self.p.mul(dz.re, qdl),
+                im: self.p.mul(dz.im, qdl),
             });
         }
         self.cx_sum(&terms)

@@ -4,11 +4,11 @@ use super::body::{
     angle_increment, for_each_leaf, inline, moment_argument, outputs, statements, temp_slots,
     temporaries, Spelling, StmtStyle,
 };
-use super::constants::{base_context, strings, MomentConstants};
+use super::constants::{base_context, strings, use_max, use_pairs, MomentConstants};
 use super::golden::Golden;
 use super::number::Precision;
 use super::plan::{Func, Plan};
-use super::schedule::{Block, KernelUse, Leaf, Stmt};
+use super::schedule::{Block, Leaf, Stmt};
 use super::templates::render;
 use super::Meta;
 use crate::ir::Var;
@@ -53,19 +53,6 @@ pub(super) fn wrap_list(items: &[String], indent: usize) -> String {
     }
     out.push_str(&line);
     out
-}
-
-/// `row, base` of every kernel use, flat.
-pub(super) fn use_pairs(uses: &[KernelUse]) -> Vec<String> {
-    uses.iter()
-        .flat_map(|u| [u.row.to_string(), u.base.to_string()])
-        .collect()
-}
-
-/// Largest value in any function's kernel-use pairs: every such array, and the kernel
-/// routine's parameter, share one element type.
-pub(super) fn use_max(plan: &Plan) -> usize {
-    plan.table.rows.len().max(plan.layout.len)
 }
 
 /// Smallest unsigned type for values up to `max`.

@@ -3,6 +3,7 @@
 
 use super::number::{literal, Precision};
 use super::plan::{moment_ops, Plan, UPWARD_LIMIT};
+use super::schedule::KernelUse;
 use super::Meta;
 use crate::exact::{int, Q};
 use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
@@ -82,6 +83,19 @@ pub fn base_context(name: &str, meta: &Meta, plan: &Plan, n: usize, k: usize) ->
     );
     ctx.insert("kernel_rows", &plan.table.rows.len());
     ctx
+}
+
+/// `row, base` of every kernel use, flat.
+pub fn use_pairs(uses: &[KernelUse]) -> Vec<String> {
+    uses.iter()
+        .flat_map(|u| [u.row.to_string(), u.base.to_string()])
+        .collect()
+}
+
+/// Largest value in any function's kernel-use pairs: every such array, and the kernel
+/// routine's parameter, share one element type.
+pub fn use_max(plan: &Plan) -> usize {
+    plan.table.rows.len().max(plan.layout.len)
 }
 
 /// Numbers as strings, for lists that templates print.

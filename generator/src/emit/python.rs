@@ -4,8 +4,8 @@
 use super::body::{
     angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
 };
-use super::c::{use_pairs, wrap_list};
-use super::constants::{base_context, strings, MomentConstants};
+use super::c::wrap_list;
+use super::constants::{base_context, strings, use_pairs, MomentConstants};
 use super::golden::{Golden, SIGMAS};
 use super::number::{f64_literal, golden_literal, Precision};
 use super::plan::{Func, Plan};

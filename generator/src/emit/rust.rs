@@ -5,8 +5,8 @@
 use super::body::{
     angle_increment, inline, moment_argument, outputs, temp_slots, temporaries, Spelling, StmtStyle,
 };
-use super::c::{use_max, use_pairs, wrap_list};
-use super::constants::{base_context, strings, MomentConstants};
+use super::c::wrap_list;
+use super::constants::{base_context, strings, use_max, use_pairs, MomentConstants};
 use super::golden::{Golden, SIGMAS};
 use super::number::Precision;
 use super::plan::{Func, Plan};
