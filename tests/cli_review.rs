@@ -271,6 +271,42 @@ fn verify_passes_on_fresh_output_and_catches_a_stale_file() {
 }
 
 #[test]
+fn verify_regenerates_with_the_options_the_marker_records() {
+    // Optimised, single-precision output: verify needs no flag to rebuild it
+    // byte for byte.
+    let tmp = tempfile::tempdir().unwrap();
+    let arm = tmp.path().join("small_arm.toml");
+    fs::write(&arm, SMALL_ARM).unwrap();
+    let out_dir = tmp.path().join("out");
+    let gen = arcwright(&[
+        "generate",
+        path(&arm),
+        "--out",
+        path(&out_dir),
+        "--optimise",
+        "--precision",
+        "f32",
+        "-q",
+    ]);
+    assert!(gen.status.success(), "{}", describe(&gen));
+    let marker = fs::read_to_string(out_dir.join("ARCWRIGHT_OUTPUT")).unwrap();
+    assert!(
+        marker.contains("Generated with: --precision f32 --optimise"),
+        "{marker}"
+    );
+    let out = arcwright(&[
+        "verify",
+        path(&out_dir),
+        "--skip",
+        "c,rust,python",
+        "--samples",
+        "2",
+        "-q",
+    ]);
+    assert_eq!(out.status.code(), Some(0), "{}", describe(&out));
+}
+
+#[test]
 fn verify_reads_the_recorded_arm_of_the_shipped_output() {
     // Only the checks that need no compiler: recorded arm, files, error table.
     let out = arcwright(&[

@@ -52,7 +52,15 @@ fn generated(path: &Path, precision: Precision) -> PathBuf {
     let text = std::fs::read_to_string(path).expect("arm file");
     let (arm, _) = parse_arm_file(path).expect("demo arm parses");
     let model = derive(&arm);
-    let files = emit(&model, &text, Options { precision }).expect("emits");
+    let files = emit(
+        &model,
+        &text,
+        Options {
+            precision,
+            ..Options::default()
+        },
+    )
+    .expect("emits");
     write_tree(&out, &files).expect("writes");
     done.insert(key, out.clone());
     out

@@ -170,6 +170,7 @@ fn main() {
         &text,
         Options {
             precision: Precision::F32,
+            ..Options::default()
         },
     )
     .unwrap();

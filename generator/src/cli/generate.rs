@@ -115,7 +115,14 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
     let model = model_for_emission(&arm, args.optimise);
     bar.inc(1);
     bar.set_message("emitting and computing golden values");
-    let emitted = emit(&model, &text, Options { precision });
+    let emitted = emit(
+        &model,
+        &text,
+        Options {
+            precision,
+            optimised: args.optimise,
+        },
+    );
     bar.finish_and_clear();
     let files: Vec<OutFile> = emitted
         .map_err(CliError::Failed)?

@@ -18,7 +18,7 @@ use crate::arm::{Arm, MAX_WORKSPACE_SAMPLES};
 use crate::derive::derive;
 use crate::dynamics::{forward_dynamics, generalized_force};
 use crate::emit::golden::{Golden, SIGMAS};
-use crate::emit::write::{write_tree, MARKER};
+use crate::emit::write::{marker_options, write_tree, MARKER};
 use crate::emit::FUNCTIONS;
 use crate::emit::{emit, Meta, Options, Precision};
 use crate::evaluate::Evaluator;
@@ -64,7 +64,8 @@ pub struct VerifyArgs {
     /// compiles the generated crate, which takes a while.
     #[arg(long, value_enum, value_delimiter = ',')]
     skip: Vec<Check>,
-    /// The folder was generated with --optimise.
+    /// The folder was generated with --optimise. Only needed for folders whose marker
+    /// does not record the generate options (written before it did).
     #[arg(long)]
     optimise: bool,
     /// Workspace configurations for the error table, besides the shipped tests' cases.
@@ -170,7 +171,10 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
     }
 
     // Byte comparison with a fresh generation.
-    let precision = detect_precision(dir, &arm.name);
+    let options = marker_options(&marker).unwrap_or(Options {
+        precision: detect_precision(dir, &arm.name),
+        optimised: args.optimise,
+    });
     let scratch = tempfile::Builder::new()
         .prefix("arcwright-verify-")
         .tempdir()
@@ -178,12 +182,12 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
     let fresh_dir = scratch.path().join("fresh");
     let bar = progress::bar(1, "deriving and generating");
     let model = derive(&arm);
-    let model = if args.optimise {
+    let model = if options.optimised {
         optimise(&model, &Limits::default()).0
     } else {
         model
     };
-    let files = emit(&model, &text, Options { precision }).map_err(CliError::Failed)?;
+    let files = emit(&model, &text, options).map_err(CliError::Failed)?;
     write_tree(&fresh_dir, &files).map_err(CliError::Failed)?;
     bar.finish_and_clear();
     report.push("files", compare_trees(dir, &fresh_dir, files.len()));
@@ -286,7 +290,8 @@ fn marker_sha(marker: &str) -> Option<String> {
     (hex.len() == 64).then_some(hex)
 }
 
-/// The C precision the folder was written with, from its header's note.
+/// The C precision the folder was written with, from its header's note (for markers
+/// that do not record it).
 fn detect_precision(dir: &Path, name: &str) -> Precision {
     match fs::read_to_string(dir.join("c").join(format!("{name}.h"))) {
         Ok(h) if h.contains("Floating point: float.") => Precision::F32,
@@ -406,9 +411,8 @@ fn run_c(shipped: &Path, scratch: &Path, name: &str) -> Outcome {
     let c = shipped.join("c");
     let exe = scratch.join(format!("test_{name}"));
     let build = Command::new(&cc)
-        // -O0: the check is about values, and the straight-line model takes gcc
-        // minutes at -O1 but seconds at -O0.
-        .args(["-std=c99", "-O0", "-o"])
+        // -O2, as firmware is built: the values are checked as they will run.
+        .args(["-std=c99", "-O2", "-o"])
         .arg(&exe)
         .arg(c.join(format!("test_{name}.c")))
         .arg(c.join(format!("{name}.c")))

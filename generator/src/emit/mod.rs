@@ -50,12 +50,16 @@ impl Meta {
 pub struct Options {
     /// Precision of the C output (Rust and Python are always double).
     pub precision: Precision,
+    /// The model went through the optimiser (recorded in the folder's marker, so that
+    /// `verify` regenerates the same way).
+    pub optimised: bool,
 }
 
 impl Default for Options {
     fn default() -> Self {
         Options {
             precision: Precision::F64,
+            optimised: false,
         }
     }
 }
@@ -102,7 +106,10 @@ fn emit_inner(model: &Model, arm_text: &str, options: Options) -> Result<Vec<Out
     files.extend(c::emit(&plan, &meta, options.precision, &golden)?);
     files.extend(rust::emit(&plan, &meta, &golden)?);
     files.extend(python::emit(&plan, &meta, &golden)?);
-    files.push((write::MARKER.to_string(), write::marker_text(&meta)));
+    files.push((
+        write::MARKER.to_string(),
+        write::marker_text(&meta, &options),
+    ));
     // The arm file itself, so that the folder says what model it holds and can be
     // re-derived and checked (`arcwright verify`) or compared without the original.
     files.push((RECORDED_ARM.to_string(), arm_text.to_string()));
