@@ -182,7 +182,7 @@ _KERNEL_FIRST = (
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 )
-_KERNEL_COEF = (
+_KERNEL_COEF = np.array((
     0.25, 0.45, 0.25, 0.05, 0.2, 0.4, 0.2857142857142857, 0.1, 0.014285714285714285,
     0.16666666666666666, 0.35714285714285715, 0.2976190476190476, 0.1388888888888889,
     0.03571428571428571, 0.003968253968253968, 0.14285714285714285, 0.32142857142857145,
@@ -3581,17 +3581,26 @@ _KERNEL_COEF = (
     -4.339285714285714e-6, -4.821428571428571e-7, -1.1571428571428571e-5,
     -2.6035714285714286e-5, -2.4107142857142858e-5, -1.35e-5, -4.733766233766234e-6,
     -9.642857142857142e-7, -8.766233766233766e-8,
-)
+))
 
 
-def _kernels(uses, nu):
-    out = []
+def _kernel_plan(uses):
+    """Gather indices for the kernel uses (pairs row, moment base) of one function,
+    built once at import so that evaluating them is three NumPy operations."""
+    coef, moment, starts = [], [], []
     for u in range(0, len(uses), 2):
-        r = uses[u]
+        r, b = uses[u], uses[u + 1]
         lo, hi = _KERNEL_START[r], _KERNEL_START[r + 1]
-        v = uses[u + 1] + _KERNEL_FIRST[r]
-        out.append(math.fsum(c * x for c, x in zip(_KERNEL_COEF[lo:hi], nu[v:v + hi - lo])))
-    return out
+        starts.append(len(coef))
+        coef.extend(range(lo, hi))
+        first = b + _KERNEL_FIRST[r]
+        moment.extend(range(first, first + hi - lo))
+    return _KERNEL_COEF[coef], np.array(moment), np.array(starts)
+
+
+def _kernels(plan, nu):
+    coef, moment, starts = plan
+    return np.add.reduceat(coef * np.asarray(nu)[moment], starts).tolist()
 
 
 def _moments(a, count, out, re, im):
@@ -3659,7 +3668,7 @@ def _vector(v, length, what):
     return [float(x) for x in a]
 
 # pairs (row, moment base)
-_INERTIA_ROWS = (
+_INERTIA_ROWS = _kernel_plan((
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31,
     7, 0, 7, 31, 8, 0, 8, 31, 9, 0, 9, 31, 10, 31, 11, 31, 12, 0, 13, 31, 14, 0, 15, 0, 16, 31,
     17, 0, 18, 31, 19, 31, 20, 31, 21, 31, 22, 0, 23, 0, 24, 0, 25, 31, 26, 0, 27, 31, 28, 0,
@@ -3726,7 +3735,7 @@ _INERTIA_ROWS = (
     124, 601, 147, 602, 124, 603, 124, 604, 147, 605, 124, 606, 147, 607, 124, 608, 147, 609,
     124, 610, 124, 611, 124, 612, 147, 613, 124, 614, 147, 615, 124, 616, 93, 497, 62, 497, 93,
     617, 62, 618, 93, 619, 62, 620, 93, 621, 62,
-)
+))
 
 def inertia(q):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
@@ -5065,7 +5074,7 @@ def coriolis(q, qd):
     return terms(q, qd)[1]
 
 # pairs (row, moment base)
-_GRAVITY_ROWS = (
+_GRAVITY_ROWS = _kernel_plan((
     0, 0, 1, 0, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31, 7, 0, 7, 31, 8,
     0, 8, 31, 9, 0, 9, 31, 622, 0, 623, 0, 624, 0, 624, 31, 625, 0, 625, 31, 626, 0, 626, 31,
     627, 0, 627, 31, 628, 0, 628, 31, 629, 0, 629, 31, 630, 0, 630, 31, 631, 0, 631, 31, 632,
@@ -5078,7 +5087,7 @@ _GRAVITY_ROWS = (
     147, 505, 124, 505, 147, 506, 124, 506, 147, 507, 124, 507, 147, 508, 124, 509, 147, 510,
     124, 510, 147, 511, 124, 511, 147, 512, 124, 512, 147, 513, 124, 513, 147, 514, 124, 515,
     147, 616, 93, 497, 62, 497, 93, 617, 62, 618, 93, 619, 62, 620, 93, 621, 62,
-)
+))
 
 def gravity(q):
     """Gravity vector G(q) = dU_g/dq, length NQ.
@@ -5435,7 +5444,7 @@ def damping():
     return out
 
 # pairs (row, moment base)
-_ACTUATION_ROWS = (
+_ACTUATION_ROWS = _kernel_plan((
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31,
     7, 0, 7, 31, 8, 0, 8, 31, 9, 0, 9, 31, 214, 62, 214, 93, 0, 62, 0, 93, 1, 62, 1, 93, 2, 62,
     2, 93, 3, 62, 3, 93, 4, 62, 4, 93, 5, 62, 5, 93, 6, 62, 6, 93, 7, 62, 7, 93, 8, 62, 8, 93,
@@ -5443,7 +5452,7 @@ _ACTUATION_ROWS = (
     214, 147, 1, 124, 1, 147, 3, 124, 3, 147, 5, 124, 5, 147, 616, 93, 497, 62, 497, 93, 617,
     62, 618, 93, 619, 62, 620, 93, 621, 62, 636, 147, 0, 124, 0, 147, 2, 124, 2, 147, 4, 124, 4,
     147, 6, 124, 6, 147, 637, 124, 638, 147, 639, 124,
-)
+))
 
 def actuation(q):
     """Actuation matrix A(q), NQ x NU: generalized force A u.
@@ -5625,7 +5634,7 @@ def actuation(q):
     return out
 
 # pairs (row, moment base)
-_TIP_JACOBIAN_ROWS = (
+_TIP_JACOBIAN_ROWS = _kernel_plan((
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31,
     7, 0, 7, 31, 8, 0, 8, 31, 9, 0, 9, 31, 214, 62, 214, 93, 0, 62, 0, 93, 1, 62, 1, 93, 2, 62,
     2, 93, 3, 62, 3, 93, 4, 62, 4, 93, 5, 62, 5, 93, 6, 62, 6, 93, 7, 62, 7, 93, 8, 62, 8, 93,
@@ -5633,7 +5642,7 @@ _TIP_JACOBIAN_ROWS = (
     214, 147, 1, 124, 1, 147, 3, 124, 3, 147, 5, 124, 5, 147, 616, 93, 497, 62, 497, 93, 617,
     62, 618, 93, 619, 62, 620, 93, 621, 62, 636, 147, 0, 124, 0, 147, 2, 124, 2, 147, 4, 124, 4,
     147, 6, 124, 6, 147, 637, 124, 638, 147, 639, 124,
-)
+))
 
 def tip_jacobian(q):
     """Tip Jacobian, 3 x NQ: rows dx/dq, dy/dq, dangle/dq.
@@ -5824,7 +5833,7 @@ def kinetic_energy(q, qd):
     return float(0.5 * qd @ inertia(q) @ qd)
 
 # pairs (row, moment base)
-_POTENTIAL_ENERGY_ROWS = (
+_POTENTIAL_ENERGY_ROWS = _kernel_plan((
     214, 31, 0, 31, 1, 0, 2, 0, 3, 0, 3, 31, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31, 7, 0, 8, 0, 9, 0,
     640, 0, 641, 31, 622, 31, 623, 0, 624, 0, 625, 0, 625, 31, 626, 31, 627, 0, 627, 31, 628, 0,
     628, 31, 629, 0, 630, 0, 631, 0, 214, 62, 214, 93, 0, 62, 0, 93, 1, 62, 1, 93, 2, 62, 2, 93,
@@ -5833,7 +5842,7 @@ _POTENTIAL_ENERGY_ROWS = (
     93, 220, 62, 220, 93, 221, 62, 221, 93, 222, 62, 222, 93, 223, 62, 223, 93, 224, 62, 224,
     93, 225, 62, 225, 93, 226, 62, 226, 93, 503, 124, 503, 147, 504, 124, 504, 147, 505, 124,
     505, 147, 506, 124, 506, 147, 507, 124, 507, 147,
-)
+))
 
 def potential_energy(q):
     """Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.
@@ -5938,7 +5947,7 @@ def potential_energy(q):
         - 0.15696 * (t12 + t40 * cphi[0] - t41 * sphi[0]))
 
 # pairs (row, moment base)
-_TERMS_ROWS = (
+_TERMS_ROWS = _kernel_plan((
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31,
     7, 0, 7, 31, 8, 0, 8, 31, 9, 0, 9, 31, 622, 0, 623, 0, 624, 0, 624, 31, 625, 0, 625, 31,
     626, 0, 626, 31, 627, 0, 627, 31, 628, 0, 628, 31, 629, 0, 629, 31, 630, 0, 630, 31, 631, 0,
@@ -6025,7 +6034,7 @@ _TERMS_ROWS = (
     147, 795, 147, 616, 93, 497, 62, 497, 93, 617, 62, 618, 93, 619, 62, 620, 93, 621, 62, 796,
     62, 746, 62, 746, 93, 796, 93, 797, 62, 797, 93, 798, 62, 798, 93, 799, 62, 799, 93, 800,
     62, 800, 93, 801, 62, 801, 93,
-)
+))
 
 def terms(q, qd):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).

@@ -145,7 +145,7 @@ _KERNEL_FIRST = (
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 )
-_KERNEL_COEF = (
+_KERNEL_COEF = np.array((
     0.25, 0.45, 0.25, 0.05, 0.2, 0.4, 0.2857142857142857, 0.1, 0.014285714285714285,
     0.16666666666666666, 0.35714285714285715, 0.2976190476190476, 0.1388888888888889,
     0.03571428571428571, 0.003968253968253968, 0.14285714285714285, 0.32142857142857145,
@@ -1854,17 +1854,26 @@ _KERNEL_COEF = (
     -1.5873015873015872e-5, -3.571428571428572e-5, -3.306878306878307e-5,
     -1.8518518518518518e-5, -6.493506493506494e-6, -1.3227513227513228e-6,
     -1.2025012025012025e-7,
-)
+))
 
 
-def _kernels(uses, nu):
-    out = []
+def _kernel_plan(uses):
+    """Gather indices for the kernel uses (pairs row, moment base) of one function,
+    built once at import so that evaluating them is three NumPy operations."""
+    coef, moment, starts = [], [], []
     for u in range(0, len(uses), 2):
-        r = uses[u]
+        r, b = uses[u], uses[u + 1]
         lo, hi = _KERNEL_START[r], _KERNEL_START[r + 1]
-        v = uses[u + 1] + _KERNEL_FIRST[r]
-        out.append(math.fsum(c * x for c, x in zip(_KERNEL_COEF[lo:hi], nu[v:v + hi - lo])))
-    return out
+        starts.append(len(coef))
+        coef.extend(range(lo, hi))
+        first = b + _KERNEL_FIRST[r]
+        moment.extend(range(first, first + hi - lo))
+    return _KERNEL_COEF[coef], np.array(moment), np.array(starts)
+
+
+def _kernels(plan, nu):
+    coef, moment, starts = plan
+    return np.add.reduceat(coef * np.asarray(nu)[moment], starts).tolist()
 
 
 def _moments(a, count, out, re, im):
@@ -1932,7 +1941,7 @@ def _vector(v, length, what):
     return [float(x) for x in a]
 
 # pairs (row, moment base)
-_INERTIA_ROWS = (
+_INERTIA_ROWS = _kernel_plan((
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0, 6, 30,
     7, 0, 7, 30, 8, 0, 8, 30, 9, 0, 9, 30, 10, 30, 11, 30, 12, 0, 13, 30, 14, 0, 15, 0, 16, 30,
     17, 0, 18, 30, 19, 30, 20, 30, 21, 30, 22, 0, 23, 0, 24, 0, 25, 30, 26, 0, 27, 30, 28, 0,
@@ -1984,7 +1993,7 @@ _INERTIA_ROWS = (
     90, 337, 60, 338, 90, 339, 60, 340, 90, 341, 60, 207, 60, 342, 60, 209, 60, 343, 60, 344,
     60, 345, 60, 346, 60, 347, 30, 348, 0, 348, 30, 349, 0, 350, 30, 351, 0, 352, 30, 353, 0,
     354, 90, 348, 60, 348, 90, 355, 60, 356, 90, 357, 60, 358, 90, 359, 60,
-)
+))
 
 def inertia(q):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
@@ -3146,7 +3155,7 @@ def coriolis(q, qd):
     return terms(q, qd)[1]
 
 # pairs (row, moment base)
-_GRAVITY_ROWS = (
+_GRAVITY_ROWS = _kernel_plan((
     0, 30, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0, 6, 30, 7, 0, 7, 30,
     8, 0, 8, 30, 9, 0, 9, 30, 217, 30, 218, 30, 219, 0, 219, 30, 220, 0, 220, 30, 221, 0, 221,
     30, 222, 0, 222, 30, 223, 0, 223, 30, 224, 0, 224, 30, 225, 0, 225, 30, 226, 0, 226, 30,
@@ -3157,7 +3166,7 @@ _GRAVITY_ROWS = (
     90, 225, 60, 225, 90, 226, 60, 226, 90, 227, 60, 228, 90, 229, 60, 229, 90, 230, 60, 231,
     90, 232, 60, 233, 90, 348, 0, 349, 0, 351, 0, 353, 0, 354, 90, 348, 60, 348, 90, 355, 60,
     356, 90, 357, 60, 358, 90, 359, 60,
-)
+))
 
 def gravity(q):
     """Gravity vector G(q) = dU_g/dq, length NQ.
@@ -3470,13 +3479,13 @@ def actuation(q):
     return out
 
 # pairs (row, moment base)
-_TIP_JACOBIAN_ROWS = (
+_TIP_JACOBIAN_ROWS = _kernel_plan((
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0, 6, 30,
     7, 0, 7, 30, 8, 0, 8, 30, 9, 0, 9, 30, 214, 60, 214, 90, 0, 60, 0, 90, 1, 60, 1, 90, 2, 60,
     2, 90, 3, 60, 3, 90, 4, 60, 4, 90, 5, 60, 5, 90, 6, 60, 6, 90, 7, 60, 7, 90, 8, 60, 8, 90,
     9, 60, 9, 90, 347, 30, 348, 0, 348, 30, 349, 0, 350, 30, 351, 0, 352, 30, 353, 0, 354, 90,
     348, 60, 348, 90, 355, 60, 356, 90, 357, 60, 358, 90, 359, 60,
-)
+))
 
 def tip_jacobian(q):
     """Tip Jacobian, 3 x NQ: rows dx/dq, dy/dq, dangle/dq.
@@ -3628,7 +3637,7 @@ def kinetic_energy(q, qd):
     return float(0.5 * qd @ inertia(q) @ qd)
 
 # pairs (row, moment base)
-_POTENTIAL_ENERGY_ROWS = (
+_POTENTIAL_ENERGY_ROWS = _kernel_plan((
     214, 0, 0, 0, 1, 30, 2, 30, 3, 0, 3, 30, 4, 0, 5, 0, 5, 30, 6, 0, 6, 30, 7, 30, 8, 30, 9,
     30, 363, 30, 216, 0, 217, 0, 218, 30, 219, 30, 220, 0, 220, 30, 221, 0, 222, 0, 222, 30,
     223, 0, 223, 30, 224, 30, 225, 30, 226, 30, 214, 60, 214, 90, 0, 60, 0, 90, 1, 60, 1, 90, 2,
@@ -3636,7 +3645,7 @@ _POTENTIAL_ENERGY_ROWS = (
     90, 9, 60, 9, 90, 215, 60, 215, 90, 216, 60, 216, 90, 217, 60, 217, 90, 218, 60, 218, 90,
     219, 60, 219, 90, 220, 60, 220, 90, 221, 60, 221, 90, 222, 60, 222, 90, 223, 60, 223, 90,
     224, 60, 224, 90, 225, 60, 225, 90, 226, 60, 226, 90,
-)
+))
 
 def potential_energy(q):
     """Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.
@@ -3728,7 +3737,7 @@ def potential_energy(q):
         + 0.24525 * t12 + 0.0981 * (t12 + t34 * cphi[0] + t35 * sphi[0]) + 0.5 * t36)
 
 # pairs (row, moment base)
-_TERMS_ROWS = (
+_TERMS_ROWS = _kernel_plan((
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0, 6, 30,
     7, 0, 7, 30, 8, 0, 8, 30, 9, 0, 9, 30, 217, 30, 218, 30, 219, 0, 219, 30, 220, 0, 220, 30,
     221, 0, 221, 30, 222, 0, 222, 30, 223, 0, 223, 30, 224, 0, 224, 30, 225, 0, 225, 30, 226, 0,
@@ -3795,7 +3804,7 @@ _TERMS_ROWS = (
     0, 441, 30, 442, 0, 442, 30, 443, 0, 443, 30, 354, 90, 348, 60, 348, 90, 355, 60, 356, 90,
     357, 60, 358, 90, 359, 60, 444, 60, 438, 60, 438, 90, 444, 90, 445, 60, 445, 90, 446, 60,
     446, 90, 447, 60, 447, 90, 448, 60, 448, 90, 449, 60, 449, 90,
-)
+))
 
 def terms(q, qd):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).

@@ -105,7 +105,7 @@ fn function(
         let upper = spec.fname.trim_start_matches('_').to_uppercase();
         let items = use_pairs(&b.kernels);
         rows = format!(
-            "# pairs (row, moment base)\n_{upper}_ROWS = {}\n",
+            "# pairs (row, moment base)\n_{upper}_ROWS = _kernel_plan({})\n",
             tuple(&items, 4)
         );
         out.push_str(&format!("    kern = _kernels(_{upper}_ROWS, nu)\n"));
