@@ -209,3 +209,68 @@ pub fn temp_slots(block: &Block) -> (Vec<usize>, usize) {
     }
     (slot, count)
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::arm::parse_arm_str;
+    use crate::derive::derive;
+
+    /// Replays every block of a two-segment model with slot-reused temporaries: each
+    /// read must find in its slot the temporary it means, never a later one.
+    #[test]
+    fn reused_slots_never_overwrite_a_live_temporary() {
+        let arm = parse_arm_str(
+            r#"
+name = "slots"
+gravity = [0.0, -9.81]
+expansion_order = 3
+[[segment]]
+length = 0.1
+curvature_degree = 1
+density = 0.3
+bending_stiffness = 0.01
+[[segment]]
+length = 0.08
+curvature_degree = 2
+density = [0.2, -0.05]
+bending_stiffness = 0.008
+"#,
+            "slots.toml",
+        )
+        .unwrap();
+        let plan = Plan::new(&derive(&arm), true);
+        let mut checked = 0;
+        for f in [
+            &plan.inertia,
+            &plan.terms,
+            &plan.gravity,
+            &plan.tip_jacobian,
+        ] {
+            let b = &f.block;
+            let (slot, count) = temp_slots(b);
+            let temps = b.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
+            assert!(count <= temps);
+            let mut owner = vec![usize::MAX; count];
+            let mut check = |e: &Expr, owner: &Vec<usize>| {
+                for_each_leaf(e, &mut |l| {
+                    if let Leaf::Temp(t) = l {
+                        assert_eq!(owner[slot[*t]], *t, "slot of t{t} was overwritten");
+                    }
+                });
+            };
+            for s in &b.stmts {
+                check(&s.expr, &owner);
+                owner[slot[s.temp]] = s.temp;
+                checked += 1;
+            }
+            for e in &b.outputs {
+                check(e, &owner);
+            }
+        }
+        assert!(
+            checked > 100,
+            "too few statements to mean anything: {checked}"
+        );
+    }
+}
