@@ -289,6 +289,23 @@ fn verify_regenerates_with_the_options_the_marker_records() {
         "-q",
     ]);
     assert!(gen.status.success(), "{}", describe(&gen));
+    // Without -q, generate says whether the optimised program was the leaner one.
+    let again = arcwright(&[
+        "generate",
+        path(&arm),
+        "--out",
+        path(&out_dir),
+        "--optimise",
+        "--precision",
+        "f32",
+    ]);
+    assert!(again.status.success(), "{}", describe(&again));
+    let err = String::from_utf8_lossy(&again.stderr);
+    assert!(
+        err.contains("--optimise: ") && err.contains("emitted operations")
+            || err.contains("emitting the derived program"),
+        "{err}"
+    );
     let marker = fs::read_to_string(out_dir.join("ARCWRIGHT_OUTPUT")).unwrap();
     assert!(
         marker.contains("Generated with: --precision f32 --optimise"),

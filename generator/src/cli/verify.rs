@@ -15,14 +15,12 @@ use super::eval::load_arm;
 use super::report::sample_configurations;
 use super::{progress, CliError};
 use crate::arm::{Arm, MAX_WORKSPACE_SAMPLES};
-use crate::derive::derive;
 use crate::dynamics::{forward_dynamics, generalized_force};
 use crate::emit::golden::{Golden, SIGMAS};
 use crate::emit::write::{marker_options, write_tree, MARKER};
 use crate::emit::FUNCTIONS;
 use crate::emit::{emit, Meta, Options, Precision};
 use crate::evaluate::Evaluator;
-use crate::optimise::{optimise, Limits};
 use crate::reference::{Kinematics, Reference};
 use clap::{Args, ValueEnum};
 use rand::{Rng, SeedableRng};
@@ -181,12 +179,7 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
         .map_err(|e| CliError::Failed(format!("creating a temporary folder: {e}")))?;
     let fresh_dir = scratch.path().join("fresh");
     let bar = progress::bar(1, "deriving and generating");
-    let model = derive(&arm);
-    let model = if options.optimised {
-        optimise(&model, &Limits::default()).0
-    } else {
-        model
-    };
+    let (model, _) = super::generate::model_for_emission(&arm, options.optimised)?;
     let files = emit(&model, &text, options).map_err(CliError::Failed)?;
     write_tree(&fresh_dir, &files).map_err(CliError::Failed)?;
     bar.finish_and_clear();

@@ -98,6 +98,17 @@ pub fn emit(model: &Model, arm_text: &str, options: Options) -> Result<Vec<OutFi
         .map_err(|_| "the emitter thread panicked".to_string())?
 }
 
+/// Operations the emitted code of `model` would execute (see [`plan::Plan::emitted_ops`]).
+pub fn emitted_ops(model: &Model) -> Result<usize, String> {
+    let model = model.clone();
+    std::thread::Builder::new()
+        .stack_size(256 << 20)
+        .spawn(move || plan::Plan::new(&model, true).emitted_ops())
+        .map_err(|e| format!("spawning the planning thread: {e}"))?
+        .join()
+        .map_err(|_| "the planning thread panicked".to_string())
+}
+
 fn emit_inner(model: &Model, arm_text: &str, options: Options) -> Result<Vec<OutFile>, String> {
     let meta = Meta::new(arm_text, model.arm.expansion_order);
     let plan = plan::Plan::new(model, true);

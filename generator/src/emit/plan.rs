@@ -226,6 +226,24 @@ impl Plan {
         }
     }
 
+    /// Every operation of the emitted functions that have code of their own (the
+    /// others call these), each counted once: the yardstick for choosing a model.
+    pub fn emitted_ops(&self) -> usize {
+        let funcs = [
+            &self.inertia,
+            &self.terms,
+            &self.gravity,
+            &self.actuation,
+            &self.tip_jacobian,
+            &self.potential_energy,
+        ];
+        funcs
+            .into_iter()
+            .chain(&self.pose)
+            .map(|f| f.ops.add + f.ops.mul + f.ops.div + f.ops.sqrt + f.ops.trig)
+            .sum()
+    }
+
     /// Total non-zeros of the kernel table.
     pub fn table_nnz(&self) -> usize {
         self.table.rows.iter().map(Vec::len).sum()
