@@ -252,7 +252,7 @@ bending_stiffness = 0.008
             let temps = b.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
             assert!(count <= temps);
             let mut owner = vec![usize::MAX; count];
-            let mut check = |e: &Expr, owner: &Vec<usize>| {
+            let check = |e: &Expr, owner: &[usize]| {
                 for_each_leaf(e, &mut |l| {
                     if let Leaf::Temp(t) = l {
                         assert_eq!(owner[slot[*t]], *t, "slot of t{t} was overwritten");
