@@ -11,7 +11,7 @@
  * of each segment at a_j = L_j q_{j,0} (j_n: spherical Bessel functions). The moments
  * come from reach_arm_moments (no division by a, finite and accurate at a = 0);
  * the rest is straight-line code over named temporaries t<k>, with linear
- * combinations of moments ("kernels") from one sparse constant table. Long
+ * combinations of moments ("kernels") from one banded constant table. Long
  * bodies are split into static parts that share one scratch array t[] (a slot is
  * reused once its temporary is dead), which keeps compile time roughly linear.
  */
