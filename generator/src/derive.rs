@@ -371,16 +371,7 @@ impl<'a> Deriver<'a> {
         let mut acc = Vec::with_capacity(a.len());
         for &(s, ca) in a {
             let y = self.kernel_apply(seg, b, w, s);
-            let term = if im {
-                let x = self.p.mul(ca.re, y.im);
-                let z = self.p.mul(ca.im, y.re);
-                self.p.sub(x, z)
-            } else {
-                let x = self.p.mul(ca.re, y.re);
-                let z = self.p.mul(ca.im, y.im);
-                self.p.add(x, z)
-            };
-            acc.push(term);
+            acc.push(self.conj_product(ca, y, im));
         }
         self.p.sum(&acc)
     }
@@ -393,18 +384,22 @@ impl<'a> Deriver<'a> {
         let mut acc = Vec::with_capacity(b.len());
         for &(t, cb) in b {
             let y = self.kernel_apply(seg, a, w, t);
-            let term = if im {
-                let x = self.p.mul(y.re, cb.im);
-                let z = self.p.mul(y.im, cb.re);
-                self.p.sub(x, z)
-            } else {
-                let x = self.p.mul(y.re, cb.re);
-                let z = self.p.mul(y.im, cb.im);
-                self.p.add(x, z)
-            };
-            acc.push(term);
+            acc.push(self.conj_product(y, cb, im));
         }
         self.p.sum(&acc)
+    }
+
+    /// `Re` (or `Im`, with `im`) of `conj(x)·y`.
+    fn conj_product(&mut self, x: Cx, y: Cx, im: bool) -> Id {
+        if im {
+            let a = self.p.mul(x.re, y.im);
+            let b = self.p.mul(x.im, y.re);
+            self.p.sub(a, b)
+        } else {
+            let a = self.p.mul(x.re, y.re);
+            let b = self.p.mul(x.im, y.im);
+            self.p.add(a, b)
+        }
     }
 
     /// `Y_s = Σ_t D_st B_t`, row `s` of the kernel matrix applied to a grouped field.
