@@ -79,7 +79,7 @@ pub struct GenerateArgs {
 /// the optimised program emits fewer operations than the derived one; otherwise the
 /// derived model, with a note saying so. The derivation already shares what the
 /// optimiser looks for: measured, `--optimise` saves 1–3% on small arms and would cost
-/// 10% (two segments of degree 2, order 2) to 80% (examples/reach_arm.toml), because
+/// 10% (two segments of degree 2, order 2) to 70% (examples/reach_arm.toml), because
 /// expanding products undoes the factored kernel rows. `verify` calls this too, so a
 /// folder written with `--optimise` is rebuilt the same way.
 pub(crate) fn model_for_emission(
