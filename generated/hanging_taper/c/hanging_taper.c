@@ -22,7 +22,8 @@
 #define HANGING_TAPER_NU_LEN 170
 #define HANGING_TAPER_MOMENTS_MAX 31
 
-/* 1/(2n+1) and the power-series factors 1/(k (2n+2k+1)) of j_n, k = 1..11. */
+/* 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)),
+ * k = 1..11, of the scaled j_n (see hanging_taper_moments). */
 static const double hanging_taper_odd_inv[HANGING_TAPER_MOMENTS_MAX] = {
     1.0, 0.3333333333333333, 0.2, 0.14285714285714285, 0.1111111111111111, 0.09090909090909091,
     0.07692307692307693, 0.06666666666666667, 0.058823529411764705, 0.05263157894736842,
@@ -33,7 +34,17 @@ static const double hanging_taper_odd_inv[HANGING_TAPER_MOMENTS_MAX] = {
     0.018867924528301886, 0.01818181818181818, 0.017543859649122806, 0.01694915254237288,
     0.01639344262295082
 };
-static const double hanging_taper_series[HANGING_TAPER_MOMENTS_MAX][11] = {
+static const double hanging_taper_pair_inv[HANGING_TAPER_MOMENTS_MAX] = {
+    0.3333333333333333, 0.06666666666666667, 0.02857142857142857, 0.015873015873015872,
+    0.010101010101010102, 0.006993006993006993, 0.005128205128205128, 0.00392156862745098,
+    0.0030959752321981426, 0.002506265664160401, 0.002070393374741201, 0.0017391304347826088,
+    0.0014814814814814814, 0.001277139208173691, 0.0011123470522803114, 0.0009775171065493646,
+    0.0008658008658008658, 0.0007722007722007722, 0.000693000693000693, 0.0006253908692933083,
+    0.0005672149744753262, 0.0005167958656330749, 0.00047281323877068556, 0.0004342162396873643,
+    0.00040016006402561027, 0.0003699593044765076, 0.00034305317324185246,
+    0.0003189792663476874, 0.0002973535533749628, 0.0002778549597110308, 0.00026021337496747333
+};
+static const double hanging_taper_series[HANGING_TAPER_MOMENTS_MAX + 1][11] = {
     {
         0.3333333333333333, 0.1, 0.047619047619047616, 0.027777777777777776,
         0.01818181818181818, 0.01282051282051282, 0.009523809523809525, 0.007352941176470588,
@@ -195,16 +206,38 @@ static const double hanging_taper_series[HANGING_TAPER_MOMENTS_MAX][11] = {
         0.0028169014084507044, 0.00228310502283105, 0.0019047619047619048,
         0.0016233766233766235, 0.0014064697609001407, 0.0012345679012345679,
         0.001095290251916758
+    },
+    {
+        0.015384615384615385, 0.007462686567164179, 0.004830917874396135, 0.0035211267605633804,
+        0.0027397260273972603, 0.0022222222222222222, 0.0018552875695732839,
+        0.0015822784810126582, 0.0013717421124828531, 0.0012048192771084338,
+        0.0010695187165775401
     }
 };
 
+/* H_n(x) = (2n+1)!! j_n(x) / x^n by its power series, |x| < 1. */
+static double hanging_taper_scaled_series(double h, int n)
+{
+    double term = 1.0;
+    double sum = 1.0;
+    int k;
+    for (k = 0; k < 11; ++k) {
+        term *= h * hanging_taper_series[n][k];
+        sum += term;
+    }
+    return sum;
+}
+
 /*
  * Legendre moments nu_0(a) .. nu_{count-1}(a): re[n] = Re nu_n, im[n] = Im nu_n,
- * with x = a/2:
- *   |x| < 1:    power series of j_n (terms of one sign after the first few, exact at 0);
- *   |x| <= 64:  Miller's downward recurrence, normalised by j_0 or j_1;
- *   otherwise:  upward recurrence from j_0, j_1 (stable while n < |x|; NaN lands here).
- * count <= HANGING_TAPER_MOMENTS_MAX. Worst case: 341 add, 841 mul, 2 div, 0 sqrt, 2 trig for 31 moments.
+ * with x = a/2 and the spherical Bessel functions j_n(x):
+ *   |x| < 1:      H_n = (2n+1)!! j_n / x^n (within 20% of 1) summed at orders count - 1
+ *                 and count, then H_{n-1} = H_n - x^2 H_{n+1} / ((2n+1)(2n+3)) downward
+ *                 (every coefficient below 1/15: errors shrink); exact at 0;
+ *   |x| < count:  Miller's downward recurrence, normalised by j_0 or j_1;
+ *   otherwise:    upward recurrence from j_0, j_1 (stable for n < |x|; NaN lands here).
+ * No branch divides by a small a; every loop is bounded by count + 24.
+ * count <= HANGING_TAPER_MOMENTS_MAX. Worst case: 56 add, 261 mul, 2 div, 0 sqrt, 2 trig for 31 moments.
  */
 static void hanging_taper_moments(double a, int count, double re[], double im[])
 {
@@ -215,22 +248,25 @@ static void hanging_taper_moments(double a, int count, double re[], double im[])
     const double c = cos(x);
     int n;
     if (ax < 1.0) {
-        const double h = -0.5 * x * x;
+        const double x2 = x * x;
+        const double h = -0.5 * x2;
+        double above = hanging_taper_scaled_series(h, count);
+        double cur = hanging_taper_scaled_series(h, count - 1);
         double lead = 1.0;
+        j[count - 1] = cur;
+        for (n = count - 1; n >= 1; --n) {
+            const double below = cur - x2 * hanging_taper_pair_inv[n] * above;
+            above = cur;
+            cur = below;
+            j[n - 1] = cur;
+        }
         for (n = 0; n < count; ++n) {
-            double term = 1.0;
-            double sum = 1.0;
-            int k;
             if (n > 0) {
                 lead *= x * hanging_taper_odd_inv[n];
             }
-            for (k = 0; k < 11; ++k) {
-                term *= h * hanging_taper_series[n][k];
-                sum += term;
-            }
-            j[n] = lead * sum;
+            j[n] *= lead;
         }
-    } else if (ax <= 64.0) {
+    } else if (ax < (double)count) {
         const double inv = 1.0 / x;
         const int reach = (int)ceil(ax);
         const int start = (count - 1 > reach ? count - 1 : reach) + 24;
@@ -243,7 +279,7 @@ static void hanging_taper_moments(double a, int count, double re[], double im[])
         for (n = 0; n < count; ++n) {
             j[n] = 0.0;
         }
-        /* f_{k-1} = (2k+1)/x f_k - f_{k+1}, from f = 0, 1 far above; start <= 88. */
+        /* f_{k-1} = (2k+1)/x f_k - f_{k+1}, from f = 0, 1 far above; start <= count + 24. */
         for (k = start; k >= 1; --k) {
             const double below = (double)(2 * k + 1) * inv * cur - above;
             above = cur;
@@ -5189,7 +5225,7 @@ static void hanging_taper_inertia_part7(const double q[], const double kern[], d
 
 
 /* B(q), n x n, row-major.
- * Operations: 13069 add, 16433 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_inertia(const double q[], double B[])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -5292,7 +5328,7 @@ void hanging_taper_inertia(const double q[], double B[])
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G).
- * Operations: 18199 add, 23202 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_coriolis(const double q[], const double qd[], double C[])
 {
     double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
@@ -5506,7 +5542,7 @@ static void hanging_taper_gravity_part2(const double q[], const double cphi[], c
 
 
 /* G(q) = dU_g/dq.
- * Operations: 1887 add, 2947 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_gravity(const double q[], double G[])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -5703,7 +5739,7 @@ static const unsigned short hanging_taper_actuation_rows[156] = {
 };
 
 /* A(q), n x k, row-major.
- * Operations: 1204 add, 2055 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_actuation(const double q[], double A[])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -5892,7 +5928,7 @@ static const unsigned short hanging_taper_tip_jacobian_rows[156] = {
 };
 
 /* Tip Jacobian, 3 x n, row-major.
- * Operations: 1204 add, 2055 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_tip_jacobian(const double q[], double J[])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -6071,7 +6107,7 @@ void hanging_taper_tip_jacobian(const double q[], double J[])
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function.
- * Operations: 13133 add, 16506 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_kinetic_energy(const double q[], const double qd[])
 {
     double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
@@ -6102,7 +6138,7 @@ static const unsigned short hanging_taper_potential_energy_rows[170] = {
 };
 
 /* U = U_g + 1/2 q^T K q.
- * Operations: 1310 add, 2109 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_potential_energy(const double q[])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -8771,7 +8807,7 @@ static void hanging_taper_terms_part16(const double q[], const double qd[], cons
 
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call.
- * Operations: 18199 add, 23202 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_terms(const double q[], const double qd[], double B[], double C[], double G[])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -9045,7 +9081,7 @@ void hanging_taper_terms(const double q[], const double qd[], double B[], double
 
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
- * Operations: 327 add, 640 mul, 2 div, 0 sqrt, 2 trig. */
+ * Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig. */
 static void hanging_taper_pose_segment0(const double q[], double sigma, double pose[3])
 {
     double pnu[26];
@@ -9417,7 +9453,7 @@ static void hanging_taper_pose_segment1_part2(const double q[], double sigma, co
 
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
- * Operations: 662 add, 1245 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig. */
 static void hanging_taper_pose_segment1(const double q[], double sigma, double pose[3])
 {
     double nu[HANGING_TAPER_NU_LEN];
@@ -9716,7 +9752,7 @@ static void hanging_taper_pose_segment2_part2(const double q[], double sigma, co
 
 
 /* Backbone pose [x, y, angle] of segment 2 at sigma.
- * Operations: 818 add, 1549 mul, 6 div, 0 sqrt, 10 trig. */
+ * Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig. */
 static void hanging_taper_pose_segment2(const double q[], double sigma, double pose[3])
 {
     double nu[HANGING_TAPER_NU_LEN];

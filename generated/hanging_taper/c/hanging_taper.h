@@ -48,7 +48,7 @@ extern "C" {
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 13069 add, 16433 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_inertia(const double q[], double B[]);
 
@@ -56,13 +56,13 @@ void hanging_taper_inertia(const double q[], double B[]);
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 18199 add, 23202 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_coriolis(const double q[], const double qd[], double C[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1887 add, 2947 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity(const double q[], double G[]);
 
@@ -80,7 +80,7 @@ void hanging_taper_damping(double D[]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
- * Operations: 1204 add, 2055 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_actuation(const double q[], double A[]);
 
@@ -90,15 +90,15 @@ void hanging_taper_actuation(const double q[], double A[]);
  * angle from +x [rad]. The tip is (segment NSEG - 1, sigma 1).
  * Invalid arguments (segment outside 0..NSEG-1, sigma outside [0, 1] or NaN) set all
  * three entries to NaN.
- * Segment 0: Operations: 327 add, 640 mul, 2 div, 0 sqrt, 2 trig.
- * Segment 1: Operations: 662 add, 1245 mul, 4 div, 0 sqrt, 6 trig.
- * Segment 2: Operations: 818 add, 1549 mul, 6 div, 0 sqrt, 10 trig.
+ * Segment 0: Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
+ * Segment 1: Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig.
+ * Segment 2: Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 1204 add, 2055 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_tip_jacobian(const double q[], double J[]);
 
@@ -107,20 +107,20 @@ void hanging_taper_tip_jacobian(const double q[], double J[]);
  * hanging_taper_coriolis and hanging_taper_gravity and the same values. This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 18199 add, 23202 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_terms(const double q[], const double qd[], double B[], double C[],
     double G[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 13133 add, 16506 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
  */
 double hanging_taper_kinetic_energy(const double q[], const double qd[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 1310 add, 2109 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
  */
 double hanging_taper_potential_energy(const double q[]);
 
@@ -132,7 +132,7 @@ double hanging_taper_potential_energy(const double q[]);
  * on an error qdd is filled with NaN.
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 19575 add, 25421 mul, 56 div, 8 sqrt, 20 trig.
+ * Operations: 18495 add, 23201 mul, 56 div, 8 sqrt, 20 trig.
  */
 int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);

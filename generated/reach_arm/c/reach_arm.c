@@ -22,7 +22,8 @@
 #define REACH_ARM_NU_LEN 120
 #define REACH_ARM_MOMENTS_MAX 30
 
-/* 1/(2n+1) and the power-series factors 1/(k (2n+2k+1)) of j_n, k = 1..11. */
+/* 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)),
+ * k = 1..11, of the scaled j_n (see reach_arm_moments). */
 static const double reach_arm_odd_inv[REACH_ARM_MOMENTS_MAX] = {
     1.0, 0.3333333333333333, 0.2, 0.14285714285714285, 0.1111111111111111, 0.09090909090909091,
     0.07692307692307693, 0.06666666666666667, 0.058823529411764705, 0.05263157894736842,
@@ -32,7 +33,17 @@ static const double reach_arm_odd_inv[REACH_ARM_MOMENTS_MAX] = {
     0.022222222222222223, 0.02127659574468085, 0.02040816326530612, 0.0196078431372549,
     0.018867924528301886, 0.01818181818181818, 0.017543859649122806, 0.01694915254237288
 };
-static const double reach_arm_series[REACH_ARM_MOMENTS_MAX][11] = {
+static const double reach_arm_pair_inv[REACH_ARM_MOMENTS_MAX] = {
+    0.3333333333333333, 0.06666666666666667, 0.02857142857142857, 0.015873015873015872,
+    0.010101010101010102, 0.006993006993006993, 0.005128205128205128, 0.00392156862745098,
+    0.0030959752321981426, 0.002506265664160401, 0.002070393374741201, 0.0017391304347826088,
+    0.0014814814814814814, 0.001277139208173691, 0.0011123470522803114, 0.0009775171065493646,
+    0.0008658008658008658, 0.0007722007722007722, 0.000693000693000693, 0.0006253908692933083,
+    0.0005672149744753262, 0.0005167958656330749, 0.00047281323877068556, 0.0004342162396873643,
+    0.00040016006402561027, 0.0003699593044765076, 0.00034305317324185246,
+    0.0003189792663476874, 0.0002973535533749628, 0.0002778549597110308
+};
+static const double reach_arm_series[REACH_ARM_MOMENTS_MAX + 1][11] = {
     {
         0.3333333333333333, 0.1, 0.047619047619047616, 0.027777777777777776,
         0.01818181818181818, 0.01282051282051282, 0.009523809523809525, 0.007352941176470588,
@@ -188,16 +199,38 @@ static const double reach_arm_series[REACH_ARM_MOMENTS_MAX][11] = {
         0.01639344262295082, 0.007936507936507936, 0.005128205128205128, 0.0037313432835820895,
         0.002898550724637681, 0.002347417840375587, 0.0019569471624266144,
         0.0016666666666666668, 0.001443001443001443, 0.0012658227848101266, 0.001122334455667789
+    },
+    {
+        0.015873015873015872, 0.007692307692307693, 0.004975124378109453, 0.0036231884057971015,
+        0.0028169014084507044, 0.00228310502283105, 0.0019047619047619048,
+        0.0016233766233766235, 0.0014064697609001407, 0.0012345679012345679,
+        0.001095290251916758
     }
 };
 
+/* H_n(x) = (2n+1)!! j_n(x) / x^n by its power series, |x| < 1. */
+static double reach_arm_scaled_series(double h, int n)
+{
+    double term = 1.0;
+    double sum = 1.0;
+    int k;
+    for (k = 0; k < 11; ++k) {
+        term *= h * reach_arm_series[n][k];
+        sum += term;
+    }
+    return sum;
+}
+
 /*
  * Legendre moments nu_0(a) .. nu_{count-1}(a): re[n] = Re nu_n, im[n] = Im nu_n,
- * with x = a/2:
- *   |x| < 1:    power series of j_n (terms of one sign after the first few, exact at 0);
- *   |x| <= 64:  Miller's downward recurrence, normalised by j_0 or j_1;
- *   otherwise:  upward recurrence from j_0, j_1 (stable while n < |x|; NaN lands here).
- * count <= REACH_ARM_MOMENTS_MAX. Worst case: 330 add, 814 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
+ * with x = a/2 and the spherical Bessel functions j_n(x):
+ *   |x| < 1:      H_n = (2n+1)!! j_n / x^n (within 20% of 1) summed at orders count - 1
+ *                 and count, then H_{n-1} = H_n - x^2 H_{n+1} / ((2n+1)(2n+3)) downward
+ *                 (every coefficient below 1/15: errors shrink); exact at 0;
+ *   |x| < count:  Miller's downward recurrence, normalised by j_0 or j_1;
+ *   otherwise:    upward recurrence from j_0, j_1 (stable for n < |x|; NaN lands here).
+ * No branch divides by a small a; every loop is bounded by count + 24.
+ * count <= REACH_ARM_MOMENTS_MAX. Worst case: 55 add, 254 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
  */
 static void reach_arm_moments(double a, int count, double re[], double im[])
 {
@@ -208,22 +241,25 @@ static void reach_arm_moments(double a, int count, double re[], double im[])
     const double c = cos(x);
     int n;
     if (ax < 1.0) {
-        const double h = -0.5 * x * x;
+        const double x2 = x * x;
+        const double h = -0.5 * x2;
+        double above = reach_arm_scaled_series(h, count);
+        double cur = reach_arm_scaled_series(h, count - 1);
         double lead = 1.0;
+        j[count - 1] = cur;
+        for (n = count - 1; n >= 1; --n) {
+            const double below = cur - x2 * reach_arm_pair_inv[n] * above;
+            above = cur;
+            cur = below;
+            j[n - 1] = cur;
+        }
         for (n = 0; n < count; ++n) {
-            double term = 1.0;
-            double sum = 1.0;
-            int k;
             if (n > 0) {
                 lead *= x * reach_arm_odd_inv[n];
             }
-            for (k = 0; k < 11; ++k) {
-                term *= h * reach_arm_series[n][k];
-                sum += term;
-            }
-            j[n] = lead * sum;
+            j[n] *= lead;
         }
-    } else if (ax <= 64.0) {
+    } else if (ax < (double)count) {
         const double inv = 1.0 / x;
         const int reach = (int)ceil(ax);
         const int start = (count - 1 > reach ? count - 1 : reach) + 24;
@@ -236,7 +272,7 @@ static void reach_arm_moments(double a, int count, double re[], double im[])
         for (n = 0; n < count; ++n) {
             j[n] = 0.0;
         }
-        /* f_{k-1} = (2k+1)/x f_k - f_{k+1}, from f = 0, 1 far above; start <= 88. */
+        /* f_{k-1} = (2k+1)/x f_k - f_{k+1}, from f = 0, 1 far above; start <= count + 24. */
         for (k = start; k >= 1; --k) {
             const double below = (double)(2 * k + 1) * inv * cur - above;
             above = cur;
@@ -3297,7 +3333,7 @@ static void reach_arm_inertia_part6(const double q[], const double kern[], doubl
 
 
 /* B(q), n x n, row-major.
- * Operations: 10614 add, 13424 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_inertia(const double q[], double B[])
 {
     double nu[REACH_ARM_NU_LEN];
@@ -3361,7 +3397,7 @@ void reach_arm_inertia(const double q[], double B[])
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G).
- * Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_coriolis(const double q[], const double qd[], double C[])
 {
     double B[REACH_ARM_NQ * REACH_ARM_NQ];
@@ -3384,7 +3420,7 @@ static const unsigned short reach_arm_gravity_rows[212] = {
 };
 
 /* G(q) = dU_g/dq.
- * Operations: 1469 add, 2260 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_gravity(const double q[], double G[])
 {
     double nu[REACH_ARM_NU_LEN];
@@ -3704,7 +3740,7 @@ static const unsigned short reach_arm_tip_jacobian_rows[116] = {
 };
 
 /* Tip Jacobian, 3 x n, row-major.
- * Operations: 927 add, 1579 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_tip_jacobian(const double q[], double J[])
 {
     double nu[REACH_ARM_NU_LEN];
@@ -3848,7 +3884,7 @@ void reach_arm_tip_jacobian(const double q[], double J[])
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function.
- * Operations: 10650 add, 13467 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_kinetic_energy(const double q[], const double qd[])
 {
     double B[REACH_ARM_NQ * REACH_ARM_NQ];
@@ -3878,7 +3914,7 @@ static const unsigned short reach_arm_potential_energy_rows[150] = {
 };
 
 /* U = U_g + 1/2 q^T K q.
- * Operations: 1035 add, 1607 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_potential_energy(const double q[])
 {
     double nu[REACH_ARM_NU_LEN];
@@ -6190,7 +6226,7 @@ static void reach_arm_terms_part13(const double q[], const double qd[], const do
 
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call.
- * Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_terms(const double q[], const double qd[], double B[], double C[], double G[])
 {
     double nu[REACH_ARM_NU_LEN];
@@ -6336,7 +6372,7 @@ void reach_arm_terms(const double q[], const double qd[], double B[], double C[]
 
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
- * Operations: 327 add, 640 mul, 2 div, 0 sqrt, 2 trig. */
+ * Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig. */
 static void reach_arm_pose_segment0(const double q[], double sigma, double pose[3])
 {
     double pnu[26];
@@ -6704,7 +6740,7 @@ static void reach_arm_pose_segment1_part2(const double q[], double sigma, const 
 
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
- * Operations: 662 add, 1247 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig. */
 static void reach_arm_pose_segment1(const double q[], double sigma, double pose[3])
 {
     double nu[REACH_ARM_NU_LEN];

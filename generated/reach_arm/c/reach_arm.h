@@ -48,7 +48,7 @@ extern "C" {
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 10614 add, 13424 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_inertia(const double q[], double B[]);
 
@@ -56,13 +56,13 @@ void reach_arm_inertia(const double q[], double B[]);
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_coriolis(const double q[], const double qd[], double C[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1469 add, 2260 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity(const double q[], double G[]);
 
@@ -90,14 +90,14 @@ void reach_arm_actuation(const double q[], double A[]);
  * angle from +x [rad]. The tip is (segment NSEG - 1, sigma 1).
  * Invalid arguments (segment outside 0..NSEG-1, sigma outside [0, 1] or NaN) set all
  * three entries to NaN.
- * Segment 0: Operations: 327 add, 640 mul, 2 div, 0 sqrt, 2 trig.
- * Segment 1: Operations: 662 add, 1247 mul, 4 div, 0 sqrt, 6 trig.
+ * Segment 0: Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
+ * Segment 1: Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_pose(const double q[], int segment, double sigma, double pose[3]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 927 add, 1579 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_tip_jacobian(const double q[], double J[]);
 
@@ -106,20 +106,20 @@ void reach_arm_tip_jacobian(const double q[], double J[]);
  * reach_arm_coriolis and reach_arm_gravity and the same values. This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_terms(const double q[], const double qd[], double B[], double C[],
     double G[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 10650 add, 13467 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_kinetic_energy(const double q[], const double qd[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 1035 add, 1607 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_potential_energy(const double q[]);
 
@@ -131,7 +131,7 @@ double reach_arm_potential_energy(const double q[]);
  * on an error qdd is filled with NaN.
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 14674 add, 18847 mul, 31 div, 6 sqrt, 6 trig.
+ * Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
  */
 int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);

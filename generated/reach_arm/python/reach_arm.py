@@ -50,7 +50,8 @@ class DynamicsError(ValueError):
     a non-finite result (the message says which)."""
 
 
-# 1/(2n+1) and the power-series factors 1/(k (2n+2k+1)) of j_n, k = 1..11.
+# 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)) of the
+# scaled j_n, k = 1..11.
 _ODD_INV = (
     1.0, 0.3333333333333333, 0.2, 0.14285714285714285, 0.1111111111111111, 0.09090909090909091,
     0.07692307692307693, 0.06666666666666667, 0.058823529411764705, 0.05263157894736842,
@@ -59,6 +60,16 @@ _ODD_INV = (
     0.02702702702702703, 0.02564102564102564, 0.024390243902439025, 0.023255813953488372,
     0.022222222222222223, 0.02127659574468085, 0.02040816326530612, 0.0196078431372549,
     0.018867924528301886, 0.01818181818181818, 0.017543859649122806, 0.01694915254237288,
+)
+_PAIR_INV = (
+    0.3333333333333333, 0.06666666666666667, 0.02857142857142857, 0.015873015873015872,
+    0.010101010101010102, 0.006993006993006993, 0.005128205128205128, 0.00392156862745098,
+    0.0030959752321981426, 0.002506265664160401, 0.002070393374741201, 0.0017391304347826088,
+    0.0014814814814814814, 0.001277139208173691, 0.0011123470522803114, 0.0009775171065493646,
+    0.0008658008658008658, 0.0007722007722007722, 0.000693000693000693, 0.0006253908692933083,
+    0.0005672149744753262, 0.0005167958656330749, 0.00047281323877068556, 0.0004342162396873643,
+    0.00040016006402561027, 0.0003699593044765076, 0.00034305317324185246,
+    0.0003189792663476874, 0.0002973535533749628, 0.0002778549597110308,
 )
 _SERIES = (
     (0.3333333333333333, 0.1, 0.047619047619047616, 0.027777777777777776, 0.01818181818181818, 0.01282051282051282, 0.009523809523809525, 0.007352941176470588, 0.005847953216374269, 0.004761904761904762, 0.003952569169960474),
@@ -91,6 +102,7 @@ _SERIES = (
     (0.017543859649122806, 0.00847457627118644, 0.00546448087431694, 0.003968253968253968, 0.003076923076923077, 0.0024875621890547263, 0.002070393374741201, 0.0017605633802816902, 0.0015220700152207, 0.0013333333333333333, 0.0011806375442739079),
     (0.01694915254237288, 0.00819672131147541, 0.005291005291005291, 0.0038461538461538464, 0.0029850746268656717, 0.0024154589371980675, 0.002012072434607646, 0.0017123287671232876, 0.0014814814814814814, 0.0012987012987012987, 0.0011507479861910242),
     (0.01639344262295082, 0.007936507936507936, 0.005128205128205128, 0.0037313432835820895, 0.002898550724637681, 0.002347417840375587, 0.0019569471624266144, 0.0016666666666666668, 0.001443001443001443, 0.0012658227848101266, 0.001122334455667789),
+    (0.015873015873015872, 0.007692307692307693, 0.004975124378109453, 0.0036231884057971015, 0.0028169014084507044, 0.00228310502283105, 0.0019047619047619048, 0.0016233766233766235, 0.0014064697609001407, 0.0012345679012345679, 0.001095290251916758),
 )
 
 # Moment kernels: row r at moment base b is the dot product of its band
@@ -1876,12 +1888,25 @@ def _kernels(plan, nu):
     return np.add.reduceat(coef * np.asarray(nu)[moment], starts).tolist()
 
 
+def _scaled_series(h, n):
+    """H_n(x) = (2n+1)!! j_n(x) / x^n by its power series (h = -x^2/2, |x| < 1)."""
+    term = 1.0
+    total = 1.0
+    for f in _SERIES[n]:
+        term *= h * f
+        total += term
+    return total
+
+
 def _moments(a, count, out, re, im):
     """Legendre moments nu_0(a) .. nu_{count-1}(a) into out[re + n], out[im + n].
 
-    x = a/2: power series for |x| < 1, Miller's downward recurrence for
-    |x| <= 64, upward recurrence beyond (stable while n < |x|; NaN lands there).
-    Worst case: 330 add, 814 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
+    x = a/2. For |x| < 1 the scaled H_n = (2n+1)!! j_n / x^n (within 20% of 1) is
+    summed at orders count - 1 and count and carried down by
+    H_{n-1} = H_n - x^2 H_{n+1} / ((2n+1)(2n+3)) (errors shrink; exact at 0);
+    Miller's downward recurrence for |x| < count; upward recurrence beyond (stable
+    while n < |x|; NaN lands there). No branch divides by a small a.
+    Worst case: 55 add, 254 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
     """
     j = [0.0] * count
     x = 0.5 * a
@@ -1889,18 +1914,22 @@ def _moments(a, count, out, re, im):
     s = math.sin(x) if math.isfinite(x) else math.nan
     c = math.cos(x) if math.isfinite(x) else math.nan
     if ax < 1.0:
-        h = -0.5 * x * x
+        x2 = x * x
+        h = -0.5 * x2
+        above = _scaled_series(h, count)
+        cur = _scaled_series(h, count - 1)
+        j[count - 1] = cur
+        for n in range(count - 1, 0, -1):
+            below = cur - x2 * _PAIR_INV[n] * above
+            above = cur
+            cur = below
+            j[n - 1] = cur
         lead = 1.0
         for n in range(count):
             if n > 0:
                 lead *= x * _ODD_INV[n]
-            term = 1.0
-            total = 1.0
-            for k in range(11):
-                term *= h * _SERIES[n][k]
-                total += term
-            j[n] = lead * total
-    elif ax <= 64.0:
+            j[n] *= lead
+    elif ax < count:
         inv = 1.0 / x
         start = max(count - 1, math.ceil(ax)) + 24
         above = 0.0
@@ -1998,7 +2027,7 @@ _INERTIA_ROWS = _kernel_plan((
 def inertia(q):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
 
-    Operations: 10614 add, 13424 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -3150,7 +3179,7 @@ def inertia(q):
 def coriolis(q, qd):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
     """
     return terms(q, qd)[1]
 
@@ -3171,7 +3200,7 @@ _GRAVITY_ROWS = _kernel_plan((
 def gravity(q):
     """Gravity vector G(q) = dU_g/dq, length NQ.
 
-    Operations: 1469 add, 2260 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -3490,7 +3519,7 @@ _TIP_JACOBIAN_ROWS = _kernel_plan((
 def tip_jacobian(q):
     """Tip Jacobian, 3 x NQ: rows dx/dq, dy/dq, dangle/dq.
 
-    Operations: 927 add, 1579 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -3631,7 +3660,7 @@ def tip_jacobian(q):
 def kinetic_energy(q, qd):
     """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
 
-    Operations: 10650 add, 13467 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
     """
     qd = np.asarray(_vector(qd, NQ, "qd"))
     return float(0.5 * qd @ inertia(q) @ qd)
@@ -3650,7 +3679,7 @@ _POTENTIAL_ENERGY_ROWS = _kernel_plan((
 def potential_energy(q):
     """Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.
 
-    Operations: 1035 add, 1607 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -3809,7 +3838,7 @@ _TERMS_ROWS = _kernel_plan((
 def terms(q, qd):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -5944,7 +5973,7 @@ def terms(q, qd):
 def _pose_segment0(q, sigma):
     """Backbone pose [x, y, angle] of segment 0 at sigma.
 
-    Operations: 327 add, 640 mul, 2 div, 0 sqrt, 2 trig.
+    Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
     """
     q = _vector(q, NQ, "q")
     pnu = [0.0] * 26
@@ -6081,7 +6110,7 @@ def _pose_segment0(q, sigma):
 def _pose_segment1(q, sigma):
     """Backbone pose [x, y, angle] of segment 1 at sigma.
 
-    Operations: 662 add, 1247 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -6354,7 +6383,7 @@ def forward_dynamics(q, qd, u):
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 14674 add, 18847 mul, 31 div, 6 sqrt, 6 trig.
+    Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")

@@ -446,6 +446,7 @@ pub fn emit(
     ctx.insert("big", big);
     ctx.insert("small", small);
     ctx.insert("odd_inv", &wrap_list(&mc.odd_inv, 4));
+    ctx.insert("pair_inv", &wrap_list(&mc.pair_inv, 4));
     ctx.insert("series", &format!("    {}", series.join(",\n    ")));
     ctx.insert("kernel_nnz", &nnz);
     ctx.insert("start_type", uint_type(nnz));

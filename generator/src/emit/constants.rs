@@ -2,7 +2,7 @@
 //! series and recurrence constants as exact literals, the kernel table in bands, and the template context entries all languages share.
 
 use super::number::{literal, Precision};
-use super::plan::{moment_ops, Plan, UPWARD_LIMIT};
+use super::plan::{moment_ops, Plan};
 use super::schedule::KernelUse;
 use super::Meta;
 use crate::exact::{int, Q};
@@ -13,7 +13,10 @@ use tera::Context;
 pub struct MomentConstants {
     /// `1/(2n+1)` for `n < moment_max`.
     pub odd_inv: Vec<String>,
-    /// Power-series factors `1/(k(2n+2k+1))`, `k = 1..SERIES_TERMS`, one row per `n`.
+    /// `1/((2n+1)(2n+3))` for `n < moment_max`: the scaled recurrence's coefficients.
+    pub pair_inv: Vec<String>,
+    /// Power-series factors `1/(k(2n+2k+1))`, `k = 1..SERIES_TERMS`, one row per
+    /// `n ≤ moment_max` (the series seeds orders `count − 1` and `count`).
     pub series: Vec<Vec<String>>,
     /// Kernel table in bands: row `r`'s coefficients are `coef[start[r]..start[r+1]]`,
     /// for the moments `first[r]`, `first[r] + 1`, … (zeros inside a band kept, so that
@@ -31,7 +34,10 @@ impl MomentConstants {
         let odd_inv = (0..mm)
             .map(|n| lit(&(one() / int(2 * n as i64 + 1))))
             .collect();
-        let series = (0..mm)
+        let pair_inv = (0..mm)
+            .map(|n| lit(&(one() / int(((2 * n + 1) * (2 * n + 3)) as i64))))
+            .collect();
+        let series = (0..=mm)
             .map(|n| {
                 (1..SERIES_TERMS)
                     .map(|k| lit(&(one() / int((k * (2 * n + 2 * k + 1)) as i64))))
@@ -54,6 +60,7 @@ impl MomentConstants {
         }
         MomentConstants {
             odd_inv,
+            pair_inv,
             series,
             start,
             first,
@@ -76,7 +83,6 @@ pub fn base_context(name: &str, meta: &Meta, plan: &Plan, n: usize, k: usize) ->
     ctx.insert("moment_max", &plan.moment_max);
     ctx.insert("series_terms", &SERIES_TERMS);
     ctx.insert("miller_extra", &MILLER_EXTRA);
-    ctx.insert("upward_limit", &UPWARD_LIMIT);
     ctx.insert(
         "moment_ops",
         &moment_ops(plan.moment_max, false).to_string(),

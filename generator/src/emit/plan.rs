@@ -10,10 +10,6 @@ use crate::ir::{Id, Program};
 use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use num_traits::Zero;
 
-/// Above this `|x| = |a|/2` the emitted moment routines use the upward recurrence
-/// (stable while `n < |x|`) instead of Miller's, which keeps every loop bound fixed.
-pub use crate::moments::UPWARD_LIMIT;
-
 /// One emitted function's schedule and its cost.
 #[derive(Clone, Debug)]
 pub struct Func {
@@ -69,12 +65,15 @@ pub fn moment_ops(count: usize, pose: bool) -> Ops {
     }
     let m = count;
     let terms = SERIES_TERMS - 1;
+    // Two scaled series (orders m and m + 1), the scaled recurrence down to 0, and
+    // j_n = lead_n H_n with lead_n = lead_{n−1} · x/(2n+1).
     let series = Ops {
-        add: terms * m,
-        mul: 2 + m * (2 + 2 * terms + 1),
+        add: 2 * terms + (m - 1),
+        mul: 2 + 2 * (2 * terms) + 2 * (m - 1) + 2 * (m - 1) + m,
         ..Ops::default()
     };
-    let steps = (m - 1).max(UPWARD_LIMIT) + MILLER_EXTRA;
+    // Miller runs only for |x| < m, so it starts at most m + MILLER_EXTRA orders up.
+    let steps = m + MILLER_EXTRA;
     let miller = Ops {
         add: steps + 1,
         mul: 2 * steps + 2 + m,

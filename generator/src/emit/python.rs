@@ -285,6 +285,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .collect();
     let mut ctx = base_context(name, meta, plan, n, k);
     ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&mc.odd_inv, 4)));
+    ctx.insert("pair_inv", &format!("\n{},\n", wrap_list(&mc.pair_inv, 4)));
     ctx.insert("series", &format!("\n    {},\n", series.join(",\n    ")));
     ctx.insert(
         "kernel_start",

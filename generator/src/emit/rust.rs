@@ -337,6 +337,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .collect();
     let mut ctx = base_context(name, meta, plan, n, k);
     ctx.insert("odd_inv", &mc.odd_inv.join(", "));
+    ctx.insert("pair_inv", &mc.pair_inv.join(", "));
     ctx.insert("series", &series.join(", "));
     ctx.insert("kernel_nnz", &mc.coef.len());
     ctx.insert("start_type", uint(mc.coef.len()));

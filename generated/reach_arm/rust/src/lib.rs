@@ -71,8 +71,41 @@ static ODD_INV: [f64; MOMENTS_MAX] = [
     0.017543859649122806,
     0.01694915254237288,
 ];
-/// Power-series factors `1/(k (2n+2k+1))` of `j_n`, `k = 1..11`.
-static SERIES: [[f64; 11]; MOMENTS_MAX] = [
+/// `1/((2n+1)(2n+3))`.
+static PAIR_INV: [f64; MOMENTS_MAX] = [
+    0.3333333333333333,
+    0.06666666666666667,
+    0.02857142857142857,
+    0.015873015873015872,
+    0.010101010101010102,
+    0.006993006993006993,
+    0.005128205128205128,
+    0.00392156862745098,
+    0.0030959752321981426,
+    0.002506265664160401,
+    0.002070393374741201,
+    0.0017391304347826088,
+    0.0014814814814814814,
+    0.001277139208173691,
+    0.0011123470522803114,
+    0.0009775171065493646,
+    0.0008658008658008658,
+    0.0007722007722007722,
+    0.000693000693000693,
+    0.0006253908692933083,
+    0.0005672149744753262,
+    0.0005167958656330749,
+    0.00047281323877068556,
+    0.0004342162396873643,
+    0.00040016006402561027,
+    0.0003699593044765076,
+    0.00034305317324185246,
+    0.0003189792663476874,
+    0.0002973535533749628,
+    0.0002778549597110308,
+];
+/// Power-series factors `1/(k (2n+2k+1))` of the scaled `j_n`, `k = 1..11`.
+static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
     [
         0.3333333333333333,
         0.1,
@@ -463,7 +496,30 @@ static SERIES: [[f64; 11]; MOMENTS_MAX] = [
         0.0012658227848101266,
         0.001122334455667789,
     ],
+    [
+        0.015873015873015872,
+        0.007692307692307693,
+        0.004975124378109453,
+        0.0036231884057971015,
+        0.0028169014084507044,
+        0.00228310502283105,
+        0.0019047619047619048,
+        0.0016233766233766235,
+        0.0014064697609001407,
+        0.0012345679012345679,
+        0.001095290251916758,
+    ],
 ];
+/// `H_n(x) = (2n+1)!! j_n(x) / xⁿ` by its power series (`h = −x²/2`, `|x| < 1`).
+fn scaled_series(h: f64, n: usize) -> f64 {
+    let mut term = 1.0;
+    let mut sum = 1.0;
+    for f in SERIES[n].iter() {
+        term *= h * f;
+        sum += term;
+    }
+    sum
+}
 /// Moment kernels: row `r` at moment base `b` is the dot product of its band
 /// `COEF[START[r]..START[r+1]]` with `nu[b + FIRST[r]..]`; a row is shared by every
 /// segment (and by real and imaginary parts) with the same weight shape.
@@ -6727,9 +6783,12 @@ fn kernels(uses: &[u16], nu: &[f64; NU_LEN], kern: &mut [f64]) {
     }
 }
 /// Legendre moments `ν_0(a) … ν_{count−1}(a)` into `out[re + n]` (real part) and
-/// `out[im + n]` (imaginary part); `x = a/2`. Power series for `|x| < 1`, Miller's
-/// downward recurrence for `|x| ≤ 64`, upward recurrence beyond (stable
-/// while `n < |x|`; NaN lands there). Worst case: 330 add, 814 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
+/// `out[im + n]` (imaginary part); `x = a/2`. For `|x| < 1` the scaled
+/// `H_n = (2n+1)!! j_n / xⁿ` (within 20% of 1) is summed at orders `count − 1` and
+/// `count` and carried down by `H_{n−1} = H_n − x² H_{n+1} / ((2n+1)(2n+3))` (errors
+/// shrink; exact at 0); Miller's downward recurrence for `|x| < count`; upward
+/// recurrence beyond (stable while `n < |x|`; NaN lands there). No branch divides by a
+/// small `a`. Worst case: 55 add, 254 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
 fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
     let mut j = [0.0f64; MOMENTS_MAX];
     let x = 0.5 * a;
@@ -6737,21 +6796,25 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
     let s = libm::sin(x);
     let c = libm::cos(x);
     if ax < 1.0 {
-        let h = -0.5 * x * x;
+        let x2 = x * x;
+        let h = -0.5 * x2;
+        let mut above = scaled_series(h, count);
+        let mut cur = scaled_series(h, count - 1);
+        j[count - 1] = cur;
+        for n in (1..count).rev() {
+            let below = cur - x2 * PAIR_INV[n] * above;
+            above = cur;
+            cur = below;
+            j[n - 1] = cur;
+        }
         let mut lead = 1.0;
         for n in 0..count {
             if n > 0 {
                 lead *= x * ODD_INV[n];
             }
-            let mut term = 1.0;
-            let mut sum = 1.0;
-            for k in 0..11 {
-                term *= h * SERIES[n][k];
-                sum += term;
-            }
-            j[n] = lead * sum;
+            j[n] *= lead;
         }
-    } else if ax <= 64.0 {
+    } else if ax < count as f64 {
         let inv = 1.0 / x;
         let reach = libm::ceil(ax) as usize;
         let start = (count - 1).max(reach) + 24;
@@ -6862,7 +6925,7 @@ static INERTIA_ROWS: [u16; 1112] = [
 ];
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.
 ///
-/// Operations: 10614 add, 13424 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     let mut nu = [0.0; NU_LEN];
     moments(0.12 * q[0], 29, &mut nu, 0, 30);
@@ -8426,7 +8489,7 @@ pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.
 ///
-/// Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     terms(q, qd).1
 }
@@ -8446,7 +8509,7 @@ static GRAVITY_ROWS: [u16; 212] = [
 ];
 /// Gravity vector `G(q) = ∂U_g/∂q`.
 ///
-/// Operations: 1469 add, 2260 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
     let mut nu = [0.0; NU_LEN];
     moments(0.12 * q[0], 15, &mut nu, 0, 30);
@@ -8832,7 +8895,7 @@ static TIP_JACOBIAN_ROWS: [u16; 116] = [
 ];
 /// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
 ///
-/// Operations: 927 add, 1579 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
 pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
     let mut nu = [0.0; NU_LEN];
     moments(0.12 * q[0], 14, &mut nu, 0, 30);
@@ -9014,7 +9077,7 @@ pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
 }
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].
 ///
-/// Operations: 10650 add, 13467 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
     let b = inertia(q);
     let mut t = 0.0;
@@ -9040,7 +9103,7 @@ static POTENTIAL_ENERGY_ROWS: [u16; 150] = [
 ];
 /// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.
 ///
-/// Operations: 1035 add, 1607 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
 pub fn potential_energy(q: &[f64; NQ]) -> f64 {
     let mut nu = [0.0; NU_LEN];
     moments(0.12 * q[0], 14, &mut nu, 0, 30);
@@ -9225,7 +9288,7 @@ static TERMS_ROWS: [u16; 1420] = [
 ];
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
 ///
-/// Operations: 14579 add, 18758 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -11986,7 +12049,7 @@ pub fn terms(
 }
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
-/// Operations: 327 add, 640 mul, 2 div, 0 sqrt, 2 trig.
+/// Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
 fn pose_segment0(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
     let mut pnu = [0.0; 26];
     moments(0.12 * q[0] * sigma, 13, &mut pnu, 0, 13);
@@ -12130,7 +12193,7 @@ fn pose_segment0(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
 }
 /// Backbone pose `[x, y, angle]` of segment 1 at `sigma`.
 ///
-/// Operations: 662 add, 1247 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig.
 fn pose_segment1(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
     let mut nu = [0.0; NU_LEN];
     moments(0.12 * q[0], 13, &mut nu, 0, 30);
@@ -12428,7 +12491,7 @@ pub fn pose(q: &[f64; NQ], segment: usize, sigma: f64) -> [f64; 3] {
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 14674 add, 18847 mul, 31 div, 6 sqrt, 6 trig.
+/// Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
 pub fn forward_dynamics(
     q: &[f64; NQ],
     qd: &[f64; NQ],
