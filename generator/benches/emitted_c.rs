@@ -223,9 +223,30 @@ fn main() {
                 })
                 .collect();
             frames.sort();
-            println!("largest stack frames on the Cortex-M4F [bytes]:");
-            for (bytes, name) in frames.iter().rev().take(6) {
+            let (ws, plain): (Vec<_>, Vec<_>) =
+                frames.iter().rev().partition(|(_, n)| n.ends_with("_ws"));
+            println!("largest stack frames on the Cortex-M4F [bytes], plain functions:");
+            for (bytes, name) in plain.iter().take(6) {
                 println!("  {bytes:>6}  {name}");
+            }
+            // The _ws forms keep their arrays in the caller's scratch; what remains is
+            // their own frame plus the deepest helper they call (a part, the moments).
+            println!("  with caller-owned scratch (_ws), frames:");
+            for (bytes, name) in ws.iter().take(4) {
+                println!("  {bytes:>6}  {name}");
+            }
+            let helpers = [
+                "_part",
+                "_moments",
+                "_kernels",
+                "_scaled_series",
+                "_pose_segment",
+            ];
+            if let Some((bytes, name)) = plain
+                .iter()
+                .find(|(_, n)| helpers.iter().any(|h| n.contains(h)))
+            {
+                println!("  {bytes:>6}  {name} (largest helper they call)");
             }
         }
     } else {

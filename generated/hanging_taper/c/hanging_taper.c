@@ -14,6 +14,9 @@
  * combinations of moments ("kernels") from one banded constant table. Long
  * bodies are split into static parts that share one scratch array t[] (a slot is
  * reused once its temporary is dead), which keeps compile time roughly linear.
+ * Each function that takes q does its work in a _ws form, whose moment, kernel and
+ * temporary arrays are carved out of the caller's work[]; the plain form declares
+ * that scratch on its own stack and calls it.
  */
 #include "hanging_taper.h"
 
@@ -3844,6 +3847,148 @@ static void hanging_taper_kernels(const unsigned short uses[], int count, const 
     }
 }
 
+
+/* K, n x n, row-major.
+ * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
+void hanging_taper_stiffness(double K[])
+{
+    K[0] = 0.0017;
+    K[1] = 0.0008;
+    K[2] = 0.0005166666666666667;
+    K[3] = 0.0;
+    K[4] = 0.0;
+    K[5] = 0.0;
+    K[6] = 0.0;
+    K[7] = 0.0;
+    K[8] = 0.0008;
+    K[9] = 0.0005166666666666667;
+    K[10] = 0.00038;
+    K[11] = 0.0;
+    K[12] = 0.0;
+    K[13] = 0.0;
+    K[14] = 0.0;
+    K[15] = 0.0;
+    K[16] = 0.0005166666666666667;
+    K[17] = 0.00038;
+    K[18] = 0.0003;
+    K[19] = 0.0;
+    K[20] = 0.0;
+    K[21] = 0.0;
+    K[22] = 0.0;
+    K[23] = 0.0;
+    K[24] = 0.0;
+    K[25] = 0.0;
+    K[26] = 0.0;
+    K[27] = 0.001035;
+    K[28] = 0.00048;
+    K[29] = 0.0003075;
+    K[30] = 0.0;
+    K[31] = 0.0;
+    K[32] = 0.0;
+    K[33] = 0.0;
+    K[34] = 0.0;
+    K[35] = 0.00048;
+    K[36] = 0.0003075;
+    K[37] = 0.000225;
+    K[38] = 0.0;
+    K[39] = 0.0;
+    K[40] = 0.0;
+    K[41] = 0.0;
+    K[42] = 0.0;
+    K[43] = 0.0003075;
+    K[44] = 0.000225;
+    K[45] = 0.000177;
+    K[46] = 0.0;
+    K[47] = 0.0;
+    K[48] = 0.0;
+    K[49] = 0.0;
+    K[50] = 0.0;
+    K[51] = 0.0;
+    K[52] = 0.0;
+    K[53] = 0.0;
+    K[54] = 0.00056;
+    K[55] = 0.00025333333333333333;
+    K[56] = 0.0;
+    K[57] = 0.0;
+    K[58] = 0.0;
+    K[59] = 0.0;
+    K[60] = 0.0;
+    K[61] = 0.0;
+    K[62] = 0.00025333333333333333;
+    K[63] = 0.00016;
+}
+
+
+/* D, n x n, row-major.
+ * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
+void hanging_taper_damping(double D[])
+{
+    D[0] = 3e-5;
+    D[1] = 1.5e-5;
+    D[2] = 1e-5;
+    D[3] = 0.0;
+    D[4] = 0.0;
+    D[5] = 0.0;
+    D[6] = 0.0;
+    D[7] = 0.0;
+    D[8] = 1.5e-5;
+    D[9] = 1e-5;
+    D[10] = 7.5e-6;
+    D[11] = 0.0;
+    D[12] = 0.0;
+    D[13] = 0.0;
+    D[14] = 0.0;
+    D[15] = 0.0;
+    D[16] = 1e-5;
+    D[17] = 7.5e-6;
+    D[18] = 6e-6;
+    D[19] = 0.0;
+    D[20] = 0.0;
+    D[21] = 0.0;
+    D[22] = 0.0;
+    D[23] = 0.0;
+    D[24] = 0.0;
+    D[25] = 0.0;
+    D[26] = 0.0;
+    D[27] = 1.8e-5;
+    D[28] = 9e-6;
+    D[29] = 6e-6;
+    D[30] = 0.0;
+    D[31] = 0.0;
+    D[32] = 0.0;
+    D[33] = 0.0;
+    D[34] = 0.0;
+    D[35] = 9e-6;
+    D[36] = 6e-6;
+    D[37] = 4.5e-6;
+    D[38] = 0.0;
+    D[39] = 0.0;
+    D[40] = 0.0;
+    D[41] = 0.0;
+    D[42] = 0.0;
+    D[43] = 6e-6;
+    D[44] = 4.5e-6;
+    D[45] = 3.6e-6;
+    D[46] = 0.0;
+    D[47] = 0.0;
+    D[48] = 0.0;
+    D[49] = 0.0;
+    D[50] = 0.0;
+    D[51] = 0.0;
+    D[52] = 0.0;
+    D[53] = 0.0;
+    D[54] = 8e-6;
+    D[55] = 4e-6;
+    D[56] = 0.0;
+    D[57] = 0.0;
+    D[58] = 0.0;
+    D[59] = 0.0;
+    D[60] = 0.0;
+    D[61] = 0.0;
+    D[62] = 4e-6;
+    D[63] = 2.666666666666667e-6;
+}
+
 /* Kernels of hanging_taper_inertia: pairs (row, moment base). */
 static const unsigned short hanging_taper_inertia_rows[1356] = {
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31,
@@ -5224,12 +5369,12 @@ static void hanging_taper_inertia_part7(const double q[], const double kern[], d
 }
 
 
-/* B(q), n x n, row-major.
+/* B(q), n x n, row-major. Scratch: work[0 .. 1045) (see HANGING_TAPER_WORK_LEN).
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_inertia(const double q[], double B[])
+void hanging_taper_inertia_ws(const double q[], double B[], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double kern[678];
+    double *const nu = &work[0]; /* 170 */
+    double *const kern = &work[170]; /* 678 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -5243,7 +5388,7 @@ void hanging_taper_inertia(const double q[], double B[])
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_inertia_rows, 678, nu, kern);
-    double t[197];
+    double *const t = &work[848]; /* 197 */
     hanging_taper_inertia_part1(q, kern, t);
     hanging_taper_inertia_part2(q, nu, kern, t);
     hanging_taper_inertia_part3(q, kern, t);
@@ -5327,13 +5472,12 @@ void hanging_taper_inertia(const double q[], double B[])
 }
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G).
- * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_coriolis(const double q[], const double qd[], double C[])
+/* hanging_taper_inertia_ws with its scratch on this function's stack.
+ * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_inertia(const double q[], double B[])
 {
-    double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
-    double G[HANGING_TAPER_NQ];
-    hanging_taper_terms(q, qd, B, C, G);
+    double work[1045];
+    hanging_taper_inertia_ws(q, B, work);
 }
 
 /* Kernels of hanging_taper_gravity: pairs (row, moment base). */
@@ -5541,12 +5685,12 @@ static void hanging_taper_gravity_part2(const double q[], const double cphi[], c
 }
 
 
-/* G(q) = dU_g/dq.
+/* G(q) = dU_g/dq. Scratch: work[0 .. 341) (see HANGING_TAPER_WORK_LEN).
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity(const double q[], double G[])
+void hanging_taper_gravity_ws(const double q[], double G[], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double kern[128];
+    double *const nu = &work[0]; /* 170 */
+    double *const kern = &work[170]; /* 128 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -5560,7 +5704,7 @@ void hanging_taper_gravity(const double q[], double G[])
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_gravity_rows, 128, nu, kern);
-    double t[43];
+    double *const t = &work[298]; /* 43 */
     hanging_taper_gravity_part1(q, nu, cphi, sphi, kern, t);
     hanging_taper_gravity_part2(q, cphi, sphi, kern, t);
     G[0] = -0.3924 * t[40] - 9.81 * (-0.00288 * t[32] - 0.00288 * t[31]) - 0.247212 * t[24]
@@ -5586,145 +5730,12 @@ void hanging_taper_gravity(const double q[], double G[])
 }
 
 
-/* K, n x n, row-major.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void hanging_taper_stiffness(double K[])
+/* hanging_taper_gravity_ws with its scratch on this function's stack.
+ * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_gravity(const double q[], double G[])
 {
-    K[0] = 0.0017;
-    K[1] = 0.0008;
-    K[2] = 0.0005166666666666667;
-    K[3] = 0.0;
-    K[4] = 0.0;
-    K[5] = 0.0;
-    K[6] = 0.0;
-    K[7] = 0.0;
-    K[8] = 0.0008;
-    K[9] = 0.0005166666666666667;
-    K[10] = 0.00038;
-    K[11] = 0.0;
-    K[12] = 0.0;
-    K[13] = 0.0;
-    K[14] = 0.0;
-    K[15] = 0.0;
-    K[16] = 0.0005166666666666667;
-    K[17] = 0.00038;
-    K[18] = 0.0003;
-    K[19] = 0.0;
-    K[20] = 0.0;
-    K[21] = 0.0;
-    K[22] = 0.0;
-    K[23] = 0.0;
-    K[24] = 0.0;
-    K[25] = 0.0;
-    K[26] = 0.0;
-    K[27] = 0.001035;
-    K[28] = 0.00048;
-    K[29] = 0.0003075;
-    K[30] = 0.0;
-    K[31] = 0.0;
-    K[32] = 0.0;
-    K[33] = 0.0;
-    K[34] = 0.0;
-    K[35] = 0.00048;
-    K[36] = 0.0003075;
-    K[37] = 0.000225;
-    K[38] = 0.0;
-    K[39] = 0.0;
-    K[40] = 0.0;
-    K[41] = 0.0;
-    K[42] = 0.0;
-    K[43] = 0.0003075;
-    K[44] = 0.000225;
-    K[45] = 0.000177;
-    K[46] = 0.0;
-    K[47] = 0.0;
-    K[48] = 0.0;
-    K[49] = 0.0;
-    K[50] = 0.0;
-    K[51] = 0.0;
-    K[52] = 0.0;
-    K[53] = 0.0;
-    K[54] = 0.00056;
-    K[55] = 0.00025333333333333333;
-    K[56] = 0.0;
-    K[57] = 0.0;
-    K[58] = 0.0;
-    K[59] = 0.0;
-    K[60] = 0.0;
-    K[61] = 0.0;
-    K[62] = 0.00025333333333333333;
-    K[63] = 0.00016;
-}
-
-
-/* D, n x n, row-major.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void hanging_taper_damping(double D[])
-{
-    D[0] = 3e-5;
-    D[1] = 1.5e-5;
-    D[2] = 1e-5;
-    D[3] = 0.0;
-    D[4] = 0.0;
-    D[5] = 0.0;
-    D[6] = 0.0;
-    D[7] = 0.0;
-    D[8] = 1.5e-5;
-    D[9] = 1e-5;
-    D[10] = 7.5e-6;
-    D[11] = 0.0;
-    D[12] = 0.0;
-    D[13] = 0.0;
-    D[14] = 0.0;
-    D[15] = 0.0;
-    D[16] = 1e-5;
-    D[17] = 7.5e-6;
-    D[18] = 6e-6;
-    D[19] = 0.0;
-    D[20] = 0.0;
-    D[21] = 0.0;
-    D[22] = 0.0;
-    D[23] = 0.0;
-    D[24] = 0.0;
-    D[25] = 0.0;
-    D[26] = 0.0;
-    D[27] = 1.8e-5;
-    D[28] = 9e-6;
-    D[29] = 6e-6;
-    D[30] = 0.0;
-    D[31] = 0.0;
-    D[32] = 0.0;
-    D[33] = 0.0;
-    D[34] = 0.0;
-    D[35] = 9e-6;
-    D[36] = 6e-6;
-    D[37] = 4.5e-6;
-    D[38] = 0.0;
-    D[39] = 0.0;
-    D[40] = 0.0;
-    D[41] = 0.0;
-    D[42] = 0.0;
-    D[43] = 6e-6;
-    D[44] = 4.5e-6;
-    D[45] = 3.6e-6;
-    D[46] = 0.0;
-    D[47] = 0.0;
-    D[48] = 0.0;
-    D[49] = 0.0;
-    D[50] = 0.0;
-    D[51] = 0.0;
-    D[52] = 0.0;
-    D[53] = 0.0;
-    D[54] = 8e-6;
-    D[55] = 4e-6;
-    D[56] = 0.0;
-    D[57] = 0.0;
-    D[58] = 0.0;
-    D[59] = 0.0;
-    D[60] = 0.0;
-    D[61] = 0.0;
-    D[62] = 4e-6;
-    D[63] = 2.666666666666667e-6;
+    double work[341];
+    hanging_taper_gravity_ws(q, G, work);
 }
 
 /* Kernels of hanging_taper_actuation: pairs (row, moment base). */
@@ -5738,12 +5749,12 @@ static const unsigned short hanging_taper_actuation_rows[156] = {
     147, 6, 124, 6, 147, 637, 124, 638, 147, 639, 124
 };
 
-/* A(q), n x k, row-major.
+/* A(q), n x k, row-major. Scratch: work[0 .. 248) (see HANGING_TAPER_WORK_LEN).
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_actuation(const double q[], double A[])
+void hanging_taper_actuation_ws(const double q[], double A[], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double kern[78];
+    double *const nu = &work[0]; /* 170 */
+    double *const kern = &work[170]; /* 78 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -5916,6 +5927,15 @@ void hanging_taper_actuation(const double q[], double A[])
     A[23] = 0.0;
 }
 
+
+/* hanging_taper_actuation_ws with its scratch on this function's stack.
+ * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_actuation(const double q[], double A[])
+{
+    double work[248];
+    hanging_taper_actuation_ws(q, A, work);
+}
+
 /* Kernels of hanging_taper_tip_jacobian: pairs (row, moment base). */
 static const unsigned short hanging_taper_tip_jacobian_rows[156] = {
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0, 6, 31,
@@ -5927,12 +5947,12 @@ static const unsigned short hanging_taper_tip_jacobian_rows[156] = {
     147, 6, 124, 6, 147, 637, 124, 638, 147, 639, 124
 };
 
-/* Tip Jacobian, 3 x n, row-major.
+/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. 248) (see HANGING_TAPER_WORK_LEN).
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_tip_jacobian(const double q[], double J[])
+void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double kern[78];
+    double *const nu = &work[0]; /* 170 */
+    double *const kern = &work[170]; /* 78 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -6106,23 +6126,12 @@ void hanging_taper_tip_jacobian(const double q[], double J[])
 }
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function.
- * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
-double hanging_taper_kinetic_energy(const double q[], const double qd[])
+/* hanging_taper_tip_jacobian_ws with its scratch on this function's stack.
+ * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_tip_jacobian(const double q[], double J[])
 {
-    double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
-    double t = 0.0;
-    int i;
-    int k;
-    hanging_taper_inertia(q, B);
-    for (i = 0; i < HANGING_TAPER_NQ; ++i) {
-        double bqd = 0.0;
-        for (k = 0; k < HANGING_TAPER_NQ; ++k) {
-            bqd += B[i * HANGING_TAPER_NQ + k] * qd[k];
-        }
-        t += qd[i] * bqd;
-    }
-    return 0.5 * t;
+    double work[248];
+    hanging_taper_tip_jacobian_ws(q, J, work);
 }
 
 /* Kernels of hanging_taper_potential_energy: pairs (row, moment base). */
@@ -6137,12 +6146,12 @@ static const unsigned short hanging_taper_potential_energy_rows[170] = {
     505, 147, 506, 124, 506, 147, 507, 124, 507, 147
 };
 
-/* U = U_g + 1/2 q^T K q.
+/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. 255) (see HANGING_TAPER_WORK_LEN).
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
-double hanging_taper_potential_energy(const double q[])
+double hanging_taper_potential_energy_ws(const double q[], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double kern[85];
+    double *const nu = &work[0]; /* 170 */
+    double *const kern = &work[170]; /* 85 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -6240,6 +6249,15 @@ double hanging_taper_potential_energy(const double q[])
     return 0.5 * t42 - 0.3924 * t35 - 9.81 * (0.0288 * t36 * cphi[0] - 0.0288 * t37 * sphi[0])
         - 0.247212 * t12 - 9.81 * (0.0192 * t38 * cphi[1] - 0.0192 * t39 * sphi[1])
         - 0.15696 * (t12 + t40 * cphi[0] - t41 * sphi[0]);
+}
+
+
+/* hanging_taper_potential_energy_ws with its scratch on this function's stack.
+ * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
+double hanging_taper_potential_energy(const double q[])
+{
+    double work[255];
+    return hanging_taper_potential_energy_ws(q, work);
 }
 
 /* Kernels of hanging_taper_terms: pairs (row, moment base). */
@@ -8806,12 +8824,12 @@ static void hanging_taper_terms_part16(const double q[], const double qd[], cons
 }
 
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call.
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. 1514) (see HANGING_TAPER_WORK_LEN).
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_terms(const double q[], const double qd[], double B[], double C[], double G[])
+void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double kern[877];
+    double *const nu = &work[0]; /* 170 */
+    double *const kern = &work[170]; /* 877 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -8825,7 +8843,7 @@ void hanging_taper_terms(const double q[], const double qd[], double B[], double
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_terms_rows, 877, nu, kern);
-    double t[467];
+    double *const t = &work[1047]; /* 467 */
     hanging_taper_terms_part1(q, qd, kern, t);
     hanging_taper_terms_part2(q, kern, t);
     hanging_taper_terms_part3(q, qd, kern, t);
@@ -9080,11 +9098,68 @@ void hanging_taper_terms(const double q[], const double qd[], double B[], double
 }
 
 
+/* hanging_taper_terms_ws with its scratch on this function's stack.
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_terms(const double q[], const double qd[], double B[], double C[], double G[])
+{
+    double work[1514];
+    hanging_taper_terms_ws(q, qd, B, C, G, work);
+}
+
+
+/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. 1109) (see HANGING_TAPER_WORK_LEN).
+ * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
+double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[])
+{
+    double *const B = &work[0]; /* 64 */
+    double t = 0.0;
+    int i;
+    int k;
+    hanging_taper_inertia_ws(q, B, &work[64]);
+    for (i = 0; i < HANGING_TAPER_NQ; ++i) {
+        double bqd = 0.0;
+        for (k = 0; k < HANGING_TAPER_NQ; ++k) {
+            bqd += B[i * HANGING_TAPER_NQ + k] * qd[k];
+        }
+        t += qd[i] * bqd;
+    }
+    return 0.5 * t;
+}
+
+
+/* hanging_taper_kinetic_energy_ws with its scratch on this function's stack.
+ * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
+double hanging_taper_kinetic_energy(const double q[], const double qd[])
+{
+    double work[1109];
+    return hanging_taper_kinetic_energy_ws(q, qd, work);
+}
+
+
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. 1586) (see HANGING_TAPER_WORK_LEN).
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[])
+{
+    double *const B = &work[0]; /* 64 */
+    double *const G = &work[64]; /* 8 */
+    hanging_taper_terms_ws(q, qd, B, C, G, &work[72]);
+}
+
+
+/* hanging_taper_coriolis_ws with its scratch on this function's stack.
+ * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_coriolis(const double q[], const double qd[], double C[])
+{
+    double work[1586];
+    hanging_taper_coriolis_ws(q, qd, C, work);
+}
+
+
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
  * Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig. */
-static void hanging_taper_pose_segment0(const double q[], double sigma, double pose[3])
+static void hanging_taper_pose_segment0(const double q[], double sigma, double pose[3], double work[])
 {
-    double pnu[26];
+    double *const pnu = &work[0]; /* 26 */
     hanging_taper_moments(0.1 * q[0] * sigma, 13, &pnu[0], &pnu[13]);
     const double t0 = q[1] * q[1];
     const double t1 = q[1] * q[2];
@@ -9454,10 +9529,10 @@ static void hanging_taper_pose_segment1_part2(const double q[], double sigma, co
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
  * Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig. */
-static void hanging_taper_pose_segment1(const double q[], double sigma, double pose[3])
+static void hanging_taper_pose_segment1(const double q[], double sigma, double pose[3], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double pnu[26];
+    double *const nu = &work[0]; /* 170 */
+    double *const pnu = &work[170]; /* 26 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -9466,7 +9541,7 @@ static void hanging_taper_pose_segment1(const double q[], double sigma, double p
     phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    double t[63];
+    double *const t = &work[196]; /* 63 */
     hanging_taper_pose_segment1_part1(q, sigma, nu, pnu, t);
     hanging_taper_pose_segment1_part2(q, sigma, nu, pnu, t);
     pose[0] = t[12]
@@ -9753,10 +9828,10 @@ static void hanging_taper_pose_segment2_part2(const double q[], double sigma, co
 
 /* Backbone pose [x, y, angle] of segment 2 at sigma.
  * Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig. */
-static void hanging_taper_pose_segment2(const double q[], double sigma, double pose[3])
+static void hanging_taper_pose_segment2(const double q[], double sigma, double pose[3], double work[])
 {
-    double nu[HANGING_TAPER_NU_LEN];
-    double pnu[18];
+    double *const nu = &work[0]; /* 170 */
+    double *const pnu = &work[170]; /* 18 */
     double cphi[2];
     double sphi[2];
     double phi;
@@ -9769,7 +9844,7 @@ static void hanging_taper_pose_segment2(const double q[], double sigma, double p
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
-    double t[56];
+    double *const t = &work[188]; /* 56 */
     hanging_taper_pose_segment2_part1(q, sigma, nu, t);
     hanging_taper_pose_segment2_part2(q, sigma, nu, pnu, t);
     pose[0] = t[12]
@@ -9796,7 +9871,8 @@ static void hanging_taper_pose_segment2(const double q[], double sigma, double p
         + 0.03 * q[5] + 0.08 * sigma * q[6] + 0.04 * t[24] * q[7];
 }
 
-void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3])
+void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[])
 {
     if (segment < 0 || segment >= HANGING_TAPER_NSEG || !(sigma >= 0.0 && sigma <= 1.0)) {
         pose[0] = (double)NAN;
@@ -9805,26 +9881,33 @@ void hanging_taper_pose(const double q[], int segment, double sigma, double pose
         return;
     }
     switch (segment) {
-    case 0: hanging_taper_pose_segment0(q, sigma, pose); break;
-    case 1: hanging_taper_pose_segment1(q, sigma, pose); break;
-    case 2: hanging_taper_pose_segment2(q, sigma, pose); break;
+    case 0: hanging_taper_pose_segment0(q, sigma, pose, work); break;
+    case 1: hanging_taper_pose_segment1(q, sigma, pose, work); break;
+    case 2: hanging_taper_pose_segment2(q, sigma, pose, work); break;
     default: break;
     }
 }
 
-int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[])
+void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3])
+{
+    double work[259];
+    hanging_taper_pose_ws(q, segment, sigma, pose, work);
+}
+
+int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
-     * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place. */
-    double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
-    double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
-    double G[HANGING_TAPER_NQ];
-    double K[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
-    double D[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
-    double A[HANGING_TAPER_NQ * HANGING_TAPER_NU];
-    double m[HANGING_TAPER_NQ * (HANGING_TAPER_NQ + 1) / 2];
-    double f[HANGING_TAPER_NQ];
+     * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
+     * All of them, and the scratch of terms and actuation, live in work[0 .. 1846). */
+    double *const B = &work[0];
+    double *const C = &work[64];
+    double *const G = &work[128];
+    double *const K = &work[136];
+    double *const D = &work[200];
+    double *const A = &work[264];
+    double *const m = &work[288];
+    double *const f = &work[324];
     int i;
     int j;
     int k;
@@ -9843,10 +9926,10 @@ int hanging_taper_forward_dynamics(const double q[], const double qd[], const do
     if (status != HANGING_TAPER_OK) {
         return status;
     }
-    hanging_taper_terms(q, qd, B, C, G);
+    hanging_taper_terms_ws(q, qd, B, C, G, &work[332]);
     hanging_taper_stiffness(K);
     hanging_taper_damping(D);
-    hanging_taper_actuation(q, A);
+    hanging_taper_actuation_ws(q, A, &work[332]);
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         double s = -G[i];
         for (k = 0; k < HANGING_TAPER_NQ; ++k) {
@@ -9905,4 +9988,11 @@ int hanging_taper_forward_dynamics(const double q[], const double qd[], const do
         qdd[i] = f[i];
     }
     return HANGING_TAPER_OK;
+}
+
+int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
+    double qdd[])
+{
+    double work[1846];
+    return hanging_taper_forward_dynamics_ws(q, qd, u, qdd, work);
 }

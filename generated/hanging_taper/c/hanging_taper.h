@@ -137,6 +137,41 @@ double hanging_taper_potential_energy(const double q[]);
 int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
+/*
+ * Caller-provided scratch. Every function above that takes q has a _ws variant with
+ * one more argument, work: scratch that the caller owns, at least the function's
+ * HANGING_TAPER_<FUNCTION>_WORK reals (HANGING_TAPER_WORK_LEN fits them all).
+ * It need not be initialised, its contents afterwards are unspecified, and two calls
+ * running at once (threads, interrupts) need two arrays. The plain functions declare
+ * the same scratch on their own stack and return the same values; use the _ws
+ * variants where the stack is small (an RTOS task, an interrupt handler).
+ */
+#define HANGING_TAPER_INERTIA_WORK 1045
+#define HANGING_TAPER_GRAVITY_WORK 341
+#define HANGING_TAPER_ACTUATION_WORK 248
+#define HANGING_TAPER_TIP_JACOBIAN_WORK 248
+#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 255
+#define HANGING_TAPER_TERMS_WORK 1514
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1109
+#define HANGING_TAPER_CORIOLIS_WORK 1586
+#define HANGING_TAPER_POSE_WORK 259
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1846
+#define HANGING_TAPER_WORK_LEN 1846
+
+void hanging_taper_inertia_ws(const double q[], double B[], double work[]);
+void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
+void hanging_taper_gravity_ws(const double q[], double G[], double work[]);
+void hanging_taper_actuation_ws(const double q[], double A[], double work[]);
+void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[]);
+void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[]);
+void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[],
+    double G[], double work[]);
+double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[]);
+double hanging_taper_potential_energy_ws(const double q[], double work[]);
+int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[]);
+
 #ifdef __cplusplus
 }
 #endif

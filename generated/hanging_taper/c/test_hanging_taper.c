@@ -684,6 +684,43 @@ static void expect(int ok, const char *what)
     }
 }
 
+/* Scratch for the _ws checks: NaN where a function may work (so that reading it before
+ * writing shows in the result), then a guard band that must come back untouched (so
+ * that a function's HANGING_TAPER_<FUNCTION>_WORK is enough). */
+#define GUARD 8
+static double work[HANGING_TAPER_WORK_LEN + GUARD];
+
+static void poison(int len)
+{
+    int i;
+    for (i = 0; i < len; ++i) {
+        work[i] = (double)NAN;
+    }
+    for (i = len; i < len + GUARD; ++i) {
+        work[i] = (double)(1000 + i);
+    }
+}
+
+/* The _ws result must equal the plain one exactly (same code, other scratch). */
+static void same(const char *what, int c, const double ws[], const double plain[], int n, int len)
+{
+    int i;
+    int ok = 1;
+    for (i = 0; i < n; ++i) {
+        ok = ok && ws[i] == plain[i];
+    }
+    for (i = len; i < len + GUARD; ++i) {
+        ok = ok && work[i] == (double)(1000 + i);
+    }
+    if (ok) {
+        ++passed;
+    } else {
+        ++failed;
+        printf("FAIL %s [case %d]: the _ws variant differs from the plain one or wrote past "
+               "its scratch\n", what, c);
+    }
+}
+
 int main(void)
 {
     int c;
@@ -745,6 +782,60 @@ int main(void)
             }
         }
         check("pose", c, pose, g_pose[c], HANGING_TAPER_NSEG * 9, scale_pose);
+        {
+            double x[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double y[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double z[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double xb[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double xc[HANGING_TAPER_NQ * HANGING_TAPER_NQ];
+            double xg[HANGING_TAPER_NQ];
+            double ya[HANGING_TAPER_NQ * 3 + 1];
+            double jx[3 * HANGING_TAPER_NQ];
+            double jy[3 * HANGING_TAPER_NQ];
+            double w;
+            hanging_taper_inertia(q, x);
+            poison(HANGING_TAPER_INERTIA_WORK);
+            hanging_taper_inertia_ws(q, y, work);
+            same("inertia", c, y, x, HANGING_TAPER_NQ * HANGING_TAPER_NQ, HANGING_TAPER_INERTIA_WORK);
+            hanging_taper_coriolis(q, qd, x);
+            poison(HANGING_TAPER_CORIOLIS_WORK);
+            hanging_taper_coriolis_ws(q, qd, y, work);
+            same("coriolis", c, y, x, HANGING_TAPER_NQ * HANGING_TAPER_NQ, HANGING_TAPER_CORIOLIS_WORK);
+            hanging_taper_gravity(q, x);
+            poison(HANGING_TAPER_GRAVITY_WORK);
+            hanging_taper_gravity_ws(q, y, work);
+            same("gravity", c, y, x, HANGING_TAPER_NQ, HANGING_TAPER_GRAVITY_WORK);
+            hanging_taper_actuation(q, a);
+            poison(HANGING_TAPER_ACTUATION_WORK);
+            hanging_taper_actuation_ws(q, ya, work);
+            same("actuation", c, ya, a, HANGING_TAPER_NQ * 3, HANGING_TAPER_ACTUATION_WORK);
+            hanging_taper_tip_jacobian(q, jx);
+            poison(HANGING_TAPER_TIP_JACOBIAN_WORK);
+            hanging_taper_tip_jacobian_ws(q, jy, work);
+            same("tip_jacobian", c, jy, jx, 3 * HANGING_TAPER_NQ, HANGING_TAPER_TIP_JACOBIAN_WORK);
+            hanging_taper_terms(q, qd, x, y, z);
+            poison(HANGING_TAPER_TERMS_WORK);
+            hanging_taper_terms_ws(q, qd, xb, xc, xg, work);
+            same("terms, B", c, xb, x, HANGING_TAPER_NQ * HANGING_TAPER_NQ, HANGING_TAPER_TERMS_WORK);
+            same("terms, C", c, xc, y, HANGING_TAPER_NQ * HANGING_TAPER_NQ, HANGING_TAPER_TERMS_WORK);
+            same("terms, G", c, xg, z, HANGING_TAPER_NQ, HANGING_TAPER_TERMS_WORK);
+            e = hanging_taper_kinetic_energy(q, qd);
+            poison(HANGING_TAPER_KINETIC_ENERGY_WORK);
+            w = hanging_taper_kinetic_energy_ws(q, qd, work);
+            same("kinetic_energy", c, &w, &e, 1, HANGING_TAPER_KINETIC_ENERGY_WORK);
+            e = hanging_taper_potential_energy(q);
+            poison(HANGING_TAPER_POTENTIAL_ENERGY_WORK);
+            w = hanging_taper_potential_energy_ws(q, work);
+            same("potential_energy", c, &w, &e, 1, HANGING_TAPER_POTENTIAL_ENERGY_WORK);
+            hanging_taper_pose(q, HANGING_TAPER_NSEG - 1, 0.37, jx);
+            poison(HANGING_TAPER_POSE_WORK);
+            hanging_taper_pose_ws(q, HANGING_TAPER_NSEG - 1, 0.37, jy, work);
+            same("pose", c, jy, jx, 3, HANGING_TAPER_POSE_WORK);
+            status = hanging_taper_forward_dynamics(q, qd, u, x);
+            poison(HANGING_TAPER_FORWARD_DYNAMICS_WORK);
+            expect(hanging_taper_forward_dynamics_ws(q, qd, u, y, work) == status, "forward_dynamics_ws status");
+            same("forward_dynamics", c, y, x, HANGING_TAPER_NQ, HANGING_TAPER_FORWARD_DYNAMICS_WORK);
+        }
         status = hanging_taper_forward_dynamics(q, qd, u, qdd);
         expect(status == HANGING_TAPER_OK, "forward dynamics status");
         for (i = 0; i < HANGING_TAPER_NQ; ++i) {

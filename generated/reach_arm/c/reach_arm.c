@@ -14,6 +14,9 @@
  * combinations of moments ("kernels") from one banded constant table. Long
  * bodies are split into static parts that share one scratch array t[] (a slot is
  * reused once its temporary is dead), which keeps compile time roughly linear.
+ * Each function that takes q does its work in a _ws form, whose moment, kernel and
+ * temporary arrays are carved out of the caller's work[]; the plain form declares
+ * that scratch on its own stack and calls it.
  */
 #include "reach_arm.h"
 
@@ -2112,6 +2115,92 @@ static void reach_arm_kernels(const unsigned short uses[], int count, const doub
     }
 }
 
+
+/* K, n x n, row-major.
+ * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
+void reach_arm_stiffness(double K[])
+{
+    K[0] = 0.00144;
+    K[1] = 0.00072;
+    K[2] = 0.00048;
+    K[3] = 0.0;
+    K[4] = 0.0;
+    K[5] = 0.0;
+    K[6] = 0.00072;
+    K[7] = 0.00048;
+    K[8] = 0.00036;
+    K[9] = 0.0;
+    K[10] = 0.0;
+    K[11] = 0.0;
+    K[12] = 0.00048;
+    K[13] = 0.00036;
+    K[14] = 0.000288;
+    K[15] = 0.0;
+    K[16] = 0.0;
+    K[17] = 0.0;
+    K[18] = 0.0;
+    K[19] = 0.0;
+    K[20] = 0.0;
+    K[21] = 0.0008;
+    K[22] = 0.0004;
+    K[23] = 0.0002666666666666667;
+    K[24] = 0.0;
+    K[25] = 0.0;
+    K[26] = 0.0;
+    K[27] = 0.0004;
+    K[28] = 0.0002666666666666667;
+    K[29] = 0.0002;
+    K[30] = 0.0;
+    K[31] = 0.0;
+    K[32] = 0.0;
+    K[33] = 0.0002666666666666667;
+    K[34] = 0.0002;
+    K[35] = 0.00016;
+}
+
+
+/* D, n x n, row-major.
+ * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
+void reach_arm_damping(double D[])
+{
+    D[0] = 2.4e-5;
+    D[1] = 1.2e-5;
+    D[2] = 8e-6;
+    D[3] = 0.0;
+    D[4] = 0.0;
+    D[5] = 0.0;
+    D[6] = 1.2e-5;
+    D[7] = 8e-6;
+    D[8] = 6e-6;
+    D[9] = 0.0;
+    D[10] = 0.0;
+    D[11] = 0.0;
+    D[12] = 8e-6;
+    D[13] = 6e-6;
+    D[14] = 4.8e-6;
+    D[15] = 0.0;
+    D[16] = 0.0;
+    D[17] = 0.0;
+    D[18] = 0.0;
+    D[19] = 0.0;
+    D[20] = 0.0;
+    D[21] = 1.5e-5;
+    D[22] = 7.5e-6;
+    D[23] = 5e-6;
+    D[24] = 0.0;
+    D[25] = 0.0;
+    D[26] = 0.0;
+    D[27] = 7.5e-6;
+    D[28] = 5e-6;
+    D[29] = 3.75e-6;
+    D[30] = 0.0;
+    D[31] = 0.0;
+    D[32] = 0.0;
+    D[33] = 5e-6;
+    D[34] = 3.75e-6;
+    D[35] = 3e-6;
+}
+
 /* Kernels of reach_arm_inertia: pairs (row, moment base). */
 static const unsigned short reach_arm_inertia_rows[1112] = {
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0, 6, 30,
@@ -3332,12 +3421,12 @@ static void reach_arm_inertia_part6(const double q[], const double kern[], doubl
 }
 
 
-/* B(q), n x n, row-major.
+/* B(q), n x n, row-major. Scratch: work[0 .. 845) (see REACH_ARM_WORK_LEN).
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_inertia(const double q[], double B[])
+void reach_arm_inertia_ws(const double q[], double B[], double work[])
 {
-    double nu[REACH_ARM_NU_LEN];
-    double kern[556];
+    double *const nu = &work[0]; /* 120 */
+    double *const kern = &work[120]; /* 556 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -3347,7 +3436,7 @@ void reach_arm_inertia(const double q[], double B[])
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_inertia_rows, 556, nu, kern);
-    double t[169];
+    double *const t = &work[676]; /* 169 */
     reach_arm_inertia_part1(q, kern, t);
     reach_arm_inertia_part2(q, nu, kern, t);
     reach_arm_inertia_part3(q, kern, t);
@@ -3396,13 +3485,12 @@ void reach_arm_inertia(const double q[], double B[])
 }
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G).
- * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_coriolis(const double q[], const double qd[], double C[])
+/* reach_arm_inertia_ws with its scratch on this function's stack.
+ * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
+void reach_arm_inertia(const double q[], double B[])
 {
-    double B[REACH_ARM_NQ * REACH_ARM_NQ];
-    double G[REACH_ARM_NQ];
-    reach_arm_terms(q, qd, B, C, G);
+    double work[845];
+    reach_arm_inertia_ws(q, B, work);
 }
 
 /* Kernels of reach_arm_gravity: pairs (row, moment base). */
@@ -3419,12 +3507,12 @@ static const unsigned short reach_arm_gravity_rows[212] = {
     356, 90, 357, 60, 358, 90, 359, 60
 };
 
-/* G(q) = dU_g/dq.
+/* G(q) = dU_g/dq. Scratch: work[0 .. 226) (see REACH_ARM_WORK_LEN).
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_gravity(const double q[], double G[])
+void reach_arm_gravity_ws(const double q[], double G[], double work[])
 {
-    double nu[REACH_ARM_NU_LEN];
-    double kern[106];
+    double *const nu = &work[0]; /* 120 */
+    double *const kern = &work[120]; /* 106 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -3613,96 +3701,20 @@ void reach_arm_gravity(const double q[], double G[])
 }
 
 
-/* K, n x n, row-major.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_stiffness(double K[])
+/* reach_arm_gravity_ws with its scratch on this function's stack.
+ * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
+void reach_arm_gravity(const double q[], double G[])
 {
-    K[0] = 0.00144;
-    K[1] = 0.00072;
-    K[2] = 0.00048;
-    K[3] = 0.0;
-    K[4] = 0.0;
-    K[5] = 0.0;
-    K[6] = 0.00072;
-    K[7] = 0.00048;
-    K[8] = 0.00036;
-    K[9] = 0.0;
-    K[10] = 0.0;
-    K[11] = 0.0;
-    K[12] = 0.00048;
-    K[13] = 0.00036;
-    K[14] = 0.000288;
-    K[15] = 0.0;
-    K[16] = 0.0;
-    K[17] = 0.0;
-    K[18] = 0.0;
-    K[19] = 0.0;
-    K[20] = 0.0;
-    K[21] = 0.0008;
-    K[22] = 0.0004;
-    K[23] = 0.0002666666666666667;
-    K[24] = 0.0;
-    K[25] = 0.0;
-    K[26] = 0.0;
-    K[27] = 0.0004;
-    K[28] = 0.0002666666666666667;
-    K[29] = 0.0002;
-    K[30] = 0.0;
-    K[31] = 0.0;
-    K[32] = 0.0;
-    K[33] = 0.0002666666666666667;
-    K[34] = 0.0002;
-    K[35] = 0.00016;
+    double work[226];
+    reach_arm_gravity_ws(q, G, work);
 }
 
 
-/* D, n x n, row-major.
+/* A(q), n x k, row-major. Scratch: work[0 .. 0) (see REACH_ARM_WORK_LEN).
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_damping(double D[])
+void reach_arm_actuation_ws(const double q[], double A[], double work[])
 {
-    D[0] = 2.4e-5;
-    D[1] = 1.2e-5;
-    D[2] = 8e-6;
-    D[3] = 0.0;
-    D[4] = 0.0;
-    D[5] = 0.0;
-    D[6] = 1.2e-5;
-    D[7] = 8e-6;
-    D[8] = 6e-6;
-    D[9] = 0.0;
-    D[10] = 0.0;
-    D[11] = 0.0;
-    D[12] = 8e-6;
-    D[13] = 6e-6;
-    D[14] = 4.8e-6;
-    D[15] = 0.0;
-    D[16] = 0.0;
-    D[17] = 0.0;
-    D[18] = 0.0;
-    D[19] = 0.0;
-    D[20] = 0.0;
-    D[21] = 1.5e-5;
-    D[22] = 7.5e-6;
-    D[23] = 5e-6;
-    D[24] = 0.0;
-    D[25] = 0.0;
-    D[26] = 0.0;
-    D[27] = 7.5e-6;
-    D[28] = 5e-6;
-    D[29] = 3.75e-6;
-    D[30] = 0.0;
-    D[31] = 0.0;
-    D[32] = 0.0;
-    D[33] = 5e-6;
-    D[34] = 3.75e-6;
-    D[35] = 3e-6;
-}
-
-
-/* A(q), n x k, row-major.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_actuation(const double q[], double A[])
-{
+    (void)work;
     (void)q;
     A[0] = 0.0012;
     A[1] = -0.0012;
@@ -3730,6 +3742,14 @@ void reach_arm_actuation(const double q[], double A[])
     A[23] = 0.0;
 }
 
+
+/* reach_arm_actuation_ws with its scratch on this function's stack.
+ * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
+void reach_arm_actuation(const double q[], double A[])
+{
+    reach_arm_actuation_ws(q, A, 0); /* needs no scratch */
+}
+
 /* Kernels of reach_arm_tip_jacobian: pairs (row, moment base). */
 static const unsigned short reach_arm_tip_jacobian_rows[116] = {
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0, 6, 30,
@@ -3739,12 +3759,12 @@ static const unsigned short reach_arm_tip_jacobian_rows[116] = {
     348, 60, 348, 90, 355, 60, 356, 90, 357, 60, 358, 90, 359, 60
 };
 
-/* Tip Jacobian, 3 x n, row-major.
+/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. 178) (see REACH_ARM_WORK_LEN).
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_tip_jacobian(const double q[], double J[])
+void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[])
 {
-    double nu[REACH_ARM_NU_LEN];
-    double kern[58];
+    double *const nu = &work[0]; /* 120 */
+    double *const kern = &work[120]; /* 58 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -3883,23 +3903,12 @@ void reach_arm_tip_jacobian(const double q[], double J[])
 }
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function.
- * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
-double reach_arm_kinetic_energy(const double q[], const double qd[])
+/* reach_arm_tip_jacobian_ws with its scratch on this function's stack.
+ * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
+void reach_arm_tip_jacobian(const double q[], double J[])
 {
-    double B[REACH_ARM_NQ * REACH_ARM_NQ];
-    double t = 0.0;
-    int i;
-    int k;
-    reach_arm_inertia(q, B);
-    for (i = 0; i < REACH_ARM_NQ; ++i) {
-        double bqd = 0.0;
-        for (k = 0; k < REACH_ARM_NQ; ++k) {
-            bqd += B[i * REACH_ARM_NQ + k] * qd[k];
-        }
-        t += qd[i] * bqd;
-    }
-    return 0.5 * t;
+    double work[178];
+    reach_arm_tip_jacobian_ws(q, J, work);
 }
 
 /* Kernels of reach_arm_potential_energy: pairs (row, moment base). */
@@ -3913,12 +3922,12 @@ static const unsigned short reach_arm_potential_energy_rows[150] = {
     224, 60, 224, 90, 225, 60, 225, 90, 226, 60, 226, 90
 };
 
-/* U = U_g + 1/2 q^T K q.
+/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. 195) (see REACH_ARM_WORK_LEN).
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
-double reach_arm_potential_energy(const double q[])
+double reach_arm_potential_energy_ws(const double q[], double work[])
 {
-    double nu[REACH_ARM_NU_LEN];
-    double kern[75];
+    double *const nu = &work[0]; /* 120 */
+    double *const kern = &work[120]; /* 75 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -4005,6 +4014,15 @@ double reach_arm_potential_energy(const double q[])
         + t30 + t29 + t30 + 0.00016 * t15;
     return 0.35316 * t31 + 9.81 * (0.025 * t32 * cphi[0] + 0.025 * t33 * sphi[0])
         + 0.24525 * t12 + 0.0981 * (t12 + t34 * cphi[0] + t35 * sphi[0]) + 0.5 * t36;
+}
+
+
+/* reach_arm_potential_energy_ws with its scratch on this function's stack.
+ * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
+double reach_arm_potential_energy(const double q[])
+{
+    double work[195];
+    return reach_arm_potential_energy_ws(q, work);
 }
 
 /* Kernels of reach_arm_terms: pairs (row, moment base). */
@@ -6225,12 +6243,12 @@ static void reach_arm_terms_part13(const double q[], const double qd[], const do
 }
 
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call.
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. 1220) (see REACH_ARM_WORK_LEN).
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_terms(const double q[], const double qd[], double B[], double C[], double G[])
+void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
 {
-    double nu[REACH_ARM_NU_LEN];
-    double kern[710];
+    double *const nu = &work[0]; /* 120 */
+    double *const kern = &work[120]; /* 710 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -6240,7 +6258,7 @@ void reach_arm_terms(const double q[], const double qd[], double B[], double C[]
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_terms_rows, 710, nu, kern);
-    double t[390];
+    double *const t = &work[830]; /* 390 */
     reach_arm_terms_part1(q, qd, kern, t);
     reach_arm_terms_part2(q, kern, t);
     reach_arm_terms_part3(q, qd, kern, t);
@@ -6371,11 +6389,68 @@ void reach_arm_terms(const double q[], const double qd[], double B[], double C[]
 }
 
 
+/* reach_arm_terms_ws with its scratch on this function's stack.
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
+void reach_arm_terms(const double q[], const double qd[], double B[], double C[], double G[])
+{
+    double work[1220];
+    reach_arm_terms_ws(q, qd, B, C, G, work);
+}
+
+
+/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. 881) (see REACH_ARM_WORK_LEN).
+ * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
+double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[])
+{
+    double *const B = &work[0]; /* 36 */
+    double t = 0.0;
+    int i;
+    int k;
+    reach_arm_inertia_ws(q, B, &work[36]);
+    for (i = 0; i < REACH_ARM_NQ; ++i) {
+        double bqd = 0.0;
+        for (k = 0; k < REACH_ARM_NQ; ++k) {
+            bqd += B[i * REACH_ARM_NQ + k] * qd[k];
+        }
+        t += qd[i] * bqd;
+    }
+    return 0.5 * t;
+}
+
+
+/* reach_arm_kinetic_energy_ws with its scratch on this function's stack.
+ * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
+double reach_arm_kinetic_energy(const double q[], const double qd[])
+{
+    double work[881];
+    return reach_arm_kinetic_energy_ws(q, qd, work);
+}
+
+
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. 1262) (see REACH_ARM_WORK_LEN).
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
+void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[])
+{
+    double *const B = &work[0]; /* 36 */
+    double *const G = &work[36]; /* 6 */
+    reach_arm_terms_ws(q, qd, B, C, G, &work[42]);
+}
+
+
+/* reach_arm_coriolis_ws with its scratch on this function's stack.
+ * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
+void reach_arm_coriolis(const double q[], const double qd[], double C[])
+{
+    double work[1262];
+    reach_arm_coriolis_ws(q, qd, C, work);
+}
+
+
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
  * Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig. */
-static void reach_arm_pose_segment0(const double q[], double sigma, double pose[3])
+static void reach_arm_pose_segment0(const double q[], double sigma, double pose[3], double work[])
 {
-    double pnu[26];
+    double *const pnu = &work[0]; /* 26 */
     reach_arm_moments(0.12 * q[0] * sigma, 13, &pnu[0], &pnu[13]);
     const double t0 = q[1] * q[1];
     const double t1 = q[1] * q[2];
@@ -6741,10 +6816,10 @@ static void reach_arm_pose_segment1_part2(const double q[], double sigma, const 
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
  * Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig. */
-static void reach_arm_pose_segment1(const double q[], double sigma, double pose[3])
+static void reach_arm_pose_segment1(const double q[], double sigma, double pose[3], double work[])
 {
-    double nu[REACH_ARM_NU_LEN];
-    double pnu[26];
+    double *const nu = &work[0]; /* 120 */
+    double *const pnu = &work[120]; /* 26 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -6753,7 +6828,7 @@ static void reach_arm_pose_segment1(const double q[], double sigma, double pose[
     phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    double t[61];
+    double *const t = &work[146]; /* 61 */
     reach_arm_pose_segment1_part1(q, sigma, nu, pnu, t);
     reach_arm_pose_segment1_part2(q, sigma, nu, pnu, t);
     pose[0] = 0.12 * nu[0]
@@ -6776,7 +6851,8 @@ static void reach_arm_pose_segment1(const double q[], double sigma, double pose[
         + 0.03333333333333333 * t[23] * q[5];
 }
 
-void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
+void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[])
 {
     if (segment < 0 || segment >= REACH_ARM_NSEG || !(sigma >= 0.0 && sigma <= 1.0)) {
         pose[0] = (double)NAN;
@@ -6785,25 +6861,32 @@ void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
         return;
     }
     switch (segment) {
-    case 0: reach_arm_pose_segment0(q, sigma, pose); break;
-    case 1: reach_arm_pose_segment1(q, sigma, pose); break;
+    case 0: reach_arm_pose_segment0(q, sigma, pose, work); break;
+    case 1: reach_arm_pose_segment1(q, sigma, pose, work); break;
     default: break;
     }
 }
 
-int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[])
+void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
+{
+    double work[207];
+    reach_arm_pose_ws(q, segment, sigma, pose, work);
+}
+
+int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
-     * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place. */
-    double B[REACH_ARM_NQ * REACH_ARM_NQ];
-    double C[REACH_ARM_NQ * REACH_ARM_NQ];
-    double G[REACH_ARM_NQ];
-    double K[REACH_ARM_NQ * REACH_ARM_NQ];
-    double D[REACH_ARM_NQ * REACH_ARM_NQ];
-    double A[REACH_ARM_NQ * REACH_ARM_NU];
-    double m[REACH_ARM_NQ * (REACH_ARM_NQ + 1) / 2];
-    double f[REACH_ARM_NQ];
+     * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
+     * All of them, and the scratch of terms and actuation, live in work[0 .. 1421). */
+    double *const B = &work[0];
+    double *const C = &work[36];
+    double *const G = &work[72];
+    double *const K = &work[78];
+    double *const D = &work[114];
+    double *const A = &work[150];
+    double *const m = &work[174];
+    double *const f = &work[195];
     int i;
     int j;
     int k;
@@ -6822,10 +6905,10 @@ int reach_arm_forward_dynamics(const double q[], const double qd[], const double
     if (status != REACH_ARM_OK) {
         return status;
     }
-    reach_arm_terms(q, qd, B, C, G);
+    reach_arm_terms_ws(q, qd, B, C, G, &work[201]);
     reach_arm_stiffness(K);
     reach_arm_damping(D);
-    reach_arm_actuation(q, A);
+    reach_arm_actuation_ws(q, A, &work[201]);
     for (i = 0; i < REACH_ARM_NQ; ++i) {
         double s = -G[i];
         for (k = 0; k < REACH_ARM_NQ; ++k) {
@@ -6884,4 +6967,11 @@ int reach_arm_forward_dynamics(const double q[], const double qd[], const double
         qdd[i] = f[i];
     }
     return REACH_ARM_OK;
+}
+
+int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
+    double qdd[])
+{
+    double work[1421];
+    return reach_arm_forward_dynamics_ws(q, qd, u, qdd, work);
 }

@@ -136,6 +136,41 @@ double reach_arm_potential_energy(const double q[]);
 int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
+/*
+ * Caller-provided scratch. Every function above that takes q has a _ws variant with
+ * one more argument, work: scratch that the caller owns, at least the function's
+ * REACH_ARM_<FUNCTION>_WORK reals (REACH_ARM_WORK_LEN fits them all).
+ * It need not be initialised, its contents afterwards are unspecified, and two calls
+ * running at once (threads, interrupts) need two arrays. The plain functions declare
+ * the same scratch on their own stack and return the same values; use the _ws
+ * variants where the stack is small (an RTOS task, an interrupt handler).
+ */
+#define REACH_ARM_INERTIA_WORK 845
+#define REACH_ARM_GRAVITY_WORK 226
+#define REACH_ARM_ACTUATION_WORK 1
+#define REACH_ARM_TIP_JACOBIAN_WORK 178
+#define REACH_ARM_POTENTIAL_ENERGY_WORK 195
+#define REACH_ARM_TERMS_WORK 1220
+#define REACH_ARM_KINETIC_ENERGY_WORK 881
+#define REACH_ARM_CORIOLIS_WORK 1262
+#define REACH_ARM_POSE_WORK 207
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 1421
+#define REACH_ARM_WORK_LEN 1421
+
+void reach_arm_inertia_ws(const double q[], double B[], double work[]);
+void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
+void reach_arm_gravity_ws(const double q[], double G[], double work[]);
+void reach_arm_actuation_ws(const double q[], double A[], double work[]);
+void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[]);
+void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[]);
+void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[],
+    double G[], double work[]);
+double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[]);
+double reach_arm_potential_energy_ws(const double q[], double work[]);
+int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[]);
+
 #ifdef __cplusplus
 }
 #endif

@@ -542,6 +542,43 @@ static void expect(int ok, const char *what)
     }
 }
 
+/* Scratch for the _ws checks: NaN where a function may work (so that reading it before
+ * writing shows in the result), then a guard band that must come back untouched (so
+ * that a function's REACH_ARM_<FUNCTION>_WORK is enough). */
+#define GUARD 8
+static double work[REACH_ARM_WORK_LEN + GUARD];
+
+static void poison(int len)
+{
+    int i;
+    for (i = 0; i < len; ++i) {
+        work[i] = (double)NAN;
+    }
+    for (i = len; i < len + GUARD; ++i) {
+        work[i] = (double)(1000 + i);
+    }
+}
+
+/* The _ws result must equal the plain one exactly (same code, other scratch). */
+static void same(const char *what, int c, const double ws[], const double plain[], int n, int len)
+{
+    int i;
+    int ok = 1;
+    for (i = 0; i < n; ++i) {
+        ok = ok && ws[i] == plain[i];
+    }
+    for (i = len; i < len + GUARD; ++i) {
+        ok = ok && work[i] == (double)(1000 + i);
+    }
+    if (ok) {
+        ++passed;
+    } else {
+        ++failed;
+        printf("FAIL %s [case %d]: the _ws variant differs from the plain one or wrote past "
+               "its scratch\n", what, c);
+    }
+}
+
 int main(void)
 {
     int c;
@@ -603,6 +640,60 @@ int main(void)
             }
         }
         check("pose", c, pose, g_pose[c], REACH_ARM_NSEG * 9, scale_pose);
+        {
+            double x[REACH_ARM_NQ * REACH_ARM_NQ];
+            double y[REACH_ARM_NQ * REACH_ARM_NQ];
+            double z[REACH_ARM_NQ * REACH_ARM_NQ];
+            double xb[REACH_ARM_NQ * REACH_ARM_NQ];
+            double xc[REACH_ARM_NQ * REACH_ARM_NQ];
+            double xg[REACH_ARM_NQ];
+            double ya[REACH_ARM_NQ * 4 + 1];
+            double jx[3 * REACH_ARM_NQ];
+            double jy[3 * REACH_ARM_NQ];
+            double w;
+            reach_arm_inertia(q, x);
+            poison(REACH_ARM_INERTIA_WORK);
+            reach_arm_inertia_ws(q, y, work);
+            same("inertia", c, y, x, REACH_ARM_NQ * REACH_ARM_NQ, REACH_ARM_INERTIA_WORK);
+            reach_arm_coriolis(q, qd, x);
+            poison(REACH_ARM_CORIOLIS_WORK);
+            reach_arm_coriolis_ws(q, qd, y, work);
+            same("coriolis", c, y, x, REACH_ARM_NQ * REACH_ARM_NQ, REACH_ARM_CORIOLIS_WORK);
+            reach_arm_gravity(q, x);
+            poison(REACH_ARM_GRAVITY_WORK);
+            reach_arm_gravity_ws(q, y, work);
+            same("gravity", c, y, x, REACH_ARM_NQ, REACH_ARM_GRAVITY_WORK);
+            reach_arm_actuation(q, a);
+            poison(REACH_ARM_ACTUATION_WORK);
+            reach_arm_actuation_ws(q, ya, work);
+            same("actuation", c, ya, a, REACH_ARM_NQ * 4, REACH_ARM_ACTUATION_WORK);
+            reach_arm_tip_jacobian(q, jx);
+            poison(REACH_ARM_TIP_JACOBIAN_WORK);
+            reach_arm_tip_jacobian_ws(q, jy, work);
+            same("tip_jacobian", c, jy, jx, 3 * REACH_ARM_NQ, REACH_ARM_TIP_JACOBIAN_WORK);
+            reach_arm_terms(q, qd, x, y, z);
+            poison(REACH_ARM_TERMS_WORK);
+            reach_arm_terms_ws(q, qd, xb, xc, xg, work);
+            same("terms, B", c, xb, x, REACH_ARM_NQ * REACH_ARM_NQ, REACH_ARM_TERMS_WORK);
+            same("terms, C", c, xc, y, REACH_ARM_NQ * REACH_ARM_NQ, REACH_ARM_TERMS_WORK);
+            same("terms, G", c, xg, z, REACH_ARM_NQ, REACH_ARM_TERMS_WORK);
+            e = reach_arm_kinetic_energy(q, qd);
+            poison(REACH_ARM_KINETIC_ENERGY_WORK);
+            w = reach_arm_kinetic_energy_ws(q, qd, work);
+            same("kinetic_energy", c, &w, &e, 1, REACH_ARM_KINETIC_ENERGY_WORK);
+            e = reach_arm_potential_energy(q);
+            poison(REACH_ARM_POTENTIAL_ENERGY_WORK);
+            w = reach_arm_potential_energy_ws(q, work);
+            same("potential_energy", c, &w, &e, 1, REACH_ARM_POTENTIAL_ENERGY_WORK);
+            reach_arm_pose(q, REACH_ARM_NSEG - 1, 0.37, jx);
+            poison(REACH_ARM_POSE_WORK);
+            reach_arm_pose_ws(q, REACH_ARM_NSEG - 1, 0.37, jy, work);
+            same("pose", c, jy, jx, 3, REACH_ARM_POSE_WORK);
+            status = reach_arm_forward_dynamics(q, qd, u, x);
+            poison(REACH_ARM_FORWARD_DYNAMICS_WORK);
+            expect(reach_arm_forward_dynamics_ws(q, qd, u, y, work) == status, "forward_dynamics_ws status");
+            same("forward_dynamics", c, y, x, REACH_ARM_NQ, REACH_ARM_FORWARD_DYNAMICS_WORK);
+        }
         status = reach_arm_forward_dynamics(q, qd, u, qdd);
         expect(status == REACH_ARM_OK, "forward dynamics status");
         for (i = 0; i < REACH_ARM_NQ; ++i) {

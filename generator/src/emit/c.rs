@@ -84,14 +84,16 @@ impl Printer<'_> {
         }
     }
 
-    /// The body of one function: declarations and preamble, temporaries, outputs.
+    /// The body of one function's `_ws` form: preamble, temporaries, outputs, with the
+    /// moment, kernel and temporary arrays carved out of the caller's `work`. Returns
+    /// the constant tables it reads, the body, and the scratch length it needs.
     fn body(
         &self,
         func: &Func,
         fname: &str,
         pose_seg: Option<usize>,
         target: &dyn Fn(usize) -> String,
-    ) -> (String, String) {
+    ) -> (String, String, usize) {
         let b = &func.block;
         let plan = self.plan;
         let r = self.real();
@@ -119,18 +121,22 @@ impl Printer<'_> {
         };
         let mut out = String::new();
         let mut rows = String::new();
+        let mut used = 0usize;
+        let mut carve = |out: &mut String, what: &str, len: usize| {
+            out.push_str(&format!(
+                "    {r} *const {what} = &work[{used}]; /* {len} */\n"
+            ));
+            used += len;
+        };
         let needs_nu = b.nu_count.iter().any(|&c| c > 0);
         if needs_nu {
-            out.push_str(&format!(
-                "    {r} nu[{}_NU_LEN];\n",
-                self.name.to_uppercase()
-            ));
+            carve(&mut out, "nu", plan.layout.len.max(1));
         }
         if pose_count > 0 {
-            out.push_str(&format!("    {r} pnu[{}];\n", 2 * pose_count));
+            carve(&mut out, "pnu", 2 * pose_count);
         }
         if !b.kernels.is_empty() {
-            out.push_str(&format!("    {r} kern[{}];\n", b.kernels.len()));
+            carve(&mut out, "kern", b.kernels.len());
             let items = use_pairs(&b.kernels);
             let max = use_max(plan);
             rows = format!(
@@ -192,7 +198,7 @@ impl Printer<'_> {
             out.push_str("    (void)q;\n");
         }
         if split {
-            out.push_str(&format!("    {r} t[{slot_count}];\n"));
+            carve(&mut out, "t", slot_count);
             let (defs, calls) = self.parts(b, fname, &syn, &style);
             rows.push_str(&defs);
             out.push_str(&calls);
@@ -200,7 +206,7 @@ impl Printer<'_> {
             out.push_str(&temporaries(b, &syn, &style));
         }
         out.push_str(&outputs(b, &syn, &style, target));
-        (rows, out)
+        (rows, out, used)
     }
 
     /// A long body as static parts of at most [`PART_STATEMENTS`] statements each,
@@ -263,6 +269,49 @@ impl Printer<'_> {
     }
 }
 
+/// Where forward dynamics keeps its arrays in the caller's scratch: offsets of
+/// `B, C, G, K, D, A, m, f` and of the scratch it lends to `terms` and `actuation`.
+#[derive(Serialize)]
+struct ForwardLayout {
+    b: usize,
+    c: usize,
+    g: usize,
+    k: usize,
+    d: usize,
+    a: usize,
+    m: usize,
+    f: usize,
+    rest: usize,
+    len: usize,
+}
+
+impl ForwardLayout {
+    fn new(n: usize, k: usize, callee: usize) -> ForwardLayout {
+        let nn = n * n;
+        let b = 0;
+        let c = b + nn;
+        let g = c + nn;
+        let kk = g + n;
+        let d = kk + nn;
+        let a = d + nn;
+        let m = a + n * k;
+        let f = m + n * (n + 1) / 2;
+        let rest = f + n;
+        ForwardLayout {
+            b,
+            c,
+            g,
+            k: kk,
+            d,
+            a,
+            m,
+            f,
+            rest,
+            len: rest + callee,
+        }
+    }
+}
+
 /// Longest straight-line body printed as one function; longer ones become parts.
 const PART_STATEMENTS: usize = 64;
 
@@ -285,84 +334,129 @@ pub fn emit(
     let ops_line = |f: &Func| format!("Operations: {}.", f.ops);
 
     let mut funcs: Vec<CFunc> = Vec::new();
-    let mut push = |fname: &str,
-                    formula: &str,
-                    func: &Func,
-                    signature: String,
-                    target: &dyn Fn(usize) -> String,
-                    _ret: bool| {
-        let (rows, body) = p.body(func, fname, None, target);
+    let mut constant_funcs: Vec<CFunc> = Vec::new();
+    // Scratch of every `_ws` function, by name (for the header and the wrappers).
+    let mut work: Vec<(String, usize)> = Vec::new();
+    // One public function: its `_ws` form, which does the work in the caller's scratch,
+    // and the plain form, which declares that scratch on its stack and calls it.
+    let mut public = |fname: &str,
+                      formula: &str,
+                      ops: String,
+                      ret: &str,
+                      params: &[(String, &str)],
+                      rows: String,
+                      body: String,
+                      len: usize| {
+        let decls: Vec<&str> = params.iter().map(|(d, _)| d.as_str()).collect();
+        let args: Vec<&str> = params.iter().map(|(_, a)| *a).collect();
+        let ret_kw = if ret == "void" { "" } else { "return " };
+        let body = if len == 0 {
+            format!("    (void)work;\n{body}")
+        } else {
+            body
+        };
         funcs.push(CFunc {
+            rows,
+            formula: format!("{formula} Scratch: work[0 .. {len}) (see {up}_WORK_LEN)."),
+            ops: ops.clone(),
+            signature: format!("{ret} {name}_{fname}_ws({}, {r} work[])", decls.join(", ")),
+            body,
+        });
+        let call = if len == 0 {
+            format!(
+                "    {ret_kw}{name}_{fname}_ws({}, 0); /* needs no scratch */\n",
+                args.join(", ")
+            )
+        } else {
+            format!(
+                "    {r} work[{len}];\n    {ret_kw}{name}_{fname}_ws({}, work);\n",
+                args.join(", ")
+            )
+        };
+        funcs.push(CFunc {
+            rows: String::new(),
+            formula: format!("{name}_{fname}_ws with its scratch on this function's stack."),
+            ops,
+            signature: format!("{ret} {name}_{fname}({})", decls.join(", ")),
+            body: call,
+        });
+        work.push((fname.to_string(), len));
+    };
+    let q = (format!("const {r} q[]"), "q");
+    let qd = (format!("const {r} qd[]"), "qd");
+    let out = |arr: &'static str| (format!("{r} {arr}[]"), arr);
+    let flat = |arr: &'static str| move |i: usize| format!("{arr}[{i}]");
+    let mut generated = |fname: &str,
+                         formula: &str,
+                         func: &Func,
+                         ret: &str,
+                         params: &[(String, &str)],
+                         target: &dyn Fn(usize) -> String| {
+        let (rows, body, len) = p.body(func, fname, None, target);
+        public(fname, formula, ops_line(func), ret, params, rows, body, len);
+        len
+    };
+    // K and D are constants: no scratch, no `_ws` form.
+    for (fname, formula, func, arr) in [
+        ("stiffness", "K, n x n, row-major.", &plan.stiffness, "K"),
+        ("damping", "D, n x n, row-major.", &plan.damping, "D"),
+    ] {
+        let (rows, body, _) = p.body(func, fname, None, &flat(arr));
+        constant_funcs.push(CFunc {
             rows,
             formula: formula.into(),
             ops: ops_line(func),
-            signature,
+            signature: format!("void {name}_{fname}({r} {arr}[])"),
             body,
         });
-    };
-    let flat = |arr: &'static str| move |i: usize| format!("{arr}[{i}]");
-    push(
+    }
+    let inertia_work = generated(
         "inertia",
         "B(q), n x n, row-major.",
         &plan.inertia,
-        format!("void {name}_inertia(const {r} q[], {r} B[])"),
+        "void",
+        &[q.clone(), out("B")],
         &flat("B"),
-        false,
     );
-    push(
+    generated(
         "gravity",
         "G(q) = dU_g/dq.",
         &plan.gravity,
-        format!("void {name}_gravity(const {r} q[], {r} G[])"),
+        "void",
+        &[q.clone(), out("G")],
         &flat("G"),
-        false,
     );
-    push(
-        "stiffness",
-        "K, n x n, row-major.",
-        &plan.stiffness,
-        format!("void {name}_stiffness({r} K[])"),
-        &flat("K"),
-        false,
-    );
-    push(
-        "damping",
-        "D, n x n, row-major.",
-        &plan.damping,
-        format!("void {name}_damping({r} D[])"),
-        &flat("D"),
-        false,
-    );
-    push(
+    let actuation_work = generated(
         "actuation",
         "A(q), n x k, row-major.",
         &plan.actuation,
-        format!("void {name}_actuation(const {r} q[], {r} A[])"),
+        "void",
+        &[q.clone(), out("A")],
         &flat("A"),
-        false,
     );
-    push(
+    generated(
         "tip_jacobian",
         "Tip Jacobian, 3 x n, row-major.",
         &plan.tip_jacobian,
-        format!("void {name}_tip_jacobian(const {r} q[], {r} J[])"),
+        "void",
+        &[q.clone(), out("J")],
         &flat("J"),
-        false,
     );
-    push(
+    generated(
         "potential_energy",
         "U = U_g + 1/2 q^T K q.",
         &plan.potential_energy,
-        format!("{r} {name}_potential_energy(const {r} q[])"),
+        r,
+        &[q.clone()],
         &|_| String::new(),
-        true,
     );
     let nn = n * n;
-    push(
+    let terms_work = generated(
         "terms",
         "B(q), C(q, q') (both n x n, row-major) and G(q) in one call.",
         &plan.terms,
-        format!("void {name}_terms(const {r} q[], const {r} qd[], {r} B[], {r} C[], {r} G[])"),
+        "void",
+        &[q.clone(), qd.clone(), out("B"), out("C"), out("G")],
         &move |i: usize| {
             if i < nn {
                 format!("B[{i}]")
@@ -372,48 +466,52 @@ pub fn emit(
                 format!("G[{}]", i - 2 * nn)
             }
         },
-        false,
     );
-    let kinetic = CFunc {
-        rows: String::new(),
-        formula: "T = 1/2 q'^T B q', with B from the inertia function.".into(),
-        ops: format!("Operations: {}.", plan.kinetic_energy),
-        signature: format!("{r} {name}_kinetic_energy(const {r} q[], const {r} qd[])"),
-        body: format!(
-            "    {r} B[{up}_NQ * {up}_NQ];\n    {r} t = 0.0{f};\n    int i;\n    int k;\n\
-             \x20   {name}_inertia(q, B);\n    for (i = 0; i < {up}_NQ; ++i) {{\n\
+    public(
+        "kinetic_energy",
+        "T = 1/2 q'^T B q', with B from the inertia function.",
+        format!("Operations: {}.", plan.kinetic_energy),
+        r,
+        &[q.clone(), qd.clone()],
+        String::new(),
+        format!(
+            "    {r} *const B = &work[0]; /* {nn} */\n    {r} t = 0.0{f};\n    int i;\n    int k;\n\
+             \x20   {name}_inertia_ws(q, B, &work[{nn}]);\n    for (i = 0; i < {up}_NQ; ++i) {{\n\
              \x20       {r} bqd = 0.0{f};\n        for (k = 0; k < {up}_NQ; ++k) {{\n\
              \x20           bqd += B[i * {up}_NQ + k] * qd[k];\n        }}\n\
              \x20       t += qd[i] * bqd;\n    }}\n    return 0.5{f} * t;\n",
             f = p.fs(),
         ),
-    };
+        nn + inertia_work,
+    );
     // C alone needs nearly everything B and G need too, so it costs about as much as
     // terms: it is terms, keeping C.
-    let coriolis = CFunc {
-        rows: String::new(),
-        formula: "C(q, q'), n x n, row-major, from terms (C shares nearly all of its work \
-                  with B and G)."
-            .into(),
-        ops: ops_line(&plan.terms),
-        signature: format!("void {name}_coriolis(const {r} q[], const {r} qd[], {r} C[])"),
-        body: format!(
-            "    {r} B[{up}_NQ * {up}_NQ];\n    {r} G[{up}_NQ];\n    {name}_terms(q, qd, B, C, G);\n"
+    public(
+        "coriolis",
+        "C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B \
+         and G).",
+        ops_line(&plan.terms),
+        "void",
+        &[q.clone(), qd.clone(), out("C")],
+        String::new(),
+        format!(
+            "    {r} *const B = &work[0]; /* {nn} */\n    {r} *const G = &work[{nn}]; /* {n} */\n\
+             \x20   {name}_terms_ws(q, qd, B, C, G, &work[{}]);\n",
+            nn + n
         ),
-    };
-    funcs.insert(1, coriolis);
-    // The kinetic energy goes before the potential energy.
-    let at = funcs
-        .iter()
-        .position(|f| f.signature.contains("potential_energy("))
-        .unwrap_or(funcs.len());
-    funcs.insert(at, kinetic);
+        nn + n + terms_work,
+    );
     let mut pose_names = Vec::new();
+    let mut pose_work = 0usize;
     for (j, f) in plan.pose.iter().enumerate() {
         let fname = format!("pose_segment{j}");
-        let (rows, body) = p.body(f, &fname, Some(j), &|i| format!("pose[{i}]"));
+        let (rows, body, len) = p.body(f, &fname, Some(j), &|i| format!("pose[{i}]"));
         pose_names.push(format!("{name}_{fname}"));
+        pose_work = pose_work.max(len);
         let mut body = body;
+        if len == 0 {
+            body = format!("    (void)work;\n{body}");
+        }
         if !f.block.reads_sigma {
             body = format!("    (void)sigma;\n{body}");
         }
@@ -421,11 +519,19 @@ pub fn emit(
             rows,
             formula: format!("Backbone pose [x, y, angle] of segment {j} at sigma."),
             ops: ops_line(f),
-            signature: format!("static void {name}_{fname}(const {r} q[], {r} sigma, {r} pose[3])"),
+            signature: format!(
+                "static void {name}_{fname}(const {r} q[], {r} sigma, {r} pose[3], {r} work[])"
+            ),
             body,
         });
     }
-
+    funcs.splice(0..0, constant_funcs);
+    // Forward dynamics: B, C, G, K, D, A, the packed factor m and f, then the scratch of
+    // terms and actuation (called one after the other, so they share it).
+    let fd = ForwardLayout::new(n, k, terms_work.max(actuation_work));
+    work.push(("pose".into(), pose_work));
+    work.push(("forward_dynamics".into(), fd.len));
+    let work_len = work.iter().map(|(_, l)| *l).max().unwrap_or(0).max(1);
     let mc = MomentConstants::new(plan, precision);
     let series: Vec<String> = mc
         .series
@@ -457,6 +563,13 @@ pub fn emit(
     ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
+    ctx.insert("pose_work", &pose_work);
+    ctx.insert("fd", &fd);
+    ctx.insert("work_len", &work_len);
+    // A function that needs no scratch still gets a length of 1, so that sizing an
+    // array by the macro is always valid C.
+    let work: Vec<(String, usize)> = work.into_iter().map(|(f, l)| (f, l.max(1))).collect();
+    ctx.insert("work", &work);
     for (key, f) in [
         ("inertia", &plan.inertia),
         ("coriolis", &plan.terms),
