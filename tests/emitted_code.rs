@@ -250,8 +250,8 @@ fn rust_crate_matches_reference() {
             &format!("cargo test of the {name} crate"),
         );
         assert!(
-            text.contains("5 passed"),
-            "{name}: golden tests did not run:\n{text}"
+            text.contains("6 passed"),
+            "{name}: golden and workspace tests did not run:\n{text}"
         );
     }
 }

@@ -48,6 +48,9 @@ fn format_rust(what: &str, src: &str) -> Result<String, String> {
     Ok(prettyplease::unparse(&file))
 }
 
+/// The body of one function's `_in` form, which works in the scratch slice `work`:
+/// the moment, kernel and temporary arrays are split off its front. Returns the
+/// constant tables it reads, the body, and the scratch length it needs.
 fn body(
     plan: &Plan,
     func: &Func,
@@ -56,10 +59,10 @@ fn body(
     init: &str,
     target: &dyn Fn(usize) -> String,
     ret: &str,
-) -> (String, String) {
+) -> (String, String, usize) {
     let b = &func.block;
     let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
-    // Temporaries share array slots once dead, to keep the stack small.
+    // Temporaries share array slots once dead, to keep the scratch small.
     let (slots, slot_count) = temp_slots(b);
     let syn = Spelling {
         plan,
@@ -75,26 +78,49 @@ fn body(
         parens: false,
         temp_array: true,
     };
-    let mut out = String::new();
-    let mut rows = String::new();
+    // The scratch pieces, in order: moments, pose moments, kernels, temporaries.
+    let mut pieces: Vec<(&str, usize)> = Vec::new();
     if b.nu_count.iter().any(|&c| c > 0) {
-        out.push_str("let mut nu = [0.0; NU_LEN];\n");
+        pieces.push(("nu", plan.layout.len.max(1)));
     }
+    if pose_count > 0 {
+        pieces.push(("pnu", 2 * pose_count));
+    }
+    if !b.kernels.is_empty() {
+        pieces.push(("kern", b.kernels.len()));
+    }
+    if slot_count > 0 {
+        pieces.push(("t", slot_count));
+    }
+    let len: usize = pieces.iter().map(|(_, l)| l).sum();
+    let mut out = String::new();
+    for (i, (what, l)) in pieces.iter().enumerate() {
+        let l = if *what == "nu" {
+            "NU_LEN".to_string()
+        } else {
+            l.to_string()
+        };
+        if i + 1 < pieces.len() {
+            out.push_str(&format!("let ({what}, work) = work.split_at_mut({l});\n"));
+        } else {
+            out.push_str(&format!("let {what} = &mut work[..{l}];\n"));
+        }
+    }
+    let mut rows = String::new();
     for (seg, &c) in b.nu_count.iter().enumerate() {
         if c > 0 {
             let off = plan.layout.offset[seg];
             let arg = inline(&moment_argument(plan, seg, false), &syn);
             out.push_str(&format!(
-                "moments({arg}, {c}, &mut nu, {off}, {});\n",
+                "moments({arg}, {c}, nu, {off}, {});\n",
                 off + plan.layout.count[seg]
             ));
         }
     }
     if let (Some(seg), true) = (pose_seg, pose_count > 0) {
         let arg = inline(&moment_argument(plan, seg, true), &syn);
-        out.push_str(&format!("let mut pnu = [0.0; {}];\n", 2 * pose_count));
         out.push_str(&format!(
-            "moments({arg}, {pose_count}, &mut pnu, 0, {pose_count});\n"
+            "moments({arg}, {pose_count}, pnu, 0, {pose_count});\n"
         ));
     }
     if b.angles > 0 {
@@ -125,21 +151,13 @@ fn body(
             2 * b.kernels.len(),
             wrap_list(&items, 4)
         );
-        out.push_str(&format!(
-            "let mut kern = [0.0; {}];\nkernels(&{upper}_ROWS, &nu, &mut kern);\n",
-            b.kernels.len()
-        ));
+        out.push_str(&format!("kernels(&{upper}_ROWS, nu, kern);\n"));
     }
     out.push_str(init);
-    if slot_count > 0 {
-        // One array, not one `let` per temporary: rustc nests a debug-info scope per
-        // `let`, and thousands of them overflow LLVM's DWARF writer.
-        out.push_str(&format!("let mut t = [0.0f64; {slot_count}];\n"));
-    }
     out.push_str(&temporaries(b, &syn, &style));
     out.push_str(&outputs(b, &syn, &style, target));
     out.push_str(ret);
-    (rows, out)
+    (rows, out, len)
 }
 
 pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, String> {
@@ -149,117 +167,141 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let ops_line = |f: &Func| format!("Operations: {}.", f.ops);
     let mut funcs = Vec::new();
     let mat = |rows: &str, cols: &str| format!("[[f64; {cols}]; {rows}]");
-    let q_param = |f: &Func| if f.block.reads_q { "q" } else { "_q" };
-    let qd_param = |f: &Func| if f.block.reads_qd { "qd" } else { "_qd" };
-    let mut push = |fname: &str,
-                    formula: &str,
-                    f: &Func,
-                    signature: String,
-                    init: &str,
-                    target: &dyn Fn(usize) -> String,
-                    ret: &str| {
-        let (rows, body) = body(plan, f, fname, None, init, target, ret);
+    let mut work_len = 0usize;
+    // One public function in three: `F_in` does the work in a scratch slice, `F` lends
+    // it scratch on the stack, `F_ws` the caller's [`Workspace`].
+    let mut public = |fname: &str,
+                      formula: &str,
+                      ops: String,
+                      params: &[(&str, &str, bool)],
+                      ret: &str,
+                      rows: String,
+                      body: String,
+                      len: usize| {
+        let decl = |used: bool| {
+            params
+                .iter()
+                .map(|(p, ty, read)| {
+                    let u = if used && !read { "_" } else { "" };
+                    format!("{u}{p}: {ty}")
+                })
+                .collect::<Vec<_>>()
+                .join(", ")
+        };
+        let args: Vec<&str> = params.iter().map(|(p, _, _)| *p).collect();
+        let args = args.join(", ");
+        let w = if len == 0 { "_work" } else { "work" };
         funcs.push(RFunc {
             rows,
-            formula: formula.into(),
-            ops: ops_line(f),
-            signature,
+            formula: format!(
+                "The work of [`{fname}`] and [`{fname}_ws`], in `work` (at least {len} reals)."
+            ),
+            ops: ops.clone(),
+            signature: format!("fn {fname}_in({}, {w}: &mut [f64]) -> {ret}", decl(true)),
             body,
         });
+        let stack = if len == 0 {
+            "&mut []".to_string()
+        } else {
+            format!("&mut [0.0; {len}]")
+        };
+        funcs.push(RFunc {
+            rows: String::new(),
+            formula: formula.into(),
+            ops: ops.clone(),
+            signature: format!("pub fn {fname}({}) -> {ret}", decl(false)),
+            body: format!("{fname}_in({args}, {stack})\n"),
+        });
+        funcs.push(RFunc {
+            rows: String::new(),
+            formula: format!(
+                "[`{fname}`] with its scratch in the caller's [`Workspace`] instead of on \
+                 the stack ({len} reals); the same values."
+            ),
+            ops,
+            signature: format!(
+                "pub fn {fname}_ws({}, ws: &mut Workspace) -> {ret}",
+                decl(false)
+            ),
+            body: format!("{fname}_in({args}, &mut ws.0)\n"),
+        });
+        work_len = work_len.max(len);
     };
+    let q_of = |f: &Func| ("q", "&[f64; NQ]", f.block.reads_q);
+    let qd_of = |f: &Func| ("qd", "&[f64; NQ]", f.block.reads_qd);
     let mat_target =
         |cols: usize| move |i: usize| format!("out[{}][{}]", i / cols.max(1), i % cols.max(1));
     let nn = mat("NQ", "NQ");
-    push(
+    let mut generated = |fname: &str,
+                         formula: &str,
+                         f: &Func,
+                         params: &[(&str, &str, bool)],
+                         ret: &str,
+                         init: &str,
+                         target: &dyn Fn(usize) -> String,
+                         result: &str| {
+        let (rows, body, len) = body(plan, f, fname, None, init, target, result);
+        public(fname, formula, ops_line(f), params, ret, rows, body, len);
+        len
+    };
+    let inertia_work = generated(
         "inertia",
         "Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.",
         &plan.inertia,
-        format!(
-            "pub fn inertia({}: &[f64; NQ]) -> {nn}",
-            q_param(&plan.inertia)
-        ),
+        &[q_of(&plan.inertia)],
+        &nn,
         "let mut out = [[0.0; NQ]; NQ];\n",
         &mat_target(n),
         "out\n",
     );
-    push(
+    generated(
         "gravity",
         "Gravity vector `G(q) = ∂U_g/∂q`.",
         &plan.gravity,
-        format!(
-            "pub fn gravity({}: &[f64; NQ]) -> [f64; NQ]",
-            q_param(&plan.gravity)
-        ),
+        &[q_of(&plan.gravity)],
+        "[f64; NQ]",
         "let mut out = [0.0; NQ];\n",
         &|i| format!("out[{i}]"),
         "out\n",
     );
-    push(
-        "stiffness",
-        "Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.",
-        &plan.stiffness,
-        format!("pub fn stiffness() -> {nn}"),
-        "let mut out = [[0.0; NQ]; NQ];\n",
-        &mat_target(n),
-        "out\n",
-    );
-    push(
-        "damping",
-        "Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.",
-        &plan.damping,
-        format!("pub fn damping() -> {nn}"),
-        "let mut out = [[0.0; NQ]; NQ];\n",
-        &mat_target(n),
-        "out\n",
-    );
-    push(
+    let actuation_work = generated(
         "actuation",
         "Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.",
         &plan.actuation,
-        format!(
-            "pub fn actuation({}: &[f64; NQ]) -> {}",
-            q_param(&plan.actuation),
-            mat("NQ", "NU")
-        ),
+        &[q_of(&plan.actuation)],
+        &mat("NQ", "NU"),
         "let mut out = [[0.0; NU]; NQ];\n",
         &mat_target(k),
         "out\n",
     );
-    push(
+    generated(
         "tip_jacobian",
         "Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.",
         &plan.tip_jacobian,
-        format!(
-            "pub fn tip_jacobian({}: &[f64; NQ]) -> {}",
-            q_param(&plan.tip_jacobian),
-            mat("3", "NQ")
-        ),
+        &[q_of(&plan.tip_jacobian)],
+        &mat("3", "NQ"),
         "let mut out = [[0.0; NQ]; 3];\n",
         &mat_target(n),
         "out\n",
     );
-    push(
+    generated(
         "potential_energy",
         "Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.",
         &plan.potential_energy,
-        format!(
-            "pub fn potential_energy({}: &[f64; NQ]) -> f64",
-            q_param(&plan.potential_energy)
-        ),
+        &[q_of(&plan.potential_energy)],
+        "f64",
         "",
         &|_| String::new(),
         "",
     );
     let nn2 = n * n;
-    push(
+    let terms_ret = format!("({nn}, {nn}, [f64; NQ])");
+    let terms_work = generated(
         "terms",
         "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.",
         &plan.terms,
-        format!(
-            "pub fn terms({}: &[f64; NQ], {}: &[f64; NQ]) -> ({nn}, {nn}, [f64; NQ])",
-            q_param(&plan.terms),
-            qd_param(&plan.terms),
-        ),
+        &[q_of(&plan.terms), qd_of(&plan.terms)],
+        &terms_ret,
         "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n",
         &move |i: usize| {
             if i < nn2 {
@@ -272,34 +314,68 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         },
         "(b, c, g)\n",
     );
-    let kinetic = RFunc {
-        rows: String::new(),
-        formula: "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].".into(),
-        ops: format!("Operations: {}.", plan.kinetic_energy),
-        signature: "pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64".into(),
-        body: "let b = inertia(q);\nlet mut t = 0.0;\nfor i in 0..NQ {\n\
-               let mut bqd = 0.0;\nfor k in 0..NQ {\nbqd += b[i][k] * qd[k];\n}\n\
-               t += qd[i] * bqd;\n}\n0.5 * t\n"
-            .into(),
-    };
+    let both = [("q", "&[f64; NQ]", true), ("qd", "&[f64; NQ]", true)];
     // C alone needs nearly everything B and G need too: it is `terms`, keeping C.
-    funcs.insert(
-        1,
-        RFunc {
-            rows: String::new(),
-            formula: "Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.".into(),
-            ops: ops_line(&plan.terms),
-            signature: format!("pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> {nn}"),
-            body: "terms(q, qd).1\n".into(),
-        },
+    public(
+        "coriolis",
+        "Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.",
+        ops_line(&plan.terms),
+        &both,
+        &nn,
+        String::new(),
+        "terms_in(q, qd, work).1\n".into(),
+        terms_work,
     );
-    // The kinetic energy goes before the potential energy.
-    let at = funcs
-        .iter()
-        .position(|f| f.signature.contains("potential_energy("))
-        .unwrap_or(funcs.len());
-    funcs.insert(at, kinetic);
+    public(
+        "kinetic_energy",
+        "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].",
+        format!("Operations: {}.", plan.kinetic_energy),
+        &both,
+        "f64",
+        String::new(),
+        "let b = inertia_in(q, work);\nlet mut t = 0.0;\nfor i in 0..NQ {\n\
+         let mut bqd = 0.0;\nfor k in 0..NQ {\nbqd += b[i][k] * qd[k];\n}\n\
+         t += qd[i] * bqd;\n}\n0.5 * t\n"
+            .into(),
+        inertia_work,
+    );
+    // K and D are constants: no scratch, no `_ws` form.
+    for (fname, formula, f) in [
+        (
+            "stiffness",
+            "Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.",
+            &plan.stiffness,
+        ),
+        (
+            "damping",
+            "Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.",
+            &plan.damping,
+        ),
+    ] {
+        let (rows, body, len_k) = body(
+            plan,
+            f,
+            fname,
+            None,
+            "let mut out = [[0.0; NQ]; NQ];\n",
+            &mat_target(n),
+            "out\n",
+        );
+        funcs.push(RFunc {
+            rows,
+            formula: formula.into(),
+            ops: ops_line(f),
+            signature: format!("pub fn {fname}() -> {nn}"),
+            // (A constant needs no scratch; should one ever need some, it gets its own.)
+            body: if len_k == 0 {
+                body
+            } else {
+                format!("let work: &mut [f64] = &mut [0.0; {len_k}];\n{body}")
+            },
+        });
+    }
     let mut pose_names = Vec::new();
+    let mut pose_work = 0usize;
     for (j, f) in plan.pose.iter().enumerate() {
         let fname = format!("pose_segment{j}");
         let sig = if f.block.reads_sigma {
@@ -307,7 +383,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         } else {
             "_sigma"
         };
-        let (rows, body) = body(
+        let (rows, body, len) = body(
             plan,
             f,
             &fname,
@@ -316,19 +392,22 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             &|i| format!("out[{i}]"),
             "out\n",
         );
+        pose_work = pose_work.max(len);
+        let w = if len == 0 { "_work" } else { "work" };
         funcs.push(RFunc {
             rows,
             formula: format!("Backbone pose `[x, y, angle]` of segment {j} at `sigma`."),
             ops: ops_line(f),
             signature: format!(
-                "fn {fname}({}: &[f64; NQ], {sig}: f64) -> [f64; 3]",
-                q_param(f)
+                "fn {fname}({}: &[f64; NQ], {sig}: f64, {w}: &mut [f64]) -> [f64; 3]",
+                if f.block.reads_q { "q" } else { "_q" }
             ),
             body,
         });
         pose_names.push(fname);
     }
-
+    let dynamics_work = terms_work.max(actuation_work);
+    work_len = work_len.max(pose_work).max(dynamics_work).max(1);
     let mc = MomentConstants::new(plan, Precision::F64);
     let series: Vec<String> = mc
         .series
@@ -348,6 +427,9 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("kernel_coef", &mc.coef.join(", "));
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
+    ctx.insert("pose_work", &pose_work);
+    ctx.insert("dynamics_work", &dynamics_work);
+    ctx.insert("work_len", &work_len);
     ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(

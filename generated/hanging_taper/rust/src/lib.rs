@@ -13,7 +13,7 @@
 //! How it computes: every quantity is a polynomial with exact rational coefficients
 //! in `q`, `q̇`, cos/sin of the cumulative tangent angles, and the Legendre moments
 //! `ν_n(a) = e^{ia/2} iⁿ j_n(a/2)` of each segment at `a_j = L_j q_{j,0}` (finite and
-//! accurate at `a = 0`). Linear combinations of moments come from one sparse table.
+//! accurate at `a = 0`). Linear combinations of moments come from one banded table.
 //!
 //! **Safety**: not safety-certified. Validate on the bench against the real arm, with
 //! actuator limits and an emergency stop, before it drives hardware; follow local
@@ -37,6 +37,23 @@ pub enum DynamicsError {
     NotPositiveDefinite,
     /// The result overflowed.
     NonFiniteResult,
+}
+/// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
+/// plain functions keep on the stack (1514 reals, 12112 bytes at most). Own one per
+/// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
+/// stack is small; the values are the same either way.
+pub struct Workspace([f64; WORK_LEN]);
+/// Length of a [`Workspace`] in reals.
+pub const WORK_LEN: usize = 1514;
+impl Workspace {
+    pub const fn new() -> Workspace {
+        Workspace([0.0; WORK_LEN])
+    }
+}
+impl Default for Workspace {
+    fn default() -> Workspace {
+        Workspace::new()
+    }
 }
 /// `1/(2n+1)`.
 static ODD_INV: [f64; MOMENTS_MAX] = [
@@ -12748,7 +12765,7 @@ static KERNEL_COEF: [f64; 12115] = [
 ];
 /// `kern[i]` = kernel row `uses[2i]` at moment base `uses[2i + 1]`; four partial sums
 /// keep the multiply-adds independent.
-fn kernels(uses: &[u16], nu: &[f64; NU_LEN], kern: &mut [f64]) {
+fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
     for (slot, pair) in kern.iter_mut().zip(uses.chunks_exact(2)) {
         let r = pair[0] as usize;
         let c = &KERNEL_COEF[KERNEL_START[r] as usize..KERNEL_START[r + 1] as usize];
@@ -12924,14 +12941,16 @@ static INERTIA_ROWS: [u16; 1356] = [
     609, 124, 610, 124, 611, 124, 612, 147, 613, 124, 614, 147, 615, 124, 616, 93, 497,
     62, 497, 93, 617, 62, 618, 93, 619, 62, 620, 93, 621, 62,
 ];
-/// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1045 reals).
 ///
 /// Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
-pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 30, &mut nu, 0, 31);
-    moments(0.09 * q[3], 30, &mut nu, 62, 93);
-    moments(0.08 * q[6], 22, &mut nu, 124, 147);
+fn inertia_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(678);
+    let t = &mut work[..197];
+    moments(0.1 * q[0], 30, nu, 0, 31);
+    moments(0.09 * q[3], 30, nu, 62, 93);
+    moments(0.08 * q[6], 22, nu, 124, 147);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -12940,10 +12959,8 @@ pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
-    let mut kern = [0.0; 678];
-    kernels(&INERTIA_ROWS, &nu, &mut kern);
+    kernels(&INERTIA_ROWS, nu, kern);
     let mut out = [[0.0; NQ]; NQ];
-    let mut t = [0.0f64; 197];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -14528,11 +14545,17 @@ pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     out[7][7] = 0.0192 * t[0] + 2.56e-11;
     out
 }
-/// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.
+/// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.
 ///
-/// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
-pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    terms(q, qd).1
+/// Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
+pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    inertia_in(q, &mut [0.0; 1045])
+}
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1045 reals); the same values.
+///
+/// Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
+pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+    inertia_in(q, &mut ws.0)
 }
 /// Kernels of `gravity`: pairs (row, moment base).
 static GRAVITY_ROWS: [u16; 256] = [
@@ -14550,14 +14573,16 @@ static GRAVITY_ROWS: [u16; 256] = [
     124, 511, 147, 512, 124, 512, 147, 513, 124, 513, 147, 514, 124, 515, 147, 616, 93,
     497, 62, 497, 93, 617, 62, 618, 93, 619, 62, 620, 93, 621, 62,
 ];
-/// Gravity vector `G(q) = ∂U_g/∂q`.
+/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 341 reals).
 ///
 /// Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 16, &mut nu, 0, 31);
-    moments(0.09 * q[3], 16, &mut nu, 62, 93);
-    moments(0.08 * q[6], 12, &mut nu, 124, 147);
+fn gravity_in(q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(128);
+    let t = &mut work[..43];
+    moments(0.1 * q[0], 16, nu, 0, 31);
+    moments(0.09 * q[3], 16, nu, 62, 93);
+    moments(0.08 * q[6], 12, nu, 124, 147);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -14566,10 +14591,8 @@ pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
-    let mut kern = [0.0; 128];
-    kernels(&GRAVITY_ROWS, &nu, &mut kern);
+    kernels(&GRAVITY_ROWS, nu, kern);
     let mut out = [0.0; NQ];
-    let mut t = [0.0f64; 43];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -14789,147 +14812,17 @@ pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
     out[7] = -9.81 * t[14];
     out
 }
-/// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.
+/// Gravity vector `G(q) = ∂U_g/∂q`.
 ///
-/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn stiffness() -> [[f64; NQ]; NQ] {
-    let mut out = [[0.0; NQ]; NQ];
-    out[0][0] = 0.0017;
-    out[0][1] = 0.0008;
-    out[0][2] = 0.0005166666666666667;
-    out[0][3] = 0.0;
-    out[0][4] = 0.0;
-    out[0][5] = 0.0;
-    out[0][6] = 0.0;
-    out[0][7] = 0.0;
-    out[1][0] = 0.0008;
-    out[1][1] = 0.0005166666666666667;
-    out[1][2] = 0.00038;
-    out[1][3] = 0.0;
-    out[1][4] = 0.0;
-    out[1][5] = 0.0;
-    out[1][6] = 0.0;
-    out[1][7] = 0.0;
-    out[2][0] = 0.0005166666666666667;
-    out[2][1] = 0.00038;
-    out[2][2] = 0.0003;
-    out[2][3] = 0.0;
-    out[2][4] = 0.0;
-    out[2][5] = 0.0;
-    out[2][6] = 0.0;
-    out[2][7] = 0.0;
-    out[3][0] = 0.0;
-    out[3][1] = 0.0;
-    out[3][2] = 0.0;
-    out[3][3] = 0.001035;
-    out[3][4] = 0.00048;
-    out[3][5] = 0.0003075;
-    out[3][6] = 0.0;
-    out[3][7] = 0.0;
-    out[4][0] = 0.0;
-    out[4][1] = 0.0;
-    out[4][2] = 0.0;
-    out[4][3] = 0.00048;
-    out[4][4] = 0.0003075;
-    out[4][5] = 0.000225;
-    out[4][6] = 0.0;
-    out[4][7] = 0.0;
-    out[5][0] = 0.0;
-    out[5][1] = 0.0;
-    out[5][2] = 0.0;
-    out[5][3] = 0.0003075;
-    out[5][4] = 0.000225;
-    out[5][5] = 0.000177;
-    out[5][6] = 0.0;
-    out[5][7] = 0.0;
-    out[6][0] = 0.0;
-    out[6][1] = 0.0;
-    out[6][2] = 0.0;
-    out[6][3] = 0.0;
-    out[6][4] = 0.0;
-    out[6][5] = 0.0;
-    out[6][6] = 0.00056;
-    out[6][7] = 0.00025333333333333333;
-    out[7][0] = 0.0;
-    out[7][1] = 0.0;
-    out[7][2] = 0.0;
-    out[7][3] = 0.0;
-    out[7][4] = 0.0;
-    out[7][5] = 0.0;
-    out[7][6] = 0.00025333333333333333;
-    out[7][7] = 0.00016;
-    out
+/// Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
+pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
+    gravity_in(q, &mut [0.0; 341])
 }
-/// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.
+/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (341 reals); the same values.
 ///
-/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn damping() -> [[f64; NQ]; NQ] {
-    let mut out = [[0.0; NQ]; NQ];
-    out[0][0] = 3e-5;
-    out[0][1] = 1.5e-5;
-    out[0][2] = 1e-5;
-    out[0][3] = 0.0;
-    out[0][4] = 0.0;
-    out[0][5] = 0.0;
-    out[0][6] = 0.0;
-    out[0][7] = 0.0;
-    out[1][0] = 1.5e-5;
-    out[1][1] = 1e-5;
-    out[1][2] = 7.5e-6;
-    out[1][3] = 0.0;
-    out[1][4] = 0.0;
-    out[1][5] = 0.0;
-    out[1][6] = 0.0;
-    out[1][7] = 0.0;
-    out[2][0] = 1e-5;
-    out[2][1] = 7.5e-6;
-    out[2][2] = 6e-6;
-    out[2][3] = 0.0;
-    out[2][4] = 0.0;
-    out[2][5] = 0.0;
-    out[2][6] = 0.0;
-    out[2][7] = 0.0;
-    out[3][0] = 0.0;
-    out[3][1] = 0.0;
-    out[3][2] = 0.0;
-    out[3][3] = 1.8e-5;
-    out[3][4] = 9e-6;
-    out[3][5] = 6e-6;
-    out[3][6] = 0.0;
-    out[3][7] = 0.0;
-    out[4][0] = 0.0;
-    out[4][1] = 0.0;
-    out[4][2] = 0.0;
-    out[4][3] = 9e-6;
-    out[4][4] = 6e-6;
-    out[4][5] = 4.5e-6;
-    out[4][6] = 0.0;
-    out[4][7] = 0.0;
-    out[5][0] = 0.0;
-    out[5][1] = 0.0;
-    out[5][2] = 0.0;
-    out[5][3] = 6e-6;
-    out[5][4] = 4.5e-6;
-    out[5][5] = 3.6e-6;
-    out[5][6] = 0.0;
-    out[5][7] = 0.0;
-    out[6][0] = 0.0;
-    out[6][1] = 0.0;
-    out[6][2] = 0.0;
-    out[6][3] = 0.0;
-    out[6][4] = 0.0;
-    out[6][5] = 0.0;
-    out[6][6] = 8e-6;
-    out[6][7] = 4e-6;
-    out[7][0] = 0.0;
-    out[7][1] = 0.0;
-    out[7][2] = 0.0;
-    out[7][3] = 0.0;
-    out[7][4] = 0.0;
-    out[7][5] = 0.0;
-    out[7][6] = 4e-6;
-    out[7][7] = 2.666666666666667e-6;
-    out
+/// Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
+pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+    gravity_in(q, &mut ws.0)
 }
 /// Kernels of `actuation`: pairs (row, moment base).
 static ACTUATION_ROWS: [u16; 156] = [
@@ -14942,14 +14835,16 @@ static ACTUATION_ROWS: [u16; 156] = [
     124, 0, 147, 2, 124, 2, 147, 4, 124, 4, 147, 6, 124, 6, 147, 637, 124, 638, 147, 639,
     124,
 ];
-/// Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.
+/// The work of [`actuation`] and [`actuation_ws`], in `work` (at least 286 reals).
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 14, &mut nu, 0, 31);
-    moments(0.09 * q[3], 14, &mut nu, 62, 93);
-    moments(0.08 * q[6], 10, &mut nu, 124, 147);
+fn actuation_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NU]; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(78);
+    let t = &mut work[..38];
+    moments(0.1 * q[0], 14, nu, 0, 31);
+    moments(0.09 * q[3], 14, nu, 62, 93);
+    moments(0.08 * q[6], 10, nu, 124, 147);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -14958,10 +14853,8 @@ pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
-    let mut kern = [0.0; 78];
-    kernels(&ACTUATION_ROWS, &nu, &mut kern);
+    kernels(&ACTUATION_ROWS, nu, kern);
     let mut out = [[0.0; NU]; NQ];
-    let mut t = [0.0f64; 38];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -15139,6 +15032,18 @@ pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
     out[7][2] = 0.0;
     out
 }
+/// Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.
+///
+/// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
+pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
+    actuation_in(q, &mut [0.0; 286])
+}
+/// [`actuation`] with its scratch in the caller's [`Workspace`] instead of on the stack (286 reals); the same values.
+///
+/// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
+pub fn actuation_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NU]; NQ] {
+    actuation_in(q, &mut ws.0)
+}
 /// Kernels of `tip_jacobian`: pairs (row, moment base).
 static TIP_JACOBIAN_ROWS: [u16; 156] = [
     0, 0, 0, 31, 1, 0, 1, 31, 2, 0, 2, 31, 3, 0, 3, 31, 4, 0, 4, 31, 5, 0, 5, 31, 6, 0,
@@ -15150,14 +15055,16 @@ static TIP_JACOBIAN_ROWS: [u16; 156] = [
     124, 0, 147, 2, 124, 2, 147, 4, 124, 4, 147, 6, 124, 6, 147, 637, 124, 638, 147, 639,
     124,
 ];
-/// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
+/// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 286 reals).
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 14, &mut nu, 0, 31);
-    moments(0.09 * q[3], 14, &mut nu, 62, 93);
-    moments(0.08 * q[6], 10, &mut nu, 124, 147);
+fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(78);
+    let t = &mut work[..38];
+    moments(0.1 * q[0], 14, nu, 0, 31);
+    moments(0.09 * q[3], 14, nu, 62, 93);
+    moments(0.08 * q[6], 10, nu, 124, 147);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -15166,10 +15073,8 @@ pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
-    let mut kern = [0.0; 78];
-    kernels(&TIP_JACOBIAN_ROWS, &nu, &mut kern);
+    kernels(&TIP_JACOBIAN_ROWS, nu, kern);
     let mut out = [[0.0; NQ]; 3];
-    let mut t = [0.0f64; 38];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -15347,20 +15252,17 @@ pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
     out[2][7] = 0.04;
     out
 }
-/// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].
+/// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
 ///
-/// Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
-pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
-    let b = inertia(q);
-    let mut t = 0.0;
-    for i in 0..NQ {
-        let mut bqd = 0.0;
-        for k in 0..NQ {
-            bqd += b[i][k] * qd[k];
-        }
-        t += qd[i] * bqd;
-    }
-    0.5 * t
+/// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
+pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
+    tip_jacobian_in(q, &mut [0.0; 286])
+}
+/// [`tip_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (286 reals); the same values.
+///
+/// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
+pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
+    tip_jacobian_in(q, &mut ws.0)
 }
 /// Kernels of `potential_energy`: pairs (row, moment base).
 static POTENTIAL_ENERGY_ROWS: [u16; 170] = [
@@ -15374,14 +15276,16 @@ static POTENTIAL_ENERGY_ROWS: [u16; 170] = [
     503, 124, 503, 147, 504, 124, 504, 147, 505, 124, 505, 147, 506, 124, 506, 147, 507,
     124, 507, 147,
 ];
-/// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.
+/// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 291 reals).
 ///
 /// Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
-pub fn potential_energy(q: &[f64; NQ]) -> f64 {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 15, &mut nu, 0, 31);
-    moments(0.09 * q[3], 15, &mut nu, 62, 93);
-    moments(0.08 * q[6], 11, &mut nu, 124, 147);
+fn potential_energy_in(q: &[f64; NQ], work: &mut [f64]) -> f64 {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(85);
+    let t = &mut work[..36];
+    moments(0.1 * q[0], 15, nu, 0, 31);
+    moments(0.09 * q[3], 15, nu, 62, 93);
+    moments(0.08 * q[6], 11, nu, 124, 147);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -15390,9 +15294,7 @@ pub fn potential_energy(q: &[f64; NQ]) -> f64 {
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
-    let mut kern = [0.0; 85];
-    kernels(&POTENTIAL_ENERGY_ROWS, &nu, &mut kern);
-    let mut t = [0.0f64; 36];
+    kernels(&POTENTIAL_ENERGY_ROWS, nu, kern);
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -15485,6 +15387,18 @@ pub fn potential_energy(q: &[f64; NQ]) -> f64 {
         - 9.81 * (0.0288 * t[1] * cphi[0] - 0.0288 * t[3] * sphi[0]) - 0.247212 * t[12]
         - 9.81 * (0.0192 * t[4] * cphi[1] - 0.0192 * t[5] * sphi[1])
         - 0.15696 * (t[12] + t[6] * cphi[0] - t[7] * sphi[0]);
+}
+/// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.
+///
+/// Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
+pub fn potential_energy(q: &[f64; NQ]) -> f64 {
+    potential_energy_in(q, &mut [0.0; 291])
+}
+/// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (291 reals); the same values.
+///
+/// Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
+pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+    potential_energy_in(q, &mut ws.0)
 }
 /// Kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u16; 1754] = [
@@ -15580,17 +15494,20 @@ static TERMS_ROWS: [u16; 1754] = [
     619, 62, 620, 93, 621, 62, 796, 62, 746, 62, 746, 93, 796, 93, 797, 62, 797, 93, 798,
     62, 798, 93, 799, 62, 799, 93, 800, 62, 800, 93, 801, 62, 801, 93,
 ];
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 1514 reals).
 ///
 /// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
-pub fn terms(
+fn terms_in(
     q: &[f64; NQ],
     qd: &[f64; NQ],
+    work: &mut [f64],
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 31, &mut nu, 0, 31);
-    moments(0.09 * q[3], 31, &mut nu, 62, 93);
-    moments(0.08 * q[6], 23, &mut nu, 124, 147);
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(877);
+    let t = &mut work[..467];
+    moments(0.1 * q[0], 31, nu, 0, 31);
+    moments(0.09 * q[3], 31, nu, 62, 93);
+    moments(0.08 * q[6], 23, nu, 124, 147);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -15599,12 +15516,10 @@ pub fn terms(
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
-    let mut kern = [0.0; 877];
-    kernels(&TERMS_ROWS, &nu, &mut kern);
+    kernels(&TERMS_ROWS, nu, kern);
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
     let mut g = [0.0; NQ];
-    let mut t = [0.0f64; 467];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -18603,14 +18518,224 @@ pub fn terms(
     g[7] = -9.81 * t[6];
     (b, c, g)
 }
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+///
+/// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+pub fn terms(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    terms_in(q, qd, &mut [0.0; 1514])
+}
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (1514 reals); the same values.
+///
+/// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+pub fn terms_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    terms_in(q, qd, &mut ws.0)
+}
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 1514 reals).
+///
+/// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+fn coriolis_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+    terms_in(q, qd, work).1
+}
+/// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.
+///
+/// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    coriolis_in(q, qd, &mut [0.0; 1514])
+}
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (1514 reals); the same values.
+///
+/// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+pub fn coriolis_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NQ]; NQ] {
+    coriolis_in(q, qd, &mut ws.0)
+}
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1045 reals).
+///
+/// Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
+fn kinetic_energy_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> f64 {
+    let b = inertia_in(q, work);
+    let mut t = 0.0;
+    for i in 0..NQ {
+        let mut bqd = 0.0;
+        for k in 0..NQ {
+            bqd += b[i][k] * qd[k];
+        }
+        t += qd[i] * bqd;
+    }
+    0.5 * t
+}
+/// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].
+///
+/// Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
+pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+    kinetic_energy_in(q, qd, &mut [0.0; 1045])
+}
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1045 reals); the same values.
+///
+/// Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
+pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
+    kinetic_energy_in(q, qd, &mut ws.0)
+}
+/// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.
+///
+/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+pub fn stiffness() -> [[f64; NQ]; NQ] {
+    let mut out = [[0.0; NQ]; NQ];
+    out[0][0] = 0.0017;
+    out[0][1] = 0.0008;
+    out[0][2] = 0.0005166666666666667;
+    out[0][3] = 0.0;
+    out[0][4] = 0.0;
+    out[0][5] = 0.0;
+    out[0][6] = 0.0;
+    out[0][7] = 0.0;
+    out[1][0] = 0.0008;
+    out[1][1] = 0.0005166666666666667;
+    out[1][2] = 0.00038;
+    out[1][3] = 0.0;
+    out[1][4] = 0.0;
+    out[1][5] = 0.0;
+    out[1][6] = 0.0;
+    out[1][7] = 0.0;
+    out[2][0] = 0.0005166666666666667;
+    out[2][1] = 0.00038;
+    out[2][2] = 0.0003;
+    out[2][3] = 0.0;
+    out[2][4] = 0.0;
+    out[2][5] = 0.0;
+    out[2][6] = 0.0;
+    out[2][7] = 0.0;
+    out[3][0] = 0.0;
+    out[3][1] = 0.0;
+    out[3][2] = 0.0;
+    out[3][3] = 0.001035;
+    out[3][4] = 0.00048;
+    out[3][5] = 0.0003075;
+    out[3][6] = 0.0;
+    out[3][7] = 0.0;
+    out[4][0] = 0.0;
+    out[4][1] = 0.0;
+    out[4][2] = 0.0;
+    out[4][3] = 0.00048;
+    out[4][4] = 0.0003075;
+    out[4][5] = 0.000225;
+    out[4][6] = 0.0;
+    out[4][7] = 0.0;
+    out[5][0] = 0.0;
+    out[5][1] = 0.0;
+    out[5][2] = 0.0;
+    out[5][3] = 0.0003075;
+    out[5][4] = 0.000225;
+    out[5][5] = 0.000177;
+    out[5][6] = 0.0;
+    out[5][7] = 0.0;
+    out[6][0] = 0.0;
+    out[6][1] = 0.0;
+    out[6][2] = 0.0;
+    out[6][3] = 0.0;
+    out[6][4] = 0.0;
+    out[6][5] = 0.0;
+    out[6][6] = 0.00056;
+    out[6][7] = 0.00025333333333333333;
+    out[7][0] = 0.0;
+    out[7][1] = 0.0;
+    out[7][2] = 0.0;
+    out[7][3] = 0.0;
+    out[7][4] = 0.0;
+    out[7][5] = 0.0;
+    out[7][6] = 0.00025333333333333333;
+    out[7][7] = 0.00016;
+    out
+}
+/// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.
+///
+/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+pub fn damping() -> [[f64; NQ]; NQ] {
+    let mut out = [[0.0; NQ]; NQ];
+    out[0][0] = 3e-5;
+    out[0][1] = 1.5e-5;
+    out[0][2] = 1e-5;
+    out[0][3] = 0.0;
+    out[0][4] = 0.0;
+    out[0][5] = 0.0;
+    out[0][6] = 0.0;
+    out[0][7] = 0.0;
+    out[1][0] = 1.5e-5;
+    out[1][1] = 1e-5;
+    out[1][2] = 7.5e-6;
+    out[1][3] = 0.0;
+    out[1][4] = 0.0;
+    out[1][5] = 0.0;
+    out[1][6] = 0.0;
+    out[1][7] = 0.0;
+    out[2][0] = 1e-5;
+    out[2][1] = 7.5e-6;
+    out[2][2] = 6e-6;
+    out[2][3] = 0.0;
+    out[2][4] = 0.0;
+    out[2][5] = 0.0;
+    out[2][6] = 0.0;
+    out[2][7] = 0.0;
+    out[3][0] = 0.0;
+    out[3][1] = 0.0;
+    out[3][2] = 0.0;
+    out[3][3] = 1.8e-5;
+    out[3][4] = 9e-6;
+    out[3][5] = 6e-6;
+    out[3][6] = 0.0;
+    out[3][7] = 0.0;
+    out[4][0] = 0.0;
+    out[4][1] = 0.0;
+    out[4][2] = 0.0;
+    out[4][3] = 9e-6;
+    out[4][4] = 6e-6;
+    out[4][5] = 4.5e-6;
+    out[4][6] = 0.0;
+    out[4][7] = 0.0;
+    out[5][0] = 0.0;
+    out[5][1] = 0.0;
+    out[5][2] = 0.0;
+    out[5][3] = 6e-6;
+    out[5][4] = 4.5e-6;
+    out[5][5] = 3.6e-6;
+    out[5][6] = 0.0;
+    out[5][7] = 0.0;
+    out[6][0] = 0.0;
+    out[6][1] = 0.0;
+    out[6][2] = 0.0;
+    out[6][3] = 0.0;
+    out[6][4] = 0.0;
+    out[6][5] = 0.0;
+    out[6][6] = 8e-6;
+    out[6][7] = 4e-6;
+    out[7][0] = 0.0;
+    out[7][1] = 0.0;
+    out[7][2] = 0.0;
+    out[7][3] = 0.0;
+    out[7][4] = 0.0;
+    out[7][5] = 0.0;
+    out[7][6] = 4e-6;
+    out[7][7] = 2.666666666666667e-6;
+    out
+}
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
 /// Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
-fn pose_segment0(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
-    let mut pnu = [0.0; 26];
-    moments(0.1 * q[0] * sigma, 13, &mut pnu, 0, 13);
+fn pose_segment0(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    let (pnu, work) = work.split_at_mut(26);
+    let t = &mut work[..43];
+    moments(0.1 * q[0] * sigma, 13, pnu, 0, 13);
     let mut out = [0.0; 3];
-    let mut t = [0.0f64; 43];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -18756,18 +18881,18 @@ fn pose_segment0(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
 /// Backbone pose `[x, y, angle]` of segment 1 at `sigma`.
 ///
 /// Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig.
-fn pose_segment1(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 13, &mut nu, 0, 31);
-    let mut pnu = [0.0; 26];
-    moments(0.09 * q[3] * sigma, 13, &mut pnu, 0, 13);
+fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (pnu, work) = work.split_at_mut(26);
+    let t = &mut work[..63];
+    moments(0.1 * q[0], 13, nu, 0, 31);
+    moments(0.09 * q[3] * sigma, 13, pnu, 0, 13);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
     let mut out = [0.0; 3];
-    let mut t = [0.0f64; 63];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -19030,12 +19155,13 @@ fn pose_segment1(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
 /// Backbone pose `[x, y, angle]` of segment 2 at `sigma`.
 ///
 /// Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig.
-fn pose_segment2(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.1 * q[0], 13, &mut nu, 0, 31);
-    moments(0.09 * q[3], 13, &mut nu, 62, 93);
-    let mut pnu = [0.0; 18];
-    moments(0.08 * q[6] * sigma, 9, &mut pnu, 0, 9);
+fn pose_segment2(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (pnu, work) = work.split_at_mut(18);
+    let t = &mut work[..56];
+    moments(0.1 * q[0], 13, nu, 0, 31);
+    moments(0.09 * q[3], 13, nu, 62, 93);
+    moments(0.08 * q[6] * sigma, 9, pnu, 0, 9);
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
@@ -19045,7 +19171,6 @@ fn pose_segment2(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
     cphi[1] = libm::cos(phi);
     sphi[1] = libm::sin(phi);
     let mut out = [0.0; 3];
-    let mut t = [0.0f64; 56];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -19330,20 +19455,34 @@ fn pose_segment2(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
         + 0.045 * q[4] + 0.03 * q[5] + 0.08 * sigma * q[6] + 0.04 * t[24] * q[7];
     out
 }
+/// The work of [`pose`] and [`pose_ws`], in `work` (at least 259 reals).
+fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
+        return [f64::NAN; 3];
+    }
+    match segment {
+        0 => pose_segment0(q, sigma, work),
+        1 => pose_segment1(q, sigma, work),
+        2 => pose_segment2(q, sigma, work),
+        _ => [f64::NAN; 3],
+    }
+}
 /// Backbone pose `[x, y, angle]` at `sigma ∈ [0, 1]` of segment `segment` (0-based):
 /// position [m] in the base frame and tangent angle from +x [rad]. The tip is
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
 pub fn pose(q: &[f64; NQ], segment: usize, sigma: f64) -> [f64; 3] {
-    if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
-        return [f64::NAN; 3];
-    }
-    match segment {
-        0 => pose_segment0(q, sigma),
-        1 => pose_segment1(q, sigma),
-        2 => pose_segment2(q, sigma),
-        _ => [f64::NAN; 3],
-    }
+    pose_in(q, segment, sigma, &mut [0.0; 259])
+}
+/// [`pose`] with its scratch in the caller's [`Workspace`] instead of on the stack
+/// (259 reals); the same values.
+pub fn pose_ws(
+    q: &[f64; NQ],
+    segment: usize,
+    sigma: f64,
+    ws: &mut Workspace,
+) -> [f64; 3] {
+    pose_in(q, segment, sigma, &mut ws.0)
 }
 /// Forward dynamics: `q̈` from `B(q) q̈ = A(q) u − C(q, q̇) q̇ − G(q) − K q − D q̇`, by an
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
@@ -19355,11 +19494,31 @@ pub fn forward_dynamics(
     qd: &[f64; NQ],
     u: &[f64; NU],
 ) -> Result<[f64; NQ], DynamicsError> {
+    forward_dynamics_in(q, qd, u, &mut [0.0; 1514])
+}
+/// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
+/// caller's [`Workspace`] instead of on the stack (1514 reals); the same values.
+pub fn forward_dynamics_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[f64; NQ], DynamicsError> {
+    forward_dynamics_in(q, qd, u, &mut ws.0)
+}
+/// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
+/// 1514 reals).
+fn forward_dynamics_in(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    u: &[f64; NU],
+    work: &mut [f64],
+) -> Result<[f64; NQ], DynamicsError> {
     if q.iter().chain(qd.iter()).chain(u.iter()).any(|v| !v.is_finite()) {
         return Err(DynamicsError::NonFiniteInput);
     }
-    let (b, c, g) = terms(q, qd);
-    let (stiff, damp, a) = (stiffness(), damping(), actuation(q));
+    let (b, c, g) = terms_in(q, qd, work);
+    let (stiff, damp, a) = (stiffness(), damping(), actuation_in(q, work));
     let mut f = [0.0; NQ];
     let mut m = [0.0; NQ * (NQ + 1) / 2];
     for i in 0..NQ {

@@ -2424,3 +2424,41 @@ fn invalid_arguments_are_reported() {
     q[0] = f64::NAN;
     assert_eq!(forward_dynamics(& q, & qd, & u), Err(DynamicsError::NonFiniteInput));
 }
+/// One workspace serves every configuration in turn, so each `_ws` call finds the
+/// previous call's leftovers in it: a function that read its scratch before writing it
+/// would differ from the plain form, which starts from zeros.
+#[test]
+fn workspace_variants_equal_the_plain_functions() {
+    let mut ws = Workspace::new();
+    let mut failures = Vec::new();
+    for c in (0..NCASES).rev().chain(0..NCASES) {
+        let (q, qd, u) = state(c);
+        let mut same = |what: &str, ok: bool| {
+            if !ok {
+                failures.push(format!("{what}_ws [{}] differs from {what}", LABELS[c]));
+            }
+        };
+        same("inertia", inertia_ws(&q, &mut ws) == inertia(&q));
+        same("coriolis", coriolis_ws(&q, &qd, &mut ws) == coriolis(&q, &qd));
+        same("gravity", gravity_ws(&q, &mut ws) == gravity(&q));
+        same("actuation", actuation_ws(&q, &mut ws) == actuation(&q));
+        same("tip_jacobian", tip_jacobian_ws(&q, &mut ws) == tip_jacobian(&q));
+        same("terms", terms_ws(&q, &qd, &mut ws) == terms(&q, &qd));
+        same(
+            "kinetic_energy",
+            kinetic_energy_ws(&q, &qd, &mut ws) == kinetic_energy(&q, &qd),
+        );
+        same(
+            "potential_energy",
+            potential_energy_ws(&q, &mut ws) == potential_energy(&q),
+        );
+        for j in 0..NSEG {
+            same("pose", pose_ws(&q, j, 0.37, &mut ws) == pose(&q, j, 0.37));
+        }
+        same(
+            "forward_dynamics",
+            forward_dynamics_ws(&q, &qd, &u, &mut ws) == forward_dynamics(&q, &qd, &u),
+        );
+    }
+    assert!(failures.is_empty(), "{}", failures.join("\n"));
+}

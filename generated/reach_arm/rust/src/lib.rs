@@ -13,7 +13,7 @@
 //! How it computes: every quantity is a polynomial with exact rational coefficients
 //! in `q`, `q̇`, cos/sin of the cumulative tangent angles, and the Legendre moments
 //! `ν_n(a) = e^{ia/2} iⁿ j_n(a/2)` of each segment at `a_j = L_j q_{j,0}` (finite and
-//! accurate at `a = 0`). Linear combinations of moments come from one sparse table.
+//! accurate at `a = 0`). Linear combinations of moments come from one banded table.
 //!
 //! **Safety**: not safety-certified. Validate on the bench against the real arm, with
 //! actuator limits and an emergency stop, before it drives hardware; follow local
@@ -37,6 +37,23 @@ pub enum DynamicsError {
     NotPositiveDefinite,
     /// The result overflowed.
     NonFiniteResult,
+}
+/// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
+/// plain functions keep on the stack (1220 reals, 9760 bytes at most). Own one per
+/// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
+/// stack is small; the values are the same either way.
+pub struct Workspace([f64; WORK_LEN]);
+/// Length of a [`Workspace`] in reals.
+pub const WORK_LEN: usize = 1220;
+impl Workspace {
+    pub const fn new() -> Workspace {
+        Workspace([0.0; WORK_LEN])
+    }
+}
+impl Default for Workspace {
+    fn default() -> Workspace {
+        Workspace::new()
+    }
 }
 /// `1/(2n+1)`.
 static ODD_INV: [f64; MOMENTS_MAX] = [
@@ -6762,7 +6779,7 @@ static KERNEL_COEF: [f64; 6182] = [
 ];
 /// `kern[i]` = kernel row `uses[2i]` at moment base `uses[2i + 1]`; four partial sums
 /// keep the multiply-adds independent.
-fn kernels(uses: &[u16], nu: &[f64; NU_LEN], kern: &mut [f64]) {
+fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
     for (slot, pair) in kern.iter_mut().zip(uses.chunks_exact(2)) {
         let r = pair[0] as usize;
         let c = &KERNEL_COEF[KERNEL_START[r] as usize..KERNEL_START[r + 1] as usize];
@@ -6923,22 +6940,22 @@ static INERTIA_ROWS: [u16; 1112] = [
     30, 349, 0, 350, 30, 351, 0, 352, 30, 353, 0, 354, 90, 348, 60, 348, 90, 355, 60,
     356, 90, 357, 60, 358, 90, 359, 60,
 ];
-/// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 845 reals).
 ///
 /// Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
-pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.12 * q[0], 29, &mut nu, 0, 30);
-    moments(0.1 * q[3], 29, &mut nu, 60, 90);
+fn inertia_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(556);
+    let t = &mut work[..169];
+    moments(0.12 * q[0], 29, nu, 0, 30);
+    moments(0.1 * q[3], 29, nu, 60, 90);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    let mut kern = [0.0; 556];
-    kernels(&INERTIA_ROWS, &nu, &mut kern);
+    kernels(&INERTIA_ROWS, nu, kern);
     let mut out = [[0.0; NQ]; NQ];
-    let mut t = [0.0f64; 169];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -8487,11 +8504,17 @@ pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
         + 3.174603174603175e-10;
     out
 }
-/// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.
+/// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.
 ///
-/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
-pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    terms(q, qd).1
+/// Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
+pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    inertia_in(q, &mut [0.0; 845])
+}
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (845 reals); the same values.
+///
+/// Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
+pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+    inertia_in(q, &mut ws.0)
 }
 /// Kernels of `gravity`: pairs (row, moment base).
 static GRAVITY_ROWS: [u16; 212] = [
@@ -8507,22 +8530,22 @@ static GRAVITY_ROWS: [u16; 212] = [
     0, 351, 0, 353, 0, 354, 90, 348, 60, 348, 90, 355, 60, 356, 90, 357, 60, 358, 90,
     359, 60,
 ];
-/// Gravity vector `G(q) = ∂U_g/∂q`.
+/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 264 reals).
 ///
 /// Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.12 * q[0], 15, &mut nu, 0, 30);
-    moments(0.1 * q[3], 15, &mut nu, 60, 90);
+fn gravity_in(q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(106);
+    let t = &mut work[..38];
+    moments(0.12 * q[0], 15, nu, 0, 30);
+    moments(0.1 * q[3], 15, nu, 60, 90);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    let mut kern = [0.0; 106];
-    kernels(&GRAVITY_ROWS, &nu, &mut kern);
+    kernels(&GRAVITY_ROWS, nu, kern);
     let mut out = [0.0; NQ];
-    let mut t = [0.0f64; 38];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -8767,96 +8790,22 @@ pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
         + 0.0981 * (cphi[0] * t[16] + sphi[0] * t[17]);
     out
 }
-/// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.
+/// Gravity vector `G(q) = ∂U_g/∂q`.
 ///
-/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn stiffness() -> [[f64; NQ]; NQ] {
-    let mut out = [[0.0; NQ]; NQ];
-    out[0][0] = 0.00144;
-    out[0][1] = 0.00072;
-    out[0][2] = 0.00048;
-    out[0][3] = 0.0;
-    out[0][4] = 0.0;
-    out[0][5] = 0.0;
-    out[1][0] = 0.00072;
-    out[1][1] = 0.00048;
-    out[1][2] = 0.00036;
-    out[1][3] = 0.0;
-    out[1][4] = 0.0;
-    out[1][5] = 0.0;
-    out[2][0] = 0.00048;
-    out[2][1] = 0.00036;
-    out[2][2] = 0.000288;
-    out[2][3] = 0.0;
-    out[2][4] = 0.0;
-    out[2][5] = 0.0;
-    out[3][0] = 0.0;
-    out[3][1] = 0.0;
-    out[3][2] = 0.0;
-    out[3][3] = 0.0008;
-    out[3][4] = 0.0004;
-    out[3][5] = 0.0002666666666666667;
-    out[4][0] = 0.0;
-    out[4][1] = 0.0;
-    out[4][2] = 0.0;
-    out[4][3] = 0.0004;
-    out[4][4] = 0.0002666666666666667;
-    out[4][5] = 0.0002;
-    out[5][0] = 0.0;
-    out[5][1] = 0.0;
-    out[5][2] = 0.0;
-    out[5][3] = 0.0002666666666666667;
-    out[5][4] = 0.0002;
-    out[5][5] = 0.00016;
-    out
+/// Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
+    gravity_in(q, &mut [0.0; 264])
 }
-/// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.
+/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (264 reals); the same values.
 ///
-/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn damping() -> [[f64; NQ]; NQ] {
-    let mut out = [[0.0; NQ]; NQ];
-    out[0][0] = 2.4e-5;
-    out[0][1] = 1.2e-5;
-    out[0][2] = 8e-6;
-    out[0][3] = 0.0;
-    out[0][4] = 0.0;
-    out[0][5] = 0.0;
-    out[1][0] = 1.2e-5;
-    out[1][1] = 8e-6;
-    out[1][2] = 6e-6;
-    out[1][3] = 0.0;
-    out[1][4] = 0.0;
-    out[1][5] = 0.0;
-    out[2][0] = 8e-6;
-    out[2][1] = 6e-6;
-    out[2][2] = 4.8e-6;
-    out[2][3] = 0.0;
-    out[2][4] = 0.0;
-    out[2][5] = 0.0;
-    out[3][0] = 0.0;
-    out[3][1] = 0.0;
-    out[3][2] = 0.0;
-    out[3][3] = 1.5e-5;
-    out[3][4] = 7.5e-6;
-    out[3][5] = 5e-6;
-    out[4][0] = 0.0;
-    out[4][1] = 0.0;
-    out[4][2] = 0.0;
-    out[4][3] = 7.5e-6;
-    out[4][4] = 5e-6;
-    out[4][5] = 3.75e-6;
-    out[5][0] = 0.0;
-    out[5][1] = 0.0;
-    out[5][2] = 0.0;
-    out[5][3] = 5e-6;
-    out[5][4] = 3.75e-6;
-    out[5][5] = 3e-6;
-    out
+/// Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+    gravity_in(q, &mut ws.0)
 }
-/// Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.
+/// The work of [`actuation`] and [`actuation_ws`], in `work` (at least 0 reals).
 ///
 /// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn actuation(_q: &[f64; NQ]) -> [[f64; NU]; NQ] {
+fn actuation_in(_q: &[f64; NQ], _work: &mut [f64]) -> [[f64; NU]; NQ] {
     let mut out = [[0.0; NU]; NQ];
     out[0][0] = 0.0012;
     out[0][1] = -0.0012;
@@ -8884,6 +8833,18 @@ pub fn actuation(_q: &[f64; NQ]) -> [[f64; NU]; NQ] {
     out[5][3] = 0.0;
     out
 }
+/// Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.
+///
+/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
+    actuation_in(q, &mut [])
+}
+/// [`actuation`] with its scratch in the caller's [`Workspace`] instead of on the stack (0 reals); the same values.
+///
+/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+pub fn actuation_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NU]; NQ] {
+    actuation_in(q, &mut ws.0)
+}
 /// Kernels of `tip_jacobian`: pairs (row, moment base).
 static TIP_JACOBIAN_ROWS: [u16; 116] = [
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0,
@@ -8893,22 +8854,22 @@ static TIP_JACOBIAN_ROWS: [u16; 116] = [
     352, 30, 353, 0, 354, 90, 348, 60, 348, 90, 355, 60, 356, 90, 357, 60, 358, 90, 359,
     60,
 ];
-/// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
+/// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 211 reals).
 ///
 /// Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
-pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.12 * q[0], 14, &mut nu, 0, 30);
-    moments(0.1 * q[3], 14, &mut nu, 60, 90);
+fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(58);
+    let t = &mut work[..33];
+    moments(0.12 * q[0], 14, nu, 0, 30);
+    moments(0.1 * q[3], 14, nu, 60, 90);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    let mut kern = [0.0; 58];
-    kernels(&TIP_JACOBIAN_ROWS, &nu, &mut kern);
+    kernels(&TIP_JACOBIAN_ROWS, nu, kern);
     let mut out = [[0.0; NQ]; 3];
-    let mut t = [0.0f64; 33];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -9075,20 +9036,17 @@ pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
     out[2][5] = 0.03333333333333333;
     out
 }
-/// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].
+/// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
 ///
-/// Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
-pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
-    let b = inertia(q);
-    let mut t = 0.0;
-    for i in 0..NQ {
-        let mut bqd = 0.0;
-        for k in 0..NQ {
-            bqd += b[i][k] * qd[k];
-        }
-        t += qd[i] * bqd;
-    }
-    0.5 * t
+/// Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
+pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
+    tip_jacobian_in(q, &mut [0.0; 211])
+}
+/// [`tip_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (211 reals); the same values.
+///
+/// Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
+pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
+    tip_jacobian_in(q, &mut ws.0)
 }
 /// Kernels of `potential_energy`: pairs (row, moment base).
 static POTENTIAL_ENERGY_ROWS: [u16; 150] = [
@@ -9101,21 +9059,21 @@ static POTENTIAL_ENERGY_ROWS: [u16; 150] = [
     90, 222, 60, 222, 90, 223, 60, 223, 90, 224, 60, 224, 90, 225, 60, 225, 90, 226, 60,
     226, 90,
 ];
-/// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.
+/// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 227 reals).
 ///
 /// Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
-pub fn potential_energy(q: &[f64; NQ]) -> f64 {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.12 * q[0], 14, &mut nu, 0, 30);
-    moments(0.1 * q[3], 14, &mut nu, 60, 90);
+fn potential_energy_in(q: &[f64; NQ], work: &mut [f64]) -> f64 {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(75);
+    let t = &mut work[..32];
+    moments(0.12 * q[0], 14, nu, 0, 30);
+    moments(0.1 * q[3], 14, nu, 60, 90);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    let mut kern = [0.0; 75];
-    kernels(&POTENTIAL_ENERGY_ROWS, &nu, &mut kern);
-    let mut t = [0.0f64; 32];
+    kernels(&POTENTIAL_ENERGY_ROWS, nu, kern);
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -9212,6 +9170,18 @@ pub fn potential_energy(q: &[f64; NQ]) -> f64 {
         + 0.24525 * t[12] + 0.0981 * (t[12] + t[4] * cphi[0] + t[5] * sphi[0])
         + 0.5 * t[6];
 }
+/// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.
+///
+/// Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
+pub fn potential_energy(q: &[f64; NQ]) -> f64 {
+    potential_energy_in(q, &mut [0.0; 227])
+}
+/// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (227 reals); the same values.
+///
+/// Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
+pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+    potential_energy_in(q, &mut ws.0)
+}
 /// Kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u16; 1420] = [
     0, 0, 0, 30, 1, 0, 1, 30, 2, 0, 2, 30, 3, 0, 3, 30, 4, 0, 4, 30, 5, 0, 5, 30, 6, 0,
@@ -9286,27 +9256,28 @@ static TERMS_ROWS: [u16; 1420] = [
     90, 445, 60, 445, 90, 446, 60, 446, 90, 447, 60, 447, 90, 448, 60, 448, 90, 449, 60,
     449, 90,
 ];
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 1220 reals).
 ///
 /// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
-pub fn terms(
+fn terms_in(
     q: &[f64; NQ],
     qd: &[f64; NQ],
+    work: &mut [f64],
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.12 * q[0], 30, &mut nu, 0, 30);
-    moments(0.1 * q[3], 30, &mut nu, 60, 90);
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(710);
+    let t = &mut work[..390];
+    moments(0.12 * q[0], 30, nu, 0, 30);
+    moments(0.1 * q[3], 30, nu, 60, 90);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    let mut kern = [0.0; 710];
-    kernels(&TERMS_ROWS, &nu, &mut kern);
+    kernels(&TERMS_ROWS, nu, kern);
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
     let mut g = [0.0; NQ];
-    let mut t = [0.0f64; 390];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -12047,14 +12018,168 @@ pub fn terms(
     g[5] = 9.81 * (0.025 * cphi[0] * t[2] + 0.025 * sphi[0] * t[3]) + 0.0981 * t[364];
     (b, c, g)
 }
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+///
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+pub fn terms(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    terms_in(q, qd, &mut [0.0; 1220])
+}
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (1220 reals); the same values.
+///
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+pub fn terms_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    terms_in(q, qd, &mut ws.0)
+}
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 1220 reals).
+///
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+fn coriolis_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+    terms_in(q, qd, work).1
+}
+/// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.
+///
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    coriolis_in(q, qd, &mut [0.0; 1220])
+}
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (1220 reals); the same values.
+///
+/// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+pub fn coriolis_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NQ]; NQ] {
+    coriolis_in(q, qd, &mut ws.0)
+}
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 845 reals).
+///
+/// Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
+fn kinetic_energy_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> f64 {
+    let b = inertia_in(q, work);
+    let mut t = 0.0;
+    for i in 0..NQ {
+        let mut bqd = 0.0;
+        for k in 0..NQ {
+            bqd += b[i][k] * qd[k];
+        }
+        t += qd[i] * bqd;
+    }
+    0.5 * t
+}
+/// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].
+///
+/// Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
+pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+    kinetic_energy_in(q, qd, &mut [0.0; 845])
+}
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (845 reals); the same values.
+///
+/// Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
+pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
+    kinetic_energy_in(q, qd, &mut ws.0)
+}
+/// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.
+///
+/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+pub fn stiffness() -> [[f64; NQ]; NQ] {
+    let mut out = [[0.0; NQ]; NQ];
+    out[0][0] = 0.00144;
+    out[0][1] = 0.00072;
+    out[0][2] = 0.00048;
+    out[0][3] = 0.0;
+    out[0][4] = 0.0;
+    out[0][5] = 0.0;
+    out[1][0] = 0.00072;
+    out[1][1] = 0.00048;
+    out[1][2] = 0.00036;
+    out[1][3] = 0.0;
+    out[1][4] = 0.0;
+    out[1][5] = 0.0;
+    out[2][0] = 0.00048;
+    out[2][1] = 0.00036;
+    out[2][2] = 0.000288;
+    out[2][3] = 0.0;
+    out[2][4] = 0.0;
+    out[2][5] = 0.0;
+    out[3][0] = 0.0;
+    out[3][1] = 0.0;
+    out[3][2] = 0.0;
+    out[3][3] = 0.0008;
+    out[3][4] = 0.0004;
+    out[3][5] = 0.0002666666666666667;
+    out[4][0] = 0.0;
+    out[4][1] = 0.0;
+    out[4][2] = 0.0;
+    out[4][3] = 0.0004;
+    out[4][4] = 0.0002666666666666667;
+    out[4][5] = 0.0002;
+    out[5][0] = 0.0;
+    out[5][1] = 0.0;
+    out[5][2] = 0.0;
+    out[5][3] = 0.0002666666666666667;
+    out[5][4] = 0.0002;
+    out[5][5] = 0.00016;
+    out
+}
+/// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.
+///
+/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+pub fn damping() -> [[f64; NQ]; NQ] {
+    let mut out = [[0.0; NQ]; NQ];
+    out[0][0] = 2.4e-5;
+    out[0][1] = 1.2e-5;
+    out[0][2] = 8e-6;
+    out[0][3] = 0.0;
+    out[0][4] = 0.0;
+    out[0][5] = 0.0;
+    out[1][0] = 1.2e-5;
+    out[1][1] = 8e-6;
+    out[1][2] = 6e-6;
+    out[1][3] = 0.0;
+    out[1][4] = 0.0;
+    out[1][5] = 0.0;
+    out[2][0] = 8e-6;
+    out[2][1] = 6e-6;
+    out[2][2] = 4.8e-6;
+    out[2][3] = 0.0;
+    out[2][4] = 0.0;
+    out[2][5] = 0.0;
+    out[3][0] = 0.0;
+    out[3][1] = 0.0;
+    out[3][2] = 0.0;
+    out[3][3] = 1.5e-5;
+    out[3][4] = 7.5e-6;
+    out[3][5] = 5e-6;
+    out[4][0] = 0.0;
+    out[4][1] = 0.0;
+    out[4][2] = 0.0;
+    out[4][3] = 7.5e-6;
+    out[4][4] = 5e-6;
+    out[4][5] = 3.75e-6;
+    out[5][0] = 0.0;
+    out[5][1] = 0.0;
+    out[5][2] = 0.0;
+    out[5][3] = 5e-6;
+    out[5][4] = 3.75e-6;
+    out[5][5] = 3e-6;
+    out
+}
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
 /// Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
-fn pose_segment0(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
-    let mut pnu = [0.0; 26];
-    moments(0.12 * q[0] * sigma, 13, &mut pnu, 0, 13);
+fn pose_segment0(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    let (pnu, work) = work.split_at_mut(26);
+    let t = &mut work[..43];
+    moments(0.12 * q[0] * sigma, 13, pnu, 0, 13);
     let mut out = [0.0; 3];
-    let mut t = [0.0f64; 43];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -12194,18 +12319,18 @@ fn pose_segment0(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
 /// Backbone pose `[x, y, angle]` of segment 1 at `sigma`.
 ///
 /// Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig.
-fn pose_segment1(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
-    let mut nu = [0.0; NU_LEN];
-    moments(0.12 * q[0], 13, &mut nu, 0, 30);
-    let mut pnu = [0.0; 26];
-    moments(0.1 * q[3] * sigma, 13, &mut pnu, 0, 13);
+fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (pnu, work) = work.split_at_mut(26);
+    let t = &mut work[..61];
+    moments(0.12 * q[0], 13, nu, 0, 30);
+    moments(0.1 * q[3] * sigma, 13, pnu, 0, 13);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
     let mut out = [0.0; 3];
-    let mut t = [0.0f64; 61];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -12473,19 +12598,33 @@ fn pose_segment1(q: &[f64; NQ], sigma: f64) -> [f64; 3] {
         + 0.05 * t[22] * q[4] + 0.03333333333333333 * t[23] * q[5];
     out
 }
+/// The work of [`pose`] and [`pose_ws`], in `work` (at least 207 reals).
+fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64; 3] {
+    if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
+        return [f64::NAN; 3];
+    }
+    match segment {
+        0 => pose_segment0(q, sigma, work),
+        1 => pose_segment1(q, sigma, work),
+        _ => [f64::NAN; 3],
+    }
+}
 /// Backbone pose `[x, y, angle]` at `sigma ∈ [0, 1]` of segment `segment` (0-based):
 /// position [m] in the base frame and tangent angle from +x [rad]. The tip is
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
 pub fn pose(q: &[f64; NQ], segment: usize, sigma: f64) -> [f64; 3] {
-    if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
-        return [f64::NAN; 3];
-    }
-    match segment {
-        0 => pose_segment0(q, sigma),
-        1 => pose_segment1(q, sigma),
-        _ => [f64::NAN; 3],
-    }
+    pose_in(q, segment, sigma, &mut [0.0; 207])
+}
+/// [`pose`] with its scratch in the caller's [`Workspace`] instead of on the stack
+/// (207 reals); the same values.
+pub fn pose_ws(
+    q: &[f64; NQ],
+    segment: usize,
+    sigma: f64,
+    ws: &mut Workspace,
+) -> [f64; 3] {
+    pose_in(q, segment, sigma, &mut ws.0)
 }
 /// Forward dynamics: `q̈` from `B(q) q̈ = A(q) u − C(q, q̇) q̇ − G(q) − K q − D q̇`, by an
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
@@ -12497,11 +12636,31 @@ pub fn forward_dynamics(
     qd: &[f64; NQ],
     u: &[f64; NU],
 ) -> Result<[f64; NQ], DynamicsError> {
+    forward_dynamics_in(q, qd, u, &mut [0.0; 1220])
+}
+/// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
+/// caller's [`Workspace`] instead of on the stack (1220 reals); the same values.
+pub fn forward_dynamics_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[f64; NQ], DynamicsError> {
+    forward_dynamics_in(q, qd, u, &mut ws.0)
+}
+/// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
+/// 1220 reals).
+fn forward_dynamics_in(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    u: &[f64; NU],
+    work: &mut [f64],
+) -> Result<[f64; NQ], DynamicsError> {
     if q.iter().chain(qd.iter()).chain(u.iter()).any(|v| !v.is_finite()) {
         return Err(DynamicsError::NonFiniteInput);
     }
-    let (b, c, g) = terms(q, qd);
-    let (stiff, damp, a) = (stiffness(), damping(), actuation(q));
+    let (b, c, g) = terms_in(q, qd, work);
+    let (stiff, damp, a) = (stiffness(), damping(), actuation_in(q, work));
     let mut f = [0.0; NQ];
     let mut m = [0.0; NQ * (NQ + 1) / 2];
     for i in 0..NQ {
