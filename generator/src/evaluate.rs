@@ -11,14 +11,40 @@ use crate::moments::legendre_moments;
 use crate::terms::{Matrix, Terms};
 use num_traits::ToPrimitive;
 
-/// A compiled evaluation order for one group of outputs.
+/// One step of a tape; operands are positions in the tape's value array.
+#[derive(Clone, Copy, Debug)]
+enum Step {
+    Load(Var),
+    Add(u32, u32),
+    Mul(u32, u32),
+    Neg(u32),
+}
+
+/// A compiled evaluation order for one group of outputs: the live constants first
+/// (copied, not recomputed), then one step per live input or operation, each reading
+/// earlier positions. Compact and in order, so one evaluation streams through it
+/// instead of visiting the whole program's node table.
 struct Tape {
-    nodes: Vec<u32>,
+    consts: Vec<f64>,
+    steps: Vec<Step>,
+    /// Position of each program node in the value array (`u32::MAX`: not on this tape).
+    at: Vec<u32>,
+}
+
+/// Values of one tape's evaluation, read by program node.
+struct Values<'t> {
+    tape: &'t Tape,
+    v: Vec<f64>,
+}
+
+impl Values<'_> {
+    fn get(&self, id: Id) -> f64 {
+        self.v[self.tape.at[id.index()] as usize]
+    }
 }
 
 pub struct Evaluator<'m> {
     model: &'m Model,
-    consts: Vec<f64>,
     /// Moments needed per segment (`max n + 1`), main program and pose programs.
     moments: Vec<usize>,
     pose_moments: Vec<usize>,
@@ -43,29 +69,23 @@ impl<'m> Evaluator<'m> {
         let segs = model.arm.segments.len();
         let mut moments = vec![0usize; segs];
         let mut pose_moments = vec![0usize; segs];
-        let consts = prog
-            .nodes()
-            .iter()
-            .map(|node| match node {
-                Node::Const(c) => c.to_f64().unwrap_or(f64::NAN),
+        for node in prog.nodes() {
+            match node {
                 Node::Var(Var::Nu { seg, n, .. }) => {
                     let m = &mut moments[*seg as usize];
                     *m = (*m).max(*n as usize + 1);
-                    f64::NAN
                 }
                 Node::Var(Var::PoseNu { seg, n, .. }) => {
                     let m = &mut pose_moments[*seg as usize];
                     *m = (*m).max(*n as usize + 1);
-                    f64::NAN
                 }
-                _ => f64::NAN,
-            })
-            .collect();
+                _ => {}
+            }
+        }
         let main = Tape::new(model, &main_roots(model));
         let poses = model.pose.iter().map(|p| Tape::new(model, p)).collect();
         Evaluator {
             model,
-            consts,
             moments,
             pose_moments,
             main,
@@ -122,14 +142,12 @@ impl<'m> Evaluator<'m> {
         }
     }
 
-    fn run(&self, tape: &Tape, st: &State) -> Vec<f64> {
-        let nodes = self.model.program.nodes();
-        let mut v = vec![0.0; nodes.len()];
-        for &i in &tape.nodes {
-            let i = i as usize;
-            v[i] = match &nodes[i] {
-                Node::Const(_) => self.consts[i],
-                Node::Var(var) => match *var {
+    fn run<'t>(&self, tape: &'t Tape, st: &State) -> Values<'t> {
+        let mut v = Vec::with_capacity(tape.consts.len() + tape.steps.len());
+        v.extend_from_slice(&tape.consts);
+        for step in &tape.steps {
+            let x = match *step {
+                Step::Load(var) => match var {
                     Var::Q(k) => st.q[k as usize],
                     Var::Qd(k) => st.qd[k as usize],
                     Var::Sigma => st.sigma,
@@ -152,40 +170,40 @@ impl<'m> Evaluator<'m> {
                     Var::CosPhi(j) => st.cos_phi[j as usize],
                     Var::SinPhi(j) => st.sin_phi[j as usize],
                 },
-                Node::Add(a, b) => v[a.index()] + v[b.index()],
-                Node::Mul(a, b) => v[a.index()] * v[b.index()],
-                Node::Neg(a) => -v[a.index()],
+                Step::Add(a, b) => v[a as usize] + v[b as usize],
+                Step::Mul(a, b) => v[a as usize] * v[b as usize],
+                Step::Neg(a) => -v[a as usize],
             };
+            v.push(x);
         }
-        v
+        Values { tape, v }
     }
 
-    /// All terms at `(q, q̇)`.
     pub fn terms(&self, q: &[f64], qd: &[f64]) -> Terms {
         let m = self.model;
         let st = self.state(q, qd, 0.0, None);
         let v = self.run(&self.main, &st);
         let mat = |ids: &Vec<Vec<Id>>| -> Matrix {
             ids.iter()
-                .map(|r| r.iter().map(|id| v[id.index()]).collect())
+                .map(|r| r.iter().map(|id| v.get(*id)).collect())
                 .collect()
         };
         Terms {
             n: m.n,
             b: mat(&m.inertia),
             c: mat(&m.coriolis),
-            g: m.gravity.iter().map(|id| v[id.index()]).collect(),
+            g: m.gravity.iter().map(|id| v.get(*id)).collect(),
             k: mat(&m.stiffness),
             d: mat(&m.damping),
             a: mat(&m.actuation),
             tip_pose: [
-                v[m.tip_pose[0].index()],
-                v[m.tip_pose[1].index()],
-                v[m.tip_pose[2].index()],
+                v.get(m.tip_pose[0]),
+                v.get(m.tip_pose[1]),
+                v.get(m.tip_pose[2]),
             ],
             tip_jacobian: mat(&m.tip_jacobian),
-            kinetic_energy: v[m.kinetic_energy.index()],
-            potential_energy: v[m.potential_energy.index()],
+            kinetic_energy: v.get(m.kinetic_energy),
+            potential_energy: v.get(m.potential_energy),
         }
     }
 
@@ -194,7 +212,7 @@ impl<'m> Evaluator<'m> {
         let st = self.state(q, &[], sigma, Some(seg));
         let v = self.run(&self.poses[seg], &st);
         let p = self.model.pose[seg];
-        [v[p[0].index()], v[p[1].index()], v[p[2].index()]]
+        [v.get(p[0]), v.get(p[1]), v.get(p[2])]
     }
 }
 
@@ -220,13 +238,32 @@ pub fn main_roots(m: &Model) -> Vec<Id> {
 
 impl Tape {
     fn new(model: &Model, roots: &[Id]) -> Tape {
+        let nodes = model.program.nodes();
         let live = model.program.live(roots);
-        let nodes = live
-            .iter()
-            .enumerate()
-            .filter(|(_, l)| **l)
-            .map(|(i, _)| i as u32)
-            .collect();
-        Tape { nodes }
+        let mut at = vec![u32::MAX; nodes.len()];
+        let mut consts = Vec::new();
+        for (i, node) in nodes.iter().enumerate() {
+            if let (true, Node::Const(c)) = (live[i], node) {
+                at[i] = consts.len() as u32;
+                consts.push(c.to_f64().unwrap_or(f64::NAN));
+            }
+        }
+        let mut steps = Vec::new();
+        for (i, node) in nodes.iter().enumerate() {
+            if !live[i] {
+                continue;
+            }
+            let pos = |id: &Id| at[id.index()];
+            let step = match node {
+                Node::Const(_) => continue,
+                Node::Var(v) => Step::Load(*v),
+                Node::Add(a, b) => Step::Add(pos(a), pos(b)),
+                Node::Mul(a, b) => Step::Mul(pos(a), pos(b)),
+                Node::Neg(a) => Step::Neg(pos(a)),
+            };
+            at[i] = (consts.len() + steps.len()) as u32;
+            steps.push(step);
+        }
+        Tape { consts, steps, at }
     }
 }
