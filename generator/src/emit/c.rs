@@ -447,7 +447,7 @@ pub fn emit(
         "U = U_g + 1/2 q^T K q.",
         &plan.potential_energy,
         r,
-        &[q.clone()],
+        std::slice::from_ref(&q),
         &|_| String::new(),
     );
     let nn = n * n;
