@@ -5369,7 +5369,7 @@ static void hanging_taper_inertia_part7(const double q[], const double kern[], d
 }
 
 
-/* B(q), n x n, row-major. Scratch: work[0 .. 1045) (see HANGING_TAPER_WORK_LEN).
+/* B(q), n x n, row-major. Scratch: work[0 .. HANGING_TAPER_INERTIA_WORK), 1045 reals.
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_inertia_ws(const double q[], double B[], double work[])
 {
@@ -5476,7 +5476,7 @@ void hanging_taper_inertia_ws(const double q[], double B[], double work[])
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_inertia(const double q[], double B[])
 {
-    double work[1045];
+    double work[HANGING_TAPER_INERTIA_WORK];
     hanging_taper_inertia_ws(q, B, work);
 }
 
@@ -5685,7 +5685,7 @@ static void hanging_taper_gravity_part2(const double q[], const double cphi[], c
 }
 
 
-/* G(q) = dU_g/dq. Scratch: work[0 .. 341) (see HANGING_TAPER_WORK_LEN).
+/* G(q) = dU_g/dq. Scratch: work[0 .. HANGING_TAPER_GRAVITY_WORK), 341 reals.
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_gravity_ws(const double q[], double G[], double work[])
 {
@@ -5734,7 +5734,7 @@ void hanging_taper_gravity_ws(const double q[], double G[], double work[])
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_gravity(const double q[], double G[])
 {
-    double work[341];
+    double work[HANGING_TAPER_GRAVITY_WORK];
     hanging_taper_gravity_ws(q, G, work);
 }
 
@@ -5749,7 +5749,7 @@ static const unsigned short hanging_taper_actuation_rows[156] = {
     147, 6, 124, 6, 147, 637, 124, 638, 147, 639, 124
 };
 
-/* A(q), n x k, row-major. Scratch: work[0 .. 248) (see HANGING_TAPER_WORK_LEN).
+/* A(q), n x k, row-major. Scratch: work[0 .. HANGING_TAPER_ACTUATION_WORK), 248 reals.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_actuation_ws(const double q[], double A[], double work[])
 {
@@ -5932,7 +5932,7 @@ void hanging_taper_actuation_ws(const double q[], double A[], double work[])
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_actuation(const double q[], double A[])
 {
-    double work[248];
+    double work[HANGING_TAPER_ACTUATION_WORK];
     hanging_taper_actuation_ws(q, A, work);
 }
 
@@ -5947,7 +5947,7 @@ static const unsigned short hanging_taper_tip_jacobian_rows[156] = {
     147, 6, 124, 6, 147, 637, 124, 638, 147, 639, 124
 };
 
-/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. 248) (see HANGING_TAPER_WORK_LEN).
+/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. HANGING_TAPER_TIP_JACOBIAN_WORK), 248 reals.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[])
 {
@@ -6130,7 +6130,7 @@ void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[])
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_tip_jacobian(const double q[], double J[])
 {
-    double work[248];
+    double work[HANGING_TAPER_TIP_JACOBIAN_WORK];
     hanging_taper_tip_jacobian_ws(q, J, work);
 }
 
@@ -6146,7 +6146,7 @@ static const unsigned short hanging_taper_potential_energy_rows[170] = {
     505, 147, 506, 124, 506, 147, 507, 124, 507, 147
 };
 
-/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. 255) (see HANGING_TAPER_WORK_LEN).
+/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. HANGING_TAPER_POTENTIAL_ENERGY_WORK), 255 reals.
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_potential_energy_ws(const double q[], double work[])
 {
@@ -6256,7 +6256,7 @@ double hanging_taper_potential_energy_ws(const double q[], double work[])
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_potential_energy(const double q[])
 {
-    double work[255];
+    double work[HANGING_TAPER_POTENTIAL_ENERGY_WORK];
     return hanging_taper_potential_energy_ws(q, work);
 }
 
@@ -8824,7 +8824,7 @@ static void hanging_taper_terms_part16(const double q[], const double qd[], cons
 }
 
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. 1514) (see HANGING_TAPER_WORK_LEN).
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. HANGING_TAPER_TERMS_WORK), 1514 reals.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
 {
@@ -9102,12 +9102,12 @@ void hanging_taper_terms_ws(const double q[], const double qd[], double B[], dou
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_terms(const double q[], const double qd[], double B[], double C[], double G[])
 {
-    double work[1514];
+    double work[HANGING_TAPER_TERMS_WORK];
     hanging_taper_terms_ws(q, qd, B, C, G, work);
 }
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. 1109) (see HANGING_TAPER_WORK_LEN).
+/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. HANGING_TAPER_KINETIC_ENERGY_WORK), 1109 reals.
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[])
 {
@@ -9131,12 +9131,12 @@ double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], doub
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_kinetic_energy(const double q[], const double qd[])
 {
-    double work[1109];
+    double work[HANGING_TAPER_KINETIC_ENERGY_WORK];
     return hanging_taper_kinetic_energy_ws(q, qd, work);
 }
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. 1586) (see HANGING_TAPER_WORK_LEN).
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. HANGING_TAPER_CORIOLIS_WORK), 1586 reals.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[])
 {
@@ -9150,7 +9150,7 @@ void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], 
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_coriolis(const double q[], const double qd[], double C[])
 {
-    double work[1586];
+    double work[HANGING_TAPER_CORIOLIS_WORK];
     hanging_taper_coriolis_ws(q, qd, C, work);
 }
 
@@ -9890,7 +9890,7 @@ void hanging_taper_pose_ws(const double q[], int segment, double sigma, double p
 
 void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3])
 {
-    double work[259];
+    double work[HANGING_TAPER_POSE_WORK];
     hanging_taper_pose_ws(q, segment, sigma, pose, work);
 }
 
@@ -9899,7 +9899,8 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
-     * All of them, and the scratch of terms and actuation, live in work[0 .. 1846). */
+     * All of them, and the scratch of terms and actuation, live in
+     * work[0 .. HANGING_TAPER_FORWARD_DYNAMICS_WORK), 1846 reals. */
     double *const B = &work[0];
     double *const C = &work[64];
     double *const G = &work[128];
@@ -9993,6 +9994,6 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
 int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
-    double work[1846];
+    double work[HANGING_TAPER_FORWARD_DYNAMICS_WORK];
     return hanging_taper_forward_dynamics_ws(q, qd, u, qdd, work);
 }

@@ -3421,7 +3421,7 @@ static void reach_arm_inertia_part6(const double q[], const double kern[], doubl
 }
 
 
-/* B(q), n x n, row-major. Scratch: work[0 .. 845) (see REACH_ARM_WORK_LEN).
+/* B(q), n x n, row-major. Scratch: work[0 .. REACH_ARM_INERTIA_WORK), 845 reals.
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_inertia_ws(const double q[], double B[], double work[])
 {
@@ -3489,7 +3489,7 @@ void reach_arm_inertia_ws(const double q[], double B[], double work[])
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_inertia(const double q[], double B[])
 {
-    double work[845];
+    double work[REACH_ARM_INERTIA_WORK];
     reach_arm_inertia_ws(q, B, work);
 }
 
@@ -3507,7 +3507,7 @@ static const unsigned short reach_arm_gravity_rows[212] = {
     356, 90, 357, 60, 358, 90, 359, 60
 };
 
-/* G(q) = dU_g/dq. Scratch: work[0 .. 226) (see REACH_ARM_WORK_LEN).
+/* G(q) = dU_g/dq. Scratch: work[0 .. REACH_ARM_GRAVITY_WORK), 226 reals.
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_gravity_ws(const double q[], double G[], double work[])
 {
@@ -3705,12 +3705,12 @@ void reach_arm_gravity_ws(const double q[], double G[], double work[])
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_gravity(const double q[], double G[])
 {
-    double work[226];
+    double work[REACH_ARM_GRAVITY_WORK];
     reach_arm_gravity_ws(q, G, work);
 }
 
 
-/* A(q), n x k, row-major. Scratch: work[0 .. 0) (see REACH_ARM_WORK_LEN).
+/* A(q), n x k, row-major. Scratch: work[0 .. REACH_ARM_ACTUATION_WORK), 0 reals.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
 void reach_arm_actuation_ws(const double q[], double A[], double work[])
 {
@@ -3759,7 +3759,7 @@ static const unsigned short reach_arm_tip_jacobian_rows[116] = {
     348, 60, 348, 90, 355, 60, 356, 90, 357, 60, 358, 90, 359, 60
 };
 
-/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. 178) (see REACH_ARM_WORK_LEN).
+/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. REACH_ARM_TIP_JACOBIAN_WORK), 178 reals.
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[])
 {
@@ -3907,7 +3907,7 @@ void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[])
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_tip_jacobian(const double q[], double J[])
 {
-    double work[178];
+    double work[REACH_ARM_TIP_JACOBIAN_WORK];
     reach_arm_tip_jacobian_ws(q, J, work);
 }
 
@@ -3922,7 +3922,7 @@ static const unsigned short reach_arm_potential_energy_rows[150] = {
     224, 60, 224, 90, 225, 60, 225, 90, 226, 60, 226, 90
 };
 
-/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. 195) (see REACH_ARM_WORK_LEN).
+/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. REACH_ARM_POTENTIAL_ENERGY_WORK), 195 reals.
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_potential_energy_ws(const double q[], double work[])
 {
@@ -4021,7 +4021,7 @@ double reach_arm_potential_energy_ws(const double q[], double work[])
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_potential_energy(const double q[])
 {
-    double work[195];
+    double work[REACH_ARM_POTENTIAL_ENERGY_WORK];
     return reach_arm_potential_energy_ws(q, work);
 }
 
@@ -6243,7 +6243,7 @@ static void reach_arm_terms_part13(const double q[], const double qd[], const do
 }
 
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. 1220) (see REACH_ARM_WORK_LEN).
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. REACH_ARM_TERMS_WORK), 1220 reals.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
 {
@@ -6393,12 +6393,12 @@ void reach_arm_terms_ws(const double q[], const double qd[], double B[], double 
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_terms(const double q[], const double qd[], double B[], double C[], double G[])
 {
-    double work[1220];
+    double work[REACH_ARM_TERMS_WORK];
     reach_arm_terms_ws(q, qd, B, C, G, work);
 }
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. 881) (see REACH_ARM_WORK_LEN).
+/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. REACH_ARM_KINETIC_ENERGY_WORK), 881 reals.
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[])
 {
@@ -6422,12 +6422,12 @@ double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double w
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_kinetic_energy(const double q[], const double qd[])
 {
-    double work[881];
+    double work[REACH_ARM_KINETIC_ENERGY_WORK];
     return reach_arm_kinetic_energy_ws(q, qd, work);
 }
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. 1262) (see REACH_ARM_WORK_LEN).
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. REACH_ARM_CORIOLIS_WORK), 1262 reals.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[])
 {
@@ -6441,7 +6441,7 @@ void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], doub
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_coriolis(const double q[], const double qd[], double C[])
 {
-    double work[1262];
+    double work[REACH_ARM_CORIOLIS_WORK];
     reach_arm_coriolis_ws(q, qd, C, work);
 }
 
@@ -6869,7 +6869,7 @@ void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[
 
 void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
 {
-    double work[207];
+    double work[REACH_ARM_POSE_WORK];
     reach_arm_pose_ws(q, segment, sigma, pose, work);
 }
 
@@ -6878,7 +6878,8 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
-     * All of them, and the scratch of terms and actuation, live in work[0 .. 1421). */
+     * All of them, and the scratch of terms and actuation, live in
+     * work[0 .. REACH_ARM_FORWARD_DYNAMICS_WORK), 1421 reals. */
     double *const B = &work[0];
     double *const C = &work[36];
     double *const G = &work[72];
@@ -6972,6 +6973,6 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
 int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
-    double work[1421];
+    double work[REACH_ARM_FORWARD_DYNAMICS_WORK];
     return reach_arm_forward_dynamics_ws(q, qd, u, qdd, work);
 }

@@ -357,7 +357,10 @@ pub fn emit(
         };
         funcs.push(CFunc {
             rows,
-            formula: format!("{formula} Scratch: work[0 .. {len}) (see {up}_WORK_LEN)."),
+            formula: format!(
+                "{formula} Scratch: work[0 .. {up}_{}_WORK), {len} reals.",
+                fname.to_uppercase()
+            ),
             ops: ops.clone(),
             signature: format!("{ret} {name}_{fname}_ws({}, {r} work[])", decls.join(", ")),
             body,
@@ -369,7 +372,8 @@ pub fn emit(
             )
         } else {
             format!(
-                "    {r} work[{len}];\n    {ret_kw}{name}_{fname}_ws({}, work);\n",
+                "    {r} work[{up}_{}_WORK];\n    {ret_kw}{name}_{fname}_ws({}, work);\n",
+                fname.to_uppercase(),
                 args.join(", ")
             )
         };
