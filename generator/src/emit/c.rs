@@ -405,13 +405,18 @@ pub fn emit(
         ("stiffness", "K, n x n, row-major.", &plan.stiffness, "K"),
         ("damping", "D, n x n, row-major.", &plan.damping, "D"),
     ] {
-        let (rows, body, _) = p.body(func, fname, None, &flat(arr));
+        let (rows, body, len) = p.body(func, fname, None, &flat(arr));
         constant_funcs.push(CFunc {
             rows,
             formula: formula.into(),
             ops: ops_line(func),
             signature: format!("void {name}_{fname}({r} {arr}[])"),
-            body,
+            // (A constant needs no scratch; should one ever need some, it gets its own.)
+            body: if len == 0 {
+                body
+            } else {
+                format!("    {r} work[{len}];\n{body}")
+            },
         });
     }
     let inertia_work = generated(
