@@ -135,6 +135,7 @@ mod tests {
 
     /// `∫_0^1 P̃_n(t) e^{iat} dt` by composite Gauss–Legendre (64 panels × 8 points),
     /// with `P̃_n` by Bonnet's recursion: an independent check of the closed form.
+    #[allow(clippy::excessive_precision)] // the table's digits, as printed
     fn by_quadrature(a: f64, n: usize) -> (f64, f64) {
         // 8-point Gauss–Legendre nodes and weights on [−1, 1] (Abramowitz & Stegun, Table 25.4).
         const X: [f64; 4] = [

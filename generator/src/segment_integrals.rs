@@ -134,8 +134,11 @@ pub struct Reducer {
     tables: Tables,
     weights: Vec<Vec<Q>>,
     single_cache: HashMap<(usize, u32), Vec<Q>>,
-    double_cache: HashMap<(usize, u32, u32), (Vec<Q>, Vec<Q>)>,
+    double_cache: HashMap<(usize, u32, u32), DoubleKernel>,
 }
+
+/// A double kernel's coefficients over the moments: its real and imaginary rows.
+pub type DoubleKernel = (Vec<Q>, Vec<Q>);
 
 /// A weight registered with a [`Reducer`].
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
@@ -223,7 +226,7 @@ impl Reducer {
 
     /// `(Σ, Δ)` with `Re D = Σ_n Σ_n·Re ν_n`, `Im D = Σ_n Δ_n·Im ν_n` where
     /// `D = ∫_0^1 P(σ) conj(I_s(σ)) I_t(σ) dσ` and `I_s(σ) = ∫_0^σ τ^s e^{iaτ} dτ`.
-    pub fn double_kernel(&mut self, w: WeightId, s: u32, t: u32) -> (Vec<Q>, Vec<Q>) {
+    pub fn double_kernel(&mut self, w: WeightId, s: u32, t: u32) -> DoubleKernel {
         if let Some(k) = self.double_cache.get(&(w.0, s, t)) {
             return k.clone();
         }

@@ -1,5 +1,6 @@
 //! Helpers shared by the cross-check tests.
-#![allow(dead_code)]
+// Indexed loops read best in these small dense solvers.
+#![allow(dead_code, clippy::needless_range_loop)]
 
 use arcwright::arm::{parse_arm_file, parse_arm_str, Arm};
 use num_traits::ToPrimitive;

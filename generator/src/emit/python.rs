@@ -132,7 +132,8 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let zeros = |r: &str, c: &str| format!("    out = np.zeros(({r}, {c}))\n");
     let nn = zeros("NQ", "NQ");
     let ret = "    return out\n";
-    let specs: Vec<(Spec, &Func, Box<dyn Fn(usize) -> String>)> = vec![
+    type Target = Box<dyn Fn(usize) -> String>;
+    let specs: Vec<(Spec, &Func, Target)> = vec![
         (
             Spec {
                 fname: "inertia",
