@@ -179,6 +179,7 @@ impl<'m> Evaluator<'m> {
         Values { tape, v }
     }
 
+    /// All terms at `(q, q̇)`.
     pub fn terms(&self, q: &[f64], qd: &[f64]) -> Terms {
         let m = self.model;
         let st = self.state(q, qd, 0.0, None);
