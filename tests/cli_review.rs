@@ -235,7 +235,8 @@ fn verify_passes_on_fresh_output_and_catches_a_stale_file() {
     }
     assert!(text.contains("numeric reference"), "{text}");
 
-    // One byte of the C file changed: stale, exit 1.
+    // One byte of the C file changed by hand: an edit the marker's manifest catches,
+    // exit 1.
     let c_file = out_dir.join("c/small_arm.c");
     let mut bytes = fs::read(&c_file).unwrap();
     let at = bytes.iter().rposition(|&b| b == b'1').unwrap();
@@ -252,7 +253,7 @@ fn verify_passes_on_fresh_output_and_catches_a_stale_file() {
     ]);
     assert_eq!(out.status.code(), Some(1), "{}", describe(&out));
     assert!(
-        stdout(&out).contains("stale c/small_arm.c"),
+        stdout(&out).contains("foreign  c/small_arm.c (edited since arcwright wrote it)"),
         "{}",
         describe(&out)
     );

@@ -10,7 +10,8 @@
 
 use arcwright::arm::parse_arm_file;
 use arcwright::derive::derive;
-use arcwright::emit::{emit, write::write_tree, Options, Precision};
+use arcwright::emit::{emit, Options, Precision};
+use arcwright::outdir::write_tree;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 use std::process::Command;
@@ -61,7 +62,7 @@ fn generated(path: &Path, precision: Precision) -> PathBuf {
         },
     )
     .expect("emits");
-    write_tree(&out, &files).expect("writes");
+    write_tree(&out, &files, &|_| {}).expect("writes");
     done.insert(key, out.clone());
     out
 }

@@ -7,8 +7,9 @@
 
 use arcwright::arm::parse_arm_file;
 use arcwright::derive::derive;
-use arcwright::emit::{emit, plan::Plan, write::write_tree, Options, Precision};
+use arcwright::emit::{emit, plan::Plan, Options, Precision};
 use arcwright::evaluate::Evaluator;
+use arcwright::outdir::write_tree;
 use arcwright::reference::{Kinematics, Reference};
 use std::path::Path;
 use std::process::Command;
@@ -70,7 +71,7 @@ fn main() {
     let model = derive(&arm);
     let files = emit(&model, &text, Options::default()).unwrap();
     let out = root.join("target/bench-emitted/reach_arm");
-    write_tree(&out, &files).unwrap();
+    write_tree(&out, &files, &|_| {}).unwrap();
     println!(
         "generate (derive + plan + golden + emit + write), in-process: {:.2?}",
         t.elapsed()
@@ -180,7 +181,7 @@ fn main() {
         },
     )
     .unwrap();
-    write_tree(&out32, &files32).unwrap();
+    write_tree(&out32, &files32, &|_| {}).unwrap();
     let c32 = out32.join("c");
     let t = Instant::now();
     let arm_ok = Command::new("arm-none-eabi-gcc")

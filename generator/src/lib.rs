@@ -21,6 +21,7 @@ pub mod ir;
 pub mod local_form;
 pub mod moments;
 pub mod optimise;
+pub mod outdir;
 pub mod reference;
 pub mod segment_integrals;
 pub mod terms;

@@ -4,10 +4,11 @@ use super::eval::load_arm;
 use super::CliError;
 use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
 use crate::derive::{derive, Model};
-use crate::emit::{emit, emitted_ops, write::write_tree, Options, OutFile, Precision};
+use crate::emit::{emit, emitted_ops, Language, Options, Precision};
 use crate::optimise::{optimise, Limits};
+use crate::outdir::{compare, write_tree};
 use clap::{Args, ValueEnum};
-use std::path::{Path, PathBuf};
+use std::path::PathBuf;
 
 #[derive(Clone, Copy, Debug, ValueEnum)]
 pub enum PrecisionArg {
@@ -17,19 +18,18 @@ pub enum PrecisionArg {
 
 /// A target language of `generate`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
-pub enum Language {
+pub enum LanguageArg {
     C,
     Rust,
     Python,
 }
 
-impl Language {
-    /// The output subfolder holding this language's files.
-    fn folder(self) -> &'static str {
-        match self {
-            Language::C => "c/",
-            Language::Rust => "rust/",
-            Language::Python => "python/",
+impl From<LanguageArg> for Language {
+    fn from(l: LanguageArg) -> Language {
+        match l {
+            LanguageArg::C => Language::C,
+            LanguageArg::Rust => Language::Rust,
+            LanguageArg::Python => Language::Python,
         }
     }
 }
@@ -59,7 +59,7 @@ pub struct GenerateArgs {
         value_delimiter = ',',
         default_value = "c,rust,python"
     )]
-    lang: Vec<Language>,
+    lang: Vec<LanguageArg>,
     /// Expansion order N, overriding the arm file (the recorded arm.toml says N).
     #[arg(long)]
     order: Option<u32>,
@@ -139,26 +139,21 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
         Options {
             precision,
             optimised: args.optimise,
+            languages: args.lang.iter().map(|l| Language::from(*l)).collect(),
         },
     );
     bar.finish_and_clear();
     if let Some(note) = note {
         super::progress::note(&note);
     }
-    let files: Vec<OutFile> = emitted
-        .map_err(CliError::Failed)?
-        .into_iter()
-        .filter(|(path, _)| {
-            !path.contains('/') || args.lang.iter().any(|l| path.starts_with(l.folder()))
-        })
-        .collect();
+    let files = emitted.map_err(CliError::Failed)?;
     if args.check {
-        let changes = changed_files(&args.out, &files);
+        let changes = compare(&args.out, &files).map_err(CliError::Input)?;
         if changes.is_empty() {
             return super::print_stdout(&format!("{} is up to date\n", args.out.display()));
         }
         let mut msg = format!(
-            "{} is stale; `generate` would change:\n",
+            "{} differs from what `generate` writes now:\n",
             args.out.display()
         );
         for c in &changes {
@@ -166,60 +161,17 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
         }
         super::print_stdout(&msg)?;
         return Err(CliError::Failed(format!(
-            "{} file(s) would change",
+            "{} path(s) differ",
             changes.len()
         )));
     }
-    write_tree(&args.out, &files).map_err(CliError::Input)?;
+    write_tree(&args.out, &files, &|parent| {
+        super::progress::note(&format!(
+            "waiting for another arcwright run writing into {}",
+            parent.display()
+        ))
+    })
+    .map_err(CliError::Input)?;
     super::progress::wrote(&args.out);
     Ok(())
-}
-
-/// Files that differ between what `generate` would write and what `dir` holds, as
-/// `changed PATH`, `new PATH` and `removed PATH`, sorted by path.
-fn changed_files(dir: &Path, files: &[OutFile]) -> Vec<String> {
-    let mut out = Vec::new();
-    let mut expected: Vec<&str> = Vec::new();
-    for (path, text) in files {
-        expected.push(path);
-        match std::fs::read(dir.join(path)) {
-            Ok(bytes) if bytes == text.as_bytes() => {}
-            Ok(_) => out.push(format!("changed {path}")),
-            Err(_) => out.push(format!("new     {path}")),
-        }
-    }
-    for path in files_under(dir) {
-        if !expected.contains(&path.as_str()) {
-            out.push(format!("removed {path}"));
-        }
-    }
-    out.sort_by(|a, b| a[8..].cmp(&b[8..]));
-    out
-}
-
-/// Relative paths of the files below `dir` (build products of the shipped tests excluded).
-fn files_under(dir: &Path) -> Vec<String> {
-    let mut out = Vec::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        let Ok(entries) = std::fs::read_dir(&d) else {
-            continue;
-        };
-        for e in entries.flatten() {
-            let p = e.path();
-            if p.is_dir() {
-                if p.file_name()
-                    .is_some_and(|n| n != "target" && n != "__pycache__")
-                {
-                    stack.push(p);
-                }
-            } else if let Ok(rel) = p.strip_prefix(dir) {
-                let rel = rel.to_string_lossy().replace('\\', "/");
-                if rel != "rust/Cargo.lock" {
-                    out.push(rel);
-                }
-            }
-        }
-    }
-    out
 }

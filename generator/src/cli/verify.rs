@@ -17,10 +17,11 @@ use super::{progress, CliError};
 use crate::arm::{Arm, MAX_WORKSPACE_SAMPLES};
 use crate::dynamics::{forward_dynamics, generalized_force};
 use crate::emit::golden::{Golden, SIGMAS};
-use crate::emit::write::{marker_options, write_tree, MARKER};
+use crate::emit::marker::MARKER;
 use crate::emit::FUNCTIONS;
-use crate::emit::{emit, Meta, Options, Precision};
+use crate::emit::{emit, Language, Languages, Meta, Options, Precision};
 use crate::evaluate::Evaluator;
+use crate::outdir::{compare, read_marker, walk::walk};
 use crate::reference::{Kinematics, Reference};
 use clap::{Args, ValueEnum};
 use rand::{Rng, SeedableRng};
@@ -100,15 +101,24 @@ impl Report {
 
 pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
     let dir = &args.dir;
-    if !dir.is_dir() {
-        return Err(CliError::Input(format!(
-            "{}: no such folder",
-            dir.display()
-        )));
+    match fs::symlink_metadata(dir) {
+        Err(_) => {
+            return Err(CliError::Input(format!(
+                "{}: no such folder",
+                dir.display()
+            )))
+        }
+        Ok(m) if !m.is_dir() => {
+            return Err(CliError::Input(format!(
+                "{}: not a folder (give the output folder that `generate --out` wrote)",
+                dir.display()
+            )))
+        }
+        Ok(_) => {}
     }
-    let marker = fs::read_to_string(dir.join(MARKER)).map_err(|_| {
+    let record = read_marker(dir).ok_or_else(|| {
         CliError::Input(format!(
-            "{}: not an arcwright output folder (no {MARKER} file)",
+            "{}: not an arcwright output folder (no {MARKER} file that arcwright wrote)",
             dir.display()
         ))
     })?;
@@ -151,51 +161,54 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
 
     // The arm file behind the folder.
     let sha = Meta::new(&text, arm.expansion_order).arm_sha256;
-    match marker_sha(&marker) {
-        Some(m) if m == sha => report.push(
+    if record.arm_sha256 == sha {
+        report.push(
             "arm file",
             Outcome::Ok("SHA-256 matches the folder's marker".into()),
-        ),
-        Some(m) => report.push(
+        );
+    } else {
+        report.push(
             "arm file",
             Outcome::Failed(format!(
-                "SHA-256 {sha} but the folder was generated from {m}: the folder is stale or the arm file is another"
+                "SHA-256 {sha} but the folder was generated from {}: the folder is stale or the arm file is another",
+                record.arm_sha256
             )),
-        ),
-        None => report.push(
-            "arm file",
-            Outcome::Failed(format!("{MARKER} records no arm file SHA-256")),
-        ),
+        );
     }
 
     // Byte comparison with a fresh generation.
-    let options = marker_options(&marker).unwrap_or(Options {
+    let options = record.options.unwrap_or(Options {
         precision: detect_precision(dir, &arm.name),
         optimised: args.optimise,
+        languages: Languages::ALL,
     });
     let scratch = tempfile::Builder::new()
         .prefix("arcwright-verify-")
         .tempdir()
         .map_err(|e| CliError::Failed(format!("creating a temporary folder: {e}")))?;
-    let fresh_dir = scratch.path().join("fresh");
     let bar = progress::bar(1, "deriving and generating");
     let (model, _) = super::generate::model_for_emission(&arm, options.optimised)?;
     let files = emit(&model, &text, options).map_err(CliError::Failed)?;
-    write_tree(&fresh_dir, &files).map_err(CliError::Failed)?;
     bar.finish_and_clear();
-    report.push("files", compare_trees(dir, &fresh_dir, files.len()));
+    report.push("files", compare_with(dir, &files));
 
     // Shipped tests, on a copy so that nothing (bytecode, Cargo.lock) lands in DIR.
     let shipped = scratch.path().join("shipped");
     copy_tree(dir, &shipped).map_err(CliError::Failed)?;
     let name = &arm.name;
     for check in [Check::C, Check::Rust, Check::Python] {
-        let label = match check {
-            Check::C => "C test",
-            Check::Rust => "Rust test",
-            Check::Python => "Python test",
+        let (label, language) = match check {
+            Check::C => ("C test", Language::C),
+            Check::Rust => ("Rust test", Language::Rust),
+            Check::Python => ("Python test", Language::Python),
         };
-        let outcome = if args.skip.contains(&check) {
+        let outcome = if !options.languages.contains(language) {
+            Outcome::Skipped(format!(
+                "the folder holds no {} code (generated with --lang {})",
+                language.name(),
+                options.languages.names().join(",")
+            ))
+        } else if args.skip.contains(&check) {
             Outcome::Skipped(format!(
                 "--skip {}",
                 check
@@ -273,16 +286,6 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
     }
 }
 
-/// The arm file SHA-256 the marker records.
-fn marker_sha(marker: &str) -> Option<String> {
-    let at = marker.find("SHA-256 ")? + "SHA-256 ".len();
-    let hex: String = marker[at..]
-        .chars()
-        .take_while(|c| c.is_ascii_hexdigit())
-        .collect();
-    (hex.len() == 64).then_some(hex)
-}
-
 /// The C precision the folder was written with, from its header's note (for markers
 /// that do not record it).
 fn detect_precision(dir: &Path, name: &str) -> Precision {
@@ -292,68 +295,31 @@ fn detect_precision(dir: &Path, name: &str) -> Precision {
     }
 }
 
-/// Relative paths of all files under `root`, sorted.
-fn list_files(root: &Path) -> Result<Vec<String>, String> {
-    fn walk(root: &Path, at: &Path, out: &mut Vec<String>) -> Result<(), String> {
-        let entries = fs::read_dir(at).map_err(|e| format!("reading {}: {e}", at.display()))?;
-        for e in entries {
-            let e = e.map_err(|e| format!("reading {}: {e}", at.display()))?;
-            let p = e.path();
-            if p.is_dir() {
-                walk(root, &p, out)?;
-            } else {
-                let rel = p.strip_prefix(root).unwrap_or(&p);
-                out.push(rel.to_string_lossy().replace('\\', "/"));
+/// The file comparison with a fresh generation, as one check line (the list of
+/// differences one per line, as `generate --check` prints it).
+fn compare_with(dir: &Path, files: &[crate::emit::OutFile]) -> Outcome {
+    match compare(dir, files) {
+        Err(e) => Outcome::Failed(e),
+        Ok(d) if d.is_empty() => Outcome::Ok(format!(
+            "all {} files as `generate` writes them now",
+            files.len()
+        )),
+        Ok(d) => {
+            let mut msg = format!(
+                "{} path(s) differ from what `generate` writes now:",
+                d.len()
+            );
+            for x in &d {
+                msg.push_str(&format!("\n    {x}"));
             }
+            Outcome::Failed(msg)
         }
-        Ok(())
-    }
-    let mut out = Vec::new();
-    walk(root, root, &mut out)?;
-    out.sort();
-    Ok(out)
-}
-
-/// Byte comparison of the folder with the fresh generation.
-fn compare_trees(dir: &Path, fresh: &Path, count: usize) -> Outcome {
-    let (have, want) = match (list_files(dir), list_files(fresh)) {
-        (Ok(h), Ok(w)) => (h, w),
-        (Err(e), _) | (_, Err(e)) => return Outcome::Failed(e),
-    };
-    let mut problems = Vec::new();
-    for rel in &want {
-        if !have.contains(rel) {
-            problems.push(format!("missing {rel}"));
-            continue;
-        }
-        let a = fs::read(dir.join(rel)).unwrap_or_default();
-        let b = fs::read(fresh.join(rel)).unwrap_or_default();
-        if a != b {
-            let at = a
-                .iter()
-                .zip(&b)
-                .position(|(x, y)| x != y)
-                .unwrap_or(a.len().min(b.len()));
-            let line = a[..at].iter().filter(|&&c| c == b'\n').count() + 1;
-            problems.push(format!("stale {rel} (differs from line {line})"));
-        }
-    }
-    let extra: Vec<&String> = have
-        .iter()
-        .filter(|r| !want.contains(r) && r.as_str() != "arm.toml")
-        .collect();
-    for rel in extra {
-        problems.push(format!("extra {rel} (generate would delete it)"));
-    }
-    if problems.is_empty() {
-        Outcome::Ok(format!("all {count} files as `generate` writes them now"))
-    } else {
-        Outcome::Failed(problems.join("; "))
     }
 }
 
+/// Copies the regular files of `from` (never a link, never a build product) to `to`.
 fn copy_tree(from: &Path, to: &Path) -> Result<(), String> {
-    for rel in list_files(from)? {
+    for rel in walk(from)?.files {
         let dst = to.join(&rel);
         if let Some(p) = dst.parent() {
             fs::create_dir_all(p).map_err(|e| format!("creating {}: {e}", p.display()))?;
@@ -418,14 +384,14 @@ fn run_c(shipped: &Path, scratch: &Path, name: &str) -> Outcome {
     match build {
         Err(e) => return Outcome::Failed(format!("running {}: {e}", cc.display())),
         Ok(o) if !o.status.success() => {
-            return Outcome::Failed(format!("{cc_name} -std=c99 -O0 failed: {}", tail(&o)))
+            return Outcome::Failed(format!("{cc_name} -std=c99 -O2 failed: {}", tail(&o)))
         }
         Ok(_) => {}
     }
     match Command::new(&exe).current_dir(&c).output() {
         Err(e) => Outcome::Failed(format!("running the test: {e}")),
         Ok(o) if o.status.success() => {
-            Outcome::Ok(format!("{} ({cc_name} -std=c99 -O0)", counts(&o)))
+            Outcome::Ok(format!("{} ({cc_name} -std=c99 -O2)", counts(&o)))
         }
         Ok(o) => Outcome::Failed(format!("{} | {}", counts(&o), tail(&o))),
     }

@@ -4,13 +4,15 @@
 //!
 //! The pipeline inside: [`plan::Plan`] schedules every function once, language-neutral
 //! ([`schedule`]); [`c`], [`rust`] and [`python`] print it through the Tera templates
-//! in `templates/`; [`golden`] computes the test values; [`write`] puts the tree in
-//! place atomically. Output is byte-for-byte deterministic.
+//! in `templates/`; [`golden`] computes the test values; [`marker`] records what was
+//! written. Putting the tree on disk is [`crate::outdir`]'s job. Output is byte-for-byte
+//! deterministic.
 
 pub mod body;
 pub mod c;
 pub mod constants;
 pub mod golden;
+pub mod marker;
 pub mod number;
 pub mod ops;
 pub mod plan;
@@ -19,7 +21,6 @@ pub mod python;
 pub mod rust;
 pub mod schedule;
 pub mod templates;
-pub mod write;
 
 use crate::derive::Model;
 pub use number::Precision;
@@ -46,13 +47,88 @@ impl Meta {
     }
 }
 
-#[derive(Clone, Copy, Debug)]
+/// A target language.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+pub enum Language {
+    C,
+    Rust,
+    Python,
+}
+
+impl Language {
+    pub const ALL: [Language; 3] = [Language::C, Language::Rust, Language::Python];
+
+    /// The name on the command line and in the marker.
+    pub fn name(self) -> &'static str {
+        match self {
+            Language::C => "c",
+            Language::Rust => "rust",
+            Language::Python => "python",
+        }
+    }
+
+    pub fn from_name(name: &str) -> Option<Language> {
+        Language::ALL.into_iter().find(|l| l.name() == name)
+    }
+
+    /// The output subfolder holding this language's files (the same as its name).
+    pub fn folder(self) -> &'static str {
+        self.name()
+    }
+
+    fn bit(self) -> u8 {
+        1 << (self as u8)
+    }
+}
+
+/// A set of target languages.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub struct Languages(u8);
+
+impl Languages {
+    pub const ALL: Languages = Languages(0b111);
+    pub const NONE: Languages = Languages(0);
+
+    pub fn only(l: Language) -> Languages {
+        Languages(l.bit())
+    }
+    pub fn insert(&mut self, l: Language) {
+        self.0 |= l.bit();
+    }
+    pub fn contains(self, l: Language) -> bool {
+        self.0 & l.bit() != 0
+    }
+    pub fn is_empty(self) -> bool {
+        self.0 == 0
+    }
+    pub fn iter(self) -> impl Iterator<Item = Language> {
+        Language::ALL.into_iter().filter(move |l| self.contains(*l))
+    }
+    pub fn names(self) -> Vec<&'static str> {
+        self.iter().map(Language::name).collect()
+    }
+}
+
+impl FromIterator<Language> for Languages {
+    fn from_iter<I: IntoIterator<Item = Language>>(iter: I) -> Self {
+        let mut set = Languages::NONE;
+        for l in iter {
+            set.insert(l);
+        }
+        set
+    }
+}
+
+/// How a folder is generated; all of it is recorded in the folder's marker, so that
+/// `verify` regenerates the same way.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct Options {
     /// Precision of the C output (Rust and Python are always double).
     pub precision: Precision,
-    /// The model went through the optimiser (recorded in the folder's marker, so that
-    /// `verify` regenerates the same way).
+    /// The model went through the optimiser.
     pub optimised: bool,
+    /// The languages written.
+    pub languages: Languages,
 }
 
 impl Default for Options {
@@ -60,6 +136,7 @@ impl Default for Options {
         Options {
             precision: Precision::F64,
             optimised: false,
+            languages: Languages::ALL,
         }
     }
 }
@@ -82,10 +159,19 @@ pub const FUNCTIONS: [&str; 11] = [
 /// Name of the copy of the arm file at the top of every output folder.
 pub const RECORDED_ARM: &str = "arm.toml";
 
+/// Name of the ignore file at the top of every output folder.
+pub const IGNORE_FILE: &str = ".gitignore";
+
+/// What building and running the shipped tests leaves in an output folder. `generate`
+/// and `verify` pass over these (and only these) and `generate` deletes them with the
+/// old tree; the folder's `.gitignore` lists them.
+pub const BUILD_ARTEFACTS: [&str; 3] = ["rust/target/", "rust/Cargo.lock", "python/__pycache__/"];
+
 /// One output file: path relative to the output folder, and its text.
 pub type OutFile = (String, String);
 
-/// All files for one arm: `c/`, `rust/`, `python/`, sorted by path.
+/// All files for one arm: `c/`, `rust/`, `python/` (those of `options.languages`), the
+/// arm file, the ignore file and the marker, sorted by path.
 pub fn emit(model: &Model, arm_text: &str, options: Options) -> Result<Vec<OutFile>, String> {
     let model = model.clone();
     let arm_text = arm_text.to_string();
@@ -114,16 +200,43 @@ fn emit_inner(model: &Model, arm_text: &str, options: Options) -> Result<Vec<Out
     let plan = plan::Plan::new(model, true);
     let golden = golden::Golden::compute(&model.arm);
     let mut files = Vec::new();
-    files.extend(c::emit(&plan, &meta, options.precision, &golden)?);
-    files.extend(rust::emit(&plan, &meta, &golden)?);
-    files.extend(python::emit(&plan, &meta, &golden)?);
-    files.push((
-        write::MARKER.to_string(),
-        write::marker_text(&meta, &options),
-    ));
+    for language in options.languages.iter() {
+        files.extend(match language {
+            Language::C => c::emit(&plan, &meta, options.precision, &golden)?,
+            Language::Rust => rust::emit(&plan, &meta, &golden)?,
+            Language::Python => python::emit(&plan, &meta, &golden)?,
+        });
+    }
     // The arm file itself, so that the folder says what model it holds and can be
     // re-derived and checked (`arcwright verify`) or compared without the original.
     files.push((RECORDED_ARM.to_string(), arm_text.to_string()));
+    files.push((IGNORE_FILE.to_string(), ignore_file()));
+    if let Some((path, _)) = files.iter().find(|(_, t)| t.contains(number::NON_FINITE)) {
+        return Err(format!(
+            "{path}: a constant of the model is not finite in {} precision; the arm's numbers \
+             are too large or too small for it (see the supported ranges in the README)",
+            match options.precision {
+                Precision::F32 if path.starts_with("c/") => "single",
+                _ => "double",
+            }
+        ));
+    }
+    files.sort();
+    let marker = marker::text(&meta, &options, &files);
+    files.push((marker::MARKER.to_string(), marker));
     files.sort();
     Ok(files)
+}
+
+/// The output folder's `.gitignore`: the build products of the shipped tests.
+fn ignore_file() -> String {
+    let mut out = String::from(
+        "# Written by arcwright: what building and running the shipped tests leaves here.\n",
+    );
+    for a in BUILD_ARTEFACTS {
+        out.push('/');
+        out.push_str(a);
+        out.push('\n');
+    }
+    out
 }

@@ -15,8 +15,16 @@ pub enum Precision {
     F64,
 }
 
+/// What a constant that is not finite at the target precision prints as: no language
+/// reads it, and [`super::emit`] refuses any output that holds it, so a model whose
+/// numbers overflow never reaches disk as code that does not compile (or, worse, does).
+pub const NON_FINITE: &str = "ARCWRIGHT_NON_FINITE_CONSTANT";
+
 /// `x` as a literal that reads back exactly: always with a `.` or an exponent.
 pub fn f64_literal(x: f64) -> String {
+    if !x.is_finite() {
+        return NON_FINITE.into();
+    }
     let a = x.abs();
     let s = if a != 0.0 && !(1e-4..1e16).contains(&a) {
         format!("{x:e}")
@@ -31,6 +39,9 @@ pub fn f64_literal(x: f64) -> String {
 }
 
 fn f32_literal(x: f32) -> String {
+    if !x.is_finite() {
+        return NON_FINITE.into();
+    }
     let a = x.abs();
     let s = if a != 0.0 && !(1e-4..1e9).contains(&a) {
         format!("{x:e}")
@@ -49,7 +60,10 @@ pub fn literal(q: &Q, precision: Precision) -> String {
     let x = q.to_f64().unwrap_or(f64::NAN);
     match precision {
         Precision::F64 => f64_literal(x),
-        Precision::F32 => format!("{}f", f32_literal(rational_to_f32(q, x))),
+        Precision::F32 => match f32_literal(rational_to_f32(q, x)) {
+            s if s == NON_FINITE => s,
+            s => format!("{s}f"),
+        },
     }
 }
 
@@ -78,6 +92,9 @@ fn rational_to_f32(q: &Q, x: f64) -> f32 {
 /// A golden value in 15 significant digits: stable against last-bit differences of
 /// the platform's math library, far below the 1e-9 test tolerance.
 pub fn golden_literal(x: f64) -> String {
+    if !x.is_finite() {
+        return NON_FINITE.into();
+    }
     if x == 0.0 {
         return "0.0".into();
     }
@@ -118,5 +135,11 @@ mod tests {
             );
         }
         assert_eq!(golden_literal(0.25), "2.5e-1");
+        for bad in [f64::NAN, f64::INFINITY, -f64::INFINITY] {
+            assert_eq!(f64_literal(bad), NON_FINITE);
+            assert_eq!(golden_literal(bad), NON_FINITE);
+        }
+        assert_eq!(literal(&rat(10, 1).pow(40), Precision::F32), NON_FINITE);
+        assert_eq!(literal(&rat(10, 1).pow(40), Precision::F64), "1e40");
     }
 }
