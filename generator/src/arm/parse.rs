@@ -10,6 +10,7 @@ use std::fmt;
 use std::path::Path;
 
 use num_bigint::BigInt;
+use num_traits::{Signed, Zero};
 use toml_edit::{ImDocument, Item, TableLike, Value};
 
 use super::{Arm, Rational};
@@ -663,6 +664,41 @@ fn read_number(ctx: &Ctx, item: &Item, at: usize, field: &str) -> Result<Sp<Rati
 }
 
 fn value_number(ctx: &Ctx, v: &Value, at: usize, field: &str) -> Result<Rational, ArmError> {
+    let x = exact_number(ctx, v, at, field)?;
+    if !x.is_zero() && !(magnitude_bound(-1) <= x.abs() && x.abs() <= magnitude_bound(1)) {
+        return Err(ctx.field_err(
+            at,
+            field,
+            format!(
+                "`{}` is outside the supported range: a number in an arm file is 0 or has a \
+                 magnitude in [1e-{MAGNITUDE_DECADES}, 1e{MAGNITUDE_DECADES}] (SI units)",
+                raw_text(ctx, v)
+            ),
+        ));
+    }
+    Ok(x)
+}
+
+/// Every non-zero number in an arm file lies within 10^±MAGNITUDE_DECADES: far beyond
+/// any soft arm in SI units, and near enough to 1 that the model's constants (products
+/// of up to five lengths with a density or stiffness) stay normal numbers even in
+/// single precision.
+pub const MAGNITUDE_DECADES: u32 = 9;
+
+/// `10^(sign · MAGNITUDE_DECADES)`, exactly.
+fn magnitude_bound(sign: i32) -> Rational {
+    let p = Rational::from_integer(num_traits::pow(
+        BigInt::from(10u32),
+        MAGNITUDE_DECADES as usize,
+    ));
+    if sign < 0 {
+        p.recip()
+    } else {
+        p
+    }
+}
+
+fn exact_number(ctx: &Ctx, v: &Value, at: usize, field: &str) -> Result<Rational, ArmError> {
     match v {
         Value::Integer(i) => Ok(Rational::from_integer(BigInt::from(*i.value()))),
         Value::Float(f) => {
@@ -780,6 +816,10 @@ fn read_poly(
 /// Largest decimal exponent accepted (keeps exact arithmetic cheap).
 const MAX_DECIMAL_EXPONENT: i64 = 400;
 
+/// Most significant digits a number may carry: far more than any measurement, and few
+/// enough that the exact rationals of the derivation stay small whatever the writing.
+pub const MAX_SIGNIFICANT_DIGITS: usize = 30;
+
 /// Reads `[+-]digits[.digits][(e|E)[+-]digits]` (with `_` separators) exactly.
 pub(super) fn parse_decimal(s: &str) -> Result<Rational, String> {
     let s: String = s.chars().filter(|c| *c != '_').collect();
@@ -828,6 +868,12 @@ pub(super) fn parse_decimal(s: &str) -> Result<Rational, String> {
         ));
     }
     let digits = format!("{int_part}{frac_part}");
+    let significant = digits.trim_start_matches('0').trim_end_matches('0').len();
+    if significant > MAX_SIGNIFICANT_DIGITS {
+        return Err(format!(
+            "{significant} significant digits; at most {MAX_SIGNIFICANT_DIGITS} are accepted"
+        ));
+    }
     let mut num: BigInt = digits
         .parse()
         .map_err(|_| "not a decimal number".to_string())?;
@@ -1241,6 +1287,72 @@ mod tests {
             Some("segment[1]"),
             "expected a table, got an integer",
         );
+    }
+
+    #[test]
+    fn numbers_outside_the_supported_range() {
+        let with_length = |l: &str| SEG.replace("length = 0.12", &format!("length = {l}"));
+        for (length, needle) in [
+            ("1e60", "outside the supported range"),
+            ("1e-80", "outside the supported range"),
+            ("2e3", "must be in [1e-4, 1e3] m"),
+            ("5e-5", "must be in [1e-4, 1e3] m"),
+        ] {
+            err_at(
+                &format!("name = \"a\"\n{}", with_length(length)),
+                3,
+                10,
+                Some("segment[1].length"),
+                needle,
+            );
+        }
+        ok(&format!("name = \"a\"\n{}", with_length("200")));
+        err_at(
+            &format!("name = \"a\"\ngravity = [1e308, 1e308]\n{SEG}"),
+            2,
+            12,
+            Some("gravity"),
+            "outside the supported range",
+        );
+        err_at(
+            &format!("name = \"a\"\ngravity = [0, -2000]\n{SEG}"),
+            2,
+            15,
+            Some("gravity"),
+            "at most 1e3 m/s²",
+        );
+        let tiny = SEG.replace("density = 0.3", "density = [0.3, 1e-12]");
+        err_at(
+            &format!("name = \"a\"\n{tiny}"),
+            5,
+            17,
+            Some("segment[1].density"),
+            "outside the supported range",
+        );
+    }
+
+    #[test]
+    fn long_decimals_are_refused_whatever_their_value() {
+        // The cost of the exact derivation must not depend on how a number is written.
+        let long = format!("0.{}", "1".repeat(300));
+        let seg = SEG.replace("length = 0.12", &format!("length = {long}"));
+        err_at(
+            &format!("name = \"a\"\n{seg}"),
+            3,
+            10,
+            Some("segment[1].length"),
+            "300 significant digits; at most 30",
+        );
+        // Zeros that do not carry information are not counted.
+        let padded = format!("0.{}1{}", "0".repeat(3), "0".repeat(200));
+        let seg = SEG.replace("length = 0.12", &format!("length = {padded}"));
+        assert_eq!(
+            ok(&format!("name = \"a\"\n{seg}")).segments[0].length,
+            q(1, 10_000)
+        );
+        let thirty = format!("0.{}", "3".repeat(30));
+        assert!(parse_decimal(&thirty).is_ok());
+        assert!(parse_decimal(&format!("{thirty}3")).is_err());
     }
 
     #[test]

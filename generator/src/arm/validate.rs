@@ -19,6 +19,26 @@ pub(crate) const MAX_PROPERTY_DEGREE: usize = 8;
 /// Longest accepted arm name (it prefixes every emitted identifier).
 pub(crate) const MAX_NAME_LEN: usize = 64;
 
+/// Shortest and longest segment accepted, as powers of ten [m]: with every other number
+/// within 10^±9, the model's constants stay finite and normal in single precision.
+pub const MIN_LENGTH_EXP: i32 = -4;
+pub const MAX_LENGTH_EXP: i32 = 3;
+/// Largest gravity component accepted, as a power of ten [m/s²] (a hundred g).
+pub const MAX_GRAVITY_EXP: i32 = 3;
+
+/// `10^e`, exactly.
+fn rat_pow10(e: i32) -> Rational {
+    let p = Rational::from_integer(num_traits::pow(
+        BigInt::from(10u32),
+        e.unsigned_abs() as usize,
+    ));
+    if e < 0 {
+        p.recip()
+    } else {
+        p
+    }
+}
+
 /// Checks the physical facts of `raw` and builds the [`Arm`].
 pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
     // name
@@ -36,7 +56,21 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
 
     // gravity
     let gravity = match raw.gravity {
-        Some([gx, gy]) => [gx.value, gy.value],
+        Some([gx, gy]) => {
+            for g in [&gx, &gy] {
+                if g.value.abs() > rat_pow10(MAX_GRAVITY_EXP) {
+                    return Err(ctx.field_err(
+                        g.at,
+                        "gravity",
+                        format!(
+                            "each component must be at most 1e{MAX_GRAVITY_EXP} m/s² in magnitude, got {}",
+                            g.raw
+                        ),
+                    ));
+                }
+            }
+            [gx.value, gy.value]
+        }
         None => [Rational::zero(), Rational::zero()],
     };
 
@@ -75,6 +109,17 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
                 s.length.at,
                 &format!("{path}.length"),
                 format!("must be positive, got {}", s.length.raw),
+            ));
+        }
+        if s.length.value < rat_pow10(MIN_LENGTH_EXP) || s.length.value > rat_pow10(MAX_LENGTH_EXP)
+        {
+            return Err(ctx.field_err(
+                s.length.at,
+                &format!("{path}.length"),
+                format!(
+                    "must be in [1e{MIN_LENGTH_EXP}, 1e{MAX_LENGTH_EXP}] m, got {}",
+                    s.length.raw
+                ),
             ));
         }
         let d = &s.curvature_degree;

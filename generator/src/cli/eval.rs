@@ -74,10 +74,16 @@ pub fn run(args: &EvalArgs) -> Result<(), CliError> {
         Some(t) => parse_vector("u", t, arm.n_inputs())?,
         None => vec![0.0; arm.n_inputs()],
     };
+    let reference = |kin| {
+        let r = Reference::new(&arm, kin);
+        r.check_configuration(&q)
+            .map_err(|e| CliError::Input(format!("--q: {e}")))?;
+        Ok::<_, CliError>(r.terms(&q, &qd))
+    };
     let terms = if args.exact {
-        Reference::new(&arm, Kinematics::Exact).terms(&q, &qd)
+        reference(Kinematics::Exact)?
     } else if args.reference {
-        Reference::new(&arm, Kinematics::Truncated(arm.expansion_order)).terms(&q, &qd)
+        reference(Kinematics::Truncated(arm.expansion_order))?
     } else {
         let model = derive(&arm);
         Evaluator::new(&model).terms(&q, &qd)
@@ -85,5 +91,11 @@ pub fn run(args: &EvalArgs) -> Result<(), CliError> {
     let qdd = forward_dynamics(&terms, &q, &qd, &u).map_err(|e| CliError::Failed(e.to_string()))?;
     let out = EvalOutput { terms, qdd };
     let value = serde_json::to_value(&out).map_err(|e| CliError::Failed(e.to_string()))?;
+    if let Some(path) = super::json::first_null(&value) {
+        return Err(CliError::Failed(format!(
+            "{path} is not a finite number at this state: the state is beyond what double \
+             precision can evaluate for this arm"
+        )));
+    }
     super::print_stdout(&super::json::to_string(&value))
 }

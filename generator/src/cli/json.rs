@@ -4,6 +4,33 @@
 use serde_json::Value;
 use std::fmt::Write;
 
+/// Where `v` holds a `null`, as a path (`qdd[2]`, `B[0][1]`). serde_json writes a
+/// non-finite number as `null`; outputs whose fields are all numbers use this to refuse
+/// rather than print one.
+pub fn first_null(v: &Value) -> Option<String> {
+    fn at(v: &Value, path: String) -> Option<String> {
+        match v {
+            Value::Null => Some(path),
+            Value::Array(items) => items
+                .iter()
+                .enumerate()
+                .find_map(|(i, x)| at(x, format!("{path}[{i}]"))),
+            Value::Object(map) => map.iter().find_map(|(k, x)| {
+                at(
+                    x,
+                    if path.is_empty() {
+                        k.clone()
+                    } else {
+                        format!("{path}.{k}")
+                    },
+                )
+            }),
+            _ => None,
+        }
+    }
+    at(v, String::new())
+}
+
 /// Pretty JSON with flat numeric arrays.
 pub fn to_string(v: &Value) -> String {
     let mut out = String::new();
@@ -49,6 +76,22 @@ fn write_value(out: &mut String, v: &Value, indent: usize) {
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_non_finite_number_is_found_by_its_path() {
+        let v = serde_json::to_value(serde_json::json!({"B": [[1.0, 2.0]], "qdd": [0.0, 1.0]}))
+            .unwrap();
+        assert_eq!(first_null(&v), None);
+        #[derive(serde::Serialize)]
+        struct Out {
+            b: Vec<Vec<f64>>,
+        }
+        let v = serde_json::to_value(Out {
+            b: vec![vec![1.0], vec![2.0, f64::NAN]],
+        })
+        .unwrap();
+        assert_eq!(first_null(&v).as_deref(), Some("b[1][1]"));
+    }
 
     #[test]
     fn matrices_keep_rows_on_one_line() {

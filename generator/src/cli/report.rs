@@ -343,6 +343,21 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         });
     }
     bar.finish_and_clear();
+    for r in &rows {
+        let errors = [
+            r.tip_position_error,
+            r.inertia_error,
+            r.gravity_error.unwrap_or(0.0),
+        ];
+        if !errors.iter().all(|e| e.is_finite()) {
+            return Err(CliError::Failed(format!(
+                "order {}: the truncation error is not a finite number over the sampled \
+                 configurations; the arm's numbers or its [workspace] bounds are beyond what \
+                 double precision can evaluate",
+                r.order
+            )));
+        }
+    }
 
     let suggested_order = rows
         .iter()

@@ -105,6 +105,11 @@ fn vec_len(level: u8, r: usize) -> usize {
     1 + if level >= 1 { r } else { 0 } + if level >= 2 { r * r } else { 0 }
 }
 
+/// Largest total bending `L_j Σ_i |q_{j,i}|` [rad] of one segment that the reference
+/// evaluates: about 160 turns, far beyond any soft arm, and few enough panels
+/// (about 130 per segment) that one evaluation stays cheap.
+pub const MAX_SEGMENT_BENDING: f64 = 1e3;
+
 /// Numeric reference for one arm and one choice of kinematics.
 pub struct Reference<'a> {
     arm: &'a Arm,
@@ -173,6 +178,35 @@ impl<'a> Reference<'a> {
         }
     }
 
+    /// Whether the reference can evaluate at `q`: every entry finite, and no segment
+    /// bent by more than [`MAX_SEGMENT_BENDING`] in all (its panel count grows with
+    /// the bending). The error names the coordinate by its label (`2_0`).
+    pub fn check_configuration(&self, q: &[f64]) -> Result<(), String> {
+        if q.len() != self.n {
+            return Err(format!("expected {} coordinates, got {}", self.n, q.len()));
+        }
+        for (j, s) in self.segs.iter().enumerate() {
+            let qs = &q[s.off..s.off + s.nc];
+            let bending: f64 = qs.iter().map(|v| v.abs()).sum::<f64>() * s.l;
+            if !(bending <= MAX_SEGMENT_BENDING) {
+                let (i, v) = qs
+                    .iter()
+                    .enumerate()
+                    .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
+                    .map(|(i, v)| (i, *v))
+                    .unwrap_or((0, f64::NAN));
+                return Err(format!(
+                    "coordinate {}_{i} = {v:e} bends segment {} by {bending:.3e} rad; the \
+                     quadrature reference resolves at most {MAX_SEGMENT_BENDING:e} rad per \
+                     segment (L·Σ|q|)",
+                    j + 1,
+                    j + 1
+                ));
+            }
+        }
+        Ok(())
+    }
+
     /// The same reference with `factor` times as many quadrature panels everywhere
     /// (for convergence checks; the default is already converged).
     pub fn with_panel_factor(mut self, factor: usize) -> Self {
@@ -231,7 +265,10 @@ impl<'a> Reference<'a> {
             Kinematics::Truncated(n) => (m + 1.0) * n as f64,
             Kinematics::Exact => 0.0,
         };
-        let bandwidth: f64 = q[s.off..s.off + s.nc].iter().map(|v| v.abs()).sum::<f64>() * s.l;
+        // Clamped, so that no state can ask for unbounded work (callers check states
+        // first with `check_configuration` and get a clear error instead).
+        let bandwidth: f64 = (q[s.off..s.off + s.nc].iter().map(|v| v.abs()).sum::<f64>() * s.l)
+            .min(MAX_SEGMENT_BENDING);
         let props = [&s.rho, &s.iota]
             .iter()
             .map(|c| c.len() as f64)
