@@ -11,6 +11,7 @@
 
 pub mod arm;
 pub mod cli;
+pub mod cost;
 pub mod derive;
 pub mod dynamics;
 pub mod emit;

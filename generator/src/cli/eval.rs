@@ -2,6 +2,7 @@
 
 use super::{parse_vector, CliError};
 use crate::arm::{parse_arm_file, Arm, MAX_EXPANSION_ORDER};
+use crate::cost::{estimate, Work};
 use crate::derive::derive;
 use crate::dynamics::forward_dynamics;
 use crate::evaluate::Evaluator;
@@ -50,16 +51,24 @@ struct EvalOutput {
     qdd: Vec<f64>,
 }
 
-/// Loads an arm file and applies an order override, with errors for the user.
+/// Loads an arm file and applies an order override, with errors for the user; an arm
+/// too large to derive within the budget is refused here, before any algebra.
 pub(crate) fn load_arm(path: &std::path::Path, order: Option<u32>) -> Result<Arm, CliError> {
     let (arm, _) = parse_arm_file(path).map_err(|e| CliError::Input(e.to_string()))?;
-    match order {
-        Some(n) if n > MAX_EXPANSION_ORDER => Err(CliError::Input(format!(
-            "--order: {n} is above the supported maximum {MAX_EXPANSION_ORDER}"
-        ))),
-        Some(n) => Ok(arm.with_order(n)),
-        None => Ok(arm),
-    }
+    let arm = match order {
+        Some(n) if n > MAX_EXPANSION_ORDER => {
+            return Err(CliError::Input(format!(
+                "--order: {n} is above the supported maximum {MAX_EXPANSION_ORDER}"
+            )))
+        }
+        Some(n) => arm.with_order(n),
+        None => arm,
+    };
+    super::within_budget(
+        &format!("deriving the model of {}", path.display()),
+        estimate(&arm, Work::Derive),
+    )?;
+    Ok(arm)
 }
 
 pub fn run(args: &EvalArgs) -> Result<(), CliError> {

@@ -3,6 +3,7 @@
 use super::eval::load_arm;
 use super::CliError;
 use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
+use crate::cost::{estimate, Work};
 use crate::derive::{derive, Model};
 use crate::emit::{emit, emitted_ops, Language, Options, Precision};
 use crate::optimise::{optimise, Limits};
@@ -124,6 +125,7 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
     }
     let arm = parse_arm_str(&text, &args.arm.display().to_string())
         .map_err(|e| CliError::Input(e.to_string()))?;
+    super::within_budget("generate on this arm", estimate(&arm, Work::Generate))?;
     let precision = match args.precision {
         PrecisionArg::F32 => Precision::F32,
         PrecisionArg::F64 => Precision::F64,

@@ -25,6 +25,10 @@ pub struct Cli {
     /// No progress bars or notes on standard error; results and errors only.
     #[arg(long, short, global = true)]
     quiet: bool,
+    /// Go on with an arm whose estimated memory or time is beyond the budget (4 GB,
+    /// 10 min) instead of refusing it.
+    #[arg(long, global = true)]
+    allow_large: bool,
 }
 
 #[derive(Subcommand, Debug)]
@@ -76,6 +80,7 @@ pub fn main() -> ExitCode {
         }
     };
     progress::set_quiet(cli.quiet);
+    ALLOW_LARGE.store(cli.allow_large, std::sync::atomic::Ordering::Relaxed);
     let result = match cli.command {
         Command::Eval(args) => eval::run(&args),
         Command::Generate(args) => generate::run(&args),
@@ -93,6 +98,20 @@ pub fn main() -> ExitCode {
             ExitCode::from(e.code())
         }
     }
+}
+
+/// `--allow-large`, set once at start.
+static ALLOW_LARGE: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+
+/// Refuses `what` when its estimated cost is beyond the budget (see [`crate::cost`]),
+/// unless `--allow-large` was given.
+pub(crate) fn within_budget(what: &str, estimate: crate::cost::Estimate) -> Result<(), CliError> {
+    crate::cost::check(
+        what,
+        estimate,
+        ALLOW_LARGE.load(std::sync::atomic::Ordering::Relaxed),
+    )
+    .map_err(CliError::Input)
 }
 
 /// Writes to standard output; a closed pipe (`arcwright … | head`) is not an error.

@@ -237,6 +237,13 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         Some(n) => n,
         None => arm.expansion_order.min(MAX_EXPANSION_ORDER),
     };
+    super::within_budget(
+        "report on this arm (one derivation per order)",
+        (0..=max_order)
+            .map(|n| crate::cost::estimate(&arm.with_order(n), crate::cost::Work::Derive))
+            .reduce(|a, b| a + b)
+            .expect("at least order 0"),
+    )?;
     let ws = arm.workspace_or_default();
     let samples = args.samples.unwrap_or(ws.samples);
     if samples == 0 || samples > MAX_WORKSPACE_SAMPLES {

@@ -146,6 +146,10 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
         }
     };
     let arm = load_arm(&arm_path, None)?;
+    super::within_budget(
+        "verify on this arm",
+        crate::cost::estimate(&arm, crate::cost::Work::Generate),
+    )?;
     let text = fs::read_to_string(&arm_path)
         .map_err(|e| CliError::Input(format!("reading {}: {e}", arm_path.display())))?;
 
