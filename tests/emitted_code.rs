@@ -184,6 +184,77 @@ fn c_matches_reference() {
     }
 }
 
+/// `-ffast-math` lets the compiler assume no NaN or infinity, so a check written with
+/// `isfinite` may vanish; the emitted checks read the bits instead. The shipped test,
+/// NaN input included, must pass in such a build (both precisions).
+#[test]
+fn c_checks_hold_under_fast_math() {
+    if !have("gcc", "--version") {
+        println!("SKIP fast-math C checks: gcc not found");
+        return;
+    }
+    for arm in arms() {
+        let name = arm_name(&arm);
+        for (precision, tag) in [(Precision::F64, "f64"), (Precision::F32, "f32")] {
+            let dir = generated(&arm, precision).join("c");
+            let bin = root().join("target/emitted-tests/bin");
+            std::fs::create_dir_all(&bin).unwrap();
+            let exe = bin.join(format!("test_{name}_{tag}_fast_math"));
+            run(
+                Command::new("gcc")
+                    .args(["-std=c99", "-O1", "-ffast-math"])
+                    .args(STRICT)
+                    .arg(dir.join(format!("test_{name}.c")))
+                    .arg(dir.join(format!("{name}.c")))
+                    .args(["-lm", "-o"])
+                    .arg(&exe),
+                &format!("gcc -ffast-math {tag} {name}"),
+            );
+            let text = run(&mut Command::new(&exe), &format!("fast-math {tag} {name}"));
+            println!(
+                "C fast-math {tag} {name}: {}",
+                text.lines().last().unwrap_or("")
+            );
+        }
+    }
+}
+
+/// Arms whose actuation does not depend on q (none at all; bending moments only) leave
+/// parameters unused; the C must still build under the strict warnings and pass.
+#[test]
+fn c_of_arms_with_constant_actuation_builds_strict() {
+    if !have("gcc", "--version") {
+        println!("SKIP: gcc not found");
+        return;
+    }
+    let seg = "[[segment]]\nlength = 0.1\ncurvature_degree = 1\ndensity = 0.2\nbending_stiffness = 0.01\n";
+    for (name, extra) in [
+        ("bare", ""),
+        ("bent", "[[actuator]]\nkind = \"moment\"\nsegment = 1\n"),
+    ] {
+        let text =
+            format!("name = \"{name}\"\nexpansion_order = 1\ngravity = [0.0, -9.81]\n{seg}{extra}");
+        let arm = arcwright::arm::parse_arm_str(&text, "test.toml").expect("parses");
+        let files = emit(&derive(&arm), &text, Options::default()).expect("emits");
+        let out = root()
+            .join("target/emitted-tests/constant-actuation")
+            .join(name);
+        write_tree(&out, &files, &|_| {}).expect("writes");
+        let exe = out.with_extension("bin");
+        run(
+            Command::new("gcc")
+                .args(["-std=c99", "-O1"])
+                .args(STRICT)
+                .arg(out.join(format!("c/test_{name}.c")))
+                .arg(out.join(format!("c/{name}.c")))
+                .args(["-lm", "-o"])
+                .arg(&exe),
+            &format!("gcc {name}"),
+        );
+        run(&mut Command::new(&exe), &format!("C cross-check of {name}"));
+    }
+}
+
 #[test]
 fn c_single_precision_never_promotes_to_double_and_matches_reference() {
     if !have("gcc", "--version") {

@@ -397,6 +397,11 @@ pub fn emit(
                          params: &[(String, &str)],
                          target: &dyn Fn(usize) -> String| {
         let (rows, body, len) = p.body(func, fname, None, target);
+        // An arm without inputs has an empty A: its output array is never written.
+        let body = match params.last() {
+            Some((_, out)) if func.block.outputs.is_empty() => format!("    (void){out};\n{body}"),
+            _ => body,
+        };
         public(fname, formula, ops_line(func), ret, params, rows, body, len);
         len
     };
@@ -554,10 +559,33 @@ pub fn emit(
     };
 
     let mut ctx = base_context(name, meta, plan, n, k);
+    ctx.insert(
+        "non_finite_policy",
+        &super::constants::non_finite_policy(
+            &format!(
+                "{up}_ERR_NONFINITE_INPUT, {up}_ERR_NONFINITE_RESULT",
+                up = name.to_uppercase()
+            ),
+            " * ",
+        ),
+    );
     ctx.insert("name_upper", &up);
     ctx.insert("real", r);
     ctx.insert("sfx", if precision == Precision::F32 { "f" } else { "" });
     ctx.insert("fs", p.fs());
+    // The finiteness test reads the exponent bits (see the template), so it needs the
+    // unsigned type of the real's width and the exponent mask.
+    let (bits, exponent, mantissa) = match precision {
+        Precision::F32 => ("uint32_t", "UINT32_C(0x7F800000)", "UINT32_C(0x007FFFFF)"),
+        Precision::F64 => (
+            "uint64_t",
+            "UINT64_C(0x7FF0000000000000)",
+            "UINT64_C(0x000FFFFFFFFFFFFF)",
+        ),
+    };
+    ctx.insert("real_bits", bits);
+    ctx.insert("exponent_mask", exponent);
+    ctx.insert("mantissa_mask", mantissa);
     ctx.insert("big", big);
     ctx.insert("small", small);
     ctx.insert("odd_inv", &wrap_list(&mc.odd_inv, 4));
