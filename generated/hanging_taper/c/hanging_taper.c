@@ -21,9 +21,21 @@
 #include "hanging_taper.h"
 
 #include <math.h>
+#include <stdint.h>
+#include <string.h>
 
 #define HANGING_TAPER_NU_LEN 170
 #define HANGING_TAPER_MOMENTS_MAX 31
+
+/* 1 when x is neither NaN nor an infinity. It reads the exponent bits instead of
+ * calling isfinite(), which -ffast-math (-ffinite-math-only) may fold to a constant 1:
+ * integer operations survive every floating-point relaxation. */
+static int hanging_taper_finite(double x)
+{
+    uint64_t bits;
+    memcpy(&bits, &x, sizeof bits);
+    return (bits & UINT64_C(0x7FF0000000000000)) != UINT64_C(0x7FF0000000000000);
+}
 
 /* 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)),
  * k = 1..11, of the scaled j_n (see hanging_taper_moments). */
@@ -9874,7 +9886,7 @@ static void hanging_taper_pose_segment2(const double q[], double sigma, double p
 void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
     double work[])
 {
-    if (segment < 0 || segment >= HANGING_TAPER_NSEG || !(sigma >= 0.0 && sigma <= 1.0)) {
+    if (segment < 0 || segment >= HANGING_TAPER_NSEG || !hanging_taper_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
         pose[0] = (double)NAN;
         pose[1] = (double)NAN;
         pose[2] = (double)NAN;
@@ -9915,12 +9927,12 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
     int status = HANGING_TAPER_OK;
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         qdd[i] = (double)NAN;
-        if (!isfinite(q[i]) || !isfinite(qd[i])) {
+        if (!hanging_taper_finite(q[i]) || !hanging_taper_finite(qd[i])) {
             status = HANGING_TAPER_ERR_NONFINITE_INPUT;
         }
     }
     for (k = 0; k < HANGING_TAPER_NU; ++k) {
-        if (!isfinite(u[k])) {
+        if (!hanging_taper_finite(u[k])) {
             status = HANGING_TAPER_ERR_NONFINITE_INPUT;
         }
     }
@@ -9981,7 +9993,7 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
         f[i] = s / m[i * (i + 1) / 2 + i];
     }
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
-        if (!isfinite(f[i])) {
+        if (!hanging_taper_finite(f[i])) {
             return HANGING_TAPER_ERR_NONFINITE_RESULT;
         }
     }

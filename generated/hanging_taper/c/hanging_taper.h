@@ -17,6 +17,21 @@
  * an r x c matrix M is M[i * c + j]. Floating point: double.
  * No heap, no recursion, no mutable globals: every function is reentrant.
  *
+ * Non-finite and huge input, function by function (the same in C, Rust and Python):
+ * - forward_dynamics checks q, q' and u first: a NaN or an infinity is reported as a
+ *   non-finite input, and a result that is not finite as such, with q'' NaN where it
+ *   is returned:
+ *     HANGING_TAPER_ERR_NONFINITE_INPUT, HANGING_TAPER_ERR_NONFINITE_RESULT.
+ *   In C these checks read the bits, so they hold under -ffast-math.
+ * - pose gives [NaN, NaN, NaN] for a segment outside 0..NSEG-1, or sigma outside [0, 1]
+ *   or NaN.
+ * - Every other function checks nothing, for speed: a NaN or an infinity in q or q'
+ *   becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
+ *   out-of-bounds access. stiffness and damping take no input.
+ * - Accuracy is checked by the shipped tests for bending up to the arm file's
+ *   workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+ *   extreme values overflow to infinities or NaN, which forward_dynamics reports.
+ *
  * SAFETY: this code is not safety-certified. It computes a model, not the robot.
  * Validate it on the bench against the real arm, with actuator limits and an
  * emergency stop in place, before it drives hardware; follow local regulations and

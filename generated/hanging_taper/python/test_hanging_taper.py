@@ -721,6 +721,9 @@ def test_invalid_arguments():
         pass
     else:
         raise AssertionError("forward dynamics accepted a NaN q")
+    # The unchecked functions pass a NaN through to what depends on it.
+    assert np.isnan(arm.inertia(q)).any()
+    assert math.isnan(arm.pose(q, arm.NSEG - 1, 1.0)[2])
 
 
 if __name__ == "__main__":

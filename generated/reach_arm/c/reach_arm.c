@@ -21,9 +21,21 @@
 #include "reach_arm.h"
 
 #include <math.h>
+#include <stdint.h>
+#include <string.h>
 
 #define REACH_ARM_NU_LEN 120
 #define REACH_ARM_MOMENTS_MAX 30
+
+/* 1 when x is neither NaN nor an infinity. It reads the exponent bits instead of
+ * calling isfinite(), which -ffast-math (-ffinite-math-only) may fold to a constant 1:
+ * integer operations survive every floating-point relaxation. */
+static int reach_arm_finite(double x)
+{
+    uint64_t bits;
+    memcpy(&bits, &x, sizeof bits);
+    return (bits & UINT64_C(0x7FF0000000000000)) != UINT64_C(0x7FF0000000000000);
+}
 
 /* 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)),
  * k = 1..11, of the scaled j_n (see reach_arm_moments). */
@@ -6854,7 +6866,7 @@ static void reach_arm_pose_segment1(const double q[], double sigma, double pose[
 void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
     double work[])
 {
-    if (segment < 0 || segment >= REACH_ARM_NSEG || !(sigma >= 0.0 && sigma <= 1.0)) {
+    if (segment < 0 || segment >= REACH_ARM_NSEG || !reach_arm_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
         pose[0] = (double)NAN;
         pose[1] = (double)NAN;
         pose[2] = (double)NAN;
@@ -6894,12 +6906,12 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
     int status = REACH_ARM_OK;
     for (i = 0; i < REACH_ARM_NQ; ++i) {
         qdd[i] = (double)NAN;
-        if (!isfinite(q[i]) || !isfinite(qd[i])) {
+        if (!reach_arm_finite(q[i]) || !reach_arm_finite(qd[i])) {
             status = REACH_ARM_ERR_NONFINITE_INPUT;
         }
     }
     for (k = 0; k < REACH_ARM_NU; ++k) {
-        if (!isfinite(u[k])) {
+        if (!reach_arm_finite(u[k])) {
             status = REACH_ARM_ERR_NONFINITE_INPUT;
         }
     }
@@ -6960,7 +6972,7 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
         f[i] = s / m[i * (i + 1) / 2 + i];
     }
     for (i = 0; i < REACH_ARM_NQ; ++i) {
-        if (!isfinite(f[i])) {
+        if (!reach_arm_finite(f[i])) {
             return REACH_ARM_ERR_NONFINITE_RESULT;
         }
     }

@@ -24,6 +24,21 @@ q, q', cos/sin of the cumulative tangent angles and the Legendre moments
 nu_n(a) = exp(i a/2) i^n j_n(a/2) of each segment at a_j = L_j q_{j,0} (finite and
 accurate at a = 0); linear combinations of moments come from one sparse table.
 
+Non-finite and huge input, function by function (the same in C, Rust and Python):
+- forward_dynamics checks q, q' and u first: a NaN or an infinity is reported as a
+  non-finite input, and a result that is not finite as such, with q'' NaN where it
+  is returned:
+    raises DynamicsError.
+  In C these checks read the bits, so they hold under -ffast-math.
+- pose gives [NaN, NaN, NaN] for a segment outside 0..NSEG-1, or sigma outside [0, 1]
+  or NaN.
+- Every other function checks nothing, for speed: a NaN or an infinity in q or q'
+  becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
+  out-of-bounds access. stiffness and damping take no input.
+- Accuracy is checked by the shipped tests for bending up to the arm file's
+  workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+  extreme values overflow to infinities or NaN, which forward_dynamics reports.
+
 SAFETY: not safety-certified. Validate on the bench against the real arm, with
 actuator limits and an emergency stop, before it drives hardware; follow local
 regulations and qualified engineering practice.

@@ -69,6 +69,35 @@ impl MomentConstants {
     }
 }
 
+/// What every emitted function does with non-finite and huge input, as the header of
+/// each language states it (one text, so the three cannot drift apart). `{err}` is
+/// replaced by the language's way of reporting a `forward_dynamics` error.
+const NON_FINITE_POLICY: &str = "\
+Non-finite and huge input, function by function (the same in C, Rust and Python):
+- forward_dynamics checks q, q' and u first: a NaN or an infinity is reported as a
+  non-finite input, and a result that is not finite as such, with q'' NaN where it
+  is returned:
+    {err}.
+  In C these checks read the bits, so they hold under -ffast-math.
+- pose gives [NaN, NaN, NaN] for a segment outside 0..NSEG-1, or sigma outside [0, 1]
+  or NaN.
+- Every other function checks nothing, for speed: a NaN or an infinity in q or q'
+  becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
+  out-of-bounds access. stiffness and damping take no input.
+- Accuracy is checked by the shipped tests for bending up to the arm file's
+  workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+  extreme values overflow to infinities or NaN, which forward_dynamics reports.";
+
+/// The policy text for one language: `how` names its error, `prefix` starts each line.
+pub fn non_finite_policy(how: &str, prefix: &str) -> String {
+    NON_FINITE_POLICY
+        .replace("{err}", how)
+        .lines()
+        .map(|l| format!("{prefix}{l}").trim_end().to_string())
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
 /// Context entries every language's templates read.
 pub fn base_context(name: &str, meta: &Meta, plan: &Plan, n: usize, k: usize) -> Context {
     let mut ctx = Context::new();

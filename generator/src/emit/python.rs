@@ -285,6 +285,10 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .map(|row| format!("({})", row.join(", ")))
         .collect();
     let mut ctx = base_context(name, meta, plan, n, k);
+    ctx.insert(
+        "non_finite_policy",
+        &super::constants::non_finite_policy("raises DynamicsError", ""),
+    );
     ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&mc.odd_inv, 4)));
     ctx.insert("pair_inv", &format!("\n{},\n", wrap_list(&mc.pair_inv, 4)));
     ctx.insert("series", &format!("\n    {},\n", series.join(",\n    ")));

@@ -415,6 +415,13 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .map(|row| format!("[{}]", row.join(", ")))
         .collect();
     let mut ctx = base_context(name, meta, plan, n, k);
+    ctx.insert(
+        "non_finite_policy",
+        &super::constants::non_finite_policy(
+            "Err(DynamicsError::NonFiniteInput), Err(NonFiniteResult)",
+            "//! ",
+        ),
+    );
     ctx.insert("odd_inv", &mc.odd_inv.join(", "));
     ctx.insert("pair_inv", &mc.pair_inv.join(", "));
     ctx.insert("series", &series.join(", "));

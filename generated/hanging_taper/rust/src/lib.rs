@@ -15,6 +15,21 @@
 //! `ν_n(a) = e^{ia/2} iⁿ j_n(a/2)` of each segment at `a_j = L_j q_{j,0}` (finite and
 //! accurate at `a = 0`). Linear combinations of moments come from one banded table.
 //!
+//! Non-finite and huge input, function by function (the same in C, Rust and Python):
+//! - forward_dynamics checks q, q' and u first: a NaN or an infinity is reported as a
+//!   non-finite input, and a result that is not finite as such, with q'' NaN where it
+//!   is returned:
+//!     Err(DynamicsError::NonFiniteInput), Err(NonFiniteResult).
+//!   In C these checks read the bits, so they hold under -ffast-math.
+//! - pose gives [NaN, NaN, NaN] for a segment outside 0..NSEG-1, or sigma outside [0, 1]
+//!   or NaN.
+//! - Every other function checks nothing, for speed: a NaN or an infinity in q or q'
+//!   becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
+//!   out-of-bounds access. stiffness and damping take no input.
+//! - Accuracy is checked by the shipped tests for bending up to the arm file's
+//!   workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+//!   extreme values overflow to infinities or NaN, which forward_dynamics reports.
+//!
 //! **Safety**: not safety-certified. Validate on the bench against the real arm, with
 //! actuator limits and an emergency stop, before it drives hardware; follow local
 //! regulations and qualified engineering practice.

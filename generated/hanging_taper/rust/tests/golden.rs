@@ -2423,6 +2423,8 @@ fn invalid_arguments_are_reported() {
     assert!(pose(& q, 0, f64::NAN).iter().all(| v | v.is_nan()));
     q[0] = f64::NAN;
     assert_eq!(forward_dynamics(& q, & qd, & u), Err(DynamicsError::NonFiniteInput));
+    assert!(inertia(& q).iter().flatten().any(| v | v.is_nan()));
+    assert!(pose(& q, NSEG - 1, 1.0) [2].is_nan());
 }
 /// One workspace serves every configuration in turn, so each `_ws` call finds the
 /// previous call's leftovers in it: a function that read its scratch before writing it
