@@ -33,6 +33,7 @@ use std::path::{Path, PathBuf};
 /// when --tolerance is given and a relative change (or a change of shape) exceeds it.
 #[derive(Args, Debug)]
 #[command(
+    allow_negative_numbers = true,
     after_help = "Examples:\n  arcwright compare old/reach_arm.toml examples/reach_arm.toml\n  \
                         arcwright compare old.toml new.toml --tolerance 1e-3 --json"
 )]

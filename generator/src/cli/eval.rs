@@ -19,6 +19,7 @@ use std::path::PathBuf;
 /// untruncated kinematics). Vectors are comma-separated, segment-major.
 #[derive(Args, Debug)]
 #[command(
+    allow_negative_numbers = true,
     after_help = "Example:\n  arcwright eval examples/reach_arm.toml --q \"1,0,0,2,0,0\" --qd \"0,0,0,0.5,0,0\" --u \"0.2,0,0,0\""
 )]
 pub struct EvalArgs {

@@ -43,10 +43,13 @@ impl From<LanguageArg> for Language {
 /// copy of the arm file (arm.toml, with the order used). DIR is replaced as a whole
 /// (atomically); an existing DIR must be an earlier arcwright output.
 #[derive(Args, Debug)]
-#[command(after_help = "Examples:\n  \
+#[command(
+    allow_negative_numbers = true,
+    after_help = "Examples:\n  \
     arcwright generate examples/reach_arm.toml --out generated/reach_arm\n  \
     arcwright generate examples/reach_arm.toml --out fw/model --lang c --precision f32\n  \
-    arcwright generate examples/reach_arm.toml --out generated/reach_arm --check   # in CI: exit 1 if stale")]
+    arcwright generate examples/reach_arm.toml --out generated/reach_arm --check   # in CI: exit 1 if stale"
+)]
 pub struct GenerateArgs {
     /// Arm file (TOML).
     arm: PathBuf,

@@ -125,6 +125,18 @@ pub(crate) fn print_stdout(text: &str) -> Result<(), CliError> {
     }
 }
 
+/// A number for people and CSV readers alike: the shortest text that reads back to the
+/// same double, in plain decimals between 1e-4 and 1e15 and in exponent form outside
+/// (so 1e-300 is `1e-300`, not 300 zeros).
+pub(crate) fn num(x: f64) -> String {
+    let a = x.abs();
+    if a != 0.0 && a.is_finite() && !(1e-4..1e15).contains(&a) {
+        format!("{x:e}")
+    } else {
+        format!("{x}")
+    }
+}
+
 /// Parses a comma-separated vector option such as `--q "0.1, -2, 3e-1"`.
 pub(crate) fn parse_vector(
     option: &str,
@@ -166,6 +178,18 @@ pub(crate) fn parse_vector(
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn numbers_print_short_at_any_scale() {
+        assert_eq!(num(1e-300), "1e-300");
+        assert_eq!(num(0.5), "0.5");
+        assert_eq!(num(0.0), "0");
+        assert_eq!(num(-2.5e20), "-2.5e20");
+        assert_eq!(num(0.00012), "0.00012");
+        for x in [1e-300, 0.1 + 0.2, 123456.789, -7e-9] {
+            assert_eq!(num(x).parse::<f64>().unwrap(), x);
+        }
+    }
 
     #[test]
     fn vectors_parse_and_reject() {

@@ -15,6 +15,7 @@ const STARTER: &str = include_str!("starter_arm.toml");
 /// file unless --force is given.
 #[derive(Args, Debug)]
 #[command(
+    allow_negative_numbers = true,
     after_help = "Example:\n  arcwright new gripper_arm.toml\n  arcwright eval gripper_arm.toml --q \"2,0,3,0\""
 )]
 pub struct NewArgs {

@@ -41,6 +41,7 @@ use std::time::Instant;
 /// backbones.svg and report.json into the output folder.
 #[derive(Args, Debug)]
 #[command(
+    allow_negative_numbers = true,
     after_help = "Example:\n  arcwright report examples/reach_arm.toml --max-order 6 --samples 100\n  \
                         arcwright report examples/reach_arm.toml --json --out /tmp/reach_report"
 )]

@@ -24,6 +24,7 @@ use std::time::Instant;
 /// small steps (loosen --rtol or lower --order to go faster).
 #[derive(Args, Debug)]
 #[command(
+    allow_negative_numbers = true,
     after_help = "Example:\n  arcwright simulate examples/reach_arm.toml --q0 \"10,0,0,5,0,0\" --u \"0.3,0,0,0\" --duration 0.5\n  \
                         arcwright simulate examples/hanging_taper.toml --q0 \"5,0,0,0,0,0,0,0\" --duration 0.2 --out /tmp/swing"
 )]
@@ -222,9 +223,10 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let mut s = String::new();
     let _ = writeln!(
         s,
-        "{}, order {}: simulated {duration} s in {} steps ({} rejected, {} evaluations), {seconds:.2} s of computing",
+        "{}, order {}: simulated {} s in {} steps ({} rejected, {} evaluations), {seconds:.2} s of computing",
         progress::bold(&arm.name),
         arm.expansion_order,
+        super::num(duration),
         stats.accepted,
         stats.rejected,
         stats.evaluations
@@ -233,7 +235,10 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let _ = writeln!(
         s,
         "tip at t = {}: x = {:.6} m, y = {:.6} m, angle = {:.6} rad",
-        last.t, last.tip[0], last.tip[1], last.tip[2]
+        super::num(last.t),
+        last.tip[0],
+        last.tip[1],
+        last.tip[2]
     );
     let e0 = rows[0].kinetic + rows[0].potential;
     let undamped = arm.segments.iter().all(|seg| seg.damping.is_zero());
@@ -295,17 +300,13 @@ fn csv(names: &[String], rows: &[Row]) -> String {
     }
     s.push_str(",tip_x,tip_y,tip_angle,kinetic_energy,potential_energy,total_energy\n");
     for r in rows {
-        let _ = write!(s, "{}", r.t);
-        for v in r.q.iter().chain(&r.qd).chain(&r.tip) {
-            let _ = write!(s, ",{v}");
+        s.push_str(&super::num(r.t));
+        let energies = [r.kinetic, r.potential, r.kinetic + r.potential];
+        for v in r.q.iter().chain(&r.qd).chain(&r.tip).chain(&energies) {
+            s.push(',');
+            s.push_str(&super::num(*v));
         }
-        let _ = writeln!(
-            s,
-            ",{},{},{}",
-            r.kinetic,
-            r.potential,
-            r.kinetic + r.potential
-        );
+        s.push('\n');
     }
     s
 }

@@ -50,6 +50,7 @@ pub enum Check {
 /// input.
 #[derive(Args, Debug)]
 #[command(
+    allow_negative_numbers = true,
     after_help = "Examples:\n  arcwright verify generated/reach_arm --arm examples/reach_arm.toml\n  \
                         arcwright verify generated/reach_arm --arm examples/reach_arm.toml --skip rust,python"
 )]
