@@ -5,9 +5,11 @@
 //! exact: a decimal `0.12` in the file is the rational `3/25`, not a binary float.
 
 mod parse;
+mod reserved;
 mod validate;
 
 pub use parse::{parse_arm_file, parse_arm_str, ArmError};
+pub use validate::check_name;
 
 use num_rational::BigRational;
 use num_traits::{ToPrimitive, Zero};

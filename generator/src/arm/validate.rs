@@ -43,15 +43,8 @@ fn rat_pow10(e: i32) -> Rational {
 pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
     // name
     let name = &raw.name;
-    if !is_prefix_identifier(&name.value) {
-        return Err(ctx.field_err(
-            name.at,
-            "name",
-            format!(
-                "must be a code prefix matching [a-z][a-z0-9_]* (at most {MAX_NAME_LEN} characters), got {}",
-                name.raw
-            ),
-        ));
+    if let Err(why) = check_name(&name.value) {
+        return Err(ctx.field_err(name.at, "name", why));
     }
 
     // gravity
@@ -281,6 +274,23 @@ fn workspace(ctx: &Ctx, w: RawWorkspace) -> Result<Workspace, ArmError> {
         out.seed = s.value as u64;
     }
     Ok(out)
+}
+
+/// Whether `name` can name an arm: a code prefix, and reserved by none of the
+/// emitted languages or the libraries they use. The error says why not.
+pub fn check_name(name: &str) -> Result<(), String> {
+    if !is_prefix_identifier(name) {
+        return Err(format!(
+            "must be a code prefix matching [a-z][a-z0-9_]* (at most {MAX_NAME_LEN} characters), got {name:?}"
+        ));
+    }
+    if let Some(why) = super::reserved::reserved_by(name) {
+        return Err(format!(
+            "must not be {why}: `{name}` prefixes the emitted C, names the Rust crate and \
+             the Python module; choose another (for example `{name}_arm`)"
+        ));
+    }
+    Ok(())
 }
 
 /// `[a-z][a-z0-9_]*`, at most [`MAX_NAME_LEN`] characters.

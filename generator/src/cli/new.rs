@@ -1,7 +1,7 @@
 //! `arcwright new`: a commented starter arm file to edit.
 
 use super::{progress, CliError};
-use crate::arm::parse_arm_str;
+use crate::arm::{check_name, parse_arm_str};
 use clap::Args;
 use std::path::{Path, PathBuf};
 
@@ -30,21 +30,11 @@ pub struct NewArgs {
     force: bool,
 }
 
-/// `[a-z][a-z0-9_]*`, at most 64 characters: what the arm file accepts as a name.
-fn is_name(s: &str) -> bool {
-    let b = s.as_bytes();
-    !b.is_empty()
-        && b.len() <= 64
-        && b[0].is_ascii_lowercase()
-        && b.iter()
-            .all(|c| c.is_ascii_lowercase() || c.is_ascii_digit() || *c == b'_')
-}
-
-/// A name from the file stem: lower case, other characters as `_`, `arm` if that
-/// does not make a valid name.
-fn name_from_path(path: &Path) -> String {
+/// A name from the file stem: lower case, other characters as `_`; an error (asking
+/// for --name) when that is no valid arm name, never a silent stand-in.
+fn name_from_path(path: &Path) -> Result<String, String> {
     let stem = path.file_stem().and_then(|s| s.to_str()).unwrap_or("");
-    let mut name: String = stem
+    let name: String = stem
         .chars()
         .map(|c| {
             if c.is_ascii_alphanumeric() {
@@ -54,12 +44,13 @@ fn name_from_path(path: &Path) -> String {
             }
         })
         .collect();
-    name.truncate(64);
-    if is_name(&name) {
-        name
-    } else {
-        "arm".to_string()
-    }
+    check_name(&name).map(|()| name.clone()).map_err(|why| {
+        format!(
+            "the file name {} gives the arm name `{name}`, which cannot be used (the name {why}); \
+             pass --name NAME",
+            path.display(),
+        )
+    })
 }
 
 /// The starter text for `name`, mentioning `file` in its usage hints.
@@ -69,13 +60,11 @@ pub(crate) fn starter_text(name: &str, file: &str) -> String {
 
 pub fn run(args: &NewArgs) -> Result<(), CliError> {
     let name = match &args.name {
-        Some(n) if is_name(n) => n.clone(),
         Some(n) => {
-            return Err(CliError::Input(format!(
-                "--name: `{n}` is not a valid arm name (lower case letter first, then lower case letters, digits or _; at most 64)"
-            )))
+            check_name(n).map_err(|why| CliError::Input(format!("--name: {why}")))?;
+            n.clone()
         }
-        None => name_from_path(&args.path),
+        None => name_from_path(&args.path).map_err(CliError::Input)?,
     };
     if args.path.exists() && !args.force {
         return Err(CliError::Input(format!(
@@ -132,11 +121,13 @@ mod tests {
     #[test]
     fn names_from_paths() {
         assert_eq!(
-            name_from_path(Path::new("dir/Gripper-Arm.toml")),
+            name_from_path(Path::new("dir/Gripper-Arm.toml")).unwrap(),
             "gripper_arm"
         );
-        assert_eq!(name_from_path(Path::new("2arm.toml")), "arm");
-        assert_eq!(name_from_path(Path::new("arm.toml")), "arm");
-        assert!(is_name("a_1") && !is_name("A") && !is_name("_a") && !is_name(""));
+        assert_eq!(name_from_path(Path::new("arm.toml")).unwrap(), "arm");
+        let e = name_from_path(Path::new("123.toml")).unwrap_err();
+        assert!(e.contains("`123`") && e.contains("--name"), "{e}");
+        let e = name_from_path(Path::new("numpy.toml")).unwrap_err();
+        assert!(e.contains("Python module") && e.contains("--name"), "{e}");
     }
 }
