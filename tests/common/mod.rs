@@ -2,6 +2,8 @@
 // Indexed loops read best in these small dense solvers.
 #![allow(dead_code, clippy::needless_range_loop)]
 
+pub mod hostile;
+
 use arcwright::arm::{parse_arm_file, parse_arm_str, Arm};
 use num_traits::ToPrimitive;
 use rand::{Rng, SeedableRng};

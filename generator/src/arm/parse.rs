@@ -46,16 +46,41 @@ impl std::error::Error for ArmError {}
 /// provenance headers). A file that cannot be read is reported at `path:1:1`.
 pub fn parse_arm_file(path: &Path) -> Result<(Arm, String), ArmError> {
     let label = path.display().to_string();
-    let text = std::fs::read_to_string(path).map_err(|e| ArmError {
+    let fail = |message: String| ArmError {
         file: label.clone(),
         line: 1,
         column: 1,
         field: None,
-        message: format!("cannot read arm file: {e}"),
+        message,
+    };
+    if path.is_dir() {
+        return Err(fail("is a folder, not an arm file".into()));
+    }
+    // Read at most one byte past the limit: a device or a runaway file never hangs
+    // or fills memory.
+    use std::io::Read as _;
+    let mut bytes = Vec::new();
+    std::fs::File::open(path)
+        .and_then(|f| f.take(MAX_ARM_FILE_BYTES + 1).read_to_end(&mut bytes))
+        .map_err(|e| fail(format!("cannot read arm file: {e}")))?;
+    if bytes.len() as u64 > MAX_ARM_FILE_BYTES {
+        return Err(fail(format!(
+            "larger than {} MB; an arm file is a few kilobytes",
+            MAX_ARM_FILE_BYTES >> 20
+        )));
+    }
+    let text = String::from_utf8(bytes).map_err(|e| {
+        fail(format!(
+            "cannot read arm file: not UTF-8 text (invalid byte at offset {})",
+            e.utf8_error().valid_up_to()
+        ))
     })?;
     let arm = parse_arm_str(&text, &label)?;
     Ok((arm, text))
 }
+
+/// Largest arm file read [bytes].
+pub const MAX_ARM_FILE_BYTES: u64 = 4 << 20;
 
 /// Parses and validates the text of an arm file; `file_label` is used in error
 /// messages only.

@@ -129,6 +129,10 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
     let arm = parse_arm_str(&text, &args.arm.display().to_string())
         .map_err(|e| CliError::Input(e.to_string()))?;
     super::within_budget("generate on this arm", estimate(&arm, Work::Generate))?;
+    // A wrong --out fails before the derivation, not after it.
+    if !args.check {
+        crate::outdir::replace::preflight(&args.out).map_err(CliError::Input)?;
+    }
     let precision = match args.precision {
         PrecisionArg::F32 => Precision::F32,
         PrecisionArg::F64 => Precision::F64,

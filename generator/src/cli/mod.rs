@@ -125,6 +125,39 @@ pub(crate) fn print_stdout(text: &str) -> Result<(), CliError> {
     }
 }
 
+/// Makes `dir` an existing folder for a command's plain output files (`report`,
+/// `simulate`), before any work is done, so a bad `--out` costs nothing.
+pub(crate) fn prepare_out_dir(dir: &std::path::Path) -> Result<(), CliError> {
+    if std::fs::symlink_metadata(dir).is_ok() && !dir.is_dir() {
+        return Err(CliError::Input(format!(
+            "--out: {} exists and is not a folder",
+            dir.display()
+        )));
+    }
+    std::fs::create_dir_all(dir)
+        .map_err(|e| CliError::Input(format!("--out: cannot create {}: {e}", dir.display())))
+}
+
+/// Writes one output file whole or not at all: to a temporary file beside it, then
+/// renamed over it (a kill leaves the previous file or the new one, never half).
+pub(crate) fn write_file(path: &std::path::Path, text: &str) -> Result<(), CliError> {
+    use std::io::Write as _;
+    let dir = match path.parent() {
+        Some(d) if !d.as_os_str().is_empty() => d,
+        _ => std::path::Path::new("."),
+    };
+    let fail = |e: std::io::Error| CliError::Failed(format!("writing {}: {e}", path.display()));
+    let mut tmp = tempfile::Builder::new()
+        .prefix(".arcwright-file-")
+        .tempfile_in(dir)
+        .map_err(fail)?;
+    tmp.write_all(text.as_bytes())
+        .and_then(|()| tmp.as_file().sync_all())
+        .map_err(fail)?;
+    tmp.persist(path).map_err(|e| fail(e.error))?;
+    Ok(())
+}
+
 /// A number for people and CSV readers alike: the shortest text that reads back to the
 /// same double, in plain decimals between 1e-4 and 1e15 and in exponent form outside
 /// (so 1e-300 is `1e-300`, not 300 zeros).

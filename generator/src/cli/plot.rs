@@ -108,7 +108,7 @@ pub(crate) fn write_svg(
         }
         root.present().map_err(|e| e.to_string())?;
     }
-    std::fs::write(path, svg).map_err(|e| format!("writing {}: {e}", path.display()))
+    super::write_file(path, &svg).map_err(|e| e.to_string())
 }
 
 fn draw_panel<DB: DrawingBackend>(

@@ -263,6 +263,7 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         Some(d) => d.clone(),
         None => default_out_dir(&args.arm, &arm.name, "report"),
     };
+    super::prepare_out_dir(&out_dir)?;
 
     let qs = sample_configurations(&arm, &ws, samples, seed);
     let n = arm.n_coords();
@@ -376,8 +377,6 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         })
         .map(|r| r.order);
 
-    std::fs::create_dir_all(&out_dir)
-        .map_err(|e| CliError::Input(format!("--out: cannot create {}: {e}", out_dir.display())))?;
     let errors_svg = out_dir.join("error_vs_order.svg");
     let shapes_svg = out_dir.join("backbones.svg");
     let json_path = out_dir.join("report.json");
@@ -411,8 +410,7 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
     };
     let value = serde_json::to_value(&report).map_err(|e| CliError::Failed(e.to_string()))?;
     let json = super::json::to_string(&value);
-    std::fs::write(&json_path, &json)
-        .map_err(|e| CliError::Failed(format!("writing {}: {e}", json_path.display())))?;
+    super::write_file(&json_path, &json)?;
     for p in [&errors_svg, &shapes_svg, &json_path] {
         progress::wrote(p);
     }

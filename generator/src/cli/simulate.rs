@@ -126,6 +126,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         Some(d) => d.clone(),
         None => default_out_dir(&args.arm, &arm.name, "simulation"),
     };
+    super::prepare_out_dir(&out_dir)?;
 
     progress::note(&format!(
         "deriving {} at order {}…",
@@ -199,13 +200,10 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         ));
     }
 
-    std::fs::create_dir_all(&out_dir)
-        .map_err(|e| CliError::Input(format!("--out: cannot create {}: {e}", out_dir.display())))?;
     let csv_path = out_dir.join("trajectory.csv");
     let svg_path = out_dir.join("trajectory.svg");
     let names = coordinate_names(&arm);
-    std::fs::write(&csv_path, csv(&names, &rows))
-        .map_err(|e| CliError::Failed(format!("writing {}: {e}", csv_path.display())))?;
+    super::write_file(&csv_path, &csv(&names, &rows))?;
     write_plot(
         &svg_path,
         &arm.name,

@@ -67,26 +67,11 @@ pub fn write_tree_until(
     let tag = tag_of(&name.to_string_lossy());
     recover(&parent, dir, &tag)?;
 
-    let exists = match fs::symlink_metadata(dir) {
-        Ok(m) if m.file_type().is_symlink() => {
-            return Err(format!(
-                "{} is a symbolic link; give the folder it points to, or another --out",
-                dir.display()
-            ))
-        }
-        Ok(m) if !m.is_dir() => {
-            return Err(format!(
-                "{} exists and is not a folder; refusing to replace it",
-                dir.display()
-            ))
-        }
-        Ok(_) => {
-            check_replaceable(dir, files)?;
-            true
-        }
-        Err(e) if e.kind() == std::io::ErrorKind::NotFound => false,
-        Err(e) => return Err(format!("reading {}: {e}", dir.display())),
-    };
+    preflight(dir)?;
+    let exists = dir.exists();
+    if exists {
+        check_replaceable(dir, files)?;
+    }
 
     let staged = stage(&parent, &tag, files)?;
     if stop == StopAt::Staged {
@@ -121,23 +106,46 @@ pub fn write_tree_until(
     sync_dir(&parent)
 }
 
-/// Refuses to replace `dir` unless arcwright wrote everything in it: the marker must be
-/// one arcwright writes, and every file must be listed in it and unedited (see
+/// The checks on `dir` that need no generated files: it is absent, an empty folder, or
+/// a folder whose marker arcwright wrote (not a link, not a file). `generate` runs them
+/// before deriving, so a wrong `--out` fails at once; [`write_tree`] repeats them.
+pub fn preflight(dir: &Path) -> Result<(), String> {
+    match fs::symlink_metadata(dir) {
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(()),
+        Err(e) => Err(format!("reading {}: {e}", dir.display())),
+        Ok(m) if m.file_type().is_symlink() => Err(format!(
+            "{} is a symbolic link; give the folder it points to, or another --out",
+            dir.display()
+        )),
+        Ok(m) if !m.is_dir() => Err(format!(
+            "{} exists and is not a folder; refusing to replace it",
+            dir.display()
+        )),
+        Ok(_) => {
+            let empty = fs::read_dir(dir)
+                .map_err(|e| format!("reading {}: {e}", dir.display()))?
+                .next()
+                .is_none();
+            if empty || read_marker(dir).is_some() {
+                Ok(())
+            } else {
+                Err(format!(
+                    "{} exists and is not an arcwright output folder (no {MARKER} file that \
+                     arcwright wrote); refusing to replace it. Choose another --out, or empty \
+                     the folder first",
+                    dir.display()
+                ))
+            }
+        }
+    }
+}
+
+/// Refuses to replace `dir` (which passed [`preflight`]) unless arcwright wrote
+/// everything in it: every file must be listed in its marker and unedited (see
 /// [`compare`]). An empty folder may be replaced.
 fn check_replaceable(dir: &Path, files: &[OutFile]) -> Result<(), String> {
-    if fs::read_dir(dir)
-        .map_err(|e| format!("reading {}: {e}", dir.display()))?
-        .next()
-        .is_none()
-    {
-        return Ok(());
-    }
     if read_marker(dir).is_none() {
-        return Err(format!(
-            "{} exists and is not an arcwright output folder (no {MARKER} file that arcwright \
-             wrote); refusing to replace it. Choose another --out, or empty the folder first",
-            dir.display()
-        ));
+        return Ok(()); // an empty folder (preflight refused any other)
     }
     let problems: Vec<Difference> = compare(dir, files)?
         .into_iter()
