@@ -53,14 +53,35 @@ pub struct Model {
 
 /// Derives the model of `arm` at its expansion order.
 pub fn derive(arm: &Arm) -> Model {
+    derive_with_progress(arm, &|_| {})
+}
+
+/// How far a derivation is, for a progress bar: one step per segment, then one for
+/// the differentiation (gravity, Jacobians) and assembly. [`derive_steps`] counts them.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum DeriveStep {
+    /// Segment `j` (0-based) of `of` is composed into the chain.
+    Segment { j: usize, of: usize },
+    /// Gravity, Jacobians and the remaining terms by exact differentiation.
+    Differentiating,
+}
+
+/// Steps [`derive_with_progress`] reports for `arm`.
+pub fn derive_steps(arm: &Arm) -> u64 {
+    arm.segments.len() as u64 + 1
+}
+
+/// [`derive`], calling `progress` before each step.
+pub fn derive_with_progress(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync)) -> Model {
     // The differentiator recurses over the program's depth; give it room.
-    let arm = arm.clone();
-    std::thread::Builder::new()
-        .stack_size(512 << 20)
-        .spawn(move || Deriver::new(&arm).run())
-        .expect("spawning the derivation thread")
-        .join()
-        .expect("derivation thread")
+    std::thread::scope(|scope| {
+        std::thread::Builder::new()
+            .stack_size(512 << 20)
+            .spawn_scoped(scope, || Deriver::new(arm).run(progress))
+            .expect("spawning the derivation thread")
+            .join()
+            .expect("derivation thread")
+    })
 }
 
 /// One segment's exact local quantities, lowered to program nodes.
@@ -666,7 +687,7 @@ impl<'a> Deriver<'a> {
         self.p.lin_comb(&t)
     }
 
-    fn run(mut self) -> Model {
+    fn run(mut self, progress: &(dyn Fn(DeriveStep) + Sync)) -> Model {
         let n = self.n();
         let arm = self.arm;
         let segs = arm.segments.len();
@@ -682,6 +703,7 @@ impl<'a> Deriver<'a> {
         let mut pose = Vec::with_capacity(segs);
 
         for j in 0..segs {
+            progress(DeriveStep::Segment { j, of: segs });
             let seg = &arm.segments[j];
             let off = self.offsets[j];
             let own = off..off + seg.n_coords();
@@ -783,6 +805,7 @@ impl<'a> Deriver<'a> {
                 inertia[y][x] = id;
             }
         }
+        progress(DeriveStep::Differentiating);
         let u_gravity = self.p.sum(&potential_terms);
         let gravity: Vec<Id> = (0..n).map(|x| self.d(u_gravity, x)).collect();
 

@@ -4,8 +4,8 @@ use super::eval::load_arm;
 use super::CliError;
 use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
 use crate::cost::{estimate, Work};
-use crate::derive::{derive, Model};
-use crate::emit::{emit, emitted_ops, Language, Options, Precision};
+use crate::derive::{derive_steps, derive_with_progress, DeriveStep, Model};
+use crate::emit::{emit_steps, emit_with_progress, emitted_ops, Language, Options, Precision};
 use crate::optimise::{optimise, Limits};
 use crate::outdir::{compare, write_tree};
 use clap::{Args, ValueEnum};
@@ -89,8 +89,9 @@ pub struct GenerateArgs {
 pub(crate) fn model_for_emission(
     arm: &crate::arm::Arm,
     optimised: bool,
+    progress: &(dyn Fn(DeriveStep) + Sync),
 ) -> Result<(Model, Option<String>), CliError> {
-    let model = derive(arm);
+    let model = derive_with_progress(arm, progress);
     if !optimised {
         return Ok((model, None));
     }
@@ -137,20 +138,23 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
         PrecisionArg::F32 => Precision::F32,
         PrecisionArg::F64 => Precision::F64,
     };
-    let bar = super::progress::bar(2, "generate");
-    bar.set_message("deriving");
-    let (model, note) = model_for_emission(&arm, args.optimise)?;
-    bar.inc(1);
-    bar.set_message("emitting and computing golden values");
-    let emitted = emit(
-        &model,
-        &text,
-        Options {
-            precision,
-            optimised: args.optimise,
-            languages: args.lang.iter().map(|l| Language::from(*l)).collect(),
-        },
-    );
+    let options = Options {
+        precision,
+        optimised: args.optimise,
+        languages: args.lang.iter().map(|l| Language::from(*l)).collect(),
+    };
+    let bar = super::progress::bar(derive_steps(&arm) + emit_steps(&options), "generate");
+    let (model, note) = model_for_emission(&arm, args.optimise, &|step| {
+        bar.set_message(match step {
+            DeriveStep::Segment { j, of } => format!("deriving: segment {} of {of}", j + 1),
+            DeriveStep::Differentiating => "deriving: gravity and Jacobians".to_string(),
+        });
+        bar.inc(1);
+    })?;
+    let emitted = emit_with_progress(&model, &text, options, &|step| {
+        bar.set_message(step.to_string());
+        bar.inc(1);
+    });
     bar.finish_and_clear();
     if let Some(note) = note {
         super::progress::note(&note);

@@ -192,7 +192,7 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
         .tempdir()
         .map_err(|e| CliError::Failed(format!("creating a temporary folder: {e}")))?;
     let bar = progress::bar(1, "deriving and generating");
-    let (model, _) = super::generate::model_for_emission(&arm, options.optimised)?;
+    let (model, _) = super::generate::model_for_emission(&arm, options.optimised, &|_| {})?;
     let files = emit(&model, &text, options).map_err(CliError::Failed)?;
     bar.finish_and_clear();
     report.push("files", compare_with(dir, &files));

@@ -173,15 +173,31 @@ pub type OutFile = (String, String);
 /// All files for one arm: `c/`, `rust/`, `python/` (those of `options.languages`), the
 /// arm file, the ignore file and the marker, sorted by path.
 pub fn emit(model: &Model, arm_text: &str, options: Options) -> Result<Vec<OutFile>, String> {
-    let model = model.clone();
-    let arm_text = arm_text.to_string();
+    emit_with_progress(model, arm_text, options, &|_| {})
+}
+
+/// Steps [`emit_with_progress`] reports: scheduling, golden values, then one per
+/// language written.
+pub fn emit_steps(options: &Options) -> u64 {
+    2 + options.languages.iter().count() as u64
+}
+
+/// [`emit`], calling `progress` with the name of each step before it starts.
+pub fn emit_with_progress(
+    model: &Model,
+    arm_text: &str,
+    options: Options,
+    progress: &(dyn Fn(&str) + Sync),
+) -> Result<Vec<OutFile>, String> {
     // Scheduling walks expression trees recursively; give it a deep stack.
-    std::thread::Builder::new()
-        .stack_size(256 << 20)
-        .spawn(move || emit_inner(&model, &arm_text, options))
-        .map_err(|e| format!("spawning the emitter thread: {e}"))?
-        .join()
-        .map_err(|_| "the emitter thread panicked".to_string())?
+    std::thread::scope(|scope| {
+        std::thread::Builder::new()
+            .stack_size(256 << 20)
+            .spawn_scoped(scope, || emit_inner(model, arm_text, options, progress))
+            .map_err(|e| format!("spawning the emitter thread: {e}"))?
+            .join()
+            .map_err(|_| "the emitter thread panicked".to_string())?
+    })
 }
 
 /// Operations the emitted code of `model` would execute (see [`plan::Plan::emitted_ops`]).
@@ -195,12 +211,24 @@ pub fn emitted_ops(model: &Model) -> Result<usize, String> {
         .map_err(|_| "the planning thread panicked".to_string())
 }
 
-fn emit_inner(model: &Model, arm_text: &str, options: Options) -> Result<Vec<OutFile>, String> {
+fn emit_inner(
+    model: &Model,
+    arm_text: &str,
+    options: Options,
+    progress: &(dyn Fn(&str) + Sync),
+) -> Result<Vec<OutFile>, String> {
     let meta = Meta::new(arm_text, model.arm.expansion_order);
+    progress("scheduling the code");
     let plan = plan::Plan::new(model, true);
+    progress("golden values from the numeric reference");
     let golden = golden::Golden::compute(&model.arm);
     let mut files = Vec::new();
     for language in options.languages.iter() {
+        progress(match language {
+            Language::C => "printing C",
+            Language::Rust => "printing Rust",
+            Language::Python => "printing Python",
+        });
         files.extend(match language {
             Language::C => c::emit(&plan, &meta, options.precision, &golden)?,
             Language::Rust => rust::emit(&plan, &meta, &golden)?,
