@@ -325,6 +325,100 @@ fn verify_regenerates_with_the_options_the_marker_records() {
 }
 
 #[test]
+fn verify_checks_a_single_language_folder_as_it_was_generated() {
+    // The README's firmware example: C only, single precision. verify must not miss
+    // the other languages, and must run the C checks it has.
+    let tmp = tempfile::tempdir().unwrap();
+    let arm = tmp.path().join("small_arm.toml");
+    fs::write(&arm, SMALL_ARM).unwrap();
+    let out_dir = tmp.path().join("f32");
+    let gen = arcwright(&[
+        "generate",
+        path(&arm),
+        "--out",
+        path(&out_dir),
+        "--lang",
+        "c",
+        "--precision",
+        "f32",
+        "-q",
+    ]);
+    assert!(gen.status.success(), "{}", describe(&gen));
+    assert!(!out_dir.join("rust").exists() && !out_dir.join("python").exists());
+    let out = arcwright(&["verify", path(&out_dir), "--samples", "2", "-q"]);
+    assert_eq!(out.status.code(), Some(0), "{}", describe(&out));
+    let text = stdout(&out);
+    assert!(
+        text.contains(
+            "Rust test    skipped  the folder holds no rust code (generated with --lang c)"
+        ),
+        "{text}"
+    );
+    if Command::new("cc").arg("--version").output().is_ok() {
+        assert!(text.contains("C test       ok"), "{text}");
+    }
+}
+
+#[test]
+fn build_products_of_the_shipped_tests_disturb_neither_verify_nor_check() {
+    let tmp = tempfile::tempdir().unwrap();
+    let arm = tmp.path().join("small_arm.toml");
+    fs::write(&arm, SMALL_ARM).unwrap();
+    let out_dir = tmp.path().join("out");
+    let gen = arcwright(&["generate", path(&arm), "--out", path(&out_dir), "-q"]);
+    assert!(gen.status.success(), "{}", describe(&gen));
+    // What importing the module in place and `cargo test` in rust/ leave behind.
+    fs::create_dir_all(out_dir.join("python/__pycache__")).unwrap();
+    fs::write(
+        out_dir.join("python/__pycache__/small_arm.cpython-311.pyc"),
+        "x",
+    )
+    .unwrap();
+    fs::create_dir_all(out_dir.join("rust/target/debug/deps")).unwrap();
+    for i in 0..200 {
+        fs::write(out_dir.join(format!("rust/target/debug/deps/f{i}")), "x").unwrap();
+    }
+    fs::write(out_dir.join("rust/Cargo.lock"), "x").unwrap();
+    let ignore = fs::read_to_string(out_dir.join(".gitignore")).unwrap();
+    for a in ["/rust/target/", "/rust/Cargo.lock", "/python/__pycache__/"] {
+        assert!(ignore.lines().any(|l| l == a), "{ignore}");
+    }
+    let check = arcwright(&["generate", path(&arm), "--out", path(&out_dir), "--check"]);
+    assert_eq!(check.status.code(), Some(0), "{}", describe(&check));
+    let out = arcwright(&[
+        "verify",
+        path(&out_dir),
+        "--skip",
+        "c,rust,python",
+        "--samples",
+        "1",
+        "-q",
+    ]);
+    assert_eq!(out.status.code(), Some(0), "{}", describe(&out));
+    // Anything else is listed, readably, and both say so.
+    fs::write(out_dir.join("python/notes.txt"), "mine").unwrap();
+    let check = arcwright(&["generate", path(&arm), "--out", path(&out_dir), "--check"]);
+    assert_eq!(check.status.code(), Some(1));
+    let out = arcwright(&[
+        "verify",
+        path(&out_dir),
+        "--skip",
+        "c,rust,python",
+        "--samples",
+        "1",
+        "-q",
+    ]);
+    assert_eq!(out.status.code(), Some(1));
+    for text in [stdout(&check), stdout(&out)] {
+        assert!(
+            text.contains("foreign  python/notes.txt (not written by arcwright)"),
+            "{text}"
+        );
+        assert!(!text.contains("target/debug"), "{text}");
+    }
+}
+
+#[test]
 fn verify_reads_the_recorded_arm_of_the_shipped_output() {
     // Only the checks that need no compiler: recorded arm, files, error table.
     let out = arcwright(&[
