@@ -79,7 +79,7 @@ fn report_json_errors_fall_with_order_and_plots_are_written() {
     let v: serde_json::Value = serde_json::from_str(&text).expect("report --json prints JSON");
     assert_eq!(v["arm"], "reach_arm");
     assert_eq!(v["samples"], 12);
-    assert_eq!(v["workspace"]["source"], "default");
+    assert_eq!(v["sampling"]["source"], "default");
     let rows = v["orders"].as_array().unwrap();
     assert_eq!(rows.len(), 4);
     let col = |key: &str| -> Vec<f64> { rows.iter().map(|r| r[key].as_f64().unwrap()).collect() };
@@ -128,7 +128,7 @@ fn report_json_errors_fall_with_order_and_plots_are_written() {
 fn report_table_and_default_folder_beside_the_arm_file() {
     let dir = tempfile::tempdir().unwrap();
     let arm = dir.path().join("rod.toml");
-    std::fs::write(&arm, format!("{FREE_ARM}[workspace]\nbase_bending = 1.0\nextra_bending = 0.5\nsamples = 5\nseed = 3\n"))
+    std::fs::write(&arm, format!("{FREE_ARM}[sampling]\nbase_bending = 1.0\nextra_bending = 0.5\nsamples = 5\nseed = 3\n"))
         .unwrap();
     let out = arcwright(&["report", s(&arm), "--max-order", "2", "--tolerance", "0.05"]);
     let text = ok(&out);
@@ -355,11 +355,41 @@ fn bad_arm_file_is_exit_2_with_its_location() {
             "{err}"
         );
     }
-    std::fs::write(&path, format!("{FREE_ARM}[workspace]\nsamples = 0\n")).unwrap();
+    std::fs::write(&path, format!("{FREE_ARM}[sampling]\nsamples = 0\n")).unwrap();
     let out = arcwright(&["report", s(&path)]);
     assert_eq!(out.status.code(), Some(2));
     assert!(
+        stderr(&out).contains("bad.toml:16:11: sampling.samples: must be an integer in 1..="),
+        "{}",
+        stderr(&out)
+    );
+    // The table's old name still reads, with a warning, and errors name it as written.
+    std::fs::write(&path, format!("{FREE_ARM}[workspace]\nsamples = 0\n")).unwrap();
+    let out = arcwright(&["report", s(&path)]);
+    assert!(
         stderr(&out).contains("bad.toml:16:11: workspace.samples: must be an integer in 1..="),
+        "{}",
+        stderr(&out)
+    );
+    std::fs::write(&path, format!("{FREE_ARM}[workspace]\nsamples = 3\n")).unwrap();
+    let out = arcwright(&["eval", s(&path), "--q", "0,0"]);
+    assert!(out.status.success(), "{}", stderr(&out));
+    assert!(
+        stderr(&out).starts_with("warning: ")
+            && stderr(&out)
+                .contains("bad.toml:15:1: workspace: [workspace] is the old name of [sampling]"),
+        "{}",
+        stderr(&out)
+    );
+    std::fs::write(
+        &path,
+        format!("{FREE_ARM}[workspace]\nsamples = 3\n[sampling]\nsamples = 3\n"),
+    )
+    .unwrap();
+    let out = arcwright(&["eval", s(&path), "--q", "0,0"]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        stderr(&out).contains("keep [sampling] only"),
         "{}",
         stderr(&out)
     );
@@ -385,6 +415,34 @@ fn new_writes_a_starter_that_parses_and_evaluates() {
     let out = ok(&arcwright(&["eval", s(&path), "--q", "2,0,3,0"]));
     let v: serde_json::Value = serde_json::from_str(&out).unwrap();
     assert_eq!(v["n"], 4);
+    // The starter's order is the one its own report suggests at the default tolerance.
+    let report_dir = dir.path().join("report");
+    let out = ok(&arcwright(&[
+        "report",
+        s(&path),
+        "--json",
+        "--samples",
+        "60",
+        "--out",
+        s(&report_dir),
+        "-q",
+    ]));
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    assert_eq!(v["suggested_order"], 4, "{out}");
+    // A file name that makes no arm name is refused, not silently renamed.
+    let out = arcwright(&["new", s(&dir.path().join("123.toml"))]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        stderr(&out).contains("pass --name NAME"),
+        "{}",
+        stderr(&out)
+    );
+    // A folder that does not exist yet is made.
+    ok(&arcwright(&[
+        "new",
+        s(&dir.path().join("fresh/dir/arm.toml")),
+        "-q",
+    ]));
     // No silent overwrite.
     std::fs::write(&path, "mine").unwrap();
     let out = arcwright(&["new", s(&path)]);

@@ -29,7 +29,7 @@
  *   becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
  *   out-of-bounds access. stiffness and damping take no input.
  * - Accuracy is checked by the shipped tests for bending up to the arm file's
- *   workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+ *   [sampling] bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
  *   extreme values overflow to infinities or NaN, which forward_dynamics reports.
  *
  * SAFETY: this code is not safety-certified. It computes a model, not the robot.
@@ -100,9 +100,11 @@ void hanging_taper_damping(double D[]);
 void hanging_taper_actuation(const double q[], double A[]);
 
 /**
- * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`
- * (0-based): pose[0] = x [m], pose[1] = y [m] in the base frame, pose[2] = tangent
- * angle from +x [rad]. The tip is (segment NSEG - 1, sigma 1).
+ * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
+ * counted FROM 0 here: segment 0 is the arm file's first [[segment]], which the arm
+ * file, `arcwright compare` and the coordinate labels (q1_0) call segment 1.
+ * pose[0] = x [m], pose[1] = y [m] in the base frame, pose[2] = tangent angle from
+ * +x [rad]. The tip is (segment NSEG - 1, sigma 1).
  * Invalid arguments (segment outside 0..NSEG-1, sigma outside [0, 1] or NaN) set all
  * three entries to NaN.
  * Segment 0: Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.

@@ -36,7 +36,7 @@ Non-finite and huge input, function by function (the same in C, Rust and Python)
   becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
   out-of-bounds access. stiffness and damping take no input.
 - Accuracy is checked by the shipped tests for bending up to the arm file's
-  workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+  [sampling] bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
   extreme values overflow to infinities or NaN, which forward_dynamics reports.
 
 SAFETY: not safety-certified. Validate on the bench against the real arm, with
@@ -9312,7 +9312,9 @@ def _pose_segment2(q, sigma):
 
 
 def pose(q, segment, sigma):
-    """Backbone pose [x, y, angle] at sigma in [0, 1] of segment `segment` (0-based):
+    """Backbone pose [x, y, angle] at sigma in [0, 1] of segment `segment`, counted
+    FROM 0 here (0 is the arm file's first [[segment]], which the arm file,
+    `arcwright compare` and the labels q1_0 call segment 1):
     position [m] in the base frame and tangent angle from +x [rad]. The tip is
     (NSEG - 1, 1.0). Invalid arguments (segment out of range, sigma outside [0, 1] or
     NaN) give [nan, nan, nan].

@@ -109,13 +109,13 @@ impl Actuator {
     }
 }
 
-/// Where `arcwright report` samples configurations: the optional `[workspace]` table.
+/// Where `arcwright report` samples configurations: the optional `[sampling]` table.
 ///
 /// A sample bends every segment by a base bending `a_j = L_j q_{j,0}` with
 /// `|a_j| ≤ base_bending`, and its higher coefficients add at most `extra_bending` of
 /// bending anywhere along the segment: `Σ_{i≥1} |L_j q_{j,i}| / (i+1) ≤ extra_bending`.
 #[derive(Clone, Debug, PartialEq)]
-pub struct Workspace {
+pub struct Sampling {
     /// Largest base bending `|L_j q_{j,0}|` of a segment [rad], > 0.
     pub base_bending: f64,
     /// Largest extra bending from the higher curvature coefficients [rad], ≥ 0.
@@ -126,10 +126,10 @@ pub struct Workspace {
     pub seed: u64,
 }
 
-impl Default for Workspace {
+impl Default for Sampling {
     /// π of base bending, π/2 of extra bending, 200 samples, seed 1.
     fn default() -> Self {
-        Workspace {
+        Sampling {
             base_bending: std::f64::consts::PI,
             extra_bending: std::f64::consts::FRAC_PI_2,
             samples: 200,
@@ -138,8 +138,8 @@ impl Default for Workspace {
     }
 }
 
-/// Largest number of workspace samples an arm file may ask for.
-pub const MAX_WORKSPACE_SAMPLES: usize = 1_000_000;
+/// Largest number of samples a `[sampling]` table may ask for.
+pub const MAX_SAMPLES: usize = 1_000_000;
 
 /// A validated arm: every invariant of MODEL.md holds (positive lengths and
 /// stiffness, actuators on existing segments, orders within range).
@@ -154,8 +154,11 @@ pub struct Arm {
     pub segments: Vec<Segment>,
     pub payload: Payload,
     pub actuators: Vec<Actuator>,
-    /// The `[workspace]` table, if the file has one (sampling bounds for reports).
-    pub workspace: Option<Workspace>,
+    /// The `[sampling]` table, if the file has one (sampling bounds for reports).
+    pub sampling: Option<Sampling>,
+    /// Warnings from reading the file (`file:line:column: field: message`): valid
+    /// input that is deprecated or looks like a mistake. Commands print them.
+    pub warnings: Vec<String>,
 }
 
 impl Arm {
@@ -171,9 +174,9 @@ impl Arm {
     pub fn coord_offset(&self, j: usize) -> usize {
         self.segments[..j].iter().map(Segment::n_coords).sum()
     }
-    /// The workspace to sample: the file's `[workspace]` table or the default.
-    pub fn workspace_or_default(&self) -> Workspace {
-        self.workspace.clone().unwrap_or_default()
+    /// Where to sample configurations: the file's `[sampling]` table or the default.
+    pub fn sampling_or_default(&self) -> Sampling {
+        self.sampling.clone().unwrap_or_default()
     }
     /// The same arm at another expansion order.
     pub fn with_order(&self, order: u32) -> Arm {

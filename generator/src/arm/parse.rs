@@ -165,7 +165,10 @@ pub(super) struct RawArm {
     pub segments: Vec<RawSegment>,
     pub payload: Option<RawPayload>,
     pub actuators: Vec<RawActuator>,
-    pub workspace: Option<RawWorkspace>,
+    pub sampling: Option<RawSampling>,
+    /// Located warnings (`file:line:column: field: message`): valid but deprecated or
+    /// suspicious input.
+    pub warnings: Vec<String>,
 }
 
 #[derive(Debug)]
@@ -185,7 +188,9 @@ pub(super) struct RawPayload {
 }
 
 #[derive(Debug)]
-pub(super) struct RawWorkspace {
+pub(super) struct RawSampling {
+    /// The table's name as written: `sampling`, or its old name `workspace`.
+    pub table: &'static str,
     pub base_bending: Option<Sp<Rational>>,
     pub extra_bending: Option<Sp<Rational>>,
     pub samples: Option<Sp<i64>>,
@@ -213,6 +218,7 @@ const ROOT_KEYS: &[&str] = &[
     "segment",
     "payload",
     "actuator",
+    "sampling",
     "workspace",
 ];
 const SEGMENT_KEYS: &[&str] = &[
@@ -224,7 +230,7 @@ const SEGMENT_KEYS: &[&str] = &[
     "damping",
 ];
 const PAYLOAD_KEYS: &[&str] = &["mass", "rotary_inertia"];
-const WORKSPACE_KEYS: &[&str] = &["base_bending", "extra_bending", "samples", "seed"];
+const SAMPLING_KEYS: &[&str] = &["base_bending", "extra_bending", "samples", "seed"];
 const ACTUATOR_KINDS: &[&str] = &["tendon", "moment", "end_force"];
 const TENDON_KEYS: &[&str] = &["kind", "offset", "through_segment"];
 const MOMENT_KEYS: &[&str] = &["kind", "segment"];
@@ -345,23 +351,45 @@ pub(super) fn read_raw(ctx: &Ctx) -> Result<RawArm, ArmError> {
         actuators.push(read_actuator(ctx, tab)?);
     }
 
-    let workspace = match root.get("workspace") {
-        Some((item, at)) => {
-            let t = item.as_table_like().ok_or_else(|| {
+    let mut warnings = Vec::new();
+    let table = |name: &'static str, item: &Item, at: usize| {
+        let t = item.as_table_like().ok_or_else(|| {
+            ctx.field_err(
+                at,
+                name,
+                format!("expected a table ([{name}]), got {}", item_kind(item)),
+            )
+        })?;
+        let tab = Tab {
+            t,
+            at,
+            path: name.to_string(),
+        };
+        read_sampling(ctx, &tab, name)
+    };
+    let sampling = match (root.get("sampling"), root.get("workspace")) {
+        (Some(_), Some((_, at))) => {
+            return Err(ctx.field_err(
+                at,
+                "workspace",
+                "the file has [sampling] and its old name [workspace]; keep [sampling] only",
+            ))
+        }
+        (Some((item, at)), None) => Some(table("sampling", item, at)?),
+        (None, Some((item, at))) => {
+            warnings.push(
                 ctx.field_err(
                     at,
                     "workspace",
-                    format!("expected a table ([workspace]), got {}", item_kind(item)),
+                    "[workspace] is the old name of [sampling] (configuration-space bounds for \
+                     sampling, not the task-space workspace); rename the table, the old name \
+                     will go in a later version",
                 )
-            })?;
-            let tab = Tab {
-                t,
-                at,
-                path: "workspace".to_string(),
-            };
-            Some(read_workspace(ctx, &tab)?)
+                .to_string(),
+            );
+            Some(table("workspace", item, at)?)
         }
-        None => None,
+        (None, None) => None,
     };
 
     Ok(RawArm {
@@ -372,7 +400,8 @@ pub(super) fn read_raw(ctx: &Ctx) -> Result<RawArm, ArmError> {
         segments,
         payload,
         actuators,
-        workspace,
+        sampling,
+        warnings,
     })
 }
 
@@ -421,8 +450,8 @@ fn read_payload(ctx: &Ctx, tab: &Tab) -> Result<RawPayload, ArmError> {
     })
 }
 
-fn read_workspace(ctx: &Ctx, tab: &Tab) -> Result<RawWorkspace, ArmError> {
-    check_keys(ctx, tab, WORKSPACE_KEYS)?;
+fn read_sampling(ctx: &Ctx, tab: &Tab, table: &'static str) -> Result<RawSampling, ArmError> {
+    check_keys(ctx, tab, SAMPLING_KEYS)?;
     let num = |key: &str| -> Result<Option<Sp<Rational>>, ArmError> {
         match tab.get(key) {
             Some((item, at)) => Ok(Some(read_number(ctx, item, at, &tab.field_name(key))?)),
@@ -435,7 +464,8 @@ fn read_workspace(ctx: &Ctx, tab: &Tab) -> Result<RawWorkspace, ArmError> {
             None => Ok(None),
         }
     };
-    Ok(RawWorkspace {
+    Ok(RawSampling {
+        table,
         base_bending: num("base_bending")?,
         extra_bending: num("extra_bending")?,
         samples: int("samples")?,
@@ -1495,19 +1525,19 @@ mod tests {
     }
 
     #[test]
-    fn workspace_table() {
-        use crate::arm::Workspace;
+    fn sampling_table() {
+        use crate::arm::Sampling;
         // Absent: None, and the default bounds apply.
         let arm = ok(&format!("name = \"a\"\n{SEG}"));
-        assert_eq!(arm.workspace, None);
-        assert_eq!(arm.workspace_or_default(), Workspace::default());
+        assert_eq!(arm.sampling, None);
+        assert_eq!(arm.sampling_or_default(), Sampling::default());
         // Every key.
         let arm = ok(&format!(
-            "name = \"a\"\n{SEG}[workspace]\nbase_bending = 2.5\nextra_bending = 0\nsamples = 40\nseed = 7\n"
+            "name = \"a\"\n{SEG}[sampling]\nbase_bending = 2.5\nextra_bending = 0\nsamples = 40\nseed = 7\n"
         ));
         assert_eq!(
-            arm.workspace,
-            Some(Workspace {
+            arm.sampling,
+            Some(Sampling {
                 base_bending: 2.5,
                 extra_bending: 0.0,
                 samples: 40,
@@ -1516,80 +1546,80 @@ mod tests {
         );
         // Missing keys take their defaults; inline tables work too.
         let arm = ok(&format!(
-            "name = \"a\"\nworkspace = {{ samples = 12 }}\n{SEG}"
+            "name = \"a\"\nsampling = {{ samples = 12 }}\n{SEG}"
         ));
-        let ws = arm.workspace.unwrap();
+        let ws = arm.sampling.unwrap();
         assert_eq!(ws.samples, 12);
-        assert_eq!(ws.base_bending, Workspace::default().base_bending);
-        assert_eq!(ws.seed, Workspace::default().seed);
+        assert_eq!(ws.base_bending, Sampling::default().base_bending);
+        assert_eq!(ws.seed, Sampling::default().seed);
         // An empty table is all defaults.
-        let arm = ok(&format!("name = \"a\"\n{SEG}[workspace]\n"));
-        assert_eq!(arm.workspace, Some(Workspace::default()));
+        let arm = ok(&format!("name = \"a\"\n{SEG}[sampling]\n"));
+        assert_eq!(arm.sampling, Some(Sampling::default()));
     }
 
     #[test]
-    fn workspace_errors() {
+    fn sampling_errors() {
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bend = 1\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nbase_bend = 1\n"),
             8,
             1,
-            Some("workspace"),
-            "unknown key `base_bend` in workspace; did you mean `base_bending`?",
+            Some("sampling"),
+            "unknown key `base_bend` in sampling; did you mean `base_bending`?",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bending = 0\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nbase_bending = 0\n"),
             8,
             16,
-            Some("workspace.base_bending"),
-            "workspace.base_bending: must be in (0, 4π] rad",
+            Some("sampling.base_bending"),
+            "sampling.base_bending: must be in (0, 4π] rad",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nextra_bending = -0.1\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nextra_bending = -0.1\n"),
             8,
             17,
-            Some("workspace.extra_bending"),
+            Some("sampling.extra_bending"),
             "must be in [0, 4π] rad (4π ≈ 12.5664), got -0.1",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bending = 13\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nbase_bending = 13\n"),
             8,
             16,
-            Some("workspace.base_bending"),
+            Some("sampling.base_bending"),
             "got 13",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nsamples = 0\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nsamples = 0\n"),
             8,
             11,
-            Some("workspace.samples"),
-            "workspace.samples: must be an integer in 1..=1000000, got 0",
+            Some("sampling.samples"),
+            "sampling.samples: must be an integer in 1..=1000000, got 0",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nsamples = 2.5\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nsamples = 2.5\n"),
             8,
             11,
-            Some("workspace.samples"),
+            Some("sampling.samples"),
             "expected an integer, got the float `2.5`",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nseed = -3\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nseed = -3\n"),
             8,
             8,
-            Some("workspace.seed"),
-            "workspace.seed: must be a non-negative integer, got -3",
+            Some("sampling.seed"),
+            "sampling.seed: must be a non-negative integer, got -3",
         );
         err_at(
-            &format!("name = \"a\"\nworkspace = 3\n{SEG}"),
+            &format!("name = \"a\"\nsampling = 3\n{SEG}"),
             2,
-            13,
-            Some("workspace"),
-            "expected a table ([workspace]), got an integer",
+            12,
+            Some("sampling"),
+            "expected a table ([sampling]), got an integer",
         );
         err_at(
-            &format!("name = \"a\"\n{SEG}[workspace]\nbase_bending = \"pi\"\n"),
+            &format!("name = \"a\"\n{SEG}[sampling]\nbase_bending = \"pi\"\n"),
             8,
             16,
-            Some("workspace.base_bending"),
+            Some("sampling.base_bending"),
             "expected a number, got a string",
         );
     }

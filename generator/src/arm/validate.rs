@@ -8,10 +8,10 @@
 use num_bigint::BigInt;
 use num_traits::{Signed, ToPrimitive, Zero};
 
-use super::parse::{ArmError, Ctx, RawActuator, RawArm, RawWorkspace, Sp};
+use super::parse::{ArmError, Ctx, RawActuator, RawArm, RawSampling, Sp};
 use super::{
-    Actuator, Arm, Payload, Rational, Segment, SigmaPoly, Workspace, DEFAULT_EXPANSION_ORDER,
-    MAX_CURVATURE_DEGREE, MAX_EXPANSION_ORDER, MAX_WORKSPACE_SAMPLES,
+    Actuator, Arm, Payload, Rational, Sampling, Segment, SigmaPoly, DEFAULT_EXPANSION_ORDER,
+    MAX_CURVATURE_DEGREE, MAX_EXPANSION_ORDER, MAX_SAMPLES,
 };
 
 /// Highest polynomial degree accepted for a property along σ (density, EI, …).
@@ -201,8 +201,8 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
         });
     }
 
-    let workspace = match raw.workspace {
-        Some(w) => Some(workspace(ctx, w)?),
+    let sampling = match raw.sampling {
+        Some(w) => Some(sampling(ctx, w)?),
         None => None,
     };
 
@@ -213,17 +213,19 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
         segments,
         payload,
         actuators,
-        workspace,
+        sampling,
+        warnings: raw.warnings,
     })
 }
 
-/// Largest bending a `[workspace]` bound may ask for: two full turns [rad].
-pub(crate) const MAX_WORKSPACE_BENDING: f64 = 4.0 * std::f64::consts::PI;
+/// Largest bending a `[sampling]` bound may ask for: two full turns [rad].
+pub(crate) const MAX_SAMPLING_BENDING: f64 = 4.0 * std::f64::consts::PI;
 
-/// The `[workspace]` table: bending bounds in (0, 4π] (extra bending may be 0),
-/// a sample count in 1..=MAX_WORKSPACE_SAMPLES and a non-negative seed.
-fn workspace(ctx: &Ctx, w: RawWorkspace) -> Result<Workspace, ArmError> {
-    let mut out = Workspace::default();
+/// The `[sampling]` table: bending bounds in (0, 4π] (extra bending may be 0),
+/// a sample count in 1..=MAX_SAMPLES and a non-negative seed.
+fn sampling(ctx: &Ctx, w: RawSampling) -> Result<Sampling, ArmError> {
+    let field = |key: &str| format!("{}.{key}", w.table);
+    let mut out = Sampling::default();
     let bending = |b: &Sp<Rational>, field: &str, zero_ok: bool| -> Result<f64, ArmError> {
         let x = b.value.to_f64().unwrap_or(f64::INFINITY);
         let low_ok = if zero_ok {
@@ -231,13 +233,13 @@ fn workspace(ctx: &Ctx, w: RawWorkspace) -> Result<Workspace, ArmError> {
         } else {
             b.value.is_positive()
         };
-        if !low_ok || x > MAX_WORKSPACE_BENDING {
+        if !low_ok || x > MAX_SAMPLING_BENDING {
             let low = if zero_ok { "[0" } else { "(0" };
             return Err(ctx.field_err(
                 b.at,
                 field,
                 format!(
-                    "must be in {low}, 4π] rad (4π ≈ {MAX_WORKSPACE_BENDING:.4}), got {}",
+                    "must be in {low}, 4π] rad (4π ≈ {MAX_SAMPLING_BENDING:.4}), got {}",
                     b.raw
                 ),
             ));
@@ -245,20 +247,17 @@ fn workspace(ctx: &Ctx, w: RawWorkspace) -> Result<Workspace, ArmError> {
         Ok(x)
     };
     if let Some(b) = &w.base_bending {
-        out.base_bending = bending(b, "workspace.base_bending", false)?;
+        out.base_bending = bending(b, &field("base_bending"), false)?;
     }
     if let Some(b) = &w.extra_bending {
-        out.extra_bending = bending(b, "workspace.extra_bending", true)?;
+        out.extra_bending = bending(b, &field("extra_bending"), true)?;
     }
     if let Some(s) = &w.samples {
-        if s.value < 1 || s.value > MAX_WORKSPACE_SAMPLES as i64 {
+        if s.value < 1 || s.value > MAX_SAMPLES as i64 {
             return Err(ctx.field_err(
                 s.at,
-                "workspace.samples",
-                format!(
-                    "must be an integer in 1..={MAX_WORKSPACE_SAMPLES}, got {}",
-                    s.raw
-                ),
+                &field("samples"),
+                format!("must be an integer in 1..={MAX_SAMPLES}, got {}", s.raw),
             ));
         }
         out.samples = s.value as usize;
@@ -267,7 +266,7 @@ fn workspace(ctx: &Ctx, w: RawWorkspace) -> Result<Workspace, ArmError> {
         if s.value < 0 {
             return Err(ctx.field_err(
                 s.at,
-                "workspace.seed",
+                &field("seed"),
                 format!("must be a non-negative integer, got {}", s.raw),
             ));
         }

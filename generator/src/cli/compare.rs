@@ -3,12 +3,12 @@
 //! Three answers: which parameters changed (field by field, with the path a reviewer
 //! finds in the file), which emitted functions change (their outputs differ at some
 //! sampled state, or the arms differ in shape), and by how much each quantity moves
-//! over a sampled workspace.
+//! over sampled configurations.
 
 use super::eval::load_arm;
 use super::report::sample_configurations;
 use super::{progress, CliError};
-use crate::arm::{Actuator, Arm, SigmaPoly, MAX_WORKSPACE_SAMPLES};
+use crate::arm::{Actuator, Arm, SigmaPoly, MAX_SAMPLES};
 use crate::derive::derive;
 use crate::dynamics::forward_dynamics;
 use crate::emit::golden::SIGMAS;
@@ -25,7 +25,7 @@ use std::path::{Path, PathBuf};
 /// Compare two arm files (or two output folders that record theirs): changed
 /// parameters, changed functions, and how much each quantity moves.
 ///
-/// States are sampled in OLD's workspace ([workspace] table, else the default) with
+/// States are sampled in OLD's [sampling] ranges (else the default ones) with
 /// random velocities and inputs, the same for both arms. A function changes when its
 /// outputs differ (beyond 1e-12 relative) at any sampled state, or when the arms differ
 /// in shape (segments' curvature degrees, number of inputs); then only the parameters
@@ -48,7 +48,7 @@ pub struct CompareArgs {
     /// Number of sampled states (default: 50).
     #[arg(long, default_value_t = 50)]
     samples: usize,
-    /// Seed of the sampler (default: OLD's [workspace] seed, else 1).
+    /// Seed of the sampler (default: OLD's [sampling] seed, else 1).
     #[arg(long)]
     seed: Option<u64>,
     /// Print JSON instead of text.
@@ -186,17 +186,17 @@ fn parameters(arm: &Arm) -> Vec<(String, String)> {
             }
         }
     }
-    let ws = arm.workspace_or_default();
+    let ws = arm.sampling_or_default();
     v.push((
-        "workspace.base_bending".into(),
+        "sampling.base_bending".into(),
         format!("{}", ws.base_bending),
     ));
     v.push((
-        "workspace.extra_bending".into(),
+        "sampling.extra_bending".into(),
         format!("{}", ws.extra_bending),
     ));
-    v.push(("workspace.samples".into(), ws.samples.to_string()));
-    v.push(("workspace.seed".into(), ws.seed.to_string()));
+    v.push(("sampling.samples".into(), ws.samples.to_string()));
+    v.push(("sampling.seed".into(), ws.seed.to_string()));
     v
 }
 
@@ -296,7 +296,7 @@ fn flat(m: &[Vec<f64>]) -> Vec<f64> {
 /// Same shape: every function at the same sampled states.
 fn compare_functions(old: &Arm, new: &Arm, samples: usize, seed: u64) -> Vec<QuantityChange> {
     let (n, k) = (old.n_coords(), old.n_inputs());
-    let ws = old.workspace_or_default();
+    let ws = old.sampling_or_default();
     let qs = sample_configurations(old, &ws, samples, seed);
     let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0xc0ffee);
     let (mo, mn) = (derive(old), derive(new));
@@ -345,7 +345,7 @@ fn compare_functions(old: &Arm, new: &Arm, samples: usize, seed: u64) -> Vec<Qua
 /// Different shapes: the tip pose at the straight configuration and, with as many
 /// segments on both sides, at the same constant-curvature bending of each segment.
 fn compare_tip_pose(old: &Arm, new: &Arm, samples: usize, seed: u64) -> QuantityChange {
-    let ws = old.workspace_or_default();
+    let ws = old.sampling_or_default();
     let mut rng = ChaCha8Rng::seed_from_u64(seed);
     let (mo, mn) = (derive(old), derive(new));
     let (eo, en) = (Evaluator::new(&mo), Evaluator::new(&mn));
@@ -385,9 +385,9 @@ fn compare_tip_pose(old: &Arm, new: &Arm, samples: usize, seed: u64) -> Quantity
 }
 
 pub fn run(args: &CompareArgs) -> Result<(), CliError> {
-    if args.samples == 0 || args.samples > MAX_WORKSPACE_SAMPLES {
+    if args.samples == 0 || args.samples > MAX_SAMPLES {
         return Err(CliError::Input(format!(
-            "--samples: must be in 1..={MAX_WORKSPACE_SAMPLES}, got {}",
+            "--samples: must be in 1..={MAX_SAMPLES}, got {}",
             args.samples
         )));
     }
@@ -401,7 +401,7 @@ pub fn run(args: &CompareArgs) -> Result<(), CliError> {
     let (po, pn) = (arm_source(&args.old)?, arm_source(&args.new)?);
     let old = load_arm(&po, None)?;
     let new = load_arm(&pn, None)?;
-    let seed = args.seed.unwrap_or(old.workspace_or_default().seed);
+    let seed = args.seed.unwrap_or(old.sampling_or_default().seed);
     let parameters = parameter_changes(&old, &new);
     let (so, sn) = (shape(&old), shape(&new));
     let structural = so.k != sn.k || so.curvature_degrees != sn.curvature_degrees;

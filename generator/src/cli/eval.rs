@@ -56,6 +56,9 @@ struct EvalOutput {
 /// too large to derive within the budget is refused here, before any algebra.
 pub(crate) fn load_arm(path: &std::path::Path, order: Option<u32>) -> Result<Arm, CliError> {
     let (arm, _) = parse_arm_file(path).map_err(|e| CliError::Input(e.to_string()))?;
+    for w in &arm.warnings {
+        super::progress::warning(w);
+    }
     let arm = match order {
         Some(n) if n > MAX_EXPANSION_ORDER => {
             return Err(CliError::Input(format!(

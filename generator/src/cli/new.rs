@@ -84,12 +84,8 @@ pub fn run(args: &NewArgs) -> Result<(), CliError> {
         CliError::Failed(format!("internal error: the starter arm is invalid: {e}"))
     })?;
     if let Some(dir) = args.path.parent().filter(|d| !d.as_os_str().is_empty()) {
-        if !dir.is_dir() {
-            return Err(CliError::Input(format!(
-                "{}: no such directory",
-                dir.display()
-            )));
-        }
+        std::fs::create_dir_all(dir)
+            .map_err(|e| CliError::Input(format!("creating {}: {e}", dir.display())))?;
     }
     std::fs::write(&args.path, text)
         .map_err(|e| CliError::Input(format!("writing {file}: {e}")))?;
@@ -110,7 +106,8 @@ mod tests {
         assert_eq!(arm.name, "starter");
         assert_eq!(arm.n_coords(), 4);
         assert_eq!(arm.n_inputs(), 3);
-        assert_eq!(arm.workspace_or_default(), crate::arm::Workspace::default());
+        assert_eq!(arm.sampling_or_default().extra_bending, 0.5);
+        assert_eq!(arm.expansion_order, 4);
         let model = derive(&arm);
         let t = Evaluator::new(&model).terms(&[0.0; 4], &[0.0; 4]);
         // Horizontal arm: gravity pulls the curvature negative, so G is positive.

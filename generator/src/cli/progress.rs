@@ -68,6 +68,16 @@ pub(crate) fn note(text: &str) {
     }
 }
 
+/// A warning on standard error (not with `--quiet`): valid input that looks wrong.
+pub(crate) fn warning(text: &str) {
+    if !quiet() {
+        eprintln!(
+            "{} {text}",
+            console::style("warning:").yellow().for_stderr()
+        );
+    }
+}
+
 /// "wrote PATH" on standard error, the verb in green on a terminal.
 pub(crate) fn wrote(path: &std::path::Path) {
     if !quiet() {

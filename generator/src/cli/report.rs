@@ -3,7 +3,7 @@
 //!
 //! For every order up to the maximum the arm is derived (timed), the program's
 //! operations are counted, and the model is evaluated over a deterministic sample of
-//! the workspace and compared with the exact (untruncated) kinematics evaluated by
+//! the [sampling] ranges and compared with the exact (untruncated) kinematics evaluated by
 //! quadrature. Errors are the maximum over the samples of:
 //!
 //! - tip position: `|p_N − p| / ℓ`, ℓ the arm's total length (the tip angle is exact
@@ -17,7 +17,7 @@
 use super::eval::load_arm;
 use super::plot::{self, Axes, Line, Panel};
 use super::{progress, CliError};
-use crate::arm::{Arm, Workspace, MAX_EXPANSION_ORDER, MAX_WORKSPACE_SAMPLES};
+use crate::arm::{Arm, Sampling, MAX_EXPANSION_ORDER, MAX_SAMPLES};
 use crate::derive::{derive, Model};
 use crate::evaluate::{main_roots, Evaluator};
 use crate::ir::OpCount;
@@ -31,11 +31,11 @@ use std::fmt::Write as _;
 use std::path::{Path, PathBuf};
 use std::time::Instant;
 
-/// Accuracy and cost of each expansion order over a sampled workspace.
+/// Accuracy and cost of each expansion order over sampled configurations.
 ///
 /// Derives the arm at orders 0..=N, compares tip position, inertia B and gravity G
 /// with the exact kinematics over sampled configurations (bounds from the arm file's
-/// [workspace] table, else each segment bends by at most π, plus π/2 from its higher
+/// [sampling] table, else each segment bends by at most π, plus π/2 from its higher
 /// curvature coefficients), counts the operations of the derived program and times
 /// the derivation. Prints a table (or JSON with --json) and writes error_vs_order.svg,
 /// backbones.svg and report.json into the output folder.
@@ -51,10 +51,10 @@ pub struct ReportArgs {
     /// Highest order to derive (default: the file's expansion_order; at most 10).
     #[arg(long)]
     max_order: Option<u32>,
-    /// Number of sampled configurations (default: the [workspace] table's, else 200).
+    /// Number of sampled configurations (default: the [sampling] table's, else 200).
     #[arg(long)]
     samples: Option<usize>,
-    /// Seed of the sampler (default: the [workspace] table's, else 1).
+    /// Seed of the sampler (default: the [sampling] table's, else 1).
     #[arg(long)]
     seed: Option<u64>,
     /// Error level for the suggested order: the lowest order with every error below it.
@@ -106,10 +106,10 @@ pub(crate) struct OrderRow {
 }
 
 #[derive(Debug, Serialize)]
-struct WorkspaceOut {
+struct SamplingOut {
     base_bending: f64,
     extra_bending: f64,
-    /// `"file"` (the arm file's [workspace] table) or `"default"`.
+    /// `"file"` (the arm file's [sampling] table) or `"default"`.
     source: &'static str,
 }
 
@@ -121,22 +121,25 @@ struct ReportOut {
     arm_length: f64,
     samples: usize,
     seed: u64,
-    workspace: WorkspaceOut,
+    sampling: SamplingOut,
     orders: Vec<OrderRow>,
     tolerance: f64,
     /// Lowest order whose errors are all at most `tolerance` (`None`: none is).
     suggested_order: Option<u32>,
+    /// When no order shown is enough: the lowest higher order that is (the
+    /// `--max-order` to ask for), if any up to the maximum is.
+    needed_order: Option<u32>,
     plots: Vec<String>,
 }
 
-/// `count` configurations inside the workspace, the same for the same seed.
+/// `count` configurations inside the [sampling] ranges, the same for the same seed.
 ///
 /// Per segment: base bending `a = L q0` uniform in `[−base, base]`; the higher
 /// coefficients get a random direction (uniform weights, normalised in ℓ¹) and a
 /// total extra bending `Σ_{i≥1} |L q_i|/(i+1)` uniform in `[0, extra]`.
 pub(crate) fn sample_configurations(
     arm: &Arm,
-    ws: &Workspace,
+    ws: &Sampling,
     count: usize,
     seed: u64,
 ) -> Vec<Vec<f64>> {
@@ -245,11 +248,11 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
             .reduce(|a, b| a + b)
             .expect("at least order 0"),
     )?;
-    let ws = arm.workspace_or_default();
+    let ws = arm.sampling_or_default();
     let samples = args.samples.unwrap_or(ws.samples);
-    if samples == 0 || samples > MAX_WORKSPACE_SAMPLES {
+    if samples == 0 || samples > MAX_SAMPLES {
         return Err(CliError::Input(format!(
-            "--samples: must be in 1..={MAX_WORKSPACE_SAMPLES}, got {samples}"
+            "--samples: must be in 1..={MAX_SAMPLES}, got {samples}"
         )));
     }
     if !(args.tolerance.is_finite() && args.tolerance > 0.0) {
@@ -301,6 +304,26 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         .map(|&s| backbone(|j, sig| exact_ref.pose(&qs[s], j, sig), segs, SHAPE_POINTS))
         .collect();
 
+    // Worst errors of one order's model over the samples: tip position, B, G.
+    let errors_of = |ev: &Evaluator, tick: &dyn Fn()| {
+        let (mut e_tip, mut e_b, mut e_g) = (0.0f64, 0.0f64, 0.0f64);
+        for (q, ex) in qs.iter().zip(&exact) {
+            let t = ev.terms(q, &zeros);
+            let dp =
+                ((t.tip_pose[0] - ex.tip[0]).powi(2) + (t.tip_pose[1] - ex.tip[1]).powi(2)).sqrt();
+            e_tip = worst(e_tip, dp / arm_length);
+            e_b = worst(e_b, frob_diff(&t.b, &ex.b) / frob(&ex.b).max(floor_b));
+            if has_gravity {
+                e_g = worst(e_g, norm_diff(&t.g, &ex.g) / norm(&ex.g).max(floor_g));
+            }
+            tick();
+        }
+        (e_tip, e_b, e_g)
+    };
+    let within = |(t, b, g): (f64, f64, f64)| {
+        t <= args.tolerance && b <= args.tolerance && (!has_gravity || g <= args.tolerance)
+    };
+
     // Each order: derive, count, evaluate over the samples.
     let orders = max_order as u64 + 1;
     let bar = progress::bar(orders * samples as u64, "orders");
@@ -323,18 +346,7 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         let ops_all = Ops::from(model.program.count_ops(&main_roots(&model)));
         bar.set_message(format!("evaluating order {order}"));
         let ev = Evaluator::new(&model);
-        let (mut e_tip, mut e_b, mut e_g) = (0.0f64, 0.0f64, 0.0f64);
-        for (q, ex) in qs.iter().zip(&exact) {
-            let t = ev.terms(q, &zeros);
-            let dp =
-                ((t.tip_pose[0] - ex.tip[0]).powi(2) + (t.tip_pose[1] - ex.tip[1]).powi(2)).sqrt();
-            e_tip = worst(e_tip, dp / arm_length);
-            e_b = worst(e_b, frob_diff(&t.b, &ex.b) / frob(&ex.b).max(floor_b));
-            if has_gravity {
-                e_g = worst(e_g, norm_diff(&t.g, &ex.g) / norm(&ex.g).max(floor_g));
-            }
-            bar.inc(1);
-        }
+        let (e_tip, e_b, e_g) = errors_of(&ev, &|| bar.inc(1));
         shapes.push(
             shown
                 .iter()
@@ -361,7 +373,7 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         if !errors.iter().all(|e| e.is_finite()) {
             return Err(CliError::Failed(format!(
                 "order {}: the truncation error is not a finite number over the sampled \
-                 configurations; the arm's numbers or its [workspace] bounds are beyond what \
+                 configurations; the arm's numbers or its [sampling] bounds are beyond what \
                  double precision can evaluate",
                 r.order
             )));
@@ -371,11 +383,39 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
     let suggested_order = rows
         .iter()
         .find(|r| {
-            r.tip_position_error <= args.tolerance
-                && r.inertia_error <= args.tolerance
-                && r.gravity_error.is_none_or(|g| g <= args.tolerance)
+            within((
+                r.tip_position_error,
+                r.inertia_error,
+                r.gravity_error.unwrap_or(0.0),
+            ))
         })
         .map(|r| r.order);
+    // None of the orders shown is enough: find the --max-order that would be (errors
+    // only), as far as the supported maximum and the cost budget go.
+    let mut needed_order = None;
+    if suggested_order.is_none() {
+        let bar = progress::bar(u64::from(MAX_EXPANSION_ORDER - max_order), "higher orders");
+        for order in max_order + 1..=MAX_EXPANSION_ORDER {
+            let higher = arm.with_order(order);
+            if super::within_budget(
+                "",
+                crate::cost::estimate(&higher, crate::cost::Work::Derive),
+            )
+            .is_err()
+            {
+                break;
+            }
+            bar.set_message(format!("order {order}"));
+            let model = derive(&higher);
+            let e = errors_of(&Evaluator::new(&model), &|| {});
+            bar.inc(1);
+            if e.0.is_finite() && within(e) {
+                needed_order = Some(order);
+                break;
+            }
+        }
+        bar.finish_and_clear();
+    }
 
     let errors_svg = out_dir.join("error_vs_order.svg");
     let shapes_svg = out_dir.join("backbones.svg");
@@ -391,10 +431,10 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         arm_length,
         samples,
         seed,
-        workspace: WorkspaceOut {
+        sampling: SamplingOut {
             base_bending: ws.base_bending,
             extra_bending: ws.extra_bending,
-            source: if arm.workspace.is_some() {
+            source: if arm.sampling.is_some() {
                 "file"
             } else {
                 "default"
@@ -403,6 +443,7 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
         orders: rows,
         tolerance: args.tolerance,
         suggested_order,
+        needed_order,
         plots: [&errors_svg, &shapes_svg]
             .iter()
             .map(|p| p.display().to_string())
@@ -456,10 +497,10 @@ fn table(r: &ReportOut) -> String {
     );
     let _ = writeln!(
         s,
-        "workspace ({}): |L q0| ≤ {:.4} rad per segment, ≤ {:.4} rad more from higher coefficients\n",
-        if r.workspace.source == "file" { "from the arm file" } else { "default" },
-        r.workspace.base_bending,
-        r.workspace.extra_bending
+        "sampling ({}): |L q0| ≤ {:.4} rad per segment, ≤ {:.4} rad more from higher coefficients\n",
+        if r.sampling.source == "file" { "from the arm file" } else { "default" },
+        r.sampling.base_bending,
+        r.sampling.extra_bending
     );
     let header = format!(
         "{:>5}  {:>12}  {:>10}  {:>10}  {:>10}  {:>10}  {:>10}",
@@ -502,6 +543,17 @@ fn table(r: &ReportOut) -> String {
                 r.orders.len() - 1,
                 r.tolerance
             );
+            let _ = match r.needed_order {
+                Some(o) => writeln!(
+                    s,
+                    "order {o} does: rerun with --max-order {o} to see it, or set expansion_order = {o}"
+                ),
+                None => writeln!(
+                    s,
+                    "nor does any order up to {MAX_EXPANSION_ORDER}: narrow the [sampling] bounds to \
+                     the bending the arm really does, or loosen --tolerance"
+                ),
+            };
         }
     }
     let _ = writeln!(s, "plots: {}", r.plots.join(", "));
@@ -615,13 +667,13 @@ mod tests {
     use crate::arm::parse_arm_str;
 
     #[test]
-    fn samples_stay_inside_the_workspace_and_repeat() {
+    fn samples_stay_inside_the_ranges_and_repeat() {
         let arm = parse_arm_str(
             include_str!("../../../examples/reach_arm.toml"),
             "reach_arm.toml",
         )
         .unwrap();
-        let ws = Workspace {
+        let ws = Sampling {
             base_bending: 2.0,
             extra_bending: 0.5,
             samples: 50,

@@ -14,7 +14,7 @@
 use super::eval::load_arm;
 use super::report::sample_configurations;
 use super::{progress, CliError};
-use crate::arm::{Arm, MAX_WORKSPACE_SAMPLES};
+use crate::arm::{Arm, MAX_SAMPLES};
 use crate::dynamics::{forward_dynamics, generalized_force};
 use crate::emit::golden::{Golden, SIGMAS};
 use crate::emit::marker::MARKER;
@@ -68,7 +68,7 @@ pub struct VerifyArgs {
     /// does not record the generate options (written before it did).
     #[arg(long)]
     optimise: bool,
-    /// Workspace configurations for the error table, besides the shipped tests' cases.
+    /// Sampling configurations for the error table, besides the shipped tests' cases.
     #[arg(long, default_value_t = 20)]
     samples: usize,
     /// Largest relative error of a function accepted in the table.
@@ -123,9 +123,9 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
             dir.display()
         ))
     })?;
-    if args.samples > MAX_WORKSPACE_SAMPLES {
+    if args.samples > MAX_SAMPLES {
         return Err(CliError::Input(format!(
-            "--samples: must be at most {MAX_WORKSPACE_SAMPLES}, got {}",
+            "--samples: must be at most {MAX_SAMPLES}, got {}",
             args.samples
         )));
     }
@@ -266,10 +266,10 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
         "\nlargest relative error per function, measured by verify (not by the shipped tests, which\n\
          print pass/fail counts): the derived model (the program the emitted code prints, evaluated\n\
          in f64) against the numeric reference (Gauss–Legendre quadrature of the truncated kinematics,\n\
-         order {}), at the shipped tests' {golden_cases} cases and {} workspace samples (seed {})\n",
+         order {}), at the shipped tests' {golden_cases} cases and {} sampled configurations (seed {})\n",
         arm.expansion_order,
         args.samples,
-        arm.workspace_or_default().seed
+        arm.sampling_or_default().seed
     );
     let header = format!(
         "{:<18} {:>14}  {}",
@@ -500,7 +500,7 @@ fn max_diff(a: &[f64], b: &[f64]) -> f64 {
 }
 
 /// Errors of the derived model against the reference at the shipped tests' cases and
-/// `samples` workspace configurations.
+/// `samples` sampled configurations.
 fn error_table(arm: &Arm, model: &crate::derive::Model, samples: usize) -> Vec<Row> {
     let n = arm.n_coords();
     let k = arm.n_inputs();
@@ -514,7 +514,7 @@ fn error_table(arm: &Arm, model: &crate::derive::Model, samples: usize) -> Vec<R
             )
         })
         .collect();
-    let ws = arm.workspace_or_default();
+    let ws = arm.sampling_or_default();
     let mut rng = ChaCha8Rng::seed_from_u64(ws.seed ^ 0x5eed);
     for q in sample_configurations(arm, &ws, samples, ws.seed) {
         let qd = (0..n).map(|_| rng.gen_range(-1.0..=1.0)).collect();

@@ -85,7 +85,7 @@ Non-finite and huge input, function by function (the same in C, Rust and Python)
   becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
   out-of-bounds access. stiffness and damping take no input.
 - Accuracy is checked by the shipped tests for bending up to the arm file's
-  workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+  [sampling] bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
   extreme values overflow to infinities or NaN, which forward_dynamics reports.";
 
 /// The policy text for one language: `how` names its error, `prefix` starts each line.

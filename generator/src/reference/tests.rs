@@ -47,7 +47,8 @@ fn make_arm(segments: Vec<Segment>, order: u32, mass: f64, jp: f64, g: [f64; 2])
             Actuator::EndForce { segment: 0 },
             Actuator::EndForce { segment: s - 1 },
         ],
-        workspace: None,
+        sampling: None,
+        warnings: Vec::new(),
     }
 }
 

@@ -27,7 +27,7 @@
 //!   becomes NaN (or an infinity) in the entries that depend on it, never a crash or an
 //!   out-of-bounds access. stiffness and damping take no input.
 //! - Accuracy is checked by the shipped tests for bending up to the arm file's
-//!   workspace bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
+//!   [sampling] bounds (at most 4 pi rad per segment); far beyond, digits are lost, and
 //!   extreme values overflow to infinities or NaN, which forward_dynamics reports.
 //!
 //! **Safety**: not safety-certified. Validate on the bench against the real arm, with
@@ -19482,7 +19482,9 @@ fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64;
         _ => [f64::NAN; 3],
     }
 }
-/// Backbone pose `[x, y, angle]` at `sigma ∈ [0, 1]` of segment `segment` (0-based):
+/// Backbone pose `[x, y, angle]` at `sigma ∈ [0, 1]` of segment `segment`, counted
+/// **from 0** here (0 is the arm file's first `[[segment]]`, which the arm file,
+/// `arcwright compare` and the labels `q1_0` call segment 1):
 /// position [m] in the base frame and tangent angle from +x [rad]. The tip is
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
