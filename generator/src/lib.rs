@@ -25,4 +25,5 @@ pub mod optimise;
 pub mod outdir;
 pub mod reference;
 pub mod segment_integrals;
+pub mod statics;
 pub mod terms;

@@ -94,6 +94,7 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
         ));
     }
     let n_seg = raw.segments.len();
+    let mut warnings = raw.warnings;
     let mut segments = Vec::with_capacity(n_seg);
     for (j, s) in raw.segments.into_iter().enumerate() {
         let path = format!("segment[{}]", j + 1);
@@ -114,6 +115,20 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
                     s.length.raw
                 ),
             ));
+        }
+        if s.length.value > rat_pow10(1) {
+            warnings.push(
+                ctx.field_err(
+                    s.length.at,
+                    &format!("{path}.length"),
+                    format!(
+                        "{} m is a long soft segment; lengths are in metres (did you give \
+                         millimetres?)",
+                        s.length.raw
+                    ),
+                )
+                .to_string(),
+            );
         }
         let d = &s.curvature_degree;
         if d.value < 0 || d.value > MAX_CURVATURE_DEGREE as i64 {
@@ -187,6 +202,29 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
                     &format!("{path}.through_segment"),
                     n_seg,
                 )?;
+                // The offset model is first order in d·κ: an offset beyond the
+                // shortest segment it passes is almost surely a unit slip.
+                let shortest = segments[..=k]
+                    .iter()
+                    .map(|s: &Segment| &s.length)
+                    .min()
+                    .expect("at least one segment");
+                if &offset.value.abs() > shortest {
+                    warnings.push(
+                        ctx.field_err(
+                            offset.at,
+                            &format!("{path}.offset"),
+                            format!(
+                                "|{}| m is more than the length of a segment it runs along \
+                                 ({} m); the tendon model assumes offsets small against the \
+                                 bending radius (check the units: metres)",
+                                offset.raw,
+                                shortest.to_f64().unwrap_or(f64::NAN)
+                            ),
+                        )
+                        .to_string(),
+                    );
+                }
                 Actuator::Tendon {
                     offset: offset.value,
                     through_segment: k,
@@ -214,7 +252,7 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
         payload,
         actuators,
         sampling,
-        warnings: raw.warnings,
+        warnings,
     })
 }
 

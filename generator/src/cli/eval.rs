@@ -84,7 +84,7 @@ pub fn run(args: &EvalArgs) -> Result<(), CliError> {
         None => vec![0.0; n],
     };
     let u = match &args.u {
-        Some(t) => parse_vector("u", t, arm.n_inputs())?,
+        Some(t) => super::parse_inputs(&arm, t)?,
         None => vec![0.0; arm.n_inputs()],
     };
     let reference = |kin| {

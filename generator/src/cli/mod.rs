@@ -22,7 +22,7 @@ use std::process::ExitCode;
 pub struct Cli {
     #[command(subcommand)]
     command: Command,
-    /// No progress bars or notes on standard error; results and errors only.
+    /// No progress bars or notes on standard error; results, warnings and errors only.
     #[arg(long, short, global = true)]
     quiet: bool,
     /// Go on with an arm whose estimated memory or time is beyond the budget (4 GB,
@@ -168,6 +168,46 @@ pub(crate) fn num(x: f64) -> String {
     } else {
         format!("{x}")
     }
+}
+
+/// Bending [rad] of a segment at rest beyond which an input is "far beyond what the
+/// arm can take": ten full turns.
+const SUSPICIOUS_BENDING: f64 = 20.0 * std::f64::consts::PI;
+
+/// Parses `--u` for `arm`: one number per input, tendon tensions ≥ 0 (a tendon only
+/// pulls; a negative tension is refused), and a warning when the inputs would bend a
+/// segment by more than ten turns at rest (linear estimate), which is almost surely a
+/// unit slip.
+pub(crate) fn parse_inputs(arm: &crate::arm::Arm, text: &str) -> Result<Vec<f64>, CliError> {
+    let u = parse_vector("u", text, arm.n_inputs())?;
+    let mut at = 0;
+    for (i, a) in arm.actuators.iter().enumerate() {
+        if matches!(a, crate::arm::Actuator::Tendon { .. }) && u[at] < 0.0 {
+            return Err(CliError::Input(format!(
+                "--u: entry {} is the tension of the tendon actuator[{}] and must be ≥ 0 \
+                 (a tendon only pulls), got {}",
+                at + 1,
+                i + 1,
+                num(u[at])
+            )));
+        }
+        at += a.n_inputs();
+    }
+    if let Ok(q) = crate::statics::linear_rest_shape(arm, &u) {
+        let bending = crate::statics::segment_bending(arm, &q);
+        if let Some((j, b)) = bending
+            .iter()
+            .enumerate()
+            .find(|(_, b)| !(**b <= SUSPICIOUS_BENDING))
+        {
+            progress::warning(&format!(
+                "--u: these inputs would bend segment {} by about {b:.0} rad at rest (linear \
+                 estimate K⁻¹A(0)u, more than ten turns); check their units (N, N m) and size",
+                j + 1
+            ));
+        }
+    }
+    Ok(u)
 }
 
 /// Parses a comma-separated vector option such as `--q "0.1, -2, 3e-1"`.

@@ -68,14 +68,13 @@ pub(crate) fn note(text: &str) {
     }
 }
 
-/// A warning on standard error (not with `--quiet`): valid input that looks wrong.
+/// A warning on standard error, also with `--quiet`: valid input that looks wrong is
+/// worth a line even in a script.
 pub(crate) fn warning(text: &str) {
-    if !quiet() {
-        eprintln!(
-            "{} {text}",
-            console::style("warning:").yellow().for_stderr()
-        );
-    }
+    eprintln!(
+        "{} {text}",
+        console::style("warning:").yellow().for_stderr()
+    );
 }
 
 /// "wrote PATH" on standard error, the verb in green on a terminal.

@@ -99,7 +99,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         None => vec![0.0; n],
     };
     let u = match &args.u {
-        Some(t) => parse_vector("u", t, k)?,
+        Some(t) => super::parse_inputs(&arm, t)?,
         None => vec![0.0; k],
     };
     let duration = positive("duration", args.duration)?;
