@@ -178,6 +178,11 @@ impl Arm {
     pub fn sampling_or_default(&self) -> Sampling {
         self.sampling.clone().unwrap_or_default()
     }
+    /// Gravity `(g_x, g_y)` [m/s²] in double precision.
+    pub fn gravity_f64(&self) -> (f64, f64) {
+        let f = |r: &Rational| r.to_f64().unwrap_or(f64::NAN);
+        (f(&self.gravity[0]), f(&self.gravity[1]))
+    }
     /// The same arm at another expansion order.
     pub fn with_order(&self, order: u32) -> Arm {
         Arm {

@@ -69,6 +69,18 @@ fn write_value(out: &mut String, v: &Value, indent: usize) {
             }
             let _ = write!(out, "{}]", "  ".repeat(indent));
         }
+        Value::Array(items) => {
+            out.push('[');
+            for (i, item) in items.iter().enumerate() {
+                if i > 0 {
+                    out.push(',');
+                }
+                write_value(out, item, indent + 1);
+            }
+            out.push(']');
+        }
+        // -0.0 is the same number as 0.0 to every reader, and looks like a sign error.
+        Value::Number(x) if x.is_f64() && x.as_f64() == Some(0.0) => out.push_str("0.0"),
         other => out.push_str(&other.to_string()),
     }
 }
@@ -91,6 +103,15 @@ mod tests {
         })
         .unwrap();
         assert_eq!(first_null(&v).as_deref(), Some("b[1][1]"));
+    }
+
+    #[test]
+    fn minus_zero_prints_as_zero() {
+        let v = serde_json::json!({"q": [-0.0, 0.0, -1.5], "n": 0});
+        assert_eq!(
+            to_string(&v),
+            "{\n  \"q\": [0.0,0.0,-1.5],\n  \"n\": 0\n}\n"
+        );
     }
 
     #[test]

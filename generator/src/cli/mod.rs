@@ -162,6 +162,9 @@ pub(crate) fn write_file(path: &std::path::Path, text: &str) -> Result<(), CliEr
 /// same double, in plain decimals between 1e-4 and 1e15 and in exponent form outside
 /// (so 1e-300 is `1e-300`, not 300 zeros).
 pub(crate) fn num(x: f64) -> String {
+    if x == 0.0 {
+        return "0".into(); // also -0.0
+    }
     let a = x.abs();
     if a != 0.0 && a.is_finite() && !(1e-4..1e15).contains(&a) {
         format!("{x:e}")
@@ -257,6 +260,7 @@ mod tests {
         assert_eq!(num(1e-300), "1e-300");
         assert_eq!(num(0.5), "0.5");
         assert_eq!(num(0.0), "0");
+        assert_eq!(num(-0.0), "0");
         assert_eq!(num(-2.5e20), "-2.5e20");
         assert_eq!(num(0.00012), "0.00012");
         for x in [1e-300, 0.1 + 0.2, 123456.789, -7e-9] {

@@ -84,6 +84,29 @@ pub(crate) struct Panel {
     /// Label the x axis at integers only (orders).
     pub integer_x: bool,
     pub lines: Vec<Line>,
+    /// Gravity `(g_x, g_y)` [m/s²] of a shape panel, drawn as an arrow beside it.
+    pub gravity: Option<(f64, f64)>,
+}
+
+/// Width of the strip beside a chart that holds its legend (and gravity arrow), so
+/// that neither ever sits on a curve [px].
+const LEGEND_WIDTH: u32 = 120;
+
+/// A tick label: short, and never `-0`.
+fn tick(v: f64) -> String {
+    if v == 0.0 || v.abs() < 1e-12 {
+        return "0".into();
+    }
+    if v.abs() < 1e-3 || v.abs() >= 1e6 {
+        return format!("{v:.1e}");
+    }
+    let s = format!("{v:.6}");
+    let s = s.trim_end_matches('0').trim_end_matches('.');
+    if s == "-0" {
+        "0".into()
+    } else {
+        s.into()
+    }
 }
 
 /// Smallest value a logarithmic axis shows.
@@ -112,9 +135,21 @@ pub(crate) fn write_svg(
 }
 
 fn draw_panel<DB: DrawingBackend>(
-    area: &DrawingArea<DB, plotters::coord::Shift>,
+    whole: &DrawingArea<DB, plotters::coord::Shift>,
     panel: &Panel,
 ) -> Result<(), String> {
+    let labelled = panel.lines.iter().any(|l| l.label.is_some());
+    let (area, strip) = if labelled || panel.gravity.is_some() {
+        let w = whole.dim_in_pixel().0;
+        let (a, b) = whole.split_horizontally(w.saturating_sub(LEGEND_WIDTH));
+        (a, Some(b))
+    } else {
+        (whole.clone(), None)
+    };
+    if let Some(strip) = &strip {
+        draw_legend(strip, panel)?;
+    }
+    let area = &area;
     let finite = |v: f64| v.is_finite();
     let mut xs = (f64::INFINITY, f64::NEG_INFINITY);
     let mut ys = (f64::INFINITY, f64::NEG_INFINITY);
@@ -171,7 +206,7 @@ fn draw_panel<DB: DrawingBackend>(
                     if panel.integer_x {
                         format!("{v:.0}")
                     } else {
-                        format!("{v}")
+                        tick(*v)
                     }
                 })
                 .y_label_formatter(&|v| format!("{v:.0e}"))
@@ -203,6 +238,10 @@ fn draw_panel<DB: DrawingBackend>(
                 .configure_mesh()
                 .x_desc(panel.x_label.as_str())
                 .y_desc(panel.y_label.as_str())
+                .x_labels(6)
+                .y_labels(9)
+                .x_label_formatter(&|v| tick(*v))
+                .y_label_formatter(&|v| tick(*v))
                 .draw()
                 .map_err(|e| e.to_string())?;
             draw_lines(&mut chart, &panel.lines, false)
@@ -215,7 +254,6 @@ fn draw_lines<'a, DB: DrawingBackend + 'a, Y: Ranged<ValueType = f64>>(
     lines: &[Line],
     log: bool,
 ) -> Result<(), String> {
-    let mut legend = false;
     for l in lines {
         let pts: Vec<(f64, f64)> = l
             .points
@@ -224,19 +262,9 @@ fn draw_lines<'a, DB: DrawingBackend + 'a, Y: Ranged<ValueType = f64>>(
             .filter(|(x, y)| x.is_finite() && y.is_finite())
             .collect();
         let style = ShapeStyle::from(&l.colour).stroke_width(l.width);
-        let drawn = chart
+        chart
             .draw_series(LineSeries::new(pts.clone(), style))
             .map_err(|e| e.to_string())?;
-        if let Some(label) = &l.label {
-            legend = true;
-            let c = l.colour;
-            drawn.label(label.as_str()).legend(move |(x, y)| {
-                PathElement::new(
-                    vec![(x, y), (x + 18, y)],
-                    ShapeStyle::from(&c).stroke_width(3),
-                )
-            });
-        }
         if l.markers {
             let c = l.colour;
             chart
@@ -247,14 +275,64 @@ fn draw_lines<'a, DB: DrawingBackend + 'a, Y: Ranged<ValueType = f64>>(
                 .map_err(|e| e.to_string())?;
         }
     }
-    if legend {
-        chart
-            .configure_series_labels()
-            .position(SeriesLabelPosition::UpperRight)
-            .background_style(WHITE.mix(0.85))
-            .border_style(BLACK.mix(0.4))
-            .draw()
+    Ok(())
+}
+
+/// The legend strip beside a chart: one entry per labelled line, then the gravity
+/// arrow of a shape panel (pixel y points down, so g_y is drawn negated).
+fn draw_legend<DB: DrawingBackend>(
+    strip: &DrawingArea<DB, plotters::coord::Shift>,
+    panel: &Panel,
+) -> Result<(), String> {
+    let font = ("sans-serif", 13).into_font();
+    let mut y = 48;
+    for l in panel.lines.iter().filter(|l| l.label.is_some()) {
+        let style = ShapeStyle::from(&l.colour).stroke_width(3);
+        strip
+            .draw(&PathElement::new(vec![(6, y), (26, y)], style))
             .map_err(|e| e.to_string())?;
+        let label = l.label.as_deref().unwrap_or("");
+        strip
+            .draw(&Text::new(label.to_string(), (32, y - 7), font.clone()))
+            .map_err(|e| e.to_string())?;
+        y += 18;
+    }
+    if let Some((gx, gy)) = panel.gravity {
+        let norm = gx.hypot(gy);
+        let (cx, cy) = (40, y + 40);
+        if norm > 0.0 {
+            let (dx, dy) = (gx / norm * 24.0, -gy / norm * 24.0);
+            let tip = (cx + dx.round() as i32, cy + dy.round() as i32);
+            let back = (cx - dx.round() as i32, cy - dy.round() as i32);
+            let style = ShapeStyle::from(&BLACK).stroke_width(2);
+            strip
+                .draw(&PathElement::new(vec![back, tip], style))
+                .map_err(|e| e.to_string())?;
+            // Arrow head: two strokes back from the tip, 25° either side.
+            for turn in [0.45f64, -0.45] {
+                let (c, s) = (turn.cos(), turn.sin());
+                let (hx, hy) = (-(dx * c - dy * s) / 2.4, -(dx * s + dy * c) / 2.4);
+                let end = (tip.0 + hx.round() as i32, tip.1 + hy.round() as i32);
+                strip
+                    .draw(&PathElement::new(vec![tip, end], style))
+                    .map_err(|e| e.to_string())?;
+            }
+            strip
+                .draw(&Text::new(
+                    "gravity".to_string(),
+                    (cx + 30, cy - 7),
+                    font.clone(),
+                ))
+                .map_err(|e| e.to_string())?;
+        } else {
+            strip
+                .draw(&Text::new(
+                    "no gravity".to_string(),
+                    (6, cy - 7),
+                    font.clone(),
+                ))
+                .map_err(|e| e.to_string())?;
+        }
     }
     Ok(())
 }
@@ -274,6 +352,7 @@ mod tests {
                 y_label: "error".into(),
                 axes: Axes::LogY,
                 integer_x: true,
+                gravity: None,
                 lines: vec![
                     Line::new(
                         Some("a".into()),
@@ -294,6 +373,7 @@ mod tests {
                 y_label: "y [m]".into(),
                 axes: Axes::Equal,
                 integer_x: false,
+                gravity: Some((0.0, -9.81)),
                 lines: vec![Line::new(
                     None,
                     vec![(0.0, 0.0), (0.1, 0.02), (0.15, 0.08)],
@@ -306,5 +386,19 @@ mod tests {
         assert!(text.starts_with("<svg"), "{}", &text[..80.min(text.len())]);
         assert!(text.matches("<polyline").count() >= 3, "{text}");
         assert!(text.contains("<circle"));
+        assert!(
+            text.contains("\ngravity\n"),
+            "the gravity arrow is labelled"
+        );
+    }
+
+    #[test]
+    fn ticks_never_read_minus_zero() {
+        assert_eq!(tick(-0.0), "0");
+        assert_eq!(tick(-1e-17), "0");
+        assert_eq!(tick(-0.05), "-0.05");
+        assert_eq!(tick(0.25), "0.25");
+        assert_eq!(tick(2.0), "2");
+        assert_eq!(tick(3e-5), "3.0e-5");
     }
 }

@@ -421,7 +421,7 @@ pub fn run(args: &ReportArgs) -> Result<(), CliError> {
     let shapes_svg = out_dir.join("backbones.svg");
     let json_path = out_dir.join("report.json");
     write_error_plot(&errors_svg, &arm.name, &rows).map_err(CliError::Failed)?;
-    write_shape_plot(&shapes_svg, &arm.name, &shown, &exact_shapes, &shapes)
+    write_shape_plot(&shapes_svg, &arm, &shown, &exact_shapes, &shapes)
         .map_err(CliError::Failed)?;
 
     let report = ReportOut {
@@ -597,6 +597,7 @@ fn write_error_plot(path: &Path, name: &str, rows: &[OrderRow]) -> Result<(), St
         axes: Axes::LogY,
         integer_x: true,
         lines,
+        gravity: None,
     };
     let cost = Panel {
         title: format!("{name}: cost of the derived program"),
@@ -604,6 +605,7 @@ fn write_error_plot(path: &Path, name: &str, rows: &[OrderRow]) -> Result<(), St
         y_label: "operations".into(),
         axes: Axes::LogY,
         integer_x: true,
+        gravity: None,
         lines: vec![
             Line::new(
                 Some("B + C + G".into()),
@@ -624,7 +626,7 @@ fn write_error_plot(path: &Path, name: &str, rows: &[OrderRow]) -> Result<(), St
 
 fn write_shape_plot(
     path: &Path,
-    name: &str,
+    arm: &Arm,
     shown: &[usize],
     exact: &[Vec<(f64, f64)>],
     by_order: &[Vec<Vec<(f64, f64)>>],
@@ -639,20 +641,23 @@ fn write_shape_plot(
                 plotters::style::RGBColor(190, 190, 190),
             )
             .width(7)];
+            // Orders are a sequence: one colour ramp, so every order has its own.
+            let last = by_order.len().saturating_sub(1).max(1) as f64;
             for (order, shapes) in by_order.iter().enumerate() {
                 lines.push(Line::new(
                     (k == 0).then(|| format!("order {order}")),
                     shapes[k].clone(),
-                    plot::colour(order),
+                    plot::ramp(order as f64 / last),
                 ));
             }
             Panel {
-                title: format!("{name}: sample {}", s + 1),
+                title: format!("{}: sample {}", arm.name, s + 1),
                 x_label: "x [m]".into(),
                 y_label: "y [m]".into(),
                 axes: Axes::Equal,
                 integer_x: false,
                 lines,
+                gravity: Some(arm.gravity_f64()),
             }
         })
         .collect();

@@ -206,7 +206,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     super::write_file(&csv_path, &csv(&names, &rows))?;
     write_plot(
         &svg_path,
-        &arm.name,
+        &arm,
         &names,
         &rows,
         &ev,
@@ -311,7 +311,7 @@ fn csv(names: &[String], rows: &[Row]) -> String {
 
 fn write_plot(
     path: &Path,
-    name: &str,
+    arm: &crate::arm::Arm,
     names: &[String],
     rows: &[Row],
     ev: &Evaluator,
@@ -379,12 +379,13 @@ fn write_plot(
     ];
     let panels = [
         Panel {
-            title: format!("{name}: backbone snapshots"),
+            title: format!("{}: backbone snapshots", arm.name),
             x_label: "x [m]".into(),
             y_label: "y [m]".into(),
             axes: Axes::Equal,
             integer_x: false,
             lines: shapes,
+            gravity: Some(arm.gravity_f64()),
         },
         Panel {
             title: "curvature coefficients".into(),
@@ -393,6 +394,7 @@ fn write_plot(
             axes: Axes::Linear,
             integer_x: false,
             lines: coords,
+            gravity: None,
         },
         Panel {
             title: "energy".into(),
@@ -401,6 +403,7 @@ fn write_plot(
             axes: Axes::Linear,
             integer_x: false,
             lines: energies,
+            gravity: None,
         },
     ];
     plot::write_svg(path, &panels, 3, (1500, 480))
