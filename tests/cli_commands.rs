@@ -487,3 +487,82 @@ fn every_command_has_help_with_an_example() {
         assert!(text.contains("--quiet"), "{cmd} --help lacks --quiet");
     }
 }
+
+/// `statics` as a user runs it: the elastica through `--exact --json` (values from
+/// tests/outside/elastica.json: mpmath 1.3.0 elliptic integrals, cross-checked with
+/// SciPy 1.17.1), a table for people, exit 1 when no equilibrium is found, exit 2 for
+/// bad input.
+#[test]
+fn statics_finds_the_elastica_and_says_when_it_cannot() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("cantilever.toml");
+    std::fs::write(
+        &path,
+        "name = \"cantilever\"\n[[segment]]\nlength = 0.25\ncurvature_degree = 6\ndensity = 0.4\n\
+         bending_stiffness = 0.03\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
+    )
+    .unwrap();
+    let data = common::outside_json("elastica.json");
+    let case = data["cases"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|c| c["alpha"].as_f64() == Some(2.0))
+        .unwrap();
+    let p = 2.0 * 0.03 / (0.25 * 0.25);
+    let out = ok(&arcwright(&[
+        "statics",
+        s(&path),
+        "--exact",
+        "--json",
+        "--u",
+        &format!("0,{p}"),
+    ]));
+    let v: serde_json::Value = serde_json::from_str(&out).unwrap();
+    for key in ["q", "u", "tip_pose", "residual", "iterations", "stable"] {
+        assert!(v.get(key).is_some(), "{key} missing: {out}");
+    }
+    assert_eq!(v["kinematics"], "exact");
+    assert_eq!(v["stable"], true);
+    let tip: Vec<f64> = v["tip_pose"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .map(|x| x.as_f64().unwrap())
+        .collect();
+    let want_y = case["y_tip_over_L"]["value"].as_f64().unwrap() * 0.25;
+    let want_theta = case["theta_tip"]["value"].as_f64().unwrap();
+    assert!(
+        (tip[1] - want_y).abs() < 1e-6 && (tip[2] - want_theta).abs() < 1e-6,
+        "{out}"
+    );
+
+    let table = ok(&arcwright(&["statics", s(&path), "--u", &format!("0,{p}")]));
+    assert!(table.contains("1_6 "), "{table}");
+    assert!(
+        table.contains("stable: a minimum of the potential energy"),
+        "{table}"
+    );
+
+    // A tolerance no arithmetic meets: no silent answer, exit 1 with the last residual.
+    let out = arcwright(&["statics", s(&path), "--u", "0,1", "--tolerance", "1e-30"]);
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    assert!(
+        stderr(&out).contains("no equilibrium found"),
+        "{}",
+        stderr(&out)
+    );
+    assert!(stderr(&out).contains("last residual"), "{}", stderr(&out));
+    // Bad input.
+    for (args, needle) in [
+        (vec!["--u", "1"], "--u: expected 2 comma-separated numbers"),
+        (vec!["--tolerance", "0"], "--tolerance: must be in (0, 1)"),
+        (vec!["--exact", "--order", "3"], "cannot be used with"),
+    ] {
+        let mut a = vec!["statics", s(&path)];
+        a.extend(args);
+        let out = arcwright(&a);
+        assert_eq!(out.status.code(), Some(2), "{a:?}: {}", stderr(&out));
+        assert!(stderr(&out).contains(needle), "{a:?}: {}", stderr(&out));
+    }
+}

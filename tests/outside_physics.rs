@@ -4,10 +4,11 @@
 #[path = "common/mod.rs"]
 mod common;
 
-use arcwright::derive::derive;
+use arcwright::derive::{derive, derive_statics};
 use arcwright::dynamics::forward_dynamics;
 use arcwright::evaluate::Evaluator;
 use arcwright::reference::{Kinematics, Reference};
+use arcwright::statics::{equilibrium, Derived, Options, Quadrature};
 use common::*;
 
 fn uniform_segment(degree: u32, order: u32, extra: &str) -> String {
@@ -183,79 +184,87 @@ fn small_deflection_cantilever_formulas() {
         (tip_y - want).abs() < 1e-12 * want.abs(),
         "own weight: {tip_y} vs {want}"
     );
-}
 
-/// Static equilibrium `K q = A(q) u` by Newton's method with a difference Jacobian.
-fn static_equilibrium(residual: impl Fn(&[f64]) -> Vec<f64>, n: usize) -> Vec<f64> {
-    let mut q = vec![0.0; n];
-    for _ in 0..60 {
-        let r = residual(&q);
-        let norm: f64 = r.iter().map(|x| x * x).sum::<f64>().sqrt();
-        if norm < 1e-15 {
-            break;
-        }
-        let mut jac = vec![vec![0.0; n]; n];
-        for c in 0..n {
-            let h = 1e-6 * (1.0 + q[c].abs());
-            let mut qp = q.clone();
-            qp[c] += h;
-            let mut qm = q.clone();
-            qm[c] -= h;
-            let (rp, rm) = (residual(&qp), residual(&qm));
-            for r in 0..n {
-                jac[r][c] = (rp[r] - rm[r]) / (2.0 * h);
-            }
-        }
-        let step = solve(jac, r.iter().map(|x| -x).collect());
-        for i in 0..n {
-            q[i] += step[i];
-        }
-    }
-    q
+    // The same two through the nonlinear static solver at a small load, where the
+    // handbook's linear theory holds to the square of the deflection: 1e-6 relative.
+    let tiny = 1e-4; // P L²/EI and w L³/EI
+    let arm = arm_from(&format!(
+        "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
+        uniform_segment(1, 4, "")
+    ));
+    let p = tiny * ei / (l * l);
+    let model = derive_statics(&arm);
+    let eq = equilibrium(
+        &Derived(Evaluator::new(&model)),
+        &[0.0, p],
+        &Options::default(),
+    )
+    .expect("an equilibrium");
+    let want = p * l.powi(3) / (3.0 * ei);
+    assert!(
+        (eq.tip_pose[1] - want).abs() < 1e-6 * want,
+        "statics, tip force: {} vs {want}",
+        eq.tip_pose[1]
+    );
+    let w = tiny * ei / l.powi(3);
+    let g = w / rho;
+    let arm = arm_from(&uniform_segment(2, 4, &format!("gravity = [0.0, {}]", -g)));
+    let model = derive_statics(&arm);
+    let eq = equilibrium(&Derived(Evaluator::new(&model)), &[], &Options::default())
+        .expect("an equilibrium");
+    let want = -w * l.powi(4) / (8.0 * ei);
+    assert!(
+        (eq.tip_pose[1] - want).abs() < 1e-6 * want.abs(),
+        "statics, own weight: {} vs {want}",
+        eq.tip_pose[1]
+    );
 }
 
 /// Large deflection of a cantilever under a tip force of fixed direction perpendicular
 /// to its axis: the elastica, solved by elliptic integrals (mpmath 1.3.0, cross-checked
-/// with SciPy 1.17.1 `ellipkinc` and `solve_ivp`, tests/outside/elastica.py). The exact
-/// kinematics (quadrature reference) at curvature degree 7 must reach it closely, and
-/// the derived order-N model at degree 3 must approach it as the order rises.
+/// with SciPy 1.17.1 `ellipkinc` and `solve_ivp`, tests/outside/elastica.py). The static
+/// solver (`arcwright statics --exact`: Newton with load continuation on the exact
+/// kinematics) at curvature degree 6 must reach it to 1e-6 at P L²/EI = 1, 2 and 5,
+/// and the derived order-N model at degree 3 must approach it as the order rises.
 #[test]
 fn large_deflection_elastica() {
     let data = outside_json("elastica.json");
     let (l, ei) = (0.25_f64, 0.03_f64);
+    let with_tip_force = |degree: u32, order: u32| {
+        arm_from(&format!(
+            "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
+            uniform_segment(degree, order, "")
+        ))
+    };
     for case in data["cases"].as_array().unwrap() {
         let alpha = case["alpha"].as_f64().unwrap();
         let x = case["x_tip_over_L"]["value"].as_f64().unwrap();
         let y = case["y_tip_over_L"]["value"].as_f64().unwrap();
         let theta = case["theta_tip"]["value"].as_f64().unwrap();
         let p = alpha * ei / (l * l);
-        let text = format!(
-            "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
-            uniform_segment(7, 0, "")
-        );
-        let arm = arm_from(&text);
-        let rf = Reference::new(&arm, Kinematics::Exact);
-        let k = rf.stiffness();
-        let n = arm.n_coords();
-        let q = static_equilibrium(
-            |q| {
-                let a = rf.actuation(q);
-                (0..n)
-                    .map(|i| (0..n).map(|c| k[i][c] * q[c]).sum::<f64>() - a[i][1] * p)
-                    .collect()
-            },
-            n,
-        );
-        let tip = rf.tip_pose(&q);
+        let arm = with_tip_force(6, 0);
+        let model = Quadrature(Reference::new(&arm, Kinematics::Exact));
+        let eq = equilibrium(&model, &[0.0, p], &Options::default()).expect("an equilibrium");
+        let tip = eq.tip_pose;
         let err = ((tip[0] / l - x).abs())
             .max((tip[1] / l - y).abs())
             .max((tip[2] - theta).abs());
-        println!("α = {alpha}: exact kinematics, degree 7: tip error {err:.2e}");
-        assert!(
-            err < 2e-6,
-            "α = {alpha}: tip {:?} vs ({x}, {y}, {theta})",
-            [tip[0] / l, tip[1] / l, tip[2]]
+        println!(
+            "α = {alpha}: statics, exact kinematics, degree 6: tip error {err:.2e} \
+             ({} Newton iterations, {} load steps)",
+            eq.iterations, eq.load_steps
         );
+        assert!(
+            eq.stable,
+            "α = {alpha}: the elastica under a tip force is stable"
+        );
+        if [1.0, 2.0, 5.0].contains(&alpha) {
+            assert!(
+                err < 1e-6,
+                "α = {alpha}: tip {:?} vs ({x}, {y}, {theta})",
+                [tip[0] / l, tip[1] / l, tip[2]]
+            );
+        }
     }
     // The derived model converges with the order (moderate load, degree 3).
     let case = &data["cases"][2];
@@ -264,26 +273,14 @@ fn large_deflection_elastica() {
     let p = alpha * ei / (l * l);
     let mut errs = Vec::new();
     for order in [2, 4, 6] {
-        let text = format!(
-            "{}\n[[actuator]]\nkind = \"end_force\"\nsegment = 1\n",
-            uniform_segment(3, order, "")
-        );
-        let arm = arm_from(&text);
-        let model = derive(&arm);
-        let ev = Evaluator::new(&model);
-        let n = arm.n_coords();
-        let zero = vec![0.0; n];
-        let q = static_equilibrium(
-            |q| {
-                let t = ev.terms(q, &zero);
-                (0..n)
-                    .map(|i| (0..n).map(|c| t.k[i][c] * q[c]).sum::<f64>() - t.a[i][1] * p)
-                    .collect()
-            },
-            n,
-        );
-        let tip = ev.terms(&q, &zero).tip_pose;
-        errs.push((tip[1] / l - y).abs());
+        let model = derive_statics(&with_tip_force(3, order));
+        let eq = equilibrium(
+            &Derived(Evaluator::new(&model)),
+            &[0.0, p],
+            &Options::default(),
+        )
+        .expect("an equilibrium");
+        errs.push((eq.tip_pose[1] / l - y).abs());
     }
     println!("α = {alpha}, degree 3, orders 2/4/6: tip y errors {errs:?}");
     assert!(errs[0] > errs[1] && errs[1] > errs[2], "{errs:?}");

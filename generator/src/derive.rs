@@ -42,6 +42,8 @@ pub struct Model {
     pub tip_pose: [Id; 3],
     /// Tip Jacobian, 3×n.
     pub tip_jacobian: Vec<Vec<Id>>,
+    /// The derivatives statics needs, when asked for ([`derive_statics`]).
+    pub statics: Option<StaticRoots>,
     /// `½ q̇ᵀ B q̇`.
     pub kinetic_energy: Id,
     /// `U_g + ½ qᵀ K q`.
@@ -73,15 +75,35 @@ pub fn derive_steps(arm: &Arm) -> u64 {
 
 /// [`derive`], calling `progress` before each step.
 pub fn derive_with_progress(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync)) -> Model {
+    derive_in_thread(arm, progress, false)
+}
+
+/// [`derive`] plus the exact derivatives statics needs ([`Model::statics`]): `n²/2`
+/// more derivatives of `G`, so only the commands that solve for equilibria pay them.
+pub fn derive_statics(arm: &Arm) -> Model {
+    derive_in_thread(arm, &|_| {}, true)
+}
+
+fn derive_in_thread(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync), statics: bool) -> Model {
     // The differentiator recurses over the program's depth; give it room.
     std::thread::scope(|scope| {
         std::thread::Builder::new()
             .stack_size(512 << 20)
-            .spawn_scoped(scope, || Deriver::new(arm).run(progress))
+            .spawn_scoped(scope, || Deriver::new(arm).run(progress, statics))
             .expect("spawning the derivation thread")
             .join()
             .expect("derivation thread")
     })
+}
+
+/// The Jacobian of the static residual `K q + G(q) − A(q) u` needs, beyond `K`:
+#[derive(Clone, Debug)]
+pub struct StaticRoots {
+    /// `∂G_i/∂q_x`, n×n: the Hessian of `U_g`, so symmetric.
+    pub gravity_jacobian: Vec<Vec<Id>>,
+    /// `∂A_ik/∂q_x` as `[x][i][k]`: zero but for end forces, whose columns are
+    /// transposed position Jacobians.
+    pub actuation_jacobian: Vec<Vec<Vec<Id>>>,
 }
 
 /// One segment's exact local quantities, lowered to program nodes.
@@ -687,7 +709,7 @@ impl<'a> Deriver<'a> {
         self.p.lin_comb(&t)
     }
 
-    fn run(mut self, progress: &(dyn Fn(DeriveStep) + Sync)) -> Model {
+    fn run(mut self, progress: &(dyn Fn(DeriveStep) + Sync), with_statics: bool) -> Model {
         let n = self.n();
         let arm = self.arm;
         let segs = arm.segments.len();
@@ -818,6 +840,30 @@ impl<'a> Deriver<'a> {
         let stiffness = self.block_matrix(|s| &s.bending_stiffness.coeffs);
         let damping = self.block_matrix(|s| &s.damping.coeffs);
         let actuation = self.actuation(&ends);
+        // Statics: K + ∂G/∂q − ∂(A u)/∂q, by exact differentiation as everything else.
+        let statics = with_statics.then(|| {
+            let zero = self.p.constant(Q::zero());
+            let mut gravity_jacobian = vec![vec![zero; n]; n];
+            for x in 0..n {
+                for y in x..n {
+                    let id = self.d(gravity[x], y);
+                    gravity_jacobian[x][y] = id;
+                    gravity_jacobian[y][x] = id;
+                }
+            }
+            let actuation_jacobian = (0..n)
+                .map(|x| {
+                    actuation
+                        .iter()
+                        .map(|row| row.iter().map(|&a| self.d(a, x)).collect())
+                        .collect()
+                })
+                .collect();
+            StaticRoots {
+                gravity_jacobian,
+                actuation_jacobian,
+            }
+        });
 
         let tip_angle = self.phi_node(Some(last));
         let tip_pose = [pos.re, pos.im, tip_angle];
@@ -868,6 +914,7 @@ impl<'a> Deriver<'a> {
             actuation,
             tip_pose,
             tip_jacobian,
+            statics,
             kinetic_energy,
             potential_energy,
             pose,

@@ -8,7 +8,7 @@
 use crate::derive::Model;
 use crate::ir::{Id, Node, Var};
 use crate::moments::legendre_moments;
-use crate::terms::{Matrix, Terms};
+use crate::terms::{Matrix, StaticTerms, Terms};
 use num_traits::ToPrimitive;
 
 /// One step of a tape; operands are positions in the tape's value array.
@@ -50,6 +50,8 @@ pub struct Evaluator<'m> {
     pose_moments: Vec<usize>,
     main: Tape,
     poses: Vec<Tape>,
+    /// The statics roots, when the model has them.
+    statics: Option<Tape>,
 }
 
 /// Inputs of one evaluation.
@@ -84,12 +86,21 @@ impl<'m> Evaluator<'m> {
         }
         let main = Tape::new(model, &main_roots(model));
         let poses = model.pose.iter().map(|p| Tape::new(model, p)).collect();
+        let statics = model.statics.as_ref().map(|s| {
+            let mut roots = model.gravity.clone();
+            roots.extend(model.actuation.iter().flatten());
+            roots.extend(model.tip_pose);
+            roots.extend(s.gravity_jacobian.iter().flatten());
+            roots.extend(s.actuation_jacobian.iter().flatten().flatten());
+            Tape::new(model, &roots)
+        });
         Evaluator {
             model,
             moments,
             pose_moments,
             main,
             poses,
+            statics,
         }
     }
 
@@ -179,6 +190,11 @@ impl<'m> Evaluator<'m> {
         Values { tape, v }
     }
 
+    /// The arm the model was derived for.
+    pub fn arm(&self) -> &'m crate::arm::Arm {
+        &self.model.arm
+    }
+
     /// All terms at `(q, q̇)`.
     pub fn terms(&self, q: &[f64], qd: &[f64]) -> Terms {
         let m = self.model;
@@ -206,6 +222,34 @@ impl<'m> Evaluator<'m> {
             kinetic_energy: v.get(m.kinetic_energy),
             potential_energy: v.get(m.potential_energy),
         }
+    }
+
+    /// `G`, `A`, their `q`-derivatives and the tip pose at `q`; `None` for a model
+    /// derived without them (see [`crate::derive::derive_statics`]).
+    pub fn static_terms(&self, q: &[f64]) -> Option<StaticTerms> {
+        let (m, tape, s) = (
+            self.model,
+            self.statics.as_ref()?,
+            self.model.statics.as_ref()?,
+        );
+        let st = self.state(q, &[], 0.0, None);
+        let v = self.run(tape, &st);
+        let mat = |ids: &Vec<Vec<Id>>| -> Matrix {
+            ids.iter()
+                .map(|r| r.iter().map(|id| v.get(*id)).collect())
+                .collect()
+        };
+        Some(StaticTerms {
+            g: m.gravity.iter().map(|id| v.get(*id)).collect(),
+            dg: mat(&s.gravity_jacobian),
+            a: mat(&m.actuation),
+            da: s.actuation_jacobian.iter().map(mat).collect(),
+            tip_pose: [
+                v.get(m.tip_pose[0]),
+                v.get(m.tip_pose[1]),
+                v.get(m.tip_pose[2]),
+            ],
+        })
     }
 
     /// Backbone `[x, y, angle]` at `σ ∈ [0, 1]` of segment `seg` (0-based).

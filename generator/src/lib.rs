@@ -19,6 +19,7 @@ pub mod evaluate;
 pub mod exact;
 pub mod integrate;
 pub mod ir;
+pub mod linalg;
 pub mod local_form;
 pub mod moments;
 pub mod optimise;

@@ -1,12 +1,376 @@
 //! Statics of the model: where the arm comes to rest under given inputs.
 //!
-//! For now the linear estimate around the straight rest shape, `K q = A(0) u`, which
+//! The equilibrium solves `R(q) = K q + G(q) − A(q) u = 0` by damped Newton with the
+//! Jacobian `K + ∂G/∂q − ∂(A u)/∂q` and load continuation: gravity and inputs are
+//! scaled by a load factor λ raised from 0 (the straight rest shape) to 1, each step
+//! started from the previous equilibrium along its tangent, so that the branch found
+//! is the one the arm reaches when the load is applied slowly. Every load here is
+//! conservative, so the Jacobian is the Hessian of the potential energy: the
+//! equilibrium is stable when its smallest eigenvalue is positive.
+//!
+//! Two models answer the solver's questions ([`StaticModel`]): the derived model with
+//! exact derivatives ([`Derived`], from [`crate::derive::derive_statics`]), and the
+//! quadrature reference of the exact or truncated kinematics ([`Quadrature`]), whose
+//! derivatives are Richardson-extrapolated central differences.
+//!
+//! Also the linear estimate around the straight rest shape, `K q = A(0) u`, which
 //! tells cheaply (no derivation) whether an input is anywhere near what the arm's
 //! stiffness can take.
 
 use crate::arm::Arm;
 use crate::dynamics::{cholesky_solve, DynamicsError};
+use crate::evaluate::Evaluator;
+use crate::linalg::{norm, solve, symmetric_eigenvalues};
 use crate::reference::{Kinematics, Reference};
+use crate::terms::{Matrix, StaticTerms};
+use std::fmt;
+
+/// A model the static solver can question.
+pub trait StaticModel {
+    fn arm(&self) -> &Arm;
+    /// `K`, n×n.
+    fn stiffness(&self) -> Matrix;
+    /// `G`, `A`, their derivatives and the tip pose at `q`; an error when `q` is beyond
+    /// what the model evaluates.
+    fn at(&self, q: &[f64]) -> Result<StaticTerms, String>;
+}
+
+/// The derived model, with exact derivatives.
+pub struct Derived<'m>(pub Evaluator<'m>);
+
+impl StaticModel for Derived<'_> {
+    fn arm(&self) -> &Arm {
+        self.0.arm()
+    }
+    fn stiffness(&self) -> Matrix {
+        let n = self.0.arm().n_coords();
+        self.0.terms(&vec![0.0; n], &vec![0.0; n]).k
+    }
+    fn at(&self, q: &[f64]) -> Result<StaticTerms, String> {
+        self.0.static_terms(q).ok_or_else(|| {
+            "the model was derived without its statics derivatives (derive_statics)".into()
+        })
+    }
+}
+
+/// The quadrature reference (exact or truncated kinematics); derivatives by central
+/// differences at steps `h` and `h/2`, Richardson-extrapolated (error `O(h⁴)`).
+pub struct Quadrature<'a>(pub Reference<'a>);
+
+impl StaticModel for Quadrature<'_> {
+    fn arm(&self) -> &Arm {
+        self.0.arm()
+    }
+    fn stiffness(&self) -> Matrix {
+        self.0.stiffness()
+    }
+    fn at(&self, q: &[f64]) -> Result<StaticTerms, String> {
+        let r = &self.0;
+        r.check_configuration(q)?;
+        let n = q.len();
+        let derivative = |f: &dyn Fn(&[f64]) -> Vec<f64>, x: usize| -> Vec<f64> {
+            let h = 1e-3 * (1.0 + q[x].abs());
+            let central = |h: f64| {
+                let (mut qp, mut qm) = (q.to_vec(), q.to_vec());
+                qp[x] += h;
+                qm[x] -= h;
+                let (fp, fm) = (f(&qp), f(&qm));
+                fp.iter()
+                    .zip(&fm)
+                    .map(|(a, b)| (a - b) / (2.0 * h))
+                    .collect::<Vec<f64>>()
+            };
+            let (d1, d2) = (central(h), central(h / 2.0));
+            d1.iter()
+                .zip(&d2)
+                .map(|(a, b)| (4.0 * b - a) / 3.0)
+                .collect()
+        };
+        let g_of = |q: &[f64]| r.gravity(q);
+        let a_of = |q: &[f64]| r.actuation(q).into_iter().flatten().collect::<Vec<f64>>();
+        let k = r.arm().n_inputs();
+        let mut dg = vec![vec![0.0; n]; n];
+        let mut da = Vec::with_capacity(n);
+        for x in 0..n {
+            let col = derivative(&g_of, x);
+            for i in 0..n {
+                dg[i][x] = col[i];
+            }
+            let flat = if k == 0 {
+                Vec::new()
+            } else {
+                derivative(&a_of, x)
+            };
+            da.push((0..n).map(|i| flat[i * k..(i + 1) * k].to_vec()).collect());
+        }
+        Ok(StaticTerms {
+            g: r.gravity(q),
+            dg,
+            a: r.actuation(q),
+            da,
+            tip_pose: r.tip_pose(q),
+        })
+    }
+}
+
+/// How hard the solver tries.
+#[derive(Clone, Copy, Debug)]
+pub struct Options {
+    /// Converged when `‖R‖ ≤ tolerance · (‖K q‖ + ‖G‖ + ‖A u‖)`.
+    pub tolerance: f64,
+    /// Newton iterations per continuation step before the step is halved.
+    pub iterations_per_step: usize,
+    /// Most Newton iterations in all.
+    pub max_iterations: usize,
+    /// Smallest load step before giving up.
+    pub min_step: f64,
+    /// Largest change of any segment's bending `L Σ|Δq|` in one Newton iteration
+    /// [rad]: keeps the iteration on the branch it follows.
+    pub max_bending_step: f64,
+}
+
+impl Default for Options {
+    fn default() -> Self {
+        Options {
+            tolerance: 1e-12,
+            iterations_per_step: 12,
+            max_iterations: 2000,
+            min_step: 1e-6,
+            max_bending_step: 0.5,
+        }
+    }
+}
+
+/// A solved equilibrium.
+#[derive(Clone, Debug)]
+pub struct Equilibrium {
+    pub q: Vec<f64>,
+    pub tip_pose: [f64; 3],
+    /// `‖K q + G − A u‖₂` at `q`.
+    pub residual: f64,
+    /// The residual over `‖K q‖ + ‖G‖ + ‖A u‖`.
+    pub relative_residual: f64,
+    /// Newton iterations in all, and continuation steps taken.
+    pub iterations: usize,
+    pub load_steps: usize,
+    /// Smallest eigenvalue of the symmetric part of the Jacobian at `q`.
+    pub min_eigenvalue: f64,
+    /// `min_eigenvalue > 0`: a local minimum of the potential energy.
+    pub stable: bool,
+}
+
+/// Why no equilibrium was returned.
+#[derive(Clone, Debug, PartialEq)]
+pub enum StaticsError {
+    /// The continuation stalled: the load fraction reached, the last residual.
+    NotConverged {
+        load: f64,
+        residual: f64,
+        iterations: usize,
+    },
+    /// A configuration the model cannot evaluate (the reference's bending bound).
+    OutOfRange(String),
+    /// Wrong number of inputs, or non-finite ones.
+    BadInput(String),
+}
+
+impl fmt::Display for StaticsError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            StaticsError::NotConverged {
+                load,
+                residual,
+                iterations,
+            } => write!(
+                f,
+                "no equilibrium found: the load continuation stalled at {:.1}% of the load \
+                 after {iterations} Newton iterations, last residual {residual:.3e}",
+                100.0 * load
+            ),
+            StaticsError::OutOfRange(m) | StaticsError::BadInput(m) => f.write_str(m),
+        }
+    }
+}
+
+impl std::error::Error for StaticsError {}
+
+/// Residual and Jacobian of `K q + λ (G(q) − A(q) u)`, and the scale the residual is
+/// measured against.
+struct Linearised {
+    r: Vec<f64>,
+    jac: Matrix,
+    /// `G − A u`, the residual's derivative in λ.
+    load: Vec<f64>,
+    scale: f64,
+    tip_pose: [f64; 3],
+}
+
+fn linearise(
+    model: &dyn StaticModel,
+    k: &Matrix,
+    q: &[f64],
+    u: &[f64],
+    lambda: f64,
+) -> Result<Linearised, StaticsError> {
+    let t = model.at(q).map_err(StaticsError::OutOfRange)?;
+    let n = q.len();
+    let kq: Vec<f64> = (0..n)
+        .map(|i| (0..n).map(|c| k[i][c] * q[c]).sum())
+        .collect();
+    let au: Vec<f64> = (0..n)
+        .map(|i| t.a[i].iter().zip(u).map(|(a, u)| a * u).sum())
+        .collect();
+    let load: Vec<f64> = (0..n).map(|i| t.g[i] - au[i]).collect();
+    let r: Vec<f64> = (0..n).map(|i| kq[i] + lambda * load[i]).collect();
+    let jac: Matrix = (0..n)
+        .map(|i| {
+            (0..n)
+                .map(|x| {
+                    let dau: f64 = t.da[x][i].iter().zip(u).map(|(a, u)| a * u).sum();
+                    k[i][x] + lambda * (t.dg[i][x] - dau)
+                })
+                .collect()
+        })
+        .collect();
+    let scale = norm(&kq) + lambda * (norm(&t.g) + norm(&au)) + f64::MIN_POSITIVE;
+    if !(r.iter().chain(jac.iter().flatten()).all(|v| v.is_finite())) {
+        return Err(StaticsError::OutOfRange(
+            "the model is not finite at a configuration the solver reached".into(),
+        ));
+    }
+    Ok(Linearised {
+        r,
+        jac,
+        load,
+        scale,
+        tip_pose: t.tip_pose,
+    })
+}
+
+/// The equilibrium under inputs `u` (and the arm's gravity), reached by raising the
+/// load from the straight rest shape.
+pub fn equilibrium(
+    model: &dyn StaticModel,
+    u: &[f64],
+    opts: &Options,
+) -> Result<Equilibrium, StaticsError> {
+    let arm = model.arm();
+    let n = arm.n_coords();
+    if u.len() != arm.n_inputs() || !u.iter().all(|v| v.is_finite()) {
+        return Err(StaticsError::BadInput(format!(
+            "expected {} finite inputs, got {:?}",
+            arm.n_inputs(),
+            u
+        )));
+    }
+    let k = model.stiffness();
+    // The largest factor ≤ 1 that keeps every segment's bending change within bounds.
+    let limit = |dq: &[f64]| -> f64 {
+        let worst = segment_bending(arm, dq).into_iter().fold(0.0f64, f64::max);
+        if worst > opts.max_bending_step {
+            opts.max_bending_step / worst
+        } else {
+            1.0
+        }
+    };
+    let mut q = vec![0.0; n];
+    let (mut lambda, mut step) = (0.0f64, 1.0f64);
+    let mut iterations = 0usize;
+    let mut load_steps = 0usize;
+    let mut last_residual = 0.0;
+    while lambda < 1.0 {
+        // Predictor: along the tangent dq/dλ = −J⁻¹ (G − A u) at the last equilibrium,
+        // with the load step cut so that it bends no segment by more than the limit:
+        // the continuation then follows the branch instead of jumping to another.
+        let here = linearise(model, &k, &q, u, lambda)?;
+        let tangent: Vec<f64> = solve(&here.jac, &here.load)
+            .map(|t| t.iter().map(|v| -v).collect())
+            .unwrap_or_else(|| vec![0.0; n]);
+        let mut dl = step.min(1.0 - lambda);
+        let reach = segment_bending(arm, &tangent)
+            .into_iter()
+            .fold(0.0f64, f64::max);
+        if reach * dl > opts.max_bending_step {
+            dl = (opts.max_bending_step / reach).max(opts.min_step);
+        }
+        let target = if lambda + dl >= 1.0 - 1e-15 {
+            1.0
+        } else {
+            lambda + dl
+        };
+        let trial0: Vec<f64> = (0..n)
+            .map(|i| q[i] + (target - lambda) * tangent[i])
+            .collect();
+        let mut trial = trial0;
+        // Corrector: damped Newton at λ = target.
+        let mut converged = false;
+        for _ in 0..opts.iterations_per_step {
+            if iterations >= opts.max_iterations {
+                break;
+            }
+            iterations += 1;
+            let lin = linearise(model, &k, &trial, u, target)?;
+            let res = norm(&lin.r);
+            last_residual = res;
+            if res <= opts.tolerance * lin.scale {
+                converged = true;
+                break;
+            }
+            let Some(s) = solve(&lin.jac, &lin.r) else {
+                break;
+            };
+            let dq: Vec<f64> = s.iter().map(|v| -v).collect();
+            let mut alpha = limit(&dq);
+            // Backtracking on ‖R‖: accept the first step that lowers it.
+            let mut accepted = false;
+            for _ in 0..20 {
+                let cand: Vec<f64> = (0..n).map(|i| trial[i] + alpha * dq[i]).collect();
+                match linearise(model, &k, &cand, u, target) {
+                    Ok(c) if norm(&c.r) < res || norm(&c.r) <= opts.tolerance * c.scale => {
+                        trial = cand;
+                        accepted = true;
+                        break;
+                    }
+                    _ => alpha *= 0.5,
+                }
+            }
+            if !accepted {
+                break;
+            }
+        }
+        if converged {
+            q = trial;
+            lambda = target;
+            load_steps += 1;
+            step = (2.0 * dl).min(1.0);
+        } else {
+            step = 0.5 * dl;
+            if step < opts.min_step || iterations >= opts.max_iterations {
+                return Err(StaticsError::NotConverged {
+                    load: lambda,
+                    residual: last_residual,
+                    iterations,
+                });
+            }
+        }
+    }
+    let lin = linearise(model, &k, &q, u, 1.0)?;
+    let residual = norm(&lin.r);
+    let min_eigenvalue = symmetric_eigenvalues(&lin.jac)
+        .first()
+        .copied()
+        .unwrap_or(f64::INFINITY);
+    Ok(Equilibrium {
+        tip_pose: lin.tip_pose,
+        residual,
+        relative_residual: residual / lin.scale,
+        q,
+        iterations,
+        load_steps,
+        min_eigenvalue,
+        stable: min_eigenvalue > 0.0,
+    })
+}
 
 /// The rest shape of the linear model around `q = 0` under inputs `u`, gravity left
 /// out: `q = K⁻¹ A(0) u`.
@@ -41,6 +405,99 @@ pub fn segment_bending(arm: &Arm, q: &[f64]) -> Vec<f64> {
 mod tests {
     use super::*;
     use crate::arm::parse_arm_str;
+    use crate::derive::derive_statics;
+
+    fn arm(text: &str) -> Arm {
+        parse_arm_str(text, "t.toml").unwrap()
+    }
+
+    #[test]
+    fn a_uniform_moment_bends_to_m_over_ei_through_the_nonlinear_solver() {
+        // Pure bending by an end moment: κ = M/EI exactly, a circular arc (common
+        // practice). Degree 2 must find the higher coefficients zero.
+        let a = arm(
+            "name = \"m\"\n[[segment]]\nlength = 0.2\ncurvature_degree = 2\n\
+                     density = 0.1\nbending_stiffness = 0.04\n[[actuator]]\nkind = \"moment\"\n\
+                     segment = 1\n",
+        );
+        let model = derive_statics(&a);
+        let eq = equilibrium(
+            &Derived(Evaluator::new(&model)),
+            &[0.3],
+            &Options::default(),
+        )
+        .unwrap();
+        let kappa = 0.3 / 0.04;
+        assert!((eq.q[0] - kappa).abs() < 1e-12 * kappa, "{:?}", eq.q);
+        assert!(eq.q[1].abs() < 1e-10 && eq.q[2].abs() < 1e-10, "{:?}", eq.q);
+        let theta = kappa * 0.2;
+        assert!((eq.tip_pose[0] - theta.sin() / kappa).abs() < 1e-12);
+        assert!((eq.tip_pose[1] - (1.0 - theta.cos()) / kappa).abs() < 1e-12);
+        assert!(eq.stable && eq.min_eigenvalue > 0.0);
+    }
+
+    #[test]
+    fn exact_static_derivatives_agree_with_the_reference() {
+        // ∂G/∂q and ∂A/∂q of the derivation against central differences of the
+        // independent quadrature (same truncated kinematics).
+        let a = arm(include_str!("../../examples/hanging_taper.toml"));
+        let model = derive_statics(&a);
+        let derived = Derived(Evaluator::new(&model));
+        let reference = Quadrature(Reference::new(&a, Kinematics::Truncated(a.expansion_order)));
+        let n = a.n_coords();
+        let bent: Vec<f64> = (0..n)
+            .map(|i| 3.0 * ((i as f64 + 1.0) * 1.3).sin())
+            .collect();
+        for q in [vec![0.0; n], bent] {
+            let d = derived.at(&q).unwrap();
+            let r = reference.at(&q).unwrap();
+            let size = d.dg.iter().flatten().fold(0.0f64, |m, v| m.max(v.abs()));
+            for (x, y) in d.dg.iter().flatten().zip(r.dg.iter().flatten()) {
+                assert!((x - y).abs() <= 1e-8 * size, "dG: {x} vs {y}");
+            }
+            let size =
+                d.da.iter()
+                    .flatten()
+                    .flatten()
+                    .fold(0.0f64, |m, v| m.max(v.abs()));
+            assert!(size > 0.0, "the tip force makes A depend on q");
+            for (x, y) in
+                d.da.iter()
+                    .flatten()
+                    .flatten()
+                    .zip(r.da.iter().flatten().flatten())
+            {
+                assert!((x - y).abs() <= 1e-8 * size, "dA: {x} vs {y}");
+            }
+        }
+    }
+
+    #[test]
+    fn a_column_standing_on_its_base_buckles_under_its_own_weight() {
+        // A uniform column standing on its clamped base buckles under its own weight
+        // at ρ g L³/EI = 7.837 (Greenhill; Timoshenko & Gere, Theory of Elastic
+        // Stability, §2.12; quoted from memory). Gravity along −x pushes the straight
+        // arm (along +x) onto its base; the straight shape stays an equilibrium by
+        // symmetry, and its stability flips at the critical load.
+        let (l, rho, ei) = (0.2, 0.5, 0.01);
+        for (factor, stable) in [(0.9, true), (1.1, false)] {
+            let g = factor * 7.837 * ei / (rho * l * l * l);
+            let a = arm(&format!(
+                "name = \"column\"\nexpansion_order = 2\ngravity = [{}, 0.0]\n[[segment]]\n\
+                 length = {l}\ncurvature_degree = 4\ndensity = {rho}\nbending_stiffness = {ei}\n",
+                -(g * 1e6f64).round() / 1e6
+            ));
+            let model = derive_statics(&a);
+            let eq =
+                equilibrium(&Derived(Evaluator::new(&model)), &[], &Options::default()).unwrap();
+            assert_eq!(
+                eq.stable, stable,
+                "factor {factor}: {:?}",
+                eq.min_eigenvalue
+            );
+            assert!(eq.q.iter().all(|v| v.abs() < 1e-12), "{:?}", eq.q);
+        }
+    }
 
     #[test]
     fn a_uniform_end_moment_bends_a_segment_to_m_over_ei() {

@@ -39,3 +39,18 @@ pub struct Terms {
     /// Potential energy: gravity plus elastic `½ qᵀ K q`.
     pub potential_energy: f64,
 }
+
+/// What the static solver needs of a model at one configuration.
+#[derive(Clone, Debug, PartialEq)]
+pub struct StaticTerms {
+    /// `G(q)`, n.
+    pub g: Vec<f64>,
+    /// `∂G/∂q`, n×n.
+    pub dg: Matrix,
+    /// `A(q)`, n×k.
+    pub a: Matrix,
+    /// `∂A/∂q_x` for each `x`: n matrices n×k.
+    pub da: Vec<Matrix>,
+    /// Tip pose `[x, y, angle]`.
+    pub tip_pose: [f64; 3],
+}

@@ -178,6 +178,15 @@ impl Arm {
     pub fn sampling_or_default(&self) -> Sampling {
         self.sampling.clone().unwrap_or_default()
     }
+    /// The label of every coordinate, in `q`'s order: `2_1` is segment 2's
+    /// coefficient of σ¹ (segments counted from 1, as in the arm file).
+    pub fn coordinate_labels(&self) -> Vec<String> {
+        self.segments
+            .iter()
+            .enumerate()
+            .flat_map(|(j, s)| (0..s.n_coords()).map(move |i| format!("{}_{i}", j + 1)))
+            .collect()
+    }
     /// Gravity `(g_x, g_y)` [m/s²] in double precision.
     pub fn gravity_f64(&self) -> (f64, f64) {
         let f = |r: &Rational| r.to_f64().unwrap_or(f64::NAN);

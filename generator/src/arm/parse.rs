@@ -720,7 +720,8 @@ fn read_number(ctx: &Ctx, item: &Item, at: usize, field: &str) -> Result<Sp<Rati
 
 fn value_number(ctx: &Ctx, v: &Value, at: usize, field: &str) -> Result<Rational, ArmError> {
     let x = exact_number(ctx, v, at, field)?;
-    if !x.is_zero() && !(magnitude_bound(-1) <= x.abs() && x.abs() <= magnitude_bound(1)) {
+    let within = magnitude_bound(-1) <= x.abs() && x.abs() <= magnitude_bound(1);
+    if !(x.is_zero() || within) {
         return Err(ctx.field_err(
             at,
             field,

@@ -10,6 +10,7 @@ mod plot;
 mod progress;
 mod report;
 mod simulate;
+mod statics;
 mod verify;
 
 use clap::{Parser, Subcommand};
@@ -37,6 +38,7 @@ enum Command {
     Generate(generate::GenerateArgs),
     Report(report::ReportArgs),
     Simulate(simulate::SimulateArgs),
+    Statics(statics::StaticsArgs),
     New(new::NewArgs),
     Verify(verify::VerifyArgs),
     Compare(compare::CompareArgs),
@@ -86,6 +88,7 @@ pub fn main() -> ExitCode {
         Command::Generate(args) => generate::run(&args),
         Command::Report(args) => report::run(&args),
         Command::Simulate(args) => simulate::run(&args),
+        Command::Statics(args) => statics::run(&args),
         Command::New(args) => new::run(&args),
         Command::Verify(args) => verify::run(&args),
         Command::Compare(args) => compare::run(&args),

@@ -279,13 +279,10 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
 
 /// `q1_0, q1_1, …`: segment (1-based) and curvature coefficient.
 fn coordinate_names(arm: &crate::arm::Arm) -> Vec<String> {
-    let mut names = Vec::new();
-    for (j, seg) in arm.segments.iter().enumerate() {
-        for i in 0..seg.n_coords() {
-            names.push(format!("q{}_{i}", j + 1));
-        }
-    }
-    names
+    arm.coordinate_labels()
+        .into_iter()
+        .map(|l| format!("q{l}"))
+        .collect()
 }
 
 fn csv(names: &[String], rows: &[Row]) -> String {

@@ -70,6 +70,13 @@ fn functions(m: &Model) -> Vec<(String, Vec<Id>)> {
     for (j, p) in m.pose.iter().enumerate() {
         f.push((format!("pose_{}", j + 1), p.to_vec()));
     }
+    if let Some(s) = &m.statics {
+        f.push(("gravity_jacobian".to_string(), mat(&s.gravity_jacobian)));
+        f.push((
+            "actuation_jacobian".to_string(),
+            s.actuation_jacobian.iter().flat_map(mat).collect(),
+        ));
+    }
     f
 }
 
@@ -93,6 +100,14 @@ fn remap(m: &Model, program: Program, ids: &[Id]) -> Model {
     let kinetic_energy = next();
     let potential_energy = next();
     let pose = m.pose.iter().map(|_| [next(), next(), next()]).collect();
+    let statics = m.statics.as_ref().map(|s| crate::derive::StaticRoots {
+        gravity_jacobian: mat(&s.gravity_jacobian, &mut next),
+        actuation_jacobian: s
+            .actuation_jacobian
+            .iter()
+            .map(|x| mat(x, &mut next))
+            .collect(),
+    });
     Model {
         arm: m.arm.clone(),
         program,
@@ -106,6 +121,7 @@ fn remap(m: &Model, program: Program, ids: &[Id]) -> Model {
         actuation,
         tip_pose,
         tip_jacobian,
+        statics,
         kinetic_energy,
         potential_energy,
         pose,

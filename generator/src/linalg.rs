@@ -1,0 +1,126 @@
+//! Small dense linear algebra for the solvers (statics): the systems have as many
+//! unknowns as the arm has coordinates, a few dozen at most.
+
+use crate::terms::Matrix;
+
+/// Solves `A x = b` by Gaussian elimination with partial pivoting; `None` when `A`
+/// is singular to working precision (a pivot below `1e-14` of the largest entry).
+pub fn solve(a: &Matrix, b: &[f64]) -> Option<Vec<f64>> {
+    let n = b.len();
+    let mut m: Vec<Vec<f64>> = a.iter().map(|r| r.to_vec()).collect();
+    let mut x = b.to_vec();
+    let scale = m
+        .iter()
+        .flatten()
+        .fold(0.0f64, |s, v| s.max(v.abs()))
+        .max(f64::MIN_POSITIVE);
+    for c in 0..n {
+        let p = (c..n).max_by(|&i, &j| m[i][c].abs().total_cmp(&m[j][c].abs()))?;
+        if !(m[p][c].abs() > 1e-14 * scale) {
+            return None;
+        }
+        m.swap(c, p);
+        x.swap(c, p);
+        for r in c + 1..n {
+            let f = m[r][c] / m[c][c];
+            if f != 0.0 {
+                for k in c..n {
+                    m[r][k] -= f * m[c][k];
+                }
+                x[r] -= f * x[c];
+            }
+        }
+    }
+    for c in (0..n).rev() {
+        let s: f64 = (c + 1..n).map(|k| m[c][k] * x[k]).sum();
+        x[c] = (x[c] - s) / m[c][c];
+    }
+    x.iter().all(|v| v.is_finite()).then_some(x)
+}
+
+/// Eigenvalues of the symmetric part `(A + Aᵀ)/2`, ascending, by cyclic Jacobi
+/// rotations (accurate to rounding for the small matrices here).
+pub fn symmetric_eigenvalues(a: &Matrix) -> Vec<f64> {
+    let n = a.len();
+    let mut m: Vec<Vec<f64>> = (0..n)
+        .map(|i| (0..n).map(|j| 0.5 * (a[i][j] + a[j][i])).collect())
+        .collect();
+    for _sweep in 0..100 {
+        let off: f64 = (0..n)
+            .flat_map(|i| (0..n).filter(move |&j| j != i).map(move |j| (i, j)))
+            .map(|(i, j)| m[i][j] * m[i][j])
+            .sum();
+        let diag: f64 = (0..n).map(|i| m[i][i] * m[i][i]).sum();
+        if off <= 1e-30 * diag.max(f64::MIN_POSITIVE) {
+            break;
+        }
+        for p in 0..n {
+            for q in p + 1..n {
+                if m[p][q] == 0.0 {
+                    continue;
+                }
+                let theta = (m[q][q] - m[p][p]) / (2.0 * m[p][q]);
+                let t = theta.signum() / (theta.abs() + (theta * theta + 1.0).sqrt());
+                let t = if theta == 0.0 { 1.0 } else { t };
+                let c = 1.0 / (t * t + 1.0).sqrt();
+                let s = t * c;
+                for k in 0..n {
+                    let (mkp, mkq) = (m[k][p], m[k][q]);
+                    m[k][p] = c * mkp - s * mkq;
+                    m[k][q] = s * mkp + c * mkq;
+                }
+                for k in 0..n {
+                    let (mpk, mqk) = (m[p][k], m[q][k]);
+                    m[p][k] = c * mpk - s * mqk;
+                    m[q][k] = s * mpk + c * mqk;
+                }
+            }
+        }
+    }
+    let mut ev: Vec<f64> = (0..n).map(|i| m[i][i]).collect();
+    ev.sort_by(f64::total_cmp);
+    ev
+}
+
+/// `‖v‖₂`.
+pub fn norm(v: &[f64]) -> f64 {
+    v.iter().map(|x| x * x).sum::<f64>().sqrt()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn solves_with_pivoting_and_refuses_singular() {
+        let a = vec![vec![0.0, 2.0], vec![3.0, 1.0]];
+        let x = solve(&a, &[4.0, 5.0]).unwrap();
+        assert!(
+            (x[0] - 1.0).abs() < 1e-15 && (x[1] - 2.0).abs() < 1e-15,
+            "{x:?}"
+        );
+        assert_eq!(
+            solve(&vec![vec![1.0, 2.0], vec![2.0, 4.0]], &[1.0, 2.0]),
+            None
+        );
+    }
+
+    #[test]
+    fn eigenvalues_of_a_known_matrix() {
+        // [[2, 1], [1, 2]] has eigenvalues 1 and 3; an indefinite one gives a negative.
+        let ev = symmetric_eigenvalues(&vec![vec![2.0, 1.0], vec![1.0, 2.0]]);
+        assert!(
+            (ev[0] - 1.0).abs() < 1e-14 && (ev[1] - 3.0).abs() < 1e-14,
+            "{ev:?}"
+        );
+        let ev = symmetric_eigenvalues(&vec![
+            vec![1.0, 2.0, 0.0],
+            vec![2.0, 1.0, 0.0],
+            vec![0.0, 0.0, 5.0],
+        ]);
+        assert!(
+            (ev[0] + 1.0).abs() < 1e-14 && (ev[2] - 5.0).abs() < 1e-14,
+            "{ev:?}"
+        );
+    }
+}
