@@ -141,6 +141,19 @@ impl Default for Sampling {
 /// Largest number of samples a `[sampling]` table may ask for.
 pub const MAX_SAMPLES: usize = 1_000_000;
 
+/// `10^e`, exactly (the ranges the arm file is checked against).
+pub(crate) fn pow10(e: i32) -> Rational {
+    let p = Rational::from_integer(num_traits::pow(
+        num_bigint::BigInt::from(10u32),
+        e.unsigned_abs() as usize,
+    ));
+    if e < 0 {
+        p.recip()
+    } else {
+        p
+    }
+}
+
 /// A validated arm: every invariant of MODEL.md holds (positive lengths and
 /// stiffness, actuators on existing segments, orders within range).
 #[derive(Clone, Debug, PartialEq)]

@@ -13,7 +13,7 @@ use num_bigint::BigInt;
 use num_traits::{Signed, Zero};
 use toml_edit::{ImDocument, Item, TableLike, Value};
 
-use super::{Arm, Rational};
+use super::{pow10, Arm, Rational};
 
 /// An error in an arm file, located at `file:line:column` (1-based).
 #[derive(Clone, Debug, PartialEq, Eq)]
@@ -720,7 +720,8 @@ fn read_number(ctx: &Ctx, item: &Item, at: usize, field: &str) -> Result<Sp<Rati
 
 fn value_number(ctx: &Ctx, v: &Value, at: usize, field: &str) -> Result<Rational, ArmError> {
     let x = exact_number(ctx, v, at, field)?;
-    let within = magnitude_bound(-1) <= x.abs() && x.abs() <= magnitude_bound(1);
+    let decades = MAGNITUDE_DECADES as i32;
+    let within = pow10(-decades) <= x.abs() && x.abs() <= pow10(decades);
     if !(x.is_zero() || within) {
         return Err(ctx.field_err(
             at,
@@ -740,19 +741,6 @@ fn value_number(ctx: &Ctx, v: &Value, at: usize, field: &str) -> Result<Rational
 /// of up to five lengths with a density or stiffness) stay normal numbers even in
 /// single precision.
 pub const MAGNITUDE_DECADES: u32 = 9;
-
-/// `10^(sign · MAGNITUDE_DECADES)`, exactly.
-fn magnitude_bound(sign: i32) -> Rational {
-    let p = Rational::from_integer(num_traits::pow(
-        BigInt::from(10u32),
-        MAGNITUDE_DECADES as usize,
-    ));
-    if sign < 0 {
-        p.recip()
-    } else {
-        p
-    }
-}
 
 fn exact_number(ctx: &Ctx, v: &Value, at: usize, field: &str) -> Result<Rational, ArmError> {
     match v {

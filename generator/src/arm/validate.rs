@@ -10,7 +10,7 @@ use num_traits::{Signed, ToPrimitive, Zero};
 
 use super::parse::{ArmError, Ctx, RawActuator, RawArm, RawSampling, Sp};
 use super::{
-    Actuator, Arm, Payload, Rational, Sampling, Segment, SigmaPoly, DEFAULT_EXPANSION_ORDER,
+    pow10, Actuator, Arm, Payload, Rational, Sampling, Segment, SigmaPoly, DEFAULT_EXPANSION_ORDER,
     MAX_CURVATURE_DEGREE, MAX_EXPANSION_ORDER, MAX_SAMPLES,
 };
 
@@ -26,19 +26,6 @@ pub const MAX_LENGTH_EXP: i32 = 3;
 /// Largest gravity component accepted, as a power of ten [m/s²] (a hundred g).
 pub const MAX_GRAVITY_EXP: i32 = 3;
 
-/// `10^e`, exactly.
-fn rat_pow10(e: i32) -> Rational {
-    let p = Rational::from_integer(num_traits::pow(
-        BigInt::from(10u32),
-        e.unsigned_abs() as usize,
-    ));
-    if e < 0 {
-        p.recip()
-    } else {
-        p
-    }
-}
-
 /// Checks the physical facts of `raw` and builds the [`Arm`].
 pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
     // name
@@ -51,7 +38,7 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
     let gravity = match raw.gravity {
         Some([gx, gy]) => {
             for g in [&gx, &gy] {
-                if g.value.abs() > rat_pow10(MAX_GRAVITY_EXP) {
+                if g.value.abs() > pow10(MAX_GRAVITY_EXP) {
                     return Err(ctx.field_err(
                         g.at,
                         "gravity",
@@ -105,8 +92,7 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
                 format!("must be positive, got {}", s.length.raw),
             ));
         }
-        if s.length.value < rat_pow10(MIN_LENGTH_EXP) || s.length.value > rat_pow10(MAX_LENGTH_EXP)
-        {
+        if s.length.value < pow10(MIN_LENGTH_EXP) || s.length.value > pow10(MAX_LENGTH_EXP) {
             return Err(ctx.field_err(
                 s.length.at,
                 &format!("{path}.length"),
@@ -116,7 +102,7 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
                 ),
             ));
         }
-        if s.length.value > rat_pow10(1) {
+        if s.length.value > pow10(1) {
             warnings.push(
                 ctx.field_err(
                     s.length.at,
