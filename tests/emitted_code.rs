@@ -96,28 +96,18 @@ const STRICT: &[&str] = &[
     "-Wshadow",
 ];
 
+/// The files of an output folder as `generate --check` sees them (no links followed,
+/// build products of the shipped tests passed over).
 fn files_under(dir: &Path) -> BTreeMap<PathBuf, Vec<u8>> {
-    let mut out = BTreeMap::new();
-    let mut stack = vec![dir.to_path_buf()];
-    while let Some(d) = stack.pop() {
-        for e in std::fs::read_dir(&d).unwrap_or_else(|e| panic!("{}: {e}", d.display())) {
-            let p = e.unwrap().path();
-            if p.is_dir() {
-                if p.file_name()
-                    .is_some_and(|n| n == "target" || n == "__pycache__")
-                {
-                    continue;
-                }
-                stack.push(p);
-            } else if p.file_name().is_some_and(|n| n != "Cargo.lock") {
-                out.insert(
-                    p.strip_prefix(dir).unwrap().to_path_buf(),
-                    std::fs::read(&p).unwrap(),
-                );
-            }
-        }
-    }
-    out
+    arcwright::outdir::walk::walk(dir)
+        .unwrap_or_else(|e| panic!("{e}"))
+        .files
+        .into_iter()
+        .map(|rel| {
+            let bytes = std::fs::read(dir.join(&rel)).unwrap();
+            (PathBuf::from(rel), bytes)
+        })
+        .collect()
 }
 
 #[test]

@@ -71,11 +71,6 @@ impl Language {
         Language::ALL.into_iter().find(|l| l.name() == name)
     }
 
-    /// The output subfolder holding this language's files (the same as its name).
-    pub fn folder(self) -> &'static str {
-        self.name()
-    }
-
     fn bit(self) -> u8 {
         1 << (self as u8)
     }
