@@ -3722,7 +3722,7 @@ void reach_arm_gravity(const double q[], double G[])
 }
 
 
-/* A(q), n x k, row-major. Scratch: work[0 .. REACH_ARM_ACTUATION_WORK), 0 reals.
+/* A(q), n x k, row-major. Scratch: none; work may be a null pointer (REACH_ARM_ACTUATION_WORK is 1 only because a C array cannot be empty).
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
 void reach_arm_actuation_ws(const double q[], double A[], double work[])
 {

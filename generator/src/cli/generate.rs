@@ -40,8 +40,10 @@ impl From<LanguageArg> for Language {
 /// Each language gets the inertia, Coriolis, gravity, stiffness, damping and actuation
 /// terms, backbone poses, the tip Jacobian, energies and forward dynamics, and a test
 /// that compares them with golden values of the numeric reference. DIR also receives a
-/// copy of the arm file (arm.toml, with the order used). DIR is replaced as a whole
-/// (atomically); an existing DIR must be an earlier arcwright output.
+/// copy of the arm file (arm.toml, with the order used). DIR is replaced as a whole, in
+/// one atomic step; an existing DIR must be an earlier arcwright output holding only
+/// files arcwright wrote (anything else, a file you added or edited or a link, is
+/// listed and nothing is replaced).
 #[derive(Args, Debug)]
 #[command(
     allow_negative_numbers = true,

@@ -357,10 +357,19 @@ pub fn emit(
         };
         funcs.push(CFunc {
             rows,
-            formula: format!(
-                "{formula} Scratch: work[0 .. {up}_{}_WORK), {len} reals.",
-                fname.to_uppercase()
-            ),
+            formula: if len == 0 {
+                // The macro is 1 all the same: a C array cannot be empty.
+                format!(
+                    "{formula} Scratch: none; work may be a null pointer ({up}_{}_WORK is 1 \
+                     only because a C array cannot be empty).",
+                    fname.to_uppercase()
+                )
+            } else {
+                format!(
+                    "{formula} Scratch: work[0 .. {up}_{}_WORK), {len} reals.",
+                    fname.to_uppercase()
+                )
+            },
             ops: ops.clone(),
             signature: format!("{ret} {name}_{fname}_ws({}, {r} work[])", decls.join(", ")),
             body,
