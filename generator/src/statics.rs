@@ -298,10 +298,9 @@ pub fn equilibrium(
         } else {
             lambda + dl
         };
-        let trial0: Vec<f64> = (0..n)
+        let mut trial: Vec<f64> = (0..n)
             .map(|i| q[i] + (target - lambda) * tangent[i])
             .collect();
-        let mut trial = trial0;
         // Corrector: damped Newton at λ = target.
         let mut converged = false;
         for _ in 0..opts.iterations_per_step {
