@@ -9,6 +9,7 @@
 // indexed loops read best in the Cholesky and rotation kernels.
 #![allow(clippy::neg_cmp_op_on_partial_ord, clippy::needless_range_loop)]
 
+pub mod allocation;
 pub mod arm;
 pub mod cli;
 pub mod cost;

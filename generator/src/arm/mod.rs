@@ -109,6 +109,27 @@ impl Actuator {
     }
 }
 
+/// The range one input may take, `lo ≤ u ≤ hi` (±∞ when the file sets no bound).
+///
+/// Tendons pull only: a tendon's lower bound is its pretension, 0 by default. Every
+/// command that chooses inputs (statics holds, tip targets, the regulators) keeps them
+/// within these bounds; an input given by hand outside them is refused.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct InputLimits {
+    pub lo: f64,
+    pub hi: f64,
+}
+
+impl InputLimits {
+    pub const FREE: InputLimits = InputLimits {
+        lo: f64::NEG_INFINITY,
+        hi: f64::INFINITY,
+    };
+    pub fn contains(&self, u: f64) -> bool {
+        self.lo <= u && u <= self.hi
+    }
+}
+
 /// Where `arcwright report` samples configurations: the optional `[sampling]` table.
 ///
 /// A sample bends every segment by a base bending `a_j = L_j q_{j,0}` with
@@ -167,6 +188,8 @@ pub struct Arm {
     pub segments: Vec<Segment>,
     pub payload: Payload,
     pub actuators: Vec<Actuator>,
+    /// The limits of every input (column of A), in input order.
+    pub input_limits: Vec<InputLimits>,
     /// The `[sampling]` table, if the file has one (sampling bounds for reports).
     pub sampling: Option<Sampling>,
     /// Warnings from reading the file (`file:line:column: field: message`): valid
@@ -182,6 +205,27 @@ impl Arm {
     /// Total number of inputs `k` (columns of A).
     pub fn n_inputs(&self) -> usize {
         self.actuators.iter().map(Actuator::n_inputs).sum()
+    }
+    /// The 1-based actuator (as in the file) that input `i` (0-based) belongs to, and
+    /// the input's name: `u3`, or `u3 (actuator[2].x)` for an end force's component.
+    pub fn input_name(&self, i: usize) -> String {
+        let mut first = 0;
+        for (a, act) in self.actuators.iter().enumerate() {
+            let w = act.n_inputs();
+            if i < first + w {
+                return match act {
+                    Actuator::EndForce { .. } => format!(
+                        "u{} (actuator[{}].{})",
+                        i + 1,
+                        a + 1,
+                        if i == first { "x" } else { "y" }
+                    ),
+                    _ => format!("u{} (actuator[{}])", i + 1, a + 1),
+                };
+            }
+            first += w;
+        }
+        format!("u{}", i + 1)
     }
     /// Index in `q` of the first coordinate of segment `j` (0-based).
     pub fn coord_offset(&self, j: usize) -> usize {

@@ -165,6 +165,8 @@ pub(super) struct RawArm {
     pub segments: Vec<RawSegment>,
     pub payload: Option<RawPayload>,
     pub actuators: Vec<RawActuator>,
+    /// The limits of each actuator, in the order of `actuators`.
+    pub limits: Vec<RawLimits>,
     pub sampling: Option<RawSampling>,
     /// Located warnings (`file:line:column: field: message`): valid but deprecated or
     /// suspicious input.
@@ -211,6 +213,15 @@ pub(super) enum RawActuator {
     },
 }
 
+/// An actuator's optional input limits as written: `pretension` and `max` for a
+/// tendon, `min` and `max` for the others.
+#[derive(Debug, Default)]
+pub(super) struct RawLimits {
+    pub pretension: Option<Sp<Rational>>,
+    pub min: Option<Sp<Rational>>,
+    pub max: Option<Sp<Rational>>,
+}
+
 const ROOT_KEYS: &[&str] = &[
     "name",
     "gravity",
@@ -232,10 +243,18 @@ const SEGMENT_KEYS: &[&str] = &[
 const PAYLOAD_KEYS: &[&str] = &["mass", "rotary_inertia"];
 const SAMPLING_KEYS: &[&str] = &["base_bending", "extra_bending", "samples", "seed"];
 const ACTUATOR_KINDS: &[&str] = &["tendon", "moment", "end_force"];
-const TENDON_KEYS: &[&str] = &["kind", "offset", "through_segment"];
-const MOMENT_KEYS: &[&str] = &["kind", "segment"];
-const END_FORCE_KEYS: &[&str] = &["kind", "segment"];
-const ALL_ACTUATOR_KEYS: &[&str] = &["kind", "offset", "through_segment", "segment"];
+const TENDON_KEYS: &[&str] = &["kind", "offset", "through_segment", "pretension", "max"];
+const MOMENT_KEYS: &[&str] = &["kind", "segment", "min", "max"];
+const END_FORCE_KEYS: &[&str] = &["kind", "segment", "min", "max"];
+const ALL_ACTUATOR_KEYS: &[&str] = &[
+    "kind",
+    "offset",
+    "through_segment",
+    "segment",
+    "pretension",
+    "min",
+    "max",
+];
 
 /// A table (header table or inline table) with the offset of its header / `{`.
 struct Tab<'d> {
@@ -347,8 +366,11 @@ pub(super) fn read_raw(ctx: &Ctx) -> Result<RawArm, ArmError> {
 
     let (actuator_tabs, _) = table_list(ctx, &root, "actuator")?;
     let mut actuators = Vec::with_capacity(actuator_tabs.len());
+    let mut limits = Vec::with_capacity(actuator_tabs.len());
     for tab in &actuator_tabs {
-        actuators.push(read_actuator(ctx, tab)?);
+        let (actuator, lim) = read_actuator(ctx, tab)?;
+        actuators.push(actuator);
+        limits.push(lim);
     }
 
     let mut warnings = Vec::new();
@@ -400,6 +422,7 @@ pub(super) fn read_raw(ctx: &Ctx) -> Result<RawArm, ArmError> {
         segments,
         payload,
         actuators,
+        limits,
         sampling,
         warnings,
     })
@@ -473,7 +496,7 @@ fn read_sampling(ctx: &Ctx, tab: &Tab, table: &'static str) -> Result<RawSamplin
     })
 }
 
-fn read_actuator(ctx: &Ctx, tab: &Tab) -> Result<RawActuator, ArmError> {
+fn read_actuator(ctx: &Ctx, tab: &Tab) -> Result<(RawActuator, RawLimits), ArmError> {
     // Keys outside every actuator kind are reported before anything else.
     check_keys(ctx, tab, ALL_ACTUATOR_KEYS)?;
     let kind_field = tab.field_name("kind");
@@ -519,7 +542,18 @@ fn read_actuator(ctx: &Ctx, tab: &Tab) -> Result<RawActuator, ArmError> {
         let (item, at) = tab.get(key).ok_or_else(|| missing(ctx, tab, key))?;
         read_int(ctx, item, at, &tab.field_name(key))
     };
-    Ok(match kind.value.as_str() {
+    let opt_num = |key: &str| -> Result<Option<Sp<Rational>>, ArmError> {
+        match tab.get(key) {
+            Some((item, at)) => Ok(Some(read_number(ctx, item, at, &tab.field_name(key))?)),
+            None => Ok(None),
+        }
+    };
+    let limits = RawLimits {
+        pretension: opt_num("pretension")?,
+        min: opt_num("min")?,
+        max: opt_num("max")?,
+    };
+    let actuator = match kind.value.as_str() {
         "tendon" => {
             let (item, at) = tab
                 .get("offset")
@@ -537,7 +571,8 @@ fn read_actuator(ctx: &Ctx, tab: &Tab) -> Result<RawActuator, ArmError> {
         _ => RawActuator::EndForce {
             segment: req_int("segment")?,
         },
-    })
+    };
+    Ok((actuator, limits))
 }
 
 // ---------------------------------------------------------------------------

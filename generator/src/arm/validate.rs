@@ -8,10 +8,10 @@
 use num_bigint::BigInt;
 use num_traits::{Signed, ToPrimitive, Zero};
 
-use super::parse::{ArmError, Ctx, RawActuator, RawArm, RawSampling, Sp};
+use super::parse::{ArmError, Ctx, RawActuator, RawArm, RawLimits, RawSampling, Sp};
 use super::{
-    pow10, Actuator, Arm, Payload, Rational, Sampling, Segment, SigmaPoly, DEFAULT_EXPANSION_ORDER,
-    MAX_CURVATURE_DEGREE, MAX_EXPANSION_ORDER, MAX_SAMPLES,
+    pow10, Actuator, Arm, InputLimits, Payload, Rational, Sampling, Segment, SigmaPoly,
+    DEFAULT_EXPANSION_ORDER, MAX_CURVATURE_DEGREE, MAX_EXPANSION_ORDER, MAX_SAMPLES,
 };
 
 /// Highest polynomial degree accepted for a property along σ (density, EI, …).
@@ -165,8 +165,16 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
 
     // actuators
     let mut actuators = Vec::with_capacity(raw.actuators.len());
-    for (i, a) in raw.actuators.into_iter().enumerate() {
+    let mut input_limits = Vec::with_capacity(raw.actuators.len());
+    for (i, (a, lim)) in raw.actuators.into_iter().zip(raw.limits).enumerate() {
         let path = format!("actuator[{}]", i + 1);
+        let bounds = limits(ctx, lim, &path, matches!(a, RawActuator::Tendon { .. }))?;
+        let width = if matches!(a, RawActuator::EndForce { .. }) {
+            2
+        } else {
+            1
+        };
+        input_limits.extend(std::iter::repeat_n(bounds, width));
         actuators.push(match a {
             RawActuator::Tendon {
                 offset,
@@ -237,9 +245,51 @@ pub(super) fn validate(raw: RawArm, ctx: &Ctx) -> Result<Arm, ArmError> {
         segments,
         payload,
         actuators,
+        input_limits,
         sampling,
         warnings,
     })
+}
+
+/// An actuator's input range. A tendon pulls only: its lower bound is the pretension
+/// (default 0, never negative), and it takes no `min`; `max` must exceed the lower bound.
+fn limits(ctx: &Ctx, raw: RawLimits, path: &str, tendon: bool) -> Result<InputLimits, ArmError> {
+    let f = |x: &Rational| x.to_f64().unwrap_or(f64::NAN);
+    let lo = if tendon {
+        match &raw.pretension {
+            Some(p) if p.value.is_negative() => {
+                return Err(ctx.field_err(
+                    p.at,
+                    &format!("{path}.pretension"),
+                    format!("must be at least 0 (a tendon pulls only), got {}", p.raw),
+                ))
+            }
+            Some(p) => f(&p.value),
+            None => 0.0,
+        }
+    } else {
+        raw.min.as_ref().map_or(f64::NEG_INFINITY, |m| f(&m.value))
+    };
+    let hi = match &raw.max {
+        Some(m) => {
+            let hi = f(&m.value);
+            if hi <= lo {
+                let what = if tendon {
+                    format!("the pretension {lo}")
+                } else {
+                    format!("min = {lo}")
+                };
+                return Err(ctx.field_err(
+                    m.at,
+                    &format!("{path}.max"),
+                    format!("must be greater than {what}, got {}", m.raw),
+                ));
+            }
+            hi
+        }
+        None => f64::INFINITY,
+    };
+    Ok(InputLimits { lo, hi })
 }
 
 /// Largest bending a `[sampling]` bound may ask for: two full turns [rad].
@@ -985,6 +1035,52 @@ mod tests {
         .unwrap();
         assert_eq!(arm.payload.rotary_inertia, q(2, 10_000_000));
         assert_eq!(arm.payload.mass, q(0, 1));
+    }
+
+    #[test]
+    fn actuator_limits() {
+        let tendon = |extra: &str| {
+            format!("name = \"a\"\n{SEG}[[actuator]]\nkind = \"tendon\"\noffset = 0.01\nthrough_segment = 1\n{extra}")
+        };
+        let arm = parse_arm_str(&tendon(""), "f").unwrap();
+        assert_eq!(
+            arm.input_limits,
+            vec![InputLimits {
+                lo: 0.0,
+                hi: f64::INFINITY
+            }]
+        );
+        let arm = parse_arm_str(&tendon("pretension = 0.2\nmax = 12\n"), "f").unwrap();
+        assert_eq!(arm.input_limits, vec![InputLimits { lo: 0.2, hi: 12.0 }]);
+        err_at(
+            &tendon("pretension = -0.1\n"),
+            11,
+            14,
+            "actuator[1].pretension",
+            "actuator[1].pretension: must be at least 0 (a tendon pulls only), got -0.1",
+        );
+        err_at(
+            &tendon("pretension = 2\nmax = 1\n"),
+            12,
+            7,
+            "actuator[1].max",
+            "actuator[1].max: must be greater than the pretension 2, got 1",
+        );
+        let arm = parse_arm_str(
+            &format!("name = \"a\"\n{SEG}[[actuator]]\nkind = \"end_force\"\nsegment = 1\nmin = -3\nmax = 3\n[[actuator]]\nkind = \"moment\"\nsegment = 1\n"),
+            "f",
+        )
+        .unwrap();
+        assert_eq!(
+            arm.input_limits,
+            vec![
+                InputLimits { lo: -3.0, hi: 3.0 },
+                InputLimits { lo: -3.0, hi: 3.0 },
+                InputLimits::FREE
+            ]
+        );
+        assert_eq!(arm.input_name(1), "u2 (actuator[1].y)");
+        assert_eq!(arm.input_name(2), "u3 (actuator[2])");
     }
 
     #[test]

@@ -199,6 +199,18 @@ pub(crate) fn parse_inputs(arm: &crate::arm::Arm, text: &str) -> Result<Vec<f64>
         }
         at += a.n_inputs();
     }
+    for (i, (v, lim)) in u.iter().zip(&arm.input_limits).enumerate() {
+        if !lim.contains(*v) {
+            return Err(CliError::Input(format!(
+                "--u: entry {} ({}) is {}, outside the limits the arm file sets for it, [{}, {}]",
+                i + 1,
+                arm.input_name(i),
+                num(*v),
+                num(lim.lo),
+                num(lim.hi)
+            )));
+        }
+    }
     if let Ok(q) = crate::statics::linear_rest_shape(arm, &u) {
         let bending = crate::statics::segment_bending(arm, &q);
         if let Some((j, b)) = bending

@@ -47,6 +47,7 @@ fn make_arm(segments: Vec<Segment>, order: u32, mass: f64, jp: f64, g: [f64; 2])
             Actuator::EndForce { segment: 0 },
             Actuator::EndForce { segment: s - 1 },
         ],
+        input_limits: vec![crate::arm::InputLimits::FREE; 6],
         sampling: None,
         warnings: Vec::new(),
     }
