@@ -12,6 +12,8 @@
 pub mod allocation;
 pub mod arm;
 pub mod cli;
+pub mod continuation;
+pub mod control;
 pub mod cost;
 pub mod derive;
 pub mod dynamics;
