@@ -179,6 +179,7 @@ pub struct Rest {
     pub residual: f64,
     pub relative_residual: f64,
     pub iterations: usize,
+    pub load_steps: usize,
     /// Smallest eigenvalue of the symmetric part of `K + ∂G/∂q − ∂(A u)/∂q` with the
     /// inputs held constant, and whether it is positive.
     pub min_eigenvalue: f64,
@@ -258,7 +259,7 @@ fn finish(
     q: Vec<f64>,
     u: Vec<f64>,
     at_limit: Vec<bool>,
-    iterations: usize,
+    root: &crate::continuation::Root,
 ) -> Result<Rest, ControlError> {
     let t = model.at(&q).map_err(StaticsError::OutOfRange)?;
     let res = static_residual(&times(k, &q), &t.g, &times(&t.a, &u), 1.0);
@@ -284,7 +285,8 @@ fn finish(
         relative_residual: residual / res.scale,
         q,
         u,
-        iterations,
+        iterations: root.iterations,
+        load_steps: root.load_steps,
         min_eigenvalue,
         stable: min_eigenvalue > 0.0,
         at_limit,
@@ -319,10 +321,10 @@ pub fn closed_loop_rest(
     finish(
         model,
         &k,
-        root.x,
+        root.x.clone(),
         c.allocation.u,
         c.allocation.at_limit,
-        root.iterations,
+        &root,
     )
 }
 
@@ -445,7 +447,7 @@ pub fn hold(
             shortfall: al.shortfall,
         });
     }
-    finish(model, &k, q, al.u, al.at_limit, root.iterations)
+    finish(model, &k, q, al.u, al.at_limit, &root)
 }
 
 /// A rest shape and the held values that give it, for a tip target.

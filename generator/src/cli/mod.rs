@@ -228,6 +228,68 @@ pub(crate) fn parse_inputs(arm: &crate::arm::Arm, text: &str) -> Result<Vec<f64>
     Ok(u)
 }
 
+/// Parses a list of coordinate labels such as `--control "1_0,2_0"` into indices in `q`.
+pub(crate) fn parse_labels(
+    option: &str,
+    arm: &crate::arm::Arm,
+    text: &str,
+) -> Result<Vec<usize>, CliError> {
+    let mut out = Vec::new();
+    for part in text.split(',') {
+        let i = crate::control::coordinate_index(arm, part)
+            .map_err(|e| CliError::Input(format!("--{option}: {e}")))?;
+        if out.contains(&i) {
+            return Err(CliError::Input(format!(
+                "--{option}: coordinate {} is listed twice",
+                part.trim()
+            )));
+        }
+        out.push(i);
+    }
+    Ok(out)
+}
+
+/// Parses `label=value` pairs such as `--hold "1_0=4,2_0=-3"`.
+pub(crate) fn parse_assignments(
+    option: &str,
+    arm: &crate::arm::Arm,
+    text: &str,
+) -> Result<Vec<(usize, f64)>, CliError> {
+    let mut out: Vec<(usize, f64)> = Vec::new();
+    for part in text.split(',') {
+        let Some((label, value)) = part.split_once('=') else {
+            return Err(CliError::Input(format!(
+                "--{option}: `{}` is not label=value (for example 1_0=4.5)",
+                part.trim()
+            )));
+        };
+        let i = crate::control::coordinate_index(arm, label)
+            .map_err(|e| CliError::Input(format!("--{option}: {e}")))?;
+        let v: f64 = value.trim().parse().map_err(|_| {
+            CliError::Input(format!(
+                "--{option}: the value of {} is `{}`, not a number",
+                label.trim(),
+                value.trim()
+            ))
+        })?;
+        if !v.is_finite() {
+            return Err(CliError::Input(format!(
+                "--{option}: the value of {} must be finite, got {}",
+                label.trim(),
+                value.trim()
+            )));
+        }
+        if out.iter().any(|(j, _)| *j == i) {
+            return Err(CliError::Input(format!(
+                "--{option}: coordinate {} is listed twice",
+                label.trim()
+            )));
+        }
+        out.push((i, v));
+    }
+    Ok(out)
+}
+
 /// Parses a comma-separated vector option such as `--q "0.1, -2, 3e-1"`.
 pub(crate) fn parse_vector(
     option: &str,
