@@ -184,7 +184,7 @@ fn simulate_writes_the_trajectory_and_checks_energy_when_undamped() {
     let mut lines = csv.lines();
     assert_eq!(
         lines.next().unwrap(),
-        "t,q1_0,q1_1,qd1_0,qd1_1,tip_x,tip_y,tip_angle,kinetic_energy,potential_energy,total_energy"
+        "t,q1_0,q1_1,qd1_0,qd1_1,tip_x,tip_y,tip_angle,kinetic_energy,potential_energy,total_energy,u1"
     );
     let rows: Vec<Vec<f64>> = lines
         .map(|l| {
@@ -194,7 +194,7 @@ fn simulate_writes_the_trajectory_and_checks_energy_when_undamped() {
         })
         .collect();
     assert_eq!(rows.len(), 51);
-    assert!(rows.iter().all(|r| r.len() == 11));
+    assert!(rows.iter().all(|r| r.len() == 12 && r[11] == 0.0));
     assert_eq!(rows[0][..5], [0.0, 4.0, -3.0, 0.0, 10.0]);
     assert!((rows[50][0] - 0.05).abs() < 1e-12);
     // The tip angle is the integral of the curvature: L (q0 + q1 / 2).

@@ -1,7 +1,6 @@
 //! Regulators of the controlled coordinates `y = S q`, and the rest shapes they lead to.
 //!
-//! Two laws, with `S` the selection of the controlled coordinates (by default each
-//! segment's constant-curvature coordinate `q_{j,0}`) and `⁺` the bounded
+//! Two laws, with `S` the rows of the controlled outputs and `⁺` the bounded
 //! minimum-norm allocation of [`crate::allocation`]:
 //! - baseline: `u = (S A(q))⁺ [Kp (ȳ − y) − Kd ẏ]`, a PD that knows only the
 //!   controlled coordinates;
@@ -13,6 +12,15 @@
 //! coordinates rest where the *zero dynamics* put them, which is what [`hold`] solves
 //! directly. The baseline leaves `Kp (ȳ − y) = S (K q + G)`, a steady-state error
 //! [`closed_loop_rest`] predicts.
+//!
+//! The default outputs are each segment's *mean curvature* `κ̄_j = Σ_i q_{j,i}/(i+1)`,
+//! which is the constant-curvature coordinate `q_{j,0}` itself for a segment of
+//! degree 0. For higher degrees `q_{j,0}` alone is a poor thing to regulate: tendons
+//! and distributed moments act on a segment through its end angle `L_j κ̄_j`, so the
+//! generalised force they exert is `Sᵀ`-shaped only for `S` = mean curvature. With
+//! `q_{j,0}` the loop is not collocated and the PD excites the higher coefficients
+//! (measured on the degree-2 demo arm: both laws diverge within 0.05 s at gains that
+//! settle its constant-curvature twin). A coordinate can still be chosen by label.
 
 use crate::allocation::{allocate, Allocation};
 use crate::arm::{Arm, InputLimits};
@@ -38,11 +46,73 @@ impl Law {
     }
 }
 
-/// The indices in `q` of each segment's constant-curvature coordinate `q_{j,0}`.
-pub fn default_controlled(arm: &Arm) -> Vec<usize> {
+/// One controlled output, a row of `S`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Output {
+    /// A coordinate, by index in `q` (label `2_1`).
+    Coordinate(usize),
+    /// A segment's mean curvature `Σ_i q_{j,i}/(i+1)` (label `2_mean`; 0-based here).
+    MeanCurvature(usize),
+}
+
+impl Output {
+    /// The output's row of `S`.
+    pub fn row(&self, arm: &Arm) -> Vec<f64> {
+        let mut r = vec![0.0; arm.n_coords()];
+        match *self {
+            Output::Coordinate(i) => r[i] = 1.0,
+            Output::MeanCurvature(j) => {
+                let at = arm.coord_offset(j);
+                for i in 0..arm.segments[j].n_coords() {
+                    r[at + i] = 1.0 / (i + 1) as f64;
+                }
+            }
+        }
+        r
+    }
+    pub fn label(&self, arm: &Arm) -> String {
+        match *self {
+            Output::Coordinate(i) => arm.coordinate_labels()[i].clone(),
+            Output::MeanCurvature(j) => format!("{}_mean", j + 1),
+        }
+    }
+    /// Reads `2_0` (or `q2_0`) and `2_mean`.
+    pub fn parse(arm: &Arm, label: &str) -> Result<Output, String> {
+        let l = label.trim();
+        if let Some(j) = l.strip_suffix("_mean") {
+            return match j.parse::<usize>() {
+                Ok(j) if (1..=arm.segments.len()).contains(&j) => Ok(Output::MeanCurvature(j - 1)),
+                _ => Err(format!(
+                    "unknown output `{l}` (segments are numbered 1..={})",
+                    arm.segments.len()
+                )),
+            };
+        }
+        coordinate_index(arm, l).map(Output::Coordinate)
+    }
+}
+
+/// Each segment's mean curvature, written as the coordinate `q_{j,0}` for a
+/// constant-curvature segment (where the two are the same).
+pub fn default_outputs(arm: &Arm) -> Vec<Output> {
     (0..arm.segments.len())
-        .map(|j| arm.coord_offset(j))
+        .map(|j| {
+            if arm.segments[j].n_coords() == 1 {
+                Output::Coordinate(arm.coord_offset(j))
+            } else {
+                Output::MeanCurvature(j)
+            }
+        })
         .collect()
+}
+
+/// The rows of `S` for `outputs`.
+pub fn selection(arm: &Arm, outputs: &[Output]) -> Matrix {
+    outputs.iter().map(|o| o.row(arm)).collect()
+}
+
+fn dot(a: &[f64], b: &[f64]) -> f64 {
+    a.iter().zip(b).map(|(x, y)| x * y).sum()
 }
 
 /// The index in `q` of a coordinate label such as `2_0` (also `q2_0`).
@@ -63,8 +133,9 @@ pub fn coordinate_index(arm: &Arm, label: &str) -> Result<usize, String> {
 #[derive(Clone, Debug)]
 pub struct Regulator {
     pub law: Law,
-    /// Indices in `q` of the controlled coordinates (distinct).
-    pub controlled: Vec<usize>,
+    /// The controlled outputs (distinct) and their rows of `S`.
+    pub outputs: Vec<Output>,
+    pub s: Matrix,
     /// `ȳ`, one per controlled coordinate.
     pub target: Vec<f64>,
     /// Positive gains, one per controlled coordinate.
@@ -78,21 +149,18 @@ impl Regulator {
     pub fn new(
         arm: &Arm,
         law: Law,
-        controlled: Vec<usize>,
+        outputs: Vec<Output>,
         target: Vec<f64>,
         kp: Vec<f64>,
         kd: Vec<f64>,
     ) -> Result<Regulator, String> {
-        let h = controlled.len();
+        let h = outputs.len();
         if h == 0 {
-            return Err("no controlled coordinates".into());
+            return Err("no controlled outputs".into());
         }
-        for (i, c) in controlled.iter().enumerate() {
-            if controlled[..i].contains(c) {
-                return Err(format!(
-                    "coordinate {} is listed twice",
-                    arm.coordinate_labels()[*c]
-                ));
+        for (i, c) in outputs.iter().enumerate() {
+            if outputs[..i].contains(c) {
+                return Err(format!("output {} is listed twice", c.label(arm)));
             }
         }
         for (name, v) in [("target", &target), ("kp", &kp), ("kd", &kd)] {
@@ -116,7 +184,8 @@ impl Regulator {
         }
         Ok(Regulator {
             law,
-            controlled,
+            s: selection(arm, &outputs),
+            outputs,
             target,
             kp,
             kd,
@@ -140,22 +209,26 @@ impl Regulator {
         qd: &[f64],
         lambda: f64,
     ) -> Control {
+        let load: Vec<f64> = match self.law {
+            Law::Baseline => Vec::new(),
+            Law::Compensated => (0..q.len())
+                .map(|i| dot(&k[i], q) + lambda * g[i])
+                .collect(),
+        };
         let b: Vec<f64> = self
-            .controlled
+            .s
             .iter()
             .enumerate()
-            .map(|(c, &i)| {
-                let pd = self.kp[c] * (lambda * self.target[c] - q[i]) - self.kd[c] * qd[i];
+            .map(|(c, row)| {
+                let pd = self.kp[c] * (lambda * self.target[c] - dot(row, q))
+                    - self.kd[c] * dot(row, qd);
                 match self.law {
                     Law::Baseline => pd,
-                    Law::Compensated => {
-                        let kq: f64 = k[i].iter().zip(q).map(|(a, b)| a * b).sum();
-                        pd + kq + lambda * g[i]
-                    }
+                    Law::Compensated => pd + dot(row, &load),
                 }
             })
             .collect();
-        let m: Matrix = self.controlled.iter().map(|&i| a[i].clone()).collect();
+        let m = s_times(&self.s, a);
         let allocation = allocate(&m, &b, &self.limits);
         Control { b, allocation }
     }
@@ -232,6 +305,18 @@ fn bending_limit<'a>(arm: &'a Arm, opts: &'a Options) -> impl Fn(&[f64]) -> f64 
             1.0
         }
     }
+}
+
+/// `S A`, h×k.
+fn s_times(s: &Matrix, a: &Matrix) -> Matrix {
+    let k = a.first().map_or(0, |r| r.len());
+    s.iter()
+        .map(|row| {
+            (0..k)
+                .map(|c| (0..a.len()).map(|i| row[i] * a[i][c]).sum())
+                .collect()
+        })
+        .collect()
 }
 
 fn times(m: &Matrix, x: &[f64]) -> Vec<f64> {
@@ -328,106 +413,115 @@ pub fn closed_loop_rest(
     )
 }
 
-/// Holds the coordinates `held` (index, value) and solves for the other coordinates
-/// and the inputs that keep the arm there: the free rows of `K q + G = A u` with
-/// `u = (S A)⁺ S (K q + G)`, the rest shape of the zero dynamics under the
-/// compensated regulator. More inputs than held coordinates: the minimum-norm inputs.
+/// Holds the outputs at values (`S q = ȳ`) and solves for the rest of the shape and
+/// the inputs that keep the arm there: with `N` an orthonormal basis of the null space
+/// of `S`, `q = S⁺ ȳ + N z` and `Nᵀ (K q + G − A u) = 0` for `u = (S A)⁺ S (K q + G)`,
+/// the rest shape of the zero dynamics under the compensated regulator. More inputs
+/// than outputs: the minimum-norm inputs.
 pub fn hold(
     model: &dyn StaticModel,
-    held: &[(usize, f64)],
+    outputs: &[Output],
+    values: &[f64],
     opts: &Options,
 ) -> Result<Rest, ControlError> {
     let arm = model.arm();
-    let labels = arm.coordinate_labels();
     let n = arm.n_coords();
     let k = model.stiffness();
+    let names: Vec<String> = outputs.iter().map(|o| o.label(arm)).collect();
     if arm.n_inputs() == 0 {
         return Err(ControlError::Unactuated(
             "the arm has no actuators: no shape can be held".into(),
         ));
     }
-    if held.len() > arm.n_inputs() {
+    if outputs.len() > arm.n_inputs() {
         return Err(ControlError::Unactuated(format!(
-            "{} held coordinates need at least as many inputs; the arm has {}",
-            held.len(),
+            "{} held outputs need at least as many inputs; the arm has {}",
+            outputs.len(),
             arm.n_inputs()
         )));
     }
-    let rows: Vec<usize> = held.iter().map(|(i, _)| *i).collect();
-    let free: Vec<usize> = (0..n).filter(|i| !rows.contains(i)).collect();
-    let assemble = |x: &[f64], lambda: f64| -> Vec<f64> {
-        let mut q = vec![0.0; n];
-        for (c, &i) in free.iter().enumerate() {
-            q[i] = x[c];
-        }
-        for (i, v) in held {
-            q[*i] = lambda * v;
-        }
-        q
+    let s = selection(arm, outputs);
+    let basis = crate::linalg::null_space(&s, n);
+    if basis.len() + outputs.len() != n {
+        return Err(ControlError::Unactuated(format!(
+            "the held outputs {} are not independent",
+            names.join(", ")
+        )));
+    }
+    // A particular solution S⁺ ȳ = Sᵀ (S Sᵀ)⁻¹ ȳ.
+    let sst: Matrix = s
+        .iter()
+        .map(|a| s.iter().map(|b| dot(a, b)).collect())
+        .collect();
+    let w = crate::linalg::solve(&sst, values).ok_or_else(|| {
+        ControlError::Unactuated(format!(
+            "the held outputs {} are not independent",
+            names.join(", ")
+        ))
+    })?;
+    let particular: Vec<f64> = (0..n)
+        .map(|i| (0..s.len()).map(|r| s[r][i] * w[r]).sum())
+        .collect();
+    let assemble = |z: &[f64], lambda: f64| -> Vec<f64> {
+        (0..n)
+            .map(|i| {
+                lambda * particular[i] + basis.iter().zip(z).map(|(b, z)| b[i] * z).sum::<f64>()
+            })
+            .collect()
     };
-    // The held rows of A must be independent where the solve starts and ends.
+    // S A must have full row rank where the solve starts and ends.
     let independent = |q: &[f64]| -> Result<(), ControlError> {
         let t = model.at(q).map_err(StaticsError::OutOfRange)?;
-        let m: Matrix = rows.iter().map(|&i| t.a[i].clone()).collect();
+        let m = s_times(&s, &t.a);
         let gram: Matrix = m
             .iter()
-            .map(|a| {
-                m.iter()
-                    .map(|b| a.iter().zip(b).map(|(x, y)| x * y).sum())
-                    .collect()
-            })
+            .map(|a| m.iter().map(|b| dot(a, b)).collect())
             .collect();
         let eig = symmetric_eigenvalues(&gram);
         let top = eig.last().copied().unwrap_or(0.0);
         if !(eig[0] > 1e-20 * top.max(f64::MIN_POSITIVE)) || top == 0.0 {
-            let names: Vec<&str> = rows.iter().map(|&i| labels[i].as_str()).collect();
             return Err(ControlError::Unactuated(format!(
-                "the inputs cannot hold {} independently (the rows of A for them are {})",
+                "the inputs cannot hold {} independently (S A {})",
                 names.join(", "),
                 if top == 0.0 {
-                    "zero: no input acts on them"
+                    "is zero: no input acts on them"
                 } else {
-                    "dependent"
+                    "is rank-deficient"
                 }
             )));
         }
         Ok(())
     };
-    independent(&assemble(&vec![0.0; free.len()], 1.0))?;
+    independent(&assemble(&vec![0.0; basis.len()], 1.0))?;
     let alloc_at = |q: &[f64], g: &[f64], a: &Matrix, lambda: f64| -> (Vec<f64>, Allocation) {
         let kq = times(&k, q);
-        let b: Vec<f64> = rows.iter().map(|&i| kq[i] + lambda * g[i]).collect();
-        let m: Matrix = rows.iter().map(|&i| a[i].clone()).collect();
-        (b.clone(), allocate(&m, &b, &arm.input_limits))
+        let load: Vec<f64> = (0..n).map(|i| kq[i] + lambda * g[i]).collect();
+        let b: Vec<f64> = s.iter().map(|row| dot(row, &load)).collect();
+        let al = allocate(&s_times(&s, a), &b, &arm.input_limits);
+        (b, al)
     };
-    let mut residual = |x: &[f64], lambda: f64| -> Result<Residual, StaticsError> {
-        let q = assemble(x, lambda);
+    let mut residual = |z: &[f64], lambda: f64| -> Result<Residual, StaticsError> {
+        let q = assemble(z, lambda);
         let t = model.at(&q).map_err(StaticsError::OutOfRange)?;
         let (_, al) = alloc_at(&q, &t.g, &t.a, lambda);
         let full = static_residual(&times(&k, &q), &t.g, &times(&t.a, &al.u), lambda);
         Ok(Residual {
-            r: free.iter().map(|&i| full.r[i]).collect(),
+            r: basis.iter().map(|b| dot(b, &full.r)).collect(),
             scale: full.scale,
         })
     };
     let full_limit = bending_limit(arm, opts);
-    let limit = |dx: &[f64]| {
-        let mut dq = vec![0.0; n];
-        for (c, &i) in free.iter().enumerate() {
-            dq[i] = dx[c];
-        }
-        full_limit(&dq)
-    };
-    let root = continue_root(&mut residual, &limit, vec![0.0; free.len()], opts)?;
+    let limit = |dz: &[f64]| full_limit(&assemble(dz, 0.0));
+    let root = continue_root(&mut residual, &limit, vec![0.0; basis.len()], opts)?;
     let q = assemble(&root.x, 1.0);
     independent(&q)?;
     let t = model.at(&q).map_err(StaticsError::OutOfRange)?;
     let (b, al) = alloc_at(&q, &t.g, &t.a, 1.0);
     if !al.met(&b, 1e-9) {
-        let parts: Vec<String> = rows
+        let parts: Vec<String> = names
             .iter()
             .zip(&al.shortfall)
-            .map(|(&i, s)| format!("{}: {s:.3e}", labels[i]))
+            .map(|(l, s)| format!("{l}: {s:.3e}"))
             .collect();
         let limited: Vec<String> = (0..arm.n_inputs())
             .filter(|i| al.at_limit[*i])
@@ -454,8 +548,8 @@ pub fn hold(
 #[derive(Clone, Debug)]
 pub struct TipSolution {
     pub rest: Rest,
-    /// The held values of the controlled coordinates.
-    pub held: Vec<(usize, f64)>,
+    /// The held values of the outputs.
+    pub held: Vec<f64>,
     /// Distance of the reached tip from the target [m].
     pub miss: f64,
 }
@@ -468,15 +562,13 @@ pub struct TipSolution {
 /// change of them along the way.
 pub fn reach_tip(
     model: &dyn StaticModel,
-    controlled: &[usize],
+    outputs: &[Output],
     tip: [f64; 2],
     opts: &Options,
 ) -> Result<TipSolution, ControlError> {
-    let h = controlled.len();
-    let solve_at = |y: &[f64]| -> Result<Rest, ControlError> {
-        let held: Vec<(usize, f64)> = controlled.iter().copied().zip(y.iter().copied()).collect();
-        hold(model, &held, opts)
-    };
+    let h = outputs.len();
+    let s = selection(model.arm(), outputs);
+    let solve_at = |y: &[f64]| -> Result<Rest, ControlError> { hold(model, outputs, y, opts) };
     let tip_of = |r: &Rest| [r.tip_pose[0], r.tip_pose[1]];
     let mut y = vec![0.0; h];
     let mut rest = solve_at(&y)?;
@@ -517,10 +609,9 @@ pub fn reach_tip(
             // least-squares step when h = 1).
             let dy = min_norm_step(&jac, &e);
             let limit = bending_limit(model.arm(), opts);
-            let mut full = vec![0.0; model.arm().n_coords()];
-            for (c, &i) in controlled.iter().enumerate() {
-                full[i] = dy[c];
-            }
+            let full: Vec<f64> = (0..model.arm().n_coords())
+                .map(|i| (0..h).map(|c| s[c][i] * dy[c]).sum())
+                .collect();
             let mut alpha = limit(&full);
             let err = e[0].hypot(e[1]);
             let mut moved = false;
@@ -546,7 +637,7 @@ pub fn reach_tip(
     let miss = (tip[0] - p[0]).hypot(tip[1] - p[1]);
     if miss > tolerance.max(1e-9) * 10.0 {
         return Err(ControlError::Unreachable(format!(
-            "the tip cannot be put at ({}, {}) by holding {} coordinate{}: the nearest found \
+            "the tip cannot be put at ({}, {}) by holding {} output{}: the nearest found \
              is ({:.6}, {:.6}), {:.3e} m away",
             tip[0],
             tip[1],
@@ -559,7 +650,7 @@ pub fn reach_tip(
     }
     Ok(TipSolution {
         rest,
-        held: controlled.iter().copied().zip(y).collect(),
+        held: y,
         miss,
     })
 }
@@ -623,7 +714,7 @@ mod tests {
         Regulator::new(
             arm,
             law,
-            default_controlled(arm),
+            default_outputs(arm),
             vec![4.0, -3.0],
             vec![0.004, 0.004],
             vec![0.001, 0.001],
@@ -673,9 +764,10 @@ mod tests {
         // At rest Kp (ȳ − y) = S (K q + G): the error is the controlled load over Kp.
         let t = m.at(&rest.q).unwrap();
         let k = m.stiffness();
-        for (c, &i) in reg.controlled.iter().enumerate() {
-            let load: f64 = times(&k, &rest.q)[i] + t.g[i];
-            let error = reg.target[c] - rest.q[i];
+        let kq = times(&k, &rest.q);
+        for (c, row) in reg.s.iter().enumerate() {
+            let load: f64 = (0..kq.len()).map(|i| row[i] * (kq[i] + t.g[i])).sum();
+            let error = reg.target[c] - dot(row, &rest.q);
             assert!(error.abs() > 0.1, "the baseline should miss, error {error}");
             assert!((reg.kp[c] * error - load).abs() < 1e-9 * load.abs().max(1e-6));
         }
@@ -689,7 +781,12 @@ mod tests {
         let opts = Options::default();
         // Three held coordinates, four inputs, but the tendons act on each segment's
         // two coefficients in a fixed ratio: the rows are dependent.
-        let e = hold(&m, &[(0, 1.0), (1, 0.0), (2, 1.0)], &opts).unwrap_err();
+        let three = [
+            Output::Coordinate(0),
+            Output::Coordinate(1),
+            Output::Coordinate(2),
+        ];
+        let e = hold(&m, &three, &[1.0, 0.0, 1.0], &opts).unwrap_err();
         assert!(matches!(e, ControlError::Unactuated(_)), "{e}");
         // A limit too low for the shape: the shortfall is reported.
         let limited = ARM.replace(
@@ -699,7 +796,7 @@ mod tests {
         let arm = parse_arm_str(&limited, "pair.toml").unwrap();
         let model = derive_statics(&arm);
         let m = Derived(Evaluator::new(&model));
-        match hold(&m, &[(0, 10.0), (2, -8.0)], &opts).unwrap_err() {
+        match hold(&m, &default_outputs(&arm), &[10.0, -8.0], &opts).unwrap_err() {
             ControlError::Infeasible { message, shortfall } => {
                 assert!(norm(&shortfall) > 1e-4, "{shortfall:?}");
                 assert!(
@@ -717,7 +814,7 @@ mod tests {
         let model = derive_statics(&arm);
         let m = Derived(Evaluator::new(&model));
         let opts = Options::default();
-        let c = default_controlled(&arm);
+        let c = default_outputs(&arm);
         let s = reach_tip(&m, &c, [0.12, 0.09], &opts).unwrap();
         assert!(s.miss < 1e-9, "{}", s.miss);
         assert!((s.rest.tip_pose[0] - 0.12).abs() < 1e-9);

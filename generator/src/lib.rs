@@ -30,4 +30,5 @@ pub mod outdir;
 pub mod reference;
 pub mod segment_integrals;
 pub mod statics;
+pub mod stiff;
 pub mod terms;

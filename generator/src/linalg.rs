@@ -124,3 +124,43 @@ mod tests {
         );
     }
 }
+
+/// An orthonormal basis of the null space of the h×n matrix `s` of full row rank, as
+/// n−h columns (returned as rows: `basis[c]` is the c-th vector). Modified
+/// Gram–Schmidt, twice, over the rows of `s` and then the unit vectors.
+pub fn null_space(s: &Matrix, n: usize) -> Vec<Vec<f64>> {
+    let mut basis: Vec<Vec<f64>> = Vec::new();
+    let mut range: Vec<Vec<f64>> = Vec::new();
+    let reduce = |v: &mut Vec<f64>, against: &[Vec<f64>]| {
+        for _ in 0..2 {
+            for b in against {
+                let d: f64 = v.iter().zip(b).map(|(x, y)| x * y).sum();
+                for (x, y) in v.iter_mut().zip(b) {
+                    *x -= d * y;
+                }
+            }
+        }
+    };
+    for row in s {
+        let mut v = row.clone();
+        reduce(&mut v, &range);
+        let l = norm(&v);
+        if l > 1e-12 * norm(row) {
+            range.push(v.iter().map(|x| x / l).collect());
+        }
+    }
+    for e in 0..n {
+        if basis.len() + range.len() == n {
+            break;
+        }
+        let mut v = vec![0.0; n];
+        v[e] = 1.0;
+        reduce(&mut v, &range);
+        reduce(&mut v, &basis);
+        let l = norm(&v);
+        if l > 1e-8 {
+            basis.push(v.iter().map(|x| x / l).collect());
+        }
+    }
+    basis
+}

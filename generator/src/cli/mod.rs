@@ -228,15 +228,15 @@ pub(crate) fn parse_inputs(arm: &crate::arm::Arm, text: &str) -> Result<Vec<f64>
     Ok(u)
 }
 
-/// Parses a list of coordinate labels such as `--control "1_0,2_0"` into indices in `q`.
-pub(crate) fn parse_labels(
+/// Parses a list of outputs such as `--control "1_0,2_mean"`.
+pub(crate) fn parse_outputs(
     option: &str,
     arm: &crate::arm::Arm,
     text: &str,
-) -> Result<Vec<usize>, CliError> {
+) -> Result<Vec<crate::control::Output>, CliError> {
     let mut out = Vec::new();
     for part in text.split(',') {
-        let i = crate::control::coordinate_index(arm, part)
+        let i = crate::control::Output::parse(arm, part)
             .map_err(|e| CliError::Input(format!("--{option}: {e}")))?;
         if out.contains(&i) {
             return Err(CliError::Input(format!(
@@ -249,13 +249,13 @@ pub(crate) fn parse_labels(
     Ok(out)
 }
 
-/// Parses `label=value` pairs such as `--hold "1_0=4,2_0=-3"`.
+/// Parses `output=value` pairs such as `--hold "1_0=4,2_mean=-3"`.
 pub(crate) fn parse_assignments(
     option: &str,
     arm: &crate::arm::Arm,
     text: &str,
-) -> Result<Vec<(usize, f64)>, CliError> {
-    let mut out: Vec<(usize, f64)> = Vec::new();
+) -> Result<Vec<(crate::control::Output, f64)>, CliError> {
+    let mut out: Vec<(crate::control::Output, f64)> = Vec::new();
     for part in text.split(',') {
         let Some((label, value)) = part.split_once('=') else {
             return Err(CliError::Input(format!(
@@ -263,7 +263,7 @@ pub(crate) fn parse_assignments(
                 part.trim()
             )));
         };
-        let i = crate::control::coordinate_index(arm, label)
+        let i = crate::control::Output::parse(arm, label)
             .map_err(|e| CliError::Input(format!("--{option}: {e}")))?;
         let v: f64 = value.trim().parse().map_err(|_| {
             CliError::Input(format!(

@@ -2,7 +2,7 @@
 
 use super::eval::load_arm;
 use super::{parse_inputs, progress, CliError};
-use crate::control::{hold, reach_tip, ControlError, Rest};
+use crate::control::{hold, reach_tip, ControlError, Output, Rest};
 use crate::derive::derive_statics;
 use crate::evaluate::Evaluator;
 use crate::reference::{Kinematics, Reference};
@@ -41,14 +41,16 @@ pub struct StaticsArgs {
     /// Inputs u, one per column of A (default zero: gravity alone).
     #[arg(long, allow_hyphen_values = true, conflicts_with_all = ["hold", "tip"])]
     u: Option<String>,
-    /// Hold coordinates at values, "1_0=4,2_0=-3" (labels as in simulate's CSV), and
-    /// solve for the rest of the shape and the inputs.
+    /// Hold outputs at values, "1_0=4,2_mean=-3" (coordinate labels as in simulate's
+    /// CSV, or a segment's mean curvature j_mean), and solve for the rest of the shape
+    /// and the inputs.
     #[arg(long, allow_hyphen_values = true, conflicts_with = "tip")]
     hold: Option<String>,
     /// Put the tip at "x,y" [m] by holding the controlled coordinates.
     #[arg(long, allow_hyphen_values = true)]
     tip: Option<String>,
-    /// The coordinates --tip holds, "1_0,2_0" (default: each segment's constant curvature).
+    /// The outputs --tip holds, "1_0,2_mean" (default: each segment's mean curvature,
+    /// its constant curvature 1_0 for a segment of degree 0).
     #[arg(long, requires = "tip")]
     control: Option<String>,
     /// Expansion order N, overriding the arm file.
@@ -100,8 +102,8 @@ pub fn run(args: &StaticsArgs) -> Result<(), CliError> {
         (None, Some(t)) => {
             let p = super::parse_vector("tip", t, 2)?;
             let controlled = match &args.control {
-                Some(c) => super::parse_labels("control", &arm, c)?,
-                None => crate::control::default_controlled(&arm),
+                Some(c) => super::parse_outputs("control", &arm, c)?,
+                None => crate::control::default_outputs(&arm),
             };
             Goal::Tip([p[0], p[1]], controlled)
         }
@@ -155,8 +157,8 @@ pub fn run(args: &StaticsArgs) -> Result<(), CliError> {
 /// What the user asked for.
 enum Goal {
     Inputs(Vec<f64>),
-    Hold(Vec<(usize, f64)>),
-    Tip([f64; 2], Vec<usize>),
+    Hold(Vec<(Output, f64)>),
+    Tip([f64; 2], Vec<Output>),
 }
 
 fn solve(model: &dyn StaticModel, goal: &Goal, opts: &Options) -> Result<StaticsOut, CliError> {
@@ -167,11 +169,15 @@ fn solve(model: &dyn StaticModel, goal: &Goal, opts: &Options) -> Result<Statics
         ControlError::Statics(other) => CliError::Failed(other.to_string()),
         other => CliError::Input(other.to_string()),
     };
-    let from_rest = |mode, held: &[(usize, f64)], r: Rest| StaticsOut {
+    let from_rest = |mode, outputs: &[Output], values: &[f64], r: Rest| StaticsOut {
         arm: String::new(),
         kinematics: String::new(),
         mode,
-        held: held.iter().map(|(i, v)| (labels[*i].clone(), *v)).collect(),
+        held: outputs
+            .iter()
+            .zip(values)
+            .map(|(o, v)| (o.label(arm), *v))
+            .collect(),
         at_limit: r.at_limit,
         labels: labels.clone(),
         q: r.q,
@@ -206,12 +212,13 @@ fn solve(model: &dyn StaticModel, goal: &Goal, opts: &Options) -> Result<Statics
             })
         }
         Goal::Hold(held) => {
-            let r = hold(model, held, opts).map_err(failed)?;
-            Ok(from_rest("hold", held, r))
+            let (outputs, values): (Vec<Output>, Vec<f64>) = held.iter().copied().unzip();
+            let r = hold(model, &outputs, &values, opts).map_err(failed)?;
+            Ok(from_rest("hold", &outputs, &values, r))
         }
         Goal::Tip(p, controlled) => {
             let s = reach_tip(model, controlled, *p, opts).map_err(failed)?;
-            Ok(from_rest("tip", &s.held, s.rest))
+            Ok(from_rest("tip", controlled, &s.held, s.rest))
         }
     }
 }
