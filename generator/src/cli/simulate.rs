@@ -22,9 +22,9 @@ use std::time::Instant;
 /// Integrate the arm's dynamics from a start state, under constant inputs or in
 /// closed loop with a regulator.
 ///
-/// By default a method for stiff systems (extrapolated linearly implicit Euler with
-/// the Jacobian of the forward dynamics); --method explicit uses adaptive
-/// Dormand–Prince 5(4). Both control the error per step on the model derived at the
+/// A damped or regulated arm is integrated by a method for stiff systems
+/// (extrapolated linearly implicit Euler with the Jacobian of the forward dynamics),
+/// an undamped one by adaptive Dormand–Prince 5(4); --method chooses. Both control the error per step on the model derived at the
 /// file's expansion order (or --order). Writes trajectory.csv (time, q, q̇, tip pose,
 /// energies, inputs; one row per output time) and trajectory.svg into the output
 /// folder, and prints a summary. For an undamped arm with zero inputs it also prints
@@ -71,7 +71,7 @@ pub struct SimulateArgs {
     #[arg(long, requires = "controller")]
     control: Option<String>,
     /// Integration method.
-    #[arg(long, value_enum, default_value_t = Method::Stiff)]
+    #[arg(long, value_enum, default_value_t = Method::Auto)]
     method: Method,
     /// Print the summary as JSON (one object per run).
     #[arg(long)]
@@ -125,6 +125,9 @@ enum ControllerChoice {
 /// How `simulate` integrates.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
 pub enum Method {
+    /// Stiff when the arm is damped or regulated (its fast modes then decay fast and
+    /// set an explicit method's step), explicit otherwise.
+    Auto,
     /// Extrapolated linearly implicit Euler, for stiff systems.
     Stiff,
     /// Dormand–Prince 5(4).
@@ -192,7 +195,9 @@ fn simulate(
         bar.set_message(format!("t = {t:.4} s"));
     };
     let result: Result<(Samples, Stats), IntegrateError<String>> = match method {
-        Method::Stiff => integrate_stiff(rhs, y0, 0.0, duration, times, opts, on_step),
+        Method::Stiff | Method::Auto => {
+            integrate_stiff(rhs, y0, 0.0, duration, times, opts, on_step)
+        }
         Method::Explicit => integrate(rhs, y0, 0.0, duration, times, opts, on_step),
     };
     bar.finish_and_clear();
@@ -418,6 +423,12 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
         None => vec![0.0; k],
     };
     let regs = regulators(args, &arm)?;
+    let damped = arm.segments.iter().any(|seg| !seg.damping.is_zero());
+    let method = match args.method {
+        Method::Auto if damped || !regs.is_empty() => Method::Stiff,
+        Method::Auto => Method::Explicit,
+        m => m,
+    };
     let duration = positive("duration", args.duration)?;
     let interval = positive(
         "output-interval",
@@ -477,7 +488,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
             duration,
             &times,
             &opts,
-            args.method,
+            method,
             "simulating",
         )?;
         let csv_path = out_dir.join("trajectory.csv");
@@ -486,7 +497,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
             .map_err(CliError::Failed)?;
         progress::wrote(&csv_path);
         progress::wrote(&svg_path);
-        let text = open_loop_summary(&arm, &run, &u, duration, args.method, &csv_path, &svg_path);
+        let text = open_loop_summary(&arm, &run, &u, duration, method, &csv_path, &svg_path);
         return if args.json {
             let last = run.rows.last().expect("the end time is an output");
             let value = serde_json::json!({
@@ -511,7 +522,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
             duration,
             &times,
             &opts,
-            args.method,
+            method,
             &label,
         )?;
         let summary = summarise(reg, &arm, &run, &derived)?;
@@ -573,8 +584,8 @@ fn open_loop_summary(
         stats.rejected,
         stats.evaluations,
         match method {
-            Method::Stiff => "stiff",
             Method::Explicit => "explicit",
+            _ => "stiff",
         },
         run.seconds
     );
