@@ -19,6 +19,9 @@ pub struct Residual {
     pub scale: f64,
 }
 
+/// `R(x, λ)`: the residual at `x` under load fraction λ.
+pub type ResidualFn<'a> = dyn FnMut(&[f64], f64) -> Result<Residual, StaticsError> + 'a;
+
 /// A root and how it was reached.
 pub struct Root {
     pub x: Vec<f64>,
@@ -32,7 +35,7 @@ pub struct Root {
 /// `step_limit(dx)` is the largest factor ≤ 1 of a Newton step `dx` to take (it keeps
 /// the bending change per iteration bounded).
 pub fn continue_root(
-    residual: &mut dyn FnMut(&[f64], f64) -> Result<Residual, StaticsError>,
+    residual: &mut ResidualFn,
     step_limit: &dyn Fn(&[f64]) -> f64,
     x0: Vec<f64>,
     opts: &Options,
@@ -94,7 +97,7 @@ fn not_converged(load: f64, residual: f64, iterations: usize) -> StaticsError {
 
 /// Damped Newton at one λ; the root and its relative residual, or the last residual.
 fn newton(
-    residual: &mut dyn FnMut(&[f64], f64) -> Result<Residual, StaticsError>,
+    residual: &mut ResidualFn,
     step_limit: &dyn Fn(&[f64]) -> f64,
     mut x: Vec<f64>,
     lambda: f64,
@@ -144,11 +147,7 @@ fn newton(
 }
 
 /// `∂R/∂x` by central differences, step `1e-6 (1 + |x_i|)`.
-fn jacobian(
-    residual: &mut dyn FnMut(&[f64], f64) -> Result<Residual, StaticsError>,
-    x: &[f64],
-    lambda: f64,
-) -> Result<Matrix, StaticsError> {
+fn jacobian(residual: &mut ResidualFn, x: &[f64], lambda: f64) -> Result<Matrix, StaticsError> {
     let m = x.len();
     let mut jac = vec![vec![0.0; m]; m];
     for c in 0..m {

@@ -87,44 +87,6 @@ pub fn norm(v: &[f64]) -> f64 {
     v.iter().map(|x| x * x).sum::<f64>().sqrt()
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn solves_with_pivoting_and_refuses_singular() {
-        let a = vec![vec![0.0, 2.0], vec![3.0, 1.0]];
-        let x = solve(&a, &[4.0, 5.0]).unwrap();
-        assert!(
-            (x[0] - 1.0).abs() < 1e-15 && (x[1] - 2.0).abs() < 1e-15,
-            "{x:?}"
-        );
-        assert_eq!(
-            solve(&vec![vec![1.0, 2.0], vec![2.0, 4.0]], &[1.0, 2.0]),
-            None
-        );
-    }
-
-    #[test]
-    fn eigenvalues_of_a_known_matrix() {
-        // [[2, 1], [1, 2]] has eigenvalues 1 and 3; an indefinite one gives a negative.
-        let ev = symmetric_eigenvalues(&vec![vec![2.0, 1.0], vec![1.0, 2.0]]);
-        assert!(
-            (ev[0] - 1.0).abs() < 1e-14 && (ev[1] - 3.0).abs() < 1e-14,
-            "{ev:?}"
-        );
-        let ev = symmetric_eigenvalues(&vec![
-            vec![1.0, 2.0, 0.0],
-            vec![2.0, 1.0, 0.0],
-            vec![0.0, 0.0, 5.0],
-        ]);
-        assert!(
-            (ev[0] + 1.0).abs() < 1e-14 && (ev[2] - 5.0).abs() < 1e-14,
-            "{ev:?}"
-        );
-    }
-}
-
 /// An orthonormal basis of the null space of the h×n matrix `s` of full row rank, as
 /// n−h columns (returned as rows: `basis[c]` is the c-th vector). Modified
 /// Gram–Schmidt, twice, over the rows of `s` and then the unit vectors.
@@ -163,4 +125,58 @@ pub fn null_space(s: &Matrix, n: usize) -> Vec<Vec<f64>> {
         }
     }
     basis
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn solves_with_pivoting_and_refuses_singular() {
+        let a = vec![vec![0.0, 2.0], vec![3.0, 1.0]];
+        let x = solve(&a, &[4.0, 5.0]).unwrap();
+        assert!(
+            (x[0] - 1.0).abs() < 1e-15 && (x[1] - 2.0).abs() < 1e-15,
+            "{x:?}"
+        );
+        assert_eq!(
+            solve(&vec![vec![1.0, 2.0], vec![2.0, 4.0]], &[1.0, 2.0]),
+            None
+        );
+    }
+
+    #[test]
+    fn eigenvalues_of_a_known_matrix() {
+        // [[2, 1], [1, 2]] has eigenvalues 1 and 3; an indefinite one gives a negative.
+        let ev = symmetric_eigenvalues(&vec![vec![2.0, 1.0], vec![1.0, 2.0]]);
+        assert!(
+            (ev[0] - 1.0).abs() < 1e-14 && (ev[1] - 3.0).abs() < 1e-14,
+            "{ev:?}"
+        );
+        let ev = symmetric_eigenvalues(&vec![
+            vec![1.0, 2.0, 0.0],
+            vec![2.0, 1.0, 0.0],
+            vec![0.0, 0.0, 5.0],
+        ]);
+        assert!(
+            (ev[0] + 1.0).abs() < 1e-14 && (ev[2] - 5.0).abs() < 1e-14,
+            "{ev:?}"
+        );
+    }
+
+    #[test]
+    fn the_null_space_is_orthonormal_and_orthogonal_to_the_rows() {
+        let s = vec![vec![1.0, 0.5, 1.0 / 3.0, 0.0], vec![0.0, 0.0, 0.0, 1.0]];
+        let b = null_space(&s, 4);
+        assert_eq!(b.len(), 2);
+        for (i, v) in b.iter().enumerate() {
+            for row in &s {
+                assert!(row.iter().zip(v).map(|(a, b)| a * b).sum::<f64>().abs() < 1e-15);
+            }
+            for (j, w) in b.iter().enumerate() {
+                let d: f64 = v.iter().zip(w).map(|(a, b)| a * b).sum();
+                assert!((d - if i == j { 1.0 } else { 0.0 }).abs() < 1e-15);
+            }
+        }
+    }
 }

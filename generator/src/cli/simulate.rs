@@ -168,16 +168,23 @@ struct Run {
 }
 
 /// Integrates one run and evaluates its rows.
-fn simulate(
-    ev: &Evaluator,
-    drive: &Drive,
-    y0: &[f64],
+/// What every run of one command shares: start, span, output times, tolerances.
+struct Span<'a> {
+    y0: &'a [f64],
     duration: f64,
-    times: &[f64],
-    opts: &Options,
+    times: &'a [f64],
+    opts: &'a Options,
     method: Method,
-    label: &str,
-) -> Result<Run, CliError> {
+}
+
+fn simulate(ev: &Evaluator, drive: &Drive, span: &Span, label: &str) -> Result<Run, CliError> {
+    let Span {
+        y0,
+        duration,
+        times,
+        opts,
+        method,
+    } = *span;
     let n = y0.len() / 2;
     let rhs = |_t: f64, y: &[f64], dy: &mut [f64]| -> Result<(), String> {
         let (q, qd) = y.split_at(n);
@@ -477,20 +484,18 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     }
     times.dedup();
     let y0: Vec<f64> = q0.iter().chain(&qd0).copied().collect();
+    let span = Span {
+        y0: &y0,
+        duration,
+        times: &times,
+        opts: &opts,
+        method,
+    };
     let names = coordinate_names(&arm);
     let svg_path = out_dir.join("trajectory.svg");
 
     if regs.is_empty() {
-        let run = simulate(
-            &ev,
-            &Drive::Constant(u.clone()),
-            &y0,
-            duration,
-            &times,
-            &opts,
-            method,
-            "simulating",
-        )?;
+        let run = simulate(&ev, &Drive::Constant(u.clone()), &span, "simulating")?;
         let csv_path = out_dir.join("trajectory.csv");
         super::write_file(&csv_path, &csv(&names, k, &run.rows))?;
         write_plot(&svg_path, &arm, &names, &run.rows, &ev, args.snapshots)
@@ -515,16 +520,7 @@ pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
     let mut runs = Vec::with_capacity(regs.len());
     for reg in &regs {
         let label = format!("{} regulator", reg.law.name());
-        let run = simulate(
-            &ev,
-            &Drive::Regulated(reg),
-            &y0,
-            duration,
-            &times,
-            &opts,
-            method,
-            &label,
-        )?;
+        let run = simulate(&ev, &Drive::Regulated(reg), &span, &label)?;
         let summary = summarise(reg, &arm, &run, &derived)?;
         runs.push((run, summary));
     }
