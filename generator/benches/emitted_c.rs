@@ -6,7 +6,7 @@
 //! Cortex-M4F flash size when arm-none-eabi-gcc is installed, and `generate` end to end.
 
 use arcwright::arm::parse_arm_file;
-use arcwright::derive::derive;
+use arcwright::derive::derive_statics;
 use arcwright::emit::{emit, plan::Plan, Options, Precision};
 use arcwright::evaluate::Evaluator;
 use arcwright::outdir::write_tree;
@@ -68,7 +68,7 @@ fn main() {
     let (arm, _) = parse_arm_file(&arm_path).unwrap();
 
     let t = Instant::now();
-    let model = derive(&arm);
+    let model = derive_statics(&arm);
     let files = emit(&model, &text, Options::default()).unwrap();
     let out = root.join("target/bench-emitted/reach_arm");
     write_tree(&out, &files, &|_| {}).unwrap();
@@ -77,7 +77,7 @@ fn main() {
         t.elapsed()
     );
 
-    let plan = Plan::new(&model, true);
+    let plan = Plan::new(&model, true).unwrap();
     println!(
         "kernel table: {} rows, {} non-zeros",
         plan.table.rows.len(),
@@ -95,7 +95,7 @@ fn main() {
     }
     println!("ops {:>17}: {}", "kinetic_energy", plan.kinetic_energy);
     println!("ops {:>17}: {}", "forward_dynamics", plan.dynamics);
-    let plain = Plan::new(&model, false);
+    let plain = Plan::new(&model, false).unwrap();
     println!(
         "without the kernel table: inertia {}, terms {}",
         plain.inertia.ops, plain.terms.ops

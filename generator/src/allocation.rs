@@ -19,7 +19,7 @@
 //! The emitted `regulate` functions follow this algorithm step for step.
 
 use crate::arm::InputLimits;
-use crate::linalg::{norm, solve};
+use crate::linalg::norm;
 use crate::terms::Matrix;
 
 /// Most active-set iterations: each fixes or frees one input; the cap is a guard.
@@ -29,6 +29,49 @@ pub fn max_iterations(k: usize) -> usize {
 
 /// Relative regularisation of the normal equations.
 pub const REGULARISATION: f64 = 1e-12;
+
+/// Smallest Cholesky pivot of the free columns' Gram matrix, relative to its largest
+/// diagonal entry, for which the minimum-norm polish is used.
+pub const POLISH_PIVOT: f64 = 1e-10;
+
+/// Solves the symmetric `a x = b` by Cholesky, `None` when a pivot is at most
+/// `floor` times the largest diagonal entry (or not finite). Written as the emitted
+/// regulators write it, loop for loop.
+pub fn cholesky_solve_checked(a: &Matrix, b: &[f64], floor: f64) -> Option<Vec<f64>> {
+    let h = b.len();
+    let top = (0..h).map(|i| a[i][i]).fold(0.0f64, f64::max);
+    let mut l = vec![vec![0.0; h]; h];
+    for i in 0..h {
+        for j in 0..=i {
+            let mut s = a[i][j];
+            for c in 0..j {
+                s -= l[i][c] * l[j][c];
+            }
+            if i == j {
+                if !(s > floor * top) {
+                    return None;
+                }
+                l[i][i] = s.sqrt();
+            } else {
+                l[i][j] = s / l[j][j];
+            }
+        }
+    }
+    let mut x = b.to_vec();
+    for i in 0..h {
+        for c in 0..i {
+            x[i] -= l[i][c] * x[c];
+        }
+        x[i] /= l[i][i];
+    }
+    for i in (0..h).rev() {
+        for c in i + 1..h {
+            x[i] -= l[c][i] * x[c];
+        }
+        x[i] /= l[i][i];
+    }
+    Some(x)
+}
 
 /// The chosen inputs and what they leave undone.
 #[derive(Clone, Debug, PartialEq)]
@@ -159,7 +202,8 @@ fn free_optimum(hess: &Matrix, f: &[f64], u: &[f64], fixed: &[bool]) -> Option<V
                 .sum::<f64>()
         })
         .collect();
-    let x = solve(&a, &rhs)?;
+    // H_FF is symmetric positive definite (μ > 0): Cholesky, as the emitted code.
+    let x = cholesky_solve_checked(&a, &rhs, 0.0)?;
     for (c, &i) in free.iter().enumerate() {
         out[i] = x[c];
     }
@@ -191,12 +235,10 @@ fn polish(m: &[Vec<f64>], b: &[f64], limits: &[InputLimits], u: &mut [f64], fixe
                 .collect()
         })
         .collect();
-    let eig = crate::linalg::symmetric_eigenvalues(&gram);
-    let (lo, hi) = (eig[0], eig[h - 1]);
-    if !(lo > 1e-10 * hi) {
-        return;
-    }
-    let Some(y) = solve(&gram, &r) else {
+    // Cholesky of the Gram matrix; it is used only when every pivot is well above
+    // rounding of its largest diagonal entry (rank-deficient free columns, when
+    // inputs act on the same outputs, keep the regularised solution instead).
+    let Some(y) = cholesky_solve_checked(&gram, &r, POLISH_PIVOT) else {
         return;
     };
     let cand: Vec<f64> = free

@@ -55,7 +55,7 @@ pub struct Model {
 
 /// Derives the model of `arm` at its expansion order.
 pub fn derive(arm: &Arm) -> Model {
-    derive_with_progress(arm, &|_| {})
+    derive_in_thread(arm, &|_| {}, false)
 }
 
 /// How far a derivation is, for a progress bar: one step per segment, then one for
@@ -73,9 +73,10 @@ pub fn derive_steps(arm: &Arm) -> u64 {
     arm.segments.len() as u64 + 1
 }
 
-/// [`derive`], calling `progress` before each step.
+/// [`derive_statics`], calling `progress` before each step: the model the emitters
+/// print, whose statics functions need the exact derivatives too.
 pub fn derive_with_progress(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync)) -> Model {
-    derive_in_thread(arm, progress, false)
+    derive_in_thread(arm, progress, true)
 }
 
 /// [`derive`] plus the exact derivatives statics needs ([`Model::statics`]): `n²/2`

@@ -10,8 +10,8 @@
 //!
 //! Two models answer the solver's questions ([`StaticModel`]): the derived model with
 //! exact derivatives ([`Derived`], from [`crate::derive::derive_statics`]), and the
-//! quadrature reference of the exact or truncated kinematics ([`Quadrature`]), whose
-//! derivatives are Richardson-extrapolated central differences.
+//! quadrature reference of the exact or truncated kinematics ([`Quadrature`]), with the
+//! exact derivatives of its integrands.
 //!
 //! Also the linear estimate around the straight rest shape, `K q = A(0) u`, which
 //! tells cheaply (no derivation) whether an input is anywhere near what the arm's
@@ -53,8 +53,8 @@ impl StaticModel for Derived<'_> {
     }
 }
 
-/// The quadrature reference (exact or truncated kinematics); derivatives by central
-/// differences at steps `h` and `h/2`, Richardson-extrapolated (error `O(h⁴)`).
+/// The quadrature reference (exact or truncated kinematics), with the exact
+/// derivatives of its integrands.
 pub struct Quadrature<'a>(pub Reference<'a>);
 
 impl StaticModel for Quadrature<'_> {
@@ -65,51 +65,8 @@ impl StaticModel for Quadrature<'_> {
         self.0.stiffness()
     }
     fn at(&self, q: &[f64]) -> Result<StaticTerms, String> {
-        let r = &self.0;
-        r.check_configuration(q)?;
-        let n = q.len();
-        let derivative = |f: &dyn Fn(&[f64]) -> Vec<f64>, x: usize| -> Vec<f64> {
-            let h = 1e-3 * (1.0 + q[x].abs());
-            let central = |h: f64| {
-                let (mut qp, mut qm) = (q.to_vec(), q.to_vec());
-                qp[x] += h;
-                qm[x] -= h;
-                let (fp, fm) = (f(&qp), f(&qm));
-                fp.iter()
-                    .zip(&fm)
-                    .map(|(a, b)| (a - b) / (2.0 * h))
-                    .collect::<Vec<f64>>()
-            };
-            let (d1, d2) = (central(h), central(h / 2.0));
-            d1.iter()
-                .zip(&d2)
-                .map(|(a, b)| (4.0 * b - a) / 3.0)
-                .collect()
-        };
-        let g_of = |q: &[f64]| r.gravity(q);
-        let a_of = |q: &[f64]| r.actuation(q).into_iter().flatten().collect::<Vec<f64>>();
-        let k = r.arm().n_inputs();
-        let mut dg = vec![vec![0.0; n]; n];
-        let mut da = Vec::with_capacity(n);
-        for x in 0..n {
-            let col = derivative(&g_of, x);
-            for i in 0..n {
-                dg[i][x] = col[i];
-            }
-            let flat = if k == 0 {
-                Vec::new()
-            } else {
-                derivative(&a_of, x)
-            };
-            da.push((0..n).map(|i| flat[i * k..(i + 1) * k].to_vec()).collect());
-        }
-        Ok(StaticTerms {
-            g: r.gravity(q),
-            dg,
-            a: r.actuation(q),
-            da,
-            tip_pose: r.tip_pose(q),
-        })
+        self.0.check_configuration(q)?;
+        Ok(self.0.static_terms(q))
     }
 }
 
@@ -437,28 +394,29 @@ mod tests {
 
     #[test]
     fn exact_static_derivatives_agree_with_the_reference() {
-        // ∂G/∂q and ∂A/∂q of the derivation against central differences of the
-        // independent quadrature (same truncated kinematics).
+        // ∂G/∂q and ∂A/∂q of the derivation against the independent quadrature's own
+        // exact derivatives (same truncated kinematics), and those against central
+        // differences of the quadrature's G and A, so that neither derivative is only
+        // checked against itself.
         let a = arm(include_str!("../../examples/hanging_taper.toml"));
         let model = derive_statics(&a);
         let derived = Derived(Evaluator::new(&model));
-        let reference = Quadrature(Reference::new(&a, Kinematics::Truncated(a.expansion_order)));
+        let quad = Reference::new(&a, Kinematics::Truncated(a.expansion_order));
         let n = a.n_coords();
         let bent: Vec<f64> = (0..n)
             .map(|i| 3.0 * ((i as f64 + 1.0) * 1.3).sin())
             .collect();
+        let max = |v: &mut dyn Iterator<Item = f64>| v.fold(0.0f64, |m, x| m.max(x.abs()));
         for q in [vec![0.0; n], bent] {
             let d = derived.at(&q).unwrap();
-            let r = reference.at(&q).unwrap();
-            let size = d.dg.iter().flatten().fold(0.0f64, |m, v| m.max(v.abs()));
+            let r = Quadrature(Reference::new(&a, Kinematics::Truncated(a.expansion_order)))
+                .at(&q)
+                .unwrap();
+            let size = max(&mut d.dg.iter().flatten().copied());
             for (x, y) in d.dg.iter().flatten().zip(r.dg.iter().flatten()) {
-                assert!((x - y).abs() <= 1e-8 * size, "dG: {x} vs {y}");
+                assert!((x - y).abs() <= 1e-12 * size, "dG: {x} vs {y}");
             }
-            let size =
-                d.da.iter()
-                    .flatten()
-                    .flatten()
-                    .fold(0.0f64, |m, v| m.max(v.abs()));
+            let size = max(&mut d.da.iter().flatten().flatten().copied());
             assert!(size > 0.0, "the tip force makes A depend on q");
             for (x, y) in
                 d.da.iter()
@@ -466,7 +424,25 @@ mod tests {
                     .flatten()
                     .zip(r.da.iter().flatten().flatten())
             {
-                assert!((x - y).abs() <= 1e-8 * size, "dA: {x} vs {y}");
+                assert!((x - y).abs() <= 1e-12 * size, "dA: {x} vs {y}");
+            }
+            // Central differences, step 1e-5: truncation error about 1e-10 relative.
+            let h = 1e-5;
+            for x in 0..n {
+                let (mut qp, mut qm) = (q.clone(), q.clone());
+                qp[x] += h;
+                qm[x] -= h;
+                let (gp, gm) = (quad.gravity(&qp), quad.gravity(&qm));
+                let (ap, am) = (quad.actuation(&qp), quad.actuation(&qm));
+                let gsize = max(&mut r.dg.iter().flatten().copied());
+                for i in 0..n {
+                    let fd = (gp[i] - gm[i]) / (2.0 * h);
+                    assert!((fd - r.dg[i][x]).abs() <= 1e-7 * gsize, "dG[{i}][{x}]");
+                    for c in 0..a.n_inputs() {
+                        let fd = (ap[i][c] - am[i][c]) / (2.0 * h);
+                        assert!((fd - r.da[x][i][c]).abs() <= 1e-7, "dA[{x}][{i}][{c}]");
+                    }
+                }
             }
         }
     }

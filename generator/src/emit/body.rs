@@ -214,7 +214,7 @@ pub fn temp_slots(block: &Block) -> (Vec<usize>, usize) {
 mod tests {
     use super::*;
     use crate::arm::parse_arm_str;
-    use crate::derive::derive;
+    use crate::derive::derive_statics;
 
     /// Replays every block of a two-segment model with slot-reused temporaries: each
     /// read must find in its slot the temporary it means, never a later one.
@@ -239,7 +239,7 @@ bending_stiffness = 0.008
             "slots.toml",
         )
         .unwrap();
-        let plan = Plan::new(&derive(&arm), true);
+        let plan = Plan::new(&derive_statics(&arm), true).unwrap();
         let mut checked = 0;
         for f in [
             &plan.inertia,

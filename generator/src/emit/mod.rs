@@ -200,10 +200,10 @@ pub fn emitted_ops(model: &Model) -> Result<usize, String> {
     let model = model.clone();
     std::thread::Builder::new()
         .stack_size(256 << 20)
-        .spawn(move || plan::Plan::new(&model, true).emitted_ops())
+        .spawn(move || plan::Plan::new(&model, true).map(|p| p.emitted_ops()))
         .map_err(|e| format!("spawning the planning thread: {e}"))?
         .join()
-        .map_err(|_| "the planning thread panicked".to_string())
+        .map_err(|_| "the planning thread panicked".to_string())?
 }
 
 fn emit_inner(
@@ -214,7 +214,7 @@ fn emit_inner(
 ) -> Result<Vec<OutFile>, String> {
     let meta = Meta::new(arm_text, model.arm.expansion_order);
     progress("scheduling the code");
-    let plan = plan::Plan::new(model, true);
+    let plan = plan::Plan::new(model, true)?;
     progress("golden values from the numeric reference");
     let golden = golden::Golden::compute(&model.arm);
     let mut files = Vec::new();

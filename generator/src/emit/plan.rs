@@ -45,6 +45,11 @@ pub struct Plan {
     pub damping: Func,
     pub actuation: Func,
     pub tip_jacobian: Func,
+    /// `∂G/∂q`, n×n row-major: the statics functions' Jacobian.
+    pub gravity_jacobian: Func,
+    /// `∂A_ik/∂q_x` flattened `[x][i][k]`, when any entry is not identically zero (end
+    /// forces): the static Jacobian's `−∂(A u)/∂q`.
+    pub actuation_jacobian: Option<Func>,
     /// The kinetic energy is `½ q̇ᵀ B q̇` over the emitted inertia function, not code of
     /// its own (it would repeat all of `B`): its cost is `B`'s plus the quadratic form.
     pub kinetic_energy: Ops,
@@ -120,7 +125,14 @@ pub fn dynamics_loop_ops(n: usize, k: usize) -> Ops {
 }
 
 impl Plan {
-    pub fn new(model: &Model, use_kernels: bool) -> Plan {
+    /// The plan of `model`, which must carry its statics derivatives
+    /// ([`crate::derive::derive_statics`]): the emitted statics and regulator functions
+    /// need them.
+    pub fn new(model: &Model, use_kernels: bool) -> Result<Plan, String> {
+        let statics = model.statics.as_ref().ok_or(
+            "the model was derived without its statics derivatives (derive_statics), which \
+             the emitted equilibrium needs",
+        )?;
         let arm = &model.arm;
         let n = model.n;
         let segs = arm.segments.len();
@@ -130,7 +142,16 @@ impl Plan {
         terms_roots.extend(model.coriolis.iter().flatten().copied());
         terms_roots.extend(model.gravity.iter().copied());
 
-        let all_roots = crate::evaluate::main_roots(model);
+        let mut all_roots = crate::evaluate::main_roots(model);
+        all_roots.extend(statics.gravity_jacobian.iter().flatten().copied());
+        all_roots.extend(
+            statics
+                .actuation_jacobian
+                .iter()
+                .flatten()
+                .flatten()
+                .copied(),
+        );
         let layout = NuLayout::of(prog, &all_roots, segs);
         let mut sched = Scheduler::new(prog, &layout);
         let flat = |m: &Vec<Vec<Id>>| -> Vec<Id> { m.iter().flatten().copied().collect() };
@@ -172,6 +193,18 @@ impl Plan {
         let damping = func(&mut sched, &flat(&model.damping), false);
         let actuation = func(&mut sched, &flat(&model.actuation), false);
         let tip_jacobian = func(&mut sched, &flat(&model.tip_jacobian), false);
+        let gravity_jacobian = func(&mut sched, &flat(&statics.gravity_jacobian), false);
+        let da: Vec<Id> = statics
+            .actuation_jacobian
+            .iter()
+            .flatten()
+            .flatten()
+            .copied()
+            .collect();
+        let actuation_jacobian = da
+            .iter()
+            .any(|&id| !prog.is_zero(id))
+            .then(|| func(&mut sched, &da, false));
         let kinetic_energy = inertia.ops
             + Ops {
                 add: n * n,
@@ -200,7 +233,7 @@ impl Plan {
             .unwrap_or(0)
             .max(2);
         debug_assert!(seg_length.iter().all(|l| !l.is_zero()));
-        Plan {
+        Ok(Plan {
             name: arm.name.clone(),
             n,
             k: model.n_inputs,
@@ -217,12 +250,14 @@ impl Plan {
             damping,
             actuation,
             tip_jacobian,
+            gravity_jacobian,
+            actuation_jacobian,
             kinetic_energy,
             potential_energy,
             terms,
             dynamics,
             pose,
-        }
+        })
     }
 
     /// Every operation of the emitted functions that have code of their own (the
@@ -235,9 +270,11 @@ impl Plan {
             &self.actuation,
             &self.tip_jacobian,
             &self.potential_energy,
+            &self.gravity_jacobian,
         ];
         funcs
             .into_iter()
+            .chain(&self.actuation_jacobian)
             .chain(&self.pose)
             .map(|f| f.ops.add + f.ops.mul + f.ops.div + f.ops.sqrt + f.ops.trig)
             .sum()

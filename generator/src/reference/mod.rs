@@ -628,6 +628,71 @@ impl<'a> Reference<'a> {
         gv
     }
 
+    /// `∂G_x/∂q_y`: the gravity integrand with the second derivatives of position.
+    fn gravity_jacobian_from(&self, k: &Kin) -> Matrix {
+        assert!(k.level >= 2);
+        let n = self.n;
+        let mut dg = vec![vec![0.0; n]; n];
+        for (j, sk) in k.segs.iter().enumerate() {
+            let s = &self.segs[j];
+            let r = sk.r;
+            for (node, v) in sk.vals.iter().enumerate() {
+                let c1 = sk.wq[node] * s.l * horner(&s.rho, sk.sig[node]);
+                for x in 0..r {
+                    for y in 0..r {
+                        let h = sk.ddbase[x * n + y] + v[1 + r + x * r + y].scale(s.l);
+                        dg[x][y] -= c1 * self.g.dot(h);
+                    }
+                }
+            }
+        }
+        let ddp = &k.ends.last().expect("arm has segments").2;
+        for x in 0..n {
+            for y in 0..n {
+                dg[x][y] -= self.mass * self.g.dot(ddp[x * n + y]);
+            }
+        }
+        dg
+    }
+
+    /// `∂A_ik/∂q_x` as `[x][i][k]`: zero but for end forces, whose columns are the
+    /// transposed position Jacobians of their segment's end.
+    fn actuation_jacobian_from(&self, k: &Kin) -> Vec<Matrix> {
+        assert!(k.level >= 2);
+        let n = self.n;
+        let mut cols: Vec<Option<(usize, bool)>> = Vec::new();
+        for a in &self.acts {
+            match *a {
+                ActF64::Tendon { .. } | ActF64::Moment { .. } => cols.push(None),
+                ActF64::EndForce { segment } => {
+                    cols.push(Some((segment, false)));
+                    cols.push(Some((segment, true)));
+                }
+            }
+        }
+        (0..n)
+            .map(|x| {
+                (0..n)
+                    .map(|i| {
+                        cols.iter()
+                            .map(|c| match *c {
+                                None => 0.0,
+                                Some((seg, imag)) => {
+                                    let z = k.ends[seg].2[i * n + x];
+                                    if imag {
+                                        z.im
+                                    } else {
+                                        z.re
+                                    }
+                                }
+                            })
+                            .collect()
+                    })
+                    .collect()
+            })
+            .collect()
+    }
+
     fn gravity_energy_from(&self, k: &Kin) -> f64 {
         let mut u = 0.0;
         for (j, sk) in k.segs.iter().enumerate() {
@@ -760,6 +825,29 @@ impl<'a> Reference<'a> {
     /// Gravity vector `G = ∂U_g/∂q`.
     pub fn gravity(&self, q: &[f64]) -> Vec<f64> {
         self.gravity_from(&self.kinematics_at(q, 1))
+    }
+
+    /// `∂G/∂q`, n×n, by the exact second derivatives of the integrands (the Hessian of
+    /// the gravity potential, so symmetric).
+    pub fn gravity_jacobian(&self, q: &[f64]) -> Matrix {
+        self.gravity_jacobian_from(&self.kinematics_at(q, 2))
+    }
+
+    /// `∂A_ik/∂q_x` as `[x][i][k]`, exact (zero but for end forces).
+    pub fn actuation_jacobian(&self, q: &[f64]) -> Vec<Matrix> {
+        self.actuation_jacobian_from(&self.kinematics_at(q, 2))
+    }
+
+    /// What the static solver needs at `q`, from one evaluation of the kinematics.
+    pub fn static_terms(&self, q: &[f64]) -> crate::terms::StaticTerms {
+        let k = self.kinematics_at(q, 2);
+        crate::terms::StaticTerms {
+            g: self.gravity_from(&k),
+            dg: self.gravity_jacobian_from(&k),
+            a: self.actuation_from(&k),
+            da: self.actuation_jacobian_from(&k),
+            tip_pose: self.tip_pose_from(&k),
+        }
     }
 
     /// Actuation matrix `A(q)`, n×k.
