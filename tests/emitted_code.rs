@@ -311,9 +311,13 @@ fn rust_crate_matches_reference() {
                 .env("RUSTFLAGS", "-D warnings"),
             &format!("cargo test of the {name} crate"),
         );
+        let tests = std::fs::read_to_string(dir.join("tests/golden.rs"))
+            .expect("golden.rs")
+            .matches("#[test]")
+            .count();
         assert!(
-            text.contains("6 passed"),
-            "{name}: golden and workspace tests did not run:\n{text}"
+            tests >= 8 && text.contains(&format!("{tests} passed")),
+            "{name}: not all {tests} golden and workspace tests ran:\n{text}"
         );
     }
 }

@@ -308,7 +308,7 @@ fn bending_limit<'a>(arm: &'a Arm, opts: &'a Options) -> impl Fn(&[f64]) -> f64 
 }
 
 /// `S A`, h×k.
-fn s_times(s: &Matrix, a: &Matrix) -> Matrix {
+pub fn s_times(s: &Matrix, a: &Matrix) -> Matrix {
     let k = a.first().map_or(0, |r| r.len());
     s.iter()
         .map(|row| {

@@ -51,7 +51,7 @@ extern "C" {
 /** Number of segments. */
 #define HANGING_TAPER_NSEG 3
 
-/** Return codes of hanging_taper_forward_dynamics. */
+/** Return codes of the functions that return int. */
 #define HANGING_TAPER_OK 0
 /** q, qd or u holds a NaN or an infinity. */
 #define HANGING_TAPER_ERR_NONFINITE_INPUT 1
@@ -59,6 +59,12 @@ extern "C" {
 #define HANGING_TAPER_ERR_NOT_POSITIVE_DEFINITE 2
 /** The result overflowed (q'' not finite). */
 #define HANGING_TAPER_ERR_NONFINITE_RESULT 3
+/** hanging_taper_equilibrium: the load continuation stalled within its iteration bound. */
+#define HANGING_TAPER_ERR_NOT_CONVERGED 4
+/** hanging_taper_regulate: an unknown law, or a gain that is not positive. */
+#define HANGING_TAPER_ERR_BAD_ARGUMENT 5
+/** hanging_taper_regulate: u is within the limits, but they keep it from the wanted force. */
+#define HANGING_TAPER_SATURATED 6
 
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
@@ -154,6 +160,100 @@ double hanging_taper_potential_energy(const double q[]);
 int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
+/**
+ * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
+ * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig.
+ */
+void hanging_taper_gravity_jacobian(const double q[], double dG[]);
+
+/**
+ * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
+ * inputs u. Returns HANGING_TAPER_OK, HANGING_TAPER_ERR_NONFINITE_INPUT (R is then NaN) or
+ * HANGING_TAPER_ERR_NONFINITE_RESULT.
+ */
+int hanging_taper_static_residual(const double q[], const double u[], double R[]);
+
+/**
+ * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
+ * Every load of the model is conservative, so it is symmetric: the Hessian of the
+ * potential energy, positive definite at a stable equilibrium. Return codes as
+ * hanging_taper_static_residual.
+ */
+int hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
+
+/** What hanging_taper_equilibrium did. */
+typedef struct {
+    int iterations;           /* Newton iterations in all */
+    int load_steps;           /* continuation steps taken */
+    double load;               /* load fraction reached (1 on success) */
+    double residual;           /* ||K q + G - A u||_2 at q (the last one tried on failure) */
+    double relative_residual;  /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure */
+    int stable;               /* 1 when dR/dq is positive definite: a local minimum of the
+                                 potential energy */
+} hanging_taper_equilibrium_info;
+
+/*
+ * Tuning of hanging_taper_equilibrium; define before including this header to override.
+ * Converged when ||R|| <= TOLERANCE (||K q|| + ||G|| + ||A u||); each Newton step bends
+ * no segment by more than MAX_BENDING_STEP [rad]; a continuation step that fails is
+ * halved down to MIN_STEP of the load.
+ */
+#ifndef HANGING_TAPER_EQUILIBRIUM_TOLERANCE
+#define HANGING_TAPER_EQUILIBRIUM_TOLERANCE 1e-12
+#endif
+#ifndef HANGING_TAPER_EQUILIBRIUM_MAX_ITERATIONS
+#define HANGING_TAPER_EQUILIBRIUM_MAX_ITERATIONS 2000
+#endif
+#define HANGING_TAPER_EQUILIBRIUM_ITERATIONS_PER_STEP 12
+#define HANGING_TAPER_EQUILIBRIUM_MIN_STEP 1e-6
+#define HANGING_TAPER_EQUILIBRIUM_MAX_BENDING_STEP 0.5
+
+/**
+ * Equilibrium K q + G(q) = A(q) u: the shape the arm rests in under the inputs u and
+ * gravity. Damped Newton with the exact Jacobian (hanging_taper_static_jacobian) and load
+ * continuation from the straight shape q = 0, so that the branch found is the one the
+ * arm reaches when the load is applied slowly (the same algorithm and settings as
+ * `arcwright statics`). At most HANGING_TAPER_EQUILIBRIUM_MAX_ITERATIONS Newton iterations,
+ * each a few evaluations of G, A and dG/dq. info may be a null pointer.
+ * Returns HANGING_TAPER_OK; HANGING_TAPER_ERR_NOT_CONVERGED (q then holds the last equilibrium
+ * on the way, at load fraction info->load: never take it for the answer);
+ * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
+ */
+int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
+
+/** Number of controlled outputs y = S q of hanging_taper_regulate. */
+#define HANGING_TAPER_NY 3
+/** The regulators of hanging_taper_regulate. */
+#define HANGING_TAPER_LAW_BASELINE 0
+#define HANGING_TAPER_LAW_COMPENSATED 1
+/** Most active-set iterations of the input allocation (4 NU + 8). */
+#define HANGING_TAPER_REGULATE_ITERATIONS 20
+
+/**
+ * Regulator: the inputs u (length NU) that drive the controlled outputs y = S q
+ * toward target (length NY) at the state (q, q'):
+ *   baseline     u = (S A)^+ [Kp (target - y) - Kd y'],
+ *   compensated  u = (S A)^+ [Kp (target - y) - Kd y' + S (K q + G(q))],
+ * the same PD plus the elastic and gravity load of the model on the outputs, which
+ * puts y at rest exactly on target (the baseline leaves a steady-state error).
+ * The outputs, one per segment (segment-major, labels as `arcwright simulate`):
+ *     y[0] = 1_mean = q[0] + 1/2 q[1] + 1/3 q[2]
+ *     y[1] = 2_mean = q[3] + 1/2 q[4] + 1/3 q[5]
+ *     y[2] = 3_mean = q[6] + 1/2 q[7]
+ * kp and kd (length NY) must be positive. (S A)^+ is the allocation within the
+ * actuators' limits of the arm file (tendons pull only, never below their pretension):
+ * the u nearest S A u = b in the least-squares sense, the least-norm one among
+ * equals (antagonistic tendons share the work). Returns HANGING_TAPER_OK;
+ * HANGING_TAPER_SATURATED when the limits keep u from the wanted force (u is still the
+ * best the limits allow); HANGING_TAPER_ERR_NONFINITE_INPUT or HANGING_TAPER_ERR_BAD_ARGUMENT
+ * (law or gains), when u holds the relaxed inputs (each at the point of its range
+ * nearest 0: tendons at their pretension).
+ * This computes a command; it does not make it safe. Rate-limit and bound it, and
+ * stop the arm when the return code or the state is not what you expect.
+ */
+int hanging_taper_regulate(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[]);
+
 /*
  * Caller-provided scratch. Every function above that takes q has a _ws variant with
  * one more argument, work: scratch that the caller owns, at least the function's
@@ -167,12 +267,17 @@ int hanging_taper_forward_dynamics(const double q[], const double qd[], const do
 #define HANGING_TAPER_GRAVITY_WORK 341
 #define HANGING_TAPER_ACTUATION_WORK 248
 #define HANGING_TAPER_TIP_JACOBIAN_WORK 248
+#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 492
 #define HANGING_TAPER_POTENTIAL_ENERGY_WORK 255
 #define HANGING_TAPER_TERMS_WORK 1514
 #define HANGING_TAPER_KINETIC_ENERGY_WORK 1109
 #define HANGING_TAPER_CORIOLIS_WORK 1586
 #define HANGING_TAPER_POSE_WORK 259
 #define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1846
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 429
+#define HANGING_TAPER_STATIC_JACOBIAN_WORK 748
+#define HANGING_TAPER_EQUILIBRIUM_WORK 956
+#define HANGING_TAPER_REGULATE_WORK 494
 #define HANGING_TAPER_WORK_LEN 1846
 
 void hanging_taper_inertia_ws(const double q[], double B[], double work[]);
@@ -188,6 +293,13 @@ double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], doub
 double hanging_taper_potential_energy_ws(const double q[], double work[]);
 int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[]);
+void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double work[]);
+int hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+int hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+int hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
+    double work[]);
+int hanging_taper_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[], double work[]);
 
 #ifdef __cplusplus
 }

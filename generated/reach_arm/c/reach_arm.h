@@ -51,7 +51,7 @@ extern "C" {
 /** Number of segments. */
 #define REACH_ARM_NSEG 2
 
-/** Return codes of reach_arm_forward_dynamics. */
+/** Return codes of the functions that return int. */
 #define REACH_ARM_OK 0
 /** q, qd or u holds a NaN or an infinity. */
 #define REACH_ARM_ERR_NONFINITE_INPUT 1
@@ -59,6 +59,12 @@ extern "C" {
 #define REACH_ARM_ERR_NOT_POSITIVE_DEFINITE 2
 /** The result overflowed (q'' not finite). */
 #define REACH_ARM_ERR_NONFINITE_RESULT 3
+/** reach_arm_equilibrium: the load continuation stalled within its iteration bound. */
+#define REACH_ARM_ERR_NOT_CONVERGED 4
+/** reach_arm_regulate: an unknown law, or a gain that is not positive. */
+#define REACH_ARM_ERR_BAD_ARGUMENT 5
+/** reach_arm_regulate: u is within the limits, but they keep it from the wanted force. */
+#define REACH_ARM_SATURATED 6
 
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
@@ -153,6 +159,99 @@ double reach_arm_potential_energy(const double q[]);
 int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
+/**
+ * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
+ * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
+ */
+void reach_arm_gravity_jacobian(const double q[], double dG[]);
+
+/**
+ * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
+ * inputs u. Returns REACH_ARM_OK, REACH_ARM_ERR_NONFINITE_INPUT (R is then NaN) or
+ * REACH_ARM_ERR_NONFINITE_RESULT.
+ */
+int reach_arm_static_residual(const double q[], const double u[], double R[]);
+
+/**
+ * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
+ * Every load of the model is conservative, so it is symmetric: the Hessian of the
+ * potential energy, positive definite at a stable equilibrium. Return codes as
+ * reach_arm_static_residual.
+ */
+int reach_arm_static_jacobian(const double q[], const double u[], double J[]);
+
+/** What reach_arm_equilibrium did. */
+typedef struct {
+    int iterations;           /* Newton iterations in all */
+    int load_steps;           /* continuation steps taken */
+    double load;               /* load fraction reached (1 on success) */
+    double residual;           /* ||K q + G - A u||_2 at q (the last one tried on failure) */
+    double relative_residual;  /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure */
+    int stable;               /* 1 when dR/dq is positive definite: a local minimum of the
+                                 potential energy */
+} reach_arm_equilibrium_info;
+
+/*
+ * Tuning of reach_arm_equilibrium; define before including this header to override.
+ * Converged when ||R|| <= TOLERANCE (||K q|| + ||G|| + ||A u||); each Newton step bends
+ * no segment by more than MAX_BENDING_STEP [rad]; a continuation step that fails is
+ * halved down to MIN_STEP of the load.
+ */
+#ifndef REACH_ARM_EQUILIBRIUM_TOLERANCE
+#define REACH_ARM_EQUILIBRIUM_TOLERANCE 1e-12
+#endif
+#ifndef REACH_ARM_EQUILIBRIUM_MAX_ITERATIONS
+#define REACH_ARM_EQUILIBRIUM_MAX_ITERATIONS 2000
+#endif
+#define REACH_ARM_EQUILIBRIUM_ITERATIONS_PER_STEP 12
+#define REACH_ARM_EQUILIBRIUM_MIN_STEP 1e-6
+#define REACH_ARM_EQUILIBRIUM_MAX_BENDING_STEP 0.5
+
+/**
+ * Equilibrium K q + G(q) = A(q) u: the shape the arm rests in under the inputs u and
+ * gravity. Damped Newton with the exact Jacobian (reach_arm_static_jacobian) and load
+ * continuation from the straight shape q = 0, so that the branch found is the one the
+ * arm reaches when the load is applied slowly (the same algorithm and settings as
+ * `arcwright statics`). At most REACH_ARM_EQUILIBRIUM_MAX_ITERATIONS Newton iterations,
+ * each a few evaluations of G, A and dG/dq. info may be a null pointer.
+ * Returns REACH_ARM_OK; REACH_ARM_ERR_NOT_CONVERGED (q then holds the last equilibrium
+ * on the way, at load fraction info->load: never take it for the answer);
+ * REACH_ARM_ERR_NONFINITE_INPUT (q = 0); REACH_ARM_ERR_NONFINITE_RESULT.
+ */
+int reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
+
+/** Number of controlled outputs y = S q of reach_arm_regulate. */
+#define REACH_ARM_NY 2
+/** The regulators of reach_arm_regulate. */
+#define REACH_ARM_LAW_BASELINE 0
+#define REACH_ARM_LAW_COMPENSATED 1
+/** Most active-set iterations of the input allocation (4 NU + 8). */
+#define REACH_ARM_REGULATE_ITERATIONS 24
+
+/**
+ * Regulator: the inputs u (length NU) that drive the controlled outputs y = S q
+ * toward target (length NY) at the state (q, q'):
+ *   baseline     u = (S A)^+ [Kp (target - y) - Kd y'],
+ *   compensated  u = (S A)^+ [Kp (target - y) - Kd y' + S (K q + G(q))],
+ * the same PD plus the elastic and gravity load of the model on the outputs, which
+ * puts y at rest exactly on target (the baseline leaves a steady-state error).
+ * The outputs, one per segment (segment-major, labels as `arcwright simulate`):
+ *     y[0] = 1_mean = q[0] + 1/2 q[1] + 1/3 q[2]
+ *     y[1] = 2_mean = q[3] + 1/2 q[4] + 1/3 q[5]
+ * kp and kd (length NY) must be positive. (S A)^+ is the allocation within the
+ * actuators' limits of the arm file (tendons pull only, never below their pretension):
+ * the u nearest S A u = b in the least-squares sense, the least-norm one among
+ * equals (antagonistic tendons share the work). Returns REACH_ARM_OK;
+ * REACH_ARM_SATURATED when the limits keep u from the wanted force (u is still the
+ * best the limits allow); REACH_ARM_ERR_NONFINITE_INPUT or REACH_ARM_ERR_BAD_ARGUMENT
+ * (law or gains), when u holds the relaxed inputs (each at the point of its range
+ * nearest 0: tendons at their pretension).
+ * This computes a command; it does not make it safe. Rate-limit and bound it, and
+ * stop the arm when the return code or the state is not what you expect.
+ */
+int reach_arm_regulate(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[]);
+
 /*
  * Caller-provided scratch. Every function above that takes q has a _ws variant with
  * one more argument, work: scratch that the caller owns, at least the function's
@@ -166,12 +265,17 @@ int reach_arm_forward_dynamics(const double q[], const double qd[], const double
 #define REACH_ARM_GRAVITY_WORK 226
 #define REACH_ARM_ACTUATION_WORK 1
 #define REACH_ARM_TIP_JACOBIAN_WORK 178
+#define REACH_ARM_GRAVITY_JACOBIAN_WORK 391
 #define REACH_ARM_POTENTIAL_ENERGY_WORK 195
 #define REACH_ARM_TERMS_WORK 1220
 #define REACH_ARM_KINETIC_ENERGY_WORK 881
 #define REACH_ARM_CORIOLIS_WORK 1262
 #define REACH_ARM_POSE_WORK 207
 #define REACH_ARM_FORWARD_DYNAMICS_WORK 1421
+#define REACH_ARM_STATIC_RESIDUAL_WORK 286
+#define REACH_ARM_STATIC_JACOBIAN_WORK 427
+#define REACH_ARM_EQUILIBRIUM_WORK 565
+#define REACH_ARM_REGULATE_WORK 358
 #define REACH_ARM_WORK_LEN 1421
 
 void reach_arm_inertia_ws(const double q[], double B[], double work[]);
@@ -187,6 +291,13 @@ double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double w
 double reach_arm_potential_energy_ws(const double q[], double work[]);
 int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[]);
+void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[]);
+int reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+int reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+int reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
+    double work[]);
+int reach_arm_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[], double work[]);
 
 #ifdef __cplusplus
 }

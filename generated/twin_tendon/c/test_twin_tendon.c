@@ -21,6 +21,10 @@
 #include <string.h>
 
 #define RTOL 1e-9
+/* The regulators' inputs are compared where S A (S A)^T has an eigenvalue ratio above
+ * this: an allocation worse posed than that is beyond what the precision resolves
+ * (near a singular configuration the least-norm inputs grow without bound). */
+#define WELL_POSED 0.0
 
 #define NCASES 6
 static const char *const case_label[NCASES] = {
@@ -341,6 +345,266 @@ static const double g_Bnorm[NCASES][1] = {
         1.62053591591672e-5
     },
 };
+static const double g_dG[NCASES][4] = {
+    {
+        0.0, 0.0, 0.0, 0.0
+    },
+    {
+        -1.82511984375e-12, -5.12082e-13, -5.12082e-13, -2.6557632e-13
+    },
+    {
+        -2.05291589986623e-4, -2.46647515454111e-5, -2.46647515454111e-5, -9.02691489511488e-6
+    },
+    {
+        -7.65095415883229e-4, -2.44448350591231e-4, -2.44448350591231e-4, -1.34068936413804e-4
+    },
+    {
+        -3.97305e-13, -1.94238e-13, -1.94238e-13, -1.1018592e-13
+    },
+    {
+        -8.64244379919075e-4, 2.45068214132182e-5, 2.45068214132182e-5, 4.00216025241161e-5
+    },
+};
+static const double g_R[NCASES][2] = {
+    {
+        1.362301875e-2, 2.20356e-3
+    },
+    {
+        1.3404768765e-2, 2.028960009e-3
+    },
+    {
+        1.64794651637483e-2, 2.20026275545009e-4
+    },
+    {
+        4.6080950244951e-2, -2.38865511688418e-2
+    },
+    {
+        1.359601875e-2, 2.181960009e-3
+    },
+    {
+        2.67922698776221e-2, 1.60413838426452e-2
+    },
+};
+static const double g_Js[NCASES][4] = {
+    {
+        2.25e-3, 0.0, 0.0, 1.08e-3
+    },
+    {
+        2.24999999817488e-3, -5.12082e-13, -5.12082e-13, 1.07999999973442e-3
+    },
+    {
+        2.04470841001338e-3, -2.46647515454111e-5, -2.46647515454111e-5, 1.07097308510489e-3
+    },
+    {
+        1.48490458411677e-3, -2.44448350591231e-4, -2.44448350591231e-4, 9.45931063586196e-4
+    },
+    {
+        2.2499999996027e-3, -1.94238e-13, -1.94238e-13, 1.07999999988981e-3
+    },
+    {
+        1.38575562008092e-3, 2.45068214132182e-5, 2.45068214132182e-5, 1.12002160252412e-3
+    },
+};
+static const double g_ueq[NCASES][4] = {
+    {
+        0.0, 0.0, 0.0, 0.0
+    },
+    {
+        1.0, -6.66666666666667e-1, 5.0e-1, -1.16666666666667
+    },
+    {
+        1.0, -4.0, -5.0e-1, 3.0
+    },
+    {
+        -1.42857142857143, 3.57142857142857, -3.57142857142857, 1.42857142857143
+    },
+    {
+        -8.57142857142858, 1.42857142857143, 1.14285714285714e1, -2.85714285714286
+    },
+    {
+        5.83333333333333, -2.5, 3.33333333333333, -5.0
+    },
+};
+static const double g_qeq[NCASES][2] = {
+    {
+        -4.84923529187833, -1.33038514342275
+    },
+    {
+        -2.9956107864594, 4.29182625642928e-1
+    },
+    {
+        -4.30636727402907, 4.80709081890008
+    },
+    {
+        -9.50656977337096, -6.09195307608816
+    },
+    {
+        -1.35149019757486, -1.39381086829593e1
+    },
+    {
+        1.54901032364002e1, 1.29195232912992e1
+    },
+};
+static const double g_eqstable[NCASES][1] = {
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+};
+static const double g_ytarget[NCASES][2] = {
+    {
+        1.5e-1, 4.375e-1
+    },
+    {
+        -2.49999993333333e-1, 1.87500008333333e-1
+    },
+    {
+        8.33333333333333e-1, -1.72916666666667
+    },
+    {
+        2.36458333333333e1, -2.19791666666667e1
+    },
+    {
+        6.25e-2, 5.00000008333333e-1
+    },
+    {
+        1.31458333333333e1, 1.69166666666667e1
+    },
+};
+static const double g_kp[NCASES][2] = {
+    {
+        5.0e-2, 6.25e-2
+    },
+    {
+        5.0e-2, 6.25e-2
+    },
+    {
+        5.0e-2, 6.25e-2
+    },
+    {
+        5.0e1, 6.25e1
+    },
+    {
+        5.0e-2, 6.25e-2
+    },
+    {
+        5.0e-2, 6.25e-2
+    },
+};
+static const double g_kd[NCASES][2] = {
+    {
+        4.0e-3, 6.0e-3
+    },
+    {
+        4.0e-3, 6.0e-3
+    },
+    {
+        4.0e-3, 6.0e-3
+    },
+    {
+        4.0, 6.0
+    },
+    {
+        4.0e-3, 6.0e-3
+    },
+    {
+        4.0e-3, 6.0e-3
+    },
+};
+static const double g_ubase[NCASES][4] = {
+    {
+        1.95532986111111e1, 2.0e-1, 2.0e-1, 1.38310763888889e1
+    },
+    {
+        1.01609375e1, 2.0e-1, 2.0e-1, 1.80776041666667e1
+    },
+    {
+        2.0e-1, 5.82934027777778, 2.0e-1, 8.65399305555555
+    },
+    {
+        2.0e-1, 2.5e1, 2.5e1, 2.0e-1
+    },
+    {
+        2.10263888888889e1, 2.0e-1, 2.0e-1, 1.79291666666667e1
+    },
+    {
+        1.25090277777778e1, 2.0e-1, 2.0e-1, 1.88840277777778e1
+    },
+};
+static const double g_ucomp[NCASES][4] = {
+    {
+        2.10247986111111e1, 2.0e-1, 2.0e-1, 7.73048263888889
+    },
+    {
+        1.163243750625e1, 2.0e-1, 2.0e-1, 1.19770104145833e1
+    },
+    {
+        2.0e-1, 5.61404425309374, 7.0471934406502e-1, 2.0e-1
+    },
+    {
+        2.0e-1, 2.5e1, 2.5e1, 2.0e-1
+    },
+    {
+        2.24978888951389e1, 2.0e-1, 2.0e-1, 1.18285729229167e1
+    },
+    {
+        2.37113776685036e1, 2.0e-1, 2.0e-1, 1.50767832920469e1
+    },
+};
+static const double g_regsat[NCASES][2] = {
+    {
+        0.0, 0.0
+    },
+    {
+        0.0, 0.0
+    },
+    {
+        0.0, 0.0
+    },
+    {
+        1.0, 1.0
+    },
+    {
+        0.0, 0.0
+    },
+    {
+        0.0, 0.0
+    },
+};
+static const double g_regcond[NCASES][1] = {
+    {
+        1.13946433025793e-1
+    },
+    {
+        1.13946433025793e-1
+    },
+    {
+        1.13946433025793e-1
+    },
+    {
+        1.13946433025793e-1
+    },
+    {
+        1.13946433025793e-1
+    },
+    {
+        1.13946433025793e-1
+    },
+};
 static const double scale_B = 3.158398125e-5;
 static const double scale_C = 1.72177574906104e-7;
 static const double scale_G = 1.362976875e-2;
@@ -351,6 +615,12 @@ static const double scale_J = 1.5e-1;
 static const double scale_T = 8.11100926125001e-6;
 static const double scale_V = 9.51895744715522e-1;
 static const double scale_pose = 4.0;
+static const double scale_dG = 8.64244379919075e-4;
+static const double scale_R = 4.6080950244951e-2;
+static const double scale_Js = 2.25e-3;
+static const double scale_qeq = 1.54901032364002e1;
+static const double scale_ubase = 2.5e1;
+static const double scale_ucomp = 2.5e1;
 
 static int passed = 0;
 static int failed = 0;
@@ -563,6 +833,69 @@ int main(void)
             expect(twin_tendon_forward_dynamics_ws(q, qd, u, y, work) == status, "forward_dynamics_ws status");
             same("forward_dynamics", c, y, x, TWIN_TENDON_NQ, TWIN_TENDON_FORWARD_DYNAMICS_WORK);
         }
+        {
+            /* Statics: dG/dq, the residual and its Jacobian at (q, u), an equilibrium. */
+            double x[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+            double y[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+            double ueq[4 + 1];
+            twin_tendon_equilibrium_info info;
+            twin_tendon_gravity_jacobian(q, x);
+            check("gravity_jacobian", c, x, g_dG[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_dG);
+            poison(TWIN_TENDON_GRAVITY_JACOBIAN_WORK);
+            twin_tendon_gravity_jacobian_ws(q, y, work);
+            same("gravity_jacobian", c, y, x, TWIN_TENDON_NQ * TWIN_TENDON_NQ, TWIN_TENDON_GRAVITY_JACOBIAN_WORK);
+            expect(twin_tendon_static_residual(q, u, x) == TWIN_TENDON_OK, "static_residual status");
+            check("static_residual", c, x, g_R[c], TWIN_TENDON_NQ, scale_R);
+            poison(TWIN_TENDON_STATIC_RESIDUAL_WORK);
+            expect(twin_tendon_static_residual_ws(q, u, y, work) == TWIN_TENDON_OK, "static_residual_ws status");
+            same("static_residual", c, y, x, TWIN_TENDON_NQ, TWIN_TENDON_STATIC_RESIDUAL_WORK);
+            expect(twin_tendon_static_jacobian(q, u, x) == TWIN_TENDON_OK, "static_jacobian status");
+            check("static_jacobian", c, x, g_Js[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_Js);
+            poison(TWIN_TENDON_STATIC_JACOBIAN_WORK);
+            expect(twin_tendon_static_jacobian_ws(q, u, y, work) == TWIN_TENDON_OK, "static_jacobian_ws status");
+            same("static_jacobian", c, y, x, TWIN_TENDON_NQ * TWIN_TENDON_NQ, TWIN_TENDON_STATIC_JACOBIAN_WORK);
+            for (i = 0; i < 4; ++i) {
+                ueq[i] = (double)g_ueq[c][i];
+            }
+            status = twin_tendon_equilibrium(ueq, x, &info);
+            expect(status == TWIN_TENDON_OK, "equilibrium status");
+            check("equilibrium", c, x, g_qeq[c], TWIN_TENDON_NQ, scale_qeq);
+            expect(info.stable == (g_eqstable[c][0] > 0.5), "equilibrium stability");
+            expect(info.load == 1.0 && info.relative_residual <= TWIN_TENDON_EQUILIBRIUM_TOLERANCE,
+                "equilibrium info");
+            poison(TWIN_TENDON_EQUILIBRIUM_WORK);
+            expect(twin_tendon_equilibrium_ws(ueq, y, 0, work) == status, "equilibrium_ws status");
+            same("equilibrium", c, y, x, TWIN_TENDON_NQ, TWIN_TENDON_EQUILIBRIUM_WORK);
+        }
+        {
+            /* Both regulators at (q, q'). */
+            double target[TWIN_TENDON_NY];
+            double kp[TWIN_TENDON_NY];
+            double kd[TWIN_TENDON_NY];
+            double x[TWIN_TENDON_NU];
+            double y[TWIN_TENDON_NU];
+            for (i = 0; i < TWIN_TENDON_NY; ++i) {
+                target[i] = (double)g_ytarget[c][i];
+                kp[i] = (double)g_kp[c][i];
+                kd[i] = (double)g_kd[c][i];
+            }
+            status = twin_tendon_regulate(TWIN_TENDON_LAW_BASELINE, target, kp, kd, q, qd, x);
+            expect(status == (g_regsat[c][0] > 0.5 ? TWIN_TENDON_SATURATED : TWIN_TENDON_OK), "regulate baseline status");
+            if (g_regcond[c][0] > WELL_POSED) {
+                check("regulate baseline", c, x, g_ubase[c], TWIN_TENDON_NU, scale_ubase);
+            }
+            poison(TWIN_TENDON_REGULATE_WORK);
+            expect(twin_tendon_regulate_ws(TWIN_TENDON_LAW_BASELINE, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
+            same("regulate baseline", c, y, x, TWIN_TENDON_NU, TWIN_TENDON_REGULATE_WORK);
+            status = twin_tendon_regulate(TWIN_TENDON_LAW_COMPENSATED, target, kp, kd, q, qd, x);
+            expect(status == (g_regsat[c][1] > 0.5 ? TWIN_TENDON_SATURATED : TWIN_TENDON_OK), "regulate compensated status");
+            if (g_regcond[c][0] > WELL_POSED) {
+                check("regulate compensated", c, x, g_ucomp[c], TWIN_TENDON_NU, scale_ucomp);
+            }
+            poison(TWIN_TENDON_REGULATE_WORK);
+            expect(twin_tendon_regulate_ws(TWIN_TENDON_LAW_COMPENSATED, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
+            same("regulate compensated", c, y, x, TWIN_TENDON_NU, TWIN_TENDON_REGULATE_WORK);
+        }
         status = twin_tendon_forward_dynamics(q, qd, u, qdd);
         expect(status == TWIN_TENDON_OK, "forward dynamics status");
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
@@ -606,6 +939,43 @@ int main(void)
         q[0] = (double)NAN;
         expect(twin_tendon_forward_dynamics(q, qd, u, qdd) == TWIN_TENDON_ERR_NONFINITE_INPUT && nan_bits(qdd[0]),
             "forward dynamics rejects NaN q");
+        {
+            double r[TWIN_TENDON_NQ];
+            double qe[TWIN_TENDON_NQ];
+            double bad[4 + 1];
+            expect(twin_tendon_static_residual(q, u, r) == TWIN_TENDON_ERR_NONFINITE_INPUT && nan_bits(r[0]),
+                "static_residual rejects NaN q");
+            for (i = 0; i < 4 + 1; ++i) {
+                bad[i] = (double)NAN;
+            }
+            expect(twin_tendon_equilibrium(bad, qe, 0) == TWIN_TENDON_ERR_NONFINITE_INPUT, "equilibrium rejects NaN u");
+        }
+        {
+            double target[TWIN_TENDON_NY];
+            double gain[TWIN_TENDON_NY];
+            double zero[TWIN_TENDON_NY];
+            double uo[TWIN_TENDON_NU];
+            double good[TWIN_TENDON_NQ];
+            int relaxed = 1;
+            for (i = 0; i < TWIN_TENDON_NY; ++i) {
+                target[i] = 0.1;
+                gain[i] = 0.01;
+                zero[i] = 0.0;
+            }
+            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                good[i] = (double)g_q[2][i];
+            }
+            expect(twin_tendon_regulate(TWIN_TENDON_LAW_COMPENSATED, target, gain, gain, q, qd, uo) == TWIN_TENDON_ERR_NONFINITE_INPUT,
+                "regulate rejects NaN q");
+            for (i = 0; i < TWIN_TENDON_NU; ++i) {
+                relaxed = relaxed && !nan_bits(uo[i]);
+            }
+            expect(relaxed, "regulate leaves the relaxed inputs after a bad call");
+            expect(twin_tendon_regulate(TWIN_TENDON_LAW_COMPENSATED, target, zero, gain, good, qd, uo) == TWIN_TENDON_ERR_BAD_ARGUMENT,
+                "regulate rejects kp = 0");
+            expect(twin_tendon_regulate(7, target, gain, gain, good, qd, uo) == TWIN_TENDON_ERR_BAD_ARGUMENT,
+                "regulate rejects an unknown law");
+        }
         /* The unchecked functions pass a NaN through to what depends on it. */
         {
             double b[TWIN_TENDON_NQ * TWIN_TENDON_NQ];

@@ -20,6 +20,7 @@
  */
 #include "twin_tendon.h"
 
+#include <float.h>
 #include <math.h>
 #include <stdint.h>
 #include <string.h>
@@ -198,25 +199,27 @@ static void twin_tendon_moments(double a, int count, double re[], double im[])
  * Moment kernels: row r at moment base b is the dot product of its band
  * coef[start[r] .. start[r+1]) with nu[b + first[r] ...], exact rationals rounded once.
  * A row is shared by every segment (and by real and imaginary parts) with the same
- * weight shape. 18 rows, 60 coefficients.
+ * weight shape. 20 rows, 67 coefficients.
  */
-static const unsigned char twin_tendon_kernel_start[19] = {
-    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 35, 41, 45, 49, 54, 57, 60
+static const unsigned char twin_tendon_kernel_start[21] = {
+    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 37, 40, 43, 47, 50, 52, 58, 62, 67
 };
-static const unsigned char twin_tendon_kernel_first[18] = {
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
+static const unsigned char twin_tendon_kernel_first[20] = {
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
 };
-static const double twin_tendon_kernel_coef[60] = {
+static const double twin_tendon_kernel_coef[67] = {
     1.32890625e-6, -2.21484375e-6, 9.4921875e-7, 0.0, -6.328125e-8, 0.5, -0.5,
     0.16666666666666666, 0.0, -0.16666666666666666, 3.1104e-7, -5.184e-7, 2.2217142857142857e-7,
     0.0, -1.4811428571428572e-8, 0.5, 0.5, -0.01125, -0.01125, 0.01125, 0.01125, 3.24e-6,
     -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8, 0.00193134375, 0.0,
-    -0.00193134375, -0.003310875, -0.003310875, 0.038626875, -0.038626875, 0.005555555555555556,
+    -0.00193134375, -0.003310875, -0.003310875, 0.08333333333333333, 0.05, -0.08333333333333333,
+    -0.05, -0.001125, -0.0016875, -0.0005625, 0.3333333333333333, 0.5, 0.16666666666666666,
+    -0.00014485078125, -8.691046875e-5, 0.00014485078125, 8.691046875e-5, 0.0003310875,
+    0.00049663125, 0.00016554375, 0.038626875, -0.038626875, 0.005555555555555556,
     -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
     -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
-    0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.03333333333333333,
-    -0.016666666666666666, -0.03571428571428571, 0.016666666666666666, 0.002380952380952381,
-    0.3333333333333333, 0.5, 0.16666666666666666, -0.001125, -0.0016875, -0.0005625
+    0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
+    0.002380952380952381
 };
 
 /* kern[i] = kernel row uses[2i] at moment base uses[2i + 1], i < count; four partial
@@ -412,9 +415,49 @@ void twin_tendon_tip_jacobian(const double q[], double J[])
     twin_tendon_tip_jacobian_ws(q, J, work);
 }
 
+/* Kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
+static const unsigned char twin_tendon_gravity_jacobian_rows[26] = {
+    1, 12, 1, 18, 2, 12, 2, 18, 11, 12, 11, 18, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18, 14, 6, 15,
+    6
+};
+
+/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 37 reals.
+ * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[])
+{
+    double *const nu = &work[0]; /* 24 */
+    double *const kern = &work[24]; /* 13 */
+    double cphi[1];
+    double sphi[1];
+    double phi;
+    twin_tendon_moments(0.15 * q[0], 4, &nu[0], &nu[6]);
+    twin_tendon_moments(0.12 * q[1], 4, &nu[12], &nu[18]);
+    phi = 0.15 * q[0];
+    cphi[0] = cos(phi);
+    sphi[0] = sin(phi);
+    twin_tendon_kernels(twin_tendon_gravity_jacobian_rows, 13, nu, kern);
+    const double t0 = 9.81 * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0])
+        + 0.1962 * (-0.00216 * sphi[0] * kern[7] - 0.00216 * cphi[0] * kern[8]);
+    dG[0] = kern[11] + 9.81 * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
+        - kern[12] + 0.1962 * (kern[6] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
+    dG[1] = t0;
+    dG[2] = t0;
+    dG[3] = 9.81 * (-5.184e-5 * kern[5] * cphi[0] - 5.184e-5 * kern[4] * sphi[0])
+        + 0.1962 * (-0.001728 * cphi[0] * kern[10] - 0.001728 * sphi[0] * kern[9]);
+}
+
+
+/* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
+ * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian(const double q[], double dG[])
+{
+    double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
+    twin_tendon_gravity_jacobian_ws(q, dG, work);
+}
+
 /* Kernels of twin_tendon_potential_energy: pairs (row, moment base). */
 static const unsigned char twin_tendon_potential_energy_rows[6] = {
-    11, 6, 1, 12, 1, 18
+    16, 6, 1, 12, 1, 18
 };
 
 /* U = U_g + 1/2 q^T K q. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 27 reals.
@@ -449,8 +492,8 @@ double twin_tendon_potential_energy(const double q[])
 
 /* Kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
-    0, 0, 12, 6, 1, 12, 1, 18, 2, 12, 2, 18, 13, 18, 3, 12, 14, 12, 14, 18, 15, 18, 12, 18, 4,
-    0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 16, 0, 16, 6, 17, 0, 17, 6, 4, 12, 4, 18, 16, 12, 16, 18,
+    0, 0, 17, 6, 1, 12, 1, 18, 2, 12, 2, 18, 18, 18, 3, 12, 11, 12, 11, 18, 19, 18, 17, 18, 4,
+    0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 13, 0, 13, 6, 12, 0, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18,
     9, 0, 10, 0
 };
 
@@ -745,3 +788,734 @@ int twin_tendon_forward_dynamics(const double q[], const double qd[], const doub
     double work[TWIN_TENDON_FORWARD_DYNAMICS_WORK];
     return twin_tendon_forward_dynamics_ws(q, qd, u, qdd, work);
 }
+
+/* ------------------------------------------------------------------ statics and control
+ *
+ * What a regulator asks of the model: the static residual R = K q + G(q) - A(q) u, its
+ * Jacobian, the equilibrium R = 0 reached by raising the load from the straight shape,
+ * and the two regulators. Every loop below is bounded by constants; nothing allocates.
+ */
+
+/* Largest total bending L_j sum_i |v_{j,i}| [rad] of any segment for a change v of q:
+ * the step bound that keeps the equilibrium solver on the branch it follows. */
+static double twin_tendon_bending(const double v[])
+{
+    double worst = 0.0;
+    double b;
+    b = 0.15 * (fabs(v[0]));
+    if (b > worst) {
+        worst = b;
+    }
+    b = 0.12 * (fabs(v[1]));
+    if (b > worst) {
+        worst = b;
+    }
+    return worst;
+}
+
+/* Euclidean norm of v[0 .. len). */
+static double twin_tendon_norm(const double v[], int len)
+{
+    double s = 0.0;
+    int i;
+    for (i = 0; i < len; ++i) {
+        s += v[i] * v[i];
+    }
+    return sqrt(s);
+}
+
+/* Solves a x = b in place, a n x n row-major (destroyed), b becoming x, by Gaussian
+ * elimination with partial pivoting. Returns 0 when a pivot is at most 1e-14 of the
+ * largest entry of a (singular to working precision) or x is not finite. */
+static int twin_tendon_solve(double a[], double b[])
+{
+    const int n = TWIN_TENDON_NQ;
+    double top = 0.0;
+    int r;
+    int c;
+    int k;
+    for (r = 0; r < n * n; ++r) {
+        if (fabs(a[r]) > top) {
+            top = fabs(a[r]);
+        }
+    }
+    for (c = 0; c < n; ++c) {
+        int p = c;
+        for (r = c + 1; r < n; ++r) {
+            if (fabs(a[r * n + c]) >= fabs(a[p * n + c])) {
+                p = r;
+            }
+        }
+        if (!(fabs(a[p * n + c]) > 1e-14 * top)) {
+            return 0;
+        }
+        if (p != c) {
+            double t;
+            for (k = 0; k < n; ++k) {
+                t = a[c * n + k];
+                a[c * n + k] = a[p * n + k];
+                a[p * n + k] = t;
+            }
+            t = b[c];
+            b[c] = b[p];
+            b[p] = t;
+        }
+        for (r = c + 1; r < n; ++r) {
+            const double f = a[r * n + c] / a[c * n + c];
+            if (f != 0.0) {
+                for (k = c; k < n; ++k) {
+                    a[r * n + k] -= f * a[c * n + k];
+                }
+                b[r] -= f * b[c];
+            }
+        }
+    }
+    for (c = n - 1; c >= 0; --c) {
+        double s = 0.0;
+        for (k = c + 1; k < n; ++k) {
+            s += a[c * n + k] * b[k];
+        }
+        b[c] = (b[c] - s) / a[c * n + c];
+    }
+    for (c = 0; c < n; ++c) {
+        if (!twin_tendon_finite(b[c])) {
+            return 0;
+        }
+    }
+    return 1;
+}
+
+/* Solves the symmetric a x = b in place by Cholesky, a h x h row-major (its lower
+ * triangle becomes the factor), b becoming x. Returns 0 when a pivot is at most
+ * floor times the largest diagonal entry (or not finite). */
+static int twin_tendon_cholesky(int h, double a[], double b[], double floor)
+{
+    double top = 0.0;
+    int i;
+    int j;
+    int c;
+    for (i = 0; i < h; ++i) {
+        if (a[i * h + i] > top) {
+            top = a[i * h + i];
+        }
+    }
+    for (i = 0; i < h; ++i) {
+        for (j = 0; j <= i; ++j) {
+            double s = a[i * h + j];
+            for (c = 0; c < j; ++c) {
+                s -= a[i * h + c] * a[j * h + c];
+            }
+            if (i == j) {
+                if (!(s > floor * top)) {
+                    return 0;
+                }
+                a[i * h + i] = sqrt(s);
+            } else {
+                a[i * h + j] = s / a[j * h + j];
+            }
+        }
+    }
+    for (i = 0; i < h; ++i) {
+        for (c = 0; c < i; ++c) {
+            b[i] -= a[i * h + c] * b[c];
+        }
+        b[i] /= a[i * h + i];
+    }
+    for (i = h - 1; i >= 0; --i) {
+        for (c = i + 1; c < h; ++c) {
+            b[i] -= a[c * h + i] * b[c];
+        }
+        b[i] /= a[i * h + i];
+    }
+    return 1;
+}
+
+/* 1 when v[0 .. len) is all finite. */
+static int twin_tendon_all_finite(const double v[], int len)
+{
+    int i;
+    for (i = 0; i < len; ++i) {
+        if (!twin_tendon_finite(v[i])) {
+            return 0;
+        }
+    }
+    return 1;
+}
+
+int twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[])
+{
+    /* K, A and the scratch of gravity and actuation in
+     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 45 reals. */
+    double *const K = &work[0];
+    double *const A = &work[4];
+    int i;
+    int c;
+    if (!twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+            R[i] = (double)NAN;
+        }
+        return TWIN_TENDON_ERR_NONFINITE_INPUT;
+    }
+    twin_tendon_stiffness(K);
+    twin_tendon_gravity_ws(q, R, &work[12]);
+    twin_tendon_actuation_ws(q, A, &work[12]);
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        double s = R[i];
+        for (c = 0; c < TWIN_TENDON_NQ; ++c) {
+            s += K[i * TWIN_TENDON_NQ + c] * q[c];
+        }
+        for (c = 0; c < TWIN_TENDON_NU; ++c) {
+            s -= A[i * TWIN_TENDON_NU + c] * u[c];
+        }
+        R[i] = s;
+    }
+    return twin_tendon_all_finite(R, TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
+}
+
+int twin_tendon_static_residual(const double q[], const double u[], double R[])
+{
+    double work[TWIN_TENDON_STATIC_RESIDUAL_WORK];
+    return twin_tendon_static_residual_ws(q, u, R, work);
+}
+
+int twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+{
+    /* K and the scratch of gravity_jacobian in
+     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 41 reals. */
+    double *const K = &work[0];
+    int i;
+    int x;
+    if (!twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+        for (i = 0; i < TWIN_TENDON_NQ * TWIN_TENDON_NQ; ++i) {
+            J[i] = (double)NAN;
+        }
+        return TWIN_TENDON_ERR_NONFINITE_INPUT;
+    }
+    (void)u; /* A does not depend on q for this arm's actuators */
+    twin_tendon_stiffness(K);
+    twin_tendon_gravity_jacobian_ws(q, J, &work[4]);
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        for (x = 0; x < TWIN_TENDON_NQ; ++x) {
+            double s = K[i * TWIN_TENDON_NQ + x] + J[i * TWIN_TENDON_NQ + x];
+            J[i * TWIN_TENDON_NQ + x] = s;
+        }
+    }
+    return twin_tendon_all_finite(J, TWIN_TENDON_NQ * TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
+}
+
+int twin_tendon_static_jacobian(const double q[], const double u[], double J[])
+{
+    double work[TWIN_TENDON_STATIC_JACOBIAN_WORK];
+    return twin_tendon_static_jacobian_ws(q, u, J, work);
+}
+
+/* The residual r = K q + lambda (G - A u) of the load fraction lambda, its load
+ * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
+ * is judged against, and (when jac is not null) its Jacobian
+ * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
+ * 47 reals. Returns 0 when r or jac is not finite. */
+static int twin_tendon_linearise(const double q[], const double u[], double lambda,
+    const double K[], double r[], double jac[], double load[], double *scale,
+    double work[])
+{
+    double *const G = &work[0];
+    double *const A = &work[2];
+    double kq2 = 0.0;
+    double g2 = 0.0;
+    double au2 = 0.0;
+    int i;
+    int x;
+    int c;
+    twin_tendon_gravity_ws(q, G, &work[10]);
+    twin_tendon_actuation_ws(q, A, &work[10]);
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        double kq = 0.0;
+        double au = 0.0;
+        for (x = 0; x < TWIN_TENDON_NQ; ++x) {
+            kq += K[i * TWIN_TENDON_NQ + x] * q[x];
+        }
+        for (c = 0; c < TWIN_TENDON_NU; ++c) {
+            au += A[i * TWIN_TENDON_NU + c] * u[c];
+        }
+        load[i] = G[i] - au;
+        r[i] = kq + lambda * load[i];
+        kq2 += kq * kq;
+        g2 += G[i] * G[i];
+        au2 += au * au;
+    }
+    *scale = sqrt(kq2) + lambda * (sqrt(g2) + sqrt(au2)) + 1e-300;
+    if (!twin_tendon_all_finite(r, TWIN_TENDON_NQ)) {
+        return 0;
+    }
+    if (jac == 0) {
+        return 1;
+    }
+    twin_tendon_gravity_jacobian_ws(q, jac, &work[10]);
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        for (x = 0; x < TWIN_TENDON_NQ; ++x) {
+            double d = jac[i * TWIN_TENDON_NQ + x];
+            jac[i * TWIN_TENDON_NQ + x] = K[i * TWIN_TENDON_NQ + x] + lambda * d;
+        }
+    }
+    return twin_tendon_all_finite(jac, TWIN_TENDON_NQ * TWIN_TENDON_NQ);
+}
+
+int twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+    double work[])
+{
+    /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
+     * step dq, the candidate, a copy of jac for the solver, then the linearisation's
+     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 71 reals. */
+    double *const K = &work[0];
+    double *const r = &work[4];
+    double *const jac = &work[6];
+    double *const load = &work[10];
+    double *const tangent = &work[12];
+    double *const trial = &work[14];
+    double *const dq = &work[16];
+    double *const cand = &work[18];
+    double *const lu = &work[20];
+    double *const lw = &work[24];
+    double lambda = 0.0;
+    double step = 1.0;
+    double last = 0.0;
+    double scale;
+    int iterations = 0;
+    int load_steps = 0;
+    int status = TWIN_TENDON_OK;
+    int i;
+    int j;
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        q[i] = 0.0;
+    }
+    if (!twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+        status = TWIN_TENDON_ERR_NONFINITE_INPUT;
+    }
+    twin_tendon_stiffness(K);
+    while (status == TWIN_TENDON_OK && lambda < 1.0) {
+        double dl;
+        double reach;
+        double target;
+        int converged = 0;
+        int it;
+        /* Predictor along the tangent dq/dlambda = -J^-1 (G - A u), its load step cut so
+         * that no segment bends by more than the step bound. */
+        if (!twin_tendon_linearise(q, u, lambda, K, r, jac, load, &scale, lw)) {
+            status = TWIN_TENDON_ERR_NONFINITE_RESULT;
+            break;
+        }
+        memcpy(lu, jac, sizeof(*jac) * TWIN_TENDON_NQ * TWIN_TENDON_NQ);
+        memcpy(tangent, load, sizeof(*load) * TWIN_TENDON_NQ);
+        if (twin_tendon_solve(lu, tangent)) {
+            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                tangent[i] = -tangent[i];
+            }
+        } else {
+            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                tangent[i] = 0.0;
+            }
+        }
+        dl = step < 1.0 - lambda ? step : 1.0 - lambda;
+        reach = twin_tendon_bending(tangent);
+        if (reach * dl > TWIN_TENDON_EQUILIBRIUM_MAX_BENDING_STEP) {
+            dl = TWIN_TENDON_EQUILIBRIUM_MAX_BENDING_STEP / reach;
+            if (dl < TWIN_TENDON_EQUILIBRIUM_MIN_STEP) {
+                dl = TWIN_TENDON_EQUILIBRIUM_MIN_STEP;
+            }
+        }
+        target = lambda + dl >= 1.0 - 1e-15 ? 1.0 : lambda + dl;
+        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+            trial[i] = q[i] + (target - lambda) * tangent[i];
+        }
+        /* Corrector: damped Newton at the new load, backtracking on ||r||. */
+        for (it = 0; it < TWIN_TENDON_EQUILIBRIUM_ITERATIONS_PER_STEP; ++it) {
+            double res;
+            double alpha;
+            double worst;
+            int accepted = 0;
+            int bt;
+            if (iterations >= TWIN_TENDON_EQUILIBRIUM_MAX_ITERATIONS) {
+                break;
+            }
+            ++iterations;
+            if (!twin_tendon_linearise(trial, u, target, K, r, jac, load, &scale, lw)) {
+                status = TWIN_TENDON_ERR_NONFINITE_RESULT;
+                break;
+            }
+            res = twin_tendon_norm(r, TWIN_TENDON_NQ);
+            last = res;
+            if (res <= TWIN_TENDON_EQUILIBRIUM_TOLERANCE * scale) {
+                converged = 1;
+                break;
+            }
+            memcpy(lu, jac, sizeof(*jac) * TWIN_TENDON_NQ * TWIN_TENDON_NQ);
+            memcpy(dq, r, sizeof(*r) * TWIN_TENDON_NQ);
+            if (!twin_tendon_solve(lu, dq)) {
+                break;
+            }
+            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                dq[i] = -dq[i];
+            }
+            worst = twin_tendon_bending(dq);
+            alpha = worst > TWIN_TENDON_EQUILIBRIUM_MAX_BENDING_STEP ? TWIN_TENDON_EQUILIBRIUM_MAX_BENDING_STEP / worst : 1.0;
+            for (bt = 0; bt < 20; ++bt) {
+                double cscale;
+                for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                    cand[i] = trial[i] + alpha * dq[i];
+                }
+                if (twin_tendon_linearise(cand, u, target, K, r, 0, load, &cscale, lw)) {
+                    const double cres = twin_tendon_norm(r, TWIN_TENDON_NQ);
+                    if (cres < res || cres <= TWIN_TENDON_EQUILIBRIUM_TOLERANCE * cscale) {
+                        memcpy(trial, cand, sizeof(*cand) * TWIN_TENDON_NQ);
+                        accepted = 1;
+                        break;
+                    }
+                }
+                alpha *= 0.5;
+            }
+            if (!accepted) {
+                break;
+            }
+        }
+        if (status != TWIN_TENDON_OK) {
+            break;
+        }
+        if (converged) {
+            memcpy(q, trial, sizeof(*trial) * TWIN_TENDON_NQ);
+            lambda = target;
+            ++load_steps;
+            step = 2.0 * dl < 1.0 ? 2.0 * dl : 1.0;
+        } else {
+            step = 0.5 * dl;
+            if (step < TWIN_TENDON_EQUILIBRIUM_MIN_STEP || iterations >= TWIN_TENDON_EQUILIBRIUM_MAX_ITERATIONS) {
+                status = TWIN_TENDON_ERR_NOT_CONVERGED;
+            }
+        }
+    }
+    if (info != 0) {
+        info->iterations = iterations;
+        info->load_steps = load_steps;
+        info->load = lambda;
+        info->residual = last;
+        info->relative_residual = (double)NAN;
+        info->stable = 0;
+    }
+    if (status != TWIN_TENDON_OK) {
+        return status;
+    }
+    if (!twin_tendon_linearise(q, u, 1.0, K, r, jac, load, &scale, lw)) {
+        return TWIN_TENDON_ERR_NONFINITE_RESULT;
+    }
+    if (info != 0) {
+        /* Stable when the symmetric part of the Jacobian is positive definite. */
+        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+            for (j = 0; j < TWIN_TENDON_NQ; ++j) {
+                lu[i * TWIN_TENDON_NQ + j] = 0.5 * (jac[i * TWIN_TENDON_NQ + j] + jac[j * TWIN_TENDON_NQ + i]);
+            }
+            dq[i] = 0.0;
+        }
+        info->residual = twin_tendon_norm(r, TWIN_TENDON_NQ);
+        info->relative_residual = info->residual / scale;
+        info->stable = twin_tendon_cholesky(TWIN_TENDON_NQ, lu, dq, 0.0);
+    }
+    return TWIN_TENDON_OK;
+}
+
+int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info)
+{
+    double work[TWIN_TENDON_EQUILIBRIUM_WORK];
+    return twin_tendon_equilibrium_ws(u, q, info, work);
+}
+
+/* The actuators' limits [lo, hi] from the arm file (tendons: lo = pretension, >= 0);
+ * +-DBL_MAX where the arm file sets none. */
+static const double twin_tendon_u_lo[TWIN_TENDON_NU] = {
+    0.2, 0.2, 0.2, 0.2
+};
+static const double twin_tendon_u_hi[TWIN_TENDON_NU] = {
+    25.0, 25.0, 25.0, 25.0
+};
+
+/* y = S v for v[i * stride] = coordinate i, into y[r * ystride]: the controlled outputs
+ *     1_0 = q[0]
+ *     2_0 = q[1] */
+static void twin_tendon_select(const double v[], int stride, double y[], int ystride)
+{
+    y[0 * ystride] = v[0];
+    y[1 * ystride] = v[1 * stride];
+}
+
+/* The free inputs' optimum with the fixed ones held: H_FF u_F = f_F - H_FB u_B, into
+ * opt (a copy of u elsewhere). sub and rhs: scratch of NU^2 and NU reals. Returns 0
+ * when H_FF is not positive definite. */
+static int twin_tendon_free_optimum(const double hess[], const double f[], const double u[],
+    const unsigned char fixed[], double opt[], double sub[], double rhs[])
+{
+    int free_at[TWIN_TENDON_NU];
+    int nf = 0;
+    int i;
+    int j;
+    for (i = 0; i < TWIN_TENDON_NU; ++i) {
+        opt[i] = u[i];
+        if (!fixed[i]) {
+            free_at[nf++] = i;
+        }
+    }
+    if (nf == 0) {
+        return 1;
+    }
+    for (i = 0; i < nf; ++i) {
+        double s = f[free_at[i]];
+        for (j = 0; j < TWIN_TENDON_NU; ++j) {
+            if (fixed[j]) {
+                s -= hess[free_at[i] * TWIN_TENDON_NU + j] * u[j];
+            }
+        }
+        rhs[i] = s;
+        for (j = 0; j < nf; ++j) {
+            sub[i * nf + j] = hess[free_at[i] * TWIN_TENDON_NU + free_at[j]];
+        }
+    }
+    if (!twin_tendon_cholesky(nf, sub, rhs, 0.0)) {
+        return 0;
+    }
+    for (i = 0; i < nf; ++i) {
+        opt[free_at[i]] = rhs[i];
+    }
+    return 1;
+}
+
+int twin_tendon_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[], double work[])
+{
+    /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
+     * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
+     * polish's Gram matrix, then G, K and the scratch of actuation and gravity, in
+     * work[0 .. TWIN_TENDON_REGULATE_WORK), 113 reals. */
+    double *const A = &work[0];
+    double *const M = &work[8];
+    double *const b = &work[16];
+    double *const y = &work[18];
+    double *const yd = &work[20];
+    double *const hess = &work[22];
+    double *const f = &work[38];
+    double *const opt = &work[42];
+    double *const grad = &work[46];
+    double *const sub = &work[50];
+    double *const rhs = &work[66];
+    double *const gram = &work[70];
+    double *const G = &work[74];
+    double *const K = &work[76];
+    double *const rest = &work[80];
+    unsigned char fixed[TWIN_TENDON_NU];
+    double trace = 0.0;
+    double mu;
+    double shortfall = 0.0;
+    int status = TWIN_TENDON_OK;
+    int nf = 0;
+    int i;
+    int j;
+    int r;
+    int it;
+    /* The relaxed inputs (every input at the point of its range nearest 0): the answer
+     * to a bad call, and the active-set method's feasible start. */
+    for (j = 0; j < TWIN_TENDON_NU; ++j) {
+        u[j] = 0.0 < twin_tendon_u_lo[j] ? twin_tendon_u_lo[j] : (0.0 > twin_tendon_u_hi[j] ? twin_tendon_u_hi[j] : 0.0);
+        fixed[j] = u[j] != 0.0;
+    }
+    if (!twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(qd, TWIN_TENDON_NQ) ||
+        !twin_tendon_all_finite(target, TWIN_TENDON_NY) || !twin_tendon_all_finite(kp, TWIN_TENDON_NY) ||
+        !twin_tendon_all_finite(kd, TWIN_TENDON_NY)) {
+        return TWIN_TENDON_ERR_NONFINITE_INPUT;
+    }
+    if (law != TWIN_TENDON_LAW_BASELINE && law != TWIN_TENDON_LAW_COMPENSATED) {
+        return TWIN_TENDON_ERR_BAD_ARGUMENT;
+    }
+    for (r = 0; r < TWIN_TENDON_NY; ++r) {
+        if (!(kp[r] > 0.0) || !(kd[r] > 0.0)) {
+            return TWIN_TENDON_ERR_BAD_ARGUMENT;
+        }
+    }
+    /* b = Kp (target - S q) - Kd S q' [+ S (K q + G)]. */
+    twin_tendon_actuation_ws(q, A, rest);
+    twin_tendon_select(q, 1, y, 1);
+    twin_tendon_select(qd, 1, yd, 1);
+    for (r = 0; r < TWIN_TENDON_NY; ++r) {
+        b[r] = kp[r] * (target[r] - y[r]) - kd[r] * yd[r];
+    }
+    if (law == TWIN_TENDON_LAW_COMPENSATED) {
+        twin_tendon_gravity_ws(q, G, rest);
+        twin_tendon_stiffness(K);
+        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+            for (j = 0; j < TWIN_TENDON_NQ; ++j) {
+                G[i] += K[i * TWIN_TENDON_NQ + j] * q[j];
+            }
+        }
+        twin_tendon_select(G, 1, y, 1);
+        for (r = 0; r < TWIN_TENDON_NY; ++r) {
+            b[r] += y[r];
+        }
+    }
+    for (j = 0; j < TWIN_TENDON_NU; ++j) {
+        twin_tendon_select(&A[j], TWIN_TENDON_NU, &M[j], TWIN_TENDON_NU);
+    }
+    /* Normal equations (M^T M + mu I) u = M^T b, mu = 1e-12 tr(M^T M) / NU. */
+    for (i = 0; i < TWIN_TENDON_NU; ++i) {
+        f[i] = 0.0;
+        for (j = 0; j < TWIN_TENDON_NU; ++j) {
+            hess[i * TWIN_TENDON_NU + j] = 0.0;
+        }
+    }
+    for (r = 0; r < TWIN_TENDON_NY; ++r) {
+        for (i = 0; i < TWIN_TENDON_NU; ++i) {
+            f[i] += M[r * TWIN_TENDON_NU + i] * b[r];
+            for (j = 0; j < TWIN_TENDON_NU; ++j) {
+                hess[i * TWIN_TENDON_NU + j] += M[r * TWIN_TENDON_NU + i] * M[r * TWIN_TENDON_NU + j];
+            }
+        }
+    }
+    for (i = 0; i < TWIN_TENDON_NU; ++i) {
+        trace += hess[i * TWIN_TENDON_NU + i];
+    }
+    mu = trace > 0.0 ? 1e-12 * trace / TWIN_TENDON_NU : 1.0;
+    for (i = 0; i < TWIN_TENDON_NU; ++i) {
+        hess[i * TWIN_TENDON_NU + i] += mu;
+    }
+    /* Primal active set: each iteration fixes or frees one input, and the objective
+     * falls strictly, so no set repeats; TWIN_TENDON_REGULATE_ITERATIONS is a guard. */
+    for (it = 0; it < TWIN_TENDON_REGULATE_ITERATIONS; ++it) {
+        double alpha = 1.0;
+        double unorm;
+        double fnorm;
+        double gscale;
+        double worst = 0.0;
+        double block_at = 0.0;
+        int blocking = -1;
+        int release = -1;
+        if (!twin_tendon_free_optimum(hess, f, u, fixed, opt, sub, rhs)) {
+            break;
+        }
+        /* Walk toward the free optimum until an input meets a limit. */
+        for (i = 0; i < TWIN_TENDON_NU; ++i) {
+            const double d = opt[i] - u[i];
+            double bound;
+            if (fixed[i] || d == 0.0) {
+                continue;
+            }
+            bound = d < 0.0 ? twin_tendon_u_lo[i] : twin_tendon_u_hi[i];
+            if (fabs(bound) < DBL_MAX) {
+                double reach = (bound - u[i]) / d;
+                if (reach < alpha) {
+                    alpha = reach > 0.0 ? reach : 0.0;
+                    blocking = i;
+                    block_at = bound;
+                }
+            }
+        }
+        for (i = 0; i < TWIN_TENDON_NU; ++i) {
+            if (!fixed[i]) {
+                u[i] += alpha * (opt[i] - u[i]);
+            }
+        }
+        if (blocking >= 0) {
+            u[blocking] = block_at;
+            fixed[blocking] = 1;
+            continue;
+        }
+        /* At the optimum of this set: free the fixed input whose multiplier has the
+         * wrong sign (the gradient pushes it back inside), if any. */
+        unorm = twin_tendon_norm(u, TWIN_TENDON_NU);
+        fnorm = twin_tendon_norm(f, TWIN_TENDON_NU);
+        gscale = fnorm + sqrt(trace) * unorm + 1e-300;
+        for (i = 0; i < TWIN_TENDON_NU; ++i) {
+            grad[i] = -f[i];
+            for (j = 0; j < TWIN_TENDON_NU; ++j) {
+                grad[i] += hess[i * TWIN_TENDON_NU + j] * u[j];
+            }
+        }
+        for (i = 0; i < TWIN_TENDON_NU; ++i) {
+            double wrong;
+            if (!fixed[i]) {
+                continue;
+            }
+            wrong = u[i] <= twin_tendon_u_lo[i] ? -grad[i] : grad[i];
+            if (wrong > 1e-14 * gscale && wrong >= worst) {
+                worst = wrong;
+                release = i;
+            }
+        }
+        if (release < 0) {
+            break;
+        }
+        fixed[release] = 0;
+    }
+    /* Polish: the free inputs become the exact minimum-norm solution of
+     * M_F u_F = b - M_B u_B when the free columns' Gram matrix is well conditioned and
+     * the result stays within the limits. */
+    for (i = 0; i < TWIN_TENDON_NU; ++i) {
+        nf += !fixed[i];
+    }
+    if (nf >= TWIN_TENDON_NY) {
+        int in_range = 1;
+        for (r = 0; r < TWIN_TENDON_NY; ++r) {
+            double s = b[r];
+            for (i = 0; i < TWIN_TENDON_NU; ++i) {
+                if (fixed[i]) {
+                    s -= M[r * TWIN_TENDON_NU + i] * u[i];
+                }
+            }
+            rhs[r] = s;
+            for (j = 0; j < TWIN_TENDON_NY; ++j) {
+                double g = 0.0;
+                for (i = 0; i < TWIN_TENDON_NU; ++i) {
+                    if (!fixed[i]) {
+                        g += M[r * TWIN_TENDON_NU + i] * M[j * TWIN_TENDON_NU + i];
+                    }
+                }
+                gram[r * TWIN_TENDON_NY + j] = g;
+            }
+        }
+        if (twin_tendon_cholesky(TWIN_TENDON_NY, gram, rhs, 1e-10)) {
+            for (i = 0; i < TWIN_TENDON_NU; ++i) {
+                opt[i] = u[i];
+                if (!fixed[i]) {
+                    double s = 0.0;
+                    for (r = 0; r < TWIN_TENDON_NY; ++r) {
+                        s += M[r * TWIN_TENDON_NU + i] * rhs[r];
+                    }
+                    opt[i] = s;
+                    in_range = in_range && twin_tendon_finite(s) && s >= twin_tendon_u_lo[i] && s <= twin_tendon_u_hi[i];
+                }
+            }
+            if (in_range) {
+                memcpy(u, opt, sizeof(*opt) * TWIN_TENDON_NU);
+            }
+        }
+    }
+    /* Saturated when the limits leave ||b - M u|| above 1e-9 of ||b||. */
+    for (r = 0; r < TWIN_TENDON_NY; ++r) {
+        double s = b[r];
+        for (i = 0; i < TWIN_TENDON_NU; ++i) {
+            s -= M[r * TWIN_TENDON_NU + i] * u[i];
+        }
+        shortfall += s * s;
+    }
+    if (!twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+        for (j = 0; j < TWIN_TENDON_NU; ++j) {
+            u[j] = 0.0 < twin_tendon_u_lo[j] ? twin_tendon_u_lo[j] : (0.0 > twin_tendon_u_hi[j] ? twin_tendon_u_hi[j] : 0.0);
+        }
+        return TWIN_TENDON_ERR_NONFINITE_RESULT;
+    }
+    if (!(sqrt(shortfall) <= 1e-9 * (twin_tendon_norm(b, TWIN_TENDON_NY) + 1e-300))) {
+        status = TWIN_TENDON_SATURATED;
+    }
+    return status;
+}
+
+int twin_tendon_regulate(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[])
+{
+    double work[TWIN_TENDON_REGULATE_WORK];
+    return twin_tendon_regulate_ws(law, target, kp, kd, q, qd, u, work);
+}
+

@@ -51,7 +51,7 @@ extern "C" {
 /** Number of segments. */
 #define TWIN_TENDON_NSEG 2
 
-/** Return codes of twin_tendon_forward_dynamics. */
+/** Return codes of the functions that return int. */
 #define TWIN_TENDON_OK 0
 /** q, qd or u holds a NaN or an infinity. */
 #define TWIN_TENDON_ERR_NONFINITE_INPUT 1
@@ -59,6 +59,12 @@ extern "C" {
 #define TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE 2
 /** The result overflowed (q'' not finite). */
 #define TWIN_TENDON_ERR_NONFINITE_RESULT 3
+/** twin_tendon_equilibrium: the load continuation stalled within its iteration bound. */
+#define TWIN_TENDON_ERR_NOT_CONVERGED 4
+/** twin_tendon_regulate: an unknown law, or a gain that is not positive. */
+#define TWIN_TENDON_ERR_BAD_ARGUMENT 5
+/** twin_tendon_regulate: u is within the limits, but they keep it from the wanted force. */
+#define TWIN_TENDON_SATURATED 6
 
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
@@ -153,6 +159,99 @@ double twin_tendon_potential_energy(const double q[]);
 int twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
+/**
+ * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
+ * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+ */
+void twin_tendon_gravity_jacobian(const double q[], double dG[]);
+
+/**
+ * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
+ * inputs u. Returns TWIN_TENDON_OK, TWIN_TENDON_ERR_NONFINITE_INPUT (R is then NaN) or
+ * TWIN_TENDON_ERR_NONFINITE_RESULT.
+ */
+int twin_tendon_static_residual(const double q[], const double u[], double R[]);
+
+/**
+ * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
+ * Every load of the model is conservative, so it is symmetric: the Hessian of the
+ * potential energy, positive definite at a stable equilibrium. Return codes as
+ * twin_tendon_static_residual.
+ */
+int twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
+
+/** What twin_tendon_equilibrium did. */
+typedef struct {
+    int iterations;           /* Newton iterations in all */
+    int load_steps;           /* continuation steps taken */
+    double load;               /* load fraction reached (1 on success) */
+    double residual;           /* ||K q + G - A u||_2 at q (the last one tried on failure) */
+    double relative_residual;  /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure */
+    int stable;               /* 1 when dR/dq is positive definite: a local minimum of the
+                                 potential energy */
+} twin_tendon_equilibrium_info;
+
+/*
+ * Tuning of twin_tendon_equilibrium; define before including this header to override.
+ * Converged when ||R|| <= TOLERANCE (||K q|| + ||G|| + ||A u||); each Newton step bends
+ * no segment by more than MAX_BENDING_STEP [rad]; a continuation step that fails is
+ * halved down to MIN_STEP of the load.
+ */
+#ifndef TWIN_TENDON_EQUILIBRIUM_TOLERANCE
+#define TWIN_TENDON_EQUILIBRIUM_TOLERANCE 1e-12
+#endif
+#ifndef TWIN_TENDON_EQUILIBRIUM_MAX_ITERATIONS
+#define TWIN_TENDON_EQUILIBRIUM_MAX_ITERATIONS 2000
+#endif
+#define TWIN_TENDON_EQUILIBRIUM_ITERATIONS_PER_STEP 12
+#define TWIN_TENDON_EQUILIBRIUM_MIN_STEP 1e-6
+#define TWIN_TENDON_EQUILIBRIUM_MAX_BENDING_STEP 0.5
+
+/**
+ * Equilibrium K q + G(q) = A(q) u: the shape the arm rests in under the inputs u and
+ * gravity. Damped Newton with the exact Jacobian (twin_tendon_static_jacobian) and load
+ * continuation from the straight shape q = 0, so that the branch found is the one the
+ * arm reaches when the load is applied slowly (the same algorithm and settings as
+ * `arcwright statics`). At most TWIN_TENDON_EQUILIBRIUM_MAX_ITERATIONS Newton iterations,
+ * each a few evaluations of G, A and dG/dq. info may be a null pointer.
+ * Returns TWIN_TENDON_OK; TWIN_TENDON_ERR_NOT_CONVERGED (q then holds the last equilibrium
+ * on the way, at load fraction info->load: never take it for the answer);
+ * TWIN_TENDON_ERR_NONFINITE_INPUT (q = 0); TWIN_TENDON_ERR_NONFINITE_RESULT.
+ */
+int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
+
+/** Number of controlled outputs y = S q of twin_tendon_regulate. */
+#define TWIN_TENDON_NY 2
+/** The regulators of twin_tendon_regulate. */
+#define TWIN_TENDON_LAW_BASELINE 0
+#define TWIN_TENDON_LAW_COMPENSATED 1
+/** Most active-set iterations of the input allocation (4 NU + 8). */
+#define TWIN_TENDON_REGULATE_ITERATIONS 24
+
+/**
+ * Regulator: the inputs u (length NU) that drive the controlled outputs y = S q
+ * toward target (length NY) at the state (q, q'):
+ *   baseline     u = (S A)^+ [Kp (target - y) - Kd y'],
+ *   compensated  u = (S A)^+ [Kp (target - y) - Kd y' + S (K q + G(q))],
+ * the same PD plus the elastic and gravity load of the model on the outputs, which
+ * puts y at rest exactly on target (the baseline leaves a steady-state error).
+ * The outputs, one per segment (segment-major, labels as `arcwright simulate`):
+ *     y[0] = 1_0 = q[0]
+ *     y[1] = 2_0 = q[1]
+ * kp and kd (length NY) must be positive. (S A)^+ is the allocation within the
+ * actuators' limits of the arm file (tendons pull only, never below their pretension):
+ * the u nearest S A u = b in the least-squares sense, the least-norm one among
+ * equals (antagonistic tendons share the work). Returns TWIN_TENDON_OK;
+ * TWIN_TENDON_SATURATED when the limits keep u from the wanted force (u is still the
+ * best the limits allow); TWIN_TENDON_ERR_NONFINITE_INPUT or TWIN_TENDON_ERR_BAD_ARGUMENT
+ * (law or gains), when u holds the relaxed inputs (each at the point of its range
+ * nearest 0: tendons at their pretension).
+ * This computes a command; it does not make it safe. Rate-limit and bound it, and
+ * stop the arm when the return code or the state is not what you expect.
+ */
+int twin_tendon_regulate(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[]);
+
 /*
  * Caller-provided scratch. Every function above that takes q has a _ws variant with
  * one more argument, work: scratch that the caller owns, at least the function's
@@ -166,13 +265,18 @@ int twin_tendon_forward_dynamics(const double q[], const double qd[], const doub
 #define TWIN_TENDON_GRAVITY_WORK 33
 #define TWIN_TENDON_ACTUATION_WORK 1
 #define TWIN_TENDON_TIP_JACOBIAN_WORK 28
+#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 37
 #define TWIN_TENDON_POTENTIAL_ENERGY_WORK 27
 #define TWIN_TENDON_TERMS_WORK 52
 #define TWIN_TENDON_KINETIC_ENERGY_WORK 42
 #define TWIN_TENDON_CORIOLIS_WORK 58
 #define TWIN_TENDON_POSE_WORK 26
 #define TWIN_TENDON_FORWARD_DYNAMICS_WORK 83
-#define TWIN_TENDON_WORK_LEN 83
+#define TWIN_TENDON_STATIC_RESIDUAL_WORK 45
+#define TWIN_TENDON_STATIC_JACOBIAN_WORK 41
+#define TWIN_TENDON_EQUILIBRIUM_WORK 71
+#define TWIN_TENDON_REGULATE_WORK 113
+#define TWIN_TENDON_WORK_LEN 113
 
 void twin_tendon_inertia_ws(const double q[], double B[], double work[]);
 void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
@@ -187,6 +291,13 @@ double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double
 double twin_tendon_potential_energy_ws(const double q[], double work[]);
 int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[]);
+void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[]);
+int twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+int twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+int twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+    double work[]);
+int twin_tendon_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[], double work[]);
 
 #ifdef __cplusplus
 }

@@ -345,6 +345,246 @@ G_BNORM = np.array([
         1.62053591591672e-5
     ],
 ])
+G_DG = np.array([
+    [
+        0.0, 0.0, 0.0, 0.0
+    ],
+    [
+        -1.82511984375e-12, -5.12082e-13, -5.12082e-13, -2.6557632e-13
+    ],
+    [
+        -2.05291589986623e-4, -2.46647515454111e-5, -2.46647515454111e-5, -9.02691489511488e-6
+    ],
+    [
+        -7.65095415883229e-4, -2.44448350591231e-4, -2.44448350591231e-4, -1.34068936413804e-4
+    ],
+    [
+        -3.97305e-13, -1.94238e-13, -1.94238e-13, -1.1018592e-13
+    ],
+    [
+        -8.64244379919075e-4, 2.45068214132182e-5, 2.45068214132182e-5, 4.00216025241161e-5
+    ],
+])
+G_R = np.array([
+    [
+        1.362301875e-2, 2.20356e-3
+    ],
+    [
+        1.3404768765e-2, 2.028960009e-3
+    ],
+    [
+        1.64794651637483e-2, 2.20026275545009e-4
+    ],
+    [
+        4.6080950244951e-2, -2.38865511688418e-2
+    ],
+    [
+        1.359601875e-2, 2.181960009e-3
+    ],
+    [
+        2.67922698776221e-2, 1.60413838426452e-2
+    ],
+])
+G_JS = np.array([
+    [
+        2.25e-3, 0.0, 0.0, 1.08e-3
+    ],
+    [
+        2.24999999817488e-3, -5.12082e-13, -5.12082e-13, 1.07999999973442e-3
+    ],
+    [
+        2.04470841001338e-3, -2.46647515454111e-5, -2.46647515454111e-5, 1.07097308510489e-3
+    ],
+    [
+        1.48490458411677e-3, -2.44448350591231e-4, -2.44448350591231e-4, 9.45931063586196e-4
+    ],
+    [
+        2.2499999996027e-3, -1.94238e-13, -1.94238e-13, 1.07999999988981e-3
+    ],
+    [
+        1.38575562008092e-3, 2.45068214132182e-5, 2.45068214132182e-5, 1.12002160252412e-3
+    ],
+])
+G_UEQ = np.array([
+    [
+        0.0, 0.0, 0.0, 0.0
+    ],
+    [
+        1.0, -6.66666666666667e-1, 5.0e-1, -1.16666666666667
+    ],
+    [
+        1.0, -4.0, -5.0e-1, 3.0
+    ],
+    [
+        -1.42857142857143, 3.57142857142857, -3.57142857142857, 1.42857142857143
+    ],
+    [
+        -8.57142857142858, 1.42857142857143, 1.14285714285714e1, -2.85714285714286
+    ],
+    [
+        5.83333333333333, -2.5, 3.33333333333333, -5.0
+    ],
+])
+G_QEQ = np.array([
+    [
+        -4.84923529187833, -1.33038514342275
+    ],
+    [
+        -2.9956107864594, 4.29182625642928e-1
+    ],
+    [
+        -4.30636727402907, 4.80709081890008
+    ],
+    [
+        -9.50656977337096, -6.09195307608816
+    ],
+    [
+        -1.35149019757486, -1.39381086829593e1
+    ],
+    [
+        1.54901032364002e1, 1.29195232912992e1
+    ],
+])
+G_EQSTABLE = np.array([
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+])
+G_YTARGET = np.array([
+    [
+        1.5e-1, 4.375e-1
+    ],
+    [
+        -2.49999993333333e-1, 1.87500008333333e-1
+    ],
+    [
+        8.33333333333333e-1, -1.72916666666667
+    ],
+    [
+        2.36458333333333e1, -2.19791666666667e1
+    ],
+    [
+        6.25e-2, 5.00000008333333e-1
+    ],
+    [
+        1.31458333333333e1, 1.69166666666667e1
+    ],
+])
+G_KP = np.array([
+    [
+        5.0e-2, 6.25e-2
+    ],
+    [
+        5.0e-2, 6.25e-2
+    ],
+    [
+        5.0e-2, 6.25e-2
+    ],
+    [
+        5.0e1, 6.25e1
+    ],
+    [
+        5.0e-2, 6.25e-2
+    ],
+    [
+        5.0e-2, 6.25e-2
+    ],
+])
+G_KD = np.array([
+    [
+        4.0e-3, 6.0e-3
+    ],
+    [
+        4.0e-3, 6.0e-3
+    ],
+    [
+        4.0e-3, 6.0e-3
+    ],
+    [
+        4.0, 6.0
+    ],
+    [
+        4.0e-3, 6.0e-3
+    ],
+    [
+        4.0e-3, 6.0e-3
+    ],
+])
+G_UBASE = np.array([
+    [
+        1.95532986111111e1, 2.0e-1, 2.0e-1, 1.38310763888889e1
+    ],
+    [
+        1.01609375e1, 2.0e-1, 2.0e-1, 1.80776041666667e1
+    ],
+    [
+        2.0e-1, 5.82934027777778, 2.0e-1, 8.65399305555555
+    ],
+    [
+        2.0e-1, 2.5e1, 2.5e1, 2.0e-1
+    ],
+    [
+        2.10263888888889e1, 2.0e-1, 2.0e-1, 1.79291666666667e1
+    ],
+    [
+        1.25090277777778e1, 2.0e-1, 2.0e-1, 1.88840277777778e1
+    ],
+])
+G_UCOMP = np.array([
+    [
+        2.10247986111111e1, 2.0e-1, 2.0e-1, 7.73048263888889
+    ],
+    [
+        1.163243750625e1, 2.0e-1, 2.0e-1, 1.19770104145833e1
+    ],
+    [
+        2.0e-1, 5.61404425309374, 7.0471934406502e-1, 2.0e-1
+    ],
+    [
+        2.0e-1, 2.5e1, 2.5e1, 2.0e-1
+    ],
+    [
+        2.24978888951389e1, 2.0e-1, 2.0e-1, 1.18285729229167e1
+    ],
+    [
+        2.37113776685036e1, 2.0e-1, 2.0e-1, 1.50767832920469e1
+    ],
+])
+G_REGSAT = np.array([
+    [
+        0.0, 0.0
+    ],
+    [
+        0.0, 0.0
+    ],
+    [
+        0.0, 0.0
+    ],
+    [
+        1.0, 1.0
+    ],
+    [
+        0.0, 0.0
+    ],
+    [
+        0.0, 0.0
+    ],
+])
 SCALE_B = 3.158398125e-5
 SCALE_C = 1.72177574906104e-7
 SCALE_G = 1.362976875e-2
@@ -355,6 +595,12 @@ SCALE_J = 1.5e-1
 SCALE_T = 8.11100926125001e-6
 SCALE_V = 9.51895744715522e-1
 SCALE_POSE = 4.0
+SCALE_DG = 8.64244379919075e-4
+SCALE_R = 4.6080950244951e-2
+SCALE_JS = 2.25e-3
+SCALE_QEQ = 1.54901032364002e1
+SCALE_UBASE = 2.5e1
+SCALE_UCOMP = 2.5e1
 
 
 def _check(what, got, want, scale):
@@ -412,6 +658,46 @@ def test_forward_dynamics_residual():
         assert np.array_equal(arm.make_rhs(lambda t, x: u)(0.0, x), np.concatenate([qd, qdd]))
 
 
+def test_statics():
+    for c, label in enumerate(LABELS):
+        q, _, u = _state(c)
+        _check(f"gravity_jacobian [{label}]", arm.gravity_jacobian(q), G_DG[c], SCALE_DG)
+        _check(f"static_residual [{label}]", arm.static_residual(q, u), G_R[c], SCALE_R)
+        _check(f"static_jacobian [{label}]", arm.static_jacobian(q, u), G_JS[c], SCALE_JS)
+        eq = arm.equilibrium(G_UEQ[c][: arm.NU])
+        _check(f"equilibrium [{label}]", eq["q"], G_QEQ[c], SCALE_QEQ)
+        assert eq["stable"] == (G_EQSTABLE[c][0] > 0.5), f"equilibrium stability [{label}]"
+        assert eq["relative_residual"] <= arm.EQUILIBRIUM_TOLERANCE
+
+
+def test_regulators():
+    for c, label in enumerate(LABELS):
+        q, qd, _ = _state(c)
+        for law, want, scale, sat in (
+            (arm.LAW_BASELINE, G_UBASE[c], SCALE_UBASE, G_REGSAT[c][0] > 0.5),
+            (arm.LAW_COMPENSATED, G_UCOMP[c], SCALE_UCOMP, G_REGSAT[c][1] > 0.5),
+        ):
+            u, saturated = arm.regulate(law, G_YTARGET[c], G_KP[c], G_KD[c], q, qd)
+            _check(f"regulate {law} [{label}]", u, want, scale)
+            assert saturated == sat, f"regulate {law} [{label}]: saturated {saturated}"
+            for v, (lo, hi) in zip(u, arm.INPUT_LIMITS):
+                assert lo <= v <= hi, f"regulate {law} [{label}]: {v} outside [{lo}, {hi}]"
+
+
+def test_regulate_rejects_bad_calls():
+    q, qd, _ = _state(2)
+    t, g = [0.1] * arm.NY, [0.01] * arm.NY
+    for law, kp, qq in (("sideways", g, q), (arm.LAW_BASELINE, [0.0] * arm.NY, q),
+                        (arm.LAW_BASELINE, g, np.full(arm.NQ, math.nan))):
+        try:
+            arm.regulate(law, t, kp, g, qq, qd)
+        except arm.RegulateError:
+            pass
+        else:
+            raise AssertionError(f"regulate accepted {law!r}, {kp}, {qq}")
+    assert np.all(np.isfinite(arm.relaxed_inputs()))
+
+
 def test_invalid_arguments():
     q = G_Q[2].copy()
     assert np.isnan(arm.pose(q, arm.NSEG, 0.5)).all()
@@ -425,6 +711,12 @@ def test_invalid_arguments():
         pass
     else:
         raise AssertionError("forward dynamics accepted a NaN q")
+    try:
+        arm.static_residual(q, G_U[2][: arm.NU])
+    except arm.StaticsError:
+        pass
+    else:
+        raise AssertionError("static_residual accepted a NaN q")
     # The unchecked functions pass a NaN through to what depends on it.
     assert np.isnan(arm.inertia(q)).any()
     assert math.isnan(arm.pose(q, arm.NSEG - 1, 1.0)[2])

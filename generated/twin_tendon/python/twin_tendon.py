@@ -51,7 +51,10 @@ import numpy as np
 __all__ = [
     "NQ", "NU", "NSEG", "DynamicsError", "inertia", "coriolis", "gravity", "stiffness",
     "damping", "actuation", "pose", "tip_jacobian", "kinetic_energy", "potential_energy",
-    "terms", "forward_dynamics", "rhs", "make_rhs",
+    "terms", "forward_dynamics", "rhs", "make_rhs", "gravity_jacobian", "static_residual",
+    "static_jacobian", "equilibrium", "StaticsError", "EQUILIBRIUM_TOLERANCE",
+    "EQUILIBRIUM_MAX_ITERATIONS", "NY", "OUTPUT_LABELS", "INPUT_LIMITS", "LAW_BASELINE",
+    "LAW_COMPENSATED", "RegulateError", "relaxed_inputs", "regulate",
 ]
 
 NQ = 2
@@ -88,22 +91,24 @@ _SERIES = (
 # _KERNEL_COEF[_KERNEL_START[r]:_KERNEL_START[r + 1]] with nu[b + _KERNEL_FIRST[r]:]; a row
 # is shared by every segment (and by real and imaginary parts) with the same weight shape.
 _KERNEL_START = (
-    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 35, 41, 45, 49, 54, 57, 60,
+    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 37, 40, 43, 47, 50, 52, 58, 62, 67,
 )
 _KERNEL_FIRST = (
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 )
 _KERNEL_COEF = np.array((
     1.32890625e-6, -2.21484375e-6, 9.4921875e-7, 0.0, -6.328125e-8, 0.5, -0.5,
     0.16666666666666666, 0.0, -0.16666666666666666, 3.1104e-7, -5.184e-7, 2.2217142857142857e-7,
     0.0, -1.4811428571428572e-8, 0.5, 0.5, -0.01125, -0.01125, 0.01125, 0.01125, 3.24e-6,
     -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8, 0.00193134375, 0.0,
-    -0.00193134375, -0.003310875, -0.003310875, 0.038626875, -0.038626875, 0.005555555555555556,
+    -0.00193134375, -0.003310875, -0.003310875, 0.08333333333333333, 0.05, -0.08333333333333333,
+    -0.05, -0.001125, -0.0016875, -0.0005625, 0.3333333333333333, 0.5, 0.16666666666666666,
+    -0.00014485078125, -8.691046875e-5, 0.00014485078125, 8.691046875e-5, 0.0003310875,
+    0.00049663125, 0.00016554375, 0.038626875, -0.038626875, 0.005555555555555556,
     -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
     -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
-    0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.03333333333333333,
-    -0.016666666666666666, -0.03571428571428571, 0.016666666666666666, 0.002380952380952381,
-    0.3333333333333333, 0.5, 0.16666666666666666, -0.001125, -0.0016875, -0.0005625,
+    0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
+    0.002380952380952381,
 ))
 
 
@@ -354,18 +359,9 @@ def tip_jacobian(q):
     out[2, 1] = 0.12
     return out
 
-
-def kinetic_energy(q, qd):
-    """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
-
-    Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
-    """
-    qd = np.asarray(_vector(qd, NQ, "qd"))
-    return float(0.5 * qd @ inertia(q) @ qd)
-
 # pairs (row, moment base)
 _POTENTIAL_ENERGY_ROWS = _kernel_plan((
-    11, 6, 1, 12, 1, 18,
+    16, 6, 1, 12, 1, 18,
 ))
 
 def potential_energy(q):
@@ -388,10 +384,51 @@ def potential_energy(q):
         + 0.1962 * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0])
         + 0.5 * (0.00225 * q[0] * q[0] + 0.00108 * q[1] * q[1]))
 
+
+def kinetic_energy(q, qd):
+    """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
+
+    Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
+    """
+    qd = np.asarray(_vector(qd, NQ, "qd"))
+    return float(0.5 * qd @ inertia(q) @ qd)
+
+# pairs (row, moment base)
+_GRAVITY_JACOBIAN_ROWS = _kernel_plan((
+    1, 12, 1, 18, 2, 12, 2, 18, 11, 12, 11, 18, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18, 14, 6, 15,
+    6,
+))
+
+def gravity_jacobian(q):
+    """Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric.
+
+    Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+    """
+    q = _vector(q, NQ, "q")
+    nu = [0.0] * _NU_LEN
+    _moments(0.15 * q[0], 4, nu, 0, 6)
+    _moments(0.12 * q[1], 4, nu, 12, 18)
+    cphi = [0.0] * 1
+    sphi = [0.0] * 1
+    phi = 0.15 * q[0]
+    cphi[0] = math.cos(phi)
+    sphi[0] = math.sin(phi)
+    kern = _kernels(_GRAVITY_JACOBIAN_ROWS, nu)
+    out = np.zeros((NQ, NQ))
+    t0 = (9.81 * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0])
+        + 0.1962 * (-0.00216 * sphi[0] * kern[7] - 0.00216 * cphi[0] * kern[8]))
+    out[0, 0] = (kern[11] + 9.81 * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
+        - kern[12] + 0.1962 * (kern[6] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]))
+    out[0, 1] = t0
+    out[1, 0] = t0
+    out[1, 1] = (9.81 * (-5.184e-5 * kern[5] * cphi[0] - 5.184e-5 * kern[4] * sphi[0])
+        + 0.1962 * (-0.001728 * cphi[0] * kern[10] - 0.001728 * sphi[0] * kern[9]))
+    return out
+
 # pairs (row, moment base)
 _TERMS_ROWS = _kernel_plan((
-    0, 0, 12, 6, 1, 12, 1, 18, 2, 12, 2, 18, 13, 18, 3, 12, 14, 12, 14, 18, 15, 18, 12, 18, 4,
-    0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 16, 0, 16, 6, 17, 0, 17, 6, 4, 12, 4, 18, 16, 12, 16, 18,
+    0, 0, 17, 6, 1, 12, 1, 18, 2, 12, 2, 18, 18, 18, 3, 12, 11, 12, 11, 18, 19, 18, 17, 18, 4,
+    0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 13, 0, 13, 6, 12, 0, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18,
     9, 0, 10, 0,
 ))
 
@@ -587,3 +624,358 @@ def rhs(t, x, u):
 def make_rhs(u):
     """rhs with the inputs bound: f(t, x) = rhs(t, x, u), for solve_ivp(f, ...)."""
     return lambda t, x: rhs(t, x, u)
+
+
+# ------------------------------------------------------------------ statics and control
+#
+# The static residual R = K q + G(q) - A(q) u, its Jacobian, the equilibrium R = 0
+# reached by raising the load from the straight shape, and the two regulators: the
+# algorithms of `arcwright statics` and `arcwright simulate --controller`, loop for loop.
+
+
+class StaticsError(ValueError):
+    """No equilibrium: a non-finite input, a model that is not finite where the solver
+    went, or a load continuation that stalled (then .load, .residual, .iterations and
+    .q, the last equilibrium on the way, never to be taken for the answer)."""
+
+    def __init__(self, message, load=None, residual=None, iterations=None, q=None):
+        super().__init__(message)
+        self.load = load
+        self.residual = residual
+        self.iterations = iterations
+        self.q = q
+
+
+EQUILIBRIUM_TOLERANCE = 1e-12
+EQUILIBRIUM_MAX_ITERATIONS = 2000
+_ITERATIONS_PER_STEP = 12
+_MIN_STEP = 1e-6
+_MAX_BENDING_STEP = 0.5
+# Per segment: length L_j and the slice of its coordinates in q.
+_SEG_LENGTHS = (0.15, 0.12,)
+_SEG_SPANS = ((0, 1), (1, 2),)
+
+
+def _bending(v):
+    """Largest total bending L_j sum_i |v_{j,i}| [rad] of any segment for a change v of q."""
+    return max(l * sum(abs(x) for x in v[a:b]) for l, (a, b) in zip(_SEG_LENGTHS, _SEG_SPANS))
+
+
+def _norm(v):
+    return math.sqrt(sum(x * x for x in v))
+
+
+def _solve(a, b):
+    """a x = b by Gaussian elimination with partial pivoting (a: list of rows, copied);
+    None when a pivot is at most 1e-14 of the largest entry or x is not finite."""
+    n = len(b)
+    m = [list(r) for r in a]
+    x = list(b)
+    top = max(abs(v) for r in m for v in r)
+    for c in range(n):
+        p = c
+        for r in range(c + 1, n):
+            if abs(m[r][c]) >= abs(m[p][c]):
+                p = r
+        if not abs(m[p][c]) > 1e-14 * top:
+            return None
+        m[c], m[p] = m[p], m[c]
+        x[c], x[p] = x[p], x[c]
+        for r in range(c + 1, n):
+            f = m[r][c] / m[c][c]
+            if f != 0.0:
+                for k in range(c, n):
+                    m[r][k] -= f * m[c][k]
+                x[r] -= f * x[c]
+    for c in reversed(range(n)):
+        s = sum(m[c][k] * x[k] for k in range(c + 1, n))
+        x[c] = (x[c] - s) / m[c][c]
+    return x if all(math.isfinite(v) for v in x) else None
+
+
+def _cholesky(a, b, floor):
+    """The symmetric a x = b by Cholesky (a: list of rows, copied); None when a pivot is
+    at most floor times the largest diagonal entry."""
+    h = len(b)
+    top = max([a[i][i] for i in range(h)] + [0.0])
+    l = [[0.0] * h for _ in range(h)]
+    for i in range(h):
+        for j in range(i + 1):
+            s = a[i][j] - sum(l[i][c] * l[j][c] for c in range(j))
+            if i == j:
+                if not s > floor * top:
+                    return None
+                l[i][i] = math.sqrt(s)
+            else:
+                l[i][j] = s / l[j][j]
+    x = list(b)
+    for i in range(h):
+        x[i] = (x[i] - sum(l[i][c] * x[c] for c in range(i))) / l[i][i]
+    for i in reversed(range(h)):
+        x[i] = (x[i] - sum(l[c][i] * x[c] for c in range(i + 1, h))) / l[i][i]
+    return x
+
+
+def static_residual(q, u):
+    """Static residual R = K q + G(q) - A(q) u: zero at an equilibrium under u.
+    Raises StaticsError on a non-finite input."""
+    q = _vector(q, NQ, "q")
+    u = _vector(u, NU, "u")
+    if not all(math.isfinite(v) for v in q + u):
+        raise StaticsError("non-finite input")
+    return stiffness() @ np.asarray(q) + gravity(q) - actuation(q) @ np.asarray(u)
+
+
+def static_jacobian(q, u):
+    """Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq: symmetric (every
+    load of the model is conservative), positive definite at a stable equilibrium."""
+    q = _vector(q, NQ, "q")
+    u = _vector(u, NU, "u")
+    if not all(math.isfinite(v) for v in q + u):
+        raise StaticsError("non-finite input")
+    return stiffness() + gravity_jacobian(q)
+
+
+def _linearise(q, u, lam, k, with_jacobian):
+    """(r, jac, load, scale): K q + lam (G - A u), its Jacobian (or None), the load
+    G - A u and the scale ||K q|| + lam (||G|| + ||A u||); None when not finite."""
+    g = gravity(q)
+    kq = k @ np.asarray(q)
+    au = actuation(q) @ np.asarray(u)
+    load = g - au
+    r = kq + lam * load
+    scale = _norm(kq) + lam * (_norm(g) + _norm(au)) + 1e-300
+    if not np.all(np.isfinite(r)):
+        return None
+    jac = None
+    if with_jacobian:
+        d = gravity_jacobian(q)
+        jac = k + lam * d
+        if not np.all(np.isfinite(jac)):
+            return None
+    return [float(v) for v in r], jac, [float(v) for v in load], scale
+
+
+def equilibrium(u):
+    """Equilibrium K q + G(q) = A(q) u: the shape the arm rests in under u and gravity.
+
+    Damped Newton with the exact Jacobian (static_jacobian) and load continuation from
+    the straight shape, so that the branch found is the one the arm reaches when the
+    load is applied slowly (the algorithm and settings of `arcwright statics`), in at
+    most EQUILIBRIUM_MAX_ITERATIONS Newton iterations. Returns a dict with q,
+    iterations, load_steps, residual, relative_residual and stable; raises
+    StaticsError when there is none.
+    """
+    u = _vector(u, NU, "u")
+    if not all(math.isfinite(v) for v in u):
+        raise StaticsError("non-finite input")
+    k = stiffness()
+    q = [0.0] * NQ
+    lam, step, last = 0.0, 1.0, 0.0
+    iterations = load_steps = 0
+    while lam < 1.0:
+        # Predictor along the tangent dq/dlambda = -J^-1 (G - A u), its load step cut so
+        # that no segment bends by more than the step bound.
+        here = _linearise(q, u, lam, k, True)
+        if here is None:
+            raise StaticsError("the model is not finite at a configuration the solver reached")
+        t = _solve(here[1].tolist(), here[2])
+        tangent = [-v for v in t] if t is not None else [0.0] * NQ
+        dl = min(step, 1.0 - lam)
+        reach = _bending(tangent)
+        if reach * dl > _MAX_BENDING_STEP:
+            dl = max(_MAX_BENDING_STEP / reach, _MIN_STEP)
+        target = 1.0 if lam + dl >= 1.0 - 1e-15 else lam + dl
+        trial = [q[i] + (target - lam) * tangent[i] for i in range(NQ)]
+        # Corrector: damped Newton at the new load, backtracking on ||R||.
+        converged = False
+        for _ in range(_ITERATIONS_PER_STEP):
+            if iterations >= EQUILIBRIUM_MAX_ITERATIONS:
+                break
+            iterations += 1
+            lin = _linearise(trial, u, target, k, True)
+            if lin is None:
+                raise StaticsError("the model is not finite at a configuration the solver reached")
+            res = _norm(lin[0])
+            last = res
+            if res <= EQUILIBRIUM_TOLERANCE * lin[3]:
+                converged = True
+                break
+            s = _solve(lin[1].tolist(), lin[0])
+            if s is None:
+                break
+            dq = [-v for v in s]
+            worst = _bending(dq)
+            alpha = _MAX_BENDING_STEP / worst if worst > _MAX_BENDING_STEP else 1.0
+            accepted = False
+            for _ in range(20):
+                cand = [trial[i] + alpha * dq[i] for i in range(NQ)]
+                c = _linearise(cand, u, target, k, False)
+                if c is not None:
+                    cres = _norm(c[0])
+                    if cres < res or cres <= EQUILIBRIUM_TOLERANCE * c[3]:
+                        trial = cand
+                        accepted = True
+                        break
+                alpha *= 0.5
+            if not accepted:
+                break
+        if converged:
+            q = trial
+            lam = target
+            load_steps += 1
+            step = min(2.0 * dl, 1.0)
+        else:
+            step = 0.5 * dl
+            if step < _MIN_STEP or iterations >= EQUILIBRIUM_MAX_ITERATIONS:
+                raise StaticsError(
+                    f"no equilibrium: the load continuation stalled at {100 * lam:.1f}% of the "
+                    f"load after {iterations} Newton iterations, last residual {last:.3e}",
+                    load=lam, residual=last, iterations=iterations, q=np.array(q))
+    r, jac, _, scale = _linearise(q, u, 1.0, k, True)
+    # Stable when the symmetric part of the Jacobian is positive definite.
+    sym = (0.5 * (jac + jac.T)).tolist()
+    residual = _norm(r)
+    return {
+        "q": np.array(q),
+        "iterations": iterations,
+        "load_steps": load_steps,
+        "residual": residual,
+        "relative_residual": residual / scale,
+        "stable": _cholesky(sym, [0.0] * NQ, 0.0) is not None,
+    }
+
+
+NY = 2
+# The controlled outputs y = S q of regulate, one per segment (labels as simulate's CSV):
+#     1_0 = q[0]
+#     2_0 = q[1]
+OUTPUT_LABELS = ("1_0", "2_0", )
+# The actuators' limits (lo, hi) from the arm file (tendons: lo = pretension).
+INPUT_LIMITS = ((0.2, 25.0), (0.2, 25.0), (0.2, 25.0), (0.2, 25.0),)
+LAW_BASELINE = "baseline"
+LAW_COMPENSATED = "compensated"
+_REGULATE_ITERATIONS = 24
+
+
+class RegulateError(ValueError):
+    """regulate refused a call: an unknown law, a gain that is not positive, or a
+    non-finite state, target or gain. Apply relaxed_inputs() instead."""
+
+
+def _select(v):
+    return [v[0], v[1], ]
+
+
+def relaxed_inputs():
+    """Each input at the point of its range nearest 0 (tendons at their pretension):
+    what to apply when regulate refuses a call."""
+    return np.array([min(max(0.0, lo), hi) for lo, hi in INPUT_LIMITS])
+
+
+def regulate(law, target, kp, kd, q, qd):
+    """Regulator inputs u toward the outputs' target at the state (q, q').
+
+    law is LAW_BASELINE, u = (S A)^+ [Kp (target - y) - Kd y'], or LAW_COMPENSATED,
+    the same PD plus the model's elastic and gravity load S (K q + G(q)), which puts
+    y at rest exactly on target. kp and kd (NY each) must be positive. (S A)^+ is the
+    allocation within INPUT_LIMITS: the u nearest S A u = b in the least-squares
+    sense, the least-norm one among equals, by a primal active-set method. Returns
+    (u, saturated): saturated when the limits keep u from the wanted force.
+
+    This computes a command; it does not make it safe. Rate-limit and bound it, and
+    stop the arm when the result or the state is not what you expect.
+    """
+    q = _vector(q, NQ, "q")
+    qd = _vector(qd, NQ, "qd")
+    target = _vector(target, NY, "target")
+    kp = _vector(kp, NY, "kp")
+    kd = _vector(kd, NY, "kd")
+    if not all(math.isfinite(v) for v in q + qd + target + kp + kd):
+        raise RegulateError("non-finite state, target or gain")
+    if law not in (LAW_BASELINE, LAW_COMPENSATED):
+        raise RegulateError(f"unknown law {law!r}")
+    if not all(g > 0.0 for g in kp + kd):
+        raise RegulateError("gains must be positive")
+    # b = Kp (target - S q) - Kd S q' [+ S (K q + G)].
+    a = actuation(q)
+    y, yd = _select(q), _select(qd)
+    b = [kp[r] * (target[r] - y[r]) - kd[r] * yd[r] for r in range(NY)]
+    if law == LAW_COMPENSATED:
+        load = stiffness() @ np.asarray(q) + gravity(q)
+        b = [x + s for x, s in zip(b, _select(load))]
+    cols = [_select(a[:, c]) for c in range(NU)]
+    m = [[cols[c][r] for c in range(NU)] for r in range(NY)]
+    # Normal equations (M^T M + mu I) u = M^T b, mu = 1e-12 tr(M^T M) / NU.
+    hess = [[sum(m[r][i] * m[r][j] for r in range(NY)) for j in range(NU)] for i in range(NU)]
+    f = [sum(m[r][i] * b[r] for r in range(NY)) for i in range(NU)]
+    trace = sum(hess[i][i] for i in range(NU))
+    mu = 1e-12 * trace / NU if trace > 0.0 else 1.0
+    for i in range(NU):
+        hess[i][i] += mu
+    u = [float(v) for v in relaxed_inputs()]
+    fixed = [v != 0.0 for v in u]
+    # Primal active set: each iteration fixes or frees one input and the objective
+    # falls strictly, so no set repeats; _REGULATE_ITERATIONS is a guard.
+    for _ in range(_REGULATE_ITERATIONS):
+        free = [i for i in range(NU) if not fixed[i]]
+        opt = list(u)
+        if free:
+            sub = [[hess[i][j] for j in free] for i in free]
+            rhs = [f[i] - sum(hess[i][j] * u[j] for j in range(NU) if fixed[j]) for i in free]
+            x = _cholesky(sub, rhs, 0.0)
+            if x is None:
+                break
+            for c, i in enumerate(free):
+                opt[i] = x[c]
+        # Walk toward the free optimum until an input meets a limit.
+        alpha, blocking = 1.0, None
+        for i in free:
+            d = opt[i] - u[i]
+            if d == 0.0:
+                continue
+            bound = INPUT_LIMITS[i][0] if d < 0.0 else INPUT_LIMITS[i][1]
+            if math.isfinite(bound):
+                reach = (bound - u[i]) / d
+                if reach < alpha:
+                    alpha = max(reach, 0.0)
+                    blocking = (i, bound)
+        for i in free:
+            u[i] += alpha * (opt[i] - u[i])
+        if blocking is not None:
+            u[blocking[0]] = blocking[1]
+            fixed[blocking[0]] = True
+            continue
+        # At the optimum of this set: free the fixed input whose multiplier has the
+        # wrong sign (the gradient pushes it back inside), if any.
+        gscale = _norm(f) + math.sqrt(trace) * _norm(u) + 1e-300
+        release, worst = None, 0.0
+        for i in range(NU):
+            if not fixed[i]:
+                continue
+            grad = sum(hess[i][j] * u[j] for j in range(NU)) - f[i]
+            wrong = -grad if u[i] <= INPUT_LIMITS[i][0] else grad
+            if wrong > 1e-14 * gscale and wrong >= worst:
+                release, worst = i, wrong
+        if release is None:
+            break
+        fixed[release] = False
+    # Polish: the free inputs become the exact minimum-norm solution of
+    # M_F u_F = b - M_B u_B when the free columns' Gram matrix is well conditioned and
+    # the result stays within the limits.
+    free = [i for i in range(NU) if not fixed[i]]
+    if len(free) >= NY:
+        rhs = [b[r] - sum(m[r][i] * u[i] for i in range(NU) if fixed[i]) for r in range(NY)]
+        gram = [[sum(m[r][i] * m[j][i] for i in free) for j in range(NY)] for r in range(NY)]
+        yy = _cholesky(gram, rhs, 1e-10)
+        if yy is not None:
+            cand = {i: sum(m[r][i] * yy[r] for r in range(NY)) for i in free}
+            if all(math.isfinite(v) and INPUT_LIMITS[i][0] <= v <= INPUT_LIMITS[i][1]
+                   for i, v in cand.items()):
+                for i, v in cand.items():
+                    u[i] = v
+    if not all(math.isfinite(v) for v in u):
+        raise RegulateError("the computed inputs are not finite")
+    short = [b[r] - sum(m[r][i] * u[i] for i in range(NU)) for r in range(NY)]
+    saturated = not _norm(short) <= 1e-9 * (_norm(b) + 1e-300)
+    return np.array(u), saturated

@@ -5,6 +5,7 @@ use super::body::{
     temporaries, Spelling, StmtStyle,
 };
 use super::constants::{base_context, strings, use_max, use_pairs, MomentConstants};
+use super::control_code::{StaticsCallees, StaticsLayout};
 use super::golden::Golden;
 use super::number::Precision;
 use super::plan::{Func, Plan};
@@ -312,6 +313,14 @@ impl ForwardLayout {
     }
 }
 
+/// The scratch length recorded for `fname`.
+fn work_of(work: &[(String, usize)], fname: &str) -> usize {
+    work.iter()
+        .find(|(f, _)| f == fname)
+        .map(|(_, l)| *l)
+        .unwrap_or(0)
+}
+
 /// Longest straight-line body printed as one function; longer ones become parts.
 const PART_STATEMENTS: usize = 64;
 
@@ -465,6 +474,14 @@ pub fn emit(
         &[q.clone(), out("J")],
         &flat("J"),
     );
+    let gravity_jacobian_work = generated(
+        "gravity_jacobian",
+        "dG/dq, n x n, row-major: the Hessian of U_g, symmetric.",
+        &plan.gravity_jacobian,
+        "void",
+        &[q.clone(), out("dG")],
+        &flat("dG"),
+    );
     generated(
         "potential_energy",
         "U = U_g + 1/2 q^T K q.",
@@ -548,12 +565,52 @@ pub fn emit(
             body,
         });
     }
+    // The derivative of A for end forces: used by the statics functions only, so it
+    // has no plain form.
+    let mut da_work = 0usize;
+    if let Some(f) = &plan.actuation_jacobian {
+        let (rows, body, len) = p.body(f, "actuation_jacobian", None, &flat("dA"));
+        da_work = len;
+        funcs.push(CFunc {
+            rows,
+            formula: "dA_ik/dq_x at dA[(x * n + i) * k + c]: the statics functions' d(A u)/dq."
+                .into(),
+            ops: ops_line(f),
+            signature: format!(
+                "static void {name}_actuation_jacobian_ws(const {r} q[], {r} dA[], {r} work[])"
+            ),
+            body: if len == 0 {
+                format!("    (void)work;\n{body}")
+            } else {
+                body
+            },
+        });
+    }
     funcs.splice(0..0, constant_funcs);
     // Forward dynamics: B, C, G, K, D, A, the packed factor m and f, then the scratch of
     // terms and actuation (called one after the other, so they share it).
     let fd = ForwardLayout::new(n, k, terms_work.max(actuation_work));
     work.push(("pose".into(), pose_work));
     work.push(("forward_dynamics".into(), fd.len));
+    let gravity_work = work_of(&work, "gravity");
+    let st = StaticsLayout::new(
+        n,
+        k,
+        plan.outputs.len(),
+        plan.actuation_jacobian.is_some(),
+        StaticsCallees {
+            gravity: gravity_work,
+            actuation: actuation_work,
+            gravity_jacobian: gravity_jacobian_work,
+            actuation_jacobian: da_work,
+        },
+    );
+    work.push(("static_residual".into(), st.residual.len));
+    work.push(("static_jacobian".into(), st.jacobian.len));
+    work.push(("equilibrium".into(), st.equilibrium.len));
+    if k > 0 {
+        work.push(("regulate".into(), st.regulate.len));
+    }
     let work_len = work.iter().map(|(_, l)| *l).max().unwrap_or(0).max(1);
     let mc = MomentConstants::new(plan, precision);
     let series: Vec<String> = mc
@@ -638,8 +695,17 @@ pub fn emit(
         "pose_ops",
         &plan.pose.iter().map(ops_line).collect::<Vec<_>>(),
     );
+    super::control_code::insert_c(&mut ctx, plan, precision, &st);
+    ctx.insert("gravity_jacobian_ops", &ops_line(&plan.gravity_jacobian));
     ctx.insert("golden", &golden.c_data(precision));
     ctx.insert("rtol", &golden.rtol(precision));
+    ctx.insert(
+        "well_posed",
+        match precision {
+            Precision::F64 => "0.0",
+            Precision::F32 => "1e-4",
+        },
+    );
 
     Ok(vec![
         (format!("c/{name}.h"), render("c/header.h", &ctx)?),

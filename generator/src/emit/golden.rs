@@ -4,9 +4,24 @@
 
 use super::number::{golden_literal, Precision};
 use crate::arm::Arm;
+use crate::control::{default_outputs, Law, Regulator};
 use crate::dynamics::generalized_force;
 use crate::reference::{Kinematics, Reference};
+use crate::statics::{equilibrium, linear_rest_shape, segment_bending, Options, Quadrature};
 use num_traits::ToPrimitive;
+
+/// The quantities whose tests judge entries against their largest magnitude over
+/// all configurations (see [`Golden::scale`]).
+pub const SCALED: [&str; 16] = [
+    "B", "C", "G", "K", "D", "A", "J", "T", "V", "pose", "dG", "R", "Js", "qeq", "ubase", "ucomp",
+];
+
+/// The arrays of the regulator checks.
+const REGULATOR_ARRAYS: [&str; 7] = ["ytarget", "kp", "kd", "ubase", "ucomp", "regsat", "regcond"];
+
+/// Relative shortfall `‖b − S A u‖ / ‖b‖` above which a regulator reports that the
+/// limits keep it from its wanted force (the emitted `regulate`'s rule).
+pub const SATURATION: f64 = 1e-9;
 
 /// Arc coordinates at which every segment's pose is checked.
 pub const SIGMAS: [f64; 3] = [0.0, 0.37, 1.0];
@@ -99,13 +114,133 @@ fn flat(m: &[Vec<f64>]) -> Vec<f64> {
     m.iter().flatten().copied().collect()
 }
 
+/// The equilibrium case of configuration `c`: no input for the first (gravity
+/// alone), then the configuration's input pattern scaled so that the linear estimate
+/// bends the most-bent segment by `0.4 c` rad. Solved by the reference (quadrature of
+/// the same truncated kinematics, exact derivatives of its integrands); a load the
+/// solver cannot follow is halved until it can.
+fn static_case(
+    arm: &Arm,
+    reference: &Reference,
+    c: usize,
+    u: &[f64],
+) -> (Vec<f64>, Vec<f64>, bool) {
+    let model = Quadrature(Reference::new(arm, reference.kinematics()));
+    let mut scale = 0.0;
+    if c > 0 && !u.is_empty() {
+        if let Ok(q) = linear_rest_shape(arm, u) {
+            let worst = segment_bending(arm, &q).into_iter().fold(0.0f64, f64::max);
+            if worst > 0.0 {
+                scale = 0.4 * c as f64 / worst;
+            }
+        }
+    }
+    for _ in 0..40 {
+        let ueq: Vec<f64> = u.iter().map(|v| scale * v).collect();
+        if let Ok(eq) = equilibrium(&model, &ueq, &Options::default()) {
+            return (ueq, eq.q, eq.stable);
+        }
+        scale *= 0.5;
+    }
+    panic!("the reference finds no equilibrium of the arm under gravity alone")
+}
+
+/// Both regulators at one state.
+struct RegulatorCase {
+    target: Vec<f64>,
+    kp: Vec<f64>,
+    kd: Vec<f64>,
+    u_baseline: Vec<f64>,
+    u_compensated: Vec<f64>,
+    saturated: Vec<f64>,
+    conditioning: f64,
+}
+
+/// Targets near the state's outputs, gains that vary per output, and at the fourth
+/// configuration gains a thousand times larger (so that limits, where the arm has
+/// them, are reached).
+fn regulator_case(
+    arm: &Arm,
+    k: &[Vec<f64>],
+    g: &[f64],
+    a: &[Vec<f64>],
+    q: &[f64],
+    qd: &[f64],
+    c: usize,
+) -> RegulatorCase {
+    let outputs = default_outputs(arm);
+    let h = outputs.len();
+    let s = crate::control::selection(arm, &outputs);
+    let target: Vec<f64> = (0..h)
+        .map(|i| s[i].iter().zip(q).map(|(a, b)| a * b).sum::<f64>() + 0.5 * pattern(i, c + 3))
+        .collect();
+    let boost = if c == 3 { 1e3 } else { 1.0 };
+    let kp: Vec<f64> = (0..h)
+        .map(|i| boost * 0.05 * (1.0 + 0.25 * i as f64))
+        .collect();
+    let kd: Vec<f64> = (0..h)
+        .map(|i| boost * 0.004 * (1.0 + 0.5 * i as f64))
+        .collect();
+    if arm.n_inputs() == 0 {
+        return RegulatorCase {
+            target,
+            kp,
+            kd,
+            u_baseline: Vec::new(),
+            u_compensated: Vec::new(),
+            saturated: vec![0.0, 0.0],
+            conditioning: 0.0,
+        };
+    }
+    let run = |law| {
+        let reg = Regulator::new(
+            arm,
+            law,
+            outputs.clone(),
+            target.clone(),
+            kp.clone(),
+            kd.clone(),
+        )
+        .expect("golden regulator");
+        let ctl = reg.input(&k.to_vec(), g, &a.to_vec(), q, qd);
+        let sat = !ctl.allocation.met(&ctl.b, SATURATION);
+        (ctl.allocation.u, f64::from(u8::from(sat)))
+    };
+    let m = crate::control::s_times(&s, &a.to_vec());
+    let gram: Vec<Vec<f64>> = m
+        .iter()
+        .map(|x| {
+            m.iter()
+                .map(|y| x.iter().zip(y).map(|(p, q)| p * q).sum())
+                .collect()
+        })
+        .collect();
+    let eig = crate::linalg::symmetric_eigenvalues(&gram);
+    let conditioning = match (eig.first(), eig.last()) {
+        (Some(&lo), Some(&hi)) if hi > 0.0 => lo.max(0.0) / hi,
+        _ => 0.0,
+    };
+    let (u_baseline, sb) = run(Law::Baseline);
+    let (u_compensated, sc) = run(Law::Compensated);
+    RegulatorCase {
+        target,
+        kp,
+        kd,
+        u_baseline,
+        u_compensated,
+        saturated: vec![sb, sc],
+        conditioning,
+    }
+}
+
 impl Golden {
     pub fn compute(arm: &Arm) -> Golden {
         let reference = Reference::new(arm, Kinematics::Truncated(arm.expansion_order));
         let n = arm.n_coords();
         let k = arm.n_inputs();
         let mut labels = Vec::new();
-        let names: [(&'static str, usize); 15] = [
+        let h = default_outputs(arm).len();
+        let names: [(&'static str, usize); 28] = [
             ("q", n),
             ("qd", n),
             ("u", k),
@@ -121,6 +256,25 @@ impl Golden {
             ("rhs", n),
             ("pose", arm.segments.len() * SIGMAS.len() * 3),
             ("Bnorm", 1),
+            // Statics: ∂G/∂q, the residual K q + G − A u and its Jacobian at (q, u).
+            ("dG", n * n),
+            ("R", n),
+            ("Js", n * n),
+            // An equilibrium: its inputs, shape and stability.
+            ("ueq", k),
+            ("qeq", n),
+            ("eqstable", 1),
+            // Both regulators at (q, q̇): target, gains, inputs, and for each law
+            // whether the limits kept it from its wanted force (1) or not (0).
+            ("ytarget", h),
+            ("kp", h),
+            ("kd", h),
+            ("ubase", k),
+            ("ucomp", k),
+            ("regsat", 2),
+            // How well posed the allocation is: the smallest over the largest
+            // eigenvalue of S A (S A)ᵀ (single precision cannot resolve small ones).
+            ("regcond", 1),
         ];
         let mut arrays: Vec<Array> = names
             .iter()
@@ -145,6 +299,23 @@ impl Golden {
                 t.b.iter()
                     .map(|r| r.iter().map(|v| v.abs()).sum::<f64>())
                     .fold(0.0, f64::max);
+            let st = reference.static_terms(&q);
+            let residual: Vec<f64> = (0..n)
+                .map(|i| {
+                    (0..n).map(|x| t.k[i][x] * q[x]).sum::<f64>() + st.g[i]
+                        - (0..k).map(|c| st.a[i][c] * u[c]).sum::<f64>()
+                })
+                .collect();
+            let js: Vec<f64> = (0..n)
+                .flat_map(|i| {
+                    let (t, st, u) = (&t, &st, &u);
+                    (0..n).map(move |x| {
+                        t.k[i][x] + st.dg[i][x] - (0..k).map(|c| st.da[x][i][c] * u[c]).sum::<f64>()
+                    })
+                })
+                .collect();
+            let (ueq, qeq, stable) = static_case(arm, &reference, c, &u);
+            let reg = regulator_case(arm, &t.k, &st.g, &st.a, &q, &qd, c);
             let values = [
                 q.clone(),
                 qd,
@@ -161,13 +332,37 @@ impl Golden {
                 rhs,
                 pose,
                 vec![bnorm],
+                flat(&st.dg),
+                residual,
+                js,
+                ueq,
+                qeq,
+                vec![f64::from(u8::from(stable))],
+                reg.target,
+                reg.kp,
+                reg.kd,
+                reg.u_baseline,
+                reg.u_compensated,
+                reg.saturated,
+                vec![reg.conditioning],
             ];
             for (a, v) in arrays.iter_mut().zip(values) {
                 a.values.push(v);
             }
             labels.push(label);
         }
+        // An arm without actuators has no regulator (nothing is emitted to test).
+        if k == 0 {
+            arrays.retain(|a| !REGULATOR_ARRAYS.contains(&a.name));
+        }
         Golden { labels, arrays }
+    }
+
+    /// The names of [`SCALED`] this golden set holds.
+    pub fn scaled(&self) -> impl Iterator<Item = &'static str> + '_ {
+        SCALED
+            .into_iter()
+            .filter(|n| self.arrays.iter().any(|a| a.name == *n))
     }
 
     pub fn array(&self, name: &str) -> &Array {
@@ -230,7 +425,7 @@ impl Golden {
             }
             out.push_str("};\n");
         }
-        for name in ["B", "C", "G", "K", "D", "A", "J", "T", "V", "pose"] {
+        for name in self.scaled() {
             out.push_str(&format!(
                 "static const double scale_{name} = {};\n",
                 golden_literal(self.scale(name))

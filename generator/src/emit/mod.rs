@@ -11,6 +11,7 @@
 pub mod body;
 pub mod c;
 pub mod constants;
+pub mod control_code;
 pub mod golden;
 pub mod marker;
 pub mod number;

@@ -19,6 +19,15 @@ pub struct Func {
     pub ops: Ops,
 }
 
+/// One controlled output of the emitted regulators, `y = Σ c_i q[index_i]`: a row
+/// of `S` (see [`crate::control::default_outputs`]).
+#[derive(Clone, Debug)]
+pub struct OutputRow {
+    /// The label of `simulate` and `statics` (`2_0`, `2_mean`).
+    pub label: String,
+    pub terms: Vec<(Q, usize)>,
+}
+
 /// One segment's contribution to the cumulative angle: `Φ_j = Φ_{j−1} + Σ_i c_i q[index_i]`.
 #[derive(Clone, Debug)]
 pub struct AngleStep {
@@ -34,6 +43,11 @@ pub struct Plan {
     /// `L_j` and the index of `q_{j,0}` per segment (moment argument `a_j = L_j q_{j,0}`).
     pub seg_length: Vec<Q>,
     pub seg_offset: Vec<usize>,
+    /// Coordinates per segment.
+    pub seg_coords: Vec<usize>,
+    /// The regulators' controlled outputs and the actuators' limits.
+    pub outputs: Vec<OutputRow>,
+    pub limits: Vec<crate::arm::InputLimits>,
     pub angle_steps: Vec<AngleStep>,
     pub layout: NuLayout,
     /// Size of the scratch array for one moment evaluation (largest count anywhere).
@@ -158,6 +172,19 @@ impl Plan {
 
         let seg_length: Vec<Q> = arm.segments.iter().map(|s| s.length.clone()).collect();
         let seg_offset: Vec<usize> = (0..segs).map(|j| arm.coord_offset(j)).collect();
+        let seg_coords: Vec<usize> = arm.segments.iter().map(|s| s.n_coords()).collect();
+        let outputs = crate::control::default_outputs(arm)
+            .into_iter()
+            .map(|o| OutputRow {
+                label: o.label(arm),
+                terms: match o {
+                    crate::control::Output::Coordinate(i) => vec![(int(1), i)],
+                    crate::control::Output::MeanCurvature(j) => (0..seg_coords[j])
+                        .map(|i| (Q::new(1.into(), (i as i64 + 1).into()), seg_offset[j] + i))
+                        .collect(),
+                },
+            })
+            .collect();
         let angle_steps: Vec<AngleStep> = (0..segs)
             .map(|j| AngleStep {
                 terms: (0..arm.segments[j].n_coords())
@@ -240,6 +267,9 @@ impl Plan {
             segments: segs,
             seg_length,
             seg_offset,
+            seg_coords,
+            outputs,
+            limits: arm.input_limits.clone(),
             angle_steps,
             layout,
             moment_max,

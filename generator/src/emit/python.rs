@@ -217,6 +217,34 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     for (spec, f, target) in &specs {
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
+    funcs.push(function(
+        plan,
+        &plan.gravity_jacobian,
+        &Spec {
+            fname: "gravity_jacobian",
+            formula: "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric.",
+            params: &["q"],
+            init: &nn,
+            ret,
+        },
+        None,
+        &move |i| mat(i, n),
+    ));
+    if let Some(f) = &plan.actuation_jacobian {
+        funcs.push(function(
+            plan,
+            f,
+            &Spec {
+                fname: "_actuation_jacobian",
+                formula: "dA_ic/dq_x as out[x, i, c]: the statics functions' d(A u)/dq.",
+                params: &["q"],
+                init: "    out = np.zeros((NQ, NQ, NU))\n",
+                ret,
+            },
+            None,
+            &move |i| format!("out[{}, {}, {}]", i / (n * k), (i / k) % n, i % k),
+        ));
+    }
     // C alone needs nearly everything B and G need too: it is terms(), keeping C.
     funcs.insert(
         1,
@@ -304,6 +332,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("functions", &funcs);
     ctx.insert("pose_names", &pose_names);
     ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
+    super::control_code::insert_python(&mut ctx, plan);
     ctx.insert("golden", &golden_python(golden));
     ctx.insert(
         "sigmas",
@@ -331,7 +360,8 @@ fn golden_python(g: &Golden) -> String {
         out.push_str(&format!("    {l:?},\n"));
     }
     out.push_str("]\n");
-    for a in &g.arrays {
+    // (The allocation's conditioning matters only to the single-precision C checks.)
+    for a in g.arrays.iter().filter(|a| a.name != "regcond") {
         out.push_str(&format!("G_{} = np.array([\n", a.name.to_uppercase()));
         for c in 0..g.labels.len() {
             let items = if a.len == 0 {
@@ -343,7 +373,7 @@ fn golden_python(g: &Golden) -> String {
         }
         out.push_str("])\n");
     }
-    for name in ["B", "C", "G", "K", "D", "A", "J", "T", "V", "pose"] {
+    for name in g.scaled() {
         out.push_str(&format!(
             "SCALE_{} = {}\n",
             name.to_uppercase(),

@@ -254,7 +254,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &mat_target(n),
         "out\n",
     );
-    generated(
+    let gravity_work = generated(
         "gravity",
         "Gravity vector `G(q) = ∂U_g/∂q`.",
         &plan.gravity,
@@ -281,6 +281,16 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &[q_of(&plan.tip_jacobian)],
         &mat("3", "NQ"),
         "let mut out = [[0.0; NQ]; 3];\n",
+        &mat_target(n),
+        "out\n",
+    );
+    let gravity_jacobian_work = generated(
+        "gravity_jacobian",
+        "Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric.",
+        &plan.gravity_jacobian,
+        &[q_of(&plan.gravity_jacobian)],
+        &nn,
+        "let mut out = [[0.0; NQ]; NQ];\n",
         &mat_target(n),
         "out\n",
     );
@@ -406,8 +416,41 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         });
         pose_names.push(fname);
     }
+    // The derivative of A for end forces, `[x][i][c]`: used by the statics functions only.
+    let mut da_work = 0usize;
+    if let Some(f) = &plan.actuation_jacobian {
+        let (rows, body, len) = body(
+            plan,
+            f,
+            "actuation_jacobian",
+            None,
+            "let mut out = [[[0.0; NU]; NQ]; NQ];\n",
+            &move |i: usize| format!("out[{}][{}][{}]", i / (n * k), (i / k) % n, i % k),
+            "out\n",
+        );
+        da_work = len;
+        funcs.push(RFunc {
+            rows,
+            formula: "`∂A_ic/∂q_x` as `[x][i][c]`: the statics functions' `∂(A u)/∂q`.".into(),
+            ops: ops_line(f),
+            signature: format!(
+                "fn actuation_jacobian_in(q: &[f64; NQ], {}: &mut [f64]) -> [[[f64; NU]; NQ]; NQ]",
+                if len == 0 { "_work" } else { "work" }
+            ),
+            body,
+        });
+    }
+    let statics_work = gravity_work
+        .max(actuation_work)
+        .max(gravity_jacobian_work)
+        .max(da_work)
+        .max(1);
     let dynamics_work = terms_work.max(actuation_work);
-    work_len = work_len.max(pose_work).max(dynamics_work).max(1);
+    work_len = work_len
+        .max(pose_work)
+        .max(dynamics_work)
+        .max(statics_work)
+        .max(1);
     let mc = MomentConstants::new(plan, Precision::F64);
     let series: Vec<String> = mc
         .series
@@ -438,6 +481,8 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("dynamics_work", &dynamics_work);
     ctx.insert("work_len", &work_len);
     ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
+    ctx.insert("statics_work", &statics_work);
+    super::control_code::insert_rust(&mut ctx, plan);
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(
         "sigmas",
@@ -468,7 +513,8 @@ fn golden_rust(g: &Golden) -> String {
             .join(", "),
     );
     out.push_str("];\n");
-    for a in &g.arrays {
+    // (The allocation's conditioning matters only to the single-precision C checks.)
+    for a in g.arrays.iter().filter(|a| a.name != "regcond") {
         let len = a.len.max(1);
         out.push_str(&format!(
             "static G_{}: [[f64; {len}]; NCASES] = [",
@@ -479,7 +525,7 @@ fn golden_rust(g: &Golden) -> String {
         }
         out.push_str("];\n");
     }
-    for name in ["B", "C", "G", "K", "D", "A", "J", "T", "V", "pose"] {
+    for name in g.scaled() {
         out.push_str(&format!(
             "const SCALE_{}: f64 = {};\n",
             name.to_uppercase(),

@@ -13,6 +13,10 @@ const TEMPLATES: &[(&str, &str)] = &[
         "c/source.c",
         include_str!("../../../templates/c/source.c.tera"),
     ),
+    (
+        "c/statics.c",
+        include_str!("../../../templates/c/statics.c.tera"),
+    ),
     ("c/test.c", include_str!("../../../templates/c/test.c.tera")),
     (
         "rust/Cargo.toml",

@@ -195,11 +195,13 @@ fn scaled_series(h: f64, n: usize) -> f64 {
 /// Moment kernels: row `r` at moment base `b` is the dot product of its band
 /// `COEF[START[r]..START[r+1]]` with `nu[b + FIRST[r]..]`; a row is shared by every
 /// segment (and by real and imaginary parts) with the same weight shape.
-static KERNEL_START: [u8; 19] = [
-    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 35, 41, 45, 49, 54, 57, 60,
+static KERNEL_START: [u8; 21] = [
+    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 37, 40, 43, 47, 50, 52, 58, 62, 67,
 ];
-static KERNEL_FIRST: [u8; 18] = [0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
-static KERNEL_COEF: [f64; 60] = [
+static KERNEL_FIRST: [u8; 20] = [
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
+];
+static KERNEL_COEF: [f64; 67] = [
     1.32890625e-6,
     -2.21484375e-6,
     9.4921875e-7,
@@ -233,6 +235,23 @@ static KERNEL_COEF: [f64; 60] = [
     -0.00193134375,
     -0.003310875,
     -0.003310875,
+    0.08333333333333333,
+    0.05,
+    -0.08333333333333333,
+    -0.05,
+    -0.001125,
+    -0.0016875,
+    -0.0005625,
+    0.3333333333333333,
+    0.5,
+    0.16666666666666666,
+    -0.00014485078125,
+    -8.691046875e-5,
+    0.00014485078125,
+    8.691046875e-5,
+    0.0003310875,
+    0.00049663125,
+    0.00016554375,
     0.038626875,
     -0.038626875,
     0.005555555555555556,
@@ -245,21 +264,11 @@ static KERNEL_COEF: [f64; 60] = [
     -0.025,
     -0.041666666666666664,
     0.025,
-    0.08333333333333333,
-    0.05,
-    -0.08333333333333333,
-    -0.05,
     0.03333333333333333,
     -0.016666666666666666,
     -0.03571428571428571,
     0.016666666666666666,
     0.002380952380952381,
-    0.3333333333333333,
-    0.5,
-    0.16666666666666666,
-    -0.001125,
-    -0.0016875,
-    -0.0005625,
 ];
 /// `kern[i]` = kernel row `uses[2i]` at moment base `uses[2i + 1]`; four partial sums
 /// keep the multiply-adds independent.
@@ -521,8 +530,52 @@ pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
 pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
+/// Kernels of `gravity_jacobian`: pairs (row, moment base).
+static GRAVITY_JACOBIAN_ROWS: [u8; 26] = [
+    1, 12, 1, 18, 2, 12, 2, 18, 11, 12, 11, 18, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18, 14,
+    6, 15, 6,
+];
+/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 38 reals).
+///
+/// Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+fn gravity_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(13);
+    let t = &mut work[..1];
+    moments(0.15 * q[0], 4, nu, 0, 6);
+    moments(0.12 * q[1], 4, nu, 12, 18);
+    let mut cphi = [0.0; 1];
+    let mut sphi = [0.0; 1];
+    let phi = 0.15 * q[0];
+    cphi[0] = libm::cos(phi);
+    sphi[0] = libm::sin(phi);
+    kernels(&GRAVITY_JACOBIAN_ROWS, nu, kern);
+    let mut out = [[0.0; NQ]; NQ];
+    t[0] = 9.81 * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0])
+        + 0.1962 * (-0.00216 * sphi[0] * kern[7] - 0.00216 * cphi[0] * kern[8]);
+    out[0][0] = kern[11]
+        + 9.81 * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0]) - kern[12]
+        + 0.1962 * (kern[6] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
+    out[0][1] = t[0];
+    out[1][0] = t[0];
+    out[1][1] = 9.81 * (-5.184e-5 * kern[5] * cphi[0] - 5.184e-5 * kern[4] * sphi[0])
+        + 0.1962 * (-0.001728 * cphi[0] * kern[10] - 0.001728 * sphi[0] * kern[9]);
+    out
+}
+/// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric.
+///
+/// Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    gravity_jacobian_in(q, &mut [0.0; 38])
+}
+/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (38 reals); the same values.
+///
+/// Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+    gravity_jacobian_in(q, &mut ws.0)
+}
 /// Kernels of `potential_energy`: pairs (row, moment base).
-static POTENTIAL_ENERGY_ROWS: [u8; 6] = [11, 6, 1, 12, 1, 18];
+static POTENTIAL_ENERGY_ROWS: [u8; 6] = [16, 6, 1, 12, 1, 18];
 /// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 27 reals).
 ///
 /// Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
@@ -556,9 +609,9 @@ pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
 }
 /// Kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u8; 56] = [
-    0, 0, 12, 6, 1, 12, 1, 18, 2, 12, 2, 18, 13, 18, 3, 12, 14, 12, 14, 18, 15, 18, 12,
-    18, 4, 0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 16, 0, 16, 6, 17, 0, 17, 6, 4, 12, 4, 18,
-    16, 12, 16, 18, 9, 0, 10, 0,
+    0, 0, 17, 6, 1, 12, 1, 18, 2, 12, 2, 18, 18, 18, 3, 12, 11, 12, 11, 18, 19, 18, 17,
+    18, 4, 0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 13, 0, 13, 6, 12, 0, 12, 6, 4, 12, 4, 18,
+    13, 12, 13, 18, 9, 0, 10, 0,
 ];
 /// The work of [`terms`] and [`terms_ws`], in `work` (at least 79 reals).
 ///
@@ -885,4 +938,640 @@ fn forward_dynamics_in(
         return Err(DynamicsError::NonFiniteResult);
     }
     Ok(f)
+}
+/// Why a statics function returned no answer.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub enum StaticsError {
+    /// `q` or `u` holds a NaN or an infinity.
+    NonFiniteInput,
+    /// The model is not finite at a configuration the solver reached.
+    NonFiniteResult,
+    /// The load continuation stalled within [`EQUILIBRIUM_MAX_ITERATIONS`]: the load
+    /// fraction reached, the last residual, and the last equilibrium on the way
+    /// (never take it for the answer).
+    NotConverged { load: f64, residual: f64, iterations: usize, q: [f64; NQ] },
+}
+/// A solved equilibrium.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Equilibrium {
+    pub q: [f64; NQ],
+    /// Newton iterations in all, and continuation steps taken.
+    pub iterations: usize,
+    pub load_steps: usize,
+    /// `‖K q + G − A u‖₂`, and the same over `‖K q‖ + ‖G‖ + ‖A u‖`.
+    pub residual: f64,
+    pub relative_residual: f64,
+    /// `∂R/∂q` is positive definite: a local minimum of the potential energy.
+    pub stable: bool,
+}
+/// Converged when `‖R‖ ≤ EQUILIBRIUM_TOLERANCE (‖K q‖ + ‖G‖ + ‖A u‖)`.
+pub const EQUILIBRIUM_TOLERANCE: f64 = 1e-12;
+/// Most Newton iterations of [`equilibrium`] in all.
+pub const EQUILIBRIUM_MAX_ITERATIONS: usize = 2000;
+const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
+const EQUILIBRIUM_MIN_STEP: f64 = 1e-6;
+/// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
+const EQUILIBRIUM_MAX_BENDING_STEP: f64 = 0.5;
+const STATICS_WORK: usize = 38;
+/// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
+fn bending(v: &[f64; NQ]) -> f64 {
+    let mut worst: f64 = 0.0;
+    let b = 0.15 * (libm::fabs(v[0]));
+    if b > worst {
+        worst = b;
+    }
+    let b = 0.12 * (libm::fabs(v[1]));
+    if b > worst {
+        worst = b;
+    }
+    worst
+}
+fn norm(v: &[f64]) -> f64 {
+    libm::sqrt(v.iter().map(|x| x * x).sum::<f64>())
+}
+fn all_finite(v: &[f64]) -> bool {
+    v.iter().all(|x| x.is_finite())
+}
+/// `a x = b` by Gaussian elimination with partial pivoting; `None` when a pivot is at
+/// most `1e-14` of the largest entry of `a` or `x` is not finite.
+fn solve(mut a: [[f64; NQ]; NQ], mut b: [f64; NQ]) -> Option<[f64; NQ]> {
+    let top = a.iter().flatten().fold(0.0f64, |m, v| m.max(libm::fabs(*v)));
+    for c in 0..NQ {
+        let mut p = c;
+        for r in c + 1..NQ {
+            if libm::fabs(a[r][c]) >= libm::fabs(a[p][c]) {
+                p = r;
+            }
+        }
+        if !(libm::fabs(a[p][c]) > 1e-14 * top) {
+            return None;
+        }
+        a.swap(c, p);
+        b.swap(c, p);
+        for r in c + 1..NQ {
+            let f = a[r][c] / a[c][c];
+            if f != 0.0 {
+                for k in c..NQ {
+                    a[r][k] -= f * a[c][k];
+                }
+                b[r] -= f * b[c];
+            }
+        }
+    }
+    for c in (0..NQ).rev() {
+        let mut s = 0.0;
+        for k in c + 1..NQ {
+            s += a[c][k] * b[k];
+        }
+        b[c] = (b[c] - s) / a[c][c];
+    }
+    all_finite(&b).then_some(b)
+}
+/// The symmetric `a x = b` (`h×h`, leading dimension `ld`) by Cholesky in place;
+/// `false` when a pivot is at most `floor` times the largest diagonal entry.
+fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bool {
+    let top = (0..h).map(|i| a[i * ld + i]).fold(0.0f64, f64::max);
+    for i in 0..h {
+        for j in 0..=i {
+            let mut s = a[i * ld + j];
+            for c in 0..j {
+                s -= a[i * ld + c] * a[j * ld + c];
+            }
+            if i == j {
+                if !(s > floor * top) {
+                    return false;
+                }
+                a[i * ld + i] = libm::sqrt(s);
+            } else {
+                a[i * ld + j] = s / a[j * ld + j];
+            }
+        }
+    }
+    for i in 0..h {
+        for c in 0..i {
+            b[i] -= a[i * ld + c] * b[c];
+        }
+        b[i] /= a[i * ld + i];
+    }
+    for i in (0..h).rev() {
+        for c in i + 1..h {
+            b[i] -= a[c * ld + i] * b[c];
+        }
+        b[i] /= a[i * ld + i];
+    }
+    true
+}
+/// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
+pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
+    static_residual_in(q, u, &mut [0.0; STATICS_WORK])
+}
+/// [`static_residual`] with its scratch in the caller's [`Workspace`]; the same values.
+pub fn static_residual_ws(
+    q: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[f64; NQ], StaticsError> {
+    static_residual_in(q, u, &mut ws.0)
+}
+fn static_residual_in(
+    q: &[f64; NQ],
+    u: &[f64; NU],
+    work: &mut [f64],
+) -> Result<[f64; NQ], StaticsError> {
+    if !all_finite(q) || !all_finite(u) {
+        return Err(StaticsError::NonFiniteInput);
+    }
+    let k = stiffness();
+    let mut r = gravity_in(q, work);
+    let a = actuation_in(q, work);
+    for i in 0..NQ {
+        for c in 0..NQ {
+            r[i] += k[i][c] * q[c];
+        }
+        for c in 0..NU {
+            r[i] -= a[i][c] * u[c];
+        }
+    }
+    if all_finite(&r) { Ok(r) } else { Err(StaticsError::NonFiniteResult) }
+}
+/// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
+/// load of the model is conservative), positive definite at a stable equilibrium.
+pub fn static_jacobian(
+    q: &[f64; NQ],
+    u: &[f64; NU],
+) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    static_jacobian_in(q, u, &mut [0.0; STATICS_WORK])
+}
+/// [`static_jacobian`] with its scratch in the caller's [`Workspace`]; the same values.
+pub fn static_jacobian_ws(
+    q: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    static_jacobian_in(q, u, &mut ws.0)
+}
+fn static_jacobian_in(
+    q: &[f64; NQ],
+    _u: &[f64; NU],
+    work: &mut [f64],
+) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    if !all_finite(q) || !all_finite(_u) {
+        return Err(StaticsError::NonFiniteInput);
+    }
+    let k = stiffness();
+    let mut j = gravity_jacobian_in(q, work);
+    for i in 0..NQ {
+        for x in 0..NQ {
+            j[i][x] += k[i][x];
+        }
+    }
+    if all_finite(j.as_flattened()) { Ok(j) } else { Err(StaticsError::NonFiniteResult) }
+}
+/// `K q + λ (G − A u)`, its load `G − A u`, the scale `‖K q‖ + λ (‖G‖ + ‖A u‖)`, and
+/// (when asked) the Jacobian `K + λ (∂G/∂q − ∂(A u)/∂q)`; `None` when not finite.
+struct Linearised {
+    r: [f64; NQ],
+    jac: [[f64; NQ]; NQ],
+    load: [f64; NQ],
+    scale: f64,
+}
+fn linearise(
+    q: &[f64; NQ],
+    u: &[f64; NU],
+    lambda: f64,
+    k: &[[f64; NQ]; NQ],
+    with_jacobian: bool,
+    work: &mut [f64],
+) -> Option<Linearised> {
+    let g = gravity_in(q, work);
+    let a = actuation_in(q, work);
+    let mut lin = Linearised {
+        r: [0.0; NQ],
+        jac: [[0.0; NQ]; NQ],
+        load: [0.0; NQ],
+        scale: 0.0,
+    };
+    let (mut kq2, mut g2, mut au2) = (0.0, 0.0, 0.0);
+    for i in 0..NQ {
+        let mut kq = 0.0;
+        let mut au = 0.0;
+        for x in 0..NQ {
+            kq += k[i][x] * q[x];
+        }
+        for c in 0..NU {
+            au += a[i][c] * u[c];
+        }
+        lin.load[i] = g[i] - au;
+        lin.r[i] = kq + lambda * lin.load[i];
+        kq2 += kq * kq;
+        g2 += g[i] * g[i];
+        au2 += au * au;
+    }
+    lin.scale = libm::sqrt(kq2) + lambda * (libm::sqrt(g2) + libm::sqrt(au2)) + 1e-300;
+    if !all_finite(&lin.r) {
+        return None;
+    }
+    if with_jacobian {
+        let dg = gravity_jacobian_in(q, work);
+        for i in 0..NQ {
+            for x in 0..NQ {
+                let d = dg[i][x];
+                lin.jac[i][x] = k[i][x] + lambda * d;
+            }
+        }
+        if !all_finite(lin.jac.as_flattened()) {
+            return None;
+        }
+    }
+    Some(lin)
+}
+/// Equilibrium `K q + G(q) = A(q) u`: the shape the arm rests in under `u` and
+/// gravity. Damped Newton with the exact Jacobian ([`static_jacobian`]) and load
+/// continuation from the straight shape, so that the branch found is the one the arm
+/// reaches when the load is applied slowly (the algorithm and settings of
+/// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
+pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
+    equilibrium_in(u, &mut [0.0; STATICS_WORK])
+}
+/// [`equilibrium`] with its scratch in the caller's [`Workspace`]; the same values.
+pub fn equilibrium_ws(
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<Equilibrium, StaticsError> {
+    equilibrium_in(u, &mut ws.0)
+}
+fn equilibrium_in(u: &[f64; NU], work: &mut [f64]) -> Result<Equilibrium, StaticsError> {
+    if !all_finite(u) {
+        return Err(StaticsError::NonFiniteInput);
+    }
+    let k = stiffness();
+    let mut q = [0.0; NQ];
+    let (mut lambda, mut step, mut last) = (0.0f64, 1.0f64, 0.0f64);
+    let (mut iterations, mut load_steps) = (0usize, 0usize);
+    while lambda < 1.0 {
+        let here = linearise(&q, u, lambda, &k, true, work)
+            .ok_or(StaticsError::NonFiniteResult)?;
+        let tangent = match solve(here.jac, here.load) {
+            Some(t) => t.map(|v| -v),
+            None => [0.0; NQ],
+        };
+        let mut dl = step.min(1.0 - lambda);
+        let reach = bending(&tangent);
+        if reach * dl > EQUILIBRIUM_MAX_BENDING_STEP {
+            dl = (EQUILIBRIUM_MAX_BENDING_STEP / reach).max(EQUILIBRIUM_MIN_STEP);
+        }
+        let target = if lambda + dl >= 1.0 - 1e-15 { 1.0 } else { lambda + dl };
+        let mut trial = [0.0; NQ];
+        for i in 0..NQ {
+            trial[i] = q[i] + (target - lambda) * tangent[i];
+        }
+        let mut converged = false;
+        for _ in 0..EQUILIBRIUM_ITERATIONS_PER_STEP {
+            if iterations >= EQUILIBRIUM_MAX_ITERATIONS {
+                break;
+            }
+            iterations += 1;
+            let lin = linearise(&trial, u, target, &k, true, work)
+                .ok_or(StaticsError::NonFiniteResult)?;
+            let res = norm(&lin.r);
+            last = res;
+            if res <= EQUILIBRIUM_TOLERANCE * lin.scale {
+                converged = true;
+                break;
+            }
+            let Some(s) = solve(lin.jac, lin.r) else {
+                break;
+            };
+            let dq = s.map(|v| -v);
+            let worst = bending(&dq);
+            let mut alpha = if worst > EQUILIBRIUM_MAX_BENDING_STEP {
+                EQUILIBRIUM_MAX_BENDING_STEP / worst
+            } else {
+                1.0
+            };
+            let mut accepted = false;
+            for _ in 0..20 {
+                let mut cand = [0.0; NQ];
+                for i in 0..NQ {
+                    cand[i] = trial[i] + alpha * dq[i];
+                }
+                if let Some(c) = linearise(&cand, u, target, &k, false, work) {
+                    let cres = norm(&c.r);
+                    if cres < res || cres <= EQUILIBRIUM_TOLERANCE * c.scale {
+                        trial = cand;
+                        accepted = true;
+                        break;
+                    }
+                }
+                alpha *= 0.5;
+            }
+            if !accepted {
+                break;
+            }
+        }
+        if converged {
+            q = trial;
+            lambda = target;
+            load_steps += 1;
+            step = (2.0 * dl).min(1.0);
+        } else {
+            step = 0.5 * dl;
+            if step < EQUILIBRIUM_MIN_STEP || iterations >= EQUILIBRIUM_MAX_ITERATIONS {
+                return Err(StaticsError::NotConverged {
+                    load: lambda,
+                    residual: last,
+                    iterations,
+                    q,
+                });
+            }
+        }
+    }
+    let lin = linearise(&q, u, 1.0, &k, true, work)
+        .ok_or(StaticsError::NonFiniteResult)?;
+    let mut sym = [0.0; NQ * NQ];
+    for i in 0..NQ {
+        for j in 0..NQ {
+            sym[i * NQ + j] = 0.5 * (lin.jac[i][j] + lin.jac[j][i]);
+        }
+    }
+    let stable = cholesky(NQ, NQ, &mut sym, &mut [0.0; NQ], 0.0);
+    let residual = norm(&lin.r);
+    Ok(Equilibrium {
+        q,
+        iterations,
+        load_steps,
+        residual,
+        relative_residual: residual / lin.scale,
+        stable,
+    })
+}
+/// Number of controlled outputs `y = S q` of [`regulate`].
+pub const NY: usize = 2;
+/// Labels of the controlled outputs (as `arcwright simulate`'s CSV):
+/// `1_0 = q[0]`
+/// `2_0 = q[1]`
+pub const OUTPUT_LABELS: [&str; NY] = ["1_0", "2_0"];
+/// The actuators' limits `[lo, hi]` from the arm file (tendons: `lo` = pretension).
+pub const INPUT_LIMITS: [[f64; 2]; NU] = [
+    [0.2, 25.0],
+    [0.2, 25.0],
+    [0.2, 25.0],
+    [0.2, 25.0],
+];
+/// Most active-set iterations of the input allocation (`4 NU + 8`).
+const REGULATE_ITERATIONS: usize = 24;
+/// The regulators of [`regulate`].
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum Law {
+    /// `u = (S A)⁺ [Kp (ȳ − y) − Kd ẏ]`: PD that knows only the controlled part.
+    Baseline,
+    /// `u = (S A)⁺ [Kp (ȳ − y) − Kd ẏ + S (K q + G(q))]`: the same PD plus the model's
+    /// elastic and gravity load on the outputs; at rest `y` is exactly `ȳ`.
+    Compensated,
+}
+/// Why [`regulate`] returned no command.
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+pub enum RegulateError {
+    /// The state, target or a gain holds a NaN or an infinity.
+    NonFiniteInput,
+    /// A gain is not positive.
+    BadGain,
+    /// The computed inputs are not finite.
+    NonFiniteResult,
+}
+/// What [`regulate`] commands.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Command {
+    /// The inputs, within [`INPUT_LIMITS`].
+    pub u: [f64; NU],
+    /// The limits keep `u` from the wanted force (`u` is the best they allow).
+    pub saturated: bool,
+}
+impl Command {
+    /// Each input at the point of its range nearest 0 (tendons at their pretension):
+    /// what to apply when [`regulate`] returns an error.
+    pub fn relaxed() -> Command {
+        let mut u = [0.0; NU];
+        for c in 0..NU {
+            u[c] = 0.0f64.clamp(INPUT_LIMITS[c][0], INPUT_LIMITS[c][1]);
+        }
+        Command { u, saturated: false }
+    }
+}
+/// `y = S v`.
+fn select(v: &[f64; NQ]) -> [f64; NY] {
+    [v[0], v[1]]
+}
+/// The regulator `law` at the state `(q, q̇)`, toward `target` with gains `kp`, `kd`
+/// (positive, one per output). `(S A)⁺` is the allocation within [`INPUT_LIMITS`]: the
+/// `u` nearest `S A u = b` in the least-squares sense, the least-norm one among equals
+/// (antagonistic tendons share the work), by a primal active-set method.
+///
+/// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
+/// the arm when the result or the state is not what you expect.
+pub fn regulate(
+    law: Law,
+    target: &[f64; NY],
+    kp: &[f64; NY],
+    kd: &[f64; NY],
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+) -> Result<Command, RegulateError> {
+    regulate_in(law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
+}
+/// [`regulate`] with its scratch in the caller's [`Workspace`]; the same values.
+pub fn regulate_ws(
+    law: Law,
+    target: &[f64; NY],
+    kp: &[f64; NY],
+    kd: &[f64; NY],
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> Result<Command, RegulateError> {
+    regulate_in(law, target, kp, kd, q, qd, &mut ws.0)
+}
+fn regulate_in(
+    law: Law,
+    target: &[f64; NY],
+    kp: &[f64; NY],
+    kd: &[f64; NY],
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    work: &mut [f64],
+) -> Result<Command, RegulateError> {
+    if !all_finite(q) || !all_finite(qd) || !all_finite(target) || !all_finite(kp)
+        || !all_finite(kd)
+    {
+        return Err(RegulateError::NonFiniteInput);
+    }
+    if kp.iter().chain(kd.iter()).any(|g| !(*g > 0.0)) {
+        return Err(RegulateError::BadGain);
+    }
+    let a = actuation_in(q, work);
+    let (y, yd) = (select(q), select(qd));
+    let mut b = [0.0; NY];
+    for r in 0..NY {
+        b[r] = kp[r] * (target[r] - y[r]) - kd[r] * yd[r];
+    }
+    if law == Law::Compensated {
+        let mut load = gravity_in(q, work);
+        let k = stiffness();
+        for i in 0..NQ {
+            for j in 0..NQ {
+                load[i] += k[i][j] * q[j];
+            }
+        }
+        let s = select(&load);
+        for r in 0..NY {
+            b[r] += s[r];
+        }
+    }
+    let mut m = [[0.0; NU]; NY];
+    for c in 0..NU {
+        let mut col = [0.0; NQ];
+        for i in 0..NQ {
+            col[i] = a[i][c];
+        }
+        let s = select(&col);
+        for r in 0..NY {
+            m[r][c] = s[r];
+        }
+    }
+    let mut hess = [[0.0; NU]; NU];
+    let mut f = [0.0; NU];
+    for r in 0..NY {
+        for i in 0..NU {
+            f[i] += m[r][i] * b[r];
+            for j in 0..NU {
+                hess[i][j] += m[r][i] * m[r][j];
+            }
+        }
+    }
+    let trace: f64 = (0..NU).map(|i| hess[i][i]).sum();
+    let mu = if trace > 0.0 { 1e-12 * trace / NU as f64 } else { 1.0 };
+    for i in 0..NU {
+        hess[i][i] += mu;
+    }
+    let mut cmd = Command::relaxed();
+    let u = &mut cmd.u;
+    let mut fixed = [false; NU];
+    for i in 0..NU {
+        fixed[i] = u[i] != 0.0;
+    }
+    for _ in 0..REGULATE_ITERATIONS {
+        let mut free_at = [0usize; NU];
+        let mut nf = 0;
+        for i in 0..NU {
+            if !fixed[i] {
+                free_at[nf] = i;
+                nf += 1;
+            }
+        }
+        let mut opt = *u;
+        if nf > 0 {
+            let mut sub = [0.0; NU * NU];
+            let mut rhs = [0.0; NU];
+            for i in 0..nf {
+                let mut s = f[free_at[i]];
+                for j in 0..NU {
+                    if fixed[j] {
+                        s -= hess[free_at[i]][j] * u[j];
+                    }
+                }
+                rhs[i] = s;
+                for j in 0..nf {
+                    sub[i * nf + j] = hess[free_at[i]][free_at[j]];
+                }
+            }
+            if !cholesky(nf, nf, &mut sub, &mut rhs, 0.0) {
+                break;
+            }
+            for i in 0..nf {
+                opt[free_at[i]] = rhs[i];
+            }
+        }
+        let mut alpha = 1.0f64;
+        let mut blocking = None;
+        for i in 0..NU {
+            let d = opt[i] - u[i];
+            if fixed[i] || d == 0.0 {
+                continue;
+            }
+            let bound = if d < 0.0 { INPUT_LIMITS[i][0] } else { INPUT_LIMITS[i][1] };
+            if bound.is_finite() {
+                let reach = (bound - u[i]) / d;
+                if reach < alpha {
+                    alpha = reach.max(0.0);
+                    blocking = Some((i, bound));
+                }
+            }
+        }
+        for i in 0..NU {
+            if !fixed[i] {
+                u[i] += alpha * (opt[i] - u[i]);
+            }
+        }
+        if let Some((i, bound)) = blocking {
+            u[i] = bound;
+            fixed[i] = true;
+            continue;
+        }
+        let gscale = norm(&f) + libm::sqrt(trace) * norm(&u[..]) + 1e-300;
+        let mut release = None;
+        let mut worst = 0.0;
+        for i in 0..NU {
+            if !fixed[i] {
+                continue;
+            }
+            let grad: f64 = (0..NU).map(|j| hess[i][j] * u[j]).sum::<f64>() - f[i];
+            let wrong = if u[i] <= INPUT_LIMITS[i][0] { -grad } else { grad };
+            if wrong > 1e-14 * gscale && wrong >= worst {
+                worst = wrong;
+                release = Some(i);
+            }
+        }
+        match release {
+            Some(i) => fixed[i] = false,
+            None => break,
+        }
+    }
+    if fixed.iter().filter(|f| !**f).count() >= NY {
+        let mut rhs = [0.0; NY];
+        let mut gram = [0.0; NY * NY];
+        for r in 0..NY {
+            rhs[r] = b[r]
+                - (0..NU).filter(|i| fixed[*i]).map(|i| m[r][i] * u[i]).sum::<f64>();
+            for j in 0..NY {
+                gram[r * NY + j] = (0..NU)
+                    .filter(|i| !fixed[*i])
+                    .map(|i| m[r][i] * m[j][i])
+                    .sum::<f64>();
+            }
+        }
+        if cholesky(NY, NY, &mut gram, &mut rhs, 1e-10) {
+            let mut cand = *u;
+            let mut in_range = true;
+            for i in 0..NU {
+                if !fixed[i] {
+                    cand[i] = (0..NY).map(|r| m[r][i] * rhs[r]).sum::<f64>();
+                    in_range
+                        &= cand[i].is_finite() && cand[i] >= INPUT_LIMITS[i][0]
+                            && cand[i] <= INPUT_LIMITS[i][1];
+                }
+            }
+            if in_range {
+                *u = cand;
+            }
+        }
+    }
+    if !all_finite(&u[..]) {
+        return Err(RegulateError::NonFiniteResult);
+    }
+    let mut short = [0.0; NY];
+    for r in 0..NY {
+        short[r] = b[r] - (0..NU).map(|i| m[r][i] * u[i]).sum::<f64>();
+    }
+    cmd.saturated = !(norm(&short) <= 1e-9 * (norm(&b) + 1e-300));
+    Ok(cmd)
 }

@@ -290,6 +290,115 @@ static G_BNORM: [[f64; 1]; NCASES] = [
     [3.758806125e-5],
     [1.62053591591672e-5],
 ];
+static G_DG: [[f64; 4]; NCASES] = [
+    [0.0, 0.0, 0.0, 0.0],
+    [-1.82511984375e-12, -5.12082e-13, -5.12082e-13, -2.6557632e-13],
+    [
+        -2.05291589986623e-4,
+        -2.46647515454111e-5,
+        -2.46647515454111e-5,
+        -9.02691489511488e-6,
+    ],
+    [
+        -7.65095415883229e-4,
+        -2.44448350591231e-4,
+        -2.44448350591231e-4,
+        -1.34068936413804e-4,
+    ],
+    [-3.97305e-13, -1.94238e-13, -1.94238e-13, -1.1018592e-13],
+    [-8.64244379919075e-4, 2.45068214132182e-5, 2.45068214132182e-5, 4.00216025241161e-5],
+];
+static G_R: [[f64; 2]; NCASES] = [
+    [1.362301875e-2, 2.20356e-3],
+    [1.3404768765e-2, 2.028960009e-3],
+    [1.64794651637483e-2, 2.20026275545009e-4],
+    [4.6080950244951e-2, -2.38865511688418e-2],
+    [1.359601875e-2, 2.181960009e-3],
+    [2.67922698776221e-2, 1.60413838426452e-2],
+];
+static G_JS: [[f64; 4]; NCASES] = [
+    [2.25e-3, 0.0, 0.0, 1.08e-3],
+    [2.24999999817488e-3, -5.12082e-13, -5.12082e-13, 1.07999999973442e-3],
+    [
+        2.04470841001338e-3,
+        -2.46647515454111e-5,
+        -2.46647515454111e-5,
+        1.07097308510489e-3,
+    ],
+    [
+        1.48490458411677e-3,
+        -2.44448350591231e-4,
+        -2.44448350591231e-4,
+        9.45931063586196e-4,
+    ],
+    [2.2499999996027e-3, -1.94238e-13, -1.94238e-13, 1.07999999988981e-3],
+    [1.38575562008092e-3, 2.45068214132182e-5, 2.45068214132182e-5, 1.12002160252412e-3],
+];
+static G_UEQ: [[f64; 4]; NCASES] = [
+    [0.0, 0.0, 0.0, 0.0],
+    [1.0, -6.66666666666667e-1, 5.0e-1, -1.16666666666667],
+    [1.0, -4.0, -5.0e-1, 3.0],
+    [-1.42857142857143, 3.57142857142857, -3.57142857142857, 1.42857142857143],
+    [-8.57142857142858, 1.42857142857143, 1.14285714285714e1, -2.85714285714286],
+    [5.83333333333333, -2.5, 3.33333333333333, -5.0],
+];
+static G_QEQ: [[f64; 2]; NCASES] = [
+    [-4.84923529187833, -1.33038514342275],
+    [-2.9956107864594, 4.29182625642928e-1],
+    [-4.30636727402907, 4.80709081890008],
+    [-9.50656977337096, -6.09195307608816],
+    [-1.35149019757486, -1.39381086829593e1],
+    [1.54901032364002e1, 1.29195232912992e1],
+];
+static G_EQSTABLE: [[f64; 1]; NCASES] = [[1.0], [1.0], [1.0], [1.0], [1.0], [1.0]];
+static G_YTARGET: [[f64; 2]; NCASES] = [
+    [1.5e-1, 4.375e-1],
+    [-2.49999993333333e-1, 1.87500008333333e-1],
+    [8.33333333333333e-1, -1.72916666666667],
+    [2.36458333333333e1, -2.19791666666667e1],
+    [6.25e-2, 5.00000008333333e-1],
+    [1.31458333333333e1, 1.69166666666667e1],
+];
+static G_KP: [[f64; 2]; NCASES] = [
+    [5.0e-2, 6.25e-2],
+    [5.0e-2, 6.25e-2],
+    [5.0e-2, 6.25e-2],
+    [5.0e1, 6.25e1],
+    [5.0e-2, 6.25e-2],
+    [5.0e-2, 6.25e-2],
+];
+static G_KD: [[f64; 2]; NCASES] = [
+    [4.0e-3, 6.0e-3],
+    [4.0e-3, 6.0e-3],
+    [4.0e-3, 6.0e-3],
+    [4.0, 6.0],
+    [4.0e-3, 6.0e-3],
+    [4.0e-3, 6.0e-3],
+];
+static G_UBASE: [[f64; 4]; NCASES] = [
+    [1.95532986111111e1, 2.0e-1, 2.0e-1, 1.38310763888889e1],
+    [1.01609375e1, 2.0e-1, 2.0e-1, 1.80776041666667e1],
+    [2.0e-1, 5.82934027777778, 2.0e-1, 8.65399305555555],
+    [2.0e-1, 2.5e1, 2.5e1, 2.0e-1],
+    [2.10263888888889e1, 2.0e-1, 2.0e-1, 1.79291666666667e1],
+    [1.25090277777778e1, 2.0e-1, 2.0e-1, 1.88840277777778e1],
+];
+static G_UCOMP: [[f64; 4]; NCASES] = [
+    [2.10247986111111e1, 2.0e-1, 2.0e-1, 7.73048263888889],
+    [1.163243750625e1, 2.0e-1, 2.0e-1, 1.19770104145833e1],
+    [2.0e-1, 5.61404425309374, 7.0471934406502e-1, 2.0e-1],
+    [2.0e-1, 2.5e1, 2.5e1, 2.0e-1],
+    [2.24978888951389e1, 2.0e-1, 2.0e-1, 1.18285729229167e1],
+    [2.37113776685036e1, 2.0e-1, 2.0e-1, 1.50767832920469e1],
+];
+static G_REGSAT: [[f64; 2]; NCASES] = [
+    [0.0, 0.0],
+    [0.0, 0.0],
+    [0.0, 0.0],
+    [1.0, 1.0],
+    [0.0, 0.0],
+    [0.0, 0.0],
+];
 const SCALE_B: f64 = 3.158398125e-5;
 const SCALE_C: f64 = 1.72177574906104e-7;
 const SCALE_G: f64 = 1.362976875e-2;
@@ -300,6 +409,12 @@ const SCALE_J: f64 = 1.5e-1;
 const SCALE_T: f64 = 8.11100926125001e-6;
 const SCALE_V: f64 = 9.51895744715522e-1;
 const SCALE_POSE: f64 = 4.0;
+const SCALE_DG: f64 = 8.64244379919075e-4;
+const SCALE_R: f64 = 4.6080950244951e-2;
+const SCALE_JS: f64 = 2.25e-3;
+const SCALE_QEQ: f64 = 1.54901032364002e1;
+const SCALE_UBASE: f64 = 2.5e1;
+const SCALE_UCOMP: f64 = 2.5e1;
 fn flat<const R: usize, const C: usize>(m: &[[f64; C]; R]) -> [f64; 64] {
     let mut out = [0.0; 64];
     for i in 0..R {
@@ -468,4 +583,95 @@ fn workspace_variants_equal_the_plain_functions() {
         );
     }
     assert!(failures.is_empty(), "{}", failures.join("\n"));
+}
+#[test]
+fn statics_match_reference() {
+    assert!(NQ * NQ <= 64);
+    run(|c, f| {
+        let (q, _, u) = state(c);
+        let mut ws = Workspace::new();
+        check(
+            "gravity_jacobian",
+            c,
+            &flat(&gravity_jacobian(&q)),
+            &G_DG[c],
+            SCALE_DG,
+            f,
+        );
+        assert_eq!(gravity_jacobian_ws(& q, & mut ws), gravity_jacobian(& q));
+        let r = static_residual(&q, &u).expect("static_residual");
+        check("static_residual", c, &r, &G_R[c], SCALE_R, f);
+        assert_eq!(static_residual_ws(& q, & u, & mut ws), Ok(r));
+        let j = static_jacobian(&q, &u).expect("static_jacobian");
+        check("static_jacobian", c, &flat(&j), &G_JS[c], SCALE_JS, f);
+        assert_eq!(static_jacobian_ws(& q, & u, & mut ws), Ok(j));
+        let mut ueq = [0.0; NU];
+        ueq.copy_from_slice(&G_UEQ[c][..NU]);
+        match equilibrium(&ueq) {
+            Ok(eq) => {
+                check("equilibrium", c, &eq.q, &G_QEQ[c], SCALE_QEQ, f);
+                if eq.stable != (G_EQSTABLE[c][0] > 0.5) {
+                    f.push(format!("equilibrium [{}]: stable {}", LABELS[c], eq.stable));
+                }
+                assert!(eq.relative_residual <= EQUILIBRIUM_TOLERANCE);
+                assert_eq!(equilibrium_ws(& ueq, & mut ws), Ok(eq));
+            }
+            Err(e) => f.push(format!("equilibrium [{}]: {e:?}", LABELS[c])),
+        }
+    });
+}
+#[test]
+fn statics_reject_non_finite_inputs() {
+    let (mut q, _, u) = state(2);
+    q[0] = f64::NAN;
+    assert_eq!(static_residual(& q, & u), Err(StaticsError::NonFiniteInput));
+    assert_eq!(static_jacobian(& q, & u), Err(StaticsError::NonFiniteInput));
+    assert_eq!(equilibrium(& [f64::NAN; NU]), Err(StaticsError::NonFiniteInput));
+}
+#[test]
+fn regulators_match_reference() {
+    run(|c, f| {
+        let (q, qd, _) = state(c);
+        let (mut target, mut kp, mut kd) = ([0.0; NY], [0.0; NY], [0.0; NY]);
+        target.copy_from_slice(&G_YTARGET[c][..NY]);
+        kp.copy_from_slice(&G_KP[c][..NY]);
+        kd.copy_from_slice(&G_KD[c][..NY]);
+        let mut ws = Workspace::new();
+        for (law, want, scale, saturated) in [
+            (Law::Baseline, &G_UBASE[c], SCALE_UBASE, G_REGSAT[c][0] > 0.5),
+            (Law::Compensated, &G_UCOMP[c], SCALE_UCOMP, G_REGSAT[c][1] > 0.5),
+        ] {
+            let cmd = regulate(law, &target, &kp, &kd, &q, &qd).expect("regulate");
+            check(&format!("regulate {law:?}"), c, &cmd.u, want, scale, f);
+            if cmd.saturated != saturated {
+                f.push(
+                    format!(
+                        "regulate {law:?} [{}]: saturated {}", LABELS[c], cmd.saturated
+                    ),
+                );
+            }
+            for (v, l) in cmd.u.iter().zip(INPUT_LIMITS.iter()) {
+                assert!(l[0] <= * v && * v <= l[1], "{v} outside {l:?}");
+            }
+            assert_eq!(
+                regulate_ws(law, & target, & kp, & kd, & q, & qd, & mut ws), Ok(cmd)
+            );
+        }
+    });
+}
+#[test]
+fn regulate_rejects_bad_calls() {
+    let (mut q, qd, _) = state(2);
+    let (t, g) = ([0.1; NY], [0.01; NY]);
+    assert_eq!(
+        regulate(Law::Compensated, & t, & [0.0; NY], & g, & q, & qd),
+        Err(RegulateError::BadGain)
+    );
+    q[0] = f64::NAN;
+    assert_eq!(
+        regulate(Law::Baseline, & t, & g, & g, & q, & qd),
+        Err(RegulateError::NonFiniteInput)
+    );
+    let relaxed = Command::relaxed();
+    assert!(relaxed.u.iter().all(| v | v.is_finite()) && ! relaxed.saturated);
 }
