@@ -170,6 +170,7 @@ void hanging_taper_gravity_jacobian(const double q[], double dG[]);
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns HANGING_TAPER_OK, HANGING_TAPER_ERR_NONFINITE_INPUT (R is then NaN) or
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
+ * Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
  */
 int hanging_taper_static_residual(const double q[], const double u[], double R[]);
 
@@ -178,6 +179,7 @@ int hanging_taper_static_residual(const double q[], const double u[], double R[]
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * hanging_taper_static_residual.
+ * Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
  */
 int hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
 
@@ -218,6 +220,7 @@ typedef struct {
  * Returns HANGING_TAPER_OK; HANGING_TAPER_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
+ * Operations: at most 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig per Newton iteration, 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig per backtracking trial.
  */
 int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
 
@@ -250,6 +253,7 @@ int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equili
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
+ * Operations: at most 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig before the allocation, 46 add, 40 mul, 12 div, 5 sqrt, 0 trig per active-set iteration.
  */
 int hanging_taper_regulate(int law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);

@@ -10614,7 +10614,10 @@ def _cholesky(a, b, floor):
 
 def static_residual(q, u):
     """Static residual R = K q + G(q) - A(q) u: zero at an equilibrium under u.
-    Raises StaticsError on a non-finite input."""
+    Raises StaticsError on a non-finite input.
+
+    Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
+    """
     q = _vector(q, NQ, "q")
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in q + u):
@@ -10624,7 +10627,10 @@ def static_residual(q, u):
 
 def static_jacobian(q, u):
     """Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq: symmetric (every
-    load of the model is conservative), positive definite at a stable equilibrium."""
+    load of the model is conservative), positive definite at a stable equilibrium.
+
+    Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
+    """
     q = _vector(q, NQ, "q")
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in q + u):
@@ -10661,6 +10667,8 @@ def equilibrium(u):
     most EQUILIBRIUM_MAX_ITERATIONS Newton iterations. Returns a dict with q,
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
+
+    Operations: at most 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig per Newton iteration, 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig per backtracking trial.
     """
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in u):
@@ -10782,6 +10790,8 @@ def regulate(law, target, kp, kd, q, qd):
 
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
+
+    Operations: at most 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig before the allocation, 46 add, 40 mul, 12 div, 5 sqrt, 0 trig per active-set iteration.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")

@@ -169,6 +169,7 @@ void twin_tendon_gravity_jacobian(const double q[], double dG[]);
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns TWIN_TENDON_OK, TWIN_TENDON_ERR_NONFINITE_INPUT (R is then NaN) or
  * TWIN_TENDON_ERR_NONFINITE_RESULT.
+ * Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
  */
 int twin_tendon_static_residual(const double q[], const double u[], double R[]);
 
@@ -177,6 +178,7 @@ int twin_tendon_static_residual(const double q[], const double u[], double R[]);
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * twin_tendon_static_residual.
+ * Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
 int twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
 
@@ -217,6 +219,7 @@ typedef struct {
  * Returns TWIN_TENDON_OK; TWIN_TENDON_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * TWIN_TENDON_ERR_NONFINITE_INPUT (q = 0); TWIN_TENDON_ERR_NONFINITE_RESULT.
+ * Operations: at most 234 add, 417 mul, 11 div, 4 sqrt, 12 trig per Newton iteration, 111 add, 196 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
  */
 int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
 
@@ -248,6 +251,7 @@ int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibriu
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
+ * Operations: at most 144 add, 236 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
  */
 int twin_tendon_regulate(int law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);

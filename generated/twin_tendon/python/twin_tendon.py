@@ -718,7 +718,10 @@ def _cholesky(a, b, floor):
 
 def static_residual(q, u):
     """Static residual R = K q + G(q) - A(q) u: zero at an equilibrium under u.
-    Raises StaticsError on a non-finite input."""
+    Raises StaticsError on a non-finite input.
+
+    Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
+    """
     q = _vector(q, NQ, "q")
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in q + u):
@@ -728,7 +731,10 @@ def static_residual(q, u):
 
 def static_jacobian(q, u):
     """Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq: symmetric (every
-    load of the model is conservative), positive definite at a stable equilibrium."""
+    load of the model is conservative), positive definite at a stable equilibrium.
+
+    Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+    """
     q = _vector(q, NQ, "q")
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in q + u):
@@ -765,6 +771,8 @@ def equilibrium(u):
     most EQUILIBRIUM_MAX_ITERATIONS Newton iterations. Returns a dict with q,
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
+
+    Operations: at most 234 add, 417 mul, 11 div, 4 sqrt, 12 trig per Newton iteration, 111 add, 196 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
     """
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in u):
@@ -885,6 +893,8 @@ def regulate(law, target, kp, kd, q, qd):
 
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
+
+    Operations: at most 144 add, 236 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")

@@ -6,6 +6,7 @@
 //! [`crate::allocation::allocate`], which the CLI uses.
 
 use super::number::{literal, Precision};
+use super::ops::Ops;
 use super::plan::Plan;
 use crate::allocation::{max_iterations, POLISH_PIVOT, REGULARISATION};
 use crate::exact::Q;
@@ -221,6 +222,7 @@ impl Settings {
 
 /// Everything the C statics template reads.
 pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &StaticsLayout) {
+    StaticsOps::of(plan).insert(ctx);
     let fs = if precision == Precision::F32 { "f" } else { "" };
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
@@ -286,6 +288,7 @@ pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &Stati
 
 /// Everything the Rust statics section reads (double precision only).
 pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
+    StaticsOps::of(plan).insert(ctx);
     let p = Precision::F64;
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
@@ -340,6 +343,7 @@ pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
 
 /// Everything the Python statics section reads.
 pub fn insert_python(ctx: &mut Context, plan: &Plan) {
+    StaticsOps::of(plan).insert(ctx);
     let p = Precision::F64;
     let lengths: Vec<String> = plan.seg_length.iter().map(|l| literal(l, p)).collect();
     let spans: Vec<String> = (0..plan.segments)
@@ -392,4 +396,155 @@ pub fn insert_python(ctx: &mut Context, plan: &Plan) {
     ctx.insert("saturation", &set.saturation);
     ctx.insert("reg_iterations", &max_iterations(plan.k));
     ctx.insert("has_da", &plan.actuation_jacobian.is_some());
+}
+
+/// Worst-case operation counts of the statics and regulator functions, for their
+/// comments: the straight-line parts exactly as [`Ops`] counts the schedules, the
+/// loops at their largest trip counts.
+pub struct StaticsOps {
+    pub residual: Ops,
+    pub jacobian: Ops,
+    /// One Newton iteration of `equilibrium` (linearisation with the Jacobian, the
+    /// norm, the solve) and one backtracking trial (the residual only).
+    pub newton: Ops,
+    pub trial: Ops,
+    /// `regulate` before its active-set loop (compensated law), and one iteration.
+    pub regulate: Ops,
+    pub active_set: Ops,
+}
+
+fn mul_add(count: usize) -> Ops {
+    Ops {
+        add: count,
+        mul: count,
+        ..Ops::default()
+    }
+}
+
+impl StaticsOps {
+    pub fn of(plan: &Plan) -> StaticsOps {
+        let (n, k, h) = (plan.n, plan.k, plan.outputs.len());
+        let da = plan
+            .actuation_jacobian
+            .as_ref()
+            .map_or(Ops::default(), |f| f.ops);
+        let da_u = if plan.actuation_jacobian.is_some() {
+            mul_add(n * n * k)
+        } else {
+            Ops::default()
+        };
+        let residual = plan.gravity.ops + plan.actuation.ops + mul_add(n * n + n * k);
+        let jacobian = plan.gravity_jacobian.ops
+            + da
+            + da_u
+            + Ops {
+                add: n * n,
+                ..Ops::default()
+            };
+        let norm = |len: usize| {
+            mul_add(len)
+                + Ops {
+                    sqrt: 1,
+                    ..Ops::default()
+                }
+        };
+        // Residual, load, scale (three norms), then ‖r‖.
+        let trial = residual
+            + mul_add(n)
+            + Ops {
+                add: n + 3,
+                mul: 1,
+                ..Ops::default()
+            }
+            + norm(n) * 3
+            + norm(n);
+        // Gaussian elimination with back substitution.
+        let mut solve = Ops::default();
+        for c in 0..n {
+            let below = n - c - 1;
+            solve += mul_add(below * (n - c + 1));
+            solve.div += below + 1;
+            solve += mul_add(below);
+            solve.add += 1;
+        }
+        let bending = Ops {
+            add: n,
+            mul: plan.segments,
+            ..Ops::default()
+        };
+        let newton = trial + jacobian + mul_add(n * n) + solve + bending;
+        let s_terms: usize = plan.outputs.iter().map(|o| o.terms.len()).sum();
+        let select = Ops {
+            add: s_terms.saturating_sub(h),
+            mul: s_terms,
+            ..Ops::default()
+        };
+        let regulate = plan.actuation.ops
+            + plan.gravity.ops
+            + mul_add(n * n)
+            + select * (3 + k)
+            + mul_add(h * 2)
+            + Ops {
+                add: 2 * h,
+                ..Ops::default()
+            }
+            + mul_add(h * k * (k + 1))
+            + Ops {
+                add: k + k,
+                mul: 1,
+                div: 1,
+                ..Ops::default()
+            };
+        // Free optimum (all free, the worst), walk, gradient, release test; the polish
+        // (once, after the loop) is of the same order.
+        let mut chol = Ops::default();
+        for i in 0..k {
+            for j in 0..=i {
+                chol += mul_add(j);
+                if i == j {
+                    chol.sqrt += 1;
+                } else {
+                    chol.div += 1;
+                }
+            }
+            chol += mul_add(2 * i);
+            chol.div += 2;
+        }
+        let active_set = mul_add(k * k) * 2
+            + chol
+            + Ops {
+                add: 4 * k,
+                mul: 2 * k,
+                div: k,
+                ..Ops::default()
+            }
+            + norm(k) * 2;
+        StaticsOps {
+            residual,
+            jacobian,
+            newton,
+            trial,
+            regulate,
+            active_set,
+        }
+    }
+
+    pub fn insert(&self, ctx: &mut Context) {
+        ctx.insert("residual_ops", &format!("Operations: {}.", self.residual));
+        ctx.insert("jacobian_ops", &format!("Operations: {}.", self.jacobian));
+        ctx.insert(
+            "equilibrium_ops",
+            &format!(
+                "Operations: at most {} per Newton iteration, {} per backtracking trial.",
+                self.newton, self.trial
+            ),
+        );
+        ctx.insert(
+            "regulate_ops",
+            &format!(
+                "Operations: at most {} before the allocation, {} per active-set iteration.",
+                self.regulate, self.active_set
+            ),
+        );
+    }
 }

@@ -21052,6 +21052,8 @@ fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bo
     true
 }
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
+///
+/// Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
 pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
     static_residual_in(q, u, &mut [0.0; STATICS_WORK])
 }
@@ -21086,6 +21088,8 @@ fn static_residual_in(
 }
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
+///
+/// Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
 pub fn static_jacobian(
     q: &[f64; NQ],
     u: &[f64; NU],
@@ -21185,6 +21189,8 @@ fn linearise(
 /// continuation from the straight shape, so that the branch found is the one the arm
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
+///
+/// Operations: at most 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig per Newton iteration, 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig per backtracking trial.
 pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(u, &mut [0.0; STATICS_WORK])
 }
@@ -21368,6 +21374,8 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 ///
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
+///
+/// Operations: at most 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig before the allocation, 46 add, 40 mul, 12 div, 5 sqrt, 0 trig per active-set iteration.
 pub fn regulate(
     law: Law,
     target: &[f64; NY],

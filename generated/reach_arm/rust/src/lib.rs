@@ -13484,6 +13484,8 @@ fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bo
     true
 }
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
+///
+/// Operations: 1279 add, 1800 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
     static_residual_in(q, u, &mut [0.0; STATICS_WORK])
 }
@@ -13518,6 +13520,8 @@ fn static_residual_in(
 }
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
+///
+/// Operations: 1805 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
     q: &[f64; NQ],
     u: &[f64; NU],
@@ -13612,6 +13616,8 @@ fn linearise(
 /// continuation from the straight shape, so that the branch found is the one the arm
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
+///
+/// Operations: at most 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig per Newton iteration, 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
 pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(u, &mut [0.0; STATICS_WORK])
 }
@@ -13794,6 +13800,8 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 ///
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
+///
+/// Operations: at most 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
 pub fn regulate(
     law: Law,
     target: &[f64; NY],

@@ -1062,6 +1062,8 @@ fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bo
     true
 }
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
+///
+/// Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
     static_residual_in(q, u, &mut [0.0; STATICS_WORK])
 }
@@ -1096,6 +1098,8 @@ fn static_residual_in(
 }
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
+///
+/// Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
     q: &[f64; NQ],
     u: &[f64; NU],
@@ -1190,6 +1194,8 @@ fn linearise(
 /// continuation from the straight shape, so that the branch found is the one the arm
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
+///
+/// Operations: at most 234 add, 417 mul, 11 div, 4 sqrt, 12 trig per Newton iteration, 111 add, 196 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
 pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(u, &mut [0.0; STATICS_WORK])
 }
@@ -1369,6 +1375,8 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 ///
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
+///
+/// Operations: at most 144 add, 236 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
 pub fn regulate(
     law: Law,
     target: &[f64; NY],
