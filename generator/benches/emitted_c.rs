@@ -29,6 +29,11 @@ int main(void) {
     double q[REACH_ARM_NQ] = {9.0, -4.0, 3.0, 12.0, 5.0, -6.0};
     double qd[REACH_ARM_NQ] = {0.3, -0.2, 0.1, 0.4, 0.2, -0.1};
     double B[36], C[36], G[6], sink = 0.0, separate = 1e300, together = 1e300, t;
+    double u[REACH_ARM_NU] = {0.5, 0.0, 0.2, 0.01}, ur[REACH_ARM_NU], qe[REACH_ARM_NQ];
+    double target[REACH_ARM_NY] = {4.0, -3.0}, kp[REACH_ARM_NY] = {0.05, 0.05};
+    double kd[REACH_ARM_NY] = {0.005, 0.005}, equilibrium = 1e300, regulate = 1e300;
+    reach_arm_equilibrium_info info;
+    int status = 0;
     struct timespec a;
     long i, n = 5000;
     int rep;
@@ -52,8 +57,25 @@ int main(void) {
         }
         t = since(&a, n);
         together = t < together ? t : together;
+        clock_gettime(CLOCK_MONOTONIC, &a);
+        for (i = 0; i < n / 50; ++i) {
+            u[0] = 0.5 + 1e-9 * (double)i;
+            status |= reach_arm_equilibrium(u, qe, &info);
+            sink += qe[1];
+        }
+        t = since(&a, n / 50);
+        equilibrium = t < equilibrium ? t : equilibrium;
+        clock_gettime(CLOCK_MONOTONIC, &a);
+        for (i = 0; i < n; ++i) {
+            q[0] += 1e-9;
+            status |= reach_arm_regulate(REACH_ARM_LAW_COMPENSATED, target, kp, kd, q, qd, ur) & 1;
+            sink += ur[1];
+        }
+        t = since(&a, n);
+        regulate = t < regulate ? t : regulate;
     }
-    printf("%.0f %.0f %g\n", separate, together, sink);
+    printf("%.0f %.0f %.0f %.0f %d %d %g\n", separate, together, equilibrium, regulate,
+        info.iterations, status, sink);
     return 0;
 }
 "#;
@@ -71,6 +93,9 @@ fn main() {
     let model = derive_statics(&arm);
     let files = emit(&model, &text, Options::default()).unwrap();
     let out = root.join("target/bench-emitted/reach_arm");
+    // The bench's own folder, which its compiler runs fill with files arcwright did
+    // not write (and so would refuse to replace): start it afresh.
+    let _ = std::fs::remove_dir_all(&out);
     write_tree(&out, &files, &|_| {}).unwrap();
     println!(
         "generate (derive + plan + golden + emit + write), in-process: {:.2?}",
@@ -139,12 +164,21 @@ fn main() {
     let run = Command::new(c.join("bench")).output().unwrap();
     let figures: Vec<f64> = String::from_utf8_lossy(&run.stdout)
         .split_whitespace()
-        .take(2)
+        .take(6)
         .map(|w| w.parse().unwrap())
         .collect();
     let (separate, ns) = (figures[0], figures[1]);
     println!("emitted C (f64, -O2), B + C + G by reach_arm_terms: {ns:.0} ns/call");
     println!("emitted C (f64, -O2), B + C + G as three calls: {separate:.0} ns/call");
+    println!(
+        "emitted C (f64, -O2), reach_arm_equilibrium under u = (0.5, 0, 0.2, 0.01): \
+         {:.0} ns/call, {} Newton iterations (status {})",
+        figures[2], figures[4], figures[5]
+    );
+    println!(
+        "emitted C (f64, -O2), reach_arm_regulate (compensated): {:.0} ns/call",
+        figures[3]
+    );
 
     let q = [9.0, -4.0, 3.0, 12.0, 5.0, -6.0];
     let qd = [0.3, -0.2, 0.1, 0.4, 0.2, -0.1];
@@ -181,6 +215,7 @@ fn main() {
         },
     )
     .unwrap();
+    let _ = std::fs::remove_dir_all(&out32);
     write_tree(&out32, &files32, &|_| {}).unwrap();
     let c32 = out32.join("c");
     let t = Instant::now();
