@@ -9,7 +9,7 @@ use super::eval::load_arm;
 use super::report::sample_configurations;
 use super::{progress, CliError};
 use crate::arm::{Actuator, Arm, SigmaPoly, MAX_SAMPLES};
-use crate::derive::derive;
+use crate::derive::{derive, derive_statics};
 use crate::dynamics::forward_dynamics;
 use crate::emit::golden::SIGMAS;
 use crate::emit::FUNCTIONS;
@@ -299,7 +299,7 @@ fn compare_functions(old: &Arm, new: &Arm, samples: usize, seed: u64) -> Vec<Qua
     let ws = old.sampling_or_default();
     let qs = sample_configurations(old, &ws, samples, seed);
     let mut rng = ChaCha8Rng::seed_from_u64(seed ^ 0xc0ffee);
-    let (mo, mn) = (derive(old), derive(new));
+    let (mo, mn) = (derive_statics(old), derive_statics(new));
     let (eo, en) = (Evaluator::new(&mo), Evaluator::new(&mn));
     let mut acc: Vec<Acc> = FUNCTIONS.iter().map(|_| Acc::default()).collect();
     let bar = progress::bar(samples as u64, "sampled states");
@@ -327,6 +327,7 @@ fn compare_functions(old: &Arm, new: &Arm, samples: usize, seed: u64) -> Vec<Qua
                 vec![t.kinetic_energy],
                 vec![t.potential_energy],
                 qdd,
+                ev.static_terms(q).map(|s| flat(&s.dg)).unwrap_or_default(),
             ]
         };
         let (a, b) = (eval(&eo, old.segments.len()), eval(&en, new.segments.len()));

@@ -543,7 +543,8 @@ fn error_table(arm: &Arm, model: &crate::derive::Model, samples: usize) -> Vec<R
                 pose_want.extend(rf.pose(q, j, s));
             }
         }
-        let pairs: [(Vec<f64>, Vec<f64>); 10] = [
+        let dg_got = ev.static_terms(q).map(|s| flat(&s.dg)).unwrap_or_default();
+        let pairs: [(Vec<f64>, Vec<f64>); 11] = [
             (flat(&got.b), flat(&want.b)),
             (flat(&got.c), flat(&want.c)),
             (got.g.clone(), want.g.clone()),
@@ -554,6 +555,7 @@ fn error_table(arm: &Arm, model: &crate::derive::Model, samples: usize) -> Vec<R
             (flat(&got.tip_jacobian), flat(&want.tip_jacobian)),
             (vec![got.kinetic_energy], vec![want.kinetic_energy]),
             (vec![got.potential_energy], vec![want.potential_energy]),
+            (dg_got, flat(&rf.gravity_jacobian(q))),
         ];
         for (name, (g, w)) in names.iter().zip(pairs) {
             per.entry(name)

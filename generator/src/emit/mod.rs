@@ -138,7 +138,7 @@ impl Default for Options {
 }
 
 /// The emitted functions, in the order the emitters write them.
-pub const FUNCTIONS: [&str; 11] = [
+pub const FUNCTIONS: [&str; 12] = [
     "inertia",
     "coriolis",
     "gravity",
@@ -150,6 +150,7 @@ pub const FUNCTIONS: [&str; 11] = [
     "kinetic_energy",
     "potential_energy",
     "forward_dynamics",
+    "gravity_jacobian",
 ];
 
 /// Name of the copy of the arm file at the top of every output folder.
