@@ -11692,7 +11692,7 @@ static const double hanging_taper_u_hi[HANGING_TAPER_NU] = {
  *     3_mean = q[6] + 1/2 q[7] */
 static void hanging_taper_select(const double v[], int stride, double y[], int ystride)
 {
-    y[0 * ystride] = v[0] + 0.5 * v[1 * stride] + 0.3333333333333333 * v[2 * stride];
+    y[0] = v[0] + 0.5 * v[1 * stride] + 0.3333333333333333 * v[2 * stride];
     y[1 * ystride] = v[3 * stride] + 0.5 * v[4 * stride] + 0.3333333333333333 * v[5 * stride];
     y[2 * ystride] = v[6 * stride] + 0.5 * v[7 * stride];
 }

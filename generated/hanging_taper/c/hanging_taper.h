@@ -185,13 +185,17 @@ int hanging_taper_static_jacobian(const double q[], const double u[], double J[]
 
 /** What hanging_taper_equilibrium did. */
 typedef struct {
-    int iterations;           /* Newton iterations in all */
-    int load_steps;           /* continuation steps taken */
-    double load;               /* load fraction reached (1 on success) */
-    double residual;           /* ||K q + G - A u||_2 at q (the last one tried on failure) */
-    double relative_residual;  /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure */
-    int stable;               /* 1 when dR/dq is positive definite: a local minimum of the
-                                 potential energy */
+    /* Newton iterations in all, and continuation steps taken. */
+    int iterations;
+    int load_steps;
+    /* Load fraction reached: 1 on success. */
+    double load;
+    /* ||K q + G - A u||_2 at q (on failure, at the last point tried). */
+    double residual;
+    /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure. */
+    double relative_residual;
+    /* 1 when dR/dq is positive definite: a local minimum of the potential energy. */
+    int stable;
 } hanging_taper_equilibrium_info;
 
 /*
@@ -220,7 +224,8 @@ typedef struct {
  * Returns HANGING_TAPER_OK; HANGING_TAPER_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations: at most 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig per Newton iteration, 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig per backtracking trial.
+ * Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
+ * Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
  */
 int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
 
@@ -253,7 +258,8 @@ int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equili
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations: at most 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig before the allocation, 46 add, 40 mul, 12 div, 5 sqrt, 0 trig per active-set iteration.
+ * Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
+ * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
 int hanging_taper_regulate(int law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);

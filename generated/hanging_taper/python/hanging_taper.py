@@ -10668,7 +10668,8 @@ def equilibrium(u):
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
 
-    Operations: at most 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig per Newton iteration, 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig per backtracking trial.
+    Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
+    Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
     """
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in u):
@@ -10755,7 +10756,7 @@ NY = 3
 #     1_mean = q[0] + 1/2 q[1] + 1/3 q[2]
 #     2_mean = q[3] + 1/2 q[4] + 1/3 q[5]
 #     3_mean = q[6] + 1/2 q[7]
-OUTPUT_LABELS = ("1_mean", "2_mean", "3_mean", )
+OUTPUT_LABELS = ("1_mean", "2_mean", "3_mean",)
 # The actuators' limits (lo, hi) from the arm file (tendons: lo = pretension).
 INPUT_LIMITS = ((-math.inf, math.inf), (-math.inf, math.inf), (-math.inf, math.inf),)
 LAW_BASELINE = "baseline"
@@ -10769,7 +10770,7 @@ class RegulateError(ValueError):
 
 
 def _select(v):
-    return [v[0] + 0.5 * v[1] + 0.3333333333333333 * v[2], v[3] + 0.5 * v[4] + 0.3333333333333333 * v[5], v[6] + 0.5 * v[7], ]
+    return [v[0] + 0.5 * v[1] + 0.3333333333333333 * v[2], v[3] + 0.5 * v[4] + 0.3333333333333333 * v[5], v[6] + 0.5 * v[7]]
 
 
 def relaxed_inputs():
@@ -10791,7 +10792,8 @@ def regulate(law, target, kp, kd, q, qd):
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
 
-    Operations: at most 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig before the allocation, 46 add, 40 mul, 12 div, 5 sqrt, 0 trig per active-set iteration.
+    Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
+    Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")

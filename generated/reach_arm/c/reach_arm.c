@@ -7956,7 +7956,7 @@ static const double reach_arm_u_hi[REACH_ARM_NU] = {
  *     2_mean = q[3] + 1/2 q[4] + 1/3 q[5] */
 static void reach_arm_select(const double v[], int stride, double y[], int ystride)
 {
-    y[0 * ystride] = v[0] + 0.5 * v[1 * stride] + 0.3333333333333333 * v[2 * stride];
+    y[0] = v[0] + 0.5 * v[1 * stride] + 0.3333333333333333 * v[2 * stride];
     y[1 * ystride] = v[3 * stride] + 0.5 * v[4 * stride] + 0.3333333333333333 * v[5 * stride];
 }
 

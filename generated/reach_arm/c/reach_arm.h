@@ -184,13 +184,17 @@ int reach_arm_static_jacobian(const double q[], const double u[], double J[]);
 
 /** What reach_arm_equilibrium did. */
 typedef struct {
-    int iterations;           /* Newton iterations in all */
-    int load_steps;           /* continuation steps taken */
-    double load;               /* load fraction reached (1 on success) */
-    double residual;           /* ||K q + G - A u||_2 at q (the last one tried on failure) */
-    double relative_residual;  /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure */
-    int stable;               /* 1 when dR/dq is positive definite: a local minimum of the
-                                 potential energy */
+    /* Newton iterations in all, and continuation steps taken. */
+    int iterations;
+    int load_steps;
+    /* Load fraction reached: 1 on success. */
+    double load;
+    /* ||K q + G - A u||_2 at q (on failure, at the last point tried). */
+    double residual;
+    /* residual / (||K q|| + ||G|| + ||A u||); NaN on failure. */
+    double relative_residual;
+    /* 1 when dR/dq is positive definite: a local minimum of the potential energy. */
+    int stable;
 } reach_arm_equilibrium_info;
 
 /*
@@ -219,7 +223,8 @@ typedef struct {
  * Returns REACH_ARM_OK; REACH_ARM_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * REACH_ARM_ERR_NONFINITE_INPUT (q = 0); REACH_ARM_ERR_NONFINITE_RESULT.
- * Operations: at most 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig per Newton iteration, 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
+ * Operations per Newton iteration, at most: 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig.
+ * Per backtracking trial: 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig.
  */
 int reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
 
@@ -251,7 +256,8 @@ int reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_in
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations: at most 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
+ * Operations before the allocation, at most: 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig.
+ * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
 int reach_arm_regulate(int law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);

@@ -7074,7 +7074,8 @@ def equilibrium(u):
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
 
-    Operations: at most 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig per Newton iteration, 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
+    Operations per Newton iteration, at most: 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig.
+    Per backtracking trial: 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig.
     """
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in u):
@@ -7160,7 +7161,7 @@ NY = 2
 # The controlled outputs y = S q of regulate, one per segment (labels as simulate's CSV):
 #     1_mean = q[0] + 1/2 q[1] + 1/3 q[2]
 #     2_mean = q[3] + 1/2 q[4] + 1/3 q[5]
-OUTPUT_LABELS = ("1_mean", "2_mean", )
+OUTPUT_LABELS = ("1_mean", "2_mean",)
 # The actuators' limits (lo, hi) from the arm file (tendons: lo = pretension).
 INPUT_LIMITS = ((0.0, math.inf), (0.0, math.inf), (0.0, math.inf), (-math.inf, math.inf),)
 LAW_BASELINE = "baseline"
@@ -7174,7 +7175,7 @@ class RegulateError(ValueError):
 
 
 def _select(v):
-    return [v[0] + 0.5 * v[1] + 0.3333333333333333 * v[2], v[3] + 0.5 * v[4] + 0.3333333333333333 * v[5], ]
+    return [v[0] + 0.5 * v[1] + 0.3333333333333333 * v[2], v[3] + 0.5 * v[4] + 0.3333333333333333 * v[5]]
 
 
 def relaxed_inputs():
@@ -7196,7 +7197,8 @@ def regulate(law, target, kp, kd, q, qd):
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
 
-    Operations: at most 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
+    Operations before the allocation, at most: 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig.
+    Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")

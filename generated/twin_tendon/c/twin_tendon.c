@@ -1241,7 +1241,7 @@ static const double twin_tendon_u_hi[TWIN_TENDON_NU] = {
  *     2_0 = q[1] */
 static void twin_tendon_select(const double v[], int stride, double y[], int ystride)
 {
-    y[0 * ystride] = v[0];
+    y[0] = v[0];
     y[1 * ystride] = v[1 * stride];
 }
 

@@ -772,7 +772,8 @@ def equilibrium(u):
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
 
-    Operations: at most 234 add, 417 mul, 11 div, 4 sqrt, 12 trig per Newton iteration, 111 add, 196 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
+    Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
+    Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
     """
     u = _vector(u, NU, "u")
     if not all(math.isfinite(v) for v in u):
@@ -858,7 +859,7 @@ NY = 2
 # The controlled outputs y = S q of regulate, one per segment (labels as simulate's CSV):
 #     1_0 = q[0]
 #     2_0 = q[1]
-OUTPUT_LABELS = ("1_0", "2_0", )
+OUTPUT_LABELS = ("1_0", "2_0",)
 # The actuators' limits (lo, hi) from the arm file (tendons: lo = pretension).
 INPUT_LIMITS = ((0.2, 25.0), (0.2, 25.0), (0.2, 25.0), (0.2, 25.0),)
 LAW_BASELINE = "baseline"
@@ -872,7 +873,7 @@ class RegulateError(ValueError):
 
 
 def _select(v):
-    return [v[0], v[1], ]
+    return [v[0], v[1]]
 
 
 def relaxed_inputs():
@@ -894,7 +895,8 @@ def regulate(law, target, kp, kd, q, qd):
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
 
-    Operations: at most 144 add, 236 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
+    Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
+    Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")

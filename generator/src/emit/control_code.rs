@@ -222,7 +222,7 @@ impl Settings {
 
 /// Everything the C statics template reads.
 pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &StaticsLayout) {
-    StaticsOps::of(plan).insert(ctx);
+    StaticsOps::of(plan).insert(ctx, " * ");
     let fs = if precision == Precision::F32 { "f" } else { "" };
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
@@ -288,7 +288,7 @@ pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &Stati
 
 /// Everything the Rust statics section reads (double precision only).
 pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
-    StaticsOps::of(plan).insert(ctx);
+    StaticsOps::of(plan).insert(ctx, "/// ");
     let p = Precision::F64;
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
@@ -343,7 +343,7 @@ pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
 
 /// Everything the Python statics section reads.
 pub fn insert_python(ctx: &mut Context, plan: &Plan) {
-    StaticsOps::of(plan).insert(ctx);
+    StaticsOps::of(plan).insert(ctx, "    ");
     let p = Precision::F64;
     let lengths: Vec<String> = plan.seg_length.iter().map(|l| literal(l, p)).collect();
     let spans: Vec<String> = (0..plan.segments)
@@ -529,20 +529,21 @@ impl StaticsOps {
         }
     }
 
-    pub fn insert(&self, ctx: &mut Context) {
+    /// The comment lines, continued with `prefix` (` * `, `/// `, four spaces).
+    pub fn insert(&self, ctx: &mut Context, prefix: &str) {
         ctx.insert("residual_ops", &format!("Operations: {}.", self.residual));
         ctx.insert("jacobian_ops", &format!("Operations: {}.", self.jacobian));
         ctx.insert(
             "equilibrium_ops",
             &format!(
-                "Operations: at most {} per Newton iteration, {} per backtracking trial.",
+                "Operations per Newton iteration, at most: {}.\n{prefix}Per backtracking trial: {}.",
                 self.newton, self.trial
             ),
         );
         ctx.insert(
             "regulate_ops",
             &format!(
-                "Operations: at most {} before the allocation, {} per active-set iteration.",
+                "Operations before the allocation, at most: {}.\n{prefix}Per active-set iteration: {}.",
                 self.regulate, self.active_set
             ),
         );

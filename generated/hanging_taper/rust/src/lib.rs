@@ -21190,7 +21190,8 @@ fn linearise(
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
 ///
-/// Operations: at most 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig per Newton iteration, 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig per backtracking trial.
+/// Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
+/// Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
 pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(u, &mut [0.0; STATICS_WORK])
 }
@@ -21375,7 +21376,8 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
 ///
-/// Operations: at most 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig before the allocation, 46 add, 40 mul, 12 div, 5 sqrt, 0 trig per active-set iteration.
+/// Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
+/// Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
 pub fn regulate(
     law: Law,
     target: &[f64; NY],

@@ -1195,7 +1195,8 @@ fn linearise(
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
 ///
-/// Operations: at most 234 add, 417 mul, 11 div, 4 sqrt, 12 trig per Newton iteration, 111 add, 196 mul, 4 div, 4 sqrt, 6 trig per backtracking trial.
+/// Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
+/// Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
 pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(u, &mut [0.0; STATICS_WORK])
 }
@@ -1376,7 +1377,8 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
 ///
-/// Operations: at most 144 add, 236 mul, 5 div, 0 sqrt, 6 trig before the allocation, 78 add, 70 mul, 18 div, 6 sqrt, 0 trig per active-set iteration.
+/// Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
+/// Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
 pub fn regulate(
     law: Law,
     target: &[f64; NY],
