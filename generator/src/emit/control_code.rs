@@ -262,6 +262,13 @@ pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &Stati
     ctx.insert("segments", &segments);
     ctx.insert("outputs", &outputs);
     ctx.insert("ny", &plan.outputs.len());
+    ctx.insert(
+        "select_strides",
+        &plan
+            .outputs
+            .iter()
+            .any(|o| o.terms.iter().any(|(_, i)| *i != 0)),
+    );
     ctx.insert("u_lo", &super::c::wrap_list(&lo, 4));
     ctx.insert("u_hi", &super::c::wrap_list(&hi, 4));
     ctx.insert(
