@@ -388,3 +388,37 @@ fn generate_cli_refuses_foreign_folder_and_bad_precision() {
     assert_eq!(out.status.code(), Some(2));
     assert!(!tmp.join("y").exists());
 }
+
+#[test]
+fn every_language_names_the_arm_file_it_was_generated_from() {
+    // MODEL_SHA256 is what a firmware logs: it must be the SHA-256 of the folder's
+    // arm.toml, in all three languages.
+    use sha2::{Digest, Sha256};
+    for arm in arms() {
+        let name = arm_name(&arm);
+        let dir = generated(&arm, Precision::F64);
+        let text = std::fs::read(dir.join("arm.toml")).expect("arm.toml");
+        let sha: String = Sha256::digest(&text)
+            .iter()
+            .map(|b| format!("{b:02x}"))
+            .collect();
+        let up = name.to_uppercase();
+        for (file, line) in [
+            (
+                format!("c/{name}.h"),
+                format!("#define {up}_MODEL_SHA256 \"{sha}\""),
+            ),
+            (
+                "rust/src/lib.rs".to_string(),
+                format!("pub const MODEL_SHA256: &str = \"{sha}\";"),
+            ),
+            (
+                format!("python/{name}.py"),
+                format!("MODEL_SHA256 = \"{sha}\""),
+            ),
+        ] {
+            let src = std::fs::read_to_string(dir.join(&file)).expect("emitted file");
+            assert!(src.contains(&line), "{file} lacks `{line}`");
+        }
+    }
+}

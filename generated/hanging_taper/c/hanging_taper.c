@@ -11121,6 +11121,15 @@ void hanging_taper_pose(const double q[], int segment, double sigma, double pose
     hanging_taper_pose_ws(q, segment, sigma, pose, work);
 }
 
+/* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
+static void hanging_taper_fill_nan(double qdd[])
+{
+    int i;
+    for (i = 0; i < HANGING_TAPER_NQ; ++i) {
+        qdd[i] = (double)NAN;
+    }
+}
+
 int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[])
 {
@@ -11140,8 +11149,8 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
     int j;
     int k;
     int status = HANGING_TAPER_OK;
+    /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
-        qdd[i] = (double)NAN;
         if (!hanging_taper_finite(q[i]) || !hanging_taper_finite(qd[i])) {
             status = HANGING_TAPER_ERR_NONFINITE_INPUT;
         }
@@ -11152,12 +11161,33 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
         }
     }
     if (status != HANGING_TAPER_OK) {
+        hanging_taper_fill_nan(qdd);
         return status;
     }
     hanging_taper_terms_ws(q, qd, B, C, G, &work[332]);
     hanging_taper_stiffness(K);
     hanging_taper_damping(D);
     hanging_taper_actuation_ws(q, A, &work[332]);
+    /* A state far outside any arm's range overflows the model itself. */
+    for (i = 0; i < HANGING_TAPER_NQ * HANGING_TAPER_NQ; ++i) {
+        if (!hanging_taper_finite(B[i]) || !hanging_taper_finite(C[i])) {
+            status = HANGING_TAPER_ERR_OVERFLOW;
+        }
+    }
+    for (i = 0; i < HANGING_TAPER_NQ; ++i) {
+        if (!hanging_taper_finite(G[i])) {
+            status = HANGING_TAPER_ERR_OVERFLOW;
+        }
+    }
+    for (i = 0; i < HANGING_TAPER_NQ * HANGING_TAPER_NU; ++i) {
+        if (!hanging_taper_finite(A[i])) {
+            status = HANGING_TAPER_ERR_OVERFLOW;
+        }
+    }
+    if (status != HANGING_TAPER_OK) {
+        hanging_taper_fill_nan(qdd);
+        return status;
+    }
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         double s = -G[i];
         for (k = 0; k < HANGING_TAPER_NQ; ++k) {
@@ -11168,9 +11198,16 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
             s += A[i * HANGING_TAPER_NU + k] * u[k];
         }
         f[i] = s;
+        if (!hanging_taper_finite(s)) {
+            status = HANGING_TAPER_ERR_OVERFLOW;
+        }
         for (k = 0; k <= i; ++k) {
             m[i * (i + 1) / 2 + k] = B[i * HANGING_TAPER_NQ + k];
         }
+    }
+    if (status != HANGING_TAPER_OK) {
+        hanging_taper_fill_nan(qdd);
+        return status;
     }
     /* Cholesky B = L L^T, L over m. */
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
@@ -11182,7 +11219,9 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
                 s -= m[ri + k] * m[rj + k];
             }
             if (i == j) {
-                if (!(s > 0.0)) {
+                /* What is left of the diagonal must stand above rounding of it. */
+                if (!(s > HANGING_TAPER_PIVOT_FLOOR * m[ri + i])) {
+                    hanging_taper_fill_nan(qdd);
                     return HANGING_TAPER_ERR_NOT_POSITIVE_DEFINITE;
                 }
                 m[ri + i] = sqrt(s);
@@ -11209,6 +11248,7 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
     }
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         if (!hanging_taper_finite(f[i])) {
+            hanging_taper_fill_nan(qdd);
             return HANGING_TAPER_ERR_NONFINITE_RESULT;
         }
     }

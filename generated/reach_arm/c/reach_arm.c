@@ -7400,6 +7400,15 @@ void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
     reach_arm_pose_ws(q, segment, sigma, pose, work);
 }
 
+/* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
+static void reach_arm_fill_nan(double qdd[])
+{
+    int i;
+    for (i = 0; i < REACH_ARM_NQ; ++i) {
+        qdd[i] = (double)NAN;
+    }
+}
+
 int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[])
 {
@@ -7419,8 +7428,8 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
     int j;
     int k;
     int status = REACH_ARM_OK;
+    /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < REACH_ARM_NQ; ++i) {
-        qdd[i] = (double)NAN;
         if (!reach_arm_finite(q[i]) || !reach_arm_finite(qd[i])) {
             status = REACH_ARM_ERR_NONFINITE_INPUT;
         }
@@ -7431,12 +7440,33 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
         }
     }
     if (status != REACH_ARM_OK) {
+        reach_arm_fill_nan(qdd);
         return status;
     }
     reach_arm_terms_ws(q, qd, B, C, G, &work[201]);
     reach_arm_stiffness(K);
     reach_arm_damping(D);
     reach_arm_actuation_ws(q, A, &work[201]);
+    /* A state far outside any arm's range overflows the model itself. */
+    for (i = 0; i < REACH_ARM_NQ * REACH_ARM_NQ; ++i) {
+        if (!reach_arm_finite(B[i]) || !reach_arm_finite(C[i])) {
+            status = REACH_ARM_ERR_OVERFLOW;
+        }
+    }
+    for (i = 0; i < REACH_ARM_NQ; ++i) {
+        if (!reach_arm_finite(G[i])) {
+            status = REACH_ARM_ERR_OVERFLOW;
+        }
+    }
+    for (i = 0; i < REACH_ARM_NQ * REACH_ARM_NU; ++i) {
+        if (!reach_arm_finite(A[i])) {
+            status = REACH_ARM_ERR_OVERFLOW;
+        }
+    }
+    if (status != REACH_ARM_OK) {
+        reach_arm_fill_nan(qdd);
+        return status;
+    }
     for (i = 0; i < REACH_ARM_NQ; ++i) {
         double s = -G[i];
         for (k = 0; k < REACH_ARM_NQ; ++k) {
@@ -7447,9 +7477,16 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
             s += A[i * REACH_ARM_NU + k] * u[k];
         }
         f[i] = s;
+        if (!reach_arm_finite(s)) {
+            status = REACH_ARM_ERR_OVERFLOW;
+        }
         for (k = 0; k <= i; ++k) {
             m[i * (i + 1) / 2 + k] = B[i * REACH_ARM_NQ + k];
         }
+    }
+    if (status != REACH_ARM_OK) {
+        reach_arm_fill_nan(qdd);
+        return status;
     }
     /* Cholesky B = L L^T, L over m. */
     for (i = 0; i < REACH_ARM_NQ; ++i) {
@@ -7461,7 +7498,9 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
                 s -= m[ri + k] * m[rj + k];
             }
             if (i == j) {
-                if (!(s > 0.0)) {
+                /* What is left of the diagonal must stand above rounding of it. */
+                if (!(s > REACH_ARM_PIVOT_FLOOR * m[ri + i])) {
+                    reach_arm_fill_nan(qdd);
                     return REACH_ARM_ERR_NOT_POSITIVE_DEFINITE;
                 }
                 m[ri + i] = sqrt(s);
@@ -7488,6 +7527,7 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
     }
     for (i = 0; i < REACH_ARM_NQ; ++i) {
         if (!reach_arm_finite(f[i])) {
+            reach_arm_fill_nan(qdd);
             return REACH_ARM_ERR_NONFINITE_RESULT;
         }
     }

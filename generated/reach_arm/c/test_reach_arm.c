@@ -1149,6 +1149,13 @@ int main(void)
         }
         status = reach_arm_forward_dynamics(q, qd, u, qdd);
         expect(status == REACH_ARM_OK, "forward dynamics status");
+        {
+            /* qdd may alias an input: the same answer with q'' written over q'. */
+            double x[REACH_ARM_NQ];
+            memcpy(x, qd, sizeof x);
+            expect(reach_arm_forward_dynamics(q, x, u, x) == status && memcmp(x, qdd, sizeof x) == 0,
+                "forward dynamics with qdd aliasing qd");
+        }
         for (i = 0; i < REACH_ARM_NQ; ++i) {
             double r = -g_rhs[c][i];
             for (j = 0; j < REACH_ARM_NQ; ++j) {
@@ -1187,6 +1194,15 @@ int main(void)
         expect(nan_bits(pose[0]), "pose at sigma 1.5 is NaN");
         reach_arm_pose(q, 0, (double)NAN, pose);
         expect(nan_bits(pose[0]), "pose at sigma NaN is NaN");
+        /* Velocities whose Coriolis force C(q, q') q' overflows. */
+        for (i = 0; i < REACH_ARM_NQ; ++i) {
+            qd[i] = 1e200;
+        }
+        expect(reach_arm_forward_dynamics(q, qd, u, qdd) == REACH_ARM_ERR_OVERFLOW && nan_bits(qdd[0]),
+            "forward dynamics reports an overflowing state as overflow");
+        for (i = 0; i < REACH_ARM_NQ; ++i) {
+            qd[i] = 0.0;
+        }
         q[0] = (double)NAN;
         expect(reach_arm_forward_dynamics(q, qd, u, qdd) == REACH_ARM_ERR_NONFINITE_INPUT && nan_bits(qdd[0]),
             "forward dynamics rejects NaN q");

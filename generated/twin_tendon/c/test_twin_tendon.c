@@ -898,6 +898,13 @@ int main(void)
         }
         status = twin_tendon_forward_dynamics(q, qd, u, qdd);
         expect(status == TWIN_TENDON_OK, "forward dynamics status");
+        {
+            /* qdd may alias an input: the same answer with q'' written over q'. */
+            double x[TWIN_TENDON_NQ];
+            memcpy(x, qd, sizeof x);
+            expect(twin_tendon_forward_dynamics(q, x, u, x) == status && memcmp(x, qdd, sizeof x) == 0,
+                "forward dynamics with qdd aliasing qd");
+        }
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             double r = -g_rhs[c][i];
             for (j = 0; j < TWIN_TENDON_NQ; ++j) {
@@ -936,6 +943,15 @@ int main(void)
         expect(nan_bits(pose[0]), "pose at sigma 1.5 is NaN");
         twin_tendon_pose(q, 0, (double)NAN, pose);
         expect(nan_bits(pose[0]), "pose at sigma NaN is NaN");
+        /* Velocities whose Coriolis force C(q, q') q' overflows. */
+        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+            qd[i] = 1e200;
+        }
+        expect(twin_tendon_forward_dynamics(q, qd, u, qdd) == TWIN_TENDON_ERR_OVERFLOW && nan_bits(qdd[0]),
+            "forward dynamics reports an overflowing state as overflow");
+        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+            qd[i] = 0.0;
+        }
         q[0] = (double)NAN;
         expect(twin_tendon_forward_dynamics(q, qd, u, qdd) == TWIN_TENDON_ERR_NONFINITE_INPUT && nan_bits(qdd[0]),
             "forward dynamics rejects NaN q");

@@ -685,6 +685,15 @@ void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3
     twin_tendon_pose_ws(q, segment, sigma, pose, work);
 }
 
+/* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
+static void twin_tendon_fill_nan(double qdd[])
+{
+    int i;
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        qdd[i] = (double)NAN;
+    }
+}
+
 int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[])
 {
@@ -704,8 +713,8 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
     int j;
     int k;
     int status = TWIN_TENDON_OK;
+    /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
-        qdd[i] = (double)NAN;
         if (!twin_tendon_finite(q[i]) || !twin_tendon_finite(qd[i])) {
             status = TWIN_TENDON_ERR_NONFINITE_INPUT;
         }
@@ -716,12 +725,33 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
         }
     }
     if (status != TWIN_TENDON_OK) {
+        twin_tendon_fill_nan(qdd);
         return status;
     }
     twin_tendon_terms_ws(q, qd, B, C, G, &work[31]);
     twin_tendon_stiffness(K);
     twin_tendon_damping(D);
     twin_tendon_actuation_ws(q, A, &work[31]);
+    /* A state far outside any arm's range overflows the model itself. */
+    for (i = 0; i < TWIN_TENDON_NQ * TWIN_TENDON_NQ; ++i) {
+        if (!twin_tendon_finite(B[i]) || !twin_tendon_finite(C[i])) {
+            status = TWIN_TENDON_ERR_OVERFLOW;
+        }
+    }
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        if (!twin_tendon_finite(G[i])) {
+            status = TWIN_TENDON_ERR_OVERFLOW;
+        }
+    }
+    for (i = 0; i < TWIN_TENDON_NQ * TWIN_TENDON_NU; ++i) {
+        if (!twin_tendon_finite(A[i])) {
+            status = TWIN_TENDON_ERR_OVERFLOW;
+        }
+    }
+    if (status != TWIN_TENDON_OK) {
+        twin_tendon_fill_nan(qdd);
+        return status;
+    }
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         double s = -G[i];
         for (k = 0; k < TWIN_TENDON_NQ; ++k) {
@@ -732,9 +762,16 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
             s += A[i * TWIN_TENDON_NU + k] * u[k];
         }
         f[i] = s;
+        if (!twin_tendon_finite(s)) {
+            status = TWIN_TENDON_ERR_OVERFLOW;
+        }
         for (k = 0; k <= i; ++k) {
             m[i * (i + 1) / 2 + k] = B[i * TWIN_TENDON_NQ + k];
         }
+    }
+    if (status != TWIN_TENDON_OK) {
+        twin_tendon_fill_nan(qdd);
+        return status;
     }
     /* Cholesky B = L L^T, L over m. */
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
@@ -746,7 +783,9 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
                 s -= m[ri + k] * m[rj + k];
             }
             if (i == j) {
-                if (!(s > 0.0)) {
+                /* What is left of the diagonal must stand above rounding of it. */
+                if (!(s > TWIN_TENDON_PIVOT_FLOOR * m[ri + i])) {
+                    twin_tendon_fill_nan(qdd);
                     return TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE;
                 }
                 m[ri + i] = sqrt(s);
@@ -773,6 +812,7 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
     }
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         if (!twin_tendon_finite(f[i])) {
+            twin_tendon_fill_nan(qdd);
             return TWIN_TENDON_ERR_NONFINITE_RESULT;
         }
     }

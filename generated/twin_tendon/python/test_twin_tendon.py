@@ -704,6 +704,12 @@ def test_invalid_arguments():
     assert np.isnan(arm.pose(q, -1, 0.5)).all()
     assert np.isnan(arm.pose(q, 0, 1.5)).all()
     assert np.isnan(arm.pose(q, 0, math.nan)).all()
+    try:
+        arm.forward_dynamics(q, np.full(arm.NQ, 1e200), G_U[2][: arm.NU])
+    except arm.DynamicsError as e:
+        assert "overflow" in str(e), str(e)
+    else:
+        raise AssertionError("forward dynamics accepted velocities that overflow the model")
     q[0] = math.nan
     try:
         arm.forward_dynamics(q, G_QD[2], G_U[2][: arm.NU])

@@ -49,6 +49,7 @@ import math
 import numpy as np
 
 __all__ = [
+    "MODEL_SHA256", "GENERATOR_VERSION", "EXPANSION_ORDER", "PIVOT_FLOOR",
     "NQ", "NU", "NSEG", "DynamicsError", "inertia", "coriolis", "gravity", "stiffness",
     "damping", "actuation", "pose", "tip_jacobian", "kinetic_energy", "potential_energy",
     "terms", "forward_dynamics", "rhs", "make_rhs", "gravity_jacobian", "static_residual",
@@ -57,6 +58,12 @@ __all__ = [
     "LAW_COMPENSATED", "RegulateError", "relaxed_inputs", "regulate",
 ]
 
+# SHA-256 of the arm file this module was generated from (the folder's arm.toml), the
+# generator's version and the expansion order: what a log says to name the model.
+MODEL_SHA256 = "9c28866137eae14acfbe01891839d1e040b318da3693e8113dff70644655753f"
+GENERATOR_VERSION = "0.1.0"
+EXPANSION_ORDER = 4
+
 NQ = 2
 NU = 4
 NSEG = 2
@@ -64,8 +71,14 @@ _NU_LEN = 24
 
 
 class DynamicsError(ValueError):
-    """Forward dynamics failed: a non-finite input, B(q) not positive definite, or
-    a non-finite result (the message says which)."""
+    """Forward dynamics failed: a non-finite input, B(q) not positive definite, an
+    overflow of the model at this state, or a non-finite result (the message says
+    which)."""
+
+
+# Smallest Cholesky pivot of B that forward_dynamics accepts, relative to the diagonal
+# entry it came from (64 units of rounding): below it B is singular to working precision.
+PIVOT_FLOOR = 1.4e-14
 
 
 # 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)) of the
@@ -578,8 +591,13 @@ def forward_dynamics(q, qd, u):
     if not all(math.isfinite(v) for v in q + qd + u):
         raise DynamicsError("non-finite input")
     b, c, g = terms(q, qd)
-    rhs_ = actuation(q) @ np.asarray(u) - (c + damping()) @ np.asarray(qd) - g
-    rhs_ -= stiffness() @ np.asarray(q)
+    a = actuation(q)
+    with np.errstate(over="ignore", invalid="ignore"):
+        rhs_ = a @ np.asarray(u) - (c + damping()) @ np.asarray(qd) - g
+        rhs_ -= stiffness() @ np.asarray(q)
+    if not (np.all(np.isfinite(b)) and np.all(np.isfinite(c)) and np.all(np.isfinite(g))
+            and np.all(np.isfinite(a)) and np.all(np.isfinite(rhs_))):
+        raise DynamicsError("overflow: the model is not finite at this state")
     f = [float(v) for v in rhs_]
     # B's lower triangle packed by rows (row i at i(i+1)/2), factorised in place.
     m = [float(b[i, k]) for i in range(NQ) for k in range(i + 1)]
@@ -591,7 +609,8 @@ def forward_dynamics(q, qd, u):
             for k in range(j):
                 s -= m[ri + k] * m[rj + k]
             if i == j:
-                if not s > 0.0:
+                # What is left of the diagonal must stand above rounding of it.
+                if not s > PIVOT_FLOOR * m[ri + i]:
                     raise DynamicsError(f"B(q) is not positive definite (pivot {i})")
                 m[ri + i] = math.sqrt(s)
             else:

@@ -699,6 +699,22 @@ pub fn emit(
     ctx.insert("gravity_jacobian_ops", &ops_line(&plan.gravity_jacobian));
     ctx.insert("golden", &golden.c_data(precision));
     ctx.insert("rtol", &golden.rtol(precision));
+    // A state at which every arm's model overflows: `a = L q` far beyond what the
+    // moments and angle sums survive.
+    ctx.insert(
+        "huge",
+        match precision {
+            Precision::F64 => "1e200",
+            Precision::F32 => "3e38f",
+        },
+    );
+    ctx.insert(
+        "pivot_floor",
+        match precision {
+            Precision::F64 => "1.4e-14",
+            Precision::F32 => "7.6e-6f",
+        },
+    );
     ctx.insert(
         "well_posed",
         match precision {

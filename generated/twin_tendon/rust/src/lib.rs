@@ -35,6 +35,12 @@
 //! regulations and qualified engineering practice.
 #![no_std]
 #![allow(clippy::all)]
+/// SHA-256 of the arm file this crate was generated from (the folder's `arm.toml`), the
+/// generator's version and the expansion order: what a firmware logs to say which
+/// model it runs.
+pub const MODEL_SHA256: &str = "9c28866137eae14acfbe01891839d1e040b318da3693e8113dff70644655753f";
+pub const GENERATOR_VERSION: &str = "0.1.0";
+pub const EXPANSION_ORDER: u32 = 4;
 /// Number of coordinates.
 pub const NQ: usize = 2;
 /// Number of inputs (columns of `A`).
@@ -52,7 +58,14 @@ pub enum DynamicsError {
     NotPositiveDefinite,
     /// The result overflowed.
     NonFiniteResult,
+    /// `B`, `C`, `G`, `A` or the right-hand side is not finite at this state (it
+    /// overflowed: `q`, `q̇` or `u` is far outside any arm's range).
+    Overflow,
 }
+/// Smallest Cholesky pivot of `B` that [`forward_dynamics`] accepts, relative to the
+/// diagonal entry it came from (64 units of rounding): below it `B` is singular to
+/// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
+pub const PIVOT_FLOOR: f64 = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
 /// plain functions keep on the stack (79 reals, 632 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
@@ -886,6 +899,11 @@ fn forward_dynamics_in(
     }
     let (b, c, g) = terms_in(q, qd, work);
     let (stiff, damp, a) = (stiffness(), damping(), actuation_in(q, work));
+    if !(all_finite(b.as_flattened()) && all_finite(c.as_flattened()) && all_finite(&g)
+        && all_finite(a.as_flattened()))
+    {
+        return Err(DynamicsError::Overflow);
+    }
     let mut f = [0.0; NQ];
     let mut m = [0.0; NQ * (NQ + 1) / 2];
     for i in 0..NQ {
@@ -901,6 +919,9 @@ fn forward_dynamics_in(
             m[i * (i + 1) / 2 + k] = b[i][k];
         }
     }
+    if !all_finite(&f) {
+        return Err(DynamicsError::Overflow);
+    }
     for i in 0..NQ {
         let ri = i * (i + 1) / 2;
         for j in 0..=i {
@@ -910,7 +931,7 @@ fn forward_dynamics_in(
                 s -= m[ri + k] * m[rj + k];
             }
             if i == j {
-                if !(s > 0.0) {
+                if !(s > PIVOT_FLOOR * m[ri + i]) {
                     return Err(DynamicsError::NotPositiveDefinite);
                 }
                 m[ri + i] = libm::sqrt(s);

@@ -541,6 +541,7 @@ fn invalid_arguments_are_reported() {
     assert!(pose(& q, NSEG, 0.5).iter().all(| v | v.is_nan()));
     assert!(pose(& q, 0, 1.5).iter().all(| v | v.is_nan()));
     assert!(pose(& q, 0, f64::NAN).iter().all(| v | v.is_nan()));
+    assert_eq!(forward_dynamics(& q, & [1e200; NQ], & u), Err(DynamicsError::Overflow));
     q[0] = f64::NAN;
     assert_eq!(forward_dynamics(& q, & qd, & u), Err(DynamicsError::NonFiniteInput));
     assert!(inertia(& q).iter().flatten().any(| v | v.is_nan()));
