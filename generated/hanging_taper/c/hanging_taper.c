@@ -11130,7 +11130,7 @@ static void hanging_taper_fill_nan(double qdd[])
     }
 }
 
-int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
@@ -11148,7 +11148,7 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
     int i;
     int j;
     int k;
-    int status = HANGING_TAPER_OK;
+    hanging_taper_status status = HANGING_TAPER_OK;
     /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         if (!hanging_taper_finite(q[i]) || !hanging_taper_finite(qd[i])) {
@@ -11258,7 +11258,7 @@ int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const
     return HANGING_TAPER_OK;
 }
 
-int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
+hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
     double work[HANGING_TAPER_FORWARD_DYNAMICS_WORK];
@@ -11422,7 +11422,7 @@ static int hanging_taper_all_finite(const double v[], int len)
     return 1;
 }
 
-int hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[])
+hanging_taper_status hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
      * work[0 .. HANGING_TAPER_STATIC_RESIDUAL_WORK), 429 reals. */
@@ -11452,13 +11452,13 @@ int hanging_taper_static_residual_ws(const double q[], const double u[], double 
     return hanging_taper_all_finite(R, HANGING_TAPER_NQ) ? HANGING_TAPER_OK : HANGING_TAPER_ERR_NONFINITE_RESULT;
 }
 
-int hanging_taper_static_residual(const double q[], const double u[], double R[])
+hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[])
 {
     double work[HANGING_TAPER_STATIC_RESIDUAL_WORK];
     return hanging_taper_static_residual_ws(q, u, R, work);
 }
 
-int hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
 {
     /* K, dA and the scratch of gravity_jacobian and the actuation derivative in
      * work[0 .. HANGING_TAPER_STATIC_JACOBIAN_WORK), 748 reals. */
@@ -11488,7 +11488,7 @@ int hanging_taper_static_jacobian_ws(const double q[], const double u[], double 
     return hanging_taper_all_finite(J, HANGING_TAPER_NQ * HANGING_TAPER_NQ) ? HANGING_TAPER_OK : HANGING_TAPER_ERR_NONFINITE_RESULT;
 }
 
-int hanging_taper_static_jacobian(const double q[], const double u[], double J[])
+hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[])
 {
     double work[HANGING_TAPER_STATIC_JACOBIAN_WORK];
     return hanging_taper_static_jacobian_ws(q, u, J, work);
@@ -11550,7 +11550,7 @@ static int hanging_taper_linearise(const double q[], const double u[], double la
     return hanging_taper_all_finite(jac, HANGING_TAPER_NQ * HANGING_TAPER_NQ);
 }
 
-int hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
+hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
@@ -11572,7 +11572,7 @@ int hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equ
     double scale;
     int iterations = 0;
     int load_steps = 0;
-    int status = HANGING_TAPER_OK;
+    hanging_taper_status status = HANGING_TAPER_OK;
     int i;
     int j;
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
@@ -11711,7 +11711,7 @@ int hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equ
     return HANGING_TAPER_OK;
 }
 
-int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info)
+hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info)
 {
     double work[HANGING_TAPER_EQUILIBRIUM_WORK];
     return hanging_taper_equilibrium_ws(u, q, info, work);
@@ -11777,7 +11777,7 @@ static int hanging_taper_free_optimum(const double hess[], const double f[], con
     return 1;
 }
 
-int hanging_taper_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
@@ -11803,7 +11803,7 @@ int hanging_taper_regulate_ws(int law, const double target[], const double kp[],
     double trace = 0.0;
     double mu;
     double shortfall = 0.0;
-    int status = HANGING_TAPER_OK;
+    hanging_taper_status status = HANGING_TAPER_OK;
     int nf = 0;
     int i;
     int j;
@@ -12004,7 +12004,7 @@ int hanging_taper_regulate_ws(int law, const double target[], const double kp[],
     return status;
 }
 
-int hanging_taper_regulate(int law, const double target[], const double kp[], const double kd[],
+hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[])
 {
     double work[HANGING_TAPER_REGULATE_WORK];

@@ -60,23 +60,26 @@ extern "C" {
 /** Number of segments. */
 #define HANGING_TAPER_NSEG 3
 
-/** Return codes of the functions that return int. */
-#define HANGING_TAPER_OK 0
-/** q, qd or u holds a NaN or an infinity. */
-#define HANGING_TAPER_ERR_NONFINITE_INPUT 1
-/** B(q) is not (numerically) positive definite: Cholesky met a pivot <= 0 or NaN. */
-#define HANGING_TAPER_ERR_NOT_POSITIVE_DEFINITE 2
-/** The result overflowed (q'' not finite). */
-#define HANGING_TAPER_ERR_NONFINITE_RESULT 3
-/** hanging_taper_equilibrium: the load continuation stalled within its iteration bound. */
-#define HANGING_TAPER_ERR_NOT_CONVERGED 4
-/** hanging_taper_regulate: an unknown law, or a gain that is not positive. */
-#define HANGING_TAPER_ERR_BAD_ARGUMENT 5
-/** hanging_taper_regulate: u is within the limits, but they keep it from the wanted force. */
-#define HANGING_TAPER_SATURATED 6
-/** hanging_taper_forward_dynamics: B, C, G, A or the right-hand side is not finite at this
- * state (it overflowed: q, q' or u is far outside any arm's range). */
-#define HANGING_TAPER_ERR_OVERFLOW 7
+/** What the functions that can fail return (the values are fixed: log them as ints). */
+typedef enum hanging_taper_status {
+    HANGING_TAPER_OK = 0,
+    /** q, qd, u (or a target or gain) holds a NaN or an infinity. */
+    HANGING_TAPER_ERR_NONFINITE_INPUT = 1,
+    /** B(q) is not (numerically) positive definite: a Cholesky pivot fell below
+     * HANGING_TAPER_PIVOT_FLOOR of its diagonal entry, or is NaN. */
+    HANGING_TAPER_ERR_NOT_POSITIVE_DEFINITE = 2,
+    /** The result is not finite. */
+    HANGING_TAPER_ERR_NONFINITE_RESULT = 3,
+    /** hanging_taper_equilibrium: the load continuation stalled within its iteration bound. */
+    HANGING_TAPER_ERR_NOT_CONVERGED = 4,
+    /** hanging_taper_regulate: an unknown law, or a gain that is not positive. */
+    HANGING_TAPER_ERR_BAD_ARGUMENT = 5,
+    /** hanging_taper_regulate: u is within the limits, but they keep it from the wanted force. */
+    HANGING_TAPER_SATURATED = 6,
+    /** hanging_taper_forward_dynamics: B, C, G, A or the right-hand side is not finite at
+     * this state (it overflowed: q, q' or u is far outside any arm's range). */
+    HANGING_TAPER_ERR_OVERFLOW = 7
+} hanging_taper_status;
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -149,7 +152,8 @@ void hanging_taper_tip_jacobian(const double q[], double J[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as hanging_taper_inertia,
- * hanging_taper_coriolis and hanging_taper_gravity and the same values. This is the call for a
+ * hanging_taper_coriolis and hanging_taper_gravity and their values, equal to rounding (about
+ * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
@@ -180,7 +184,7 @@ double hanging_taper_potential_energy(const double q[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 18495 add, 23201 mul, 56 div, 8 sqrt, 20 trig.
  */
-int hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
+hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
 /**
@@ -195,7 +199,7 @@ void hanging_taper_gravity_jacobian(const double q[], double dG[]);
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
  * Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
  */
-int hanging_taper_static_residual(const double q[], const double u[], double R[]);
+hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -204,7 +208,7 @@ int hanging_taper_static_residual(const double q[], const double u[], double R[]
  * hanging_taper_static_residual.
  * Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
  */
-int hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
+hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
 
 /** What hanging_taper_equilibrium did. */
 typedef struct {
@@ -250,13 +254,15 @@ typedef struct {
  * Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
  * Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
  */
-int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
+hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
 
 /** Number of controlled outputs y = S q of hanging_taper_regulate. */
 #define HANGING_TAPER_NY 3
 /** The regulators of hanging_taper_regulate. */
-#define HANGING_TAPER_LAW_BASELINE 0
-#define HANGING_TAPER_LAW_COMPENSATED 1
+typedef enum hanging_taper_law {
+    HANGING_TAPER_LAW_BASELINE = 0,
+    HANGING_TAPER_LAW_COMPENSATED = 1
+} hanging_taper_law;
 /** Most active-set iterations of the input allocation (4 NU + 8). */
 #define HANGING_TAPER_REGULATE_ITERATIONS 20
 
@@ -284,7 +290,7 @@ int hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equili
  * Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
-int hanging_taper_regulate(int law, const double target[], const double kp[], const double kd[],
+hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);
 
 /*
@@ -324,14 +330,14 @@ void hanging_taper_terms_ws(const double q[], const double qd[], double B[], dou
     double G[], double work[]);
 double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[]);
 double hanging_taper_potential_energy_ws(const double q[], double work[]);
-int hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[]);
 void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double work[]);
-int hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[]);
-int hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
-int hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
+hanging_taper_status hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
     double work[]);
-int hanging_taper_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[]);
 
 #ifdef __cplusplus

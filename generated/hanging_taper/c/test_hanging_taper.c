@@ -1216,7 +1216,7 @@ int main(void)
         double res = 0.0;
         double qddn = 0.0;
         double rhsn = 0.0;
-        int status;
+        hanging_taper_status status;
         for (i = 0; i < HANGING_TAPER_NQ; ++i) {
             q[i] = (double)g_q[c][i];
             qd[i] = (double)g_qd[c][i];
@@ -1467,7 +1467,7 @@ int main(void)
             expect(relaxed, "regulate leaves the relaxed inputs after a bad call");
             expect(hanging_taper_regulate(HANGING_TAPER_LAW_COMPENSATED, target, zero, gain, good, qd, uo) == HANGING_TAPER_ERR_BAD_ARGUMENT,
                 "regulate rejects kp = 0");
-            expect(hanging_taper_regulate(7, target, gain, gain, good, qd, uo) == HANGING_TAPER_ERR_BAD_ARGUMENT,
+            expect(hanging_taper_regulate((hanging_taper_law)7, target, gain, gain, good, qd, uo) == HANGING_TAPER_ERR_BAD_ARGUMENT,
                 "regulate rejects an unknown law");
         }
         /* The unchecked functions pass a NaN through to what depends on it. */

@@ -7228,7 +7228,7 @@ _TERMS_ROWS = _kernel_plan((
 ))
 
 def terms(q, qd):
-    """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
+    """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
     Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
     """

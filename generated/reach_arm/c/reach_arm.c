@@ -7409,7 +7409,7 @@ static void reach_arm_fill_nan(double qdd[])
     }
 }
 
-int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
@@ -7427,7 +7427,7 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
     int i;
     int j;
     int k;
-    int status = REACH_ARM_OK;
+    reach_arm_status status = REACH_ARM_OK;
     /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < REACH_ARM_NQ; ++i) {
         if (!reach_arm_finite(q[i]) || !reach_arm_finite(qd[i])) {
@@ -7537,7 +7537,7 @@ int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const dou
     return REACH_ARM_OK;
 }
 
-int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
+reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
     double work[REACH_ARM_FORWARD_DYNAMICS_WORK];
@@ -7697,7 +7697,7 @@ static int reach_arm_all_finite(const double v[], int len)
     return 1;
 }
 
-int reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[])
+reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
      * work[0 .. REACH_ARM_STATIC_RESIDUAL_WORK), 286 reals. */
@@ -7727,13 +7727,13 @@ int reach_arm_static_residual_ws(const double q[], const double u[], double R[],
     return reach_arm_all_finite(R, REACH_ARM_NQ) ? REACH_ARM_OK : REACH_ARM_ERR_NONFINITE_RESULT;
 }
 
-int reach_arm_static_residual(const double q[], const double u[], double R[])
+reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[])
 {
     double work[REACH_ARM_STATIC_RESIDUAL_WORK];
     return reach_arm_static_residual_ws(q, u, R, work);
 }
 
-int reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
 {
     /* K and the scratch of gravity_jacobian in
      * work[0 .. REACH_ARM_STATIC_JACOBIAN_WORK), 427 reals. */
@@ -7758,7 +7758,7 @@ int reach_arm_static_jacobian_ws(const double q[], const double u[], double J[],
     return reach_arm_all_finite(J, REACH_ARM_NQ * REACH_ARM_NQ) ? REACH_ARM_OK : REACH_ARM_ERR_NONFINITE_RESULT;
 }
 
-int reach_arm_static_jacobian(const double q[], const double u[], double J[])
+reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[])
 {
     double work[REACH_ARM_STATIC_JACOBIAN_WORK];
     return reach_arm_static_jacobian_ws(q, u, J, work);
@@ -7815,7 +7815,7 @@ static int reach_arm_linearise(const double q[], const double u[], double lambda
     return reach_arm_all_finite(jac, REACH_ARM_NQ * REACH_ARM_NQ);
 }
 
-int reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
+reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
@@ -7837,7 +7837,7 @@ int reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium
     double scale;
     int iterations = 0;
     int load_steps = 0;
-    int status = REACH_ARM_OK;
+    reach_arm_status status = REACH_ARM_OK;
     int i;
     int j;
     for (i = 0; i < REACH_ARM_NQ; ++i) {
@@ -7976,7 +7976,7 @@ int reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium
     return REACH_ARM_OK;
 }
 
-int reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info)
+reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info)
 {
     double work[REACH_ARM_EQUILIBRIUM_WORK];
     return reach_arm_equilibrium_ws(u, q, info, work);
@@ -8040,7 +8040,7 @@ static int reach_arm_free_optimum(const double hess[], const double f[], const d
     return 1;
 }
 
-int reach_arm_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
@@ -8066,7 +8066,7 @@ int reach_arm_regulate_ws(int law, const double target[], const double kp[], con
     double trace = 0.0;
     double mu;
     double shortfall = 0.0;
-    int status = REACH_ARM_OK;
+    reach_arm_status status = REACH_ARM_OK;
     int nf = 0;
     int i;
     int j;
@@ -8267,7 +8267,7 @@ int reach_arm_regulate_ws(int law, const double target[], const double kp[], con
     return status;
 }
 
-int reach_arm_regulate(int law, const double target[], const double kp[], const double kd[],
+reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[])
 {
     double work[REACH_ARM_REGULATE_WORK];

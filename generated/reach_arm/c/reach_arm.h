@@ -60,23 +60,26 @@ extern "C" {
 /** Number of segments. */
 #define REACH_ARM_NSEG 2
 
-/** Return codes of the functions that return int. */
-#define REACH_ARM_OK 0
-/** q, qd or u holds a NaN or an infinity. */
-#define REACH_ARM_ERR_NONFINITE_INPUT 1
-/** B(q) is not (numerically) positive definite: Cholesky met a pivot <= 0 or NaN. */
-#define REACH_ARM_ERR_NOT_POSITIVE_DEFINITE 2
-/** The result overflowed (q'' not finite). */
-#define REACH_ARM_ERR_NONFINITE_RESULT 3
-/** reach_arm_equilibrium: the load continuation stalled within its iteration bound. */
-#define REACH_ARM_ERR_NOT_CONVERGED 4
-/** reach_arm_regulate: an unknown law, or a gain that is not positive. */
-#define REACH_ARM_ERR_BAD_ARGUMENT 5
-/** reach_arm_regulate: u is within the limits, but they keep it from the wanted force. */
-#define REACH_ARM_SATURATED 6
-/** reach_arm_forward_dynamics: B, C, G, A or the right-hand side is not finite at this
- * state (it overflowed: q, q' or u is far outside any arm's range). */
-#define REACH_ARM_ERR_OVERFLOW 7
+/** What the functions that can fail return (the values are fixed: log them as ints). */
+typedef enum reach_arm_status {
+    REACH_ARM_OK = 0,
+    /** q, qd, u (or a target or gain) holds a NaN or an infinity. */
+    REACH_ARM_ERR_NONFINITE_INPUT = 1,
+    /** B(q) is not (numerically) positive definite: a Cholesky pivot fell below
+     * REACH_ARM_PIVOT_FLOOR of its diagonal entry, or is NaN. */
+    REACH_ARM_ERR_NOT_POSITIVE_DEFINITE = 2,
+    /** The result is not finite. */
+    REACH_ARM_ERR_NONFINITE_RESULT = 3,
+    /** reach_arm_equilibrium: the load continuation stalled within its iteration bound. */
+    REACH_ARM_ERR_NOT_CONVERGED = 4,
+    /** reach_arm_regulate: an unknown law, or a gain that is not positive. */
+    REACH_ARM_ERR_BAD_ARGUMENT = 5,
+    /** reach_arm_regulate: u is within the limits, but they keep it from the wanted force. */
+    REACH_ARM_SATURATED = 6,
+    /** reach_arm_forward_dynamics: B, C, G, A or the right-hand side is not finite at
+     * this state (it overflowed: q, q' or u is far outside any arm's range). */
+    REACH_ARM_ERR_OVERFLOW = 7
+} reach_arm_status;
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -148,7 +151,8 @@ void reach_arm_tip_jacobian(const double q[], double J[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as reach_arm_inertia,
- * reach_arm_coriolis and reach_arm_gravity and the same values. This is the call for a
+ * reach_arm_coriolis and reach_arm_gravity and their values, equal to rounding (about
+ * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
@@ -179,7 +183,7 @@ double reach_arm_potential_energy(const double q[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
  */
-int reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
+reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
 /**
@@ -194,7 +198,7 @@ void reach_arm_gravity_jacobian(const double q[], double dG[]);
  * REACH_ARM_ERR_NONFINITE_RESULT.
  * Operations: 1279 add, 1800 mul, 4 div, 0 sqrt, 6 trig.
  */
-int reach_arm_static_residual(const double q[], const double u[], double R[]);
+reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -203,7 +207,7 @@ int reach_arm_static_residual(const double q[], const double u[], double R[]);
  * reach_arm_static_residual.
  * Operations: 1805 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
  */
-int reach_arm_static_jacobian(const double q[], const double u[], double J[]);
+reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[]);
 
 /** What reach_arm_equilibrium did. */
 typedef struct {
@@ -249,13 +253,15 @@ typedef struct {
  * Operations per Newton iteration, at most: 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig.
  */
-int reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
+reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
 
 /** Number of controlled outputs y = S q of reach_arm_regulate. */
 #define REACH_ARM_NY 2
 /** The regulators of reach_arm_regulate. */
-#define REACH_ARM_LAW_BASELINE 0
-#define REACH_ARM_LAW_COMPENSATED 1
+typedef enum reach_arm_law {
+    REACH_ARM_LAW_BASELINE = 0,
+    REACH_ARM_LAW_COMPENSATED = 1
+} reach_arm_law;
 /** Most active-set iterations of the input allocation (4 NU + 8). */
 #define REACH_ARM_REGULATE_ITERATIONS 24
 
@@ -282,7 +288,7 @@ int reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_in
  * Operations before the allocation, at most: 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
-int reach_arm_regulate(int law, const double target[], const double kp[], const double kd[],
+reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);
 
 /*
@@ -322,14 +328,14 @@ void reach_arm_terms_ws(const double q[], const double qd[], double B[], double 
     double G[], double work[]);
 double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[]);
 double reach_arm_potential_energy_ws(const double q[], double work[]);
-int reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[]);
 void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[]);
-int reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[]);
-int reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
-int reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
+reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
     double work[]);
-int reach_arm_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[]);
 
 #ifdef __cplusplus

@@ -989,7 +989,7 @@ int main(void)
         double res = 0.0;
         double qddn = 0.0;
         double rhsn = 0.0;
-        int status;
+        reach_arm_status status;
         for (i = 0; i < REACH_ARM_NQ; ++i) {
             q[i] = (double)g_q[c][i];
             qd[i] = (double)g_qd[c][i];
@@ -1240,7 +1240,7 @@ int main(void)
             expect(relaxed, "regulate leaves the relaxed inputs after a bad call");
             expect(reach_arm_regulate(REACH_ARM_LAW_COMPENSATED, target, zero, gain, good, qd, uo) == REACH_ARM_ERR_BAD_ARGUMENT,
                 "regulate rejects kp = 0");
-            expect(reach_arm_regulate(7, target, gain, gain, good, qd, uo) == REACH_ARM_ERR_BAD_ARGUMENT,
+            expect(reach_arm_regulate((reach_arm_law)7, target, gain, gain, good, qd, uo) == REACH_ARM_ERR_BAD_ARGUMENT,
                 "regulate rejects an unknown law");
         }
         /* The unchecked functions pass a NaN through to what depends on it. */

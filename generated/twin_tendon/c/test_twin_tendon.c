@@ -738,7 +738,7 @@ int main(void)
         double res = 0.0;
         double qddn = 0.0;
         double rhsn = 0.0;
-        int status;
+        twin_tendon_status status;
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             q[i] = (double)g_q[c][i];
             qd[i] = (double)g_qd[c][i];
@@ -989,7 +989,7 @@ int main(void)
             expect(relaxed, "regulate leaves the relaxed inputs after a bad call");
             expect(twin_tendon_regulate(TWIN_TENDON_LAW_COMPENSATED, target, zero, gain, good, qd, uo) == TWIN_TENDON_ERR_BAD_ARGUMENT,
                 "regulate rejects kp = 0");
-            expect(twin_tendon_regulate(7, target, gain, gain, good, qd, uo) == TWIN_TENDON_ERR_BAD_ARGUMENT,
+            expect(twin_tendon_regulate((twin_tendon_law)7, target, gain, gain, good, qd, uo) == TWIN_TENDON_ERR_BAD_ARGUMENT,
                 "regulate rejects an unknown law");
         }
         /* The unchecked functions pass a NaN through to what depends on it. */

@@ -694,7 +694,7 @@ static void twin_tendon_fill_nan(double qdd[])
     }
 }
 
-int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
@@ -712,7 +712,7 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
     int i;
     int j;
     int k;
-    int status = TWIN_TENDON_OK;
+    twin_tendon_status status = TWIN_TENDON_OK;
     /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         if (!twin_tendon_finite(q[i]) || !twin_tendon_finite(qd[i])) {
@@ -822,7 +822,7 @@ int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const d
     return TWIN_TENDON_OK;
 }
 
-int twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
+twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
     double work[TWIN_TENDON_FORWARD_DYNAMICS_WORK];
@@ -982,7 +982,7 @@ static int twin_tendon_all_finite(const double v[], int len)
     return 1;
 }
 
-int twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[])
+twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
      * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 45 reals. */
@@ -1012,13 +1012,13 @@ int twin_tendon_static_residual_ws(const double q[], const double u[], double R[
     return twin_tendon_all_finite(R, TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
 }
 
-int twin_tendon_static_residual(const double q[], const double u[], double R[])
+twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[])
 {
     double work[TWIN_TENDON_STATIC_RESIDUAL_WORK];
     return twin_tendon_static_residual_ws(q, u, R, work);
 }
 
-int twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
 {
     /* K and the scratch of gravity_jacobian in
      * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 41 reals. */
@@ -1043,7 +1043,7 @@ int twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[
     return twin_tendon_all_finite(J, TWIN_TENDON_NQ * TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
 }
 
-int twin_tendon_static_jacobian(const double q[], const double u[], double J[])
+twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[])
 {
     double work[TWIN_TENDON_STATIC_JACOBIAN_WORK];
     return twin_tendon_static_jacobian_ws(q, u, J, work);
@@ -1100,7 +1100,7 @@ static int twin_tendon_linearise(const double q[], const double u[], double lamb
     return twin_tendon_all_finite(jac, TWIN_TENDON_NQ * TWIN_TENDON_NQ);
 }
 
-int twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
@@ -1122,7 +1122,7 @@ int twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilib
     double scale;
     int iterations = 0;
     int load_steps = 0;
-    int status = TWIN_TENDON_OK;
+    twin_tendon_status status = TWIN_TENDON_OK;
     int i;
     int j;
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
@@ -1261,7 +1261,7 @@ int twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilib
     return TWIN_TENDON_OK;
 }
 
-int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info)
+twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info)
 {
     double work[TWIN_TENDON_EQUILIBRIUM_WORK];
     return twin_tendon_equilibrium_ws(u, q, info, work);
@@ -1325,7 +1325,7 @@ static int twin_tendon_free_optimum(const double hess[], const double f[], const
     return 1;
 }
 
-int twin_tendon_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
@@ -1351,7 +1351,7 @@ int twin_tendon_regulate_ws(int law, const double target[], const double kp[], c
     double trace = 0.0;
     double mu;
     double shortfall = 0.0;
-    int status = TWIN_TENDON_OK;
+    twin_tendon_status status = TWIN_TENDON_OK;
     int nf = 0;
     int i;
     int j;
@@ -1552,7 +1552,7 @@ int twin_tendon_regulate_ws(int law, const double target[], const double kp[], c
     return status;
 }
 
-int twin_tendon_regulate(int law, const double target[], const double kp[], const double kd[],
+twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[])
 {
     double work[TWIN_TENDON_REGULATE_WORK];

@@ -60,23 +60,26 @@ extern "C" {
 /** Number of segments. */
 #define TWIN_TENDON_NSEG 2
 
-/** Return codes of the functions that return int. */
-#define TWIN_TENDON_OK 0
-/** q, qd or u holds a NaN or an infinity. */
-#define TWIN_TENDON_ERR_NONFINITE_INPUT 1
-/** B(q) is not (numerically) positive definite: Cholesky met a pivot <= 0 or NaN. */
-#define TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE 2
-/** The result overflowed (q'' not finite). */
-#define TWIN_TENDON_ERR_NONFINITE_RESULT 3
-/** twin_tendon_equilibrium: the load continuation stalled within its iteration bound. */
-#define TWIN_TENDON_ERR_NOT_CONVERGED 4
-/** twin_tendon_regulate: an unknown law, or a gain that is not positive. */
-#define TWIN_TENDON_ERR_BAD_ARGUMENT 5
-/** twin_tendon_regulate: u is within the limits, but they keep it from the wanted force. */
-#define TWIN_TENDON_SATURATED 6
-/** twin_tendon_forward_dynamics: B, C, G, A or the right-hand side is not finite at this
- * state (it overflowed: q, q' or u is far outside any arm's range). */
-#define TWIN_TENDON_ERR_OVERFLOW 7
+/** What the functions that can fail return (the values are fixed: log them as ints). */
+typedef enum twin_tendon_status {
+    TWIN_TENDON_OK = 0,
+    /** q, qd, u (or a target or gain) holds a NaN or an infinity. */
+    TWIN_TENDON_ERR_NONFINITE_INPUT = 1,
+    /** B(q) is not (numerically) positive definite: a Cholesky pivot fell below
+     * TWIN_TENDON_PIVOT_FLOOR of its diagonal entry, or is NaN. */
+    TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE = 2,
+    /** The result is not finite. */
+    TWIN_TENDON_ERR_NONFINITE_RESULT = 3,
+    /** twin_tendon_equilibrium: the load continuation stalled within its iteration bound. */
+    TWIN_TENDON_ERR_NOT_CONVERGED = 4,
+    /** twin_tendon_regulate: an unknown law, or a gain that is not positive. */
+    TWIN_TENDON_ERR_BAD_ARGUMENT = 5,
+    /** twin_tendon_regulate: u is within the limits, but they keep it from the wanted force. */
+    TWIN_TENDON_SATURATED = 6,
+    /** twin_tendon_forward_dynamics: B, C, G, A or the right-hand side is not finite at
+     * this state (it overflowed: q, q' or u is far outside any arm's range). */
+    TWIN_TENDON_ERR_OVERFLOW = 7
+} twin_tendon_status;
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -148,7 +151,8 @@ void twin_tendon_tip_jacobian(const double q[], double J[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as twin_tendon_inertia,
- * twin_tendon_coriolis and twin_tendon_gravity and the same values. This is the call for a
+ * twin_tendon_coriolis and twin_tendon_gravity and their values, equal to rounding (about
+ * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
@@ -179,7 +183,7 @@ double twin_tendon_potential_energy(const double q[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 234 add, 435 mul, 9 div, 2 sqrt, 6 trig.
  */
-int twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
+twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[]);
 
 /**
@@ -194,7 +198,7 @@ void twin_tendon_gravity_jacobian(const double q[], double dG[]);
  * TWIN_TENDON_ERR_NONFINITE_RESULT.
  * Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
  */
-int twin_tendon_static_residual(const double q[], const double u[], double R[]);
+twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -203,7 +207,7 @@ int twin_tendon_static_residual(const double q[], const double u[], double R[]);
  * twin_tendon_static_residual.
  * Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
-int twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
+twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
 
 /** What twin_tendon_equilibrium did. */
 typedef struct {
@@ -249,13 +253,15 @@ typedef struct {
  * Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
  */
-int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
+twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
 
 /** Number of controlled outputs y = S q of twin_tendon_regulate. */
 #define TWIN_TENDON_NY 2
 /** The regulators of twin_tendon_regulate. */
-#define TWIN_TENDON_LAW_BASELINE 0
-#define TWIN_TENDON_LAW_COMPENSATED 1
+typedef enum twin_tendon_law {
+    TWIN_TENDON_LAW_BASELINE = 0,
+    TWIN_TENDON_LAW_COMPENSATED = 1
+} twin_tendon_law;
 /** Most active-set iterations of the input allocation (4 NU + 8). */
 #define TWIN_TENDON_REGULATE_ITERATIONS 24
 
@@ -282,7 +288,7 @@ int twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibriu
  * Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
-int twin_tendon_regulate(int law, const double target[], const double kp[], const double kd[],
+twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[]);
 
 /*
@@ -322,14 +328,14 @@ void twin_tendon_terms_ws(const double q[], const double qd[], double B[], doubl
     double G[], double work[]);
 double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double work[]);
 double twin_tendon_potential_energy_ws(const double q[], double work[]);
-int twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
     double qdd[], double work[]);
 void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[]);
-int twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[]);
-int twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
-int twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
     double work[]);
-int twin_tendon_regulate_ws(int law, const double target[], const double kp[], const double kd[],
+twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[]);
 
 #ifdef __cplusplus

@@ -271,7 +271,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let nn2 = n * n;
     let tspec = Spec {
         fname: "terms",
-        formula: "B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).",
+        formula: "B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).",
         params: &["q", "qd"],
         init: "    b = np.zeros((NQ, NQ))\n    c = np.zeros((NQ, NQ))\n    g = np.zeros(NQ)\n",
         ret: "    return b, c, g\n",

@@ -308,7 +308,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let terms_ret = format!("({nn}, {nn}, [f64; NQ])");
     let terms_work = generated(
         "terms",
-        "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.",
+        "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.",
         &plan.terms,
         &[q_of(&plan.terms), qd_of(&plan.terms)],
         &terms_ret,

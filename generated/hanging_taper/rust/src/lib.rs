@@ -19289,7 +19289,7 @@ fn terms_in(
     g[7] = -9.81 * t[6];
     (b, c, g)
 }
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.
 ///
 /// Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
 pub fn terms(

@@ -12676,7 +12676,7 @@ fn terms_in(
     g[5] = 9.81 * (0.025 * cphi[0] * t[2] + 0.025 * sphi[0] * t[3]) + 0.0981 * t[364];
     (b, c, g)
 }
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.
 ///
 /// Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(

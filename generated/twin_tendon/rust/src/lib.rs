@@ -710,7 +710,7 @@ fn terms_in(
     g[1] = 9.81 * t[8] + 0.1962 * t[25];
     (b, c, g)
 }
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`]: the call for a controller that needs all three, with what they share computed once.
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.
 ///
 /// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
