@@ -94,6 +94,8 @@ const STRICT: &[&str] = &[
     "-pedantic",
     "-Wconversion",
     "-Wshadow",
+    // The shipped checks call the plain forms too (they are opt-in).
+    "-DARCWRIGHT_PLAIN_FUNCTIONS",
 ];
 
 /// The files of an output folder as `generate --check` sees them (no links followed,
@@ -419,6 +421,32 @@ fn every_language_names_the_arm_file_it_was_generated_from() {
         ] {
             let src = std::fs::read_to_string(dir.join(&file)).expect("emitted file");
             assert!(src.contains(&line), "{file} lacks `{line}`");
+        }
+    }
+}
+
+#[test]
+fn c_without_the_plain_forms_fits_a_2_kb_stack_limit() {
+    // What a firmware build sees by default: only the _ws forms, whose scratch the
+    // caller owns; every frame (helpers included) under 2 KB at -O2 and -Os.
+    if !have("gcc", "--version") {
+        println!("SKIP: gcc not found");
+        return;
+    }
+    for arm in arms() {
+        let name = arm_name(&arm);
+        for precision in [Precision::F64, Precision::F32] {
+            let dir = generated(&arm, precision).join("c");
+            for opt in ["-O2", "-Os"] {
+                run(
+                    Command::new("gcc")
+                        .args(["-std=c99", opt, "-c", "-o", "/dev/null"])
+                        .args(["-Wall", "-Wextra", "-Werror", "-pedantic"])
+                        .arg("-Wstack-usage=2048")
+                        .arg(dir.join(format!("{name}.c"))),
+                    &format!("gcc {opt} -Wstack-usage=2048 {name} ({precision:?})"),
+                );
+            }
         }
     }
 }

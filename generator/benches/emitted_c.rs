@@ -130,7 +130,15 @@ fn main() {
     std::fs::write(c.join("bench.c"), DRIVER).unwrap();
     let t = Instant::now();
     let ok = Command::new("gcc")
-        .args(["-std=c99", "-O2", "-c", "reach_arm.c", "-o", "reach_arm.o"])
+        .args([
+            "-std=c99",
+            "-O2",
+            "-DARCWRIGHT_PLAIN_FUNCTIONS",
+            "-c",
+            "reach_arm.c",
+            "-o",
+            "reach_arm.o",
+        ])
         .current_dir(&c)
         .status()
         .is_ok_and(|s| s.success());
@@ -152,6 +160,7 @@ fn main() {
         .args([
             "-std=c99",
             "-O2",
+            "-DARCWRIGHT_PLAIN_FUNCTIONS",
             "bench.c",
             "reach_arm.o",
             "-lm",
@@ -227,6 +236,7 @@ fn main() {
             "-mfloat-abi=hard",
             "-mthumb",
             "-Os",
+            "-DARCWRIGHT_PLAIN_FUNCTIONS",
             "-fstack-usage",
             "-c",
             "reach_arm.c",

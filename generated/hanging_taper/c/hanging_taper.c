@@ -5520,6 +5520,7 @@ void hanging_taper_inertia_ws(const double q[], double B[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_inertia_ws with its scratch on this function's stack.
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_inertia(const double q[], double B[])
@@ -5527,6 +5528,7 @@ void hanging_taper_inertia(const double q[], double B[])
     double work[HANGING_TAPER_INERTIA_WORK];
     hanging_taper_inertia_ws(q, B, work);
 }
+#endif
 
 /* Kernels of hanging_taper_gravity: pairs (row, moment base). */
 static const unsigned short hanging_taper_gravity_rows[256] = {
@@ -5778,6 +5780,7 @@ void hanging_taper_gravity_ws(const double q[], double G[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_gravity_ws with its scratch on this function's stack.
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_gravity(const double q[], double G[])
@@ -5785,6 +5788,7 @@ void hanging_taper_gravity(const double q[], double G[])
     double work[HANGING_TAPER_GRAVITY_WORK];
     hanging_taper_gravity_ws(q, G, work);
 }
+#endif
 
 /* Kernels of hanging_taper_actuation: pairs (row, moment base). */
 static const unsigned short hanging_taper_actuation_rows[156] = {
@@ -5976,6 +5980,7 @@ void hanging_taper_actuation_ws(const double q[], double A[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_actuation_ws with its scratch on this function's stack.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_actuation(const double q[], double A[])
@@ -5983,6 +5988,7 @@ void hanging_taper_actuation(const double q[], double A[])
     double work[HANGING_TAPER_ACTUATION_WORK];
     hanging_taper_actuation_ws(q, A, work);
 }
+#endif
 
 /* Kernels of hanging_taper_tip_jacobian: pairs (row, moment base). */
 static const unsigned short hanging_taper_tip_jacobian_rows[156] = {
@@ -6174,6 +6180,7 @@ void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_tip_jacobian_ws with its scratch on this function's stack.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_tip_jacobian(const double q[], double J[])
@@ -6181,6 +6188,7 @@ void hanging_taper_tip_jacobian(const double q[], double J[])
     double work[HANGING_TAPER_TIP_JACOBIAN_WORK];
     hanging_taper_tip_jacobian_ws(q, J, work);
 }
+#endif
 
 /* Kernels of hanging_taper_gravity_jacobian: pairs (row, moment base). */
 static const unsigned short hanging_taper_gravity_jacobian_rows[340] = {
@@ -6762,6 +6770,7 @@ void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double wor
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_gravity_jacobian_ws with its scratch on this function's stack.
  * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_gravity_jacobian(const double q[], double dG[])
@@ -6769,6 +6778,7 @@ void hanging_taper_gravity_jacobian(const double q[], double dG[])
     double work[HANGING_TAPER_GRAVITY_JACOBIAN_WORK];
     hanging_taper_gravity_jacobian_ws(q, dG, work);
 }
+#endif
 
 /* Kernels of hanging_taper_potential_energy: pairs (row, moment base). */
 static const unsigned short hanging_taper_potential_energy_rows[170] = {
@@ -6888,6 +6898,7 @@ double hanging_taper_potential_energy_ws(const double q[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_potential_energy_ws with its scratch on this function's stack.
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_potential_energy(const double q[])
@@ -6895,6 +6906,7 @@ double hanging_taper_potential_energy(const double q[])
     double work[HANGING_TAPER_POTENTIAL_ENERGY_WORK];
     return hanging_taper_potential_energy_ws(q, work);
 }
+#endif
 
 /* Kernels of hanging_taper_terms: pairs (row, moment base). */
 static const unsigned short hanging_taper_terms_rows[1754] = {
@@ -9734,6 +9746,7 @@ void hanging_taper_terms_ws(const double q[], const double qd[], double B[], dou
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_terms_ws with its scratch on this function's stack.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_terms(const double q[], const double qd[], double B[], double C[], double G[])
@@ -9741,6 +9754,7 @@ void hanging_taper_terms(const double q[], const double qd[], double B[], double
     double work[HANGING_TAPER_TERMS_WORK];
     hanging_taper_terms_ws(q, qd, B, C, G, work);
 }
+#endif
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. HANGING_TAPER_KINETIC_ENERGY_WORK), 1109 reals.
@@ -9763,6 +9777,7 @@ double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], doub
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_kinetic_energy_ws with its scratch on this function's stack.
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
 double hanging_taper_kinetic_energy(const double q[], const double qd[])
@@ -9770,6 +9785,7 @@ double hanging_taper_kinetic_energy(const double q[], const double qd[])
     double work[HANGING_TAPER_KINETIC_ENERGY_WORK];
     return hanging_taper_kinetic_energy_ws(q, qd, work);
 }
+#endif
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. HANGING_TAPER_CORIOLIS_WORK), 1586 reals.
@@ -9782,6 +9798,7 @@ void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], 
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_coriolis_ws with its scratch on this function's stack.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
 void hanging_taper_coriolis(const double q[], const double qd[], double C[])
@@ -9789,6 +9806,7 @@ void hanging_taper_coriolis(const double q[], const double qd[], double C[])
     double work[HANGING_TAPER_CORIOLIS_WORK];
     hanging_taper_coriolis_ws(q, qd, C, work);
 }
+#endif
 
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
@@ -11115,11 +11133,13 @@ void hanging_taper_pose_ws(const double q[], int segment, double sigma, double p
     }
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3])
 {
     double work[HANGING_TAPER_POSE_WORK];
     hanging_taper_pose_ws(q, segment, sigma, pose, work);
 }
+#endif
 
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
 static void hanging_taper_fill_nan(double qdd[])
@@ -11258,12 +11278,14 @@ hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const d
     return HANGING_TAPER_OK;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
     double work[HANGING_TAPER_FORWARD_DYNAMICS_WORK];
     return hanging_taper_forward_dynamics_ws(q, qd, u, qdd, work);
 }
+#endif
 
 /* ------------------------------------------------------------------ statics and control
  *
@@ -11452,11 +11474,13 @@ hanging_taper_status hanging_taper_static_residual_ws(const double q[], const do
     return hanging_taper_all_finite(R, HANGING_TAPER_NQ) ? HANGING_TAPER_OK : HANGING_TAPER_ERR_NONFINITE_RESULT;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[])
 {
     double work[HANGING_TAPER_STATIC_RESIDUAL_WORK];
     return hanging_taper_static_residual_ws(q, u, R, work);
 }
+#endif
 
 hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
 {
@@ -11488,11 +11512,13 @@ hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const do
     return hanging_taper_all_finite(J, HANGING_TAPER_NQ * HANGING_TAPER_NQ) ? HANGING_TAPER_OK : HANGING_TAPER_ERR_NONFINITE_RESULT;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[])
 {
     double work[HANGING_TAPER_STATIC_JACOBIAN_WORK];
     return hanging_taper_static_jacobian_ws(q, u, J, work);
 }
+#endif
 
 /* The residual r = K q + lambda (G - A u) of the load fraction lambda, its load
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
@@ -11711,11 +11737,13 @@ hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], 
     return HANGING_TAPER_OK;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info)
 {
     double work[HANGING_TAPER_EQUILIBRIUM_WORK];
     return hanging_taper_equilibrium_ws(u, q, info, work);
 }
+#endif
 
 /* The actuators' limits [lo, hi] from the arm file (tendons: lo = pretension, >= 0);
  * +-DBL_MAX where the arm file sets none. */
@@ -12004,10 +12032,12 @@ hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const doub
     return status;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[])
 {
     double work[HANGING_TAPER_REGULATE_WORK];
     return hanging_taper_regulate_ws(law, target, kp, kd, q, qd, u, work);
 }
+#endif
 

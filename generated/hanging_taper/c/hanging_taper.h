@@ -96,7 +96,7 @@ typedef enum hanging_taper_status {
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_inertia(const double q[], double B[]);
+void hanging_taper_inertia_ws(const double q[], double B[], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
@@ -104,13 +104,13 @@ void hanging_taper_inertia(const double q[], double B[]);
  * B' - 2C is skew-symmetric. The generalized force is C q'.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_coriolis(const double q[], const double qd[], double C[]);
+void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_gravity(const double q[], double G[]);
+void hanging_taper_gravity_ws(const double q[], double G[], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
@@ -128,7 +128,7 @@ void hanging_taper_damping(double D[]);
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_actuation(const double q[], double A[]);
+void hanging_taper_actuation_ws(const double q[], double A[], double work[]);
 
 /**
  * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
@@ -142,13 +142,14 @@ void hanging_taper_actuation(const double q[], double A[]);
  * Segment 1: Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig.
  * Segment 2: Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3]);
+void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_tip_jacobian(const double q[], double J[]);
+void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as hanging_taper_inertia,
@@ -158,20 +159,20 @@ void hanging_taper_tip_jacobian(const double q[], double J[]);
  * moments and everything B, C and G share are computed once.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_terms(const double q[], const double qd[], double B[], double C[],
-    double G[]);
+void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[],
+    double G[], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
  */
-double hanging_taper_kinetic_energy(const double q[], const double qd[]);
+double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
  */
-double hanging_taper_potential_energy(const double q[]);
+double hanging_taper_potential_energy_ws(const double q[], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -184,14 +185,14 @@ double hanging_taper_potential_energy(const double q[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 18495 add, 23201 mul, 56 div, 8 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[]);
+hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
  * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_gravity_jacobian(const double q[], double dG[]);
+void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
@@ -199,7 +200,7 @@ void hanging_taper_gravity_jacobian(const double q[], double dG[]);
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
  * Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[]);
+hanging_taper_status hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -208,7 +209,7 @@ hanging_taper_status hanging_taper_static_residual(const double q[], const doubl
  * hanging_taper_static_residual.
  * Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
+hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
 
 /** What hanging_taper_equilibrium did. */
 typedef struct {
@@ -254,7 +255,8 @@ typedef struct {
  * Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
  * Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
+hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
+    double work[]);
 
 /** Number of controlled outputs y = S q of hanging_taper_regulate. */
 #define HANGING_TAPER_NY 3
@@ -290,55 +292,61 @@ typedef enum hanging_taper_law {
  * Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
-hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[]);
-
-/*
- * Caller-provided scratch. Every function above that takes q has a _ws variant with
- * one more argument, work: scratch that the caller owns, at least the function's
- * HANGING_TAPER_<FUNCTION>_WORK reals (HANGING_TAPER_WORK_LEN fits them all).
- * It need not be initialised, its contents afterwards are unspecified, and two calls
- * running at once (threads, interrupts) need two arrays. The plain functions declare
- * the same scratch on their own stack and return the same values; use the _ws
- * variants where the stack is small (an RTOS task, an interrupt handler).
- */
-#define HANGING_TAPER_INERTIA_WORK 1045
-#define HANGING_TAPER_GRAVITY_WORK 341
-#define HANGING_TAPER_ACTUATION_WORK 248
-#define HANGING_TAPER_TIP_JACOBIAN_WORK 248
-#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 492
-#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 255
-#define HANGING_TAPER_TERMS_WORK 1514
-#define HANGING_TAPER_KINETIC_ENERGY_WORK 1109
-#define HANGING_TAPER_CORIOLIS_WORK 1586
-#define HANGING_TAPER_POSE_WORK 259
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1846
-#define HANGING_TAPER_STATIC_RESIDUAL_WORK 429
-#define HANGING_TAPER_STATIC_JACOBIAN_WORK 748
-#define HANGING_TAPER_EQUILIBRIUM_WORK 956
-#define HANGING_TAPER_REGULATE_WORK 494
-#define HANGING_TAPER_WORK_LEN 1846
-
-void hanging_taper_inertia_ws(const double q[], double B[], double work[]);
-void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
-void hanging_taper_gravity_ws(const double q[], double G[], double work[]);
-void hanging_taper_actuation_ws(const double q[], double A[], double work[]);
-void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
-    double work[]);
-void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[]);
-void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[],
-    double G[], double work[]);
-double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[]);
-double hanging_taper_potential_energy_ws(const double q[], double work[]);
-hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[]);
-void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double work[]);
-hanging_taper_status hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[]);
-hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
-hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
-    double work[]);
 hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[]);
+
+/*
+ * Caller-provided scratch. Every function above that takes q takes one more argument,
+ * work: scratch that the caller owns, at least the function's
+ * HANGING_TAPER_<FUNCTION>_WORK reals (HANGING_TAPER_WORK_LEN fits them all), listed here
+ * with their size in bytes. It need not be initialised, its contents afterwards are
+ * unspecified, and two calls running at once (threads, interrupts) need two arrays.
+ * Keep it in static storage or a task's state: the functions' own frames are then a
+ * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
+ */
+#define HANGING_TAPER_INERTIA_WORK 1045 /* 8360 bytes */
+#define HANGING_TAPER_GRAVITY_WORK 341 /* 2728 bytes */
+#define HANGING_TAPER_ACTUATION_WORK 248 /* 1984 bytes */
+#define HANGING_TAPER_TIP_JACOBIAN_WORK 248 /* 1984 bytes */
+#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 492 /* 3936 bytes */
+#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 255 /* 2040 bytes */
+#define HANGING_TAPER_TERMS_WORK 1514 /* 12112 bytes */
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1109 /* 8872 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 1586 /* 12688 bytes */
+#define HANGING_TAPER_POSE_WORK 259 /* 2072 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1846 /* 14768 bytes */
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 429 /* 3432 bytes */
+#define HANGING_TAPER_STATIC_JACOBIAN_WORK 748 /* 5984 bytes */
+#define HANGING_TAPER_EQUILIBRIUM_WORK 956 /* 7648 bytes */
+#define HANGING_TAPER_REGULATE_WORK 494 /* 3952 bytes */
+#define HANGING_TAPER_WORK_LEN 1846 /* 14768 bytes */
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/*
+ * The plain forms: the same functions with their scratch declared on their own stack
+ * (HANGING_TAPER_<FUNCTION>_WORK reals each, below), the same values. Opt-in: define
+ * ARCWRIGHT_PLAIN_FUNCTIONS when compiling hanging_taper.c and the code that calls them. A
+ * firmware built with a stack limit (-Wstack-usage=) should leave them out.
+ */
+void hanging_taper_inertia(const double q[], double B[]);
+void hanging_taper_coriolis(const double q[], const double qd[], double C[]);
+void hanging_taper_gravity(const double q[], double G[]);
+void hanging_taper_actuation(const double q[], double A[]);
+void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3]);
+void hanging_taper_tip_jacobian(const double q[], double J[]);
+void hanging_taper_terms(const double q[], const double qd[], double B[], double C[],
+    double G[]);
+double hanging_taper_kinetic_energy(const double q[], const double qd[]);
+double hanging_taper_potential_energy(const double q[]);
+hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
+    double qdd[]);
+void hanging_taper_gravity_jacobian(const double q[], double dG[]);
+hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[]);
+hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
+hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
+hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[]);
+#endif
 
 #ifdef __cplusplus
 }

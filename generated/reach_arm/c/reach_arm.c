@@ -3514,6 +3514,7 @@ void reach_arm_inertia_ws(const double q[], double B[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_inertia_ws with its scratch on this function's stack.
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_inertia(const double q[], double B[])
@@ -3521,6 +3522,7 @@ void reach_arm_inertia(const double q[], double B[])
     double work[REACH_ARM_INERTIA_WORK];
     reach_arm_inertia_ws(q, B, work);
 }
+#endif
 
 /* Kernels of reach_arm_gravity: pairs (row, moment base). */
 static const unsigned short reach_arm_gravity_rows[212] = {
@@ -3730,6 +3732,7 @@ void reach_arm_gravity_ws(const double q[], double G[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_gravity_ws with its scratch on this function's stack.
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_gravity(const double q[], double G[])
@@ -3737,6 +3740,7 @@ void reach_arm_gravity(const double q[], double G[])
     double work[REACH_ARM_GRAVITY_WORK];
     reach_arm_gravity_ws(q, G, work);
 }
+#endif
 
 
 /* A(q), n x k, row-major. Scratch: none; work may be a null pointer (REACH_ARM_ACTUATION_WORK is 1 only because a C array cannot be empty).
@@ -3772,12 +3776,14 @@ void reach_arm_actuation_ws(const double q[], double A[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_actuation_ws with its scratch on this function's stack.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
 void reach_arm_actuation(const double q[], double A[])
 {
     reach_arm_actuation_ws(q, A, 0); /* needs no scratch */
 }
+#endif
 
 /* Kernels of reach_arm_tip_jacobian: pairs (row, moment base). */
 static const unsigned short reach_arm_tip_jacobian_rows[116] = {
@@ -3932,6 +3938,7 @@ void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_tip_jacobian_ws with its scratch on this function's stack.
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_tip_jacobian(const double q[], double J[])
@@ -3939,6 +3946,7 @@ void reach_arm_tip_jacobian(const double q[], double J[])
     double work[REACH_ARM_TIP_JACOBIAN_WORK];
     reach_arm_tip_jacobian_ws(q, J, work);
 }
+#endif
 
 /* Kernels of reach_arm_gravity_jacobian: pairs (row, moment base). */
 static const unsigned short reach_arm_gravity_jacobian_rows[280] = {
@@ -4430,6 +4438,7 @@ void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_gravity_jacobian_ws with its scratch on this function's stack.
  * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_gravity_jacobian(const double q[], double dG[])
@@ -4437,6 +4446,7 @@ void reach_arm_gravity_jacobian(const double q[], double dG[])
     double work[REACH_ARM_GRAVITY_JACOBIAN_WORK];
     reach_arm_gravity_jacobian_ws(q, dG, work);
 }
+#endif
 
 /* Kernels of reach_arm_potential_energy: pairs (row, moment base). */
 static const unsigned short reach_arm_potential_energy_rows[150] = {
@@ -4544,6 +4554,7 @@ double reach_arm_potential_energy_ws(const double q[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_potential_energy_ws with its scratch on this function's stack.
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_potential_energy(const double q[])
@@ -4551,6 +4562,7 @@ double reach_arm_potential_energy(const double q[])
     double work[REACH_ARM_POTENTIAL_ENERGY_WORK];
     return reach_arm_potential_energy_ws(q, work);
 }
+#endif
 
 /* Kernels of reach_arm_terms: pairs (row, moment base). */
 static const unsigned short reach_arm_terms_rows[1420] = {
@@ -6916,6 +6928,7 @@ void reach_arm_terms_ws(const double q[], const double qd[], double B[], double 
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_terms_ws with its scratch on this function's stack.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_terms(const double q[], const double qd[], double B[], double C[], double G[])
@@ -6923,6 +6936,7 @@ void reach_arm_terms(const double q[], const double qd[], double B[], double C[]
     double work[REACH_ARM_TERMS_WORK];
     reach_arm_terms_ws(q, qd, B, C, G, work);
 }
+#endif
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. REACH_ARM_KINETIC_ENERGY_WORK), 881 reals.
@@ -6945,6 +6959,7 @@ double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double w
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_kinetic_energy_ws with its scratch on this function's stack.
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
 double reach_arm_kinetic_energy(const double q[], const double qd[])
@@ -6952,6 +6967,7 @@ double reach_arm_kinetic_energy(const double q[], const double qd[])
     double work[REACH_ARM_KINETIC_ENERGY_WORK];
     return reach_arm_kinetic_energy_ws(q, qd, work);
 }
+#endif
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. REACH_ARM_CORIOLIS_WORK), 1262 reals.
@@ -6964,6 +6980,7 @@ void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], doub
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_coriolis_ws with its scratch on this function's stack.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
 void reach_arm_coriolis(const double q[], const double qd[], double C[])
@@ -6971,6 +6988,7 @@ void reach_arm_coriolis(const double q[], const double qd[], double C[])
     double work[REACH_ARM_CORIOLIS_WORK];
     reach_arm_coriolis_ws(q, qd, C, work);
 }
+#endif
 
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
@@ -7394,11 +7412,13 @@ void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[
     }
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
 {
     double work[REACH_ARM_POSE_WORK];
     reach_arm_pose_ws(q, segment, sigma, pose, work);
 }
+#endif
 
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
 static void reach_arm_fill_nan(double qdd[])
@@ -7537,12 +7557,14 @@ reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd
     return REACH_ARM_OK;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
     double work[REACH_ARM_FORWARD_DYNAMICS_WORK];
     return reach_arm_forward_dynamics_ws(q, qd, u, qdd, work);
 }
+#endif
 
 /* ------------------------------------------------------------------ statics and control
  *
@@ -7727,11 +7749,13 @@ reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[]
     return reach_arm_all_finite(R, REACH_ARM_NQ) ? REACH_ARM_OK : REACH_ARM_ERR_NONFINITE_RESULT;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[])
 {
     double work[REACH_ARM_STATIC_RESIDUAL_WORK];
     return reach_arm_static_residual_ws(q, u, R, work);
 }
+#endif
 
 reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
 {
@@ -7758,11 +7782,13 @@ reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[]
     return reach_arm_all_finite(J, REACH_ARM_NQ * REACH_ARM_NQ) ? REACH_ARM_OK : REACH_ARM_ERR_NONFINITE_RESULT;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[])
 {
     double work[REACH_ARM_STATIC_JACOBIAN_WORK];
     return reach_arm_static_jacobian_ws(q, u, J, work);
 }
+#endif
 
 /* The residual r = K q + lambda (G - A u) of the load fraction lambda, its load
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
@@ -7976,11 +8002,13 @@ reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_ar
     return REACH_ARM_OK;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info)
 {
     double work[REACH_ARM_EQUILIBRIUM_WORK];
     return reach_arm_equilibrium_ws(u, q, info, work);
 }
+#endif
 
 /* The actuators' limits [lo, hi] from the arm file (tendons: lo = pretension, >= 0);
  * +-DBL_MAX where the arm file sets none. */
@@ -8267,10 +8295,12 @@ reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[],
     return status;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[])
 {
     double work[REACH_ARM_REGULATE_WORK];
     return reach_arm_regulate_ws(law, target, kp, kd, q, qd, u, work);
 }
+#endif
 

@@ -96,7 +96,7 @@ typedef enum reach_arm_status {
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_inertia(const double q[], double B[]);
+void reach_arm_inertia_ws(const double q[], double B[], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
@@ -104,13 +104,13 @@ void reach_arm_inertia(const double q[], double B[]);
  * B' - 2C is skew-symmetric. The generalized force is C q'.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_coriolis(const double q[], const double qd[], double C[]);
+void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_gravity(const double q[], double G[]);
+void reach_arm_gravity_ws(const double q[], double G[], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
@@ -128,7 +128,7 @@ void reach_arm_damping(double D[]);
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void reach_arm_actuation(const double q[], double A[]);
+void reach_arm_actuation_ws(const double q[], double A[], double work[]);
 
 /**
  * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
@@ -141,13 +141,14 @@ void reach_arm_actuation(const double q[], double A[]);
  * Segment 0: Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
  * Segment 1: Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_pose(const double q[], int segment, double sigma, double pose[3]);
+void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_tip_jacobian(const double q[], double J[]);
+void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as reach_arm_inertia,
@@ -157,20 +158,20 @@ void reach_arm_tip_jacobian(const double q[], double J[]);
  * moments and everything B, C and G share are computed once.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_terms(const double q[], const double qd[], double B[], double C[],
-    double G[]);
+void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[],
+    double G[], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
  */
-double reach_arm_kinetic_energy(const double q[], const double qd[]);
+double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
  */
-double reach_arm_potential_energy(const double q[]);
+double reach_arm_potential_energy_ws(const double q[], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -183,14 +184,14 @@ double reach_arm_potential_energy(const double q[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[]);
+reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
  * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_gravity_jacobian(const double q[], double dG[]);
+void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
@@ -198,7 +199,7 @@ void reach_arm_gravity_jacobian(const double q[], double dG[]);
  * REACH_ARM_ERR_NONFINITE_RESULT.
  * Operations: 1279 add, 1800 mul, 4 div, 0 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[]);
+reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -207,7 +208,7 @@ reach_arm_status reach_arm_static_residual(const double q[], const double u[], d
  * reach_arm_static_residual.
  * Operations: 1805 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[]);
+reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
 
 /** What reach_arm_equilibrium did. */
 typedef struct {
@@ -253,7 +254,8 @@ typedef struct {
  * Operations per Newton iteration, at most: 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
+reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
+    double work[]);
 
 /** Number of controlled outputs y = S q of reach_arm_regulate. */
 #define REACH_ARM_NY 2
@@ -288,55 +290,61 @@ typedef enum reach_arm_law {
  * Operations before the allocation, at most: 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
-reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[]);
-
-/*
- * Caller-provided scratch. Every function above that takes q has a _ws variant with
- * one more argument, work: scratch that the caller owns, at least the function's
- * REACH_ARM_<FUNCTION>_WORK reals (REACH_ARM_WORK_LEN fits them all).
- * It need not be initialised, its contents afterwards are unspecified, and two calls
- * running at once (threads, interrupts) need two arrays. The plain functions declare
- * the same scratch on their own stack and return the same values; use the _ws
- * variants where the stack is small (an RTOS task, an interrupt handler).
- */
-#define REACH_ARM_INERTIA_WORK 845
-#define REACH_ARM_GRAVITY_WORK 226
-#define REACH_ARM_ACTUATION_WORK 1
-#define REACH_ARM_TIP_JACOBIAN_WORK 178
-#define REACH_ARM_GRAVITY_JACOBIAN_WORK 391
-#define REACH_ARM_POTENTIAL_ENERGY_WORK 195
-#define REACH_ARM_TERMS_WORK 1220
-#define REACH_ARM_KINETIC_ENERGY_WORK 881
-#define REACH_ARM_CORIOLIS_WORK 1262
-#define REACH_ARM_POSE_WORK 207
-#define REACH_ARM_FORWARD_DYNAMICS_WORK 1421
-#define REACH_ARM_STATIC_RESIDUAL_WORK 286
-#define REACH_ARM_STATIC_JACOBIAN_WORK 427
-#define REACH_ARM_EQUILIBRIUM_WORK 565
-#define REACH_ARM_REGULATE_WORK 358
-#define REACH_ARM_WORK_LEN 1421
-
-void reach_arm_inertia_ws(const double q[], double B[], double work[]);
-void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
-void reach_arm_gravity_ws(const double q[], double G[], double work[]);
-void reach_arm_actuation_ws(const double q[], double A[], double work[]);
-void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
-    double work[]);
-void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[]);
-void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[],
-    double G[], double work[]);
-double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[]);
-double reach_arm_potential_energy_ws(const double q[], double work[]);
-reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[]);
-void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[]);
-reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[]);
-reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
-reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
-    double work[]);
 reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[]);
+
+/*
+ * Caller-provided scratch. Every function above that takes q takes one more argument,
+ * work: scratch that the caller owns, at least the function's
+ * REACH_ARM_<FUNCTION>_WORK reals (REACH_ARM_WORK_LEN fits them all), listed here
+ * with their size in bytes. It need not be initialised, its contents afterwards are
+ * unspecified, and two calls running at once (threads, interrupts) need two arrays.
+ * Keep it in static storage or a task's state: the functions' own frames are then a
+ * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
+ */
+#define REACH_ARM_INERTIA_WORK 845 /* 6760 bytes */
+#define REACH_ARM_GRAVITY_WORK 226 /* 1808 bytes */
+#define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
+#define REACH_ARM_TIP_JACOBIAN_WORK 178 /* 1424 bytes */
+#define REACH_ARM_GRAVITY_JACOBIAN_WORK 391 /* 3128 bytes */
+#define REACH_ARM_POTENTIAL_ENERGY_WORK 195 /* 1560 bytes */
+#define REACH_ARM_TERMS_WORK 1220 /* 9760 bytes */
+#define REACH_ARM_KINETIC_ENERGY_WORK 881 /* 7048 bytes */
+#define REACH_ARM_CORIOLIS_WORK 1262 /* 10096 bytes */
+#define REACH_ARM_POSE_WORK 207 /* 1656 bytes */
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 1421 /* 11368 bytes */
+#define REACH_ARM_STATIC_RESIDUAL_WORK 286 /* 2288 bytes */
+#define REACH_ARM_STATIC_JACOBIAN_WORK 427 /* 3416 bytes */
+#define REACH_ARM_EQUILIBRIUM_WORK 565 /* 4520 bytes */
+#define REACH_ARM_REGULATE_WORK 358 /* 2864 bytes */
+#define REACH_ARM_WORK_LEN 1421 /* 11368 bytes */
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/*
+ * The plain forms: the same functions with their scratch declared on their own stack
+ * (REACH_ARM_<FUNCTION>_WORK reals each, below), the same values. Opt-in: define
+ * ARCWRIGHT_PLAIN_FUNCTIONS when compiling reach_arm.c and the code that calls them. A
+ * firmware built with a stack limit (-Wstack-usage=) should leave them out.
+ */
+void reach_arm_inertia(const double q[], double B[]);
+void reach_arm_coriolis(const double q[], const double qd[], double C[]);
+void reach_arm_gravity(const double q[], double G[]);
+void reach_arm_actuation(const double q[], double A[]);
+void reach_arm_pose(const double q[], int segment, double sigma, double pose[3]);
+void reach_arm_tip_jacobian(const double q[], double J[]);
+void reach_arm_terms(const double q[], const double qd[], double B[], double C[],
+    double G[]);
+double reach_arm_kinetic_energy(const double q[], const double qd[]);
+double reach_arm_potential_energy(const double q[]);
+reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
+    double qdd[]);
+void reach_arm_gravity_jacobian(const double q[], double dG[]);
+reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[]);
+reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[]);
+reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
+reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[]);
+#endif
 
 #ifdef __cplusplus
 }

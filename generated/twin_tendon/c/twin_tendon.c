@@ -310,6 +310,7 @@ void twin_tendon_inertia_ws(const double q[], double B[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_ws with its scratch on this function's stack.
  * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia(const double q[], double B[])
@@ -317,6 +318,7 @@ void twin_tendon_inertia(const double q[], double B[])
     double work[TWIN_TENDON_INERTIA_WORK];
     twin_tendon_inertia_ws(q, B, work);
 }
+#endif
 
 /* Kernels of twin_tendon_gravity: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_rows[18] = {
@@ -345,6 +347,7 @@ void twin_tendon_gravity_ws(const double q[], double G[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_ws with its scratch on this function's stack.
  * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity(const double q[], double G[])
@@ -352,6 +355,7 @@ void twin_tendon_gravity(const double q[], double G[])
     double work[TWIN_TENDON_GRAVITY_WORK];
     twin_tendon_gravity_ws(q, G, work);
 }
+#endif
 
 
 /* A(q), n x k, row-major. Scratch: none; work may be a null pointer (TWIN_TENDON_ACTUATION_WORK is 1 only because a C array cannot be empty).
@@ -371,12 +375,14 @@ void twin_tendon_actuation_ws(const double q[], double A[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_actuation_ws with its scratch on this function's stack.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
 void twin_tendon_actuation(const double q[], double A[])
 {
     twin_tendon_actuation_ws(q, A, 0); /* needs no scratch */
 }
+#endif
 
 /* Kernels of twin_tendon_tip_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_tip_jacobian_rows[8] = {
@@ -407,6 +413,7 @@ void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_tip_jacobian_ws with its scratch on this function's stack.
  * Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_tip_jacobian(const double q[], double J[])
@@ -414,6 +421,7 @@ void twin_tendon_tip_jacobian(const double q[], double J[])
     double work[TWIN_TENDON_TIP_JACOBIAN_WORK];
     twin_tendon_tip_jacobian_ws(q, J, work);
 }
+#endif
 
 /* Kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_jacobian_rows[26] = {
@@ -447,6 +455,7 @@ void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
  * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian(const double q[], double dG[])
@@ -454,6 +463,7 @@ void twin_tendon_gravity_jacobian(const double q[], double dG[])
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
     twin_tendon_gravity_jacobian_ws(q, dG, work);
 }
+#endif
 
 /* Kernels of twin_tendon_potential_energy: pairs (row, moment base). */
 static const unsigned char twin_tendon_potential_energy_rows[6] = {
@@ -482,6 +492,7 @@ double twin_tendon_potential_energy_ws(const double q[], double work[])
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_potential_energy_ws with its scratch on this function's stack.
  * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_potential_energy(const double q[])
@@ -489,6 +500,7 @@ double twin_tendon_potential_energy(const double q[])
     double work[TWIN_TENDON_POTENTIAL_ENERGY_WORK];
     return twin_tendon_potential_energy_ws(q, work);
 }
+#endif
 
 /* Kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
@@ -573,6 +585,7 @@ void twin_tendon_terms_ws(const double q[], const double qd[], double B[], doubl
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_ws with its scratch on this function's stack.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms(const double q[], const double qd[], double B[], double C[], double G[])
@@ -580,6 +593,7 @@ void twin_tendon_terms(const double q[], const double qd[], double B[], double C
     double work[TWIN_TENDON_TERMS_WORK];
     twin_tendon_terms_ws(q, qd, B, C, G, work);
 }
+#endif
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 42 reals.
@@ -602,6 +616,7 @@ double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_ws with its scratch on this function's stack.
  * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy(const double q[], const double qd[])
@@ -609,6 +624,7 @@ double twin_tendon_kinetic_energy(const double q[], const double qd[])
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
     return twin_tendon_kinetic_energy_ws(q, qd, work);
 }
+#endif
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 58 reals.
@@ -621,6 +637,7 @@ void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], do
 }
 
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_ws with its scratch on this function's stack.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis(const double q[], const double qd[], double C[])
@@ -628,6 +645,7 @@ void twin_tendon_coriolis(const double q[], const double qd[], double C[])
     double work[TWIN_TENDON_CORIOLIS_WORK];
     twin_tendon_coriolis_ws(q, qd, C, work);
 }
+#endif
 
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
@@ -679,11 +697,13 @@ void twin_tendon_pose_ws(const double q[], int segment, double sigma, double pos
     }
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3])
 {
     double work[TWIN_TENDON_POSE_WORK];
     twin_tendon_pose_ws(q, segment, sigma, pose, work);
 }
+#endif
 
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
 static void twin_tendon_fill_nan(double qdd[])
@@ -822,12 +842,14 @@ twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const doubl
     return TWIN_TENDON_OK;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
     double qdd[])
 {
     double work[TWIN_TENDON_FORWARD_DYNAMICS_WORK];
     return twin_tendon_forward_dynamics_ws(q, qd, u, qdd, work);
 }
+#endif
 
 /* ------------------------------------------------------------------ statics and control
  *
@@ -1012,11 +1034,13 @@ twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double
     return twin_tendon_all_finite(R, TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[])
 {
     double work[TWIN_TENDON_STATIC_RESIDUAL_WORK];
     return twin_tendon_static_residual_ws(q, u, R, work);
 }
+#endif
 
 twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
 {
@@ -1043,11 +1067,13 @@ twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double
     return twin_tendon_all_finite(J, TWIN_TENDON_NQ * TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[])
 {
     double work[TWIN_TENDON_STATIC_JACOBIAN_WORK];
     return twin_tendon_static_jacobian_ws(q, u, J, work);
 }
+#endif
 
 /* The residual r = K q + lambda (G - A u) of the load fraction lambda, its load
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
@@ -1261,11 +1287,13 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin
     return TWIN_TENDON_OK;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info)
 {
     double work[TWIN_TENDON_EQUILIBRIUM_WORK];
     return twin_tendon_equilibrium_ws(u, q, info, work);
 }
+#endif
 
 /* The actuators' limits [lo, hi] from the arm file (tendons: lo = pretension, >= 0);
  * +-DBL_MAX where the arm file sets none. */
@@ -1552,10 +1580,12 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
     return status;
 }
 
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[])
 {
     double work[TWIN_TENDON_REGULATE_WORK];
     return twin_tendon_regulate_ws(law, target, kp, kd, q, qd, u, work);
 }
+#endif
 

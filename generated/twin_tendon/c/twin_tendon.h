@@ -96,7 +96,7 @@ typedef enum twin_tendon_status {
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
  * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_inertia(const double q[], double B[]);
+void twin_tendon_inertia_ws(const double q[], double B[], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
@@ -104,13 +104,13 @@ void twin_tendon_inertia(const double q[], double B[]);
  * B' - 2C is skew-symmetric. The generalized force is C q'.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_coriolis(const double q[], const double qd[], double C[]);
+void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
  * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_gravity(const double q[], double G[]);
+void twin_tendon_gravity_ws(const double q[], double G[], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
@@ -128,7 +128,7 @@ void twin_tendon_damping(double D[]);
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void twin_tendon_actuation(const double q[], double A[]);
+void twin_tendon_actuation_ws(const double q[], double A[], double work[]);
 
 /**
  * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
@@ -141,13 +141,14 @@ void twin_tendon_actuation(const double q[], double A[]);
  * Segment 0: Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig.
  * Segment 1: Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3]);
+void twin_tendon_pose_ws(const double q[], int segment, double sigma, double pose[3],
+    double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
  * Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_tip_jacobian(const double q[], double J[]);
+void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as twin_tendon_inertia,
@@ -157,20 +158,20 @@ void twin_tendon_tip_jacobian(const double q[], double J[]);
  * moments and everything B, C and G share are computed once.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_terms(const double q[], const double qd[], double B[], double C[],
-    double G[]);
+void twin_tendon_terms_ws(const double q[], const double qd[], double B[], double C[],
+    double G[], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
  * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
  */
-double twin_tendon_kinetic_energy(const double q[], const double qd[]);
+double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
  * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
  */
-double twin_tendon_potential_energy(const double q[]);
+double twin_tendon_potential_energy_ws(const double q[], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -183,14 +184,14 @@ double twin_tendon_potential_energy(const double q[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 234 add, 435 mul, 9 div, 2 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[]);
+twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
+    double qdd[], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
  * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_gravity_jacobian(const double q[], double dG[]);
+void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
@@ -198,7 +199,7 @@ void twin_tendon_gravity_jacobian(const double q[], double dG[]);
  * TWIN_TENDON_ERR_NONFINITE_RESULT.
  * Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[]);
+twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -207,7 +208,7 @@ twin_tendon_status twin_tendon_static_residual(const double q[], const double u[
  * twin_tendon_static_residual.
  * Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
+twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
 
 /** What twin_tendon_equilibrium did. */
 typedef struct {
@@ -253,7 +254,8 @@ typedef struct {
  * Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
+twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+    double work[]);
 
 /** Number of controlled outputs y = S q of twin_tendon_regulate. */
 #define TWIN_TENDON_NY 2
@@ -288,55 +290,61 @@ typedef enum twin_tendon_law {
  * Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
-twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[]);
-
-/*
- * Caller-provided scratch. Every function above that takes q has a _ws variant with
- * one more argument, work: scratch that the caller owns, at least the function's
- * TWIN_TENDON_<FUNCTION>_WORK reals (TWIN_TENDON_WORK_LEN fits them all).
- * It need not be initialised, its contents afterwards are unspecified, and two calls
- * running at once (threads, interrupts) need two arrays. The plain functions declare
- * the same scratch on their own stack and return the same values; use the _ws
- * variants where the stack is small (an RTOS task, an interrupt handler).
- */
-#define TWIN_TENDON_INERTIA_WORK 38
-#define TWIN_TENDON_GRAVITY_WORK 33
-#define TWIN_TENDON_ACTUATION_WORK 1
-#define TWIN_TENDON_TIP_JACOBIAN_WORK 28
-#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 37
-#define TWIN_TENDON_POTENTIAL_ENERGY_WORK 27
-#define TWIN_TENDON_TERMS_WORK 52
-#define TWIN_TENDON_KINETIC_ENERGY_WORK 42
-#define TWIN_TENDON_CORIOLIS_WORK 58
-#define TWIN_TENDON_POSE_WORK 26
-#define TWIN_TENDON_FORWARD_DYNAMICS_WORK 83
-#define TWIN_TENDON_STATIC_RESIDUAL_WORK 45
-#define TWIN_TENDON_STATIC_JACOBIAN_WORK 41
-#define TWIN_TENDON_EQUILIBRIUM_WORK 71
-#define TWIN_TENDON_REGULATE_WORK 113
-#define TWIN_TENDON_WORK_LEN 113
-
-void twin_tendon_inertia_ws(const double q[], double B[], double work[]);
-void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
-void twin_tendon_gravity_ws(const double q[], double G[], double work[]);
-void twin_tendon_actuation_ws(const double q[], double A[], double work[]);
-void twin_tendon_pose_ws(const double q[], int segment, double sigma, double pose[3],
-    double work[]);
-void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[]);
-void twin_tendon_terms_ws(const double q[], const double qd[], double B[], double C[],
-    double G[], double work[]);
-double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double work[]);
-double twin_tendon_potential_energy_ws(const double q[], double work[]);
-twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[]);
-void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[]);
-twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[]);
-twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
-twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
-    double work[]);
 twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[], const double kp[], const double kd[],
     const double q[], const double qd[], double u[], double work[]);
+
+/*
+ * Caller-provided scratch. Every function above that takes q takes one more argument,
+ * work: scratch that the caller owns, at least the function's
+ * TWIN_TENDON_<FUNCTION>_WORK reals (TWIN_TENDON_WORK_LEN fits them all), listed here
+ * with their size in bytes. It need not be initialised, its contents afterwards are
+ * unspecified, and two calls running at once (threads, interrupts) need two arrays.
+ * Keep it in static storage or a task's state: the functions' own frames are then a
+ * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
+ */
+#define TWIN_TENDON_INERTIA_WORK 38 /* 304 bytes */
+#define TWIN_TENDON_GRAVITY_WORK 33 /* 264 bytes */
+#define TWIN_TENDON_ACTUATION_WORK 1 /* 8 bytes */
+#define TWIN_TENDON_TIP_JACOBIAN_WORK 28 /* 224 bytes */
+#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 37 /* 296 bytes */
+#define TWIN_TENDON_POTENTIAL_ENERGY_WORK 27 /* 216 bytes */
+#define TWIN_TENDON_TERMS_WORK 52 /* 416 bytes */
+#define TWIN_TENDON_KINETIC_ENERGY_WORK 42 /* 336 bytes */
+#define TWIN_TENDON_CORIOLIS_WORK 58 /* 464 bytes */
+#define TWIN_TENDON_POSE_WORK 26 /* 208 bytes */
+#define TWIN_TENDON_FORWARD_DYNAMICS_WORK 83 /* 664 bytes */
+#define TWIN_TENDON_STATIC_RESIDUAL_WORK 45 /* 360 bytes */
+#define TWIN_TENDON_STATIC_JACOBIAN_WORK 41 /* 328 bytes */
+#define TWIN_TENDON_EQUILIBRIUM_WORK 71 /* 568 bytes */
+#define TWIN_TENDON_REGULATE_WORK 113 /* 904 bytes */
+#define TWIN_TENDON_WORK_LEN 113 /* 904 bytes */
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/*
+ * The plain forms: the same functions with their scratch declared on their own stack
+ * (TWIN_TENDON_<FUNCTION>_WORK reals each, below), the same values. Opt-in: define
+ * ARCWRIGHT_PLAIN_FUNCTIONS when compiling twin_tendon.c and the code that calls them. A
+ * firmware built with a stack limit (-Wstack-usage=) should leave them out.
+ */
+void twin_tendon_inertia(const double q[], double B[]);
+void twin_tendon_coriolis(const double q[], const double qd[], double C[]);
+void twin_tendon_gravity(const double q[], double G[]);
+void twin_tendon_actuation(const double q[], double A[]);
+void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3]);
+void twin_tendon_tip_jacobian(const double q[], double J[]);
+void twin_tendon_terms(const double q[], const double qd[], double B[], double C[],
+    double G[]);
+double twin_tendon_kinetic_energy(const double q[], const double qd[]);
+double twin_tendon_potential_energy(const double q[]);
+twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
+    double qdd[]);
+void twin_tendon_gravity_jacobian(const double q[], double dG[]);
+twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[]);
+twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
+twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
+twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
+    const double q[], const double qd[], double u[]);
+#endif
 
 #ifdef __cplusplus
 }

@@ -378,6 +378,7 @@ fn run_c(shipped: &Path, scratch: &Path, name: &str) -> Outcome {
         // -O2, as firmware is built: the values are checked as they will run.
         .args(["-std=c99", "-O2", "-o"])
         .arg(&exe)
+        .arg(format!("-D{}", crate::emit::c::PLAIN_MACRO))
         .arg(c.join(format!("test_{name}.c")))
         .arg(c.join(format!("{name}.c")))
         .arg("-lm")

@@ -22,7 +22,15 @@ struct CFunc {
     ops: String,
     signature: String,
     body: String,
+    /// A plain form (scratch on its own stack): compiled only on request, see
+    /// `PLAIN_MACRO`.
+    plain: bool,
 }
+
+/// Defining this macro (for the arm's `.c` and for the code that calls it) brings in
+/// the plain forms, which put their scratch on the stack: opt-in, because a firmware
+/// built with a stack limit (`-Wstack-usage=`) should see only the `_ws` forms.
+pub const PLAIN_MACRO: &str = "ARCWRIGHT_PLAIN_FUNCTIONS";
 
 fn real(p: Precision) -> &'static str {
     match p {
@@ -382,6 +390,7 @@ pub fn emit(
             ops: ops.clone(),
             signature: format!("{ret} {name}_{fname}_ws({}, {r} work[])", decls.join(", ")),
             body,
+            plain: false,
         });
         let call = if len == 0 {
             format!(
@@ -401,6 +410,7 @@ pub fn emit(
             ops,
             signature: format!("{ret} {name}_{fname}({})", decls.join(", ")),
             body: call,
+            plain: true,
         });
         work.push((fname.to_string(), len));
     };
@@ -440,6 +450,7 @@ pub fn emit(
             } else {
                 format!("    {r} work[{len}];\n{body}")
             },
+            plain: false,
         });
     }
     let inertia_work = generated(
@@ -563,6 +574,7 @@ pub fn emit(
                 "static void {name}_{fname}(const {r} q[], {r} sigma, {r} pose[3], {r} work[])"
             ),
             body,
+            plain: false,
         });
     }
     // The derivative of A for end forces: used by the statics functions only, so it
@@ -584,6 +596,7 @@ pub fn emit(
             } else {
                 body
             },
+            plain: false,
         });
     }
     funcs.splice(0..0, constant_funcs);
@@ -636,6 +649,14 @@ pub fn emit(
         ),
     );
     ctx.insert("name_upper", &up);
+    ctx.insert("plain_macro", PLAIN_MACRO);
+    ctx.insert(
+        "real_size",
+        &match precision {
+            Precision::F32 => 4,
+            Precision::F64 => 8,
+        },
+    );
     ctx.insert("real", r);
     ctx.insert("sfx", if precision == Precision::F32 { "f" } else { "" });
     ctx.insert("fs", p.fs());
