@@ -304,22 +304,22 @@ hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const doub
  * Keep it in static storage or a task's state: the functions' own frames are then a
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
-#define HANGING_TAPER_INERTIA_WORK 1045 /* 8360 bytes */
-#define HANGING_TAPER_GRAVITY_WORK 341 /* 2728 bytes */
+#define HANGING_TAPER_INERTIA_WORK 1034 /* 8272 bytes */
+#define HANGING_TAPER_GRAVITY_WORK 327 /* 2616 bytes */
 #define HANGING_TAPER_ACTUATION_WORK 248 /* 1984 bytes */
 #define HANGING_TAPER_TIP_JACOBIAN_WORK 248 /* 1984 bytes */
-#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 492 /* 3936 bytes */
+#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 484 /* 3872 bytes */
 #define HANGING_TAPER_POTENTIAL_ENERGY_WORK 255 /* 2040 bytes */
-#define HANGING_TAPER_TERMS_WORK 1514 /* 12112 bytes */
-#define HANGING_TAPER_KINETIC_ENERGY_WORK 1109 /* 8872 bytes */
-#define HANGING_TAPER_CORIOLIS_WORK 1586 /* 12688 bytes */
+#define HANGING_TAPER_TERMS_WORK 1508 /* 12064 bytes */
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1098 /* 8784 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 1580 /* 12640 bytes */
 #define HANGING_TAPER_POSE_WORK 259 /* 2072 bytes */
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1846 /* 14768 bytes */
-#define HANGING_TAPER_STATIC_RESIDUAL_WORK 429 /* 3432 bytes */
-#define HANGING_TAPER_STATIC_JACOBIAN_WORK 748 /* 5984 bytes */
-#define HANGING_TAPER_EQUILIBRIUM_WORK 956 /* 7648 bytes */
-#define HANGING_TAPER_REGULATE_WORK 494 /* 3952 bytes */
-#define HANGING_TAPER_WORK_LEN 1846 /* 14768 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1840 /* 14720 bytes */
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 415 /* 3320 bytes */
+#define HANGING_TAPER_STATIC_JACOBIAN_WORK 740 /* 5920 bytes */
+#define HANGING_TAPER_EQUILIBRIUM_WORK 948 /* 7584 bytes */
+#define HANGING_TAPER_REGULATE_WORK 480 /* 3840 bytes */
+#define HANGING_TAPER_WORK_LEN 1840 /* 14720 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

@@ -302,22 +302,22 @@ reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[],
  * Keep it in static storage or a task's state: the functions' own frames are then a
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
-#define REACH_ARM_INERTIA_WORK 845 /* 6760 bytes */
+#define REACH_ARM_INERTIA_WORK 837 /* 6696 bytes */
 #define REACH_ARM_GRAVITY_WORK 226 /* 1808 bytes */
 #define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
 #define REACH_ARM_TIP_JACOBIAN_WORK 178 /* 1424 bytes */
-#define REACH_ARM_GRAVITY_JACOBIAN_WORK 391 /* 3128 bytes */
+#define REACH_ARM_GRAVITY_JACOBIAN_WORK 382 /* 3056 bytes */
 #define REACH_ARM_POTENTIAL_ENERGY_WORK 195 /* 1560 bytes */
-#define REACH_ARM_TERMS_WORK 1220 /* 9760 bytes */
-#define REACH_ARM_KINETIC_ENERGY_WORK 881 /* 7048 bytes */
-#define REACH_ARM_CORIOLIS_WORK 1262 /* 10096 bytes */
-#define REACH_ARM_POSE_WORK 207 /* 1656 bytes */
-#define REACH_ARM_FORWARD_DYNAMICS_WORK 1421 /* 11368 bytes */
+#define REACH_ARM_TERMS_WORK 1208 /* 9664 bytes */
+#define REACH_ARM_KINETIC_ENERGY_WORK 873 /* 6984 bytes */
+#define REACH_ARM_CORIOLIS_WORK 1250 /* 10000 bytes */
+#define REACH_ARM_POSE_WORK 202 /* 1616 bytes */
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 1409 /* 11272 bytes */
 #define REACH_ARM_STATIC_RESIDUAL_WORK 286 /* 2288 bytes */
-#define REACH_ARM_STATIC_JACOBIAN_WORK 427 /* 3416 bytes */
-#define REACH_ARM_EQUILIBRIUM_WORK 565 /* 4520 bytes */
+#define REACH_ARM_STATIC_JACOBIAN_WORK 418 /* 3344 bytes */
+#define REACH_ARM_EQUILIBRIUM_WORK 556 /* 4448 bytes */
 #define REACH_ARM_REGULATE_WORK 358 /* 2864 bytes */
-#define REACH_ARM_WORK_LEN 1421 /* 11368 bytes */
+#define REACH_ARM_WORK_LEN 1409 /* 11272 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

@@ -19,16 +19,25 @@ pub struct Spelling<'a> {
     pub pose_count: usize,
     /// Temporaries as elements `t[k]` of one array instead of variables `t<k>`.
     pub temp_array: bool,
-    /// With `temp_array`: the array slot of each temporary (see [`temp_slots`]);
-    /// `None` keeps one slot per temporary.
-    pub slots: Option<&'a [usize]>,
+    /// With `temp_array`: the array slot of each temporary (see [`temp_slots`]), or
+    /// none for a temporary that lives inside one part of a split body, which is then
+    /// a named local `t<k>`; `None` keeps one slot per temporary.
+    pub slots: Option<&'a [Option<usize>]>,
+}
+
+impl Spelling<'_> {
+    /// Whether temporary `t` is an element of the array `t` (else a named local).
+    fn in_array(&self, t: usize) -> bool {
+        self.temp_array && self.slots.is_none_or(|s| s[t].is_some())
+    }
 }
 
 impl Syntax for Spelling<'_> {
     fn leaf(&self, leaf: &Leaf) -> String {
         match leaf {
-            Leaf::Temp(t) if self.temp_array => match self.slots {
-                Some(slots) => format!("t[{}]", slots[*t]),
+            Leaf::Temp(t) if self.temp_array => match self.slots.map(|s| s[*t]) {
+                Some(Some(slot)) => format!("t[{slot}]"),
+                Some(None) => format!("t{t}"),
                 None => format!("t[{t}]"),
             },
             Leaf::Temp(t) => format!("t{t}"),
@@ -91,23 +100,33 @@ pub struct StmtStyle {
 }
 
 /// The temporaries of a block, one statement each.
-pub fn temporaries(block: &Block, syn: &dyn Syntax, style: &StmtStyle) -> String {
+pub fn temporaries(block: &Block, syn: &Spelling, style: &StmtStyle) -> String {
     statements(&block.stmts, syn, style)
 }
 
-/// Some statements of a block, one each.
-pub fn statements(stmts: &[Stmt], syn: &dyn Syntax, style: &StmtStyle) -> String {
+/// Some statements of a block, one each. A temporary kept in a reused array slot is
+/// named in a comment (`t[17] = …; /* t812 */`), so that under a debugger a slot
+/// reads as the temporary it holds at that point.
+pub fn statements(stmts: &[Stmt], syn: &Spelling, style: &StmtStyle) -> String {
     let mut out = String::new();
     for s in stmts {
-        let prefix = if style.temp_array {
-            format!("{} = ", syn.leaf(&Leaf::Temp(s.temp)))
+        let (prefix, end) = if style.temp_array && syn.in_array(s.temp) {
+            let named = if syn.slots.is_some() {
+                format!("{} /* t{} */", style.end, s.temp)
+            } else {
+                style.end.to_string()
+            };
+            (format!("{} = ", syn.leaf(&Leaf::Temp(s.temp))), named)
         } else {
-            format!("{}t{} = ", style.decl, s.temp)
+            (
+                format!("{}t{} = ", style.decl, s.temp),
+                style.end.to_string(),
+            )
         };
         out.push_str(&statement(
             &prefix,
             &s.expr,
-            style.end,
+            &end,
             syn,
             style.indent,
             style.parens,
@@ -163,17 +182,27 @@ pub fn for_each_leaf(e: &Expr, f: &mut dyn FnMut(&Leaf)) {
 /// Array slots for a block's temporaries, reused once a temporary is dead: a
 /// temporary's slot is freed after its last reader, so the scratch array holds the
 /// most temporaries ever alive at once rather than all of them (which matters on a
-/// microcontroller's stack). Returns the slot of each temporary and the slot count.
-pub fn temp_slots(block: &Block) -> (Vec<usize>, usize) {
+/// microcontroller's stack). With `part` (the statements per part of a split body),
+/// a temporary whose readers are all in the part that defines it gets no slot: it is
+/// a named local of that part, which costs nothing at -O2 and reads better. Returns
+/// the slot of each temporary and the slot count.
+pub fn temp_slots(block: &Block, part: Option<usize>) -> (Vec<Option<usize>>, usize) {
     let n = block.stmts.len();
     let temps = block.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
+    let part_of = |k: usize| part.map_or(0, |p| k / p);
     // Last statement reading each temporary; outputs read after every statement.
     let mut last = vec![0usize; temps];
+    let mut defined = vec![0usize; temps];
+    let mut crosses = vec![part.is_none(); temps];
     for (k, s) in block.stmts.iter().enumerate() {
         last[s.temp] = last[s.temp].max(k);
+        defined[s.temp] = k;
         for_each_leaf(&s.expr, &mut |l| {
             if let Leaf::Temp(t) = l {
                 last[*t] = last[*t].max(k);
+                if part_of(k) != part_of(defined[*t]) {
+                    crosses[*t] = true;
+                }
             }
         });
     }
@@ -181,30 +210,33 @@ pub fn temp_slots(block: &Block) -> (Vec<usize>, usize) {
         for_each_leaf(e, &mut |l| {
             if let Leaf::Temp(t) = l {
                 last[*t] = n;
+                crosses[*t] = true;
             }
         });
     }
     // Temporaries whose last reader is statement k, freed once k is written.
     let mut dies_at: Vec<Vec<usize>> = vec![Vec::new(); n + 1];
-    for s in &block.stmts {
+    for s in block.stmts.iter().filter(|s| crosses[s.temp]) {
         dies_at[last[s.temp]].push(s.temp);
     }
-    let mut slot = vec![usize::MAX; temps];
+    let mut slot = vec![None; temps];
     let mut free: std::collections::BTreeSet<usize> = std::collections::BTreeSet::new();
     let mut count = 0usize;
     for (k, s) in block.stmts.iter().enumerate() {
-        let c = match free.pop_first() {
-            Some(c) => c,
-            None => {
-                count += 1;
-                count - 1
-            }
-        };
-        slot[s.temp] = c;
+        if crosses[s.temp] {
+            let c = match free.pop_first() {
+                Some(c) => c,
+                None => {
+                    count += 1;
+                    count - 1
+                }
+            };
+            slot[s.temp] = Some(c);
+        }
         // Slots of temporaries read for the last time here are free for the next one;
         // this statement's own target cannot be among them unless nothing reads it.
         for &t in &dies_at[k] {
-            free.insert(slot[t]);
+            free.insert(slot[t].expect("a crossing temporary has a slot"));
         }
     }
     (slot, count)
@@ -219,7 +251,7 @@ mod tests {
     /// Replays every block of a two-segment model with slot-reused temporaries: each
     /// read must find in its slot the temporary it means, never a later one.
     #[test]
-    fn reused_slots_never_overwrite_a_live_temporary() {
+    fn reused_slots_never_overwrite_a_live_temporary_and_locals_stay_in_their_part() {
         let arm = parse_arm_str(
             r#"
 name = "slots"
@@ -248,24 +280,42 @@ bending_stiffness = 0.008
             &plan.tip_jacobian,
         ] {
             let b = &f.block;
-            let (slot, count) = temp_slots(b);
-            let temps = b.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
-            assert!(count <= temps);
-            let mut owner = vec![usize::MAX; count];
-            let check = |e: &Expr, owner: &[usize]| {
-                for_each_leaf(e, &mut |l| {
-                    if let Leaf::Temp(t) = l {
-                        assert_eq!(owner[slot[*t]], *t, "slot of t{t} was overwritten");
+            // One slot per live temporary, and (parts of 7 statements) slots only for
+            // temporaries read outside the part that defines them.
+            for part in [None, Some(7)] {
+                let (slot, count) = temp_slots(b, part);
+                let temps = b.stmts.iter().map(|s| s.temp + 1).max().unwrap_or(0);
+                assert!(count <= temps);
+                let part_of = |k: usize| part.map_or(0, |p| k / p);
+                let mut defined_in = vec![usize::MAX; temps];
+                let mut owner = vec![usize::MAX; count];
+                let check = |e: &Expr, owner: &[usize], defined_in: &[usize], k: Option<usize>| {
+                    for_each_leaf(e, &mut |l| {
+                        if let Leaf::Temp(t) = l {
+                            match slot[*t] {
+                                Some(s) => {
+                                    assert_eq!(owner[s], *t, "slot of t{t} was overwritten")
+                                }
+                                None => assert_eq!(
+                                    k.map(part_of),
+                                    Some(defined_in[*t]),
+                                    "the local t{t} is read outside its part"
+                                ),
+                            }
+                        }
+                    });
+                };
+                for (k, s) in b.stmts.iter().enumerate() {
+                    check(&s.expr, &owner, &defined_in, Some(k));
+                    defined_in[s.temp] = part_of(k);
+                    if let Some(c) = slot[s.temp] {
+                        owner[c] = s.temp;
                     }
-                });
-            };
-            for s in &b.stmts {
-                check(&s.expr, &owner);
-                owner[slot[s.temp]] = s.temp;
-                checked += 1;
-            }
-            for e in &b.outputs {
-                check(e, &owner);
+                    checked += 1;
+                }
+                for e in &b.outputs {
+                    check(e, &owner, &defined_in, None);
+                }
             }
         }
         assert!(

@@ -110,7 +110,7 @@ impl Printer<'_> {
         // Long bodies go into parts over one scratch array (see `parts`).
         let split = b.stmts.len() > PART_STATEMENTS;
         let (slots, slot_count) = if split {
-            temp_slots(b)
+            temp_slots(b, Some(PART_STATEMENTS))
         } else {
             (Vec::new(), 0)
         };

@@ -63,7 +63,7 @@ fn body(
     let b = &func.block;
     let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
     // Temporaries share array slots once dead, to keep the scratch small.
-    let (slots, slot_count) = temp_slots(b);
+    let (slots, slot_count) = temp_slots(b, None);
     let syn = Spelling {
         plan,
         precision: Precision::F64,
