@@ -3,7 +3,7 @@
 //! as C++ with g++), the Rust crate with `cargo test`, Python with python3 + NumPy.
 //! Also: `generated/` is byte-for-byte what the generator writes today; the f32 C
 //! compiles without a single promotion to double and passes its own shipped checks
-//! (relative 2e-3); and (when arm-none-eabi-gcc is installed) the f32 C is
+//! (64 units of f32 rounding of each quantity's scale; equilibria 1e-4); and (when arm-none-eabi-gcc is installed) the f32 C is
 //! warning-clean for a Cortex-M4F (its -Os flash size is in the `emitted_c` bench).
 //!
 //! A missing tool skips its check with a printed reason (CI installs them all).
@@ -269,7 +269,7 @@ fn c_single_precision_never_promotes_to_double_and_matches_reference() {
                 .arg(&exe),
             &format!("gcc f32 {name}"),
         );
-        // The shipped checks in single precision: relative 2e-3 against the f64
+        // The shipped checks in single precision: 64 units of rounding (7.6e-6) against the f64
         // reference, with the same per-quantity floors.
         let text = run(
             &mut Command::new(&exe),

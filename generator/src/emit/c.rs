@@ -720,6 +720,8 @@ pub fn emit(
     ctx.insert("gravity_jacobian_ops", &ops_line(&plan.gravity_jacobian));
     ctx.insert("golden", &golden.c_data(precision));
     ctx.insert("rtol", &golden.rtol(precision));
+    ctx.insert("rtol_reason", golden.rtol_reason(precision));
+    ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(precision));
     // A state at which every arm's model overflows: `a = L q` far beyond what the
     // moments and angle sums survive.
     ctx.insert(

@@ -376,7 +376,32 @@ impl Golden {
     pub fn rtol(&self, precision: Precision) -> String {
         match precision {
             Precision::F64 => "1e-9".into(),
-            Precision::F32 => "2e-3".into(),
+            // 64 units of rounding of the quantity's scale: measured, every f32 check
+            // but the equilibrium passes at 2e-6 (17 units) on the demo arms.
+            Precision::F32 => "7.6e-6".into(),
+        }
+    }
+
+    /// Why the tolerance is what it is, for the test file's comment.
+    pub fn rtol_reason(&self, precision: Precision) -> &'static str {
+        match precision {
+            Precision::F64 => {
+                "Double precision: far above rounding (the golden values carry 15 digits), far \
+                 below any modelling error."
+            }
+            Precision::F32 => {
+                "Single precision: 64 units of rounding (2^-23) of each quantity's scale. \
+                 Forward dynamics is judged by its residual, a backward error that does not \
+                 grow with the condition of B."
+            }
+        }
+    }
+
+    /// Tolerance of the equilibrium checks: ten times the solver's relative residual.
+    pub fn rtol_equilibrium(&self, precision: Precision) -> &'static str {
+        match precision {
+            Precision::F64 => "1e-9",
+            Precision::F32 => "1e-4",
         }
     }
 
