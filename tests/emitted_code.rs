@@ -450,3 +450,49 @@ fn c_without_the_plain_forms_fits_a_2_kb_stack_limit() {
         }
     }
 }
+
+#[test]
+fn c_forward_dynamics_checks_the_workspace_when_asked() {
+    // Built with ARCWRIGHT_CHECK_RANGE, forward dynamics refuses a configuration outside
+    // the arm file's [sampling] bounds with its own code, and answers inside them.
+    if !have("gcc", "--version") {
+        println!("SKIP: gcc not found");
+        return;
+    }
+    let arm = root().join("examples/reach_arm.toml");
+    let dir = generated(&arm, Precision::F64).join("c");
+    let scratch = tempfile::tempdir().unwrap();
+    let driver = scratch.path().join("range.c");
+    std::fs::write(
+        &driver,
+        r#"#include "reach_arm.h"
+#include <stdio.h>
+static double work[REACH_ARM_WORK_LEN];
+int main(void) {
+    double q[REACH_ARM_NQ] = {1.0, 0.5, -0.2, -1.5, 0.3, 0.1};
+    double qd[REACH_ARM_NQ] = {0.0}, u[REACH_ARM_NU] = {0.0}, qdd[REACH_ARM_NQ];
+    int inside = reach_arm_forward_dynamics_ws(q, qd, u, qdd, work);
+    q[3] = 80.0; /* 8 rad of base bending on a 0.1 m segment */
+    int outside = reach_arm_forward_dynamics_ws(q, qd, u, qdd, work);
+    printf("%d %d %d\n", inside, outside, (int)REACH_ARM_ERR_OUT_OF_RANGE);
+    return 0;
+}
+"#,
+    )
+    .unwrap();
+    let exe = scratch.path().join("range");
+    run(
+        Command::new("gcc")
+            .args(["-std=c99", "-O1", "-DARCWRIGHT_CHECK_RANGE"])
+            .args(STRICT)
+            .arg("-I")
+            .arg(&dir)
+            .arg(&driver)
+            .arg(dir.join("reach_arm.c"))
+            .args(["-lm", "-o"])
+            .arg(&exe),
+        "gcc -DARCWRIGHT_CHECK_RANGE",
+    );
+    let out = run(&mut Command::new(&exe), "the range driver");
+    assert_eq!(out.trim(), "0 8 8", "inside, outside, the code: {out}");
+}

@@ -11153,6 +11153,29 @@ void hanging_taper_pose(const double q[], int segment, double sigma, double pose
 }
 #endif
 
+hanging_taper_status hanging_taper_check_range(const double q[])
+{
+    int i;
+    for (i = 0; i < HANGING_TAPER_NQ; ++i) {
+        if (!hanging_taper_finite(q[i])) {
+            return HANGING_TAPER_ERR_NONFINITE_INPUT;
+        }
+    }
+    if (0.1 * fabs(q[0]) > HANGING_TAPER_RANGE_BASE_BENDING ||
+        0.05 * fabs(q[1]) + 0.03333333333333333 * fabs(q[2]) > HANGING_TAPER_RANGE_EXTRA_BENDING) {
+        return HANGING_TAPER_ERR_OUT_OF_RANGE;
+    }
+    if (0.09 * fabs(q[3]) > HANGING_TAPER_RANGE_BASE_BENDING ||
+        0.045 * fabs(q[4]) + 0.03 * fabs(q[5]) > HANGING_TAPER_RANGE_EXTRA_BENDING) {
+        return HANGING_TAPER_ERR_OUT_OF_RANGE;
+    }
+    if (0.08 * fabs(q[6]) > HANGING_TAPER_RANGE_BASE_BENDING ||
+        0.04 * fabs(q[7]) > HANGING_TAPER_RANGE_EXTRA_BENDING) {
+        return HANGING_TAPER_ERR_OUT_OF_RANGE;
+    }
+    return HANGING_TAPER_OK;
+}
+
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
 static void hanging_taper_fill_nan(double qdd[])
 {
@@ -11192,6 +11215,11 @@ hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const d
             status = HANGING_TAPER_ERR_NONFINITE_INPUT;
         }
     }
+#ifdef ARCWRIGHT_CHECK_RANGE
+    if (status == HANGING_TAPER_OK) {
+        status = hanging_taper_check_range(q);
+    }
+#endif
     if (status != HANGING_TAPER_OK) {
         hanging_taper_fill_nan(qdd);
         return status;

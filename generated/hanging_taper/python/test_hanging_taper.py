@@ -1182,6 +1182,15 @@ def test_invalid_arguments():
     assert np.isnan(arm.pose(q, -1, 0.5)).all()
     assert np.isnan(arm.pose(q, 0, 1.5)).all()
     assert np.isnan(arm.pose(q, 0, math.nan)).all()
+    arm.check_range(q)
+    far = q.copy()
+    far[0] = 1e3
+    try:
+        arm.check_range(far)
+    except arm.DynamicsError as e:
+        assert "out of range" in str(e), str(e)
+    else:
+        raise AssertionError("check_range accepted a far bending")
     try:
         arm.forward_dynamics(q, np.full(arm.NQ, 1e200), G_U[2][: arm.NU])
     except arm.DynamicsError as e:

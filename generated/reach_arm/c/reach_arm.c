@@ -7460,6 +7460,25 @@ void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
 }
 #endif
 
+reach_arm_status reach_arm_check_range(const double q[])
+{
+    int i;
+    for (i = 0; i < REACH_ARM_NQ; ++i) {
+        if (!reach_arm_finite(q[i])) {
+            return REACH_ARM_ERR_NONFINITE_INPUT;
+        }
+    }
+    if (0.12 * fabs(q[0]) > REACH_ARM_RANGE_BASE_BENDING ||
+        0.06 * fabs(q[1]) + 0.04 * fabs(q[2]) > REACH_ARM_RANGE_EXTRA_BENDING) {
+        return REACH_ARM_ERR_OUT_OF_RANGE;
+    }
+    if (0.1 * fabs(q[3]) > REACH_ARM_RANGE_BASE_BENDING ||
+        0.05 * fabs(q[4]) + 0.03333333333333333 * fabs(q[5]) > REACH_ARM_RANGE_EXTRA_BENDING) {
+        return REACH_ARM_ERR_OUT_OF_RANGE;
+    }
+    return REACH_ARM_OK;
+}
+
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
 static void reach_arm_fill_nan(double qdd[])
 {
@@ -7499,6 +7518,11 @@ reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd
             status = REACH_ARM_ERR_NONFINITE_INPUT;
         }
     }
+#ifdef ARCWRIGHT_CHECK_RANGE
+    if (status == REACH_ARM_OK) {
+        status = reach_arm_check_range(q);
+    }
+#endif
     if (status != REACH_ARM_OK) {
         reach_arm_fill_nan(qdd);
         return status;

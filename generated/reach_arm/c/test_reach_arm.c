@@ -1208,6 +1208,17 @@ int main(void)
         expect(nan_bits(pose[0]), "pose at sigma 1.5 is NaN");
         reach_arm_pose(q, 0, (double)NAN, pose);
         expect(nan_bits(pose[0]), "pose at sigma NaN is NaN");
+        /* The workspace: every test configuration but the large one lies in the default
+         * [sampling] bounds; bending one segment far beyond them leaves it. */
+        expect(reach_arm_check_range(q) == REACH_ARM_OK, "check_range of a small configuration");
+        {
+            double far[REACH_ARM_NQ];
+            memcpy(far, q, sizeof far);
+            far[0] = 1e3;
+            expect(reach_arm_check_range(far) == REACH_ARM_ERR_OUT_OF_RANGE, "check_range of a far bending");
+            far[0] = (double)NAN;
+            expect(reach_arm_check_range(far) == REACH_ARM_ERR_NONFINITE_INPUT, "check_range of NaN");
+        }
         /* Velocities whose Coriolis force C(q, q') q' overflows. */
         for (i = 0; i < REACH_ARM_NQ; ++i) {
             qd[i] = 1e200;

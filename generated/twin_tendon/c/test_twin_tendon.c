@@ -957,6 +957,17 @@ int main(void)
         expect(nan_bits(pose[0]), "pose at sigma 1.5 is NaN");
         twin_tendon_pose(q, 0, (double)NAN, pose);
         expect(nan_bits(pose[0]), "pose at sigma NaN is NaN");
+        /* The workspace: every test configuration but the large one lies in the default
+         * [sampling] bounds; bending one segment far beyond them leaves it. */
+        expect(twin_tendon_check_range(q) == TWIN_TENDON_OK, "check_range of a small configuration");
+        {
+            double far[TWIN_TENDON_NQ];
+            memcpy(far, q, sizeof far);
+            far[0] = 1e3;
+            expect(twin_tendon_check_range(far) == TWIN_TENDON_ERR_OUT_OF_RANGE, "check_range of a far bending");
+            far[0] = (double)NAN;
+            expect(twin_tendon_check_range(far) == TWIN_TENDON_ERR_NONFINITE_INPUT, "check_range of NaN");
+        }
         /* Velocities whose Coriolis force C(q, q') q' overflows. */
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             qd[i] = 1e200;

@@ -705,6 +705,23 @@ void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3
 }
 #endif
 
+twin_tendon_status twin_tendon_check_range(const double q[])
+{
+    int i;
+    for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+        if (!twin_tendon_finite(q[i])) {
+            return TWIN_TENDON_ERR_NONFINITE_INPUT;
+        }
+    }
+    if (0.15 * fabs(q[0]) > TWIN_TENDON_RANGE_BASE_BENDING) {
+        return TWIN_TENDON_ERR_OUT_OF_RANGE;
+    }
+    if (0.12 * fabs(q[1]) > TWIN_TENDON_RANGE_BASE_BENDING) {
+        return TWIN_TENDON_ERR_OUT_OF_RANGE;
+    }
+    return TWIN_TENDON_OK;
+}
+
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
 static void twin_tendon_fill_nan(double qdd[])
 {
@@ -744,6 +761,11 @@ twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const doubl
             status = TWIN_TENDON_ERR_NONFINITE_INPUT;
         }
     }
+#ifdef ARCWRIGHT_CHECK_RANGE
+    if (status == TWIN_TENDON_OK) {
+        status = twin_tendon_check_range(q);
+    }
+#endif
     if (status != TWIN_TENDON_OK) {
         twin_tendon_fill_nan(qdd);
         return status;

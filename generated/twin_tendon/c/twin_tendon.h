@@ -78,8 +78,31 @@ typedef enum twin_tendon_status {
     TWIN_TENDON_SATURATED = 6,
     /** twin_tendon_forward_dynamics: B, C, G, A or the right-hand side is not finite at
      * this state (it overflowed: q, q' or u is far outside any arm's range). */
-    TWIN_TENDON_ERR_OVERFLOW = 7
+    TWIN_TENDON_ERR_OVERFLOW = 7,
+    /** twin_tendon_check_range (and forward dynamics built with ARCWRIGHT_CHECK_RANGE): q is
+     * outside the workspace the model was tested in. */
+    TWIN_TENDON_ERR_OUT_OF_RANGE = 8
 } twin_tendon_status;
+
+/*
+ * The workspace the model is tested in, from the arm file's [sampling] table: per
+ * segment j, base bending |L_j q_{j,0}| <= RANGE_BASE_BENDING and extra bending
+ * sum_{i>=1} L_j |q_{j,i}| / (i+1) <= RANGE_EXTRA_BENDING [rad]. Define before including
+ * this header to override.
+ */
+#ifndef TWIN_TENDON_RANGE_BASE_BENDING
+#define TWIN_TENDON_RANGE_BASE_BENDING 3.141592653589793
+#endif
+#ifndef TWIN_TENDON_RANGE_EXTRA_BENDING
+#define TWIN_TENDON_RANGE_EXTRA_BENDING 1.5707963267948966
+#endif
+
+/**
+ * Whether q lies in that workspace: TWIN_TENDON_OK, TWIN_TENDON_ERR_OUT_OF_RANGE, or
+ * TWIN_TENDON_ERR_NONFINITE_INPUT. Built with ARCWRIGHT_CHECK_RANGE defined,
+ * twin_tendon_forward_dynamics checks it first and returns its code.
+ */
+twin_tendon_status twin_tendon_check_range(const double q[]);
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -178,7 +201,8 @@ double twin_tendon_potential_energy_ws(const double q[], double work[]);
  * q'' (length n) by an in-place Cholesky factorisation of B on the stack.
  * Returns TWIN_TENDON_OK (0), or TWIN_TENDON_ERR_NONFINITE_INPUT (1),
  * TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE (2: a pivot below TWIN_TENDON_PIVOT_FLOOR of its
- * diagonal entry), TWIN_TENDON_ERR_NONFINITE_RESULT (3), TWIN_TENDON_ERR_OVERFLOW (7);
+ * diagonal entry), TWIN_TENDON_ERR_NONFINITE_RESULT (3), TWIN_TENDON_ERR_OVERFLOW (7),
+ * TWIN_TENDON_ERR_OUT_OF_RANGE (8, only when built with ARCWRIGHT_CHECK_RANGE);
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.

@@ -50,6 +50,7 @@ import numpy as np
 
 __all__ = [
     "MODEL_SHA256", "GENERATOR_VERSION", "EXPANSION_ORDER", "PIVOT_FLOOR",
+    "RANGE_BASE_BENDING", "RANGE_EXTRA_BENDING", "check_range",
     "NQ", "NU", "NSEG", "DynamicsError", "inertia", "coriolis", "gravity", "stiffness",
     "damping", "actuation", "pose", "tip_jacobian", "kinetic_energy", "potential_energy",
     "terms", "forward_dynamics", "rhs", "make_rhs", "gravity_jacobian", "static_residual",
@@ -74,6 +75,25 @@ class DynamicsError(ValueError):
     """Forward dynamics failed: a non-finite input, B(q) not positive definite, an
     overflow of the model at this state, or a non-finite result (the message says
     which)."""
+
+
+# The workspace the model is tested in, from the arm file's [sampling] table: per
+# segment j, base bending |L_j q_{j,0}| <= RANGE_BASE_BENDING and extra bending
+# sum_{i>=1} L_j |q_{j,i}| / (i+1) <= RANGE_EXTRA_BENDING [rad].
+RANGE_BASE_BENDING = 3.141592653589793
+RANGE_EXTRA_BENDING = 1.5707963267948966
+
+
+def check_range(q):
+    """Raises DynamicsError when q is outside that workspace or not finite; call it
+    before forward_dynamics where a state from a sensor may be anywhere."""
+    q = _vector(q, NQ, "q")
+    if not all(math.isfinite(v) for v in q):
+        raise DynamicsError("non-finite input")
+    if 0.15 * abs(q[0]) > RANGE_BASE_BENDING:
+        raise DynamicsError("out of range: segment 1 is bent beyond the workspace")
+    if 0.12 * abs(q[1]) > RANGE_BASE_BENDING:
+        raise DynamicsError("out of range: segment 2 is bent beyond the workspace")
 
 
 # Smallest Cholesky pivot of B that forward_dynamics accepts, relative to the diagonal

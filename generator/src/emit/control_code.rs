@@ -223,6 +223,16 @@ impl Settings {
 /// Everything the C statics template reads.
 pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &StaticsLayout) {
     StaticsOps::of(plan).insert(ctx, " * ");
+    insert_range(
+        ctx,
+        plan,
+        precision,
+        if precision == Precision::F32 {
+            "fabsf"
+        } else {
+            "fabs"
+        },
+    );
     let fs = if precision == Precision::F32 { "f" } else { "" };
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
@@ -296,6 +306,7 @@ pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &Stati
 /// Everything the Rust statics section reads (double precision only).
 pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
     StaticsOps::of(plan).insert(ctx, "/// ");
+    insert_range(ctx, plan, Precision::F64, "libm::fabs");
     let p = Precision::F64;
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
@@ -351,6 +362,7 @@ pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
 /// Everything the Python statics section reads.
 pub fn insert_python(ctx: &mut Context, plan: &Plan) {
     StaticsOps::of(plan).insert(ctx, "    ");
+    insert_range(ctx, plan, Precision::F64, "abs");
     let p = Precision::F64;
     let lengths: Vec<String> = plan.seg_length.iter().map(|l| literal(l, p)).collect();
     let spans: Vec<String> = (0..plan.segments)
@@ -555,4 +567,46 @@ impl StaticsOps {
             ),
         );
     }
+}
+
+/// One segment's range test as code: `|L q_{j,0}|` and `Σ_{i≥1} L |q_{j,i}|/(i+1)`.
+#[derive(Serialize)]
+struct RangeCode {
+    base: String,
+    extra: String,
+}
+
+/// The range check's per-segment expressions, spelled by `abs` and the precision.
+fn range_code(plan: &Plan, precision: Precision, abs: &str) -> Vec<RangeCode> {
+    (0..plan.segments)
+        .map(|j| {
+            let l = &plan.seg_length[j];
+            let at = plan.seg_offset[j];
+            let extra: Vec<String> = (1..plan.seg_coords[j])
+                .map(|i| {
+                    let c = l / Q::from_integer((i as i64 + 1).into());
+                    format!("{} * {abs}(q[{}])", literal(&c, precision), at + i)
+                })
+                .collect();
+            RangeCode {
+                base: format!("{} * {abs}(q[{at}])", literal(l, precision)),
+                extra: if extra.is_empty() {
+                    String::new()
+                } else {
+                    extra.join(" + ")
+                },
+            }
+        })
+        .collect()
+}
+
+/// What every language's range check reads.
+pub fn insert_range(ctx: &mut Context, plan: &Plan, precision: Precision, abs: &str) {
+    let lit = |x: f64| {
+        let q = Q::from_float(x).expect("finite bound");
+        literal(&q, precision)
+    };
+    ctx.insert("range_segments", &range_code(plan, precision, abs));
+    ctx.insert("range_base", &lit(plan.range.base_bending));
+    ctx.insert("range_extra", &lit(plan.range.extra_bending));
 }

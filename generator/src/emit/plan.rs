@@ -48,6 +48,9 @@ pub struct Plan {
     /// The regulators' controlled outputs and the actuators' limits.
     pub outputs: Vec<OutputRow>,
     pub limits: Vec<crate::arm::InputLimits>,
+    /// The arm file's `[sampling]` bounds (or the defaults): the workspace the model is
+    /// tested in, which the emitted range check enforces.
+    pub range: crate::arm::Sampling,
     pub angle_steps: Vec<AngleStep>,
     pub layout: NuLayout,
     /// Size of the scratch array for one moment evaluation (largest count anywhere).
@@ -270,6 +273,7 @@ impl Plan {
             seg_coords,
             outputs,
             limits: arm.input_limits.clone(),
+            range: arm.sampling_or_default(),
             angle_steps,
             layout,
             moment_max,

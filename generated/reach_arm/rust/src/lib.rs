@@ -61,6 +61,33 @@ pub enum DynamicsError {
     /// `B`, `C`, `G`, `A` or the right-hand side is not finite at this state (it
     /// overflowed: `q`, `q̇` or `u` is far outside any arm's range).
     Overflow,
+    /// [`check_range`]: `q` is outside the workspace the model was tested in.
+    OutOfRange,
+}
+/// The workspace the model is tested in, from the arm file's `[sampling]` table: per
+/// segment `j`, base bending `|L_j q_{j,0}| ≤ RANGE_BASE_BENDING` and extra bending
+/// `Σ_{i≥1} L_j |q_{j,i}|/(i+1) ≤ RANGE_EXTRA_BENDING` [rad].
+pub const RANGE_BASE_BENDING: f64 = 3.141592653589793;
+pub const RANGE_EXTRA_BENDING: f64 = 1.5707963267948966;
+/// Whether `q` lies in that workspace: `Err(OutOfRange)` outside it,
+/// `Err(NonFiniteInput)` for a NaN or an infinity. Call it before [`forward_dynamics`]
+/// where a state from a sensor may be anywhere.
+pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
+    if q.iter().any(|v| !v.is_finite()) {
+        return Err(DynamicsError::NonFiniteInput);
+    }
+    if 0.12 * libm::fabs(q[0]) > RANGE_BASE_BENDING
+        || 0.06 * libm::fabs(q[1]) + 0.04 * libm::fabs(q[2]) > RANGE_EXTRA_BENDING
+    {
+        return Err(DynamicsError::OutOfRange);
+    }
+    if 0.1 * libm::fabs(q[3]) > RANGE_BASE_BENDING
+        || 0.05 * libm::fabs(q[4]) + 0.03333333333333333 * libm::fabs(q[5])
+            > RANGE_EXTRA_BENDING
+    {
+        return Err(DynamicsError::OutOfRange);
+    }
+    Ok(())
 }
 /// Smallest Cholesky pivot of `B` that [`forward_dynamics`] accepts, relative to the
 /// diagonal entry it came from (64 units of rounding): below it `B` is singular to

@@ -2269,6 +2269,10 @@ fn invalid_arguments_are_reported() {
     assert!(pose(& q, NSEG, 0.5).iter().all(| v | v.is_nan()));
     assert!(pose(& q, 0, 1.5).iter().all(| v | v.is_nan()));
     assert!(pose(& q, 0, f64::NAN).iter().all(| v | v.is_nan()));
+    assert_eq!(check_range(& q), Ok(()));
+    let mut far = q;
+    far[0] = 1e3;
+    assert_eq!(check_range(& far), Err(DynamicsError::OutOfRange));
     assert_eq!(forward_dynamics(& q, & [1e200; NQ], & u), Err(DynamicsError::Overflow));
     q[0] = f64::NAN;
     assert_eq!(forward_dynamics(& q, & qd, & u), Err(DynamicsError::NonFiniteInput));
