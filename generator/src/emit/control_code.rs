@@ -83,7 +83,6 @@ impl StaticsLayout {
                 ("dq", n),
                 ("cand", n),
                 ("lu", nn),
-                ("lin", 0),
             ],
             linearise.len,
         );
