@@ -16,7 +16,7 @@ use super::report::sample_configurations;
 use super::{progress, CliError};
 use crate::arm::{Arm, MAX_SAMPLES};
 use crate::dynamics::{forward_dynamics, generalized_force};
-use crate::emit::golden::{Golden, SIGMAS};
+use crate::emit::golden::{self, SIGMAS};
 use crate::emit::marker::MARKER;
 use crate::emit::FUNCTIONS;
 use crate::emit::{emit, Language, Languages, Meta, Options, Precision};
@@ -260,7 +260,7 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
         };
         let _ = writeln!(out, "{what:<12} {tag:<8} {msg}");
     }
-    let golden_cases = Golden::compute(&arm).labels.len();
+    let golden_cases = golden::states(&arm).len();
     let _ = writeln!(
         out,
         "\nlargest relative error per function, measured by verify (not by the shipped tests, which\n\
@@ -505,15 +505,9 @@ fn max_diff(a: &[f64], b: &[f64]) -> f64 {
 fn error_table(arm: &Arm, model: &crate::derive::Model, samples: usize) -> Vec<Row> {
     let n = arm.n_coords();
     let k = arm.n_inputs();
-    let golden = Golden::compute(arm);
-    let mut states: Vec<(Vec<f64>, Vec<f64>, Vec<f64>)> = (0..golden.labels.len())
-        .map(|c| {
-            (
-                golden.array("q").values[c].clone(),
-                golden.array("qd").values[c].clone(),
-                golden.array("u").values[c].clone(),
-            )
-        })
+    let mut states: Vec<(Vec<f64>, Vec<f64>, Vec<f64>)> = golden::states(arm)
+        .into_iter()
+        .map(|s| (s.q, s.qd, s.u))
         .collect();
     let ws = arm.sampling_or_default();
     let mut rng = ChaCha8Rng::seed_from_u64(ws.seed ^ 0x5eed);

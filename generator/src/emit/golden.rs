@@ -8,6 +8,7 @@ use crate::control::{default_outputs, Law, Regulator};
 use crate::dynamics::generalized_force;
 use crate::reference::{Kinematics, Reference};
 use crate::statics::{equilibrium, linear_rest_shape, segment_bending, Options, Quadrature};
+use crate::terms::Matrix;
 use num_traits::ToPrimitive;
 
 /// The quantities whose tests judge entries against their largest magnitude over
@@ -124,7 +125,7 @@ fn static_case(
     reference: &Reference,
     c: usize,
     u: &[f64],
-) -> (Vec<f64>, Vec<f64>, bool) {
+) -> Result<(Vec<f64>, Vec<f64>, bool), String> {
     let model = Quadrature(Reference::new(arm, reference.kinematics()));
     let mut scale = 0.0;
     if c > 0 && !u.is_empty() {
@@ -135,14 +136,22 @@ fn static_case(
             }
         }
     }
-    for _ in 0..40 {
+    // Halving ends: below 1e-12 the load is dropped, and gravity alone decides.
+    loop {
         let ueq: Vec<f64> = u.iter().map(|v| scale * v).collect();
-        if let Ok(eq) = equilibrium(&model, &ueq, &Options::default()) {
-            return (ueq, eq.q, eq.stable);
+        match equilibrium(&model, &ueq, &Options::default()) {
+            Ok(eq) => return Ok((ueq, eq.q, eq.stable)),
+            Err(e) if scale == 0.0 => {
+                return Err(format!(
+                    "the arm finds no rest shape under its own weight ({e}): it is too soft \
+                     or too heavy to hold itself (compare each [[segment]]'s bending_stiffness \
+                     with its density and length, and the gravity), and the emitted \
+                     equilibrium and its tests need one"
+                ))
+            }
+            Err(_) => scale = if scale < 1e-12 { 0.0 } else { 0.5 * scale },
         }
-        scale *= 0.5;
     }
-    panic!("the reference finds no equilibrium of the arm under gravity alone")
 }
 
 /// Both regulators at one state.
@@ -161,9 +170,9 @@ struct RegulatorCase {
 /// them, are reached).
 fn regulator_case(
     arm: &Arm,
-    k: &[Vec<f64>],
+    k: &Matrix,
     g: &[f64],
-    a: &[Vec<f64>],
+    a: &Matrix,
     q: &[f64],
     qd: &[f64],
     c: usize,
@@ -202,11 +211,11 @@ fn regulator_case(
             kd.clone(),
         )
         .expect("golden regulator");
-        let ctl = reg.input(&k.to_vec(), g, &a.to_vec(), q, qd);
+        let ctl = reg.input(k, g, a, q, qd);
         let sat = !ctl.allocation.met(&ctl.b, SATURATION);
         (ctl.allocation.u, f64::from(u8::from(sat)))
     };
-    let m = crate::control::s_times(&s, &a.to_vec());
+    let m = crate::control::s_times(&s, a);
     let gram: Vec<Vec<f64>> = m
         .iter()
         .map(|x| {
@@ -233,8 +242,34 @@ fn regulator_case(
     }
 }
 
+/// One test state.
+pub struct State {
+    pub label: String,
+    pub q: Vec<f64>,
+    pub qd: Vec<f64>,
+    pub u: Vec<f64>,
+}
+
+/// The states every shipped test checks (and `verify` measures): the configurations
+/// with fixed, irregular velocities and inputs.
+pub fn states(arm: &Arm) -> Vec<State> {
+    let (n, k) = (arm.n_coords(), arm.n_inputs());
+    configurations(arm)
+        .into_iter()
+        .enumerate()
+        .map(|(c, (label, q))| State {
+            label,
+            q,
+            qd: (0..n).map(|i| 0.7 * pattern(i, c + 5)).collect(),
+            u: (0..k).map(|i| 0.05 * pattern(i, c + 9)).collect(),
+        })
+        .collect()
+}
+
 impl Golden {
-    pub fn compute(arm: &Arm) -> Golden {
+    /// The golden values of `arm`; an error when the reference finds no equilibrium of
+    /// the arm even under gravity alone (an arm too soft to hold itself).
+    pub fn compute(arm: &Arm) -> Result<Golden, String> {
         let reference = Reference::new(arm, Kinematics::Truncated(arm.expansion_order));
         let n = arm.n_coords();
         let k = arm.n_inputs();
@@ -284,9 +319,8 @@ impl Golden {
                 values: Vec::new(),
             })
             .collect();
-        for (c, (label, q)) in configurations(arm).into_iter().enumerate() {
-            let qd: Vec<f64> = (0..n).map(|i| 0.7 * pattern(i, c + 5)).collect();
-            let u: Vec<f64> = (0..k).map(|i| 0.05 * pattern(i, c + 9)).collect();
+        for (c, state) in states(arm).into_iter().enumerate() {
+            let State { label, q, qd, u } = state;
             let t = reference.terms(&q, &qd);
             let rhs = generalized_force(&t, &q, &qd, &u);
             let mut pose = Vec::new();
@@ -314,7 +348,7 @@ impl Golden {
                     })
                 })
                 .collect();
-            let (ueq, qeq, stable) = static_case(arm, &reference, c, &u);
+            let (ueq, qeq, stable) = static_case(arm, &reference, c, &u)?;
             let reg = regulator_case(arm, &t.k, &st.g, &st.a, &q, &qd, c);
             let values = [
                 q.clone(),
@@ -355,7 +389,7 @@ impl Golden {
         if k == 0 {
             arrays.retain(|a| !REGULATOR_ARRAYS.contains(&a.name));
         }
-        Golden { labels, arrays }
+        Ok(Golden { labels, arrays })
     }
 
     /// The names of [`SCALED`] this golden set holds.
