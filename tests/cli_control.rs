@@ -181,3 +181,36 @@ fn impossible_requests_are_exit_2_with_the_reason() {
         assert!(!err.contains("panicked"), "{err}");
     }
 }
+
+#[test]
+fn set_changes_named_fields_for_one_run() {
+    // Without gravity and inputs the arm rests straight; with a heavier payload it
+    // sags further than with the file's own.
+    let flat = json(&["statics", ARM, "--set", "gravity=0,0", "--json"]);
+    assert!(floats(&flat["q"]).iter().all(|v| v.abs() < 1e-12), "{flat}");
+    let own = floats(&json(&["statics", ARM, "--json"])["q"]);
+    let heavy = floats(&json(&["statics", ARM, "--set", "payload.mass=0.2", "--json"])["q"]);
+    assert!(heavy[0].abs() > own[0].abs(), "{own:?} vs {heavy:?}");
+    // A value the arm format refuses names its field, in the file "with --set".
+    let out = arcwright(&["eval", ARM, "--q", "0,0", "--set", "segment[1].length=-1"]);
+    assert_eq!(out.status.code(), Some(2));
+    let err = stderr(&out);
+    assert!(
+        err.contains("twin_tendon.toml (with --set)") && err.contains("segment[1].length"),
+        "{err}"
+    );
+    let out = arcwright(&[
+        "simulate",
+        ARM,
+        "--duration",
+        "0.1",
+        "--set",
+        "actuator[9].max=1",
+    ]);
+    assert_eq!(out.status.code(), Some(2));
+    assert!(
+        stderr(&out).contains("has 4 [[actuator]]"),
+        "{}",
+        stderr(&out)
+    );
+}

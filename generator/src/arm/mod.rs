@@ -4,11 +4,13 @@
 //! downstream ever sees TOML. Numbers are exact rationals because the derivation is
 //! exact: a decimal `0.12` in the file is the rational `3/25`, not a binary float.
 
+mod overrides;
 mod parse;
 mod reserved;
 mod validate;
 
-pub use parse::{parse_arm_file, parse_arm_str, ArmError};
+pub use overrides::{apply_overrides, parse_overrides, Override};
+pub use parse::{parse_arm_file, parse_arm_str, read_arm_text, ArmError};
 pub use validate::check_name;
 
 use num_rational::BigRational;

@@ -45,6 +45,14 @@ impl std::error::Error for ArmError {}
 /// Reads and validates an arm file. Returns the arm and the file text (for
 /// provenance headers). A file that cannot be read is reported at `path:1:1`.
 pub fn parse_arm_file(path: &Path) -> Result<(Arm, String), ArmError> {
+    let text = read_arm_text(path)?;
+    let arm = parse_arm_str(&text, &path.display().to_string())?;
+    Ok((arm, text))
+}
+
+/// The text of an arm file, within the size limit and UTF-8; a file that cannot be
+/// read is reported at `path:1:1`.
+pub fn read_arm_text(path: &Path) -> Result<String, ArmError> {
     let label = path.display().to_string();
     let fail = |message: String| ArmError {
         file: label.clone(),
@@ -69,14 +77,12 @@ pub fn parse_arm_file(path: &Path) -> Result<(Arm, String), ArmError> {
             MAX_ARM_FILE_BYTES >> 20
         )));
     }
-    let text = String::from_utf8(bytes).map_err(|e| {
+    String::from_utf8(bytes).map_err(|e| {
         fail(format!(
             "cannot read arm file: not UTF-8 text (invalid byte at offset {})",
             e.utf8_error().valid_up_to()
         ))
-    })?;
-    let arm = parse_arm_str(&text, &label)?;
-    Ok((arm, text))
+    })
 }
 
 /// Largest arm file read [bytes].

@@ -5,7 +5,7 @@
 //! sampled state, or the arms differ in shape), and by how much each quantity moves
 //! over sampled configurations.
 
-use super::eval::load_arm;
+use super::arm_input::load_arm;
 use super::report::sample_configurations;
 use super::{progress, CliError};
 use crate::arm::{Actuator, Arm, SigmaPoly, MAX_SAMPLES};

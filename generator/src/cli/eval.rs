@@ -1,8 +1,7 @@
 //! `arcwright eval`: the model's numbers at one state, as JSON.
 
+use super::arm_input::load_arm_with;
 use super::{parse_vector, CliError};
-use crate::arm::{parse_arm_file, Arm, MAX_EXPANSION_ORDER};
-use crate::cost::{estimate, Work};
 use crate::derive::derive;
 use crate::dynamics::forward_dynamics;
 use crate::evaluate::Evaluator;
@@ -37,6 +36,10 @@ pub struct EvalArgs {
     /// Expansion order N, overriding the arm file.
     #[arg(long)]
     order: Option<u32>,
+    /// Change named numbers of the arm file for this run, without editing it:
+    /// "payload.mass=0.05,gravity=0,-9.81,segment[2].bending_stiffness=0.01".
+    #[arg(long, value_name = "FIELD=VALUE,…", allow_hyphen_values = true)]
+    set: Option<String>,
     /// Evaluate the numeric quadrature reference of the same order instead.
     #[arg(long, conflicts_with = "exact")]
     reference: bool,
@@ -52,31 +55,8 @@ struct EvalOutput {
     qdd: Vec<f64>,
 }
 
-/// Loads an arm file and applies an order override, with errors for the user; an arm
-/// too large to derive within the budget is refused here, before any algebra.
-pub(crate) fn load_arm(path: &std::path::Path, order: Option<u32>) -> Result<Arm, CliError> {
-    let (arm, _) = parse_arm_file(path).map_err(|e| CliError::Input(e.to_string()))?;
-    for w in &arm.warnings {
-        super::progress::warning(w);
-    }
-    let arm = match order {
-        Some(n) if n > MAX_EXPANSION_ORDER => {
-            return Err(CliError::Input(format!(
-                "--order: {n} is above the supported maximum {MAX_EXPANSION_ORDER}"
-            )))
-        }
-        Some(n) => arm.with_order(n),
-        None => arm,
-    };
-    super::within_budget(
-        &format!("deriving the model of {}", path.display()),
-        estimate(&arm, Work::Derive),
-    )?;
-    Ok(arm)
-}
-
 pub fn run(args: &EvalArgs) -> Result<(), CliError> {
-    let arm = load_arm(&args.arm, args.order)?;
+    let arm = load_arm_with(&args.arm, args.order, args.set.as_deref())?;
     let n = arm.n_coords();
     let q = parse_vector("q", &args.q, n)?;
     let qd = match &args.qd {

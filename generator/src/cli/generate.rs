@@ -1,6 +1,6 @@
 //! `arcwright generate`: C, Rust and Python code for one arm, with cross-check tests.
 
-use super::eval::load_arm;
+use super::arm_input::load_arm;
 use super::CliError;
 use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
 use crate::cost::{estimate, Work};

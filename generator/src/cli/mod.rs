@@ -1,5 +1,6 @@
 //! The `arcwright` command line. Exit codes: 0 ok, 1 a check failed, 2 bad input.
 
+mod arm_input;
 mod compare;
 mod completions;
 mod eval;

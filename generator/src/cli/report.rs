@@ -14,7 +14,7 @@
 //! where the floors `f` are a thousandth of the largest norm over the samples, so a
 //! configuration where `G` happens to vanish does not make the error meaningless.
 
-use super::eval::load_arm;
+use super::arm_input::load_arm;
 use super::plot::{self, Axes, Line, Panel};
 use super::{progress, CliError};
 use crate::arm::{Arm, Sampling, MAX_EXPANSION_ORDER, MAX_SAMPLES};

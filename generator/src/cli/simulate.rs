@@ -1,7 +1,7 @@
 //! `arcwright simulate`: the derived model integrated in time, under constant inputs
 //! or in closed loop with a regulator of [`crate::control`].
 
-use super::eval::load_arm;
+use super::arm_input::load_arm_with;
 use super::plot::{self, Axes, Line, Panel};
 use super::report::default_out_dir;
 use super::{parse_vector, progress, CliError};
@@ -85,6 +85,10 @@ pub struct SimulateArgs {
     /// Expansion order N, overriding the arm file.
     #[arg(long)]
     order: Option<u32>,
+    /// Change named numbers of the arm file for this run, without editing it:
+    /// "payload.mass=0.05,gravity=0,-9.81,segment[2].bending_stiffness=0.01".
+    #[arg(long, value_name = "FIELD=VALUE,…", allow_hyphen_values = true)]
+    set: Option<String>,
     /// Relative error tolerance per step.
     #[arg(long, default_value_t = 1e-8)]
     rtol: f64,
@@ -414,7 +418,7 @@ fn summarise(reg: &Regulator, arm: &Arm, run: &Run, model: &Derived) -> Result<S
 }
 
 pub fn run(args: &SimulateArgs) -> Result<(), CliError> {
-    let arm = load_arm(&args.arm, args.order)?;
+    let arm = load_arm_with(&args.arm, args.order, args.set.as_deref())?;
     let n = arm.n_coords();
     let k = arm.n_inputs();
     let q0 = match &args.q0 {

@@ -1,6 +1,6 @@
 //! `arcwright statics`: the shape the arm rests in under given inputs and gravity.
 
-use super::eval::load_arm;
+use super::arm_input::load_arm_with;
 use super::{parse_inputs, progress, CliError};
 use crate::control::{hold, reach_tip, ControlError, Output, Rest};
 use crate::derive::derive_statics;
@@ -56,6 +56,10 @@ pub struct StaticsArgs {
     /// Expansion order N, overriding the arm file.
     #[arg(long, conflicts_with = "exact")]
     order: Option<u32>,
+    /// Change named numbers of the arm file for this run, without editing it:
+    /// "payload.mass=0.05,gravity=0,-9.81,segment[2].bending_stiffness=0.01".
+    #[arg(long, value_name = "FIELD=VALUE,…", allow_hyphen_values = true)]
+    set: Option<String>,
     /// Solve the untruncated kinematics (quadrature reference) instead.
     #[arg(long)]
     exact: bool,
@@ -92,7 +96,7 @@ struct StaticsOut {
 }
 
 pub fn run(args: &StaticsArgs) -> Result<(), CliError> {
-    let arm = load_arm(&args.arm, args.order)?;
+    let arm = load_arm_with(&args.arm, args.order, args.set.as_deref())?;
     let u = match &args.u {
         Some(t) => parse_inputs(&arm, t)?,
         None => vec![0.0; arm.n_inputs()],

@@ -11,7 +11,7 @@
 //! derived model (the program the emitters print, evaluated in f64) against the
 //! numeric reference of the same truncated kinematics.
 
-use super::eval::load_arm;
+use super::arm_input::load_arm;
 use super::report::sample_configurations;
 use super::{progress, CliError};
 use crate::arm::{Arm, MAX_SAMPLES};
