@@ -3898,7 +3898,7 @@ static void hanging_taper_kernels(const unsigned short uses[], int count, const 
 
 /* K, n x n, row-major.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void hanging_taper_stiffness(double K[])
+void hanging_taper_stiffness(double K[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     K[0] = 0.0017;
     K[1] = 0.0008;
@@ -3969,7 +3969,7 @@ void hanging_taper_stiffness(double K[])
 
 /* D, n x n, row-major.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void hanging_taper_damping(double D[])
+void hanging_taper_damping(double D[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     D[0] = 3e-5;
     D[1] = 1.5e-5;
@@ -5434,7 +5434,7 @@ static void hanging_taper_inertia_part7(const double q[], const double kern[], d
 
 /* B(q), n x n, row-major. Scratch: work[0 .. HANGING_TAPER_INERTIA_WORK), 1034 reals.
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_inertia_ws(const double q[], double B[], double work[])
+void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 678 */
@@ -5538,7 +5538,7 @@ void hanging_taper_inertia_ws(const double q[], double B[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_inertia_ws with its scratch on this function's stack.
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_inertia(const double q[], double B[])
+void hanging_taper_inertia(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_INERTIA_WORK];
     hanging_taper_inertia_ws(q, B, work);
@@ -5744,7 +5744,7 @@ static void hanging_taper_gravity_part2(const double q[], const double cphi[], c
 
 /* G(q) = dU_g/dq. Scratch: work[0 .. HANGING_TAPER_GRAVITY_WORK), 327 reals.
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity_ws(const double q[], double G[], double work[])
+void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 128 */
@@ -5790,7 +5790,7 @@ void hanging_taper_gravity_ws(const double q[], double G[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_gravity_ws with its scratch on this function's stack.
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity(const double q[], double G[])
+void hanging_taper_gravity(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_GRAVITY_WORK];
     hanging_taper_gravity_ws(q, G, work);
@@ -5810,7 +5810,7 @@ static const unsigned short hanging_taper_actuation_rows[156] = {
 
 /* A(q), n x k, row-major. Scratch: work[0 .. HANGING_TAPER_ACTUATION_WORK), 248 reals.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_actuation_ws(const double q[], double A[], double work[])
+void hanging_taper_actuation_ws(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 78 */
@@ -5990,7 +5990,7 @@ void hanging_taper_actuation_ws(const double q[], double A[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_actuation_ws with its scratch on this function's stack.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_actuation(const double q[], double A[])
+void hanging_taper_actuation(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU])
 {
     double work[HANGING_TAPER_ACTUATION_WORK];
     hanging_taper_actuation_ws(q, A, work);
@@ -6010,7 +6010,7 @@ static const unsigned short hanging_taper_tip_jacobian_rows[156] = {
 
 /* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. HANGING_TAPER_TIP_JACOBIAN_WORK), 248 reals.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[])
+void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 78 */
@@ -6190,7 +6190,7 @@ void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_tip_jacobian_ws with its scratch on this function's stack.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_tip_jacobian(const double q[], double J[])
+void hanging_taper_tip_jacobian(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_TIP_JACOBIAN_WORK];
     hanging_taper_tip_jacobian_ws(q, J, work);
@@ -6678,7 +6678,7 @@ static void hanging_taper_gravity_jacobian_part4(const double q[], const double 
 
 /* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Scratch: work[0 .. HANGING_TAPER_GRAVITY_JACOBIAN_WORK), 484 reals.
  * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double work[])
+void hanging_taper_gravity_jacobian_ws(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 170 */
@@ -6782,7 +6782,7 @@ void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double wor
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_gravity_jacobian_ws with its scratch on this function's stack.
  * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity_jacobian(const double q[], double dG[])
+void hanging_taper_gravity_jacobian(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_GRAVITY_JACOBIAN_WORK];
     hanging_taper_gravity_jacobian_ws(q, dG, work);
@@ -6803,7 +6803,7 @@ static const unsigned short hanging_taper_potential_energy_rows[170] = {
 
 /* U = U_g + 1/2 q^T K q. Scratch: work[0 .. HANGING_TAPER_POTENTIAL_ENERGY_WORK), 255 reals.
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
-double hanging_taper_potential_energy_ws(const double q[], double work[])
+double hanging_taper_potential_energy_ws(const double q[HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 85 */
@@ -6910,7 +6910,7 @@ double hanging_taper_potential_energy_ws(const double q[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_potential_energy_ws with its scratch on this function's stack.
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig. */
-double hanging_taper_potential_energy(const double q[])
+double hanging_taper_potential_energy(const double q[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_POTENTIAL_ENERGY_WORK];
     return hanging_taper_potential_energy_ws(q, work);
@@ -9486,7 +9486,7 @@ static void hanging_taper_terms_part16(const double q[], const double qd[], cons
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. HANGING_TAPER_TERMS_WORK), 1508 reals.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
+void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 877 */
@@ -9761,7 +9761,7 @@ void hanging_taper_terms_ws(const double q[], const double qd[], double B[], dou
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_terms_ws with its scratch on this function's stack.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_terms(const double q[], const double qd[], double B[], double C[], double G[])
+void hanging_taper_terms(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_TERMS_WORK];
     hanging_taper_terms_ws(q, qd, B, C, G, work);
@@ -9771,7 +9771,7 @@ void hanging_taper_terms(const double q[], const double qd[], double B[], double
 
 /* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. HANGING_TAPER_KINETIC_ENERGY_WORK), 1098 reals.
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
-double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[])
+double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[])
 {
     double *const B = &work[0]; /* 64 */
     double t = 0.0;
@@ -9792,7 +9792,7 @@ double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], doub
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_kinetic_energy_ws with its scratch on this function's stack.
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig. */
-double hanging_taper_kinetic_energy(const double q[], const double qd[])
+double hanging_taper_kinetic_energy(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_KINETIC_ENERGY_WORK];
     return hanging_taper_kinetic_energy_ws(q, qd, work);
@@ -9802,7 +9802,7 @@ double hanging_taper_kinetic_energy(const double q[], const double qd[])
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. HANGING_TAPER_CORIOLIS_WORK), 1580 reals.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[])
+void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     double *const B = &work[0]; /* 64 */
     double *const G = &work[64]; /* 8 */
@@ -9813,7 +9813,7 @@ void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_coriolis_ws with its scratch on this function's stack.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_coriolis(const double q[], const double qd[], double C[])
+void hanging_taper_coriolis(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_CORIOLIS_WORK];
     hanging_taper_coriolis_ws(q, qd, C, work);
@@ -9823,7 +9823,7 @@ void hanging_taper_coriolis(const double q[], const double qd[], double C[])
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
  * Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig. */
-static void hanging_taper_pose_segment0(const double q[], double sigma, double pose[3], double work[])
+static void hanging_taper_pose_segment0(const double q[HANGING_TAPER_NQ], double sigma, double pose[3], double work[])
 {
     double *const pnu = &work[0]; /* 26 */
     hanging_taper_moments(0.1 * q[0] * sigma, 13, &pnu[0], &pnu[13]);
@@ -10195,7 +10195,7 @@ static void hanging_taper_pose_segment1_part2(const double q[], double sigma, co
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
  * Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig. */
-static void hanging_taper_pose_segment1(const double q[], double sigma, double pose[3], double work[])
+static void hanging_taper_pose_segment1(const double q[HANGING_TAPER_NQ], double sigma, double pose[3], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const pnu = &work[170]; /* 26 */
@@ -10494,7 +10494,7 @@ static void hanging_taper_pose_segment2_part2(const double q[], double sigma, co
 
 /* Backbone pose [x, y, angle] of segment 2 at sigma.
  * Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig. */
-static void hanging_taper_pose_segment2(const double q[], double sigma, double pose[3], double work[])
+static void hanging_taper_pose_segment2(const double q[HANGING_TAPER_NQ], double sigma, double pose[3], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const pnu = &work[170]; /* 18 */
@@ -10886,7 +10886,7 @@ static void hanging_taper_actuation_jacobian_part4(const double q[], const doubl
 
 /* dA_ik/dq_x at dA[(x * n + i) * k + c]: the statics functions' d(A u)/dq.
  * Operations: 1360 add, 2044 mul, 6 div, 0 sqrt, 10 trig. */
-static void hanging_taper_actuation_jacobian_ws(const double q[], double dA[], double work[])
+static void hanging_taper_actuation_jacobian_ws(const double q[HANGING_TAPER_NQ], double dA[], double work[])
 {
     double *const nu = &work[0]; /* 170 */
     double *const kern = &work[170]; /* 106 */
@@ -11128,7 +11128,7 @@ static void hanging_taper_actuation_jacobian_ws(const double q[], double dA[], d
     dA[191] = 0.0;
 }
 
-void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
+void hanging_taper_pose_ws(const double q[HANGING_TAPER_NQ], int segment, double sigma, double pose[3],
     double work[])
 {
     if (segment < 0 || segment >= HANGING_TAPER_NSEG || !hanging_taper_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
@@ -11146,14 +11146,14 @@ void hanging_taper_pose_ws(const double q[], int segment, double sigma, double p
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3])
+void hanging_taper_pose(const double q[HANGING_TAPER_NQ], int segment, double sigma, double pose[3])
 {
     double work[HANGING_TAPER_POSE_WORK];
     hanging_taper_pose_ws(q, segment, sigma, pose, work);
 }
 #endif
 
-hanging_taper_status hanging_taper_check_range(const double q[])
+hanging_taper_status hanging_taper_check_range(const double q[HANGING_TAPER_NQ])
 {
     int i;
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
@@ -11177,7 +11177,7 @@ hanging_taper_status hanging_taper_check_range(const double q[])
 }
 
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
-static void hanging_taper_fill_nan(double qdd[])
+static void hanging_taper_fill_nan(double qdd[HANGING_TAPER_NQ])
 {
     int i;
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
@@ -11185,8 +11185,8 @@ static void hanging_taper_fill_nan(double qdd[])
     }
 }
 
-hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[])
+hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
+    double qdd[HANGING_TAPER_NQ], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
@@ -11319,8 +11319,8 @@ hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const d
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[])
+hanging_taper_status hanging_taper_forward_dynamics(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
+    double qdd[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_FORWARD_DYNAMICS_WORK];
     return hanging_taper_forward_dynamics_ws(q, qd, u, qdd, work);
@@ -11484,7 +11484,7 @@ static int hanging_taper_all_finite(const double v[], int len)
     return 1;
 }
 
-hanging_taper_status hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[])
+hanging_taper_status hanging_taper_static_residual_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
      * work[0 .. HANGING_TAPER_STATIC_RESIDUAL_WORK), 415 reals. */
@@ -11515,14 +11515,14 @@ hanging_taper_status hanging_taper_static_residual_ws(const double q[], const do
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[])
+hanging_taper_status hanging_taper_static_residual(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_STATIC_RESIDUAL_WORK];
     return hanging_taper_static_residual_ws(q, u, R, work);
 }
 #endif
 
-hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+hanging_taper_status hanging_taper_static_jacobian_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     /* K, dA and the scratch of gravity_jacobian and the actuation derivative in
      * work[0 .. HANGING_TAPER_STATIC_JACOBIAN_WORK), 740 reals. */
@@ -11553,7 +11553,7 @@ hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const do
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[])
+hanging_taper_status hanging_taper_static_jacobian(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_STATIC_JACOBIAN_WORK];
     return hanging_taper_static_jacobian_ws(q, u, J, work);
@@ -11565,8 +11565,8 @@ hanging_taper_status hanging_taper_static_jacobian(const double q[], const doubl
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A, dA and their scratch live in work,
  * 708 reals. Returns 0 when r or jac is not finite. */
-static int hanging_taper_linearise(const double q[], const double u[], double lambda,
-    const double K[], double r[], double jac[], double load[], double *scale,
+static int hanging_taper_linearise(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double lambda,
+    const double K[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
 {
     double *const G = &work[0];
@@ -11616,7 +11616,7 @@ static int hanging_taper_linearise(const double q[], const double u[], double la
     return hanging_taper_all_finite(jac, HANGING_TAPER_NQ * HANGING_TAPER_NQ);
 }
 
-hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
+hanging_taper_status hanging_taper_equilibrium_ws(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
@@ -11778,7 +11778,7 @@ hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], 
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info)
+hanging_taper_status hanging_taper_equilibrium(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info)
 {
     double work[HANGING_TAPER_EQUILIBRIUM_WORK];
     return hanging_taper_equilibrium_ws(u, q, info, work);
@@ -11808,7 +11808,7 @@ static void hanging_taper_select(const double v[], int stride, double y[], int y
 /* The free inputs' optimum with the fixed ones held: H_FF u_F = f_F - H_FB u_B, into
  * opt (a copy of u elsewhere). sub and rhs: scratch of NU^2 and NU reals. Returns 0
  * when H_FF is not positive definite. */
-static int hanging_taper_free_optimum(const double hess[], const double f[], const double u[],
+static int hanging_taper_free_optimum(const double hess[], const double f[], const double u[HANGING_TAPER_NU],
     const unsigned char fixed[], double opt[], double sub[], double rhs[])
 {
     int free_at[HANGING_TAPER_NU];
@@ -11845,8 +11845,8 @@ static int hanging_taper_free_optimum(const double hess[], const double f[], con
     return 1;
 }
 
-hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[], double work[])
+hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
+    const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
@@ -12073,8 +12073,8 @@ hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const doub
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[])
+hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
+    const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU])
 {
     double work[HANGING_TAPER_REGULATE_WORK];
     return hanging_taper_regulate_ws(law, target, kp, kd, q, qd, u, work);

@@ -102,7 +102,7 @@ typedef enum hanging_taper_status {
  * HANGING_TAPER_ERR_NONFINITE_INPUT. Built with ARCWRIGHT_CHECK_RANGE defined,
  * hanging_taper_forward_dynamics checks it first and returns its code.
  */
-hanging_taper_status hanging_taper_check_range(const double q[]);
+hanging_taper_status hanging_taper_check_range(const double q[HANGING_TAPER_NQ]);
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -119,7 +119,7 @@ hanging_taper_status hanging_taper_check_range(const double q[]);
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
  * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_inertia_ws(const double q[], double B[], double work[]);
+void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
@@ -127,31 +127,31 @@ void hanging_taper_inertia_ws(const double q[], double B[], double work[]);
  * B' - 2C is skew-symmetric. The generalized force is C q'.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
+void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
  * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_gravity_ws(const double q[], double G[], double work[]);
+void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void hanging_taper_stiffness(double K[]);
+void hanging_taper_stiffness(double K[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 
 /**
  * Damping matrix D, n x n, constant: Rayleigh dissipation 1/2 q'^T D q'.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void hanging_taper_damping(double D[]);
+void hanging_taper_damping(double D[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_actuation_ws(const double q[], double A[], double work[]);
+void hanging_taper_actuation_ws(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU], double work[]);
 
 /**
  * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
@@ -165,14 +165,14 @@ void hanging_taper_actuation_ws(const double q[], double A[], double work[]);
  * Segment 1: Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig.
  * Segment 2: Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_pose_ws(const double q[], int segment, double sigma, double pose[3],
+void hanging_taper_pose_ws(const double q[HANGING_TAPER_NQ], int segment, double sigma, double pose[3],
     double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
  * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[]);
+void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ], double work[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as hanging_taper_inertia,
@@ -182,20 +182,20 @@ void hanging_taper_tip_jacobian_ws(const double q[], double J[], double work[]);
  * moments and everything B, C and G share are computed once.
  * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_terms_ws(const double q[], const double qd[], double B[], double C[],
-    double G[], double work[]);
+void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
+    double G[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
  * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
  */
-double hanging_taper_kinetic_energy_ws(const double q[], const double qd[], double work[]);
+double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
  * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
  */
-double hanging_taper_potential_energy_ws(const double q[], double work[]);
+double hanging_taper_potential_energy_ws(const double q[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -209,14 +209,14 @@ double hanging_taper_potential_energy_ws(const double q[], double work[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 18495 add, 23201 mul, 56 div, 8 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[]);
+hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
+    double qdd[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
  * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig.
  */
-void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double work[]);
+void hanging_taper_gravity_jacobian_ws(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
@@ -224,7 +224,7 @@ void hanging_taper_gravity_jacobian_ws(const double q[], double dG[], double wor
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
  * Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+hanging_taper_status hanging_taper_static_residual_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -233,7 +233,7 @@ hanging_taper_status hanging_taper_static_residual_ws(const double q[], const do
  * hanging_taper_static_residual.
  * Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+hanging_taper_status hanging_taper_static_jacobian_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /** What hanging_taper_equilibrium did. */
 typedef struct {
@@ -279,7 +279,7 @@ typedef struct {
  * Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
  * Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
  */
-hanging_taper_status hanging_taper_equilibrium_ws(const double u[], double q[], hanging_taper_equilibrium_info *info,
+hanging_taper_status hanging_taper_equilibrium_ws(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
     double work[]);
 
 /** Number of controlled outputs y = S q of hanging_taper_regulate. */
@@ -316,8 +316,8 @@ typedef enum hanging_taper_law {
  * Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
-hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[], double work[]);
+hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
+    const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU], double work[]);
 
 /*
  * Caller-provided scratch. Every function above that takes q takes one more argument,
@@ -352,24 +352,24 @@ hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const doub
  * ARCWRIGHT_PLAIN_FUNCTIONS when compiling hanging_taper.c and the code that calls them. A
  * firmware built with a stack limit (-Wstack-usage=) should leave them out.
  */
-void hanging_taper_inertia(const double q[], double B[]);
-void hanging_taper_coriolis(const double q[], const double qd[], double C[]);
-void hanging_taper_gravity(const double q[], double G[]);
-void hanging_taper_actuation(const double q[], double A[]);
-void hanging_taper_pose(const double q[], int segment, double sigma, double pose[3]);
-void hanging_taper_tip_jacobian(const double q[], double J[]);
-void hanging_taper_terms(const double q[], const double qd[], double B[], double C[],
-    double G[]);
-double hanging_taper_kinetic_energy(const double q[], const double qd[]);
-double hanging_taper_potential_energy(const double q[]);
-hanging_taper_status hanging_taper_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[]);
-void hanging_taper_gravity_jacobian(const double q[], double dG[]);
-hanging_taper_status hanging_taper_static_residual(const double q[], const double u[], double R[]);
-hanging_taper_status hanging_taper_static_jacobian(const double q[], const double u[], double J[]);
-hanging_taper_status hanging_taper_equilibrium(const double u[], double q[], hanging_taper_equilibrium_info *info);
-hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[]);
+void hanging_taper_inertia(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_coriolis(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_gravity(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ]);
+void hanging_taper_actuation(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU]);
+void hanging_taper_pose(const double q[HANGING_TAPER_NQ], int segment, double sigma, double pose[3]);
+void hanging_taper_tip_jacobian(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ]);
+void hanging_taper_terms(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
+    double G[HANGING_TAPER_NQ]);
+double hanging_taper_kinetic_energy(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ]);
+double hanging_taper_potential_energy(const double q[HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_forward_dynamics(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
+    double qdd[HANGING_TAPER_NQ]);
+void hanging_taper_gravity_jacobian(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_static_residual(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_static_jacobian(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_equilibrium(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info);
+hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
+    const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU]);
 #endif
 
 #ifdef __cplusplus

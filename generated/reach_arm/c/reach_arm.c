@@ -2147,7 +2147,7 @@ static void reach_arm_kernels(const unsigned short uses[], int count, const doub
 
 /* K, n x n, row-major.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_stiffness(double K[])
+void reach_arm_stiffness(double K[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     K[0] = 0.00144;
     K[1] = 0.00072;
@@ -2190,7 +2190,7 @@ void reach_arm_stiffness(double K[])
 
 /* D, n x n, row-major.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_damping(double D[])
+void reach_arm_damping(double D[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     D[0] = 2.4e-5;
     D[1] = 1.2e-5;
@@ -3466,7 +3466,7 @@ static void reach_arm_inertia_part6(const double q[], const double kern[], doubl
 
 /* B(q), n x n, row-major. Scratch: work[0 .. REACH_ARM_INERTIA_WORK), 837 reals.
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_inertia_ws(const double q[], double B[], double work[])
+void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const kern = &work[120]; /* 556 */
@@ -3531,7 +3531,7 @@ void reach_arm_inertia_ws(const double q[], double B[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_inertia_ws with its scratch on this function's stack.
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_inertia(const double q[], double B[])
+void reach_arm_inertia(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_INERTIA_WORK];
     reach_arm_inertia_ws(q, B, work);
@@ -3554,7 +3554,7 @@ static const unsigned short reach_arm_gravity_rows[212] = {
 
 /* G(q) = dU_g/dq. Scratch: work[0 .. REACH_ARM_GRAVITY_WORK), 226 reals.
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_gravity_ws(const double q[], double G[], double work[])
+void reach_arm_gravity_ws(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const kern = &work[120]; /* 106 */
@@ -3749,7 +3749,7 @@ void reach_arm_gravity_ws(const double q[], double G[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_gravity_ws with its scratch on this function's stack.
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_gravity(const double q[], double G[])
+void reach_arm_gravity(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ])
 {
     double work[REACH_ARM_GRAVITY_WORK];
     reach_arm_gravity_ws(q, G, work);
@@ -3759,7 +3759,7 @@ void reach_arm_gravity(const double q[], double G[])
 
 /* A(q), n x k, row-major. Scratch: none; work may be a null pointer (REACH_ARM_ACTUATION_WORK is 1 only because a C array cannot be empty).
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_actuation_ws(const double q[], double A[], double work[])
+void reach_arm_actuation_ws(const double q[REACH_ARM_NQ], double A[REACH_ARM_NQ * REACH_ARM_NU], double work[])
 {
     (void)work;
     (void)q;
@@ -3793,7 +3793,7 @@ void reach_arm_actuation_ws(const double q[], double A[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_actuation_ws with its scratch on this function's stack.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void reach_arm_actuation(const double q[], double A[])
+void reach_arm_actuation(const double q[REACH_ARM_NQ], double A[REACH_ARM_NQ * REACH_ARM_NU])
 {
     reach_arm_actuation_ws(q, A, 0); /* needs no scratch */
 }
@@ -3810,7 +3810,7 @@ static const unsigned short reach_arm_tip_jacobian_rows[116] = {
 
 /* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. REACH_ARM_TIP_JACOBIAN_WORK), 178 reals.
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[])
+void reach_arm_tip_jacobian_ws(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const kern = &work[120]; /* 58 */
@@ -3955,7 +3955,7 @@ void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_tip_jacobian_ws with its scratch on this function's stack.
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_tip_jacobian(const double q[], double J[])
+void reach_arm_tip_jacobian(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM_NQ])
 {
     double work[REACH_ARM_TIP_JACOBIAN_WORK];
     reach_arm_tip_jacobian_ws(q, J, work);
@@ -4394,7 +4394,7 @@ static void reach_arm_gravity_jacobian_part4(const double q[], const double kern
 
 /* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Scratch: work[0 .. REACH_ARM_GRAVITY_JACOBIAN_WORK), 382 reals.
  * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[])
+void reach_arm_gravity_jacobian_ws(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const kern = &work[120]; /* 140 */
@@ -4460,7 +4460,7 @@ void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_gravity_jacobian_ws with its scratch on this function's stack.
  * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_gravity_jacobian(const double q[], double dG[])
+void reach_arm_gravity_jacobian(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_GRAVITY_JACOBIAN_WORK];
     reach_arm_gravity_jacobian_ws(q, dG, work);
@@ -4480,7 +4480,7 @@ static const unsigned short reach_arm_potential_energy_rows[150] = {
 
 /* U = U_g + 1/2 q^T K q. Scratch: work[0 .. REACH_ARM_POTENTIAL_ENERGY_WORK), 195 reals.
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
-double reach_arm_potential_energy_ws(const double q[], double work[])
+double reach_arm_potential_energy_ws(const double q[REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const kern = &work[120]; /* 75 */
@@ -4576,7 +4576,7 @@ double reach_arm_potential_energy_ws(const double q[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_potential_energy_ws with its scratch on this function's stack.
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig. */
-double reach_arm_potential_energy(const double q[])
+double reach_arm_potential_energy(const double q[REACH_ARM_NQ])
 {
     double work[REACH_ARM_POTENTIAL_ENERGY_WORK];
     return reach_arm_potential_energy_ws(q, work);
@@ -6826,7 +6826,7 @@ static void reach_arm_terms_part13(const double q[], const double qd[], const do
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. REACH_ARM_TERMS_WORK), 1208 reals.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
+void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const kern = &work[120]; /* 710 */
@@ -6973,7 +6973,7 @@ void reach_arm_terms_ws(const double q[], const double qd[], double B[], double 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_terms_ws with its scratch on this function's stack.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_terms(const double q[], const double qd[], double B[], double C[], double G[])
+void reach_arm_terms(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double G[REACH_ARM_NQ])
 {
     double work[REACH_ARM_TERMS_WORK];
     reach_arm_terms_ws(q, qd, B, C, G, work);
@@ -6983,7 +6983,7 @@ void reach_arm_terms(const double q[], const double qd[], double B[], double C[]
 
 /* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. REACH_ARM_KINETIC_ENERGY_WORK), 873 reals.
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
-double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[])
+double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[])
 {
     double *const B = &work[0]; /* 36 */
     double t = 0.0;
@@ -7004,7 +7004,7 @@ double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double w
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_kinetic_energy_ws with its scratch on this function's stack.
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig. */
-double reach_arm_kinetic_energy(const double q[], const double qd[])
+double reach_arm_kinetic_energy(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ])
 {
     double work[REACH_ARM_KINETIC_ENERGY_WORK];
     return reach_arm_kinetic_energy_ws(q, qd, work);
@@ -7014,7 +7014,7 @@ double reach_arm_kinetic_energy(const double q[], const double qd[])
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. REACH_ARM_CORIOLIS_WORK), 1250 reals.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[])
+void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     double *const B = &work[0]; /* 36 */
     double *const G = &work[36]; /* 6 */
@@ -7025,7 +7025,7 @@ void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], doub
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_coriolis_ws with its scratch on this function's stack.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig. */
-void reach_arm_coriolis(const double q[], const double qd[], double C[])
+void reach_arm_coriolis(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_CORIOLIS_WORK];
     reach_arm_coriolis_ws(q, qd, C, work);
@@ -7035,7 +7035,7 @@ void reach_arm_coriolis(const double q[], const double qd[], double C[])
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
  * Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig. */
-static void reach_arm_pose_segment0(const double q[], double sigma, double pose[3], double work[])
+static void reach_arm_pose_segment0(const double q[REACH_ARM_NQ], double sigma, double pose[3], double work[])
 {
     double *const pnu = &work[0]; /* 26 */
     reach_arm_moments(0.12 * q[0] * sigma, 13, &pnu[0], &pnu[13]);
@@ -7401,7 +7401,7 @@ static void reach_arm_pose_segment1_part2(const double q[], double sigma, const 
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
  * Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig. */
-static void reach_arm_pose_segment1(const double q[], double sigma, double pose[3], double work[])
+static void reach_arm_pose_segment1(const double q[REACH_ARM_NQ], double sigma, double pose[3], double work[])
 {
     double *const nu = &work[0]; /* 120 */
     double *const pnu = &work[120]; /* 26 */
@@ -7436,7 +7436,7 @@ static void reach_arm_pose_segment1(const double q[], double sigma, double pose[
         + 0.03333333333333333 * t[23] * q[5];
 }
 
-void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
+void reach_arm_pose_ws(const double q[REACH_ARM_NQ], int segment, double sigma, double pose[3],
     double work[])
 {
     if (segment < 0 || segment >= REACH_ARM_NSEG || !reach_arm_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
@@ -7453,14 +7453,14 @@ void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-void reach_arm_pose(const double q[], int segment, double sigma, double pose[3])
+void reach_arm_pose(const double q[REACH_ARM_NQ], int segment, double sigma, double pose[3])
 {
     double work[REACH_ARM_POSE_WORK];
     reach_arm_pose_ws(q, segment, sigma, pose, work);
 }
 #endif
 
-reach_arm_status reach_arm_check_range(const double q[])
+reach_arm_status reach_arm_check_range(const double q[REACH_ARM_NQ])
 {
     int i;
     for (i = 0; i < REACH_ARM_NQ; ++i) {
@@ -7480,7 +7480,7 @@ reach_arm_status reach_arm_check_range(const double q[])
 }
 
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
-static void reach_arm_fill_nan(double qdd[])
+static void reach_arm_fill_nan(double qdd[REACH_ARM_NQ])
 {
     int i;
     for (i = 0; i < REACH_ARM_NQ; ++i) {
@@ -7488,8 +7488,8 @@ static void reach_arm_fill_nan(double qdd[])
     }
 }
 
-reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[])
+reach_arm_status reach_arm_forward_dynamics_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
+    double qdd[REACH_ARM_NQ], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
@@ -7622,8 +7622,8 @@ reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[])
+reach_arm_status reach_arm_forward_dynamics(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
+    double qdd[REACH_ARM_NQ])
 {
     double work[REACH_ARM_FORWARD_DYNAMICS_WORK];
     return reach_arm_forward_dynamics_ws(q, qd, u, qdd, work);
@@ -7783,7 +7783,7 @@ static int reach_arm_all_finite(const double v[], int len)
     return 1;
 }
 
-reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[])
+reach_arm_status reach_arm_static_residual_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
      * work[0 .. REACH_ARM_STATIC_RESIDUAL_WORK), 286 reals. */
@@ -7814,14 +7814,14 @@ reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[]
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[])
+reach_arm_status reach_arm_static_residual(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ])
 {
     double work[REACH_ARM_STATIC_RESIDUAL_WORK];
     return reach_arm_static_residual_ws(q, u, R, work);
 }
 #endif
 
-reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+reach_arm_status reach_arm_static_jacobian_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     /* K and the scratch of gravity_jacobian in
      * work[0 .. REACH_ARM_STATIC_JACOBIAN_WORK), 418 reals. */
@@ -7847,7 +7847,7 @@ reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[]
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[])
+reach_arm_status reach_arm_static_jacobian(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_STATIC_JACOBIAN_WORK];
     return reach_arm_static_jacobian_ws(q, u, J, work);
@@ -7859,8 +7859,8 @@ reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], d
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
  * 412 reals. Returns 0 when r or jac is not finite. */
-static int reach_arm_linearise(const double q[], const double u[], double lambda,
-    const double K[], double r[], double jac[], double load[], double *scale,
+static int reach_arm_linearise(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double lambda,
+    const double K[REACH_ARM_NQ * REACH_ARM_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
 {
     double *const G = &work[0];
@@ -7905,7 +7905,7 @@ static int reach_arm_linearise(const double q[], const double u[], double lambda
     return reach_arm_all_finite(jac, REACH_ARM_NQ * REACH_ARM_NQ);
 }
 
-reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
+reach_arm_status reach_arm_equilibrium_ws(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
@@ -8067,7 +8067,7 @@ reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_ar
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info)
+reach_arm_status reach_arm_equilibrium(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info)
 {
     double work[REACH_ARM_EQUILIBRIUM_WORK];
     return reach_arm_equilibrium_ws(u, q, info, work);
@@ -8095,7 +8095,7 @@ static void reach_arm_select(const double v[], int stride, double y[], int ystri
 /* The free inputs' optimum with the fixed ones held: H_FF u_F = f_F - H_FB u_B, into
  * opt (a copy of u elsewhere). sub and rhs: scratch of NU^2 and NU reals. Returns 0
  * when H_FF is not positive definite. */
-static int reach_arm_free_optimum(const double hess[], const double f[], const double u[],
+static int reach_arm_free_optimum(const double hess[], const double f[], const double u[REACH_ARM_NU],
     const unsigned char fixed[], double opt[], double sub[], double rhs[])
 {
     int free_at[REACH_ARM_NU];
@@ -8132,8 +8132,8 @@ static int reach_arm_free_optimum(const double hess[], const double f[], const d
     return 1;
 }
 
-reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[], double work[])
+reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
+    const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
@@ -8360,8 +8360,8 @@ reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[],
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[])
+reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
+    const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU])
 {
     double work[REACH_ARM_REGULATE_WORK];
     return reach_arm_regulate_ws(law, target, kp, kd, q, qd, u, work);

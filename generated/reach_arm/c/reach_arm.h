@@ -102,7 +102,7 @@ typedef enum reach_arm_status {
  * REACH_ARM_ERR_NONFINITE_INPUT. Built with ARCWRIGHT_CHECK_RANGE defined,
  * reach_arm_forward_dynamics checks it first and returns its code.
  */
-reach_arm_status reach_arm_check_range(const double q[]);
+reach_arm_status reach_arm_check_range(const double q[REACH_ARM_NQ]);
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -119,7 +119,7 @@ reach_arm_status reach_arm_check_range(const double q[]);
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
  * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_inertia_ws(const double q[], double B[], double work[]);
+void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
@@ -127,31 +127,31 @@ void reach_arm_inertia_ws(const double q[], double B[], double work[]);
  * B' - 2C is skew-symmetric. The generalized force is C q'.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
+void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
  * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_gravity_ws(const double q[], double G[], double work[]);
+void reach_arm_gravity_ws(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void reach_arm_stiffness(double K[]);
+void reach_arm_stiffness(double K[REACH_ARM_NQ * REACH_ARM_NQ]);
 
 /**
  * Damping matrix D, n x n, constant: Rayleigh dissipation 1/2 q'^T D q'.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void reach_arm_damping(double D[]);
+void reach_arm_damping(double D[REACH_ARM_NQ * REACH_ARM_NQ]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void reach_arm_actuation_ws(const double q[], double A[], double work[]);
+void reach_arm_actuation_ws(const double q[REACH_ARM_NQ], double A[REACH_ARM_NQ * REACH_ARM_NU], double work[]);
 
 /**
  * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
@@ -164,14 +164,14 @@ void reach_arm_actuation_ws(const double q[], double A[], double work[]);
  * Segment 0: Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
  * Segment 1: Operations: 452 add, 807 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_pose_ws(const double q[], int segment, double sigma, double pose[3],
+void reach_arm_pose_ws(const double q[REACH_ARM_NQ], int segment, double sigma, double pose[3],
     double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
  * Operations: 697 add, 1099 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[]);
+void reach_arm_tip_jacobian_ws(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM_NQ], double work[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as reach_arm_inertia,
@@ -181,20 +181,20 @@ void reach_arm_tip_jacobian_ws(const double q[], double J[], double work[]);
  * moments and everything B, C and G share are computed once.
  * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_terms_ws(const double q[], const double qd[], double B[], double C[],
-    double G[], double work[]);
+void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
+    double G[REACH_ARM_NQ], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
  * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
  */
-double reach_arm_kinetic_energy_ws(const double q[], const double qd[], double work[]);
+double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
  * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
  */
-double reach_arm_potential_energy_ws(const double q[], double work[]);
+double reach_arm_potential_energy_ws(const double q[REACH_ARM_NQ], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -208,14 +208,14 @@ double reach_arm_potential_energy_ws(const double q[], double work[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[]);
+reach_arm_status reach_arm_forward_dynamics_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
+    double qdd[REACH_ARM_NQ], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
  * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
  */
-void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[]);
+void reach_arm_gravity_jacobian_ws(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
@@ -223,7 +223,7 @@ void reach_arm_gravity_jacobian_ws(const double q[], double dG[], double work[])
  * REACH_ARM_ERR_NONFINITE_RESULT.
  * Operations: 1279 add, 1800 mul, 4 div, 0 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+reach_arm_status reach_arm_static_residual_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -232,7 +232,7 @@ reach_arm_status reach_arm_static_residual_ws(const double q[], const double u[]
  * reach_arm_static_residual.
  * Operations: 1805 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+reach_arm_status reach_arm_static_jacobian_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /** What reach_arm_equilibrium did. */
 typedef struct {
@@ -278,7 +278,7 @@ typedef struct {
  * Operations per Newton iteration, at most: 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig.
  */
-reach_arm_status reach_arm_equilibrium_ws(const double u[], double q[], reach_arm_equilibrium_info *info,
+reach_arm_status reach_arm_equilibrium_ws(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info,
     double work[]);
 
 /** Number of controlled outputs y = S q of reach_arm_regulate. */
@@ -314,8 +314,8 @@ typedef enum reach_arm_law {
  * Operations before the allocation, at most: 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
-reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[], double work[]);
+reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
+    const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU], double work[]);
 
 /*
  * Caller-provided scratch. Every function above that takes q takes one more argument,
@@ -350,24 +350,24 @@ reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[],
  * ARCWRIGHT_PLAIN_FUNCTIONS when compiling reach_arm.c and the code that calls them. A
  * firmware built with a stack limit (-Wstack-usage=) should leave them out.
  */
-void reach_arm_inertia(const double q[], double B[]);
-void reach_arm_coriolis(const double q[], const double qd[], double C[]);
-void reach_arm_gravity(const double q[], double G[]);
-void reach_arm_actuation(const double q[], double A[]);
-void reach_arm_pose(const double q[], int segment, double sigma, double pose[3]);
-void reach_arm_tip_jacobian(const double q[], double J[]);
-void reach_arm_terms(const double q[], const double qd[], double B[], double C[],
-    double G[]);
-double reach_arm_kinetic_energy(const double q[], const double qd[]);
-double reach_arm_potential_energy(const double q[]);
-reach_arm_status reach_arm_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[]);
-void reach_arm_gravity_jacobian(const double q[], double dG[]);
-reach_arm_status reach_arm_static_residual(const double q[], const double u[], double R[]);
-reach_arm_status reach_arm_static_jacobian(const double q[], const double u[], double J[]);
-reach_arm_status reach_arm_equilibrium(const double u[], double q[], reach_arm_equilibrium_info *info);
-reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[]);
+void reach_arm_inertia(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_coriolis(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_gravity(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ]);
+void reach_arm_actuation(const double q[REACH_ARM_NQ], double A[REACH_ARM_NQ * REACH_ARM_NU]);
+void reach_arm_pose(const double q[REACH_ARM_NQ], int segment, double sigma, double pose[3]);
+void reach_arm_tip_jacobian(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM_NQ]);
+void reach_arm_terms(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
+    double G[REACH_ARM_NQ]);
+double reach_arm_kinetic_energy(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ]);
+double reach_arm_potential_energy(const double q[REACH_ARM_NQ]);
+reach_arm_status reach_arm_forward_dynamics(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
+    double qdd[REACH_ARM_NQ]);
+void reach_arm_gravity_jacobian(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ]);
+reach_arm_status reach_arm_static_residual(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ]);
+reach_arm_status reach_arm_static_jacobian(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ]);
+reach_arm_status reach_arm_equilibrium(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info);
+reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
+    const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU]);
 #endif
 
 #ifdef __cplusplus

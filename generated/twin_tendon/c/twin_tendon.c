@@ -253,7 +253,7 @@ static void twin_tendon_kernels(const unsigned char uses[], int count, const dou
 
 /* K, n x n, row-major.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void twin_tendon_stiffness(double K[])
+void twin_tendon_stiffness(double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     K[0] = 0.00225;
     K[1] = 0.0;
@@ -264,7 +264,7 @@ void twin_tendon_stiffness(double K[])
 
 /* D, n x n, row-major.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void twin_tendon_damping(double D[])
+void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     D[0] = 4.5e-5;
     D[1] = 0.0;
@@ -279,7 +279,7 @@ static const unsigned char twin_tendon_inertia_rows[28] = {
 
 /* B(q), n x n, row-major. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 38 reals.
  * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_inertia_ws(const double q[], double B[], double work[])
+void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 14 */
@@ -313,7 +313,7 @@ void twin_tendon_inertia_ws(const double q[], double B[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_ws with its scratch on this function's stack.
  * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_inertia(const double q[], double B[])
+void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_INERTIA_WORK];
     twin_tendon_inertia_ws(q, B, work);
@@ -327,7 +327,7 @@ static const unsigned char twin_tendon_gravity_rows[18] = {
 
 /* G(q) = dU_g/dq. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 33 reals.
  * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_ws(const double q[], double G[], double work[])
+void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 9 */
@@ -350,7 +350,7 @@ void twin_tendon_gravity_ws(const double q[], double G[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_ws with its scratch on this function's stack.
  * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity(const double q[], double G[])
+void twin_tendon_gravity(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_WORK];
     twin_tendon_gravity_ws(q, G, work);
@@ -360,7 +360,7 @@ void twin_tendon_gravity(const double q[], double G[])
 
 /* A(q), n x k, row-major. Scratch: none; work may be a null pointer (TWIN_TENDON_ACTUATION_WORK is 1 only because a C array cannot be empty).
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void twin_tendon_actuation_ws(const double q[], double A[], double work[])
+void twin_tendon_actuation_ws(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_NQ * TWIN_TENDON_NU], double work[])
 {
     (void)work;
     (void)q;
@@ -378,7 +378,7 @@ void twin_tendon_actuation_ws(const double q[], double A[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_actuation_ws with its scratch on this function's stack.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void twin_tendon_actuation(const double q[], double A[])
+void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_NQ * TWIN_TENDON_NU])
 {
     twin_tendon_actuation_ws(q, A, 0); /* needs no scratch */
 }
@@ -391,7 +391,7 @@ static const unsigned char twin_tendon_tip_jacobian_rows[8] = {
 
 /* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. TWIN_TENDON_TIP_JACOBIAN_WORK), 28 reals.
  * Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[])
+void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 4 */
@@ -416,7 +416,7 @@ void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_tip_jacobian_ws with its scratch on this function's stack.
  * Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_tip_jacobian(const double q[], double J[])
+void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TIP_JACOBIAN_WORK];
     twin_tendon_tip_jacobian_ws(q, J, work);
@@ -431,7 +431,7 @@ static const unsigned char twin_tendon_gravity_jacobian_rows[26] = {
 
 /* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 37 reals.
  * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[])
+void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 13 */
@@ -458,7 +458,7 @@ void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
  * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian(const double q[], double dG[])
+void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
     twin_tendon_gravity_jacobian_ws(q, dG, work);
@@ -472,7 +472,7 @@ static const unsigned char twin_tendon_potential_energy_rows[6] = {
 
 /* U = U_g + 1/2 q^T K q. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 27 reals.
  * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig. */
-double twin_tendon_potential_energy_ws(const double q[], double work[])
+double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 3 */
@@ -495,7 +495,7 @@ double twin_tendon_potential_energy_ws(const double q[], double work[])
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_potential_energy_ws with its scratch on this function's stack.
  * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig. */
-double twin_tendon_potential_energy(const double q[])
+double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_POTENTIAL_ENERGY_WORK];
     return twin_tendon_potential_energy_ws(q, work);
@@ -511,7 +511,7 @@ static const unsigned char twin_tendon_terms_rows[56] = {
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 52 reals.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_terms_ws(const double q[], const double qd[], double B[], double C[], double G[], double work[])
+void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 28 */
@@ -588,7 +588,7 @@ void twin_tendon_terms_ws(const double q[], const double qd[], double B[], doubl
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_ws with its scratch on this function's stack.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_terms(const double q[], const double qd[], double B[], double C[], double G[])
+void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
     twin_tendon_terms_ws(q, qd, B, C, G, work);
@@ -598,7 +598,7 @@ void twin_tendon_terms(const double q[], const double qd[], double B[], double C
 
 /* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 42 reals.
  * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig. */
-double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double work[])
+double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
     double t = 0.0;
@@ -619,7 +619,7 @@ double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_ws with its scratch on this function's stack.
  * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig. */
-double twin_tendon_kinetic_energy(const double q[], const double qd[])
+double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
     return twin_tendon_kinetic_energy_ws(q, qd, work);
@@ -629,7 +629,7 @@ double twin_tendon_kinetic_energy(const double q[], const double qd[])
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 58 reals.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], double work[])
+void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
     double *const G = &work[4]; /* 2 */
@@ -640,7 +640,7 @@ void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], do
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_ws with its scratch on this function's stack.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_coriolis(const double q[], const double qd[], double C[])
+void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
     twin_tendon_coriolis_ws(q, qd, C, work);
@@ -650,7 +650,7 @@ void twin_tendon_coriolis(const double q[], const double qd[], double C[])
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
  * Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig. */
-static void twin_tendon_pose_segment0(const double q[], double sigma, double pose[3], double work[])
+static void twin_tendon_pose_segment0(const double q[TWIN_TENDON_NQ], double sigma, double pose[3], double work[])
 {
     double *const pnu = &work[0]; /* 2 */
     twin_tendon_moments(0.15 * q[0] * sigma, 1, &pnu[0], &pnu[1]);
@@ -662,7 +662,7 @@ static void twin_tendon_pose_segment0(const double q[], double sigma, double pos
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
  * Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig. */
-static void twin_tendon_pose_segment1(const double q[], double sigma, double pose[3], double work[])
+static void twin_tendon_pose_segment1(const double q[TWIN_TENDON_NQ], double sigma, double pose[3], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const pnu = &work[24]; /* 2 */
@@ -681,7 +681,7 @@ static void twin_tendon_pose_segment1(const double q[], double sigma, double pos
     pose[2] = 0.15 * q[0] + 0.12 * sigma * q[1];
 }
 
-void twin_tendon_pose_ws(const double q[], int segment, double sigma, double pose[3],
+void twin_tendon_pose_ws(const double q[TWIN_TENDON_NQ], int segment, double sigma, double pose[3],
     double work[])
 {
     if (segment < 0 || segment >= TWIN_TENDON_NSEG || !twin_tendon_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
@@ -698,14 +698,14 @@ void twin_tendon_pose_ws(const double q[], int segment, double sigma, double pos
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3])
+void twin_tendon_pose(const double q[TWIN_TENDON_NQ], int segment, double sigma, double pose[3])
 {
     double work[TWIN_TENDON_POSE_WORK];
     twin_tendon_pose_ws(q, segment, sigma, pose, work);
 }
 #endif
 
-twin_tendon_status twin_tendon_check_range(const double q[])
+twin_tendon_status twin_tendon_check_range(const double q[TWIN_TENDON_NQ])
 {
     int i;
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
@@ -723,7 +723,7 @@ twin_tendon_status twin_tendon_check_range(const double q[])
 }
 
 /* qdd[0 .. NQ) = NaN: the answer of a call that failed. */
-static void twin_tendon_fill_nan(double qdd[])
+static void twin_tendon_fill_nan(double qdd[TWIN_TENDON_NQ])
 {
     int i;
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
@@ -731,8 +731,8 @@ static void twin_tendon_fill_nan(double qdd[])
     }
 }
 
-twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[])
+twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
@@ -865,8 +865,8 @@ twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const doubl
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[])
+twin_tendon_status twin_tendon_forward_dynamics(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_FORWARD_DYNAMICS_WORK];
     return twin_tendon_forward_dynamics_ws(q, qd, u, qdd, work);
@@ -1026,7 +1026,7 @@ static int twin_tendon_all_finite(const double v[], int len)
     return 1;
 }
 
-twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[])
+twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
      * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 45 reals. */
@@ -1057,14 +1057,14 @@ twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[])
+twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_STATIC_RESIDUAL_WORK];
     return twin_tendon_static_residual_ws(q, u, R, work);
 }
 #endif
 
-twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[])
+twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     /* K and the scratch of gravity_jacobian in
      * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 41 reals. */
@@ -1090,7 +1090,7 @@ twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[])
+twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_STATIC_JACOBIAN_WORK];
     return twin_tendon_static_jacobian_ws(q, u, J, work);
@@ -1102,8 +1102,8 @@ twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
  * 47 reals. Returns 0 when r or jac is not finite. */
-static int twin_tendon_linearise(const double q[], const double u[], double lambda,
-    const double K[], double r[], double jac[], double load[], double *scale,
+static int twin_tendon_linearise(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double lambda,
+    const double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
 {
     double *const G = &work[0];
@@ -1148,7 +1148,7 @@ static int twin_tendon_linearise(const double q[], const double u[], double lamb
     return twin_tendon_all_finite(jac, TWIN_TENDON_NQ * TWIN_TENDON_NQ);
 }
 
-twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
@@ -1310,7 +1310,7 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info)
+twin_tendon_status twin_tendon_equilibrium(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info)
 {
     double work[TWIN_TENDON_EQUILIBRIUM_WORK];
     return twin_tendon_equilibrium_ws(u, q, info, work);
@@ -1338,7 +1338,7 @@ static void twin_tendon_select(const double v[], int stride, double y[], int yst
 /* The free inputs' optimum with the fixed ones held: H_FF u_F = f_F - H_FB u_B, into
  * opt (a copy of u elsewhere). sub and rhs: scratch of NU^2 and NU reals. Returns 0
  * when H_FF is not positive definite. */
-static int twin_tendon_free_optimum(const double hess[], const double f[], const double u[],
+static int twin_tendon_free_optimum(const double hess[], const double f[], const double u[TWIN_TENDON_NU],
     const unsigned char fixed[], double opt[], double sub[], double rhs[])
 {
     int free_at[TWIN_TENDON_NU];
@@ -1375,8 +1375,8 @@ static int twin_tendon_free_optimum(const double hess[], const double f[], const
     return 1;
 }
 
-twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[], double work[])
+twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
@@ -1603,8 +1603,8 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
 }
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[])
+twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU])
 {
     double work[TWIN_TENDON_REGULATE_WORK];
     return twin_tendon_regulate_ws(law, target, kp, kd, q, qd, u, work);

@@ -102,7 +102,7 @@ typedef enum twin_tendon_status {
  * TWIN_TENDON_ERR_NONFINITE_INPUT. Built with ARCWRIGHT_CHECK_RANGE defined,
  * twin_tendon_forward_dynamics checks it first and returns its code.
  */
-twin_tendon_status twin_tendon_check_range(const double q[]);
+twin_tendon_status twin_tendon_check_range(const double q[TWIN_TENDON_NQ]);
 
 /*
  * Smallest Cholesky pivot of B that forward dynamics accepts, relative to the diagonal
@@ -119,7 +119,7 @@ twin_tendon_status twin_tendon_check_range(const double q[]);
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
  * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_inertia_ws(const double q[], double B[], double work[]);
+void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
@@ -127,31 +127,31 @@ void twin_tendon_inertia_ws(const double q[], double B[], double work[]);
  * B' - 2C is skew-symmetric. The generalized force is C q'.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_coriolis_ws(const double q[], const double qd[], double C[], double work[]);
+void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
  * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_gravity_ws(const double q[], double G[], double work[]);
+void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void twin_tendon_stiffness(double K[]);
+void twin_tendon_stiffness(double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 
 /**
  * Damping matrix D, n x n, constant: Rayleigh dissipation 1/2 q'^T D q'.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void twin_tendon_damping(double D[]);
+void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
  * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
  */
-void twin_tendon_actuation_ws(const double q[], double A[], double work[]);
+void twin_tendon_actuation_ws(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_NQ * TWIN_TENDON_NU], double work[]);
 
 /**
  * Backbone pose at normalised arc coordinate sigma in [0, 1] of segment `segment`,
@@ -164,14 +164,14 @@ void twin_tendon_actuation_ws(const double q[], double A[], double work[]);
  * Segment 0: Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig.
  * Segment 1: Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_pose_ws(const double q[], int segment, double sigma, double pose[3],
+void twin_tendon_pose_ws(const double q[TWIN_TENDON_NQ], int segment, double sigma, double pose[3],
     double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
  * Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[]);
+void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_TENDON_NQ], double work[]);
 
 /**
  * B(q), C(q, q') and G(q) in one call, with the same layouts as twin_tendon_inertia,
@@ -181,20 +181,20 @@ void twin_tendon_tip_jacobian_ws(const double q[], double J[], double work[]);
  * moments and everything B, C and G share are computed once.
  * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_terms_ws(const double q[], const double qd[], double B[], double C[],
-    double G[], double work[]);
+void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
+    double G[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
  * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
  */
-double twin_tendon_kinetic_energy_ws(const double q[], const double qd[], double work[]);
+double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
  * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
  */
-double twin_tendon_potential_energy_ws(const double q[], double work[]);
+double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -208,14 +208,14 @@ double twin_tendon_potential_energy_ws(const double q[], double work[]);
  * results by the residual of B q'' = rhs, not entry by entry.
  * Operations: 234 add, 435 mul, 9 div, 2 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[], const double qd[], const double u[],
-    double qdd[], double work[]);
+twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
  * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
-void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[]);
+void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
@@ -223,7 +223,7 @@ void twin_tendon_gravity_jacobian_ws(const double q[], double dG[], double work[
  * TWIN_TENDON_ERR_NONFINITE_RESULT.
  * Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double u[], double R[], double work[]);
+twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
@@ -232,7 +232,7 @@ twin_tendon_status twin_tendon_static_residual_ws(const double q[], const double
  * twin_tendon_static_residual.
  * Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_static_jacobian_ws(const double q[], const double u[], double J[], double work[]);
+twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /** What twin_tendon_equilibrium did. */
 typedef struct {
@@ -278,7 +278,7 @@ typedef struct {
  * Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
  */
-twin_tendon_status twin_tendon_equilibrium_ws(const double u[], double q[], twin_tendon_equilibrium_info *info,
+twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
     double work[]);
 
 /** Number of controlled outputs y = S q of twin_tendon_regulate. */
@@ -314,8 +314,8 @@ typedef enum twin_tendon_law {
  * Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
-twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[], double work[]);
+twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU], double work[]);
 
 /*
  * Caller-provided scratch. Every function above that takes q takes one more argument,
@@ -350,24 +350,24 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
  * ARCWRIGHT_PLAIN_FUNCTIONS when compiling twin_tendon.c and the code that calls them. A
  * firmware built with a stack limit (-Wstack-usage=) should leave them out.
  */
-void twin_tendon_inertia(const double q[], double B[]);
-void twin_tendon_coriolis(const double q[], const double qd[], double C[]);
-void twin_tendon_gravity(const double q[], double G[]);
-void twin_tendon_actuation(const double q[], double A[]);
-void twin_tendon_pose(const double q[], int segment, double sigma, double pose[3]);
-void twin_tendon_tip_jacobian(const double q[], double J[]);
-void twin_tendon_terms(const double q[], const double qd[], double B[], double C[],
-    double G[]);
-double twin_tendon_kinetic_energy(const double q[], const double qd[]);
-double twin_tendon_potential_energy(const double q[]);
-twin_tendon_status twin_tendon_forward_dynamics(const double q[], const double qd[], const double u[],
-    double qdd[]);
-void twin_tendon_gravity_jacobian(const double q[], double dG[]);
-twin_tendon_status twin_tendon_static_residual(const double q[], const double u[], double R[]);
-twin_tendon_status twin_tendon_static_jacobian(const double q[], const double u[], double J[]);
-twin_tendon_status twin_tendon_equilibrium(const double u[], double q[], twin_tendon_equilibrium_info *info);
-twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[], const double kp[], const double kd[],
-    const double q[], const double qd[], double u[]);
+void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_gravity(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ]);
+void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_NQ * TWIN_TENDON_NU]);
+void twin_tendon_pose(const double q[TWIN_TENDON_NQ], int segment, double sigma, double pose[3]);
+void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_TENDON_NQ]);
+void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
+    double G[TWIN_TENDON_NQ]);
+double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ]);
+double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_forward_dynamics(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ]);
+void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_equilibrium(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info);
+twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU]);
 #endif
 
 #ifdef __cplusplus

@@ -414,9 +414,26 @@ pub fn emit(
         });
         work.push((fname.to_string(), len));
     };
-    let q = (format!("const {r} q[]"), "q");
-    let qd = (format!("const {r} qd[]"), "qd");
-    let out = |arr: &'static str| (format!("{r} {arr}[]"), arr);
+    // Arrays are declared with their lengths (which documents them and lets compilers
+    // check calls); a C array cannot have length 0, so an arm without inputs keeps A[].
+    let q = (format!("const {r} q[{up}_NQ]"), "q");
+    let qd = (format!("const {r} qd[{up}_NQ]"), "qd");
+    let nn_len = format!("{up}_NQ * {up}_NQ");
+    let a_len = if k > 0 {
+        format!("{up}_NQ * {up}_NU")
+    } else {
+        String::new()
+    };
+    let out = |arr: &'static str| {
+        let len = match arr {
+            "B" | "C" | "dG" => nn_len.clone(),
+            "G" => format!("{up}_NQ"),
+            "A" => a_len.clone(),
+            "J" => format!("3 * {up}_NQ"),
+            _ => String::new(),
+        };
+        (format!("{r} {arr}[{len}]"), arr)
+    };
     let flat = |arr: &'static str| move |i: usize| format!("{arr}[{i}]");
     let mut generated = |fname: &str,
                          formula: &str,
@@ -443,7 +460,7 @@ pub fn emit(
             rows,
             formula: formula.into(),
             ops: ops_line(func),
-            signature: format!("void {name}_{fname}({r} {arr}[])"),
+            signature: format!("void {name}_{fname}({r} {arr}[{up}_NQ * {up}_NQ])"),
             // (A constant needs no scratch; should one ever need some, it gets its own.)
             body: if len == 0 {
                 body
@@ -571,7 +588,7 @@ pub fn emit(
             formula: format!("Backbone pose [x, y, angle] of segment {j} at sigma."),
             ops: ops_line(f),
             signature: format!(
-                "static void {name}_{fname}(const {r} q[], {r} sigma, {r} pose[3], {r} work[])"
+                "static void {name}_{fname}(const {r} q[{up}_NQ], {r} sigma, {r} pose[3], {r} work[])"
             ),
             body,
             plain: false,
@@ -589,7 +606,7 @@ pub fn emit(
                 .into(),
             ops: ops_line(f),
             signature: format!(
-                "static void {name}_actuation_jacobian_ws(const {r} q[], {r} dA[], {r} work[])"
+                "static void {name}_actuation_jacobian_ws(const {r} q[{up}_NQ], {r} dA[], {r} work[])"
             ),
             body: if len == 0 {
                 format!("    (void)work;\n{body}")
@@ -650,6 +667,15 @@ pub fn emit(
     );
     ctx.insert("name_upper", &up);
     ctx.insert("plain_macro", PLAIN_MACRO);
+    ctx.insert(
+        "nu_bound",
+        &if k > 0 {
+            format!("{up}_NU")
+        } else {
+            String::new()
+        },
+    );
+    ctx.insert("a_bound", &a_len);
     ctx.insert(
         "real_size",
         &match precision {
