@@ -9,7 +9,7 @@
 //! A missing tool skips its check with a printed reason (CI installs them all).
 
 use arcwright::arm::parse_arm_file;
-use arcwright::derive::derive_statics;
+use arcwright::derive::derive_emitted;
 use arcwright::emit::{emit, Options, Precision};
 use arcwright::outdir::write_tree;
 use std::collections::BTreeMap;
@@ -52,7 +52,7 @@ fn generated(path: &Path, precision: Precision) -> PathBuf {
     let out = root().join("target/emitted-tests").join(&key);
     let text = std::fs::read_to_string(path).expect("arm file");
     let (arm, _) = parse_arm_file(path).expect("demo arm parses");
-    let model = derive_statics(&arm);
+    let model = derive_emitted(&arm);
     let files = emit(
         &model,
         &text,
@@ -227,7 +227,7 @@ fn c_of_arms_with_constant_actuation_builds_strict() {
         let text =
             format!("name = \"{name}\"\nexpansion_order = 1\ngravity = [0.0, -9.81]\n{seg}{extra}");
         let arm = arcwright::arm::parse_arm_str(&text, "test.toml").expect("parses");
-        let files = emit(&derive_statics(&arm), &text, Options::default()).expect("emits");
+        let files = emit(&derive_emitted(&arm), &text, Options::default()).expect("emits");
         let out = root()
             .join("target/emitted-tests/constant-actuation")
             .join(name);

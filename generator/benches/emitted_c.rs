@@ -6,7 +6,7 @@
 //! Cortex-M4F flash size when arm-none-eabi-gcc is installed, and `generate` end to end.
 
 use arcwright::arm::parse_arm_file;
-use arcwright::derive::derive_statics;
+use arcwright::derive::derive_emitted;
 use arcwright::emit::{emit, plan::Plan, Options, Precision};
 use arcwright::evaluate::Evaluator;
 use arcwright::outdir::write_tree;
@@ -90,7 +90,7 @@ fn main() {
     let (arm, _) = parse_arm_file(&arm_path).unwrap();
 
     let t = Instant::now();
-    let model = derive_statics(&arm);
+    let model = derive_emitted(&arm);
     let files = emit(&model, &text, Options::default()).unwrap();
     let out = root.join("target/bench-emitted/reach_arm");
     // The bench's own folder, which its compiler runs fill with files arcwright did

@@ -53,7 +53,7 @@ fn main() {
     let text = std::fs::read_to_string(&arm_path).unwrap();
     let (arm, _) = parse_arm_file(&arm_path).unwrap();
     // The f64 side is the derived model the C was printed from.
-    let model = arcwright::derive::derive_statics(&arm);
+    let model = arcwright::derive::derive_emitted(&arm);
     let files = emit(
         &model,
         &text,

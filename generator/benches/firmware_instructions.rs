@@ -11,7 +11,7 @@
 //! `qemu-arm` (Debian: gcc-arm-none-eabi, qemu-user) it says so and stops.
 
 use arcwright::arm::parse_arm_file;
-use arcwright::derive::derive_statics;
+use arcwright::derive::derive_emitted;
 use arcwright::emit::{emit, Options, Precision};
 use arcwright::outdir::write_tree;
 use std::io::{BufRead, BufReader};
@@ -111,7 +111,7 @@ fn main() {
     let text = std::fs::read_to_string(&arm_path).unwrap();
     let (arm, _) = parse_arm_file(&arm_path).unwrap();
     let files = emit(
-        &derive_statics(&arm),
+        &derive_emitted(&arm),
         &text,
         Options {
             precision: Precision::F32,

@@ -13,6 +13,7 @@ use crate::arm::{Actuator, Arm, Segment};
 use crate::exact::{int, Q};
 use crate::ir::{Cx, Id, Node, Program, Var};
 use crate::local_form::{mono_exp, Atom, CForm, LinForm, Mono, MONO_ONE};
+use crate::params::{ParamKind, ParamLayout};
 use crate::segment_integrals::{by_power, Field, Reducer, WeightId};
 use num_traits::{One, Zero};
 use rustc_hash::FxHashMap as HashMap;
@@ -51,11 +52,24 @@ pub struct Model {
     /// Backbone `[x, y, angle]` inside each segment, in terms of [`Var::Sigma`] and
     /// [`Var::PoseNu`].
     pub pose: Vec<[Id; 3]>,
+    /// Whether the runtime parameters are leaves ([`Var::Param`], laid out by
+    /// [`ParamLayout`]) instead of the arm file's numbers folded in.
+    pub parametric: bool,
 }
 
-/// Derives the model of `arm` at its expansion order.
+/// Derives the model of `arm` at its expansion order, with the arm file's numbers
+/// folded into the coefficients (what the commands evaluate).
 pub fn derive(arm: &Arm) -> Model {
-    derive_in_thread(arm, &|_| {}, false)
+    derive_in_thread(arm, &|_| {}, Options::default())
+}
+
+/// What a derivation produces beyond the dynamics.
+#[derive(Clone, Copy, Debug, Default)]
+struct Options {
+    /// The statics roots ([`Model::statics`]).
+    statics: bool,
+    /// Runtime parameters as leaves ([`Model::parametric`]).
+    parametric: bool,
 }
 
 /// How far a derivation is, for a progress bar: one step per segment, then one for
@@ -73,24 +87,45 @@ pub fn derive_steps(arm: &Arm) -> u64 {
     arm.segments.len() as u64 + 1
 }
 
-/// [`derive_statics`], calling `progress` before each step: the model the emitters
-/// print, whose statics functions need the exact derivatives too.
+/// [`derive_emitted`], calling `progress` before each step.
 pub fn derive_with_progress(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync)) -> Model {
-    derive_in_thread(arm, progress, true)
+    derive_in_thread(
+        arm,
+        progress,
+        Options {
+            statics: true,
+            parametric: true,
+        },
+    )
+}
+
+/// The model the emitters print: with the statics derivatives, and with the runtime
+/// parameters as leaves so that the emitted code can take them at run time.
+pub fn derive_emitted(arm: &Arm) -> Model {
+    derive_with_progress(arm, &|_| {})
 }
 
 /// [`derive`] plus the exact derivatives statics needs ([`Model::statics`]): `n²/2`
 /// more derivatives of `G`, so only the commands that solve for equilibria pay them.
 pub fn derive_statics(arm: &Arm) -> Model {
-    derive_in_thread(arm, &|_| {}, true)
+    derive_in_thread(
+        arm,
+        &|_| {},
+        Options {
+            statics: true,
+            parametric: false,
+        },
+    )
 }
 
-fn derive_in_thread(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync), statics: bool) -> Model {
+fn derive_in_thread(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync), opts: Options) -> Model {
     // The differentiator recurses over the program's depth; give it room.
     std::thread::scope(|scope| {
         std::thread::Builder::new()
             .stack_size(512 << 20)
-            .spawn_scoped(scope, || Deriver::new(arm).run(progress, statics))
+            .spawn_scoped(scope, || {
+                Deriver::new(arm, opts.parametric).run(progress, opts.statics)
+            })
             .expect("spawning the derivation thread")
             .join()
             .expect("derivation thread")
@@ -170,10 +205,15 @@ struct Deriver<'a> {
     /// Rows of kernel matrices applied to grouped fields, shared across forms.
     applied: HashMap<AppliedKey, Cx>,
     dmemo: HashMap<(Id, usize), Id>,
+    /// `Some`: runtime parameters are leaves; `None`: the arm file's values, folded.
+    params: Option<ParamLayout>,
+    /// The arm file's parameter values (what [`Deriver::param`] folds in).
+    param_defaults: Vec<Q>,
 }
 
 impl<'a> Deriver<'a> {
-    fn new(arm: &'a Arm) -> Self {
+    fn new(arm: &'a Arm, parametric: bool) -> Self {
+        let layout = ParamLayout::of(arm);
         let offsets = (0..arm.segments.len())
             .map(|j| arm.coord_offset(j))
             .collect();
@@ -188,6 +228,35 @@ impl<'a> Deriver<'a> {
             kernel_of: HashMap::default(),
             applied: HashMap::default(),
             dmemo: HashMap::default(),
+            param_defaults: layout.defaults(arm),
+            params: parametric.then_some(layout),
+        }
+    }
+
+    /// Runtime parameter `kind`, element `i`: a leaf, or the arm file's value.
+    fn param(&mut self, kind: ParamKind, i: usize) -> Id {
+        let k = ParamLayout::of(self.arm).index(kind, i);
+        match self.params {
+            Some(_) => self.p.var(Var::Param(k as u16)),
+            None => self.p.constant(self.param_defaults[k].clone()),
+        }
+    }
+
+    /// Multiplies what was pushed onto each entry of `terms` since `marks` (the entry
+    /// lengths then) by the parameter `s`: one share, summed once and scaled once. A
+    /// folded derivation leaves the terms as they are (the scale is the arm's).
+    fn scale_share(&mut self, terms: &mut [Vec<Vec<Id>>], marks: &[Vec<usize>], s: Id) {
+        if self.params.is_none() {
+            return;
+        }
+        for (row, mrow) in terms.iter_mut().zip(marks) {
+            for (entry, &m) in row.iter_mut().zip(mrow) {
+                if entry.len() > m {
+                    let share = self.p.sum(&entry[m..]);
+                    entry.truncate(m);
+                    entry.push(self.p.mul(s, share));
+                }
+            }
         }
     }
 
@@ -669,7 +738,7 @@ impl<'a> Deriver<'a> {
                     self.p.zero()
                 }
             }
-            Var::Qd(_) | Var::Sigma => self.p.zero(),
+            Var::Qd(_) | Var::Sigma | Var::Param(_) => self.p.zero(),
             Var::Nu { seg, n, im } | Var::PoseNu { seg, n, im } => {
                 let seg = seg as usize;
                 if x != self.offsets[seg] {
@@ -704,10 +773,18 @@ impl<'a> Deriver<'a> {
         }
     }
 
+    /// `g · z`, with `g` the arm's gravity or the gravity parameter.
     fn gravity_dot(&mut self, z: Cx) -> Id {
-        let g = &self.arm.gravity;
-        let t = [(g[0].clone(), z.re), (g[1].clone(), z.im)];
-        self.p.lin_comb(&t)
+        if self.params.is_none() {
+            let g = &self.arm.gravity;
+            let t = [(g[0].clone(), z.re), (g[1].clone(), z.im)];
+            return self.p.lin_comb(&t);
+        }
+        let gx = self.param(ParamKind::Gravity, 0);
+        let gy = self.param(ParamKind::Gravity, 1);
+        let a = self.p.mul(gx, z.re);
+        let b = self.p.mul(gy, z.im);
+        self.p.add(a, b)
     }
 
     fn run(mut self, progress: &(dyn Fn(DeriveStep) + Sync), with_statics: bool) -> Model {
@@ -744,6 +821,12 @@ impl<'a> Deriver<'a> {
                 .collect();
             let e_first = self.p.cx_mul(e, lq.first);
             let z = self.p.cx_times_i(e_first);
+            // Every mass share of this segment is proportional to its density.
+            let rho = self.param(ParamKind::DensityScale, j);
+            let marks = |t: &[Vec<Vec<Id>>]| -> Vec<Vec<usize>> {
+                t.iter().map(|r| r.iter().map(Vec::len).collect()).collect()
+            };
+            let b_marks = marks(&b_terms);
             // (a) both coordinates before this segment: the segment rides on the base.
             for x in 0..off {
                 for y in x..off {
@@ -774,14 +857,35 @@ impl<'a> Deriver<'a> {
                     b_terms[x][y].push(lq.gram[i][k]);
                 }
             }
+            self.scale_share(&mut b_terms, &b_marks, rho);
+            let c_marks = marks(&c_terms);
             self.coriolis_of_segment(j, &lq, e, &jac_prev, &omega, &qd, &mut c_terms);
+            self.scale_share(&mut c_terms, &c_marks, rho);
             // Rotary inertia: φ̇ is linear in q̇, so its share of B is constant.
-            self.rotary_inertia(j, &omega, &mut b_const);
+            if self.params.is_none() {
+                self.rotary_inertia(j, &omega, &mut b_const);
+            } else if !arm.segments[j].rotary_inertia.is_zero() {
+                let mut own_b = vec![vec![Q::zero(); n]; n];
+                self.rotary_inertia(j, &omega, &mut own_b);
+                let iota = self.param(ParamKind::RotaryInertiaScale, j);
+                for x in 0..n {
+                    for y in x..n {
+                        if !own_b[x][y].is_zero() {
+                            b_terms[x][y].push(self.p.scale(&own_b[x][y], iota));
+                        }
+                    }
+                }
+            }
             // Gravity: U_g = −g·(m P_{j−1} + e^{iΦ_{j−1}} R1).
             let gp = self.gravity_dot(pos);
             let ge = self.gravity_dot(e_first);
             let gm = self.p.scale(&lq.mass, gp);
             let u = self.p.add(gm, ge);
+            let u = if self.params.is_some() {
+                self.p.mul(rho, u)
+            } else {
+                u
+            };
             potential_terms.push(self.p.neg(u));
             // Pose inside the segment and the next base point.
             pose.push(self.segment_pose(j, pos, e));
@@ -790,31 +894,41 @@ impl<'a> Deriver<'a> {
             ends.push(pos);
         }
 
-        // Tip payload.
+        // Tip payload: a point mass and a rotary inertia, present in a parametric
+        // model even when the arm file has none, so that firmware can add one.
         let tip_jac: Vec<Cx> = (0..n).map(|x| self.d_cx(pos, x)).collect();
         let last = segs - 1;
         let omega_tip: Vec<Q> = (0..n).map(|x| self.dphi(last, x)).collect();
+        let with_mass = self.params.is_some() || !arm.payload.mass.is_zero();
+        let mass = self.param(ParamKind::PayloadMass, 0);
+        let tip_inertia = self.param(ParamKind::PayloadRotaryInertia, 0);
         for x in 0..n {
             for y in x..n {
-                if !arm.payload.mass.is_zero() {
+                if with_mass {
                     let dot = self.p.cx_dot(tip_jac[x], tip_jac[y]);
-                    b_terms[x][y].push(self.p.scale(&arm.payload.mass, dot));
+                    b_terms[x][y].push(self.p.mul(mass, dot));
                 }
-                b_const[x][y] += &arm.payload.rotary_inertia * &omega_tip[x] * &omega_tip[y];
+                let w = &omega_tip[x] * &omega_tip[y];
+                if self.params.is_some() {
+                    if !w.is_zero() {
+                        b_terms[x][y].push(self.p.scale(&w, tip_inertia));
+                    }
+                } else {
+                    b_const[x][y] += &arm.payload.rotary_inertia * w;
+                }
             }
         }
-        if !arm.payload.mass.is_zero() {
+        if with_mass {
             let tip_dot: Vec<Cx> = tip_jac.iter().map(|&jy| self.rate(jy, n, &qd)).collect();
             for x in 0..n {
                 for y in 0..n {
                     let dot = self.p.cx_dot(tip_jac[x], tip_dot[y]);
-                    c_terms[x][y].push(self.p.scale(&arm.payload.mass, dot));
+                    c_terms[x][y].push(self.p.mul(mass, dot));
                 }
             }
-        }
-        if !arm.payload.mass.is_zero() {
             let gp = self.gravity_dot(pos);
-            potential_terms.push(self.p.scale(&-arm.payload.mass.clone(), gp));
+            let u = self.p.mul(mass, gp);
+            potential_terms.push(self.p.neg(u));
         }
 
         let mut inertia = vec![vec![self.p.zero(); n]; n];
@@ -838,8 +952,9 @@ impl<'a> Deriver<'a> {
             .map(|row| row.into_iter().map(|t| self.p.sum(&t)).collect())
             .collect();
 
-        let stiffness = self.block_matrix(|s| &s.bending_stiffness.coeffs);
-        let damping = self.block_matrix(|s| &s.damping.coeffs);
+        let stiffness =
+            self.block_matrix(ParamKind::StiffnessScale, |s| &s.bending_stiffness.coeffs);
+        let damping = self.block_matrix(ParamKind::DampingScale, |s| &s.damping.coeffs);
         let actuation = self.actuation(&ends);
         // Statics: K + ∂G/∂q − ∂(A u)/∂q, by exact differentiation as everything else.
         let statics = with_statics.then(|| {
@@ -919,6 +1034,7 @@ impl<'a> Deriver<'a> {
             kinetic_energy,
             potential_energy,
             pose,
+            parametric: self.params.is_some(),
         }
     }
 
@@ -1078,18 +1194,25 @@ impl<'a> Deriver<'a> {
     }
 
     /// Block-diagonal `L ∫ f(σ) σ^{i+k} dσ` (stiffness or damping).
-    fn block_matrix(&mut self, f: impl Fn(&Segment) -> &Vec<Q>) -> Vec<Vec<Id>> {
+    /// The block-diagonal `L ∫ f σ^{i+k} dσ` of `K` or `D`, each segment's block
+    /// times its scale parameter `kind`.
+    fn block_matrix(&mut self, kind: ParamKind, f: impl Fn(&Segment) -> &Vec<Q>) -> Vec<Vec<Id>> {
         let n = self.n();
         let mut m = vec![vec![self.p.zero(); n]; n];
         for (j, seg) in self.arm.segments.iter().enumerate() {
             let off = self.offsets[j];
             let coeffs = f(seg);
+            let scale = self.param(kind, j);
             for i in 0..seg.n_coords() {
                 for k in 0..seg.n_coords() {
                     let v = coeffs.iter().enumerate().fold(Q::zero(), |acc, (c, fc)| {
                         acc + fc / int((i + k + c + 1) as i64)
                     }) * &seg.length;
-                    m[off + i][off + k] = self.p.constant(v);
+                    m[off + i][off + k] = if v.is_zero() {
+                        self.p.zero()
+                    } else {
+                        self.p.scale(&v, scale)
+                    };
                 }
             }
         }

@@ -52,6 +52,9 @@ pub struct Evaluator<'m> {
     poses: Vec<Tape>,
     /// The statics roots, when the model has them.
     statics: Option<Tape>,
+    /// Values of the runtime parameters a parametric model reads (the arm file's,
+    /// unless [`Evaluator::with_params`] changed them).
+    params: Vec<f64>,
 }
 
 /// Inputs of one evaluation.
@@ -101,7 +104,16 @@ impl<'m> Evaluator<'m> {
             main,
             poses,
             statics,
+            params: crate::params::ParamLayout::of(&model.arm).defaults_f64(&model.arm),
         }
+    }
+
+    /// The same evaluator at parameter values `theta` ([`crate::params::ParamLayout`]
+    /// order). Only a parametric model ([`Model::parametric`]) reads them.
+    pub fn with_params(mut self, theta: &[f64]) -> Self {
+        assert_eq!(theta.len(), self.params.len(), "parameter vector length");
+        self.params = theta.to_vec();
+        self
     }
 
     fn state<'a>(
@@ -180,6 +192,7 @@ impl<'m> Evaluator<'m> {
                     }
                     Var::CosPhi(j) => st.cos_phi[j as usize],
                     Var::SinPhi(j) => st.sin_phi[j as usize],
+                    Var::Param(k) => self.params[k as usize],
                 },
                 Step::Add(a, b) => v[a as usize] + v[b as usize],
                 Step::Mul(a, b) => v[a as usize] * v[b as usize],

@@ -41,6 +41,9 @@ pub enum Var {
     CosPhi(u16),
     /// `sin Φ_seg`.
     SinPhi(u16),
+    /// Runtime parameter `θ[k]` (see [`crate::params::ParamLayout`]): a leaf the
+    /// emitted code reads from its parameter struct, constant in `q` and `q̇`.
+    Param(u16),
 }
 
 #[derive(Clone, Debug, PartialEq, Eq, Hash)]

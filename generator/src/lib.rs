@@ -27,6 +27,7 @@ pub mod local_form;
 pub mod moments;
 pub mod optimise;
 pub mod outdir;
+pub mod params;
 pub mod reference;
 pub mod segment_integrals;
 pub mod statics;

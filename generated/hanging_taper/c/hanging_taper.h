@@ -85,6 +85,40 @@ typedef enum hanging_taper_status {
 } hanging_taper_status;
 
 /*
+ * Runtime parameters. The model is linear in each of them, so they are applied
+ * exactly at run time, not folded in when the code was generated: every function whose
+ * result depends on one has a _with form taking `const hanging_taper_params *P` first (never
+ * a null pointer), and the form without it means the arm file's values,
+ * HANGING_TAPER_PARAMS_DEFAULT. Scales are factors on the arm file's profiles (1 there);
+ * the payload (a point mass and rotary inertia at the tip) and gravity are absolute,
+ * so an arm without a payload in its file can pick one up. A non-finite parameter is
+ * a non-finite input. Changing them changes the plant the controller assumes: a
+ * wrong payload or gravity is a wrong feed-forward, so bound and validate them as
+ * any other input.
+ */
+typedef struct {
+    /* factor on each segment's mass density (1 = arm file) */
+    double density_scale[3];
+    /* factor on each segment's rotary inertia per length (1 = arm file) */
+    double rotary_inertia_scale[3];
+    /* factor on each segment's bending stiffness (1 = arm file) */
+    double stiffness_scale[3];
+    /* factor on each segment's bending damping (1 = arm file) */
+    double damping_scale[3];
+    /* tip payload mass [kg] */
+    double payload_mass;
+    /* tip payload rotary inertia [kg m^2] */
+    double payload_rotary_inertia;
+    /* gravity (g_x, g_y) in the base frame [m/s^2] */
+    double gravity[2];
+} hanging_taper_params;
+
+/** The arm file's values, as an initialiser: `hanging_taper_params p = HANGING_TAPER_PARAMS_INIT;`. */
+#define HANGING_TAPER_PARAMS_INIT {{1.0, 1.0, 1.0}, {1.0, 1.0, 1.0}, {1.0, 1.0, 1.0}, {1.0, 1.0, 1.0}, 0.0, 0.0, {9.81, 0.0}}
+/** The arm file's values. */
+extern const hanging_taper_params HANGING_TAPER_PARAMS_DEFAULT;
+
+/*
  * The workspace the model is tested in, from the arm file's [sampling] table: per
  * segment j, base bending |L_j q_{j,0}| <= RANGE_BASE_BENDING and extra bending
  * sum_{i>=1} L_j |q_{j,i}| / (i+1) <= RANGE_EXTRA_BENDING [rad]. Define before including
@@ -117,35 +151,40 @@ hanging_taper_status hanging_taper_check_range(const double q[HANGING_TAPER_NQ])
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 12324 add, 14913 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 12623 add, 15367 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
+void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 18273 add, 22933 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
+void hanging_taper_coriolis_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1522 add, 2187 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
+void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+ * Operations: 0 add, 13 mul, 0 div, 0 sqrt, 0 trig.
  */
 void hanging_taper_stiffness(double K[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_stiffness_with(const hanging_taper_params *P, double K[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 
 /**
  * Damping matrix D, n x n, constant: Rayleigh dissipation 1/2 q'^T D q'.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+ * Operations: 0 add, 13 mul, 0 div, 0 sqrt, 0 trig.
  */
 void hanging_taper_damping(double D[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_damping_with(const hanging_taper_params *P, double D[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
@@ -180,22 +219,26 @@ void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 17424 add, 21622 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 18273 add, 22933 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
+    double G[HANGING_TAPER_NQ], double work[]);
+void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
     double G[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 12388 add, 14986 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 12687 add, 15440 mul, 6 div, 0 sqrt, 10 trig.
  */
 double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
+double hanging_taper_kinetic_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 975 add, 1409 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
  */
 double hanging_taper_potential_energy_ws(const double q[HANGING_TAPER_NQ], double work[]);
+double hanging_taper_potential_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -207,33 +250,38 @@ double hanging_taper_potential_energy_ws(const double q[HANGING_TAPER_NQ], doubl
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 18495 add, 23201 mul, 56 div, 8 sqrt, 20 trig.
+ * Operations: 19344 add, 24538 mul, 56 div, 8 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
+    double qdd[HANGING_TAPER_NQ], double work[]);
+hanging_taper_status hanging_taper_forward_dynamics_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
     double qdd[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 2207 add, 3131 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity_jacobian_ws(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
+void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns HANGING_TAPER_OK, HANGING_TAPER_ERR_NONFINITE_INPUT (R is then NaN) or
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations: 2509 add, 3690 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 2886 add, 4228 mul, 12 div, 0 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_static_residual_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
+hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * hanging_taper_static_residual.
- * Operations: 3823 add, 5367 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 4631 add, 6542 mul, 12 div, 0 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_static_jacobian_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
+hanging_taper_status hanging_taper_static_jacobian_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /** What hanging_taper_equilibrium did. */
 typedef struct {
@@ -276,10 +324,12 @@ typedef struct {
  * Returns HANGING_TAPER_OK; HANGING_TAPER_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 6687 add, 9389 mul, 60 div, 4 sqrt, 40 trig.
- * Per backtracking trial: 2560 add, 3731 mul, 12 div, 4 sqrt, 20 trig.
+ * Operations per Newton iteration, at most: 7872 add, 11102 mul, 60 div, 4 sqrt, 40 trig.
+ * Per backtracking trial: 2937 add, 4269 mul, 12 div, 4 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_equilibrium_ws(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
+    double work[]);
+hanging_taper_status hanging_taper_equilibrium_with_ws(const hanging_taper_params *P, const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
     double work[]);
 
 /** Number of controlled outputs y = S q of hanging_taper_regulate. */
@@ -313,10 +363,12 @@ typedef enum hanging_taper_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 2569 add, 3757 mul, 13 div, 0 sqrt, 20 trig.
+ * Operations before the allocation, at most: 2946 add, 4295 mul, 13 div, 0 sqrt, 20 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
 hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
+    const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU], double work[]);
+hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *P, hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
     const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU], double work[]);
 
 /*
@@ -328,22 +380,22 @@ hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const doub
  * Keep it in static storage or a task's state: the functions' own frames are then a
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
-#define HANGING_TAPER_INERTIA_WORK 1034 /* 8272 bytes */
-#define HANGING_TAPER_GRAVITY_WORK 327 /* 2616 bytes */
+#define HANGING_TAPER_INERTIA_WORK 1091 /* 8728 bytes */
+#define HANGING_TAPER_GRAVITY_WORK 381 /* 3048 bytes */
 #define HANGING_TAPER_ACTUATION_WORK 248 /* 1984 bytes */
 #define HANGING_TAPER_TIP_JACOBIAN_WORK 248 /* 1984 bytes */
-#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 484 /* 3872 bytes */
-#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 255 /* 2040 bytes */
-#define HANGING_TAPER_TERMS_WORK 1508 /* 12064 bytes */
-#define HANGING_TAPER_KINETIC_ENERGY_WORK 1098 /* 8784 bytes */
-#define HANGING_TAPER_CORIOLIS_WORK 1580 /* 12640 bytes */
+#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 567 /* 4536 bytes */
+#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 280 /* 2240 bytes */
+#define HANGING_TAPER_TERMS_WORK 1609 /* 12872 bytes */
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1155 /* 9240 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 1681 /* 13448 bytes */
 #define HANGING_TAPER_POSE_WORK 259 /* 2072 bytes */
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1840 /* 14720 bytes */
-#define HANGING_TAPER_STATIC_RESIDUAL_WORK 415 /* 3320 bytes */
-#define HANGING_TAPER_STATIC_JACOBIAN_WORK 740 /* 5920 bytes */
-#define HANGING_TAPER_EQUILIBRIUM_WORK 948 /* 7584 bytes */
-#define HANGING_TAPER_REGULATE_WORK 480 /* 3840 bytes */
-#define HANGING_TAPER_WORK_LEN 1840 /* 14720 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 1941 /* 15528 bytes */
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 469 /* 3752 bytes */
+#define HANGING_TAPER_STATIC_JACOBIAN_WORK 823 /* 6584 bytes */
+#define HANGING_TAPER_EQUILIBRIUM_WORK 1031 /* 8248 bytes */
+#define HANGING_TAPER_REGULATE_WORK 534 /* 4272 bytes */
+#define HANGING_TAPER_WORK_LEN 1941 /* 15528 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*
@@ -353,22 +405,37 @@ hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const doub
  * firmware built with a stack limit (-Wstack-usage=) should leave them out.
  */
 void hanging_taper_inertia(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_inertia_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 void hanging_taper_coriolis(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_coriolis_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 void hanging_taper_gravity(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ]);
+void hanging_taper_gravity_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ]);
 void hanging_taper_actuation(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU]);
 void hanging_taper_pose(const double q[HANGING_TAPER_NQ], int segment, double sigma, double pose[3]);
 void hanging_taper_tip_jacobian(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ]);
 void hanging_taper_terms(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
     double G[HANGING_TAPER_NQ]);
+void hanging_taper_terms_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
+    double G[HANGING_TAPER_NQ]);
 double hanging_taper_kinetic_energy(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ]);
+double hanging_taper_kinetic_energy_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ]);
 double hanging_taper_potential_energy(const double q[HANGING_TAPER_NQ]);
+double hanging_taper_potential_energy_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ]);
 hanging_taper_status hanging_taper_forward_dynamics(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
     double qdd[HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_forward_dynamics_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
+    double qdd[HANGING_TAPER_NQ]);
 void hanging_taper_gravity_jacobian(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+void hanging_taper_gravity_jacobian_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 hanging_taper_status hanging_taper_static_residual(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_static_residual_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ]);
 hanging_taper_status hanging_taper_static_jacobian(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
+hanging_taper_status hanging_taper_static_jacobian_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ]);
 hanging_taper_status hanging_taper_equilibrium(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info);
+hanging_taper_status hanging_taper_equilibrium_with(const hanging_taper_params *P, const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info);
 hanging_taper_status hanging_taper_regulate(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
+    const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU]);
+hanging_taper_status hanging_taper_regulate_with(const hanging_taper_params *P, hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
     const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double u[HANGING_TAPER_NU]);
 #endif
 

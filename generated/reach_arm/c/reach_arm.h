@@ -85,6 +85,40 @@ typedef enum reach_arm_status {
 } reach_arm_status;
 
 /*
+ * Runtime parameters. The model is linear in each of them, so they are applied
+ * exactly at run time, not folded in when the code was generated: every function whose
+ * result depends on one has a _with form taking `const reach_arm_params *P` first (never
+ * a null pointer), and the form without it means the arm file's values,
+ * REACH_ARM_PARAMS_DEFAULT. Scales are factors on the arm file's profiles (1 there);
+ * the payload (a point mass and rotary inertia at the tip) and gravity are absolute,
+ * so an arm without a payload in its file can pick one up. A non-finite parameter is
+ * a non-finite input. Changing them changes the plant the controller assumes: a
+ * wrong payload or gravity is a wrong feed-forward, so bound and validate them as
+ * any other input.
+ */
+typedef struct {
+    /* factor on each segment's mass density (1 = arm file) */
+    double density_scale[2];
+    /* factor on each segment's rotary inertia per length (1 = arm file) */
+    double rotary_inertia_scale[2];
+    /* factor on each segment's bending stiffness (1 = arm file) */
+    double stiffness_scale[2];
+    /* factor on each segment's bending damping (1 = arm file) */
+    double damping_scale[2];
+    /* tip payload mass [kg] */
+    double payload_mass;
+    /* tip payload rotary inertia [kg m^2] */
+    double payload_rotary_inertia;
+    /* gravity (g_x, g_y) in the base frame [m/s^2] */
+    double gravity[2];
+} reach_arm_params;
+
+/** The arm file's values, as an initialiser: `reach_arm_params p = REACH_ARM_PARAMS_INIT;`. */
+#define REACH_ARM_PARAMS_INIT {{1.0, 1.0}, {1.0, 1.0}, {1.0, 1.0}, {1.0, 1.0}, 0.01, 2e-7, {0.0, -9.81}}
+/** The arm file's values. */
+extern const reach_arm_params REACH_ARM_PARAMS_DEFAULT;
+
+/*
  * The workspace the model is tested in, from the arm file's [sampling] table: per
  * segment j, base bending |L_j q_{j,0}| <= RANGE_BASE_BENDING and extra bending
  * sum_{i>=1} L_j |q_{j,i}| / (i+1) <= RANGE_EXTRA_BENDING [rad]. Define before including
@@ -117,35 +151,40 @@ reach_arm_status reach_arm_check_range(const double q[REACH_ARM_NQ]);
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 10084 add, 12344 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10111 add, 12412 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
+void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 14154 add, 17908 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
+void reach_arm_coriolis_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1219 add, 1740 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1391 add, 2013 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity_ws(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[]);
+void reach_arm_gravity_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+ * Operations: 0 add, 10 mul, 0 div, 0 sqrt, 0 trig.
  */
 void reach_arm_stiffness(double K[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_stiffness_with(const reach_arm_params *P, double K[REACH_ARM_NQ * REACH_ARM_NQ]);
 
 /**
  * Damping matrix D, n x n, constant: Rayleigh dissipation 1/2 q'^T D q'.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+ * Operations: 0 add, 10 mul, 0 div, 0 sqrt, 0 trig.
  */
 void reach_arm_damping(double D[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_damping_with(const reach_arm_params *P, double D[REACH_ARM_NQ * REACH_ARM_NQ]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
@@ -179,22 +218,26 @@ void reach_arm_tip_jacobian_ws(const double q[REACH_ARM_NQ], double J[3 * REACH_
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 14029 add, 17638 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 14154 add, 17908 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
+    double G[REACH_ARM_NQ], double work[]);
+void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
     double G[REACH_ARM_NQ], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 10120 add, 12387 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 10147 add, 12455 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
+double reach_arm_kinetic_energy_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 805 add, 1127 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 972 add, 1344 mul, 4 div, 0 sqrt, 6 trig.
  */
 double reach_arm_potential_energy_ws(const double q[REACH_ARM_NQ], double work[]);
+double reach_arm_potential_energy_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -206,33 +249,38 @@ double reach_arm_potential_energy_ws(const double q[REACH_ARM_NQ], double work[]
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 14124 add, 17727 mul, 31 div, 6 sqrt, 6 trig.
+ * Operations: 14249 add, 18017 mul, 31 div, 6 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_forward_dynamics_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
+    double qdd[REACH_ARM_NQ], double work[]);
+reach_arm_status reach_arm_forward_dynamics_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
     double qdd[REACH_ARM_NQ], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 1769 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 2105 add, 3019 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity_jacobian_ws(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
+void reach_arm_gravity_jacobian_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns REACH_ARM_OK, REACH_ARM_ERR_NONFINITE_INPUT (R is then NaN) or
  * REACH_ARM_ERR_NONFINITE_RESULT.
- * Operations: 1279 add, 1800 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1451 add, 2073 mul, 4 div, 0 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_static_residual_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ], double work[]);
+reach_arm_status reach_arm_static_residual_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * reach_arm_static_residual.
- * Operations: 1805 add, 2490 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 2141 add, 3019 mul, 4 div, 0 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_static_jacobian_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
+reach_arm_status reach_arm_static_jacobian_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /** What reach_arm_equilibrium did. */
 typedef struct {
@@ -275,10 +323,12 @@ typedef struct {
  * Returns REACH_ARM_OK; REACH_ARM_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * REACH_ARM_ERR_NONFINITE_INPUT (q = 0); REACH_ARM_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 3271 add, 4459 mul, 29 div, 4 sqrt, 12 trig.
- * Per backtracking trial: 1318 add, 1831 mul, 4 div, 4 sqrt, 6 trig.
+ * Operations per Newton iteration, at most: 3779 add, 5261 mul, 29 div, 4 sqrt, 12 trig.
+ * Per backtracking trial: 1490 add, 2104 mul, 4 div, 4 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_equilibrium_ws(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info,
+    double work[]);
+reach_arm_status reach_arm_equilibrium_with_ws(const reach_arm_params *P, const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info,
     double work[]);
 
 /** Number of controlled outputs y = S q of reach_arm_regulate. */
@@ -311,10 +361,12 @@ typedef enum reach_arm_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 1339 add, 1863 mul, 5 div, 0 sqrt, 6 trig.
+ * Operations before the allocation, at most: 1511 add, 2136 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
 reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
+    const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU], double work[]);
+reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
     const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU], double work[]);
 
 /*
@@ -326,22 +378,22 @@ reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[RE
  * Keep it in static storage or a task's state: the functions' own frames are then a
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
-#define REACH_ARM_INERTIA_WORK 837 /* 6696 bytes */
-#define REACH_ARM_GRAVITY_WORK 226 /* 1808 bytes */
+#define REACH_ARM_INERTIA_WORK 846 /* 6768 bytes */
+#define REACH_ARM_GRAVITY_WORK 277 /* 2216 bytes */
 #define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
 #define REACH_ARM_TIP_JACOBIAN_WORK 178 /* 1424 bytes */
-#define REACH_ARM_GRAVITY_JACOBIAN_WORK 382 /* 3056 bytes */
-#define REACH_ARM_POTENTIAL_ENERGY_WORK 195 /* 1560 bytes */
-#define REACH_ARM_TERMS_WORK 1208 /* 9664 bytes */
-#define REACH_ARM_KINETIC_ENERGY_WORK 873 /* 6984 bytes */
-#define REACH_ARM_CORIOLIS_WORK 1250 /* 10000 bytes */
+#define REACH_ARM_GRAVITY_JACOBIAN_WORK 404 /* 3232 bytes */
+#define REACH_ARM_POTENTIAL_ENERGY_WORK 212 /* 1696 bytes */
+#define REACH_ARM_TERMS_WORK 1234 /* 9872 bytes */
+#define REACH_ARM_KINETIC_ENERGY_WORK 882 /* 7056 bytes */
+#define REACH_ARM_CORIOLIS_WORK 1276 /* 10208 bytes */
 #define REACH_ARM_POSE_WORK 202 /* 1616 bytes */
-#define REACH_ARM_FORWARD_DYNAMICS_WORK 1409 /* 11272 bytes */
-#define REACH_ARM_STATIC_RESIDUAL_WORK 286 /* 2288 bytes */
-#define REACH_ARM_STATIC_JACOBIAN_WORK 418 /* 3344 bytes */
-#define REACH_ARM_EQUILIBRIUM_WORK 556 /* 4448 bytes */
-#define REACH_ARM_REGULATE_WORK 358 /* 2864 bytes */
-#define REACH_ARM_WORK_LEN 1409 /* 11272 bytes */
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 1435 /* 11480 bytes */
+#define REACH_ARM_STATIC_RESIDUAL_WORK 337 /* 2696 bytes */
+#define REACH_ARM_STATIC_JACOBIAN_WORK 440 /* 3520 bytes */
+#define REACH_ARM_EQUILIBRIUM_WORK 578 /* 4624 bytes */
+#define REACH_ARM_REGULATE_WORK 409 /* 3272 bytes */
+#define REACH_ARM_WORK_LEN 1435 /* 11480 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*
@@ -351,22 +403,37 @@ reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[RE
  * firmware built with a stack limit (-Wstack-usage=) should leave them out.
  */
 void reach_arm_inertia(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_inertia_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ]);
 void reach_arm_coriolis(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_coriolis_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ]);
 void reach_arm_gravity(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ]);
+void reach_arm_gravity_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ]);
 void reach_arm_actuation(const double q[REACH_ARM_NQ], double A[REACH_ARM_NQ * REACH_ARM_NU]);
 void reach_arm_pose(const double q[REACH_ARM_NQ], int segment, double sigma, double pose[3]);
 void reach_arm_tip_jacobian(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM_NQ]);
 void reach_arm_terms(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
     double G[REACH_ARM_NQ]);
+void reach_arm_terms_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
+    double G[REACH_ARM_NQ]);
 double reach_arm_kinetic_energy(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ]);
+double reach_arm_kinetic_energy_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ]);
 double reach_arm_potential_energy(const double q[REACH_ARM_NQ]);
+double reach_arm_potential_energy_with(const reach_arm_params *P, const double q[REACH_ARM_NQ]);
 reach_arm_status reach_arm_forward_dynamics(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
     double qdd[REACH_ARM_NQ]);
+reach_arm_status reach_arm_forward_dynamics_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
+    double qdd[REACH_ARM_NQ]);
 void reach_arm_gravity_jacobian(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ]);
+void reach_arm_gravity_jacobian_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ]);
 reach_arm_status reach_arm_static_residual(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ]);
+reach_arm_status reach_arm_static_residual_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ]);
 reach_arm_status reach_arm_static_jacobian(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ]);
+reach_arm_status reach_arm_static_jacobian_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ]);
 reach_arm_status reach_arm_equilibrium(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info);
+reach_arm_status reach_arm_equilibrium_with(const reach_arm_params *P, const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info);
 reach_arm_status reach_arm_regulate(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
+    const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU]);
+reach_arm_status reach_arm_regulate_with(const reach_arm_params *P, reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
     const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double u[REACH_ARM_NU]);
 #endif
 

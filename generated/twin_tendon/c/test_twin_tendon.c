@@ -613,6 +613,326 @@ static const double g_regcond[NCASES][1] = {
         1.13946433025793e-1
     },
 };
+static const double g_theta[NCASES][12] = {
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
+};
+static const double g_pB[NCASES][4] = {
+    {
+        5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6
+    },
+    {
+        5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6
+    },
+    {
+        5.84569113852933e-5, 1.23187536689398e-5, 1.23187536689398e-5, 3.00884882413536e-6
+    },
+    {
+        3.19327402854947e-5, 6.77565540604032e-6, 6.77565540604032e-6, 2.15336800342118e-6
+    },
+    {
+        5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6
+    },
+    {
+        2.47364166632721e-5, 4.20347823878806e-6, 4.20347823878806e-6, 2.47036195698631e-6
+    },
+};
+static const double g_pC[NCASES][4] = {
+    {
+        0.0, 0.0, 0.0, 0.0
+    },
+    {
+        6.05111923828135e-17, -1.53019125e-16, 2.62574156250001e-16, 7.87320000000017e-18
+    },
+    {
+        5.22392976667961e-8, 4.5882106714803e-8, -6.26943672656953e-9, 2.51450910894331e-9
+    },
+    {
+        2.7995717769377e-7, 1.42449828374932e-9, 1.37031593239707e-7, 1.16830235284618e-8
+    },
+    {
+        5.18695143749999e-17, 3.025611225e-16, -2.93805225e-16, -3.77913600000007e-18
+    },
+    {
+        -5.65059015076123e-8, -2.60582679173834e-7, 3.46633193812861e-7, 1.03353300319821e-8
+    },
+};
+static const double g_pG[NCASES][2] = {
+    {
+        2.010397512375e-2, 3.639455064e-3
+    },
+    {
+        2.01039751358802e-2, 3.63945506742565e-3
+    },
+    {
+        2.13046701787662e-2, 3.78027263124414e-3
+    },
+    {
+        -3.60472902829967e-3, 8.52142934955896e-4
+    },
+    {
+        2.01039751263766e-2, 3.63945506532435e-3
+    },
+    {
+        3.82818764116038e-4, -3.43764997270473e-3
+    },
+};
+static const double g_pK[NCASES][4] = {
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
+};
+static const double g_pD[NCASES][4] = {
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
+};
+static const double g_pT[NCASES][1] = {
+    {
+        1.5131062193625e-5
+    },
+    {
+        3.53284326958008e-6
+    },
+    {
+        1.71547198803255e-6
+    },
+    {
+        6.09563142428277e-7
+    },
+    {
+        9.47273902678196e-6
+    },
+    {
+        2.7879079648953e-6
+    },
+};
+static const double g_pV[NCASES][1] = {
+    {
+        -1.2299900625e-1
+    },
+    {
+        -1.22999006085645e-1
+    },
+    {
+        -9.68411186488876e-2
+    },
+    {
+        1.29053715485378
+    },
+    {
+        -1.22999006219671e-1
+    },
+    {
+        5.6936225020247e-1
+    },
+};
+static const double g_prhs[NCASES][2] = {
+    {
+        -2.007517512375e-2, -3.722375064e-3
+    },
+    {
+        -1.98927564053803e-2, -3.54105508002576e-3
+    },
+    {
+        -2.51737131171795e-2, -1.18371384282481e-3
+    },
+    {
+        -6.47944292315156e-2, 3.18381689467791e-2
+    },
+    {
+        -2.00509313763767e-2, -3.70648707792453e-3
+    },
+    {
+        -3.91744178024555e-2, -2.16658083923565e-2
+    },
+};
+static const double g_pBnorm[NCASES][1] = {
+    {
+        7.0983185625e-5
+    },
+    {
+        7.0983185625e-5
+    },
+    {
+        7.07756650542331e-5
+    },
+    {
+        3.8708395691535e-5
+    },
+    {
+        7.0983185625e-5
+    },
+    {
+        2.89398949020602e-5
+    },
+};
+static const double g_pdG[NCASES][4] = {
+    {
+        1.4255386171875e-3, 3.151953e-4, 3.151953e-4, 1.58922e-4
+    },
+    {
+        1.42553861429555e-3, 3.15195299110016e-4, 3.15195299110016e-4, 1.58921999525464e-4
+    },
+    {
+        1.10833961112028e-3, 2.73680933650022e-4, 2.73680933650022e-4, 1.4337790671068e-4
+    },
+    {
+        -2.02165005846465e-3, -4.97205551519847e-4, -4.97205551519847e-4, -2.43178015872141e-4
+    },
+    {
+        1.4255386165051e-3, 3.15195299655934e-4, 3.15195299655934e-4, 1.58921999800717e-4
+    },
+    {
+        -1.85215329384274e-3, -2.15937786829076e-4, -2.15937786829076e-4, -6.06993191329821e-5
+    },
+};
+static const double g_pR[NCASES][2] = {
+    {
+        2.009722512375e-2, 3.724055064e-3
+    },
+    {
+        1.98789751553802e-2, 3.54945508002565e-3
+    },
+    {
+        2.51709201787662e-2, 1.17027263124414e-3
+    },
+    {
+        6.48027709717004e-2, -3.18448570650441e-2
+    },
+    {
+        2.00702251263766e-2, 3.70245507792435e-3
+    },
+    {
+        3.9157818764116e-2, 2.16723500272953e-2
+    },
+};
+static const double g_peqok[NCASES][1] = {
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+};
+static const double g_pqeq[NCASES][2] = {
+    {
+        -3.9653951374293, -1.01847761214597
+    },
+    {
+        -2.94307073178857, 4.09869773624341e-3
+    },
+    {
+        -3.86490922293843, 2.99144685868225
+    },
+    {
+        -6.84994931874387, -3.99267402203917
+    },
+    {
+        -1.53730048379513, -9.73402958492302
+    },
+    {
+        2.59571528236415, 5.28642522634577
+    },
+};
+static const double g_pucomp[NCASES][4] = {
+    {
+        2.20806979611111e1, 2.0e-1, 2.0e-1, 5.18960067013889
+    },
+    {
+        1.26883368611289e1, 2.0e-1, 2.0e-1, 9.43612844147325
+    },
+    {
+        2.0e-1, 4.9541509505249, 4.87341216095057, 2.0e-1
+    },
+    {
+        2.0e-1, 2.5e1, 2.5e1, 2.0e-1
+    },
+    {
+        2.35537882485586e1, 2.0e-1, 2.0e-1, 9.28769095612711
+    },
+    {
+        2.5e1, 2.0e-1, 2.0e-1, 9.49565624214522
+    },
+};
+static const double g_pregsat[NCASES][1] = {
+    {
+        0.0
+    },
+    {
+        0.0
+    },
+    {
+        0.0
+    },
+    {
+        1.0
+    },
+    {
+        0.0
+    },
+    {
+        1.0
+    },
+};
 static const double scale_B = 3.158398125e-5;
 static const double scale_C = 1.72177574906104e-7;
 static const double scale_G = 1.362976875e-2;
@@ -629,6 +949,17 @@ static const double scale_Js = 2.25e-3;
 static const double scale_qeq = 1.54901032364002e1;
 static const double scale_ubase = 2.5e1;
 static const double scale_ucomp = 2.5e1;
+static const double scale_pB = 5.8622045625e-5;
+static const double scale_pC = 3.46633193812861e-7;
+static const double scale_pG = 2.13046701787662e-2;
+static const double scale_pK = 2.925e-3;
+static const double scale_pD = 3.15e-5;
+static const double scale_pT = 1.5131062193625e-5;
+static const double scale_pV = 1.29053715485378;
+static const double scale_pdG = 2.02165005846465e-3;
+static const double scale_pR = 6.48027709717004e-2;
+static const double scale_pqeq = 9.73402958492302;
+static const double scale_pucomp = 2.5e1;
 
 static int passed = 0;
 static int failed = 0;
@@ -910,6 +1241,95 @@ int main(void)
             expect(twin_tendon_regulate_ws(TWIN_TENDON_LAW_COMPENSATED, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
             same("regulate compensated", c, y, x, TWIN_TENDON_NU, TWIN_TENDON_REGULATE_WORK);
         }
+        {
+            /* The _with forms at a second parameter set (every field changed), against
+             * the reference evaluated on the arm with those values written in. */
+            twin_tendon_params P = TWIN_TENDON_PARAMS_INIT;
+            double x[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+            double y[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+            double z[TWIN_TENDON_NQ];
+            double ueq[4 + 1];
+            double w;
+            double pres = 0.0;
+            double pqddn = 0.0;
+            double prhsn = 0.0;
+            twin_tendon_terms(q, qd, x, y, z);
+            twin_tendon_terms_with(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, m, y, v);
+            poison(0);
+            same("terms_with at the defaults", c, m, x, TWIN_TENDON_NQ * TWIN_TENDON_NQ, 0);
+            expect(memcmp(&P, &TWIN_TENDON_PARAMS_DEFAULT, sizeof P) == 0, "PARAMS_INIT is PARAMS_DEFAULT");
+            P.density_scale[0] = (double)g_theta[c][0];
+            P.density_scale[1] = (double)g_theta[c][1];
+            P.rotary_inertia_scale[0] = (double)g_theta[c][2];
+            P.rotary_inertia_scale[1] = (double)g_theta[c][3];
+            P.stiffness_scale[0] = (double)g_theta[c][4];
+            P.stiffness_scale[1] = (double)g_theta[c][5];
+            P.damping_scale[0] = (double)g_theta[c][6];
+            P.damping_scale[1] = (double)g_theta[c][7];
+            P.payload_mass = (double)g_theta[c][8];
+            P.payload_rotary_inertia = (double)g_theta[c][9];
+            P.gravity[0] = (double)g_theta[c][10];
+            P.gravity[1] = (double)g_theta[c][11];
+            twin_tendon_inertia_with(&P, q, x);
+            check("inertia_with", c, x, g_pB[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pB);
+            twin_tendon_coriolis_with(&P, q, qd, x);
+            check("coriolis_with", c, x, g_pC[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pC);
+            twin_tendon_gravity_with(&P, q, z);
+            check("gravity_with", c, z, g_pG[c], TWIN_TENDON_NQ, scale_pG);
+            twin_tendon_terms_with(&P, q, qd, x, y, z);
+            check("terms_with: B", c, x, g_pB[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pB);
+            check("terms_with: C", c, y, g_pC[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pC);
+            check("terms_with: G", c, z, g_pG[c], TWIN_TENDON_NQ, scale_pG);
+            poison(TWIN_TENDON_TERMS_WORK);
+            twin_tendon_terms_with_ws(&P, q, qd, m, y, z, work);
+            same("terms_with_ws", c, m, x, TWIN_TENDON_NQ * TWIN_TENDON_NQ, TWIN_TENDON_TERMS_WORK);
+            twin_tendon_stiffness_with(&P, x);
+            check("stiffness_with", c, x, g_pK[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pK);
+            twin_tendon_damping_with(&P, x);
+            check("damping_with", c, x, g_pD[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pD);
+            w = twin_tendon_kinetic_energy_with(&P, q, qd);
+            check("kinetic_energy_with", c, &w, g_pT[c], 1, scale_pT);
+            w = twin_tendon_potential_energy_with(&P, q);
+            check("potential_energy_with", c, &w, g_pV[c], 1, scale_pV);
+            twin_tendon_gravity_jacobian_with(&P, q, x);
+            check("gravity_jacobian_with", c, x, g_pdG[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pdG);
+            expect(twin_tendon_static_residual_with(&P, q, u, z) == TWIN_TENDON_OK, "static_residual_with status");
+            check("static_residual_with", c, z, g_pR[c], TWIN_TENDON_NQ, scale_pR);
+            expect(twin_tendon_forward_dynamics_with(&P, q, qd, u, z) == TWIN_TENDON_OK, "forward_dynamics_with status");
+            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                double r = -g_prhs[c][i];
+                for (j = 0; j < TWIN_TENDON_NQ; ++j) {
+                    r += g_pB[c][i * TWIN_TENDON_NQ + j] * (double)z[j];
+                }
+                pres = max_d(pres, fabs(r));
+                pqddn = max_d(pqddn, fabs((double)z[i]));
+                prhsn = max_d(prhsn, fabs(g_prhs[c][i]));
+            }
+            expect(pres <= RTOL * (g_pBnorm[c][0] * pqddn + prhsn), "forward_dynamics_with residual");
+            if (g_peqok[c][0] > 0.5) {
+                for (i = 0; i < 4; ++i) {
+                    ueq[i] = (double)g_ueq[c][i];
+                }
+                expect(twin_tendon_equilibrium_with(&P, ueq, z, 0) == TWIN_TENDON_OK, "equilibrium_with status");
+                check_within("equilibrium_with", c, z, g_pqeq[c], TWIN_TENDON_NQ, scale_pqeq, RTOL_EQUILIBRIUM);
+            }
+            {
+                double target[TWIN_TENDON_NY];
+                double kp[TWIN_TENDON_NY];
+                double kd[TWIN_TENDON_NY];
+                double uc[TWIN_TENDON_NU];
+                for (i = 0; i < TWIN_TENDON_NY; ++i) {
+                    target[i] = (double)g_ytarget[c][i];
+                    kp[i] = (double)g_kp[c][i];
+                    kd[i] = (double)g_kd[c][i];
+                }
+                status = twin_tendon_regulate_with(&P, TWIN_TENDON_LAW_COMPENSATED, target, kp, kd, q, qd, uc);
+                if (g_regcond[c][0] > WELL_POSED) {
+                    expect(status == (g_pregsat[c][0] > 0.5 ? TWIN_TENDON_SATURATED : TWIN_TENDON_OK), "regulate_with status");
+                    check("regulate_with compensated", c, uc, g_pucomp[c], TWIN_TENDON_NU, scale_pucomp);
+                }
+            }
+        }
         status = twin_tendon_forward_dynamics(q, qd, u, qdd);
         expect(status == TWIN_TENDON_OK, "forward dynamics status");
         {
@@ -976,6 +1396,12 @@ int main(void)
             "forward dynamics reports an overflowing state as overflow");
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             qd[i] = 0.0;
+        }
+        {
+            twin_tendon_params P = TWIN_TENDON_PARAMS_INIT;
+            P.gravity[1] = (double)NAN;
+            expect(twin_tendon_forward_dynamics_with(&P, q, qd, u, qdd) == TWIN_TENDON_ERR_NONFINITE_INPUT && nan_bits(qdd[0]),
+                "forward dynamics rejects a NaN parameter");
         }
         q[0] = (double)NAN;
         expect(twin_tendon_forward_dynamics(q, qd, u, qdd) == TWIN_TENDON_ERR_NONFINITE_INPUT && nan_bits(qdd[0]),

@@ -38,6 +38,46 @@ static int twin_tendon_finite(double x)
     return (bits & UINT64_C(0x7FF0000000000000)) != UINT64_C(0x7FF0000000000000);
 }
 
+const twin_tendon_params TWIN_TENDON_PARAMS_DEFAULT = TWIN_TENDON_PARAMS_INIT;
+
+/* 1 when every runtime parameter in *P is finite. */
+static int twin_tendon_params_finite(const twin_tendon_params *P)
+{
+    int i;
+    for (i = 0; i < 2; ++i) {
+        if (!twin_tendon_finite(P->density_scale[i])) {
+            return 0;
+        }
+    }
+    for (i = 0; i < 2; ++i) {
+        if (!twin_tendon_finite(P->rotary_inertia_scale[i])) {
+            return 0;
+        }
+    }
+    for (i = 0; i < 2; ++i) {
+        if (!twin_tendon_finite(P->stiffness_scale[i])) {
+            return 0;
+        }
+    }
+    for (i = 0; i < 2; ++i) {
+        if (!twin_tendon_finite(P->damping_scale[i])) {
+            return 0;
+        }
+    }
+    if (!twin_tendon_finite(P->payload_mass)) {
+        return 0;
+    }
+    if (!twin_tendon_finite(P->payload_rotary_inertia)) {
+        return 0;
+    }
+    for (i = 0; i < 2; ++i) {
+        if (!twin_tendon_finite(P->gravity[i])) {
+            return 0;
+        }
+    }
+    return 1;
+}
+
 /* 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)),
  * k = 1..11, of the scaled j_n (see twin_tendon_moments). */
 static const double twin_tendon_odd_inv[TWIN_TENDON_MOMENTS_MAX] = {
@@ -199,23 +239,20 @@ static void twin_tendon_moments(double a, int count, double re[], double im[])
  * Moment kernels: row r at moment base b is the dot product of its band
  * coef[start[r] .. start[r+1]) with nu[b + first[r] ...], exact rationals rounded once.
  * A row is shared by every segment (and by real and imaginary parts) with the same
- * weight shape. 20 rows, 67 coefficients.
+ * weight shape. 14 rows, 48 coefficients.
  */
-static const unsigned char twin_tendon_kernel_start[21] = {
-    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 37, 40, 43, 47, 50, 52, 58, 62, 67
+static const unsigned char twin_tendon_kernel_start[15] = {
+    0, 5, 7, 10, 12, 14, 16, 19, 23, 27, 30, 33, 39, 43, 48
 };
-static const unsigned char twin_tendon_kernel_first[20] = {
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
+static const unsigned char twin_tendon_kernel_first[14] = {
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
 };
-static const double twin_tendon_kernel_coef[67] = {
-    1.32890625e-6, -2.21484375e-6, 9.4921875e-7, 0.0, -6.328125e-8, 0.5, -0.5,
-    0.16666666666666666, 0.0, -0.16666666666666666, 3.1104e-7, -5.184e-7, 2.2217142857142857e-7,
-    0.0, -1.4811428571428572e-8, 0.5, 0.5, -0.01125, -0.01125, 0.01125, 0.01125, 3.24e-6,
-    -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8, 0.00193134375, 0.0,
-    -0.00193134375, -0.003310875, -0.003310875, 0.08333333333333333, 0.05, -0.08333333333333333,
-    -0.05, -0.001125, -0.0016875, -0.0005625, 0.3333333333333333, 0.5, 0.16666666666666666,
-    -0.00014485078125, -8.691046875e-5, 0.00014485078125, 8.691046875e-5, 0.0003310875,
-    0.00049663125, 0.00016554375, 0.038626875, -0.038626875, 0.005555555555555556,
+static const double twin_tendon_kernel_coef[48] = {
+    0.05, -0.08333333333333333, 0.03571428571428571, 0.0, -0.002380952380952381, 0.5, -0.5,
+    0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125, 0.01125,
+    0.01125, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
+    0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.3333333333333333, 0.5,
+    0.16666666666666666, -0.001125, -0.0016875, -0.0005625, 0.005555555555555556,
     -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
     -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
     0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
@@ -251,35 +288,51 @@ static void twin_tendon_kernels(const unsigned char uses[], int count, const dou
 }
 
 
-/* K, n x n, row-major.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void twin_tendon_stiffness(double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+/* K, n x n, row-major. At the runtime parameters *P.
+ * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig. */
+void twin_tendon_stiffness_with(const twin_tendon_params *P, double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
-    K[0] = 0.00225;
+    K[0] = 0.00225 * P->stiffness_scale[0];
     K[1] = 0.0;
     K[2] = 0.0;
-    K[3] = 0.00108;
+    K[3] = 0.00108 * P->stiffness_scale[1];
 }
 
 
-/* D, n x n, row-major.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig. */
-void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+/* twin_tendon_stiffness_with at the arm file's parameters.
+ * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig. */
+void twin_tendon_stiffness(double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
-    D[0] = 4.5e-5;
+    twin_tendon_stiffness_with(&TWIN_TENDON_PARAMS_DEFAULT, K);
+}
+
+
+/* D, n x n, row-major. At the runtime parameters *P.
+ * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig. */
+void twin_tendon_damping_with(const twin_tendon_params *P, double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    D[0] = 4.5e-5 * P->damping_scale[0];
     D[1] = 0.0;
     D[2] = 0.0;
-    D[3] = 2.4e-5;
+    D[3] = 2.4e-5 * P->damping_scale[1];
+}
+
+
+/* twin_tendon_damping_with at the arm file's parameters.
+ * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig. */
+void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    twin_tendon_damping_with(&TWIN_TENDON_PARAMS_DEFAULT, D);
 }
 
 /* Kernels of twin_tendon_inertia: pairs (row, moment base). */
 static const unsigned char twin_tendon_inertia_rows[28] = {
-    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 3, 12, 4, 0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 4, 12, 4, 18
+    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 0, 12, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 3, 12, 3, 18
 };
 
-/* B(q), n x n, row-major. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 38 reals.
- * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+/* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 38 reals.
+ * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 14 */
@@ -301,18 +354,43 @@ void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON
     const double t5 = 0.0144 * cphi[0] * kern[12] - 0.0144 * sphi[0] * kern[13];
     const double t6 = 0.0225 * kern[6] * (0.000432 * kern[3] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         - 0.0225 * kern[7] * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + kern[11] + 0.02 * (t2 * t4 + t3 * t5) + 1.008e-8;
-    B[0] = kern[0] + 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t1 + t1 + kern[10] + 0.02 * (t2 * t2 + t3 * t3) + 3.195e-8;
-    B[1] = t6;
-    B[2] = t6;
-    B[3] = kern[5] + 0.02 * (t4 * t4 + t5 * t5) + 6.336e-9;
+        + kern[11];
+    const double t7 = P->density_scale[1] * t6 + 6.48e-9 * P->rotary_inertia_scale[1]
+        + P->payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P->payload_rotary_inertia;
+    const double t8 = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
+        + t1 + t1 + kern[10];
+    B[0] = 2.6578125e-5 * kern[0] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
+        + P->density_scale[1] * t8 + 1.62e-8 * P->rotary_inertia_scale[1]
+        + P->payload_mass * (t2 * t2 + t3 * t3) + 0.0225 * P->payload_rotary_inertia;
+    B[1] = t7;
+    B[2] = t7;
+    B[3] = 6.2208e-6 * kern[5] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+        + P->payload_mass * (t4 * t4 + t5 * t5) + 0.0144 * P->payload_rotary_inertia;
+}
+
+
+/* twin_tendon_inertia_with_ws at the arm file's parameters.
+ * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    twin_tendon_inertia_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, B, work);
 }
 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_inertia_with_ws with its scratch on this function's stack.
+ * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_inertia_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_INERTIA_WORK];
+    twin_tendon_inertia_with_ws(P, q, B, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_ws with its scratch on this function's stack.
- * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_INERTIA_WORK];
@@ -321,16 +399,16 @@ void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ
 #endif
 
 /* Kernels of twin_tendon_gravity: pairs (row, moment base). */
-static const unsigned char twin_tendon_gravity_rows[18] = {
-    1, 12, 1, 18, 2, 12, 2, 18, 6, 0, 4, 12, 4, 18, 9, 0, 10, 0
+static const unsigned char twin_tendon_gravity_rows[24] = {
+    2, 0, 2, 6, 1, 12, 1, 18, 2, 12, 2, 18, 3, 0, 3, 6, 4, 6, 5, 0, 3, 12, 3, 18
 };
 
-/* G(q) = dU_g/dq. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 33 reals.
- * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
+/* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 36 reals.
+ * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 9 */
+    double *const kern = &work[24]; /* 12 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -339,17 +417,44 @@ void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_gravity_rows, 9, nu, kern);
-    G[0] = kern[7] + 9.81 * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
-        - kern[8] + 0.1962 * (kern[4] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]);
-    G[1] = 9.81 * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + 0.1962 * (0.0144 * cphi[0] * kern[5] - 0.0144 * sphi[0] * kern[6]);
+    twin_tendon_kernels(twin_tendon_gravity_rows, 12, nu, kern);
+    const double t0 = P->gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
+        + P->gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
+        + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
+    const double t1 = P->gravity[0] * (kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0])
+        + P->gravity[1] * (kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]);
+    const double t2 = P->gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
+        + P->gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
+    const double t3 = P->gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
+        + P->gravity[1] * (0.0144 * cphi[0] * kern[10] - 0.0144 * sphi[0] * kern[11]);
+    G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
+        - P->density_scale[1] * t0 - P->payload_mass * t1;
+    G[1] = -P->density_scale[1] * t2 - P->payload_mass * t3;
+}
+
+
+/* twin_tendon_gravity_with_ws at the arm file's parameters.
+ * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
+{
+    twin_tendon_gravity_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, G, work);
 }
 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_gravity_with_ws with its scratch on this function's stack.
+ * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_GRAVITY_WORK];
+    twin_tendon_gravity_with_ws(P, q, G, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_ws with its scratch on this function's stack.
- * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_WORK];
@@ -386,7 +491,7 @@ void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_
 
 /* Kernels of twin_tendon_tip_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_tip_jacobian_rows[8] = {
-    5, 6, 6, 0, 4, 12, 4, 18
+    4, 6, 5, 0, 3, 12, 3, 18
 };
 
 /* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. TWIN_TENDON_TIP_JACOBIAN_WORK), 28 reals.
@@ -424,17 +529,17 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 #endif
 
 /* Kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
-static const unsigned char twin_tendon_gravity_jacobian_rows[26] = {
-    1, 12, 1, 18, 2, 12, 2, 18, 11, 12, 11, 18, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18, 14, 6, 15,
-    6
+static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
+    8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
+    18, 9, 12, 9, 18
 };
 
-/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 37 reals.
- * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 40 reals.
+ * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 13 */
+    double *const kern = &work[24]; /* 16 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -443,21 +548,51 @@ void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[T
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_gravity_jacobian_rows, 13, nu, kern);
-    const double t0 = 9.81 * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0])
-        + 0.1962 * (-0.00216 * sphi[0] * kern[7] - 0.00216 * cphi[0] * kern[8]);
-    dG[0] = kern[11] + 9.81 * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
-        - kern[12] + 0.1962 * (kern[6] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
-    dG[1] = t0;
-    dG[2] = t0;
-    dG[3] = 9.81 * (-5.184e-5 * kern[5] * cphi[0] - 5.184e-5 * kern[4] * sphi[0])
-        + 0.1962 * (-0.001728 * cphi[0] * kern[10] - 0.001728 * sphi[0] * kern[9]);
+    twin_tendon_kernels(twin_tendon_gravity_jacobian_rows, 16, nu, kern);
+    const double t0 = P->gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
+        + P->gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
+    const double t1 = P->gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
+        + P->gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]);
+    const double t2 = -P->density_scale[1] * t0 - P->payload_mass * t1;
+    const double t3 = P->gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
+        + P->gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
+        + 0.03 * (-0.003375 * P->gravity[0] * kern[8] - 0.003375 * P->gravity[1] * kern[9]);
+    const double t4 = P->gravity[0] * (kern[10] - 0.0027 * nu[12] * cphi[0] + 0.0027 * nu[18] * sphi[0])
+        + P->gravity[1] * (kern[11] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
+    const double t5 = P->gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
+        + P->gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]);
+    const double t6 = P->gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
+        + P->gravity[1] * (-0.001728 * cphi[0] * kern[15] - 0.001728 * sphi[0] * kern[14]);
+    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[0] * P->gravity[0] - 0.0001771875 * kern[1] * P->gravity[1])
+        - P->density_scale[1] * t3 - P->payload_mass * t4;
+    dG[1] = t2;
+    dG[2] = t2;
+    dG[3] = -P->density_scale[1] * t5 - P->payload_mass * t6;
+}
+
+
+/* twin_tendon_gravity_jacobian_with_ws at the arm file's parameters.
+ * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    twin_tendon_gravity_jacobian_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, dG, work);
 }
 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_gravity_jacobian_with_ws with its scratch on this function's stack.
+ * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
+    twin_tendon_gravity_jacobian_with_ws(P, q, dG, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
- * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
@@ -466,16 +601,16 @@ void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN
 #endif
 
 /* Kernels of twin_tendon_potential_energy: pairs (row, moment base). */
-static const unsigned char twin_tendon_potential_energy_rows[6] = {
-    16, 6, 1, 12, 1, 18
+static const unsigned char twin_tendon_potential_energy_rows[8] = {
+    1, 0, 1, 6, 1, 12, 1, 18
 };
 
-/* U = U_g + 1/2 q^T K q. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 27 reals.
- * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig. */
-double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double work[])
+/* U = U_g + 1/2 q^T K q. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 28 reals.
+ * Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig. */
+double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 3 */
+    double *const kern = &work[24]; /* 4 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -484,17 +619,40 @@ double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double wo
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_potential_energy_rows, 3, nu, kern);
-    return kern[0] + 9.81 * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
-        + 0.044145 * nu[6]
-        + 0.1962 * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0])
-        + 0.5 * (0.00225 * q[0] * q[0] + 0.00108 * q[1] * q[1]);
+    twin_tendon_kernels(twin_tendon_potential_energy_rows, 4, nu, kern);
+    const double t0 = P->gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
+        + P->gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
+        + 0.03 * (0.15 * nu[0] * P->gravity[0] + 0.15 * nu[6] * P->gravity[1]);
+    const double t1 = P->gravity[0] * (0.15 * nu[0] + 0.12 * nu[12] * cphi[0] - 0.12 * nu[18] * sphi[0])
+        + P->gravity[1] * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0]);
+    return 0.5 * (0.00225 * P->stiffness_scale[0] * q[0] * q[0] + 0.00108 * P->stiffness_scale[1] * q[1] * q[1])
+        - P->density_scale[0] * (0.007875 * kern[0] * P->gravity[0] + 0.007875 * kern[1] * P->gravity[1])
+        - P->density_scale[1] * t0 - P->payload_mass * t1;
+}
+
+
+/* twin_tendon_potential_energy_with_ws at the arm file's parameters.
+ * Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig. */
+double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double work[])
+{
+    return twin_tendon_potential_energy_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, work);
 }
 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_potential_energy_with_ws with its scratch on this function's stack.
+ * Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig. */
+double twin_tendon_potential_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_POTENTIAL_ENERGY_WORK];
+    return twin_tendon_potential_energy_with_ws(P, q, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_potential_energy_ws with its scratch on this function's stack.
- * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_POTENTIAL_ENERGY_WORK];
@@ -504,14 +662,14 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 
 /* Kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
-    0, 0, 17, 6, 1, 12, 1, 18, 2, 12, 2, 18, 18, 18, 3, 12, 11, 12, 11, 18, 19, 18, 17, 18, 4,
-    0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 13, 0, 13, 6, 12, 0, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18,
-    9, 0, 10, 0
+    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
+    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
+    9, 18
 };
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 52 reals.
- * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 52 reals.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 24 */
     double *const kern = &work[24]; /* 28 */
@@ -524,70 +682,103 @@ void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_T
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_terms_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[8];
-    const double t1 = qd[1] * kern[9];
-    const double t2 = kern[2] * cphi[0];
-    const double t3 = kern[3] * sphi[0];
-    const double t4 = 0.0036 * t2 - 0.0036 * t3;
-    const double t5 = 0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0];
-    const double t6 = 0.15 * (0.0225 * kern[13] * t5 + 0.0225 * kern[12] * t4);
-    const double t7 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    const double t8 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    const double t9 = qd[0] * kern[18];
-    const double t10 = qd[0] * kern[19];
-    const double t11 = qd[1] * kern[5];
-    const double t12 = qd[1] * kern[4];
-    const double t13 = qd[0] * kern[6];
-    const double t14 = nu[12] * cphi[0];
-    const double t15 = nu[18] * sphi[0];
-    const double t16 = nu[18] * cphi[0];
-    const double t17 = nu[12] * sphi[0];
-    const double t18 = kern[14] - 0.018 * t17 - 0.018 * t16;
-    const double t19 = kern[15] - 0.018 * t15 + 0.018 * t14;
-    const double t20 = cphi[0] * kern[23];
-    const double t21 = sphi[0] * kern[22];
-    const double t22 = -0.0144 * t20 - 0.0144 * t21;
-    const double t23 = cphi[0] * kern[22];
-    const double t24 = sphi[0] * kern[23];
-    const double t25 = 0.0144 * t23 - 0.0144 * t24;
-    const double t26 = 0.00216 * t24 - 0.00216 * t23;
-    const double t27 = -0.00216 * t21 - 0.00216 * t20;
-    const double t28 = qd[0] * (kern[20] - 0.0027 * t14 + 0.0027 * t15) + qd[1] * t26;
-    const double t29 = qd[0] * (kern[21] - 0.0027 * t16 - 0.0027 * t17) + qd[1] * t27;
-    const double t30 = qd[0] * t26
-        + qd[1] * (0.001728 * sphi[0] * kern[25] - 0.001728 * cphi[0] * kern[24]);
-    const double t31 = qd[0] * t27
-        + qd[1] * (-0.001728 * cphi[0] * kern[25] - 0.001728 * sphi[0] * kern[24]);
-    const double t32 = 0.0225 * kern[12] * t8 - 0.0225 * kern[13] * t7 + kern[17]
-        + 0.02 * (t18 * t22 + t19 * t25) + 1.008e-8;
-    const double t33 = 0.0225 * kern[13] * (0.000432 * cphi[0] * t12 - 0.000432 * sphi[0] * t11)
-        + 0.0225 * kern[12] * (-0.000432 * cphi[0] * t11 - 0.000432 * sphi[0] * t12);
-    B[0] = kern[0]
-        + 0.03 * (0.00050625 * kern[13] * kern[13] + 0.00050625 * kern[12] * kern[12]) + t6 + t6
-        + kern[16] + 0.02 * (t18 * t18 + t19 * t19) + 3.195e-8;
-    B[1] = t32;
-    B[2] = t32;
-    B[3] = kern[7] + 0.02 * (t22 * t22 + t25 * t25) + 6.336e-9;
-    C[0] = 0.03 * (7.59375e-5 * kern[13] * t9 - 7.59375e-5 * kern[12] * t10)
-        - 3.98671875e-6 * qd[0] * kern[1]
-        - 0.0225 * qd[0] * (0.0225 * kern[12] * t5 - 0.0225 * kern[13] * t4) + 0.15 * t33
-        + 0.15 * (0.003375 * t5 * t9 - 0.003375 * t4 * t10) - 1.1664e-6 * qd[1] * kern[6]
-        + 0.02 * (t18 * t28 + t19 * t29);
-    C[1] = 0.15 * qd[0] * (0.0225 * kern[13] * t8 + 0.0225 * kern[12] * t7)
-        - 0.0225 * kern[13] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[12] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t13 - 9.3312e-7 * qd[1] * kern[10] + 0.02 * (t18 * t30 + t19 * t31);
-    C[2] = 1.1664e-6 * t13 - 0.003375 * t7 * t9 - 0.003375 * t8 * t10
-        + 0.02 * (t22 * t28 + t25 * t29);
-    C[3] = 0.02 * (t22 * t30 + t25 * t31) - 7.46496e-7 * qd[1] * kern[11];
-    G[0] = kern[26] + 9.81 * (0.00054 * t2 - 0.00054 * t3) - kern[27] + 0.1962 * t19;
-    G[1] = 9.81 * t8 + 0.1962 * t25;
+    const double t0 = qd[1] * kern[10];
+    const double t1 = qd[1] * kern[11];
+    const double t2 = kern[4] * cphi[0];
+    const double t3 = kern[5] * sphi[0];
+    const double t4 = kern[5] * cphi[0];
+    const double t5 = kern[4] * sphi[0];
+    const double t6 = 0.0036 * t2 - 0.0036 * t3;
+    const double t7 = 0.0036 * t4 + 0.0036 * t5;
+    const double t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6);
+    const double t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
+    const double t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
+    const double t11 = qd[0] * kern[20];
+    const double t12 = qd[0] * kern[21];
+    const double t13 = qd[1] * kern[7];
+    const double t14 = qd[1] * kern[6];
+    const double t15 = qd[0] * kern[8];
+    const double t16 = nu[12] * cphi[0];
+    const double t17 = nu[18] * sphi[0];
+    const double t18 = nu[18] * cphi[0];
+    const double t19 = nu[12] * sphi[0];
+    const double t20 = kern[16] - 0.018 * t19 - 0.018 * t18;
+    const double t21 = kern[17] - 0.018 * t17 + 0.018 * t16;
+    const double t22 = cphi[0] * kern[25];
+    const double t23 = sphi[0] * kern[24];
+    const double t24 = -0.0144 * t22 - 0.0144 * t23;
+    const double t25 = cphi[0] * kern[24];
+    const double t26 = sphi[0] * kern[25];
+    const double t27 = 0.0144 * t25 - 0.0144 * t26;
+    const double t28 = 0.00216 * t26 - 0.00216 * t25;
+    const double t29 = -0.00216 * t23 - 0.00216 * t22;
+    const double t30 = qd[0] * (kern[22] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28;
+    const double t31 = qd[0] * (kern[23] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29;
+    const double t32 = qd[0] * t28
+        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+    const double t33 = qd[0] * t29
+        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
+    const double t34 = P->density_scale[1] * (0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19])
+        + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t20 * t24 + t21 * t27)
+        + 0.018 * P->payload_rotary_inertia;
+    const double t35 = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
+        + t8 + t8 + kern[18];
+    const double t36 = 0.0225 * kern[15] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
+        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14);
+    const double t37 = 0.03 * (7.59375e-5 * kern[15] * t11 - 7.59375e-5 * kern[14] * t12)
+        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t36
+        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[8];
+    const double t38 = 0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
+        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[12];
+    const double t39 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+        + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
+        + 0.03 * (0.0225 * P->gravity[1] * kern[14] - 0.0225 * P->gravity[0] * kern[15]);
+    B[0] = 2.6578125e-5 * kern[2] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
+        + P->density_scale[1] * t35 + 1.62e-8 * P->rotary_inertia_scale[1]
+        + P->payload_mass * (t20 * t20 + t21 * t21) + 0.0225 * P->payload_rotary_inertia;
+    B[1] = t34;
+    B[2] = t34;
+    B[3] = 6.2208e-6 * kern[9] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+        + P->payload_mass * (t24 * t24 + t27 * t27) + 0.0144 * P->payload_rotary_inertia;
+    C[0] = P->density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[3] * P->density_scale[0]
+        + P->payload_mass * (t20 * t30 + t21 * t31);
+    C[1] = P->density_scale[1] * t38 + P->payload_mass * (t20 * t32 + t21 * t33);
+    C[2] = P->density_scale[1] * (1.1664e-6 * t15 - 0.003375 * t9 * t11 - 0.003375 * t10 * t12)
+        + P->payload_mass * (t24 * t30 + t27 * t31);
+    C[3] = P->payload_mass * (t24 * t32 + t27 * t33)
+        - 7.46496e-7 * qd[1] * kern[13] * P->density_scale[1];
+    G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
+        - P->density_scale[1] * t39
+        - P->payload_mass * (P->gravity[0] * t20 + P->gravity[1] * t21);
+    G[1] = -P->density_scale[1] * (P->gravity[0] * t9 + P->gravity[1] * t10)
+        - P->payload_mass * (P->gravity[0] * t24 + P->gravity[1] * t27);
+}
+
+
+/* twin_tendon_terms_with_ws at the arm file's parameters.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
+{
+    twin_tendon_terms_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, B, C, G, work);
 }
 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_terms_with_ws with its scratch on this function's stack.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_TERMS_WORK];
+    twin_tendon_terms_with_ws(P, q, qd, B, C, G, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_ws with its scratch on this function's stack.
- * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -596,15 +787,15 @@ void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TEND
 #endif
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 42 reals.
- * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig. */
-double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
+/* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 42 reals.
+ * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
     double t = 0.0;
     int i;
     int k;
-    twin_tendon_inertia_ws(q, B, &work[4]);
+    twin_tendon_inertia_with_ws(P, q, B, &work[4]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         double bqd = 0.0;
         for (k = 0; k < TWIN_TENDON_NQ; ++k) {
@@ -616,9 +807,28 @@ double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const doubl
 }
 
 
+/* twin_tendon_kinetic_energy_with_ws at the arm file's parameters.
+ * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
+{
+    return twin_tendon_kinetic_energy_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, work);
+}
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_kinetic_energy_with_ws with its scratch on this function's stack.
+ * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
+    return twin_tendon_kinetic_energy_with_ws(P, q, qd, work);
+}
+#endif
+
+
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_ws with its scratch on this function's stack.
- * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
@@ -627,19 +837,38 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 #endif
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 58 reals.
- * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 58 reals.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
     double *const G = &work[4]; /* 2 */
-    twin_tendon_terms_ws(q, qd, B, C, G, &work[6]);
+    twin_tendon_terms_with_ws(P, q, qd, B, C, G, &work[6]);
+}
+
+
+/* twin_tendon_coriolis_with_ws at the arm file's parameters.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    twin_tendon_coriolis_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, C, work);
 }
 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_coriolis_with_ws with its scratch on this function's stack.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_CORIOLIS_WORK];
+    twin_tendon_coriolis_with_ws(P, q, qd, C, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_ws with its scratch on this function's stack.
- * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
@@ -731,7 +960,7 @@ static void twin_tendon_fill_nan(double qdd[TWIN_TENDON_NQ])
     }
 }
 
-twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ], double work[])
 {
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
@@ -749,7 +978,7 @@ twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ
     int i;
     int j;
     int k;
-    twin_tendon_status status = TWIN_TENDON_OK;
+    twin_tendon_status status = twin_tendon_params_finite(P) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_INPUT;
     /* qdd is written only at the end, once the inputs are read: it may alias them. */
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         if (!twin_tendon_finite(q[i]) || !twin_tendon_finite(qd[i])) {
@@ -770,9 +999,9 @@ twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ
         twin_tendon_fill_nan(qdd);
         return status;
     }
-    twin_tendon_terms_ws(q, qd, B, C, G, &work[31]);
-    twin_tendon_stiffness(K);
-    twin_tendon_damping(D);
+    twin_tendon_terms_with_ws(P, q, qd, B, C, G, &work[31]);
+    twin_tendon_stiffness_with(P, K);
+    twin_tendon_damping_with(P, D);
     twin_tendon_actuation_ws(q, A, &work[31]);
     /* A state far outside any arm's range overflows the model itself. */
     for (i = 0; i < TWIN_TENDON_NQ * TWIN_TENDON_NQ; ++i) {
@@ -864,7 +1093,20 @@ twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ
     return TWIN_TENDON_OK;
 }
 
+twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ], double work[])
+{
+    return twin_tendon_forward_dynamics_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, u, qdd, work);
+}
+
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+twin_tendon_status twin_tendon_forward_dynamics_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_FORWARD_DYNAMICS_WORK];
+    return twin_tendon_forward_dynamics_with_ws(P, q, qd, u, qdd, work);
+}
+
 twin_tendon_status twin_tendon_forward_dynamics(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ])
 {
@@ -1026,22 +1268,22 @@ static int twin_tendon_all_finite(const double v[], int len)
     return 1;
 }
 
-twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[])
+twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
-     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 45 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 48 reals. */
     double *const K = &work[0];
     double *const A = &work[4];
     int i;
     int c;
-    if (!twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+    if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             R[i] = (double)NAN;
         }
         return TWIN_TENDON_ERR_NONFINITE_INPUT;
     }
-    twin_tendon_stiffness(K);
-    twin_tendon_gravity_ws(q, R, &work[12]);
+    twin_tendon_stiffness_with(P, K);
+    twin_tendon_gravity_with_ws(P, q, R, &work[12]);
     twin_tendon_actuation_ws(q, A, &work[12]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         double s = R[i];
@@ -1056,7 +1298,18 @@ twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ]
     return twin_tendon_all_finite(R, TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
 }
 
+twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[])
+{
+    return twin_tendon_static_residual_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, u, R, work);
+}
+
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+twin_tendon_status twin_tendon_static_residual_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_STATIC_RESIDUAL_WORK];
+    return twin_tendon_static_residual_with_ws(P, q, u, R, work);
+}
+
 twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_STATIC_RESIDUAL_WORK];
@@ -1064,22 +1317,22 @@ twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], c
 }
 #endif
 
-twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     /* K and the scratch of gravity_jacobian in
-     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 41 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 44 reals. */
     double *const K = &work[0];
     int i;
     int x;
-    if (!twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+    if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
         for (i = 0; i < TWIN_TENDON_NQ * TWIN_TENDON_NQ; ++i) {
             J[i] = (double)NAN;
         }
         return TWIN_TENDON_ERR_NONFINITE_INPUT;
     }
     (void)u; /* A does not depend on q for this arm's actuators */
-    twin_tendon_stiffness(K);
-    twin_tendon_gravity_jacobian_ws(q, J, &work[4]);
+    twin_tendon_stiffness_with(P, K);
+    twin_tendon_gravity_jacobian_with_ws(P, q, J, &work[4]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         for (x = 0; x < TWIN_TENDON_NQ; ++x) {
             double s = K[i * TWIN_TENDON_NQ + x] + J[i * TWIN_TENDON_NQ + x];
@@ -1089,7 +1342,18 @@ twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ]
     return twin_tendon_all_finite(J, TWIN_TENDON_NQ * TWIN_TENDON_NQ) ? TWIN_TENDON_OK : TWIN_TENDON_ERR_NONFINITE_RESULT;
 }
 
+twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    return twin_tendon_static_jacobian_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, u, J, work);
+}
+
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+twin_tendon_status twin_tendon_static_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_STATIC_JACOBIAN_WORK];
+    return twin_tendon_static_jacobian_with_ws(P, q, u, J, work);
+}
+
 twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_STATIC_JACOBIAN_WORK];
@@ -1101,8 +1365,8 @@ twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], c
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
- * 47 reals. Returns 0 when r or jac is not finite. */
-static int twin_tendon_linearise(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double lambda,
+ * 50 reals. Returns 0 when r or jac is not finite. */
+static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double lambda,
     const double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
 {
@@ -1114,7 +1378,7 @@ static int twin_tendon_linearise(const double q[TWIN_TENDON_NQ], const double u[
     int i;
     int x;
     int c;
-    twin_tendon_gravity_ws(q, G, &work[10]);
+    twin_tendon_gravity_with_ws(P, q, G, &work[10]);
     twin_tendon_actuation_ws(q, A, &work[10]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         double kq = 0.0;
@@ -1138,7 +1402,7 @@ static int twin_tendon_linearise(const double q[TWIN_TENDON_NQ], const double u[
     if (jac == 0) {
         return 1;
     }
-    twin_tendon_gravity_jacobian_ws(q, jac, &work[10]);
+    twin_tendon_gravity_jacobian_with_ws(P, q, jac, &work[10]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         for (x = 0; x < TWIN_TENDON_NQ; ++x) {
             double d = jac[i * TWIN_TENDON_NQ + x];
@@ -1148,12 +1412,12 @@ static int twin_tendon_linearise(const double q[TWIN_TENDON_NQ], const double u[
     return twin_tendon_all_finite(jac, TWIN_TENDON_NQ * TWIN_TENDON_NQ);
 }
 
-twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
+twin_tendon_status twin_tendon_equilibrium_with_ws(const twin_tendon_params *P, const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
     double work[])
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
      * step dq, the candidate, a copy of jac for the solver, then the linearisation's
-     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 71 reals. */
+     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 74 reals. */
     double *const K = &work[0];
     double *const r = &work[4];
     double *const jac = &work[6];
@@ -1176,10 +1440,10 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], do
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         q[i] = 0.0;
     }
-    if (!twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
+    if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
         status = TWIN_TENDON_ERR_NONFINITE_INPUT;
     }
-    twin_tendon_stiffness(K);
+    twin_tendon_stiffness_with(P, K);
     while (status == TWIN_TENDON_OK && lambda < 1.0) {
         double dl;
         double reach;
@@ -1188,7 +1452,7 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], do
         int it;
         /* Predictor along the tangent dq/dlambda = -J^-1 (G - A u), its load step cut so
          * that no segment bends by more than the step bound. */
-        if (!twin_tendon_linearise(q, u, lambda, K, r, jac, load, &scale, lw)) {
+        if (!twin_tendon_linearise(P, q, u, lambda, K, r, jac, load, &scale, lw)) {
             status = TWIN_TENDON_ERR_NONFINITE_RESULT;
             break;
         }
@@ -1226,7 +1490,7 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], do
                 break;
             }
             ++iterations;
-            if (!twin_tendon_linearise(trial, u, target, K, r, jac, load, &scale, lw)) {
+            if (!twin_tendon_linearise(P, trial, u, target, K, r, jac, load, &scale, lw)) {
                 status = TWIN_TENDON_ERR_NONFINITE_RESULT;
                 break;
             }
@@ -1251,7 +1515,7 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], do
                 for (i = 0; i < TWIN_TENDON_NQ; ++i) {
                     cand[i] = trial[i] + alpha * dq[i];
                 }
-                if (twin_tendon_linearise(cand, u, target, K, r, 0, load, &cscale, lw)) {
+                if (twin_tendon_linearise(P, cand, u, target, K, r, 0, load, &cscale, lw)) {
                     const double cres = twin_tendon_norm(r, TWIN_TENDON_NQ);
                     if (cres < res || cres <= TWIN_TENDON_EQUILIBRIUM_TOLERANCE * cscale) {
                         memcpy(trial, cand, sizeof(*cand) * TWIN_TENDON_NQ);
@@ -1291,7 +1555,7 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], do
     if (status != TWIN_TENDON_OK) {
         return status;
     }
-    if (!twin_tendon_linearise(q, u, 1.0, K, r, jac, load, &scale, lw)) {
+    if (!twin_tendon_linearise(P, q, u, 1.0, K, r, jac, load, &scale, lw)) {
         return TWIN_TENDON_ERR_NONFINITE_RESULT;
     }
     if (info != 0) {
@@ -1309,7 +1573,19 @@ twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], do
     return TWIN_TENDON_OK;
 }
 
+twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
+    double work[])
+{
+    return twin_tendon_equilibrium_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, u, q, info, work);
+}
+
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+twin_tendon_status twin_tendon_equilibrium_with(const twin_tendon_params *P, const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info)
+{
+    double work[TWIN_TENDON_EQUILIBRIUM_WORK];
+    return twin_tendon_equilibrium_with_ws(P, u, q, info, work);
+}
+
 twin_tendon_status twin_tendon_equilibrium(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info)
 {
     double work[TWIN_TENDON_EQUILIBRIUM_WORK];
@@ -1375,13 +1651,13 @@ static int twin_tendon_free_optimum(const double hess[], const double f[], const
     return 1;
 }
 
-twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
     const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU], double work[])
 {
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
      * polish's Gram matrix, then G, K and the scratch of actuation and gravity, in
-     * work[0 .. TWIN_TENDON_REGULATE_WORK), 113 reals. */
+     * work[0 .. TWIN_TENDON_REGULATE_WORK), 116 reals. */
     double *const A = &work[0];
     double *const M = &work[8];
     double *const b = &work[16];
@@ -1413,7 +1689,7 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
         u[j] = 0.0 < twin_tendon_u_lo[j] ? twin_tendon_u_lo[j] : (0.0 > twin_tendon_u_hi[j] ? twin_tendon_u_hi[j] : 0.0);
         fixed[j] = u[j] != 0.0;
     }
-    if (!twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(qd, TWIN_TENDON_NQ) ||
+    if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(qd, TWIN_TENDON_NQ) ||
         !twin_tendon_all_finite(target, TWIN_TENDON_NY) || !twin_tendon_all_finite(kp, TWIN_TENDON_NY) ||
         !twin_tendon_all_finite(kd, TWIN_TENDON_NY)) {
         return TWIN_TENDON_ERR_NONFINITE_INPUT;
@@ -1434,8 +1710,8 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
         b[r] = kp[r] * (target[r] - y[r]) - kd[r] * yd[r];
     }
     if (law == TWIN_TENDON_LAW_COMPENSATED) {
-        twin_tendon_gravity_ws(q, G, rest);
-        twin_tendon_stiffness(K);
+        twin_tendon_gravity_with_ws(P, q, G, rest);
+        twin_tendon_stiffness_with(P, K);
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             for (j = 0; j < TWIN_TENDON_NQ; ++j) {
                 G[i] += K[i * TWIN_TENDON_NQ + j] * q[j];
@@ -1602,7 +1878,20 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
     return status;
 }
 
+twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU], double work[])
+{
+    return twin_tendon_regulate_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, law, target, kp, kd, q, qd, u, work);
+}
+
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+twin_tendon_status twin_tendon_regulate_with(const twin_tendon_params *P, twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU])
+{
+    double work[TWIN_TENDON_REGULATE_WORK];
+    return twin_tendon_regulate_with_ws(P, law, target, kp, kd, q, qd, u, work);
+}
+
 twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
     const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU])
 {

@@ -85,6 +85,40 @@ typedef enum twin_tendon_status {
 } twin_tendon_status;
 
 /*
+ * Runtime parameters. The model is linear in each of them, so they are applied
+ * exactly at run time, not folded in when the code was generated: every function whose
+ * result depends on one has a _with form taking `const twin_tendon_params *P` first (never
+ * a null pointer), and the form without it means the arm file's values,
+ * TWIN_TENDON_PARAMS_DEFAULT. Scales are factors on the arm file's profiles (1 there);
+ * the payload (a point mass and rotary inertia at the tip) and gravity are absolute,
+ * so an arm without a payload in its file can pick one up. A non-finite parameter is
+ * a non-finite input. Changing them changes the plant the controller assumes: a
+ * wrong payload or gravity is a wrong feed-forward, so bound and validate them as
+ * any other input.
+ */
+typedef struct {
+    /* factor on each segment's mass density (1 = arm file) */
+    double density_scale[2];
+    /* factor on each segment's rotary inertia per length (1 = arm file) */
+    double rotary_inertia_scale[2];
+    /* factor on each segment's bending stiffness (1 = arm file) */
+    double stiffness_scale[2];
+    /* factor on each segment's bending damping (1 = arm file) */
+    double damping_scale[2];
+    /* tip payload mass [kg] */
+    double payload_mass;
+    /* tip payload rotary inertia [kg m^2] */
+    double payload_rotary_inertia;
+    /* gravity (g_x, g_y) in the base frame [m/s^2] */
+    double gravity[2];
+} twin_tendon_params;
+
+/** The arm file's values, as an initialiser: `twin_tendon_params p = TWIN_TENDON_PARAMS_INIT;`. */
+#define TWIN_TENDON_PARAMS_INIT {{1.0, 1.0}, {1.0, 1.0}, {1.0, 1.0}, {1.0, 1.0}, 0.02, 2e-7, {0.0, -9.81}}
+/** The arm file's values. */
+extern const twin_tendon_params TWIN_TENDON_PARAMS_DEFAULT;
+
+/*
  * The workspace the model is tested in, from the arm file's [sampling] table: per
  * segment j, base bending |L_j q_{j,0}| <= RANGE_BASE_BENDING and extra bending
  * sum_{i>=1} L_j |q_{j,i}| / (i+1) <= RANGE_EXTRA_BENDING [rad]. Define before including
@@ -117,35 +151,40 @@ twin_tendon_status twin_tendon_check_range(const double q[TWIN_TENDON_NQ]);
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
+void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
+void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[]);
+void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Stiffness matrix K, n x n, constant and block diagonal: elastic energy 1/2 q^T K q.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+ * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
  */
 void twin_tendon_stiffness(double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_stiffness_with(const twin_tendon_params *P, double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 
 /**
  * Damping matrix D, n x n, constant: Rayleigh dissipation 1/2 q'^T D q'.
- * Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+ * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
  */
 void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_damping_with(const twin_tendon_params *P, double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
@@ -179,22 +218,26 @@ void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TW
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
+    double G[TWIN_TENDON_NQ], double work[]);
+void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
     double G[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
  */
 double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
+double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
  */
 double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double work[]);
+double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
@@ -206,33 +249,38 @@ double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double wo
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 234 add, 435 mul, 9 div, 2 sqrt, 6 trig.
+ * Operations: 247 add, 477 mul, 9 div, 2 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ], double work[]);
+twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
+void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns TWIN_TENDON_OK, TWIN_TENDON_ERR_NONFINITE_INPUT (R is then NaN) or
  * TWIN_TENDON_ERR_NONFINITE_RESULT.
- * Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[]);
+twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[]);
 
 /**
  * Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq, n x n, row-major.
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * twin_tendon_static_residual.
- * Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
+twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /** What twin_tendon_equilibrium did. */
 typedef struct {
@@ -275,10 +323,12 @@ typedef struct {
  * Returns TWIN_TENDON_OK; TWIN_TENDON_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * TWIN_TENDON_ERR_NONFINITE_INPUT (q = 0); TWIN_TENDON_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
- * Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
+ * Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
+ * Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
+    double work[]);
+twin_tendon_status twin_tendon_equilibrium_with_ws(const twin_tendon_params *P, const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
     double work[]);
 
 /** Number of controlled outputs y = S q of twin_tendon_regulate. */
@@ -311,10 +361,12 @@ typedef enum twin_tendon_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
+ * Operations before the allocation, at most: 163 add, 276 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
 twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU], double work[]);
+twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
     const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU], double work[]);
 
 /*
@@ -327,21 +379,21 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
 #define TWIN_TENDON_INERTIA_WORK 38 /* 304 bytes */
-#define TWIN_TENDON_GRAVITY_WORK 33 /* 264 bytes */
+#define TWIN_TENDON_GRAVITY_WORK 36 /* 288 bytes */
 #define TWIN_TENDON_ACTUATION_WORK 1 /* 8 bytes */
 #define TWIN_TENDON_TIP_JACOBIAN_WORK 28 /* 224 bytes */
-#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 37 /* 296 bytes */
-#define TWIN_TENDON_POTENTIAL_ENERGY_WORK 27 /* 216 bytes */
+#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 40 /* 320 bytes */
+#define TWIN_TENDON_POTENTIAL_ENERGY_WORK 28 /* 224 bytes */
 #define TWIN_TENDON_TERMS_WORK 52 /* 416 bytes */
 #define TWIN_TENDON_KINETIC_ENERGY_WORK 42 /* 336 bytes */
 #define TWIN_TENDON_CORIOLIS_WORK 58 /* 464 bytes */
 #define TWIN_TENDON_POSE_WORK 26 /* 208 bytes */
 #define TWIN_TENDON_FORWARD_DYNAMICS_WORK 83 /* 664 bytes */
-#define TWIN_TENDON_STATIC_RESIDUAL_WORK 45 /* 360 bytes */
-#define TWIN_TENDON_STATIC_JACOBIAN_WORK 41 /* 328 bytes */
-#define TWIN_TENDON_EQUILIBRIUM_WORK 71 /* 568 bytes */
-#define TWIN_TENDON_REGULATE_WORK 113 /* 904 bytes */
-#define TWIN_TENDON_WORK_LEN 113 /* 904 bytes */
+#define TWIN_TENDON_STATIC_RESIDUAL_WORK 48 /* 384 bytes */
+#define TWIN_TENDON_STATIC_JACOBIAN_WORK 44 /* 352 bytes */
+#define TWIN_TENDON_EQUILIBRIUM_WORK 74 /* 592 bytes */
+#define TWIN_TENDON_REGULATE_WORK 116 /* 928 bytes */
+#define TWIN_TENDON_WORK_LEN 116 /* 928 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*
@@ -351,22 +403,37 @@ twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double tar
  * firmware built with a stack limit (-Wstack-usage=) should leave them out.
  */
 void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_inertia_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 void twin_tendon_gravity(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ]);
+void twin_tendon_gravity_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ]);
 void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_NQ * TWIN_TENDON_NU]);
 void twin_tendon_pose(const double q[TWIN_TENDON_NQ], int segment, double sigma, double pose[3]);
 void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_TENDON_NQ]);
 void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
     double G[TWIN_TENDON_NQ]);
+void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
+    double G[TWIN_TENDON_NQ]);
 double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ]);
+double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ]);
 double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ]);
+double twin_tendon_potential_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ]);
 twin_tendon_status twin_tendon_forward_dynamics(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_forward_dynamics_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
+    double qdd[TWIN_TENDON_NQ]);
 void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_static_residual_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ]);
 twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
+twin_tendon_status twin_tendon_static_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ]);
 twin_tendon_status twin_tendon_equilibrium(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info);
+twin_tendon_status twin_tendon_equilibrium_with(const twin_tendon_params *P, const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info);
 twin_tendon_status twin_tendon_regulate(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
+    const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU]);
+twin_tendon_status twin_tendon_regulate_with(const twin_tendon_params *P, twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
     const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double u[TWIN_TENDON_NU]);
 #endif
 

@@ -585,6 +585,326 @@ G_REGSAT = np.array([
         0.0, 0.0
     ],
 ])
+G_THETA = np.array([
+    [
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    ],
+    [
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    ],
+    [
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    ],
+    [
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    ],
+    [
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    ],
+    [
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    ],
+])
+G_PB = np.array([
+    [
+        5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6
+    ],
+    [
+        5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6
+    ],
+    [
+        5.84569113852933e-5, 1.23187536689398e-5, 1.23187536689398e-5, 3.00884882413536e-6
+    ],
+    [
+        3.19327402854947e-5, 6.77565540604032e-6, 6.77565540604032e-6, 2.15336800342118e-6
+    ],
+    [
+        5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6
+    ],
+    [
+        2.47364166632721e-5, 4.20347823878806e-6, 4.20347823878806e-6, 2.47036195698631e-6
+    ],
+])
+G_PC = np.array([
+    [
+        0.0, 0.0, 0.0, 0.0
+    ],
+    [
+        6.05111923828135e-17, -1.53019125e-16, 2.62574156250001e-16, 7.87320000000017e-18
+    ],
+    [
+        5.22392976667961e-8, 4.5882106714803e-8, -6.26943672656953e-9, 2.51450910894331e-9
+    ],
+    [
+        2.7995717769377e-7, 1.42449828374932e-9, 1.37031593239707e-7, 1.16830235284618e-8
+    ],
+    [
+        5.18695143749999e-17, 3.025611225e-16, -2.93805225e-16, -3.77913600000007e-18
+    ],
+    [
+        -5.65059015076123e-8, -2.60582679173834e-7, 3.46633193812861e-7, 1.03353300319821e-8
+    ],
+])
+G_PG = np.array([
+    [
+        2.010397512375e-2, 3.639455064e-3
+    ],
+    [
+        2.01039751358802e-2, 3.63945506742565e-3
+    ],
+    [
+        2.13046701787662e-2, 3.78027263124414e-3
+    ],
+    [
+        -3.60472902829967e-3, 8.52142934955896e-4
+    ],
+    [
+        2.01039751263766e-2, 3.63945506532435e-3
+    ],
+    [
+        3.82818764116038e-4, -3.43764997270473e-3
+    ],
+])
+G_PK = np.array([
+    [
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    ],
+    [
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    ],
+    [
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    ],
+    [
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    ],
+    [
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    ],
+    [
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    ],
+])
+G_PD = np.array([
+    [
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    ],
+    [
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    ],
+    [
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    ],
+    [
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    ],
+    [
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    ],
+    [
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    ],
+])
+G_PT = np.array([
+    [
+        1.5131062193625e-5
+    ],
+    [
+        3.53284326958008e-6
+    ],
+    [
+        1.71547198803255e-6
+    ],
+    [
+        6.09563142428277e-7
+    ],
+    [
+        9.47273902678196e-6
+    ],
+    [
+        2.7879079648953e-6
+    ],
+])
+G_PV = np.array([
+    [
+        -1.2299900625e-1
+    ],
+    [
+        -1.22999006085645e-1
+    ],
+    [
+        -9.68411186488876e-2
+    ],
+    [
+        1.29053715485378
+    ],
+    [
+        -1.22999006219671e-1
+    ],
+    [
+        5.6936225020247e-1
+    ],
+])
+G_PRHS = np.array([
+    [
+        -2.007517512375e-2, -3.722375064e-3
+    ],
+    [
+        -1.98927564053803e-2, -3.54105508002576e-3
+    ],
+    [
+        -2.51737131171795e-2, -1.18371384282481e-3
+    ],
+    [
+        -6.47944292315156e-2, 3.18381689467791e-2
+    ],
+    [
+        -2.00509313763767e-2, -3.70648707792453e-3
+    ],
+    [
+        -3.91744178024555e-2, -2.16658083923565e-2
+    ],
+])
+G_PBNORM = np.array([
+    [
+        7.0983185625e-5
+    ],
+    [
+        7.0983185625e-5
+    ],
+    [
+        7.07756650542331e-5
+    ],
+    [
+        3.8708395691535e-5
+    ],
+    [
+        7.0983185625e-5
+    ],
+    [
+        2.89398949020602e-5
+    ],
+])
+G_PDG = np.array([
+    [
+        1.4255386171875e-3, 3.151953e-4, 3.151953e-4, 1.58922e-4
+    ],
+    [
+        1.42553861429555e-3, 3.15195299110016e-4, 3.15195299110016e-4, 1.58921999525464e-4
+    ],
+    [
+        1.10833961112028e-3, 2.73680933650022e-4, 2.73680933650022e-4, 1.4337790671068e-4
+    ],
+    [
+        -2.02165005846465e-3, -4.97205551519847e-4, -4.97205551519847e-4, -2.43178015872141e-4
+    ],
+    [
+        1.4255386165051e-3, 3.15195299655934e-4, 3.15195299655934e-4, 1.58921999800717e-4
+    ],
+    [
+        -1.85215329384274e-3, -2.15937786829076e-4, -2.15937786829076e-4, -6.06993191329821e-5
+    ],
+])
+G_PR = np.array([
+    [
+        2.009722512375e-2, 3.724055064e-3
+    ],
+    [
+        1.98789751553802e-2, 3.54945508002565e-3
+    ],
+    [
+        2.51709201787662e-2, 1.17027263124414e-3
+    ],
+    [
+        6.48027709717004e-2, -3.18448570650441e-2
+    ],
+    [
+        2.00702251263766e-2, 3.70245507792435e-3
+    ],
+    [
+        3.9157818764116e-2, 2.16723500272953e-2
+    ],
+])
+G_PEQOK = np.array([
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+])
+G_PQEQ = np.array([
+    [
+        -3.9653951374293, -1.01847761214597
+    ],
+    [
+        -2.94307073178857, 4.09869773624341e-3
+    ],
+    [
+        -3.86490922293843, 2.99144685868225
+    ],
+    [
+        -6.84994931874387, -3.99267402203917
+    ],
+    [
+        -1.53730048379513, -9.73402958492302
+    ],
+    [
+        2.59571528236415, 5.28642522634577
+    ],
+])
+G_PUCOMP = np.array([
+    [
+        2.20806979611111e1, 2.0e-1, 2.0e-1, 5.18960067013889
+    ],
+    [
+        1.26883368611289e1, 2.0e-1, 2.0e-1, 9.43612844147325
+    ],
+    [
+        2.0e-1, 4.9541509505249, 4.87341216095057, 2.0e-1
+    ],
+    [
+        2.0e-1, 2.5e1, 2.5e1, 2.0e-1
+    ],
+    [
+        2.35537882485586e1, 2.0e-1, 2.0e-1, 9.28769095612711
+    ],
+    [
+        2.5e1, 2.0e-1, 2.0e-1, 9.49565624214522
+    ],
+])
+G_PREGSAT = np.array([
+    [
+        0.0
+    ],
+    [
+        0.0
+    ],
+    [
+        0.0
+    ],
+    [
+        1.0
+    ],
+    [
+        0.0
+    ],
+    [
+        1.0
+    ],
+])
 SCALE_B = 3.158398125e-5
 SCALE_C = 1.72177574906104e-7
 SCALE_G = 1.362976875e-2
@@ -601,6 +921,17 @@ SCALE_JS = 2.25e-3
 SCALE_QEQ = 1.54901032364002e1
 SCALE_UBASE = 2.5e1
 SCALE_UCOMP = 2.5e1
+SCALE_PB = 5.8622045625e-5
+SCALE_PC = 3.46633193812861e-7
+SCALE_PG = 2.13046701787662e-2
+SCALE_PK = 2.925e-3
+SCALE_PD = 3.15e-5
+SCALE_PT = 1.5131062193625e-5
+SCALE_PV = 1.29053715485378
+SCALE_PDG = 2.02165005846465e-3
+SCALE_PR = 6.48027709717004e-2
+SCALE_PQEQ = 9.73402958492302
+SCALE_PUCOMP = 2.5e1
 
 
 def _check(what, got, want, scale):
@@ -735,6 +1066,57 @@ def test_invalid_arguments():
     # The unchecked functions pass a NaN through to what depends on it.
     assert np.isnan(arm.inertia(q)).any()
     assert math.isnan(arm.pose(q, arm.NSEG - 1, 1.0)[2])
+
+
+def _test_params(c):
+    """The golden parameter set G_THETA[c] (every field changed) as keyword arguments."""
+    theta = list(G_THETA[c])
+    out = {}
+    for name, default in arm.PARAMS_DEFAULT._asdict().items():
+        if isinstance(default, tuple):
+            out[name] = tuple(theta[: len(default)])
+            theta = theta[len(default):]
+        else:
+            out[name] = theta.pop(0)
+    return out
+
+
+def test_parameter_variants_match_the_reference_at_changed_values():
+    for c, label in enumerate(LABELS):
+        q, qd, u = _state(c)
+        p = _test_params(c)
+        np.testing.assert_array_equal(arm.terms(q, qd, **arm.PARAMS_DEFAULT._asdict())[0], arm.terms(q, qd)[0])
+        _check(f"inertia [{label}]", arm.inertia(q, **p), G_PB[c], SCALE_PB)
+        _check(f"coriolis [{label}]", arm.coriolis(q, qd, **p), G_PC[c], SCALE_PC)
+        _check(f"gravity [{label}]", arm.gravity(q, **p), G_PG[c], SCALE_PG)
+        b, cc, g = arm.terms(q, qd, **p)
+        _check(f"terms: B [{label}]", b, G_PB[c], SCALE_PB)
+        _check(f"terms: C [{label}]", cc, G_PC[c], SCALE_PC)
+        _check(f"terms: G [{label}]", g, G_PG[c], SCALE_PG)
+        _check(f"stiffness [{label}]", arm.stiffness(**p), G_PK[c], SCALE_PK)
+        _check(f"damping [{label}]", arm.damping(**p), G_PD[c], SCALE_PD)
+        _check(f"kinetic energy [{label}]", [arm.kinetic_energy(q, qd, **p)], G_PT[c], SCALE_PT)
+        _check(f"potential energy [{label}]", [arm.potential_energy(q, **p)], G_PV[c], SCALE_PV)
+        _check(f"gravity_jacobian [{label}]", arm.gravity_jacobian(q, **p), G_PDG[c], SCALE_PDG)
+        _check(f"static_residual [{label}]", arm.static_residual(q, u, **p), G_PR[c], SCALE_PR)
+        qdd = np.asarray(arm.forward_dynamics(q, qd, u, **p))
+        b_ref = np.asarray(G_PB[c]).reshape(arm.NQ, arm.NQ)
+        res = np.max(np.abs(b_ref @ qdd - np.asarray(G_PRHS[c])))
+        bound = RTOL * (G_PBNORM[c][0] * np.max(np.abs(qdd)) + np.max(np.abs(G_PRHS[c])))
+        assert res <= bound, f"forward dynamics [{label}]: residual {res} > {bound}"
+        if G_PEQOK[c][0] > 0.5:
+            eq = arm.equilibrium(G_UEQ[c][: arm.NU], **p)
+            _check(f"equilibrium [{label}]", eq["q"], G_PQEQ[c], SCALE_PQEQ)
+        uc, sat = arm.regulate(arm.LAW_COMPENSATED, G_YTARGET[c], G_KP[c], G_KD[c], q, qd, **p)
+        _check(f"regulate compensated [{label}]", uc, G_PUCOMP[c], SCALE_PUCOMP)
+        assert sat == (G_PREGSAT[c][0] > 0.5), f"regulate [{label}]: saturated {sat}"
+    bad = dict(arm.PARAMS_DEFAULT._asdict(), payload_mass=math.nan)
+    try:
+        arm.forward_dynamics(G_Q[2], G_QD[2], G_U[2][: arm.NU], **bad)
+    except arm.DynamicsError:
+        pass
+    else:
+        raise AssertionError("forward dynamics accepted a NaN parameter")
 
 
 if __name__ == "__main__":

@@ -44,6 +44,7 @@ actuator limits and an emergency stop, before it drives hardware; follow local
 regulations and qualified engineering practice.
 """
 
+import collections
 import math
 
 import numpy as np
@@ -124,20 +125,17 @@ _SERIES = (
 # _KERNEL_COEF[_KERNEL_START[r]:_KERNEL_START[r + 1]] with nu[b + _KERNEL_FIRST[r]:]; a row
 # is shared by every segment (and by real and imaginary parts) with the same weight shape.
 _KERNEL_START = (
-    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 37, 40, 43, 47, 50, 52, 58, 62, 67,
+    0, 5, 7, 10, 12, 14, 16, 19, 23, 27, 30, 33, 39, 43, 48,
 )
 _KERNEL_FIRST = (
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 )
 _KERNEL_COEF = np.array((
-    1.32890625e-6, -2.21484375e-6, 9.4921875e-7, 0.0, -6.328125e-8, 0.5, -0.5,
-    0.16666666666666666, 0.0, -0.16666666666666666, 3.1104e-7, -5.184e-7, 2.2217142857142857e-7,
-    0.0, -1.4811428571428572e-8, 0.5, 0.5, -0.01125, -0.01125, 0.01125, 0.01125, 3.24e-6,
-    -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8, 0.00193134375, 0.0,
-    -0.00193134375, -0.003310875, -0.003310875, 0.08333333333333333, 0.05, -0.08333333333333333,
-    -0.05, -0.001125, -0.0016875, -0.0005625, 0.3333333333333333, 0.5, 0.16666666666666666,
-    -0.00014485078125, -8.691046875e-5, 0.00014485078125, 8.691046875e-5, 0.0003310875,
-    0.00049663125, 0.00016554375, 0.038626875, -0.038626875, 0.005555555555555556,
+    0.05, -0.08333333333333333, 0.03571428571428571, 0.0, -0.002380952380952381, 0.5, -0.5,
+    0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125, 0.01125,
+    0.01125, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
+    0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.3333333333333333, 0.5,
+    0.16666666666666666, -0.001125, -0.0016875, -0.0005625, 0.005555555555555556,
     -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
     -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
     0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
@@ -245,15 +243,56 @@ def _vector(v, length, what):
         raise ValueError(f"{what} must have {length} entries, got {a.shape[0]}")
     return [float(x) for x in a]
 
+
+# Runtime parameters. The model is linear in each of them, so they are applied exactly
+# at run time: every function whose result depends on one takes them as keyword-only
+# arguments, the arm file's values (PARAMS_DEFAULT) by default, e.g.
+# terms(q, qd, payload_mass=0.05). Scales are factors on the arm file's profiles (1
+# there); the payload (a point mass and rotary inertia at the tip) and gravity are
+# absolute. A wrong payload or gravity is a wrong feed-forward: bound and validate them
+# as any other input.
+Params = collections.namedtuple("Params", "density_scale rotary_inertia_scale stiffness_scale damping_scale payload_mass payload_rotary_inertia gravity")
+Params.__doc__ = "Runtime parameters: " + "; ".join([
+    "density_scale: factor on each segment's mass density (1 = arm file)",
+    "rotary_inertia_scale: factor on each segment's rotary inertia per length (1 = arm file)",
+    "stiffness_scale: factor on each segment's bending stiffness (1 = arm file)",
+    "damping_scale: factor on each segment's bending damping (1 = arm file)",
+    "payload_mass: tip payload mass [kg]",
+    "payload_rotary_inertia: tip payload rotary inertia [kg m^2]",
+    "gravity: gravity (g_x, g_y) in the base frame [m/s^2]",
+])
+PARAMS_DEFAULT = Params(
+    density_scale=(1.0, 1.0,),
+    rotary_inertia_scale=(1.0, 1.0,),
+    stiffness_scale=(1.0, 1.0,),
+    damping_scale=(1.0, 1.0,),
+    payload_mass=0.02,
+    payload_rotary_inertia=2e-7,
+    gravity=(0.0, -9.81,),
+)
+_PARAM_SHAPES = (("density_scale", 2), ("rotary_inertia_scale", 2), ("stiffness_scale", 2), ("damping_scale", 2), ("payload_mass", None), ("payload_rotary_inertia", None), ("gravity", 2), )
+
+
+def _params(*values):
+    """The keyword arguments as a Params of floats and tuples, lengths checked."""
+    out = []
+    for (what, length), v in zip(_PARAM_SHAPES, values):
+        out.append(float(v) if length is None else tuple(_vector(v, length, what)))
+    return Params(*out)
+
+
+def _params_finite(p):
+    return all(math.isfinite(x) for v in p for x in (v if isinstance(v, tuple) else (v,)))
+
 # pairs (row, moment base)
 _INERTIA_ROWS = _kernel_plan((
-    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 3, 12, 4, 0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 4, 12, 4, 18,
+    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 0, 12, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 3, 12, 3, 18,
 ))
 
-def inertia(q):
+def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
 
-    Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -265,6 +304,7 @@ def inertia(q):
     cphi[0] = math.cos(phi)
     sphi[0] = math.sin(phi)
     kern = _kernels(_INERTIA_ROWS, nu)
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NQ))
     t0 = (0.0225 * kern[7] * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
         + 0.0225 * kern[6] * (0.0036 * kern[1] * cphi[0] - 0.0036 * kern[2] * sphi[0]))
@@ -275,32 +315,39 @@ def inertia(q):
     t5 = 0.0144 * cphi[0] * kern[12] - 0.0144 * sphi[0] * kern[13]
     t6 = (0.0225 * kern[6] * (0.000432 * kern[3] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         - 0.0225 * kern[7] * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + kern[11] + 0.02 * (t2 * t4 + t3 * t5) + 1.008e-8)
-    out[0, 0] = (kern[0]
-        + 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t1 + t1
-        + kern[10] + 0.02 * (t2 * t2 + t3 * t3) + 3.195e-8)
-    out[0, 1] = t6
-    out[1, 0] = t6
-    out[1, 1] = kern[5] + 0.02 * (t4 * t4 + t5 * t5) + 6.336e-9
+        + kern[11])
+    t7 = (P.density_scale[1] * t6 + 6.48e-9 * P.rotary_inertia_scale[1]
+        + P.payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P.payload_rotary_inertia)
+    t8 = (0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t1 + t1
+        + kern[10])
+    out[0, 0] = (2.6578125e-5 * kern[0] * P.density_scale[0]
+        + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t8
+        + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t2 * t2 + t3 * t3)
+        + 0.0225 * P.payload_rotary_inertia)
+    out[0, 1] = t7
+    out[1, 0] = t7
+    out[1, 1] = (6.2208e-6 * kern[5] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
+        + P.payload_mass * (t4 * t4 + t5 * t5) + 0.0144 * P.payload_rotary_inertia)
     return out
 
 
-def coriolis(q, qd):
+def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
     """
-    return terms(q, qd)[1]
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
+    return terms(q, qd, **P._asdict())[1]
 
 # pairs (row, moment base)
 _GRAVITY_ROWS = _kernel_plan((
-    1, 12, 1, 18, 2, 12, 2, 18, 6, 0, 4, 12, 4, 18, 9, 0, 10, 0,
+    2, 0, 2, 6, 1, 12, 1, 18, 2, 12, 2, 18, 3, 0, 3, 6, 4, 6, 5, 0, 3, 12, 3, 18,
 ))
 
-def gravity(q):
+def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Gravity vector G(q) = dU_g/dq, length NQ.
 
-    Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -312,37 +359,48 @@ def gravity(q):
     cphi[0] = math.cos(phi)
     sphi[0] = math.sin(phi)
     kern = _kernels(_GRAVITY_ROWS, nu)
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros(NQ)
-    out[0] = (kern[7] + 9.81 * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
-        - kern[8] + 0.1962 * (kern[4] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]))
-    out[1] = (9.81 * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + 0.1962 * (0.0144 * cphi[0] * kern[5] - 0.0144 * sphi[0] * kern[6]))
+    t0 = (P.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
+        + P.gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
+        + 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7]))
+    t1 = (P.gravity[0] * (kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0])
+        + P.gravity[1] * (kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]))
+    t2 = (P.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
+        + P.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]))
+    t3 = (P.gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
+        + P.gravity[1] * (0.0144 * cphi[0] * kern[10] - 0.0144 * sphi[0] * kern[11]))
+    out[0] = (-P.density_scale[0] * (0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0])
+        - P.density_scale[1] * t0 - P.payload_mass * t1)
+    out[1] = -P.density_scale[1] * t2 - P.payload_mass * t3
     return out
 
 
-def stiffness():
+def stiffness(*, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Stiffness matrix K (constant, block diagonal): elastic energy 1/2 q^T K q.
 
-    Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+    Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NQ))
-    out[0, 0] = 0.00225
+    out[0, 0] = 0.00225 * P.stiffness_scale[0]
     out[0, 1] = 0.0
     out[1, 0] = 0.0
-    out[1, 1] = 0.00108
+    out[1, 1] = 0.00108 * P.stiffness_scale[1]
     return out
 
 
-def damping():
+def damping(*, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Damping matrix D (constant): dissipation 1/2 q'^T D q'.
 
-    Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+    Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NQ))
-    out[0, 0] = 4.5e-5
+    out[0, 0] = 4.5e-5 * P.damping_scale[0]
     out[0, 1] = 0.0
     out[1, 0] = 0.0
-    out[1, 1] = 2.4e-5
+    out[1, 1] = 2.4e-5 * P.damping_scale[1]
     return out
 
 
@@ -365,7 +423,7 @@ def actuation(q):
 
 # pairs (row, moment base)
 _TIP_JACOBIAN_ROWS = _kernel_plan((
-    5, 6, 6, 0, 4, 12, 4, 18,
+    4, 6, 5, 0, 3, 12, 3, 18,
 ))
 
 def tip_jacobian(q):
@@ -394,13 +452,13 @@ def tip_jacobian(q):
 
 # pairs (row, moment base)
 _POTENTIAL_ENERGY_ROWS = _kernel_plan((
-    16, 6, 1, 12, 1, 18,
+    1, 0, 1, 6, 1, 12, 1, 18,
 ))
 
-def potential_energy(q):
+def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Potential energy [J]: gravity (zero at q = 0) plus elastic 1/2 q^T K q.
 
-    Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -412,30 +470,36 @@ def potential_energy(q):
     cphi[0] = math.cos(phi)
     sphi[0] = math.sin(phi)
     kern = _kernels(_POTENTIAL_ENERGY_ROWS, nu)
-    return (kern[0] + 9.81 * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
-        + 0.044145 * nu[6]
-        + 0.1962 * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0])
-        + 0.5 * (0.00225 * q[0] * q[0] + 0.00108 * q[1] * q[1]))
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
+    t0 = (P.gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
+        + P.gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
+        + 0.03 * (0.15 * nu[0] * P.gravity[0] + 0.15 * nu[6] * P.gravity[1]))
+    t1 = (P.gravity[0] * (0.15 * nu[0] + 0.12 * nu[12] * cphi[0] - 0.12 * nu[18] * sphi[0])
+        + P.gravity[1] * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0]))
+    return (0.5 * (0.00225 * P.stiffness_scale[0] * q[0] * q[0] + 0.00108 * P.stiffness_scale[1] * q[1] * q[1])
+        - P.density_scale[0] * (0.007875 * kern[0] * P.gravity[0] + 0.007875 * kern[1] * P.gravity[1])
+        - P.density_scale[1] * t0 - P.payload_mass * t1)
 
 
-def kinetic_energy(q, qd):
+def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
 
-    Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     qd = np.asarray(_vector(qd, NQ, "qd"))
-    return float(0.5 * qd @ inertia(q) @ qd)
+    return float(0.5 * qd @ inertia(q, **P._asdict()) @ qd)
 
 # pairs (row, moment base)
 _GRAVITY_JACOBIAN_ROWS = _kernel_plan((
-    1, 12, 1, 18, 2, 12, 2, 18, 11, 12, 11, 18, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18, 14, 6, 15,
-    6,
+    8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
+    18, 9, 12, 9, 18,
 ))
 
-def gravity_jacobian(q):
+def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric.
 
-    Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -447,28 +511,40 @@ def gravity_jacobian(q):
     cphi[0] = math.cos(phi)
     sphi[0] = math.sin(phi)
     kern = _kernels(_GRAVITY_JACOBIAN_ROWS, nu)
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NQ))
-    t0 = (9.81 * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0])
-        + 0.1962 * (-0.00216 * sphi[0] * kern[7] - 0.00216 * cphi[0] * kern[8]))
-    out[0, 0] = (kern[11] + 9.81 * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
-        - kern[12] + 0.1962 * (kern[6] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]))
-    out[0, 1] = t0
-    out[1, 0] = t0
-    out[1, 1] = (9.81 * (-5.184e-5 * kern[5] * cphi[0] - 5.184e-5 * kern[4] * sphi[0])
-        + 0.1962 * (-0.001728 * cphi[0] * kern[10] - 0.001728 * sphi[0] * kern[9]))
+    t0 = (P.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
+        + P.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]))
+    t1 = (P.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
+        + P.gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]))
+    t2 = -P.density_scale[1] * t0 - P.payload_mass * t1
+    t3 = (P.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
+        + P.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
+        + 0.03 * (-0.003375 * P.gravity[0] * kern[8] - 0.003375 * P.gravity[1] * kern[9]))
+    t4 = (P.gravity[0] * (kern[10] - 0.0027 * nu[12] * cphi[0] + 0.0027 * nu[18] * sphi[0])
+        + P.gravity[1] * (kern[11] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]))
+    t5 = (P.gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
+        + P.gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]))
+    t6 = (P.gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
+        + P.gravity[1] * (-0.001728 * cphi[0] * kern[15] - 0.001728 * sphi[0] * kern[14]))
+    out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[0] * P.gravity[0] - 0.0001771875 * kern[1] * P.gravity[1])
+        - P.density_scale[1] * t3 - P.payload_mass * t4)
+    out[0, 1] = t2
+    out[1, 0] = t2
+    out[1, 1] = -P.density_scale[1] * t5 - P.payload_mass * t6
     return out
 
 # pairs (row, moment base)
 _TERMS_ROWS = _kernel_plan((
-    0, 0, 17, 6, 1, 12, 1, 18, 2, 12, 2, 18, 18, 18, 3, 12, 11, 12, 11, 18, 19, 18, 17, 18, 4,
-    0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 13, 0, 13, 6, 12, 0, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18,
-    9, 0, 10, 0,
+    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
+    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
+    9, 18,
 ))
 
-def terms(q, qd):
+def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -481,65 +557,80 @@ def terms(q, qd):
     cphi[0] = math.cos(phi)
     sphi[0] = math.sin(phi)
     kern = _kernels(_TERMS_ROWS, nu)
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     b = np.zeros((NQ, NQ))
     c = np.zeros((NQ, NQ))
     g = np.zeros(NQ)
-    t0 = qd[1] * kern[8]
-    t1 = qd[1] * kern[9]
-    t2 = kern[2] * cphi[0]
-    t3 = kern[3] * sphi[0]
-    t4 = 0.0036 * t2 - 0.0036 * t3
-    t5 = 0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0]
-    t6 = 0.15 * (0.0225 * kern[13] * t5 + 0.0225 * kern[12] * t4)
-    t7 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
-    t8 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
-    t9 = qd[0] * kern[18]
-    t10 = qd[0] * kern[19]
-    t11 = qd[1] * kern[5]
-    t12 = qd[1] * kern[4]
-    t13 = qd[0] * kern[6]
-    t14 = nu[12] * cphi[0]
-    t15 = nu[18] * sphi[0]
-    t16 = nu[18] * cphi[0]
-    t17 = nu[12] * sphi[0]
-    t18 = kern[14] - 0.018 * t17 - 0.018 * t16
-    t19 = kern[15] - 0.018 * t15 + 0.018 * t14
-    t20 = cphi[0] * kern[23]
-    t21 = sphi[0] * kern[22]
-    t22 = -0.0144 * t20 - 0.0144 * t21
-    t23 = cphi[0] * kern[22]
-    t24 = sphi[0] * kern[23]
-    t25 = 0.0144 * t23 - 0.0144 * t24
-    t26 = 0.00216 * t24 - 0.00216 * t23
-    t27 = -0.00216 * t21 - 0.00216 * t20
-    t28 = qd[0] * (kern[20] - 0.0027 * t14 + 0.0027 * t15) + qd[1] * t26
-    t29 = qd[0] * (kern[21] - 0.0027 * t16 - 0.0027 * t17) + qd[1] * t27
-    t30 = qd[0] * t26 + qd[1] * (0.001728 * sphi[0] * kern[25] - 0.001728 * cphi[0] * kern[24])
-    t31 = qd[0] * t27 + qd[1] * (-0.001728 * cphi[0] * kern[25] - 0.001728 * sphi[0] * kern[24])
-    t32 = (0.0225 * kern[12] * t8 - 0.0225 * kern[13] * t7 + kern[17]
-        + 0.02 * (t18 * t22 + t19 * t25) + 1.008e-8)
-    t33 = (0.0225 * kern[13] * (0.000432 * cphi[0] * t12 - 0.000432 * sphi[0] * t11)
-        + 0.0225 * kern[12] * (-0.000432 * cphi[0] * t11 - 0.000432 * sphi[0] * t12))
-    b[0, 0] = (kern[0]
-        + 0.03 * (0.00050625 * kern[13] * kern[13] + 0.00050625 * kern[12] * kern[12]) + t6 + t6
-        + kern[16] + 0.02 * (t18 * t18 + t19 * t19) + 3.195e-8)
-    b[0, 1] = t32
-    b[1, 0] = t32
-    b[1, 1] = kern[7] + 0.02 * (t22 * t22 + t25 * t25) + 6.336e-9
-    c[0, 0] = (0.03 * (7.59375e-5 * kern[13] * t9 - 7.59375e-5 * kern[12] * t10)
-        - 3.98671875e-6 * qd[0] * kern[1]
-        - 0.0225 * qd[0] * (0.0225 * kern[12] * t5 - 0.0225 * kern[13] * t4) + 0.15 * t33
-        + 0.15 * (0.003375 * t5 * t9 - 0.003375 * t4 * t10) - 1.1664e-6 * qd[1] * kern[6]
-        + 0.02 * (t18 * t28 + t19 * t29))
-    c[0, 1] = (0.15 * qd[0] * (0.0225 * kern[13] * t8 + 0.0225 * kern[12] * t7)
-        - 0.0225 * kern[13] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[12] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t13 - 9.3312e-7 * qd[1] * kern[10] + 0.02 * (t18 * t30 + t19 * t31))
-    c[1, 0] = (1.1664e-6 * t13 - 0.003375 * t7 * t9 - 0.003375 * t8 * t10
-        + 0.02 * (t22 * t28 + t25 * t29))
-    c[1, 1] = 0.02 * (t22 * t30 + t25 * t31) - 7.46496e-7 * qd[1] * kern[11]
-    g[0] = kern[26] + 9.81 * (0.00054 * t2 - 0.00054 * t3) - kern[27] + 0.1962 * t19
-    g[1] = 9.81 * t8 + 0.1962 * t25
+    t0 = qd[1] * kern[10]
+    t1 = qd[1] * kern[11]
+    t2 = kern[4] * cphi[0]
+    t3 = kern[5] * sphi[0]
+    t4 = kern[5] * cphi[0]
+    t5 = kern[4] * sphi[0]
+    t6 = 0.0036 * t2 - 0.0036 * t3
+    t7 = 0.0036 * t4 + 0.0036 * t5
+    t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6)
+    t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0]
+    t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0]
+    t11 = qd[0] * kern[20]
+    t12 = qd[0] * kern[21]
+    t13 = qd[1] * kern[7]
+    t14 = qd[1] * kern[6]
+    t15 = qd[0] * kern[8]
+    t16 = nu[12] * cphi[0]
+    t17 = nu[18] * sphi[0]
+    t18 = nu[18] * cphi[0]
+    t19 = nu[12] * sphi[0]
+    t20 = kern[16] - 0.018 * t19 - 0.018 * t18
+    t21 = kern[17] - 0.018 * t17 + 0.018 * t16
+    t22 = cphi[0] * kern[25]
+    t23 = sphi[0] * kern[24]
+    t24 = -0.0144 * t22 - 0.0144 * t23
+    t25 = cphi[0] * kern[24]
+    t26 = sphi[0] * kern[25]
+    t27 = 0.0144 * t25 - 0.0144 * t26
+    t28 = 0.00216 * t26 - 0.00216 * t25
+    t29 = -0.00216 * t23 - 0.00216 * t22
+    t30 = qd[0] * (kern[22] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28
+    t31 = qd[0] * (kern[23] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29
+    t32 = qd[0] * t28 + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26])
+    t33 = qd[0] * t29 + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26])
+    t34 = (P.density_scale[1] * (0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19])
+        + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t24 + t21 * t27)
+        + 0.018 * P.payload_rotary_inertia)
+    t35 = (0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14]) + t8
+        + t8 + kern[18])
+    t36 = (0.0225 * kern[15] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
+        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14))
+    t37 = (0.03 * (7.59375e-5 * kern[15] * t11 - 7.59375e-5 * kern[14] * t12)
+        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t36
+        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[8])
+    t38 = (0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
+        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[12])
+    t39 = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+        + P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
+        + 0.03 * (0.0225 * P.gravity[1] * kern[14] - 0.0225 * P.gravity[0] * kern[15]))
+    b[0, 0] = (2.6578125e-5 * kern[2] * P.density_scale[0]
+        + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t35
+        + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t20 + t21 * t21)
+        + 0.0225 * P.payload_rotary_inertia)
+    b[0, 1] = t34
+    b[1, 0] = t34
+    b[1, 1] = (6.2208e-6 * kern[9] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
+        + P.payload_mass * (t24 * t24 + t27 * t27) + 0.0144 * P.payload_rotary_inertia)
+    c[0, 0] = (P.density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[3] * P.density_scale[0]
+        + P.payload_mass * (t20 * t30 + t21 * t31))
+    c[0, 1] = P.density_scale[1] * t38 + P.payload_mass * (t20 * t32 + t21 * t33)
+    c[1, 0] = (P.density_scale[1] * (1.1664e-6 * t15 - 0.003375 * t9 * t11 - 0.003375 * t10 * t12)
+        + P.payload_mass * (t24 * t30 + t27 * t31))
+    c[1, 1] = (P.payload_mass * (t24 * t32 + t27 * t33)
+        - 7.46496e-7 * qd[1] * kern[13] * P.density_scale[1])
+    g[0] = (-P.density_scale[0] * (0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0])
+        - P.density_scale[1] * t39 - P.payload_mass * (P.gravity[0] * t20 + P.gravity[1] * t21))
+    g[1] = (-P.density_scale[1] * (P.gravity[0] * t9 + P.gravity[1] * t10)
+        - P.payload_mass * (P.gravity[0] * t24 + P.gravity[1] * t27))
     return b, c, g
 
 
@@ -582,6 +673,10 @@ def _pose_segment1(q, sigma):
     return out
 
 
+# The function gravity(q): inside the functions that take the runtime parameters,
+# "gravity" is the gravity vector argument.
+_gravity = gravity
+
 def pose(q, segment, sigma):
     """Backbone pose [x, y, angle] at sigma in [0, 1] of segment `segment`, counted
     FROM 0 here (0 is the arm file's first [[segment]], which the arm file,
@@ -596,25 +691,26 @@ def pose(q, segment, sigma):
     return (_pose_segment0, _pose_segment1,)[int(segment)](q, sigma)
 
 
-def forward_dynamics(q, qd, u):
+def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """q'' from B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q', by Cholesky.
 
     Raises DynamicsError on a non-finite input, a B that is not positive definite,
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 234 add, 435 mul, 9 div, 2 sqrt, 6 trig.
+    Operations: 247 add, 477 mul, 9 div, 2 sqrt, 6 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
     u = _vector(u, NU, "u")
-    if not all(math.isfinite(v) for v in q + qd + u):
+    if not _params_finite(P) or not all(math.isfinite(v) for v in q + qd + u):
         raise DynamicsError("non-finite input")
-    b, c, g = terms(q, qd)
+    b, c, g = terms(q, qd, **P._asdict())
     a = actuation(q)
     with np.errstate(over="ignore", invalid="ignore"):
-        rhs_ = a @ np.asarray(u) - (c + damping()) @ np.asarray(qd) - g
-        rhs_ -= stiffness() @ np.asarray(q)
+        rhs_ = a @ np.asarray(u) - (c + damping(**P._asdict())) @ np.asarray(qd) - g
+        rhs_ -= stiffness(**P._asdict()) @ np.asarray(q)
     if not (np.all(np.isfinite(b)) and np.all(np.isfinite(c)) and np.all(np.isfinite(g))
             and np.all(np.isfinite(a)) and np.all(np.isfinite(rhs_))):
         raise DynamicsError("overflow: the model is not finite at this state")
@@ -755,36 +851,38 @@ def _cholesky(a, b, floor):
     return x
 
 
-def static_residual(q, u):
+def static_residual(q, u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Static residual R = K q + G(q) - A(q) u: zero at an equilibrium under u.
     Raises StaticsError on a non-finite input.
 
-    Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
     u = _vector(u, NU, "u")
-    if not all(math.isfinite(v) for v in q + u):
+    if not _params_finite(P) or not all(math.isfinite(v) for v in q + u):
         raise StaticsError("non-finite input")
-    return stiffness() @ np.asarray(q) + gravity(q) - actuation(q) @ np.asarray(u)
+    return stiffness(**P._asdict()) @ np.asarray(q) + _gravity(q, **P._asdict()) - actuation(q) @ np.asarray(u)
 
 
-def static_jacobian(q, u):
+def static_jacobian(q, u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq: symmetric (every
     load of the model is conservative), positive definite at a stable equilibrium.
 
-    Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
     u = _vector(u, NU, "u")
-    if not all(math.isfinite(v) for v in q + u):
+    if not _params_finite(P) or not all(math.isfinite(v) for v in q + u):
         raise StaticsError("non-finite input")
-    return stiffness() + gravity_jacobian(q)
+    return stiffness(**P._asdict()) + gravity_jacobian(q, **P._asdict())
 
 
-def _linearise(q, u, lam, k, with_jacobian):
+def _linearise(P, q, u, lam, k, with_jacobian):
     """(r, jac, load, scale): K q + lam (G - A u), its Jacobian (or None), the load
     G - A u and the scale ||K q|| + lam (||G|| + ||A u||); None when not finite."""
-    g = gravity(q)
+    g = _gravity(q, **P._asdict())
     kq = k @ np.asarray(q)
     au = actuation(q) @ np.asarray(u)
     load = g - au
@@ -794,14 +892,14 @@ def _linearise(q, u, lam, k, with_jacobian):
         return None
     jac = None
     if with_jacobian:
-        d = gravity_jacobian(q)
+        d = gravity_jacobian(q, **P._asdict())
         jac = k + lam * d
         if not np.all(np.isfinite(jac)):
             return None
     return [float(v) for v in r], jac, [float(v) for v in load], scale
 
 
-def equilibrium(u):
+def equilibrium(u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Equilibrium K q + G(q) = A(q) u: the shape the arm rests in under u and gravity.
 
     Damped Newton with the exact Jacobian (static_jacobian) and load continuation from
@@ -811,20 +909,21 @@ def equilibrium(u):
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
 
-    Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
-    Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
+    Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
+    Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     u = _vector(u, NU, "u")
-    if not all(math.isfinite(v) for v in u):
+    if not _params_finite(P) or not all(math.isfinite(v) for v in u):
         raise StaticsError("non-finite input")
-    k = stiffness()
+    k = stiffness(**P._asdict())
     q = [0.0] * NQ
     lam, step, last = 0.0, 1.0, 0.0
     iterations = load_steps = 0
     while lam < 1.0:
         # Predictor along the tangent dq/dlambda = -J^-1 (G - A u), its load step cut so
         # that no segment bends by more than the step bound.
-        here = _linearise(q, u, lam, k, True)
+        here = _linearise(P, q, u, lam, k, True)
         if here is None:
             raise StaticsError("the model is not finite at a configuration the solver reached")
         t = _solve(here[1].tolist(), here[2])
@@ -841,7 +940,7 @@ def equilibrium(u):
             if iterations >= EQUILIBRIUM_MAX_ITERATIONS:
                 break
             iterations += 1
-            lin = _linearise(trial, u, target, k, True)
+            lin = _linearise(P, trial, u, target, k, True)
             if lin is None:
                 raise StaticsError("the model is not finite at a configuration the solver reached")
             res = _norm(lin[0])
@@ -858,7 +957,7 @@ def equilibrium(u):
             accepted = False
             for _ in range(20):
                 cand = [trial[i] + alpha * dq[i] for i in range(NQ)]
-                c = _linearise(cand, u, target, k, False)
+                c = _linearise(P, cand, u, target, k, False)
                 if c is not None:
                     cres = _norm(c[0])
                     if cres < res or cres <= EQUILIBRIUM_TOLERANCE * c[3]:
@@ -880,7 +979,7 @@ def equilibrium(u):
                     f"no equilibrium: the load continuation stalled at {100 * lam:.1f}% of the "
                     f"load after {iterations} Newton iterations, last residual {last:.3e}",
                     load=lam, residual=last, iterations=iterations, q=np.array(q))
-    r, jac, _, scale = _linearise(q, u, 1.0, k, True)
+    r, jac, _, scale = _linearise(P, q, u, 1.0, k, True)
     # Stable when the symmetric part of the Jacobian is positive definite.
     sym = (0.5 * (jac + jac.T)).tolist()
     residual = _norm(r)
@@ -921,7 +1020,7 @@ def relaxed_inputs():
     return np.array([min(max(0.0, lo), hi) for lo, hi in INPUT_LIMITS])
 
 
-def regulate(law, target, kp, kd, q, qd):
+def regulate(law, target, kp, kd, q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Regulator inputs u toward the outputs' target at the state (q, q').
 
     law is LAW_BASELINE, u = (S A)^+ [Kp (target - y) - Kd y'], or LAW_COMPENSATED,
@@ -934,15 +1033,16 @@ def regulate(law, target, kp, kd, q, qd):
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
 
-    Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
+    Operations before the allocation, at most: 163 add, 276 mul, 5 div, 0 sqrt, 6 trig.
     Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
     """
+    P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
     target = _vector(target, NY, "target")
     kp = _vector(kp, NY, "kp")
     kd = _vector(kd, NY, "kd")
-    if not all(math.isfinite(v) for v in q + qd + target + kp + kd):
+    if not _params_finite(P) or not all(math.isfinite(v) for v in q + qd + target + kp + kd):
         raise RegulateError("non-finite state, target or gain")
     if law not in (LAW_BASELINE, LAW_COMPENSATED):
         raise RegulateError(f"unknown law {law!r}")
@@ -953,7 +1053,7 @@ def regulate(law, target, kp, kd, q, qd):
     y, yd = _select(q), _select(qd)
     b = [kp[r] * (target[r] - y[r]) - kd[r] * yd[r] for r in range(NY)]
     if law == LAW_COMPENSATED:
-        load = stiffness() @ np.asarray(q) + gravity(q)
+        load = stiffness(**P._asdict()) @ np.asarray(q) + _gravity(q, **P._asdict())
         b = [x + s for x, s in zip(b, _select(load))]
     cols = [_select(a[:, c]) for c in range(NU)]
     m = [[cols[c][r] for c in range(NU)] for r in range(NY)]

@@ -23,6 +23,8 @@ pub struct Spelling<'a> {
     /// none for a temporary that lives inside one part of a split body, which is then
     /// a named local `t<k>`; `None` keeps one slot per temporary.
     pub slots: Option<&'a [Option<usize>]>,
+    /// What precedes a runtime parameter's field name: `P->` (C), `p.` (Rust), `` (Python).
+    pub param_prefix: &'static str,
 }
 
 impl Spelling<'_> {
@@ -52,6 +54,11 @@ impl Syntax for Spelling<'_> {
                 }
                 Var::CosPhi(j) => format!("cphi[{j}]"),
                 Var::SinPhi(j) => format!("sphi[{j}]"),
+                Var::Param(k) => format!(
+                    "{}{}",
+                    self.param_prefix,
+                    self.plan.params.spelling(k as usize)
+                ),
             },
         }
     }
@@ -246,7 +253,7 @@ pub fn temp_slots(block: &Block, part: Option<usize>) -> (Vec<Option<usize>>, us
 mod tests {
     use super::*;
     use crate::arm::parse_arm_str;
-    use crate::derive::derive_statics;
+    use crate::derive::derive_emitted;
 
     /// Replays every block of a two-segment model with slot-reused temporaries: each
     /// read must find in its slot the temporary it means, never a later one.
@@ -271,7 +278,7 @@ bending_stiffness = 0.008
             "slots.toml",
         )
         .unwrap();
-        let plan = Plan::new(&derive_statics(&arm), true).unwrap();
+        let plan = Plan::new(&derive_emitted(&arm), true).unwrap();
         let mut checked = 0;
         for f in [
             &plan.inertia,

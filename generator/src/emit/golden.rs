@@ -13,12 +13,15 @@ use num_traits::ToPrimitive;
 
 /// The quantities whose tests judge entries against their largest magnitude over
 /// all configurations (see [`Golden::scale`]).
-pub const SCALED: [&str; 16] = [
+pub const SCALED: [&str; 27] = [
     "B", "C", "G", "K", "D", "A", "J", "T", "V", "pose", "dG", "R", "Js", "qeq", "ubase", "ucomp",
+    "pB", "pC", "pG", "pK", "pD", "pT", "pV", "pdG", "pR", "pqeq", "pucomp",
 ];
 
 /// The arrays of the regulator checks.
-const REGULATOR_ARRAYS: [&str; 7] = ["ytarget", "kp", "kd", "ubase", "ucomp", "regsat", "regcond"];
+const REGULATOR_ARRAYS: [&str; 9] = [
+    "ytarget", "kp", "kd", "ubase", "ucomp", "regsat", "regcond", "pucomp", "pregsat",
+];
 
 /// Relative shortfall `‖b − S A u‖ / ‖b‖` above which a regulator reports that the
 /// limits keep it from its wanted force (the emitted `regulate`'s rule).
@@ -275,7 +278,8 @@ impl Golden {
         let k = arm.n_inputs();
         let mut labels = Vec::new();
         let h = default_outputs(arm).len();
-        let names: [(&'static str, usize); 28] = [
+        let np = crate::params::ParamLayout::of(arm).len();
+        let names: [(&'static str, usize); 44] = [
             ("q", n),
             ("qd", n),
             ("u", k),
@@ -310,7 +314,35 @@ impl Golden {
             // How well posed the allocation is: the smallest over the largest
             // eigenvalue of S A (S A)ᵀ (single precision cannot resolve small ones).
             ("regcond", 1),
+            // At the second parameter set `theta` (crate::params::test_values): the
+            // reference evaluated on the arm with those values written in.
+            ("theta", np),
+            ("pB", n * n),
+            ("pC", n * n),
+            ("pG", n),
+            ("pK", n * n),
+            ("pD", n * n),
+            ("pT", 1),
+            ("pV", 1),
+            ("prhs", n),
+            ("pBnorm", 1),
+            ("pdG", n * n),
+            ("pR", n),
+            // The equilibrium under `ueq` (peqok 0: the reference found none, no check).
+            ("peqok", 1),
+            ("pqeq", n),
+            // The compensated regulator and whether it saturates.
+            ("pucomp", k),
+            ("pregsat", 1),
         ];
+        let theta = crate::params::test_values(arm);
+        let theta_f64: Vec<f64> = theta
+            .iter()
+            .map(|v| v.to_f64().unwrap_or(f64::NAN))
+            .collect();
+        let arm_p = crate::params::apply(arm, &theta);
+        let reference_p = Reference::new(&arm_p, Kinematics::Truncated(arm.expansion_order));
+        let model_p = Quadrature(Reference::new(&arm_p, reference_p.kinematics()));
         let mut arrays: Vec<Array> = names
             .iter()
             .map(|&(name, len)| Array {
@@ -350,6 +382,25 @@ impl Golden {
                 .collect();
             let (ueq, qeq, stable) = static_case(arm, &reference, c, &u)?;
             let reg = regulator_case(arm, &t.k, &st.g, &st.a, &q, &qd, c);
+            // The same at the second parameter set.
+            let tp = reference_p.terms(&q, &qd);
+            let rhs_p = generalized_force(&tp, &q, &qd, &u);
+            let bnorm_p =
+                tp.b.iter()
+                    .map(|r| r.iter().map(|v| v.abs()).sum::<f64>())
+                    .fold(0.0, f64::max);
+            let stp = reference_p.static_terms(&q);
+            let residual_p: Vec<f64> = (0..n)
+                .map(|i| {
+                    (0..n).map(|x| tp.k[i][x] * q[x]).sum::<f64>() + stp.g[i]
+                        - (0..k).map(|c| stp.a[i][c] * u[c]).sum::<f64>()
+                })
+                .collect();
+            let (peqok, pqeq) = match equilibrium(&model_p, &ueq, &Options::default()) {
+                Ok(eq) => (1.0, eq.q),
+                Err(_) => (0.0, vec![0.0; n]),
+            };
+            let reg_p = regulator_case(&arm_p, &tp.k, &stp.g, &stp.a, &q, &qd, c);
             let values = [
                 q.clone(),
                 qd,
@@ -379,6 +430,22 @@ impl Golden {
                 reg.u_compensated,
                 reg.saturated,
                 vec![reg.conditioning],
+                theta_f64.clone(),
+                flat(&tp.b),
+                flat(&tp.c),
+                tp.g.clone(),
+                flat(&tp.k),
+                flat(&tp.d),
+                vec![tp.kinetic_energy],
+                vec![tp.potential_energy],
+                rhs_p,
+                vec![bnorm_p],
+                flat(&stp.dg),
+                residual_p,
+                vec![peqok],
+                pqeq,
+                reg_p.u_compensated,
+                vec![reg_p.saturated[1]],
             ];
             for (a, v) in arrays.iter_mut().zip(values) {
                 a.values.push(v);

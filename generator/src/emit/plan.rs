@@ -10,6 +10,21 @@ use crate::ir::{Id, Program};
 use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use num_traits::Zero;
 
+/// The generated functions whose result depends on a runtime parameter: each has a
+/// `_with` variant taking the parameters, and its old form means the arm file's values.
+/// (The hand-written ones, forward dynamics and the statics, take them too.)
+pub const PARAMETRIC_FUNCTIONS: [&str; 9] = [
+    "stiffness",
+    "damping",
+    "inertia",
+    "gravity",
+    "gravity_jacobian",
+    "potential_energy",
+    "terms",
+    "kinetic_energy",
+    "coriolis",
+];
+
 /// One emitted function's schedule and its cost.
 #[derive(Clone, Debug)]
 pub struct Func {
@@ -53,6 +68,9 @@ pub struct Plan {
     pub range: crate::arm::Sampling,
     pub angle_steps: Vec<AngleStep>,
     pub layout: NuLayout,
+    /// The runtime parameters and the arm file's values of them.
+    pub params: crate::params::ParamLayout,
+    pub param_defaults: Vec<Q>,
     /// Size of the scratch array for one moment evaluation (largest count anywhere).
     pub moment_max: usize,
     pub table: KernelTable,
@@ -142,10 +160,25 @@ pub fn dynamics_loop_ops(n: usize, k: usize) -> Ops {
 }
 
 impl Plan {
-    /// The plan of `model`, which must carry its statics derivatives
-    /// ([`crate::derive::derive_statics`]): the emitted statics and regulator functions
-    /// need them.
+    /// The plan of `model`, which must be the emitted model
+    /// ([`crate::derive::derive_emitted`]): the statics and regulator functions need its
+    /// statics derivatives, and the parameter variants its parameter leaves.
     pub fn new(model: &Model, use_kernels: bool) -> Result<Plan, String> {
+        if !model.parametric {
+            return Err(
+                "the model was derived with its parameters folded in (derive_statics); \
+                 the emitted code takes them at run time (derive_emitted)"
+                    .into(),
+            );
+        }
+        Self::build(model, use_kernels)
+    }
+
+    /// The plan of any model with statics roots, folded or parametric: what
+    /// [`Plan::new`] checks and then builds. A folded model's plan is for counting
+    /// operations only (the A/B of what the runtime parameters cost); its emitted code
+    /// would ignore the parameters.
+    pub fn build(model: &Model, use_kernels: bool) -> Result<Plan, String> {
         let statics = model.statics.as_ref().ok_or(
             "the model was derived without its statics derivatives (derive_statics), which \
              the emitted equilibrium needs",
@@ -276,6 +309,8 @@ impl Plan {
             range: arm.sampling_or_default(),
             angle_steps,
             layout,
+            params: crate::params::ParamLayout::of(arm),
+            param_defaults: crate::params::ParamLayout::of(arm).defaults(arm),
             moment_max,
             table,
             inertia,

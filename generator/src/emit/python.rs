@@ -8,7 +8,7 @@ use super::c::wrap_list;
 use super::constants::{base_context, strings, use_pairs, MomentConstants};
 use super::golden::{Golden, SIGMAS};
 use super::number::{f64_literal, golden_literal, Precision};
-use super::plan::{Func, Plan};
+use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
 use super::templates::render;
 use super::{Meta, OutFile};
 use serde::Serialize;
@@ -52,6 +52,7 @@ fn function(
         pose_count,
         temp_array: false,
         slots: None,
+        param_prefix: "P.",
     };
     let style = StmtStyle {
         decl: String::new(),
@@ -110,6 +111,10 @@ fn function(
         );
         out.push_str(&format!("    kern = _kernels(_{upper}_ROWS, nu)\n"));
     }
+    let with = PARAMETRIC_FUNCTIONS.contains(&spec.fname);
+    if with {
+        out.push_str(&format!("    P = _params({})\n", param_names(plan)));
+    }
     out.push_str(spec.init);
     out.push_str(&temporaries(b, &syn, &style));
     out.push_str(&outputs(b, &syn, &style, target));
@@ -118,9 +123,35 @@ fn function(
         rows,
         formula: spec.formula.into(),
         ops: format!("Operations: {}.", f.ops),
-        signature: format!("{}({})", spec.fname, spec.params.join(", ")),
+        signature: signature(plan, spec.fname, spec.params, with),
         body: out,
     }
+}
+
+/// The runtime parameters' names, comma-separated, in struct order.
+fn param_names(plan: &Plan) -> String {
+    plan.params
+        .fields()
+        .iter()
+        .map(|f| f.kind.field())
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// `name(args, *, density_scale=PARAMS_DEFAULT.density_scale, …)` for a function that
+/// takes the runtime parameters (keyword-only, the arm file's values by default).
+fn signature(plan: &Plan, fname: &str, params: &[&str], with: bool) -> String {
+    let mut all: Vec<String> = params.iter().map(|p| p.to_string()).collect();
+    if with {
+        all.push("*".into());
+        all.extend(
+            plan.params
+                .fields()
+                .iter()
+                .map(|f| format!("{0}=PARAMS_DEFAULT.{0}", f.kind.field())),
+        );
+    }
+    format!("{fname}({})", all.join(", "))
 }
 
 pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, String> {
@@ -252,8 +283,11 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             rows: String::new(),
             formula: "Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.".into(),
             ops: format!("Operations: {}.", plan.terms.ops),
-            signature: "coriolis(q, qd)".into(),
-            body: "    return terms(q, qd)[1]\n".into(),
+            signature: signature(plan, "coriolis", &["q", "qd"], true),
+            body: format!(
+                "    P = _params({})\n    return terms(q, qd, **P._asdict())[1]\n",
+                param_names(plan)
+            ),
         },
     );
     // Before the potential energy, the last of the list.
@@ -263,9 +297,12 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             rows: String::new(),
             formula: "Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().".into(),
             ops: format!("Operations: {}.", plan.kinetic_energy),
-            signature: "kinetic_energy(q, qd)".into(),
-            body: "    qd = np.asarray(_vector(qd, NQ, \"qd\"))\n    return float(0.5 * qd @ inertia(q) @ qd)\n"
-                .into(),
+            signature: signature(plan, "kinetic_energy", &["q", "qd"], true),
+            body: format!(
+                "    P = _params({})\n    qd = np.asarray(_vector(qd, NQ, \"qd\"))\n    \
+                 return float(0.5 * qd @ inertia(q, **P._asdict()) @ qd)\n",
+                param_names(plan)
+            ),
         },
     );
     let nn2 = n * n;
@@ -330,6 +367,32 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     );
     ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&mc.coef, 4)));
     ctx.insert("functions", &funcs);
+    // The runtime parameters: keyword-only arguments, the arm file's values by default.
+    let fields = plan.params.fields();
+    ctx.insert("param_names", &param_names(plan));
+    ctx.insert(
+        "param_sig",
+        &fields
+            .iter()
+            .map(|f| format!("{0}=PARAMS_DEFAULT.{0}", f.kind.field()))
+            .collect::<Vec<_>>()
+            .join(", "),
+    );
+    let defaults: Vec<(String, String, String, &str)> = fields
+        .iter()
+        .map(|f| {
+            let vals: Vec<String> = plan.param_defaults[f.start..f.start + f.len.unwrap_or(1)]
+                .iter()
+                .map(|q| super::number::literal(q, Precision::F64))
+                .collect();
+            let (value, shape) = match f.len {
+                Some(l) => (format!("({},)", vals.join(", ")), l.to_string()),
+                None => (vals[0].clone(), "None".into()),
+            };
+            (f.kind.field().to_string(), value, shape, f.kind.doc())
+        })
+        .collect();
+    ctx.insert("param_defaults", &defaults);
     ctx.insert("pose_names", &pose_names);
     ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     super::control_code::insert_python(&mut ctx, plan);

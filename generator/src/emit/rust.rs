@@ -9,7 +9,7 @@ use super::c::wrap_list;
 use super::constants::{base_context, strings, use_max, use_pairs, MomentConstants};
 use super::golden::{Golden, SIGMAS};
 use super::number::Precision;
-use super::plan::{Func, Plan};
+use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
 use super::templates::render;
 use super::{Meta, OutFile};
 use serde::Serialize;
@@ -70,6 +70,7 @@ fn body(
         pose_count,
         temp_array: true,
         slots: Some(&slots),
+        param_prefix: "p.",
     };
     let style = StmtStyle {
         decl: "let ".into(),
@@ -153,6 +154,9 @@ fn body(
         );
         out.push_str(&format!("kernels(&{upper}_ROWS, nu, kern);\n"));
     }
+    if !b.reads_params && PARAMETRIC_FUNCTIONS.contains(&fname) {
+        out.push_str("let _ = p;\n");
+    }
     out.push_str(init);
     out.push_str(&temporaries(b, &syn, &style));
     out.push_str(&outputs(b, &syn, &style, target));
@@ -191,13 +195,24 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         let args: Vec<&str> = params.iter().map(|(p, _, _)| *p).collect();
         let args = args.join(", ");
         let w = if len == 0 { "_work" } else { "work" };
+        // Every function here depends on a runtime parameter but the actuation and the
+        // tip Jacobian: those take `p: &Params` in `_in` and get `_with` forms.
+        let with = PARAMETRIC_FUNCTIONS.contains(&fname);
+        let (p_decl, p_default, p_arg) = if with {
+            ("p: &Params, ", "&Params::DEFAULT, ", "p, ")
+        } else {
+            ("", "", "")
+        };
         funcs.push(RFunc {
             rows,
             formula: format!(
                 "The work of [`{fname}`] and [`{fname}_ws`], in `work` (at least {len} reals)."
             ),
             ops: ops.clone(),
-            signature: format!("fn {fname}_in({}, {w}: &mut [f64]) -> {ret}", decl(true)),
+            signature: format!(
+                "fn {fname}_in({p_decl}{}, {w}: &mut [f64]) -> {ret}",
+                decl(true)
+            ),
             body,
         });
         let stack = if len == 0 {
@@ -205,12 +220,17 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         } else {
             format!("&mut [0.0; {len}]")
         };
+        let at = if with {
+            " At the arm file's parameters ([`Params::DEFAULT`])."
+        } else {
+            ""
+        };
         funcs.push(RFunc {
             rows: String::new(),
-            formula: formula.into(),
+            formula: format!("{formula}{at}"),
             ops: ops.clone(),
             signature: format!("pub fn {fname}({}) -> {ret}", decl(false)),
-            body: format!("{fname}_in({args}, {stack})\n"),
+            body: format!("{fname}_in({p_default}{args}, {stack})\n"),
         });
         funcs.push(RFunc {
             rows: String::new(),
@@ -218,13 +238,34 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
                 "[`{fname}`] with its scratch in the caller's [`Workspace`] instead of on \
                  the stack ({len} reals); the same values."
             ),
-            ops,
+            ops: ops.clone(),
             signature: format!(
                 "pub fn {fname}_ws({}, ws: &mut Workspace) -> {ret}",
                 decl(false)
             ),
-            body: format!("{fname}_in({args}, &mut ws.0)\n"),
+            body: format!("{fname}_in({p_default}{args}, &mut ws.0)\n"),
         });
+        if with {
+            funcs.push(RFunc {
+                rows: String::new(),
+                formula: format!("[`{fname}`] at the runtime parameters `p`."),
+                ops: ops.clone(),
+                signature: format!("pub fn {fname}_with({p_decl}{}) -> {ret}", decl(false)),
+                body: format!("{fname}_in({p_arg}{args}, {stack})\n"),
+            });
+            funcs.push(RFunc {
+                rows: String::new(),
+                formula: format!(
+                    "[`{fname}_with`] with its scratch in the caller's [`Workspace`]."
+                ),
+                ops,
+                signature: format!(
+                    "pub fn {fname}_with_ws({p_decl}{}, ws: &mut Workspace) -> {ret}",
+                    decl(false)
+                ),
+                body: format!("{fname}_in({p_arg}{args}, &mut ws.0)\n"),
+            });
+        }
         work_len = work_len.max(len);
     };
     let q_of = |f: &Func| ("q", "&[f64; NQ]", f.block.reads_q);
@@ -333,7 +374,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &both,
         &nn,
         String::new(),
-        "terms_in(q, qd, work).1\n".into(),
+        "terms_in(p, q, qd, work).1\n".into(),
         terms_work,
     );
     public(
@@ -343,7 +384,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &both,
         "f64",
         String::new(),
-        "let b = inertia_in(q, work);\nlet mut t = 0.0;\nfor i in 0..NQ {\n\
+        "let b = inertia_in(p, q, work);\nlet mut t = 0.0;\nfor i in 0..NQ {\n\
          let mut bqd = 0.0;\nfor k in 0..NQ {\nbqd += b[i][k] * qd[k];\n}\n\
          t += qd[i] * bqd;\n}\n0.5 * t\n"
             .into(),
@@ -373,15 +414,22 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         );
         funcs.push(RFunc {
             rows,
-            formula: formula.into(),
+            formula: format!("{formula} At the runtime parameters `p`."),
             ops: ops_line(f),
-            signature: format!("pub fn {fname}() -> {nn}"),
+            signature: format!("pub fn {fname}_with(p: &Params) -> {nn}"),
             // (A constant needs no scratch; should one ever need some, it gets its own.)
             body: if len_k == 0 {
                 body
             } else {
                 format!("let work: &mut [f64] = &mut [0.0; {len_k}];\n{body}")
             },
+        });
+        funcs.push(RFunc {
+            rows: String::new(),
+            formula: format!("[`{fname}_with`] at the arm file's parameters."),
+            ops: ops_line(f),
+            signature: format!("pub fn {fname}() -> {nn}"),
+            body: format!("{fname}_with(&Params::DEFAULT)\n"),
         });
     }
     let mut pose_names = Vec::new();
@@ -482,6 +530,45 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("work_len", &work_len);
     ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     ctx.insert("statics_work", &statics_work);
+    // The runtime parameters' struct fields and the arm file's values.
+    let fields: Vec<(String, String, &str)> = plan
+        .params
+        .fields()
+        .iter()
+        .map(|f| {
+            let vals: Vec<String> = plan.param_defaults[f.start..f.start + f.len.unwrap_or(1)]
+                .iter()
+                .map(|q| super::number::literal(q, Precision::F64))
+                .collect();
+            match f.len {
+                Some(l) => (
+                    format!("{}: [f64; {l}]", f.kind.field()),
+                    format!("{}: [{}]", f.kind.field(), vals.join(", ")),
+                    f.kind.doc(),
+                ),
+                None => (
+                    format!("{}: f64", f.kind.field()),
+                    format!("{}: {}", f.kind.field(), vals[0]),
+                    f.kind.doc(),
+                ),
+            }
+        })
+        .collect();
+    ctx.insert("param_fields", &fields);
+    let finite: Vec<String> = plan
+        .params
+        .fields()
+        .iter()
+        .map(|f| match f.len {
+            Some(_) => format!("self.{}.iter().all(|v| v.is_finite())", f.kind.field()),
+            None => format!("self.{}.is_finite()", f.kind.field()),
+        })
+        .collect();
+    ctx.insert("param_finite", &finite.join("\n            && "));
+    let assign: Vec<(String, usize)> = (0..plan.params.len())
+        .map(|k| (plan.params.spelling(k), k))
+        .collect();
+    ctx.insert("param_assign", &assign);
     super::control_code::insert_rust(&mut ctx, plan);
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(

@@ -221,6 +221,8 @@ pub struct Block {
     pub reads_q: bool,
     pub reads_qd: bool,
     pub reads_sigma: bool,
+    /// Whether a runtime parameter ([`Var::Param`]) is read.
+    pub reads_params: bool,
     /// Straight-line and kernel-table operations (moments and angles not included).
     pub ops: Ops,
 }
@@ -383,6 +385,7 @@ impl<'p> Scheduler<'p> {
         let mut pose_nu_count = vec![0usize; segs];
         let mut angles = 0usize;
         let (mut reads_q, mut reads_qd, mut reads_sigma) = (false, false, false);
+        let mut reads_params = false;
         let mut note_var = |v: &Var| match *v {
             Var::Nu { seg, n, .. } => {
                 let c = &mut nu_count[seg as usize];
@@ -396,6 +399,7 @@ impl<'p> Scheduler<'p> {
             Var::Q(_) => reads_q = true,
             Var::Qd(_) => reads_qd = true,
             Var::Sigma => reads_sigma = true,
+            Var::Param(_) => reads_params = true,
         };
         for i in 0..n {
             if !live[i] {
@@ -469,6 +473,7 @@ impl<'p> Scheduler<'p> {
             reads_q,
             reads_qd,
             reads_sigma,
+            reads_params,
             ops,
         }
     }

@@ -125,6 +125,7 @@ fn remap(m: &Model, program: Program, ids: &[Id]) -> Model {
         kinetic_energy,
         potential_energy,
         pose,
+        parametric: m.parametric,
     }
 }
 

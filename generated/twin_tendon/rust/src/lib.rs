@@ -41,6 +41,57 @@
 pub const MODEL_SHA256: &str = "9c28866137eae14acfbe01891839d1e040b318da3693e8113dff70644655753f";
 pub const GENERATOR_VERSION: &str = "0.1.0";
 pub const EXPANSION_ORDER: u32 = 4;
+/// Runtime parameters. The model is linear in each of them, so they are applied exactly
+/// at run time, not folded in when the code was generated: every function whose result
+/// depends on one has a `_with` form taking `&Params` first, and the form without it
+/// means the arm file's values, [`Params::DEFAULT`]. Scales are factors on the arm
+/// file's profiles (1 there); the payload (a point mass and rotary inertia at the tip)
+/// and gravity are absolute, so an arm without a payload in its file can pick one up.
+/// A non-finite parameter is a non-finite input. A wrong payload or gravity is a wrong
+/// feed-forward: bound and validate them as any other input.
+#[derive(Clone, Copy, Debug, PartialEq)]
+pub struct Params {
+    /// factor on each segment's mass density (1 = arm file)
+    pub density_scale: [f64; 2],
+    /// factor on each segment's rotary inertia per length (1 = arm file)
+    pub rotary_inertia_scale: [f64; 2],
+    /// factor on each segment's bending stiffness (1 = arm file)
+    pub stiffness_scale: [f64; 2],
+    /// factor on each segment's bending damping (1 = arm file)
+    pub damping_scale: [f64; 2],
+    /// tip payload mass [kg]
+    pub payload_mass: f64,
+    /// tip payload rotary inertia [kg m^2]
+    pub payload_rotary_inertia: f64,
+    /// gravity (g_x, g_y) in the base frame [m/s^2]
+    pub gravity: [f64; 2],
+}
+impl Params {
+    /// The arm file's values.
+    pub const DEFAULT: Params = Params {
+        density_scale: [1.0, 1.0],
+        rotary_inertia_scale: [1.0, 1.0],
+        stiffness_scale: [1.0, 1.0],
+        damping_scale: [1.0, 1.0],
+        payload_mass: 0.02,
+        payload_rotary_inertia: 2e-7,
+        gravity: [0.0, -9.81],
+    };
+    /// Whether every parameter is finite.
+    pub fn is_finite(&self) -> bool {
+        self.density_scale.iter().all(|v| v.is_finite())
+            && self.rotary_inertia_scale.iter().all(|v| v.is_finite())
+            && self.stiffness_scale.iter().all(|v| v.is_finite())
+            && self.damping_scale.iter().all(|v| v.is_finite())
+            && self.payload_mass.is_finite() && self.payload_rotary_inertia.is_finite()
+            && self.gravity.iter().all(|v| v.is_finite())
+    }
+}
+impl Default for Params {
+    fn default() -> Self {
+        Params::DEFAULT
+    }
+}
 /// Number of coordinates.
 pub const NQ: usize = 2;
 /// Number of inputs (columns of `A`).
@@ -89,12 +140,12 @@ pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: f64 = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (79 reals, 632 bytes at most). Own one per
+/// plain functions keep on the stack (81 reals, 648 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([f64; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 79;
+pub const WORK_LEN: usize = 81;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -230,28 +281,21 @@ fn scaled_series(h: f64, n: usize) -> f64 {
 /// Moment kernels: row `r` at moment base `b` is the dot product of its band
 /// `COEF[START[r]..START[r+1]]` with `nu[b + FIRST[r]..]`; a row is shared by every
 /// segment (and by real and imaginary parts) with the same weight shape.
-static KERNEL_START: [u8; 21] = [
-    0, 5, 7, 10, 15, 17, 19, 21, 24, 28, 31, 33, 37, 40, 43, 47, 50, 52, 58, 62, 67,
+static KERNEL_START: [u8; 15] = [
+    0, 5, 7, 10, 12, 14, 16, 19, 23, 27, 30, 33, 39, 43, 48,
 ];
-static KERNEL_FIRST: [u8; 20] = [
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
-];
-static KERNEL_COEF: [f64; 67] = [
-    1.32890625e-6,
-    -2.21484375e-6,
-    9.4921875e-7,
+static KERNEL_FIRST: [u8; 14] = [0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
+static KERNEL_COEF: [f64; 48] = [
+    0.05,
+    -0.08333333333333333,
+    0.03571428571428571,
     0.0,
-    -6.328125e-8,
+    -0.002380952380952381,
     0.5,
     -0.5,
     0.16666666666666666,
     0.0,
     -0.16666666666666666,
-    3.1104e-7,
-    -5.184e-7,
-    2.2217142857142857e-7,
-    0.0,
-    -1.4811428571428572e-8,
     0.5,
     0.5,
     -0.01125,
@@ -265,30 +309,16 @@ static KERNEL_COEF: [f64; 67] = [
     -1.3608e-6,
     3.24e-7,
     6.48e-8,
-    0.00193134375,
-    0.0,
-    -0.00193134375,
-    -0.003310875,
-    -0.003310875,
     0.08333333333333333,
     0.05,
     -0.08333333333333333,
     -0.05,
-    -0.001125,
-    -0.0016875,
-    -0.0005625,
     0.3333333333333333,
     0.5,
     0.16666666666666666,
-    -0.00014485078125,
-    -8.691046875e-5,
-    0.00014485078125,
-    8.691046875e-5,
-    0.0003310875,
-    0.00049663125,
-    0.00016554375,
-    0.038626875,
-    -0.038626875,
+    -0.001125,
+    -0.0016875,
+    -0.0005625,
     0.005555555555555556,
     -0.004761904761904762,
     -0.00496031746031746,
@@ -412,16 +442,16 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
 }
 /// Kernels of `inertia`: pairs (row, moment base).
 static INERTIA_ROWS: [u8; 28] = [
-    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 3, 12, 4, 0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 4, 12,
-    4, 18,
+    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 0, 12, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 3, 12,
+    3, 18,
 ];
-/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 44 reals).
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 45 reals).
 ///
-/// Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
-fn inertia_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(14);
-    let t = &mut work[..6];
+    let t = &mut work[..7];
     moments(0.15 * q[0], 5, nu, 0, 6);
     moments(0.12 * q[1], 5, nu, 12, 18);
     let mut cphi = [0.0; 1];
@@ -441,38 +471,64 @@ fn inertia_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     t[5] = 0.0225 * kern[6]
         * (0.000432 * kern[3] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         - 0.0225 * kern[7]
-            * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0]) + kern[11]
-        + 0.02 * (t[0] * t[3] + t[2] * t[4]) + 1.008e-8;
-    out[0][0] = kern[0]
-        + 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t[1]
-        + t[1] + kern[10] + 0.02 * (t[0] * t[0] + t[2] * t[2]) + 3.195e-8;
-    out[0][1] = t[5];
-    out[1][0] = t[5];
-    out[1][1] = kern[5] + 0.02 * (t[3] * t[3] + t[4] * t[4]) + 6.336e-9;
+            * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0]) + kern[11];
+    t[6] = p.density_scale[1] * t[5] + 6.48e-9 * p.rotary_inertia_scale[1]
+        + p.payload_mass * (t[0] * t[3] + t[2] * t[4])
+        + 0.018 * p.payload_rotary_inertia;
+    t[5] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
+        + t[1] + t[1] + kern[10];
+    out[0][0] = 2.6578125e-5 * kern[0] * p.density_scale[0]
+        + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[5]
+        + 1.62e-8 * p.rotary_inertia_scale[1]
+        + p.payload_mass * (t[0] * t[0] + t[2] * t[2])
+        + 0.0225 * p.payload_rotary_inertia;
+    out[0][1] = t[6];
+    out[1][0] = t[6];
+    out[1][1] = 6.2208e-6 * kern[5] * p.density_scale[1]
+        + 3.456e-9 * p.rotary_inertia_scale[1]
+        + p.payload_mass * (t[3] * t[3] + t[4] * t[4])
+        + 0.0144 * p.payload_rotary_inertia;
     out
 }
-/// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`.
+/// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    inertia_in(q, &mut [0.0; 44])
+    inertia_in(&Params::DEFAULT, q, &mut [0.0; 45])
 }
-/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (44 reals); the same values.
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (45 reals); the same values.
 ///
-/// Operations: 123 add, 249 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
-    inertia_in(q, &mut ws.0)
+    inertia_in(&Params::DEFAULT, q, &mut ws.0)
+}
+/// [`inertia`] at the runtime parameters `p`.
+///
+/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    inertia_in(p, q, &mut [0.0; 45])
+}
+/// [`inertia_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+pub fn inertia_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NQ]; NQ] {
+    inertia_in(p, q, &mut ws.0)
 }
 /// Kernels of `gravity`: pairs (row, moment base).
-static GRAVITY_ROWS: [u8; 18] = [
-    1, 12, 1, 18, 2, 12, 2, 18, 6, 0, 4, 12, 4, 18, 9, 0, 10, 0,
+static GRAVITY_ROWS: [u8; 24] = [
+    2, 0, 2, 6, 1, 12, 1, 18, 2, 12, 2, 18, 3, 0, 3, 6, 4, 6, 5, 0, 3, 12, 3, 18,
 ];
-/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 33 reals).
+/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 40 reals).
 ///
-/// Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
-fn gravity_in(q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
+/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let kern = &mut work[..9];
+    let (kern, work) = work.split_at_mut(12);
+    let t = &mut work[..4];
     moments(0.15 * q[0], 3, nu, 0, 6);
     moments(0.12 * q[1], 3, nu, 12, 18);
     let mut cphi = [0.0; 1];
@@ -482,24 +538,44 @@ fn gravity_in(q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
     sphi[0] = libm::sin(phi);
     kernels(&GRAVITY_ROWS, nu, kern);
     let mut out = [0.0; NQ];
-    out[0] = kern[7] + 9.81 * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
-        - kern[8]
-        + 0.1962 * (kern[4] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]);
-    out[1] = 9.81 * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + 0.1962 * (0.0144 * cphi[0] * kern[5] - 0.0144 * sphi[0] * kern[6]);
+    t[0] = p.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
+        + p.gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
+        + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
+    t[1] = p.gravity[0] * (kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0])
+        + p.gravity[1] * (kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]);
+    t[2] = p.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
+        + p.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
+    t[3] = p.gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
+        + p.gravity[1] * (0.0144 * cphi[0] * kern[10] - 0.0144 * sphi[0] * kern[11]);
+    out[0] = -p.density_scale[0]
+        * (0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0])
+        - p.density_scale[1] * t[0] - p.payload_mass * t[1];
+    out[1] = -p.density_scale[1] * t[2] - p.payload_mass * t[3];
     out
 }
-/// Gravity vector `G(q) = ∂U_g/∂q`.
+/// Gravity vector `G(q) = ∂U_g/∂q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
-    gravity_in(q, &mut [0.0; 33])
+    gravity_in(&Params::DEFAULT, q, &mut [0.0; 40])
 }
-/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (33 reals); the same values.
+/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (40 reals); the same values.
 ///
-/// Operations: 84 add, 173 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
-    gravity_in(q, &mut ws.0)
+    gravity_in(&Params::DEFAULT, q, &mut ws.0)
+}
+/// [`gravity`] at the runtime parameters `p`.
+///
+/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_with(p: &Params, q: &[f64; NQ]) -> [f64; NQ] {
+    gravity_in(p, q, &mut [0.0; 40])
+}
+/// [`gravity_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+    gravity_in(p, q, &mut ws.0)
 }
 /// The work of [`actuation`] and [`actuation_ws`], in `work` (at least 0 reals).
 ///
@@ -529,7 +605,7 @@ pub fn actuation_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NU]; NQ] {
     actuation_in(q, &mut ws.0)
 }
 /// Kernels of `tip_jacobian`: pairs (row, moment base).
-static TIP_JACOBIAN_ROWS: [u8; 8] = [5, 6, 6, 0, 4, 12, 4, 18];
+static TIP_JACOBIAN_ROWS: [u8; 8] = [4, 6, 5, 0, 3, 12, 3, 18];
 /// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 28 reals).
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
@@ -566,17 +642,17 @@ pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
 /// Kernels of `gravity_jacobian`: pairs (row, moment base).
-static GRAVITY_JACOBIAN_ROWS: [u8; 26] = [
-    1, 12, 1, 18, 2, 12, 2, 18, 11, 12, 11, 18, 12, 6, 4, 12, 4, 18, 13, 12, 13, 18, 14,
-    6, 15, 6,
+static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
+    8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3,
+    12, 3, 18, 9, 12, 9, 18,
 ];
-/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 38 reals).
+/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 45 reals).
 ///
-/// Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
-fn gravity_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(13);
-    let t = &mut work[..1];
+    let (kern, work) = work.split_at_mut(16);
+    let t = &mut work[..5];
     moments(0.15 * q[0], 4, nu, 0, 6);
     moments(0.12 * q[1], 4, nu, 12, 18);
     let mut cphi = [0.0; 1];
@@ -586,37 +662,70 @@ fn gravity_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     sphi[0] = libm::sin(phi);
     kernels(&GRAVITY_JACOBIAN_ROWS, nu, kern);
     let mut out = [[0.0; NQ]; NQ];
-    t[0] = 9.81 * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0])
-        + 0.1962 * (-0.00216 * sphi[0] * kern[7] - 0.00216 * cphi[0] * kern[8]);
-    out[0][0] = kern[11]
-        + 9.81 * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0]) - kern[12]
-        + 0.1962 * (kern[6] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
-    out[0][1] = t[0];
-    out[1][0] = t[0];
-    out[1][1] = 9.81 * (-5.184e-5 * kern[5] * cphi[0] - 5.184e-5 * kern[4] * sphi[0])
-        + 0.1962 * (-0.001728 * cphi[0] * kern[10] - 0.001728 * sphi[0] * kern[9]);
+    t[0] = p.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
+        + p.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
+    t[1] = p.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
+        + p.gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]);
+    t[2] = -p.density_scale[1] * t[0] - p.payload_mass * t[1];
+    t[0] = p.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
+        + p.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
+        + 0.03
+            * (-0.003375 * p.gravity[0] * kern[8] - 0.003375 * p.gravity[1] * kern[9]);
+    t[1] = p.gravity[0]
+        * (kern[10] - 0.0027 * nu[12] * cphi[0] + 0.0027 * nu[18] * sphi[0])
+        + p.gravity[1]
+            * (kern[11] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
+    t[3] = p.gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
+        + p.gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]);
+    t[4] = p.gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
+        + p.gravity[1]
+            * (-0.001728 * cphi[0] * kern[15] - 0.001728 * sphi[0] * kern[14]);
+    out[0][0] = -p.density_scale[0]
+        * (-0.0001771875 * kern[0] * p.gravity[0]
+            - 0.0001771875 * kern[1] * p.gravity[1]) - p.density_scale[1] * t[0]
+        - p.payload_mass * t[1];
+    out[0][1] = t[2];
+    out[1][0] = t[2];
+    out[1][1] = -p.density_scale[1] * t[3] - p.payload_mass * t[4];
     out
 }
-/// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric.
+/// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    gravity_jacobian_in(q, &mut [0.0; 38])
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 45])
 }
-/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (38 reals); the same values.
+/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (45 reals); the same values.
 ///
-/// Operations: 107 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
-    gravity_jacobian_in(q, &mut ws.0)
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
+}
+/// [`gravity_jacobian`] at the runtime parameters `p`.
+///
+/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    gravity_jacobian_in(p, q, &mut [0.0; 45])
+}
+/// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NQ]; NQ] {
+    gravity_jacobian_in(p, q, &mut ws.0)
 }
 /// Kernels of `potential_energy`: pairs (row, moment base).
-static POTENTIAL_ENERGY_ROWS: [u8; 6] = [16, 6, 1, 12, 1, 18];
-/// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 27 reals).
+static POTENTIAL_ENERGY_ROWS: [u8; 8] = [1, 0, 1, 6, 1, 12, 1, 18];
+/// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 30 reals).
 ///
-/// Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
-fn potential_energy_in(q: &[f64; NQ], work: &mut [f64]) -> f64 {
+/// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
+fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let kern = &mut work[..3];
+    let (kern, work) = work.split_at_mut(4);
+    let t = &mut work[..2];
     moments(0.15 * q[0], 2, nu, 0, 6);
     moments(0.12 * q[1], 2, nu, 12, 18);
     let mut cphi = [0.0; 1];
@@ -625,40 +734,62 @@ fn potential_energy_in(q: &[f64; NQ], work: &mut [f64]) -> f64 {
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
     kernels(&POTENTIAL_ENERGY_ROWS, nu, kern);
-    return kern[0] + 9.81 * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
-        + 0.044145 * nu[6]
-        + 0.1962 * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0])
-        + 0.5 * (0.00225 * q[0] * q[0] + 0.00108 * q[1] * q[1]);
+    t[0] = p.gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
+        + p.gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
+        + 0.03 * (0.15 * nu[0] * p.gravity[0] + 0.15 * nu[6] * p.gravity[1]);
+    t[1] = p.gravity[0]
+        * (0.15 * nu[0] + 0.12 * nu[12] * cphi[0] - 0.12 * nu[18] * sphi[0])
+        + p.gravity[1]
+            * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0]);
+    return 0.5
+        * (0.00225 * p.stiffness_scale[0] * q[0] * q[0]
+            + 0.00108 * p.stiffness_scale[1] * q[1] * q[1])
+        - p.density_scale[0]
+            * (0.007875 * kern[0] * p.gravity[0] + 0.007875 * kern[1] * p.gravity[1])
+        - p.density_scale[1] * t[0] - p.payload_mass * t[1];
 }
-/// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.
+/// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
 pub fn potential_energy(q: &[f64; NQ]) -> f64 {
-    potential_energy_in(q, &mut [0.0; 27])
+    potential_energy_in(&Params::DEFAULT, q, &mut [0.0; 30])
 }
-/// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (27 reals); the same values.
+/// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (30 reals); the same values.
 ///
-/// Operations: 69 add, 148 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
 pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
-    potential_energy_in(q, &mut ws.0)
+    potential_energy_in(&Params::DEFAULT, q, &mut ws.0)
+}
+/// [`potential_energy`] at the runtime parameters `p`.
+///
+/// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
+pub fn potential_energy_with(p: &Params, q: &[f64; NQ]) -> f64 {
+    potential_energy_in(p, q, &mut [0.0; 30])
+}
+/// [`potential_energy_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
+pub fn potential_energy_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+    potential_energy_in(p, q, &mut ws.0)
 }
 /// Kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u8; 56] = [
-    0, 0, 17, 6, 1, 12, 1, 18, 2, 12, 2, 18, 18, 18, 3, 12, 11, 12, 11, 18, 19, 18, 17,
-    18, 4, 0, 4, 6, 5, 6, 6, 0, 7, 12, 8, 12, 13, 0, 13, 6, 12, 0, 12, 6, 4, 12, 4, 18,
-    13, 12, 13, 18, 9, 0, 10, 0,
+    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13,
+    18, 11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
+    18, 9, 12, 9, 18,
 ];
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 79 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 81 reals).
 ///
-/// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
+    p: &Params,
     q: &[f64; NQ],
     qd: &[f64; NQ],
     work: &mut [f64],
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
-    let t = &mut work[..27];
+    let t = &mut work[..29];
     moments(0.15 * q[0], 6, nu, 0, 6);
     moments(0.12 * q[1], 6, nu, 12, 18);
     let mut cphi = [0.0; 1];
@@ -670,114 +801,185 @@ fn terms_in(
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
     let mut g = [0.0; NQ];
-    t[0] = qd[1] * kern[8];
-    t[1] = qd[1] * kern[9];
-    t[2] = kern[2] * cphi[0];
-    t[3] = kern[3] * sphi[0];
-    t[4] = 0.0036 * t[2] - 0.0036 * t[3];
-    t[5] = 0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0];
-    t[6] = 0.15 * (0.0225 * kern[13] * t[5] + 0.0225 * kern[12] * t[4]);
-    t[7] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    t[8] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    t[9] = qd[0] * kern[18];
-    t[10] = qd[0] * kern[19];
-    t[11] = qd[1] * kern[5];
-    t[12] = qd[1] * kern[4];
-    t[13] = qd[0] * kern[6];
-    t[14] = nu[12] * cphi[0];
-    t[15] = nu[18] * sphi[0];
-    t[16] = nu[18] * cphi[0];
-    t[17] = nu[12] * sphi[0];
-    t[18] = kern[14] - 0.018 * t[17] - 0.018 * t[16];
-    t[19] = kern[15] - 0.018 * t[15] + 0.018 * t[14];
-    t[20] = cphi[0] * kern[23];
-    t[21] = sphi[0] * kern[22];
-    t[22] = -0.0144 * t[20] - 0.0144 * t[21];
-    t[23] = cphi[0] * kern[22];
-    t[24] = sphi[0] * kern[23];
-    t[25] = 0.0144 * t[23] - 0.0144 * t[24];
-    t[26] = 0.00216 * t[24] - 0.00216 * t[23];
-    t[23] = -0.00216 * t[21] - 0.00216 * t[20];
-    t[20] = qd[0] * (kern[20] - 0.0027 * t[14] + 0.0027 * t[15]) + qd[1] * t[26];
-    t[14] = qd[0] * (kern[21] - 0.0027 * t[16] - 0.0027 * t[17]) + qd[1] * t[23];
-    t[15] = qd[0] * t[26]
-        + qd[1] * (0.001728 * sphi[0] * kern[25] - 0.001728 * cphi[0] * kern[24]);
-    t[16] = qd[0] * t[23]
-        + qd[1] * (-0.001728 * cphi[0] * kern[25] - 0.001728 * sphi[0] * kern[24]);
-    t[17] = 0.0225 * kern[12] * t[8] - 0.0225 * kern[13] * t[7] + kern[17]
-        + 0.02 * (t[18] * t[22] + t[19] * t[25]) + 1.008e-8;
-    t[21] = 0.0225 * kern[13] * (0.000432 * cphi[0] * t[12] - 0.000432 * sphi[0] * t[11])
-        + 0.0225 * kern[12] * (-0.000432 * cphi[0] * t[11] - 0.000432 * sphi[0] * t[12]);
-    b[0][0] = kern[0]
-        + 0.03 * (0.00050625 * kern[13] * kern[13] + 0.00050625 * kern[12] * kern[12])
-        + t[6] + t[6] + kern[16] + 0.02 * (t[18] * t[18] + t[19] * t[19]) + 3.195e-8;
-    b[0][1] = t[17];
-    b[1][0] = t[17];
-    b[1][1] = kern[7] + 0.02 * (t[22] * t[22] + t[25] * t[25]) + 6.336e-9;
-    c[0][0] = 0.03 * (7.59375e-5 * kern[13] * t[9] - 7.59375e-5 * kern[12] * t[10])
-        - 3.98671875e-6 * qd[0] * kern[1]
-        - 0.0225 * qd[0] * (0.0225 * kern[12] * t[5] - 0.0225 * kern[13] * t[4])
-        + 0.15 * t[21] + 0.15 * (0.003375 * t[5] * t[9] - 0.003375 * t[4] * t[10])
-        - 1.1664e-6 * qd[1] * kern[6] + 0.02 * (t[18] * t[20] + t[19] * t[14]);
-    c[0][1] = 0.15 * qd[0] * (0.0225 * kern[13] * t[8] + 0.0225 * kern[12] * t[7])
-        - 0.0225 * kern[13] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
-        + 0.0225 * kern[12] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[13] - 9.3312e-7 * qd[1] * kern[10]
-        + 0.02 * (t[18] * t[15] + t[19] * t[16]);
-    c[1][0] = 1.1664e-6 * t[13] - 0.003375 * t[7] * t[9] - 0.003375 * t[8] * t[10]
-        + 0.02 * (t[22] * t[20] + t[25] * t[14]);
-    c[1][1] = 0.02 * (t[22] * t[15] + t[25] * t[16]) - 7.46496e-7 * qd[1] * kern[11];
-    g[0] = kern[26] + 9.81 * (0.00054 * t[2] - 0.00054 * t[3]) - kern[27]
-        + 0.1962 * t[19];
-    g[1] = 9.81 * t[8] + 0.1962 * t[25];
+    t[0] = qd[1] * kern[10];
+    t[1] = qd[1] * kern[11];
+    t[2] = kern[4] * cphi[0];
+    t[3] = kern[5] * sphi[0];
+    t[4] = kern[5] * cphi[0];
+    t[5] = kern[4] * sphi[0];
+    t[6] = 0.0036 * t[2] - 0.0036 * t[3];
+    t[7] = 0.0036 * t[4] + 0.0036 * t[5];
+    t[8] = 0.15 * (0.0225 * kern[15] * t[7] + 0.0225 * kern[14] * t[6]);
+    t[9] = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
+    t[10] = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
+    t[11] = qd[0] * kern[20];
+    t[12] = qd[0] * kern[21];
+    t[13] = qd[1] * kern[7];
+    t[14] = qd[1] * kern[6];
+    t[15] = qd[0] * kern[8];
+    t[16] = nu[12] * cphi[0];
+    t[17] = nu[18] * sphi[0];
+    t[18] = nu[18] * cphi[0];
+    t[19] = nu[12] * sphi[0];
+    t[20] = kern[16] - 0.018 * t[19] - 0.018 * t[18];
+    t[21] = kern[17] - 0.018 * t[17] + 0.018 * t[16];
+    t[22] = cphi[0] * kern[25];
+    t[23] = sphi[0] * kern[24];
+    t[24] = -0.0144 * t[22] - 0.0144 * t[23];
+    t[25] = cphi[0] * kern[24];
+    t[26] = sphi[0] * kern[25];
+    t[27] = 0.0144 * t[25] - 0.0144 * t[26];
+    t[28] = 0.00216 * t[26] - 0.00216 * t[25];
+    t[25] = -0.00216 * t[23] - 0.00216 * t[22];
+    t[22] = qd[0] * (kern[22] - 0.0027 * t[16] + 0.0027 * t[17]) + qd[1] * t[28];
+    t[16] = qd[0] * (kern[23] - 0.0027 * t[18] - 0.0027 * t[19]) + qd[1] * t[25];
+    t[17] = qd[0] * t[28]
+        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+    t[18] = qd[0] * t[25]
+        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
+    t[19] = p.density_scale[1]
+        * (0.0225 * kern[14] * t[10] - 0.0225 * kern[15] * t[9] + kern[19])
+        + 6.48e-9 * p.rotary_inertia_scale[1]
+        + p.payload_mass * (t[20] * t[24] + t[21] * t[27])
+        + 0.018 * p.payload_rotary_inertia;
+    t[23] = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
+        + t[8] + t[8] + kern[18];
+    t[8] = 0.0225 * kern[15] * (0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[13])
+        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t[13] - 0.000432 * sphi[0] * t[14]);
+    t[13] = 0.03 * (7.59375e-5 * kern[15] * t[11] - 7.59375e-5 * kern[14] * t[12])
+        - 0.0225 * qd[0] * (0.0225 * kern[14] * t[7] - 0.0225 * kern[15] * t[6])
+        + 0.15 * t[8] + 0.15 * (0.003375 * t[7] * t[11] - 0.003375 * t[6] * t[12])
+        - 1.1664e-6 * qd[1] * kern[8];
+    t[6] = 0.15 * qd[0] * (0.0225 * kern[15] * t[10] + 0.0225 * kern[14] * t[9])
+        - 0.0225 * kern[15] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
+        + 0.0225 * kern[14] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[15] - 9.3312e-7 * qd[1] * kern[12];
+    t[0] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
+        + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
+        + 0.03 * (0.0225 * p.gravity[1] * kern[14] - 0.0225 * p.gravity[0] * kern[15]);
+    b[0][0] = 2.6578125e-5 * kern[2] * p.density_scale[0]
+        + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[23]
+        + 1.62e-8 * p.rotary_inertia_scale[1]
+        + p.payload_mass * (t[20] * t[20] + t[21] * t[21])
+        + 0.0225 * p.payload_rotary_inertia;
+    b[0][1] = t[19];
+    b[1][0] = t[19];
+    b[1][1] = 6.2208e-6 * kern[9] * p.density_scale[1]
+        + 3.456e-9 * p.rotary_inertia_scale[1]
+        + p.payload_mass * (t[24] * t[24] + t[27] * t[27])
+        + 0.0144 * p.payload_rotary_inertia;
+    c[0][0] = p.density_scale[1] * t[13]
+        - 3.98671875e-6 * qd[0] * kern[3] * p.density_scale[0]
+        + p.payload_mass * (t[20] * t[22] + t[21] * t[16]);
+    c[0][1] = p.density_scale[1] * t[6]
+        + p.payload_mass * (t[20] * t[17] + t[21] * t[18]);
+    c[1][0] = p.density_scale[1]
+        * (1.1664e-6 * t[15] - 0.003375 * t[9] * t[11] - 0.003375 * t[10] * t[12])
+        + p.payload_mass * (t[24] * t[22] + t[27] * t[16]);
+    c[1][1] = p.payload_mass * (t[24] * t[17] + t[27] * t[18])
+        - 7.46496e-7 * qd[1] * kern[13] * p.density_scale[1];
+    g[0] = -p.density_scale[0]
+        * (0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0])
+        - p.density_scale[1] * t[0]
+        - p.payload_mass * (p.gravity[0] * t[20] + p.gravity[1] * t[21]);
+    g[1] = -p.density_scale[1] * (p.gravity[0] * t[9] + p.gravity[1] * t[10])
+        - p.payload_mass * (p.gravity[0] * t[24] + p.gravity[1] * t[27]);
     (b, c, g)
 }
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
     q: &[f64; NQ],
     qd: &[f64; NQ],
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
-    terms_in(q, qd, &mut [0.0; 79])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 81])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (79 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (81 reals); the same values.
 ///
-/// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
     ws: &mut Workspace,
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
-    terms_in(q, qd, &mut ws.0)
+    terms_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 79 reals).
+/// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
-fn coriolis_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
-    terms_in(q, qd, work).1
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+pub fn terms_with(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    terms_in(p, q, qd, &mut [0.0; 81])
 }
-/// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G.
+/// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+pub fn terms_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    terms_in(p, q, qd, &mut ws.0)
+}
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 81 reals).
+///
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+fn coriolis_in(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    work: &mut [f64],
+) -> [[f64; NQ]; NQ] {
+    terms_in(p, q, qd, work).1
+}
+/// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
+///
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    coriolis_in(q, qd, &mut [0.0; 79])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 81])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (79 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (81 reals); the same values.
 ///
-/// Operations: 221 add, 424 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
     ws: &mut Workspace,
 ) -> [[f64; NQ]; NQ] {
-    coriolis_in(q, qd, &mut ws.0)
+    coriolis_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
-/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 44 reals).
+/// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
-fn kinetic_energy_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> f64 {
-    let b = inertia_in(q, work);
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+    coriolis_in(p, q, qd, &mut [0.0; 81])
+}
+/// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+pub fn coriolis_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NQ]; NQ] {
+    coriolis_in(p, q, qd, &mut ws.0)
+}
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 45 reals).
+///
+/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+fn kinetic_energy_in(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    work: &mut [f64],
+) -> f64 {
+    let b = inertia_in(p, q, work);
     let mut t = 0.0;
     for i in 0..NQ {
         let mut bqd = 0.0;
@@ -788,39 +990,68 @@ fn kinetic_energy_in(q: &[f64; NQ], qd: &[f64; NQ], work: &mut [f64]) -> f64 {
     }
     0.5 * t
 }
-/// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].
+/// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
-    kinetic_energy_in(q, qd, &mut [0.0; 44])
+    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 45])
 }
-/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (44 reals); the same values.
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (45 reals); the same values.
 ///
-/// Operations: 127 add, 256 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
-    kinetic_energy_in(q, qd, &mut ws.0)
+    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
-/// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`.
+/// [`kinetic_energy`] at the runtime parameters `p`.
 ///
-/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+    kinetic_energy_in(p, q, qd, &mut [0.0; 45])
+}
+/// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+pub fn kinetic_energy_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> f64 {
+    kinetic_energy_in(p, q, qd, &mut ws.0)
+}
+/// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`. At the runtime parameters `p`.
+///
+/// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
+pub fn stiffness_with(p: &Params) -> [[f64; NQ]; NQ] {
+    let mut out = [[0.0; NQ]; NQ];
+    out[0][0] = 0.00225 * p.stiffness_scale[0];
+    out[0][1] = 0.0;
+    out[1][0] = 0.0;
+    out[1][1] = 0.00108 * p.stiffness_scale[1];
+    out
+}
+/// [`stiffness_with`] at the arm file's parameters.
+///
+/// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
 pub fn stiffness() -> [[f64; NQ]; NQ] {
+    stiffness_with(&Params::DEFAULT)
+}
+/// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`. At the runtime parameters `p`.
+///
+/// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
+pub fn damping_with(p: &Params) -> [[f64; NQ]; NQ] {
     let mut out = [[0.0; NQ]; NQ];
-    out[0][0] = 0.00225;
+    out[0][0] = 4.5e-5 * p.damping_scale[0];
     out[0][1] = 0.0;
     out[1][0] = 0.0;
-    out[1][1] = 0.00108;
+    out[1][1] = 2.4e-5 * p.damping_scale[1];
     out
 }
-/// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`.
+/// [`damping_with`] at the arm file's parameters.
 ///
-/// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
+/// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
 pub fn damping() -> [[f64; NQ]; NQ] {
-    let mut out = [[0.0; NQ]; NQ];
-    out[0][0] = 4.5e-5;
-    out[0][1] = 0.0;
-    out[1][0] = 0.0;
-    out[1][1] = 2.4e-5;
-    out
+    damping_with(&Params::DEFAULT)
 }
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
@@ -890,37 +1121,59 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 234 add, 435 mul, 9 div, 2 sqrt, 6 trig.
+/// Operations: 247 add, 477 mul, 9 div, 2 sqrt, 6 trig.
 pub fn forward_dynamics(
     q: &[f64; NQ],
     qd: &[f64; NQ],
     u: &[f64; NU],
 ) -> Result<[f64; NQ], DynamicsError> {
-    forward_dynamics_in(q, qd, u, &mut [0.0; 79])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 81])
+}
+/// [`forward_dynamics`] at the runtime parameters `p`.
+pub fn forward_dynamics_with(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    u: &[f64; NU],
+) -> Result<[f64; NQ], DynamicsError> {
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 81])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (79 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (81 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
     u: &[f64; NU],
     ws: &mut Workspace,
 ) -> Result<[f64; NQ], DynamicsError> {
-    forward_dynamics_in(q, qd, u, &mut ws.0)
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut ws.0)
+}
+/// [`forward_dynamics_with`] with its scratch in the caller's [`Workspace`].
+pub fn forward_dynamics_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[f64; NQ], DynamicsError> {
+    forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 79 reals).
+/// 81 reals).
 fn forward_dynamics_in(
+    p: &Params,
     q: &[f64; NQ],
     qd: &[f64; NQ],
     u: &[f64; NU],
     work: &mut [f64],
 ) -> Result<[f64; NQ], DynamicsError> {
-    if q.iter().chain(qd.iter()).chain(u.iter()).any(|v| !v.is_finite()) {
+    if !p.is_finite()
+        || q.iter().chain(qd.iter()).chain(u.iter()).any(|v| !v.is_finite())
+    {
         return Err(DynamicsError::NonFiniteInput);
     }
-    let (b, c, g) = terms_in(q, qd, work);
-    let (stiff, damp, a) = (stiffness(), damping(), actuation_in(q, work));
+    let (b, c, g) = terms_in(p, q, qd, work);
+    let (stiff, damp, a) = (stiffness_with(p), damping_with(p), actuation_in(q, work));
     if !(all_finite(b.as_flattened()) && all_finite(c.as_flattened()) && all_finite(&g)
         && all_finite(a.as_flattened()))
     {
@@ -1015,7 +1268,7 @@ const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
 const EQUILIBRIUM_MIN_STEP: f64 = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
 const EQUILIBRIUM_MAX_BENDING_STEP: f64 = 0.5;
-const STATICS_WORK: usize = 38;
+const STATICS_WORK: usize = 45;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
 fn bending(v: &[f64; NQ]) -> f64 {
     let mut worst: f64 = 0.0;
@@ -1106,9 +1359,17 @@ fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bo
 }
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
 ///
-/// Operations: 96 add, 185 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
-    static_residual_in(q, u, &mut [0.0; STATICS_WORK])
+    static_residual_in(&Params::DEFAULT, q, u, &mut [0.0; STATICS_WORK])
+}
+/// [`static_residual`] at the runtime parameters `p`.
+pub fn static_residual_with(
+    p: &Params,
+    q: &[f64; NQ],
+    u: &[f64; NU],
+) -> Result<[f64; NQ], StaticsError> {
+    static_residual_in(p, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_residual`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn static_residual_ws(
@@ -1116,18 +1377,28 @@ pub fn static_residual_ws(
     u: &[f64; NU],
     ws: &mut Workspace,
 ) -> Result<[f64; NQ], StaticsError> {
-    static_residual_in(q, u, &mut ws.0)
+    static_residual_in(&Params::DEFAULT, q, u, &mut ws.0)
+}
+/// [`static_residual_with`] with its scratch in the caller's [`Workspace`].
+pub fn static_residual_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[f64; NQ], StaticsError> {
+    static_residual_in(p, q, u, &mut ws.0)
 }
 fn static_residual_in(
+    p: &Params,
     q: &[f64; NQ],
     u: &[f64; NU],
     work: &mut [f64],
 ) -> Result<[f64; NQ], StaticsError> {
-    if !all_finite(q) || !all_finite(u) {
+    if !p.is_finite() || !all_finite(q) || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
-    let k = stiffness();
-    let mut r = gravity_in(q, work);
+    let k = stiffness_with(p);
+    let mut r = gravity_in(p, q, work);
     let a = actuation_in(q, work);
     for i in 0..NQ {
         for c in 0..NQ {
@@ -1142,12 +1413,20 @@ fn static_residual_in(
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
 ///
-/// Operations: 111 add, 211 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
     q: &[f64; NQ],
     u: &[f64; NU],
 ) -> Result<[[f64; NQ]; NQ], StaticsError> {
-    static_jacobian_in(q, u, &mut [0.0; STATICS_WORK])
+    static_jacobian_in(&Params::DEFAULT, q, u, &mut [0.0; STATICS_WORK])
+}
+/// [`static_jacobian`] at the runtime parameters `p`.
+pub fn static_jacobian_with(
+    p: &Params,
+    q: &[f64; NQ],
+    u: &[f64; NU],
+) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    static_jacobian_in(p, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_jacobian`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn static_jacobian_ws(
@@ -1155,18 +1434,28 @@ pub fn static_jacobian_ws(
     u: &[f64; NU],
     ws: &mut Workspace,
 ) -> Result<[[f64; NQ]; NQ], StaticsError> {
-    static_jacobian_in(q, u, &mut ws.0)
+    static_jacobian_in(&Params::DEFAULT, q, u, &mut ws.0)
+}
+/// [`static_jacobian_with`] with its scratch in the caller's [`Workspace`].
+pub fn static_jacobian_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    static_jacobian_in(p, q, u, &mut ws.0)
 }
 fn static_jacobian_in(
+    p: &Params,
     q: &[f64; NQ],
     _u: &[f64; NU],
     work: &mut [f64],
 ) -> Result<[[f64; NQ]; NQ], StaticsError> {
-    if !all_finite(q) || !all_finite(_u) {
+    if !p.is_finite() || !all_finite(q) || !all_finite(_u) {
         return Err(StaticsError::NonFiniteInput);
     }
-    let k = stiffness();
-    let mut j = gravity_jacobian_in(q, work);
+    let k = stiffness_with(p);
+    let mut j = gravity_jacobian_in(p, q, work);
     for i in 0..NQ {
         for x in 0..NQ {
             j[i][x] += k[i][x];
@@ -1183,6 +1472,7 @@ struct Linearised {
     scale: f64,
 }
 fn linearise(
+    p: &Params,
     q: &[f64; NQ],
     u: &[f64; NU],
     lambda: f64,
@@ -1190,7 +1480,7 @@ fn linearise(
     with_jacobian: bool,
     work: &mut [f64],
 ) -> Option<Linearised> {
-    let g = gravity_in(q, work);
+    let g = gravity_in(p, q, work);
     let a = actuation_in(q, work);
     let mut lin = Linearised {
         r: [0.0; NQ],
@@ -1219,7 +1509,7 @@ fn linearise(
         return None;
     }
     if with_jacobian {
-        let dg = gravity_jacobian_in(q, work);
+        let dg = gravity_jacobian_in(p, q, work);
         for i in 0..NQ {
             for x in 0..NQ {
                 let d = dg[i][x];
@@ -1238,28 +1528,44 @@ fn linearise(
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
 ///
-/// Operations per Newton iteration, at most: 234 add, 417 mul, 11 div, 4 sqrt, 12 trig.
-/// Per backtracking trial: 111 add, 196 mul, 4 div, 4 sqrt, 6 trig.
+/// Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
+/// Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
 pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
-    equilibrium_in(u, &mut [0.0; STATICS_WORK])
+    equilibrium_in(&Params::DEFAULT, u, &mut [0.0; STATICS_WORK])
+}
+/// [`equilibrium`] at the runtime parameters `p`.
+pub fn equilibrium_with(p: &Params, u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
+    equilibrium_in(p, u, &mut [0.0; STATICS_WORK])
 }
 /// [`equilibrium`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn equilibrium_ws(
     u: &[f64; NU],
     ws: &mut Workspace,
 ) -> Result<Equilibrium, StaticsError> {
-    equilibrium_in(u, &mut ws.0)
+    equilibrium_in(&Params::DEFAULT, u, &mut ws.0)
 }
-fn equilibrium_in(u: &[f64; NU], work: &mut [f64]) -> Result<Equilibrium, StaticsError> {
-    if !all_finite(u) {
+/// [`equilibrium_with`] with its scratch in the caller's [`Workspace`].
+pub fn equilibrium_with_ws(
+    p: &Params,
+    u: &[f64; NU],
+    ws: &mut Workspace,
+) -> Result<Equilibrium, StaticsError> {
+    equilibrium_in(p, u, &mut ws.0)
+}
+fn equilibrium_in(
+    p: &Params,
+    u: &[f64; NU],
+    work: &mut [f64],
+) -> Result<Equilibrium, StaticsError> {
+    if !p.is_finite() || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
-    let k = stiffness();
+    let k = stiffness_with(p);
     let mut q = [0.0; NQ];
     let (mut lambda, mut step, mut last) = (0.0f64, 1.0f64, 0.0f64);
     let (mut iterations, mut load_steps) = (0usize, 0usize);
     while lambda < 1.0 {
-        let here = linearise(&q, u, lambda, &k, true, work)
+        let here = linearise(p, &q, u, lambda, &k, true, work)
             .ok_or(StaticsError::NonFiniteResult)?;
         let tangent = match solve(here.jac, here.load) {
             Some(t) => t.map(|v| -v),
@@ -1281,7 +1587,7 @@ fn equilibrium_in(u: &[f64; NU], work: &mut [f64]) -> Result<Equilibrium, Static
                 break;
             }
             iterations += 1;
-            let lin = linearise(&trial, u, target, &k, true, work)
+            let lin = linearise(p, &trial, u, target, &k, true, work)
                 .ok_or(StaticsError::NonFiniteResult)?;
             let res = norm(&lin.r);
             last = res;
@@ -1305,7 +1611,7 @@ fn equilibrium_in(u: &[f64; NU], work: &mut [f64]) -> Result<Equilibrium, Static
                 for i in 0..NQ {
                     cand[i] = trial[i] + alpha * dq[i];
                 }
-                if let Some(c) = linearise(&cand, u, target, &k, false, work) {
+                if let Some(c) = linearise(p, &cand, u, target, &k, false, work) {
                     let cres = norm(&c.r);
                     if cres < res || cres <= EQUILIBRIUM_TOLERANCE * c.scale {
                         trial = cand;
@@ -1336,7 +1642,7 @@ fn equilibrium_in(u: &[f64; NU], work: &mut [f64]) -> Result<Equilibrium, Static
             }
         }
     }
-    let lin = linearise(&q, u, 1.0, &k, true, work)
+    let lin = linearise(p, &q, u, 1.0, &k, true, work)
         .ok_or(StaticsError::NonFiniteResult)?;
     let mut sym = [0.0; NQ * NQ];
     for i in 0..NQ {
@@ -1420,7 +1726,7 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
 ///
-/// Operations before the allocation, at most: 144 add, 236 mul, 5 div, 0 sqrt, 6 trig.
+/// Operations before the allocation, at most: 163 add, 276 mul, 5 div, 0 sqrt, 6 trig.
 /// Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
 pub fn regulate(
     law: Law,
@@ -1430,7 +1736,19 @@ pub fn regulate(
     q: &[f64; NQ],
     qd: &[f64; NQ],
 ) -> Result<Command, RegulateError> {
-    regulate_in(law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
+    regulate_in(&Params::DEFAULT, law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
+}
+/// [`regulate`] at the runtime parameters `p`.
+pub fn regulate_with(
+    p: &Params,
+    law: Law,
+    target: &[f64; NY],
+    kp: &[f64; NY],
+    kd: &[f64; NY],
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+) -> Result<Command, RegulateError> {
+    regulate_in(p, law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
 }
 /// [`regulate`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn regulate_ws(
@@ -1442,9 +1760,23 @@ pub fn regulate_ws(
     qd: &[f64; NQ],
     ws: &mut Workspace,
 ) -> Result<Command, RegulateError> {
-    regulate_in(law, target, kp, kd, q, qd, &mut ws.0)
+    regulate_in(&Params::DEFAULT, law, target, kp, kd, q, qd, &mut ws.0)
+}
+/// [`regulate_with`] with its scratch in the caller's [`Workspace`].
+pub fn regulate_with_ws(
+    p: &Params,
+    law: Law,
+    target: &[f64; NY],
+    kp: &[f64; NY],
+    kd: &[f64; NY],
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> Result<Command, RegulateError> {
+    regulate_in(p, law, target, kp, kd, q, qd, &mut ws.0)
 }
 fn regulate_in(
+    p: &Params,
     law: Law,
     target: &[f64; NY],
     kp: &[f64; NY],
@@ -1453,8 +1785,8 @@ fn regulate_in(
     qd: &[f64; NQ],
     work: &mut [f64],
 ) -> Result<Command, RegulateError> {
-    if !all_finite(q) || !all_finite(qd) || !all_finite(target) || !all_finite(kp)
-        || !all_finite(kd)
+    if !p.is_finite() || !all_finite(q) || !all_finite(qd) || !all_finite(target)
+        || !all_finite(kp) || !all_finite(kd)
     {
         return Err(RegulateError::NonFiniteInput);
     }
@@ -1468,8 +1800,8 @@ fn regulate_in(
         b[r] = kp[r] * (target[r] - y[r]) - kd[r] * yd[r];
     }
     if law == Law::Compensated {
-        let mut load = gravity_in(q, work);
-        let k = stiffness();
+        let mut load = gravity_in(p, q, work);
+        let k = stiffness_with(p);
         for i in 0..NQ {
             for j in 0..NQ {
                 load[i] += k[i][j] * q[j];

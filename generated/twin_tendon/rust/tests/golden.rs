@@ -399,6 +399,213 @@ static G_REGSAT: [[f64; 2]; NCASES] = [
     [0.0, 0.0],
     [0.0, 0.0],
 ];
+static G_THETA: [[f64; 12]; NCASES] = [
+    [
+        1.1,
+        1.3,
+        9.0e-1,
+        8.0e-1,
+        1.3,
+        1.4,
+        7.0e-1,
+        8.0e-1,
+        4.65e-2,
+        1.3692e-5,
+        4.905,
+        -8.49546,
+    ],
+    [
+        1.1,
+        1.3,
+        9.0e-1,
+        8.0e-1,
+        1.3,
+        1.4,
+        7.0e-1,
+        8.0e-1,
+        4.65e-2,
+        1.3692e-5,
+        4.905,
+        -8.49546,
+    ],
+    [
+        1.1,
+        1.3,
+        9.0e-1,
+        8.0e-1,
+        1.3,
+        1.4,
+        7.0e-1,
+        8.0e-1,
+        4.65e-2,
+        1.3692e-5,
+        4.905,
+        -8.49546,
+    ],
+    [
+        1.1,
+        1.3,
+        9.0e-1,
+        8.0e-1,
+        1.3,
+        1.4,
+        7.0e-1,
+        8.0e-1,
+        4.65e-2,
+        1.3692e-5,
+        4.905,
+        -8.49546,
+    ],
+    [
+        1.1,
+        1.3,
+        9.0e-1,
+        8.0e-1,
+        1.3,
+        1.4,
+        7.0e-1,
+        8.0e-1,
+        4.65e-2,
+        1.3692e-5,
+        4.905,
+        -8.49546,
+    ],
+    [
+        1.1,
+        1.3,
+        9.0e-1,
+        8.0e-1,
+        1.3,
+        1.4,
+        7.0e-1,
+        8.0e-1,
+        4.65e-2,
+        1.3692e-5,
+        4.905,
+        -8.49546,
+    ],
+];
+static G_PB: [[f64; 4]; NCASES] = [
+    [5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6],
+    [5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6],
+    [5.84569113852933e-5, 1.23187536689398e-5, 1.23187536689398e-5, 3.00884882413536e-6],
+    [3.19327402854947e-5, 6.77565540604032e-6, 6.77565540604032e-6, 2.15336800342118e-6],
+    [5.8622045625e-5, 1.236114e-5, 1.236114e-5, 3.0148416e-6],
+    [2.47364166632721e-5, 4.20347823878806e-6, 4.20347823878806e-6, 2.47036195698631e-6],
+];
+static G_PC: [[f64; 4]; NCASES] = [
+    [0.0, 0.0, 0.0, 0.0],
+    [6.05111923828135e-17, -1.53019125e-16, 2.62574156250001e-16, 7.87320000000017e-18],
+    [5.22392976667961e-8, 4.5882106714803e-8, -6.26943672656953e-9, 2.51450910894331e-9],
+    [2.7995717769377e-7, 1.42449828374932e-9, 1.37031593239707e-7, 1.16830235284618e-8],
+    [5.18695143749999e-17, 3.025611225e-16, -2.93805225e-16, -3.77913600000007e-18],
+    [
+        -5.65059015076123e-8,
+        -2.60582679173834e-7,
+        3.46633193812861e-7,
+        1.03353300319821e-8,
+    ],
+];
+static G_PG: [[f64; 2]; NCASES] = [
+    [2.010397512375e-2, 3.639455064e-3],
+    [2.01039751358802e-2, 3.63945506742565e-3],
+    [2.13046701787662e-2, 3.78027263124414e-3],
+    [-3.60472902829967e-3, 8.52142934955896e-4],
+    [2.01039751263766e-2, 3.63945506532435e-3],
+    [3.82818764116038e-4, -3.43764997270473e-3],
+];
+static G_PK: [[f64; 4]; NCASES] = [
+    [2.925e-3, 0.0, 0.0, 1.512e-3],
+    [2.925e-3, 0.0, 0.0, 1.512e-3],
+    [2.925e-3, 0.0, 0.0, 1.512e-3],
+    [2.925e-3, 0.0, 0.0, 1.512e-3],
+    [2.925e-3, 0.0, 0.0, 1.512e-3],
+    [2.925e-3, 0.0, 0.0, 1.512e-3],
+];
+static G_PD: [[f64; 4]; NCASES] = [
+    [3.15e-5, 0.0, 0.0, 1.92e-5],
+    [3.15e-5, 0.0, 0.0, 1.92e-5],
+    [3.15e-5, 0.0, 0.0, 1.92e-5],
+    [3.15e-5, 0.0, 0.0, 1.92e-5],
+    [3.15e-5, 0.0, 0.0, 1.92e-5],
+    [3.15e-5, 0.0, 0.0, 1.92e-5],
+];
+static G_PT: [[f64; 1]; NCASES] = [
+    [1.5131062193625e-5],
+    [3.53284326958008e-6],
+    [1.71547198803255e-6],
+    [6.09563142428277e-7],
+    [9.47273902678196e-6],
+    [2.7879079648953e-6],
+];
+static G_PV: [[f64; 1]; NCASES] = [
+    [-1.2299900625e-1],
+    [-1.22999006085645e-1],
+    [-9.68411186488876e-2],
+    [1.29053715485378],
+    [-1.22999006219671e-1],
+    [5.6936225020247e-1],
+];
+static G_PRHS: [[f64; 2]; NCASES] = [
+    [-2.007517512375e-2, -3.722375064e-3],
+    [-1.98927564053803e-2, -3.54105508002576e-3],
+    [-2.51737131171795e-2, -1.18371384282481e-3],
+    [-6.47944292315156e-2, 3.18381689467791e-2],
+    [-2.00509313763767e-2, -3.70648707792453e-3],
+    [-3.91744178024555e-2, -2.16658083923565e-2],
+];
+static G_PBNORM: [[f64; 1]; NCASES] = [
+    [7.0983185625e-5],
+    [7.0983185625e-5],
+    [7.07756650542331e-5],
+    [3.8708395691535e-5],
+    [7.0983185625e-5],
+    [2.89398949020602e-5],
+];
+static G_PDG: [[f64; 4]; NCASES] = [
+    [1.4255386171875e-3, 3.151953e-4, 3.151953e-4, 1.58922e-4],
+    [1.42553861429555e-3, 3.15195299110016e-4, 3.15195299110016e-4, 1.58921999525464e-4],
+    [1.10833961112028e-3, 2.73680933650022e-4, 2.73680933650022e-4, 1.4337790671068e-4],
+    [
+        -2.02165005846465e-3,
+        -4.97205551519847e-4,
+        -4.97205551519847e-4,
+        -2.43178015872141e-4,
+    ],
+    [1.4255386165051e-3, 3.15195299655934e-4, 3.15195299655934e-4, 1.58921999800717e-4],
+    [
+        -1.85215329384274e-3,
+        -2.15937786829076e-4,
+        -2.15937786829076e-4,
+        -6.06993191329821e-5,
+    ],
+];
+static G_PR: [[f64; 2]; NCASES] = [
+    [2.009722512375e-2, 3.724055064e-3],
+    [1.98789751553802e-2, 3.54945508002565e-3],
+    [2.51709201787662e-2, 1.17027263124414e-3],
+    [6.48027709717004e-2, -3.18448570650441e-2],
+    [2.00702251263766e-2, 3.70245507792435e-3],
+    [3.9157818764116e-2, 2.16723500272953e-2],
+];
+static G_PEQOK: [[f64; 1]; NCASES] = [[1.0], [1.0], [1.0], [1.0], [1.0], [1.0]];
+static G_PQEQ: [[f64; 2]; NCASES] = [
+    [-3.9653951374293, -1.01847761214597],
+    [-2.94307073178857, 4.09869773624341e-3],
+    [-3.86490922293843, 2.99144685868225],
+    [-6.84994931874387, -3.99267402203917],
+    [-1.53730048379513, -9.73402958492302],
+    [2.59571528236415, 5.28642522634577],
+];
+static G_PUCOMP: [[f64; 4]; NCASES] = [
+    [2.20806979611111e1, 2.0e-1, 2.0e-1, 5.18960067013889],
+    [1.26883368611289e1, 2.0e-1, 2.0e-1, 9.43612844147325],
+    [2.0e-1, 4.9541509505249, 4.87341216095057, 2.0e-1],
+    [2.0e-1, 2.5e1, 2.5e1, 2.0e-1],
+    [2.35537882485586e1, 2.0e-1, 2.0e-1, 9.28769095612711],
+    [2.5e1, 2.0e-1, 2.0e-1, 9.49565624214522],
+];
+static G_PREGSAT: [[f64; 1]; NCASES] = [[0.0], [0.0], [0.0], [1.0], [0.0], [1.0]];
 const SCALE_B: f64 = 3.158398125e-5;
 const SCALE_C: f64 = 1.72177574906104e-7;
 const SCALE_G: f64 = 1.362976875e-2;
@@ -415,6 +622,17 @@ const SCALE_JS: f64 = 2.25e-3;
 const SCALE_QEQ: f64 = 1.54901032364002e1;
 const SCALE_UBASE: f64 = 2.5e1;
 const SCALE_UCOMP: f64 = 2.5e1;
+const SCALE_PB: f64 = 5.8622045625e-5;
+const SCALE_PC: f64 = 3.46633193812861e-7;
+const SCALE_PG: f64 = 2.13046701787662e-2;
+const SCALE_PK: f64 = 2.925e-3;
+const SCALE_PD: f64 = 3.15e-5;
+const SCALE_PT: f64 = 1.5131062193625e-5;
+const SCALE_PV: f64 = 1.29053715485378;
+const SCALE_PDG: f64 = 2.02165005846465e-3;
+const SCALE_PR: f64 = 6.48027709717004e-2;
+const SCALE_PQEQ: f64 = 9.73402958492302;
+const SCALE_PUCOMP: f64 = 2.5e1;
 fn flat<const R: usize, const C: usize>(m: &[[f64; C]; R]) -> [f64; 64] {
     let mut out = [0.0; 64];
     for i in 0..R {
@@ -679,4 +897,148 @@ fn regulate_rejects_bad_calls() {
     );
     let relaxed = Command::relaxed();
     assert!(relaxed.u.iter().all(| v | v.is_finite()) && ! relaxed.saturated);
+}
+/// The parameter set of the `G_THETA` golden values (every field changed).
+fn test_params(c: usize) -> Params {
+    let mut p = Params::DEFAULT;
+    p.density_scale[0] = G_THETA[c][0];
+    p.density_scale[1] = G_THETA[c][1];
+    p.rotary_inertia_scale[0] = G_THETA[c][2];
+    p.rotary_inertia_scale[1] = G_THETA[c][3];
+    p.stiffness_scale[0] = G_THETA[c][4];
+    p.stiffness_scale[1] = G_THETA[c][5];
+    p.damping_scale[0] = G_THETA[c][6];
+    p.damping_scale[1] = G_THETA[c][7];
+    p.payload_mass = G_THETA[c][8];
+    p.payload_rotary_inertia = G_THETA[c][9];
+    p.gravity[0] = G_THETA[c][10];
+    p.gravity[1] = G_THETA[c][11];
+    p
+}
+#[test]
+fn parameter_variants_match_the_reference_at_changed_values() {
+    run(|c, f| {
+        let (q, qd, u) = state(c);
+        assert_eq!(terms_with(& Params::DEFAULT, & q, & qd), terms(& q, & qd));
+        let p = test_params(c);
+        let mut ws = Workspace::new();
+        check(
+            "inertia_with",
+            c,
+            &flat(&inertia_with(&p, &q))[..NQ * NQ],
+            &G_PB[c],
+            SCALE_PB,
+            f,
+        );
+        check(
+            "coriolis_with",
+            c,
+            &flat(&coriolis_with(&p, &q, &qd))[..NQ * NQ],
+            &G_PC[c],
+            SCALE_PC,
+            f,
+        );
+        check("gravity_with", c, &gravity_with(&p, &q), &G_PG[c], SCALE_PG, f);
+        let (b, cc, g) = terms_with(&p, &q, &qd);
+        check("terms_with: B", c, &flat(&b)[..NQ * NQ], &G_PB[c], SCALE_PB, f);
+        check("terms_with: C", c, &flat(&cc)[..NQ * NQ], &G_PC[c], SCALE_PC, f);
+        check("terms_with: G", c, &g, &G_PG[c], SCALE_PG, f);
+        assert_eq!(terms_with_ws(& p, & q, & qd, & mut ws), (b, cc, g));
+        check(
+            "stiffness_with",
+            c,
+            &flat(&stiffness_with(&p))[..NQ * NQ],
+            &G_PK[c],
+            SCALE_PK,
+            f,
+        );
+        check(
+            "damping_with",
+            c,
+            &flat(&damping_with(&p))[..NQ * NQ],
+            &G_PD[c],
+            SCALE_PD,
+            f,
+        );
+        check(
+            "kinetic_energy_with",
+            c,
+            &[kinetic_energy_with(&p, &q, &qd)],
+            &G_PT[c],
+            SCALE_PT,
+            f,
+        );
+        check(
+            "potential_energy_with",
+            c,
+            &[potential_energy_with(&p, &q)],
+            &G_PV[c],
+            SCALE_PV,
+            f,
+        );
+        check(
+            "gravity_jacobian_with",
+            c,
+            &flat(&gravity_jacobian_with(&p, &q))[..NQ * NQ],
+            &G_PDG[c],
+            SCALE_PDG,
+            f,
+        );
+        let r = static_residual_with(&p, &q, &u).expect("static_residual_with");
+        check("static_residual_with", c, &r, &G_PR[c], SCALE_PR, f);
+        match forward_dynamics_with(&p, &q, &qd, &u) {
+            Ok(qdd) => {
+                let (mut res, mut qn, mut rn) = (0.0f64, 0.0f64, 0.0f64);
+                for i in 0..NQ {
+                    let mut r = -G_PRHS[c][i];
+                    for j in 0..NQ {
+                        r += G_PB[c][i * NQ + j] * qdd[j];
+                    }
+                    res = res.max(r.abs());
+                    qn = qn.max(qdd[i].abs());
+                    rn = rn.max(G_PRHS[c][i].abs());
+                }
+                let bound = RTOL * (G_PBNORM[c][0] * qn + rn);
+                if !(res <= bound) {
+                    f.push(
+                        format!(
+                            "forward_dynamics_with [{}]: residual {res:e} > {bound:e}",
+                            LABELS[c]
+                        ),
+                    );
+                }
+                assert_eq!(
+                    forward_dynamics_with_ws(& p, & q, & qd, & u, & mut ws), Ok(qdd)
+                );
+            }
+            Err(e) => f.push(format!("forward_dynamics_with [{}]: {e:?}", LABELS[c])),
+        }
+        if G_PEQOK[c][0] > 0.5 {
+            let mut ueq = [0.0; NU];
+            ueq.copy_from_slice(&G_UEQ[c][..NU]);
+            match equilibrium_with(&p, &ueq) {
+                Ok(eq) => check("equilibrium_with", c, &eq.q, &G_PQEQ[c], SCALE_PQEQ, f),
+                Err(e) => f.push(format!("equilibrium_with [{}]: {e:?}", LABELS[c])),
+            }
+        }
+        let (mut target, mut kp, mut kd) = ([0.0; NY], [0.0; NY], [0.0; NY]);
+        target.copy_from_slice(&G_YTARGET[c][..NY]);
+        kp.copy_from_slice(&G_KP[c][..NY]);
+        kd.copy_from_slice(&G_KD[c][..NY]);
+        let cmd = regulate_with(&p, Law::Compensated, &target, &kp, &kd, &q, &qd)
+            .expect("regulate_with");
+        check("regulate_with compensated", c, &cmd.u, &G_PUCOMP[c], SCALE_PUCOMP, f);
+        if cmd.saturated != (G_PREGSAT[c][0] > 0.5) {
+            f.push(
+                format!("regulate_with [{}]: saturated {}", LABELS[c], cmd.saturated),
+            );
+        }
+    });
+    let (q, qd, u) = state(2);
+    let mut bad = Params::DEFAULT;
+    bad.gravity[0] = f64::NAN;
+    assert_eq!(
+        forward_dynamics_with(& bad, & q, & qd, & u), Err(DynamicsError::NonFiniteInput)
+    );
+    assert_eq!(static_residual_with(& bad, & q, & u), Err(StaticsError::NonFiniteInput));
 }
