@@ -205,8 +205,9 @@ struct Deriver<'a> {
     /// Rows of kernel matrices applied to grouped fields, shared across forms.
     applied: HashMap<AppliedKey, Cx>,
     dmemo: HashMap<(Id, usize), Id>,
-    /// `Some`: runtime parameters are leaves; `None`: the arm file's values, folded.
-    params: Option<ParamLayout>,
+    /// Whether runtime parameters are leaves (else the arm file's values, folded).
+    parametric: bool,
+    params: ParamLayout,
     /// The arm file's parameter values (what [`Deriver::param`] folds in).
     param_defaults: Vec<Q>,
 }
@@ -229,16 +230,18 @@ impl<'a> Deriver<'a> {
             applied: HashMap::default(),
             dmemo: HashMap::default(),
             param_defaults: layout.defaults(arm),
-            params: parametric.then_some(layout),
+            parametric,
+            params: layout,
         }
     }
 
     /// Runtime parameter `kind`, element `i`: a leaf, or the arm file's value.
     fn param(&mut self, kind: ParamKind, i: usize) -> Id {
-        let k = ParamLayout::of(self.arm).index(kind, i);
-        match self.params {
-            Some(_) => self.p.var(Var::Param(k as u16)),
-            None => self.p.constant(self.param_defaults[k].clone()),
+        let k = self.params.index(kind, i);
+        if self.parametric {
+            self.p.var(Var::Param(k as u16))
+        } else {
+            self.p.constant(self.param_defaults[k].clone())
         }
     }
 
@@ -246,7 +249,7 @@ impl<'a> Deriver<'a> {
     /// lengths then) by the parameter `s`: one share, summed once and scaled once. A
     /// folded derivation leaves the terms as they are (the scale is the arm's).
     fn scale_share(&mut self, terms: &mut [Vec<Vec<Id>>], marks: &[Vec<usize>], s: Id) {
-        if self.params.is_none() {
+        if !self.parametric {
             return;
         }
         for (row, mrow) in terms.iter_mut().zip(marks) {
@@ -775,7 +778,7 @@ impl<'a> Deriver<'a> {
 
     /// `g · z`, with `g` the arm's gravity or the gravity parameter.
     fn gravity_dot(&mut self, z: Cx) -> Id {
-        if self.params.is_none() {
+        if !self.parametric {
             let g = &self.arm.gravity;
             let t = [(g[0].clone(), z.re), (g[1].clone(), z.im)];
             return self.p.lin_comb(&t);
@@ -862,7 +865,7 @@ impl<'a> Deriver<'a> {
             self.coriolis_of_segment(j, &lq, e, &jac_prev, &omega, &qd, &mut c_terms);
             self.scale_share(&mut c_terms, &c_marks, rho);
             // Rotary inertia: φ̇ is linear in q̇, so its share of B is constant.
-            if self.params.is_none() {
+            if !self.parametric {
                 self.rotary_inertia(j, &omega, &mut b_const);
             } else if !arm.segments[j].rotary_inertia.is_zero() {
                 let mut own_b = vec![vec![Q::zero(); n]; n];
@@ -881,7 +884,7 @@ impl<'a> Deriver<'a> {
             let ge = self.gravity_dot(e_first);
             let gm = self.p.scale(&lq.mass, gp);
             let u = self.p.add(gm, ge);
-            let u = if self.params.is_some() {
+            let u = if self.parametric {
                 self.p.mul(rho, u)
             } else {
                 u
@@ -899,7 +902,7 @@ impl<'a> Deriver<'a> {
         let tip_jac: Vec<Cx> = (0..n).map(|x| self.d_cx(pos, x)).collect();
         let last = segs - 1;
         let omega_tip: Vec<Q> = (0..n).map(|x| self.dphi(last, x)).collect();
-        let with_mass = self.params.is_some() || !arm.payload.mass.is_zero();
+        let with_mass = self.parametric || !arm.payload.mass.is_zero();
         let mass = self.param(ParamKind::PayloadMass, 0);
         let tip_inertia = self.param(ParamKind::PayloadRotaryInertia, 0);
         for x in 0..n {
@@ -909,7 +912,7 @@ impl<'a> Deriver<'a> {
                     b_terms[x][y].push(self.p.mul(mass, dot));
                 }
                 let w = &omega_tip[x] * &omega_tip[y];
-                if self.params.is_some() {
+                if self.parametric {
                     if !w.is_zero() {
                         b_terms[x][y].push(self.p.scale(&w, tip_inertia));
                     }
@@ -1034,7 +1037,7 @@ impl<'a> Deriver<'a> {
             kinetic_energy,
             potential_energy,
             pose,
-            parametric: self.params.is_some(),
+            parametric: self.parametric,
         }
     }
 
@@ -1193,7 +1196,6 @@ impl<'a> Deriver<'a> {
         }
     }
 
-    /// Block-diagonal `L ∫ f(σ) σ^{i+k} dσ` (stiffness or damping).
     /// The block-diagonal `L ∫ f σ^{i+k} dσ` of `K` or `D`, each segment's block
     /// times its scale parameter `kind`.
     fn block_matrix(&mut self, kind: ParamKind, f: impl Fn(&Segment) -> &Vec<Q>) -> Vec<Vec<Id>> {

@@ -334,6 +334,7 @@ mod cost_tests {
     use crate::arm::parse_arm_file;
     use crate::derive::{derive_emitted, derive_statics};
     use crate::emit::plan::Plan;
+    use num_traits::ToPrimitive;
 
     /// What taking the parameters at run time costs `terms`, against the same arm with
     /// them folded in: at most 15 % more operations (the aim of the design; the
@@ -356,5 +357,43 @@ mod cost_tests {
                 "{name}: {folded} -> {with} ops ({ratio:.3}x)"
             );
         }
+    }
+
+    /// The parametric program at the second parameter set is the folded program of
+    /// the arm with those values written in: linearity, checked on the derivation
+    /// itself (the shipped tests check the emitted code against the reference).
+    #[test]
+    fn parametric_model_at_test_values_is_the_folded_model_of_the_changed_arm() {
+        let path = format!("{}/../examples/reach_arm.toml", env!("CARGO_MANIFEST_DIR"));
+        let (arm, _) = parse_arm_file(std::path::Path::new(&path)).unwrap();
+        let theta = super::test_values(&arm);
+        let theta_f64: Vec<f64> = theta.iter().map(|v| v.to_f64().unwrap()).collect();
+        let parametric = derive_emitted(&arm);
+        let folded = derive_statics(&super::apply(&arm, &theta));
+        let ev = crate::evaluate::Evaluator::new(&parametric).with_params(&theta_f64);
+        let ef = crate::evaluate::Evaluator::new(&folded);
+        let q: Vec<f64> = (0..arm.n_coords()).map(|i| 2.0 - 0.7 * i as f64).collect();
+        let qd: Vec<f64> = (0..arm.n_coords()).map(|i| 0.3 * i as f64 - 0.5).collect();
+        let (a, b) = (ev.terms(&q, &qd), ef.terms(&q, &qd));
+        let close = |x: &[Vec<f64>], y: &[Vec<f64>], what: &str| {
+            let scale = y.iter().flatten().fold(0.0f64, |m, v| m.max(v.abs()));
+            for (u, v) in x.iter().flatten().zip(y.iter().flatten()) {
+                assert!((u - v).abs() <= 1e-12 * scale, "{what}: {u} against {v}");
+            }
+        };
+        close(&a.b, &b.b, "B");
+        close(&a.c, &b.c, "C");
+        close(std::slice::from_ref(&a.g), std::slice::from_ref(&b.g), "G");
+        close(&a.k, &b.k, "K");
+        close(&a.d, &b.d, "D");
+        // And at the defaults the parametric program is the arm file's model.
+        let e0 = crate::evaluate::Evaluator::new(&parametric);
+        let folded0 = derive_statics(&arm);
+        let f0 = crate::evaluate::Evaluator::new(&folded0);
+        close(
+            &e0.terms(&q, &qd).b,
+            &f0.terms(&q, &qd).b,
+            "B at the defaults",
+        );
     }
 }
