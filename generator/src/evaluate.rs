@@ -111,9 +111,14 @@ impl<'m> Evaluator<'m> {
     /// The same evaluator at parameter values `theta` ([`crate::params::ParamLayout`]
     /// order). Only a parametric model ([`Model::parametric`]) reads them.
     pub fn with_params(mut self, theta: &[f64]) -> Self {
-        assert_eq!(theta.len(), self.params.len(), "parameter vector length");
-        self.params = theta.to_vec();
+        self.set_params(theta);
         self
+    }
+
+    /// Changes the runtime parameters in place (see [`Evaluator::with_params`]).
+    pub fn set_params(&mut self, theta: &[f64]) {
+        assert_eq!(theta.len(), self.params.len(), "parameter vector length");
+        self.params.copy_from_slice(theta);
     }
 
     fn state<'a>(

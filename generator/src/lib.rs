@@ -20,6 +20,7 @@ pub mod dynamics;
 pub mod emit;
 pub mod evaluate;
 pub mod exact;
+pub mod identify;
 pub mod integrate;
 pub mod ir;
 pub mod linalg;

@@ -41,7 +41,16 @@ pub fn solve(a: &Matrix, b: &[f64]) -> Option<Vec<f64>> {
 /// Eigenvalues of the symmetric part `(A + Aᵀ)/2`, ascending, by cyclic Jacobi
 /// rotations (accurate to rounding for the small matrices here).
 pub fn symmetric_eigenvalues(a: &Matrix) -> Vec<f64> {
+    symmetric_eigen(a).0
+}
+
+/// Eigenvalues of the symmetric part `(A + Aᵀ)/2`, ascending, and their orthonormal
+/// eigenvectors (`vectors[i]` belongs to `values[i]`), by cyclic Jacobi rotations.
+pub fn symmetric_eigen(a: &Matrix) -> (Vec<f64>, Vec<Vec<f64>>) {
     let n = a.len();
+    let mut v: Vec<Vec<f64>> = (0..n)
+        .map(|i| (0..n).map(|j| if i == j { 1.0 } else { 0.0 }).collect())
+        .collect();
     let mut m: Vec<Vec<f64>> = (0..n)
         .map(|i| (0..n).map(|j| 0.5 * (a[i][j] + a[j][i])).collect())
         .collect();
@@ -74,12 +83,22 @@ pub fn symmetric_eigenvalues(a: &Matrix) -> Vec<f64> {
                     m[p][k] = c * mpk - s * mqk;
                     m[q][k] = s * mpk + c * mqk;
                 }
+                for row in v.iter_mut() {
+                    let (vp, vq) = (row[p], row[q]);
+                    row[p] = c * vp - s * vq;
+                    row[q] = s * vp + c * vq;
+                }
             }
         }
     }
-    let mut ev: Vec<f64> = (0..n).map(|i| m[i][i]).collect();
-    ev.sort_by(f64::total_cmp);
-    ev
+    let mut order: Vec<usize> = (0..n).collect();
+    order.sort_by(|&i, &j| m[i][i].total_cmp(&m[j][j]));
+    let values = order.iter().map(|&i| m[i][i]).collect();
+    let vectors = order
+        .iter()
+        .map(|&i| (0..n).map(|k| v[k][i]).collect())
+        .collect();
+    (values, vectors)
 }
 
 /// `‖v‖₂`.

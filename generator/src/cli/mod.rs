@@ -5,6 +5,7 @@ mod compare;
 mod completions;
 mod eval;
 mod generate;
+mod identify;
 mod json;
 mod new;
 mod plot;
@@ -40,6 +41,7 @@ enum Command {
     Report(report::ReportArgs),
     Simulate(simulate::SimulateArgs),
     Statics(statics::StaticsArgs),
+    Identify(identify::IdentifyArgs),
     New(new::NewArgs),
     Verify(verify::VerifyArgs),
     Compare(compare::CompareArgs),
@@ -90,6 +92,7 @@ pub fn main() -> ExitCode {
         Command::Report(args) => report::run(&args),
         Command::Simulate(args) => simulate::run(&args),
         Command::Statics(args) => statics::run(&args),
+        Command::Identify(args) => identify::run(&args),
         Command::New(args) => new::run(&args),
         Command::Verify(args) => verify::run(&args),
         Command::Compare(args) => compare::run(&args),

@@ -119,6 +119,17 @@ pub(crate) fn write_svg(
     cols: usize,
     size: (u32, u32),
 ) -> Result<(), String> {
+    let svg = render_svg(panels, cols, size)?;
+    super::write_file(path, &svg).map_err(|e| e.to_string())
+}
+
+/// The SVG text of [`write_svg`], for a command that writes its files only once
+/// everything is computed.
+pub(crate) fn render_svg(
+    panels: &[Panel],
+    cols: usize,
+    size: (u32, u32),
+) -> Result<String, String> {
     let mut svg = String::new();
     {
         let root = SVGBackend::with_string(&mut svg, size).into_drawing_area();
@@ -131,7 +142,7 @@ pub(crate) fn write_svg(
         }
         root.present().map_err(|e| e.to_string())?;
     }
-    super::write_file(path, &svg).map_err(|e| e.to_string())
+    Ok(svg)
 }
 
 fn draw_panel<DB: DrawingBackend>(
@@ -261,10 +272,13 @@ fn draw_lines<'a, DB: DrawingBackend + 'a, Y: Ranged<ValueType = f64>>(
             .map(|&(x, y)| (x, if log { y.max(LOG_FLOOR) } else { y }))
             .filter(|(x, y)| x.is_finite() && y.is_finite())
             .collect();
-        let style = ShapeStyle::from(&l.colour).stroke_width(l.width);
-        chart
-            .draw_series(LineSeries::new(pts.clone(), style))
-            .map_err(|e| e.to_string())?;
+        // Width 0: markers only (a scatter).
+        if l.width > 0 {
+            let style = ShapeStyle::from(&l.colour).stroke_width(l.width);
+            chart
+                .draw_series(LineSeries::new(pts.clone(), style))
+                .map_err(|e| e.to_string())?;
+        }
         if l.markers {
             let c = l.colour;
             chart
