@@ -55,6 +55,11 @@ pub struct Model {
     /// Whether the runtime parameters are leaves ([`Var::Param`], laid out by
     /// [`ParamLayout`]) instead of the arm file's numbers folded in.
     pub parametric: bool,
+    /// The regressor `Y_ik = ∂τ_i/∂θ_k`, n × [`ParamLayout::linear_len`], of
+    /// `τ = B q̈ + C q̇ + G + K q + D q̇` (in [`Var::Qdd`], `q`, `q̇` and the gravity
+    /// parameter): `Y θ = τ` exactly, every term of the model being proportional to
+    /// one parameter. Derived with the statics roots of a parametric model.
+    pub regressor: Option<Vec<Vec<Id>>>,
 }
 
 /// Derives the model of `arm` at its expansion order, with the arm file's numbers
@@ -741,7 +746,7 @@ impl<'a> Deriver<'a> {
                     self.p.zero()
                 }
             }
-            Var::Qd(_) | Var::Sigma | Var::Param(_) => self.p.zero(),
+            Var::Qd(_) | Var::Qdd(_) | Var::Sigma | Var::Param(_) => self.p.zero(),
             Var::Nu { seg, n, im } | Var::PoseNu { seg, n, im } => {
                 let seg = seg as usize;
                 if x != self.offsets[seg] {
@@ -1020,6 +1025,33 @@ impl<'a> Deriver<'a> {
             self.p.add(u_gravity, elastic)
         };
 
+        // The regressor: τ_i = Σ_l B_il q̈_l + (C_il + D_il) q̇_l + K_il q_l + G_i, and
+        // its derivative in each parameter but gravity.
+        let regressor = (with_statics && self.parametric).then(|| {
+            let qv: Vec<Id> = (0..n).map(|i| self.q(i)).collect();
+            let qdd: Vec<Id> = (0..n).map(|i| self.p.var(Var::Qdd(i as u16))).collect();
+            let tau: Vec<Id> = (0..n)
+                .map(|i| {
+                    let mut t = vec![gravity[i]];
+                    for l in 0..n {
+                        t.push(self.p.mul(inertia[i][l], qdd[l]));
+                        let cd = self.p.add(coriolis[i][l], damping[i][l]);
+                        t.push(self.p.mul(cd, qd[l]));
+                        t.push(self.p.mul(stiffness[i][l], qv[l]));
+                    }
+                    self.p.sum(&t)
+                })
+                .collect();
+            let linear = self.params.linear_len();
+            let mut y = vec![vec![self.p.zero(); linear]; n];
+            for k in 0..linear {
+                let mut memo = HashMap::default();
+                for i in 0..n {
+                    y[i][k] = self.d_param(tau[i], k as u16, &mut memo);
+                }
+            }
+            y
+        });
         Model {
             arm: arm.clone(),
             program: self.p,
@@ -1038,7 +1070,36 @@ impl<'a> Deriver<'a> {
             potential_energy,
             pose,
             parametric: self.parametric,
+            regressor,
         }
+    }
+
+    /// `∂/∂θ_k` of a node. The program is linear in each parameter, so this is the
+    /// share the parameter multiplies, built from the same nodes.
+    fn d_param(&mut self, id: Id, k: u16, memo: &mut HashMap<Id, Id>) -> Id {
+        if let Some(&r) = memo.get(&id) {
+            return r;
+        }
+        let r = match self.p.node(id).clone() {
+            Node::Var(Var::Param(j)) if j == k => self.p.one(),
+            Node::Const(_) | Node::Var(_) => self.p.zero(),
+            Node::Add(a, b) => {
+                let (da, db) = (self.d_param(a, k, memo), self.d_param(b, k, memo));
+                self.p.add(da, db)
+            }
+            Node::Mul(a, b) => {
+                let (da, db) = (self.d_param(a, k, memo), self.d_param(b, k, memo));
+                let t1 = self.p.mul(da, b);
+                let t2 = self.p.mul(a, db);
+                self.p.add(t1, t2)
+            }
+            Node::Neg(a) => {
+                let da = self.d_param(a, k, memo);
+                self.p.neg(da)
+            }
+        };
+        memo.insert(id, r);
+        r
     }
 
     /// `Σ_l ∂z/∂q_l q̇_l` for a chain quantity `z` that depends on the first `upto`

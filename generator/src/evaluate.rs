@@ -52,6 +52,8 @@ pub struct Evaluator<'m> {
     poses: Vec<Tape>,
     /// The statics roots, when the model has them.
     statics: Option<Tape>,
+    /// The regressor, when the model has it (a parametric model's).
+    regressor: Option<Tape>,
     /// Values of the runtime parameters a parametric model reads (the arm file's,
     /// unless [`Evaluator::with_params`] changed them).
     params: Vec<f64>,
@@ -61,6 +63,8 @@ pub struct Evaluator<'m> {
 struct State<'a> {
     q: &'a [f64],
     qd: &'a [f64],
+    /// Accelerations, read by the regressor only (empty elsewhere).
+    qdd: &'a [f64],
     sigma: f64,
     nu: Vec<(Vec<f64>, Vec<f64>)>,
     pose_nu: Vec<(Vec<f64>, Vec<f64>)>,
@@ -104,6 +108,10 @@ impl<'m> Evaluator<'m> {
             main,
             poses,
             statics,
+            regressor: model
+                .regressor
+                .as_ref()
+                .map(|y| Tape::new(model, &y.iter().flatten().copied().collect::<Vec<_>>())),
             params: crate::params::ParamLayout::of(&model.arm).defaults_f64(&model.arm),
         }
     }
@@ -162,6 +170,7 @@ impl<'m> Evaluator<'m> {
         State {
             q,
             qd,
+            qdd: &[],
             sigma,
             nu,
             pose_nu,
@@ -178,6 +187,8 @@ impl<'m> Evaluator<'m> {
                 Step::Load(var) => match var {
                     Var::Q(k) => st.q[k as usize],
                     Var::Qd(k) => st.qd[k as usize],
+                    // Only the regressor reads accelerations; NaN shows a mistake.
+                    Var::Qdd(k) => st.qdd.get(k as usize).copied().unwrap_or(f64::NAN),
                     Var::Sigma => st.sigma,
                     Var::Nu { seg, n, im } => {
                         let (re, imv) = &st.nu[seg as usize];
@@ -240,6 +251,20 @@ impl<'m> Evaluator<'m> {
             kinetic_energy: v.get(m.kinetic_energy),
             potential_energy: v.get(m.potential_energy),
         }
+    }
+
+    /// The regressor `Y(q, q̇, q̈)`, n × [`crate::params::ParamLayout::linear_len`], at
+    /// the evaluator's gravity; `None` for a model without it (a folded one).
+    pub fn regressor(&self, q: &[f64], qd: &[f64], qdd: &[f64]) -> Option<Matrix> {
+        let (tape, y) = (self.regressor.as_ref()?, self.model.regressor.as_ref()?);
+        let mut st = self.state(q, qd, 0.0, None);
+        st.qdd = qdd;
+        let v = self.run(tape, &st);
+        Some(
+            y.iter()
+                .map(|r| r.iter().map(|id| v.get(*id)).collect())
+                .collect(),
+        )
     }
 
     /// `G`, `A`, their `q`-derivatives and the tip pose at `q`; `None` for a model

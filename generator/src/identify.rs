@@ -3,8 +3,9 @@
 //!
 //! With gravity known, the equations of motion are linear in the parameters
 //! ([`crate::params`]): `Σ_k θ_k τ_k(q, q̇, q̈) = A(q) u`, where `τ_k` is the
-//! generalized force of the model with every parameter zero but `θ_k = 1` (the
-//! regressor column of `θ_k`; no term of the model is free of a parameter). A rest
+//! generalized force of the model with every parameter zero but `θ_k = 1`: column `k`
+//! of the derived regressor ([`crate::derive::Model::regressor`], the one the emitted
+//! code carries; no term of the model is free of a parameter). A rest
 //! shape gives `τ_k = K_k q + G_k(q)`, a logged state the whole left-hand side. The fit
 //! is weighted linear least squares over every coordinate of every observation:
 //! each coordinate's equations are weighted by the inverse of their residual spread
@@ -174,60 +175,35 @@ pub struct Regression {
 }
 
 /// Builds the regression from a parametric model ([`crate::derive::derive_emitted`]):
-/// `τ_k` by evaluating the model at the unit parameter vectors (gravity as in the arm
-/// file), one evaluation per parameter and observation.
-pub fn regression(model: &Model, observations: &[Observation]) -> Regression {
-    assert!(
-        model.parametric,
-        "identification needs the parametric model"
-    );
+/// its regressor `Y(q, q̇, q̈)` at each observation (gravity as in the arm file), and
+/// `A(q) u`.
+pub fn regression(model: &Model, observations: &[Observation]) -> Result<Regression, String> {
     let arm = &model.arm;
     let layout = ParamLayout::of(arm);
     let n = arm.n_coords();
-    let mut ev = Evaluator::new(model);
-    let defaults = layout.defaults_f64(arm);
+    let ev = Evaluator::new(model);
     let rows = observations.len() * n;
     let mut columns = vec![vec![0.0; rows]; layout.len()];
     let mut measured = vec![0.0; rows];
-    let coordinate: Vec<usize> = (0..rows).map(|r| r % n).collect();
-    let observation: Vec<usize> = (0..rows).map(|r| r / n).collect();
-    ev.set_params(&defaults);
     for (o, obs) in observations.iter().enumerate() {
         let a = ev.terms(&obs.q, &obs.qd).a;
+        let y = ev
+            .regressor(&obs.q, &obs.qd, &obs.qdd)
+            .ok_or("identification needs the parametric model (derive_emitted)")?;
         for i in 0..n {
             measured[o * n + i] = a[i].iter().zip(&obs.u).map(|(x, y)| x * y).sum();
-        }
-    }
-    for unknown in all_unknowns(arm) {
-        let k = unknown.index(&layout);
-        let mut theta = vec![0.0; layout.len()];
-        theta[k] = 1.0;
-        for c in 0..2 {
-            let g = layout.index(ParamKind::Gravity, c);
-            theta[g] = defaults[g];
-        }
-        ev.set_params(&theta);
-        for (o, obs) in observations.iter().enumerate() {
-            let t = ev.terms(&obs.q, &obs.qd);
-            for i in 0..n {
-                let mut f = t.g[i];
-                for x in 0..n {
-                    f += t.k[i][x] * obs.q[x];
-                    if !obs.at_rest {
-                        f += t.b[i][x] * obs.qdd[x] + (t.c[i][x] + t.d[i][x]) * obs.qd[x];
-                    }
-                }
-                columns[k][o * n + i] = f;
+            for (k, v) in y[i].iter().enumerate() {
+                columns[k][o * n + i] = *v;
             }
         }
     }
-    Regression {
+    Ok(Regression {
         columns,
         measured,
-        coordinate,
-        observation,
+        coordinate: (0..rows).map(|r| r % n).collect(),
+        observation: (0..rows).map(|r| r / n).collect(),
         has_motion: observations.iter().any(|o| !o.at_rest),
-    }
+    })
 }
 
 /// Eigenvalue ratio of the column-scaled normal matrix below which a direction counts

@@ -30,6 +30,8 @@ pub enum Var {
     Q(u16),
     /// Velocity `q̇[i]`.
     Qd(u16),
+    /// Acceleration `q̈[i]`: read by the regressor only.
+    Qdd(u16),
     /// Normalised arc coordinate σ of a pose query.
     Sigma,
     /// Re (`im = false`) or Im (`im = true`) of `ν_n(a_seg)`, `a_seg = L q_{seg,0}`, with

@@ -141,6 +141,12 @@ impl ParamLayout {
         false
     }
 
+    /// The parameters the dynamics are linear in, with gravity known: all but
+    /// gravity, which comes last in `θ`, so these are `θ[0 .. linear_len)`.
+    pub fn linear_len(&self) -> usize {
+        4 * self.segments + 2
+    }
+
     /// Index in `θ` of `kind`, element `i` (segment or gravity component; 0 for scalars).
     pub fn index(&self, kind: ParamKind, i: usize) -> usize {
         let s = self.segments;

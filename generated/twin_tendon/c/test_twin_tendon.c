@@ -933,6 +933,58 @@ static const double g_pregsat[NCASES][1] = {
         1.0
     },
 };
+static const double g_qddY[NCASES][2] = {
+    {
+        -1.875, 7.5e-1
+    },
+    {
+        3.0, -7.5e-1
+    },
+    {
+        1.5, -2.25
+    },
+    {
+        9.0e-1, 2.625
+    },
+    {
+        -1.5, 1.125
+    },
+    {
+        -3.0, -3.75e-1
+    },
+};
+static const double g_Y[NCASES][20] = {
+    {
+        1.92885205078125e-3, 5.936326734375e-3, -2.109375e-8, -2.5515e-8, 0.0, 0.0, -3.15e-5,
+        0.0, 2.854962703125e-1, -2.86875e-2, 0.0, 7.0321203e-4, 0.0, -9.558e-9, 0.0, 0.0, 0.0,
+        -2.1e-6, 7.0276005e-2, -2.295e-2
+    },
+    {
+        1.93533046875e-3, 5.99757412500001e-3, 3.375e-8, 4.374e-8, 1.5e-11, 0.0, 1.96875e-5,
+        0.0, 2.89351237500002e-1, 5.4e-2, 0.0, 7.11432720000015e-4, 0.0, 1.6848e-8, 0.0,
+        9.0e-12, 0.0, -1.05e-5, 7.1224920000002e-2, 4.32e-2
+    },
+    {
+        1.92176425262913e-3, 5.91574040934361e-3, 1.6875e-8, 9.72e-9, 3.0e-3, 0.0, 3.9375e-6,
+        0.0, 2.85474382568628e-1, -6.74999999999999e-3, 0.0, 7.04056682598326e-4, 0.0, 1.944e-9,
+        0.0, -1.8e-3, 0.0, 1.68e-5, 7.05952300091573e-2, -5.4e-3
+    },
+    {
+        -2.48992052841213e-4, -3.63628167873653e-3, 1.0125e-8, 3.159e-8, 5.25e-2, 0.0,
+        -1.18125e-5, 0.0, -1.33350125525888e-1, 6.75e-2, 0.0, -3.47891482987747e-4, 0.0,
+        1.4904e-8, 0.0, -2.34e-2, 0.0, 8.4e-6, -9.81096937872498e-3, 5.4e-2
+    },
+    {
+        1.929350390625e-3, 5.9419119375e-3, -1.6875e-8, -1.701e-8, 0.0, 0.0, -2.75625e-5, 0.0,
+        2.85896081250001e-1, -1.35e-2, 0.0, 7.03996920000023e-4, 0.0, -5.832e-9, 0.0, 9.0e-12,
+        0.0, 5.04e-6, 7.03744200000032e-2, -1.08e-2
+    },
+    {
+        9.39412493861192e-4, -1.4487443531904e-3, -3.375e-8, -5.103e-8, 3.0e-2, 0.0, 2.3625e-5,
+        0.0, -1.25828571844303e-1, -7.425e-2, 0.0, -6.34011928765273e-4, 0.0, -2.0736e-8, 0.0,
+        1.8e-2, 0.0, -8.4e-6, -6.20488864466086e-2, -5.94e-2
+    },
+};
 static const double scale_B = 3.158398125e-5;
 static const double scale_C = 1.72177574906104e-7;
 static const double scale_G = 1.362976875e-2;
@@ -960,6 +1012,7 @@ static const double scale_pdG = 2.02165005846465e-3;
 static const double scale_pR = 6.48027709717004e-2;
 static const double scale_pqeq = 9.73402958492302;
 static const double scale_pucomp = 2.5e1;
+static const double scale_Y = 2.89351237500002e-1;
 
 static int passed = 0;
 static int failed = 0;
@@ -1270,6 +1323,51 @@ int main(void)
             P.payload_rotary_inertia = (double)g_theta[c][9];
             P.gravity[0] = (double)g_theta[c][10];
             P.gravity[1] = (double)g_theta[c][11];
+            {
+                /* The regressor against the reference's columns, and Y theta = tau at the
+                 * second parameter set (gravity from P). */
+                double yr[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA];
+                double yw[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA];
+                double acc[TWIN_TENDON_NQ];
+                double tb[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+                double tc[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+                double tk[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+                double td[TWIN_TENDON_NQ * TWIN_TENDON_NQ];
+                double tg[TWIN_TENDON_NQ];
+                double theta[TWIN_TENDON_NTHETA];
+                double worst = 0.0;
+                double size = 0.0;
+                for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                    acc[i] = (double)g_qddY[c][i];
+                }
+                twin_tendon_regressor(q, qd, acc, yr);
+                check("regressor", c, yr, g_Y[c], TWIN_TENDON_NQ * TWIN_TENDON_NTHETA, scale_Y);
+                poison(TWIN_TENDON_REGRESSOR_WORK);
+                twin_tendon_regressor_ws(q, qd, acc, yw, work);
+                same("regressor", c, yw, yr, TWIN_TENDON_NQ * TWIN_TENDON_NTHETA, TWIN_TENDON_REGRESSOR_WORK);
+                for (i = 0; i < TWIN_TENDON_NTHETA; ++i) {
+                    theta[i] = (double)g_theta[c][i];
+                }
+                twin_tendon_regressor_with(&P, q, qd, acc, yr);
+                twin_tendon_terms_with(&P, q, qd, tb, tc, tg);
+                twin_tendon_stiffness_with(&P, tk);
+                twin_tendon_damping_with(&P, td);
+                for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                    double tau = (double)tg[i];
+                    double ytheta = 0.0;
+                    for (j = 0; j < TWIN_TENDON_NQ; ++j) {
+                        const int ij = i * TWIN_TENDON_NQ + j;
+                        tau += (double)tb[ij] * (double)acc[j] + ((double)tc[ij] + (double)td[ij]) * (double)qd[j] +
+                            (double)tk[ij] * (double)q[j];
+                    }
+                    for (j = 0; j < TWIN_TENDON_NTHETA; ++j) {
+                        ytheta += (double)yr[i * TWIN_TENDON_NTHETA + j] * (double)theta[j];
+                        size = max_d(size, fabs((double)yr[i * TWIN_TENDON_NTHETA + j] * (double)theta[j]));
+                    }
+                    worst = max_d(worst, fabs(ytheta - tau));
+                }
+                expect(worst <= RTOL * size * TWIN_TENDON_NTHETA, "regressor_with: Y theta = B q'' + C q' + G + K q + D q'");
+            }
             twin_tendon_inertia_with(&P, q, x);
             check("inertia_with", c, x, g_pB[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pB);
             twin_tendon_coriolis_with(&P, q, qd, x);

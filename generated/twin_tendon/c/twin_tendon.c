@@ -528,6 +528,138 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 }
 #endif
 
+/* Kernels of twin_tendon_regressor: pairs (row, moment base). */
+static const unsigned char twin_tendon_regressor_rows[56] = {
+    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
+    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
+    9, 18
+};
+
+/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 52 reals.
+ * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
+{
+    double *const nu = &work[0]; /* 24 */
+    double *const kern = &work[24]; /* 28 */
+    double cphi[1];
+    double sphi[1];
+    double phi;
+    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[6]);
+    twin_tendon_moments(0.12 * q[1], 6, &nu[12], &nu[18]);
+    phi = 0.15 * q[0];
+    cphi[0] = cos(phi);
+    sphi[0] = sin(phi);
+    twin_tendon_kernels(twin_tendon_regressor_rows, 28, nu, kern);
+    const double t0 = qd[1] * kern[10];
+    const double t1 = qd[1] * kern[11];
+    const double t2 = kern[4] * cphi[0];
+    const double t3 = kern[5] * sphi[0];
+    const double t4 = kern[5] * cphi[0];
+    const double t5 = kern[4] * sphi[0];
+    const double t6 = 0.0036 * t2 - 0.0036 * t3;
+    const double t7 = 0.0036 * t4 + 0.0036 * t5;
+    const double t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6);
+    const double t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
+    const double t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
+    const double t11 = 0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19];
+    const double t12 = qd[0] * kern[20];
+    const double t13 = qd[0] * kern[21];
+    const double t14 = qd[1] * kern[7];
+    const double t15 = qd[1] * kern[6];
+    const double t16 = qd[0] * kern[8];
+    const double t17 = nu[12] * cphi[0];
+    const double t18 = nu[18] * sphi[0];
+    const double t19 = nu[18] * cphi[0];
+    const double t20 = nu[12] * sphi[0];
+    const double t21 = kern[16] - 0.018 * t20 - 0.018 * t19;
+    const double t22 = kern[17] - 0.018 * t18 + 0.018 * t17;
+    const double t23 = cphi[0] * kern[25];
+    const double t24 = sphi[0] * kern[24];
+    const double t25 = -0.0144 * t23 - 0.0144 * t24;
+    const double t26 = cphi[0] * kern[24];
+    const double t27 = sphi[0] * kern[25];
+    const double t28 = 0.0144 * t26 - 0.0144 * t27;
+    const double t29 = t21 * t25 + t22 * t28;
+    const double t30 = 0.00216 * t27 - 0.00216 * t26;
+    const double t31 = -0.00216 * t24 - 0.00216 * t23;
+    const double t32 = qd[0] * (kern[22] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30;
+    const double t33 = qd[0] * (kern[23] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31;
+    const double t34 = qd[0] * t30
+        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+    const double t35 = qd[0] * t31
+        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
+    const double t36 = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
+        + t8 + t8 + kern[18];
+    const double t37 = 0.0225 * kern[15] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
+        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15);
+    const double t38 = 0.03 * (7.59375e-5 * kern[15] * t12 - 7.59375e-5 * kern[14] * t13)
+        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t37
+        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[8];
+    const double t39 = 0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
+        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[12];
+    Y[0] = 0.00118125 * kern[1] * P->gravity[0] - 0.00118125 * kern[0] * P->gravity[1]
+        + 2.6578125e-5 * kern[2] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[3];
+    Y[1] = t36 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+        - P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
+        - 0.03 * (0.0225 * P->gravity[1] * kern[14] - 0.0225 * P->gravity[0] * kern[15])
+        + qd[0] * t38 + t11 * qdd[1] + qd[1] * t39;
+    Y[2] = 1.125e-8 * qdd[0];
+    Y[3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
+    Y[4] = 0.00225 * q[0];
+    Y[5] = 0.0;
+    Y[6] = 4.5e-5 * qd[0];
+    Y[7] = 0.0;
+    Y[8] = (t21 * t21 + t22 * t22) * qdd[0] - P->gravity[0] * t21 - P->gravity[1] * t22
+        + qd[0] * (t21 * t32 + t22 * t33) + t29 * qdd[1] + qd[1] * (t21 * t34 + t22 * t35);
+    Y[9] = 0.0225 * qdd[0] + 0.018 * qdd[1];
+    Y[10] = 0.0;
+    Y[11] = t11 * qdd[0] - P->gravity[0] * t9 - P->gravity[1] * t10
+        + qd[0] * (1.1664e-6 * t16 - 0.003375 * t9 * t12 - 0.003375 * t10 * t13)
+        + 6.2208e-6 * kern[9] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[13];
+    Y[12] = 0.0;
+    Y[13] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
+    Y[14] = 0.0;
+    Y[15] = 0.00108 * q[1];
+    Y[16] = 0.0;
+    Y[17] = 2.4e-5 * qd[1];
+    Y[18] = t29 * qdd[0] - P->gravity[0] * t25 - P->gravity[1] * t28
+        + qd[0] * (t25 * t32 + t28 * t33) + (t25 * t25 + t28 * t28) * qdd[1]
+        + qd[1] * (t25 * t34 + t28 * t35);
+    Y[19] = 0.018 * qdd[0] + 0.0144 * qdd[1];
+}
+
+
+/* twin_tendon_regressor_with_ws at the arm file's parameters.
+ * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
+{
+    twin_tendon_regressor_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, qdd, Y, work);
+}
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_regressor_with_ws with its scratch on this function's stack.
+ * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
+{
+    double work[TWIN_TENDON_REGRESSOR_WORK];
+    twin_tendon_regressor_with_ws(P, q, qd, qdd, Y, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_regressor_ws with its scratch on this function's stack.
+ * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
+{
+    double work[TWIN_TENDON_REGRESSOR_WORK];
+    twin_tendon_regressor_ws(q, qd, qdd, Y, work);
+}
+#endif
+
 /* Kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
     8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,

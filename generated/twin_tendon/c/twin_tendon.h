@@ -239,6 +239,26 @@ double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const dou
 double twin_tendon_potential_energy_ws(const double q[TWIN_TENDON_NQ], double work[]);
 double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double work[]);
 
+/** Number of linear parameters theta of the regressor: the fields of twin_tendon_params but
+ * gravity, in order (density_scale[0..NSEG), rotary_inertia_scale, stiffness_scale,
+ * damping_scale, payload_mass, payload_rotary_inertia). */
+#define TWIN_TENDON_NTHETA 10
+
+/**
+ * Regressor Y(q, q', q''), n x NTHETA, row-major: the equations of motion are linear
+ * in theta, B q'' + C q' + G + K q + D q' = Y theta = A u, exactly (every term of the
+ * model is proportional to one parameter). Gravity is not in theta: the _with form
+ * reads P->gravity and ignores P's other fields; the form without _with uses the arm
+ * file's gravity.
+ * Use it to identify theta from measurements (arcwright identify does, offline) or in
+ * an adaptive controller.
+ * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+ */
+void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ],
+    double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[]);
+void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ],
+    const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[]);
+
 /**
  * Forward dynamics: solves B(q) q'' = A(q) u - C(q, q') q' - G(q) - K q - D q' for
  * q'' (length n) by an in-place Cholesky factorisation of B on the stack.
@@ -382,6 +402,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
 #define TWIN_TENDON_GRAVITY_WORK 36 /* 288 bytes */
 #define TWIN_TENDON_ACTUATION_WORK 1 /* 8 bytes */
 #define TWIN_TENDON_TIP_JACOBIAN_WORK 28 /* 224 bytes */
+#define TWIN_TENDON_REGRESSOR_WORK 52 /* 416 bytes */
 #define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 40 /* 320 bytes */
 #define TWIN_TENDON_POTENTIAL_ENERGY_WORK 28 /* 224 bytes */
 #define TWIN_TENDON_TERMS_WORK 52 /* 416 bytes */
@@ -415,6 +436,10 @@ void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TEND
     double G[TWIN_TENDON_NQ]);
 void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
     double G[TWIN_TENDON_NQ]);
+void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ],
+    double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA]);
+void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ],
+    const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA]);
 double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ]);
 double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ]);
 double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ]);

@@ -133,7 +133,7 @@ pub fn run(args: &IdentifyArgs) -> Result<(), CliError> {
         )));
     }
     let model = crate::derive::derive_emitted(&arm);
-    let reg = regression(&model, &observations);
+    let reg = regression(&model, &observations).map_err(CliError::Failed)?;
     let result = fit(&arm, &reg, &wanted).map_err(CliError::Failed)?;
     // Everything is computed before anything is written.
     let fitted_text = match &args.out {

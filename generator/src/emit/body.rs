@@ -47,6 +47,7 @@ impl Syntax for Spelling<'_> {
             Leaf::Input(v) => match *v {
                 Var::Q(i) => format!("q[{i}]"),
                 Var::Qd(i) => format!("qd[{i}]"),
+                Var::Qdd(i) => format!("qdd[{i}]"),
                 Var::Sigma => "sigma".into(),
                 Var::Nu { seg, n, im } => format!("nu[{}]", self.plan.layout.index(seg, n, im)),
                 Var::PoseNu { n, im, .. } => {

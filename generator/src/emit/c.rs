@@ -234,7 +234,7 @@ impl Printer<'_> {
         let mut calls = String::new();
         for (c, chunk) in chunks.iter().enumerate() {
             // The inputs this part reads, in a fixed order.
-            let mut reads = [false; 9];
+            let mut reads = [false; 10];
             for s in chunk.iter() {
                 for_each_leaf(&s.expr, &mut |l| {
                     let k = match l {
@@ -247,12 +247,15 @@ impl Printer<'_> {
                         Leaf::Input(Var::SinPhi(_)) => 6,
                         Leaf::Kernel(_) => 7,
                         Leaf::Input(Var::Param(_)) => 8,
+                        Leaf::Input(Var::Qdd(_)) => 9,
                         Leaf::Temp(_) => return,
                     };
                     reads[k] = true;
                 });
             }
-            let names = ["q", "qd", "sigma", "nu", "pnu", "cphi", "sphi", "kern", "P"];
+            let names = [
+                "q", "qd", "sigma", "nu", "pnu", "cphi", "sphi", "kern", "P", "qdd",
+            ];
             let mut params = Vec::new();
             let mut args = Vec::new();
             for (k, name) in names.iter().enumerate() {
@@ -485,6 +488,7 @@ pub fn emit(
             "G" => format!("{up}_NQ"),
             "A" => a_len.clone(),
             "J" => format!("3 * {up}_NQ"),
+            "Y" => format!("{up}_NQ * {up}_NTHETA"),
             _ => String::new(),
         };
         (format!("{r} {arr}[{len}]"), arr)
@@ -567,6 +571,22 @@ pub fn emit(
         &[q.clone(), out("J")],
         &flat("J"),
     );
+    if let Some(f) = &plan.regressor {
+        generated(
+            "regressor",
+            "Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' \
+             for the linear parameters theta (the fields of NAME_params but gravity, in order).",
+            f,
+            "void",
+            &[
+                q.clone(),
+                qd.clone(),
+                (format!("const {r} qdd[{up}_NQ]"), "qdd"),
+                out("Y"),
+            ],
+            &flat("Y"),
+        );
+    }
     let gravity_jacobian_work = generated(
         "gravity_jacobian",
         "dG/dq, n x n, row-major: the Hessian of U_g, symmetric.",
@@ -845,6 +865,10 @@ pub fn emit(
     ] {
         ctx.insert(format!("{key}_ops"), &ops_line(f));
     }
+    if let Some(f) = &plan.regressor {
+        ctx.insert("regressor_ops", &ops_line(f));
+    }
+    ctx.insert("ntheta", &plan.params.linear_len());
     ctx.insert(
         "kinetic_energy_ops",
         &format!("Operations: {}.", plan.kinetic_energy),

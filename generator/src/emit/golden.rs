@@ -13,9 +13,9 @@ use num_traits::ToPrimitive;
 
 /// The quantities whose tests judge entries against their largest magnitude over
 /// all configurations (see [`Golden::scale`]).
-pub const SCALED: [&str; 27] = [
+pub const SCALED: [&str; 28] = [
     "B", "C", "G", "K", "D", "A", "J", "T", "V", "pose", "dG", "R", "Js", "qeq", "ubase", "ucomp",
-    "pB", "pC", "pG", "pK", "pD", "pT", "pV", "pdG", "pR", "pqeq", "pucomp",
+    "pB", "pC", "pG", "pK", "pD", "pT", "pV", "pdG", "pR", "pqeq", "pucomp", "Y",
 ];
 
 /// The arrays of the regulator checks.
@@ -279,7 +279,8 @@ impl Golden {
         let mut labels = Vec::new();
         let h = default_outputs(arm).len();
         let np = crate::params::ParamLayout::of(arm).len();
-        let names: [(&'static str, usize); 44] = [
+        let ny = crate::params::ParamLayout::of(arm).linear_len();
+        let names: [(&'static str, usize); 46] = [
             ("q", n),
             ("qd", n),
             ("u", k),
@@ -334,6 +335,10 @@ impl Golden {
             // The compensated regulator and whether it saturates.
             ("pucomp", k),
             ("pregsat", 1),
+            // The regressor at (q, q̇, q̈ = qddY): column k is the reference's
+            // B q̈ + C q̇ + G + K q + D q̇ of the arm with every parameter zero but θ_k = 1.
+            ("qddY", n),
+            ("Y", n * ny),
         ];
         let theta = crate::params::test_values(arm);
         let theta_f64: Vec<f64> = theta
@@ -343,6 +348,21 @@ impl Golden {
         let arm_p = crate::params::apply(arm, &theta);
         let reference_p = Reference::new(&arm_p, Kinematics::Truncated(arm.expansion_order));
         let model_p = Quadrature(Reference::new(&arm_p, reference_p.kinematics()));
+        let layout = crate::params::ParamLayout::of(arm);
+        let unit_arms: Vec<Arm> = (0..ny)
+            .map(|k| {
+                let mut t: Vec<crate::exact::Q> = vec![crate::exact::int(0); layout.len()];
+                t[k] = crate::exact::int(1);
+                for c in 0..2 {
+                    t[layout.index(crate::params::ParamKind::Gravity, c)] = arm.gravity[c].clone();
+                }
+                crate::params::apply(arm, &t)
+            })
+            .collect();
+        let unit_refs: Vec<Reference> = unit_arms
+            .iter()
+            .map(|a| Reference::new(a, Kinematics::Truncated(arm.expansion_order)))
+            .collect();
         let mut arrays: Vec<Array> = names
             .iter()
             .map(|&(name, len)| Array {
@@ -401,6 +421,20 @@ impl Golden {
                 Err(_) => (0.0, vec![0.0; n]),
             };
             let reg_p = regulator_case(&arm_p, &tp.k, &stp.g, &stp.a, &q, &qd, c);
+            let qdd_y: Vec<f64> = (0..n).map(|i| 3.0 * pattern(i, c + 17)).collect();
+            let mut y = vec![0.0; n * ny];
+            for (kk, r) in unit_refs.iter().enumerate() {
+                let t = r.terms(&q, &qd);
+                for i in 0..n {
+                    let mut f = t.g[i];
+                    for l in 0..n {
+                        f += t.b[i][l] * qdd_y[l]
+                            + (t.c[i][l] + t.d[i][l]) * qd[l]
+                            + t.k[i][l] * q[l];
+                    }
+                    y[i * ny + kk] = f;
+                }
+            }
             let values = [
                 q.clone(),
                 qd,
@@ -446,6 +480,8 @@ impl Golden {
                 pqeq,
                 reg_p.u_compensated,
                 vec![reg_p.saturated[1]],
+                qdd_y,
+                y,
             ];
             for (a, v) in arrays.iter_mut().zip(values) {
                 a.values.push(v);

@@ -13,7 +13,7 @@ use num_traits::Zero;
 /// The generated functions whose result depends on a runtime parameter: each has a
 /// `_with` variant taking the parameters, and its old form means the arm file's values.
 /// (The hand-written ones, forward dynamics and the statics, take them too.)
-pub const PARAMETRIC_FUNCTIONS: [&str; 9] = [
+pub const PARAMETRIC_FUNCTIONS: [&str; 10] = [
     "stiffness",
     "damping",
     "inertia",
@@ -23,6 +23,7 @@ pub const PARAMETRIC_FUNCTIONS: [&str; 9] = [
     "terms",
     "kinetic_energy",
     "coriolis",
+    "regressor",
 ];
 
 /// One emitted function's schedule and its cost.
@@ -94,6 +95,9 @@ pub struct Plan {
     pub terms: Func,
     /// Forward dynamics over `terms`, `A`, `K`, `D` and a Cholesky solve.
     pub dynamics: Ops,
+    /// The regressor `Y(q, q̇, q̈)`, n × `params.linear_len()` row-major (a parametric
+    /// model's; `None` only in a [`Plan::build`] of a folded one).
+    pub regressor: Option<Func>,
     pub pose: Vec<Func>,
 }
 
@@ -164,7 +168,7 @@ impl Plan {
     /// ([`crate::derive::derive_emitted`]): the statics and regulator functions need its
     /// statics derivatives, and the parameter variants its parameter leaves.
     pub fn new(model: &Model, use_kernels: bool) -> Result<Plan, String> {
-        if !model.parametric {
+        if !model.parametric || model.regressor.is_none() {
             return Err(
                 "the model was derived with its parameters folded in (derive_statics); \
                  the emitted code takes them at run time (derive_emitted)"
@@ -202,6 +206,9 @@ impl Plan {
                 .flatten()
                 .copied(),
         );
+        if let Some(y) = &model.regressor {
+            all_roots.extend(y.iter().flatten().copied());
+        }
         let layout = NuLayout::of(prog, &all_roots, segs);
         let mut sched = Scheduler::new(prog, &layout);
         let flat = |m: &Vec<Vec<Id>>| -> Vec<Id> { m.iter().flatten().copied().collect() };
@@ -281,6 +288,10 @@ impl Plan {
             + stiffness.ops
             + damping.ops
             + dynamics_loop_ops(n, model.n_inputs);
+        let regressor = model
+            .regressor
+            .as_ref()
+            .map(|y| func(&mut sched, &flat(y), false));
         let pose: Vec<Func> = model
             .pose
             .iter()
@@ -325,6 +336,7 @@ impl Plan {
             potential_energy,
             terms,
             dynamics,
+            regressor,
             pose,
         })
     }
@@ -344,6 +356,7 @@ impl Plan {
         funcs
             .into_iter()
             .chain(&self.actuation_jacobian)
+            .chain(&self.regressor)
             .chain(&self.pose)
             .map(|f| f.ops.add + f.ops.mul + f.ops.div + f.ops.sqrt + f.ops.trig)
             .sum()

@@ -65,7 +65,7 @@ fn function(
     let mut rows = String::new();
     for p in spec.params {
         match *p {
-            "q" | "qd" if pose_seg.is_none() || *p == "q" => {
+            "q" | "qd" | "qdd" if pose_seg.is_none() || *p == "q" => {
                 out.push_str(&format!("    {p} = _vector({p}, NQ, \"{p}\")\n"));
             }
             _ => {}
@@ -305,6 +305,22 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             ),
         },
     );
+    if let Some(f) = &plan.regressor {
+        let ny = plan.params.linear_len();
+        funcs.push(function(
+            plan,
+            f,
+            &Spec {
+                fname: "regressor",
+                formula: "Regressor Y(q, q', q''), NQ x NTHETA: Y theta = B q'' + C q' + G + K q + D q' exactly, for the linear parameters theta (the fields of Params but gravity, in order). Gravity is not in theta: the keyword gravity is read, the other parameters are ignored.",
+                params: &["q", "qd", "qdd"],
+                init: "    out = np.zeros((NQ, NTHETA))\n",
+                ret,
+            },
+            None,
+            &move |i| mat(i, ny),
+        ));
+    }
     let nn2 = n * n;
     let tspec = Spec {
         fname: "terms",
@@ -367,6 +383,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     );
     ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&mc.coef, 4)));
     ctx.insert("functions", &funcs);
+    ctx.insert("ntheta", &plan.params.linear_len());
     // The runtime parameters: keyword-only arguments, the arm file's values by default.
     let fields = plan.params.fields();
     ctx.insert("param_names", &param_names(plan));

@@ -365,6 +365,23 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         },
         "(b, c, g)\n",
     );
+    if let Some(f) = &plan.regressor {
+        let ny = plan.params.linear_len();
+        generated(
+            "regressor",
+            "Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields.",
+            f,
+            &[
+                q_of(f),
+                qd_of(f),
+                ("qdd", "&[f64; NQ]", true),
+            ],
+            &mat("NQ", "NTHETA"),
+            "let mut out = [[0.0; NTHETA]; NQ];\n",
+            &mat_target(ny),
+            "out\n",
+        );
+    }
     let both = [("q", "&[f64; NQ]", true), ("qd", "&[f64; NQ]", true)];
     // C alone needs nearly everything B and G need too: it is `terms`, keeping C.
     public(
@@ -530,6 +547,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("work_len", &work_len);
     ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
     ctx.insert("statics_work", &statics_work);
+    ctx.insert("ntheta", &plan.params.linear_len());
     // The runtime parameters' struct fields and the arm file's values.
     let fields: Vec<(String, String, &str)> = plan
         .params

@@ -397,7 +397,7 @@ impl<'p> Scheduler<'p> {
             }
             Var::CosPhi(j) | Var::SinPhi(j) => angles = angles.max(j as usize + 1),
             Var::Q(_) => reads_q = true,
-            Var::Qd(_) => reads_qd = true,
+            Var::Qd(_) | Var::Qdd(_) => reads_qd = true,
             Var::Sigma => reads_sigma = true,
             Var::Param(_) => reads_params = true,
         };

@@ -97,7 +97,7 @@ fn rest_shapes_recover_stiffness_density_and_payload_within_their_standard_error
     let mut z = Vec::new();
     for seed in 0..12 {
         let data = rest_shapes(&arm, &theta, 40, seed, 2e-3, 5e-3);
-        let reg = regression(&model, &data);
+        let reg = regression(&model, &data).unwrap();
         let f = fit(&arm, &reg, &wanted).unwrap();
         assert!(
             f.not_identified.is_empty(),
@@ -124,7 +124,7 @@ fn rest_shapes_report_masses_that_act_alike() {
     let theta = truth(&arm);
     let model = derive_emitted(&arm);
     let data = rest_shapes(&arm, &theta, 40, 0, 2e-3, 5e-3);
-    let reg = regression(&model, &data);
+    let reg = regression(&model, &data).unwrap();
     let wanted = parse_fit("bending_stiffness,density,payload.mass", &arm).unwrap();
     let f = fit(&arm, &reg, &wanted).unwrap();
     let d = f
@@ -148,7 +148,7 @@ fn rest_shapes_report_rotary_inertia_and_damping_instead_of_fitting_noise() {
     let theta = truth(&arm);
     let model = derive_emitted(&arm);
     let data = rest_shapes(&arm, &theta, 30, 7, 2e-3, 5e-3);
-    let reg = regression(&model, &data);
+    let reg = regression(&model, &data).unwrap();
     let f = fit(&arm, &reg, &all_unknowns(&arm)).unwrap();
     let missing: Vec<String> = f.not_identified.iter().map(|m| m.unknown.name()).collect();
     for name in [
@@ -179,7 +179,7 @@ fn weightless_rest_shapes_report_the_masses() {
     let theta = truth(&arm);
     let model = derive_emitted(&arm);
     let data = rest_shapes(&arm, &theta, 20, 3, 1e-3, 1e-3);
-    let reg = regression(&model, &data);
+    let reg = regression(&model, &data).unwrap();
     let wanted = parse_fit("bending_stiffness,density,payload.mass", &arm).unwrap();
     let f = fit(&arm, &reg, &wanted).unwrap();
     let missing: Vec<String> = f.not_identified.iter().map(|m| m.unknown.name()).collect();
@@ -221,7 +221,7 @@ fn logged_motion_recovers_damping_and_every_fitted_value_lies_within_its_errors(
             at_rest: false,
         });
     }
-    let reg = regression(&model, &data);
+    let reg = regression(&model, &data).unwrap();
     let f = fit(&arm, &reg, &all_unknowns(&arm)).unwrap();
     let z = z_scores(&f, &theta, &layout);
     assert!(z.iter().all(|(_, v)| v.abs() <= 4.5), "{z:?}");

@@ -77,6 +77,9 @@ fn functions(m: &Model) -> Vec<(String, Vec<Id>)> {
             s.actuation_jacobian.iter().flat_map(mat).collect(),
         ));
     }
+    if let Some(y) = &m.regressor {
+        f.push(("regressor".to_string(), mat(y)));
+    }
     f
 }
 
@@ -108,6 +111,7 @@ fn remap(m: &Model, program: Program, ids: &[Id]) -> Model {
             .map(|x| mat(x, &mut next))
             .collect(),
     });
+    let regressor = m.regressor.as_ref().map(|y| mat(y, &mut next));
     Model {
         arm: m.arm.clone(),
         program,
@@ -126,6 +130,7 @@ fn remap(m: &Model, program: Program, ids: &[Id]) -> Model {
         potential_energy,
         pose,
         parametric: m.parametric,
+        regressor,
     }
 }
 

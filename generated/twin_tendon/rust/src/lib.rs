@@ -98,6 +98,9 @@ pub const NQ: usize = 2;
 pub const NU: usize = 4;
 /// Number of segments.
 pub const NSEG: usize = 2;
+/// Number of linear parameters `θ` of [`regressor`]: the fields of [`Params`] but
+/// gravity, in order.
+pub const NTHETA: usize = 10;
 const NU_LEN: usize = 24;
 const MOMENTS_MAX: usize = 6;
 /// Why [`forward_dynamics`] failed.
@@ -140,12 +143,12 @@ pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: f64 = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (81 reals, 648 bytes at most). Own one per
+/// plain functions keep on the stack (83 reals, 664 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([f64; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 81;
+pub const WORK_LEN: usize = 83;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -925,6 +928,158 @@ pub fn terms_with_ws(
     ws: &mut Workspace,
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
+}
+/// Kernels of `regressor`: pairs (row, moment base).
+static REGRESSOR_ROWS: [u8; 56] = [
+    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13,
+    18, 11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
+    18, 9, 12, 9, 18,
+];
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 83 reals).
+///
+/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+fn regressor_in(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    qdd: &[f64; NQ],
+    work: &mut [f64],
+) -> [[f64; NTHETA]; NQ] {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(28);
+    let t = &mut work[..31];
+    moments(0.15 * q[0], 6, nu, 0, 6);
+    moments(0.12 * q[1], 6, nu, 12, 18);
+    let mut cphi = [0.0; 1];
+    let mut sphi = [0.0; 1];
+    let phi = 0.15 * q[0];
+    cphi[0] = libm::cos(phi);
+    sphi[0] = libm::sin(phi);
+    kernels(&REGRESSOR_ROWS, nu, kern);
+    let mut out = [[0.0; NTHETA]; NQ];
+    t[0] = qd[1] * kern[10];
+    t[1] = qd[1] * kern[11];
+    t[2] = kern[4] * cphi[0];
+    t[3] = kern[5] * sphi[0];
+    t[4] = kern[5] * cphi[0];
+    t[5] = kern[4] * sphi[0];
+    t[6] = 0.0036 * t[2] - 0.0036 * t[3];
+    t[7] = 0.0036 * t[4] + 0.0036 * t[5];
+    t[8] = 0.15 * (0.0225 * kern[15] * t[7] + 0.0225 * kern[14] * t[6]);
+    t[9] = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
+    t[10] = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
+    t[11] = 0.0225 * kern[14] * t[10] - 0.0225 * kern[15] * t[9] + kern[19];
+    t[12] = qd[0] * kern[20];
+    t[13] = qd[0] * kern[21];
+    t[14] = qd[1] * kern[7];
+    t[15] = qd[1] * kern[6];
+    t[16] = qd[0] * kern[8];
+    t[17] = nu[12] * cphi[0];
+    t[18] = nu[18] * sphi[0];
+    t[19] = nu[18] * cphi[0];
+    t[20] = nu[12] * sphi[0];
+    t[21] = kern[16] - 0.018 * t[20] - 0.018 * t[19];
+    t[22] = kern[17] - 0.018 * t[18] + 0.018 * t[17];
+    t[23] = cphi[0] * kern[25];
+    t[24] = sphi[0] * kern[24];
+    t[25] = -0.0144 * t[23] - 0.0144 * t[24];
+    t[26] = cphi[0] * kern[24];
+    t[27] = sphi[0] * kern[25];
+    t[28] = 0.0144 * t[26] - 0.0144 * t[27];
+    t[29] = t[21] * t[25] + t[22] * t[28];
+    t[30] = 0.00216 * t[27] - 0.00216 * t[26];
+    t[26] = -0.00216 * t[24] - 0.00216 * t[23];
+    t[23] = qd[0] * (kern[22] - 0.0027 * t[17] + 0.0027 * t[18]) + qd[1] * t[30];
+    t[17] = qd[0] * (kern[23] - 0.0027 * t[19] - 0.0027 * t[20]) + qd[1] * t[26];
+    t[18] = qd[0] * t[30]
+        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+    t[19] = qd[0] * t[26]
+        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
+    t[20] = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
+        + t[8] + t[8] + kern[18];
+    t[8] = 0.0225 * kern[15] * (0.000432 * cphi[0] * t[15] - 0.000432 * sphi[0] * t[14])
+        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[15]);
+    t[14] = 0.03 * (7.59375e-5 * kern[15] * t[12] - 7.59375e-5 * kern[14] * t[13])
+        - 0.0225 * qd[0] * (0.0225 * kern[14] * t[7] - 0.0225 * kern[15] * t[6])
+        + 0.15 * t[8] + 0.15 * (0.003375 * t[7] * t[12] - 0.003375 * t[6] * t[13])
+        - 1.1664e-6 * qd[1] * kern[8];
+    t[6] = 0.15 * qd[0] * (0.0225 * kern[15] * t[10] + 0.0225 * kern[14] * t[9])
+        - 0.0225 * kern[15] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
+        + 0.0225 * kern[14] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[16] - 9.3312e-7 * qd[1] * kern[12];
+    out[0][0] = 0.00118125 * kern[1] * p.gravity[0] - 0.00118125 * kern[0] * p.gravity[1]
+        + 2.6578125e-5 * kern[2] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[3];
+    out[0][1] = t[20] * qdd[0] - p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
+        - p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
+        - 0.03 * (0.0225 * p.gravity[1] * kern[14] - 0.0225 * p.gravity[0] * kern[15])
+        + qd[0] * t[14] + t[11] * qdd[1] + qd[1] * t[6];
+    out[0][2] = 1.125e-8 * qdd[0];
+    out[0][3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
+    out[0][4] = 0.00225 * q[0];
+    out[0][5] = 0.0;
+    out[0][6] = 4.5e-5 * qd[0];
+    out[0][7] = 0.0;
+    out[0][8] = (t[21] * t[21] + t[22] * t[22]) * qdd[0] - p.gravity[0] * t[21]
+        - p.gravity[1] * t[22] + qd[0] * (t[21] * t[23] + t[22] * t[17]) + t[29] * qdd[1]
+        + qd[1] * (t[21] * t[18] + t[22] * t[19]);
+    out[0][9] = 0.0225 * qdd[0] + 0.018 * qdd[1];
+    out[1][0] = 0.0;
+    out[1][1] = t[11] * qdd[0] - p.gravity[0] * t[9] - p.gravity[1] * t[10]
+        + qd[0]
+            * (1.1664e-6 * t[16] - 0.003375 * t[9] * t[12] - 0.003375 * t[10] * t[13])
+        + 6.2208e-6 * kern[9] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[13];
+    out[1][2] = 0.0;
+    out[1][3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
+    out[1][4] = 0.0;
+    out[1][5] = 0.00108 * q[1];
+    out[1][6] = 0.0;
+    out[1][7] = 2.4e-5 * qd[1];
+    out[1][8] = t[29] * qdd[0] - p.gravity[0] * t[25] - p.gravity[1] * t[28]
+        + qd[0] * (t[25] * t[23] + t[28] * t[17])
+        + (t[25] * t[25] + t[28] * t[28]) * qdd[1]
+        + qd[1] * (t[25] * t[18] + t[28] * t[19]);
+    out[1][9] = 0.018 * qdd[0] + 0.0144 * qdd[1];
+    out
+}
+/// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
+///
+/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+pub fn regressor(q: &[f64; NQ], qd: &[f64; NQ], qdd: &[f64; NQ]) -> [[f64; NTHETA]; NQ] {
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 83])
+}
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (83 reals); the same values.
+///
+/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+pub fn regressor_ws(
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    qdd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NTHETA]; NQ] {
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut ws.0)
+}
+/// [`regressor`] at the runtime parameters `p`.
+///
+/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+pub fn regressor_with(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    qdd: &[f64; NQ],
+) -> [[f64; NTHETA]; NQ] {
+    regressor_in(p, q, qd, qdd, &mut [0.0; 83])
+}
+/// [`regressor_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+pub fn regressor_with_ws(
+    p: &Params,
+    q: &[f64; NQ],
+    qd: &[f64; NQ],
+    qdd: &[f64; NQ],
+    ws: &mut Workspace,
+) -> [[f64; NTHETA]; NQ] {
+    regressor_in(p, q, qd, qdd, &mut ws.0)
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 81 reals).
 ///

@@ -606,6 +606,148 @@ static G_PUCOMP: [[f64; 4]; NCASES] = [
     [2.5e1, 2.0e-1, 2.0e-1, 9.49565624214522],
 ];
 static G_PREGSAT: [[f64; 1]; NCASES] = [[0.0], [0.0], [0.0], [1.0], [0.0], [1.0]];
+static G_QDDY: [[f64; 2]; NCASES] = [
+    [-1.875, 7.5e-1],
+    [3.0, -7.5e-1],
+    [1.5, -2.25],
+    [9.0e-1, 2.625],
+    [-1.5, 1.125],
+    [-3.0, -3.75e-1],
+];
+static G_Y: [[f64; 20]; NCASES] = [
+    [
+        1.92885205078125e-3,
+        5.936326734375e-3,
+        -2.109375e-8,
+        -2.5515e-8,
+        0.0,
+        0.0,
+        -3.15e-5,
+        0.0,
+        2.854962703125e-1,
+        -2.86875e-2,
+        0.0,
+        7.0321203e-4,
+        0.0,
+        -9.558e-9,
+        0.0,
+        0.0,
+        0.0,
+        -2.1e-6,
+        7.0276005e-2,
+        -2.295e-2,
+    ],
+    [
+        1.93533046875e-3,
+        5.99757412500001e-3,
+        3.375e-8,
+        4.374e-8,
+        1.5e-11,
+        0.0,
+        1.96875e-5,
+        0.0,
+        2.89351237500002e-1,
+        5.4e-2,
+        0.0,
+        7.11432720000015e-4,
+        0.0,
+        1.6848e-8,
+        0.0,
+        9.0e-12,
+        0.0,
+        -1.05e-5,
+        7.1224920000002e-2,
+        4.32e-2,
+    ],
+    [
+        1.92176425262913e-3,
+        5.91574040934361e-3,
+        1.6875e-8,
+        9.72e-9,
+        3.0e-3,
+        0.0,
+        3.9375e-6,
+        0.0,
+        2.85474382568628e-1,
+        -6.74999999999999e-3,
+        0.0,
+        7.04056682598326e-4,
+        0.0,
+        1.944e-9,
+        0.0,
+        -1.8e-3,
+        0.0,
+        1.68e-5,
+        7.05952300091573e-2,
+        -5.4e-3,
+    ],
+    [
+        -2.48992052841213e-4,
+        -3.63628167873653e-3,
+        1.0125e-8,
+        3.159e-8,
+        5.25e-2,
+        0.0,
+        -1.18125e-5,
+        0.0,
+        -1.33350125525888e-1,
+        6.75e-2,
+        0.0,
+        -3.47891482987747e-4,
+        0.0,
+        1.4904e-8,
+        0.0,
+        -2.34e-2,
+        0.0,
+        8.4e-6,
+        -9.81096937872498e-3,
+        5.4e-2,
+    ],
+    [
+        1.929350390625e-3,
+        5.9419119375e-3,
+        -1.6875e-8,
+        -1.701e-8,
+        0.0,
+        0.0,
+        -2.75625e-5,
+        0.0,
+        2.85896081250001e-1,
+        -1.35e-2,
+        0.0,
+        7.03996920000023e-4,
+        0.0,
+        -5.832e-9,
+        0.0,
+        9.0e-12,
+        0.0,
+        5.04e-6,
+        7.03744200000032e-2,
+        -1.08e-2,
+    ],
+    [
+        9.39412493861192e-4,
+        -1.4487443531904e-3,
+        -3.375e-8,
+        -5.103e-8,
+        3.0e-2,
+        0.0,
+        2.3625e-5,
+        0.0,
+        -1.25828571844303e-1,
+        -7.425e-2,
+        0.0,
+        -6.34011928765273e-4,
+        0.0,
+        -2.0736e-8,
+        0.0,
+        1.8e-2,
+        0.0,
+        -8.4e-6,
+        -6.20488864466086e-2,
+        -5.94e-2,
+    ],
+];
 const SCALE_B: f64 = 3.158398125e-5;
 const SCALE_C: f64 = 1.72177574906104e-7;
 const SCALE_G: f64 = 1.362976875e-2;
@@ -633,6 +775,7 @@ const SCALE_PDG: f64 = 2.02165005846465e-3;
 const SCALE_PR: f64 = 6.48027709717004e-2;
 const SCALE_PQEQ: f64 = 9.73402958492302;
 const SCALE_PUCOMP: f64 = 2.5e1;
+const SCALE_Y: f64 = 2.89351237500002e-1;
 fn flat<const R: usize, const C: usize>(m: &[[f64; C]; R]) -> [f64; 64] {
     let mut out = [0.0; 64];
     for i in 0..R {
@@ -1036,9 +1179,51 @@ fn parameter_variants_match_the_reference_at_changed_values() {
     });
     let (q, qd, u) = state(2);
     let mut bad = Params::DEFAULT;
+    bad.payload_mass = f64::NAN;
+    assert!(
+        regressor_with(& bad, & q, & qd, & qd).iter().flatten().all(| v | v.is_finite()),
+        "the regressor reads gravity only"
+    );
     bad.gravity[0] = f64::NAN;
     assert_eq!(
         forward_dynamics_with(& bad, & q, & qd, & u), Err(DynamicsError::NonFiniteInput)
     );
     assert_eq!(static_residual_with(& bad, & q, & u), Err(StaticsError::NonFiniteInput));
+}
+#[test]
+fn regressor_matches_the_reference_and_reproduces_the_dynamics() {
+    run(|c, f| {
+        let (q, qd, _) = state(c);
+        let mut acc = [0.0; NQ];
+        acc.copy_from_slice(&G_QDDY[c][..NQ]);
+        let y = regressor(&q, &qd, &acc);
+        let mut flat_y = [0.0; NQ * NTHETA];
+        for i in 0..NQ {
+            flat_y[i * NTHETA..(i + 1) * NTHETA].copy_from_slice(&y[i]);
+        }
+        check("regressor", c, &flat_y, &G_Y[c], SCALE_Y, f);
+        let mut ws = Workspace::new();
+        assert_eq!(regressor_ws(& q, & qd, & acc, & mut ws), y);
+        let p = test_params(c);
+        let y = regressor_with(&p, &q, &qd, &acc);
+        let (b, cc, g) = terms_with(&p, &q, &qd);
+        let (k, d) = (stiffness_with(&p), damping_with(&p));
+        for i in 0..NQ {
+            let mut tau = g[i];
+            for j in 0..NQ {
+                tau += b[i][j] * acc[j] + (cc[i][j] + d[i][j]) * qd[j] + k[i][j] * q[j];
+            }
+            let terms: Vec<f64> = (0..NTHETA).map(|j| y[i][j] * G_THETA[c][j]).collect();
+            let size = terms.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+            let ytheta: f64 = terms.iter().sum();
+            if !((ytheta - tau).abs() <= RTOL * size * NTHETA as f64) {
+                f.push(
+                    format!(
+                        "regressor_with [{}] row {i}: Y theta {ytheta:e}, tau {tau:e}",
+                        LABELS[c]
+                    ),
+                );
+            }
+        }
+    });
 }
