@@ -120,6 +120,16 @@ fn rest_shapes_give_back_the_true_stiffness_and_density_and_a_usable_arm_file() 
         "{text}"
     );
     ok(&["eval", out.to_str().unwrap(), "--q", "1,-1"]);
+    let generated = dir.path().join("generated");
+    ok(&[
+        "generate",
+        out.to_str().unwrap(),
+        "--out",
+        generated.to_str().unwrap(),
+        "--lang",
+        "python",
+        "-q",
+    ]);
     let svg = std::fs::read_to_string(&plot).unwrap();
     assert!(svg.contains("<svg") && svg.contains("coordinate 1_0"));
     // The human report names what it fitted and its errors.

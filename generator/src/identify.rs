@@ -435,6 +435,14 @@ fn solve_weighted(
         })
         .collect();
     let mut theta = theta0.to_vec();
+    if p > 0 && y.iter().all(|v| *v == 0.0) {
+        return Err(
+            "the data holds no known force to fit against (the inputs are zero and every \
+             parameter the data carries is fitted): the parameters are then determined only \
+             up to a common factor; leave one out of --fit, or measure under known inputs"
+                .into(),
+        );
+    }
     if p == 0 {
         return Ok(Solved {
             fitted: Vec::new(),

@@ -291,3 +291,37 @@ fn fit_names_are_the_arm_file_fields() {
         .unwrap_err()
         .contains("none of"));
 }
+
+/// Two gross errors among the rest shapes (a tension logged ten times too high) are
+/// down-weighted, not fitted: the estimates stay within their errors of the truth.
+#[test]
+fn gross_errors_are_down_weighted() {
+    let arm = demo("twin_tendon");
+    let layout = ParamLayout::of(&arm);
+    let mut theta = truth(&arm);
+    theta[layout.index(ParamKind::PayloadMass, 0)] = arm.payload.mass.clone();
+    let model = derive_emitted(&arm);
+    let mut data = rest_shapes(&arm, &theta, 40, 5, 2e-3, 5e-3);
+    data[3].u[0] *= 10.0;
+    data[17].u[2] *= 10.0;
+    let reg = regression(&model, &data).unwrap();
+    let wanted = parse_fit("bending_stiffness,density", &arm).unwrap();
+    let f = fit(&arm, &reg, &wanted).unwrap();
+    assert!(f.outliers >= 2, "{} outliers", f.outliers);
+    let z = z_scores(&f, &theta, &layout);
+    assert!(z.iter().all(|(_, v)| v.abs() <= 4.5), "{z:?}");
+}
+
+/// Rest shapes without any input say nothing of scale: refused with the reason.
+#[test]
+fn data_without_a_known_force_is_refused() {
+    let arm = demo("twin_tendon");
+    let model = derive_emitted(&arm);
+    let mut data = rest_shapes(&arm, &truth(&arm), 5, 1, 0.0, 0.0);
+    for o in &mut data {
+        o.u.iter_mut().for_each(|v| *v = 0.0);
+    }
+    let reg = regression(&model, &data).unwrap();
+    let e = fit(&arm, &reg, &all_unknowns(&arm)[..]).unwrap_err();
+    assert!(e.contains("up to a common factor"), "{e}");
+}
