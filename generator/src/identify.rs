@@ -60,9 +60,28 @@ impl Unknown {
         layout.index(self.kind, self.segment)
     }
 
-    /// What data determines this parameter, for the report of one that was not.
-    fn advice(&self) -> String {
+    /// What data determines this parameter, for the report of one that was not
+    /// (`moving`: the data already holds a logged motion).
+    fn advice(&self, moving: bool) -> String {
         let j = self.segment + 1;
+        if moving
+            && matches!(
+                self.kind,
+                ParamKind::RotaryInertiaScale
+                    | ParamKind::DampingScale
+                    | ParamKind::PayloadRotaryInertia
+            )
+        {
+            return format!(
+                "a logged motion with faster bending{} than this one: its rates and \
+                 accelerations do not determine it",
+                if self.kind == ParamKind::PayloadRotaryInertia {
+                    " near the tip".to_string()
+                } else {
+                    format!(" of segment {j}")
+                }
+            );
+        }
         match self.kind {
             ParamKind::DensityScale => format!(
                 "rest shapes under loads that bend segment {j} in several directions \
@@ -161,8 +180,8 @@ pub struct Observation {
 
 /// The regression: one row per coordinate of each observation.
 pub struct Regression {
-    /// `columns[k][r]`: the generalized force of parameter `k` of the whole layout
-    /// (gravity's entries unused) in row `r`.
+    /// `columns[k][r]`: the generalized force of linear parameter `k` (the regressor's
+    /// column, [`ParamLayout::linear_len`] of them) in row `r`.
     columns: Vec<Vec<f64>>,
     /// `A(q) u` in row `r`.
     pub measured: Vec<f64>,
@@ -183,7 +202,7 @@ pub fn regression(model: &Model, observations: &[Observation]) -> Result<Regress
     let n = arm.n_coords();
     let ev = Evaluator::new(model);
     let rows = observations.len() * n;
-    let mut columns = vec![vec![0.0; rows]; layout.len()];
+    let mut columns = vec![vec![0.0; rows]; layout.linear_len()];
     let mut measured = vec![0.0; rows];
     for (o, obs) in observations.iter().enumerate() {
         let a = ev.terms(&obs.q, &obs.qd).a;
@@ -253,12 +272,8 @@ pub fn fit(arm: &Arm, reg: &Regression, wanted: &[Unknown]) -> Result<Fit, Strin
     let predict = |theta: &[f64]| -> Vec<f64> {
         (0..rows)
             .map(|r| {
-                all_unknowns(arm)
-                    .iter()
-                    .map(|u| {
-                        let k = u.index(&layout);
-                        theta[k] * reg.columns[k][r]
-                    })
+                (0..reg.columns.len())
+                    .map(|k| theta[k] * reg.columns[k][r])
                     .sum()
             })
             .collect()
@@ -293,7 +308,7 @@ pub fn fit(arm: &Arm, reg: &Regression, wanted: &[Unknown]) -> Result<Fit, Strin
             not_identified.push(NotIdentified {
                 unknown: u,
                 reason: "does not enter this data".into(),
-                advice: u.advice(),
+                advice: u.advice(reg.has_motion),
             });
         } else {
             active.push(u);
@@ -314,7 +329,7 @@ pub fn fit(arm: &Arm, reg: &Regression, wanted: &[Unknown]) -> Result<Fit, Strin
                     } else {
                         "is not determined by this data".into()
                     },
-                    advice: u.advice(),
+                    advice: u.advice(reg.has_motion),
                 });
             }
             active.retain(|u| !group.contains(u));
@@ -353,7 +368,7 @@ pub fn fit(arm: &Arm, reg: &Regression, wanted: &[Unknown]) -> Result<Fit, Strin
                 not_identified.push(NotIdentified {
                     unknown: *u,
                     reason,
-                    advice: u.advice(),
+                    advice: u.advice(reg.has_motion),
                 });
             }
             active.retain(|u| !weak.iter().any(|(w, _, _)| w == u));
@@ -361,11 +376,10 @@ pub fn fit(arm: &Arm, reg: &Regression, wanted: &[Unknown]) -> Result<Fit, Strin
         }
         let theta = solved.theta.clone();
         let predicted_after = predict(&theta);
-        let size = spread(&reg.measured);
         let relative = |pred: &[f64]| -> f64 {
             let (mut e, mut m) = (0.0, 0.0);
             for r in 0..rows {
-                let s = size[reg.coordinate[r]];
+                let s = measured_spread[reg.coordinate[r]];
                 e += ((reg.measured[r] - pred[r]) / s).powi(2);
                 m += (reg.measured[r] / s).powi(2);
             }
@@ -425,9 +439,7 @@ fn solve_weighted(
     // The right-hand side without the parameters that stay fixed.
     let y: Vec<f64> = (0..rows)
         .map(|r| {
-            let fixed: f64 = all_unknowns(arm)
-                .iter()
-                .map(|u| u.index(&layout))
+            let fixed: f64 = (0..reg.columns.len())
                 .filter(|k| !cols.contains(k))
                 .map(|k| theta0[k] * reg.columns[k][r])
                 .sum();
