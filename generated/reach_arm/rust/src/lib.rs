@@ -6976,19 +6976,28 @@ static KERNEL_COEF: [f64; 6266] = [
 fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
     for (slot, pair) in kern.iter_mut().zip(uses.chunks_exact(2)) {
         let r = pair[0] as usize;
-        let c = &KERNEL_COEF[KERNEL_START[r] as usize..KERNEL_START[r + 1] as usize];
-        let from = pair[1] as usize + KERNEL_FIRST[r] as usize;
-        let v = &nu[from..from + c.len()];
+        let row = KERNEL_START
+            .get(r..r + 2)
+            .zip(KERNEL_FIRST.get(r))
+            .and_then(|(span, first)| {
+                let c = KERNEL_COEF.get(span[0] as usize..span[1] as usize)?;
+                let from = pair[1] as usize + *first as usize;
+                Some((c, nu.get(from..from + c.len())?))
+            });
+        let Some((c, v)) = row else {
+            *slot = f64::NAN;
+            continue;
+        };
         let mut s = [0.0f64; 4];
-        let mut quads = c.chunks_exact(4).zip(v.chunks_exact(4));
-        for (cq, vq) in &mut quads {
+        let (cq, vq) = (c.chunks_exact(4), v.chunks_exact(4));
+        let (ct, vt) = (cq.remainder(), vq.remainder());
+        for (cq, vq) in cq.zip(vq) {
             for k in 0..4 {
                 s[k] += cq[k] * vq[k];
             }
         }
-        let tail = c.len() - c.len() % 4;
-        for p in tail..c.len() {
-            s[0] += c[p] * v[p];
+        for (a, b) in ct.iter().zip(vt) {
+            s[0] += a * b;
         }
         *slot = (s[0] + s[1]) + (s[2] + s[3]);
     }
@@ -7001,6 +7010,7 @@ fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
 /// recurrence beyond (stable while `n < |x|`; NaN lands there). No branch divides by a
 /// small `a`. Worst case: 55 add, 254 mul, 2 div, 0 sqrt, 2 trig for 30 moments.
 fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
+    let count = count.clamp(1, MOMENTS_MAX);
     let mut j = [0.0f64; MOMENTS_MAX];
     let x = 0.5 * a;
     let ax = libm::fabs(x);
@@ -7064,6 +7074,9 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
         for n in 2..count {
             j[n] = (2 * n - 1) as f64 * inv * j[n - 1] - j[n - 2];
         }
+    }
+    if re + count > out.len() || im + count > out.len() {
+        return;
     }
     for n in 0..count {
         let (r, i) = match n % 4 {
@@ -16984,7 +16997,6 @@ fn forward_dynamics_in(
         return Err(DynamicsError::Overflow);
     }
     let mut f = [0.0; NQ];
-    let mut m = [0.0; NQ * (NQ + 1) / 2];
     for i in 0..NQ {
         let mut s = -g[i];
         for k in 0..NQ {
@@ -16994,45 +17006,40 @@ fn forward_dynamics_in(
             s += a[i][k] * u[k];
         }
         f[i] = s;
-        for k in 0..=i {
-            m[i * (i + 1) / 2 + k] = b[i][k];
-        }
     }
     if !all_finite(&f) {
         return Err(DynamicsError::Overflow);
     }
+    let mut m = b;
     for i in 0..NQ {
-        let ri = i * (i + 1) / 2;
         for j in 0..=i {
-            let rj = j * (j + 1) / 2;
-            let mut s = m[ri + j];
+            let mut s = m[i][j];
             for k in 0..j {
-                s -= m[ri + k] * m[rj + k];
+                s -= m[i][k] * m[j][k];
             }
             if i == j {
-                if !(s > PIVOT_FLOOR * m[ri + i]) {
+                if !(s > PIVOT_FLOOR * m[i][i]) {
                     return Err(DynamicsError::NotPositiveDefinite);
                 }
-                m[ri + i] = libm::sqrt(s);
+                m[i][i] = libm::sqrt(s);
             } else {
-                m[ri + j] = s / m[rj + j];
+                m[i][j] = s / m[j][j];
             }
         }
     }
     for i in 0..NQ {
-        let ri = i * (i + 1) / 2;
         let mut s = f[i];
         for k in 0..i {
-            s -= m[ri + k] * f[k];
+            s -= m[i][k] * f[k];
         }
-        f[i] = s / m[ri + i];
+        f[i] = s / m[i][i];
     }
     for i in (0..NQ).rev() {
         let mut s = f[i];
         for k in i + 1..NQ {
-            s -= m[k * (k + 1) / 2 + i] * f[k];
+            s -= m[k][i] * f[k];
         }
-        f[i] = s / m[i * (i + 1) / 2 + i];
+        f[i] = s / m[i][i];
     }
     if f.iter().any(|v| !v.is_finite()) {
         return Err(DynamicsError::NonFiniteResult);
