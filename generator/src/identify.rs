@@ -259,8 +259,8 @@ pub struct Fit {
     /// Predicted generalized force per row, at the arm file's values and after.
     pub predicted_before: Vec<f64>,
     pub predicted_after: Vec<f64>,
-    /// Rows whose Huber weight fell below 1/2 (outliers).
-    pub outliers: usize,
+    /// Rows whose Huber weight fell below 1/2 (outliers), in row order.
+    pub outliers: Vec<usize>,
 }
 
 /// Fits `wanted` (the others stay at the arm file's values).
@@ -413,7 +413,7 @@ struct Solved {
     fitted: Vec<(Unknown, f64, f64)>,
     theta: Vec<f64>,
     condition: f64,
-    outliers: usize,
+    outliers: Vec<usize>,
     /// Parameters in an undetermined direction (then nothing else is meaningful).
     null_group: Option<Vec<Unknown>>,
     /// Correlations of the estimates, in `active` order.
@@ -460,7 +460,7 @@ fn solve_weighted(
             fitted: Vec::new(),
             theta,
             condition: 1.0,
-            outliers: 0,
+            outliers: Vec::new(),
             null_group: None,
             correlation: Vec::new(),
         });
@@ -510,7 +510,7 @@ fn solve_weighted(
                 fitted: Vec::new(),
                 theta,
                 condition: f64::INFINITY,
-                outliers: 0,
+                outliers: Vec::new(),
                 null_group: Some(group),
                 correlation: Vec::new(),
             });
@@ -598,7 +598,7 @@ fn solve_weighted(
                 .collect()
         })
         .collect();
-    let outliers = huber.iter().filter(|h| **h < 0.5).count();
+    let outliers = (0..rows).filter(|&r| huber[r] < 0.5).collect();
     Ok(Solved {
         fitted,
         theta,

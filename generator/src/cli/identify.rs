@@ -172,7 +172,10 @@ pub fn run(args: &IdentifyArgs) -> Result<(), CliError> {
             "condition_number": result.condition,
             "residual_before": result.residual_before,
             "residual_after": result.residual_after,
-            "outliers": result.outliers,
+            "outliers": result.outliers.iter().map(|&r| json!({
+                "at": observations[reg.observation[r]].origin,
+                "coordinate": arm.coordinate_labels()[reg.coordinate[r]],
+            })).collect::<Vec<_>>(),
             "fitted_arm": args.out.as_ref().map(|p| p.display().to_string()),
             "plot": args.plot.as_ref().map(|p| p.display().to_string()),
         });
@@ -231,11 +234,30 @@ pub fn run(args: &IdentifyArgs) -> Result<(), CliError> {
         short(result.residual_before),
         short(result.residual_after)
     );
-    if result.outliers > 0 {
+    if !result.outliers.is_empty() {
+        let labels = arm.coordinate_labels();
+        let shown: Vec<String> = result
+            .outliers
+            .iter()
+            .take(5)
+            .map(|&r| {
+                format!(
+                    "{} ({})",
+                    observations[reg.observation[r]].origin, labels[reg.coordinate[r]]
+                )
+            })
+            .collect();
+        let more = result.outliers.len().saturating_sub(5);
         let _ = writeln!(
             s,
-            "{} equation(s) down-weighted as outliers (Huber weight below 1/2)",
-            result.outliers
+            "{} equation(s) down-weighted as outliers (Huber weight below 1/2): {}{}",
+            result.outliers.len(),
+            shown.join(", "),
+            if more > 0 {
+                format!(" and {more} more")
+            } else {
+                String::new()
+            }
         );
     }
     if let Some(p) = &args.out {
