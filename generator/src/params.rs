@@ -111,6 +111,13 @@ pub struct ParamField {
     pub len: Option<usize>,
 }
 
+impl ParamField {
+    /// This field's entries of a whole parameter vector.
+    pub fn of<'a, T>(&self, theta: &'a [T]) -> &'a [T] {
+        &theta[self.start..self.start + self.len.unwrap_or(1)]
+    }
+}
+
 impl ParamLayout {
     pub fn of(arm: &Arm) -> Self {
         ParamLayout {

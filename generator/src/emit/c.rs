@@ -772,7 +772,7 @@ pub fn emit(
     let mut param_fields = Vec::new();
     let mut init = Vec::new();
     for f in plan.params.fields() {
-        let values = &plan.param_defaults[f.start..f.start + f.len.unwrap_or(1)];
+        let values = f.of(&plan.param_defaults);
         let vals: Vec<String> = values.iter().map(lit).collect();
         param_fields.push(ParamField {
             decl: match f.len {

@@ -138,18 +138,23 @@ fn param_names(plan: &Plan) -> String {
         .join(", ")
 }
 
+/// `density_scale=PARAMS_DEFAULT.density_scale, …`: the runtime parameters as
+/// keyword arguments with the arm file's values as defaults.
+fn param_keywords(plan: &Plan) -> String {
+    plan.params
+        .fields()
+        .iter()
+        .map(|f| format!("{0}=PARAMS_DEFAULT.{0}", f.kind.field()))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
 /// `name(args, *, density_scale=PARAMS_DEFAULT.density_scale, …)` for a function that
-/// takes the runtime parameters (keyword-only, the arm file's values by default).
+/// takes the runtime parameters (keyword-only), `name(args)` for one that does not.
 fn signature(plan: &Plan, fname: &str, params: &[&str], with: bool) -> String {
     let mut all: Vec<String> = params.iter().map(|p| p.to_string()).collect();
     if with {
-        all.push("*".into());
-        all.extend(
-            plan.params
-                .fields()
-                .iter()
-                .map(|f| format!("{0}=PARAMS_DEFAULT.{0}", f.kind.field())),
-        );
+        all.push(format!("*, {}", param_keywords(plan)));
     }
     format!("{fname}({})", all.join(", "))
 }
@@ -387,18 +392,12 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     // The runtime parameters: keyword-only arguments, the arm file's values by default.
     let fields = plan.params.fields();
     ctx.insert("param_names", &param_names(plan));
-    ctx.insert(
-        "param_sig",
-        &fields
-            .iter()
-            .map(|f| format!("{0}=PARAMS_DEFAULT.{0}", f.kind.field()))
-            .collect::<Vec<_>>()
-            .join(", "),
-    );
+    ctx.insert("param_sig", &param_keywords(plan));
     let defaults: Vec<(String, String, String, &str)> = fields
         .iter()
         .map(|f| {
-            let vals: Vec<String> = plan.param_defaults[f.start..f.start + f.len.unwrap_or(1)]
+            let vals: Vec<String> = f
+                .of(&plan.param_defaults)
                 .iter()
                 .map(|q| super::number::literal(q, Precision::F64))
                 .collect();

@@ -195,8 +195,8 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         let args: Vec<&str> = params.iter().map(|(p, _, _)| *p).collect();
         let args = args.join(", ");
         let w = if len == 0 { "_work" } else { "work" };
-        // Every function here depends on a runtime parameter but the actuation and the
-        // tip Jacobian: those take `p: &Params` in `_in` and get `_with` forms.
+        // A function whose result depends on a runtime parameter takes `p: &Params` in
+        // `_in` and gets `_with` forms.
         let with = PARAMETRIC_FUNCTIONS.contains(&fname);
         let (p_decl, p_default, p_arg) = if with {
             ("p: &Params, ", "&Params::DEFAULT, ", "p, ")
@@ -554,7 +554,8 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .fields()
         .iter()
         .map(|f| {
-            let vals: Vec<String> = plan.param_defaults[f.start..f.start + f.len.unwrap_or(1)]
+            let vals: Vec<String> = f
+                .of(&plan.param_defaults)
                 .iter()
                 .map(|q| super::number::literal(q, Precision::F64))
                 .collect();
