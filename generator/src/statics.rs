@@ -310,7 +310,19 @@ pub fn equilibrium(
             }
         }
     }
-    let lin = linearise(model, &k, &q, u, 1.0)?;
+    finish(model, &k, q, u, iterations, load_steps)
+}
+
+/// The equilibrium at `q` (full load): its residual, tip pose and stability.
+fn finish(
+    model: &dyn StaticModel,
+    k: &Matrix,
+    q: Vec<f64>,
+    u: &[f64],
+    iterations: usize,
+    load_steps: usize,
+) -> Result<Equilibrium, StaticsError> {
+    let lin = linearise(model, k, &q, u, 1.0)?;
     let residual = norm(&lin.r);
     let min_eigenvalue = symmetric_eigenvalues(&lin.jac)
         .first()
@@ -325,6 +337,37 @@ pub fn equilibrium(
         load_steps,
         min_eigenvalue,
         stable: min_eigenvalue > 0.0,
+    })
+}
+
+/// Newton at full load from `start`, a nearby equilibrium of a model that agrees with
+/// `model` (the derived model's, refined on the reference's equations): the root of
+/// `model` on the branch `start` lies on, in a few iterations instead of a whole
+/// continuation. Fails when it does not converge within `2 · iterations_per_step`.
+pub fn refine(
+    model: &dyn StaticModel,
+    start: &[f64],
+    u: &[f64],
+    opts: &Options,
+) -> Result<Equilibrium, StaticsError> {
+    let k = model.stiffness();
+    let mut q = start.to_vec();
+    let mut residual = f64::INFINITY;
+    for iteration in 0..2 * opts.iterations_per_step {
+        let lin = linearise(model, &k, &q, u, 1.0)?;
+        residual = norm(&lin.r);
+        if residual <= opts.tolerance * lin.scale {
+            return finish(model, &k, q, u, iteration, 0);
+        }
+        let Some(s) = solve(&lin.jac, &lin.r) else {
+            break;
+        };
+        q = q.iter().zip(&s).map(|(a, b)| a - b).collect();
+    }
+    Err(StaticsError::NotConverged {
+        load: 1.0,
+        residual,
+        iterations: 2 * opts.iterations_per_step,
     })
 }
 

@@ -438,7 +438,7 @@ static const double g_qeq[NCASES][2] = {
         -4.84923529187833, -1.33038514342275
     },
     {
-        -2.9956107864594, 4.29182625642928e-1
+        -2.9956107864594, 4.29182625642929e-1
     },
     {
         -4.30636727402907, 4.80709081890008
@@ -878,7 +878,7 @@ static const double g_pqeq[NCASES][2] = {
         -3.9653951374293, -1.01847761214597
     },
     {
-        -2.94307073178857, 4.09869773624341e-3
+        -2.94307073178857, 4.09869773624399e-3
     },
     {
         -3.86490922293843, 2.99144685868225
@@ -887,10 +887,10 @@ static const double g_pqeq[NCASES][2] = {
         -6.84994931874387, -3.99267402203917
     },
     {
-        -1.53730048379513, -9.73402958492302
+        -1.53730048379512, -9.73402958492303
     },
     {
-        2.59571528236415, 5.28642522634577
+        2.59571528236416, 5.28642522634578
     },
 };
 static const double g_pucomp[NCASES][4] = {
@@ -1010,7 +1010,7 @@ static const double scale_pT = 1.5131062193625e-5;
 static const double scale_pV = 1.29053715485378;
 static const double scale_pdG = 2.02165005846465e-3;
 static const double scale_pR = 6.48027709717004e-2;
-static const double scale_pqeq = 9.73402958492302;
+static const double scale_pqeq = 9.73402958492303;
 static const double scale_pucomp = 2.5e1;
 static const double scale_Y = 2.89351237500002e-1;
 

@@ -118,13 +118,30 @@ fn flat(m: &[Vec<f64>]) -> Vec<f64> {
     m.iter().flatten().copied().collect()
 }
 
+/// The reference's equilibrium under `u`: the load continuation runs on the derived
+/// model `fast` (cheap), and Newton on the reference's own equations (quadrature of the
+/// same truncated kinematics, exact derivatives of its integrands) refines its answer
+/// to the reference's root; should that fail, the continuation runs on the reference.
+fn reference_equilibrium(
+    fast: &dyn crate::statics::StaticModel,
+    exact: &Quadrature,
+    u: &[f64],
+) -> Result<crate::statics::Equilibrium, crate::statics::StaticsError> {
+    let opts = Options::default();
+    match equilibrium(fast, u, &opts) {
+        Ok(near) => crate::statics::refine(exact, &near.q, u, &opts)
+            .or_else(|_| equilibrium(exact, u, &opts)),
+        Err(_) => equilibrium(exact, u, &opts),
+    }
+}
+
 /// The equilibrium case of configuration `c`: no input for the first (gravity
 /// alone), then the configuration's input pattern scaled so that the linear estimate
-/// bends the most-bent segment by `0.4 c` rad. Solved by the reference (quadrature of
-/// the same truncated kinematics, exact derivatives of its integrands); a load the
+/// bends the most-bent segment by `0.4 c` rad ([`reference_equilibrium`]); a load the
 /// solver cannot follow is halved until it can.
 fn static_case(
     arm: &Arm,
+    fast: &dyn crate::statics::StaticModel,
     reference: &Reference,
     c: usize,
     u: &[f64],
@@ -142,7 +159,7 @@ fn static_case(
     // Halving ends: below 1e-12 the load is dropped, and gravity alone decides.
     loop {
         let ueq: Vec<f64> = u.iter().map(|v| scale * v).collect();
-        match equilibrium(&model, &ueq, &Options::default()) {
+        match reference_equilibrium(fast, &model, &ueq) {
             Ok(eq) => return Ok((ueq, eq.q, eq.stable)),
             Err(e) if scale == 0.0 => {
                 return Err(format!(
@@ -272,7 +289,10 @@ pub fn states(arm: &Arm) -> Vec<State> {
 impl Golden {
     /// The golden values of `arm`; an error when the reference finds no equilibrium of
     /// the arm even under gravity alone (an arm too soft to hold itself).
-    pub fn compute(arm: &Arm) -> Result<Golden, String> {
+    pub fn compute(model: &crate::derive::Model) -> Result<Golden, String> {
+        let arm = &model.arm;
+        // The derived model only starts the equilibrium solves (see reference_equilibrium).
+        let fast = crate::statics::Derived(crate::evaluate::Evaluator::new(model));
         let reference = Reference::new(arm, Kinematics::Truncated(arm.expansion_order));
         let n = arm.n_coords();
         let k = arm.n_inputs();
@@ -348,6 +368,8 @@ impl Golden {
         let arm_p = crate::params::apply(arm, &theta);
         let reference_p = Reference::new(&arm_p, Kinematics::Truncated(arm.expansion_order));
         let model_p = Quadrature(Reference::new(&arm_p, reference_p.kinematics()));
+        let fast_p =
+            crate::statics::Derived(crate::evaluate::Evaluator::new(model).with_params(&theta_f64));
         let layout = crate::params::ParamLayout::of(arm);
         let unit_arms: Vec<Arm> = (0..ny)
             .map(|k| {
@@ -400,7 +422,7 @@ impl Golden {
                     })
                 })
                 .collect();
-            let (ueq, qeq, stable) = static_case(arm, &reference, c, &u)?;
+            let (ueq, qeq, stable) = static_case(arm, &fast, &reference, c, &u)?;
             let reg = regulator_case(arm, &t.k, &st.g, &st.a, &q, &qd, c);
             // The same at the second parameter set.
             let tp = reference_p.terms(&q, &qd);
@@ -416,7 +438,7 @@ impl Golden {
                         - (0..k).map(|c| stp.a[i][c] * u[c]).sum::<f64>()
                 })
                 .collect();
-            let (peqok, pqeq) = match equilibrium(&model_p, &ueq, &Options::default()) {
+            let (peqok, pqeq) = match reference_equilibrium(&fast_p, &model_p, &ueq) {
                 Ok(eq) => (1.0, eq.q),
                 Err(_) => (0.0, vec![0.0; n]),
             };

@@ -218,7 +218,7 @@ fn emit_inner(
     progress("scheduling the code");
     let plan = plan::Plan::new(model, true)?;
     progress("golden values from the numeric reference");
-    let golden = golden::Golden::compute(&model.arm)?;
+    let golden = golden::Golden::compute(model)?;
     let mut files = Vec::new();
     for language in options.languages.iter() {
         progress(match language {
