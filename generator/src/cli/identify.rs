@@ -67,9 +67,9 @@ pub struct IdentifyArgs {
 /// What a parameter's value means, for the table.
 fn unit(u: &Unknown) -> &'static str {
     match u.kind {
+        _ if u.is_scale() => "x arm file",
         ParamKind::PayloadMass => "kg",
-        ParamKind::PayloadRotaryInertia => "kg m^2",
-        _ => "x arm file",
+        _ => "kg m^2",
     }
 }
 
@@ -324,29 +324,26 @@ fn fitted_arm(
                 short(*v)
             ))
         };
-        let values: Vec<String> = match u.kind {
-            ParamKind::PayloadMass | ParamKind::PayloadRotaryInertia => {
-                if *v < 0.0 {
-                    return Err(bad("negative"));
-                }
-                vec![toml_number(*v)]
+        let values: Vec<String> = if !u.is_scale() {
+            if *v < 0.0 {
+                return Err(bad("negative"));
             }
-            _ => {
-                if !(*v > 0.0) {
-                    return Err(bad("a scale must be positive"));
-                }
-                let seg = &arm.segments[u.segment];
-                let poly = match u.kind {
-                    ParamKind::DensityScale => &seg.density,
-                    ParamKind::RotaryInertiaScale => &seg.rotary_inertia,
-                    ParamKind::StiffnessScale => &seg.bending_stiffness,
-                    _ => &seg.damping,
-                };
-                poly.coeffs
-                    .iter()
-                    .map(|c| toml_number(c.to_f64().unwrap_or(f64::NAN) * v))
-                    .collect()
+            vec![toml_number(*v)]
+        } else {
+            if !(*v > 0.0) {
+                return Err(bad("a scale must be positive"));
             }
+            let seg = &arm.segments[u.segment];
+            let poly = match u.kind {
+                ParamKind::DensityScale => &seg.density,
+                ParamKind::RotaryInertiaScale => &seg.rotary_inertia,
+                ParamKind::StiffnessScale => &seg.bending_stiffness,
+                _ => &seg.damping,
+            };
+            poly.coeffs
+                .iter()
+                .map(|c| toml_number(c.to_f64().unwrap_or(f64::NAN) * v))
+                .collect()
         };
         overrides.push(Override {
             path: u.name(),
