@@ -551,6 +551,11 @@ impl<'a> Reference<'a> {
         let mut hv = vec![C64::ZERO; n * n];
         for (j, sk) in k.segs.iter().enumerate() {
             let s = &self.segs[j];
+            // A massless segment adds nothing (the golden regressor's variants are
+            // massless but for one segment; this loop is n³ per node).
+            if s.rho.iter().all(|c| *c == 0.0) {
+                continue;
+            }
             let r = sk.r;
             for (node, v) in sk.vals.iter().enumerate() {
                 let c1 = sk.wq[node] * s.l * horner(&s.rho, sk.sig[node]);
@@ -787,23 +792,54 @@ impl<'a> Reference<'a> {
     /// Every term of [`Terms`] at `(q, qd)`.
     pub fn terms(&self, q: &[f64], qd: &[f64]) -> Terms {
         let k = self.kinematics_at(q, 2);
-        let b = self.inertia_from(&k);
-        let db = self.inertia_derivative_from(&k);
+        self.terms_from(&k, q, qd)
+    }
+
+    /// [`Reference::terms`] of each of `variants` at `(q, qd)`: references of arms that
+    /// differ from this one in densities, rotary inertias, stiffnesses, dampings,
+    /// payload or gravity only (`params::apply`), so that the inner integrals, which
+    /// hold the geometry alone, are computed once on this reference's nodes. Those
+    /// nodes must be at least as fine as each variant's own, which holds when a
+    /// variant's property polynomials have no more coefficients than this arm's (a
+    /// scale of 0 or more). The golden regressor columns are `4·NSEG + 2` such
+    /// variants per state; sharing the kinematics made them about 10× cheaper.
+    pub fn terms_of_variants(&self, variants: &[Reference], q: &[f64], qd: &[f64]) -> Vec<Terms> {
+        for v in variants {
+            assert!(
+                v.kin == self.kin
+                    && v.segs.len() == self.segs.len()
+                    && v.segs.iter().zip(&self.segs).all(|(a, b)| {
+                        a.l == b.l
+                            && a.nc == b.nc
+                            && a.rho.len() <= b.rho.len()
+                            && a.iota.len() <= b.iota.len()
+                    }),
+                "terms_of_variants needs variants of this arm's geometry"
+            );
+        }
+        let k = self.kinematics_at(q, 2);
+        variants.iter().map(|v| v.terms_from(&k, q, qd)).collect()
+    }
+
+    /// Every term of [`Terms`] from the inner integrals `k` at `q`.
+    fn terms_from(&self, k: &Kin, q: &[f64], qd: &[f64]) -> Terms {
+        let b = self.inertia_from(k);
+        let db = self.inertia_derivative_from(k);
         let c = self.coriolis_from_db(&db, qd);
         let stiff = self.stiffness();
-        let ug = self.gravity_energy_from(&k);
+        let ug = self.gravity_energy_from(k);
         Terms {
             n: self.n,
             kinetic_energy: 0.5 * quad_form(&b, qd),
             potential_energy: ug + 0.5 * quad_form(&stiff, q),
             b,
             c,
-            g: self.gravity_from(&k),
+            g: self.gravity_from(k),
             k: stiff,
             d: self.damping(),
-            a: self.actuation_from(&k),
-            tip_pose: self.tip_pose_from(&k),
-            tip_jacobian: self.tip_jacobian_from(&k),
+            a: self.actuation_from(k),
+            tip_pose: self.tip_pose_from(k),
+            tip_jacobian: self.tip_jacobian_from(k),
         }
     }
 
