@@ -185,6 +185,47 @@ struct LocalRates {
 /// A field grouped by power of τ.
 type Groups = Vec<(u32, Cx)>;
 
+/// Which runtime parameters each node of a program depends on, a bit set per node
+/// (the nodes that exist when it is built; a node is built after its operands).
+struct ParamDeps {
+    words: usize,
+    bits: Vec<u64>,
+}
+
+impl ParamDeps {
+    fn of(p: &Program, params: usize) -> ParamDeps {
+        let words = params.div_ceil(64).max(1);
+        let mut bits = vec![0u64; p.len() * words];
+        for (i, node) in p.nodes().iter().enumerate() {
+            let (lo, rest) = bits.split_at_mut(i * words);
+            let own = &mut rest[..words];
+            let mut take = |c: Id| {
+                let c = c.index() * words;
+                for (o, b) in own.iter_mut().zip(&lo[c..c + words]) {
+                    *o |= b;
+                }
+            };
+            match *node {
+                Node::Var(Var::Param(j)) => own[j as usize / 64] |= 1 << (j % 64),
+                Node::Const(_) | Node::Var(_) => {}
+                Node::Add(a, b) | Node::Mul(a, b) => {
+                    take(a);
+                    take(b);
+                }
+                Node::Neg(a) => take(a),
+            }
+        }
+        ParamDeps { words, bits }
+    }
+
+    /// Whether node `id` depends on parameter `k`; nodes built after [`ParamDeps::of`]
+    /// (derivatives) count as depending on every parameter.
+    fn has(&self, id: Id, k: u16) -> bool {
+        let w = id.index() * self.words + k as usize / 64;
+        self.bits.get(w).is_none_or(|b| b >> (k % 64) & 1 == 1)
+    }
+}
+
 /// Which kernel of a segment: a single integral `S_s` or a double integral `D_st`
 /// against weight `w`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
@@ -1043,11 +1084,12 @@ impl<'a> Deriver<'a> {
                 })
                 .collect();
             let linear = self.params.linear_len();
+            let deps = ParamDeps::of(&self.p, self.params.len());
             let mut y = vec![vec![self.p.zero(); linear]; n];
             for k in 0..linear {
                 let mut memo = HashMap::default();
                 for i in 0..n {
-                    y[i][k] = self.d_param(tau[i], k as u16, &mut memo);
+                    y[i][k] = self.d_param(tau[i], k as u16, &deps, &mut memo);
                 }
             }
             y
@@ -1075,8 +1117,13 @@ impl<'a> Deriver<'a> {
     }
 
     /// `∂/∂θ_k` of a node. The program is linear in each parameter, so this is the
-    /// share the parameter multiplies, built from the same nodes.
-    fn d_param(&mut self, id: Id, k: u16, memo: &mut HashMap<Id, Id>) -> Id {
+    /// share the parameter multiplies, built from the same nodes. A node that does not
+    /// depend on `θ_k` (`deps`) is zero without a walk: most of the program belongs to
+    /// one segment's mass share, so each walk visits a small part of it.
+    fn d_param(&mut self, id: Id, k: u16, deps: &ParamDeps, memo: &mut HashMap<Id, Id>) -> Id {
+        if !deps.has(id, k) {
+            return self.p.zero();
+        }
         if let Some(&r) = memo.get(&id) {
             return r;
         }
@@ -1084,17 +1131,19 @@ impl<'a> Deriver<'a> {
             Node::Var(Var::Param(j)) if j == k => self.p.one(),
             Node::Const(_) | Node::Var(_) => self.p.zero(),
             Node::Add(a, b) => {
-                let (da, db) = (self.d_param(a, k, memo), self.d_param(b, k, memo));
+                let da = self.d_param(a, k, deps, memo);
+                let db = self.d_param(b, k, deps, memo);
                 self.p.add(da, db)
             }
             Node::Mul(a, b) => {
-                let (da, db) = (self.d_param(a, k, memo), self.d_param(b, k, memo));
+                let da = self.d_param(a, k, deps, memo);
+                let db = self.d_param(b, k, deps, memo);
                 let t1 = self.p.mul(da, b);
                 let t2 = self.p.mul(a, db);
                 self.p.add(t1, t2)
             }
             Node::Neg(a) => {
-                let da = self.d_param(a, k, memo);
+                let da = self.d_param(a, k, deps, memo);
                 self.p.neg(da)
             }
         };
