@@ -23,6 +23,7 @@ pub mod exact;
 pub mod identify;
 pub mod integrate;
 pub mod ir;
+pub mod kernel_matrix;
 pub mod linalg;
 pub mod local_form;
 pub mod moments;

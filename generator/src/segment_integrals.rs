@@ -144,6 +144,13 @@ pub type DoubleKernel = (Vec<Q>, Vec<Q>);
 #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
 pub struct WeightId(usize);
 
+impl WeightId {
+    /// Its position in the order of registration ([`Reducer::tails`]).
+    pub fn index(self) -> usize {
+        self.0
+    }
+}
+
 impl Default for Reducer {
     fn default() -> Self {
         Self::new()
@@ -172,6 +179,37 @@ impl Reducer {
         }
         self.weights.push(tail);
         WeightId(self.weights.len() - 1)
+    }
+
+    /// Registers a weight by its tail integral `Ρ` directly (a tail of
+    /// [`Reducer::tails`], read back by the emitters).
+    pub fn weight_of_tail(&mut self, tail: &[Q]) -> WeightId {
+        if let Some(i) = self.weights.iter().position(|w| w == tail) {
+            return WeightId(i);
+        }
+        self.weights.push(tail.to_vec());
+        WeightId(self.weights.len() - 1)
+    }
+
+    /// The tail integrals `Ρ` of the weights registered so far, by [`WeightId::index`].
+    pub fn tails(&self) -> &[Vec<Q>] {
+        &self.weights
+    }
+
+    /// Legendre coefficients of `F_st = ∫_0^1 Q_A^{st}(u) e^{iau} du`, one half of
+    /// `D_st = F_st + conj(F_ts)` (see [`crate::kernel_matrix`]).
+    pub fn half_kernel(&mut self, w: WeightId, s: u32, t: u32) -> Vec<Q> {
+        let qa = self.qa_poly(w, s, t);
+        self.tables.to_legendre(&qa)
+    }
+
+    /// `m_k = ∫_0^1 τ^k Ρ(τ) dτ`.
+    pub fn tail_moment(&self, w: WeightId, k: u32) -> Q {
+        self.weights[w.0]
+            .iter()
+            .enumerate()
+            .map(|(c, rc)| rc / int(k as i64 + c as i64 + 1))
+            .fold(Q::zero(), |a, b| a + b)
     }
 
     /// The weight that picks the segment's end: `Ρ ≡ 1`, so the single integral is
