@@ -17,6 +17,7 @@ use crate::params::{ParamKind, ParamLayout};
 use crate::segment_integrals::{by_power, Field, Reducer, WeightId};
 use num_traits::{One, Zero};
 use rustc_hash::FxHashMap as HashMap;
+use std::collections::BTreeMap;
 
 /// The derived model: output nodes of one program, exact to the expansion order.
 #[derive(Clone, Debug)]
@@ -60,6 +61,24 @@ pub struct Model {
     /// parameter): `Y θ = τ` exactly, every term of the model being proportional to
     /// one parameter. Derived with the statics roots of a parametric model.
     pub regressor: Option<Vec<Vec<Id>>>,
+    /// The nodes that are one part of a double kernel `D_st` (`s ≤ t`) of a segment, as
+    /// lowered: what the emitted code may take from the kernel recurrence
+    /// ([`crate::kernel_matrix`]) instead of a dot product over the moments.
+    pub kernel_entries: BTreeMap<Id, KernelEntry>,
+    /// The weights' tail integrals `Ρ` (monomial coefficients), by
+    /// [`KernelEntry::weight`].
+    pub kernel_weights: Vec<Vec<Q>>,
+}
+
+/// One part of a double kernel: `Re D_st` (or `Im D_st`, with `im`) of segment `seg`
+/// against weight `weight`, `s ≤ t`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+pub struct KernelEntry {
+    pub seg: usize,
+    pub weight: usize,
+    pub s: u32,
+    pub t: u32,
+    pub im: bool,
 }
 
 /// Derives the model of `arm` at its expansion order, with the arm file's numbers
@@ -1113,6 +1132,24 @@ impl<'a> Deriver<'a> {
             pose,
             parametric: self.parametric,
             regressor,
+            kernel_entries: self
+                .kernel_of
+                .iter()
+                .filter_map(|(&id, &(seg, key, im))| match key {
+                    KernelKey::Double { w, s, t } if s <= t => Some((
+                        id,
+                        KernelEntry {
+                            seg,
+                            weight: w.index(),
+                            s,
+                            t,
+                            im,
+                        },
+                    )),
+                    _ => None,
+                })
+                .collect(),
+            kernel_weights: self.reducer.tails().to_vec(),
         }
     }
 

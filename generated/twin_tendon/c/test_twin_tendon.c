@@ -34,9 +34,10 @@
  * (near a singular configuration the least-norm inputs grow without bound). */
 #define WELL_POSED 0.0
 
-#define NCASES 6
+#define NCASES 7
 static const char *const case_label[NCASES] = {
-    "straight", "tiny a = 1e-9", "small", "large", "mixed", "branch switch a = 2"
+    "straight", "tiny a = 1e-9", "small", "large", "mixed", "branch switch a = 2",
+    "beyond the kernel recurrence a = 5"
 };
 static const double g_q[NCASES][2] = {
     {
@@ -56,6 +57,9 @@ static const double g_q[NCASES][2] = {
     },
     {
         1.33333333333333e1, 1.66666666666667e1
+    },
+    {
+        3.33333333333333e1, -4.16666666666667e1
     },
 };
 static const double g_qd[NCASES][2] = {
@@ -77,6 +81,9 @@ static const double g_qd[NCASES][2] = {
     {
         5.25e-1, -3.5e-1
     },
+    {
+        1.75e-1, -7.0e-1
+    },
 };
 static const double g_u[NCASES][4] = {
     {
@@ -96,6 +103,9 @@ static const double g_u[NCASES][4] = {
     },
     {
         4.375e-2, -1.875e-2, 2.5e-2, -3.75e-2
+    },
+    {
+        1.875e-2, -4.375e-2, 1.5e-2, 4.375e-2
     },
 };
 static const double g_B[NCASES][4] = {
@@ -117,6 +127,9 @@ static const double g_B[NCASES][4] = {
     {
         1.41779003634685e-5, 2.02745879569863e-6, 2.02745879569863e-6, 1.09984148873446e-6
     },
+    {
+        5.14981128343245e-6, 2.91751393843711e-7, 2.91751393843711e-7, 3.61493011578628e-7
+    },
 };
 static const double g_C[NCASES][4] = {
     {
@@ -136,6 +149,9 @@ static const double g_C[NCASES][4] = {
     },
     {
         -4.82518138879694e-8, -1.32932867750184e-7, 1.72177574906104e-7, 4.83606893253997e-9
+    },
+    {
+        -1.16895195203245e-7, -3.5968296084471e-8, -2.13953991740542e-8, -7.90071209412653e-9
     },
 };
 static const double g_G[NCASES][2] = {
@@ -157,8 +173,14 @@ static const double g_G[NCASES][2] = {
     {
         -2.98273012237789e-3, -1.86861615735477e-3
     },
+    {
+        -5.05067003142913e-3, -2.01669619727841e-4
+    },
 };
 static const double g_K[NCASES][4] = {
+    {
+        2.25e-3, 0.0, 0.0, 1.08e-3
+    },
     {
         2.25e-3, 0.0, 0.0, 1.08e-3
     },
@@ -197,8 +219,14 @@ static const double g_D[NCASES][4] = {
     {
         4.5e-5, 0.0, 0.0, 2.4e-5
     },
+    {
+        4.5e-5, 0.0, 0.0, 2.4e-5
+    },
 };
 static const double g_A[NCASES][8] = {
+    {
+        1.8e-3, -1.8e-3, 1.8e-3, -1.8e-3, 1.44e-3, -1.44e-3, 0.0, 0.0
+    },
     {
         1.8e-3, -1.8e-3, 1.8e-3, -1.8e-3, 1.44e-3, -1.44e-3, 0.0, 0.0
     },
@@ -240,6 +268,10 @@ static const double g_J[NCASES][6] = {
         -1.1933920995898e-2, 1.29172564946299e-3, -1.27311292029913e-2, -6.30396638975638e-3,
         1.5e-1, 1.2e-1
     },
+    {
+        -4.39304450551045e-4, -3.43234038220597e-3, -8.41199065785452e-3, 4.12610581173183e-4,
+        1.5e-1, 1.2e-1
+    },
 };
 static const double g_T[NCASES][1] = {
     {
@@ -259,6 +291,9 @@ static const double g_T[NCASES][1] = {
     },
     {
         1.64871163131587e-6
+    },
+    {
+        1.31682727368469e-7
     },
 };
 static const double g_V[NCASES][1] = {
@@ -280,6 +315,9 @@ static const double g_V[NCASES][1] = {
     {
         4.33319205245311e-1
     },
+    {
+        2.21646979475363
+    },
 };
 static const double g_rhs[NCASES][2] = {
     {
@@ -299,6 +337,9 @@ static const double g_rhs[NCASES][2] = {
     },
     {
         -2.68159160719235e-2, -1.60330725432479e-2
+    },
+    {
+        -6.9896459689719e-2, 4.53084678334243e-2
     },
 };
 static const double g_pose[NCASES][18] = {
@@ -332,6 +373,12 @@ static const double g_pose[NCASES][18] = {
         3.70925481362924e-2, 1.36468579603486e-1, 2.74, -3.17686883160905e-2,
         1.20460819800024e-1, 4.0
     },
+    {
+        0.0, 0.0, 0.0, 2.8838256089259e-2, 3.82677074047354e-2, 1.85, -2.87677282398942e-2,
+        2.14901344361032e-2, 5.0, -2.87677282398942e-2, 2.14901344361032e-2, 5.0,
+        -5.15801368949979e-2, -9.31690981832643e-3, 3.15, -5.17819108318095e-2,
+        3.86822419849858e-2, 0.0
+    },
 };
 static const double g_Bnorm[NCASES][1] = {
     {
@@ -351,6 +398,9 @@ static const double g_Bnorm[NCASES][1] = {
     },
     {
         1.62053591591672e-5
+    },
+    {
+        5.44156267727616e-6
     },
 };
 static const double g_dG[NCASES][4] = {
@@ -372,6 +422,9 @@ static const double g_dG[NCASES][4] = {
     {
         -8.64244379919075e-4, 2.45068214132182e-5, 2.45068214132182e-5, 4.00216025241161e-5
     },
+    {
+        2.32468562871127e-4, -1.3268272126316e-4, -1.3268272126316e-4, -8.71841843819753e-5
+    },
 };
 static const double g_R[NCASES][2] = {
     {
@@ -391,6 +444,9 @@ static const double g_R[NCASES][2] = {
     },
     {
         2.67922698776221e-2, 1.60413838426452e-2
+    },
+    {
+        6.98885799685709e-2, -4.52916696197279e-2
     },
 };
 static const double g_Js[NCASES][4] = {
@@ -412,6 +468,9 @@ static const double g_Js[NCASES][4] = {
     {
         1.38575562008092e-3, 2.45068214132182e-5, 2.45068214132182e-5, 1.12002160252412e-3
     },
+    {
+        2.48246856287113e-3, -1.3268272126316e-4, -1.3268272126316e-4, 9.92815815618025e-4
+    },
 };
 static const double g_ueq[NCASES][4] = {
     {
@@ -431,6 +490,9 @@ static const double g_ueq[NCASES][4] = {
     },
     {
         5.83333333333333, -2.5, 3.33333333333333, -5.0
+    },
+    {
+        4.5, -1.05e1, 3.6, 1.05e1
     },
 };
 static const double g_qeq[NCASES][2] = {
@@ -452,8 +514,14 @@ static const double g_qeq[NCASES][2] = {
     {
         1.54901032364002e1, 1.29195232912992e1
     },
+    {
+        3.27431923136396, 2.07085898851984e1
+    },
 };
 static const double g_eqstable[NCASES][1] = {
+    {
+        1.0
+    },
     {
         1.0
     },
@@ -492,6 +560,9 @@ static const double g_ytarget[NCASES][2] = {
     {
         1.31458333333333e1, 1.69166666666667e1
     },
+    {
+        3.28958333333333e1, -4.15166666666667e1
+    },
 };
 static const double g_kp[NCASES][2] = {
     {
@@ -505,6 +576,9 @@ static const double g_kp[NCASES][2] = {
     },
     {
         5.0e1, 6.25e1
+    },
+    {
+        5.0e-2, 6.25e-2
     },
     {
         5.0e-2, 6.25e-2
@@ -532,6 +606,9 @@ static const double g_kd[NCASES][2] = {
     {
         4.0e-3, 6.0e-3
     },
+    {
+        4.0e-3, 6.0e-3
+    },
 };
 static const double g_ubase[NCASES][4] = {
     {
@@ -551,6 +628,9 @@ static const double g_ubase[NCASES][4] = {
     },
     {
         1.25090277777778e1, 2.0e-1, 2.0e-1, 1.88840277777778e1
+    },
+    {
+        9.62708333333327, 2.0e-1, 2.0e-1, 2.21687499999999e1
     },
 };
 static const double g_ucomp[NCASES][4] = {
@@ -572,6 +652,9 @@ static const double g_ucomp[NCASES][4] = {
     {
         2.37113776685036e1, 2.0e-1, 2.0e-1, 1.50767832920469e1
     },
+    {
+        2.0e-1, 7.84464963658294, 2.5e1, 2.0e-1
+    },
 };
 static const double g_regsat[NCASES][2] = {
     {
@@ -592,8 +675,14 @@ static const double g_regsat[NCASES][2] = {
     {
         0.0, 0.0
     },
+    {
+        0.0, 1.0
+    },
 };
 static const double g_regcond[NCASES][1] = {
+    {
+        1.13946433025793e-1
+    },
     {
         1.13946433025793e-1
     },
@@ -632,6 +721,9 @@ static const double g_theta[NCASES][12] = {
     {
         1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
     },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
 };
 static const double g_pB[NCASES][4] = {
     {
@@ -651,6 +743,9 @@ static const double g_pB[NCASES][4] = {
     },
     {
         2.47364166632721e-5, 4.20347823878806e-6, 4.20347823878806e-6, 2.47036195698631e-6
+    },
+    {
+        8.33970884609882e-6, 5.77570616053567e-7, 5.77570616053567e-7, 9.06633478868083e-7
     },
 };
 static const double g_pC[NCASES][4] = {
@@ -672,6 +767,9 @@ static const double g_pC[NCASES][4] = {
     {
         -5.65059015076123e-8, -2.60582679173834e-7, 3.46633193812861e-7, 1.03353300319821e-8
     },
+    {
+        -2.18723732218394e-7, -7.14900119862857e-8, -4.04283789904092e-8, -1.64566333747306e-8
+    },
 };
 static const double g_pG[NCASES][2] = {
     {
@@ -692,8 +790,14 @@ static const double g_pG[NCASES][2] = {
     {
         3.82818764116038e-4, -3.43764997270473e-3
     },
+    {
+        -7.33619030613102e-3, 7.64908199301827e-4
+    },
 };
 static const double g_pK[NCASES][4] = {
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
     {
         2.925e-3, 0.0, 0.0, 1.512e-3
     },
@@ -732,6 +836,9 @@ static const double g_pD[NCASES][4] = {
     {
         3.15e-5, 0.0, 0.0, 1.92e-5
     },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
 };
 static const double g_pT[NCASES][1] = {
     {
@@ -751,6 +858,9 @@ static const double g_pT[NCASES][1] = {
     },
     {
         2.7879079648953e-6
+    },
+    {
+        2.79074593562007e-7
     },
 };
 static const double g_pV[NCASES][1] = {
@@ -772,6 +882,9 @@ static const double g_pV[NCASES][1] = {
     {
         5.6936225020247e-1
     },
+    {
+        2.9948181218046
+    },
 };
 static const double g_prhs[NCASES][2] = {
     {
@@ -791,6 +904,9 @@ static const double g_prhs[NCASES][2] = {
     },
     {
         -3.91744178024555e-2, -2.16658083923565e-2
+    },
+    {
+        -9.01085839602243e-2, 6.23385273560212e-2
     },
 };
 static const double g_pBnorm[NCASES][1] = {
@@ -812,6 +928,9 @@ static const double g_pBnorm[NCASES][1] = {
     {
         2.89398949020602e-5
     },
+    {
+        8.91727946215239e-6
+    },
 };
 static const double g_pdG[NCASES][4] = {
     {
@@ -831,6 +950,9 @@ static const double g_pdG[NCASES][4] = {
     },
     {
         -1.85215329384274e-3, -2.15937786829076e-4, -2.15937786829076e-4, -6.06993191329821e-5
+    },
+    {
+        -2.15589408669289e-4, -2.5247852125402e-4, -2.5247852125402e-4, -1.23191671765234e-4
     },
 };
 static const double g_pR[NCASES][2] = {
@@ -852,8 +974,14 @@ static const double g_pR[NCASES][2] = {
     {
         3.9157818764116e-2, 2.16723500272953e-2
     },
+    {
+        9.0103059693869e-2, -6.23250918006982e-2
+    },
 };
 static const double g_peqok[NCASES][1] = {
+    {
+        1.0
+    },
     {
         1.0
     },
@@ -892,6 +1020,9 @@ static const double g_pqeq[NCASES][2] = {
     {
         2.59571528236416, 5.28642522634578
     },
+    {
+        -1.7021268673118, 1.16791941143616e1
+    },
 };
 static const double g_pucomp[NCASES][4] = {
     {
@@ -912,6 +1043,9 @@ static const double g_pucomp[NCASES][4] = {
     {
         2.5e1, 2.0e-1, 2.0e-1, 9.49565624214522
     },
+    {
+        2.0e-1, 5.61302972448383, 2.5e1, 2.0e-1
+    },
 };
 static const double g_pregsat[NCASES][1] = {
     {
@@ -928,6 +1062,9 @@ static const double g_pregsat[NCASES][1] = {
     },
     {
         0.0
+    },
+    {
+        1.0
     },
     {
         1.0
@@ -951,6 +1088,9 @@ static const double g_qddY[NCASES][2] = {
     },
     {
         -3.0, -3.75e-1
+    },
+    {
+        1.875, -1.875
     },
 };
 static const double g_Y[NCASES][20] = {
@@ -984,6 +1124,11 @@ static const double g_Y[NCASES][20] = {
         0.0, -1.25828571844303e-1, -7.425e-2, 0.0, -6.34011928765273e-4, 0.0, -2.0736e-8, 0.0,
         1.8e-2, 0.0, -8.4e-6, -6.20488864466086e-2, -5.94e-2
     },
+    {
+        -7.71869607653253e-4, -2.62203509636546e-3, 2.109375e-8, 1.8225e-8, 7.5e-2, 0.0,
+        7.875e-6, 0.0, -8.23846375109668e-2, 8.4375e-3, 0.0, -2.82240101625415e-4, 0.0, 5.67e-9,
+        0.0, -4.5e-2, 0.0, -1.68e-5, 4.02172413339659e-3, 6.75e-3
+    },
 };
 static const double scale_B = 3.158398125e-5;
 static const double scale_C = 1.72177574906104e-7;
@@ -993,12 +1138,12 @@ static const double scale_D = 4.5e-5;
 static const double scale_A = 1.8e-3;
 static const double scale_J = 1.5e-1;
 static const double scale_T = 8.11100926125001e-6;
-static const double scale_V = 9.51895744715522e-1;
-static const double scale_pose = 4.0;
+static const double scale_V = 2.21646979475363;
+static const double scale_pose = 5.0;
 static const double scale_dG = 8.64244379919075e-4;
-static const double scale_R = 4.6080950244951e-2;
-static const double scale_Js = 2.25e-3;
-static const double scale_qeq = 1.54901032364002e1;
+static const double scale_R = 6.98885799685709e-2;
+static const double scale_Js = 2.48246856287113e-3;
+static const double scale_qeq = 2.07085898851984e1;
 static const double scale_ubase = 2.5e1;
 static const double scale_ucomp = 2.5e1;
 static const double scale_pB = 5.8622045625e-5;
@@ -1007,10 +1152,10 @@ static const double scale_pG = 2.13046701787662e-2;
 static const double scale_pK = 2.925e-3;
 static const double scale_pD = 3.15e-5;
 static const double scale_pT = 1.5131062193625e-5;
-static const double scale_pV = 1.29053715485378;
+static const double scale_pV = 2.9948181218046;
 static const double scale_pdG = 2.02165005846465e-3;
-static const double scale_pR = 6.48027709717004e-2;
-static const double scale_pqeq = 9.73402958492303;
+static const double scale_pR = 9.0103059693869e-2;
+static const double scale_pqeq = 1.16791941143616e1;
 static const double scale_pucomp = 2.5e1;
 static const double scale_Y = 2.89351237500002e-1;
 

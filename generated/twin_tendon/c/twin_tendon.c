@@ -25,8 +25,8 @@
 #include <stdint.h>
 #include <string.h>
 
-#define TWIN_TENDON_NU_LEN 24
-#define TWIN_TENDON_MOMENTS_MAX 6
+#define TWIN_TENDON_NU_LEN 32
+#define TWIN_TENDON_MOMENTS_MAX 8
 
 /* 1 when x is neither NaN nor an infinity. It reads the exponent bits instead of
  * calling isfinite(), which -ffast-math (-ffinite-math-only) may fold to a constant 1:
@@ -81,11 +81,12 @@ static int twin_tendon_params_finite(const twin_tendon_params *P)
 /* 1/(2n+1), 1/((2n+1)(2n+3)) and the power-series factors 1/(k (2n+2k+1)),
  * k = 1..11, of the scaled j_n (see twin_tendon_moments). */
 static const double twin_tendon_odd_inv[TWIN_TENDON_MOMENTS_MAX] = {
-    1.0, 0.3333333333333333, 0.2, 0.14285714285714285, 0.1111111111111111, 0.09090909090909091
+    1.0, 0.3333333333333333, 0.2, 0.14285714285714285, 0.1111111111111111, 0.09090909090909091,
+    0.07692307692307693, 0.06666666666666667
 };
 static const double twin_tendon_pair_inv[TWIN_TENDON_MOMENTS_MAX] = {
     0.3333333333333333, 0.06666666666666667, 0.02857142857142857, 0.015873015873015872,
-    0.010101010101010102, 0.006993006993006993
+    0.010101010101010102, 0.006993006993006993, 0.005128205128205128, 0.00392156862745098
 };
 static const double twin_tendon_series[TWIN_TENDON_MOMENTS_MAX + 1][11] = {
     {
@@ -122,6 +123,16 @@ static const double twin_tendon_series[TWIN_TENDON_MOMENTS_MAX + 1][11] = {
         0.06666666666666667, 0.029411764705882353, 0.017543859649122806, 0.011904761904761904,
         0.008695652173913044, 0.006666666666666667, 0.005291005291005291, 0.004310344827586207,
         0.0035842293906810036, 0.0030303030303030303, 0.0025974025974025974
+    },
+    {
+        0.058823529411764705, 0.02631578947368421, 0.015873015873015872, 0.010869565217391304,
+        0.008, 0.006172839506172839, 0.0049261083743842365, 0.004032258064516129,
+        0.003367003367003367, 0.002857142857142857, 0.002457002457002457
+    },
+    {
+        0.05263157894736842, 0.023809523809523808, 0.014492753623188406, 0.01,
+        0.007407407407407408, 0.005747126436781609, 0.004608294930875576, 0.003787878787878788,
+        0.0031746031746031746, 0.002702702702702703, 0.002331002331002331
     }
 };
 
@@ -147,7 +158,7 @@ static double twin_tendon_scaled_series(double h, int n)
  *   |x| < count:  Miller's downward recurrence, normalised by j_0 or j_1;
  *   otherwise:    upward recurrence from j_0, j_1 (stable for n < |x|; NaN lands here).
  * No branch divides by a small a; every loop is bounded by count + 24.
- * count <= TWIN_TENDON_MOMENTS_MAX. Worst case: 31 add, 86 mul, 2 div, 0 sqrt, 2 trig for 6 moments.
+ * count <= TWIN_TENDON_MOMENTS_MAX. Worst case: 33 add, 100 mul, 2 div, 0 sqrt, 2 trig for 8 moments.
  */
 static void twin_tendon_moments(double a, int count, double re[], double im[])
 {
@@ -242,15 +253,15 @@ static void twin_tendon_moments(double a, int count, double re[], double im[])
  * weight shape. 14 rows, 48 coefficients.
  */
 static const unsigned char twin_tendon_kernel_start[15] = {
-    0, 5, 7, 10, 12, 14, 16, 19, 23, 27, 30, 33, 39, 43, 48
+    0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48
 };
 static const unsigned char twin_tendon_kernel_first[14] = {
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
 };
 static const double twin_tendon_kernel_coef[48] = {
-    0.05, -0.08333333333333333, 0.03571428571428571, 0.0, -0.002380952380952381, 0.5, -0.5,
-    0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125, 0.01125,
-    0.01125, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
+    0.5, -0.5, 0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125,
+    0.01125, 0.01125, 0.05, -0.08333333333333333, 0.03571428571428571, 0.0,
+    -0.002380952380952381, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
     0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.3333333333333333, 0.5,
     0.16666666666666666, -0.001125, -0.0016875, -0.0005625, 0.005555555555555556,
     -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
@@ -327,44 +338,44 @@ void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 
 /* Kernels of twin_tendon_inertia: pairs (row, moment base). */
 static const unsigned char twin_tendon_inertia_rows[28] = {
-    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 0, 12, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 3, 12, 3, 18
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16
 };
 
-/* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 38 reals.
+/* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 46 reals.
  * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 14 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 14 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 5, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 5, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 5, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 5, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_inertia_rows, 14, nu, kern);
-    const double t0 = 0.0225 * kern[7] * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
-        + 0.0225 * kern[6] * (0.0036 * kern[1] * cphi[0] - 0.0036 * kern[2] * sphi[0]);
+    const double t0 = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
+        + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]);
     const double t1 = 0.15 * t0;
-    const double t2 = kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0];
-    const double t3 = kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0];
-    const double t4 = -0.0144 * cphi[0] * kern[13] - 0.0144 * sphi[0] * kern[12];
-    const double t5 = 0.0144 * cphi[0] * kern[12] - 0.0144 * sphi[0] * kern[13];
-    const double t6 = 0.0225 * kern[6] * (0.000432 * kern[3] * cphi[0] - 0.000432 * kern[4] * sphi[0])
-        - 0.0225 * kern[7] * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + kern[11];
+    const double t2 = kern[6] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    const double t3 = kern[7] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    const double t4 = -0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8];
+    const double t5 = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9];
+    const double t6 = 0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
+        - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
+        + kern[13];
     const double t7 = P->density_scale[1] * t6 + 6.48e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P->payload_rotary_inertia;
-    const double t8 = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t1 + t1 + kern[10];
-    B[0] = 2.6578125e-5 * kern[0] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
+    const double t8 = 0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4])
+        + t1 + t1 + kern[12];
+    B[0] = 2.6578125e-5 * kern[10] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
         + P->density_scale[1] * t8 + 1.62e-8 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t2 * t2 + t3 * t3) + 0.0225 * P->payload_rotary_inertia;
     B[1] = t7;
     B[2] = t7;
-    B[3] = 6.2208e-6 * kern[5] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+    B[3] = 6.2208e-6 * kern[11] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t4 * t4 + t5 * t5) + 0.0144 * P->payload_rotary_inertia;
 }
 
@@ -400,20 +411,20 @@ void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ
 
 /* Kernels of twin_tendon_gravity: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_rows[24] = {
-    2, 0, 2, 6, 1, 12, 1, 18, 2, 12, 2, 18, 3, 0, 3, 6, 4, 6, 5, 0, 3, 12, 3, 18
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24
 };
 
-/* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 36 reals.
+/* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 44 reals.
  * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 12 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 12 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 3, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 3, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 3, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 3, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
@@ -421,8 +432,8 @@ void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWI
     const double t0 = P->gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
         + P->gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
         + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
-    const double t1 = P->gravity[0] * (kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0])
-        + P->gravity[1] * (kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]);
+    const double t1 = P->gravity[0] * (kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + P->gravity[1] * (kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
     const double t2 = P->gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + P->gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
     const double t3 = P->gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
@@ -491,27 +502,27 @@ void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_
 
 /* Kernels of twin_tendon_tip_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_tip_jacobian_rows[8] = {
-    4, 6, 5, 0, 3, 12, 3, 18
+    3, 8, 4, 0, 2, 16, 2, 24
 };
 
-/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. TWIN_TENDON_TIP_JACOBIAN_WORK), 28 reals.
+/* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. TWIN_TENDON_TIP_JACOBIAN_WORK), 36 reals.
  * Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 4 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 4 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 2, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 2, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 2, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 2, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_tip_jacobian_rows, 4, nu, kern);
-    J[0] = kern[0] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0];
+    J[0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
     J[1] = -0.0144 * cphi[0] * kern[3] - 0.0144 * sphi[0] * kern[2];
-    J[2] = kern[1] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0];
+    J[2] = kern[1] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
     J[3] = 0.0144 * cphi[0] * kern[2] - 0.0144 * sphi[0] * kern[3];
     J[4] = 0.15;
     J[5] = 0.12;
@@ -530,80 +541,80 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 
 /* Kernels of twin_tendon_regressor: pairs (row, moment base). */
 static const unsigned char twin_tendon_regressor_rows[56] = {
-    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
-    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
-    9, 18
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
+    7, 16
 };
 
-/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 52 reals.
+/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 60 reals.
  * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 28 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 28 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 6, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 6, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_regressor_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[10];
-    const double t1 = qd[1] * kern[11];
-    const double t2 = kern[4] * cphi[0];
-    const double t3 = kern[5] * sphi[0];
-    const double t4 = kern[5] * cphi[0];
-    const double t5 = kern[4] * sphi[0];
+    const double t0 = qd[1] * kern[6];
+    const double t1 = qd[1] * kern[7];
+    const double t2 = kern[2] * cphi[0];
+    const double t3 = kern[3] * sphi[0];
+    const double t4 = kern[3] * cphi[0];
+    const double t5 = kern[2] * sphi[0];
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
-    const double t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6);
-    const double t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
-    const double t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
-    const double t11 = 0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19];
-    const double t12 = qd[0] * kern[20];
-    const double t13 = qd[0] * kern[21];
-    const double t14 = qd[1] * kern[7];
-    const double t15 = qd[1] * kern[6];
-    const double t16 = qd[0] * kern[8];
-    const double t17 = nu[12] * cphi[0];
-    const double t18 = nu[18] * sphi[0];
-    const double t19 = nu[18] * cphi[0];
-    const double t20 = nu[12] * sphi[0];
-    const double t21 = kern[16] - 0.018 * t20 - 0.018 * t19;
-    const double t22 = kern[17] - 0.018 * t18 + 0.018 * t17;
-    const double t23 = cphi[0] * kern[25];
-    const double t24 = sphi[0] * kern[24];
+    const double t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6);
+    const double t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    const double t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    const double t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27];
+    const double t12 = qd[0] * kern[12];
+    const double t13 = qd[0] * kern[13];
+    const double t14 = qd[1] * kern[5];
+    const double t15 = qd[1] * kern[4];
+    const double t16 = qd[0] * kern[22];
+    const double t17 = nu[16] * cphi[0];
+    const double t18 = nu[24] * sphi[0];
+    const double t19 = nu[24] * cphi[0];
+    const double t20 = nu[16] * sphi[0];
+    const double t21 = kern[10] - 0.018 * t20 - 0.018 * t19;
+    const double t22 = kern[11] - 0.018 * t18 + 0.018 * t17;
+    const double t23 = cphi[0] * kern[17];
+    const double t24 = sphi[0] * kern[16];
     const double t25 = -0.0144 * t23 - 0.0144 * t24;
-    const double t26 = cphi[0] * kern[24];
-    const double t27 = sphi[0] * kern[25];
+    const double t26 = cphi[0] * kern[16];
+    const double t27 = sphi[0] * kern[17];
     const double t28 = 0.0144 * t26 - 0.0144 * t27;
     const double t29 = t21 * t25 + t22 * t28;
     const double t30 = 0.00216 * t27 - 0.00216 * t26;
     const double t31 = -0.00216 * t24 - 0.00216 * t23;
-    const double t32 = qd[0] * (kern[22] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30;
-    const double t33 = qd[0] * (kern[23] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31;
+    const double t32 = qd[0] * (kern[14] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30;
+    const double t33 = qd[0] * (kern[15] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31;
     const double t34 = qd[0] * t30
-        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
     const double t35 = qd[0] * t31
-        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
-    const double t36 = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
-        + t8 + t8 + kern[18];
-    const double t37 = 0.0225 * kern[15] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
-        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15);
-    const double t38 = 0.03 * (7.59375e-5 * kern[15] * t12 - 7.59375e-5 * kern[14] * t13)
-        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t37
-        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[8];
-    const double t39 = 0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
-        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[12];
+        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
+    const double t36 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t8 + t8 + kern[26];
+    const double t37 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
+        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15);
+    const double t38 = 0.03 * (7.59375e-5 * kern[9] * t12 - 7.59375e-5 * kern[8] * t13)
+        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t37
+        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[22];
+    const double t39 = 0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
+        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[24];
     Y[0] = 0.00118125 * kern[1] * P->gravity[0] - 0.00118125 * kern[0] * P->gravity[1]
-        + 2.6578125e-5 * kern[2] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[3];
+        + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
     Y[1] = t36 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         - P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        - 0.03 * (0.0225 * P->gravity[1] * kern[14] - 0.0225 * P->gravity[0] * kern[15])
+        - 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9])
         + qd[0] * t38 + t11 * qdd[1] + qd[1] * t39;
     Y[2] = 1.125e-8 * qdd[0];
     Y[3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
@@ -617,7 +628,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     Y[10] = 0.0;
     Y[11] = t11 * qdd[0] - P->gravity[0] * t9 - P->gravity[1] * t10
         + qd[0] * (1.1664e-6 * t16 - 0.003375 * t9 * t12 - 0.003375 * t10 * t13)
-        + 6.2208e-6 * kern[9] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[13];
+        + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25];
     Y[12] = 0.0;
     Y[13] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
     Y[14] = 0.0;
@@ -662,21 +673,21 @@ void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_
 
 /* Kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
-    8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
-    18, 9, 12, 9, 18
+    8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2, 16, 2,
+    24, 9, 16, 9, 24
 };
 
-/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 40 reals.
+/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 48 reals.
  * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 16 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 16 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 4, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 4, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 4, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 4, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
@@ -689,8 +700,8 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     const double t3 = P->gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
         + P->gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
         + 0.03 * (-0.003375 * P->gravity[0] * kern[8] - 0.003375 * P->gravity[1] * kern[9]);
-    const double t4 = P->gravity[0] * (kern[10] - 0.0027 * nu[12] * cphi[0] + 0.0027 * nu[18] * sphi[0])
-        + P->gravity[1] * (kern[11] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
+    const double t4 = P->gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        + P->gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
     const double t5 = P->gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
         + P->gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]);
     const double t6 = P->gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
@@ -734,29 +745,29 @@ void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN
 
 /* Kernels of twin_tendon_potential_energy: pairs (row, moment base). */
 static const unsigned char twin_tendon_potential_energy_rows[8] = {
-    1, 0, 1, 6, 1, 12, 1, 18
+    0, 0, 0, 8, 0, 16, 0, 24
 };
 
-/* U = U_g + 1/2 q^T K q. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 28 reals.
+/* U = U_g + 1/2 q^T K q. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 36 reals.
  * Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 4 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 4 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 2, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 2, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 2, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 2, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_potential_energy_rows, 4, nu, kern);
     const double t0 = P->gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
         + P->gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
-        + 0.03 * (0.15 * nu[0] * P->gravity[0] + 0.15 * nu[6] * P->gravity[1]);
-    const double t1 = P->gravity[0] * (0.15 * nu[0] + 0.12 * nu[12] * cphi[0] - 0.12 * nu[18] * sphi[0])
-        + P->gravity[1] * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0]);
+        + 0.03 * (0.15 * nu[0] * P->gravity[0] + 0.15 * nu[8] * P->gravity[1]);
+    const double t1 = P->gravity[0] * (0.15 * nu[0] + 0.12 * nu[16] * cphi[0] - 0.12 * nu[24] * sphi[0])
+        + P->gravity[1] * (0.15 * nu[8] + 0.12 * nu[24] * cphi[0] + 0.12 * nu[16] * sphi[0]);
     return 0.5 * (0.00225 * P->stiffness_scale[0] * q[0] * q[0] + 0.00108 * P->stiffness_scale[1] * q[1] * q[1])
         - P->density_scale[0] * (0.007875 * kern[0] * P->gravity[0] + 0.007875 * kern[1] * P->gravity[1])
         - P->density_scale[1] * t0 - P->payload_mass * t1;
@@ -794,93 +805,93 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 
 /* Kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
-    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
-    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
-    9, 18
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
+    7, 16
 };
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 52 reals.
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 60 reals.
  * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const kern = &work[24]; /* 28 */
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 28 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[6]);
-    twin_tendon_moments(0.12 * q[1], 6, &nu[12], &nu[18]);
+    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 6, &nu[16], &nu[24]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_terms_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[10];
-    const double t1 = qd[1] * kern[11];
-    const double t2 = kern[4] * cphi[0];
-    const double t3 = kern[5] * sphi[0];
-    const double t4 = kern[5] * cphi[0];
-    const double t5 = kern[4] * sphi[0];
+    const double t0 = qd[1] * kern[6];
+    const double t1 = qd[1] * kern[7];
+    const double t2 = kern[2] * cphi[0];
+    const double t3 = kern[3] * sphi[0];
+    const double t4 = kern[3] * cphi[0];
+    const double t5 = kern[2] * sphi[0];
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
-    const double t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6);
-    const double t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
-    const double t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
-    const double t11 = qd[0] * kern[20];
-    const double t12 = qd[0] * kern[21];
-    const double t13 = qd[1] * kern[7];
-    const double t14 = qd[1] * kern[6];
-    const double t15 = qd[0] * kern[8];
-    const double t16 = nu[12] * cphi[0];
-    const double t17 = nu[18] * sphi[0];
-    const double t18 = nu[18] * cphi[0];
-    const double t19 = nu[12] * sphi[0];
-    const double t20 = kern[16] - 0.018 * t19 - 0.018 * t18;
-    const double t21 = kern[17] - 0.018 * t17 + 0.018 * t16;
-    const double t22 = cphi[0] * kern[25];
-    const double t23 = sphi[0] * kern[24];
+    const double t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6);
+    const double t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    const double t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    const double t11 = qd[0] * kern[12];
+    const double t12 = qd[0] * kern[13];
+    const double t13 = qd[1] * kern[5];
+    const double t14 = qd[1] * kern[4];
+    const double t15 = qd[0] * kern[22];
+    const double t16 = nu[16] * cphi[0];
+    const double t17 = nu[24] * sphi[0];
+    const double t18 = nu[24] * cphi[0];
+    const double t19 = nu[16] * sphi[0];
+    const double t20 = kern[10] - 0.018 * t19 - 0.018 * t18;
+    const double t21 = kern[11] - 0.018 * t17 + 0.018 * t16;
+    const double t22 = cphi[0] * kern[17];
+    const double t23 = sphi[0] * kern[16];
     const double t24 = -0.0144 * t22 - 0.0144 * t23;
-    const double t25 = cphi[0] * kern[24];
-    const double t26 = sphi[0] * kern[25];
+    const double t25 = cphi[0] * kern[16];
+    const double t26 = sphi[0] * kern[17];
     const double t27 = 0.0144 * t25 - 0.0144 * t26;
     const double t28 = 0.00216 * t26 - 0.00216 * t25;
     const double t29 = -0.00216 * t23 - 0.00216 * t22;
-    const double t30 = qd[0] * (kern[22] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28;
-    const double t31 = qd[0] * (kern[23] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29;
+    const double t30 = qd[0] * (kern[14] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28;
+    const double t31 = qd[0] * (kern[15] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29;
     const double t32 = qd[0] * t28
-        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
     const double t33 = qd[0] * t29
-        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
-    const double t34 = P->density_scale[1] * (0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19])
+        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
+    const double t34 = P->density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27])
         + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t20 * t24 + t21 * t27)
         + 0.018 * P->payload_rotary_inertia;
-    const double t35 = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
-        + t8 + t8 + kern[18];
-    const double t36 = 0.0225 * kern[15] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
-        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14);
-    const double t37 = 0.03 * (7.59375e-5 * kern[15] * t11 - 7.59375e-5 * kern[14] * t12)
-        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t36
-        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[8];
-    const double t38 = 0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
-        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[12];
+    const double t35 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t8 + t8 + kern[26];
+    const double t36 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
+        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14);
+    const double t37 = 0.03 * (7.59375e-5 * kern[9] * t11 - 7.59375e-5 * kern[8] * t12)
+        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t36
+        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[22];
+    const double t38 = 0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
+        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[24];
     const double t39 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        + 0.03 * (0.0225 * P->gravity[1] * kern[14] - 0.0225 * P->gravity[0] * kern[15]);
-    B[0] = 2.6578125e-5 * kern[2] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
+        + 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9]);
+    B[0] = 2.6578125e-5 * kern[20] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
         + P->density_scale[1] * t35 + 1.62e-8 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t20 * t20 + t21 * t21) + 0.0225 * P->payload_rotary_inertia;
     B[1] = t34;
     B[2] = t34;
-    B[3] = 6.2208e-6 * kern[9] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+    B[3] = 6.2208e-6 * kern[23] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t24 * t24 + t27 * t27) + 0.0144 * P->payload_rotary_inertia;
-    C[0] = P->density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[3] * P->density_scale[0]
+    C[0] = P->density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[21] * P->density_scale[0]
         + P->payload_mass * (t20 * t30 + t21 * t31);
     C[1] = P->density_scale[1] * t38 + P->payload_mass * (t20 * t32 + t21 * t33);
     C[2] = P->density_scale[1] * (1.1664e-6 * t15 - 0.003375 * t9 * t11 - 0.003375 * t10 * t12)
         + P->payload_mass * (t24 * t30 + t27 * t31);
     C[3] = P->payload_mass * (t24 * t32 + t27 * t33)
-        - 7.46496e-7 * qd[1] * kern[13] * P->density_scale[1];
+        - 7.46496e-7 * qd[1] * kern[25] * P->density_scale[1];
     G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
         - P->density_scale[1] * t39
         - P->payload_mass * (P->gravity[0] * t20 + P->gravity[1] * t21);
@@ -919,7 +930,7 @@ void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TEND
 #endif
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 42 reals.
+/* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 50 reals.
  * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
@@ -969,7 +980,7 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 #endif
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 58 reals.
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 66 reals.
  * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
@@ -1025,12 +1036,12 @@ static void twin_tendon_pose_segment0(const double q[TWIN_TENDON_NQ], double sig
  * Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig. */
 static void twin_tendon_pose_segment1(const double q[TWIN_TENDON_NQ], double sigma, double pose[3], double work[])
 {
-    double *const nu = &work[0]; /* 24 */
-    double *const pnu = &work[24]; /* 2 */
+    double *const nu = &work[0]; /* 32 */
+    double *const pnu = &work[32]; /* 2 */
     double cphi[1];
     double sphi[1];
     double phi;
-    twin_tendon_moments(0.15 * q[0], 1, &nu[0], &nu[6]);
+    twin_tendon_moments(0.15 * q[0], 1, &nu[0], &nu[8]);
     twin_tendon_moments(0.12 * q[1] * sigma, 1, &pnu[0], &pnu[1]);
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
@@ -1038,7 +1049,7 @@ static void twin_tendon_pose_segment1(const double q[TWIN_TENDON_NQ], double sig
     const double t0 = sigma * pnu[0];
     const double t1 = sigma * pnu[1];
     pose[0] = 0.15 * nu[0] + 0.12 * cphi[0] * t0 - 0.12 * sphi[0] * t1;
-    pose[1] = 0.15 * nu[6] + 0.12 * cphi[0] * t1 + 0.12 * sphi[0] * t0;
+    pose[1] = 0.15 * nu[8] + 0.12 * cphi[0] * t1 + 0.12 * sphi[0] * t0;
     pose[2] = 0.15 * q[0] + 0.12 * sigma * q[1];
 }
 
@@ -1098,7 +1109,7 @@ twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
      * All of them, and the scratch of terms and actuation, live in
-     * work[0 .. TWIN_TENDON_FORWARD_DYNAMICS_WORK), 83 reals. */
+     * work[0 .. TWIN_TENDON_FORWARD_DYNAMICS_WORK), 91 reals. */
     double *const B = &work[0];
     double *const C = &work[4];
     double *const G = &work[8];
@@ -1403,7 +1414,7 @@ static int twin_tendon_all_finite(const double v[], int len)
 twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
-     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 48 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 56 reals. */
     double *const K = &work[0];
     double *const A = &work[4];
     int i;
@@ -1452,7 +1463,7 @@ twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], c
 twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     /* K and the scratch of gravity_jacobian in
-     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 44 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 52 reals. */
     double *const K = &work[0];
     int i;
     int x;
@@ -1497,7 +1508,7 @@ twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], c
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
- * 50 reals. Returns 0 when r or jac is not finite. */
+ * 58 reals. Returns 0 when r or jac is not finite. */
 static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double lambda,
     const double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
@@ -1549,7 +1560,7 @@ twin_tendon_status twin_tendon_equilibrium_with_ws(const twin_tendon_params *P, 
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
      * step dq, the candidate, a copy of jac for the solver, then the linearisation's
-     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 74 reals. */
+     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 82 reals. */
     double *const K = &work[0];
     double *const r = &work[4];
     double *const jac = &work[6];
@@ -1789,7 +1800,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
      * polish's Gram matrix, then G, K and the scratch of actuation and gravity, in
-     * work[0 .. TWIN_TENDON_REGULATE_WORK), 116 reals. */
+     * work[0 .. TWIN_TENDON_REGULATE_WORK), 124 reals. */
     double *const A = &work[0];
     double *const M = &work[8];
     double *const b = &work[16];

@@ -398,23 +398,23 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
  * Keep it in static storage or a task's state: the functions' own frames are then a
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
-#define TWIN_TENDON_INERTIA_WORK 38 /* 304 bytes */
-#define TWIN_TENDON_GRAVITY_WORK 36 /* 288 bytes */
+#define TWIN_TENDON_INERTIA_WORK 46 /* 368 bytes */
+#define TWIN_TENDON_GRAVITY_WORK 44 /* 352 bytes */
 #define TWIN_TENDON_ACTUATION_WORK 1 /* 8 bytes */
-#define TWIN_TENDON_TIP_JACOBIAN_WORK 28 /* 224 bytes */
-#define TWIN_TENDON_REGRESSOR_WORK 52 /* 416 bytes */
-#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 40 /* 320 bytes */
-#define TWIN_TENDON_POTENTIAL_ENERGY_WORK 28 /* 224 bytes */
-#define TWIN_TENDON_TERMS_WORK 52 /* 416 bytes */
-#define TWIN_TENDON_KINETIC_ENERGY_WORK 42 /* 336 bytes */
-#define TWIN_TENDON_CORIOLIS_WORK 58 /* 464 bytes */
-#define TWIN_TENDON_POSE_WORK 26 /* 208 bytes */
-#define TWIN_TENDON_FORWARD_DYNAMICS_WORK 83 /* 664 bytes */
-#define TWIN_TENDON_STATIC_RESIDUAL_WORK 48 /* 384 bytes */
-#define TWIN_TENDON_STATIC_JACOBIAN_WORK 44 /* 352 bytes */
-#define TWIN_TENDON_EQUILIBRIUM_WORK 74 /* 592 bytes */
-#define TWIN_TENDON_REGULATE_WORK 116 /* 928 bytes */
-#define TWIN_TENDON_WORK_LEN 116 /* 928 bytes */
+#define TWIN_TENDON_TIP_JACOBIAN_WORK 36 /* 288 bytes */
+#define TWIN_TENDON_REGRESSOR_WORK 60 /* 480 bytes */
+#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 48 /* 384 bytes */
+#define TWIN_TENDON_POTENTIAL_ENERGY_WORK 36 /* 288 bytes */
+#define TWIN_TENDON_TERMS_WORK 60 /* 480 bytes */
+#define TWIN_TENDON_KINETIC_ENERGY_WORK 50 /* 400 bytes */
+#define TWIN_TENDON_CORIOLIS_WORK 66 /* 528 bytes */
+#define TWIN_TENDON_POSE_WORK 34 /* 272 bytes */
+#define TWIN_TENDON_FORWARD_DYNAMICS_WORK 91 /* 728 bytes */
+#define TWIN_TENDON_STATIC_RESIDUAL_WORK 56 /* 448 bytes */
+#define TWIN_TENDON_STATIC_JACOBIAN_WORK 52 /* 416 bytes */
+#define TWIN_TENDON_EQUILIBRIUM_WORK 82 /* 656 bytes */
+#define TWIN_TENDON_REGULATE_WORK 124 /* 992 bytes */
+#define TWIN_TENDON_WORK_LEN 124 /* 992 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

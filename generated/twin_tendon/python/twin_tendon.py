@@ -71,7 +71,7 @@ NU = 4
 NSEG = 2
 # Linear parameters of regressor(): the fields of Params but gravity, in order.
 NTHETA = 10
-_NU_LEN = 24
+_NU_LEN = 32
 
 
 class DynamicsError(ValueError):
@@ -108,10 +108,11 @@ PIVOT_FLOOR = 1.4e-14
 # scaled j_n, k = 1..11.
 _ODD_INV = (
     1.0, 0.3333333333333333, 0.2, 0.14285714285714285, 0.1111111111111111, 0.09090909090909091,
+    0.07692307692307693, 0.06666666666666667,
 )
 _PAIR_INV = (
     0.3333333333333333, 0.06666666666666667, 0.02857142857142857, 0.015873015873015872,
-    0.010101010101010102, 0.006993006993006993,
+    0.010101010101010102, 0.006993006993006993, 0.005128205128205128, 0.00392156862745098,
 )
 _SERIES = (
     (0.3333333333333333, 0.1, 0.047619047619047616, 0.027777777777777776, 0.01818181818181818, 0.01282051282051282, 0.009523809523809525, 0.007352941176470588, 0.005847953216374269, 0.004761904761904762, 0.003952569169960474),
@@ -121,21 +122,23 @@ _SERIES = (
     (0.09090909090909091, 0.038461538461538464, 0.022222222222222223, 0.014705882352941176, 0.010526315789473684, 0.007936507936507936, 0.006211180124223602, 0.005, 0.00411522633744856, 0.0034482758620689655, 0.002932551319648094),
     (0.07692307692307693, 0.03333333333333333, 0.0196078431372549, 0.013157894736842105, 0.009523809523809525, 0.007246376811594203, 0.005714285714285714, 0.004629629629629629, 0.0038314176245210726, 0.0032258064516129032, 0.0027548209366391185),
     (0.06666666666666667, 0.029411764705882353, 0.017543859649122806, 0.011904761904761904, 0.008695652173913044, 0.006666666666666667, 0.005291005291005291, 0.004310344827586207, 0.0035842293906810036, 0.0030303030303030303, 0.0025974025974025974),
+    (0.058823529411764705, 0.02631578947368421, 0.015873015873015872, 0.010869565217391304, 0.008, 0.006172839506172839, 0.0049261083743842365, 0.004032258064516129, 0.003367003367003367, 0.002857142857142857, 0.002457002457002457),
+    (0.05263157894736842, 0.023809523809523808, 0.014492753623188406, 0.01, 0.007407407407407408, 0.005747126436781609, 0.004608294930875576, 0.003787878787878788, 0.0031746031746031746, 0.002702702702702703, 0.002331002331002331),
 )
 
 # Moment kernels: row r at moment base b is the dot product of its band
 # _KERNEL_COEF[_KERNEL_START[r]:_KERNEL_START[r + 1]] with nu[b + _KERNEL_FIRST[r]:]; a row
 # is shared by every segment (and by real and imaginary parts) with the same weight shape.
 _KERNEL_START = (
-    0, 5, 7, 10, 12, 14, 16, 19, 23, 27, 30, 33, 39, 43, 48,
+    0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48,
 )
 _KERNEL_FIRST = (
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 )
 _KERNEL_COEF = np.array((
-    0.05, -0.08333333333333333, 0.03571428571428571, 0.0, -0.002380952380952381, 0.5, -0.5,
-    0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125, 0.01125,
-    0.01125, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
+    0.5, -0.5, 0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125,
+    0.01125, 0.01125, 0.05, -0.08333333333333333, 0.03571428571428571, 0.0,
+    -0.002380952380952381, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
     0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.3333333333333333, 0.5,
     0.16666666666666666, -0.001125, -0.0016875, -0.0005625, 0.005555555555555556,
     -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
@@ -182,7 +185,7 @@ def _moments(a, count, out, re, im):
     H_{n-1} = H_n - x^2 H_{n+1} / ((2n+1)(2n+3)) (errors shrink; exact at 0);
     Miller's downward recurrence for |x| < count; upward recurrence beyond (stable
     while n < |x|; NaN lands there). No branch divides by a small a.
-    Worst case: 31 add, 86 mul, 2 div, 0 sqrt, 2 trig for 6 moments.
+    Worst case: 33 add, 100 mul, 2 div, 0 sqrt, 2 trig for 8 moments.
     """
     j = [0.0] * count
     x = 0.5 * a
@@ -288,7 +291,7 @@ def _params_finite(p):
 
 # pairs (row, moment base)
 _INERTIA_ROWS = _kernel_plan((
-    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 0, 12, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 3, 12, 3, 18,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16,
 ))
 
 def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -298,8 +301,8 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 5, nu, 0, 6)
-    _moments(0.12 * q[1], 5, nu, 12, 18)
+    _moments(0.15 * q[0], 5, nu, 0, 8)
+    _moments(0.12 * q[1], 5, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -308,28 +311,29 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     kern = _kernels(_INERTIA_ROWS, nu)
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NQ))
-    t0 = (0.0225 * kern[7] * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
-        + 0.0225 * kern[6] * (0.0036 * kern[1] * cphi[0] - 0.0036 * kern[2] * sphi[0]))
+    t0 = (0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
+        + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]))
     t1 = 0.15 * t0
-    t2 = kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0]
-    t3 = kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]
-    t4 = -0.0144 * cphi[0] * kern[13] - 0.0144 * sphi[0] * kern[12]
-    t5 = 0.0144 * cphi[0] * kern[12] - 0.0144 * sphi[0] * kern[13]
-    t6 = (0.0225 * kern[6] * (0.000432 * kern[3] * cphi[0] - 0.000432 * kern[4] * sphi[0])
-        - 0.0225 * kern[7] * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0])
-        + kern[11])
+    t2 = kern[6] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
+    t3 = kern[7] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
+    t4 = -0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8]
+    t5 = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9]
+    t6 = (0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
+        - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
+        + kern[13])
     t7 = (P.density_scale[1] * t6 + 6.48e-9 * P.rotary_inertia_scale[1]
         + P.payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P.payload_rotary_inertia)
-    t8 = (0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t1 + t1
-        + kern[10])
-    out[0, 0] = (2.6578125e-5 * kern[0] * P.density_scale[0]
+    t8 = (0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4]) + t1 + t1
+        + kern[12])
+    out[0, 0] = (2.6578125e-5 * kern[10] * P.density_scale[0]
         + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t8
         + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t2 * t2 + t3 * t3)
         + 0.0225 * P.payload_rotary_inertia)
     out[0, 1] = t7
     out[1, 0] = t7
-    out[1, 1] = (6.2208e-6 * kern[5] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
-        + P.payload_mass * (t4 * t4 + t5 * t5) + 0.0144 * P.payload_rotary_inertia)
+    out[1, 1] = (6.2208e-6 * kern[11] * P.density_scale[1]
+        + 3.456e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t4 * t4 + t5 * t5)
+        + 0.0144 * P.payload_rotary_inertia)
     return out
 
 
@@ -343,7 +347,7 @@ def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inerti
 
 # pairs (row, moment base)
 _GRAVITY_ROWS = _kernel_plan((
-    2, 0, 2, 6, 1, 12, 1, 18, 2, 12, 2, 18, 3, 0, 3, 6, 4, 6, 5, 0, 3, 12, 3, 18,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24,
 ))
 
 def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -353,8 +357,8 @@ def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 3, nu, 0, 6)
-    _moments(0.12 * q[1], 3, nu, 12, 18)
+    _moments(0.15 * q[0], 3, nu, 0, 8)
+    _moments(0.12 * q[1], 3, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -366,8 +370,8 @@ def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     t0 = (P.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
         + P.gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
         + 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7]))
-    t1 = (P.gravity[0] * (kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0])
-        + P.gravity[1] * (kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]))
+    t1 = (P.gravity[0] * (kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + P.gravity[1] * (kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]))
     t2 = (P.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + P.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]))
     t3 = (P.gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
@@ -425,7 +429,7 @@ def actuation(q):
 
 # pairs (row, moment base)
 _TIP_JACOBIAN_ROWS = _kernel_plan((
-    4, 6, 5, 0, 3, 12, 3, 18,
+    3, 8, 4, 0, 2, 16, 2, 24,
 ))
 
 def tip_jacobian(q):
@@ -435,8 +439,8 @@ def tip_jacobian(q):
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 2, nu, 0, 6)
-    _moments(0.12 * q[1], 2, nu, 12, 18)
+    _moments(0.15 * q[0], 2, nu, 0, 8)
+    _moments(0.12 * q[1], 2, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -444,9 +448,9 @@ def tip_jacobian(q):
     sphi[0] = math.sin(phi)
     kern = _kernels(_TIP_JACOBIAN_ROWS, nu)
     out = np.zeros((3, NQ))
-    out[0, 0] = kern[0] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0]
+    out[0, 0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
     out[0, 1] = -0.0144 * cphi[0] * kern[3] - 0.0144 * sphi[0] * kern[2]
-    out[1, 0] = kern[1] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]
+    out[1, 0] = kern[1] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
     out[1, 1] = 0.0144 * cphi[0] * kern[2] - 0.0144 * sphi[0] * kern[3]
     out[2, 0] = 0.15
     out[2, 1] = 0.12
@@ -454,7 +458,7 @@ def tip_jacobian(q):
 
 # pairs (row, moment base)
 _POTENTIAL_ENERGY_ROWS = _kernel_plan((
-    1, 0, 1, 6, 1, 12, 1, 18,
+    0, 0, 0, 8, 0, 16, 0, 24,
 ))
 
 def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -464,8 +468,8 @@ def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 2, nu, 0, 6)
-    _moments(0.12 * q[1], 2, nu, 12, 18)
+    _moments(0.15 * q[0], 2, nu, 0, 8)
+    _moments(0.12 * q[1], 2, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -475,9 +479,9 @@ def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     t0 = (P.gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
         + P.gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
-        + 0.03 * (0.15 * nu[0] * P.gravity[0] + 0.15 * nu[6] * P.gravity[1]))
-    t1 = (P.gravity[0] * (0.15 * nu[0] + 0.12 * nu[12] * cphi[0] - 0.12 * nu[18] * sphi[0])
-        + P.gravity[1] * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0]))
+        + 0.03 * (0.15 * nu[0] * P.gravity[0] + 0.15 * nu[8] * P.gravity[1]))
+    t1 = (P.gravity[0] * (0.15 * nu[0] + 0.12 * nu[16] * cphi[0] - 0.12 * nu[24] * sphi[0])
+        + P.gravity[1] * (0.15 * nu[8] + 0.12 * nu[24] * cphi[0] + 0.12 * nu[16] * sphi[0]))
     return (0.5 * (0.00225 * P.stiffness_scale[0] * q[0] * q[0] + 0.00108 * P.stiffness_scale[1] * q[1] * q[1])
         - P.density_scale[0] * (0.007875 * kern[0] * P.gravity[0] + 0.007875 * kern[1] * P.gravity[1])
         - P.density_scale[1] * t0 - P.payload_mass * t1)
@@ -494,8 +498,8 @@ def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _GRAVITY_JACOBIAN_ROWS = _kernel_plan((
-    8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
-    18, 9, 12, 9, 18,
+    8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2, 16, 2,
+    24, 9, 16, 9, 24,
 ))
 
 def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -505,8 +509,8 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 4, nu, 0, 6)
-    _moments(0.12 * q[1], 4, nu, 12, 18)
+    _moments(0.15 * q[0], 4, nu, 0, 8)
+    _moments(0.12 * q[1], 4, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -523,8 +527,8 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     t3 = (P.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
         + P.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
         + 0.03 * (-0.003375 * P.gravity[0] * kern[8] - 0.003375 * P.gravity[1] * kern[9]))
-    t4 = (P.gravity[0] * (kern[10] - 0.0027 * nu[12] * cphi[0] + 0.0027 * nu[18] * sphi[0])
-        + P.gravity[1] * (kern[11] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]))
+    t4 = (P.gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        + P.gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
     t5 = (P.gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
         + P.gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]))
     t6 = (P.gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
@@ -538,9 +542,9 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 
 # pairs (row, moment base)
 _REGRESSOR_ROWS = _kernel_plan((
-    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
-    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
-    9, 18,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
+    7, 16,
 ))
 
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -552,8 +556,8 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     qd = _vector(qd, NQ, "qd")
     qdd = _vector(qdd, NQ, "qdd")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 6, nu, 0, 6)
-    _moments(0.12 * q[1], 6, nu, 12, 18)
+    _moments(0.15 * q[0], 6, nu, 0, 8)
+    _moments(0.12 * q[1], 6, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -562,58 +566,58 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     kern = _kernels(_REGRESSOR_ROWS, nu)
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NTHETA))
-    t0 = qd[1] * kern[10]
-    t1 = qd[1] * kern[11]
-    t2 = kern[4] * cphi[0]
-    t3 = kern[5] * sphi[0]
-    t4 = kern[5] * cphi[0]
-    t5 = kern[4] * sphi[0]
+    t0 = qd[1] * kern[6]
+    t1 = qd[1] * kern[7]
+    t2 = kern[2] * cphi[0]
+    t3 = kern[3] * sphi[0]
+    t4 = kern[3] * cphi[0]
+    t5 = kern[2] * sphi[0]
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
-    t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6)
-    t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0]
-    t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0]
-    t11 = 0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19]
-    t12 = qd[0] * kern[20]
-    t13 = qd[0] * kern[21]
-    t14 = qd[1] * kern[7]
-    t15 = qd[1] * kern[6]
-    t16 = qd[0] * kern[8]
-    t17 = nu[12] * cphi[0]
-    t18 = nu[18] * sphi[0]
-    t19 = nu[18] * cphi[0]
-    t20 = nu[12] * sphi[0]
-    t21 = kern[16] - 0.018 * t20 - 0.018 * t19
-    t22 = kern[17] - 0.018 * t18 + 0.018 * t17
-    t23 = cphi[0] * kern[25]
-    t24 = sphi[0] * kern[24]
+    t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6)
+    t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
+    t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
+    t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27]
+    t12 = qd[0] * kern[12]
+    t13 = qd[0] * kern[13]
+    t14 = qd[1] * kern[5]
+    t15 = qd[1] * kern[4]
+    t16 = qd[0] * kern[22]
+    t17 = nu[16] * cphi[0]
+    t18 = nu[24] * sphi[0]
+    t19 = nu[24] * cphi[0]
+    t20 = nu[16] * sphi[0]
+    t21 = kern[10] - 0.018 * t20 - 0.018 * t19
+    t22 = kern[11] - 0.018 * t18 + 0.018 * t17
+    t23 = cphi[0] * kern[17]
+    t24 = sphi[0] * kern[16]
     t25 = -0.0144 * t23 - 0.0144 * t24
-    t26 = cphi[0] * kern[24]
-    t27 = sphi[0] * kern[25]
+    t26 = cphi[0] * kern[16]
+    t27 = sphi[0] * kern[17]
     t28 = 0.0144 * t26 - 0.0144 * t27
     t29 = t21 * t25 + t22 * t28
     t30 = 0.00216 * t27 - 0.00216 * t26
     t31 = -0.00216 * t24 - 0.00216 * t23
-    t32 = qd[0] * (kern[22] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30
-    t33 = qd[0] * (kern[23] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31
-    t34 = qd[0] * t30 + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26])
-    t35 = qd[0] * t31 + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26])
-    t36 = (0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14]) + t8
-        + t8 + kern[18])
-    t37 = (0.0225 * kern[15] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
-        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15))
-    t38 = (0.03 * (7.59375e-5 * kern[15] * t12 - 7.59375e-5 * kern[14] * t13)
-        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t37
-        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[8])
-    t39 = (0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
-        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[12])
+    t32 = qd[0] * (kern[14] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30
+    t33 = qd[0] * (kern[15] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31
+    t34 = qd[0] * t30 + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18])
+    t35 = qd[0] * t31 + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18])
+    t36 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t8 + t8
+        + kern[26])
+    t37 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
+        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15))
+    t38 = (0.03 * (7.59375e-5 * kern[9] * t12 - 7.59375e-5 * kern[8] * t13)
+        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t37
+        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[22])
+    t39 = (0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
+        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[24])
     out[0, 0] = (0.00118125 * kern[1] * P.gravity[0] - 0.00118125 * kern[0] * P.gravity[1]
-        + 2.6578125e-5 * kern[2] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[3])
+        + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21])
     out[0, 1] = (t36 * qdd[0] - P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         - P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        - 0.03 * (0.0225 * P.gravity[1] * kern[14] - 0.0225 * P.gravity[0] * kern[15])
+        - 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9])
         + qd[0] * t38 + t11 * qdd[1] + qd[1] * t39)
     out[0, 2] = 1.125e-8 * qdd[0]
     out[0, 3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1]
@@ -627,7 +631,7 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[1, 0] = 0.0
     out[1, 1] = (t11 * qdd[0] - P.gravity[0] * t9 - P.gravity[1] * t10
         + qd[0] * (1.1664e-6 * t16 - 0.003375 * t9 * t12 - 0.003375 * t10 * t13)
-        + 6.2208e-6 * kern[9] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[13])
+        + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25])
     out[1, 2] = 0.0
     out[1, 3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1]
     out[1, 4] = 0.0
@@ -642,9 +646,9 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _TERMS_ROWS = _kernel_plan((
-    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13, 18,
-    11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3, 18, 9, 12,
-    9, 18,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
+    7, 16,
 ))
 
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -655,8 +659,8 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 6, nu, 0, 6)
-    _moments(0.12 * q[1], 6, nu, 12, 18)
+    _moments(0.15 * q[0], 6, nu, 0, 8)
+    _moments(0.12 * q[1], 6, nu, 16, 24)
     cphi = [0.0] * 1
     sphi = [0.0] * 1
     phi = 0.15 * q[0]
@@ -667,72 +671,72 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b = np.zeros((NQ, NQ))
     c = np.zeros((NQ, NQ))
     g = np.zeros(NQ)
-    t0 = qd[1] * kern[10]
-    t1 = qd[1] * kern[11]
-    t2 = kern[4] * cphi[0]
-    t3 = kern[5] * sphi[0]
-    t4 = kern[5] * cphi[0]
-    t5 = kern[4] * sphi[0]
+    t0 = qd[1] * kern[6]
+    t1 = qd[1] * kern[7]
+    t2 = kern[2] * cphi[0]
+    t3 = kern[3] * sphi[0]
+    t4 = kern[3] * cphi[0]
+    t5 = kern[2] * sphi[0]
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
-    t8 = 0.15 * (0.0225 * kern[15] * t7 + 0.0225 * kern[14] * t6)
-    t9 = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0]
-    t10 = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0]
-    t11 = qd[0] * kern[20]
-    t12 = qd[0] * kern[21]
-    t13 = qd[1] * kern[7]
-    t14 = qd[1] * kern[6]
-    t15 = qd[0] * kern[8]
-    t16 = nu[12] * cphi[0]
-    t17 = nu[18] * sphi[0]
-    t18 = nu[18] * cphi[0]
-    t19 = nu[12] * sphi[0]
-    t20 = kern[16] - 0.018 * t19 - 0.018 * t18
-    t21 = kern[17] - 0.018 * t17 + 0.018 * t16
-    t22 = cphi[0] * kern[25]
-    t23 = sphi[0] * kern[24]
+    t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6)
+    t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
+    t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
+    t11 = qd[0] * kern[12]
+    t12 = qd[0] * kern[13]
+    t13 = qd[1] * kern[5]
+    t14 = qd[1] * kern[4]
+    t15 = qd[0] * kern[22]
+    t16 = nu[16] * cphi[0]
+    t17 = nu[24] * sphi[0]
+    t18 = nu[24] * cphi[0]
+    t19 = nu[16] * sphi[0]
+    t20 = kern[10] - 0.018 * t19 - 0.018 * t18
+    t21 = kern[11] - 0.018 * t17 + 0.018 * t16
+    t22 = cphi[0] * kern[17]
+    t23 = sphi[0] * kern[16]
     t24 = -0.0144 * t22 - 0.0144 * t23
-    t25 = cphi[0] * kern[24]
-    t26 = sphi[0] * kern[25]
+    t25 = cphi[0] * kern[16]
+    t26 = sphi[0] * kern[17]
     t27 = 0.0144 * t25 - 0.0144 * t26
     t28 = 0.00216 * t26 - 0.00216 * t25
     t29 = -0.00216 * t23 - 0.00216 * t22
-    t30 = qd[0] * (kern[22] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28
-    t31 = qd[0] * (kern[23] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29
-    t32 = qd[0] * t28 + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26])
-    t33 = qd[0] * t29 + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26])
-    t34 = (P.density_scale[1] * (0.0225 * kern[14] * t10 - 0.0225 * kern[15] * t9 + kern[19])
+    t30 = qd[0] * (kern[14] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28
+    t31 = qd[0] * (kern[15] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29
+    t32 = qd[0] * t28 + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18])
+    t33 = qd[0] * t29 + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18])
+    t34 = (P.density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27])
         + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t24 + t21 * t27)
         + 0.018 * P.payload_rotary_inertia)
-    t35 = (0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14]) + t8
-        + t8 + kern[18])
-    t36 = (0.0225 * kern[15] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
-        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14))
-    t37 = (0.03 * (7.59375e-5 * kern[15] * t11 - 7.59375e-5 * kern[14] * t12)
-        - 0.0225 * qd[0] * (0.0225 * kern[14] * t7 - 0.0225 * kern[15] * t6) + 0.15 * t36
-        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[8])
-    t38 = (0.15 * qd[0] * (0.0225 * kern[15] * t10 + 0.0225 * kern[14] * t9)
-        - 0.0225 * kern[15] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[14] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[12])
+    t35 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t8 + t8
+        + kern[26])
+    t36 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
+        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14))
+    t37 = (0.03 * (7.59375e-5 * kern[9] * t11 - 7.59375e-5 * kern[8] * t12)
+        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t36
+        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[22])
+    t38 = (0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
+        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
+        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
+        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[24])
     t39 = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        + 0.03 * (0.0225 * P.gravity[1] * kern[14] - 0.0225 * P.gravity[0] * kern[15]))
-    b[0, 0] = (2.6578125e-5 * kern[2] * P.density_scale[0]
+        + 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9]))
+    b[0, 0] = (2.6578125e-5 * kern[20] * P.density_scale[0]
         + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t35
         + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t20 + t21 * t21)
         + 0.0225 * P.payload_rotary_inertia)
     b[0, 1] = t34
     b[1, 0] = t34
-    b[1, 1] = (6.2208e-6 * kern[9] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
+    b[1, 1] = (6.2208e-6 * kern[23] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
         + P.payload_mass * (t24 * t24 + t27 * t27) + 0.0144 * P.payload_rotary_inertia)
-    c[0, 0] = (P.density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[3] * P.density_scale[0]
+    c[0, 0] = (P.density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[21] * P.density_scale[0]
         + P.payload_mass * (t20 * t30 + t21 * t31))
     c[0, 1] = P.density_scale[1] * t38 + P.payload_mass * (t20 * t32 + t21 * t33)
     c[1, 0] = (P.density_scale[1] * (1.1664e-6 * t15 - 0.003375 * t9 * t11 - 0.003375 * t10 * t12)
         + P.payload_mass * (t24 * t30 + t27 * t31))
     c[1, 1] = (P.payload_mass * (t24 * t32 + t27 * t33)
-        - 7.46496e-7 * qd[1] * kern[13] * P.density_scale[1])
+        - 7.46496e-7 * qd[1] * kern[25] * P.density_scale[1])
     g[0] = (-P.density_scale[0] * (0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0])
         - P.density_scale[1] * t39 - P.payload_mass * (P.gravity[0] * t20 + P.gravity[1] * t21))
     g[1] = (-P.density_scale[1] * (P.gravity[0] * t9 + P.gravity[1] * t10)
@@ -762,7 +766,7 @@ def _pose_segment1(q, sigma):
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
-    _moments(0.15 * q[0], 1, nu, 0, 6)
+    _moments(0.15 * q[0], 1, nu, 0, 8)
     pnu = [0.0] * 2
     _moments(0.12 * q[1] * sigma, 1, pnu, 0, 1)
     cphi = [0.0] * 1
@@ -774,7 +778,7 @@ def _pose_segment1(q, sigma):
     t0 = sigma * pnu[0]
     t1 = sigma * pnu[1]
     out[0] = 0.15 * nu[0] + 0.12 * cphi[0] * t0 - 0.12 * sphi[0] * t1
-    out[1] = 0.15 * nu[6] + 0.12 * cphi[0] * t1 + 0.12 * sphi[0] * t0
+    out[1] = 0.15 * nu[8] + 0.12 * cphi[0] * t1 + 0.12 * sphi[0] * t0
     out[2] = 0.15 * q[0] + 0.12 * sigma * q[1]
     return out
 

@@ -4,7 +4,10 @@ use super::body::{
     angle_increment, for_each_leaf, inline, moment_argument, outputs, statements, temp_slots,
     temporaries, Spelling, StmtStyle,
 };
-use super::constants::{base_context, strings, use_max, use_pairs, MomentConstants};
+use super::constants::{
+    base_context, family_pairs, family_scales, matrix_table_context, pair_max, strings, use_max,
+    use_pairs, MomentConstants,
+};
 use super::control_code::{StaticsCallees, StaticsLayout};
 use super::golden::Golden;
 use super::number::Precision;
@@ -84,6 +87,9 @@ struct Printer<'a> {
 impl Printer<'_> {
     fn real(&self) -> &'static str {
         real(self.precision)
+    }
+    fn upper(&self) -> String {
+        self.name.to_uppercase()
     }
     fn fs(&self) -> &'static str {
         if self.precision == Precision::F32 {
@@ -198,11 +204,66 @@ impl Printer<'_> {
             ));
         }
         if !b.kernels.is_empty() {
-            out.push_str(&format!(
-                "    {n}_kernels({n}_{fname}_rows, {}, nu, kern);\n",
-                b.kernels.len(),
-                n = self.name
-            ));
+            let n = self.name;
+            for (start, count) in func.dot_ranges() {
+                let rows = if start == 0 {
+                    format!("{n}_{fname}_rows")
+                } else {
+                    format!("&{n}_{fname}_rows[{}]", 2 * start)
+                };
+                out.push_str(&format!("    {n}_kernels({rows}, {count}, nu, kern);\n"));
+            }
+            if !func.families.is_empty() {
+                carve(&mut out, "F", func.matrix_scratch(&plan.matrix_tables));
+            }
+            for (k, f) in func.families.iter().enumerate() {
+                let size = plan.matrix_tables[f.table].size;
+                let arg = inline(&moment_argument(plan, f.seg, false), &syn);
+                let seeds = use_pairs(&f.seeds);
+                let idx = family_pairs(f);
+                let scales = family_scales(f, self.precision);
+                rows.push_str(&format!(
+                    "/* Kernels {start} .. {end} of {n}_{fname}: segment {seg}'s double kernels, \
+                     taken from its half kernels F (see {n}_kernel_recurrence) when \
+                     |a| <= {upper}_FAST_BENDING; the top row's uses (row, moment base), \
+                     then per kernel the two entries of F and the factor. */\n\
+                     static const {rt} {n}_{fname}_seeds{k}[{ns}] = {{\n{}\n}};\n\
+                     static const {it} {n}_{fname}_pairs{k}[{ni}] = {{\n{}\n}};\n\
+                     static const {r} {n}_{fname}_scales{k}[{nc}] = {{\n{}\n}};\n",
+                    wrap_list(&seeds, 4),
+                    wrap_list(&idx, 4),
+                    wrap_list(&scales, 4),
+                    start = f.start,
+                    end = f.start + f.count,
+                    seg = f.seg + 1,
+                    upper = self.upper(),
+                    rt = uint_type(use_max(plan)),
+                    ns = seeds.len(),
+                    it = uint_type(pair_max(plan)),
+                    ni = idx.len(),
+                    nc = scales.len(),
+                ));
+                out.push_str(&format!(
+                    "    {{\n        const {r} a = {arg};\n        \
+                     if ({abs}(a) <= {upper}_FAST_BENDING) {{\n            \
+                     {n}_kernels({n}_{fname}_seeds{k}, {size}, nu, &F[{top_re}]);\n            \
+                     {n}_kernels(&{n}_{fname}_seeds{k}[{size2}], {size}, nu, &F[{top_im}]);\n            \
+                     {n}_kernel_recurrence({size}, a, {n}_tail_moments{t}, F);\n            \
+                     {n}_kernel_entries({n}_{fname}_pairs{k}, {n}_{fname}_scales{k}, {count}, {size}, F, &kern[{start}]);\n        \
+                     }} else {{\n            \
+                     {n}_kernels(&{n}_{fname}_rows[{rs}], {count}, nu, &kern[{start}]);\n        \
+                     }}\n    }}\n",
+                    abs = if self.precision == Precision::F32 { "fabsf" } else { "fabs" },
+                    upper = self.upper(),
+                    top_re = (size - 1) * size,
+                    top_im = size * size + (size - 1) * size,
+                    size2 = 2 * size,
+                    t = f.table,
+                    count = f.count,
+                    start = f.start,
+                    rs = 2 * f.start,
+                ));
+            }
         }
         if !b.reads_q && fname != "stiffness" && fname != "damping" {
             out.push_str("    (void)q;\n");
@@ -356,7 +417,7 @@ pub fn emit(
     };
     let n = plan.n;
     let k = plan.k;
-    let ops_line = |f: &Func| format!("Operations: {}.", f.ops);
+    let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_dot);
 
     let mut funcs: Vec<CFunc> = Vec::new();
     let mut constant_funcs: Vec<CFunc> = Vec::new();
@@ -623,7 +684,7 @@ pub fn emit(
     public(
         "kinetic_energy",
         "T = 1/2 q'^T B q', with B from the inertia function.",
-        format!("Operations: {}.", plan.kinetic_energy),
+        super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
         r,
         &[q.clone(), qd.clone()],
         String::new(),
@@ -844,6 +905,11 @@ pub fn emit(
     ctx.insert("kernel_first", &wrap_list(&strings(&mc.first), 4));
     ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));
     ctx.insert("functions", &funcs);
+    ctx.insert(
+        "matrix_tables",
+        &matrix_table_context(plan, precision, &|v| wrap_list(v, 4)),
+    );
+    ctx.insert("pair_type", uint_type(pair_max(plan)));
     ctx.insert("pose_names", &pose_names);
     ctx.insert("pose_work", &pose_work);
     ctx.insert("fd", &fd);
@@ -871,9 +937,12 @@ pub fn emit(
     ctx.insert("ntheta", &plan.params.linear_len());
     ctx.insert(
         "kinetic_energy_ops",
-        &format!("Operations: {}.", plan.kinetic_energy),
+        &super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
     );
-    ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
+    ctx.insert(
+        "dynamics_ops",
+        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
+    );
     ctx.insert(
         "pose_ops",
         &plan.pose.iter().map(ops_line).collect::<Vec<_>>(),

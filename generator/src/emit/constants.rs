@@ -2,7 +2,7 @@
 //! series and recurrence constants as exact literals, the kernel table in bands, and the template context entries all languages share.
 
 use super::number::{literal, Precision};
-use super::plan::{moment_ops, Plan};
+use super::plan::{moment_ops, Family, Plan};
 use super::schedule::KernelUse;
 use super::Meta;
 use crate::exact::{int, Q};
@@ -136,4 +136,51 @@ pub fn use_max(plan: &Plan) -> usize {
 /// Numbers as strings, for lists that templates print.
 pub fn strings(v: &[usize]) -> Vec<String> {
     v.iter().map(usize::to_string).collect()
+}
+
+/// A family's entry pairs `first, second, …` (indices into its half kernels).
+pub fn family_pairs(f: &Family) -> Vec<String> {
+    f.entries
+        .iter()
+        .flat_map(|e| [e.first.to_string(), e.second.to_string()])
+        .collect()
+}
+
+/// A family's factors, one per kernel, as literals.
+pub fn family_scales(f: &Family, precision: Precision) -> Vec<String> {
+    f.entries
+        .iter()
+        .map(|e| literal(&e.scale, precision))
+        .collect()
+}
+
+/// Largest half-kernel index of any family, plus one: the pair arrays' element type.
+pub fn pair_max(plan: &Plan) -> usize {
+    plan.matrix_tables
+        .iter()
+        .map(|t| 2 * t.size * t.size)
+        .max()
+        .unwrap_or(0)
+}
+
+/// The kernel recurrence's tables for the templates: index, size, and the tail moments
+/// `m_k` as literals, joined by `sep`.
+pub fn matrix_table_context(
+    plan: &Plan,
+    precision: Precision,
+    sep: &dyn Fn(&[String]) -> String,
+) -> Vec<std::collections::BTreeMap<&'static str, String>> {
+    plan.matrix_tables
+        .iter()
+        .enumerate()
+        .map(|(i, t)| {
+            let v: Vec<String> = t.moments.iter().map(|q| literal(q, precision)).collect();
+            std::collections::BTreeMap::from([
+                ("index", i.to_string()),
+                ("size", t.size.to_string()),
+                ("len", v.len().to_string()),
+                ("values", sep(&v)),
+            ])
+        })
+        .collect()
 }

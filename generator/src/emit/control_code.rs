@@ -445,14 +445,14 @@ impl StaticsOps {
         let da = plan
             .actuation_jacobian
             .as_ref()
-            .map_or(Ops::default(), |f| f.ops);
+            .map_or(Ops::default(), |f| f.ops_dot);
         let da_u = if plan.actuation_jacobian.is_some() {
             mul_add(n * n * k)
         } else {
             Ops::default()
         };
-        let residual = plan.gravity.ops + plan.actuation.ops + mul_add(n * n + n * k);
-        let jacobian = plan.gravity_jacobian.ops
+        let residual = plan.gravity.ops_dot + plan.actuation.ops_dot + mul_add(n * n + n * k);
+        let jacobian = plan.gravity_jacobian.ops_dot
             + da
             + da_u
             + Ops {
@@ -497,8 +497,8 @@ impl StaticsOps {
             mul: s_terms,
             ..Ops::default()
         };
-        let regulate = plan.actuation.ops
-            + plan.gravity.ops
+        let regulate = plan.actuation.ops_dot
+            + plan.gravity.ops_dot
             + mul_add(n * n)
             + select * (3 + k)
             + mul_add(h * 2)

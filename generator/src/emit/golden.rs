@@ -66,8 +66,8 @@ fn pattern(i: usize, salt: usize) -> f64 {
 }
 
 /// The configurations: straight, tiny (`a_j = 1e-9`), small, large and mixed curvature
-/// (`a_j = 0` exactly with bent higher terms, `a_j = 1e-9`, large), and `a_j = 2` (the
-/// moment routine's branch switch).
+/// (`a_j = 0` exactly with bent higher terms, `a_j = 1e-9`, large), `a_j = 2` (the
+/// moment routine's branch switch) and `|a_j| = 5` (beyond the kernel recurrence's).
 fn configurations(arm: &Arm) -> Vec<(String, Vec<f64>)> {
     vec![
         ("straight".into(), coords(arm, |_, _| 0.0)),
@@ -110,6 +110,15 @@ fn configurations(arm: &Arm) -> Vec<(String, Vec<f64>)> {
         (
             "branch switch a = 2".into(),
             coords(arm, |_, i| if i == 0 { 2.0 } else { 0.2 }),
+        ),
+        (
+            // Beyond kernel_matrix::FAST_BENDING: the double kernels are dot products.
+            "beyond the kernel recurrence a = 5".into(),
+            coords(arm, |j, i| match (j % 2, i) {
+                (0, 0) => 5.0,
+                (_, 0) => -5.0,
+                _ => 0.15 * pattern(j * 5 + i, 3),
+            }),
         ),
     ]
 }

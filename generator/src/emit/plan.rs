@@ -3,10 +3,11 @@
 //! modules only print a [`Plan`].
 
 use super::ops::Ops;
-use super::schedule::{Block, KernelTable, NuLayout, Scheduler};
+use super::schedule::{Block, KernelRow, KernelTable, KernelUse, NuLayout, Scheduler};
 use crate::derive::Model;
 use crate::exact::{int, Q};
 use crate::ir::{Id, Program};
+use crate::kernel_matrix::MatrixTable;
 use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use num_traits::Zero;
 
@@ -30,9 +31,69 @@ pub const PARAMETRIC_FUNCTIONS: [&str; 10] = [
 #[derive(Clone, Debug)]
 pub struct Func {
     pub block: Block,
+    /// The double-kernel groups of `block.kernels` (one per segment and weight), which
+    /// the fast path takes from the kernel recurrence ([`crate::kernel_matrix`]).
+    pub families: Vec<Family>,
     /// Everything the function executes: straight-line code, kernel rows, moment
-    /// routines, angles, and the function's own loops (Cholesky).
+    /// routines, angles, and the function's own loops (Cholesky); the kernels of every
+    /// family by the recurrence (every segment with `|a_j| ≤ FAST_BENDING`).
     pub ops: Ops,
+    /// The same with every kernel a dot product (the worst case, every segment beyond).
+    pub ops_dot: Ops,
+}
+
+impl Func {
+    /// The kernel uses `(start, count)` not in a family: always dot products.
+    pub fn dot_ranges(&self) -> Vec<(usize, usize)> {
+        let mut out = Vec::new();
+        let mut at = 0;
+        for f in &self.families {
+            if f.start > at {
+                out.push((at, f.start - at));
+            }
+            at = f.start + f.count;
+        }
+        if self.block.kernels.len() > at {
+            out.push((at, self.block.kernels.len() - at));
+        }
+        out
+    }
+
+    /// Reals of scratch the families' half-kernel matrices need (one at a time).
+    pub fn matrix_scratch(&self, plan_tables: &[MatrixTable]) -> usize {
+        self.families
+            .iter()
+            .map(|f| 2 * plan_tables[f.table].size.pow(2))
+            .max()
+            .unwrap_or(0)
+    }
+}
+
+/// Kernel uses `start .. start + count` of a function: parts of segment `seg`'s double
+/// kernels of one weight. With `|a_seg| ≤ FAST_BENDING` they are read off the half
+/// kernels `F` (`F[s·size + t]`, real parts then imaginary parts), which the recurrence
+/// fills from the top row `seeds`; beyond, they are the dot products of their rows.
+#[derive(Clone, Debug)]
+pub struct Family {
+    pub seg: usize,
+    /// Index into [`Plan::matrix_tables`].
+    pub table: usize,
+    pub start: usize,
+    pub count: usize,
+    /// The top row's real parts (`size` uses, at the segment's real moment base), then
+    /// its imaginary parts.
+    pub seeds: Vec<KernelUse>,
+    /// Per use: `kern = scale · (F[first] + F[second])` (real part), or
+    /// `scale · (F[first] − F[second])` with both indices into the imaginary half.
+    pub entries: Vec<FamilyEntry>,
+}
+
+#[derive(Clone, Debug)]
+pub struct FamilyEntry {
+    pub first: usize,
+    pub second: usize,
+    pub im: bool,
+    pub scale: Q,
 }
 
 /// One controlled output of the emitted regulators, `y = Σ c_i q[index_i]`: a row
@@ -75,6 +136,8 @@ pub struct Plan {
     /// Size of the scratch array for one moment evaluation (largest count anywhere).
     pub moment_max: usize,
     pub table: KernelTable,
+    /// The kernel recurrence's tables, by weight and size ([`Family::table`]).
+    pub matrix_tables: Vec<MatrixTable>,
     pub inertia: Func,
     pub gravity: Func,
     pub stiffness: Func,
@@ -89,12 +152,16 @@ pub struct Plan {
     /// The kinetic energy is `½ q̇ᵀ B q̇` over the emitted inertia function, not code of
     /// its own (it would repeat all of `B`): its cost is `B`'s plus the quadratic form.
     pub kinetic_energy: Ops,
+    /// The same with every kernel a dot product ([`Func::ops_dot`]).
+    pub kinetic_energy_dot: Ops,
     pub potential_energy: Func,
     /// `B`, `C` (both n×n row-major) and `G` together: what a model-based controller
     /// asks for at every step, with the moments and kernels they share computed once.
     pub terms: Func,
     /// Forward dynamics over `terms`, `A`, `K`, `D` and a Cholesky solve.
     pub dynamics: Ops,
+    /// The same with every kernel a dot product ([`Func::ops_dot`]).
+    pub dynamics_dot: Ops,
     /// The regressor `Y(q, q̇, q̈)`, n × `params.linear_len()` row-major (a parametric
     /// model's; `None` only in a [`Plan::build`] of a folded one).
     pub regressor: Option<Func>,
@@ -209,8 +276,15 @@ impl Plan {
         if let Some(y) = &model.regressor {
             all_roots.extend(y.iter().flatten().copied());
         }
-        let layout = NuLayout::of(prog, &all_roots, segs);
-        let mut sched = Scheduler::new(prog, &layout);
+        // Room for the kernel recurrence's top rows, which read moments up to the
+        // highest power pair of a segment's double kernels (`F_{t,t}`, t the largest).
+        let mut reach = vec![0usize; segs];
+        for e in model.kernel_entries.values() {
+            let tail = model.kernel_weights[e.weight].len();
+            reach[e.seg] = reach[e.seg].max(2 * e.t as usize + tail + 2);
+        }
+        let layout = NuLayout::of(prog, &all_roots, segs).with_reach(&reach);
+        let mut sched = Scheduler::new(prog, &layout, &model.kernel_entries);
         let flat = |m: &Vec<Vec<Id>>| -> Vec<Id> { m.iter().flatten().copied().collect() };
 
         let seg_length: Vec<Q> = arm.segments.iter().map(|s| s.length.clone()).collect();
@@ -244,18 +318,57 @@ impl Plan {
             }
             ops
         };
-        let func = |sched: &mut Scheduler, roots: &[Id], pose: bool| -> Func {
+        let mut matrix_tables: Vec<MatrixTable> = Vec::new();
+        let mut func = |sched: &mut Scheduler, roots: &[Id], pose: bool| -> Func {
             // Moment kernels go into the shared table and are evaluated by its loop:
             // straight-line kernels share some sub-sums and so take fewer operations,
             // but the table is shared by all segments and functions. Measured on
             // reach_arm: B, C and G in one call 11 µs straight-line, 12 µs with the table;
             // object 840 KB against 350 KB; gcc -O2 31 s against 10 s.
-            let block = sched.block(roots, use_kernels && !pose);
+            let mut block = sched.block(roots, use_kernels && !pose);
+            let families = families(
+                &mut block,
+                &model.kernel_weights,
+                sched,
+                &layout,
+                &mut matrix_tables,
+            );
             let mut ops = block.ops + angle_ops(block.angles);
             for (&c, &pc) in block.nu_count.iter().zip(&block.pose_nu_count) {
                 ops += moment_ops(c, false) + moment_ops(pc, true);
             }
-            Func { block, ops }
+            let ops_dot = ops;
+            for f in &families {
+                let table = &matrix_tables[f.table];
+                let mut fast = Ops::default();
+                for u in &f.seeds {
+                    let nnz = sched.table.rows[u.row].len();
+                    fast.add += nnz;
+                    fast.mul += nnz;
+                }
+                let (add, mul, div) = table.recurrence_ops();
+                fast.add += add;
+                fast.mul += mul;
+                fast.div += div;
+                // kern = scale · (F[first] ± F[second]), a table loop: always both.
+                fast.add += f.entries.len();
+                fast.mul += f.entries.len();
+                let mut dot = Ops::default();
+                for u in &block.kernels[f.start..f.start + f.count] {
+                    let nnz = sched.table.rows[u.row].len();
+                    dot.add += nnz;
+                    dot.mul += nnz;
+                }
+                ops.add = ops.add - dot.add + fast.add;
+                ops.mul = ops.mul - dot.mul + fast.mul;
+                ops.div += fast.div;
+            }
+            Func {
+                block,
+                families,
+                ops,
+                ops_dot,
+            }
         };
         let inertia = func(&mut sched, &flat(&model.inertia), false);
         let gravity = func(&mut sched, &model.gravity, false);
@@ -275,18 +388,24 @@ impl Plan {
             .iter()
             .any(|&id| !prog.is_zero(id))
             .then(|| func(&mut sched, &da, false));
-        let kinetic_energy = inertia.ops
-            + Ops {
-                add: n * n,
-                mul: n * n + n + 1,
-                ..Ops::default()
-            };
+        let quadratic_form = Ops {
+            add: n * n,
+            mul: n * n + n + 1,
+            ..Ops::default()
+        };
+        let kinetic_energy = inertia.ops + quadratic_form;
+        let kinetic_energy_dot = inertia.ops_dot + quadratic_form;
         let potential_energy = func(&mut sched, &[model.potential_energy], false);
         let terms = func(&mut sched, &terms_roots, false);
         let dynamics = terms.ops
             + actuation.ops
             + stiffness.ops
             + damping.ops
+            + dynamics_loop_ops(n, model.n_inputs);
+        let dynamics_dot = terms.ops_dot
+            + actuation.ops_dot
+            + stiffness.ops_dot
+            + damping.ops_dot
             + dynamics_loop_ops(n, model.n_inputs);
         let regressor = model
             .regressor
@@ -324,6 +443,7 @@ impl Plan {
             param_defaults: crate::params::ParamLayout::of(arm).defaults(arm),
             moment_max,
             table,
+            matrix_tables,
             inertia,
             gravity,
             stiffness,
@@ -333,9 +453,11 @@ impl Plan {
             gravity_jacobian,
             actuation_jacobian,
             kinetic_energy,
+            kinetic_energy_dot,
             potential_energy,
             terms,
             dynamics,
+            dynamics_dot,
             regressor,
             pose,
         })
@@ -365,5 +487,129 @@ impl Plan {
     /// Total non-zeros of the kernel table.
     pub fn table_nnz(&self) -> usize {
         self.table.rows.iter().map(Vec::len).sum()
+    }
+}
+
+/// The double-kernel groups of a block (uses `kernels[start..start + count]` with the
+/// same segment and weight, as the scheduler orders them), each with its table (added
+/// to `tables` when new), the top row's uses and the entries.
+fn families(
+    block: &mut Block,
+    weights: &[Vec<Q>],
+    sched: &mut Scheduler,
+    layout: &NuLayout,
+    tables: &mut Vec<MatrixTable>,
+) -> Vec<Family> {
+    let mut out: Vec<Family> = Vec::new();
+    let mut i = 0;
+    while i < block.matrix.len() {
+        let Some(first) = &block.matrix[i] else {
+            i += 1;
+            continue;
+        };
+        let key = (first.entry.seg, first.entry.weight);
+        let start = i;
+        while i < block.matrix.len()
+            && block.matrix[i]
+                .as_ref()
+                .is_some_and(|m| (m.entry.seg, m.entry.weight) == key)
+        {
+            i += 1;
+        }
+        let group = &block.matrix[start..i];
+        let size = group
+            .iter()
+            .flatten()
+            .map(|m| m.entry.t as usize + 1)
+            .max()
+            .unwrap_or(1);
+        let tail = &weights[key.1];
+        let known = tables
+            .iter()
+            .position(|t| t.size == size && t.tail == *tail);
+        let candidate = match known {
+            Some(t) => tables[t].clone(),
+            None => MatrixTable::new(tail, size),
+        };
+        // The top row reads moments up to the highest power pair; where the moment
+        // layout stops short of that, the group stays dot products.
+        let reach = candidate.seeds.iter().map(Vec::len).max().unwrap_or(0);
+        if reach > layout.count[key.0] {
+            continue;
+        }
+        // So does a group whose dot products are cheaper than the recurrence (few
+        // kernels of low powers): top row, recurrence, one multiply-add per kernel.
+        let nnz = |c: &Vec<Q>| c.iter().filter(|c| !c.is_zero()).count();
+        let (add, mul, div) = candidate.recurrence_ops();
+        let fast = 2 * 2 * candidate.seeds.iter().map(nnz).sum::<usize>()
+            + add
+            + mul
+            + div
+            + 2 * (i - start);
+        let dot: usize = block.kernels[start..i]
+            .iter()
+            .map(|u| 2 * sched.table.rows[u.row].len())
+            .sum();
+        if fast >= dot {
+            continue;
+        }
+        let table = known.unwrap_or_else(|| {
+            tables.push(candidate);
+            tables.len() - 1
+        });
+        let seg = key.0 as u16;
+        block.nu_count[key.0] = block.nu_count[key.0].max(reach);
+        let mut seeds = Vec::with_capacity(2 * size);
+        for im in [false, true] {
+            for c in &tables[table].seeds {
+                let row: KernelRow = c
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, c)| !c.is_zero())
+                    .map(|(n, c)| (n, c.clone()))
+                    .collect();
+                let row = sched.table.intern(row);
+                seeds.push(KernelUse {
+                    row,
+                    base: layout.base(seg, im),
+                });
+            }
+        }
+        let entries = group
+            .iter()
+            .flatten()
+            .map(|m| {
+                let (s, t) = (m.entry.s as usize, m.entry.t as usize);
+                let half = if m.entry.im { size * size } else { 0 };
+                FamilyEntry {
+                    first: half + s * size + t,
+                    second: half + t * size + s,
+                    im: m.entry.im,
+                    scale: m.scale.clone(),
+                }
+            })
+            .collect();
+        out.push(Family {
+            seg: key.0,
+            table,
+            start,
+            count: i - start,
+            seeds,
+            entries,
+        });
+    }
+    out
+}
+
+/// The operation-count sentence of a function's comment: one figure, or the fast
+/// path's and the worst case's when the kernel recurrence makes them differ.
+pub fn ops_sentence(ops: Ops, ops_dot: Ops) -> String {
+    if ops == ops_dot {
+        format!("Operations: {ops}.")
+    } else {
+        format!(
+            "Operations: {ops} with every segment's |a_j| <= {} (kernel recurrence); {ops_dot} beyond.",
+            crate::kernel_matrix::FAST_BENDING
+        )
     }
 }

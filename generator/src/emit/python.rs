@@ -5,7 +5,10 @@ use super::body::{
     angle_increment, inline, moment_argument, outputs, temporaries, Spelling, StmtStyle,
 };
 use super::c::wrap_list;
-use super::constants::{base_context, strings, use_pairs, MomentConstants};
+use super::constants::{
+    base_context, family_pairs, family_scales, matrix_table_context, strings, use_pairs,
+    MomentConstants,
+};
 use super::golden::{Golden, SIGMAS};
 use super::number::{f64_literal, golden_literal, Precision};
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
@@ -102,7 +105,7 @@ fn function(
             out.push_str(&format!("    phi {op} {inc}\n    cphi[{j}] = math.cos(phi)\n    sphi[{j}] = math.sin(phi)\n"));
         }
     }
-    if !b.kernels.is_empty() {
+    if !b.kernels.is_empty() && f.families.is_empty() {
         let upper = spec.fname.trim_start_matches('_').to_uppercase();
         let items = use_pairs(&b.kernels);
         rows = format!(
@@ -110,6 +113,41 @@ fn function(
             tuple(&items, 4)
         );
         out.push_str(&format!("    kern = _kernels(_{upper}_ROWS, nu)\n"));
+    } else if !b.kernels.is_empty() {
+        let upper = spec.fname.trim_start_matches('_').to_uppercase();
+        out.push_str(&format!("    kern = [0.0] * {}\n", b.kernels.len()));
+        for (i, (start, count)) in f.dot_ranges().into_iter().enumerate() {
+            let items = use_pairs(&b.kernels[start..start + count]);
+            rows.push_str(&format!(
+                "# pairs (row, moment base) of kernels {start} .. {}\n_{upper}_ROWS{i} = _kernel_plan({})\n",
+                start + count,
+                tuple(&items, 4)
+            ));
+            out.push_str(&format!(
+                "    kern[{start}:{}] = _kernels(_{upper}_ROWS{i}, nu)\n",
+                start + count
+            ));
+        }
+        for (k, fam) in f.families.iter().enumerate() {
+            let size = plan.matrix_tables[fam.table].size;
+            let arg = inline(&moment_argument(plan, fam.seg, false), &syn);
+            let pairs = family_pairs(fam);
+            let scales = family_scales(fam, Precision::F64);
+            let (s0, s1) = (fam.start, fam.start + fam.count);
+            rows.push_str(&format!(
+                "# kernels {s0} .. {s1}: segment {seg}'s double kernels (see _family)\n\
+                 _{upper}_FAMILY{k} = _family_plan(\n    {size}, {t},\n    {},\n    {},\n    {},\n    {},\n)\n",
+                tuple(&use_pairs(&fam.seeds), 4),
+                tuple(&pairs, 4),
+                tuple(&scales, 4),
+                tuple(&use_pairs(&b.kernels[s0..s1]), 4),
+                seg = fam.seg + 1,
+                t = fam.table,
+            ));
+            out.push_str(&format!(
+                "    kern[{s0}:{s1}] = _family(_{upper}_FAMILY{k}, {arg}, nu)\n"
+            ));
+        }
     }
     let with = PARAMETRIC_FUNCTIONS.contains(&spec.fname);
     if with {
@@ -122,7 +160,7 @@ fn function(
     PyFunc {
         rows,
         formula: spec.formula.into(),
-        ops: format!("Operations: {}.", f.ops),
+        ops: super::plan::ops_sentence(f.ops, f.ops_dot),
         signature: signature(plan, spec.fname, spec.params, with),
         body: out,
     }
@@ -287,7 +325,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         PyFunc {
             rows: String::new(),
             formula: "Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.".into(),
-            ops: format!("Operations: {}.", plan.terms.ops),
+            ops: super::plan::ops_sentence(plan.terms.ops, plan.terms.ops_dot),
             signature: signature(plan, "coriolis", &["q", "qd"], true),
             body: format!(
                 "    P = _params({})\n    return terms(q, qd, **P._asdict())[1]\n",
@@ -301,7 +339,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         PyFunc {
             rows: String::new(),
             formula: "Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().".into(),
-            ops: format!("Operations: {}.", plan.kinetic_energy),
+            ops: super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
             signature: signature(plan, "kinetic_energy", &["q", "qd"], true),
             body: format!(
                 "    P = _params({})\n    qd = np.asarray(_vector(qd, NQ, \"qd\"))\n    \
@@ -387,6 +425,10 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &format!("\n{},\n", wrap_list(&strings(&mc.first), 4)),
     );
     ctx.insert("kernel_coef", &format!("\n{},\n", wrap_list(&mc.coef, 4)));
+    ctx.insert(
+        "matrix_tables",
+        &matrix_table_context(plan, Precision::F64, &|v| v.join(", ")),
+    );
     ctx.insert("functions", &funcs);
     ctx.insert("ntheta", &plan.params.linear_len());
     // The runtime parameters: keyword-only arguments, the arm file's values by default.
@@ -410,7 +452,10 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .collect();
     ctx.insert("param_defaults", &defaults);
     ctx.insert("pose_names", &pose_names);
-    ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
+    ctx.insert(
+        "dynamics_ops",
+        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
+    );
     super::control_code::insert_python(&mut ctx, plan);
     ctx.insert("golden", &golden_python(golden));
     ctx.insert(

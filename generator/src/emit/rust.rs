@@ -6,7 +6,10 @@ use super::body::{
     angle_increment, inline, moment_argument, outputs, temp_slots, temporaries, Spelling, StmtStyle,
 };
 use super::c::wrap_list;
-use super::constants::{base_context, strings, use_max, use_pairs, MomentConstants};
+use super::constants::{
+    base_context, family_pairs, family_scales, matrix_table_context, pair_max, strings, use_max,
+    use_pairs, MomentConstants,
+};
 use super::golden::{Golden, SIGMAS};
 use super::number::Precision;
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
@@ -90,6 +93,9 @@ fn body(
     if !b.kernels.is_empty() {
         pieces.push(("kern", b.kernels.len()));
     }
+    if !func.families.is_empty() {
+        pieces.push(("hk", func.matrix_scratch(&plan.matrix_tables)));
+    }
     if slot_count > 0 {
         pieces.push(("t", slot_count));
     }
@@ -152,7 +158,60 @@ fn body(
             2 * b.kernels.len(),
             wrap_list(&items, 4)
         );
-        out.push_str(&format!("kernels(&{upper}_ROWS, nu, kern);\n"));
+        for (start, count) in func.dot_ranges() {
+            let (a, b) = (2 * start, 2 * (start + count));
+            out.push_str(&format!(
+                "kernels(&{upper}_ROWS[{a}..{b}], nu, &mut kern[{start}..{}]);\n",
+                start + count
+            ));
+        }
+        for (k, f) in func.families.iter().enumerate() {
+            let size = plan.matrix_tables[f.table].size;
+            let arg = inline(&moment_argument(plan, f.seg, false), &syn);
+            let seeds = use_pairs(&f.seeds);
+            let idx = family_pairs(f);
+            let scales = family_scales(f, Precision::F64);
+            rows.push_str(&format!(
+                "/// Kernels {start}..{end} of `{fname}`: segment {seg}'s double kernels, from \
+                 its half kernels when `|a| ≤ FAST_BENDING` (`kernel_recurrence`): the top \
+                 row's uses (row, moment base), then per kernel two entries of the half \
+                 kernels and the factor.\n\
+                 static {upper}_SEEDS{k}: [{rt}; {ns}] = [{}];\n\
+                 static {upper}_PAIRS{k}: [{pt}; {ni}] = [{}];\n\
+                 static {upper}_SCALES{k}: [f64; {nc}] = [{}];\n",
+                wrap_list(&seeds, 4),
+                wrap_list(&idx, 4),
+                wrap_list(&scales, 4),
+                start = f.start,
+                end = f.start + f.count,
+                seg = f.seg + 1,
+                rt = uint(max),
+                pt = uint(pair_max(plan)),
+                ns = seeds.len(),
+                ni = idx.len(),
+                nc = scales.len(),
+            ));
+            let (s0, s1) = (f.start, f.start + f.count);
+            out.push_str(&format!(
+                "{{\nlet a = {arg};\n\
+                 if libm::fabs(a) <= FAST_BENDING {{\n\
+                 kernels(&{upper}_SEEDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
+                 kernels(&{upper}_SEEDS{k}[{size2}..], nu, &mut hk[{top_im}..{top_im_end}]);\n\
+                 kernel_recurrence({size}, a, &TAIL_MOMENTS{t}, hk);\n\
+                 kernel_entries(&{upper}_PAIRS{k}, &{upper}_SCALES{k}, {size}, hk, &mut kern[{s0}..{s1}]);\n\
+                 }} else {{\n\
+                 kernels(&{upper}_ROWS[{r0}..{r1}], nu, &mut kern[{s0}..{s1}]);\n\
+                 }}\n}}\n",
+                size2 = 2 * size,
+                top_re = (size - 1) * size,
+                top_re_end = size * size,
+                top_im = size * size + (size - 1) * size,
+                top_im_end = 2 * size * size,
+                t = f.table,
+                r0 = 2 * s0,
+                r1 = 2 * s1,
+            ));
+        }
     }
     if !b.reads_params && PARAMETRIC_FUNCTIONS.contains(&fname) {
         out.push_str("let _ = p;\n");
@@ -168,7 +227,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let name = plan.name.as_str();
     let n = plan.n;
     let k = plan.k;
-    let ops_line = |f: &Func| format!("Operations: {}.", f.ops);
+    let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_dot);
     let mut funcs = Vec::new();
     let mat = |rows: &str, cols: &str| format!("[[f64; {cols}]; {rows}]");
     let mut work_len = 0usize;
@@ -397,7 +456,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     public(
         "kinetic_energy",
         "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].",
-        format!("Operations: {}.", plan.kinetic_energy),
+        super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
         &both,
         "f64",
         String::new(),
@@ -534,6 +593,11 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("pair_inv", &mc.pair_inv.join(", "));
     ctx.insert("series", &series.join(", "));
     ctx.insert("kernel_nnz", &mc.coef.len());
+    ctx.insert(
+        "matrix_tables",
+        &matrix_table_context(plan, Precision::F64, &|v| v.join(", ")),
+    );
+    ctx.insert("pair_type", uint(pair_max(plan)));
     ctx.insert("start_type", uint(mc.coef.len()));
     ctx.insert("index_type", uint(plan.moment_max));
     ctx.insert("row_type", uint(use_max(plan)));
@@ -545,7 +609,10 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("pose_work", &pose_work);
     ctx.insert("dynamics_work", &dynamics_work);
     ctx.insert("work_len", &work_len);
-    ctx.insert("dynamics_ops", &format!("Operations: {}.", plan.dynamics));
+    ctx.insert(
+        "dynamics_ops",
+        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
+    );
     ctx.insert("statics_work", &statics_work);
     ctx.insert("ntheta", &plan.params.linear_len());
     // The runtime parameters' struct fields and the arm file's values.

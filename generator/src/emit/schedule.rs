@@ -14,6 +14,7 @@
 //!   fraction of the code size and compile time.
 
 use super::ops::Ops;
+use crate::derive::KernelEntry;
 use crate::exact::Q;
 use crate::ir::{Id, Node, Program, Var};
 use num_traits::{One, Signed, Zero};
@@ -43,6 +44,20 @@ impl NuLayout {
         let mut len = 0;
         for c in &count {
             offset.push(len);
+            len += 2 * c;
+        }
+        NuLayout { offset, count, len }
+    }
+
+    /// The layout with room for at least `reach[seg]` moments per segment.
+    pub fn with_reach(&self, reach: &[usize]) -> NuLayout {
+        let mut offset = Vec::with_capacity(self.count.len());
+        let mut count = Vec::with_capacity(self.count.len());
+        let mut len = 0;
+        for (c, r) in self.count.iter().zip(reach) {
+            let c = if *c > 0 { (*c).max(*r) } else { 0 };
+            offset.push(len);
+            count.push(c);
             len += 2 * c;
         }
         NuLayout { offset, count, len }
@@ -195,6 +210,14 @@ pub struct KernelUse {
     pub base: usize,
 }
 
+/// A kernel use that is `scale ·` one part of a double kernel `D_st`: on the fast path
+/// it is read off the segment's kernel matrix ([`crate::kernel_matrix`]).
+#[derive(Clone, Debug, PartialEq, Eq)]
+pub struct MatrixUse {
+    pub entry: KernelEntry,
+    pub scale: Q,
+}
+
 /// Kernel rows of all functions, in first-use order, deduplicated by pattern.
 #[derive(Clone, Debug, Default)]
 pub struct KernelTable {
@@ -203,11 +226,26 @@ pub struct KernelTable {
     by_node: BTreeMap<Id, KernelUse>,
 }
 
+impl KernelTable {
+    /// The index of `row`, added when new.
+    pub fn intern(&mut self, row: KernelRow) -> usize {
+        let next = self.rows.len();
+        let r = *self.by_row.entry(row.clone()).or_insert(next);
+        if r == next {
+            self.rows.push(row);
+        }
+        r
+    }
+}
+
 /// One function's schedule.
 #[derive(Clone, Debug)]
 pub struct Block {
-    /// Table rows this function evaluates, in `kern[]` order.
+    /// Table rows this function evaluates, in `kern[]` order: the uses that are not
+    /// double-kernel parts first, then those that are, grouped by segment and weight.
     pub kernels: Vec<KernelUse>,
+    /// Per kernel use, the double-kernel part it is, if any.
+    pub matrix: Vec<Option<MatrixUse>>,
     pub stmts: Vec<Stmt>,
     /// One expression per requested root.
     pub outputs: Vec<Expr>,
@@ -230,6 +268,7 @@ pub struct Block {
 pub struct Scheduler<'p> {
     prog: &'p Program,
     layout: &'p NuLayout,
+    entries: &'p BTreeMap<Id, KernelEntry>,
     /// Number of moment leaves below a node when it is a linear form in `Var::Nu`, else 0.
     lin: Vec<u32>,
     /// For a linear form in the moments: the one moment base all its leaves read
@@ -247,7 +286,11 @@ struct BlockState {
 }
 
 impl<'p> Scheduler<'p> {
-    pub fn new(prog: &'p Program, layout: &'p NuLayout) -> Self {
+    pub fn new(
+        prog: &'p Program,
+        layout: &'p NuLayout,
+        entries: &'p BTreeMap<Id, KernelEntry>,
+    ) -> Self {
         let nodes = prog.nodes();
         let mut lin = vec![0u32; nodes.len()];
         let mut base = vec![MIXED; nodes.len()];
@@ -271,6 +314,7 @@ impl<'p> Scheduler<'p> {
         Scheduler {
             prog,
             layout,
+            entries,
             lin,
             base,
             table: KernelTable::default(),
@@ -301,6 +345,28 @@ impl<'p> Scheduler<'p> {
         }
     }
 
+    /// The double-kernel part a kernel root is, through signs and constant factors.
+    fn matrix_use(&self, id: Id) -> Option<MatrixUse> {
+        let mut id = id;
+        let mut scale = Q::one();
+        loop {
+            if let Some(&entry) = self.entries.get(&id) {
+                return Some(MatrixUse { entry, scale });
+            }
+            match self.prog.node(id) {
+                Node::Neg(a) => {
+                    scale = -scale;
+                    id = *a;
+                }
+                Node::Mul(a, b) => {
+                    scale *= self.prog.as_const(*a)?;
+                    id = *b;
+                }
+                _ => return None,
+            }
+        }
+    }
+
     fn table_row(&mut self, id: Id) -> KernelUse {
         if let Some(&u) = self.table.by_node.get(&id) {
             return u;
@@ -313,11 +379,7 @@ impl<'p> Scheduler<'p> {
             .filter(|(_, c)| !c.is_zero())
             .map(|(i, c)| (i - base, c))
             .collect();
-        let next = self.table.rows.len();
-        let r = *self.table.by_row.entry(row.clone()).or_insert(next);
-        if r == next {
-            self.table.rows.push(row);
-        }
+        let r = self.table.intern(row);
         let u = KernelUse { row: r, base };
         self.table.by_node.insert(id, u);
         u
@@ -416,18 +478,29 @@ impl<'p> Scheduler<'p> {
             stmts: Vec::new(),
             next_temp: 0,
         };
-        // Kernel rows first, in node order (deterministic).
-        for i in 0..n {
-            if live[i] && kroot[i] {
-                let u = self.table_row(Id(i as u32));
-                for (n, _) in &self.table.rows[u.row] {
-                    // the moments a kernel reads count as read
-                    let (seg, k) = self.layout_seg(u.base + n);
-                    nu_count[seg] = nu_count[seg].max(k + 1);
-                }
-                st.kernel_pos.insert(i, st.kernels.len());
-                st.kernels.push(u);
+        // Kernel rows first: those that are no double-kernel part in node order, then
+        // the parts grouped by (segment, weight), each group in node order.
+        // (family key: segment and weight, or none), node, the part it is
+        type Ordered = (Option<(usize, usize)>, usize, Option<MatrixUse>);
+        let mut order: Vec<Ordered> = (0..n)
+            .filter(|&i| live[i] && kroot[i])
+            .map(|i| {
+                let m = self.matrix_use(Id(i as u32));
+                (m.as_ref().map(|m| (m.entry.seg, m.entry.weight)), i, m)
+            })
+            .collect();
+        order.sort_by_key(|o| (o.0, o.1));
+        let mut matrix = Vec::with_capacity(order.len());
+        for (_, i, m) in order {
+            let u = self.table_row(Id(i as u32));
+            for (n, _) in &self.table.rows[u.row] {
+                // the moments a kernel reads count as read
+                let (seg, k) = self.layout_seg(u.base + n);
+                nu_count[seg] = nu_count[seg].max(k + 1);
             }
+            st.kernel_pos.insert(i, st.kernels.len());
+            st.kernels.push(u);
+            matrix.push(m);
         }
         for i in 0..n {
             let is_op = matches!(nodes[i], Node::Add(..) | Node::Mul(..) | Node::Neg(..));
@@ -465,6 +538,7 @@ impl<'p> Scheduler<'p> {
         reads_sigma |= pose_nu_count.iter().any(|&c| c > 0);
         Block {
             kernels: st.kernels,
+            matrix,
             stmts: st.stmts,
             outputs,
             nu_count,

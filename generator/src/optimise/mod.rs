@@ -131,6 +131,9 @@ fn remap(m: &Model, program: Program, ids: &[Id]) -> Model {
         pose,
         parametric: m.parametric,
         regressor,
+        // The optimised program has new nodes: its kernels are all dot products.
+        kernel_entries: Default::default(),
+        kernel_weights: m.kernel_weights.clone(),
     }
 }
 

@@ -101,8 +101,8 @@ pub const NSEG: usize = 2;
 /// Number of linear parameters `θ` of [`regressor`]: the fields of [`Params`] but
 /// gravity, in order.
 pub const NTHETA: usize = 10;
-const NU_LEN: usize = 24;
-const MOMENTS_MAX: usize = 6;
+const NU_LEN: usize = 32;
+const MOMENTS_MAX: usize = 8;
 /// Why [`forward_dynamics`] failed.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub enum DynamicsError {
@@ -143,12 +143,12 @@ pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: f64 = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (83 reals, 664 bytes at most). Own one per
+/// plain functions keep on the stack (91 reals, 728 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([f64; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 83;
+pub const WORK_LEN: usize = 91;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -167,6 +167,8 @@ static ODD_INV: [f64; MOMENTS_MAX] = [
     0.14285714285714285,
     0.1111111111111111,
     0.09090909090909091,
+    0.07692307692307693,
+    0.06666666666666667,
 ];
 /// `1/((2n+1)(2n+3))`.
 static PAIR_INV: [f64; MOMENTS_MAX] = [
@@ -176,6 +178,8 @@ static PAIR_INV: [f64; MOMENTS_MAX] = [
     0.015873015873015872,
     0.010101010101010102,
     0.006993006993006993,
+    0.005128205128205128,
+    0.00392156862745098,
 ];
 /// Power-series factors `1/(k (2n+2k+1))` of the scaled `j_n`, `k = 1..11`.
 static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
@@ -270,6 +274,32 @@ static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
         0.0030303030303030303,
         0.0025974025974025974,
     ],
+    [
+        0.058823529411764705,
+        0.02631578947368421,
+        0.015873015873015872,
+        0.010869565217391304,
+        0.008,
+        0.006172839506172839,
+        0.0049261083743842365,
+        0.004032258064516129,
+        0.003367003367003367,
+        0.002857142857142857,
+        0.002457002457002457,
+    ],
+    [
+        0.05263157894736842,
+        0.023809523809523808,
+        0.014492753623188406,
+        0.01,
+        0.007407407407407408,
+        0.005747126436781609,
+        0.004608294930875576,
+        0.003787878787878788,
+        0.0031746031746031746,
+        0.002702702702702703,
+        0.002331002331002331,
+    ],
 ];
 /// `H_n(x) = (2n+1)!! j_n(x) / xⁿ` by its power series (`h = −x²/2`, `|x| < 1`).
 fn scaled_series(h: f64, n: usize) -> f64 {
@@ -284,16 +314,9 @@ fn scaled_series(h: f64, n: usize) -> f64 {
 /// Moment kernels: row `r` at moment base `b` is the dot product of its band
 /// `COEF[START[r]..START[r+1]]` with `nu[b + FIRST[r]..]`; a row is shared by every
 /// segment (and by real and imaginary parts) with the same weight shape.
-static KERNEL_START: [u8; 15] = [
-    0, 5, 7, 10, 12, 14, 16, 19, 23, 27, 30, 33, 39, 43, 48,
-];
+static KERNEL_START: [u8; 15] = [0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48];
 static KERNEL_FIRST: [u8; 14] = [0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
 static KERNEL_COEF: [f64; 48] = [
-    0.05,
-    -0.08333333333333333,
-    0.03571428571428571,
-    0.0,
-    -0.002380952380952381,
     0.5,
     -0.5,
     0.16666666666666666,
@@ -305,6 +328,11 @@ static KERNEL_COEF: [f64; 48] = [
     -0.01125,
     0.01125,
     0.01125,
+    0.05,
+    -0.08333333333333333,
+    0.03571428571428571,
+    0.0,
+    -0.002380952380952381,
     3.24e-6,
     -4.86e-6,
     1.62e-6,
@@ -375,7 +403,7 @@ fn kernels(uses: &[u8], nu: &[f64], kern: &mut [f64]) {
 /// `count` and carried down by `H_{n−1} = H_n − x² H_{n+1} / ((2n+1)(2n+3))` (errors
 /// shrink; exact at 0); Miller's downward recurrence for `|x| < count`; upward
 /// recurrence beyond (stable while `n < |x|`; NaN lands there). No branch divides by a
-/// small `a`. Worst case: 31 add, 86 mul, 2 div, 0 sqrt, 2 trig for 6 moments.
+/// small `a`. Worst case: 33 add, 100 mul, 2 div, 0 sqrt, 2 trig for 8 moments.
 fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
     let count = count.clamp(1, MOMENTS_MAX);
     let mut j = [0.0f64; MOMENTS_MAX];
@@ -458,49 +486,49 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
 }
 /// Kernels of `inertia`: pairs (row, moment base).
 static INERTIA_ROWS: [u8; 28] = [
-    0, 0, 1, 12, 1, 18, 2, 12, 2, 18, 0, 12, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 3, 12,
-    3, 18,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16,
+    7, 16,
 ];
-/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 45 reals).
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 53 reals).
 ///
 /// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(14);
     let t = &mut work[..7];
-    moments(0.15 * q[0], 5, nu, 0, 6);
-    moments(0.12 * q[1], 5, nu, 12, 18);
+    moments(0.15 * q[0], 5, nu, 0, 8);
+    moments(0.12 * q[1], 5, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&INERTIA_ROWS, nu, kern);
+    kernels(&INERTIA_ROWS[0..28], nu, &mut kern[0..14]);
     let mut out = [[0.0; NQ]; NQ];
-    t[0] = 0.0225 * kern[7] * (0.0036 * kern[2] * cphi[0] + 0.0036 * kern[1] * sphi[0])
-        + 0.0225 * kern[6] * (0.0036 * kern[1] * cphi[0] - 0.0036 * kern[2] * sphi[0]);
+    t[0] = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
+        + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]);
     t[1] = 0.15 * t[0];
-    t[0] = kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0];
-    t[2] = kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0];
-    t[3] = -0.0144 * cphi[0] * kern[13] - 0.0144 * sphi[0] * kern[12];
-    t[4] = 0.0144 * cphi[0] * kern[12] - 0.0144 * sphi[0] * kern[13];
-    t[5] = 0.0225 * kern[6]
-        * (0.000432 * kern[3] * cphi[0] - 0.000432 * kern[4] * sphi[0])
-        - 0.0225 * kern[7]
-            * (-0.000432 * kern[4] * cphi[0] - 0.000432 * kern[3] * sphi[0]) + kern[11];
+    t[0] = kern[6] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    t[2] = kern[7] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    t[3] = -0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8];
+    t[4] = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9];
+    t[5] = 0.0225 * kern[4]
+        * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
+        - 0.0225 * kern[5]
+            * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0]) + kern[13];
     t[6] = p.density_scale[1] * t[5] + 6.48e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[0] * t[3] + t[2] * t[4])
         + 0.018 * p.payload_rotary_inertia;
-    t[5] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t[1] + t[1] + kern[10];
-    out[0][0] = 2.6578125e-5 * kern[0] * p.density_scale[0]
+    t[5] = 0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4])
+        + t[1] + t[1] + kern[12];
+    out[0][0] = 2.6578125e-5 * kern[10] * p.density_scale[0]
         + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[5]
         + 1.62e-8 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[0] * t[0] + t[2] * t[2])
         + 0.0225 * p.payload_rotary_inertia;
     out[0][1] = t[6];
     out[1][0] = t[6];
-    out[1][1] = 6.2208e-6 * kern[5] * p.density_scale[1]
+    out[1][1] = 6.2208e-6 * kern[11] * p.density_scale[1]
         + 3.456e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[3] * t[3] + t[4] * t[4])
         + 0.0144 * p.payload_rotary_inertia;
@@ -510,9 +538,9 @@ fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
 ///
 /// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    inertia_in(&Params::DEFAULT, q, &mut [0.0; 45])
+    inertia_in(&Params::DEFAULT, q, &mut [0.0; 53])
 }
-/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (45 reals); the same values.
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
 /// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
@@ -522,7 +550,7 @@ pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
 ///
 /// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    inertia_in(p, q, &mut [0.0; 45])
+    inertia_in(p, q, &mut [0.0; 53])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -536,29 +564,29 @@ pub fn inertia_with_ws(
 }
 /// Kernels of `gravity`: pairs (row, moment base).
 static GRAVITY_ROWS: [u8; 24] = [
-    2, 0, 2, 6, 1, 12, 1, 18, 2, 12, 2, 18, 3, 0, 3, 6, 4, 6, 5, 0, 3, 12, 3, 18,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24,
 ];
-/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 40 reals).
+/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 48 reals).
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
 fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(12);
     let t = &mut work[..4];
-    moments(0.15 * q[0], 3, nu, 0, 6);
-    moments(0.12 * q[1], 3, nu, 12, 18);
+    moments(0.15 * q[0], 3, nu, 0, 8);
+    moments(0.12 * q[1], 3, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&GRAVITY_ROWS, nu, kern);
+    kernels(&GRAVITY_ROWS[0..24], nu, &mut kern[0..12]);
     let mut out = [0.0; NQ];
     t[0] = p.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
         + p.gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
         + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
-    t[1] = p.gravity[0] * (kern[8] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0])
-        + p.gravity[1] * (kern[9] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0]);
+    t[1] = p.gravity[0] * (kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + p.gravity[1] * (kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
     t[2] = p.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + p.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
     t[3] = p.gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
@@ -573,9 +601,9 @@ fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
-    gravity_in(&Params::DEFAULT, q, &mut [0.0; 40])
+    gravity_in(&Params::DEFAULT, q, &mut [0.0; 48])
 }
-/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (40 reals); the same values.
+/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (48 reals); the same values.
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
@@ -585,7 +613,7 @@ pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_with(p: &Params, q: &[f64; NQ]) -> [f64; NQ] {
-    gravity_in(p, q, &mut [0.0; 40])
+    gravity_in(p, q, &mut [0.0; 48])
 }
 /// [`gravity_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -621,25 +649,25 @@ pub fn actuation_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NU]; NQ] {
     actuation_in(q, &mut ws.0)
 }
 /// Kernels of `tip_jacobian`: pairs (row, moment base).
-static TIP_JACOBIAN_ROWS: [u8; 8] = [4, 6, 5, 0, 3, 12, 3, 18];
-/// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 28 reals).
+static TIP_JACOBIAN_ROWS: [u8; 8] = [3, 8, 4, 0, 2, 16, 2, 24];
+/// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 36 reals).
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
 fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let kern = &mut work[..4];
-    moments(0.15 * q[0], 2, nu, 0, 6);
-    moments(0.12 * q[1], 2, nu, 12, 18);
+    moments(0.15 * q[0], 2, nu, 0, 8);
+    moments(0.12 * q[1], 2, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&TIP_JACOBIAN_ROWS, nu, kern);
+    kernels(&TIP_JACOBIAN_ROWS[0..8], nu, &mut kern[0..4]);
     let mut out = [[0.0; NQ]; 3];
-    out[0][0] = kern[0] - 0.018 * nu[12] * sphi[0] - 0.018 * nu[18] * cphi[0];
+    out[0][0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
     out[0][1] = -0.0144 * cphi[0] * kern[3] - 0.0144 * sphi[0] * kern[2];
-    out[1][0] = kern[1] - 0.018 * nu[18] * sphi[0] + 0.018 * nu[12] * cphi[0];
+    out[1][0] = kern[1] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
     out[1][1] = 0.0144 * cphi[0] * kern[2] - 0.0144 * sphi[0] * kern[3];
     out[2][0] = 0.15;
     out[2][1] = 0.12;
@@ -649,9 +677,9 @@ fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
 pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
-    tip_jacobian_in(q, &mut [0.0; 28])
+    tip_jacobian_in(q, &mut [0.0; 36])
 }
-/// [`tip_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (28 reals); the same values.
+/// [`tip_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (36 reals); the same values.
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
 pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
@@ -659,24 +687,24 @@ pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
 }
 /// Kernels of `gravity_jacobian`: pairs (row, moment base).
 static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
-    8, 0, 8, 6, 1, 12, 1, 18, 2, 12, 2, 18, 8, 12, 8, 18, 9, 0, 9, 6, 10, 0, 10, 6, 3,
-    12, 3, 18, 9, 12, 9, 18,
+    8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2,
+    16, 2, 24, 9, 16, 9, 24,
 ];
-/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 45 reals).
+/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 53 reals).
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(16);
     let t = &mut work[..5];
-    moments(0.15 * q[0], 4, nu, 0, 6);
-    moments(0.12 * q[1], 4, nu, 12, 18);
+    moments(0.15 * q[0], 4, nu, 0, 8);
+    moments(0.12 * q[1], 4, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&GRAVITY_JACOBIAN_ROWS, nu, kern);
+    kernels(&GRAVITY_JACOBIAN_ROWS[0..32], nu, &mut kern[0..16]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = p.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
         + p.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
@@ -688,9 +716,9 @@ fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ
         + 0.03
             * (-0.003375 * p.gravity[0] * kern[8] - 0.003375 * p.gravity[1] * kern[9]);
     t[1] = p.gravity[0]
-        * (kern[10] - 0.0027 * nu[12] * cphi[0] + 0.0027 * nu[18] * sphi[0])
+        * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
         + p.gravity[1]
-            * (kern[11] - 0.0027 * nu[18] * cphi[0] - 0.0027 * nu[12] * sphi[0]);
+            * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
     t[3] = p.gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
         + p.gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]);
     t[4] = p.gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
@@ -709,9 +737,9 @@ fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 45])
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 53])
 }
-/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (45 reals); the same values.
+/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
@@ -721,7 +749,7 @@ pub fn gravity_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ]
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    gravity_jacobian_in(p, q, &mut [0.0; 45])
+    gravity_jacobian_in(p, q, &mut [0.0; 53])
 }
 /// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -734,29 +762,29 @@ pub fn gravity_jacobian_with_ws(
     gravity_jacobian_in(p, q, &mut ws.0)
 }
 /// Kernels of `potential_energy`: pairs (row, moment base).
-static POTENTIAL_ENERGY_ROWS: [u8; 8] = [1, 0, 1, 6, 1, 12, 1, 18];
-/// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 30 reals).
+static POTENTIAL_ENERGY_ROWS: [u8; 8] = [0, 0, 0, 8, 0, 16, 0, 24];
+/// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 38 reals).
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
 fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(4);
     let t = &mut work[..2];
-    moments(0.15 * q[0], 2, nu, 0, 6);
-    moments(0.12 * q[1], 2, nu, 12, 18);
+    moments(0.15 * q[0], 2, nu, 0, 8);
+    moments(0.12 * q[1], 2, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&POTENTIAL_ENERGY_ROWS, nu, kern);
+    kernels(&POTENTIAL_ENERGY_ROWS[0..8], nu, &mut kern[0..4]);
     t[0] = p.gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
         + p.gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
-        + 0.03 * (0.15 * nu[0] * p.gravity[0] + 0.15 * nu[6] * p.gravity[1]);
+        + 0.03 * (0.15 * nu[0] * p.gravity[0] + 0.15 * nu[8] * p.gravity[1]);
     t[1] = p.gravity[0]
-        * (0.15 * nu[0] + 0.12 * nu[12] * cphi[0] - 0.12 * nu[18] * sphi[0])
+        * (0.15 * nu[0] + 0.12 * nu[16] * cphi[0] - 0.12 * nu[24] * sphi[0])
         + p.gravity[1]
-            * (0.15 * nu[6] + 0.12 * nu[18] * cphi[0] + 0.12 * nu[12] * sphi[0]);
+            * (0.15 * nu[8] + 0.12 * nu[24] * cphi[0] + 0.12 * nu[16] * sphi[0]);
     return 0.5
         * (0.00225 * p.stiffness_scale[0] * q[0] * q[0]
             + 0.00108 * p.stiffness_scale[1] * q[1] * q[1])
@@ -768,9 +796,9 @@ fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
 pub fn potential_energy(q: &[f64; NQ]) -> f64 {
-    potential_energy_in(&Params::DEFAULT, q, &mut [0.0; 30])
+    potential_energy_in(&Params::DEFAULT, q, &mut [0.0; 38])
 }
-/// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (30 reals); the same values.
+/// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (38 reals); the same values.
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
 pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
@@ -780,7 +808,7 @@ pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
 pub fn potential_energy_with(p: &Params, q: &[f64; NQ]) -> f64 {
-    potential_energy_in(p, q, &mut [0.0; 30])
+    potential_energy_in(p, q, &mut [0.0; 38])
 }
 /// [`potential_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -790,11 +818,11 @@ pub fn potential_energy_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -
 }
 /// Kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u8; 56] = [
-    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13,
-    18, 11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
-    18, 9, 12, 9, 18,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0,
+    9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24,
+    11, 24, 6, 16, 7, 16,
 ];
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 81 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 89 reals).
 ///
 /// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
@@ -806,86 +834,86 @@ fn terms_in(
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
     let t = &mut work[..29];
-    moments(0.15 * q[0], 6, nu, 0, 6);
-    moments(0.12 * q[1], 6, nu, 12, 18);
+    moments(0.15 * q[0], 6, nu, 0, 8);
+    moments(0.12 * q[1], 6, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&TERMS_ROWS, nu, kern);
+    kernels(&TERMS_ROWS[0..56], nu, &mut kern[0..28]);
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
     let mut g = [0.0; NQ];
-    t[0] = qd[1] * kern[10];
-    t[1] = qd[1] * kern[11];
-    t[2] = kern[4] * cphi[0];
-    t[3] = kern[5] * sphi[0];
-    t[4] = kern[5] * cphi[0];
-    t[5] = kern[4] * sphi[0];
+    t[0] = qd[1] * kern[6];
+    t[1] = qd[1] * kern[7];
+    t[2] = kern[2] * cphi[0];
+    t[3] = kern[3] * sphi[0];
+    t[4] = kern[3] * cphi[0];
+    t[5] = kern[2] * sphi[0];
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
-    t[8] = 0.15 * (0.0225 * kern[15] * t[7] + 0.0225 * kern[14] * t[6]);
-    t[9] = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
-    t[10] = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
-    t[11] = qd[0] * kern[20];
-    t[12] = qd[0] * kern[21];
-    t[13] = qd[1] * kern[7];
-    t[14] = qd[1] * kern[6];
-    t[15] = qd[0] * kern[8];
-    t[16] = nu[12] * cphi[0];
-    t[17] = nu[18] * sphi[0];
-    t[18] = nu[18] * cphi[0];
-    t[19] = nu[12] * sphi[0];
-    t[20] = kern[16] - 0.018 * t[19] - 0.018 * t[18];
-    t[21] = kern[17] - 0.018 * t[17] + 0.018 * t[16];
-    t[22] = cphi[0] * kern[25];
-    t[23] = sphi[0] * kern[24];
+    t[8] = 0.15 * (0.0225 * kern[9] * t[7] + 0.0225 * kern[8] * t[6]);
+    t[9] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    t[10] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    t[11] = qd[0] * kern[12];
+    t[12] = qd[0] * kern[13];
+    t[13] = qd[1] * kern[5];
+    t[14] = qd[1] * kern[4];
+    t[15] = qd[0] * kern[22];
+    t[16] = nu[16] * cphi[0];
+    t[17] = nu[24] * sphi[0];
+    t[18] = nu[24] * cphi[0];
+    t[19] = nu[16] * sphi[0];
+    t[20] = kern[10] - 0.018 * t[19] - 0.018 * t[18];
+    t[21] = kern[11] - 0.018 * t[17] + 0.018 * t[16];
+    t[22] = cphi[0] * kern[17];
+    t[23] = sphi[0] * kern[16];
     t[24] = -0.0144 * t[22] - 0.0144 * t[23];
-    t[25] = cphi[0] * kern[24];
-    t[26] = sphi[0] * kern[25];
+    t[25] = cphi[0] * kern[16];
+    t[26] = sphi[0] * kern[17];
     t[27] = 0.0144 * t[25] - 0.0144 * t[26];
     t[28] = 0.00216 * t[26] - 0.00216 * t[25];
     t[25] = -0.00216 * t[23] - 0.00216 * t[22];
-    t[22] = qd[0] * (kern[22] - 0.0027 * t[16] + 0.0027 * t[17]) + qd[1] * t[28];
-    t[16] = qd[0] * (kern[23] - 0.0027 * t[18] - 0.0027 * t[19]) + qd[1] * t[25];
+    t[22] = qd[0] * (kern[14] - 0.0027 * t[16] + 0.0027 * t[17]) + qd[1] * t[28];
+    t[16] = qd[0] * (kern[15] - 0.0027 * t[18] - 0.0027 * t[19]) + qd[1] * t[25];
     t[17] = qd[0] * t[28]
-        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
     t[18] = qd[0] * t[25]
-        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
+        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
     t[19] = p.density_scale[1]
-        * (0.0225 * kern[14] * t[10] - 0.0225 * kern[15] * t[9] + kern[19])
+        * (0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + kern[27])
         + 6.48e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[20] * t[24] + t[21] * t[27])
         + 0.018 * p.payload_rotary_inertia;
-    t[23] = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
-        + t[8] + t[8] + kern[18];
-    t[8] = 0.0225 * kern[15] * (0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[13])
-        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t[13] - 0.000432 * sphi[0] * t[14]);
-    t[13] = 0.03 * (7.59375e-5 * kern[15] * t[11] - 7.59375e-5 * kern[14] * t[12])
-        - 0.0225 * qd[0] * (0.0225 * kern[14] * t[7] - 0.0225 * kern[15] * t[6])
+    t[23] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t[8] + t[8] + kern[26];
+    t[8] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[13])
+        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t[13] - 0.000432 * sphi[0] * t[14]);
+    t[13] = 0.03 * (7.59375e-5 * kern[9] * t[11] - 7.59375e-5 * kern[8] * t[12])
+        - 0.0225 * qd[0] * (0.0225 * kern[8] * t[7] - 0.0225 * kern[9] * t[6])
         + 0.15 * t[8] + 0.15 * (0.003375 * t[7] * t[11] - 0.003375 * t[6] * t[12])
-        - 1.1664e-6 * qd[1] * kern[8];
-    t[6] = 0.15 * qd[0] * (0.0225 * kern[15] * t[10] + 0.0225 * kern[14] * t[9])
-        - 0.0225 * kern[15] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
-        + 0.0225 * kern[14] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[15] - 9.3312e-7 * qd[1] * kern[12];
+        - 1.1664e-6 * qd[1] * kern[22];
+    t[6] = 0.15 * qd[0] * (0.0225 * kern[9] * t[10] + 0.0225 * kern[8] * t[9])
+        - 0.0225 * kern[9] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
+        + 0.0225 * kern[8] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[15] - 9.3312e-7 * qd[1] * kern[24];
     t[0] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
-        + 0.03 * (0.0225 * p.gravity[1] * kern[14] - 0.0225 * p.gravity[0] * kern[15]);
-    b[0][0] = 2.6578125e-5 * kern[2] * p.density_scale[0]
+        + 0.03 * (0.0225 * p.gravity[1] * kern[8] - 0.0225 * p.gravity[0] * kern[9]);
+    b[0][0] = 2.6578125e-5 * kern[20] * p.density_scale[0]
         + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[23]
         + 1.62e-8 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[20] * t[20] + t[21] * t[21])
         + 0.0225 * p.payload_rotary_inertia;
     b[0][1] = t[19];
     b[1][0] = t[19];
-    b[1][1] = 6.2208e-6 * kern[9] * p.density_scale[1]
+    b[1][1] = 6.2208e-6 * kern[23] * p.density_scale[1]
         + 3.456e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[24] * t[24] + t[27] * t[27])
         + 0.0144 * p.payload_rotary_inertia;
     c[0][0] = p.density_scale[1] * t[13]
-        - 3.98671875e-6 * qd[0] * kern[3] * p.density_scale[0]
+        - 3.98671875e-6 * qd[0] * kern[21] * p.density_scale[0]
         + p.payload_mass * (t[20] * t[22] + t[21] * t[16]);
     c[0][1] = p.density_scale[1] * t[6]
         + p.payload_mass * (t[20] * t[17] + t[21] * t[18]);
@@ -893,7 +921,7 @@ fn terms_in(
         * (1.1664e-6 * t[15] - 0.003375 * t[9] * t[11] - 0.003375 * t[10] * t[12])
         + p.payload_mass * (t[24] * t[22] + t[27] * t[16]);
     c[1][1] = p.payload_mass * (t[24] * t[17] + t[27] * t[18])
-        - 7.46496e-7 * qd[1] * kern[13] * p.density_scale[1];
+        - 7.46496e-7 * qd[1] * kern[25] * p.density_scale[1];
     g[0] = -p.density_scale[0]
         * (0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0])
         - p.density_scale[1] * t[0]
@@ -909,9 +937,9 @@ pub fn terms(
     q: &[f64; NQ],
     qd: &[f64; NQ],
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 81])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (81 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 ///
 /// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
@@ -929,7 +957,7 @@ pub fn terms_with(
     q: &[f64; NQ],
     qd: &[f64; NQ],
 ) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 81])
+    terms_in(p, q, qd, &mut [0.0; 89])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -944,11 +972,11 @@ pub fn terms_with_ws(
 }
 /// Kernels of `regressor`: pairs (row, moment base).
 static REGRESSOR_ROWS: [u8; 56] = [
-    2, 0, 2, 6, 0, 0, 11, 6, 1, 12, 1, 18, 2, 12, 2, 18, 12, 18, 0, 12, 8, 12, 8, 18, 13,
-    18, 11, 18, 3, 0, 3, 6, 4, 6, 5, 0, 6, 12, 7, 12, 9, 0, 9, 6, 10, 0, 10, 6, 3, 12, 3,
-    18, 9, 12, 9, 18,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0,
+    9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24,
+    11, 24, 6, 16, 7, 16,
 ];
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 83 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 91 reals).
 ///
 /// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
 fn regressor_in(
@@ -961,70 +989,70 @@ fn regressor_in(
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
     let t = &mut work[..31];
-    moments(0.15 * q[0], 6, nu, 0, 6);
-    moments(0.12 * q[1], 6, nu, 12, 18);
+    moments(0.15 * q[0], 6, nu, 0, 8);
+    moments(0.12 * q[1], 6, nu, 16, 24);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     cphi[0] = libm::cos(phi);
     sphi[0] = libm::sin(phi);
-    kernels(&REGRESSOR_ROWS, nu, kern);
+    kernels(&REGRESSOR_ROWS[0..56], nu, &mut kern[0..28]);
     let mut out = [[0.0; NTHETA]; NQ];
-    t[0] = qd[1] * kern[10];
-    t[1] = qd[1] * kern[11];
-    t[2] = kern[4] * cphi[0];
-    t[3] = kern[5] * sphi[0];
-    t[4] = kern[5] * cphi[0];
-    t[5] = kern[4] * sphi[0];
+    t[0] = qd[1] * kern[6];
+    t[1] = qd[1] * kern[7];
+    t[2] = kern[2] * cphi[0];
+    t[3] = kern[3] * sphi[0];
+    t[4] = kern[3] * cphi[0];
+    t[5] = kern[2] * sphi[0];
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
-    t[8] = 0.15 * (0.0225 * kern[15] * t[7] + 0.0225 * kern[14] * t[6]);
-    t[9] = -0.000432 * kern[7] * cphi[0] - 0.000432 * kern[6] * sphi[0];
-    t[10] = 0.000432 * kern[6] * cphi[0] - 0.000432 * kern[7] * sphi[0];
-    t[11] = 0.0225 * kern[14] * t[10] - 0.0225 * kern[15] * t[9] + kern[19];
-    t[12] = qd[0] * kern[20];
-    t[13] = qd[0] * kern[21];
-    t[14] = qd[1] * kern[7];
-    t[15] = qd[1] * kern[6];
-    t[16] = qd[0] * kern[8];
-    t[17] = nu[12] * cphi[0];
-    t[18] = nu[18] * sphi[0];
-    t[19] = nu[18] * cphi[0];
-    t[20] = nu[12] * sphi[0];
-    t[21] = kern[16] - 0.018 * t[20] - 0.018 * t[19];
-    t[22] = kern[17] - 0.018 * t[18] + 0.018 * t[17];
-    t[23] = cphi[0] * kern[25];
-    t[24] = sphi[0] * kern[24];
+    t[8] = 0.15 * (0.0225 * kern[9] * t[7] + 0.0225 * kern[8] * t[6]);
+    t[9] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    t[10] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    t[11] = 0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + kern[27];
+    t[12] = qd[0] * kern[12];
+    t[13] = qd[0] * kern[13];
+    t[14] = qd[1] * kern[5];
+    t[15] = qd[1] * kern[4];
+    t[16] = qd[0] * kern[22];
+    t[17] = nu[16] * cphi[0];
+    t[18] = nu[24] * sphi[0];
+    t[19] = nu[24] * cphi[0];
+    t[20] = nu[16] * sphi[0];
+    t[21] = kern[10] - 0.018 * t[20] - 0.018 * t[19];
+    t[22] = kern[11] - 0.018 * t[18] + 0.018 * t[17];
+    t[23] = cphi[0] * kern[17];
+    t[24] = sphi[0] * kern[16];
     t[25] = -0.0144 * t[23] - 0.0144 * t[24];
-    t[26] = cphi[0] * kern[24];
-    t[27] = sphi[0] * kern[25];
+    t[26] = cphi[0] * kern[16];
+    t[27] = sphi[0] * kern[17];
     t[28] = 0.0144 * t[26] - 0.0144 * t[27];
     t[29] = t[21] * t[25] + t[22] * t[28];
     t[30] = 0.00216 * t[27] - 0.00216 * t[26];
     t[26] = -0.00216 * t[24] - 0.00216 * t[23];
-    t[23] = qd[0] * (kern[22] - 0.0027 * t[17] + 0.0027 * t[18]) + qd[1] * t[30];
-    t[17] = qd[0] * (kern[23] - 0.0027 * t[19] - 0.0027 * t[20]) + qd[1] * t[26];
+    t[23] = qd[0] * (kern[14] - 0.0027 * t[17] + 0.0027 * t[18]) + qd[1] * t[30];
+    t[17] = qd[0] * (kern[15] - 0.0027 * t[19] - 0.0027 * t[20]) + qd[1] * t[26];
     t[18] = qd[0] * t[30]
-        + qd[1] * (0.001728 * sphi[0] * kern[27] - 0.001728 * cphi[0] * kern[26]);
+        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
     t[19] = qd[0] * t[26]
-        + qd[1] * (-0.001728 * cphi[0] * kern[27] - 0.001728 * sphi[0] * kern[26]);
-    t[20] = 0.03 * (0.00050625 * kern[15] * kern[15] + 0.00050625 * kern[14] * kern[14])
-        + t[8] + t[8] + kern[18];
-    t[8] = 0.0225 * kern[15] * (0.000432 * cphi[0] * t[15] - 0.000432 * sphi[0] * t[14])
-        + 0.0225 * kern[14] * (-0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[15]);
-    t[14] = 0.03 * (7.59375e-5 * kern[15] * t[12] - 7.59375e-5 * kern[14] * t[13])
-        - 0.0225 * qd[0] * (0.0225 * kern[14] * t[7] - 0.0225 * kern[15] * t[6])
+        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
+    t[20] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t[8] + t[8] + kern[26];
+    t[8] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[15] - 0.000432 * sphi[0] * t[14])
+        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[15]);
+    t[14] = 0.03 * (7.59375e-5 * kern[9] * t[12] - 7.59375e-5 * kern[8] * t[13])
+        - 0.0225 * qd[0] * (0.0225 * kern[8] * t[7] - 0.0225 * kern[9] * t[6])
         + 0.15 * t[8] + 0.15 * (0.003375 * t[7] * t[12] - 0.003375 * t[6] * t[13])
-        - 1.1664e-6 * qd[1] * kern[8];
-    t[6] = 0.15 * qd[0] * (0.0225 * kern[15] * t[10] + 0.0225 * kern[14] * t[9])
-        - 0.0225 * kern[15] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
-        + 0.0225 * kern[14] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[16] - 9.3312e-7 * qd[1] * kern[12];
+        - 1.1664e-6 * qd[1] * kern[22];
+    t[6] = 0.15 * qd[0] * (0.0225 * kern[9] * t[10] + 0.0225 * kern[8] * t[9])
+        - 0.0225 * kern[9] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
+        + 0.0225 * kern[8] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[16] - 9.3312e-7 * qd[1] * kern[24];
     out[0][0] = 0.00118125 * kern[1] * p.gravity[0] - 0.00118125 * kern[0] * p.gravity[1]
-        + 2.6578125e-5 * kern[2] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[3];
+        + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
     out[0][1] = t[20] * qdd[0] - p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         - p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
-        - 0.03 * (0.0225 * p.gravity[1] * kern[14] - 0.0225 * p.gravity[0] * kern[15])
+        - 0.03 * (0.0225 * p.gravity[1] * kern[8] - 0.0225 * p.gravity[0] * kern[9])
         + qd[0] * t[14] + t[11] * qdd[1] + qd[1] * t[6];
     out[0][2] = 1.125e-8 * qdd[0];
     out[0][3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
@@ -1040,7 +1068,7 @@ fn regressor_in(
     out[1][1] = t[11] * qdd[0] - p.gravity[0] * t[9] - p.gravity[1] * t[10]
         + qd[0]
             * (1.1664e-6 * t[16] - 0.003375 * t[9] * t[12] - 0.003375 * t[10] * t[13])
-        + 6.2208e-6 * kern[9] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[13];
+        + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25];
     out[1][2] = 0.0;
     out[1][3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
     out[1][4] = 0.0;
@@ -1058,9 +1086,9 @@ fn regressor_in(
 ///
 /// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor(q: &[f64; NQ], qd: &[f64; NQ], qdd: &[f64; NQ]) -> [[f64; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 83])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 91])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (83 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (91 reals); the same values.
 ///
 /// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_ws(
@@ -1080,7 +1108,7 @@ pub fn regressor_with(
     qd: &[f64; NQ],
     qdd: &[f64; NQ],
 ) -> [[f64; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 83])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 91])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -1094,7 +1122,7 @@ pub fn regressor_with_ws(
 ) -> [[f64; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 81 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 89 reals).
 ///
 /// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 fn coriolis_in(
@@ -1109,9 +1137,9 @@ fn coriolis_in(
 ///
 /// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 81])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (81 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 ///
 /// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
@@ -1125,7 +1153,7 @@ pub fn coriolis_ws(
 ///
 /// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 81])
+    coriolis_in(p, q, qd, &mut [0.0; 89])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -1138,7 +1166,7 @@ pub fn coriolis_with_ws(
 ) -> [[f64; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 45 reals).
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 53 reals).
 ///
 /// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 fn kinetic_energy_in(
@@ -1162,9 +1190,9 @@ fn kinetic_energy_in(
 ///
 /// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
-    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 45])
+    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 53])
 }
-/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (45 reals); the same values.
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
 /// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
@@ -1174,7 +1202,7 @@ pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f
 ///
 /// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
-    kinetic_energy_in(p, q, qd, &mut [0.0; 45])
+    kinetic_energy_in(p, q, qd, &mut [0.0; 53])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -1240,7 +1268,7 @@ fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (pnu, work) = work.split_at_mut(2);
     let t = &mut work[..2];
-    moments(0.15 * q[0], 1, nu, 0, 6);
+    moments(0.15 * q[0], 1, nu, 0, 8);
     moments(0.12 * q[1] * sigma, 1, pnu, 0, 1);
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
@@ -1251,11 +1279,11 @@ fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
     t[0] = sigma * pnu[0];
     t[1] = sigma * pnu[1];
     out[0] = 0.15 * nu[0] + 0.12 * cphi[0] * t[0] - 0.12 * sphi[0] * t[1];
-    out[1] = 0.15 * nu[6] + 0.12 * cphi[0] * t[1] + 0.12 * sphi[0] * t[0];
+    out[1] = 0.15 * nu[8] + 0.12 * cphi[0] * t[1] + 0.12 * sphi[0] * t[0];
     out[2] = 0.15 * q[0] + 0.12 * sigma * q[1];
     out
 }
-/// The work of [`pose`] and [`pose_ws`], in `work` (at least 28 reals).
+/// The work of [`pose`] and [`pose_ws`], in `work` (at least 36 reals).
 fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64; 3] {
     if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
         return [f64::NAN; 3];
@@ -1273,10 +1301,10 @@ fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64;
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
 pub fn pose(q: &[f64; NQ], segment: usize, sigma: f64) -> [f64; 3] {
-    pose_in(q, segment, sigma, &mut [0.0; 28])
+    pose_in(q, segment, sigma, &mut [0.0; 36])
 }
 /// [`pose`] with its scratch in the caller's [`Workspace`] instead of on the stack
-/// (28 reals); the same values.
+/// (36 reals); the same values.
 pub fn pose_ws(
     q: &[f64; NQ],
     segment: usize,
@@ -1295,7 +1323,7 @@ pub fn forward_dynamics(
     qd: &[f64; NQ],
     u: &[f64; NU],
 ) -> Result<[f64; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 81])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 89])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -1304,10 +1332,10 @@ pub fn forward_dynamics_with(
     qd: &[f64; NQ],
     u: &[f64; NU],
 ) -> Result<[f64; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 81])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 89])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (81 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -1327,7 +1355,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 81 reals).
+/// 89 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[f64; NQ],
@@ -1430,7 +1458,7 @@ const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
 const EQUILIBRIUM_MIN_STEP: f64 = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
 const EQUILIBRIUM_MAX_BENDING_STEP: f64 = 0.5;
-const STATICS_WORK: usize = 45;
+const STATICS_WORK: usize = 53;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
 fn bending(v: &[f64; NQ]) -> f64 {
     let mut worst: f64 = 0.0;
