@@ -261,13 +261,13 @@ static const unsigned char twin_tendon_kernel_first[14] = {
 static const double twin_tendon_kernel_coef[48] = {
     0.5, -0.5, 0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125,
     0.01125, 0.01125, 0.05, -0.08333333333333333, 0.03571428571428571, 0.0,
-    -0.002380952380952381, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
-    0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.3333333333333333, 0.5,
-    0.16666666666666666, -0.001125, -0.0016875, -0.0005625, 0.005555555555555556,
-    -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
-    -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
-    0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
-    0.002380952380952381
+    -0.002380952380952381, 0.3333333333333333, -0.5, 0.16666666666666666, 0.125, -0.175,
+    0.041666666666666664, 0.008333333333333333, 0.08333333333333333, 0.05, -0.08333333333333333,
+    -0.05, 0.3333333333333333, 0.5, 0.16666666666666666, -0.001125, -0.0016875, -0.0005625,
+    0.005555555555555556, -0.004761904761904762, -0.00496031746031746, 0.005092592592592593,
+    -0.0005952380952380953, -0.00033068783068783067, 0.041666666666666664, -0.025,
+    -0.041666666666666664, 0.025, 0.03333333333333333, -0.016666666666666666,
+    -0.03571428571428571, 0.016666666666666666, 0.002380952380952381
 };
 
 /* kern[i] = kernel row uses[2i] at moment base uses[2i + 1], i < count; four partial
@@ -342,7 +342,7 @@ static const unsigned char twin_tendon_inertia_rows[28] = {
 };
 
 /* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 46 reals.
- * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -365,11 +365,11 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
     const double t5 = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9];
     const double t6 = 0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
-        + kern[13];
+        + 7.776e-6 * kern[13];
     const double t7 = P->density_scale[1] * t6 + 6.48e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P->payload_rotary_inertia;
     const double t8 = 0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4])
-        + t1 + t1 + kern[12];
+        + t1 + t1 + 9.72e-6 * kern[12];
     B[0] = 2.6578125e-5 * kern[10] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
         + P->density_scale[1] * t8 + 1.62e-8 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t2 * t2 + t3 * t3) + 0.0225 * P->payload_rotary_inertia;
@@ -381,7 +381,7 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
 
 
 /* twin_tendon_inertia_with_ws at the arm file's parameters.
- * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_inertia_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, B, work);
@@ -390,7 +390,7 @@ void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_with_ws with its scratch on this function's stack.
- * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_INERTIA_WORK];
@@ -401,7 +401,7 @@ void twin_tendon_inertia_with(const twin_tendon_params *P, const double q[TWIN_T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_ws with its scratch on this function's stack.
- * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_INERTIA_WORK];
@@ -547,7 +547,7 @@ static const unsigned char twin_tendon_regressor_rows[56] = {
 };
 
 /* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 60 reals.
- * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -572,7 +572,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6);
     const double t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     const double t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    const double t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27];
+    const double t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27];
     const double t12 = qd[0] * kern[12];
     const double t13 = qd[0] * kern[13];
     const double t14 = qd[1] * kern[5];
@@ -600,7 +600,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t35 = qd[0] * t31
         + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
     const double t36 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t8 + t8 + kern[26];
+        + t8 + t8 + 9.72e-6 * kern[26];
     const double t37 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
         + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15);
     const double t38 = 0.03 * (7.59375e-5 * kern[9] * t12 - 7.59375e-5 * kern[8] * t13)
@@ -643,7 +643,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
 
 
 /* twin_tendon_regressor_with_ws at the arm file's parameters.
- * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
     twin_tendon_regressor_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, qdd, Y, work);
@@ -652,7 +652,7 @@ void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TW
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_regressor_with_ws with its scratch on this function's stack.
- * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
 {
     double work[TWIN_TENDON_REGRESSOR_WORK];
@@ -663,7 +663,7 @@ void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_regressor_ws with its scratch on this function's stack.
- * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
 {
     double work[TWIN_TENDON_REGRESSOR_WORK];
@@ -811,7 +811,7 @@ static const unsigned char twin_tendon_terms_rows[56] = {
 };
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 60 reals.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -861,11 +861,11 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
         + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
     const double t33 = qd[0] * t29
         + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
-    const double t34 = P->density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27])
+    const double t34 = P->density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27])
         + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t20 * t24 + t21 * t27)
         + 0.018 * P->payload_rotary_inertia;
     const double t35 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t8 + t8 + kern[26];
+        + t8 + t8 + 9.72e-6 * kern[26];
     const double t36 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
         + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14);
     const double t37 = 0.03 * (7.59375e-5 * kern[9] * t11 - 7.59375e-5 * kern[8] * t12)
@@ -901,7 +901,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
 
 
 /* twin_tendon_terms_with_ws at the arm file's parameters.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_terms_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, B, C, G, work);
@@ -910,7 +910,7 @@ void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_with_ws with its scratch on this function's stack.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -921,7 +921,7 @@ void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TEN
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_ws with its scratch on this function's stack.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -931,7 +931,7 @@ void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TEND
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 50 reals.
- * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
@@ -951,7 +951,7 @@ double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const dou
 
 
 /* twin_tendon_kinetic_energy_with_ws at the arm file's parameters.
- * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
     return twin_tendon_kinetic_energy_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, work);
@@ -960,7 +960,7 @@ double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const doubl
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_with_ws with its scratch on this function's stack.
- * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
@@ -971,7 +971,7 @@ double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_ws with its scratch on this function's stack.
- * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
@@ -981,7 +981,7 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 66 reals.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
@@ -991,7 +991,7 @@ void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TW
 
 
 /* twin_tendon_coriolis_with_ws at the arm file's parameters.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_coriolis_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, C, work);
@@ -1000,7 +1000,7 @@ void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWI
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_with_ws with its scratch on this function's stack.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
@@ -1011,7 +1011,7 @@ void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_ws with its scratch on this function's stack.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];

@@ -151,7 +151,7 @@ twin_tendon_status twin_tendon_check_range(const double q[TWIN_TENDON_NQ]);
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -160,7 +160,7 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -218,7 +218,7 @@ void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TW
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
     double G[TWIN_TENDON_NQ], double work[]);
@@ -227,7 +227,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
  */
 double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
 double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
@@ -252,7 +252,7 @@ double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const d
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ],
     double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[]);
@@ -269,7 +269,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 247 add, 477 mul, 9 div, 2 sqrt, 6 trig.
+ * Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ], double work[]);

@@ -138,13 +138,13 @@ _KERNEL_FIRST = (
 _KERNEL_COEF = np.array((
     0.5, -0.5, 0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125,
     0.01125, 0.01125, 0.05, -0.08333333333333333, 0.03571428571428571, 0.0,
-    -0.002380952380952381, 3.24e-6, -4.86e-6, 1.62e-6, 9.72e-7, -1.3608e-6, 3.24e-7, 6.48e-8,
-    0.08333333333333333, 0.05, -0.08333333333333333, -0.05, 0.3333333333333333, 0.5,
-    0.16666666666666666, -0.001125, -0.0016875, -0.0005625, 0.005555555555555556,
-    -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
-    -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
-    0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
-    0.002380952380952381,
+    -0.002380952380952381, 0.3333333333333333, -0.5, 0.16666666666666666, 0.125, -0.175,
+    0.041666666666666664, 0.008333333333333333, 0.08333333333333333, 0.05, -0.08333333333333333,
+    -0.05, 0.3333333333333333, 0.5, 0.16666666666666666, -0.001125, -0.0016875, -0.0005625,
+    0.005555555555555556, -0.004761904761904762, -0.00496031746031746, 0.005092592592592593,
+    -0.0005952380952380953, -0.00033068783068783067, 0.041666666666666664, -0.025,
+    -0.041666666666666664, 0.025, 0.03333333333333333, -0.016666666666666666,
+    -0.03571428571428571, 0.016666666666666666, 0.002380952380952381,
 ))
 
 
@@ -297,7 +297,7 @@ _INERTIA_ROWS = _kernel_plan((
 def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
 
-    Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -320,11 +320,11 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     t5 = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9]
     t6 = (0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
-        + kern[13])
+        + 7.776e-6 * kern[13])
     t7 = (P.density_scale[1] * t6 + 6.48e-9 * P.rotary_inertia_scale[1]
         + P.payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P.payload_rotary_inertia)
     t8 = (0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4]) + t1 + t1
-        + kern[12])
+        + 9.72e-6 * kern[12])
     out[0, 0] = (2.6578125e-5 * kern[10] * P.density_scale[0]
         + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t8
         + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t2 * t2 + t3 * t3)
@@ -340,7 +340,7 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
 def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     return terms(q, qd, **P._asdict())[1]
@@ -490,7 +490,7 @@ def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
 
-    Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     qd = np.asarray(_vector(qd, NQ, "qd"))
@@ -550,7 +550,7 @@ _REGRESSOR_ROWS = _kernel_plan((
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Regressor Y(q, q', q''), NQ x NTHETA: Y theta = B q'' + C q' + G + K q + D q' exactly, for the linear parameters theta (the fields of Params but gravity, in order). Gravity is not in theta: the keyword gravity is read, the other parameters are ignored.
 
-    Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -577,7 +577,7 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6)
     t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
     t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
-    t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27]
+    t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27]
     t12 = qd[0] * kern[12]
     t13 = qd[0] * kern[13]
     t14 = qd[1] * kern[5]
@@ -603,7 +603,7 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t34 = qd[0] * t30 + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18])
     t35 = qd[0] * t31 + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18])
     t36 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t8 + t8
-        + kern[26])
+        + 9.72e-6 * kern[26])
     t37 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
         + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15))
     t38 = (0.03 * (7.59375e-5 * kern[9] * t12 - 7.59375e-5 * kern[8] * t13)
@@ -654,7 +654,7 @@ _TERMS_ROWS = _kernel_plan((
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -705,11 +705,11 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t31 = qd[0] * (kern[15] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29
     t32 = qd[0] * t28 + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18])
     t33 = qd[0] * t29 + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18])
-    t34 = (P.density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + kern[27])
+    t34 = (P.density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27])
         + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t24 + t21 * t27)
         + 0.018 * P.payload_rotary_inertia)
     t35 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t8 + t8
-        + kern[26])
+        + 9.72e-6 * kern[26])
     t36 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
         + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14))
     t37 = (0.03 * (7.59375e-5 * kern[9] * t11 - 7.59375e-5 * kern[8] * t12)
@@ -808,7 +808,7 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 247 add, 477 mul, 9 div, 2 sqrt, 6 trig.
+    Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")

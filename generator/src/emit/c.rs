@@ -5,8 +5,8 @@ use super::body::{
     temporaries, Spelling, StmtStyle,
 };
 use super::constants::{
-    base_context, family_pairs, family_scales, matrix_table_context, pair_max, strings, use_max,
-    use_pairs, MomentConstants,
+    base_context, family_pairs, matrix_table_context, pair_max, strings, use_max, use_pairs,
+    MomentConstants,
 };
 use super::control_code::{StaticsCallees, StaticsLayout};
 use super::golden::Golden;
@@ -221,18 +221,15 @@ impl Printer<'_> {
                 let arg = inline(&moment_argument(plan, f.seg, false), &syn);
                 let seeds = use_pairs(&f.seeds);
                 let idx = family_pairs(f);
-                let scales = family_scales(f, self.precision);
                 rows.push_str(&format!(
                     "/* Kernels {start} .. {end} of {n}_{fname}: segment {seg}'s double kernels, \
                      taken from its half kernels F (see {n}_kernel_recurrence) when \
                      |a| <= {upper}_FAST_BENDING; the top row's uses (row, moment base), \
-                     then per kernel the two entries of F and the factor. */\n\
+                     then per kernel the two entries of F. */\n\
                      static const {rt} {n}_{fname}_seeds{k}[{ns}] = {{\n{}\n}};\n\
-                     static const {it} {n}_{fname}_pairs{k}[{ni}] = {{\n{}\n}};\n\
-                     static const {r} {n}_{fname}_scales{k}[{nc}] = {{\n{}\n}};\n",
+                     static const {it} {n}_{fname}_pairs{k}[{ni}] = {{\n{}\n}};\n",
                     wrap_list(&seeds, 4),
                     wrap_list(&idx, 4),
-                    wrap_list(&scales, 4),
                     start = f.start,
                     end = f.start + f.count,
                     seg = f.seg + 1,
@@ -241,7 +238,6 @@ impl Printer<'_> {
                     ns = seeds.len(),
                     it = uint_type(pair_max(plan)),
                     ni = idx.len(),
-                    nc = scales.len(),
                 ));
                 out.push_str(&format!(
                     "    {{\n        const {r} a = {arg};\n        \
@@ -249,7 +245,7 @@ impl Printer<'_> {
                      {n}_kernels({n}_{fname}_seeds{k}, {size}, nu, &F[{top_re}]);\n            \
                      {n}_kernels(&{n}_{fname}_seeds{k}[{size2}], {size}, nu, &F[{top_im}]);\n            \
                      {n}_kernel_recurrence({size}, a, {n}_tail_moments{t}, F);\n            \
-                     {n}_kernel_entries({n}_{fname}_pairs{k}, {n}_{fname}_scales{k}, {count}, {size}, F, &kern[{start}]);\n        \
+                     {n}_kernel_entries({n}_{fname}_pairs{k}, {count}, {size}, F, &kern[{start}]);\n        \
                      }} else {{\n            \
                      {n}_kernels(&{n}_{fname}_rows[{rs}], {count}, nu, &kern[{start}]);\n        \
                      }}\n    }}\n",

@@ -146,14 +146,6 @@ pub fn family_pairs(f: &Family) -> Vec<String> {
         .collect()
 }
 
-/// A family's factors, one per kernel, as literals.
-pub fn family_scales(f: &Family, precision: Precision) -> Vec<String> {
-    f.entries
-        .iter()
-        .map(|e| literal(&e.scale, precision))
-        .collect()
-}
-
 /// Largest half-kernel index of any family, plus one: the pair arrays' element type.
 pub fn pair_max(plan: &Plan) -> usize {
     plan.matrix_tables

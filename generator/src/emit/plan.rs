@@ -83,8 +83,8 @@ pub struct Family {
     /// The top row's real parts (`size` uses, at the segment's real moment base), then
     /// its imaginary parts.
     pub seeds: Vec<KernelUse>,
-    /// Per use: `kern = scale · (F[first] + F[second])` (real part), or
-    /// `scale · (F[first] − F[second])` with both indices into the imaginary half.
+    /// Per use: `kern = F[first] + F[second]` (a real part), or `F[first] − F[second]`
+    /// with both indices into the imaginary half.
     pub entries: Vec<FamilyEntry>,
 }
 
@@ -92,8 +92,6 @@ pub struct Family {
 pub struct FamilyEntry {
     pub first: usize,
     pub second: usize,
-    pub im: bool,
-    pub scale: Q,
 }
 
 /// One controlled output of the emitted regulators, `y = Σ c_i q[index_i]`: a row
@@ -350,9 +348,8 @@ impl Plan {
                 fast.add += add;
                 fast.mul += mul;
                 fast.div += div;
-                // kern = scale · (F[first] ± F[second]), a table loop: always both.
+                // kern = F[first] ± F[second]
                 fast.add += f.entries.len();
-                fast.mul += f.entries.len();
                 let mut dot = Ops::default();
                 for u in &block.kernels[f.start..f.start + f.count] {
                     let nnz = sched.table.rows[u.row].len();
@@ -538,14 +535,11 @@ fn families(
             continue;
         }
         // So does a group whose dot products are cheaper than the recurrence (few
-        // kernels of low powers): top row, recurrence, one multiply-add per kernel.
+        // kernels of low powers): top row, recurrence, one addition per kernel.
         let nnz = |c: &Vec<Q>| c.iter().filter(|c| !c.is_zero()).count();
         let (add, mul, div) = candidate.recurrence_ops();
-        let fast = 2 * 2 * candidate.seeds.iter().map(nnz).sum::<usize>()
-            + add
-            + mul
-            + div
-            + 2 * (i - start);
+        let fast =
+            2 * 2 * candidate.seeds.iter().map(nnz).sum::<usize>() + add + mul + div + (i - start);
         let dot: usize = block.kernels[start..i]
             .iter()
             .map(|u| 2 * sched.table.rows[u.row].len())
@@ -584,8 +578,6 @@ fn families(
                 FamilyEntry {
                     first: half + s * size + t,
                     second: half + t * size + s,
-                    im: m.entry.im,
-                    scale: m.scale.clone(),
                 }
             })
             .collect();

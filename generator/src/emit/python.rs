@@ -6,8 +6,7 @@ use super::body::{
 };
 use super::c::wrap_list;
 use super::constants::{
-    base_context, family_pairs, family_scales, matrix_table_context, strings, use_pairs,
-    MomentConstants,
+    base_context, family_pairs, matrix_table_context, strings, use_pairs, MomentConstants,
 };
 use super::golden::{Golden, SIGMAS};
 use super::number::{f64_literal, golden_literal, Precision};
@@ -132,14 +131,12 @@ fn function(
             let size = plan.matrix_tables[fam.table].size;
             let arg = inline(&moment_argument(plan, fam.seg, false), &syn);
             let pairs = family_pairs(fam);
-            let scales = family_scales(fam, Precision::F64);
             let (s0, s1) = (fam.start, fam.start + fam.count);
             rows.push_str(&format!(
                 "# kernels {s0} .. {s1}: segment {seg}'s double kernels (see _family)\n\
-                 _{upper}_FAMILY{k} = _family_plan(\n    {size}, {t},\n    {},\n    {},\n    {},\n    {},\n)\n",
+                 _{upper}_FAMILY{k} = _family_plan(\n    {size}, {t},\n    {},\n    {},\n    {},\n)\n",
                 tuple(&use_pairs(&fam.seeds), 4),
                 tuple(&pairs, 4),
-                tuple(&scales, 4),
                 tuple(&use_pairs(&b.kernels[s0..s1]), 4),
                 seg = fam.seg + 1,
                 t = fam.table,

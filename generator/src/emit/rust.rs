@@ -7,8 +7,8 @@ use super::body::{
 };
 use super::c::wrap_list;
 use super::constants::{
-    base_context, family_pairs, family_scales, matrix_table_context, pair_max, strings, use_max,
-    use_pairs, MomentConstants,
+    base_context, family_pairs, matrix_table_context, pair_max, strings, use_max, use_pairs,
+    MomentConstants,
 };
 use super::golden::{Golden, SIGMAS};
 use super::number::Precision;
@@ -170,18 +170,15 @@ fn body(
             let arg = inline(&moment_argument(plan, f.seg, false), &syn);
             let seeds = use_pairs(&f.seeds);
             let idx = family_pairs(f);
-            let scales = family_scales(f, Precision::F64);
             rows.push_str(&format!(
                 "/// Kernels {start}..{end} of `{fname}`: segment {seg}'s double kernels, from \
                  its half kernels when `|a| ≤ FAST_BENDING` (`kernel_recurrence`): the top \
                  row's uses (row, moment base), then per kernel two entries of the half \
-                 kernels and the factor.\n\
+                 kernels.\n\
                  static {upper}_SEEDS{k}: [{rt}; {ns}] = [{}];\n\
-                 static {upper}_PAIRS{k}: [{pt}; {ni}] = [{}];\n\
-                 static {upper}_SCALES{k}: [f64; {nc}] = [{}];\n",
+                 static {upper}_PAIRS{k}: [{pt}; {ni}] = [{}];\n",
                 wrap_list(&seeds, 4),
                 wrap_list(&idx, 4),
-                wrap_list(&scales, 4),
                 start = f.start,
                 end = f.start + f.count,
                 seg = f.seg + 1,
@@ -189,7 +186,6 @@ fn body(
                 pt = uint(pair_max(plan)),
                 ns = seeds.len(),
                 ni = idx.len(),
-                nc = scales.len(),
             ));
             let (s0, s1) = (f.start, f.start + f.count);
             out.push_str(&format!(
@@ -198,7 +194,7 @@ fn body(
                  kernels(&{upper}_SEEDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
                  kernels(&{upper}_SEEDS{k}[{size2}..], nu, &mut hk[{top_im}..{top_im_end}]);\n\
                  kernel_recurrence({size}, a, &TAIL_MOMENTS{t}, hk);\n\
-                 kernel_entries(&{upper}_PAIRS{k}, &{upper}_SCALES{k}, {size}, hk, &mut kern[{s0}..{s1}]);\n\
+                 kernel_entries(&{upper}_PAIRS{k}, {size}, hk, &mut kern[{s0}..{s1}]);\n\
                  }} else {{\n\
                  kernels(&{upper}_ROWS[{r0}..{r1}], nu, &mut kern[{s0}..{s1}]);\n\
                  }}\n}}\n",

@@ -210,11 +210,14 @@ pub struct KernelUse {
     pub base: usize,
 }
 
-/// A kernel use that is `scale ·` one part of a double kernel `D_st`: on the fast path
-/// it is read off the segment's kernel matrix ([`crate::kernel_matrix`]).
+/// A kernel root that is `scale ·` one part of a double kernel `D_st` (node `node`):
+/// its kernel use is the part itself, read off the segment's half kernels on the fast
+/// path ([`crate::kernel_matrix`]), and `scale` goes into the code that reads it, where
+/// it merges with the constant factor the use has anyway.
 #[derive(Clone, Debug, PartialEq, Eq)]
 pub struct MatrixUse {
     pub entry: KernelEntry,
+    pub node: Id,
     pub scale: Q,
 }
 
@@ -279,6 +282,8 @@ pub struct Scheduler<'p> {
 
 struct BlockState {
     kernel_pos: BTreeMap<usize, usize>,
+    /// The factor a kernel root's readers apply to its use (double-kernel parts).
+    kernel_scale: BTreeMap<usize, Q>,
     kernels: Vec<KernelUse>,
     temp_of: BTreeMap<u32, usize>,
     stmts: Vec<Stmt>,
@@ -351,7 +356,11 @@ impl<'p> Scheduler<'p> {
         let mut scale = Q::one();
         loop {
             if let Some(&entry) = self.entries.get(&id) {
-                return Some(MatrixUse { entry, scale });
+                return Some(MatrixUse {
+                    entry,
+                    node: id,
+                    scale,
+                });
             }
             match self.prog.node(id) {
                 Node::Neg(a) => {
@@ -473,6 +482,7 @@ impl<'p> Scheduler<'p> {
         }
         let mut st = BlockState {
             kernel_pos: BTreeMap::new(),
+            kernel_scale: BTreeMap::new(),
             kernels: Vec::new(),
             temp_of: BTreeMap::new(),
             stmts: Vec::new(),
@@ -492,7 +502,13 @@ impl<'p> Scheduler<'p> {
         order.sort_by_key(|o| (o.0, o.1));
         let mut matrix = Vec::with_capacity(order.len());
         for (_, i, m) in order {
-            let u = self.table_row(Id(i as u32));
+            let u = match &m {
+                Some(m) => {
+                    st.kernel_scale.insert(i, m.scale.clone());
+                    self.table_row(m.node)
+                }
+                None => self.table_row(Id(i as u32)),
+            };
             for (n, _) in &self.table.rows[u.row] {
                 // the moments a kernel reads count as read
                 let (seg, k) = self.layout_seg(u.base + n);
@@ -570,7 +586,11 @@ impl<'p> Scheduler<'p> {
             return Expr::leaf(Leaf::Temp(t));
         }
         if kroot[i] {
-            return Expr::leaf(Leaf::Kernel(st.kernel_pos[&i]));
+            let mut e = Expr::leaf(Leaf::Kernel(st.kernel_pos[&i]));
+            if let Some(c) = st.kernel_scale.get(&i) {
+                e.terms[0].coef = c.clone();
+            }
+            return e;
         }
         match self.prog.node(id) {
             Node::Const(c) => Expr::constant(c.clone()),

@@ -333,13 +333,13 @@ static KERNEL_COEF: [f64; 48] = [
     0.03571428571428571,
     0.0,
     -0.002380952380952381,
-    3.24e-6,
-    -4.86e-6,
-    1.62e-6,
-    9.72e-7,
-    -1.3608e-6,
-    3.24e-7,
-    6.48e-8,
+    0.3333333333333333,
+    -0.5,
+    0.16666666666666666,
+    0.125,
+    -0.175,
+    0.041666666666666664,
+    0.008333333333333333,
     0.08333333333333333,
     0.05,
     -0.08333333333333333,
@@ -491,7 +491,7 @@ static INERTIA_ROWS: [u8; 28] = [
 ];
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 53 reals).
 ///
-/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
 fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(14);
@@ -515,12 +515,13 @@ fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     t[5] = 0.0225 * kern[4]
         * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5]
-            * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0]) + kern[13];
+            * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
+        + 7.776e-6 * kern[13];
     t[6] = p.density_scale[1] * t[5] + 6.48e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[0] * t[3] + t[2] * t[4])
         + 0.018 * p.payload_rotary_inertia;
     t[5] = 0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4])
-        + t[1] + t[1] + kern[12];
+        + t[1] + t[1] + 9.72e-6 * kern[12];
     out[0][0] = 2.6578125e-5 * kern[10] * p.density_scale[0]
         + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[5]
         + 1.62e-8 * p.rotary_inertia_scale[1]
@@ -536,25 +537,25 @@ fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
 }
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut [0.0; 53])
 }
 /// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
-/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
-/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     inertia_in(p, q, &mut [0.0; 53])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 127 add, 262 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -824,7 +825,7 @@ static TERMS_ROWS: [u8; 56] = [
 ];
 /// The work of [`terms`] and [`terms_ws`], in `work` (at least 89 reals).
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
     p: &Params,
     q: &[f64; NQ],
@@ -882,12 +883,12 @@ fn terms_in(
     t[18] = qd[0] * t[25]
         + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
     t[19] = p.density_scale[1]
-        * (0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + kern[27])
+        * (0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + 7.776e-6 * kern[27])
         + 6.48e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[20] * t[24] + t[21] * t[27])
         + 0.018 * p.payload_rotary_inertia;
     t[23] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t[8] + t[8] + kern[26];
+        + t[8] + t[8] + 9.72e-6 * kern[26];
     t[8] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[13])
         + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t[13] - 0.000432 * sphi[0] * t[14]);
     t[13] = 0.03 * (7.59375e-5 * kern[9] * t[11] - 7.59375e-5 * kern[8] * t[12])
@@ -932,7 +933,7 @@ fn terms_in(
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -941,7 +942,7 @@ pub fn terms(
 }
 /// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -951,7 +952,7 @@ pub fn terms_ws(
 }
 /// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with(
     p: &Params,
     q: &[f64; NQ],
@@ -961,7 +962,7 @@ pub fn terms_with(
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -978,7 +979,7 @@ static REGRESSOR_ROWS: [u8; 56] = [
 ];
 /// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 91 reals).
 ///
-/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 fn regressor_in(
     p: &Params,
     q: &[f64; NQ],
@@ -1009,7 +1010,7 @@ fn regressor_in(
     t[8] = 0.15 * (0.0225 * kern[9] * t[7] + 0.0225 * kern[8] * t[6]);
     t[9] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     t[10] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    t[11] = 0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + kern[27];
+    t[11] = 0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + 7.776e-6 * kern[27];
     t[12] = qd[0] * kern[12];
     t[13] = qd[0] * kern[13];
     t[14] = qd[1] * kern[5];
@@ -1037,7 +1038,7 @@ fn regressor_in(
     t[19] = qd[0] * t[26]
         + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
     t[20] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t[8] + t[8] + kern[26];
+        + t[8] + t[8] + 9.72e-6 * kern[26];
     t[8] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[15] - 0.000432 * sphi[0] * t[14])
         + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[15]);
     t[14] = 0.03 * (7.59375e-5 * kern[9] * t[12] - 7.59375e-5 * kern[8] * t[13])
@@ -1084,13 +1085,13 @@ fn regressor_in(
 }
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor(q: &[f64; NQ], qd: &[f64; NQ], qdd: &[f64; NQ]) -> [[f64; NTHETA]; NQ] {
     regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 91])
 }
 /// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (91 reals); the same values.
 ///
-/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -1101,7 +1102,7 @@ pub fn regressor_ws(
 }
 /// [`regressor`] at the runtime parameters `p`.
 ///
-/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with(
     p: &Params,
     q: &[f64; NQ],
@@ -1112,7 +1113,7 @@ pub fn regressor_with(
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 235 add, 465 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -1124,7 +1125,7 @@ pub fn regressor_with_ws(
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 89 reals).
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 fn coriolis_in(
     p: &Params,
     q: &[f64; NQ],
@@ -1135,13 +1136,13 @@ fn coriolis_in(
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
 }
 /// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -1151,13 +1152,13 @@ pub fn coriolis_ws(
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut [0.0; 89])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 234 add, 462 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -1168,7 +1169,7 @@ pub fn coriolis_with_ws(
 }
 /// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 53 reals).
 ///
-/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 fn kinetic_energy_in(
     p: &Params,
     q: &[f64; NQ],
@@ -1188,25 +1189,25 @@ fn kinetic_energy_in(
 }
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 53])
 }
 /// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
-/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
-/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
     kinetic_energy_in(p, q, qd, &mut [0.0; 53])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 131 add, 269 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -1317,7 +1318,7 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 247 add, 477 mul, 9 div, 2 sqrt, 6 trig.
+/// Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
 pub fn forward_dynamics(
     q: &[f64; NQ],
     qd: &[f64; NQ],
