@@ -9,8 +9,8 @@
 //!
 //! | arm (S, degree m, order N) | derive + eval: s, MB | generate: s, MB |
 //! |---|---|---|
-//! | 40, 0, 0 | 0.87, 143 | 45.6, 2723 |
-//! | 20, 1, 2 | 0.50, 69 | 18.7, 1663 |
+//! | 40, 0, 0 | 0.87, 143 | 35.6, 2730 |
+//! | 20, 1, 2 | 0.50, 69 | 15.1, 1648 |
 //! | 1, 3, 6 | 0.58, 30 | 2.0, 211 |
 //! | 1, 5, 8 | 8.5, 183 | 18.9, 1376 |
 //! | 4, 2, 4 | 0.21, 27 | 1.7, 245 |
@@ -75,7 +75,7 @@ pub fn estimate(arm: &Arm, work: Work) -> Estimate {
             megabytes: 6.0 + 2.1e-3 * chain + 3.1e-5 * local,
         },
         Work::Generate => Estimate {
-            seconds: 0.9 + 6.5e-4 * chain + 3.2e-6 * local,
+            seconds: 0.9 + 5.0e-4 * chain + 3.2e-6 * local,
             megabytes: 150.0 + 4.2e-2 * chain + 2.1e-4 * local,
         },
     }
@@ -135,8 +135,8 @@ mod tests {
     #[test]
     fn the_estimate_reproduces_the_measurements_it_was_fitted_to() {
         for (shape, derive, generate) in [
-            ((40, 0, 0), (0.87, 143.0), (45.6, 2723.0)),
-            ((20, 1, 2), (0.50, 69.0), (18.7, 1663.0)),
+            ((40, 0, 0), (0.87, 143.0), (35.6, 2730.0)),
+            ((20, 1, 2), (0.50, 69.0), (15.1, 1648.0)),
             ((1, 5, 8), (8.5, 183.0), (18.9, 1376.0)),
         ] {
             let a = arm(shape.0, shape.1, shape.2);
