@@ -173,12 +173,7 @@ impl Reducer {
 
     /// Registers the weight `P(σ)`; stores its tail integral `Ρ`.
     pub fn weight(&mut self, p: &[Q]) -> WeightId {
-        let tail = tail_integral(p);
-        if let Some(i) = self.weights.iter().position(|w| *w == tail) {
-            return WeightId(i);
-        }
-        self.weights.push(tail);
-        WeightId(self.weights.len() - 1)
+        self.weight_of_tail(&tail_integral(p))
     }
 
     /// Registers a weight by its tail integral `Ρ` directly (a tail of
@@ -215,12 +210,7 @@ impl Reducer {
     /// The weight that picks the segment's end: `Ρ ≡ 1`, so the single integral is
     /// `∫_0^1 V` (the field's integral up to σ = 1).
     pub fn end_point(&mut self) -> WeightId {
-        let one = vec![Q::one()];
-        if let Some(i) = self.weights.iter().position(|w| *w == one) {
-            return WeightId(i);
-        }
-        self.weights.push(one);
-        WeightId(self.weights.len() - 1)
+        self.weight_of_tail(&[Q::one()])
     }
 
     /// Legendre coefficients of `τ^s Ρ(τ)`.
