@@ -6,7 +6,7 @@
 //! counted at their worst-case trip counts.
 
 use std::fmt;
-use std::ops::{Add, AddAssign, Mul};
+use std::ops::{Add, AddAssign, Mul, Sub};
 
 #[derive(Clone, Copy, Debug, Default, PartialEq, Eq)]
 pub struct Ops {
@@ -32,6 +32,20 @@ impl Add for Ops {
     }
 }
 
+/// Removes counts that `self` includes (a part replaced by another way of computing it).
+impl Sub for Ops {
+    type Output = Ops;
+    fn sub(self, o: Ops) -> Ops {
+        Ops {
+            add: self.add - o.add,
+            mul: self.mul - o.mul,
+            div: self.div - o.div,
+            sqrt: self.sqrt - o.sqrt,
+            trig: self.trig - o.trig,
+        }
+    }
+}
+
 impl AddAssign for Ops {
     fn add_assign(&mut self, o: Ops) {
         *self = *self + o;
@@ -52,6 +66,11 @@ impl Mul<usize> for Ops {
 }
 
 impl Ops {
+    /// Every operation, of whatever kind.
+    pub fn total(self) -> usize {
+        self.add + self.mul + self.div + self.sqrt + self.trig
+    }
+
     /// Component-wise maximum (worst branch).
     pub fn max(self, o: Ops) -> Ops {
         Ops {

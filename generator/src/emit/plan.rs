@@ -86,6 +86,10 @@ pub struct Family {
     /// Per use: `kern = F[first] + F[second]` (a real part), or `F[first] − F[second]`
     /// with both indices into the imaginary half.
     pub entries: Vec<FamilyEntry>,
+    /// Operations of the family's kernels by the recurrence (top row, recurrence,
+    /// entries) and by their own rows.
+    pub fast: Ops,
+    pub dot: Ops,
 }
 
 #[derive(Clone, Debug)]
@@ -336,30 +340,7 @@ impl Plan {
                 ops += moment_ops(c, false) + moment_ops(pc, true);
             }
             let ops_dot = ops;
-            for f in &families {
-                let table = &matrix_tables[f.table];
-                let mut fast = Ops::default();
-                for u in &f.seeds {
-                    let nnz = sched.table.rows[u.row].len();
-                    fast.add += nnz;
-                    fast.mul += nnz;
-                }
-                let (add, mul, div) = table.recurrence_ops();
-                fast.add += add;
-                fast.mul += mul;
-                fast.div += div;
-                // kern = F[first] ± F[second]
-                fast.add += f.entries.len();
-                let mut dot = Ops::default();
-                for u in &block.kernels[f.start..f.start + f.count] {
-                    let nnz = sched.table.rows[u.row].len();
-                    dot.add += nnz;
-                    dot.mul += nnz;
-                }
-                ops.add = ops.add - dot.add + fast.add;
-                ops.mul = ops.mul - dot.mul + fast.mul;
-                ops.div += fast.div;
-            }
+            let ops = families.iter().fold(ops, |o, f| o - f.dot + f.fast);
             Func {
                 block,
                 families,
@@ -477,7 +458,7 @@ impl Plan {
             .chain(&self.actuation_jacobian)
             .chain(&self.regressor)
             .chain(&self.pose)
-            .map(|f| f.ops.add + f.ops.mul + f.ops.div + f.ops.sqrt + f.ops.trig)
+            .map(|f| f.ops.total())
             .sum()
     }
 
@@ -535,16 +516,30 @@ fn families(
             continue;
         }
         // So does a group whose dot products are cheaper than the recurrence (few
-        // kernels of low powers): top row, recurrence, one addition per kernel.
-        let nnz = |c: &Vec<Q>| c.iter().filter(|c| !c.is_zero()).count();
-        let (add, mul, div) = candidate.recurrence_ops();
-        let fast =
-            2 * 2 * candidate.seeds.iter().map(nnz).sum::<usize>() + add + mul + div + (i - start);
-        let dot: usize = block.kernels[start..i]
+        // kernels of low powers): the top row's real and imaginary parts, the
+        // recurrence, one addition per kernel (`F[first] ± F[second]`).
+        let seed_nnz: usize = candidate
+            .seeds
             .iter()
-            .map(|u| 2 * sched.table.rows[u.row].len())
+            .map(|c| c.iter().filter(|c| !c.is_zero()).count())
             .sum();
-        if fast >= dot {
+        let (add, mul, div) = candidate.recurrence_ops();
+        let fast = Ops {
+            add: 2 * seed_nnz + add + (i - start),
+            mul: 2 * seed_nnz + mul,
+            div,
+            ..Ops::default()
+        };
+        let dot_nnz: usize = block.kernels[start..i]
+            .iter()
+            .map(|u| sched.table.rows[u.row].len())
+            .sum();
+        let dot = Ops {
+            add: dot_nnz,
+            mul: dot_nnz,
+            ..Ops::default()
+        };
+        if fast.total() >= dot.total() {
             continue;
         }
         let table = known.unwrap_or_else(|| {
@@ -588,6 +583,8 @@ fn families(
             count: i - start,
             seeds,
             entries,
+            fast,
+            dot,
         });
     }
     out
