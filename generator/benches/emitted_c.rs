@@ -102,7 +102,7 @@ fn main() {
         t.elapsed()
     );
 
-    let plan = Plan::new(&model, true).unwrap();
+    let plan = Plan::new(&model, true, Precision::F64).unwrap();
     println!(
         "kernel table: {} rows, {} non-zeros",
         plan.table.rows.len(),
@@ -120,7 +120,7 @@ fn main() {
     }
     println!("ops {:>17}: {}", "kinetic_energy", plan.kinetic_energy);
     println!("ops {:>17}: {}", "forward_dynamics", plan.dynamics);
-    let plain = Plan::new(&model, false).unwrap();
+    let plain = Plan::new(&model, false, Precision::F64).unwrap();
     println!(
         "without the kernel table: inertia {}, terms {}",
         plain.inertia.ops, plain.terms.ops

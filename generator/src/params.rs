@@ -347,6 +347,7 @@ mod cost_tests {
     use crate::arm::parse_arm_file;
     use crate::derive::{derive_emitted, derive_statics};
     use crate::emit::plan::Plan;
+    use crate::emit::Precision;
     use num_traits::ToPrimitive;
 
     /// What taking the parameters at run time costs `terms`, against the same arm with
@@ -361,8 +362,8 @@ mod cost_tests {
                 let o = &p.terms.ops;
                 o.add + o.mul + o.div + o.sqrt + o.trig
             };
-            let folded = count(&Plan::build(&derive_statics(&arm), true).unwrap());
-            let with = count(&Plan::new(&derive_emitted(&arm), true).unwrap());
+            let folded = count(&Plan::build(&derive_statics(&arm), true, Precision::F64).unwrap());
+            let with = count(&Plan::new(&derive_emitted(&arm), true, Precision::F64).unwrap());
             let ratio = with as f64 / folded as f64;
             println!("{name}: terms {folded} ops folded, {with} with parameters ({ratio:.3}x)");
             assert!(

@@ -279,7 +279,7 @@ bending_stiffness = 0.008
             "slots.toml",
         )
         .unwrap();
-        let plan = Plan::new(&derive_emitted(&arm), true).unwrap();
+        let plan = Plan::new(&derive_emitted(&arm), true, Precision::F64).unwrap();
         let mut checked = 0;
         for f in [
             &plan.inertia,

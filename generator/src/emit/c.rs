@@ -91,6 +91,13 @@ impl Printer<'_> {
     fn upper(&self) -> String {
         self.name.to_uppercase()
     }
+    fn fabs(&self) -> &'static str {
+        if self.precision == Precision::F32 {
+            "fabsf"
+        } else {
+            "fabs"
+        }
+    }
     fn fs(&self) -> &'static str {
         if self.precision == Precision::F32 {
             "f"
@@ -175,10 +182,18 @@ impl Printer<'_> {
                 let off = plan.layout.offset[seg];
                 let im = off + plan.layout.count[seg];
                 let arg = inline(&moment_argument(plan, seg, false), &syn);
-                out.push_str(&format!(
-                    "    {}_moments({arg}, {c}, &nu[{off}], &nu[{im}]);\n",
-                    self.name
-                ));
+                let n = self.name;
+                out.push_str(&match func.moment_counts(seg) {
+                    None => format!("    {n}_moments({arg}, {c}, &nu[{off}], &nu[{im}]);\n"),
+                    // The fast path reads fewer: its top rows are cut to the precision.
+                    Some((fast, full)) => format!(
+                        "    {{\n        const {r} a = {arg};\n        \
+                         {n}_moments(a, {abs}(a) <= {upper}_FAST_BENDING ? {fast} : {full}, \
+                         &nu[{off}], &nu[{im}]);\n    }}\n",
+                        abs = self.fabs(),
+                        upper = self.upper(),
+                    ),
+                });
             }
         }
         if let Some(seg) = pose_seg {
@@ -249,7 +264,7 @@ impl Printer<'_> {
                      }} else {{\n            \
                      {n}_kernels(&{n}_{fname}_rows[{rs}], {count}, nu, &kern[{start}]);\n        \
                      }}\n    }}\n",
-                    abs = if self.precision == Precision::F32 { "fabsf" } else { "fabs" },
+                    abs = self.fabs(),
                     upper = self.upper(),
                     top_re = (size - 1) * size,
                     top_im = size * size + (size - 1) * size,

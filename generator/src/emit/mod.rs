@@ -202,7 +202,7 @@ pub fn emitted_ops(model: &Model) -> Result<usize, String> {
     let model = model.clone();
     std::thread::Builder::new()
         .stack_size(256 << 20)
-        .spawn(move || plan::Plan::new(&model, true).map(|p| p.emitted_ops()))
+        .spawn(move || plan::Plan::new(&model, true, Precision::F64).map(|p| p.emitted_ops()))
         .map_err(|e| format!("spawning the planning thread: {e}"))?
         .join()
         .map_err(|_| "the planning thread panicked".to_string())?
@@ -216,7 +216,14 @@ fn emit_inner(
 ) -> Result<Vec<OutFile>, String> {
     let meta = Meta::new(arm_text, model.arm.expansion_order);
     progress("scheduling the code");
-    let plan = plan::Plan::new(model, true)?;
+    let plan = plan::Plan::new(model, true, Precision::F64)?;
+    // Single-precision C resolves fewer moments on the fast path: its own plan.
+    let c_plan = match options.precision {
+        Precision::F32 if options.languages.contains(Language::C) => {
+            Some(plan::Plan::new(model, true, Precision::F32)?)
+        }
+        _ => None,
+    };
     progress("golden values from the numeric reference");
     let golden = golden::Golden::compute(model)?;
     let mut files = Vec::new();
@@ -227,7 +234,12 @@ fn emit_inner(
             Language::Python => "printing Python",
         });
         files.extend(match language {
-            Language::C => c::emit(&plan, &meta, options.precision, &golden)?,
+            Language::C => c::emit(
+                c_plan.as_ref().unwrap_or(&plan),
+                &meta,
+                options.precision,
+                &golden,
+            )?,
             Language::Rust => rust::emit(&plan, &meta, &golden)?,
             Language::Python => python::emit(&plan, &meta, &golden)?,
         });

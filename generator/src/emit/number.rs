@@ -15,6 +15,16 @@ pub enum Precision {
     F64,
 }
 
+impl Precision {
+    /// Unit roundoff `u` of round-to-nearest: half the gap between 1 and the next number.
+    pub fn unit_roundoff(self) -> f64 {
+        match self {
+            Precision::F32 => f64::from(f32::EPSILON) / 2.0,
+            Precision::F64 => f64::EPSILON / 2.0,
+        }
+    }
+}
+
 /// What a constant that is not finite at the target precision prints as: no language
 /// reads it, and [`super::emit`] refuses any output that holds it, so a model whose
 /// numbers overflow never reaches disk as code that does not compile (or, worse, does).

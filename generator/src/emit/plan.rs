@@ -2,12 +2,13 @@
 //! the shared moment-kernel table and each function's operation count. The language
 //! modules only print a [`Plan`].
 
+use super::number::Precision;
 use super::ops::Ops;
 use super::schedule::{Block, KernelRow, KernelTable, KernelUse, NuLayout, Scheduler};
 use crate::derive::Model;
 use crate::exact::{int, Q};
 use crate::ir::{Id, Program};
-use crate::kernel_matrix::MatrixTable;
+use crate::kernel_matrix::{resolved_band, MatrixTable};
 use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use num_traits::Zero;
 
@@ -40,23 +41,51 @@ pub struct Func {
     pub ops: Ops,
     /// The same with every kernel a dot product (the worst case, every segment beyond).
     pub ops_dot: Ops,
+    /// Moments per segment on the fast path, `|a_j| ≤ FAST_BENDING`: what the code
+    /// besides the family rows reads, and the top rows' bands as the precision resolves
+    /// them ([`crate::kernel_matrix::resolved_band`]). `block.nu_count` beyond.
+    pub nu_fast: Vec<usize>,
 }
 
 impl Func {
     /// The kernel uses `(start, count)` not in a family: always dot products.
     pub fn dot_ranges(&self) -> Vec<(usize, usize)> {
-        let mut out = Vec::new();
-        let mut at = 0;
-        for f in &self.families {
-            if f.start > at {
-                out.push((at, f.start - at));
+        dot_ranges(&self.block, &self.families)
+    }
+
+    /// Segment `seg`'s moment count on the fast path and beyond, when they differ.
+    pub fn moment_counts(&self, seg: usize) -> Option<(usize, usize)> {
+        let (fast, full) = (self.nu_fast[seg], self.block.nu_count[seg]);
+        (fast != full).then_some((fast, full))
+    }
+
+    /// [`Self::nu_fast`] of a block and its families: a segment without a family has
+    /// no fast path and keeps its count.
+    fn fast_moments(
+        block: &Block,
+        families: &[Family],
+        layout: &NuLayout,
+        table: &KernelTable,
+    ) -> Vec<usize> {
+        let mut fast = block.nu_read.clone();
+        let mut note = |u: &KernelUse| {
+            for (n, _) in &table.rows[u.row] {
+                let (seg, k) = layout.locate(u.base + n);
+                fast[seg] = fast[seg].max(k + 1);
             }
-            at = f.start + f.count;
+        };
+        for (start, count) in dot_ranges(block, families) {
+            block.kernels[start..start + count]
+                .iter()
+                .for_each(&mut note);
         }
-        if self.block.kernels.len() > at {
-            out.push((at, self.block.kernels.len() - at));
+        families.iter().flat_map(|f| &f.seeds).for_each(&mut note);
+        for (seg, c) in fast.iter_mut().enumerate() {
+            if !families.iter().any(|f| f.seg == seg) {
+                *c = block.nu_count[seg];
+            }
         }
-        out
+        fast
     }
 
     /// Reals of scratch the families' half-kernel matrices need (one at a time).
@@ -67,6 +96,21 @@ impl Func {
             .max()
             .unwrap_or(0)
     }
+}
+
+fn dot_ranges(block: &Block, families: &[Family]) -> Vec<(usize, usize)> {
+    let mut out = Vec::new();
+    let mut at = 0;
+    for f in families {
+        if f.start > at {
+            out.push((at, f.start - at));
+        }
+        at = f.start + f.count;
+    }
+    if block.kernels.len() > at {
+        out.push((at, block.kernels.len() - at));
+    }
+    out
 }
 
 /// Kernel uses `start .. start + count` of a function: parts of segment `seg`'s double
@@ -236,7 +280,7 @@ impl Plan {
     /// The plan of `model`, which must be the emitted model
     /// ([`crate::derive::derive_emitted`]): the statics and regulator functions need its
     /// statics derivatives, and the parameter variants its parameter leaves.
-    pub fn new(model: &Model, use_kernels: bool) -> Result<Plan, String> {
+    pub fn new(model: &Model, use_kernels: bool, precision: Precision) -> Result<Plan, String> {
         if !model.parametric || model.regressor.is_none() {
             return Err(
                 "the model was derived with its parameters folded in (derive_statics); \
@@ -244,14 +288,14 @@ impl Plan {
                     .into(),
             );
         }
-        Self::build(model, use_kernels)
+        Self::build(model, use_kernels, precision)
     }
 
     /// The plan of any model with statics roots, folded or parametric: what
     /// [`Plan::new`] checks and then builds. A folded model's plan is for counting
     /// operations only (the A/B of what the runtime parameters cost); its emitted code
     /// would ignore the parameters.
-    pub fn build(model: &Model, use_kernels: bool) -> Result<Plan, String> {
+    pub fn build(model: &Model, use_kernels: bool, precision: Precision) -> Result<Plan, String> {
         let statics = model.statics.as_ref().ok_or(
             "the model was derived without its statics derivatives (derive_statics), which \
              the emitted equilibrium needs",
@@ -334,18 +378,25 @@ impl Plan {
                 sched,
                 &layout,
                 &mut matrix_tables,
+                precision.unit_roundoff(),
             );
+            let nu_fast = Func::fast_moments(&block, &families, &layout, &sched.table);
             let mut ops = block.ops + angle_ops(block.angles);
-            for (&c, &pc) in block.nu_count.iter().zip(&block.pose_nu_count) {
-                ops += moment_ops(c, false) + moment_ops(pc, true);
+            for &pc in &block.pose_nu_count {
+                ops += moment_ops(pc, true);
             }
-            let ops_dot = ops;
-            let ops = families.iter().fold(ops, |o, f| o - f.dot + f.fast);
+            let (mut ops_dot, mut ops_fast) = (ops, ops);
+            for (&c, &fc) in block.nu_count.iter().zip(&nu_fast) {
+                ops_dot += moment_ops(c, false);
+                ops_fast += moment_ops(fc, false);
+            }
+            let ops = families.iter().fold(ops_fast, |o, f| o - f.dot + f.fast);
             Func {
                 block,
                 families,
                 ops,
                 ops_dot,
+                nu_fast,
             }
         };
         let inertia = func(&mut sched, &flat(&model.inertia), false);
@@ -477,6 +528,7 @@ fn families(
     sched: &mut Scheduler,
     layout: &NuLayout,
     tables: &mut Vec<MatrixTable>,
+    unit: f64,
 ) -> Vec<Family> {
     let mut out: Vec<Family> = Vec::new();
     let mut i = 0;
@@ -515,11 +567,17 @@ fn families(
         if reach > layout.count[key.0] {
             continue;
         }
+        // The top row's bands as far as the precision resolves them at `|a| ≤
+        // FAST_BENDING`, the only bending at which they are read.
+        let bands: Vec<&[Q]> = candidate
+            .seeds
+            .iter()
+            .map(|c| &c[..resolved_band(c, unit)])
+            .collect();
         // So does a group whose dot products are cheaper than the recurrence (few
         // kernels of low powers): the top row's real and imaginary parts, the
         // recurrence, one addition per kernel (`F[first] ± F[second]`).
-        let seed_nnz: usize = candidate
-            .seeds
+        let seed_nnz: usize = bands
             .iter()
             .map(|c| c.iter().filter(|c| !c.is_zero()).count())
             .sum();
@@ -542,15 +600,12 @@ fn families(
         if fast.total() >= dot.total() {
             continue;
         }
-        let table = known.unwrap_or_else(|| {
-            tables.push(candidate);
-            tables.len() - 1
-        });
         let seg = key.0 as u16;
-        block.nu_count[key.0] = block.nu_count[key.0].max(reach);
+        let band_reach = bands.iter().map(|c| c.len()).max().unwrap_or(0);
+        block.nu_count[key.0] = block.nu_count[key.0].max(band_reach);
         let mut seeds = Vec::with_capacity(2 * size);
         for im in [false, true] {
-            for c in &tables[table].seeds {
+            for c in &bands {
                 let row: KernelRow = c
                     .iter()
                     .enumerate()
@@ -564,6 +619,10 @@ fn families(
                 });
             }
         }
+        let table = known.unwrap_or_else(|| {
+            tables.push(candidate);
+            tables.len() - 1
+        });
         let entries = group
             .iter()
             .flatten()

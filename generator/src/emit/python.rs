@@ -79,11 +79,15 @@ fn function(
     for (seg, &c) in b.nu_count.iter().enumerate() {
         if c > 0 {
             let off = plan.layout.offset[seg];
+            let im = off + plan.layout.count[seg];
             let arg = inline(&moment_argument(plan, seg, false), &syn);
-            out.push_str(&format!(
-                "    _moments({arg}, {c}, nu, {off}, {})\n",
-                off + plan.layout.count[seg]
-            ));
+            out.push_str(&match f.moment_counts(seg) {
+                None => format!("    _moments({arg}, {c}, nu, {off}, {im})\n"),
+                // The fast path reads fewer: its top rows are cut to the precision.
+                Some((fast, full)) => format!(
+                    "    a = {arg}\n    _moments(a, {fast} if abs(a) <= _FAST_BENDING else {full}, nu, {off}, {im})\n"
+                ),
+            });
         }
     }
     if let (Some(seg), true) = (pose_seg, pose_count > 0) {

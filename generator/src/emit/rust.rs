@@ -117,11 +117,17 @@ fn body(
     for (seg, &c) in b.nu_count.iter().enumerate() {
         if c > 0 {
             let off = plan.layout.offset[seg];
+            let im = off + plan.layout.count[seg];
             let arg = inline(&moment_argument(plan, seg, false), &syn);
-            out.push_str(&format!(
-                "moments({arg}, {c}, nu, {off}, {});\n",
-                off + plan.layout.count[seg]
-            ));
+            out.push_str(&match func.moment_counts(seg) {
+                None => format!("moments({arg}, {c}, nu, {off}, {im});\n"),
+                // The fast path reads fewer: its top rows are cut to the precision.
+                Some((fast, full)) => format!(
+                    "{{\nlet a = {arg};\n\
+                     let count = if libm::fabs(a) <= FAST_BENDING {{ {fast} }} else {{ {full} }};\n\
+                     moments(a, count, nu, {off}, {im});\n}}\n"
+                ),
+            });
         }
     }
     if let (Some(seg), true) = (pose_seg, pose_count > 0) {

@@ -63,6 +63,16 @@ impl NuLayout {
         NuLayout { offset, count, len }
     }
 
+    /// The segment and moment order `n` of entry `idx` (real or imaginary part).
+    pub fn locate(&self, idx: usize) -> (usize, usize) {
+        let seg = self.offset.iter().rposition(|&o| o <= idx).unwrap_or(0);
+        let mut k = idx - self.offset[seg];
+        if k >= self.count[seg] {
+            k -= self.count[seg];
+        }
+        (seg, k)
+    }
+
     pub fn index(&self, seg: u16, n: u16, im: bool) -> usize {
         self.base(seg, im) + n as usize
     }
@@ -252,8 +262,10 @@ pub struct Block {
     pub stmts: Vec<Stmt>,
     /// One expression per requested root.
     pub outputs: Vec<Expr>,
-    /// Moments needed per segment (0 = none), from `Var::Nu`.
+    /// Moments needed per segment (0 = none), from `Var::Nu` and the kernel rows.
     pub nu_count: Vec<usize>,
+    /// The same from `Var::Nu` alone (what the code reads besides kernel rows).
+    pub nu_read: Vec<usize>,
     /// Moments needed from `Var::PoseNu`, per segment.
     pub pose_nu_count: Vec<usize>,
     /// Highest `j` of `cos Φ_j`/`sin Φ_j` read, plus one.
@@ -480,6 +492,7 @@ impl<'p> Scheduler<'p> {
                 note_var(v);
             }
         }
+        let nu_read = nu_count.clone();
         let mut st = BlockState {
             kernel_pos: BTreeMap::new(),
             kernel_scale: BTreeMap::new(),
@@ -511,7 +524,7 @@ impl<'p> Scheduler<'p> {
             };
             for (n, _) in &self.table.rows[u.row] {
                 // the moments a kernel reads count as read
-                let (seg, k) = self.layout_seg(u.base + n);
+                let (seg, k) = self.layout.locate(u.base + n);
                 nu_count[seg] = nu_count[seg].max(k + 1);
             }
             st.kernel_pos.insert(i, st.kernels.len());
@@ -558,6 +571,7 @@ impl<'p> Scheduler<'p> {
             stmts: st.stmts,
             outputs,
             nu_count,
+            nu_read,
             pose_nu_count,
             angles,
             reads_q,
@@ -566,17 +580,6 @@ impl<'p> Scheduler<'p> {
             reads_params,
             ops,
         }
-    }
-
-    /// Segment and moment order of a flat moment index.
-    fn layout_seg(&self, idx: usize) -> (usize, usize) {
-        let l = self.layout;
-        let seg = l.offset.iter().rposition(|&o| o <= idx).unwrap_or(0);
-        let mut k = idx - l.offset[seg];
-        if k >= l.count[seg] {
-            k -= l.count[seg];
-        }
-        (seg, k)
     }
 
     /// The expression that reads node `id` from its user's point of view.

@@ -695,13 +695,13 @@ static KERNEL_START: [u16; 327] = [
     2797, 2813, 2841, 2869, 2876, 2884, 2894, 2906, 2921, 2937, 2954, 2962, 2972, 2977,
     2994, 3023, 3029, 3047, 3054, 3073, 3076, 3081, 3087, 3094, 3101, 3109, 3117, 3126,
     3135, 3145, 3155, 3166, 3177, 3189, 3201, 3214, 3227, 3241, 3255, 3270, 3285, 3294,
-    3298, 3314, 3320, 3338, 3346, 3366, 3371, 3377, 3393, 3410, 3428, 3447, 3467, 3488,
-    3510, 3533, 3557, 3582, 3608, 3635, 3663, 3692, 3695, 3698, 3702, 3706, 3711, 3716,
-    3732, 3735, 3750, 3754, 3759, 3764, 3770, 3777, 3780, 3784, 3789, 3794, 3800, 3807,
-    3811, 3816, 3822, 3828, 3835, 3843, 3847, 3852, 3858, 3864, 3871, 3879, 3881, 3898,
-    3918, 3939, 3961, 3983, 4006, 4029, 4053, 4077, 4102, 4127, 4153, 4179, 4206, 4233,
-    4261, 4289, 4318, 4347, 4365, 4395, 4414, 4434, 4438, 4454, 4471, 4490, 4511, 4528,
-    4546, 4565, 4585, 4606, 4628, 4651, 4675, 4700, 4726, 4753, 4781, 4810, 4840, 4871,
+    3298, 3314, 3320, 3338, 3346, 3366, 3371, 3377, 3391, 3405, 3419, 3433, 3447, 3461,
+    3475, 3489, 3503, 3517, 3531, 3545, 3559, 3573, 3576, 3579, 3583, 3587, 3592, 3597,
+    3613, 3616, 3631, 3635, 3640, 3645, 3651, 3658, 3661, 3665, 3670, 3675, 3681, 3688,
+    3692, 3697, 3703, 3709, 3716, 3724, 3728, 3733, 3739, 3745, 3752, 3760, 3762, 3779,
+    3799, 3820, 3842, 3864, 3887, 3910, 3934, 3958, 3983, 4008, 4034, 4060, 4087, 4114,
+    4142, 4170, 4199, 4228, 4246, 4276, 4295, 4315, 4319, 4335, 4352, 4371, 4392, 4407,
+    4421, 4435, 4449, 4463, 4477, 4491, 4505, 4519, 4533, 4547, 4561, 4575, 4589, 4603,
 ];
 static KERNEL_FIRST: [u8; 326] = [
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
@@ -717,7 +717,7 @@ static KERNEL_FIRST: [u8; 326] = [
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 ];
-static KERNEL_COEF: [f64; 4871] = [
+static KERNEL_COEF: [f64; 4603] = [
     0.25,
     0.45,
     0.25,
@@ -4109,8 +4109,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -7.166609333791996e-7,
     1.112827536303105e-7,
     -1.2432969715938139e-8,
-    8.90262029042484e-10,
-    -3.069869065663738e-11,
     0.0002626050420168067,
     -0.0006944444444444445,
     0.0008983856700574967,
@@ -4125,9 +4123,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -5.528527200353825e-7,
     8.058406297367312e-8,
     -8.012358261382356e-9,
-    4.307719495366858e-10,
-    0.0,
-    -9.90280343762496e-13,
     0.00023342670401493932,
     -0.0006167379232394712,
     0.0007964150572509705,
@@ -4142,10 +4137,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -4.3705725887854636e-7,
     6.032292714029246e-8,
     -5.409901517974517e-9,
-    2.153859747683429e-10,
-    6.976975149235768e-12,
-    -4.95140171881248e-13,
-    -4.501274289829528e-14,
     0.00020885547201336674,
     -0.0005513784461152882,
     0.0007108545172454947,
@@ -4160,11 +4151,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -3.5281303487315474e-7,
     4.645900232761751e-8,
     -3.807429865698045e-9,
-    1.1095641124429787e-10,
-    6.976975149235768e-12,
-    -4.2440586161249835e-14,
-    -4.501274289829528e-14,
-    -2.5721567370454443e-15,
     0.00018796992481203009,
     -0.0004958825635517365,
     0.0006383653940044918,
@@ -4179,12 +4165,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -2.899643552755099e-7,
     3.666548339935776e-8,
     -2.779329815352401e-9,
-    5.874162948227534e-11,
-    5.3822379722675926e-12,
-    1.8390920669874929e-13,
-    -2.554777299632975e-14,
-    -3.858235105568167e-15,
-    -1.737943741246922e-16,
     0.00017006802721088434,
     -0.0004483611626468769,
     0.0005764163372859025,
@@ -4199,13 +4179,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -2.420339236788198e-7,
     2.955022267354659e-8,
     -2.09461654763743e-9,
-    3.18883131475209e-11,
-    3.787500795299417e-12,
-    2.542611693444247e-13,
-    -6.082803094364227e-15,
-    -3.462518684484252e-15,
-    -3.475887482493844e-16,
-    -1.3368798009591708e-17,
     0.00015460729746444033,
     -0.00040735661853674276,
     0.0005230600145196419,
@@ -4220,14 +4193,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -2.047658128927356e-7,
     2.4251017135946745e-8,
     -1.6229183692184297e-9,
-    1.7715729526400498e-11,
-    2.5591221589860925e-12,
-    2.466142168829382e-13,
-    7.018618955035646e-15,
-    -2.2259048685970192e-15,
-    -4.132914994428656e-16,
-    -3.342199502397927e-17,
-    -1.1412388544773408e-18,
     0.0001411631846414455,
     -0.0003717297195558065,
     0.0004767786561264822,
@@ -4242,15 +4207,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.7528806073525526e-7,
     2.0216910813483097e-8,
     -1.2879271061774736e-9,
-    1.0054873514984067e-11,
-    1.6971020633276193e-12,
-    2.0896768168792798e-13,
-    1.3756493151869867e-14,
-    -8.867425899288939e-16,
-    -3.709026277051358e-16,
-    -4.8967108988620785e-17,
-    -3.4237165634320224e-18,
-    -1.0616175390486892e-19,
     0.00012939958592132506,
     -0.00034057971014492754,
     0.00043637521898391463,
@@ -4265,16 +4221,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.516155666622129e-7,
     1.7085711885620432e-8,
     -1.043447692489096e-9,
-    5.821242561306565e-12,
-    1.1168962297113391e-12,
-    1.6532122994621298e-13,
-    1.5993321306645454e-14,
-    1.857936855089111e-16,
-    -2.6566978914693447e-16,
-    -5.440789887624532e-17,
-    -5.9344420432821725e-18,
-    -3.715661386670412e-19,
-    -1.0616175390486892e-20,
     0.00011904761904761905,
     -0.0003131868131868132,
     0.0004008954008954009,
@@ -4289,17 +4235,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.3234621390570381e-7,
     1.4613113255792316e-8,
     -8.606278289273604e-10,
-    3.4330404848731025e-12,
-    7.339603795245943e-13,
-    1.257722821876134e-13,
-    1.559160522986943e-14,
-    8.9440216047313e-16,
-    -1.4284063987900114e-16,
-    -5.0055266966145693e-17,
-    -7.760424210445918e-18,
-    -7.420028969733924e-19,
-    -4.246470156194757e-20,
-    -1.129380360690095e-21,
     0.00010989010989010989,
     -0.000288970288970289,
     0.000369570905285191,
@@ -4314,18 +4249,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.1647008482157271e-7,
     1.2630425926723947e-8,
     -7.209188496902774e-10,
-    2.0598242909238614e-12,
-    4.833397621259524e-13,
-    9.346713611345008e-14,
-    1.3899493034379725e-14,
-    1.2777173721044717e-15,
-    -3.174236441755581e-17,
-    -3.917368719089663e-17,
-    -8.450023858683289e-18,
-    -1.1096162043780182e-18,
-    -9.58705634753153e-20,
-    -5.082211623105427e-21,
-    -1.2676718334276576e-22,
     0.00010175010175010175,
     -0.0002674574103145532,
     0.00034177758931453514,
@@ -4340,19 +4263,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.0324672746283274e-7,
     1.1018670269889562e-8,
     -6.120735454460682e-10,
-    1.2559904212950375e-12,
-    3.196691548452066e-13,
-    6.848066305896263e-14,
-    1.1750779135345178e-14,
-    1.4196859690049685e-15,
-    5.421832431570091e-17,
-    -2.5467527133561638e-17,
-    -8.012953659096223e-18,
-    -1.3785931188525776e-18,
-    -1.6086755566196974e-19,
-    -1.2788571731343721e-20,
-    -6.338359167138288e-22,
-    -1.49137862756195e-23,
     9.44822373393802e-5,
     -0.00024826022362968176,
     0.00031700419631454114,
@@ -4367,20 +4277,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -9.212442209029404e-8,
     9.692286512779691e-9,
     -5.258038379174415e-10,
-    7.77517879849309e-13,
-    2.1261715880402112e-13,
-    4.975615622451873e-14,
-    9.602065236310632e-15,
-    1.4042545997766536e-15,
-    1.124741834208689e-16,
-    -1.1824209026296476e-17,
-    -6.731971271417575e-18,
-    -1.498007805561463e-18,
-    -2.232519236528861e-19,
-    -2.3750204643924054e-20,
-    -1.7579977312628837e-21,
-    -8.202582451590725e-23,
-    -1.829049260217486e-24,
     8.796622097114708e-5,
     -0.00023105794041754633,
     0.00029482872125490906,
@@ -4395,21 +4291,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -8.268597976217422e-8,
     8.588650993530867e-9,
     -4.56372295755077e-10,
-    4.882089013007289e-13,
-    1.4233049473657612e-13,
-    3.598903931427595e-14,
-    7.669921315242017e-15,
-    1.2984019734105107e-15,
-    1.462164384471296e-16,
-    0.0,
-    -4.974572455300145e-18,
-    -1.4631095456765133e-18,
-    -2.706360054077844e-19,
-    -3.6297482569016005e-20,
-    -3.575791303725185e-21,
-    -2.4851791130191404e-22,
-    -1.0974295561304915e-23,
-    -2.3278808766404364e-25,
     0.0024,
     0.0,
     -0.0024,
@@ -5244,8 +5125,6 @@ static KERNEL_COEF: [f64; 4871] = [
     2.1489083459646167e-7,
     -3.094428018189048e-8,
     3.2164305565405874e-9,
-    -2.1489083459646166e-10,
-    6.9319624063374726e-12,
     0.00021786492374727668,
     -0.0005804953560371517,
     0.0007625272331154684,
@@ -5260,10 +5139,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -9.225979832008087e-7,
     1.6618224542126367e-7,
     -2.245955819653341e-8,
-    2.077278067765796e-9,
-    -1.041894955619208e-10,
-    0.0,
-    2.100594668587113e-13,
     0.0001949317738791423,
     -0.0005190058479532163,
     0.0006807255065768998,
@@ -5278,11 +5153,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -7.561537756192751e-7,
     1.3161485955499414e-7,
     -1.6838429881234357e-8,
-    1.4041425062170556e-9,
-    -5.20947477809604e-11,
-    -1.5844485500199938e-12,
-    1.0502973342935565e-13,
-    9.002548579659056e-15,
     0.00017543859649122806,
     -0.0004667919799498747,
     0.0006114048490209481,
@@ -5297,12 +5167,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -6.296685682449706e-7,
     1.0639076873212378e-7,
     -1.2981738069708415e-8,
-    9.886868926638965e-10,
-    -2.679158457306535e-11,
-    -1.5844485500199938e-12,
-    8.515924332109917e-15,
-    9.002548579659056e-15,
-    4.866242475491382e-16,
     0.00015873015873015873,
     -0.0004220779220779221,
     0.0005521510316906736,
@@ -5317,13 +5181,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -5.316167192222573e-7,
     8.752945418164192e-8,
     -1.0252156337807211e-8,
-    7.217823332236914e-10,
-    -1.4140002969117823e-11,
-    -1.2204536128532384e-12,
-    -3.974098021651295e-14,
-    5.07836073724357e-15,
-    7.299363713237073e-16,
-    3.119386202238065e-17,
     0.0001443001443001443,
     -0.000383493318275927,
     0.0005011062395972882,
@@ -5338,14 +5195,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -4.5426244958806653e-7,
     7.311944977637249e-8,
     -8.266365169557436e-9,
-    5.439039766877346e-10,
-    -7.643244848171796e-12,
-    -8.564586756864832e-13,
-    -5.458925853916614e-14,
-    1.154172894828084e-15,
-    6.52788624761039e-16,
-    6.23877240447613e-17,
-    2.2824777089546816e-18,
     0.00013175230566534913,
     -0.0003499670619235837,
     0.0004568220568859955,
@@ -5360,15 +5209,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -3.9228290346664047e-7,
     6.189927339659075e-8,
     -6.786008587489751e-9,
-    4.213344805357797e-10,
-    -4.223898468726519e-12,
-    -5.764625701735944e-13,
-    -5.273322374883449e-14,
-    -1.4779043165481565e-15,
-    4.1541094302975205e-16,
-    7.399474247169364e-17,
-    5.7061942723867044e-18,
-    1.857830693335206e-19,
     0.00012077294685990338,
     -0.00032065217391304346,
     0.00041815583535532384,
@@ -5383,16 +5223,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -3.419328045876751e-7,
     5.301463319624584e-8,
     -5.6583079893406155e-9,
-    3.3429024412243814e-10,
-    -2.3827119567175236e-12,
-    -3.804652963145723e-13,
-    -4.449424004541107e-14,
-    -2.8178708968851516e-15,
-    1.594018734881607e-16,
-    6.601491730317765e-17,
-    8.343724069401003e-18,
-    5.573492080005618e-19,
-    1.6514050607424054e-20,
     0.00011111111111111112,
     -0.0002948717948717949,
     0.0003841964136081783,
@@ -5407,17 +5237,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -3.0052333752925284e-7,
     4.5873344638756036e-8,
     -4.7825942004589225e-9,
-    2.7077567820495733e-10,
-    -1.370059375112576e-12,
-    -2.490037101896185e-13,
-    -3.5032989528842425e-14,
-    -3.246348582458028e-15,
-    -4.4439310184578126e-17,
-    4.6718249168402646e-17,
-    9.231354289550047e-18,
-    9.64490828029341e-19,
-    5.779917712598418e-20,
-    1.5811325049661328e-21,
     0.00010256410256410256,
     -0.00027207977207977207,
     0.000354210060092413,
@@ -5432,18 +5251,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -2.660887131764646e-7,
     4.0056156759614675e-8,
     -4.090843046677224e-9,
-    2.2329146641453685e-10,
-    -8.019859756756543e-13,
-    -1.626146678789345e-13,
-    -2.6509757729338723e-14,
-    -3.143959109541912e-15,
-    -1.777572407383125e-16,
-    2.4374738696557902e-17,
-    8.43059851647942e-18,
-    1.2570003414480757e-18,
-    1.1526133281100054e-19,
-    6.324530019864531e-21,
-    1.613400515271564e-22,
     9.49667616334283e-5,
     -0.00025183150183150186,
     0.0003276005853761094,
@@ -5458,19 +5265,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -2.3716784456558382e-7,
     3.5260512232652346e-8,
     -3.5360220605159308e-9,
-    1.8701402819334769e-10,
-    -4.773726045688418e-13,
-    -1.0636133800221007e-13,
-    -1.9584631892241963e-14,
-    -2.7855959543355063e-15,
-    -2.4841850413739325e-16,
-    4.321762180240763e-18,
-    6.515583530881273e-18,
-    1.3613066847603821e-18,
-    1.718809348935973e-19,
-    1.4261195142831786e-20,
-    7.260302318722038e-22,
-    1.7399417321556085e-23,
     8.818342151675486e-5,
     -0.00023376208721036308,
     0.00030387953393362454,
@@ -5485,20 +5279,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -2.1265835118745874e-7,
     3.1264231319901076e-8,
     -3.0849245054673854e-9,
-    1.587579173620819e-10,
-    -2.886439004369741e-13,
-    -6.983320171862278e-14,
-    -1.425761201755215e-14,
-    -2.3404243329610895e-15,
-    -2.7293735176797523e-16,
-    -1.1035928424543377e-17,
-    4.133666570168687e-18,
-    1.2804753189452768e-18,
-    2.1262087966941534e-19,
-    2.3872000565174946e-20,
-    1.8249690734062314e-21,
-    8.699708660778041e-23,
-    1.9697453571572924e-24,
     8.210180623973728e-5,
     -0.00021756978653530377,
     0.00028264364700273883,
@@ -5513,21 +5293,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.9171702906022732e-7,
     2.7901548079164036e-8,
     -2.713652546848695e-9,
-    1.3636752386033307e-10,
-    -1.771223934499614e-13,
-    -4.608991313429103e-14,
-    -1.028866637969037e-14,
-    -1.900225373314791e-15,
-    -2.67688556541668e-16,
-    -2.1283576247333654e-17,
-    1.7857439583128725e-18,
-    1.0626520134967162e-18,
-    2.2963055004296857e-19,
-    3.3008992695241907e-20,
-    3.382052778239071e-21,
-    2.410610181641043e-22,
-    1.0833599464365109e-23,
-    2.3278808766404364e-25,
     7.662835249042145e-5,
     -0.00020300333704115683,
     0.00026355763847993774,
@@ -5542,22 +5307,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.736907860286952e-7,
     2.5046979445143897e-8,
     -2.4047044346607424e-9,
-    1.1835088248788164e-10,
-    -1.1020948925775376e-13,
-    -3.060515970972685e-14,
-    -7.388395025830994e-15,
-    -1.5077402869168674e-15,
-    -2.456436165911777e-16,
-    -2.7053790252166336e-17,
-    -2.275948182163465e-19,
-    7.695066304631394e-19,
-    2.2240946356362995e-19,
-    3.9816695282291797e-20,
-    5.1525315323559426e-21,
-    4.893981562990411e-22,
-    3.2794532349864394e-23,
-    1.3967285259842619e-24,
-    2.858801076575975e-26,
     7.168458781362007e-5,
     -0.0001898521505376344,
     0.00024634089950740807,
@@ -5572,23 +5321,6 @@ static KERNEL_COEF: [f64; 4871] = [
     -1.5806792990281382e-7,
     2.2604265900029913e-8,
     -2.1450559538921863e-9,
-    1.0365367767654788e-10,
-    -6.947989540162737e-14,
-    -2.0457704274055004e-14,
-    -5.293997263518386e-15,
-    -1.1775910671821436e-15,
-    -2.1586863276194404e-16,
-    -2.936855305449073e-17,
-    -1.776990311458398e-18,
-    4.561383642839678e-19,
-    1.9545074070743237e-19,
-    4.3223471349225854e-20,
-    6.828489369493224e-21,
-    8.128857921189956e-22,
-    7.232766723737216e-23,
-    4.584741658739301e-24,
-    1.8582206997743836e-25,
-    3.634069165138951e-27,
 ];
 /// `kern[i]` = kernel row `uses[2i]` at moment base `uses[2i + 1]`; four partial sums
 /// keep the multiply-adds independent.
@@ -5628,7 +5360,10 @@ fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
 /// integral), and integration by parts gives `F_{s−1,t} = (m_{s+t} + i a F_st) / s`
 /// with `m_k = ∫_0^1 τ^k Ρ`. Run downward from the top row it shrinks errors by `|a|/s`
 /// per step: measured within 1.1e-15 of the dot products for `|a| ≤ 4` up to 29
-/// powers, but losing digits beyond (1.2e-13 at `|a| = 7`).
+/// powers, but losing digits beyond (1.2e-13 at `|a| = 7`). The top row, read only at
+/// `|a| ≤ 4`, stops where the moments left out can change an entry by at most a quarter
+/// unit of double rounding (`|ν_n| ≤ (|a|/2)ⁿ/(2n+1)!!`), and the moments are computed
+/// only that far on the fast path.
 const FAST_BENDING: f64 = 4.0;
 /// `m_k` of weight table 0 (14 powers).
 static TAIL_MOMENTS0: [f64; 27] = [
@@ -5938,14 +5673,22 @@ static INERTIA_PAIRS1: [u16; 524] = [
 ];
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1252 reals).
 ///
-/// Operations: 4937 add, 8000 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4440 add, 7329 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
 fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(556);
     let (hk, work) = work.split_at_mut(392);
     let t = &mut work[..176];
-    moments(0.12 * q[0], 29, nu, 0, 32);
-    moments(0.1 * q[3], 29, nu, 64, 96);
+    {
+        let a = 0.12 * q[0];
+        let count = if libm::fabs(a) <= FAST_BENDING { 14 } else { 29 };
+        moments(a, count, nu, 0, 32);
+    }
+    {
+        let a = 0.1 * q[3];
+        let count = if libm::fabs(a) <= FAST_BENDING { 15 } else { 29 };
+        moments(a, count, nu, 64, 96);
+    }
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
@@ -7597,25 +7340,25 @@ fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
 }
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 4937 add, 8000 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4440 add, 7329 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut [0.0; 1252])
 }
 /// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1252 reals); the same values.
 ///
-/// Operations: 4937 add, 8000 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4440 add, 7329 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
-/// Operations: 4937 add, 8000 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4440 add, 7329 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     inertia_in(p, q, &mut [0.0; 1252])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 4937 add, 8000 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4440 add, 7329 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10111 add, 12548 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn inertia_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -9293,7 +9036,7 @@ static TERMS_PAIRS1: [u16; 632] = [
 ];
 /// The work of [`terms`] and [`terms_ws`], in `work` (at least 1693 reals).
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 fn terms_in(
     p: &Params,
     q: &[f64; NQ],
@@ -9304,8 +9047,16 @@ fn terms_in(
     let (kern, work) = work.split_at_mut(716);
     let (hk, work) = work.split_at_mut(450);
     let t = &mut work[..399];
-    moments(0.12 * q[0], 31, nu, 0, 32);
-    moments(0.1 * q[3], 31, nu, 64, 96);
+    {
+        let a = 0.12 * q[0];
+        let count = if libm::fabs(a) <= FAST_BENDING { 15 } else { 30 };
+        moments(a, count, nu, 0, 32);
+    }
+    {
+        let a = 0.1 * q[3];
+        let count = if libm::fabs(a) <= FAST_BENDING { 16 } else { 30 };
+        moments(a, count, nu, 64, 96);
+    }
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
@@ -12244,7 +11995,7 @@ fn terms_in(
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn terms(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -12253,7 +12004,7 @@ pub fn terms(
 }
 /// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (1693 reals); the same values.
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn terms_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -12263,7 +12014,7 @@ pub fn terms_ws(
 }
 /// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn terms_with(
     p: &Params,
     q: &[f64; NQ],
@@ -12273,7 +12024,7 @@ pub fn terms_with(
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn terms_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -12440,7 +12191,7 @@ static REGRESSOR_PAIRS1: [u16; 632] = [
 ];
 /// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 1712 reals).
 ///
-/// Operations: 7643 add, 12264 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14273 add, 18202 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 7020 add, 11455 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14271 add, 18188 mul, 4 div, 0 sqrt, 6 trig beyond.
 fn regressor_in(
     p: &Params,
     q: &[f64; NQ],
@@ -12452,8 +12203,16 @@ fn regressor_in(
     let (kern, work) = work.split_at_mut(716);
     let (hk, work) = work.split_at_mut(450);
     let t = &mut work[..418];
-    moments(0.12 * q[0], 31, nu, 0, 32);
-    moments(0.1 * q[3], 31, nu, 64, 96);
+    {
+        let a = 0.12 * q[0];
+        let count = if libm::fabs(a) <= FAST_BENDING { 15 } else { 30 };
+        moments(a, count, nu, 0, 32);
+    }
+    {
+        let a = 0.1 * q[3];
+        let count = if libm::fabs(a) <= FAST_BENDING { 16 } else { 30 };
+        moments(a, count, nu, 64, 96);
+    }
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
@@ -15378,13 +15137,13 @@ fn regressor_in(
 }
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 7643 add, 12264 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14273 add, 18202 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 7020 add, 11455 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14271 add, 18188 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn regressor(q: &[f64; NQ], qd: &[f64; NQ], qdd: &[f64; NQ]) -> [[f64; NTHETA]; NQ] {
     regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 1712])
 }
 /// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (1712 reals); the same values.
 ///
-/// Operations: 7643 add, 12264 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14273 add, 18202 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 7020 add, 11455 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14271 add, 18188 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn regressor_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -15395,7 +15154,7 @@ pub fn regressor_ws(
 }
 /// [`regressor`] at the runtime parameters `p`.
 ///
-/// Operations: 7643 add, 12264 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14273 add, 18202 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 7020 add, 11455 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14271 add, 18188 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn regressor_with(
     p: &Params,
     q: &[f64; NQ],
@@ -15406,7 +15165,7 @@ pub fn regressor_with(
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 7643 add, 12264 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14273 add, 18202 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 7020 add, 11455 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14271 add, 18188 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn regressor_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -15418,7 +15177,7 @@ pub fn regressor_with_ws(
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 1693 reals).
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 fn coriolis_in(
     p: &Params,
     q: &[f64; NQ],
@@ -15429,13 +15188,13 @@ fn coriolis_in(
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 1693])
 }
 /// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (1693 reals); the same values.
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn coriolis_ws(
     q: &[f64; NQ],
     qd: &[f64; NQ],
@@ -15445,13 +15204,13 @@ pub fn coriolis_ws(
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut [0.0; 1693])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 7526 add, 12165 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14156 add, 18103 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 6903 add, 11356 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14154 add, 18089 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn coriolis_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -15462,7 +15221,7 @@ pub fn coriolis_with_ws(
 }
 /// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1252 reals).
 ///
-/// Operations: 4973 add, 8043 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4476 add, 7372 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
 fn kinetic_energy_in(
     p: &Params,
     q: &[f64; NQ],
@@ -15482,25 +15241,25 @@ fn kinetic_energy_in(
 }
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 4973 add, 8043 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4476 add, 7372 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1252])
 }
 /// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1252 reals); the same values.
 ///
-/// Operations: 4973 add, 8043 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4476 add, 7372 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
-/// Operations: 4973 add, 8043 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4476 add, 7372 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
     kinetic_energy_in(p, q, qd, &mut [0.0; 1252])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 4973 add, 8043 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
+/// Operations: 4476 add, 7372 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 10147 add, 12591 mul, 4 div, 0 sqrt, 6 trig beyond.
 pub fn kinetic_energy_with_ws(
     p: &Params,
     q: &[f64; NQ],
@@ -16083,7 +15842,7 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 7621 add, 12274 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14251 add, 18212 mul, 31 div, 6 sqrt, 6 trig beyond.
+/// Operations: 6998 add, 11465 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (kernel recurrence); 14249 add, 18198 mul, 31 div, 6 sqrt, 6 trig beyond.
 pub fn forward_dynamics(
     q: &[f64; NQ],
     qd: &[f64; NQ],
