@@ -196,6 +196,11 @@ fn c_checks_hold_under_fast_math() {
                 Command::new("gcc")
                     .args(["-std=c99", "-O1", "-ffast-math"])
                     .args(STRICT)
+                    .arg(format!(
+                        "-D{}_SQRT(x)=__builtin_sqrt{}(x)",
+                        name.to_uppercase(),
+                        if precision == Precision::F32 { "f" } else { "" }
+                    ))
                     .arg(dir.join(format!("test_{name}.c")))
                     .arg(dir.join(format!("{name}.c")))
                     .args(["-lm", "-o"])
@@ -208,6 +213,49 @@ fn c_checks_hold_under_fast_math() {
                 text.lines().last().unwrap_or("")
             );
         }
+    }
+}
+
+/// Every square root of the C goes through `NAME_SQRT`, so a firmware can swap the C
+/// library's (and its errno path) for its own: with the hook defined away the object
+/// refers to no `sqrt`/`sqrtf`, and without it, it does. The fast-math build above,
+/// where `__builtin_sqrt` has no errno path, runs the shipped test through the hook.
+#[test]
+fn c_square_roots_go_through_the_hook() {
+    if !have("gcc", "--version") || !have("nm", "--version") {
+        println!("SKIP square-root hook: gcc or nm not found");
+        return;
+    }
+    let arm = &arms()[0];
+    let name = arm_name(arm);
+    let upper = name.to_uppercase();
+    for (precision, tag) in [(Precision::F64, "f64"), (Precision::F32, "f32")] {
+        let dir = generated(arm, precision).join("c");
+        let bin = root().join("target/emitted-tests/bin");
+        std::fs::create_dir_all(&bin).unwrap();
+        let refs = |define: Option<String>| -> bool {
+            let obj = bin.join(format!("{name}_{tag}_sqrt_hook.o"));
+            let mut cmd = Command::new("gcc");
+            cmd.args(["-std=c99", "-O0", "-c"]).args(STRICT);
+            if let Some(d) = define {
+                cmd.arg(d);
+            }
+            run(
+                cmd.arg(dir.join(format!("{name}.c"))).arg("-o").arg(&obj),
+                &format!("gcc {tag} {name} (square-root hook)"),
+            );
+            let syms = run(Command::new("nm").arg("-u").arg(&obj), "nm");
+            syms.lines()
+                .any(|l| matches!(l.split_whitespace().last(), Some("sqrt" | "sqrtf")))
+        };
+        assert!(
+            refs(None),
+            "{tag}: the library square root is not called at all"
+        );
+        assert!(
+            !refs(Some(format!("-D{upper}_SQRT(x)=(x)"))),
+            "{tag}: a square root bypasses {upper}_SQRT"
+        );
     }
 }
 

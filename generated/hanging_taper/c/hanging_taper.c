@@ -28,6 +28,14 @@
 #include <stdint.h>
 #include <string.h>
 
+/* Square root, only ever of a number checked to be non-negative (Cholesky pivots,
+ * sums of squares). The default is the C library's, whose errno path is a library call
+ * on most embedded toolchains unless -fno-math-errno is given; define
+ * HANGING_TAPER_SQRT when compiling this file to use another (see the header). */
+#ifndef HANGING_TAPER_SQRT
+#define HANGING_TAPER_SQRT(x) sqrt(x)
+#endif
+
 #define HANGING_TAPER_NU_LEN 182
 #define HANGING_TAPER_MOMENTS_MAX 33
 
@@ -16281,7 +16289,7 @@ hanging_taper_status hanging_taper_forward_dynamics_with_ws(const hanging_taper_
                     hanging_taper_fill_nan(qdd);
                     return HANGING_TAPER_ERR_NOT_POSITIVE_DEFINITE;
                 }
-                m[ri + i] = sqrt(s);
+                m[ri + i] = HANGING_TAPER_SQRT(s);
             } else {
                 m[ri + j] = s / m[rj + j];
             }
@@ -16373,7 +16381,7 @@ static double hanging_taper_norm(const double v[], int len)
     for (i = 0; i < len; ++i) {
         s += v[i] * v[i];
     }
-    return sqrt(s);
+    return HANGING_TAPER_SQRT(s);
 }
 
 /* Solves a x = b in place, a n x n row-major (destroyed), b becoming x, by Gaussian
@@ -16461,7 +16469,7 @@ static int hanging_taper_cholesky(int h, double a[], double b[], double floor)
                 if (!(s > floor * top)) {
                     return 0;
                 }
-                a[i * h + i] = sqrt(s);
+                a[i * h + i] = HANGING_TAPER_SQRT(s);
             } else {
                 a[i * h + j] = s / a[j * h + j];
             }
@@ -16627,7 +16635,7 @@ static int hanging_taper_linearise(const hanging_taper_params *P, const double q
         g2 += G[i] * G[i];
         au2 += au * au;
     }
-    *scale = sqrt(kq2) + lambda * (sqrt(g2) + sqrt(au2)) + 1e-300;
+    *scale = HANGING_TAPER_SQRT(kq2) + lambda * (HANGING_TAPER_SQRT(g2) + HANGING_TAPER_SQRT(au2)) + 1e-300;
     if (!hanging_taper_all_finite(r, HANGING_TAPER_NQ)) {
         return 0;
     }
@@ -17030,7 +17038,7 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
          * wrong sign (the gradient pushes it back inside), if any. */
         unorm = hanging_taper_norm(u, HANGING_TAPER_NU);
         fnorm = hanging_taper_norm(f, HANGING_TAPER_NU);
-        gscale = fnorm + sqrt(trace) * unorm + 1e-300;
+        gscale = fnorm + HANGING_TAPER_SQRT(trace) * unorm + 1e-300;
         for (i = 0; i < HANGING_TAPER_NU; ++i) {
             grad[i] = -f[i];
             for (j = 0; j < HANGING_TAPER_NU; ++j) {
@@ -17110,7 +17118,7 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
         }
         return HANGING_TAPER_ERR_NONFINITE_RESULT;
     }
-    if (!(sqrt(shortfall) <= 1e-9 * (hanging_taper_norm(b, HANGING_TAPER_NY) + 1e-300))) {
+    if (!(HANGING_TAPER_SQRT(shortfall) <= 1e-9 * (hanging_taper_norm(b, HANGING_TAPER_NY) + 1e-300))) {
         status = HANGING_TAPER_SATURATED;
     }
     return status;

@@ -18,6 +18,11 @@
  * Aliasing: an output array must not overlap an input array or another output, except
  * that forward dynamics' qdd may be one of its inputs.
  * No heap, no recursion, no mutable globals: every function is reentrant.
+ * Square roots (forward dynamics' Cholesky factor, the statics' norms) go through
+ * HANGING_TAPER_SQRT(x), always of a non-negative argument; it defaults to
+ * sqrt. Where the C library's errno path costs a call, compile hanging_taper.c with
+ * -fno-math-errno or with -D'HANGING_TAPER_SQRT(x)=__builtin_sqrt(x)' plus that flag
+ * (GCC, Clang: one instruction on an FPU that has it), or with your DSP library's square root.
  *
  * Non-finite and huge input, function by function (the same in C, Rust and Python):
  * - forward_dynamics checks q, q' and u first: a NaN or an infinity is reported as a

@@ -28,6 +28,14 @@
 #include <stdint.h>
 #include <string.h>
 
+/* Square root, only ever of a number checked to be non-negative (Cholesky pivots,
+ * sums of squares). The default is the C library's, whose errno path is a library call
+ * on most embedded toolchains unless -fno-math-errno is given; define
+ * REACH_ARM_SQRT when compiling this file to use another (see the header). */
+#ifndef REACH_ARM_SQRT
+#define REACH_ARM_SQRT(x) sqrt(x)
+#endif
+
 #define REACH_ARM_NU_LEN 128
 #define REACH_ARM_MOMENTS_MAX 32
 
@@ -10780,7 +10788,7 @@ reach_arm_status reach_arm_forward_dynamics_with_ws(const reach_arm_params *P, c
                     reach_arm_fill_nan(qdd);
                     return REACH_ARM_ERR_NOT_POSITIVE_DEFINITE;
                 }
-                m[ri + i] = sqrt(s);
+                m[ri + i] = REACH_ARM_SQRT(s);
             } else {
                 m[ri + j] = s / m[rj + j];
             }
@@ -10868,7 +10876,7 @@ static double reach_arm_norm(const double v[], int len)
     for (i = 0; i < len; ++i) {
         s += v[i] * v[i];
     }
-    return sqrt(s);
+    return REACH_ARM_SQRT(s);
 }
 
 /* Solves a x = b in place, a n x n row-major (destroyed), b becoming x, by Gaussian
@@ -10956,7 +10964,7 @@ static int reach_arm_cholesky(int h, double a[], double b[], double floor)
                 if (!(s > floor * top)) {
                     return 0;
                 }
-                a[i * h + i] = sqrt(s);
+                a[i * h + i] = REACH_ARM_SQRT(s);
             } else {
                 a[i * h + j] = s / a[j * h + j];
             }
@@ -11116,7 +11124,7 @@ static int reach_arm_linearise(const reach_arm_params *P, const double q[REACH_A
         g2 += G[i] * G[i];
         au2 += au * au;
     }
-    *scale = sqrt(kq2) + lambda * (sqrt(g2) + sqrt(au2)) + 1e-300;
+    *scale = REACH_ARM_SQRT(kq2) + lambda * (REACH_ARM_SQRT(g2) + REACH_ARM_SQRT(au2)) + 1e-300;
     if (!reach_arm_all_finite(r, REACH_ARM_NQ)) {
         return 0;
     }
@@ -11513,7 +11521,7 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
          * wrong sign (the gradient pushes it back inside), if any. */
         unorm = reach_arm_norm(u, REACH_ARM_NU);
         fnorm = reach_arm_norm(f, REACH_ARM_NU);
-        gscale = fnorm + sqrt(trace) * unorm + 1e-300;
+        gscale = fnorm + REACH_ARM_SQRT(trace) * unorm + 1e-300;
         for (i = 0; i < REACH_ARM_NU; ++i) {
             grad[i] = -f[i];
             for (j = 0; j < REACH_ARM_NU; ++j) {
@@ -11593,7 +11601,7 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
         }
         return REACH_ARM_ERR_NONFINITE_RESULT;
     }
-    if (!(sqrt(shortfall) <= 1e-9 * (reach_arm_norm(b, REACH_ARM_NY) + 1e-300))) {
+    if (!(REACH_ARM_SQRT(shortfall) <= 1e-9 * (reach_arm_norm(b, REACH_ARM_NY) + 1e-300))) {
         status = REACH_ARM_SATURATED;
     }
     return status;

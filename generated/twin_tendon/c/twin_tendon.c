@@ -25,6 +25,14 @@
 #include <stdint.h>
 #include <string.h>
 
+/* Square root, only ever of a number checked to be non-negative (Cholesky pivots,
+ * sums of squares). The default is the C library's, whose errno path is a library call
+ * on most embedded toolchains unless -fno-math-errno is given; define
+ * TWIN_TENDON_SQRT when compiling this file to use another (see the header). */
+#ifndef TWIN_TENDON_SQRT
+#define TWIN_TENDON_SQRT(x) sqrt(x)
+#endif
+
 #define TWIN_TENDON_NU_LEN 32
 #define TWIN_TENDON_MOMENTS_MAX 8
 
@@ -1202,7 +1210,7 @@ twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params
                     twin_tendon_fill_nan(qdd);
                     return TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE;
                 }
-                m[ri + i] = sqrt(s);
+                m[ri + i] = TWIN_TENDON_SQRT(s);
             } else {
                 m[ri + j] = s / m[rj + j];
             }
@@ -1290,7 +1298,7 @@ static double twin_tendon_norm(const double v[], int len)
     for (i = 0; i < len; ++i) {
         s += v[i] * v[i];
     }
-    return sqrt(s);
+    return TWIN_TENDON_SQRT(s);
 }
 
 /* Solves a x = b in place, a n x n row-major (destroyed), b becoming x, by Gaussian
@@ -1378,7 +1386,7 @@ static int twin_tendon_cholesky(int h, double a[], double b[], double floor)
                 if (!(s > floor * top)) {
                     return 0;
                 }
-                a[i * h + i] = sqrt(s);
+                a[i * h + i] = TWIN_TENDON_SQRT(s);
             } else {
                 a[i * h + j] = s / a[j * h + j];
             }
@@ -1538,7 +1546,7 @@ static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWI
         g2 += G[i] * G[i];
         au2 += au * au;
     }
-    *scale = sqrt(kq2) + lambda * (sqrt(g2) + sqrt(au2)) + 1e-300;
+    *scale = TWIN_TENDON_SQRT(kq2) + lambda * (TWIN_TENDON_SQRT(g2) + TWIN_TENDON_SQRT(au2)) + 1e-300;
     if (!twin_tendon_all_finite(r, TWIN_TENDON_NQ)) {
         return 0;
     }
@@ -1935,7 +1943,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
          * wrong sign (the gradient pushes it back inside), if any. */
         unorm = twin_tendon_norm(u, TWIN_TENDON_NU);
         fnorm = twin_tendon_norm(f, TWIN_TENDON_NU);
-        gscale = fnorm + sqrt(trace) * unorm + 1e-300;
+        gscale = fnorm + TWIN_TENDON_SQRT(trace) * unorm + 1e-300;
         for (i = 0; i < TWIN_TENDON_NU; ++i) {
             grad[i] = -f[i];
             for (j = 0; j < TWIN_TENDON_NU; ++j) {
@@ -2015,7 +2023,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
         }
         return TWIN_TENDON_ERR_NONFINITE_RESULT;
     }
-    if (!(sqrt(shortfall) <= 1e-9 * (twin_tendon_norm(b, TWIN_TENDON_NY) + 1e-300))) {
+    if (!(TWIN_TENDON_SQRT(shortfall) <= 1e-9 * (twin_tendon_norm(b, TWIN_TENDON_NY) + 1e-300))) {
         status = TWIN_TENDON_SATURATED;
     }
     return status;
