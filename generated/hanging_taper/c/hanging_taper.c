@@ -35,8 +35,7 @@
 #ifndef HANGING_TAPER_SQRT
 #define HANGING_TAPER_SQRT(x) sqrt(x)
 #endif
-
-#define HANGING_TAPER_NU_LEN 182
+#define HANGING_TAPER_NAN ((double)NAN)
 #define HANGING_TAPER_MOMENTS_MAX 33
 
 /* 1 when x is neither NaN nor an infinity. It reads the exponent bits instead of
@@ -347,7 +346,8 @@ static void hanging_taper_moments(double a, int count, double re[], double im[])
         }
     } else if (ax < (double)count) {
         const double inv = 1.0 / x;
-        const int reach = (int)ceil(ax);
+        const double above_x = ceil(ax);
+        const int reach = (int)above_x;
         const int start = (count - 1 > reach ? count - 1 : reach) + 24;
         double above = 0.0;
         double cur = 1.0;
@@ -5526,6 +5526,8 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const F = &work[880]; /* 392 */
+    double *const t = &work[1272]; /* 223 */
     {
         const double a = 0.1 * q[0];
         hanging_taper_moments(a, fabs(a) <= HANGING_TAPER_FAST_BENDING ? 14 : 30, &nu[0], &nu[33]);
@@ -5545,7 +5547,6 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_inertia_rows, 132, nu, kern);
-    double *const F = &work[880]; /* 392 */
     {
         const double a = 0.1 * q[0];
         if (fabs(a) <= HANGING_TAPER_FAST_BENDING) {
@@ -5579,7 +5580,6 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
             hanging_taper_kernels(&hanging_taper_inertia_rows[1196], 100, nu, &kern[598]);
         }
     }
-    double *const t = &work[1272]; /* 223 */
     hanging_taper_inertia_part1(q, kern, t);
     hanging_taper_inertia_part2(q, nu, kern, t);
     hanging_taper_inertia_part3(q, kern, t);
@@ -6048,6 +6048,7 @@ void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const t = &work[342]; /* 51 */
     hanging_taper_moments(0.1 * q[0], 16, &nu[0], &nu[33]);
     hanging_taper_moments(0.09 * q[3], 16, &nu[66], &nu[99]);
     hanging_taper_moments(0.08 * q[6], 12, &nu[132], &nu[157]);
@@ -6058,7 +6059,6 @@ void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_gravity_rows, 160, nu, kern);
-    double *const t = &work[342]; /* 51 */
     hanging_taper_gravity_part1(q, nu, cphi, sphi, kern, t);
     hanging_taper_gravity_part2(q, cphi, sphi, kern, P, t);
     G[0] = -P->density_scale[0] * (0.04 * t[12] * P->gravity[0] + 0.04 * t[13] * P->gravity[1])
@@ -9607,6 +9607,8 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const F = &work[1093]; /* 450 */
+    double *const t = &work[1543]; /* 579 */
     {
         const double a = 0.1 * q[0];
         hanging_taper_moments(a, fabs(a) <= HANGING_TAPER_FAST_BENDING ? 16 : 31, &nu[0], &nu[33]);
@@ -9626,7 +9628,6 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_regressor_rows, 200, nu, kern);
-    double *const F = &work[1093]; /* 450 */
     {
         const double a = 0.1 * q[0];
         if (fabs(a) <= HANGING_TAPER_FAST_BENDING) {
@@ -9660,7 +9661,6 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
             hanging_taper_kernels(&hanging_taper_regressor_rows[1536], 143, nu, &kern[768]);
         }
     }
-    double *const t = &work[1543]; /* 579 */
     hanging_taper_regressor_part1(q, qd, kern, t);
     hanging_taper_regressor_part2(q, kern, t);
     hanging_taper_regressor_part3(q, qd, kern, t);
@@ -10894,6 +10894,7 @@ void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const t = &work[398]; /* 181 */
     hanging_taper_moments(0.1 * q[0], 17, &nu[0], &nu[33]);
     hanging_taper_moments(0.09 * q[3], 17, &nu[66], &nu[99]);
     hanging_taper_moments(0.08 * q[6], 13, &nu[132], &nu[157]);
@@ -10904,7 +10905,6 @@ void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_gravity_jacobian_rows, 216, nu, kern);
-    double *const t = &work[398]; /* 181 */
     hanging_taper_gravity_jacobian_part1(q, nu, cphi, kern, t);
     hanging_taper_gravity_jacobian_part2(q, nu, cphi, sphi, kern, t);
     hanging_taper_gravity_jacobian_part3(q, cphi, sphi, kern, t);
@@ -14399,6 +14399,8 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const F = &work[1093]; /* 450 */
+    double *const t = &work[1543]; /* 528 */
     {
         const double a = 0.1 * q[0];
         hanging_taper_moments(a, fabs(a) <= HANGING_TAPER_FAST_BENDING ? 16 : 31, &nu[0], &nu[33]);
@@ -14418,7 +14420,6 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_terms_rows, 200, nu, kern);
-    double *const F = &work[1093]; /* 450 */
     {
         const double a = 0.1 * q[0];
         if (fabs(a) <= HANGING_TAPER_FAST_BENDING) {
@@ -14452,7 +14453,6 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
             hanging_taper_kernels(&hanging_taper_terms_rows[1536], 143, nu, &kern[768]);
         }
     }
-    double *const t = &work[1543]; /* 528 */
     hanging_taper_terms_part1(q, qd, kern, t);
     hanging_taper_terms_part2(q, kern, t);
     hanging_taper_terms_part3(q, qd, kern, t);
@@ -15207,12 +15207,12 @@ static void hanging_taper_pose_segment1(const double q[HANGING_TAPER_NQ], double
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const t = &work[208]; /* 63 */
     hanging_taper_moments(0.1 * q[0], 13, &nu[0], &nu[33]);
     hanging_taper_moments(0.09 * q[3] * sigma, 13, &pnu[0], &pnu[13]);
     phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    double *const t = &work[208]; /* 63 */
     hanging_taper_pose_segment1_part1(q, sigma, nu, pnu, t);
     hanging_taper_pose_segment1_part2(q, sigma, nu, pnu, t);
     pose[0] = t[12]
@@ -15506,6 +15506,7 @@ static void hanging_taper_pose_segment2(const double q[HANGING_TAPER_NQ], double
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const t = &work[200]; /* 54 */
     hanging_taper_moments(0.1 * q[0], 13, &nu[0], &nu[33]);
     hanging_taper_moments(0.09 * q[3], 13, &nu[66], &nu[99]);
     hanging_taper_moments(0.08 * q[6] * sigma, 9, &pnu[0], &pnu[9]);
@@ -15515,7 +15516,6 @@ static void hanging_taper_pose_segment2(const double q[HANGING_TAPER_NQ], double
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
-    double *const t = &work[200]; /* 54 */
     hanging_taper_pose_segment2_part1(q, sigma, nu, t);
     hanging_taper_pose_segment2_part2(q, sigma, nu, pnu, t);
     pose[0] = t[12]
@@ -15898,6 +15898,7 @@ static void hanging_taper_actuation_jacobian_ws(const double q[HANGING_TAPER_NQ]
     double cphi[2];
     double sphi[2];
     double phi;
+    double *const t = &work[288]; /* 104 */
     hanging_taper_moments(0.1 * q[0], 15, &nu[0], &nu[33]);
     hanging_taper_moments(0.09 * q[3], 15, &nu[66], &nu[99]);
     hanging_taper_moments(0.08 * q[6], 11, &nu[132], &nu[157]);
@@ -15908,7 +15909,6 @@ static void hanging_taper_actuation_jacobian_ws(const double q[HANGING_TAPER_NQ]
     cphi[1] = cos(phi);
     sphi[1] = sin(phi);
     hanging_taper_kernels(hanging_taper_actuation_jacobian_rows, 106, nu, kern);
-    double *const t = &work[288]; /* 104 */
     hanging_taper_actuation_jacobian_part1(q, nu, cphi, sphi, kern, t);
     hanging_taper_actuation_jacobian_part2(q, cphi, sphi, kern, t);
     hanging_taper_actuation_jacobian_part3(q, cphi, sphi, kern, t);
@@ -16137,9 +16137,9 @@ void hanging_taper_pose_ws(const double q[HANGING_TAPER_NQ], int segment, double
     double work[])
 {
     if (segment < 0 || segment >= HANGING_TAPER_NSEG || !hanging_taper_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
-        pose[0] = (double)NAN;
-        pose[1] = (double)NAN;
-        pose[2] = (double)NAN;
+        pose[0] = HANGING_TAPER_NAN;
+        pose[1] = HANGING_TAPER_NAN;
+        pose[2] = HANGING_TAPER_NAN;
         return;
     }
     switch (segment) {
@@ -16186,7 +16186,7 @@ static void hanging_taper_fill_nan(double qdd[HANGING_TAPER_NQ])
 {
     int i;
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
-        qdd[i] = (double)NAN;
+        qdd[i] = HANGING_TAPER_NAN;
     }
 }
 
@@ -16512,7 +16512,7 @@ hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_p
     int c;
     if (!hanging_taper_params_finite(P) || !hanging_taper_all_finite(q, HANGING_TAPER_NQ) || !hanging_taper_all_finite(u, HANGING_TAPER_NU)) {
         for (i = 0; i < HANGING_TAPER_NQ; ++i) {
-            R[i] = (double)NAN;
+            R[i] = HANGING_TAPER_NAN;
         }
         return HANGING_TAPER_ERR_NONFINITE_INPUT;
     }
@@ -16562,7 +16562,7 @@ hanging_taper_status hanging_taper_static_jacobian_with_ws(const hanging_taper_p
     int c;
     if (!hanging_taper_params_finite(P) || !hanging_taper_all_finite(q, HANGING_TAPER_NQ) || !hanging_taper_all_finite(u, HANGING_TAPER_NU)) {
         for (i = 0; i < HANGING_TAPER_NQ * HANGING_TAPER_NQ; ++i) {
-            J[i] = (double)NAN;
+            J[i] = HANGING_TAPER_NAN;
         }
         return HANGING_TAPER_ERR_NONFINITE_INPUT;
     }
@@ -16793,7 +16793,7 @@ hanging_taper_status hanging_taper_equilibrium_with_ws(const hanging_taper_param
         info->load_steps = load_steps;
         info->load = lambda;
         info->residual = last;
-        info->relative_residual = (double)NAN;
+        info->relative_residual = HANGING_TAPER_NAN;
         info->stable = 0;
     }
     if (status != HANGING_TAPER_OK) {

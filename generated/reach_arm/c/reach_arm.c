@@ -35,8 +35,7 @@
 #ifndef REACH_ARM_SQRT
 #define REACH_ARM_SQRT(x) sqrt(x)
 #endif
-
-#define REACH_ARM_NU_LEN 128
+#define REACH_ARM_NAN ((double)NAN)
 #define REACH_ARM_MOMENTS_MAX 32
 
 /* 1 when x is neither NaN nor an infinity. It reads the exponent bits instead of
@@ -342,7 +341,8 @@ static void reach_arm_moments(double a, int count, double re[], double im[])
         }
     } else if (ax < (double)count) {
         const double inv = 1.0 / x;
-        const int reach = (int)ceil(ax);
+        const double above_x = ceil(ax);
+        const int reach = (int)above_x;
         const int start = (count - 1 > reach ? count - 1 : reach) + 24;
         double above = 0.0;
         double cur = 1.0;
@@ -3333,6 +3333,8 @@ void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_A
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const F = &work[684]; /* 392 */
+    double *const t = &work[1076]; /* 170 */
     {
         const double a = 0.12 * q[0];
         reach_arm_moments(a, fabs(a) <= REACH_ARM_FAST_BENDING ? 14 : 29, &nu[0], &nu[32]);
@@ -3345,7 +3347,6 @@ void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_A
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_inertia_rows, 90, nu, kern);
-    double *const F = &work[684]; /* 392 */
     {
         const double a = 0.12 * q[0];
         if (fabs(a) <= REACH_ARM_FAST_BENDING) {
@@ -3368,7 +3369,6 @@ void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_A
             reach_arm_kernels(&reach_arm_inertia_rows[588], 262, nu, &kern[294]);
         }
     }
-    double *const t = &work[1076]; /* 170 */
     reach_arm_inertia_part1(q, kern, t);
     reach_arm_inertia_part2(q, nu, kern, t);
     reach_arm_inertia_part3(q, kern, t);
@@ -3710,13 +3710,13 @@ void reach_arm_gravity_with_ws(const reach_arm_params *P, const double q[REACH_A
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const t = &work[246]; /* 39 */
     reach_arm_moments(0.12 * q[0], 15, &nu[0], &nu[32]);
     reach_arm_moments(0.1 * q[3], 15, &nu[64], &nu[96]);
     phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_gravity_rows, 118, nu, kern);
-    double *const t = &work[246]; /* 39 */
     reach_arm_gravity_part1(q, nu, cphi, sphi, kern, P, t);
     reach_arm_gravity_part2(q, cphi, sphi, kern, P, t);
     G[0] = -P->density_scale[0] * (0.036 * t[33] * P->gravity[0] + 0.036 * t[34] * P->gravity[1])
@@ -6389,6 +6389,8 @@ void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const F = &work[844]; /* 450 */
+    double *const t = &work[1294]; /* 408 */
     {
         const double a = 0.12 * q[0];
         reach_arm_moments(a, fabs(a) <= REACH_ARM_FAST_BENDING ? 15 : 30, &nu[0], &nu[32]);
@@ -6401,7 +6403,6 @@ void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_regressor_rows, 148, nu, kern);
-    double *const F = &work[844]; /* 450 */
     {
         const double a = 0.12 * q[0];
         if (fabs(a) <= REACH_ARM_FAST_BENDING) {
@@ -6424,7 +6425,6 @@ void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH
             reach_arm_kernels(&reach_arm_regressor_rows[800], 316, nu, &kern[400]);
         }
     }
-    double *const t = &work[1294]; /* 408 */
     reach_arm_regressor_part1(q, qd, kern, t);
     reach_arm_regressor_part2(q, kern, t);
     reach_arm_regressor_part3(q, qd, kern, t);
@@ -7225,13 +7225,13 @@ void reach_arm_gravity_jacobian_with_ws(const reach_arm_params *P, const double 
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const t = &work[286]; /* 126 */
     reach_arm_moments(0.12 * q[0], 16, &nu[0], &nu[32]);
     reach_arm_moments(0.1 * q[3], 16, &nu[64], &nu[96]);
     phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_gravity_jacobian_rows, 158, nu, kern);
-    double *const t = &work[286]; /* 126 */
     reach_arm_gravity_jacobian_part1(q, nu, cphi, kern, t);
     reach_arm_gravity_jacobian_part2(q, cphi, sphi, kern, t);
     reach_arm_gravity_jacobian_part3(q, cphi, sphi, kern, P, t);
@@ -9930,6 +9930,8 @@ void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const F = &work[844]; /* 450 */
+    double *const t = &work[1294]; /* 398 */
     {
         const double a = 0.12 * q[0];
         reach_arm_moments(a, fabs(a) <= REACH_ARM_FAST_BENDING ? 15 : 30, &nu[0], &nu[32]);
@@ -9942,7 +9944,6 @@ void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     reach_arm_kernels(reach_arm_terms_rows, 148, nu, kern);
-    double *const F = &work[844]; /* 450 */
     {
         const double a = 0.12 * q[0];
         if (fabs(a) <= REACH_ARM_FAST_BENDING) {
@@ -9965,7 +9966,6 @@ void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM
             reach_arm_kernels(&reach_arm_terms_rows[800], 316, nu, &kern[400]);
         }
     }
-    double *const t = &work[1294]; /* 398 */
     reach_arm_terms_part1(q, qd, kern, t);
     reach_arm_terms_part2(q, kern, t);
     reach_arm_terms_part3(q, qd, kern, t);
@@ -10609,12 +10609,12 @@ static void reach_arm_pose_segment1(const double q[REACH_ARM_NQ], double sigma, 
     double cphi[1];
     double sphi[1];
     double phi;
+    double *const t = &work[154]; /* 56 */
     reach_arm_moments(0.12 * q[0], 13, &nu[0], &nu[32]);
     reach_arm_moments(0.1 * q[3] * sigma, 13, &pnu[0], &pnu[13]);
     phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    double *const t = &work[154]; /* 56 */
     reach_arm_pose_segment1_part1(q, sigma, nu, pnu, t);
     reach_arm_pose_segment1_part2(q, sigma, nu, pnu, t);
     pose[0] = 0.12 * nu[0]
@@ -10641,9 +10641,9 @@ void reach_arm_pose_ws(const double q[REACH_ARM_NQ], int segment, double sigma, 
     double work[])
 {
     if (segment < 0 || segment >= REACH_ARM_NSEG || !reach_arm_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
-        pose[0] = (double)NAN;
-        pose[1] = (double)NAN;
-        pose[2] = (double)NAN;
+        pose[0] = REACH_ARM_NAN;
+        pose[1] = REACH_ARM_NAN;
+        pose[2] = REACH_ARM_NAN;
         return;
     }
     switch (segment) {
@@ -10685,7 +10685,7 @@ static void reach_arm_fill_nan(double qdd[REACH_ARM_NQ])
 {
     int i;
     for (i = 0; i < REACH_ARM_NQ; ++i) {
-        qdd[i] = (double)NAN;
+        qdd[i] = REACH_ARM_NAN;
     }
 }
 
@@ -11007,7 +11007,7 @@ reach_arm_status reach_arm_static_residual_with_ws(const reach_arm_params *P, co
     int c;
     if (!reach_arm_params_finite(P) || !reach_arm_all_finite(q, REACH_ARM_NQ) || !reach_arm_all_finite(u, REACH_ARM_NU)) {
         for (i = 0; i < REACH_ARM_NQ; ++i) {
-            R[i] = (double)NAN;
+            R[i] = REACH_ARM_NAN;
         }
         return REACH_ARM_ERR_NONFINITE_INPUT;
     }
@@ -11055,7 +11055,7 @@ reach_arm_status reach_arm_static_jacobian_with_ws(const reach_arm_params *P, co
     int x;
     if (!reach_arm_params_finite(P) || !reach_arm_all_finite(q, REACH_ARM_NQ) || !reach_arm_all_finite(u, REACH_ARM_NU)) {
         for (i = 0; i < REACH_ARM_NQ * REACH_ARM_NQ; ++i) {
-            J[i] = (double)NAN;
+            J[i] = REACH_ARM_NAN;
         }
         return REACH_ARM_ERR_NONFINITE_INPUT;
     }
@@ -11278,7 +11278,7 @@ reach_arm_status reach_arm_equilibrium_with_ws(const reach_arm_params *P, const 
         info->load_steps = load_steps;
         info->load = lambda;
         info->residual = last;
-        info->relative_residual = (double)NAN;
+        info->relative_residual = REACH_ARM_NAN;
         info->stable = 0;
     }
     if (status != REACH_ARM_OK) {

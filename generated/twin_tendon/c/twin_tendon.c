@@ -32,8 +32,7 @@
 #ifndef TWIN_TENDON_SQRT
 #define TWIN_TENDON_SQRT(x) sqrt(x)
 #endif
-
-#define TWIN_TENDON_NU_LEN 32
+#define TWIN_TENDON_NAN ((double)NAN)
 #define TWIN_TENDON_MOMENTS_MAX 8
 
 /* 1 when x is neither NaN nor an infinity. It reads the exponent bits instead of
@@ -197,7 +196,8 @@ static void twin_tendon_moments(double a, int count, double re[], double im[])
         }
     } else if (ax < (double)count) {
         const double inv = 1.0 / x;
-        const int reach = (int)ceil(ax);
+        const double above_x = ceil(ax);
+        const int reach = (int)above_x;
         const int start = (count - 1 > reach ? count - 1 : reach) + 24;
         double above = 0.0;
         double cur = 1.0;
@@ -1065,9 +1065,9 @@ void twin_tendon_pose_ws(const double q[TWIN_TENDON_NQ], int segment, double sig
     double work[])
 {
     if (segment < 0 || segment >= TWIN_TENDON_NSEG || !twin_tendon_finite(sigma) || !(sigma >= 0.0 && sigma <= 1.0)) {
-        pose[0] = (double)NAN;
-        pose[1] = (double)NAN;
-        pose[2] = (double)NAN;
+        pose[0] = TWIN_TENDON_NAN;
+        pose[1] = TWIN_TENDON_NAN;
+        pose[2] = TWIN_TENDON_NAN;
         return;
     }
     switch (segment) {
@@ -1107,7 +1107,7 @@ static void twin_tendon_fill_nan(double qdd[TWIN_TENDON_NQ])
 {
     int i;
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
-        qdd[i] = (double)NAN;
+        qdd[i] = TWIN_TENDON_NAN;
     }
 }
 
@@ -1429,7 +1429,7 @@ twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params 
     int c;
     if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
-            R[i] = (double)NAN;
+            R[i] = TWIN_TENDON_NAN;
         }
         return TWIN_TENDON_ERR_NONFINITE_INPUT;
     }
@@ -1477,7 +1477,7 @@ twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params 
     int x;
     if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(u, TWIN_TENDON_NU)) {
         for (i = 0; i < TWIN_TENDON_NQ * TWIN_TENDON_NQ; ++i) {
-            J[i] = (double)NAN;
+            J[i] = TWIN_TENDON_NAN;
         }
         return TWIN_TENDON_ERR_NONFINITE_INPUT;
     }
@@ -1700,7 +1700,7 @@ twin_tendon_status twin_tendon_equilibrium_with_ws(const twin_tendon_params *P, 
         info->load_steps = load_steps;
         info->load = lambda;
         info->residual = last;
-        info->relative_residual = (double)NAN;
+        info->relative_residual = TWIN_TENDON_NAN;
         info->stable = 0;
     }
     if (status != TWIN_TENDON_OK) {

@@ -5,7 +5,9 @@ use super::CliError;
 use crate::arm::{parse_arm_str, MAX_EXPANSION_ORDER};
 use crate::cost::{estimate, Work};
 use crate::derive::{derive_steps, derive_with_progress, DeriveStep, Model};
-use crate::emit::{emit_steps, emit_with_progress, emitted_ops, Language, Options, Precision};
+use crate::emit::{
+    emit_steps, emit_with_progress, emitted_ops, CStandard, Language, Options, Precision,
+};
 use crate::optimise::{optimise, Limits};
 use crate::outdir::{compare, write_tree};
 use clap::{Args, ValueEnum};
@@ -15,6 +17,13 @@ use std::path::PathBuf;
 pub enum PrecisionArg {
     F32,
     F64,
+}
+
+/// The C standard of `generate --c-standard`.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, ValueEnum)]
+pub enum CStandardArg {
+    C99,
+    C90,
 }
 
 /// A target language of `generate`.
@@ -72,6 +81,11 @@ pub struct GenerateArgs {
     /// Floating-point type of the C code (Rust and Python use f64).
     #[arg(long, value_enum, default_value = "f64")]
     precision: PrecisionArg,
+    /// C standard of the C code: c90 puts every declaration at the top of its block
+    /// (temporaries lose their `const`) and needs no C99 library macro; the shipped C
+    /// test itself stays C99.
+    #[arg(long, value_enum, default_value = "c99")]
+    c_standard: CStandardArg,
     /// Write nothing; list the files that would change and exit 1 if any would.
     #[arg(long)]
     check: bool,
@@ -142,6 +156,10 @@ pub fn run(args: &GenerateArgs) -> Result<(), CliError> {
     };
     let options = Options {
         precision,
+        c_standard: match args.c_standard {
+            CStandardArg::C99 => CStandard::C99,
+            CStandardArg::C90 => CStandard::C90,
+        },
         optimised: args.optimise,
         languages: args.lang.iter().map(|l| Language::from(*l)).collect(),
     };

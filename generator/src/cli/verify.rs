@@ -19,7 +19,7 @@ use crate::dynamics::{forward_dynamics, generalized_force};
 use crate::emit::golden::{self, SIGMAS};
 use crate::emit::marker::MARKER;
 use crate::emit::FUNCTIONS;
-use crate::emit::{emit, Language, Languages, Meta, Options, Precision};
+use crate::emit::{emit, CStandard, Language, Languages, Meta, Options, Precision};
 use crate::evaluate::Evaluator;
 use crate::outdir::{compare, read_marker, walk::walk};
 use crate::reference::{Kinematics, Reference};
@@ -184,6 +184,7 @@ pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
     // Byte comparison with a fresh generation.
     let options = record.options.unwrap_or(Options {
         precision: detect_precision(dir, &arm.name),
+        c_standard: CStandard::C99,
         optimised: args.optimise,
         languages: Languages::ALL,
     });

@@ -29,7 +29,7 @@ pub struct Spelling<'a> {
 
 impl Spelling<'_> {
     /// Whether temporary `t` is an element of the array `t` (else a named local).
-    fn in_array(&self, t: usize) -> bool {
+    pub fn in_array(&self, t: usize) -> bool {
         self.temp_array && self.slots.is_none_or(|s| s[t].is_some())
     }
 }

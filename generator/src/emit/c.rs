@@ -14,7 +14,7 @@ use super::number::Precision;
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
 use super::schedule::{Block, Leaf, Stmt};
 use super::templates::render;
-use super::Meta;
+use super::{CStandard, Meta};
 use crate::ir::Var;
 use serde::Serialize;
 
@@ -81,6 +81,7 @@ fn uint_type(max: usize) -> &'static str {
 struct Printer<'a> {
     plan: &'a Plan,
     precision: Precision,
+    standard: CStandard,
     name: &'a str,
 }
 
@@ -135,31 +136,28 @@ impl Printer<'_> {
             slots: split.then_some(slots.as_slice()),
             param_prefix: "P->",
         };
-        let style = StmtStyle {
-            decl: format!("const {r} "),
-            end: ";",
-            indent: 4,
-            parens: false,
-            temp_array: split,
-        };
+        let style = self.stmt_style(split);
+        // Declarations (the pieces of `work`, and under C90 the temporaries) come
+        // first, the code after them.
+        let mut decls = String::new();
         let mut out = String::new();
         let mut rows = String::new();
         let mut used = 0usize;
-        let mut carve = |out: &mut String, what: &str, len: usize| {
-            out.push_str(&format!(
+        let mut carve = |decls: &mut String, what: &str, len: usize| {
+            decls.push_str(&format!(
                 "    {r} *const {what} = &work[{used}]; /* {len} */\n"
             ));
             used += len;
         };
         let needs_nu = b.nu_count.iter().any(|&c| c > 0);
         if needs_nu {
-            carve(&mut out, "nu", plan.layout.len.max(1));
+            carve(&mut decls, "nu", plan.layout.len.max(1));
         }
         if pose_count > 0 {
-            carve(&mut out, "pnu", 2 * pose_count);
+            carve(&mut decls, "pnu", 2 * pose_count);
         }
         if !b.kernels.is_empty() {
-            carve(&mut out, "kern", b.kernels.len());
+            carve(&mut decls, "kern", b.kernels.len());
             let items = use_pairs(&b.kernels);
             let max = use_max(plan);
             rows = format!(
@@ -172,7 +170,7 @@ impl Printer<'_> {
             );
         }
         if b.angles > 0 {
-            out.push_str(&format!(
+            decls.push_str(&format!(
                 "    {r} cphi[{}];\n    {r} sphi[{}];\n    {r} phi;\n",
                 b.angles, b.angles
             ));
@@ -229,7 +227,7 @@ impl Printer<'_> {
                 out.push_str(&format!("    {n}_kernels({rows}, {count}, nu, kern);\n"));
             }
             if !func.families.is_empty() {
-                carve(&mut out, "F", func.matrix_scratch(&plan.matrix_tables));
+                carve(&mut decls, "F", func.matrix_scratch(&plan.matrix_tables));
             }
             for (k, f) in func.families.iter().enumerate() {
                 let size = plan.matrix_tables[f.table].size;
@@ -283,15 +281,52 @@ impl Printer<'_> {
             out.push_str("    (void)P;\n");
         }
         if split {
-            carve(&mut out, "t", slot_count);
+            carve(&mut decls, "t", slot_count);
             let (defs, calls) = self.parts(b, fname, &syn, &style);
             rows.push_str(&defs);
             out.push_str(&calls);
         } else {
+            decls.push_str(&self.hoisted(&b.stmts, &syn));
             out.push_str(&temporaries(b, &syn, &style));
         }
         out.push_str(&outputs(b, &syn, &style, target));
-        (rows, out, used)
+        (rows, format!("{decls}{out}"), used)
+    }
+
+    /// How temporaries are written: `const` where computed (C99), or assigned to
+    /// variables declared at the top of the block (C90, see [`Self::hoisted`]).
+    fn stmt_style(&self, temp_array: bool) -> StmtStyle {
+        StmtStyle {
+            decl: match self.standard {
+                CStandard::C99 => format!("const {} ", self.real()),
+                CStandard::C90 => String::new(),
+            },
+            end: ";",
+            indent: 4,
+            parens: false,
+            temp_array,
+        }
+    }
+
+    /// Under C90, the declarations of the local temporaries among `stmts` (those not
+    /// kept in the scratch array `t`); nothing under C99.
+    fn hoisted(&self, stmts: &[Stmt], syn: &Spelling) -> String {
+        if self.standard == CStandard::C99 {
+            return String::new();
+        }
+        let names: Vec<String> = stmts
+            .iter()
+            .filter(|s| !syn.in_array(s.temp))
+            .map(|s| format!("t{}", s.temp))
+            .collect();
+        if names.is_empty() {
+            return String::new();
+        }
+        let mut out = String::new();
+        for chunk in names.chunks(10) {
+            out.push_str(&format!("    {} {};\n", self.real(), chunk.join(", ")));
+        }
+        out
     }
 
     /// A long body as static parts of at most [`PART_STATEMENTS`] statements each,
@@ -345,11 +380,12 @@ impl Printer<'_> {
             let part = format!("{}_{fname}_part{}", self.name, c + 1);
             defs.push_str(&format!(
                 "/* Part {} of {} of {}_{fname}: temporaries into the caller's scratch t[]. */\n\
-                 static void {part}({})\n{{\n{}}}\n\n",
+                 static void {part}({})\n{{\n{}{}}}\n\n",
                 c + 1,
                 chunks.len(),
                 self.name,
                 params.join(", "),
+                self.hoisted(chunk, syn),
                 statements(chunk, syn, style),
             ));
             calls.push_str(&format!("    {part}({});\n", args.join(", ")));
@@ -416,6 +452,7 @@ pub fn emit(
     plan: &Plan,
     meta: &Meta,
     precision: Precision,
+    standard: CStandard,
     golden: &Golden,
 ) -> Result<Vec<(String, String)>, String> {
     let name = plan.name.as_str();
@@ -424,6 +461,7 @@ pub fn emit(
     let p = Printer {
         plan,
         precision,
+        standard,
         name,
     };
     let n = plan.n;
@@ -901,6 +939,14 @@ pub fn emit(
         ),
     };
     ctx.insert("real_bits", bits);
+    ctx.insert("c90", &(standard == CStandard::C90));
+    ctx.insert(
+        "quiet_nan_bits",
+        match precision {
+            Precision::F32 => "UINT32_C(0x7FC00000)",
+            Precision::F64 => "UINT64_C(0x7FF8000000000000)",
+        },
+    );
     ctx.insert("exponent_mask", exponent);
     ctx.insert("mantissa_mask", mantissa);
     ctx.insert("big", big);

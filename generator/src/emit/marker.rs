@@ -4,7 +4,7 @@
 //! run can tell its own untouched files from files a user added or edited, and refuse
 //! to delete the latter.
 
-use super::{Language, Languages, Meta, Options, OutFile, Precision};
+use super::{CStandard, Language, Languages, Meta, Options, OutFile, Precision};
 use sha2::{Digest, Sha256};
 use std::collections::BTreeMap;
 
@@ -39,7 +39,7 @@ pub fn sha256_hex(bytes: &[u8]) -> String {
 pub fn text(meta: &Meta, options: &Options, files: &[OutFile]) -> String {
     let mut out = format!(
         "{FIRST_LINE}{} (arm file SHA-256 {}).\n\
-         {OPTIONS_LINE} --precision {}{} --lang {}\n\
+         {OPTIONS_LINE} --precision {}{}{} --lang {}\n\
          `arcwright generate` replaces this folder as a whole, and refuses to while it holds\n\
          a file that is not listed below or that was edited since: keep your own files elsewhere.\n\
          \n\
@@ -49,6 +49,10 @@ pub fn text(meta: &Meta, options: &Options, files: &[OutFile]) -> String {
         match options.precision {
             Precision::F32 => "f32",
             Precision::F64 => "f64",
+        },
+        match options.c_standard {
+            CStandard::C99 => "",
+            CStandard::C90 => " --c-standard c90",
         },
         if options.optimised { " --optimise" } else { "" },
         options.languages.names().join(","),
@@ -122,8 +126,14 @@ fn parse_options(line: &str) -> Option<Options> {
             set
         }
     };
+    let c_standard = match value("--c-standard") {
+        None | Some("c99") => CStandard::C99,
+        Some("c90") => CStandard::C90,
+        Some(_) => return None,
+    };
     Some(Options {
         precision,
+        c_standard,
         optimised: words.contains(&"--optimise"),
         languages,
     })
@@ -144,10 +154,11 @@ mod tests {
     fn a_marker_reads_back_what_it_records() {
         let meta = Meta::new("name = \"x\"", 3);
         for precision in [Precision::F64, Precision::F32] {
-            for optimised in [false, true] {
+            for (optimised, c_standard) in [(false, CStandard::C99), (true, CStandard::C90)] {
                 for languages in [Languages::ALL, Languages::only(Language::C)] {
                     let o = Options {
                         precision,
+                        c_standard,
                         optimised,
                         languages,
                     };

@@ -115,12 +115,25 @@ impl FromIterator<Language> for Languages {
     }
 }
 
+/// The C standard the C output is written to.
+#[derive(Clone, Copy, Debug, PartialEq, Eq, Default)]
+pub enum CStandard {
+    /// C99: temporaries are `const` and declared where they are computed.
+    #[default]
+    C99,
+    /// C90 (ANSI C, as older or qualified toolchains and C90-based coding rules ask):
+    /// every declaration at the top of its block, no C99-only library macro.
+    C90,
+}
+
 /// How a folder is generated; all of it is recorded in the folder's marker, so that
 /// `verify` regenerates the same way.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct Options {
     /// Precision of the C output (Rust and Python are always double).
     pub precision: Precision,
+    /// Standard of the C output.
+    pub c_standard: CStandard,
     /// The model went through the optimiser.
     pub optimised: bool,
     /// The languages written.
@@ -131,6 +144,7 @@ impl Default for Options {
     fn default() -> Self {
         Options {
             precision: Precision::F64,
+            c_standard: CStandard::C99,
             optimised: false,
             languages: Languages::ALL,
         }
@@ -238,6 +252,7 @@ fn emit_inner(
                 c_plan.as_ref().unwrap_or(&plan),
                 &meta,
                 options.precision,
+                options.c_standard,
                 &golden,
             )?,
             Language::Rust => rust::emit(&plan, &meta, &golden)?,
