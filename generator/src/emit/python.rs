@@ -458,6 +458,9 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
     );
     super::control_code::insert_python(&mut ctx, plan);
+    ctx.insert("rtol", &golden.rtol(Precision::F64));
+    ctx.insert("rtol_reason", golden.rtol_reason(Precision::F64));
+    ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(Precision::F64));
     ctx.insert("golden", &golden_python(golden));
     ctx.insert(
         "sigmas",

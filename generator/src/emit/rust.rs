@@ -658,6 +658,9 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .collect();
     ctx.insert("param_assign", &assign);
     super::control_code::insert_rust(&mut ctx, plan);
+    ctx.insert("rtol", &golden.rtol(Precision::F64));
+    ctx.insert("rtol_reason", golden.rtol_reason(Precision::F64));
+    ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(Precision::F64));
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(
         "sigmas",
