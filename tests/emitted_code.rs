@@ -451,23 +451,31 @@ fn rust_crate_matches_reference() {
     let target = root().join("target/generated-rust");
     for arm in arms() {
         let name = arm_name(&arm);
-        let dir = generated(&arm, Precision::F64).join("rust");
-        let text = run(
-            Command::new(env!("CARGO"))
-                .args(["test", "--quiet"])
-                .current_dir(&dir)
-                .env("CARGO_TARGET_DIR", &target)
-                .env("RUSTFLAGS", "-D warnings"),
-            &format!("cargo test of the {name} crate"),
-        );
-        let tests = std::fs::read_to_string(dir.join("tests/golden.rs"))
-            .expect("golden.rs")
-            .matches("#[test]")
-            .count();
-        assert!(
-            tests >= 8 && text.contains(&format!("{tests} passed")),
-            "{name}: not all {tests} golden and workspace tests ran:\n{text}"
-        );
+        for (precision, real) in [(Precision::F64, "f64"), (Precision::F32, "f32")] {
+            let dir = generated(&arm, precision).join("rust");
+            let lib = std::fs::read_to_string(dir.join("src/lib.rs")).expect("lib.rs");
+            assert!(
+                lib.contains(&format!("pub type Real = {real};")),
+                "{name}: the {real} crate is not {real}"
+            );
+            let text = run(
+                Command::new(env!("CARGO"))
+                    .args(["test", "--quiet"])
+                    .current_dir(&dir)
+                    .env("CARGO_TARGET_DIR", &target)
+                    .env("RUSTFLAGS", "-D warnings"),
+                &format!("cargo test of the {real} {name} crate"),
+            );
+            let tests = std::fs::read_to_string(dir.join("tests/golden.rs"))
+                .expect("golden.rs")
+                .matches("#[test]")
+                .count();
+            assert!(
+                tests >= 8 && text.contains(&format!("{tests} passed")),
+                "{real} {name}: not all {tests} golden and workspace tests ran:\n{text}"
+            );
+            println!("Rust {real} {name}: {tests} passed");
+        }
     }
 }
 

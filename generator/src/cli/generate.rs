@@ -78,7 +78,7 @@ pub struct GenerateArgs {
     /// Expansion order N, overriding the arm file (the recorded arm.toml says N).
     #[arg(long)]
     order: Option<u32>,
-    /// Floating-point type of the C code (Rust and Python use f64).
+    /// Floating-point type of the C and Rust code (Python uses f64).
     #[arg(long, value_enum, default_value = "f64")]
     precision: PrecisionArg,
     /// C standard of the C code: c90 puts every declaration at the top of its block

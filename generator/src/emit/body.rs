@@ -25,6 +25,8 @@ pub struct Spelling<'a> {
     pub slots: Option<&'a [Option<usize>]>,
     /// What precedes a runtime parameter's field name: `P->` (C), `p.` (Rust), `` (Python).
     pub param_prefix: &'static str,
+    /// Literals spelled for Rust (`0.5f32`, not C's `0.5f`).
+    pub rust: bool,
 }
 
 impl Spelling<'_> {
@@ -65,7 +67,12 @@ impl Syntax for Spelling<'_> {
     }
 
     fn literal(&self, q: &Q) -> String {
-        literal(q, self.precision)
+        let c = literal(q, self.precision);
+        if self.rust {
+            super::number::rust_spelling(c)
+        } else {
+            c
+        }
     }
 }
 

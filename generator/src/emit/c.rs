@@ -135,6 +135,7 @@ impl Printer<'_> {
             temp_array: split,
             slots: split.then_some(slots.as_slice()),
             param_prefix: "P->",
+            rust: false,
         };
         let style = self.stmt_style(split);
         // Declarations (the pieces of `work`, and under C90 the temporaries) come
@@ -443,6 +444,27 @@ fn work_of(work: &[(String, usize)], fname: &str) -> usize {
         .find(|(f, _)| f == fname)
         .map(|(_, l)| *l)
         .unwrap_or(0)
+}
+
+/// Smallest Cholesky pivot of forward dynamics relative to its diagonal entry: 64
+/// units of rounding, below which `B` is singular to working precision (C spelling).
+pub(crate) fn pivot_floor(precision: Precision) -> &'static str {
+    match precision {
+        Precision::F64 => "1.4e-14",
+        Precision::F32 => "7.6e-6f",
+    }
+}
+
+/// The allocation conditioning (`regcond`) above which the shipped tests check the
+/// regulators' inputs: single precision resolves the allocation only where
+/// `S A (S A)^T` is well posed (measured on reach_arm, eigenvalue ratio 1.4e-4: the
+/// compensated inputs at the second parameter set differ from the reference by 3.6e-3
+/// relative and flip to SATURATED at one state, so 1e-4 was too permissive).
+pub(crate) fn well_posed(precision: Precision) -> &'static str {
+    match precision {
+        Precision::F64 => "0.0",
+        Precision::F32 => "1e-3",
+    }
 }
 
 /// Longest straight-line body printed as one function; longer ones become parts.
@@ -1019,24 +1041,8 @@ pub fn emit(
             Precision::F32 => "3e38f",
         },
     );
-    ctx.insert(
-        "pivot_floor",
-        match precision {
-            Precision::F64 => "1.4e-14",
-            Precision::F32 => "7.6e-6f",
-        },
-    );
-    // Single precision resolves the regulators' allocation only where S A (S A)^T is
-    // well posed: measured on reach_arm (eigenvalue ratio 1.4e-4), the compensated
-    // inputs at the second parameter set differ from the reference by 3.6e-3
-    // relative and flip to SATURATED at one state, so 1e-4 was too permissive.
-    ctx.insert(
-        "well_posed",
-        match precision {
-            Precision::F64 => "0.0",
-            Precision::F32 => "1e-3",
-        },
-    );
+    ctx.insert("pivot_floor", pivot_floor(precision));
+    ctx.insert("well_posed", well_posed(precision));
 
     Ok(vec![
         (format!("c/{name}.h"), render("c/header.h", &ctx)?),

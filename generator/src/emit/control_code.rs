@@ -302,16 +302,23 @@ pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &Stati
     ctx.insert("reg", &st.regulate);
 }
 
-/// Everything the Rust statics section reads (double precision only).
-pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
-    StaticsOps::of(plan).insert(ctx, "/// ");
-    insert_range(ctx, plan, Precision::F64, "libm::fabs");
+/// Everything the Rust statics section reads, for a crate of precision `precision`.
+/// The geometry's literals keep double digits (typed `Real` by their context); the
+/// solver settings are the precision's (see [`Settings`]).
+pub fn insert_rust(ctx: &mut Context, plan: &Plan, precision: Precision) {
+    use super::number::rust_spelling;
+    let fabs = match precision {
+        Precision::F32 => "libm::fabsf",
+        Precision::F64 => "libm::fabs",
+    };
     let p = Precision::F64;
+    StaticsOps::of(plan).insert(ctx, "/// ");
+    insert_range(ctx, plan, p, fabs);
     let segments: Vec<SegmentCode> = (0..plan.segments)
         .map(|j| SegmentCode {
             length: literal(&plan.seg_length[j], p),
             sum: (0..plan.seg_coords[j])
-                .map(|i| format!("libm::fabs(v[{}])", plan.seg_offset[j] + i))
+                .map(|i| format!("{fabs}(v[{}])", plan.seg_offset[j] + i))
                 .collect::<Vec<_>>()
                 .join(" + "),
         })
@@ -333,9 +340,9 @@ pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
         .collect();
     let bound = |x: f64| {
         if x == f64::INFINITY {
-            "f64::INFINITY".to_string()
+            "Real::INFINITY".to_string()
         } else if x == f64::NEG_INFINITY {
-            "f64::NEG_INFINITY".to_string()
+            "Real::NEG_INFINITY".to_string()
         } else {
             super::number::f64_literal(x)
         }
@@ -345,15 +352,15 @@ pub fn insert_rust(ctx: &mut Context, plan: &Plan) {
         .iter()
         .map(|l| format!("[{}, {}]", bound(l.lo), bound(l.hi)))
         .collect();
-    let set = Settings::of(p);
+    let set = Settings::of(precision);
     ctx.insert("segments", &segments);
     ctx.insert("outputs", &outputs);
     ctx.insert("ny", &plan.outputs.len());
     ctx.insert("rust_limits", &limits.join(", "));
-    ctx.insert("eq_tolerance", set.eq_tolerance);
-    ctx.insert("regularisation", &set.regularisation);
-    ctx.insert("polish_pivot", &set.polish_pivot);
-    ctx.insert("saturation", &set.saturation);
+    ctx.insert("eq_tolerance", &rust_spelling(set.eq_tolerance.to_string()));
+    ctx.insert("regularisation", &rust_spelling(set.regularisation.clone()));
+    ctx.insert("polish_pivot", &rust_spelling(set.polish_pivot.clone()));
+    ctx.insert("saturation", &rust_spelling(set.saturation.clone()));
     ctx.insert("reg_iterations", &max_iterations(plan.k));
     ctx.insert("has_da", &plan.actuation_jacobian.is_some());
 }

@@ -130,7 +130,7 @@ pub enum CStandard {
 /// `verify` regenerates the same way.
 #[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct Options {
-    /// Precision of the C output (Rust and Python are always double).
+    /// Precision of the C and Rust output (Python is always double).
     pub precision: Precision,
     /// Standard of the C output.
     pub c_standard: CStandard,
@@ -231,13 +231,16 @@ fn emit_inner(
     let meta = Meta::new(arm_text, model.arm.expansion_order);
     progress("scheduling the code");
     let plan = plan::Plan::new(model, true, Precision::F64)?;
-    // Single-precision C resolves fewer moments on the fast path: its own plan.
-    let c_plan = match options.precision {
-        Precision::F32 if options.languages.contains(Language::C) => {
-            Some(plan::Plan::new(model, true, Precision::F32)?)
-        }
-        _ => None,
+    // Single precision resolves fewer moments on the fast path: C and Rust in it get
+    // their own plan (Python is always double).
+    let single = options.precision == Precision::F32
+        && (options.languages.contains(Language::C) || options.languages.contains(Language::Rust));
+    let single_plan = if single {
+        Some(plan::Plan::new(model, true, Precision::F32)?)
+    } else {
+        None
     };
+    let typed_plan = single_plan.as_ref().unwrap_or(&plan);
     progress("golden values from the numeric reference");
     let golden = golden::Golden::compute(model)?;
     let mut files = Vec::new();
@@ -249,13 +252,13 @@ fn emit_inner(
         });
         files.extend(match language {
             Language::C => c::emit(
-                c_plan.as_ref().unwrap_or(&plan),
+                typed_plan,
                 &meta,
                 options.precision,
                 options.c_standard,
                 &golden,
             )?,
-            Language::Rust => rust::emit(&plan, &meta, &golden)?,
+            Language::Rust => rust::emit(typed_plan, &meta, options.precision, &golden)?,
             Language::Python => python::emit(&plan, &meta, &golden)?,
         });
     }
@@ -268,7 +271,7 @@ fn emit_inner(
             "{path}: a constant of the model is not finite in {} precision; the arm's numbers \
              are too large or too small for it (see the supported ranges in the README)",
             match options.precision {
-                Precision::F32 if path.starts_with("c/") => "single",
+                Precision::F32 if !path.starts_with("python/") => "single",
                 _ => "double",
             }
         ));

@@ -77,6 +77,18 @@ pub fn literal(q: &Q, precision: Precision) -> String {
     }
 }
 
+/// A C literal (`literal`) as Rust spells it: without single precision's `f` suffix,
+/// the digits typed by their context (every value of the emitted crate is a `Real`,
+/// so an unsuffixed literal is an `f32` there, and one in the wrong place fails to
+/// compile); anything else is unchanged (double literals, names, the sentinel).
+pub fn rust_spelling(c: String) -> String {
+    let numeric = c.starts_with(|ch: char| ch.is_ascii_digit() || ch == '-' || ch == '.');
+    match c.strip_suffix('f') {
+        Some(body) if numeric => body.to_string(),
+        _ => c,
+    }
+}
+
 /// Nearest `f32` to `q`: the nearest double rounded again is off by one unit only in
 /// a double-rounding tie, which is resolved here against the exact value.
 fn rational_to_f32(q: &Q, x: f64) -> f32 {

@@ -55,6 +55,7 @@ fn function(
         temp_array: false,
         slots: None,
         param_prefix: "P.",
+        rust: false,
     };
     let style = StmtStyle {
         decl: String::new(),

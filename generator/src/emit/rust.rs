@@ -11,7 +11,7 @@ use super::constants::{
     MomentConstants,
 };
 use super::golden::{Golden, SIGMAS};
-use super::number::Precision;
+use super::number::{rust_spelling, Precision};
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
 use super::templates::render;
 use super::{Meta, OutFile};
@@ -36,6 +36,14 @@ fn uint(max: usize) -> &'static str {
     }
 }
 
+/// The suffix of `libm`'s single-precision functions (`sinf`), none for double.
+fn libm_suffix(precision: Precision) -> &'static str {
+    match precision {
+        Precision::F32 => "f",
+        Precision::F64 => "",
+    }
+}
+
 /// Parses and pretty-prints Rust source.
 fn format_rust(what: &str, src: &str) -> Result<String, String> {
     let file = syn::parse_file(src).map_err(|e| {
@@ -54,8 +62,15 @@ fn format_rust(what: &str, src: &str) -> Result<String, String> {
 /// The body of one function's `_in` form, which works in the scratch slice `work`:
 /// the moment, kernel and temporary arrays are split off its front. Returns the
 /// constant tables it reads, the body, and the scratch length it needs.
+/// What every function body of the crate is printed for: the plan and the precision.
+#[derive(Clone, Copy)]
+struct Target<'a> {
+    plan: &'a Plan,
+    precision: Precision,
+}
+
 fn body(
-    plan: &Plan,
+    target_crate: Target,
     func: &Func,
     fname: &str,
     pose_seg: Option<usize>,
@@ -63,17 +78,20 @@ fn body(
     target: &dyn Fn(usize) -> String,
     ret: &str,
 ) -> (String, String, usize) {
+    let Target { plan, precision } = target_crate;
     let b = &func.block;
+    let fs = libm_suffix(precision);
     let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
     // Temporaries share array slots once dead, to keep the scratch small.
     let (slots, slot_count) = temp_slots(b, None);
     let syn = Spelling {
         plan,
-        precision: Precision::F64,
+        precision,
         pose_count,
         temp_array: true,
         slots: Some(&slots),
         param_prefix: "p.",
+        rust: true,
     };
     let style = StmtStyle {
         decl: "let ".into(),
@@ -124,7 +142,7 @@ fn body(
                 // The fast path reads fewer: its top rows are cut to the precision.
                 Some((fast, full)) => format!(
                     "{{\nlet a = {arg};\n\
-                     let count = if libm::fabs(a) <= FAST_BENDING {{ {fast} }} else {{ {full} }};\n\
+                     let count = if libm::fabs{fs}(a) <= FAST_BENDING {{ {fast} }} else {{ {full} }};\n\
                      moments(a, count, nu, {off}, {im});\n}}\n"
                 ),
             });
@@ -150,7 +168,7 @@ fn body(
                 out.push_str(&format!("phi += {inc};\n"));
             }
             out.push_str(&format!(
-                "cphi[{j}] = libm::cos(phi);\nsphi[{j}] = libm::sin(phi);\n"
+                "cphi[{j}] = libm::cos{fs}(phi);\nsphi[{j}] = libm::sin{fs}(phi);\n"
             ));
         }
     }
@@ -196,7 +214,7 @@ fn body(
             let (s0, s1) = (f.start, f.start + f.count);
             out.push_str(&format!(
                 "{{\nlet a = {arg};\n\
-                 if libm::fabs(a) <= FAST_BENDING {{\n\
+                 if libm::fabs{fs}(a) <= FAST_BENDING {{\n\
                  kernels(&{upper}_SEEDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
                  kernels(&{upper}_SEEDS{k}[{size2}..], nu, &mut hk[{top_im}..{top_im_end}]);\n\
                  kernel_recurrence({size}, a, &TAIL_MOMENTS{t}, hk);\n\
@@ -225,13 +243,19 @@ fn body(
     (rows, out, len)
 }
 
-pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, String> {
+pub fn emit(
+    plan: &Plan,
+    meta: &Meta,
+    precision: Precision,
+    golden: &Golden,
+) -> Result<Vec<OutFile>, String> {
+    let tc = Target { plan, precision };
     let name = plan.name.as_str();
     let n = plan.n;
     let k = plan.k;
     let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_dot);
     let mut funcs = Vec::new();
-    let mat = |rows: &str, cols: &str| format!("[[f64; {cols}]; {rows}]");
+    let mat = |rows: &str, cols: &str| format!("[[Real; {cols}]; {rows}]");
     let mut work_len = 0usize;
     // One public function in three: `F_in` does the work in a scratch slice, `F` lends
     // it scratch on the stack, `F_ws` the caller's [`Workspace`].
@@ -271,7 +295,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             ),
             ops: ops.clone(),
             signature: format!(
-                "fn {fname}_in({p_decl}{}, {w}: &mut [f64]) -> {ret}",
+                "fn {fname}_in({p_decl}{}, {w}: &mut [Real]) -> {ret}",
                 decl(true)
             ),
             body,
@@ -329,8 +353,8 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         }
         work_len = work_len.max(len);
     };
-    let q_of = |f: &Func| ("q", "&[f64; NQ]", f.block.reads_q);
-    let qd_of = |f: &Func| ("qd", "&[f64; NQ]", f.block.reads_qd);
+    let q_of = |f: &Func| ("q", "&[Real; NQ]", f.block.reads_q);
+    let qd_of = |f: &Func| ("qd", "&[Real; NQ]", f.block.reads_qd);
     let mat_target =
         |cols: usize| move |i: usize| format!("out[{}][{}]", i / cols.max(1), i % cols.max(1));
     let nn = mat("NQ", "NQ");
@@ -342,7 +366,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
                          init: &str,
                          target: &dyn Fn(usize) -> String,
                          result: &str| {
-        let (rows, body, len) = body(plan, f, fname, None, init, target, result);
+        let (rows, body, len) = body(tc, f, fname, None, init, target, result);
         public(fname, formula, ops_line(f), params, ret, rows, body, len);
         len
     };
@@ -361,7 +385,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         "Gravity vector `G(q) = ∂U_g/∂q`.",
         &plan.gravity,
         &[q_of(&plan.gravity)],
-        "[f64; NQ]",
+        "[Real; NQ]",
         "let mut out = [0.0; NQ];\n",
         &|i| format!("out[{i}]"),
         "out\n",
@@ -401,13 +425,13 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         "Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.",
         &plan.potential_energy,
         &[q_of(&plan.potential_energy)],
-        "f64",
+        "Real",
         "",
         &|_| String::new(),
         "",
     );
     let nn2 = n * n;
-    let terms_ret = format!("({nn}, {nn}, [f64; NQ])");
+    let terms_ret = format!("({nn}, {nn}, [Real; NQ])");
     let terms_work = generated(
         "terms",
         "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.",
@@ -435,7 +459,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             &[
                 q_of(f),
                 qd_of(f),
-                ("qdd", "&[f64; NQ]", true),
+                ("qdd", "&[Real; NQ]", true),
             ],
             &mat("NQ", "NTHETA"),
             "let mut out = [[0.0; NTHETA]; NQ];\n",
@@ -443,7 +467,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             "out\n",
         );
     }
-    let both = [("q", "&[f64; NQ]", true), ("qd", "&[f64; NQ]", true)];
+    let both = [("q", "&[Real; NQ]", true), ("qd", "&[Real; NQ]", true)];
     // C alone needs nearly everything B and G need too: it is `terms`, keeping C.
     public(
         "coriolis",
@@ -460,7 +484,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].",
         super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
         &both,
-        "f64",
+        "Real",
         String::new(),
         "let b = inertia_in(p, q, work);\nlet mut t = 0.0;\nfor i in 0..NQ {\n\
          let mut bqd = 0.0;\nfor k in 0..NQ {\nbqd += b[i][k] * qd[k];\n}\n\
@@ -482,7 +506,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         ),
     ] {
         let (rows, body, len_k) = body(
-            plan,
+            tc,
             f,
             fname,
             None,
@@ -499,7 +523,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             body: if len_k == 0 {
                 body
             } else {
-                format!("let work: &mut [f64] = &mut [0.0; {len_k}];\n{body}")
+                format!("let work: &mut [Real] = &mut [0.0; {len_k}];\n{body}")
             },
         });
         funcs.push(RFunc {
@@ -520,7 +544,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             "_sigma"
         };
         let (rows, body, len) = body(
-            plan,
+            tc,
             f,
             &fname,
             Some(j),
@@ -535,7 +559,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             formula: format!("Backbone pose `[x, y, angle]` of segment {j} at `sigma`."),
             ops: ops_line(f),
             signature: format!(
-                "fn {fname}({}: &[f64; NQ], {sig}: f64, {w}: &mut [f64]) -> [f64; 3]",
+                "fn {fname}({}: &[Real; NQ], {sig}: Real, {w}: &mut [Real]) -> [Real; 3]",
                 if f.block.reads_q { "q" } else { "_q" }
             ),
             body,
@@ -546,7 +570,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     let mut da_work = 0usize;
     if let Some(f) = &plan.actuation_jacobian {
         let (rows, body, len) = body(
-            plan,
+            tc,
             f,
             "actuation_jacobian",
             None,
@@ -560,7 +584,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             formula: "`∂A_ic/∂q_x` as `[x][i][c]`: the statics functions' `∂(A u)/∂q`.".into(),
             ops: ops_line(f),
             signature: format!(
-                "fn actuation_jacobian_in(q: &[f64; NQ], {}: &mut [f64]) -> [[[f64; NU]; NQ]; NQ]",
+                "fn actuation_jacobian_in(q: &[Real; NQ], {}: &mut [Real]) -> [[[Real; NU]; NQ]; NQ]",
                 if len == 0 { "_work" } else { "work" }
             ),
             body,
@@ -577,7 +601,13 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .max(dynamics_work)
         .max(statics_work)
         .max(1);
-    let mc = MomentConstants::new(plan, Precision::F64);
+    let mut mc = MomentConstants::new(plan, precision);
+    for list in [&mut mc.odd_inv, &mut mc.pair_inv, &mut mc.coef] {
+        *list = list.drain(..).map(rust_spelling).collect();
+    }
+    for row in &mut mc.series {
+        *row = row.drain(..).map(rust_spelling).collect();
+    }
     let series: Vec<String> = mc
         .series
         .iter()
@@ -597,7 +627,13 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("kernel_nnz", &mc.coef.len());
     ctx.insert(
         "matrix_tables",
-        &matrix_table_context(plan, Precision::F64, &|v| v.join(", ")),
+        &matrix_table_context(plan, precision, &|v| {
+            v.iter()
+                .cloned()
+                .map(rust_spelling)
+                .collect::<Vec<_>>()
+                .join(", ")
+        }),
     );
     ctx.insert("pair_type", uint(pair_max(plan)));
     ctx.insert("start_type", uint(mc.coef.len()));
@@ -626,16 +662,16 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             let vals: Vec<String> = f
                 .of(&plan.param_defaults)
                 .iter()
-                .map(|q| super::number::literal(q, Precision::F64))
+                .map(|q| rust_spelling(super::number::literal(q, precision)))
                 .collect();
             match f.len {
                 Some(l) => (
-                    format!("{}: [f64; {l}]", f.kind.field()),
+                    format!("{}: [Real; {l}]", f.kind.field()),
                     format!("{}: [{}]", f.kind.field(), vals.join(", ")),
                     f.kind.doc(),
                 ),
                 None => (
-                    format!("{}: f64", f.kind.field()),
+                    format!("{}: Real", f.kind.field()),
                     format!("{}: {}", f.kind.field(), vals[0]),
                     f.kind.doc(),
                 ),
@@ -657,10 +693,37 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         .map(|k| (plan.params.spelling(k), k))
         .collect();
     ctx.insert("param_assign", &assign);
-    super::control_code::insert_rust(&mut ctx, plan);
-    ctx.insert("rtol", &golden.rtol(Precision::F64));
-    ctx.insert("rtol_reason", golden.rtol_reason(Precision::F64));
-    ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(Precision::F64));
+    super::control_code::insert_rust(&mut ctx, plan, precision);
+    let settings = super::control_code::Settings::of(precision);
+    ctx.insert(
+        "real",
+        if precision == Precision::F32 {
+            "f32"
+        } else {
+            "f64"
+        },
+    );
+    ctx.insert(
+        "real_size",
+        &if precision == Precision::F32 { 4 } else { 8 },
+    );
+    ctx.insert("fs", libm_suffix(precision));
+    let (big, small) = match precision {
+        Precision::F64 => ("1e200", "1e-200"),
+        Precision::F32 => ("1e30", "1e-30"),
+    };
+    ctx.insert("big", big);
+    ctx.insert("small", small);
+    ctx.insert("tiny", &rust_spelling(settings.tiny.to_string()));
+    ctx.insert("one_ulp", &rust_spelling(settings.one_ulp.to_string()));
+    ctx.insert(
+        "pivot_floor",
+        &rust_spelling(super::c::pivot_floor(precision).to_string()),
+    );
+    ctx.insert("rtol", &golden.rtol(precision));
+    ctx.insert("well_posed", super::c::well_posed(precision));
+    ctx.insert("rtol_reason", golden.rtol_reason(precision));
+    ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(precision));
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(
         "sigmas",
@@ -691,8 +754,7 @@ fn golden_rust(g: &Golden) -> String {
             .join(", "),
     );
     out.push_str("];\n");
-    // (The allocation's conditioning matters only to the single-precision C checks.)
-    for a in g.arrays.iter().filter(|a| a.name != "regcond") {
+    for a in &g.arrays {
         let len = a.len.max(1);
         out.push_str(&format!(
             "static G_{}: [[f64; {len}]; NCASES] = [",

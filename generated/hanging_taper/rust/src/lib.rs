@@ -7,7 +7,7 @@
 //! `NQ = 8` coordinates `q` (curvature coefficients `q_{j,i}` of
 //! `κ_j(σ) = Σ_i q_{j,i} σ^i` [1/m], segment-major) and `NU = 3` inputs `u`
 //! (in the arm file's actuator order); 3 segment(s), truncated kinematics of
-//! order 4. SI units. Matrices are `[[f64; cols]; rows]`, indexed `[row][col]`.
+//! order 4. SI units. Matrices are `[[Real; cols]; rows]`, indexed `[row][col]`.
 //! `#![no_std]`: no allocation, no recursion, no mutable statics; math via `libm`.
 //!
 //! How it computes: every quantity is a polynomial with exact rational coefficients
@@ -35,6 +35,9 @@
 //! regulations and qualified engineering practice.
 #![no_std]
 #![allow(clippy::all)]
+/// The floating-point type of every value: `f64` (`generate --precision` chooses
+/// `f64` or `f32`).
+pub type Real = f64;
 /// SHA-256 of the arm file this crate was generated from (the folder's `arm.toml`), the
 /// generator's version and the expansion order: what a firmware logs to say which
 /// model it runs.
@@ -52,19 +55,19 @@ pub const EXPANSION_ORDER: u32 = 4;
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Params {
     /// factor on each segment's mass density (1 = arm file)
-    pub density_scale: [f64; 3],
+    pub density_scale: [Real; 3],
     /// factor on each segment's rotary inertia per length (1 = arm file)
-    pub rotary_inertia_scale: [f64; 3],
+    pub rotary_inertia_scale: [Real; 3],
     /// factor on each segment's bending stiffness (1 = arm file)
-    pub stiffness_scale: [f64; 3],
+    pub stiffness_scale: [Real; 3],
     /// factor on each segment's bending damping (1 = arm file)
-    pub damping_scale: [f64; 3],
+    pub damping_scale: [Real; 3],
     /// tip payload mass [kg]
-    pub payload_mass: f64,
+    pub payload_mass: Real,
     /// tip payload rotary inertia [kg m^2]
-    pub payload_rotary_inertia: f64,
+    pub payload_rotary_inertia: Real,
     /// gravity (g_x, g_y) in the base frame [m/s^2]
-    pub gravity: [f64; 2],
+    pub gravity: [Real; 2],
 }
 impl Params {
     /// The arm file's values.
@@ -121,12 +124,12 @@ pub enum DynamicsError {
 /// The workspace the model is tested in, from the arm file's `[sampling]` table: per
 /// segment `j`, base bending `|L_j q_{j,0}| ≤ RANGE_BASE_BENDING` and extra bending
 /// `Σ_{i≥1} L_j |q_{j,i}|/(i+1) ≤ RANGE_EXTRA_BENDING` [rad].
-pub const RANGE_BASE_BENDING: f64 = 3.141592653589793;
-pub const RANGE_EXTRA_BENDING: f64 = 1.5707963267948966;
+pub const RANGE_BASE_BENDING: Real = 3.141592653589793;
+pub const RANGE_EXTRA_BENDING: Real = 1.5707963267948966;
 /// Whether `q` lies in that workspace: `Err(OutOfRange)` outside it,
 /// `Err(NonFiniteInput)` for a NaN or an infinity. Call it before [`forward_dynamics`]
 /// where a state from a sensor may be anywhere.
-pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
+pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
     if q.iter().any(|v| !v.is_finite()) {
         return Err(DynamicsError::NonFiniteInput);
     }
@@ -151,12 +154,12 @@ pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
 /// Smallest Cholesky pivot of `B` that [`forward_dynamics`] accepts, relative to the
 /// diagonal entry it came from (64 units of rounding): below it `B` is singular to
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
-pub const PIVOT_FLOOR: f64 = 1.4e-14;
+pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
 /// plain functions keep on the stack (2127 reals, 17016 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
-pub struct Workspace([f64; WORK_LEN]);
+pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
 pub const WORK_LEN: usize = 2127;
 impl Workspace {
@@ -170,7 +173,7 @@ impl Default for Workspace {
     }
 }
 /// `1/(2n+1)`.
-static ODD_INV: [f64; MOMENTS_MAX] = [
+static ODD_INV: [Real; MOMENTS_MAX] = [
     1.0,
     0.3333333333333333,
     0.2,
@@ -206,7 +209,7 @@ static ODD_INV: [f64; MOMENTS_MAX] = [
     0.015384615384615385,
 ];
 /// `1/((2n+1)(2n+3))`.
-static PAIR_INV: [f64; MOMENTS_MAX] = [
+static PAIR_INV: [Real; MOMENTS_MAX] = [
     0.3333333333333333,
     0.06666666666666667,
     0.02857142857142857,
@@ -242,7 +245,7 @@ static PAIR_INV: [f64; MOMENTS_MAX] = [
     0.0002296211251435132,
 ];
 /// Power-series factors `1/(k (2n+2k+1))` of the scaled `j_n`, `k = 1..11`.
-static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
+static SERIES: [[Real; 11]; MOMENTS_MAX + 1] = [
     [
         0.3333333333333333,
         0.1,
@@ -687,7 +690,7 @@ static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
     ],
 ];
 /// `H_n(x) = (2n+1)!! j_n(x) / xⁿ` by its power series (`h = −x²/2`, `|x| < 1`).
-fn scaled_series(h: f64, n: usize) -> f64 {
+fn scaled_series(h: Real, n: usize) -> Real {
     let mut term = 1.0;
     let mut sum = 1.0;
     for f in SERIES[n].iter() {
@@ -779,7 +782,7 @@ static KERNEL_FIRST: [u8; 708] = [
     0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
     0, 0, 0, 0, 0, 0, 0, 0,
 ];
-static KERNEL_COEF: [f64; 10849] = [
+static KERNEL_COEF: [Real; 10849] = [
     0.25,
     0.45,
     0.25,
@@ -11632,7 +11635,7 @@ static KERNEL_COEF: [f64; 10849] = [
 ];
 /// `kern[i]` = kernel row `uses[2i]` at moment base `uses[2i + 1]`; four partial sums
 /// keep the multiply-adds independent.
-fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
+fn kernels(uses: &[u16], nu: &[Real], kern: &mut [Real]) {
     for (slot, pair) in kern.iter_mut().zip(uses.chunks_exact(2)) {
         let r = pair[0] as usize;
         let row = KERNEL_START
@@ -11644,10 +11647,10 @@ fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
                 Some((c, nu.get(from..from + c.len())?))
             });
         let Some((c, v)) = row else {
-            *slot = f64::NAN;
+            *slot = Real::NAN;
             continue;
         };
-        let mut s = [0.0f64; 4];
+        let mut s: [Real; 4] = [0.0; 4];
         let (cq, vq) = (c.chunks_exact(4), v.chunks_exact(4));
         let (ct, vt) = (cq.remainder(), vq.remainder());
         for (cq, vq) in cq.zip(vq) {
@@ -11672,9 +11675,9 @@ fn kernels(uses: &[u16], nu: &[f64], kern: &mut [f64]) {
 /// `|a| ≤ 4`, stops where the moments left out can change an entry by at most a quarter
 /// unit of double rounding (`|ν_n| ≤ (|a|/2)ⁿ/(2n+1)!!`), and the moments are computed
 /// only that far on the fast path.
-const FAST_BENDING: f64 = 4.0;
+const FAST_BENDING: Real = 4.0;
 /// `m_k` of weight table 0 (14 powers).
-static TAIL_MOMENTS0: [f64; 27] = [
+static TAIL_MOMENTS0: [Real; 27] = [
     0.43333333333333335,
     0.14166666666666666,
     0.07,
@@ -11704,7 +11707,7 @@ static TAIL_MOMENTS0: [f64; 27] = [
     0.0010673234811165845,
 ];
 /// `m_k` of weight table 1 (14 powers).
-static TAIL_MOMENTS1: [f64; 27] = [
+static TAIL_MOMENTS1: [Real; 27] = [
     0.4166666666666667,
     0.13541666666666666,
     0.06666666666666667,
@@ -11734,7 +11737,7 @@ static TAIL_MOMENTS1: [f64; 27] = [
     0.0010034665207079,
 ];
 /// `m_k` of weight table 2 (10 powers).
-static TAIL_MOMENTS2: [f64; 19] = [
+static TAIL_MOMENTS2: [Real; 19] = [
     0.3888888888888889,
     0.125,
     0.06111111111111111,
@@ -11756,7 +11759,7 @@ static TAIL_MOMENTS2: [f64; 19] = [
     0.001796157059314954,
 ];
 /// `m_k` of weight table 3 (15 powers).
-static TAIL_MOMENTS3: [f64; 29] = [
+static TAIL_MOMENTS3: [Real; 29] = [
     0.43333333333333335,
     0.14166666666666666,
     0.07,
@@ -11788,7 +11791,7 @@ static TAIL_MOMENTS3: [f64; 29] = [
     0.0009269558769002596,
 ];
 /// `m_k` of weight table 4 (15 powers).
-static TAIL_MOMENTS4: [f64; 29] = [
+static TAIL_MOMENTS4: [Real; 29] = [
     0.4166666666666667,
     0.13541666666666666,
     0.06666666666666667,
@@ -11820,7 +11823,7 @@ static TAIL_MOMENTS4: [f64; 29] = [
     0.000871338524286244,
 ];
 /// `m_k` of weight table 5 (11 powers).
-static TAIL_MOMENTS5: [f64; 21] = [
+static TAIL_MOMENTS5: [Real; 21] = [
     0.3888888888888889,
     0.125,
     0.06111111111111111,
@@ -11845,10 +11848,10 @@ static TAIL_MOMENTS5: [f64; 21] = [
 ];
 /// `F[s·size + t]` (real parts, then imaginary parts from `size²`) for `s < size − 1`,
 /// from the top row `F[(size − 1)·size + t]` down.
-fn kernel_recurrence(size: usize, a: f64, m: &[f64], f: &mut [f64]) {
+fn kernel_recurrence(size: usize, a: Real, m: &[Real], f: &mut [Real]) {
     let (re, im) = f.split_at_mut(size * size);
     for s in (1..size).rev() {
-        let inv = 1.0 / s as f64;
+        let inv = 1.0 / s as Real;
         let (lo, hi) = ((s - 1) * size, s * size);
         let (re_lo, re_hi) = re[lo..hi + size].split_at_mut(size);
         let (im_lo, im_hi) = im[lo..hi + size].split_at_mut(size);
@@ -11861,7 +11864,7 @@ fn kernel_recurrence(size: usize, a: f64, m: &[f64], f: &mut [f64]) {
 }
 /// `kern[i] = Re D_st = F[p] + F[q]` for a real part, `Im D_st = F[p] − F[q]` for an
 /// imaginary part (`p, q = pairs[2i], pairs[2i + 1]`, in `F`'s second half).
-fn kernel_entries(pairs: &[u16], size: usize, f: &[f64], kern: &mut [f64]) {
+fn kernel_entries(pairs: &[u16], size: usize, f: &[Real], kern: &mut [Real]) {
     let half = size * size;
     for (slot, pq) in kern.iter_mut().zip(pairs.chunks_exact(2)) {
         let (p, q) = (pq[0] as usize, pq[1] as usize);
@@ -11869,7 +11872,7 @@ fn kernel_entries(pairs: &[u16], size: usize, f: &[f64], kern: &mut [f64]) {
         *slot = match (x, y) {
             (Some(x), Some(y)) if p >= half => x - y,
             (Some(x), Some(y)) => x + y,
-            _ => f64::NAN,
+            _ => Real::NAN,
         };
     }
 }
@@ -11880,9 +11883,9 @@ fn kernel_entries(pairs: &[u16], size: usize, f: &[f64], kern: &mut [f64]) {
 /// shrink; exact at 0); Miller's downward recurrence for `|x| < count`; upward
 /// recurrence beyond (stable while `n < |x|`; NaN lands there). No branch divides by a
 /// small `a`. Worst case: 58 add, 275 mul, 2 div, 0 sqrt, 2 trig for 33 moments.
-fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
+fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     let count = count.clamp(1, MOMENTS_MAX);
-    let mut j = [0.0f64; MOMENTS_MAX];
+    let mut j: [Real; MOMENTS_MAX] = [0.0; MOMENTS_MAX];
     let x = 0.5 * a;
     let ax = libm::fabs(x);
     let s = libm::sin(x);
@@ -11906,14 +11909,14 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
             }
             j[n] *= lead;
         }
-    } else if ax < count as f64 {
+    } else if ax < count as Real {
         let inv = 1.0 / x;
         let reach = libm::ceil(ax) as usize;
         let start = (count - 1).max(reach) + 24;
         let mut above = 0.0;
-        let mut cur = 1.0f64;
+        let mut cur: Real = 1.0;
         for k in (1..=start).rev() {
-            let below = (2 * k + 1) as f64 * inv * cur - above;
+            let below = (2 * k + 1) as Real * inv * cur - above;
             above = cur;
             cur = below;
             if k - 1 < count {
@@ -11943,7 +11946,7 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
             j[1] = (j[0] - c) * inv;
         }
         for n in 2..count {
-            j[n] = (2 * n - 1) as f64 * inv * j[n - 1] - j[n - 2];
+            j[n] = (2 * n - 1) as Real * inv * j[n - 1] - j[n - 2];
         }
     }
     if re + count > out.len() || im + count > out.len() {
@@ -12126,7 +12129,7 @@ static INERTIA_PAIRS2: [u16; 200] = [
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1497 reals).
 ///
 /// Operations: 5659 add, 9129 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12623 add, 15531 mul, 6 div, 0 sqrt, 10 trig beyond.
-fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(698);
     let (hk, work) = work.split_at_mut(392);
@@ -13998,19 +14001,19 @@ fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 5659 add, 9129 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12623 add, 15531 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut [0.0; 1497])
 }
 /// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1497 reals); the same values.
 ///
 /// Operations: 5659 add, 9129 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12623 add, 15531 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
 /// Operations: 5659 add, 9129 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12623 add, 15531 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut [0.0; 1497])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
@@ -14018,9 +14021,9 @@ pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
 /// Operations: 5659 add, 9129 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12623 add, 15531 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn inertia_with_ws(
     p: &Params,
-    q: &[f64; NQ],
+    q: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut ws.0)
 }
 /// Kernels of `gravity`: pairs (row, moment base).
@@ -14044,7 +14047,7 @@ static GRAVITY_ROWS: [u16; 320] = [
 /// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 408 reals).
 ///
 /// Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
-fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
+fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(160);
     let t = &mut work[..66];
@@ -14420,25 +14423,25 @@ fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
 /// Gravity vector `G(q) = ∂U_g/∂q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
+pub fn gravity(q: &[Real; NQ]) -> [Real; NQ] {
     gravity_in(&Params::DEFAULT, q, &mut [0.0; 408])
 }
 /// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (408 reals); the same values.
 ///
 /// Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+pub fn gravity_ws(q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity`] at the runtime parameters `p`.
 ///
 /// Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity_with(p: &Params, q: &[f64; NQ]) -> [f64; NQ] {
+pub fn gravity_with(p: &Params, q: &[Real; NQ]) -> [Real; NQ] {
     gravity_in(p, q, &mut [0.0; 408])
 }
 /// [`gravity_with`] with its scratch in the caller's [`Workspace`].
 ///
 /// Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+pub fn gravity_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(p, q, &mut ws.0)
 }
 /// Kernels of `actuation`: pairs (row, moment base).
@@ -14454,7 +14457,7 @@ static ACTUATION_ROWS: [u16; 156] = [
 /// The work of [`actuation`] and [`actuation_ws`], in `work` (at least 298 reals).
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-fn actuation_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NU]; NQ] {
+fn actuation_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NU]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(78);
     let t = &mut work[..38];
@@ -14651,13 +14654,13 @@ fn actuation_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NU]; NQ] {
 /// Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
+pub fn actuation(q: &[Real; NQ]) -> [[Real; NU]; NQ] {
     actuation_in(q, &mut [0.0; 298])
 }
 /// [`actuation`] with its scratch in the caller's [`Workspace`] instead of on the stack (298 reals); the same values.
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-pub fn actuation_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NU]; NQ] {
+pub fn actuation_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NU]; NQ] {
     actuation_in(q, &mut ws.0)
 }
 /// Kernels of `tip_jacobian`: pairs (row, moment base).
@@ -14673,7 +14676,7 @@ static TIP_JACOBIAN_ROWS: [u16; 156] = [
 /// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 298 reals).
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
+fn tip_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(78);
     let t = &mut work[..38];
@@ -14870,13 +14873,13 @@ fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
 /// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
+pub fn tip_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut [0.0; 298])
 }
 /// [`tip_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (298 reals); the same values.
 ///
 /// Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
-pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
+pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
 /// Kernels of `gravity_jacobian`: pairs (row, moment base).
@@ -14907,7 +14910,11 @@ static GRAVITY_JACOBIAN_ROWS: [u16; 432] = [
 /// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 581 reals).
 ///
 /// Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
-fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+fn gravity_jacobian_in(
+    p: &Params,
+    q: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(216);
     let t = &mut work[..183];
@@ -15867,19 +15874,19 @@ fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ
 /// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn gravity_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 581])
 }
 /// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (581 reals); the same values.
 ///
 /// Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+pub fn gravity_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity_jacobian`] at the runtime parameters `p`.
 ///
 /// Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
-pub fn gravity_jacobian_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn gravity_jacobian_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut [0.0; 581])
 }
 /// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
@@ -15887,9 +15894,9 @@ pub fn gravity_jacobian_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
 /// Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
 pub fn gravity_jacobian_with_ws(
     p: &Params,
-    q: &[f64; NQ],
+    q: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut ws.0)
 }
 /// Kernels of `potential_energy`: pairs (row, moment base).
@@ -15909,7 +15916,7 @@ static POTENTIAL_ENERGY_ROWS: [u16; 220] = [
 /// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 326 reals).
 ///
 /// Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
-fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
+fn potential_energy_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> Real {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(110);
     let t = &mut work[..34];
@@ -16059,25 +16066,25 @@ fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
 /// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
-pub fn potential_energy(q: &[f64; NQ]) -> f64 {
+pub fn potential_energy(q: &[Real; NQ]) -> Real {
     potential_energy_in(&Params::DEFAULT, q, &mut [0.0; 326])
 }
 /// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (326 reals); the same values.
 ///
 /// Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
-pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+pub fn potential_energy_ws(q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`potential_energy`] at the runtime parameters `p`.
 ///
 /// Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
-pub fn potential_energy_with(p: &Params, q: &[f64; NQ]) -> f64 {
+pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
     potential_energy_in(p, q, &mut [0.0; 326])
 }
 /// [`potential_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
 /// Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
-pub fn potential_energy_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
 /// Kernels of `terms`: pairs (row, moment base).
@@ -16288,10 +16295,10 @@ static TERMS_PAIRS2: [u16; 286] = [
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 fn terms_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(911);
     let (hk, work) = work.split_at_mut(450);
@@ -19941,19 +19948,19 @@ fn terms_in(
 ///
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn terms(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 2083])
 }
 /// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (2083 reals); the same values.
 ///
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn terms_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`terms`] at the runtime parameters `p`.
@@ -19961,9 +19968,9 @@ pub fn terms_ws(
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn terms_with(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut [0.0; 2083])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
@@ -19971,10 +19978,10 @@ pub fn terms_with(
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn terms_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
 /// Kernels of `regressor`: pairs (row, moment base).
@@ -20185,11 +20192,11 @@ static REGRESSOR_PAIRS2: [u16; 286] = [
 /// Operations: 9386 add, 14880 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18499 add, 23348 mul, 6 div, 0 sqrt, 10 trig beyond.
 fn regressor_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
-    work: &mut [f64],
-) -> [[f64; NTHETA]; NQ] {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NTHETA]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(911);
     let (hk, work) = work.split_at_mut(450);
@@ -23793,18 +23800,22 @@ fn regressor_in(
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 9386 add, 14880 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18499 add, 23348 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn regressor(q: &[f64; NQ], qd: &[f64; NQ], qdd: &[f64; NQ]) -> [[f64; NTHETA]; NQ] {
+pub fn regressor(
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 2127])
 }
 /// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (2127 reals); the same values.
 ///
 /// Operations: 9386 add, 14880 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18499 add, 23348 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn regressor_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NTHETA]; NQ] {
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(&Params::DEFAULT, q, qd, qdd, &mut ws.0)
 }
 /// [`regressor`] at the runtime parameters `p`.
@@ -23812,10 +23823,10 @@ pub fn regressor_ws(
 /// Operations: 9386 add, 14880 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18499 add, 23348 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn regressor_with(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
-) -> [[f64; NTHETA]; NQ] {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut [0.0; 2127])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
@@ -23823,11 +23834,11 @@ pub fn regressor_with(
 /// Operations: 9386 add, 14880 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18499 add, 23348 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn regressor_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NTHETA]; NQ] {
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 2083 reals).
@@ -23835,32 +23846,32 @@ pub fn regressor_with_ws(
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 fn coriolis_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
-) -> [[f64; NQ]; NQ] {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NQ]; NQ] {
     terms_in(p, q, qd, work).1
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 2083])
 }
 /// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (2083 reals); the same values.
 ///
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn coriolis_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut [0.0; 2083])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
@@ -23868,10 +23879,10 @@ pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; N
 /// Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 18273 add, 23163 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn coriolis_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut ws.0)
 }
 /// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1497 reals).
@@ -23879,10 +23890,10 @@ pub fn coriolis_with_ws(
 /// Operations: 5723 add, 9202 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12687 add, 15604 mul, 6 div, 0 sqrt, 10 trig beyond.
 fn kinetic_energy_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
-) -> f64 {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> Real {
     let b = inertia_in(p, q, work);
     let mut t = 0.0;
     for i in 0..NQ {
@@ -23897,19 +23908,19 @@ fn kinetic_energy_in(
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 5723 add, 9202 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12687 add, 15604 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1497])
 }
 /// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1497 reals); the same values.
 ///
 /// Operations: 5723 add, 9202 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12687 add, 15604 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
+pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
 /// Operations: 5723 add, 9202 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12687 add, 15604 mul, 6 div, 0 sqrt, 10 trig beyond.
-pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(p, q, qd, &mut [0.0; 1497])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
@@ -23917,17 +23928,17 @@ pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
 /// Operations: 5723 add, 9202 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (kernel recurrence); 12687 add, 15604 mul, 6 div, 0 sqrt, 10 trig beyond.
 pub fn kinetic_energy_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> f64 {
+) -> Real {
     kinetic_energy_in(p, q, qd, &mut ws.0)
 }
 /// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`. At the runtime parameters `p`.
 ///
 /// Operations: 0 add, 13 mul, 0 div, 0 sqrt, 0 trig.
-pub fn stiffness_with(p: &Params) -> [[f64; NQ]; NQ] {
-    let work: &mut [f64] = &mut [0.0; 7];
+pub fn stiffness_with(p: &Params) -> [[Real; NQ]; NQ] {
+    let work: &mut [Real] = &mut [0.0; 7];
     let t = &mut work[..7];
     let mut out = [[0.0; NQ]; NQ];
     t[0] = 0.0008 * p.stiffness_scale[0];
@@ -24006,14 +24017,14 @@ pub fn stiffness_with(p: &Params) -> [[f64; NQ]; NQ] {
 /// [`stiffness_with`] at the arm file's parameters.
 ///
 /// Operations: 0 add, 13 mul, 0 div, 0 sqrt, 0 trig.
-pub fn stiffness() -> [[f64; NQ]; NQ] {
+pub fn stiffness() -> [[Real; NQ]; NQ] {
     stiffness_with(&Params::DEFAULT)
 }
 /// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`. At the runtime parameters `p`.
 ///
 /// Operations: 0 add, 13 mul, 0 div, 0 sqrt, 0 trig.
-pub fn damping_with(p: &Params) -> [[f64; NQ]; NQ] {
-    let work: &mut [f64] = &mut [0.0; 7];
+pub fn damping_with(p: &Params) -> [[Real; NQ]; NQ] {
+    let work: &mut [Real] = &mut [0.0; 7];
     let t = &mut work[..7];
     let mut out = [[0.0; NQ]; NQ];
     t[0] = 1.5e-5 * p.damping_scale[0];
@@ -24092,13 +24103,13 @@ pub fn damping_with(p: &Params) -> [[f64; NQ]; NQ] {
 /// [`damping_with`] at the arm file's parameters.
 ///
 /// Operations: 0 add, 13 mul, 0 div, 0 sqrt, 0 trig.
-pub fn damping() -> [[f64; NQ]; NQ] {
+pub fn damping() -> [[Real; NQ]; NQ] {
     damping_with(&Params::DEFAULT)
 }
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
 /// Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
-fn pose_segment0(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_segment0(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let (pnu, work) = work.split_at_mut(26);
     let t = &mut work[..43];
     moments(0.1 * q[0] * sigma, 13, pnu, 0, 13);
@@ -24248,7 +24259,7 @@ fn pose_segment0(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
 /// Backbone pose `[x, y, angle]` of segment 1 at `sigma`.
 ///
 /// Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig.
-fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (pnu, work) = work.split_at_mut(26);
     let t = &mut work[..63];
@@ -24522,7 +24533,7 @@ fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
 /// Backbone pose `[x, y, angle]` of segment 2 at `sigma`.
 ///
 /// Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig.
-fn pose_segment2(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_segment2(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (pnu, work) = work.split_at_mut(18);
     let t = &mut work[..56];
@@ -24840,7 +24851,7 @@ static ACTUATION_JACOBIAN_ROWS: [u16; 212] = [
 /// `∂A_ic/∂q_x` as `[x][i][c]`: the statics functions' `∂(A u)/∂q`.
 ///
 /// Operations: 1360 add, 2044 mul, 6 div, 0 sqrt, 10 trig.
-fn actuation_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[[f64; NU]; NQ]; NQ] {
+fn actuation_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[[Real; NU]; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(106);
     let t = &mut work[..104];
@@ -25417,15 +25428,15 @@ fn actuation_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[[f64; NU]; NQ]; N
     out
 }
 /// The work of [`pose`] and [`pose_ws`], in `work` (at least 271 reals).
-fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_in(q: &[Real; NQ], segment: usize, sigma: Real, work: &mut [Real]) -> [Real; 3] {
     if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
-        return [f64::NAN; 3];
+        return [Real::NAN; 3];
     }
     match segment {
         0 => pose_segment0(q, sigma, work),
         1 => pose_segment1(q, sigma, work),
         2 => pose_segment2(q, sigma, work),
-        _ => [f64::NAN; 3],
+        _ => [Real::NAN; 3],
     }
 }
 /// Backbone pose `[x, y, angle]` at `sigma ∈ [0, 1]` of segment `segment`, counted
@@ -25434,17 +25445,17 @@ fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64;
 /// position [m] in the base frame and tangent angle from +x [rad]. The tip is
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
-pub fn pose(q: &[f64; NQ], segment: usize, sigma: f64) -> [f64; 3] {
+pub fn pose(q: &[Real; NQ], segment: usize, sigma: Real) -> [Real; 3] {
     pose_in(q, segment, sigma, &mut [0.0; 271])
 }
 /// [`pose`] with its scratch in the caller's [`Workspace`] instead of on the stack
 /// (271 reals); the same values.
 pub fn pose_ws(
-    q: &[f64; NQ],
+    q: &[Real; NQ],
     segment: usize,
-    sigma: f64,
+    sigma: Real,
     ws: &mut Workspace,
-) -> [f64; 3] {
+) -> [Real; 3] {
     pose_in(q, segment, sigma, &mut ws.0)
 }
 /// Forward dynamics: `q̈` from `B(q) q̈ = A(q) u − C(q, q̇) q̇ − G(q) − K q − D q̇`, by an
@@ -25453,50 +25464,50 @@ pub fn pose_ws(
 ///
 /// Operations: 10231 add, 16300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (kernel recurrence); 19344 add, 24768 mul, 56 div, 8 sqrt, 20 trig beyond.
 pub fn forward_dynamics(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[f64; NQ], DynamicsError> {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 2083])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[f64; NQ], DynamicsError> {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(p, q, qd, u, &mut [0.0; 2083])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
 /// caller's [`Workspace`] instead of on the stack (2083 reals); the same values.
 pub fn forward_dynamics_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], DynamicsError> {
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut ws.0)
 }
 /// [`forward_dynamics_with`] with its scratch in the caller's [`Workspace`].
 pub fn forward_dynamics_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], DynamicsError> {
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
 /// 2083 reals).
 fn forward_dynamics_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
-    work: &mut [f64],
-) -> Result<[f64; NQ], DynamicsError> {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
+    work: &mut [Real],
+) -> Result<[Real; NQ], DynamicsError> {
     if !p.is_finite()
         || q.iter().chain(qd.iter()).chain(u.iter()).any(|v| !v.is_finite())
     {
@@ -25569,33 +25580,33 @@ pub enum StaticsError {
     /// The load continuation stalled within [`EQUILIBRIUM_MAX_ITERATIONS`]: the load
     /// fraction reached, the last residual, and the last equilibrium on the way
     /// (never take it for the answer).
-    NotConverged { load: f64, residual: f64, iterations: usize, q: [f64; NQ] },
+    NotConverged { load: Real, residual: Real, iterations: usize, q: [Real; NQ] },
 }
 /// A solved equilibrium.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Equilibrium {
-    pub q: [f64; NQ],
+    pub q: [Real; NQ],
     /// Newton iterations in all, and continuation steps taken.
     pub iterations: usize,
     pub load_steps: usize,
     /// `‖K q + G − A u‖₂`, and the same over `‖K q‖ + ‖G‖ + ‖A u‖`.
-    pub residual: f64,
-    pub relative_residual: f64,
+    pub residual: Real,
+    pub relative_residual: Real,
     /// `∂R/∂q` is positive definite: a local minimum of the potential energy.
     pub stable: bool,
 }
 /// Converged when `‖R‖ ≤ EQUILIBRIUM_TOLERANCE (‖K q‖ + ‖G‖ + ‖A u‖)`.
-pub const EQUILIBRIUM_TOLERANCE: f64 = 1e-12;
+pub const EQUILIBRIUM_TOLERANCE: Real = 1e-12;
 /// Most Newton iterations of [`equilibrium`] in all.
 pub const EQUILIBRIUM_MAX_ITERATIONS: usize = 2000;
 const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
-const EQUILIBRIUM_MIN_STEP: f64 = 1e-6;
+const EQUILIBRIUM_MIN_STEP: Real = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
-const EQUILIBRIUM_MAX_BENDING_STEP: f64 = 0.5;
+const EQUILIBRIUM_MAX_BENDING_STEP: Real = 0.5;
 const STATICS_WORK: usize = 581;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
-fn bending(v: &[f64; NQ]) -> f64 {
-    let mut worst: f64 = 0.0;
+fn bending(v: &[Real; NQ]) -> Real {
+    let mut worst: Real = 0.0;
     let b = 0.1 * (libm::fabs(v[0]) + libm::fabs(v[1]) + libm::fabs(v[2]));
     if b > worst {
         worst = b;
@@ -25610,16 +25621,16 @@ fn bending(v: &[f64; NQ]) -> f64 {
     }
     worst
 }
-fn norm(v: &[f64]) -> f64 {
-    libm::sqrt(v.iter().map(|x| x * x).sum::<f64>())
+fn norm(v: &[Real]) -> Real {
+    libm::sqrt(v.iter().map(|x| x * x).sum::<Real>())
 }
-fn all_finite(v: &[f64]) -> bool {
+fn all_finite(v: &[Real]) -> bool {
     v.iter().all(|x| x.is_finite())
 }
 /// `a x = b` by Gaussian elimination with partial pivoting; `None` when a pivot is at
 /// most `1e-14` of the largest entry of `a` or `x` is not finite.
-fn solve(mut a: [[f64; NQ]; NQ], mut b: [f64; NQ]) -> Option<[f64; NQ]> {
-    let top = a.iter().flatten().fold(0.0f64, |m, v| m.max(libm::fabs(*v)));
+fn solve(mut a: [[Real; NQ]; NQ], mut b: [Real; NQ]) -> Option<[Real; NQ]> {
+    let top = a.iter().flatten().fold(0.0 as Real, |m, v| m.max(libm::fabs(*v)));
     for c in 0..NQ {
         let mut p = c;
         for r in c + 1..NQ {
@@ -25653,8 +25664,8 @@ fn solve(mut a: [[f64; NQ]; NQ], mut b: [f64; NQ]) -> Option<[f64; NQ]> {
 }
 /// The symmetric `a x = b` (`h×h`, leading dimension `ld`) by Cholesky in place;
 /// `false` when a pivot is at most `floor` times the largest diagonal entry.
-fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bool {
-    let top = (0..h).map(|i| a[i * ld + i]).fold(0.0f64, f64::max);
+fn cholesky(h: usize, ld: usize, a: &mut [Real], b: &mut [Real], floor: Real) -> bool {
+    let top = (0..h).map(|i| a[i * ld + i]).fold(0.0 as Real, Real::max);
     for i in 0..h {
         for j in 0..=i {
             let mut s = a[i * ld + j];
@@ -25688,40 +25699,43 @@ fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bo
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
 ///
 /// Operations: 2886 add, 4228 mul, 12 div, 0 sqrt, 20 trig.
-pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
+pub fn static_residual(
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(&Params::DEFAULT, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_residual`] at the runtime parameters `p`.
 pub fn static_residual_with(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[f64; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(p, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_residual`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn static_residual_ws(
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], StaticsError> {
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(&Params::DEFAULT, q, u, &mut ws.0)
 }
 /// [`static_residual_with`] with its scratch in the caller's [`Workspace`].
 pub fn static_residual_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], StaticsError> {
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(p, q, u, &mut ws.0)
 }
 fn static_residual_in(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-    work: &mut [f64],
-) -> Result<[f64; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+    work: &mut [Real],
+) -> Result<[Real; NQ], StaticsError> {
     if !p.is_finite() || !all_finite(q) || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
@@ -25743,42 +25757,42 @@ fn static_residual_in(
 ///
 /// Operations: 4631 add, 6542 mul, 12 div, 0 sqrt, 20 trig.
 pub fn static_jacobian(
-    q: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(&Params::DEFAULT, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_jacobian`] at the runtime parameters `p`.
 pub fn static_jacobian_with(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(p, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_jacobian`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn static_jacobian_ws(
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(&Params::DEFAULT, q, u, &mut ws.0)
 }
 /// [`static_jacobian_with`] with its scratch in the caller's [`Workspace`].
 pub fn static_jacobian_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(p, q, u, &mut ws.0)
 }
 fn static_jacobian_in(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-    work: &mut [f64],
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+    work: &mut [Real],
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     if !p.is_finite() || !all_finite(q) || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
@@ -25798,19 +25812,19 @@ fn static_jacobian_in(
 /// `K q + λ (G − A u)`, its load `G − A u`, the scale `‖K q‖ + λ (‖G‖ + ‖A u‖)`, and
 /// (when asked) the Jacobian `K + λ (∂G/∂q − ∂(A u)/∂q)`; `None` when not finite.
 struct Linearised {
-    r: [f64; NQ],
-    jac: [[f64; NQ]; NQ],
-    load: [f64; NQ],
-    scale: f64,
+    r: [Real; NQ],
+    jac: [[Real; NQ]; NQ],
+    load: [Real; NQ],
+    scale: Real,
 }
 fn linearise(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-    lambda: f64,
-    k: &[[f64; NQ]; NQ],
+    q: &[Real; NQ],
+    u: &[Real; NU],
+    lambda: Real,
+    k: &[[Real; NQ]; NQ],
     with_jacobian: bool,
-    work: &mut [f64],
+    work: &mut [Real],
 ) -> Option<Linearised> {
     let g = gravity_in(p, q, work);
     let a = actuation_in(q, work);
@@ -25845,7 +25859,7 @@ fn linearise(
         let da = actuation_jacobian_in(q, work);
         for i in 0..NQ {
             for x in 0..NQ {
-                let d = dg[i][x] - (0..NU).map(|c| da[x][i][c] * u[c]).sum::<f64>();
+                let d = dg[i][x] - (0..NU).map(|c| da[x][i][c] * u[c]).sum::<Real>();
                 lin.jac[i][x] = k[i][x] + lambda * d;
             }
         }
@@ -25863,16 +25877,19 @@ fn linearise(
 ///
 /// Operations per Newton iteration, at most: 7872 add, 11102 mul, 60 div, 4 sqrt, 40 trig.
 /// Per backtracking trial: 2937 add, 4269 mul, 12 div, 4 sqrt, 20 trig.
-pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
+pub fn equilibrium(u: &[Real; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut [0.0; STATICS_WORK])
 }
 /// [`equilibrium`] at the runtime parameters `p`.
-pub fn equilibrium_with(p: &Params, u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
+pub fn equilibrium_with(
+    p: &Params,
+    u: &[Real; NU],
+) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(p, u, &mut [0.0; STATICS_WORK])
 }
 /// [`equilibrium`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn equilibrium_ws(
-    u: &[f64; NU],
+    u: &[Real; NU],
     ws: &mut Workspace,
 ) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut ws.0)
@@ -25880,22 +25897,22 @@ pub fn equilibrium_ws(
 /// [`equilibrium_with`] with its scratch in the caller's [`Workspace`].
 pub fn equilibrium_with_ws(
     p: &Params,
-    u: &[f64; NU],
+    u: &[Real; NU],
     ws: &mut Workspace,
 ) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(p, u, &mut ws.0)
 }
 fn equilibrium_in(
     p: &Params,
-    u: &[f64; NU],
-    work: &mut [f64],
+    u: &[Real; NU],
+    work: &mut [Real],
 ) -> Result<Equilibrium, StaticsError> {
     if !p.is_finite() || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
     let k = stiffness_with(p);
     let mut q = [0.0; NQ];
-    let (mut lambda, mut step, mut last) = (0.0f64, 1.0f64, 0.0f64);
+    let (mut lambda, mut step, mut last): (Real, Real, Real) = (0.0, 1.0, 0.0);
     let (mut iterations, mut load_steps) = (0usize, 0usize);
     while lambda < 1.0 {
         let here = linearise(p, &q, u, lambda, &k, true, work)
@@ -26002,10 +26019,10 @@ pub const NY: usize = 3;
 /// `3_mean = q[6] + 1/2 q[7]`
 pub const OUTPUT_LABELS: [&str; NY] = ["1_mean", "2_mean", "3_mean"];
 /// The actuators' limits `[lo, hi]` from the arm file (tendons: `lo` = pretension).
-pub const INPUT_LIMITS: [[f64; 2]; NU] = [
-    [f64::NEG_INFINITY, f64::INFINITY],
-    [f64::NEG_INFINITY, f64::INFINITY],
-    [f64::NEG_INFINITY, f64::INFINITY],
+pub const INPUT_LIMITS: [[Real; 2]; NU] = [
+    [Real::NEG_INFINITY, Real::INFINITY],
+    [Real::NEG_INFINITY, Real::INFINITY],
+    [Real::NEG_INFINITY, Real::INFINITY],
 ];
 /// Most active-set iterations of the input allocation (`4 NU + 8`).
 const REGULATE_ITERATIONS: usize = 20;
@@ -26032,7 +26049,7 @@ pub enum RegulateError {
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Command {
     /// The inputs, within [`INPUT_LIMITS`].
-    pub u: [f64; NU],
+    pub u: [Real; NU],
     /// The limits keep `u` from the wanted force (`u` is the best they allow).
     pub saturated: bool,
 }
@@ -26042,13 +26059,13 @@ impl Command {
     pub fn relaxed() -> Command {
         let mut u = [0.0; NU];
         for c in 0..NU {
-            u[c] = 0.0f64.clamp(INPUT_LIMITS[c][0], INPUT_LIMITS[c][1]);
+            u[c] = (0.0 as Real).clamp(INPUT_LIMITS[c][0], INPUT_LIMITS[c][1]);
         }
         Command { u, saturated: false }
     }
 }
 /// `y = S v`.
-fn select(v: &[f64; NQ]) -> [f64; NY] {
+fn select(v: &[Real; NQ]) -> [Real; NY] {
     [
         v[0] + 0.5 * v[1] + 0.3333333333333333 * v[2],
         v[3] + 0.5 * v[4] + 0.3333333333333333 * v[5],
@@ -26067,11 +26084,11 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 /// Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
 pub fn regulate(
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
 ) -> Result<Command, RegulateError> {
     regulate_in(&Params::DEFAULT, law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
 }
@@ -26079,22 +26096,22 @@ pub fn regulate(
 pub fn regulate_with(
     p: &Params,
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
 ) -> Result<Command, RegulateError> {
     regulate_in(p, law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
 }
 /// [`regulate`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn regulate_ws(
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
 ) -> Result<Command, RegulateError> {
     regulate_in(&Params::DEFAULT, law, target, kp, kd, q, qd, &mut ws.0)
@@ -26103,11 +26120,11 @@ pub fn regulate_ws(
 pub fn regulate_with_ws(
     p: &Params,
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
 ) -> Result<Command, RegulateError> {
     regulate_in(p, law, target, kp, kd, q, qd, &mut ws.0)
@@ -26115,12 +26132,12 @@ pub fn regulate_with_ws(
 fn regulate_in(
     p: &Params,
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
 ) -> Result<Command, RegulateError> {
     if !p.is_finite() || !all_finite(q) || !all_finite(qd) || !all_finite(target)
         || !all_finite(kp) || !all_finite(kd)
@@ -26170,8 +26187,8 @@ fn regulate_in(
             }
         }
     }
-    let trace: f64 = (0..NU).map(|i| hess[i][i]).sum();
-    let mu = if trace > 0.0 { 1e-12 * trace / NU as f64 } else { 1.0 };
+    let trace: Real = (0..NU).map(|i| hess[i][i]).sum();
+    let mu = if trace > 0.0 { 1e-12 * trace / NU as Real } else { 1.0 };
     for i in 0..NU {
         hess[i][i] += mu;
     }
@@ -26213,7 +26230,7 @@ fn regulate_in(
                 opt[free_at[i]] = rhs[i];
             }
         }
-        let mut alpha = 1.0f64;
+        let mut alpha: Real = 1.0;
         let mut blocking = None;
         for i in 0..NU {
             let d = opt[i] - u[i];
@@ -26246,7 +26263,7 @@ fn regulate_in(
             if !fixed[i] {
                 continue;
             }
-            let grad: f64 = (0..NU).map(|j| hess[i][j] * u[j]).sum::<f64>() - f[i];
+            let grad: Real = (0..NU).map(|j| hess[i][j] * u[j]).sum::<Real>() - f[i];
             let wrong = if u[i] <= INPUT_LIMITS[i][0] { -grad } else { grad };
             if wrong > 1e-14 * gscale && wrong >= worst {
                 worst = wrong;
@@ -26263,12 +26280,12 @@ fn regulate_in(
         let mut gram = [0.0; NY * NY];
         for r in 0..NY {
             rhs[r] = b[r]
-                - (0..NU).filter(|i| fixed[*i]).map(|i| m[r][i] * u[i]).sum::<f64>();
+                - (0..NU).filter(|i| fixed[*i]).map(|i| m[r][i] * u[i]).sum::<Real>();
             for j in 0..NY {
                 gram[r * NY + j] = (0..NU)
                     .filter(|i| !fixed[*i])
                     .map(|i| m[r][i] * m[j][i])
-                    .sum::<f64>();
+                    .sum::<Real>();
             }
         }
         if cholesky(NY, NY, &mut gram, &mut rhs, 1e-10) {
@@ -26276,7 +26293,7 @@ fn regulate_in(
             let mut in_range = true;
             for i in 0..NU {
                 if !fixed[i] {
-                    cand[i] = (0..NY).map(|r| m[r][i] * rhs[r]).sum::<f64>();
+                    cand[i] = (0..NY).map(|r| m[r][i] * rhs[r]).sum::<Real>();
                     in_range
                         &= cand[i].is_finite() && cand[i] >= INPUT_LIMITS[i][0]
                             && cand[i] <= INPUT_LIMITS[i][1];
@@ -26292,7 +26309,7 @@ fn regulate_in(
     }
     let mut short = [0.0; NY];
     for r in 0..NY {
-        short[r] = b[r] - (0..NU).map(|i| m[r][i] * u[i]).sum::<f64>();
+        short[r] = b[r] - (0..NU).map(|i| m[r][i] * u[i]).sum::<Real>();
     }
     cmd.saturated = !(norm(&short) <= 1e-9 * (norm(&b) + 1e-300));
     Ok(cmd)

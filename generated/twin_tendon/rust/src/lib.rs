@@ -7,7 +7,7 @@
 //! `NQ = 2` coordinates `q` (curvature coefficients `q_{j,i}` of
 //! `κ_j(σ) = Σ_i q_{j,i} σ^i` [1/m], segment-major) and `NU = 4` inputs `u`
 //! (in the arm file's actuator order); 2 segment(s), truncated kinematics of
-//! order 4. SI units. Matrices are `[[f64; cols]; rows]`, indexed `[row][col]`.
+//! order 4. SI units. Matrices are `[[Real; cols]; rows]`, indexed `[row][col]`.
 //! `#![no_std]`: no allocation, no recursion, no mutable statics; math via `libm`.
 //!
 //! How it computes: every quantity is a polynomial with exact rational coefficients
@@ -35,6 +35,9 @@
 //! regulations and qualified engineering practice.
 #![no_std]
 #![allow(clippy::all)]
+/// The floating-point type of every value: `f64` (`generate --precision` chooses
+/// `f64` or `f32`).
+pub type Real = f64;
 /// SHA-256 of the arm file this crate was generated from (the folder's `arm.toml`), the
 /// generator's version and the expansion order: what a firmware logs to say which
 /// model it runs.
@@ -52,19 +55,19 @@ pub const EXPANSION_ORDER: u32 = 4;
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Params {
     /// factor on each segment's mass density (1 = arm file)
-    pub density_scale: [f64; 2],
+    pub density_scale: [Real; 2],
     /// factor on each segment's rotary inertia per length (1 = arm file)
-    pub rotary_inertia_scale: [f64; 2],
+    pub rotary_inertia_scale: [Real; 2],
     /// factor on each segment's bending stiffness (1 = arm file)
-    pub stiffness_scale: [f64; 2],
+    pub stiffness_scale: [Real; 2],
     /// factor on each segment's bending damping (1 = arm file)
-    pub damping_scale: [f64; 2],
+    pub damping_scale: [Real; 2],
     /// tip payload mass [kg]
-    pub payload_mass: f64,
+    pub payload_mass: Real,
     /// tip payload rotary inertia [kg m^2]
-    pub payload_rotary_inertia: f64,
+    pub payload_rotary_inertia: Real,
     /// gravity (g_x, g_y) in the base frame [m/s^2]
-    pub gravity: [f64; 2],
+    pub gravity: [Real; 2],
 }
 impl Params {
     /// The arm file's values.
@@ -121,12 +124,12 @@ pub enum DynamicsError {
 /// The workspace the model is tested in, from the arm file's `[sampling]` table: per
 /// segment `j`, base bending `|L_j q_{j,0}| ≤ RANGE_BASE_BENDING` and extra bending
 /// `Σ_{i≥1} L_j |q_{j,i}|/(i+1) ≤ RANGE_EXTRA_BENDING` [rad].
-pub const RANGE_BASE_BENDING: f64 = 3.141592653589793;
-pub const RANGE_EXTRA_BENDING: f64 = 1.5707963267948966;
+pub const RANGE_BASE_BENDING: Real = 3.141592653589793;
+pub const RANGE_EXTRA_BENDING: Real = 1.5707963267948966;
 /// Whether `q` lies in that workspace: `Err(OutOfRange)` outside it,
 /// `Err(NonFiniteInput)` for a NaN or an infinity. Call it before [`forward_dynamics`]
 /// where a state from a sensor may be anywhere.
-pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
+pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
     if q.iter().any(|v| !v.is_finite()) {
         return Err(DynamicsError::NonFiniteInput);
     }
@@ -141,12 +144,12 @@ pub fn check_range(q: &[f64; NQ]) -> Result<(), DynamicsError> {
 /// Smallest Cholesky pivot of `B` that [`forward_dynamics`] accepts, relative to the
 /// diagonal entry it came from (64 units of rounding): below it `B` is singular to
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
-pub const PIVOT_FLOOR: f64 = 1.4e-14;
+pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
 /// plain functions keep on the stack (91 reals, 728 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
-pub struct Workspace([f64; WORK_LEN]);
+pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
 pub const WORK_LEN: usize = 91;
 impl Workspace {
@@ -160,7 +163,7 @@ impl Default for Workspace {
     }
 }
 /// `1/(2n+1)`.
-static ODD_INV: [f64; MOMENTS_MAX] = [
+static ODD_INV: [Real; MOMENTS_MAX] = [
     1.0,
     0.3333333333333333,
     0.2,
@@ -171,7 +174,7 @@ static ODD_INV: [f64; MOMENTS_MAX] = [
     0.06666666666666667,
 ];
 /// `1/((2n+1)(2n+3))`.
-static PAIR_INV: [f64; MOMENTS_MAX] = [
+static PAIR_INV: [Real; MOMENTS_MAX] = [
     0.3333333333333333,
     0.06666666666666667,
     0.02857142857142857,
@@ -182,7 +185,7 @@ static PAIR_INV: [f64; MOMENTS_MAX] = [
     0.00392156862745098,
 ];
 /// Power-series factors `1/(k (2n+2k+1))` of the scaled `j_n`, `k = 1..11`.
-static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
+static SERIES: [[Real; 11]; MOMENTS_MAX + 1] = [
     [
         0.3333333333333333,
         0.1,
@@ -302,7 +305,7 @@ static SERIES: [[f64; 11]; MOMENTS_MAX + 1] = [
     ],
 ];
 /// `H_n(x) = (2n+1)!! j_n(x) / xⁿ` by its power series (`h = −x²/2`, `|x| < 1`).
-fn scaled_series(h: f64, n: usize) -> f64 {
+fn scaled_series(h: Real, n: usize) -> Real {
     let mut term = 1.0;
     let mut sum = 1.0;
     for f in SERIES[n].iter() {
@@ -316,7 +319,7 @@ fn scaled_series(h: f64, n: usize) -> f64 {
 /// segment (and by real and imaginary parts) with the same weight shape.
 static KERNEL_START: [u8; 15] = [0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48];
 static KERNEL_FIRST: [u8; 14] = [0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
-static KERNEL_COEF: [f64; 48] = [
+static KERNEL_COEF: [Real; 48] = [
     0.5,
     -0.5,
     0.16666666666666666,
@@ -368,7 +371,7 @@ static KERNEL_COEF: [f64; 48] = [
 ];
 /// `kern[i]` = kernel row `uses[2i]` at moment base `uses[2i + 1]`; four partial sums
 /// keep the multiply-adds independent.
-fn kernels(uses: &[u8], nu: &[f64], kern: &mut [f64]) {
+fn kernels(uses: &[u8], nu: &[Real], kern: &mut [Real]) {
     for (slot, pair) in kern.iter_mut().zip(uses.chunks_exact(2)) {
         let r = pair[0] as usize;
         let row = KERNEL_START
@@ -380,10 +383,10 @@ fn kernels(uses: &[u8], nu: &[f64], kern: &mut [f64]) {
                 Some((c, nu.get(from..from + c.len())?))
             });
         let Some((c, v)) = row else {
-            *slot = f64::NAN;
+            *slot = Real::NAN;
             continue;
         };
-        let mut s = [0.0f64; 4];
+        let mut s: [Real; 4] = [0.0; 4];
         let (cq, vq) = (c.chunks_exact(4), v.chunks_exact(4));
         let (ct, vt) = (cq.remainder(), vq.remainder());
         for (cq, vq) in cq.zip(vq) {
@@ -404,9 +407,9 @@ fn kernels(uses: &[u8], nu: &[f64], kern: &mut [f64]) {
 /// shrink; exact at 0); Miller's downward recurrence for `|x| < count`; upward
 /// recurrence beyond (stable while `n < |x|`; NaN lands there). No branch divides by a
 /// small `a`. Worst case: 33 add, 100 mul, 2 div, 0 sqrt, 2 trig for 8 moments.
-fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
+fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     let count = count.clamp(1, MOMENTS_MAX);
-    let mut j = [0.0f64; MOMENTS_MAX];
+    let mut j: [Real; MOMENTS_MAX] = [0.0; MOMENTS_MAX];
     let x = 0.5 * a;
     let ax = libm::fabs(x);
     let s = libm::sin(x);
@@ -430,14 +433,14 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
             }
             j[n] *= lead;
         }
-    } else if ax < count as f64 {
+    } else if ax < count as Real {
         let inv = 1.0 / x;
         let reach = libm::ceil(ax) as usize;
         let start = (count - 1).max(reach) + 24;
         let mut above = 0.0;
-        let mut cur = 1.0f64;
+        let mut cur: Real = 1.0;
         for k in (1..=start).rev() {
-            let below = (2 * k + 1) as f64 * inv * cur - above;
+            let below = (2 * k + 1) as Real * inv * cur - above;
             above = cur;
             cur = below;
             if k - 1 < count {
@@ -467,7 +470,7 @@ fn moments(a: f64, count: usize, out: &mut [f64], re: usize, im: usize) {
             j[1] = (j[0] - c) * inv;
         }
         for n in 2..count {
-            j[n] = (2 * n - 1) as f64 * inv * j[n - 1] - j[n - 2];
+            j[n] = (2 * n - 1) as Real * inv * j[n - 1] - j[n - 2];
         }
     }
     if re + count > out.len() || im + count > out.len() {
@@ -492,7 +495,7 @@ static INERTIA_ROWS: [u8; 28] = [
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 53 reals).
 ///
 /// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
-fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(14);
     let t = &mut work[..7];
@@ -538,19 +541,19 @@ fn inertia_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
-pub fn inertia(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut [0.0; 53])
 }
 /// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
 /// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
-pub fn inertia_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
 /// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
-pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut [0.0; 53])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
@@ -558,9 +561,9 @@ pub fn inertia_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
 /// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_with_ws(
     p: &Params,
-    q: &[f64; NQ],
+    q: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut ws.0)
 }
 /// Kernels of `gravity`: pairs (row, moment base).
@@ -570,7 +573,7 @@ static GRAVITY_ROWS: [u8; 24] = [
 /// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 48 reals).
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
-fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
+fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(12);
     let t = &mut work[..4];
@@ -601,31 +604,31 @@ fn gravity_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [f64; NQ] {
 /// Gravity vector `G(q) = ∂U_g/∂q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity(q: &[f64; NQ]) -> [f64; NQ] {
+pub fn gravity(q: &[Real; NQ]) -> [Real; NQ] {
     gravity_in(&Params::DEFAULT, q, &mut [0.0; 48])
 }
 /// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (48 reals); the same values.
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_ws(q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+pub fn gravity_ws(q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity`] at the runtime parameters `p`.
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_with(p: &Params, q: &[f64; NQ]) -> [f64; NQ] {
+pub fn gravity_with(p: &Params, q: &[Real; NQ]) -> [Real; NQ] {
     gravity_in(p, q, &mut [0.0; 48])
 }
 /// [`gravity_with`] with its scratch in the caller's [`Workspace`].
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -> [f64; NQ] {
+pub fn gravity_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(p, q, &mut ws.0)
 }
 /// The work of [`actuation`] and [`actuation_ws`], in `work` (at least 0 reals).
 ///
 /// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-fn actuation_in(_q: &[f64; NQ], _work: &mut [f64]) -> [[f64; NU]; NQ] {
+fn actuation_in(_q: &[Real; NQ], _work: &mut [Real]) -> [[Real; NU]; NQ] {
     let mut out = [[0.0; NU]; NQ];
     out[0][0] = 0.0018;
     out[0][1] = -0.0018;
@@ -640,13 +643,13 @@ fn actuation_in(_q: &[f64; NQ], _work: &mut [f64]) -> [[f64; NU]; NQ] {
 /// Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.
 ///
 /// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn actuation(q: &[f64; NQ]) -> [[f64; NU]; NQ] {
+pub fn actuation(q: &[Real; NQ]) -> [[Real; NU]; NQ] {
     actuation_in(q, &mut [])
 }
 /// [`actuation`] with its scratch in the caller's [`Workspace`] instead of on the stack (0 reals); the same values.
 ///
 /// Operations: 0 add, 0 mul, 0 div, 0 sqrt, 0 trig.
-pub fn actuation_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NU]; NQ] {
+pub fn actuation_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NU]; NQ] {
     actuation_in(q, &mut ws.0)
 }
 /// Kernels of `tip_jacobian`: pairs (row, moment base).
@@ -654,7 +657,7 @@ static TIP_JACOBIAN_ROWS: [u8; 8] = [3, 8, 4, 0, 2, 16, 2, 24];
 /// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 36 reals).
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
-fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
+fn tip_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let kern = &mut work[..4];
     moments(0.15 * q[0], 2, nu, 0, 8);
@@ -677,13 +680,13 @@ fn tip_jacobian_in(q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; 3] {
 /// Tip Jacobian, 3×NQ: rows ∂x/∂q, ∂y/∂q, ∂angle/∂q.
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
-pub fn tip_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; 3] {
+pub fn tip_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut [0.0; 36])
 }
 /// [`tip_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (36 reals); the same values.
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
-pub fn tip_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; 3] {
+pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
 /// Kernels of `gravity_jacobian`: pairs (row, moment base).
@@ -694,7 +697,11 @@ static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
 /// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 53 reals).
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
-fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ]; NQ] {
+fn gravity_jacobian_in(
+    p: &Params,
+    q: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(16);
     let t = &mut work[..5];
@@ -737,19 +744,19 @@ fn gravity_jacobian_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> [[f64; NQ
 /// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian(q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn gravity_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 53])
 }
 /// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian_ws(q: &[f64; NQ], ws: &mut Workspace) -> [[f64; NQ]; NQ] {
+pub fn gravity_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity_jacobian`] at the runtime parameters `p`.
 ///
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn gravity_jacobian_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut [0.0; 53])
 }
 /// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
@@ -757,9 +764,9 @@ pub fn gravity_jacobian_with(p: &Params, q: &[f64; NQ]) -> [[f64; NQ]; NQ] {
 /// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_with_ws(
     p: &Params,
-    q: &[f64; NQ],
+    q: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut ws.0)
 }
 /// Kernels of `potential_energy`: pairs (row, moment base).
@@ -767,7 +774,7 @@ static POTENTIAL_ENERGY_ROWS: [u8; 8] = [0, 0, 0, 8, 0, 16, 0, 24];
 /// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 38 reals).
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
-fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
+fn potential_energy_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> Real {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(4);
     let t = &mut work[..2];
@@ -796,25 +803,25 @@ fn potential_energy_in(p: &Params, q: &[f64; NQ], work: &mut [f64]) -> f64 {
 /// Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
-pub fn potential_energy(q: &[f64; NQ]) -> f64 {
+pub fn potential_energy(q: &[Real; NQ]) -> Real {
     potential_energy_in(&Params::DEFAULT, q, &mut [0.0; 38])
 }
 /// [`potential_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (38 reals); the same values.
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
-pub fn potential_energy_ws(q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+pub fn potential_energy_ws(q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`potential_energy`] at the runtime parameters `p`.
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
-pub fn potential_energy_with(p: &Params, q: &[f64; NQ]) -> f64 {
+pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
     potential_energy_in(p, q, &mut [0.0; 38])
 }
 /// [`potential_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
-pub fn potential_energy_with_ws(p: &Params, q: &[f64; NQ], ws: &mut Workspace) -> f64 {
+pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
 /// Kernels of `terms`: pairs (row, moment base).
@@ -828,10 +835,10 @@ static TERMS_ROWS: [u8; 56] = [
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
     let t = &mut work[..29];
@@ -935,19 +942,19 @@ fn terms_in(
 ///
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
 }
 /// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 ///
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`terms`] at the runtime parameters `p`.
@@ -955,9 +962,9 @@ pub fn terms_ws(
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut [0.0; 89])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
@@ -965,10 +972,10 @@ pub fn terms_with(
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> ([[f64; NQ]; NQ], [[f64; NQ]; NQ], [f64; NQ]) {
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
 /// Kernels of `regressor`: pairs (row, moment base).
@@ -982,11 +989,11 @@ static REGRESSOR_ROWS: [u8; 56] = [
 /// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 fn regressor_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
-    work: &mut [f64],
-) -> [[f64; NTHETA]; NQ] {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NTHETA]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
     let t = &mut work[..31];
@@ -1086,18 +1093,22 @@ fn regressor_in(
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
-pub fn regressor(q: &[f64; NQ], qd: &[f64; NQ], qdd: &[f64; NQ]) -> [[f64; NTHETA]; NQ] {
+pub fn regressor(
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 91])
 }
 /// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (91 reals); the same values.
 ///
 /// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NTHETA]; NQ] {
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(&Params::DEFAULT, q, qd, qdd, &mut ws.0)
 }
 /// [`regressor`] at the runtime parameters `p`.
@@ -1105,10 +1116,10 @@ pub fn regressor_ws(
 /// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
-) -> [[f64; NTHETA]; NQ] {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut [0.0; 91])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
@@ -1116,11 +1127,11 @@ pub fn regressor_with(
 /// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    qdd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    qdd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NTHETA]; NQ] {
+) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 89 reals).
@@ -1128,32 +1139,32 @@ pub fn regressor_with_ws(
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 fn coriolis_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
-) -> [[f64; NQ]; NQ] {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NQ]; NQ] {
     terms_in(p, q, qd, work).1
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
-pub fn coriolis(q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
 }
 /// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 ///
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
-pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; NQ] {
+pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut [0.0; 89])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
@@ -1161,10 +1172,10 @@ pub fn coriolis_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> [[f64; NQ]; N
 /// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> [[f64; NQ]; NQ] {
+) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut ws.0)
 }
 /// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 53 reals).
@@ -1172,10 +1183,10 @@ pub fn coriolis_with_ws(
 /// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 fn kinetic_energy_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
-) -> f64 {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> Real {
     let b = inertia_in(p, q, work);
     let mut t = 0.0;
     for i in 0..NQ {
@@ -1190,19 +1201,19 @@ fn kinetic_energy_in(
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
 /// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
-pub fn kinetic_energy(q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 53])
 }
 /// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
 ///
 /// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
-pub fn kinetic_energy_ws(q: &[f64; NQ], qd: &[f64; NQ], ws: &mut Workspace) -> f64 {
+pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
 /// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
-pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
+pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(p, q, qd, &mut [0.0; 53])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
@@ -1210,16 +1221,16 @@ pub fn kinetic_energy_with(p: &Params, q: &[f64; NQ], qd: &[f64; NQ]) -> f64 {
 /// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
-) -> f64 {
+) -> Real {
     kinetic_energy_in(p, q, qd, &mut ws.0)
 }
 /// Stiffness matrix `K` (constant, block diagonal): elastic energy `½ qᵀ K q`. At the runtime parameters `p`.
 ///
 /// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
-pub fn stiffness_with(p: &Params) -> [[f64; NQ]; NQ] {
+pub fn stiffness_with(p: &Params) -> [[Real; NQ]; NQ] {
     let mut out = [[0.0; NQ]; NQ];
     out[0][0] = 0.00225 * p.stiffness_scale[0];
     out[0][1] = 0.0;
@@ -1230,13 +1241,13 @@ pub fn stiffness_with(p: &Params) -> [[f64; NQ]; NQ] {
 /// [`stiffness_with`] at the arm file's parameters.
 ///
 /// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
-pub fn stiffness() -> [[f64; NQ]; NQ] {
+pub fn stiffness() -> [[Real; NQ]; NQ] {
     stiffness_with(&Params::DEFAULT)
 }
 /// Damping matrix `D` (constant): dissipation `½ q̇ᵀ D q̇`. At the runtime parameters `p`.
 ///
 /// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
-pub fn damping_with(p: &Params) -> [[f64; NQ]; NQ] {
+pub fn damping_with(p: &Params) -> [[Real; NQ]; NQ] {
     let mut out = [[0.0; NQ]; NQ];
     out[0][0] = 4.5e-5 * p.damping_scale[0];
     out[0][1] = 0.0;
@@ -1247,13 +1258,13 @@ pub fn damping_with(p: &Params) -> [[f64; NQ]; NQ] {
 /// [`damping_with`] at the arm file's parameters.
 ///
 /// Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig.
-pub fn damping() -> [[f64; NQ]; NQ] {
+pub fn damping() -> [[Real; NQ]; NQ] {
     damping_with(&Params::DEFAULT)
 }
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
 /// Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig.
-fn pose_segment0(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_segment0(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let pnu = &mut work[..2];
     moments(0.15 * q[0] * sigma, 1, pnu, 0, 1);
     let mut out = [0.0; 3];
@@ -1265,7 +1276,7 @@ fn pose_segment0(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
 /// Backbone pose `[x, y, angle]` of segment 1 at `sigma`.
 ///
 /// Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig.
-fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (pnu, work) = work.split_at_mut(2);
     let t = &mut work[..2];
@@ -1285,14 +1296,14 @@ fn pose_segment1(q: &[f64; NQ], sigma: f64, work: &mut [f64]) -> [f64; 3] {
     out
 }
 /// The work of [`pose`] and [`pose_ws`], in `work` (at least 36 reals).
-fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64; 3] {
+fn pose_in(q: &[Real; NQ], segment: usize, sigma: Real, work: &mut [Real]) -> [Real; 3] {
     if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
-        return [f64::NAN; 3];
+        return [Real::NAN; 3];
     }
     match segment {
         0 => pose_segment0(q, sigma, work),
         1 => pose_segment1(q, sigma, work),
-        _ => [f64::NAN; 3],
+        _ => [Real::NAN; 3],
     }
 }
 /// Backbone pose `[x, y, angle]` at `sigma ∈ [0, 1]` of segment `segment`, counted
@@ -1301,17 +1312,17 @@ fn pose_in(q: &[f64; NQ], segment: usize, sigma: f64, work: &mut [f64]) -> [f64;
 /// position [m] in the base frame and tangent angle from +x [rad]. The tip is
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
-pub fn pose(q: &[f64; NQ], segment: usize, sigma: f64) -> [f64; 3] {
+pub fn pose(q: &[Real; NQ], segment: usize, sigma: Real) -> [Real; 3] {
     pose_in(q, segment, sigma, &mut [0.0; 36])
 }
 /// [`pose`] with its scratch in the caller's [`Workspace`] instead of on the stack
 /// (36 reals); the same values.
 pub fn pose_ws(
-    q: &[f64; NQ],
+    q: &[Real; NQ],
     segment: usize,
-    sigma: f64,
+    sigma: Real,
     ws: &mut Workspace,
-) -> [f64; 3] {
+) -> [Real; 3] {
     pose_in(q, segment, sigma, &mut ws.0)
 }
 /// Forward dynamics: `q̈` from `B(q) q̈ = A(q) u − C(q, q̇) q̇ − G(q) − K q − D q̇`, by an
@@ -1320,50 +1331,50 @@ pub fn pose_ws(
 ///
 /// Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
 pub fn forward_dynamics(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[f64; NQ], DynamicsError> {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 89])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[f64; NQ], DynamicsError> {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(p, q, qd, u, &mut [0.0; 89])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
 /// caller's [`Workspace`] instead of on the stack (89 reals); the same values.
 pub fn forward_dynamics_ws(
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], DynamicsError> {
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut ws.0)
 }
 /// [`forward_dynamics_with`] with its scratch in the caller's [`Workspace`].
 pub fn forward_dynamics_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], DynamicsError> {
+) -> Result<[Real; NQ], DynamicsError> {
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
 /// 89 reals).
 fn forward_dynamics_in(
     p: &Params,
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    u: &[f64; NU],
-    work: &mut [f64],
-) -> Result<[f64; NQ], DynamicsError> {
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    u: &[Real; NU],
+    work: &mut [Real],
+) -> Result<[Real; NQ], DynamicsError> {
     if !p.is_finite()
         || q.iter().chain(qd.iter()).chain(u.iter()).any(|v| !v.is_finite())
     {
@@ -1436,33 +1447,33 @@ pub enum StaticsError {
     /// The load continuation stalled within [`EQUILIBRIUM_MAX_ITERATIONS`]: the load
     /// fraction reached, the last residual, and the last equilibrium on the way
     /// (never take it for the answer).
-    NotConverged { load: f64, residual: f64, iterations: usize, q: [f64; NQ] },
+    NotConverged { load: Real, residual: Real, iterations: usize, q: [Real; NQ] },
 }
 /// A solved equilibrium.
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Equilibrium {
-    pub q: [f64; NQ],
+    pub q: [Real; NQ],
     /// Newton iterations in all, and continuation steps taken.
     pub iterations: usize,
     pub load_steps: usize,
     /// `‖K q + G − A u‖₂`, and the same over `‖K q‖ + ‖G‖ + ‖A u‖`.
-    pub residual: f64,
-    pub relative_residual: f64,
+    pub residual: Real,
+    pub relative_residual: Real,
     /// `∂R/∂q` is positive definite: a local minimum of the potential energy.
     pub stable: bool,
 }
 /// Converged when `‖R‖ ≤ EQUILIBRIUM_TOLERANCE (‖K q‖ + ‖G‖ + ‖A u‖)`.
-pub const EQUILIBRIUM_TOLERANCE: f64 = 1e-12;
+pub const EQUILIBRIUM_TOLERANCE: Real = 1e-12;
 /// Most Newton iterations of [`equilibrium`] in all.
 pub const EQUILIBRIUM_MAX_ITERATIONS: usize = 2000;
 const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
-const EQUILIBRIUM_MIN_STEP: f64 = 1e-6;
+const EQUILIBRIUM_MIN_STEP: Real = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
-const EQUILIBRIUM_MAX_BENDING_STEP: f64 = 0.5;
+const EQUILIBRIUM_MAX_BENDING_STEP: Real = 0.5;
 const STATICS_WORK: usize = 53;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
-fn bending(v: &[f64; NQ]) -> f64 {
-    let mut worst: f64 = 0.0;
+fn bending(v: &[Real; NQ]) -> Real {
+    let mut worst: Real = 0.0;
     let b = 0.15 * (libm::fabs(v[0]));
     if b > worst {
         worst = b;
@@ -1473,16 +1484,16 @@ fn bending(v: &[f64; NQ]) -> f64 {
     }
     worst
 }
-fn norm(v: &[f64]) -> f64 {
-    libm::sqrt(v.iter().map(|x| x * x).sum::<f64>())
+fn norm(v: &[Real]) -> Real {
+    libm::sqrt(v.iter().map(|x| x * x).sum::<Real>())
 }
-fn all_finite(v: &[f64]) -> bool {
+fn all_finite(v: &[Real]) -> bool {
     v.iter().all(|x| x.is_finite())
 }
 /// `a x = b` by Gaussian elimination with partial pivoting; `None` when a pivot is at
 /// most `1e-14` of the largest entry of `a` or `x` is not finite.
-fn solve(mut a: [[f64; NQ]; NQ], mut b: [f64; NQ]) -> Option<[f64; NQ]> {
-    let top = a.iter().flatten().fold(0.0f64, |m, v| m.max(libm::fabs(*v)));
+fn solve(mut a: [[Real; NQ]; NQ], mut b: [Real; NQ]) -> Option<[Real; NQ]> {
+    let top = a.iter().flatten().fold(0.0 as Real, |m, v| m.max(libm::fabs(*v)));
     for c in 0..NQ {
         let mut p = c;
         for r in c + 1..NQ {
@@ -1516,8 +1527,8 @@ fn solve(mut a: [[f64; NQ]; NQ], mut b: [f64; NQ]) -> Option<[f64; NQ]> {
 }
 /// The symmetric `a x = b` (`h×h`, leading dimension `ld`) by Cholesky in place;
 /// `false` when a pivot is at most `floor` times the largest diagonal entry.
-fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bool {
-    let top = (0..h).map(|i| a[i * ld + i]).fold(0.0f64, f64::max);
+fn cholesky(h: usize, ld: usize, a: &mut [Real], b: &mut [Real], floor: Real) -> bool {
+    let top = (0..h).map(|i| a[i * ld + i]).fold(0.0 as Real, Real::max);
     for i in 0..h {
         for j in 0..=i {
             let mut s = a[i * ld + j];
@@ -1551,40 +1562,43 @@ fn cholesky(h: usize, ld: usize, a: &mut [f64], b: &mut [f64], floor: f64) -> bo
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
 ///
 /// Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
-pub fn static_residual(q: &[f64; NQ], u: &[f64; NU]) -> Result<[f64; NQ], StaticsError> {
+pub fn static_residual(
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(&Params::DEFAULT, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_residual`] at the runtime parameters `p`.
 pub fn static_residual_with(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[f64; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(p, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_residual`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn static_residual_ws(
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], StaticsError> {
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(&Params::DEFAULT, q, u, &mut ws.0)
 }
 /// [`static_residual_with`] with its scratch in the caller's [`Workspace`].
 pub fn static_residual_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[f64; NQ], StaticsError> {
+) -> Result<[Real; NQ], StaticsError> {
     static_residual_in(p, q, u, &mut ws.0)
 }
 fn static_residual_in(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-    work: &mut [f64],
-) -> Result<[f64; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+    work: &mut [Real],
+) -> Result<[Real; NQ], StaticsError> {
     if !p.is_finite() || !all_finite(q) || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
@@ -1606,42 +1620,42 @@ fn static_residual_in(
 ///
 /// Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
-    q: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(&Params::DEFAULT, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_jacobian`] at the runtime parameters `p`.
 pub fn static_jacobian_with(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    q: &[Real; NQ],
+    u: &[Real; NU],
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(p, q, u, &mut [0.0; STATICS_WORK])
 }
 /// [`static_jacobian`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn static_jacobian_ws(
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(&Params::DEFAULT, q, u, &mut ws.0)
 }
 /// [`static_jacobian_with`] with its scratch in the caller's [`Workspace`].
 pub fn static_jacobian_with_ws(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
+    q: &[Real; NQ],
+    u: &[Real; NU],
     ws: &mut Workspace,
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     static_jacobian_in(p, q, u, &mut ws.0)
 }
 fn static_jacobian_in(
     p: &Params,
-    q: &[f64; NQ],
-    _u: &[f64; NU],
-    work: &mut [f64],
-) -> Result<[[f64; NQ]; NQ], StaticsError> {
+    q: &[Real; NQ],
+    _u: &[Real; NU],
+    work: &mut [Real],
+) -> Result<[[Real; NQ]; NQ], StaticsError> {
     if !p.is_finite() || !all_finite(q) || !all_finite(_u) {
         return Err(StaticsError::NonFiniteInput);
     }
@@ -1657,19 +1671,19 @@ fn static_jacobian_in(
 /// `K q + λ (G − A u)`, its load `G − A u`, the scale `‖K q‖ + λ (‖G‖ + ‖A u‖)`, and
 /// (when asked) the Jacobian `K + λ (∂G/∂q − ∂(A u)/∂q)`; `None` when not finite.
 struct Linearised {
-    r: [f64; NQ],
-    jac: [[f64; NQ]; NQ],
-    load: [f64; NQ],
-    scale: f64,
+    r: [Real; NQ],
+    jac: [[Real; NQ]; NQ],
+    load: [Real; NQ],
+    scale: Real,
 }
 fn linearise(
     p: &Params,
-    q: &[f64; NQ],
-    u: &[f64; NU],
-    lambda: f64,
-    k: &[[f64; NQ]; NQ],
+    q: &[Real; NQ],
+    u: &[Real; NU],
+    lambda: Real,
+    k: &[[Real; NQ]; NQ],
     with_jacobian: bool,
-    work: &mut [f64],
+    work: &mut [Real],
 ) -> Option<Linearised> {
     let g = gravity_in(p, q, work);
     let a = actuation_in(q, work);
@@ -1721,16 +1735,19 @@ fn linearise(
 ///
 /// Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
 /// Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
-pub fn equilibrium(u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
+pub fn equilibrium(u: &[Real; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut [0.0; STATICS_WORK])
 }
 /// [`equilibrium`] at the runtime parameters `p`.
-pub fn equilibrium_with(p: &Params, u: &[f64; NU]) -> Result<Equilibrium, StaticsError> {
+pub fn equilibrium_with(
+    p: &Params,
+    u: &[Real; NU],
+) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(p, u, &mut [0.0; STATICS_WORK])
 }
 /// [`equilibrium`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn equilibrium_ws(
-    u: &[f64; NU],
+    u: &[Real; NU],
     ws: &mut Workspace,
 ) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut ws.0)
@@ -1738,22 +1755,22 @@ pub fn equilibrium_ws(
 /// [`equilibrium_with`] with its scratch in the caller's [`Workspace`].
 pub fn equilibrium_with_ws(
     p: &Params,
-    u: &[f64; NU],
+    u: &[Real; NU],
     ws: &mut Workspace,
 ) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(p, u, &mut ws.0)
 }
 fn equilibrium_in(
     p: &Params,
-    u: &[f64; NU],
-    work: &mut [f64],
+    u: &[Real; NU],
+    work: &mut [Real],
 ) -> Result<Equilibrium, StaticsError> {
     if !p.is_finite() || !all_finite(u) {
         return Err(StaticsError::NonFiniteInput);
     }
     let k = stiffness_with(p);
     let mut q = [0.0; NQ];
-    let (mut lambda, mut step, mut last) = (0.0f64, 1.0f64, 0.0f64);
+    let (mut lambda, mut step, mut last): (Real, Real, Real) = (0.0, 1.0, 0.0);
     let (mut iterations, mut load_steps) = (0usize, 0usize);
     while lambda < 1.0 {
         let here = linearise(p, &q, u, lambda, &k, true, work)
@@ -1859,7 +1876,7 @@ pub const NY: usize = 2;
 /// `2_0 = q[1]`
 pub const OUTPUT_LABELS: [&str; NY] = ["1_0", "2_0"];
 /// The actuators' limits `[lo, hi]` from the arm file (tendons: `lo` = pretension).
-pub const INPUT_LIMITS: [[f64; 2]; NU] = [
+pub const INPUT_LIMITS: [[Real; 2]; NU] = [
     [0.2, 25.0],
     [0.2, 25.0],
     [0.2, 25.0],
@@ -1890,7 +1907,7 @@ pub enum RegulateError {
 #[derive(Clone, Copy, Debug, PartialEq)]
 pub struct Command {
     /// The inputs, within [`INPUT_LIMITS`].
-    pub u: [f64; NU],
+    pub u: [Real; NU],
     /// The limits keep `u` from the wanted force (`u` is the best they allow).
     pub saturated: bool,
 }
@@ -1900,13 +1917,13 @@ impl Command {
     pub fn relaxed() -> Command {
         let mut u = [0.0; NU];
         for c in 0..NU {
-            u[c] = 0.0f64.clamp(INPUT_LIMITS[c][0], INPUT_LIMITS[c][1]);
+            u[c] = (0.0 as Real).clamp(INPUT_LIMITS[c][0], INPUT_LIMITS[c][1]);
         }
         Command { u, saturated: false }
     }
 }
 /// `y = S v`.
-fn select(v: &[f64; NQ]) -> [f64; NY] {
+fn select(v: &[Real; NQ]) -> [Real; NY] {
     [v[0], v[1]]
 }
 /// The regulator `law` at the state `(q, q̇)`, toward `target` with gains `kp`, `kd`
@@ -1921,11 +1938,11 @@ fn select(v: &[f64; NQ]) -> [f64; NY] {
 /// Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
 pub fn regulate(
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
 ) -> Result<Command, RegulateError> {
     regulate_in(&Params::DEFAULT, law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
 }
@@ -1933,22 +1950,22 @@ pub fn regulate(
 pub fn regulate_with(
     p: &Params,
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
 ) -> Result<Command, RegulateError> {
     regulate_in(p, law, target, kp, kd, q, qd, &mut [0.0; STATICS_WORK])
 }
 /// [`regulate`] with its scratch in the caller's [`Workspace`]; the same values.
 pub fn regulate_ws(
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
 ) -> Result<Command, RegulateError> {
     regulate_in(&Params::DEFAULT, law, target, kp, kd, q, qd, &mut ws.0)
@@ -1957,11 +1974,11 @@ pub fn regulate_ws(
 pub fn regulate_with_ws(
     p: &Params,
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
     ws: &mut Workspace,
 ) -> Result<Command, RegulateError> {
     regulate_in(p, law, target, kp, kd, q, qd, &mut ws.0)
@@ -1969,12 +1986,12 @@ pub fn regulate_with_ws(
 fn regulate_in(
     p: &Params,
     law: Law,
-    target: &[f64; NY],
-    kp: &[f64; NY],
-    kd: &[f64; NY],
-    q: &[f64; NQ],
-    qd: &[f64; NQ],
-    work: &mut [f64],
+    target: &[Real; NY],
+    kp: &[Real; NY],
+    kd: &[Real; NY],
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
 ) -> Result<Command, RegulateError> {
     if !p.is_finite() || !all_finite(q) || !all_finite(qd) || !all_finite(target)
         || !all_finite(kp) || !all_finite(kd)
@@ -2024,8 +2041,8 @@ fn regulate_in(
             }
         }
     }
-    let trace: f64 = (0..NU).map(|i| hess[i][i]).sum();
-    let mu = if trace > 0.0 { 1e-12 * trace / NU as f64 } else { 1.0 };
+    let trace: Real = (0..NU).map(|i| hess[i][i]).sum();
+    let mu = if trace > 0.0 { 1e-12 * trace / NU as Real } else { 1.0 };
     for i in 0..NU {
         hess[i][i] += mu;
     }
@@ -2067,7 +2084,7 @@ fn regulate_in(
                 opt[free_at[i]] = rhs[i];
             }
         }
-        let mut alpha = 1.0f64;
+        let mut alpha: Real = 1.0;
         let mut blocking = None;
         for i in 0..NU {
             let d = opt[i] - u[i];
@@ -2100,7 +2117,7 @@ fn regulate_in(
             if !fixed[i] {
                 continue;
             }
-            let grad: f64 = (0..NU).map(|j| hess[i][j] * u[j]).sum::<f64>() - f[i];
+            let grad: Real = (0..NU).map(|j| hess[i][j] * u[j]).sum::<Real>() - f[i];
             let wrong = if u[i] <= INPUT_LIMITS[i][0] { -grad } else { grad };
             if wrong > 1e-14 * gscale && wrong >= worst {
                 worst = wrong;
@@ -2117,12 +2134,12 @@ fn regulate_in(
         let mut gram = [0.0; NY * NY];
         for r in 0..NY {
             rhs[r] = b[r]
-                - (0..NU).filter(|i| fixed[*i]).map(|i| m[r][i] * u[i]).sum::<f64>();
+                - (0..NU).filter(|i| fixed[*i]).map(|i| m[r][i] * u[i]).sum::<Real>();
             for j in 0..NY {
                 gram[r * NY + j] = (0..NU)
                     .filter(|i| !fixed[*i])
                     .map(|i| m[r][i] * m[j][i])
-                    .sum::<f64>();
+                    .sum::<Real>();
             }
         }
         if cholesky(NY, NY, &mut gram, &mut rhs, 1e-10) {
@@ -2130,7 +2147,7 @@ fn regulate_in(
             let mut in_range = true;
             for i in 0..NU {
                 if !fixed[i] {
-                    cand[i] = (0..NY).map(|r| m[r][i] * rhs[r]).sum::<f64>();
+                    cand[i] = (0..NY).map(|r| m[r][i] * rhs[r]).sum::<Real>();
                     in_range
                         &= cand[i].is_finite() && cand[i] >= INPUT_LIMITS[i][0]
                             && cand[i] <= INPUT_LIMITS[i][1];
@@ -2146,7 +2163,7 @@ fn regulate_in(
     }
     let mut short = [0.0; NY];
     for r in 0..NY {
-        short[r] = b[r] - (0..NU).map(|i| m[r][i] * u[i]).sum::<f64>();
+        short[r] = b[r] - (0..NU).map(|i| m[r][i] * u[i]).sum::<Real>();
     }
     cmd.saturated = !(norm(&short) <= 1e-9 * (norm(&b) + 1e-300));
     Ok(cmd)

@@ -473,6 +473,15 @@ static G_REGSAT: [[f64; 2]; NCASES] = [
     [0.0, 0.0],
     [0.0, 1.0],
 ];
+static G_REGCOND: [[f64; 1]; NCASES] = [
+    [1.13946433025793e-1],
+    [1.13946433025793e-1],
+    [1.13946433025793e-1],
+    [1.13946433025793e-1],
+    [1.13946433025793e-1],
+    [1.13946433025793e-1],
+    [1.13946433025793e-1],
+];
 static G_THETA: [[f64; 12]; NCASES] = [
     [
         1.1,
@@ -910,35 +919,49 @@ const SCALE_PR: f64 = 9.0103059693869e-2;
 const SCALE_PQEQ: f64 = 1.16791941143616e1;
 const SCALE_PUCOMP: f64 = 2.5e1;
 const SCALE_Y: f64 = 2.89351237500002e-1;
-fn flat<const R: usize, const C: usize>(m: &[[f64; C]; R]) -> [f64; 64] {
+/// Single precision resolves the regulators' allocation only where `S A (S A)^T` is
+/// well posed (its eigenvalue ratio, `G_REGCOND`, above this); double everywhere.
+const WELL_POSED: f64 = 0.0;
+/// A golden vector in the crate's precision.
+fn real<const N: usize>(v: &[f64]) -> [Real; N] {
+    let mut out = [0.0; N];
+    for (o, x) in out.iter_mut().zip(v) {
+        *o = *x as Real;
+    }
+    out
+}
+fn flat<T: Copy + Into<f64>, const R: usize, const C: usize>(
+    m: &[[T; C]; R],
+) -> [f64; 64] {
     let mut out = [0.0; 64];
     for i in 0..R {
         for j in 0..C {
-            out[i * C + j] = m[i][j];
+            out[i * C + j] = m[i][j].into();
         }
     }
     out
 }
-fn check(
+fn check<T: Copy + Into<f64>>(
     what: &str,
     case: usize,
-    got: &[f64],
+    got: &[T],
     want: &[f64],
     scale: f64,
     failures: &mut Vec<String>,
 ) {
     check_within(what, case, got, want, scale, RTOL, failures);
 }
-fn check_within(
+fn check_within<T: Copy + Into<f64>>(
     what: &str,
     case: usize,
-    got: &[f64],
+    got: &[T],
     want: &[f64],
     scale: f64,
     rtol: f64,
     failures: &mut Vec<String>,
 ) {
     for (i, (g, w)) in got.iter().zip(want).enumerate() {
+        let g: f64 = (*g).into();
         let tol = rtol * (w.abs() + scale);
         if !((g - w).abs() <= tol) {
             failures
@@ -949,14 +972,8 @@ fn check_within(
         }
     }
 }
-fn state(c: usize) -> ([f64; NQ], [f64; NQ], [f64; NU]) {
-    let mut q = [0.0; NQ];
-    let mut qd = [0.0; NQ];
-    let mut u = [0.0; NU];
-    q.copy_from_slice(&G_Q[c][..NQ]);
-    qd.copy_from_slice(&G_QD[c][..NQ]);
-    u.copy_from_slice(&G_U[c][..NU]);
-    (q, qd, u)
+fn state(c: usize) -> ([Real; NQ], [Real; NQ], [Real; NU]) {
+    (real(&G_Q[c]), real(&G_QD[c]), real(&G_U[c]))
 }
 fn run(test: impl Fn(usize, &mut Vec<String>)) {
     let mut failures = Vec::new();
@@ -1002,11 +1019,11 @@ fn energies_and_poses_match_reference() {
         let (q, qd, _) = state(c);
         check("kinetic energy", c, &[kinetic_energy(&q, &qd)], &G_T[c], SCALE_T, f);
         check("potential energy", c, &[potential_energy(&q)], &G_V[c], SCALE_V, f);
-        let mut got = [0.0; NSEG * 9];
+        let mut got: [Real; NSEG * 9] = [0.0; NSEG * 9];
         for j in 0..NSEG {
             for (i, &s) in SIGMAS.iter().enumerate() {
                 got[(j * 3 + i) * 3..(j * 3 + i) * 3 + 3]
-                    .copy_from_slice(&pose(&q, j, s));
+                    .copy_from_slice(&pose(&q, j, s as Real));
             }
         }
         check("pose", c, &got, &G_POSE[c], SCALE_POSE, f);
@@ -1027,10 +1044,10 @@ fn forward_dynamics_solves_the_reference_equations() {
         for i in 0..NQ {
             let mut r = -G_RHS[c][i];
             for j in 0..NQ {
-                r += G_B[c][i * NQ + j] * qdd[j];
+                r += G_B[c][i * NQ + j] * f64::from(qdd[j]);
             }
             res = res.max(r.abs());
-            qn = qn.max(qdd[i].abs());
+            qn = qn.max(f64::from(qdd[i]).abs());
             rn = rn.max(G_RHS[c][i].abs());
         }
         let bound = RTOL * (G_BNORM[c][0] * qn + rn);
@@ -1046,13 +1063,15 @@ fn invalid_arguments_are_reported() {
     let (mut q, qd, u) = state(2);
     assert!(pose(& q, NSEG, 0.5).iter().all(| v | v.is_nan()));
     assert!(pose(& q, 0, 1.5).iter().all(| v | v.is_nan()));
-    assert!(pose(& q, 0, f64::NAN).iter().all(| v | v.is_nan()));
+    assert!(pose(& q, 0, Real::NAN).iter().all(| v | v.is_nan()));
     assert_eq!(check_range(& q), Ok(()));
     let mut far = q;
     far[0] = 1e3;
     assert_eq!(check_range(& far), Err(DynamicsError::OutOfRange));
-    assert_eq!(forward_dynamics(& q, & [1e200; NQ], & u), Err(DynamicsError::Overflow));
-    q[0] = f64::NAN;
+    assert_eq!(
+        forward_dynamics(& q, & [Real::MAX; NQ], & u), Err(DynamicsError::Overflow)
+    );
+    q[0] = Real::NAN;
     assert_eq!(forward_dynamics(& q, & qd, & u), Err(DynamicsError::NonFiniteInput));
     assert!(inertia(& q).iter().flatten().any(| v | v.is_nan()));
     assert!(pose(& q, NSEG - 1, 1.0) [2].is_nan());
@@ -1116,8 +1135,7 @@ fn statics_match_reference() {
         let j = static_jacobian(&q, &u).expect("static_jacobian");
         check("static_jacobian", c, &flat(&j), &G_JS[c], SCALE_JS, f);
         assert_eq!(static_jacobian_ws(& q, & u, & mut ws), Ok(j));
-        let mut ueq = [0.0; NU];
-        ueq.copy_from_slice(&G_UEQ[c][..NU]);
+        let ueq: [Real; NU] = real(&G_UEQ[c]);
         match equilibrium(&ueq) {
             Ok(eq) => {
                 check_within(
@@ -1142,26 +1160,29 @@ fn statics_match_reference() {
 #[test]
 fn statics_reject_non_finite_inputs() {
     let (mut q, _, u) = state(2);
-    q[0] = f64::NAN;
+    q[0] = Real::NAN;
     assert_eq!(static_residual(& q, & u), Err(StaticsError::NonFiniteInput));
     assert_eq!(static_jacobian(& q, & u), Err(StaticsError::NonFiniteInput));
-    assert_eq!(equilibrium(& [f64::NAN; NU]), Err(StaticsError::NonFiniteInput));
+    assert_eq!(equilibrium(& [Real::NAN; NU]), Err(StaticsError::NonFiniteInput));
 }
 #[test]
 fn regulators_match_reference() {
     run(|c, f| {
         let (q, qd, _) = state(c);
-        let (mut target, mut kp, mut kd) = ([0.0; NY], [0.0; NY], [0.0; NY]);
-        target.copy_from_slice(&G_YTARGET[c][..NY]);
-        kp.copy_from_slice(&G_KP[c][..NY]);
-        kd.copy_from_slice(&G_KD[c][..NY]);
+        let (target, kp, kd): ([Real; NY], [Real; NY], [Real; NY]) = (
+            real(&G_YTARGET[c]),
+            real(&G_KP[c]),
+            real(&G_KD[c]),
+        );
         let mut ws = Workspace::new();
         for (law, want, scale, saturated) in [
             (Law::Baseline, &G_UBASE[c], SCALE_UBASE, G_REGSAT[c][0] > 0.5),
             (Law::Compensated, &G_UCOMP[c], SCALE_UCOMP, G_REGSAT[c][1] > 0.5),
         ] {
             let cmd = regulate(law, &target, &kp, &kd, &q, &qd).expect("regulate");
-            check(&format!("regulate {law:?}"), c, &cmd.u, want, scale, f);
+            if G_REGCOND[c][0] > WELL_POSED {
+                check(&format!("regulate {law:?}"), c, &cmd.u, want, scale, f);
+            }
             if cmd.saturated != saturated {
                 f.push(
                     format!(
@@ -1186,7 +1207,7 @@ fn regulate_rejects_bad_calls() {
         regulate(Law::Compensated, & t, & [0.0; NY], & g, & q, & qd),
         Err(RegulateError::BadGain)
     );
-    q[0] = f64::NAN;
+    q[0] = Real::NAN;
     assert_eq!(
         regulate(Law::Baseline, & t, & g, & g, & q, & qd),
         Err(RegulateError::NonFiniteInput)
@@ -1197,18 +1218,18 @@ fn regulate_rejects_bad_calls() {
 /// The parameter set of the `G_THETA` golden values (every field changed).
 fn test_params(c: usize) -> Params {
     let mut p = Params::DEFAULT;
-    p.density_scale[0] = G_THETA[c][0];
-    p.density_scale[1] = G_THETA[c][1];
-    p.rotary_inertia_scale[0] = G_THETA[c][2];
-    p.rotary_inertia_scale[1] = G_THETA[c][3];
-    p.stiffness_scale[0] = G_THETA[c][4];
-    p.stiffness_scale[1] = G_THETA[c][5];
-    p.damping_scale[0] = G_THETA[c][6];
-    p.damping_scale[1] = G_THETA[c][7];
-    p.payload_mass = G_THETA[c][8];
-    p.payload_rotary_inertia = G_THETA[c][9];
-    p.gravity[0] = G_THETA[c][10];
-    p.gravity[1] = G_THETA[c][11];
+    p.density_scale[0] = G_THETA[c][0] as Real;
+    p.density_scale[1] = G_THETA[c][1] as Real;
+    p.rotary_inertia_scale[0] = G_THETA[c][2] as Real;
+    p.rotary_inertia_scale[1] = G_THETA[c][3] as Real;
+    p.stiffness_scale[0] = G_THETA[c][4] as Real;
+    p.stiffness_scale[1] = G_THETA[c][5] as Real;
+    p.damping_scale[0] = G_THETA[c][6] as Real;
+    p.damping_scale[1] = G_THETA[c][7] as Real;
+    p.payload_mass = G_THETA[c][8] as Real;
+    p.payload_rotary_inertia = G_THETA[c][9] as Real;
+    p.gravity[0] = G_THETA[c][10] as Real;
+    p.gravity[1] = G_THETA[c][11] as Real;
     p
 }
 #[test]
@@ -1288,10 +1309,10 @@ fn parameter_variants_match_the_reference_at_changed_values() {
                 for i in 0..NQ {
                     let mut r = -G_PRHS[c][i];
                     for j in 0..NQ {
-                        r += G_PB[c][i * NQ + j] * qdd[j];
+                        r += G_PB[c][i * NQ + j] * f64::from(qdd[j]);
                     }
                     res = res.max(r.abs());
-                    qn = qn.max(qdd[i].abs());
+                    qn = qn.max(f64::from(qdd[i]).abs());
                     rn = rn.max(G_PRHS[c][i].abs());
                 }
                 let bound = RTOL * (G_PBNORM[c][0] * qn + rn);
@@ -1310,8 +1331,7 @@ fn parameter_variants_match_the_reference_at_changed_values() {
             Err(e) => f.push(format!("forward_dynamics_with [{}]: {e:?}", LABELS[c])),
         }
         if G_PEQOK[c][0] > 0.5 {
-            let mut ueq = [0.0; NU];
-            ueq.copy_from_slice(&G_UEQ[c][..NU]);
+            let ueq: [Real; NU] = real(&G_UEQ[c]);
             match equilibrium_with(&p, &ueq) {
                 Ok(eq) => {
                     check_within(
@@ -1327,27 +1347,30 @@ fn parameter_variants_match_the_reference_at_changed_values() {
                 Err(e) => f.push(format!("equilibrium_with [{}]: {e:?}", LABELS[c])),
             }
         }
-        let (mut target, mut kp, mut kd) = ([0.0; NY], [0.0; NY], [0.0; NY]);
-        target.copy_from_slice(&G_YTARGET[c][..NY]);
-        kp.copy_from_slice(&G_KP[c][..NY]);
-        kd.copy_from_slice(&G_KD[c][..NY]);
+        let (target, kp, kd): ([Real; NY], [Real; NY], [Real; NY]) = (
+            real(&G_YTARGET[c]),
+            real(&G_KP[c]),
+            real(&G_KD[c]),
+        );
         let cmd = regulate_with(&p, Law::Compensated, &target, &kp, &kd, &q, &qd)
             .expect("regulate_with");
-        check("regulate_with compensated", c, &cmd.u, &G_PUCOMP[c], SCALE_PUCOMP, f);
-        if cmd.saturated != (G_PREGSAT[c][0] > 0.5) {
-            f.push(
-                format!("regulate_with [{}]: saturated {}", LABELS[c], cmd.saturated),
-            );
+        if G_REGCOND[c][0] > WELL_POSED {
+            check("regulate_with compensated", c, &cmd.u, &G_PUCOMP[c], SCALE_PUCOMP, f);
+            if cmd.saturated != (G_PREGSAT[c][0] > 0.5) {
+                f.push(
+                    format!("regulate_with [{}]: saturated {}", LABELS[c], cmd.saturated),
+                );
+            }
         }
     });
     let (q, qd, u) = state(2);
     let mut bad = Params::DEFAULT;
-    bad.payload_mass = f64::NAN;
+    bad.payload_mass = Real::NAN;
     assert!(
         regressor_with(& bad, & q, & qd, & qd).iter().flatten().all(| v | v.is_finite()),
         "the regressor reads gravity only"
     );
-    bad.gravity[0] = f64::NAN;
+    bad.gravity[0] = Real::NAN;
     assert_eq!(
         forward_dynamics_with(& bad, & q, & qd, & u), Err(DynamicsError::NonFiniteInput)
     );
@@ -1357,10 +1380,9 @@ fn parameter_variants_match_the_reference_at_changed_values() {
 fn regressor_matches_the_reference_and_reproduces_the_dynamics() {
     run(|c, f| {
         let (q, qd, _) = state(c);
-        let mut acc = [0.0; NQ];
-        acc.copy_from_slice(&G_QDDY[c][..NQ]);
+        let acc: [Real; NQ] = real(&G_QDDY[c]);
         let y = regressor(&q, &qd, &acc);
-        let mut flat_y = [0.0; NQ * NTHETA];
+        let mut flat_y: [Real; NQ * NTHETA] = [0.0; NQ * NTHETA];
         for i in 0..NQ {
             flat_y[i * NTHETA..(i + 1) * NTHETA].copy_from_slice(&y[i]);
         }
@@ -1376,10 +1398,12 @@ fn regressor_matches_the_reference_and_reproduces_the_dynamics() {
             for j in 0..NQ {
                 tau += b[i][j] * acc[j] + (cc[i][j] + d[i][j]) * qd[j] + k[i][j] * q[j];
             }
-            let terms: Vec<f64> = (0..NTHETA).map(|j| y[i][j] * G_THETA[c][j]).collect();
+            let terms: Vec<f64> = (0..NTHETA)
+                .map(|j| f64::from(y[i][j]) * G_THETA[c][j])
+                .collect();
             let size = terms.iter().fold(0.0f64, |m, v| m.max(v.abs()));
             let ytheta: f64 = terms.iter().sum();
-            if !((ytheta - tau).abs() <= RTOL * size * NTHETA as f64) {
+            if !((ytheta - f64::from(tau)).abs() <= RTOL * size * NTHETA as f64) {
                 f.push(
                     format!(
                         "regressor_with [{}] row {i}: Y theta {ytheta:e}, tau {tau:e}",
