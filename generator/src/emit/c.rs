@@ -866,10 +866,7 @@ pub fn emit(
         .map(|row| format!("{{\n{}\n    }}", wrap_list(row, 8)))
         .collect();
     let nnz = mc.coef.len();
-    let (big, small) = match precision {
-        Precision::F64 => ("1e200", "1e-200"),
-        Precision::F32 => ("1e30f", "1e-30f"),
-    };
+    let (big, small) = precision.rescale_bounds();
 
     let mut ctx = base_context(name, meta, plan, n, k);
     ctx.insert(
@@ -940,13 +937,7 @@ pub fn emit(
         .map(|k| (plan.params.spelling(k), k))
         .collect();
     ctx.insert("param_assign", &assign);
-    ctx.insert(
-        "real_size",
-        &match precision {
-            Precision::F32 => 4,
-            Precision::F64 => 8,
-        },
-    );
+    ctx.insert("real_size", &precision.bytes());
     ctx.insert("real", r);
     ctx.insert("sfx", if precision == Precision::F32 { "f" } else { "" });
     ctx.insert("fs", p.fs());

@@ -307,10 +307,7 @@ pub fn insert_c(ctx: &mut Context, plan: &Plan, precision: Precision, st: &Stati
 /// solver settings are the precision's (see [`Settings`]).
 pub fn insert_rust(ctx: &mut Context, plan: &Plan, precision: Precision) {
     use super::number::rust_spelling;
-    let fabs = match precision {
-        Precision::F32 => "libm::fabsf",
-        Precision::F64 => "libm::fabs",
-    };
+    let fabs = &format!("libm::fabs{}", super::rust::libm_suffix(precision));
     let p = Precision::F64;
     StaticsOps::of(plan).insert(ctx, "/// ");
     insert_range(ctx, plan, p, fabs);

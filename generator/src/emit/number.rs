@@ -16,6 +16,23 @@ pub enum Precision {
 }
 
 impl Precision {
+    /// Bytes of one real.
+    pub fn bytes(self) -> usize {
+        match self {
+            Precision::F32 => 4,
+            Precision::F64 => 8,
+        }
+    }
+
+    /// Bounds of the moments' Miller recurrence, as C literals: a value beyond the
+    /// first is scaled by the second, far from overflow and underflow.
+    pub fn rescale_bounds(self) -> (&'static str, &'static str) {
+        match self {
+            Precision::F64 => ("1e200", "1e-200"),
+            Precision::F32 => ("1e30f", "1e-30f"),
+        }
+    }
+
     /// Unit roundoff `u` of round-to-nearest: half the gap between 1 and the next number.
     pub fn unit_roundoff(self) -> f64 {
         match self {

@@ -37,7 +37,7 @@ fn uint(max: usize) -> &'static str {
 }
 
 /// The suffix of `libm`'s single-precision functions (`sinf`), none for double.
-fn libm_suffix(precision: Precision) -> &'static str {
+pub(crate) fn libm_suffix(precision: Precision) -> &'static str {
     match precision {
         Precision::F32 => "f",
         Precision::F64 => "",
@@ -703,17 +703,11 @@ pub fn emit(
             "f64"
         },
     );
-    ctx.insert(
-        "real_size",
-        &if precision == Precision::F32 { 4 } else { 8 },
-    );
+    ctx.insert("real_size", &precision.bytes());
     ctx.insert("fs", libm_suffix(precision));
-    let (big, small) = match precision {
-        Precision::F64 => ("1e200", "1e-200"),
-        Precision::F32 => ("1e30", "1e-30"),
-    };
-    ctx.insert("big", big);
-    ctx.insert("small", small);
+    let (big, small) = precision.rescale_bounds();
+    ctx.insert("big", &rust_spelling(big.to_string()));
+    ctx.insert("small", &rust_spelling(small.to_string()));
     ctx.insert("tiny", &rust_spelling(settings.tiny.to_string()));
     ctx.insert("one_ulp", &rust_spelling(settings.one_ulp.to_string()));
     ctx.insert(
