@@ -92,12 +92,8 @@ impl Printer<'_> {
     fn upper(&self) -> String {
         self.name.to_uppercase()
     }
-    fn fabs(&self) -> &'static str {
-        if self.precision == Precision::F32 {
-            "fabsf"
-        } else {
-            "fabs"
-        }
+    fn fabs(&self) -> String {
+        format!("fabs{}", self.fs())
     }
     fn fs(&self) -> &'static str {
         if self.precision == Precision::F32 {

@@ -68,18 +68,12 @@ impl Func {
         table: &KernelTable,
     ) -> Vec<usize> {
         let mut fast = block.nu_read.clone();
-        let mut note = |u: &KernelUse| {
-            for (n, _) in &table.rows[u.row] {
-                let (seg, k) = layout.locate(u.base + n);
-                fast[seg] = fast[seg].max(k + 1);
-            }
-        };
-        for (start, count) in dot_ranges(block, families) {
-            block.kernels[start..start + count]
-                .iter()
-                .for_each(&mut note);
+        let dot_uses = dot_ranges(block, families)
+            .into_iter()
+            .flat_map(|(start, count)| &block.kernels[start..start + count]);
+        for u in dot_uses.chain(families.iter().flat_map(|f| &f.seeds)) {
+            table.note_reach(u, layout, &mut fast);
         }
-        families.iter().flat_map(|f| &f.seeds).for_each(&mut note);
         for (seg, c) in fast.iter_mut().enumerate() {
             if !families.iter().any(|f| f.seg == seg) {
                 *c = block.nu_count[seg];

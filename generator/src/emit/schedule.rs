@@ -240,6 +240,14 @@ pub struct KernelTable {
 }
 
 impl KernelTable {
+    /// Raises `counts[seg]` to cover every moment that use `u` reads.
+    pub fn note_reach(&self, u: &KernelUse, layout: &NuLayout, counts: &mut [usize]) {
+        for (n, _) in &self.rows[u.row] {
+            let (seg, k) = layout.locate(u.base + n);
+            counts[seg] = counts[seg].max(k + 1);
+        }
+    }
+
     /// The index of `row`, added when new.
     pub fn intern(&mut self, row: KernelRow) -> usize {
         let next = self.rows.len();
@@ -522,11 +530,8 @@ impl<'p> Scheduler<'p> {
                 }
                 None => self.table_row(Id(i as u32)),
             };
-            for (n, _) in &self.table.rows[u.row] {
-                // the moments a kernel reads count as read
-                let (seg, k) = self.layout.locate(u.base + n);
-                nu_count[seg] = nu_count[seg].max(k + 1);
-            }
+            // the moments a kernel reads count as read
+            self.table.note_reach(&u, self.layout, &mut nu_count);
             st.kernel_pos.insert(i, st.kernels.len());
             st.kernels.push(u);
             matrix.push(m);
