@@ -16422,12 +16422,10 @@ static int hanging_taper_solve(double a[], double b[])
         }
         for (r = c + 1; r < n; ++r) {
             const double f = a[r * n + c] / a[c * n + c];
-            if (f != 0.0) {
-                for (k = c; k < n; ++k) {
-                    a[r * n + k] -= f * a[c * n + k];
-                }
-                b[r] -= f * b[c];
+            for (k = c; k < n; ++k) {
+                a[r * n + k] -= f * a[c * n + k];
             }
+            b[r] -= f * b[c];
         }
     }
     for (c = n - 1; c >= 0; --c) {
@@ -16933,7 +16931,7 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
      * to a bad call, and the active-set method's feasible start. */
     for (j = 0; j < HANGING_TAPER_NU; ++j) {
         u[j] = 0.0 < hanging_taper_u_lo[j] ? hanging_taper_u_lo[j] : (0.0 > hanging_taper_u_hi[j] ? hanging_taper_u_hi[j] : 0.0);
-        fixed[j] = u[j] != 0.0;
+        fixed[j] = 0.0 < hanging_taper_u_lo[j] || 0.0 > hanging_taper_u_hi[j];
     }
     if (!hanging_taper_params_finite(P) || !hanging_taper_all_finite(q, HANGING_TAPER_NQ) || !hanging_taper_all_finite(qd, HANGING_TAPER_NQ) ||
         !hanging_taper_all_finite(target, HANGING_TAPER_NY) || !hanging_taper_all_finite(kp, HANGING_TAPER_NY) ||
@@ -17011,7 +17009,7 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
         for (i = 0; i < HANGING_TAPER_NU; ++i) {
             const double d = opt[i] - u[i];
             double bound;
-            if (fixed[i] || d == 0.0) {
+            if (fixed[i] || fabs(d) <= 0.0) {
                 continue;
             }
             bound = d < 0.0 ? hanging_taper_u_lo[i] : hanging_taper_u_hi[i];

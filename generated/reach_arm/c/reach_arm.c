@@ -10917,12 +10917,10 @@ static int reach_arm_solve(double a[], double b[])
         }
         for (r = c + 1; r < n; ++r) {
             const double f = a[r * n + c] / a[c * n + c];
-            if (f != 0.0) {
-                for (k = c; k < n; ++k) {
-                    a[r * n + k] -= f * a[c * n + k];
-                }
-                b[r] -= f * b[c];
+            for (k = c; k < n; ++k) {
+                a[r * n + k] -= f * a[c * n + k];
             }
+            b[r] -= f * b[c];
         }
     }
     for (c = n - 1; c >= 0; --c) {
@@ -11416,7 +11414,7 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
      * to a bad call, and the active-set method's feasible start. */
     for (j = 0; j < REACH_ARM_NU; ++j) {
         u[j] = 0.0 < reach_arm_u_lo[j] ? reach_arm_u_lo[j] : (0.0 > reach_arm_u_hi[j] ? reach_arm_u_hi[j] : 0.0);
-        fixed[j] = u[j] != 0.0;
+        fixed[j] = 0.0 < reach_arm_u_lo[j] || 0.0 > reach_arm_u_hi[j];
     }
     if (!reach_arm_params_finite(P) || !reach_arm_all_finite(q, REACH_ARM_NQ) || !reach_arm_all_finite(qd, REACH_ARM_NQ) ||
         !reach_arm_all_finite(target, REACH_ARM_NY) || !reach_arm_all_finite(kp, REACH_ARM_NY) ||
@@ -11494,7 +11492,7 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
         for (i = 0; i < REACH_ARM_NU; ++i) {
             const double d = opt[i] - u[i];
             double bound;
-            if (fixed[i] || d == 0.0) {
+            if (fixed[i] || fabs(d) <= 0.0) {
                 continue;
             }
             bound = d < 0.0 ? reach_arm_u_lo[i] : reach_arm_u_hi[i];

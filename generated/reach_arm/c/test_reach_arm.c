@@ -1792,7 +1792,7 @@ static void poison(int len)
     }
 }
 
-/* The _ws result must equal the plain one exactly (same code, other scratch), within
+/* The _ws result must equal the plain one bit for bit (same code, other scratch), within
  * RTOL of its largest entry under -ffast-math. */
 static void same(const char *what, int c, const double ws[], const double plain[], int n, int len)
 {
@@ -1808,11 +1808,12 @@ static void same(const char *what, int c, const double ws[], const double plain[
     }
 #else
     for (i = 0; i < n; ++i) {
-        ok = ok && ws[i] == plain[i];
+        ok = ok && memcmp(&ws[i], &plain[i], sizeof ws[i]) == 0;
     }
 #endif
     for (i = len; i < len + GUARD; ++i) {
-        ok = ok && work[i] == (double)(1000 + i);
+        const double guard = (double)(1000 + i);
+        ok = ok && memcmp(&work[i], &guard, sizeof guard) == 0;
     }
     if (ok) {
         ++passed;
@@ -1966,7 +1967,7 @@ int main(void)
             expect(status == REACH_ARM_OK, "equilibrium status");
             check_within("equilibrium", c, x, g_qeq[c], REACH_ARM_NQ, scale_qeq, RTOL_EQUILIBRIUM);
             expect(info.stable == (g_eqstable[c][0] > 0.5), "equilibrium stability");
-            expect(info.load == 1.0 && info.relative_residual <= REACH_ARM_EQUILIBRIUM_TOLERANCE,
+            expect(info.load >= 1.0 && info.relative_residual <= REACH_ARM_EQUILIBRIUM_TOLERANCE,
                 "equilibrium info");
             poison(REACH_ARM_EQUILIBRIUM_WORK);
             expect(reach_arm_equilibrium_ws(ueq, y, 0, work) == status, "equilibrium_ws status");

@@ -1339,12 +1339,10 @@ static int twin_tendon_solve(double a[], double b[])
         }
         for (r = c + 1; r < n; ++r) {
             const double f = a[r * n + c] / a[c * n + c];
-            if (f != 0.0) {
-                for (k = c; k < n; ++k) {
-                    a[r * n + k] -= f * a[c * n + k];
-                }
-                b[r] -= f * b[c];
+            for (k = c; k < n; ++k) {
+                a[r * n + k] -= f * a[c * n + k];
             }
+            b[r] -= f * b[c];
         }
     }
     for (c = n - 1; c >= 0; --c) {
@@ -1838,7 +1836,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
      * to a bad call, and the active-set method's feasible start. */
     for (j = 0; j < TWIN_TENDON_NU; ++j) {
         u[j] = 0.0 < twin_tendon_u_lo[j] ? twin_tendon_u_lo[j] : (0.0 > twin_tendon_u_hi[j] ? twin_tendon_u_hi[j] : 0.0);
-        fixed[j] = u[j] != 0.0;
+        fixed[j] = 0.0 < twin_tendon_u_lo[j] || 0.0 > twin_tendon_u_hi[j];
     }
     if (!twin_tendon_params_finite(P) || !twin_tendon_all_finite(q, TWIN_TENDON_NQ) || !twin_tendon_all_finite(qd, TWIN_TENDON_NQ) ||
         !twin_tendon_all_finite(target, TWIN_TENDON_NY) || !twin_tendon_all_finite(kp, TWIN_TENDON_NY) ||
@@ -1916,7 +1914,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
         for (i = 0; i < TWIN_TENDON_NU; ++i) {
             const double d = opt[i] - u[i];
             double bound;
-            if (fixed[i] || d == 0.0) {
+            if (fixed[i] || fabs(d) <= 0.0) {
                 continue;
             }
             bound = d < 0.0 ? twin_tendon_u_lo[i] : twin_tendon_u_hi[i];

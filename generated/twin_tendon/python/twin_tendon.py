@@ -928,10 +928,9 @@ def _solve(a, b):
         x[c], x[p] = x[p], x[c]
         for r in range(c + 1, n):
             f = m[r][c] / m[c][c]
-            if f != 0.0:
-                for k in range(c, n):
-                    m[r][k] -= f * m[c][k]
-                x[r] -= f * x[c]
+            for k in range(c, n):
+                m[r][k] -= f * m[c][k]
+            x[r] -= f * x[c]
     for c in reversed(range(n)):
         s = sum(m[c][k] * x[k] for k in range(c + 1, n))
         x[c] = (x[c] - s) / m[c][c]

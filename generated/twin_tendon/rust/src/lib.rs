@@ -1508,12 +1508,10 @@ fn solve(mut a: [[Real; NQ]; NQ], mut b: [Real; NQ]) -> Option<[Real; NQ]> {
         b.swap(c, p);
         for r in c + 1..NQ {
             let f = a[r][c] / a[c][c];
-            if f != 0.0 {
-                for k in c..NQ {
-                    a[r][k] -= f * a[c][k];
-                }
-                b[r] -= f * b[c];
+            for k in c..NQ {
+                a[r][k] -= f * a[c][k];
             }
+            b[r] -= f * b[c];
         }
     }
     for c in (0..NQ).rev() {
