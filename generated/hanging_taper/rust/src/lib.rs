@@ -11650,18 +11650,24 @@ fn kernels(uses: &[u16], nu: &[Real], kern: &mut [Real]) {
             *slot = Real::NAN;
             continue;
         };
-        let mut s: [Real; 4] = [0.0; 4];
+        let (mut s0, mut s1, mut s2, mut s3): (Real, Real, Real, Real) = (
+            0.0,
+            0.0,
+            0.0,
+            0.0,
+        );
         let (cq, vq) = (c.chunks_exact(4), v.chunks_exact(4));
         let (ct, vt) = (cq.remainder(), vq.remainder());
         for (cq, vq) in cq.zip(vq) {
-            for k in 0..4 {
-                s[k] += cq[k] * vq[k];
-            }
+            s0 += cq[0] * vq[0];
+            s1 += cq[1] * vq[1];
+            s2 += cq[2] * vq[2];
+            s3 += cq[3] * vq[3];
         }
         for (a, b) in ct.iter().zip(vt) {
-            s[0] += a * b;
+            s0 += a * b;
         }
-        *slot = (s[0] + s[1]) + (s[2] + s[3]);
+        *slot = (s0 + s1) + (s2 + s3);
     }
 }
 /// Largest `|a_j|` for which a segment's double kernels come from the recurrence in
