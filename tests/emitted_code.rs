@@ -431,6 +431,56 @@ fn c_of_arms_with_constant_actuation_builds_strict() {
     }
 }
 
+/// An arm whose first segment takes its double kernels from the recurrence and whose
+/// second keeps them as dot products (constant curvature: few kernels of low powers),
+/// so that a range of dot products follows a family in `kern[]`: the shipped C checks
+/// must pass, as on the demo arms.
+#[test]
+fn c_of_an_arm_mixing_recurrence_and_dot_product_kernels_matches_reference() {
+    if !have("gcc", "--version") {
+        println!("SKIP: gcc not found");
+        return;
+    }
+    let text = "name = \"mixed\"\nexpansion_order = 3\ngravity = [0.0, -9.81]\n\
+                [[segment]]\nlength = 0.12\ncurvature_degree = 2\ndensity = 0.3\n\
+                bending_stiffness = 0.012\n\
+                [[segment]]\nlength = 0.1\ncurvature_degree = 0\ndensity = 0.25\n\
+                bending_stiffness = 0.008\n\
+                [[actuator]]\nkind = \"moment\"\nsegment = 2\n";
+    let arm = arcwright::arm::parse_arm_str(text, "mixed.toml").expect("parses");
+    let model = derive_emitted(&arm);
+    let plan = arcwright::emit::plan::Plan::new(&model, true, Precision::F64).expect("plans");
+    let mixed = |f: &arcwright::emit::plan::Func| {
+        f.families.iter().any(|fam| {
+            f.dot_ranges()
+                .iter()
+                .any(|&(start, _)| start >= fam.start + fam.count)
+        })
+    };
+    assert!(
+        mixed(&plan.terms),
+        "the arm no longer has a dot-product range after a family: choose another"
+    );
+    let files = emit(&model, text, Options::default()).expect("emits");
+    let out = root().join("target/emitted-tests/mixed-kernels");
+    write_tree(&out, &files, &|_| {}).expect("writes");
+    let exe = out.with_extension("bin");
+    run(
+        Command::new("gcc")
+            .args(["-std=c99", "-O1"])
+            .args(STRICT)
+            .arg(out.join("c/test_mixed.c"))
+            .arg(out.join("c/mixed.c"))
+            .args(["-lm", "-o"])
+            .arg(&exe),
+        "gcc mixed",
+    );
+    let text = run(&mut Command::new(&exe), "C cross-check of mixed");
+    let last = text.lines().last().unwrap_or("");
+    println!("C mixed: {last}");
+    assert!(last.ends_with(" 0 failed"), "{last}");
+}
+
 #[test]
 fn c_single_precision_never_promotes_to_double_and_matches_reference() {
     if !have("gcc", "--version") {

@@ -216,12 +216,17 @@ impl Printer<'_> {
         if !b.kernels.is_empty() {
             let n = self.name;
             for (start, count) in func.dot_ranges() {
-                let rows = if start == 0 {
-                    format!("{n}_{fname}_rows")
+                // A range after a family (a later segment whose kernels stay dot
+                // products) starts past 0 in both arrays.
+                let (rows, kern) = if start == 0 {
+                    (format!("{n}_{fname}_rows"), "kern".to_string())
                 } else {
-                    format!("&{n}_{fname}_rows[{}]", 2 * start)
+                    (
+                        format!("&{n}_{fname}_rows[{}]", 2 * start),
+                        format!("&kern[{start}]"),
+                    )
                 };
-                out.push_str(&format!("    {n}_kernels({rows}, {count}, nu, kern);\n"));
+                out.push_str(&format!("    {n}_kernels({rows}, {count}, nu, {kern});\n"));
             }
             if !func.families.is_empty() {
                 carve(&mut decls, "F", func.matrix_scratch(&plan.matrix_tables));
