@@ -451,11 +451,9 @@ fn c_of_an_arm_mixing_recurrence_and_dot_product_kernels_matches_reference() {
     let model = derive_emitted(&arm);
     let plan = arcwright::emit::plan::Plan::new(&model, true, Precision::F64).expect("plans");
     let mixed = |f: &arcwright::emit::plan::Func| {
-        f.families.iter().any(|fam| {
-            f.dot_ranges()
-                .iter()
-                .any(|&(start, _)| start >= fam.start + fam.count)
-        })
+        f.families
+            .iter()
+            .any(|fam| f.dots.iter().any(|d| d.start >= fam.start + fam.count))
     };
     assert!(
         mixed(&plan.terms),

@@ -47,6 +47,8 @@ static volatile float sink;
 void _start(void)
 {{
     float q[REACH_ARM_NQ] = {{9.0f, -4.0f, 3.0f, 12.0f, 5.0f, -6.0f}};
+    /* Both segments bent beyond FAST_BENDING (a_1 = 4.8, a_2 = -4.5 rad). */
+    float qb[REACH_ARM_NQ] = {{40.0f, -4.0f, 3.0f, -45.0f, 5.0f, -6.0f}};
     float qd[REACH_ARM_NQ] = {{0.3f, -0.2f, 0.1f, 0.4f, 0.2f, -0.1f}};
     float u[REACH_ARM_NU] = {{0.5f, 0.0f, 0.2f, 0.01f}};
     float target[REACH_ARM_NY] = {{4.0f, -3.0f}};
@@ -60,8 +62,9 @@ void _start(void)
     for (i = 0; i < {calls}; ++i) {{
         {call};
         q[0] += 1e-3f;
+        qb[0] += 1e-3f;
     }}
-    sink = q[0] + B[0] + qdd[0] + ur[0];
+    sink = q[0] + qb[0] + B[0] + qdd[0] + ur[0];
     sys_exit(0);
 }}
 "#
@@ -307,6 +310,10 @@ fn main() {
     let objects = [c.join("reach_arm.c")];
     for (name, call) in [
         ("terms_ws", "reach_arm_terms_ws(q, qd, B, C, G, work)"),
+        (
+            "terms_ws, |a_j| > 4",
+            "reach_arm_terms_ws(qb, qd, B, C, G, work)",
+        ),
         (
             "forward_dynamics_ws",
             "(void)reach_arm_forward_dynamics_ws(q, qd, u, qdd, work)",

@@ -70,7 +70,7 @@ fn main() {
                 let arm = parse_arm_str(&text, "op_growth").expect("invented arm parses");
                 let plan = Plan::new(&derive_emitted(&arm), true, Precision::F64).unwrap();
                 let fast = plan.terms.ops.total();
-                let worst = plan.terms.ops_dot.total();
+                let worst = plan.terms.ops_beyond.total();
                 let mn = (degree + 1) * order;
                 println!("  {segments}  {degree}  {order}  {mn:>6} {fast:>10} {worst:>10}");
                 if degree >= 1 {

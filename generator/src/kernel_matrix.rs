@@ -16,25 +16,34 @@
 //! F_{s−1,t} = (m_{s+t} + i a F_st) / s,      m_k = ∫_0^1 τ^k Ρ(τ) dτ  (rational).
 //! ```
 //!
-//! Run downward from the top row `F_{P−1,t}` (dot products over the moments, as
-//! before) this multiplies errors by `|a|/s` per step: it is stable while `|a|` is small
-//! against the powers, and every entry below the top row costs five operations instead
-//! of a dot product of 10–30 terms. Upward (`F_st = (s F_{s−1,t} − m_{s+t})/(ia)`) it
-//! is stable only for `|a|` beyond the powers, so large `|a|` keeps the dot products.
+//! Run downward from the top row `F_{P−1,t}` (dot products over the moments) this
+//! multiplies errors by `|a|/s` per step, and every entry below the top row costs five
+//! operations instead of a dot product of 10–30 terms. Run upward from the bottom row
+//! `F_{0,t}` (`F_st = (s F_{s−1,t} − m_{s+t})/(ia)`) it multiplies them by `s/|a|`. So
+//! each direction is stable on its own side of `s = |a|`, and [`recur_split`] takes the
+//! rows above `⌊|a|⌋` from the top and the others from the bottom.
 //!
-//! Measured against the dot products (relative error of the worst entry, f64;
-//! `tests::sweep` over uniform and tapered weights and 4 to 29 powers): at most 1.1e-15
-//! for `|a| ≤ 4`; with 15 powers 3.0e-15 at `|a| = 5`, 2.3e-14 at 6, 1.2e-13 at 7
-//! (`tests::beyond_the_switch_the_recurrence_degrades`). The emitted code therefore takes
-//! the recurrence for `|a| ≤` [`FAST_BENDING`] and the dot products beyond; the
-//! workspace of a soft arm (a segment bent by at most half a turn, `|a| ≤ π`) is all on
-//! the fast side.
+//! Measured against the dot products (relative error of the worst entry, f64, uniform
+//! and tapered weights, 4 to 29 powers):
+//! - down from the top row alone (`tests::sweep`): at most 1.1e-15 for `|a| ≤ 4`, but
+//!   with 15 powers 3.0e-15 at `|a| = 5`, 2.3e-14 at 6, 1.2e-13 at 7
+//!   (`tests::beyond_the_switch_the_recurrence_degrades`);
+//! - from both ends (`tests::split_sweep`): at most 1e-14 for `|a| ≤ 20`, 2.3e-14 to 40,
+//!   5.2e-14 to 100, and about `1.2e-16 |a|` beyond (1.2e-13 at 1000, 1.5e-11 at 1e5):
+//!   `D_st = F_st + conj(F_ts)` is a difference of half kernels that cancel more as
+//!   `|a|` grows (both are about `i m/a`).
+//!
+//! The emitted code runs down from the top row alone for `|a| ≤` [`FAST_BENDING`], where
+//! that row's bands can be cut to the precision ([`resolved_band`]), and from both ends
+//! beyond. The workspace of a soft arm (a segment bent by at most half a turn,
+//! `|a| ≤ π`) is all on the first side.
 
 use crate::exact::Q;
 use crate::segment_integrals::{Reducer, WeightId};
 
 /// Largest `|a_j| = |L_j q_{j,0}|` [rad] for which the emitted code takes a segment's
-/// double kernels from the recurrence.
+/// double kernels from the top row alone, cut to the precision; beyond, it runs the
+/// recurrence from both ends.
 pub const FAST_BENDING: f64 = 4.0;
 
 /// How many leading Legendre coefficients of a top-row entry `F = Σ_n c_n ν_n(a)` a
@@ -98,8 +107,10 @@ pub struct MatrixTable {
     pub tail: Vec<Q>,
     /// Kernel powers `s, t < size`.
     pub size: usize,
-    /// `seeds[t]`: Legendre coefficients of `F_{size−1, t}` (`Σ c_n ν_n`).
+    /// `seeds[t]`: Legendre coefficients of `F_{size−1, t}` (`Σ c_n ν_n`), the top row.
     pub seeds: Vec<Vec<Q>>,
+    /// `bottom[t]`: those of `F_{0, t}`, the bottom row.
+    pub bottom: Vec<Vec<Q>>,
     /// `m_k`, `k < 2 size − 1`.
     pub moments: Vec<Q>,
 }
@@ -112,6 +123,7 @@ impl MatrixTable {
         let w: WeightId = r.weight_of_tail(tail);
         let top = size as u32 - 1;
         let seeds = (0..size as u32).map(|t| r.half_kernel(w, top, t)).collect();
+        let bottom = (0..size as u32).map(|t| r.half_kernel(w, 0, t)).collect();
         let moments = (0..(2 * size - 1) as u32)
             .map(|k| r.tail_moment(w, k))
             .collect();
@@ -119,6 +131,7 @@ impl MatrixTable {
             tail: tail.to_vec(),
             size,
             seeds,
+            bottom,
             moments,
         }
     }
@@ -141,6 +154,42 @@ pub fn recur_down(size: usize, moments: &[f64], a: f64, top: &[(f64, f64)]) -> V
         for t in 0..size {
             let (re, im) = f[s * size + t];
             f[(s - 1) * size + t] = ((moments[s + t] - a * im) * inv, (a * re) * inv);
+        }
+    }
+    f
+}
+
+/// The half kernels from both ends: rows `s > split` downward from the top row as in
+/// [`recur_down`], rows `1 ≤ s ≤ split` upward from the bottom row `bottom`
+/// (`F_{0,t}`) by `F_st = (s F_{s−1,t} − m_{s+t}) / (ia)`. Each direction multiplies
+/// errors by less than one per step on its side of `s = |a|` (`|a|/s` downward,
+/// `s/|a|` upward), so `split = ⌊|a|⌋` (at most `size − 1`) is stable at every `a`.
+pub fn recur_split(
+    size: usize,
+    moments: &[f64],
+    a: f64,
+    top: &[(f64, f64)],
+    bottom: &[(f64, f64)],
+    split: usize,
+) -> Vec<(f64, f64)> {
+    let mut f = vec![(0.0, 0.0); size * size];
+    f[(size - 1) * size..].copy_from_slice(top);
+    for s in (split + 1..size).rev() {
+        let inv = 1.0 / s as f64;
+        for t in 0..size {
+            let (re, im) = f[s * size + t];
+            f[(s - 1) * size + t] = ((moments[s + t] - a * im) * inv, (a * re) * inv);
+        }
+    }
+    if split > 0 {
+        f[..size].copy_from_slice(bottom);
+        let inv = 1.0 / a;
+        for s in 1..=split {
+            let k = s as f64;
+            for t in 0..size {
+                let (re, im) = f[(s - 1) * size + t];
+                f[s * size + t] = (k * im * inv, (moments[s + t] - k * re) * inv);
+            }
         }
     }
     f
@@ -317,6 +366,87 @@ mod tests {
                             "{what} {size}: {kept} of {all}"
                         );
                     }
+                }
+            }
+        }
+    }
+
+    /// [`recur_split`] against the dot products, with both rows' bands whole.
+    fn worst_split(c: &Case, bottom: &[Vec<Q>], a: f64) -> f64 {
+        let (mut re, mut im) = (vec![0.0; c.count], vec![0.0; c.count]);
+        crate::moments::legendre_moments(a, &mut re, &mut im);
+        let row = |k: &Vec<Q>| (dot(k, &re), dot(k, &im));
+        let top: Vec<(f64, f64)> = c.table.seeds.iter().map(row).collect();
+        let low: Vec<(f64, f64)> = bottom.iter().map(row).collect();
+        let m: Vec<f64> = c
+            .table
+            .moments
+            .iter()
+            .map(|v| v.to_f64().unwrap())
+            .collect();
+        let split = if a.abs() < (c.size - 1) as f64 {
+            a.abs() as usize
+        } else {
+            c.size - 1
+        };
+        let f = recur_split(c.size, &m, a, &top, &low, split);
+        let mut err = 0.0f64;
+        for (s, t, sum, diff) in &c.rows {
+            let (dr, di) = (dot(sum, &re), dot(diff, &im));
+            let scale = dr.abs().max(di.abs()).max(1e-300);
+            err = err.max((double_part(&f, c.size, *s, *t, false) - dr).abs() / scale);
+            err = err.max((double_part(&f, c.size, *s, *t, true) - di).abs() / scale);
+        }
+        err
+    }
+
+    /// The sweep behind the recurrence from both ends: every bending from 0 to 60 (both
+    /// signs, steps of 1/4), and far beyond, against the dot products.
+    #[test]
+    fn split_sweep() {
+        let tails = [vec![int(1), int(-1)], vec![q(3, 4), int(-1), q(1, 4)]];
+        for tail in &tails {
+            for size in [4, 9, 15, 22, 29] {
+                let c = case(tail, size);
+                let mut r = Reducer::new();
+                let w = r.weight_of_tail(tail);
+                let bottom: Vec<Vec<Q>> =
+                    (0..size as u32).map(|t| r.half_kernel(w, 0, t)).collect();
+                let mut at = Vec::new();
+                for k in 0..=240 {
+                    let a = 0.25 * k as f64;
+                    at.push((a, worst_split(&c, &bottom, a)));
+                    at.push((-a, worst_split(&c, &bottom, -a)));
+                }
+                for a in [100.0, 1e3, 1e5] {
+                    at.push((a, worst_split(&c, &bottom, a)));
+                }
+                let by: Vec<String> = [4.0, 5.0, 8.0, 12.0, 20.0, 40.0, 60.0, 1e3]
+                    .iter()
+                    .map(|&b| {
+                        let e = at
+                            .iter()
+                            .filter(|x| x.0.abs() <= b)
+                            .map(|x| x.1)
+                            .fold(0.0, f64::max);
+                        format!("<={b}: {e:.1e}")
+                    })
+                    .collect();
+                let shown: Vec<String> = tail.iter().map(ToString::to_string).collect();
+                println!(
+                    "tail [{}], {size} powers: {}",
+                    shown.join(", "),
+                    by.join(", ")
+                );
+                for &(a, e) in &at {
+                    let bound = match a.abs() {
+                        b if b <= 20.0 => 1.5e-14,
+                        b => (3e-16 * b).max(8e-14),
+                    };
+                    assert!(
+                        e <= bound,
+                        "tail {tail:?} size {size} a {a}: {e:e} > {bound:e}"
+                    );
                 }
             }
         }

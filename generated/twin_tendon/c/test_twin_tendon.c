@@ -34,10 +34,10 @@
  * (near a singular configuration the least-norm inputs grow without bound). */
 #define WELL_POSED 0.0
 
-#define NCASES 7
+#define NCASES 8
 static const char *const case_label[NCASES] = {
     "straight", "tiny a = 1e-9", "small", "large", "mixed", "branch switch a = 2",
-    "beyond the kernel recurrence a = 5"
+    "beyond the cut top rows a = 5", "bent twice over a = 11"
 };
 static const double g_q[NCASES][2] = {
     {
@@ -60,6 +60,9 @@ static const double g_q[NCASES][2] = {
     },
     {
         3.33333333333333e1, -4.16666666666667e1
+    },
+    {
+        -7.33333333333333e1, 9.16666666666667e1
     },
 };
 static const double g_qd[NCASES][2] = {
@@ -84,6 +87,9 @@ static const double g_qd[NCASES][2] = {
     {
         1.75e-1, -7.0e-1
     },
+    {
+        -1.75e-1, 4.375e-1
+    },
 };
 static const double g_u[NCASES][4] = {
     {
@@ -106,6 +112,9 @@ static const double g_u[NCASES][4] = {
     },
     {
         1.875e-2, -4.375e-2, 1.5e-2, 4.375e-2
+    },
+    {
+        -6.25e-3, 3.75e-2, -2.5e-2, 1.875e-2
     },
 };
 static const double g_B[NCASES][4] = {
@@ -130,6 +139,9 @@ static const double g_B[NCASES][4] = {
     {
         5.14981128343245e-6, 2.91751393843711e-7, 2.91751393843711e-7, 3.61493011578628e-7
     },
+    {
+        1.01598289921537e-6, 8.90059091793108e-8, 8.90059091793108e-8, 6.5551268605499e-8
+    },
 };
 static const double g_C[NCASES][4] = {
     {
@@ -152,6 +164,9 @@ static const double g_C[NCASES][4] = {
     },
     {
         -1.16895195203245e-7, -3.5968296084471e-8, -2.13953991740542e-8, -7.90071209412653e-9
+    },
+    {
+        -1.01990677848642e-8, -2.64346333824284e-9, -3.42716853281164e-9, -2.98667413843005e-10
     },
 };
 static const double g_G[NCASES][2] = {
@@ -176,8 +191,14 @@ static const double g_G[NCASES][2] = {
     {
         -5.05067003142913e-3, -2.01669619727841e-4
     },
+    {
+        -2.05391090695017e-3, -1.83010161402049e-5
+    },
 };
 static const double g_K[NCASES][4] = {
+    {
+        2.25e-3, 0.0, 0.0, 1.08e-3
+    },
     {
         2.25e-3, 0.0, 0.0, 1.08e-3
     },
@@ -222,8 +243,14 @@ static const double g_D[NCASES][4] = {
     {
         4.5e-5, 0.0, 0.0, 2.4e-5
     },
+    {
+        4.5e-5, 0.0, 0.0, 2.4e-5
+    },
 };
 static const double g_A[NCASES][8] = {
+    {
+        1.8e-3, -1.8e-3, 1.8e-3, -1.8e-3, 1.44e-3, -1.44e-3, 0.0, 0.0
+    },
     {
         1.8e-3, -1.8e-3, 1.8e-3, -1.8e-3, 1.44e-3, -1.44e-3, 0.0, 0.0
     },
@@ -272,6 +299,10 @@ static const double g_J[NCASES][6] = {
         -4.39304450551045e-4, -3.43234038220597e-3, -8.41199065785452e-3, 4.12610581173183e-4,
         1.5e-1, 1.2e-1
     },
+    {
+        1.43412042891679e-3, 1.42809800805232e-3, -3.86690957697196e-3, 1.18481569826213e-4,
+        1.5e-1, 1.2e-1
+    },
 };
 static const double g_T[NCASES][1] = {
     {
@@ -294,6 +325,9 @@ static const double g_T[NCASES][1] = {
     },
     {
         1.31682727368469e-7
+    },
+    {
+        1.5016184475955e-8
     },
 };
 static const double g_V[NCASES][1] = {
@@ -318,6 +352,9 @@ static const double g_V[NCASES][1] = {
     {
         2.21646979475363
     },
+    {
+        1.05713546256294e1
+    },
 };
 static const double g_rhs[NCASES][2] = {
     {
@@ -340,6 +377,9 @@ static const double g_rhs[NCASES][2] = {
     },
     {
         -6.9896459689719e-2, 4.53084678334243e-2
+    },
+    {
+        1.66904285278629e-1, -9.90551994529473e-2
     },
 };
 static const double g_pose[NCASES][18] = {
@@ -379,6 +419,12 @@ static const double g_pose[NCASES][18] = {
         -5.15801368949979e-2, -9.31690981832643e-3, 3.15, -5.17819108318095e-2,
         3.86822419849858e-2, 0.0
     },
+    {
+        0.0, 0.0, 0.0, -1.09181833933066e-2, -2.18060444510139e-2, -4.07, -1.36362300893278e-2,
+        -1.35760132092538e-2, -1.1e1, -1.36362300893278e-2, -1.35760132092538e-2, -1.1e1,
+        -3.11195512708479e-2, -2.22332688089153e-2, -6.93, -2.454521416079e-2,
+        -2.44368237766569e-2, -1.77635683940025e-15
+    },
 };
 static const double g_Bnorm[NCASES][1] = {
     {
@@ -401,6 +447,9 @@ static const double g_Bnorm[NCASES][1] = {
     },
     {
         5.44156267727616e-6
+    },
+    {
+        1.10498880839468e-6
     },
 };
 static const double g_dG[NCASES][4] = {
@@ -425,6 +474,9 @@ static const double g_dG[NCASES][4] = {
     {
         2.32468562871127e-4, -1.3268272126316e-4, -1.3268272126316e-4, -8.71841843819753e-5
     },
+    {
+        2.1571406361092e-5, 4.82334689242633e-5, 4.82334689242633e-5, 3.20541628191313e-5
+    },
 };
 static const double g_R[NCASES][2] = {
     {
@@ -447,6 +499,9 @@ static const double g_R[NCASES][2] = {
     },
     {
         6.98885799685709e-2, -4.52916696197279e-2
+    },
+    {
+        -1.6689641090695e-1, 9.90446989838598e-2
     },
 };
 static const double g_Js[NCASES][4] = {
@@ -471,6 +526,9 @@ static const double g_Js[NCASES][4] = {
     {
         2.48246856287113e-3, -1.3268272126316e-4, -1.3268272126316e-4, 9.92815815618025e-4
     },
+    {
+        2.27157140636109e-3, 4.82334689242633e-5, 4.82334689242633e-5, 1.11205416281913e-3
+    },
 };
 static const double g_ueq[NCASES][4] = {
     {
@@ -493,6 +551,9 @@ static const double g_ueq[NCASES][4] = {
     },
     {
         4.5, -1.05e1, 3.6, 1.05e1
+    },
+    {
+        -1.66666666666667, 1.0e1, -6.66666666666667, 5.0
     },
 };
 static const double g_qeq[NCASES][2] = {
@@ -517,8 +578,14 @@ static const double g_qeq[NCASES][2] = {
     {
         3.27431923136396, 2.07085898851984e1
     },
+    {
+        -1.62960546486929e1, -1.38435687733817e1
+    },
 };
 static const double g_eqstable[NCASES][1] = {
+    {
+        1.0
+    },
     {
         1.0
     },
@@ -563,6 +630,9 @@ static const double g_ytarget[NCASES][2] = {
     {
         3.28958333333333e1, -4.15166666666667e1
     },
+    {
+        -7.29583333333333e1, 9.14166666666667e1
+    },
 };
 static const double g_kp[NCASES][2] = {
     {
@@ -576,6 +646,9 @@ static const double g_kp[NCASES][2] = {
     },
     {
         5.0e1, 6.25e1
+    },
+    {
+        5.0e-2, 6.25e-2
     },
     {
         5.0e-2, 6.25e-2
@@ -609,6 +682,9 @@ static const double g_kd[NCASES][2] = {
     {
         4.0e-3, 6.0e-3
     },
+    {
+        4.0e-3, 6.0e-3
+    },
 };
 static const double g_ubase[NCASES][4] = {
     {
@@ -631,6 +707,9 @@ static const double g_ubase[NCASES][4] = {
     },
     {
         9.62708333333327, 2.0e-1, 2.0e-1, 2.21687499999999e1
+    },
+    {
+        2.0e-1, 1.28736111111111e1, 2.36791666666667e1, 2.0e-1
     },
 };
 static const double g_ucomp[NCASES][4] = {
@@ -655,6 +734,9 @@ static const double g_ucomp[NCASES][4] = {
     {
         2.0e-1, 7.84464963658294, 2.5e1, 2.0e-1
     },
+    {
+        2.0e-1, 1.32008644037368e1, 2.0e-1, 2.5e1
+    },
 };
 static const double g_regsat[NCASES][2] = {
     {
@@ -678,8 +760,14 @@ static const double g_regsat[NCASES][2] = {
     {
         0.0, 1.0
     },
+    {
+        0.0, 1.0
+    },
 };
 static const double g_regcond[NCASES][1] = {
+    {
+        1.13946433025793e-1
+    },
     {
         1.13946433025793e-1
     },
@@ -724,6 +812,9 @@ static const double g_theta[NCASES][12] = {
     {
         1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
     },
+    {
+        1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
+    },
 };
 static const double g_pB[NCASES][4] = {
     {
@@ -746,6 +837,9 @@ static const double g_pB[NCASES][4] = {
     },
     {
         8.33970884609882e-6, 5.77570616053567e-7, 5.77570616053567e-7, 9.06633478868083e-7
+    },
+    {
+        1.94359147669217e-6, 3.86836775654249e-7, 3.86836775654249e-7, 3.19006236148474e-7
     },
 };
 static const double g_pC[NCASES][4] = {
@@ -770,6 +864,9 @@ static const double g_pC[NCASES][4] = {
     {
         -2.18723732218394e-7, -7.14900119862857e-8, -4.04283789904092e-8, -1.64566333747306e-8
     },
+    {
+        -2.1173689610333e-8, -6.13260418599351e-9, -7.33493906832021e-9, -6.23170843611585e-10
+    },
 };
 static const double g_pG[NCASES][2] = {
     {
@@ -793,8 +890,14 @@ static const double g_pG[NCASES][2] = {
     {
         -7.33619030613102e-3, 7.64908199301827e-4
     },
+    {
+        -3.28822540436941e-3, -3.52579421134617e-4
+    },
 };
 static const double g_pK[NCASES][4] = {
+    {
+        2.925e-3, 0.0, 0.0, 1.512e-3
+    },
     {
         2.925e-3, 0.0, 0.0, 1.512e-3
     },
@@ -839,6 +942,9 @@ static const double g_pD[NCASES][4] = {
     {
         3.15e-5, 0.0, 0.0, 1.92e-5
     },
+    {
+        3.15e-5, 0.0, 0.0, 1.92e-5
+    },
 };
 static const double g_pT[NCASES][1] = {
     {
@@ -861,6 +967,9 @@ static const double g_pT[NCASES][1] = {
     },
     {
         2.79074593562007e-7
+    },
+    {
+        3.06739475447174e-8
     },
 };
 static const double g_pV[NCASES][1] = {
@@ -885,6 +994,9 @@ static const double g_pV[NCASES][1] = {
     {
         2.9948181218046
     },
+    {
+        1.42065276567267e1
+    },
 };
 static const double g_prhs[NCASES][2] = {
     {
@@ -907,6 +1019,9 @@ static const double g_prhs[NCASES][2] = {
     },
     {
         -9.01085839602243e-2, 6.23385273560212e-2
+    },
+    {
+        2.17636236881988e-1, -1.38318821589843e-1
     },
 };
 static const double g_pBnorm[NCASES][1] = {
@@ -931,6 +1046,9 @@ static const double g_pBnorm[NCASES][1] = {
     {
         8.91727946215239e-6
     },
+    {
+        2.33042825234642e-6
+    },
 };
 static const double g_pdG[NCASES][4] = {
     {
@@ -953,6 +1071,9 @@ static const double g_pdG[NCASES][4] = {
     },
     {
         -2.15589408669289e-4, -2.5247852125402e-4, -2.5247852125402e-4, -1.23191671765234e-4
+    },
+    {
+        -1.8282173483528e-4, 9.16109076719842e-5, 9.16109076719842e-5, 6.80012356026778e-5
     },
 };
 static const double g_pR[NCASES][2] = {
@@ -977,8 +1098,14 @@ static const double g_pR[NCASES][2] = {
     {
         9.0103059693869e-2, -6.23250918006982e-2
     },
+    {
+        -2.1763072540437e-1, 1.38310420578865e-1
+    },
 };
 static const double g_peqok[NCASES][1] = {
+    {
+        1.0
+    },
     {
         1.0
     },
@@ -1023,6 +1150,9 @@ static const double g_pqeq[NCASES][2] = {
     {
         -1.7021268673118, 1.16791941143616e1
     },
+    {
+        -1.09971284222077e1, -8.55430717883646
+    },
 };
 static const double g_pucomp[NCASES][4] = {
     {
@@ -1046,6 +1176,9 @@ static const double g_pucomp[NCASES][4] = {
     {
         2.0e-1, 5.61302972448383, 2.5e1, 2.0e-1
     },
+    {
+        2.0e-1, 1.97461683405252e1, 2.0e-1, 2.5e1
+    },
 };
 static const double g_pregsat[NCASES][1] = {
     {
@@ -1062,6 +1195,9 @@ static const double g_pregsat[NCASES][1] = {
     },
     {
         0.0
+    },
+    {
+        1.0
     },
     {
         1.0
@@ -1091,6 +1227,9 @@ static const double g_qddY[NCASES][2] = {
     },
     {
         1.875, -1.875
+    },
+    {
+        3.75e-1, 3.0
     },
 };
 static const double g_Y[NCASES][20] = {
@@ -1129,6 +1268,11 @@ static const double g_Y[NCASES][20] = {
         7.875e-6, 0.0, -8.23846375109668e-2, 8.4375e-3, 0.0, -2.82240101625415e-4, 0.0, 5.67e-9,
         0.0, -4.5e-2, 0.0, -1.68e-5, 4.02172413339659e-3, 6.75e-3
     },
+    {
+        -1.13576254167144e-4, -1.18126374811713e-3, 4.21875e-9, 2.5515e-8, -1.65e-1, 0.0,
+        -7.875e-6, 0.0, -3.79232243139754e-2, 6.24375e-2, 0.0, -4.14749138204813e-5, 0.0,
+        1.2798e-8, 0.0, 9.9e-2, 0.0, 1.05e-5, 1.16908048947674e-3, 4.995e-2
+    },
 };
 static const double scale_B = 3.158398125e-5;
 static const double scale_C = 1.72177574906104e-7;
@@ -1138,10 +1282,10 @@ static const double scale_D = 4.5e-5;
 static const double scale_A = 1.8e-3;
 static const double scale_J = 1.5e-1;
 static const double scale_T = 8.11100926125001e-6;
-static const double scale_V = 2.21646979475363;
-static const double scale_pose = 5.0;
+static const double scale_V = 1.05713546256294e1;
+static const double scale_pose = 1.1e1;
 static const double scale_dG = 8.64244379919075e-4;
-static const double scale_R = 6.98885799685709e-2;
+static const double scale_R = 1.6689641090695e-1;
 static const double scale_Js = 2.48246856287113e-3;
 static const double scale_qeq = 2.07085898851984e1;
 static const double scale_ubase = 2.5e1;
@@ -1152,9 +1296,9 @@ static const double scale_pG = 2.13046701787662e-2;
 static const double scale_pK = 2.925e-3;
 static const double scale_pD = 3.15e-5;
 static const double scale_pT = 1.5131062193625e-5;
-static const double scale_pV = 2.9948181218046;
+static const double scale_pV = 1.42065276567267e1;
 static const double scale_pdG = 2.02165005846465e-3;
-static const double scale_pR = 9.0103059693869e-2;
+static const double scale_pR = 2.1763072540437e-1;
 static const double scale_pqeq = 1.16791941143616e1;
 static const double scale_pucomp = 2.5e1;
 static const double scale_Y = 2.89351237500002e-1;

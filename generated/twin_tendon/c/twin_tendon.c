@@ -344,7 +344,7 @@ void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
     twin_tendon_damping_with(&TWIN_TENDON_PARAMS_DEFAULT, D);
 }
 
-/* Kernels of twin_tendon_inertia: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_inertia: pairs (row, moment base). */
 static const unsigned char twin_tendon_inertia_rows[28] = {
     0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16
 };
@@ -417,7 +417,7 @@ void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ
 }
 #endif
 
-/* Kernels of twin_tendon_gravity: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_gravity: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_rows[24] = {
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24
 };
@@ -508,7 +508,7 @@ void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_
 }
 #endif
 
-/* Kernels of twin_tendon_tip_jacobian: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_tip_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_tip_jacobian_rows[8] = {
     3, 8, 4, 0, 2, 16, 2, 24
 };
@@ -547,7 +547,7 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 }
 #endif
 
-/* Kernels of twin_tendon_regressor: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_regressor: pairs (row, moment base). */
 static const unsigned char twin_tendon_regressor_rows[56] = {
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
     10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
@@ -679,7 +679,7 @@ void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_
 }
 #endif
 
-/* Kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
     8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2, 16, 2,
     24, 9, 16, 9, 24
@@ -751,7 +751,7 @@ void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN
 }
 #endif
 
-/* Kernels of twin_tendon_potential_energy: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_potential_energy: pairs (row, moment base). */
 static const unsigned char twin_tendon_potential_energy_rows[8] = {
     0, 0, 0, 8, 0, 16, 0, 24
 };
@@ -811,7 +811,7 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 }
 #endif
 
-/* Kernels of twin_tendon_terms: pairs (row, moment base). */
+/* Dot-product kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
     10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,

@@ -12,7 +12,7 @@ use super::control_code::{StaticsCallees, StaticsLayout};
 use super::golden::Golden;
 use super::number::Precision;
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
-use super::schedule::{Block, Leaf, Stmt};
+use super::schedule::{Block, KernelUse, Leaf, Stmt};
 use super::templates::render;
 use super::{CStandard, Meta};
 use crate::ir::Var;
@@ -153,15 +153,17 @@ impl Printer<'_> {
         if pose_count > 0 {
             carve(&mut decls, "pnu", 2 * pose_count);
         }
-        if !b.kernels.is_empty() {
-            carve(&mut decls, "kern", b.kernels.len());
-            let items = use_pairs(&b.kernels);
+        if func.kern_len > 0 {
+            carve(&mut decls, "kern", func.kern_len);
+        }
+        if !func.dots.is_empty() {
+            let items = use_pairs(func.dot_uses());
             let max = use_max(plan);
             rows = format!(
-                "/* Kernels of {n}_{fname}: pairs (row, moment base). */\n\
+                "/* Dot-product kernels of {n}_{fname}: pairs (row, moment base). */\n\
                  static const {} {n}_{fname}_rows[{}] = {{\n{}\n}};\n",
                 uint_type(max),
-                2 * b.kernels.len(),
+                items.len(),
                 wrap_list(&items, 4),
                 n = self.name,
             );
@@ -213,20 +215,25 @@ impl Printer<'_> {
                 self.fs()
             ));
         }
-        if !b.kernels.is_empty() {
+        if func.kern_len > 0 {
             let n = self.name;
-            for (start, count) in func.dot_ranges() {
-                // A range after a family (a later segment whose kernels stay dot
-                // products) starts past 0 in both arrays.
-                let (rows, kern) = if start == 0 {
-                    (format!("{n}_{fname}_rows"), "kern".to_string())
+            let mut at = 0;
+            for d in &func.dots {
+                let rows = if at == 0 {
+                    format!("{n}_{fname}_rows")
                 } else {
-                    (
-                        format!("&{n}_{fname}_rows[{}]", 2 * start),
-                        format!("&kern[{start}]"),
-                    )
+                    format!("&{n}_{fname}_rows[{}]", 2 * at)
                 };
-                out.push_str(&format!("    {n}_kernels({rows}, {count}, nu, {kern});\n"));
+                let kern = if d.start == 0 {
+                    "kern".to_string()
+                } else {
+                    format!("&kern[{}]", d.start)
+                };
+                out.push_str(&format!(
+                    "    {n}_kernels({rows}, {}, nu, {kern});\n",
+                    d.uses.len()
+                ));
+                at += d.uses.len();
             }
             if !func.families.is_empty() {
                 carve(&mut decls, "F", func.matrix_scratch(&plan.matrix_tables));
@@ -234,45 +241,57 @@ impl Printer<'_> {
             for (k, f) in func.families.iter().enumerate() {
                 let size = plan.matrix_tables[f.table].size;
                 let arg = inline(&moment_argument(plan, f.seg, false), &syn);
-                let seeds = use_pairs(&f.seeds);
+                let rt = uint_type(use_max(plan));
                 let idx = family_pairs(f);
+                let list = |uses: &[KernelUse]| {
+                    let items = use_pairs(uses);
+                    (items.len(), wrap_list(&items, 4))
+                };
+                let (ns, seeds) = list(&f.seeds);
+                let (ne, ends) = list(&f.ends);
                 rows.push_str(&format!(
                     "/* Kernels {start} .. {end} of {n}_{fname}: segment {seg}'s double kernels, \
-                     taken from its half kernels F (see {n}_kernel_recurrence) when \
-                     |a| <= {upper}_FAST_BENDING; the top row's uses (row, moment base), \
-                     then per kernel the two entries of F. */\n\
-                     static const {rt} {n}_{fname}_seeds{k}[{ns}] = {{\n{}\n}};\n\
+                     read off its half kernels F (see {n}_kernel_recurrence). Its rows' uses \
+                     (row, moment base): the top row's cut to the precision, for \
+                     |a| <= {upper}_FAST_BENDING; the top and bottom rows' whole, beyond. Then \
+                     per kernel the two entries of F. */\n\
+                     static const {rt} {n}_{fname}_seeds{k}[{ns}] = {{\n{seeds}\n}};\n\
+                     static const {rt} {n}_{fname}_ends{k}[{ne}] = {{\n{ends}\n}};\n\
                      static const {it} {n}_{fname}_pairs{k}[{ni}] = {{\n{}\n}};\n",
-                    wrap_list(&seeds, 4),
                     wrap_list(&idx, 4),
                     start = f.start,
                     end = f.start + f.count,
                     seg = f.seg + 1,
                     upper = self.upper(),
-                    rt = uint_type(use_max(plan)),
-                    ns = seeds.len(),
                     it = uint_type(pair_max(plan)),
                     ni = idx.len(),
                 ));
                 out.push_str(&format!(
-                    "    {{\n        const {r} a = {arg};\n        \
+                    "    {{\n        const {r} a = {arg};\n        int split = 0;\n        \
                      if ({abs}(a) <= {upper}_FAST_BENDING) {{\n            \
                      {n}_kernels({n}_{fname}_seeds{k}, {size}, nu, &F[{top_re}]);\n            \
-                     {n}_kernels(&{n}_{fname}_seeds{k}[{size2}], {size}, nu, &F[{top_im}]);\n            \
-                     {n}_kernel_recurrence({size}, a, {n}_tail_moments{t}, F);\n            \
-                     {n}_kernel_entries({n}_{fname}_pairs{k}, {count}, {size}, F, &kern[{start}]);\n        \
+                     {n}_kernels(&{n}_{fname}_seeds{k}[{size2}], {size}, nu, &F[{top_im}]);\n        \
                      }} else {{\n            \
-                     {n}_kernels(&{n}_{fname}_rows[{rs}], {count}, nu, &kern[{start}]);\n        \
-                     }}\n    }}\n",
+                     {n}_kernels({n}_{fname}_ends{k}, {size}, nu, &F[{top_re}]);\n            \
+                     {n}_kernels(&{n}_{fname}_ends{k}[{size2}], {size}, nu, &F[{top_im}]);\n            \
+                     {n}_kernels(&{n}_{fname}_ends{k}[{size4}], {size}, nu, F);\n            \
+                     {n}_kernels(&{n}_{fname}_ends{k}[{size6}], {size}, nu, &F[{bottom_im}]);\n            \
+                     split = {n}_recurrence_split(a, {size});\n        \
+                     }}\n        \
+                     {n}_kernel_recurrence({size}, a, split, {n}_tail_moments{t}, F);\n        \
+                     {n}_kernel_entries({n}_{fname}_pairs{k}, {count}, {size}, F, &kern[{start}]);\n    \
+                     }}\n",
                     abs = self.fabs(),
                     upper = self.upper(),
                     top_re = (size - 1) * size,
                     top_im = size * size + (size - 1) * size,
+                    bottom_im = size * size,
                     size2 = 2 * size,
+                    size4 = 4 * size,
+                    size6 = 6 * size,
                     t = f.table,
                     count = f.count,
                     start = f.start,
-                    rs = 2 * f.start,
                 ));
             }
         }
@@ -489,7 +508,7 @@ pub fn emit(
     };
     let n = plan.n;
     let k = plan.k;
-    let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_dot);
+    let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_beyond);
 
     let mut funcs: Vec<CFunc> = Vec::new();
     let mut constant_funcs: Vec<CFunc> = Vec::new();
@@ -756,7 +775,7 @@ pub fn emit(
     public(
         "kinetic_energy",
         "T = 1/2 q'^T B q', with B from the inertia function.",
-        super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
+        super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_beyond),
         r,
         &[q.clone(), qd.clone()],
         String::new(),
@@ -1008,11 +1027,11 @@ pub fn emit(
     ctx.insert("ntheta", &plan.params.linear_len());
     ctx.insert(
         "kinetic_energy_ops",
-        &super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
+        &super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_beyond),
     );
     ctx.insert(
         "dynamics_ops",
-        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
+        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_beyond),
     );
     ctx.insert(
         "pose_ops",

@@ -121,8 +121,8 @@ pub fn base_context(name: &str, meta: &Meta, plan: &Plan, n: usize, k: usize) ->
 }
 
 /// `row, base` of every kernel use, flat.
-pub fn use_pairs(uses: &[KernelUse]) -> Vec<String> {
-    uses.iter()
+pub fn use_pairs<'a>(uses: impl IntoIterator<Item = &'a KernelUse>) -> Vec<String> {
+    uses.into_iter()
         .flat_map(|u| [u.row.to_string(), u.base.to_string()])
         .collect()
 }

@@ -449,14 +449,14 @@ impl StaticsOps {
         let da = plan
             .actuation_jacobian
             .as_ref()
-            .map_or(Ops::default(), |f| f.ops_dot);
+            .map_or(Ops::default(), |f| f.ops_beyond);
         let da_u = if plan.actuation_jacobian.is_some() {
             mul_add(n * n * k)
         } else {
             Ops::default()
         };
-        let residual = plan.gravity.ops_dot + plan.actuation.ops_dot + mul_add(n * n + n * k);
-        let jacobian = plan.gravity_jacobian.ops_dot
+        let residual = plan.gravity.ops_beyond + plan.actuation.ops_beyond + mul_add(n * n + n * k);
+        let jacobian = plan.gravity_jacobian.ops_beyond
             + da
             + da_u
             + Ops {
@@ -501,8 +501,8 @@ impl StaticsOps {
             mul: s_terms,
             ..Ops::default()
         };
-        let regulate = plan.actuation.ops_dot
-            + plan.gravity.ops_dot
+        let regulate = plan.actuation.ops_beyond
+            + plan.gravity.ops_beyond
             + mul_add(n * n)
             + select * (3 + k)
             + mul_add(h * 2)

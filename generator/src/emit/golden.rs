@@ -67,7 +67,8 @@ fn pattern(i: usize, salt: usize) -> f64 {
 
 /// The configurations: straight, tiny (`a_j = 1e-9`), small, large and mixed curvature
 /// (`a_j = 0` exactly with bent higher terms, `a_j = 1e-9`, large), `a_j = 2` (the
-/// moment routine's branch switch) and `|a_j| = 5` (beyond the kernel recurrence's).
+/// moment routine's branch switch), and `|a_j| = 5` and 11 (beyond the cut top rows:
+/// the kernel recurrence from both ends).
 fn configurations(arm: &Arm) -> Vec<(String, Vec<f64>)> {
     vec![
         ("straight".into(), coords(arm, |_, _| 0.0)),
@@ -112,12 +113,22 @@ fn configurations(arm: &Arm) -> Vec<(String, Vec<f64>)> {
             coords(arm, |_, i| if i == 0 { 2.0 } else { 0.2 }),
         ),
         (
-            // Beyond kernel_matrix::FAST_BENDING: the double kernels are dot products.
-            "beyond the kernel recurrence a = 5".into(),
+            // Beyond kernel_matrix::FAST_BENDING: the recurrence runs from both ends,
+            // turning at row 5 ...
+            "beyond the cut top rows a = 5".into(),
             coords(arm, |j, i| match (j % 2, i) {
                 (0, 0) => 5.0,
                 (_, 0) => -5.0,
                 _ => 0.15 * pattern(j * 5 + i, 3),
+            }),
+        ),
+        (
+            // ... and at row 11, or (up to 12 powers) from the bottom row alone.
+            "bent twice over a = 11".into(),
+            coords(arm, |j, i| match (j % 2, i) {
+                (0, 0) => -11.0,
+                (_, 0) => 11.0,
+                _ => 0.1 * pattern(j * 5 + i, 4),
             }),
         ),
     ]

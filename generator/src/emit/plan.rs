@@ -31,26 +31,43 @@ pub const PARAMETRIC_FUNCTIONS: [&str; 10] = [
 /// One emitted function's schedule and its cost.
 #[derive(Clone, Debug)]
 pub struct Func {
+    /// The schedule; its `kernels` are moved out into [`Func::dots`] and the families,
+    /// and its `nu_count` is what the function reads beyond `FAST_BENDING`.
     pub block: Block,
-    /// The double-kernel groups of `block.kernels` (one per segment and weight), which
-    /// the fast path takes from the kernel recurrence ([`crate::kernel_matrix`]).
+    /// Length of the function's `kern[]`: the dot products and the families' kernels.
+    pub kern_len: usize,
+    /// The kernels that are dot products over the moments at every bending, by range
+    /// of `kern[]`.
+    pub dots: Vec<DotRange>,
+    /// The double-kernel groups (one per segment and weight) that come from the
+    /// kernel recurrence ([`crate::kernel_matrix`]) at every bending.
     pub families: Vec<Family>,
     /// Everything the function executes: straight-line code, kernel rows, moment
     /// routines, angles, and the function's own loops (Cholesky); the kernels of every
-    /// family by the recurrence (every segment with `|a_j| ≤ FAST_BENDING`).
+    /// family by the recurrence from the cut top row (every segment with `|a_j| ≤
+    /// FAST_BENDING`).
     pub ops: Ops,
-    /// The same with every kernel a dot product (the worst case, every segment beyond).
-    pub ops_dot: Ops,
+    /// The same with every family's recurrence from both ends' whole rows (the worst
+    /// case, every segment beyond).
+    pub ops_beyond: Ops,
     /// Moments per segment on the fast path, `|a_j| ≤ FAST_BENDING`: what the code
     /// besides the family rows reads, and the top rows' bands as the precision resolves
     /// them ([`crate::kernel_matrix::resolved_band`]). `block.nu_count` beyond.
     pub nu_fast: Vec<usize>,
 }
 
+/// Kernels `start .. start + uses.len()` of a function's `kern[]`, each the dot
+/// product of a table row with the moments.
+#[derive(Clone, Debug)]
+pub struct DotRange {
+    pub start: usize,
+    pub uses: Vec<KernelUse>,
+}
+
 impl Func {
-    /// The kernel uses `(start, count)` not in a family: always dot products.
-    pub fn dot_ranges(&self) -> Vec<(usize, usize)> {
-        dot_ranges(&self.block, &self.families)
+    /// Every dot-product use in `kern[]` order: what the function's rows array lists.
+    pub fn dot_uses(&self) -> impl Iterator<Item = &KernelUse> {
+        self.dots.iter().flat_map(|d| &d.uses)
     }
 
     /// Segment `seg`'s moment count on the fast path and beyond, when they differ.
@@ -59,27 +76,28 @@ impl Func {
         (fast != full).then_some((fast, full))
     }
 
-    /// [`Self::nu_fast`] of a block and its families: a segment without a family has
-    /// no fast path and keeps its count.
-    fn fast_moments(
+    /// Moments per segment that the code besides the families reads, and the families'
+    /// rows `rows` (their cut seeds, or both ends' whole rows), where a segment has a
+    /// family; `block.nu_count` elsewhere.
+    fn moments_with<'f>(
         block: &Block,
-        families: &[Family],
+        dots: &'f [DotRange],
+        families: &'f [Family],
+        rows: impl Fn(&'f Family) -> &'f [KernelUse],
         layout: &NuLayout,
         table: &KernelTable,
     ) -> Vec<usize> {
-        let mut fast = block.nu_read.clone();
-        let dot_uses = dot_ranges(block, families)
-            .into_iter()
-            .flat_map(|(start, count)| &block.kernels[start..start + count]);
-        for u in dot_uses.chain(families.iter().flat_map(|f| &f.seeds)) {
-            table.note_reach(u, layout, &mut fast);
+        let mut count = block.nu_read.clone();
+        let dot_uses = dots.iter().flat_map(|d| &d.uses);
+        for u in dot_uses.chain(families.iter().flat_map(rows)) {
+            table.note_reach(u, layout, &mut count);
         }
-        for (seg, c) in fast.iter_mut().enumerate() {
+        for (seg, c) in count.iter_mut().enumerate() {
             if !families.iter().any(|f| f.seg == seg) {
                 *c = block.nu_count[seg];
             }
         }
-        fast
+        count
     }
 
     /// Reals of scratch the families' half-kernel matrices need (one at a time).
@@ -92,25 +110,31 @@ impl Func {
     }
 }
 
-fn dot_ranges(block: &Block, families: &[Family]) -> Vec<(usize, usize)> {
+/// The uses of `kernels` outside the families, by range.
+fn dot_ranges(kernels: &[KernelUse], families: &[Family]) -> Vec<DotRange> {
     let mut out = Vec::new();
     let mut at = 0;
-    for f in families {
-        if f.start > at {
-            out.push((at, f.start - at));
+    let mut range = |from: usize, to: usize| {
+        if to > from {
+            out.push(DotRange {
+                start: from,
+                uses: kernels[from..to].to_vec(),
+            });
         }
+    };
+    for f in families {
+        range(at, f.start);
         at = f.start + f.count;
     }
-    if block.kernels.len() > at {
-        out.push((at, block.kernels.len() - at));
-    }
+    range(at, kernels.len());
     out
 }
 
 /// Kernel uses `start .. start + count` of a function: parts of segment `seg`'s double
-/// kernels of one weight. With `|a_seg| ≤ FAST_BENDING` they are read off the half
-/// kernels `F` (`F[s·size + t]`, real parts then imaginary parts), which the recurrence
-/// fills from the top row `seeds`; beyond, they are the dot products of their rows.
+/// kernels of one weight, read off the half kernels `F` (`F[s·size + t]`, real parts
+/// then imaginary parts) that the recurrence fills. With `|a_seg| ≤ FAST_BENDING` it
+/// runs down from the top row `seeds`, cut to the precision; beyond, from both ends'
+/// whole rows `ends`, split at `s = ⌊|a|⌋` ([`crate::kernel_matrix::recur_split`]).
 #[derive(Clone, Debug)]
 pub struct Family {
     pub seg: usize,
@@ -119,15 +143,17 @@ pub struct Family {
     pub start: usize,
     pub count: usize,
     /// The top row's real parts (`size` uses, at the segment's real moment base), then
-    /// its imaginary parts.
+    /// its imaginary parts, bands cut to the precision.
     pub seeds: Vec<KernelUse>,
+    /// The top row's whole uses (real parts, imaginary parts), then the bottom row's.
+    pub ends: Vec<KernelUse>,
     /// Per use: `kern = F[first] + F[second]` (a real part), or `F[first] − F[second]`
     /// with both indices into the imaginary half.
     pub entries: Vec<FamilyEntry>,
-    /// Operations of the family's kernels by the recurrence (top row, recurrence,
-    /// entries) and by their own rows.
+    /// Operations of the family's kernels by the recurrence (rows, recurrence, entries)
+    /// from the cut top row and from both ends.
     pub fast: Ops,
-    pub dot: Ops,
+    pub beyond: Ops,
 }
 
 #[derive(Clone, Debug)]
@@ -192,16 +218,16 @@ pub struct Plan {
     /// The kinetic energy is `½ q̇ᵀ B q̇` over the emitted inertia function, not code of
     /// its own (it would repeat all of `B`): its cost is `B`'s plus the quadratic form.
     pub kinetic_energy: Ops,
-    /// The same with every kernel a dot product ([`Func::ops_dot`]).
-    pub kinetic_energy_dot: Ops,
+    /// The same with every segment beyond `FAST_BENDING` ([`Func::ops_beyond`]).
+    pub kinetic_energy_beyond: Ops,
     pub potential_energy: Func,
     /// `B`, `C` (both n×n row-major) and `G` together: what a model-based controller
     /// asks for at every step, with the moments and kernels they share computed once.
     pub terms: Func,
     /// Forward dynamics over `terms`, `A`, `K`, `D` and a Cholesky solve.
     pub dynamics: Ops,
-    /// The same with every kernel a dot product ([`Func::ops_dot`]).
-    pub dynamics_dot: Ops,
+    /// The same with every segment beyond `FAST_BENDING` ([`Func::ops_beyond`]).
+    pub dynamics_beyond: Ops,
     /// The regressor `Y(q, q̇, q̈)`, n × `params.linear_len()` row-major (a parametric
     /// model's; `None` only in a [`Plan::build`] of a folded one).
     pub regressor: Option<Func>,
@@ -367,39 +393,61 @@ impl Plan {
             // object 840 KB against 350 KB; gcc -O2 31 s against 10 s.
             let mut block = sched.block(roots, use_kernels && !pose);
             let families = families(
-                &mut block,
+                &block,
                 &model.kernel_weights,
                 sched,
                 &layout,
                 &mut matrix_tables,
                 precision.unit_roundoff(),
             );
-            let nu_fast = Func::fast_moments(&block, &families, &layout, &sched.table);
-            let mut ops = block.ops + angle_ops(block.angles);
+            let kernels = std::mem::take(&mut block.kernels);
+            let dots = dot_ranges(&kernels, &families);
+            let table = &sched.table;
+            let nu_fast =
+                Func::moments_with(&block, &dots, &families, |f| &f.seeds, &layout, table);
+            let nu_beyond =
+                Func::moments_with(&block, &dots, &families, |f| &f.ends, &layout, table);
+            // What the families' own rows cost in the block's count goes; their
+            // recurrence comes instead.
+            let own_rows: usize = families
+                .iter()
+                .flat_map(|f| &kernels[f.start..f.start + f.count])
+                .map(|u| table.rows[u.row].len())
+                .sum();
+            let mut ops = block.ops + angle_ops(block.angles)
+                - Ops {
+                    add: own_rows,
+                    mul: own_rows,
+                    ..Ops::default()
+                };
             for &pc in &block.pose_nu_count {
                 ops += moment_ops(pc, true);
             }
-            let (mut ops_dot, mut ops_fast) = (ops, ops);
-            for (&c, &fc) in block.nu_count.iter().zip(&nu_fast) {
-                ops_dot += moment_ops(c, false);
+            let (mut ops_beyond, mut ops_fast) = (ops, ops);
+            for (&c, &fc) in nu_beyond.iter().zip(&nu_fast) {
+                ops_beyond += moment_ops(c, false);
                 ops_fast += moment_ops(fc, false);
             }
-            let ops = families.iter().fold(ops_fast, |o, f| o - f.dot + f.fast);
+            let ops = families.iter().fold(ops_fast, |o, f| o + f.fast);
+            let ops_beyond = families.iter().fold(ops_beyond, |o, f| o + f.beyond);
+            block.nu_count = nu_beyond;
             Func {
                 block,
+                kern_len: kernels.len(),
+                dots,
                 families,
                 ops,
-                ops_dot,
+                ops_beyond,
                 nu_fast,
             }
         };
-        let inertia = func(&mut sched, &flat(&model.inertia), false);
-        let gravity = func(&mut sched, &model.gravity, false);
-        let stiffness = func(&mut sched, &flat(&model.stiffness), false);
-        let damping = func(&mut sched, &flat(&model.damping), false);
-        let actuation = func(&mut sched, &flat(&model.actuation), false);
-        let tip_jacobian = func(&mut sched, &flat(&model.tip_jacobian), false);
-        let gravity_jacobian = func(&mut sched, &flat(&statics.gravity_jacobian), false);
+        let mut inertia = func(&mut sched, &flat(&model.inertia), false);
+        let mut gravity = func(&mut sched, &model.gravity, false);
+        let mut stiffness = func(&mut sched, &flat(&model.stiffness), false);
+        let mut damping = func(&mut sched, &flat(&model.damping), false);
+        let mut actuation = func(&mut sched, &flat(&model.actuation), false);
+        let mut tip_jacobian = func(&mut sched, &flat(&model.tip_jacobian), false);
+        let mut gravity_jacobian = func(&mut sched, &flat(&statics.gravity_jacobian), false);
         let da: Vec<Id> = statics
             .actuation_jacobian
             .iter()
@@ -407,7 +455,7 @@ impl Plan {
             .flatten()
             .copied()
             .collect();
-        let actuation_jacobian = da
+        let mut actuation_jacobian = da
             .iter()
             .any(|&id| !prog.is_zero(id))
             .then(|| func(&mut sched, &da, false));
@@ -417,29 +465,43 @@ impl Plan {
             ..Ops::default()
         };
         let kinetic_energy = inertia.ops + quadratic_form;
-        let kinetic_energy_dot = inertia.ops_dot + quadratic_form;
-        let potential_energy = func(&mut sched, &[model.potential_energy], false);
-        let terms = func(&mut sched, &terms_roots, false);
+        let kinetic_energy_beyond = inertia.ops_beyond + quadratic_form;
+        let mut potential_energy = func(&mut sched, &[model.potential_energy], false);
+        let mut terms = func(&mut sched, &terms_roots, false);
         let dynamics = terms.ops
             + actuation.ops
             + stiffness.ops
             + damping.ops
             + dynamics_loop_ops(n, model.n_inputs);
-        let dynamics_dot = terms.ops_dot
-            + actuation.ops_dot
-            + stiffness.ops_dot
-            + damping.ops_dot
+        let dynamics_beyond = terms.ops_beyond
+            + actuation.ops_beyond
+            + stiffness.ops_beyond
+            + damping.ops_beyond
             + dynamics_loop_ops(n, model.n_inputs);
-        let regressor = model
+        let mut regressor = model
             .regressor
             .as_ref()
             .map(|y| func(&mut sched, &flat(y), false));
-        let pose: Vec<Func> = model
+        let mut pose: Vec<Func> = model
             .pose
             .iter()
             .map(|p| func(&mut sched, p, true))
             .collect();
-        let table = sched.table.clone();
+        let mut funcs = vec![
+            &mut inertia,
+            &mut gravity,
+            &mut stiffness,
+            &mut damping,
+            &mut actuation,
+            &mut tip_jacobian,
+            &mut gravity_jacobian,
+            &mut potential_energy,
+            &mut terms,
+        ];
+        funcs.extend(actuation_jacobian.as_mut());
+        funcs.extend(regressor.as_mut());
+        funcs.extend(pose.iter_mut());
+        let table = compact_table(&sched.table, &mut funcs);
         let moment_max = layout
             .count
             .iter()
@@ -476,11 +538,11 @@ impl Plan {
             gravity_jacobian,
             actuation_jacobian,
             kinetic_energy,
-            kinetic_energy_dot,
+            kinetic_energy_beyond,
             potential_energy,
             terms,
             dynamics,
-            dynamics_dot,
+            dynamics_beyond,
             regressor,
             pose,
         })
@@ -513,11 +575,44 @@ impl Plan {
     }
 }
 
+/// The table rows some function reads (its dot products, its families' rows),
+/// renumbered in their first order: the scheduler interned the row of every
+/// double-kernel part too, and a family reads those off its half kernels instead.
+fn compact_table(table: &KernelTable, funcs: &mut [&mut Func]) -> KernelTable {
+    let mut used = vec![false; table.rows.len()];
+    for f in funcs.iter() {
+        let rows = f
+            .families
+            .iter()
+            .flat_map(|fam| fam.seeds.iter().chain(&fam.ends));
+        for u in f.dot_uses().chain(rows) {
+            used[u.row] = true;
+        }
+    }
+    let mut out = KernelTable::default();
+    let mut new_of = vec![usize::MAX; table.rows.len()];
+    for (r, row) in table.rows.iter().enumerate() {
+        if used[r] {
+            new_of[r] = out.intern(row.clone());
+        }
+    }
+    for f in funcs.iter_mut() {
+        let Func { dots, families, .. } = &mut **f;
+        let rows = families
+            .iter_mut()
+            .flat_map(|fam| fam.seeds.iter_mut().chain(fam.ends.iter_mut()));
+        for u in dots.iter_mut().flat_map(|d| d.uses.iter_mut()).chain(rows) {
+            u.row = new_of[u.row];
+        }
+    }
+    out
+}
+
 /// The double-kernel groups of a block (uses `kernels[start..start + count]` with the
 /// same segment and weight, as the scheduler orders them), each with its table (added
 /// to `tables` when new), the top row's uses and the entries.
 fn families(
-    block: &mut Block,
+    block: &Block,
     weights: &[Vec<Q>],
     sched: &mut Scheduler,
     layout: &NuLayout,
@@ -557,7 +652,13 @@ fn families(
         };
         // The top row reads moments up to the highest power pair; where the moment
         // layout stops short of that, the group stays dot products.
-        let reach = candidate.seeds.iter().map(Vec::len).max().unwrap_or(0);
+        let reach = candidate
+            .seeds
+            .iter()
+            .chain(&candidate.bottom)
+            .map(Vec::len)
+            .max()
+            .unwrap_or(0);
         if reach > layout.count[key.0] {
             continue;
         }
@@ -568,51 +669,57 @@ fn families(
             .iter()
             .map(|c| &c[..resolved_band(c, unit)])
             .collect();
-        // So does a group whose dot products are cheaper than the recurrence (few
-        // kernels of low powers): the top row's real and imaginary parts, the
+        // So does a group whose dot products are cheaper than the recurrence at either
+        // bending (few kernels of low powers): the rows' real and imaginary parts, the
         // recurrence, one addition per kernel (`F[first] ± F[second]`).
-        let seed_nnz: usize = bands
+        let nnz = |rows: &[&[Q]]| -> usize {
+            rows.iter()
+                .map(|c| c.iter().filter(|c| !c.is_zero()).count())
+                .sum()
+        };
+        let whole: Vec<&[Q]> = candidate
+            .seeds
             .iter()
-            .map(|c| c.iter().filter(|c| !c.is_zero()).count())
-            .sum();
+            .chain(&candidate.bottom)
+            .map(Vec::as_slice)
+            .collect();
         let (add, mul, div) = candidate.recurrence_ops();
-        let fast = Ops {
-            add: 2 * seed_nnz + add + (i - start),
-            mul: 2 * seed_nnz + mul,
+        let by_rows = |nnz: usize| Ops {
+            add: 2 * nnz + add + (i - start),
+            mul: 2 * nnz + mul,
             div,
             ..Ops::default()
         };
+        let (fast, beyond) = (by_rows(nnz(&bands)), by_rows(nnz(&whole)));
         let dot_nnz: usize = block.kernels[start..i]
             .iter()
             .map(|u| sched.table.rows[u.row].len())
             .sum();
-        let dot = Ops {
-            add: dot_nnz,
-            mul: dot_nnz,
-            ..Ops::default()
-        };
-        if fast.total() >= dot.total() {
+        if beyond.total().max(fast.total()) >= 2 * dot_nnz {
             continue;
         }
         let seg = key.0 as u16;
-        let band_reach = bands.iter().map(|c| c.len()).max().unwrap_or(0);
-        block.nu_count[key.0] = block.nu_count[key.0].max(band_reach);
-        let mut seeds = Vec::with_capacity(2 * size);
-        for im in [false, true] {
-            for c in &bands {
-                let row: KernelRow = c
-                    .iter()
-                    .enumerate()
-                    .filter(|(_, c)| !c.is_zero())
-                    .map(|(n, c)| (n, c.clone()))
-                    .collect();
-                let row = sched.table.intern(row);
-                seeds.push(KernelUse {
-                    row,
-                    base: layout.base(seg, im),
-                });
+        let mut uses = |rows: &[&[Q]]| -> Vec<KernelUse> {
+            let mut out = Vec::with_capacity(2 * rows.len());
+            for im in [false, true] {
+                for c in rows {
+                    let row: KernelRow = c
+                        .iter()
+                        .enumerate()
+                        .filter(|(_, c)| !c.is_zero())
+                        .map(|(n, c)| (n, c.clone()))
+                        .collect();
+                    out.push(KernelUse {
+                        row: sched.table.intern(row),
+                        base: layout.base(seg, im),
+                    });
+                }
             }
-        }
+            out
+        };
+        let seeds = uses(&bands);
+        let mut ends = uses(&whole[..size]);
+        ends.extend(uses(&whole[size..]));
         let table = known.unwrap_or_else(|| {
             tables.push(candidate);
             tables.len() - 1
@@ -635,22 +742,24 @@ fn families(
             start,
             count: i - start,
             seeds,
+            ends,
             entries,
             fast,
-            dot,
+            beyond,
         });
     }
     out
 }
 
 /// The operation-count sentence of a function's comment: one figure, or the fast
-/// path's and the worst case's when the kernel recurrence makes them differ.
-pub fn ops_sentence(ops: Ops, ops_dot: Ops) -> String {
-    if ops == ops_dot {
+/// path's and the worst case's when the kernel recurrence's rows make them differ.
+pub fn ops_sentence(ops: Ops, ops_beyond: Ops) -> String {
+    if ops == ops_beyond {
         format!("Operations: {ops}.")
     } else {
         format!(
-            "Operations: {ops} with every segment's |a_j| <= {} (kernel recurrence); {ops_dot} beyond.",
+            "Operations: {ops} with every segment's |a_j| <= {} (top rows cut to the \
+             precision); {ops_beyond} beyond (whole rows at both ends).",
             crate::kernel_matrix::FAST_BENDING
         )
     }

@@ -109,27 +109,25 @@ fn function(
             out.push_str(&format!("    phi {op} {inc}\n    cphi[{j}] = math.cos(phi)\n    sphi[{j}] = math.sin(phi)\n"));
         }
     }
-    if !b.kernels.is_empty() && f.families.is_empty() {
-        let upper = spec.fname.trim_start_matches('_').to_uppercase();
-        let items = use_pairs(&b.kernels);
+    let upper = spec.fname.trim_start_matches('_').to_uppercase();
+    if f.families.is_empty() && !f.dots.is_empty() {
+        // No families: one range, all of kern[].
+        let items = use_pairs(f.dot_uses());
         rows = format!(
             "# pairs (row, moment base)\n_{upper}_ROWS = _kernel_plan({})\n",
             tuple(&items, 4)
         );
         out.push_str(&format!("    kern = _kernels(_{upper}_ROWS, nu)\n"));
-    } else if !b.kernels.is_empty() {
-        let upper = spec.fname.trim_start_matches('_').to_uppercase();
-        out.push_str(&format!("    kern = [0.0] * {}\n", b.kernels.len()));
-        for (i, (start, count)) in f.dot_ranges().into_iter().enumerate() {
-            let items = use_pairs(&b.kernels[start..start + count]);
+    } else if f.kern_len > 0 {
+        out.push_str(&format!("    kern = [0.0] * {}\n", f.kern_len));
+        for (i, d) in f.dots.iter().enumerate() {
+            let (start, end) = (d.start, d.start + d.uses.len());
             rows.push_str(&format!(
-                "# pairs (row, moment base) of kernels {start} .. {}\n_{upper}_ROWS{i} = _kernel_plan({})\n",
-                start + count,
-                tuple(&items, 4)
+                "# pairs (row, moment base) of kernels {start} .. {end}\n_{upper}_ROWS{i} = _kernel_plan({})\n",
+                tuple(&use_pairs(&d.uses), 4)
             ));
             out.push_str(&format!(
-                "    kern[{start}:{}] = _kernels(_{upper}_ROWS{i}, nu)\n",
-                start + count
+                "    kern[{start}:{end}] = _kernels(_{upper}_ROWS{i}, nu)\n"
             ));
         }
         for (k, fam) in f.families.iter().enumerate() {
@@ -141,8 +139,8 @@ fn function(
                 "# kernels {s0} .. {s1}: segment {seg}'s double kernels (see _family)\n\
                  _{upper}_FAMILY{k} = _family_plan(\n    {size}, {t},\n    {},\n    {},\n    {},\n)\n",
                 tuple(&use_pairs(&fam.seeds), 4),
+                tuple(&use_pairs(&fam.ends), 4),
                 tuple(&pairs, 4),
-                tuple(&use_pairs(&b.kernels[s0..s1]), 4),
                 seg = fam.seg + 1,
                 t = fam.table,
             ));
@@ -162,7 +160,7 @@ fn function(
     PyFunc {
         rows,
         formula: spec.formula.into(),
-        ops: super::plan::ops_sentence(f.ops, f.ops_dot),
+        ops: super::plan::ops_sentence(f.ops, f.ops_beyond),
         signature: signature(plan, spec.fname, spec.params, with),
         body: out,
     }
@@ -327,7 +325,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         PyFunc {
             rows: String::new(),
             formula: "Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.".into(),
-            ops: super::plan::ops_sentence(plan.terms.ops, plan.terms.ops_dot),
+            ops: super::plan::ops_sentence(plan.terms.ops, plan.terms.ops_beyond),
             signature: signature(plan, "coriolis", &["q", "qd"], true),
             body: format!(
                 "    P = _params({})\n    return terms(q, qd, **P._asdict())[1]\n",
@@ -341,7 +339,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         PyFunc {
             rows: String::new(),
             formula: "Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().".into(),
-            ops: super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
+            ops: super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_beyond),
             signature: signature(plan, "kinetic_energy", &["q", "qd"], true),
             body: format!(
                 "    P = _params({})\n    qd = np.asarray(_vector(qd, NQ, \"qd\"))\n    \
@@ -456,7 +454,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("pose_names", &pose_names);
     ctx.insert(
         "dynamics_ops",
-        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
+        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_beyond),
     );
     super::control_code::insert_python(&mut ctx, plan);
     ctx.insert("rtol", &golden.rtol(Precision::F64));

@@ -108,8 +108,8 @@ fn body(
     if pose_count > 0 {
         pieces.push(("pnu", 2 * pose_count));
     }
-    if !b.kernels.is_empty() {
-        pieces.push(("kern", b.kernels.len()));
+    if func.kern_len > 0 {
+        pieces.push(("kern", func.kern_len));
     }
     if !func.families.is_empty() {
         pieces.push(("hk", func.matrix_scratch(&plan.matrix_tables)));
@@ -172,66 +172,81 @@ fn body(
             ));
         }
     }
-    if !b.kernels.is_empty() {
-        let upper = fname.to_uppercase();
-        let items = use_pairs(&b.kernels);
-        let max = use_max(plan);
+    let upper = fname.to_uppercase();
+    let max = use_max(plan);
+    if !func.dots.is_empty() {
+        let items = use_pairs(func.dot_uses());
         rows = format!(
-            "/// Kernels of `{fname}`: pairs (row, moment base).\nstatic {upper}_ROWS: [{}; {}] = [{}];\n",
+            "/// Dot-product kernels of `{fname}`: pairs (row, moment base).\nstatic {upper}_ROWS: [{}; {}] = [{}];\n",
             uint(max),
-            2 * b.kernels.len(),
+            items.len(),
             wrap_list(&items, 4)
         );
-        for (start, count) in func.dot_ranges() {
-            let (a, b) = (2 * start, 2 * (start + count));
+        let mut at = 0;
+        for d in &func.dots {
+            let (a, b) = (2 * at, 2 * (at + d.uses.len()));
             out.push_str(&format!(
-                "kernels(&{upper}_ROWS[{a}..{b}], nu, &mut kern[{start}..{}]);\n",
-                start + count
+                "kernels(&{upper}_ROWS[{a}..{b}], nu, &mut kern[{}..{}]);\n",
+                d.start,
+                d.start + d.uses.len()
             ));
+            at += d.uses.len();
         }
-        for (k, f) in func.families.iter().enumerate() {
-            let size = plan.matrix_tables[f.table].size;
-            let arg = inline(&moment_argument(plan, f.seg, false), &syn);
-            let seeds = use_pairs(&f.seeds);
-            let idx = family_pairs(f);
-            rows.push_str(&format!(
-                "/// Kernels {start}..{end} of `{fname}`: segment {seg}'s double kernels, from \
-                 its half kernels when `|a| ≤ FAST_BENDING` (`kernel_recurrence`): the top \
-                 row's uses (row, moment base), then per kernel two entries of the half \
-                 kernels.\n\
-                 static {upper}_SEEDS{k}: [{rt}; {ns}] = [{}];\n\
-                 static {upper}_PAIRS{k}: [{pt}; {ni}] = [{}];\n",
-                wrap_list(&seeds, 4),
-                wrap_list(&idx, 4),
-                start = f.start,
-                end = f.start + f.count,
-                seg = f.seg + 1,
-                rt = uint(max),
-                pt = uint(pair_max(plan)),
-                ns = seeds.len(),
-                ni = idx.len(),
-            ));
-            let (s0, s1) = (f.start, f.start + f.count);
-            out.push_str(&format!(
-                "{{\nlet a = {arg};\n\
-                 if libm::fabs{fs}(a) <= FAST_BENDING {{\n\
-                 kernels(&{upper}_SEEDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
-                 kernels(&{upper}_SEEDS{k}[{size2}..], nu, &mut hk[{top_im}..{top_im_end}]);\n\
-                 kernel_recurrence({size}, a, &TAIL_MOMENTS{t}, hk);\n\
-                 kernel_entries(&{upper}_PAIRS{k}, {size}, hk, &mut kern[{s0}..{s1}]);\n\
-                 }} else {{\n\
-                 kernels(&{upper}_ROWS[{r0}..{r1}], nu, &mut kern[{s0}..{s1}]);\n\
-                 }}\n}}\n",
-                size2 = 2 * size,
-                top_re = (size - 1) * size,
-                top_re_end = size * size,
-                top_im = size * size + (size - 1) * size,
-                top_im_end = 2 * size * size,
-                t = f.table,
-                r0 = 2 * s0,
-                r1 = 2 * s1,
-            ));
-        }
+    }
+    for (k, f) in func.families.iter().enumerate() {
+        let size = plan.matrix_tables[f.table].size;
+        let arg = inline(&moment_argument(plan, f.seg, false), &syn);
+        let seeds = use_pairs(&f.seeds);
+        let ends = use_pairs(&f.ends);
+        let idx = family_pairs(f);
+        rows.push_str(&format!(
+            "/// Kernels {start}..{end} of `{fname}`: segment {seg}'s double kernels, read off \
+             its half kernels (`kernel_recurrence`). Its rows' uses (row, moment base): the \
+             top row's cut to the precision, for `|a| ≤ FAST_BENDING`; the top and bottom \
+             rows' whole, beyond. Then per kernel two entries of the half kernels.\n\
+             static {upper}_SEEDS{k}: [{rt}; {ns}] = [{}];\n\
+             static {upper}_ENDS{k}: [{rt}; {ne}] = [{}];\n\
+             static {upper}_PAIRS{k}: [{pt}; {ni}] = [{}];\n",
+            wrap_list(&seeds, 4),
+            wrap_list(&ends, 4),
+            wrap_list(&idx, 4),
+            start = f.start,
+            end = f.start + f.count,
+            seg = f.seg + 1,
+            rt = uint(max),
+            pt = uint(pair_max(plan)),
+            ns = seeds.len(),
+            ne = ends.len(),
+            ni = idx.len(),
+        ));
+        let (s0, s1) = (f.start, f.start + f.count);
+        out.push_str(&format!(
+            "{{\nlet a = {arg};\n\
+             let split = if libm::fabs{fs}(a) <= FAST_BENDING {{\n\
+             kernels(&{upper}_SEEDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
+             kernels(&{upper}_SEEDS{k}[{size2}..], nu, &mut hk[{top_im}..{top_im_end}]);\n\
+             0\n\
+             }} else {{\n\
+             kernels(&{upper}_ENDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
+             kernels(&{upper}_ENDS{k}[{size2}..{size4}], nu, &mut hk[{top_im}..{top_im_end}]);\n\
+             kernels(&{upper}_ENDS{k}[{size4}..{size6}], nu, &mut hk[..{size}]);\n\
+             kernels(&{upper}_ENDS{k}[{size6}..], nu, &mut hk[{bottom_im}..{bottom_im_end}]);\n\
+             recurrence_split(a, {size})\n\
+             }};\n\
+             kernel_recurrence({size}, a, split, &TAIL_MOMENTS{t}, hk);\n\
+             kernel_entries(&{upper}_PAIRS{k}, {size}, hk, &mut kern[{s0}..{s1}]);\n\
+             }}\n",
+            size2 = 2 * size,
+            size4 = 4 * size,
+            size6 = 6 * size,
+            top_re = (size - 1) * size,
+            top_re_end = size * size,
+            top_im = size * size + (size - 1) * size,
+            top_im_end = 2 * size * size,
+            bottom_im = size * size,
+            bottom_im_end = size * size + size,
+            t = f.table,
+        ));
     }
     if !b.reads_params && PARAMETRIC_FUNCTIONS.contains(&fname) {
         out.push_str("let _ = p;\n");
@@ -253,7 +268,7 @@ pub fn emit(
     let name = plan.name.as_str();
     let n = plan.n;
     let k = plan.k;
-    let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_dot);
+    let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_beyond);
     let mut funcs = Vec::new();
     let mat = |rows: &str, cols: &str| format!("[[Real; {cols}]; {rows}]");
     let mut work_len = 0usize;
@@ -482,7 +497,7 @@ pub fn emit(
     public(
         "kinetic_energy",
         "Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`].",
-        super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_dot),
+        super::plan::ops_sentence(plan.kinetic_energy, plan.kinetic_energy_beyond),
         &both,
         "Real",
         String::new(),
@@ -649,7 +664,7 @@ pub fn emit(
     ctx.insert("work_len", &work_len);
     ctx.insert(
         "dynamics_ops",
-        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_dot),
+        &super::plan::ops_sentence(plan.dynamics, plan.dynamics_beyond),
     );
     ctx.insert("statics_work", &statics_work);
     ctx.insert("ntheta", &plan.params.linear_len());

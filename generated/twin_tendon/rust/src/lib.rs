@@ -493,7 +493,7 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
         out[im + n] = i * j[n];
     }
 }
-/// Kernels of `inertia`: pairs (row, moment base).
+/// Dot-product kernels of `inertia`: pairs (row, moment base).
 static INERTIA_ROWS: [u8; 28] = [
     0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16,
     7, 16,
@@ -572,7 +572,7 @@ pub fn inertia_with_ws(
 ) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut ws.0)
 }
-/// Kernels of `gravity`: pairs (row, moment base).
+/// Dot-product kernels of `gravity`: pairs (row, moment base).
 static GRAVITY_ROWS: [u8; 24] = [
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24,
 ];
@@ -658,7 +658,7 @@ pub fn actuation(q: &[Real; NQ]) -> [[Real; NU]; NQ] {
 pub fn actuation_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NU]; NQ] {
     actuation_in(q, &mut ws.0)
 }
-/// Kernels of `tip_jacobian`: pairs (row, moment base).
+/// Dot-product kernels of `tip_jacobian`: pairs (row, moment base).
 static TIP_JACOBIAN_ROWS: [u8; 8] = [3, 8, 4, 0, 2, 16, 2, 24];
 /// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 36 reals).
 ///
@@ -695,7 +695,7 @@ pub fn tip_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; 3] {
 pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
-/// Kernels of `gravity_jacobian`: pairs (row, moment base).
+/// Dot-product kernels of `gravity_jacobian`: pairs (row, moment base).
 static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
     8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2,
     16, 2, 24, 9, 16, 9, 24,
@@ -775,7 +775,7 @@ pub fn gravity_jacobian_with_ws(
 ) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut ws.0)
 }
-/// Kernels of `potential_energy`: pairs (row, moment base).
+/// Dot-product kernels of `potential_energy`: pairs (row, moment base).
 static POTENTIAL_ENERGY_ROWS: [u8; 8] = [0, 0, 0, 8, 0, 16, 0, 24];
 /// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 38 reals).
 ///
@@ -830,7 +830,7 @@ pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
 pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
-/// Kernels of `terms`: pairs (row, moment base).
+/// Dot-product kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u8; 56] = [
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0,
     9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24,
@@ -984,7 +984,7 @@ pub fn terms_with_ws(
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
-/// Kernels of `regressor`: pairs (row, moment base).
+/// Dot-product kernels of `regressor`: pairs (row, moment base).
 static REGRESSOR_ROWS: [u8; 56] = [
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0,
     9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24,
