@@ -479,6 +479,77 @@ fn c_of_an_arm_mixing_recurrence_and_dot_product_kernels_matches_reference() {
     assert!(last.ends_with(" 0 failed"), "{last}");
 }
 
+/// Invented arms beyond the demos (tests/arms/*.toml: mixed degrees and tapers, only
+/// constant curvature, a cubic segment with an end force, order 5): their shipped C
+/// checks pass in both precisions and their Python checks in double. Where single
+/// precision cannot factor `B` (its smallest relative pivot near or below
+/// `NAME_PIVOT_FLOOR`) or resolve an equilibrium, the checks know it from the
+/// conditioning the golden set carries.
+#[test]
+fn shipped_checks_of_invented_arms_pass() {
+    if !have("gcc", "--version") {
+        println!("SKIP: gcc not found");
+        return;
+    }
+    let mut paths: Vec<PathBuf> = std::fs::read_dir(root().join("tests/arms"))
+        .expect("tests/arms")
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|p| p.extension().is_some_and(|e| e == "toml"))
+        .collect();
+    paths.sort();
+    assert!(paths.len() >= 4, "tests/arms holds {} arms", paths.len());
+    let python = Command::new("python3")
+        .args(["-c", "import numpy"])
+        .output()
+        .is_ok_and(|o| o.status.success());
+    for path in &paths {
+        let name = arm_name(path);
+        let text = std::fs::read_to_string(path).unwrap();
+        let (arm, _) = parse_arm_file(path).expect("test arm parses");
+        let model = derive_emitted(&arm);
+        for (precision, tag) in [(Precision::F64, "f64"), (Precision::F32, "f32")] {
+            let files = emit(
+                &model,
+                &text,
+                Options {
+                    precision,
+                    ..Options::default()
+                },
+            )
+            .expect("emits");
+            let out = root().join(format!("target/emitted-tests/invented/{tag}/{name}"));
+            write_tree(&out, &files, &|_| {}).expect("writes");
+            let exe = out.with_extension("bin");
+            run(
+                Command::new("gcc")
+                    .args(["-std=c99", "-O1"])
+                    .args(STRICT)
+                    .arg(out.join(format!("c/test_{name}.c")))
+                    .arg(out.join(format!("c/{name}.c")))
+                    .args(["-lm", "-o"])
+                    .arg(&exe),
+                &format!("gcc {tag} {name}"),
+            );
+            let text = run(
+                &mut Command::new(&exe),
+                &format!("C {tag} checks of {name}"),
+            );
+            let last = text.lines().last().unwrap_or("");
+            println!("C {tag} {name}: {last}");
+            assert!(last.ends_with(" 0 failed"), "C {tag} {name}: {last}");
+            if precision == Precision::F64 && python {
+                let text = run(
+                    Command::new("python3")
+                        .arg(out.join(format!("python/test_{name}.py")))
+                        .env("PYTHONDONTWRITEBYTECODE", "1"),
+                    &format!("Python checks of {name}"),
+                );
+                println!("Python {name}: {}", text.lines().last().unwrap_or(""));
+            }
+        }
+    }
+}
+
 #[test]
 fn c_single_precision_never_promotes_to_double_and_matches_reference() {
     if !have("gcc", "--version") {

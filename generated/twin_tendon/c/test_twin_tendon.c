@@ -27,8 +27,12 @@
 /* Double precision: 64 units of rounding (2^-52) of each quantity's scale (the golden values carry 15 digits). Forward dynamics is judged by its residual, a backward error that does not grow with the condition of B. */
 #define RTOL 1.4e-14
 /* Equilibria are solved to a relative residual of TWIN_TENDON_EQUILIBRIUM_TOLERANCE; the
- * shape is judged at ten times that. */
+ * shape is judged at ten times that, or at EQ_ROUNDING times the state's g_eqgain if
+ * more: how far the shape can move per unit of relative residual, ||J^-1|| (||K q|| +
+ * ||G|| + ||A u||) / ||q|| (J the static Jacobian, from the reference), times four
+ * units of this precision's rounding, the residual it can resolve. */
 #define RTOL_EQUILIBRIUM 1e-9
+#define EQ_ROUNDING 4.4e-16
 /* The regulators' inputs are compared where S A (S A)^T has an eigenvalue ratio above
  * this: an allocation worse posed than that is beyond what the precision resolves
  * (near a singular configuration the least-norm inputs grow without bound). */
@@ -452,6 +456,32 @@ static const double g_Bnorm[NCASES][1] = {
         1.10498880839468e-6
     },
 };
+static const double g_Bpivot[NCASES][1] = {
+    {
+        1.5714871199452e-1
+    },
+    {
+        1.5714871199452e-1
+    },
+    {
+        1.58805672996549e-1
+    },
+    {
+        3.35968083517073e-1
+    },
+    {
+        1.5714871199452e-1
+    },
+    {
+        7.36389894332476e-1
+    },
+    {
+        9.54277006213558e-1
+    },
+    {
+        8.81048428892323e-1
+    },
+};
 static const double g_dG[NCASES][4] = {
     {
         0.0, 0.0, 0.0, 0.0
@@ -606,6 +636,32 @@ static const double g_eqstable[NCASES][1] = {
     },
     {
         1.0
+    },
+};
+static const double g_eqgain[NCASES][1] = {
+    {
+        3.63237884904888
+    },
+    {
+        8.13101440818451
+    },
+    {
+        3.98183842516659
+    },
+    {
+        3.30287399822256
+    },
+    {
+        3.07335629831313
+    },
+    {
+        3.14622698111262
+    },
+    {
+        3.90962235482237
+    },
+    {
+        3.99399424850675
     },
 };
 static const double g_ytarget[NCASES][2] = {
@@ -1050,6 +1106,32 @@ static const double g_pBnorm[NCASES][1] = {
         2.33042825234642e-6
     },
 };
+static const double g_pBpivot[NCASES][1] = {
+    {
+        1.35447079823945e-1
+    },
+    {
+        1.35447079823945e-1
+    },
+    {
+        1.37225483726124e-1
+    },
+    {
+        3.32351039886644e-1
+    },
+    {
+        1.35447079823945e-1
+    },
+    {
+        7.10851976096646e-1
+    },
+    {
+        9.5588080905486e-1
+    },
+    {
+        7.58647750734143e-1
+    },
+};
 static const double g_pdG[NCASES][4] = {
     {
         1.4255386171875e-3, 3.151953e-4, 3.151953e-4, 1.58922e-4
@@ -1152,6 +1234,32 @@ static const double g_pqeq[NCASES][2] = {
     },
     {
         -1.09971284222077e1, -8.55430717883646
+    },
+};
+static const double g_peqgain[NCASES][1] = {
+    {
+        3.34636364748228
+    },
+    {
+        7.37516093591008
+    },
+    {
+        3.9655193437348
+    },
+    {
+        3.18035863786749
+    },
+    {
+        3.04488260996605
+    },
+    {
+        8.02560472085848
+    },
+    {
+        4.34543704957602
+    },
+    {
+        3.97726650915667
     },
 };
 static const double g_pucomp[NCASES][4] = {
@@ -1347,6 +1455,23 @@ static int nan_bits(double x)
     return (bits & UINT64_C(0x7FF0000000000000)) == UINT64_C(0x7FF0000000000000) && (bits & UINT64_C(0x000FFFFFFFFFFFFF)) != 0u;
 }
 
+/* What forward dynamics must answer at a state whose B has the smallest relative
+ * Cholesky pivot `pivot` (exact, from the reference): OK well above this precision's
+ * TWIN_TENDON_PIVOT_FLOOR, NOT_POSITIVE_DEFINITE well below it. Within a factor of 4
+ * either way rounding decides, and the answer is not checked (0). */
+static int pivot_verdict(double pivot, twin_tendon_status *want)
+{
+    if (pivot > 4.0 * (double)TWIN_TENDON_PIVOT_FLOOR) {
+        *want = TWIN_TENDON_OK;
+        return 1;
+    }
+    if (pivot < 0.25 * (double)TWIN_TENDON_PIVOT_FLOOR) {
+        *want = TWIN_TENDON_ERR_NOT_POSITIVE_DEFINITE;
+        return 1;
+    }
+    return 0;
+}
+
 static void expect(int ok, const char *what)
 {
     if (ok) {
@@ -1427,6 +1552,7 @@ int main(void)
         double qddn = 0.0;
         double rhsn = 0.0;
         twin_tendon_status status;
+        twin_tendon_status want = TWIN_TENDON_OK;
         for (i = 0; i < TWIN_TENDON_NQ; ++i) {
             q[i] = (double)g_q[c][i];
             qd[i] = (double)g_qd[c][i];
@@ -1547,7 +1673,7 @@ int main(void)
             }
             status = twin_tendon_equilibrium(ueq, x, &info);
             expect(status == TWIN_TENDON_OK, "equilibrium status");
-            check_within("equilibrium", c, x, g_qeq[c], TWIN_TENDON_NQ, scale_qeq, RTOL_EQUILIBRIUM);
+            check_within("equilibrium", c, x, g_qeq[c], TWIN_TENDON_NQ, scale_qeq, max_d(RTOL_EQUILIBRIUM, EQ_ROUNDING * g_eqgain[c][0]));
             expect(info.stable == (g_eqstable[c][0] > 0.5), "equilibrium stability");
             expect(info.load >= 1.0 && info.relative_residual <= TWIN_TENDON_EQUILIBRIUM_TOLERANCE,
                 "equilibrium info");
@@ -1683,23 +1809,28 @@ int main(void)
             check("gravity_jacobian_with", c, x, g_pdG[c], TWIN_TENDON_NQ * TWIN_TENDON_NQ, scale_pdG);
             expect(twin_tendon_static_residual_with(&P, q, u, z) == TWIN_TENDON_OK, "static_residual_with status");
             check("static_residual_with", c, z, g_pR[c], TWIN_TENDON_NQ, scale_pR);
-            expect(twin_tendon_forward_dynamics_with(&P, q, qd, u, z) == TWIN_TENDON_OK, "forward_dynamics_with status");
-            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
-                double r = -g_prhs[c][i];
-                for (j = 0; j < TWIN_TENDON_NQ; ++j) {
-                    r += g_pB[c][i * TWIN_TENDON_NQ + j] * (double)z[j];
-                }
-                pres = max_d(pres, fabs(r));
-                pqddn = max_d(pqddn, fabs((double)z[i]));
-                prhsn = max_d(prhsn, fabs(g_prhs[c][i]));
+            status = twin_tendon_forward_dynamics_with(&P, q, qd, u, z);
+            if (pivot_verdict(g_pBpivot[c][0], &want)) {
+                expect(status == want, "forward_dynamics_with status");
             }
-            expect(pres <= RTOL * (g_pBnorm[c][0] * pqddn + prhsn), "forward_dynamics_with residual");
+            if (status == TWIN_TENDON_OK) {
+                for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                    double r = -g_prhs[c][i];
+                    for (j = 0; j < TWIN_TENDON_NQ; ++j) {
+                        r += g_pB[c][i * TWIN_TENDON_NQ + j] * (double)z[j];
+                    }
+                    pres = max_d(pres, fabs(r));
+                    pqddn = max_d(pqddn, fabs((double)z[i]));
+                    prhsn = max_d(prhsn, fabs(g_prhs[c][i]));
+                }
+                expect(pres <= RTOL * (g_pBnorm[c][0] * pqddn + prhsn), "forward_dynamics_with residual");
+            }
             if (g_peqok[c][0] > 0.5) {
                 for (i = 0; i < 4; ++i) {
                     ueq[i] = (double)g_ueq[c][i];
                 }
                 expect(twin_tendon_equilibrium_with(&P, ueq, z, 0) == TWIN_TENDON_OK, "equilibrium_with status");
-                check_within("equilibrium_with", c, z, g_pqeq[c], TWIN_TENDON_NQ, scale_pqeq, RTOL_EQUILIBRIUM);
+                check_within("equilibrium_with", c, z, g_pqeq[c], TWIN_TENDON_NQ, scale_pqeq, max_d(RTOL_EQUILIBRIUM, EQ_ROUNDING * g_peqgain[c][0]));
             }
             {
                 double target[TWIN_TENDON_NY];
@@ -1719,7 +1850,9 @@ int main(void)
             }
         }
         status = twin_tendon_forward_dynamics(q, qd, u, qdd);
-        expect(status == TWIN_TENDON_OK, "forward dynamics status");
+        if (pivot_verdict(g_Bpivot[c][0], &want)) {
+            expect(status == want, "forward dynamics status");
+        }
         {
             /* qdd may alias an input: the same answer with q'' written over q'. */
             double x[TWIN_TENDON_NQ];
@@ -1727,21 +1860,23 @@ int main(void)
             expect(twin_tendon_forward_dynamics(q, x, u, x) == status && memcmp(x, qdd, sizeof x) == 0,
                 "forward dynamics with qdd aliasing qd");
         }
-        for (i = 0; i < TWIN_TENDON_NQ; ++i) {
-            double r = -g_rhs[c][i];
-            for (j = 0; j < TWIN_TENDON_NQ; ++j) {
-                r += g_B[c][i * TWIN_TENDON_NQ + j] * (double)qdd[j];
+        if (status == TWIN_TENDON_OK) {
+            for (i = 0; i < TWIN_TENDON_NQ; ++i) {
+                double r = -g_rhs[c][i];
+                for (j = 0; j < TWIN_TENDON_NQ; ++j) {
+                    r += g_B[c][i * TWIN_TENDON_NQ + j] * (double)qdd[j];
+                }
+                res = max_d(res, fabs(r));
+                qddn = max_d(qddn, fabs((double)qdd[i]));
+                rhsn = max_d(rhsn, fabs(g_rhs[c][i]));
             }
-            res = max_d(res, fabs(r));
-            qddn = max_d(qddn, fabs((double)qdd[i]));
-            rhsn = max_d(rhsn, fabs(g_rhs[c][i]));
-        }
-        if (!(res <= RTOL * (g_Bnorm[c][0] * qddn + rhsn))) {
-            ++failed;
-            printf("FAIL forward dynamics [%s]: residual %.3g, bound %.3g\n", case_label[c], res,
-                RTOL * (g_Bnorm[c][0] * qddn + rhsn));
-        } else {
-            ++passed;
+            if (!(res <= RTOL * (g_Bnorm[c][0] * qddn + rhsn))) {
+                ++failed;
+                printf("FAIL forward dynamics [%s]: residual %.3g, bound %.3g\n", case_label[c], res,
+                    RTOL * (g_Bnorm[c][0] * qddn + rhsn));
+            } else {
+                ++passed;
+            }
         }
     }
     {

@@ -1043,6 +1043,7 @@ pub fn emit(
     ctx.insert("rtol", &golden.rtol(precision));
     ctx.insert("rtol_reason", golden.rtol_reason(precision));
     ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(precision));
+    ctx.insert("eq_rounding", golden.eq_rounding(precision));
     // A state at which every arm's model overflows: `a = L q` far beyond what the
     // moments and angle sums survive.
     ctx.insert(

@@ -134,6 +134,75 @@ fn configurations(arm: &Arm) -> Vec<(String, Vec<f64>)> {
     ]
 }
 
+/// The smallest pivot of the unpivoted Cholesky factorisation of `b` relative to its
+/// diagonal entry, as the emitted forward dynamics computes it (in `f64`): 0 or less
+/// when `b` is not positive definite.
+fn relative_pivot(b: &[Vec<f64>]) -> f64 {
+    let n = b.len();
+    let mut l = vec![vec![0.0; n]; n];
+    let mut worst = f64::INFINITY;
+    for i in 0..n {
+        for j in 0..=i {
+            let s = b[i][j] - (0..j).map(|k| l[i][k] * l[j][k]).sum::<f64>();
+            if i == j {
+                worst = worst.min(s / b[i][i]);
+                if !(s > 0.0) {
+                    return worst.min(0.0);
+                }
+                l[i][i] = s.sqrt();
+            } else {
+                l[i][j] = s / l[j][j];
+            }
+        }
+    }
+    worst
+}
+
+/// `||J⁻¹||₁ (||K q|| + ||G|| + ||A u||)₁ / ||q||₁` at the equilibrium `q` under `u`
+/// (at least 1): the factor from the solver's relative residual to the relative error
+/// of the shape, which the equilibrium checks scale their tolerance by. 1e300 (no
+/// check) when `J` is singular to working precision.
+fn equilibrium_gain(reference: &Reference, k: &[Vec<f64>], q: &[f64], u: &[f64]) -> f64 {
+    let n = q.len();
+    let st = reference.static_terms(q);
+    let jac: Vec<Vec<f64>> = (0..n)
+        .map(|i| {
+            (0..n)
+                .map(|x| {
+                    k[i][x] + st.dg[i][x]
+                        - u.iter()
+                            .enumerate()
+                            .map(|(c, uc)| st.da[x][i][c] * uc)
+                            .sum::<f64>()
+                })
+                .collect()
+        })
+        .collect();
+    let mut inverse_norm = 0.0f64;
+    for col in 0..n {
+        let e: Vec<f64> = (0..n).map(|i| f64::from(u8::from(i == col))).collect();
+        match crate::linalg::solve(&jac, &e) {
+            Some(x) => inverse_norm = inverse_norm.max(x.iter().map(|v| v.abs()).sum()),
+            None => return 1e300,
+        }
+    }
+    let one = |v: &mut dyn Iterator<Item = f64>| v.map(f64::abs).sum::<f64>();
+    let load = one(&mut (0..n).map(|i| (0..n).map(|x| k[i][x] * q[x]).sum::<f64>()))
+        + one(&mut st.g.iter().copied())
+        + one(&mut (0..n).map(|i| {
+            u.iter()
+                .enumerate()
+                .map(|(c, uc)| st.a[i][c] * uc)
+                .sum::<f64>()
+        }));
+    let size = one(&mut q.iter().copied());
+    if size > 0.0 {
+        (inverse_norm * load / size).max(1.0)
+    } else {
+        1.0
+    }
+}
+
 fn flat(m: &[Vec<f64>]) -> Vec<f64> {
     m.iter().flatten().copied().collect()
 }
@@ -324,7 +393,7 @@ impl Golden {
         let h = default_outputs(arm).len();
         let np = crate::params::ParamLayout::of(arm).len();
         let ny = crate::params::ParamLayout::of(arm).linear_len();
-        let names: [(&'static str, usize); 46] = [
+        let names: [(&'static str, usize); 50] = [
             ("q", n),
             ("qd", n),
             ("u", k),
@@ -340,6 +409,9 @@ impl Golden {
             ("rhs", n),
             ("pose", arm.segments.len() * SIGMAS.len() * 3),
             ("Bnorm", 1),
+            // The smallest pivot of B's Cholesky factor relative to its diagonal entry,
+            // what forward dynamics compares with NAME_PIVOT_FLOOR.
+            ("Bpivot", 1),
             // Statics: ∂G/∂q, the residual K q + G − A u and its Jacobian at (q, u).
             ("dG", n * n),
             ("R", n),
@@ -348,6 +420,10 @@ impl Golden {
             ("ueq", k),
             ("qeq", n),
             ("eqstable", 1),
+            // How much the equilibrium's shape can move per unit of relative residual:
+            // ||J⁻¹||₁ (||K q|| + ||G|| + ||A u||)₁ / ||q||₁ at it (J the static
+            // Jacobian), at least 1.
+            ("eqgain", 1),
             // Both regulators at (q, q̇): target, gains, inputs, and for each law
             // whether the limits kept it from its wanted force (1) or not (0).
             ("ytarget", h),
@@ -371,11 +447,13 @@ impl Golden {
             ("pV", 1),
             ("prhs", n),
             ("pBnorm", 1),
+            ("pBpivot", 1),
             ("pdG", n * n),
             ("pR", n),
             // The equilibrium under `ueq` (peqok 0: the reference found none, no check).
             ("peqok", 1),
             ("pqeq", n),
+            ("peqgain", 1),
             // The compensated regulator and whether it saturates.
             ("pucomp", k),
             ("pregsat", 1),
@@ -447,6 +525,7 @@ impl Golden {
                 })
                 .collect();
             let (ueq, qeq, stable) = static_case(arm, &fast, &reference, c, &u)?;
+            let eqgain = equilibrium_gain(&reference, &t.k, &qeq, &ueq);
             let reg = regulator_case(arm, &t.k, &st.g, &st.a, &q, &qd, c);
             // The same at the second parameter set.
             let tp = reference_p.terms(&q, &qd);
@@ -465,6 +544,11 @@ impl Golden {
             let (peqok, pqeq) = match reference_equilibrium(&fast_p, &model_p, &ueq) {
                 Ok(eq) => (1.0, eq.q),
                 Err(_) => (0.0, vec![0.0; n]),
+            };
+            let peqgain = if peqok > 0.5 {
+                equilibrium_gain(&reference_p, &tp.k, &pqeq, &ueq)
+            } else {
+                1.0
             };
             let reg_p = regulator_case(&arm_p, &tp.k, &stp.g, &stp.a, &q, &qd, c);
             let qdd_y: Vec<f64> = (0..n).map(|i| 3.0 * pattern(i, c + 17)).collect();
@@ -497,12 +581,14 @@ impl Golden {
                 rhs,
                 pose,
                 vec![bnorm],
+                vec![relative_pivot(&t.b)],
                 flat(&st.dg),
                 residual,
                 js,
                 ueq,
                 qeq,
                 vec![f64::from(u8::from(stable))],
+                vec![eqgain],
                 reg.target,
                 reg.kp,
                 reg.kd,
@@ -520,10 +606,12 @@ impl Golden {
                 vec![tp.potential_energy],
                 rhs_p,
                 vec![bnorm_p],
+                vec![relative_pivot(&tp.b)],
                 flat(&stp.dg),
                 residual_p,
                 vec![peqok],
                 pqeq,
+                vec![peqgain],
                 reg_p.u_compensated,
                 vec![reg_p.saturated[1]],
                 qdd_y,
@@ -589,6 +677,15 @@ impl Golden {
         match precision {
             Precision::F64 => "1e-9",
             Precision::F32 => "1e-4",
+        }
+    }
+
+    /// Four units of rounding: the relative residual an equilibrium solve in this
+    /// precision resolves, which the checks multiply by the state's `eqgain`.
+    pub fn eq_rounding(&self, precision: Precision) -> &'static str {
+        match precision {
+            Precision::F64 => "4.4e-16",
+            Precision::F32 => "2.4e-7",
         }
     }
 

@@ -460,6 +460,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     ctx.insert("rtol", &golden.rtol(Precision::F64));
     ctx.insert("rtol_reason", golden.rtol_reason(Precision::F64));
     ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(Precision::F64));
+    ctx.insert("eq_rounding", golden.eq_rounding(Precision::F64));
     ctx.insert("golden", &golden_python(golden));
     ctx.insert(
         "sigmas",

@@ -733,6 +733,7 @@ pub fn emit(
     ctx.insert("well_posed", super::c::well_posed(precision));
     ctx.insert("rtol_reason", golden.rtol_reason(precision));
     ctx.insert("rtol_equilibrium", golden.rtol_equilibrium(precision));
+    ctx.insert("eq_rounding", golden.eq_rounding(precision));
     ctx.insert("golden", &golden_rust(golden));
     ctx.insert(
         "sigmas",
