@@ -27,15 +27,17 @@
 /* Double precision: 64 units of rounding (2^-52) of each quantity's scale (the golden values carry 15 digits). Forward dynamics is judged by its residual, a backward error that does not grow with the condition of B. */
 #define RTOL 1.4e-14
 /* Equilibria are solved to a relative residual of HANGING_TAPER_EQUILIBRIUM_TOLERANCE; the
- * shape is judged at ten times that, or at EQ_ROUNDING times the state's g_eqgain if
- * more: how far the shape can move per unit of relative residual, ||J^-1|| (||K q|| +
- * ||G|| + ||A u||) / ||q|| (J the static Jacobian, from the reference), times four
- * units of this precision's rounding, the residual it can resolve. */
+ * shape is judged at ten times that, or (rtol_equilibrium) at twice the state's
+ * g_eqgain times the relative residual the solver reached (at least EQ_ROUNDING, four
+ * units of this precision's rounding) if more: g_eqgain is how far the shape can move
+ * per unit of relative residual, ||J^-1|| (||K q|| + ||G|| + ||A u||) / ||q|| (J the
+ * static Jacobian, from the reference). */
 #define RTOL_EQUILIBRIUM 1e-9
 #define EQ_ROUNDING 4.4e-16
-/* The regulators' inputs are compared where S A (S A)^T has an eigenvalue ratio above
- * this: an allocation worse posed than that is beyond what the precision resolves
- * (near a singular configuration the least-norm inputs grow without bound). */
+/* The regulators' inputs (and whether they saturate) are compared where the smaller of
+ * S A (S A)^T and (S A)^T S A has an eigenvalue ratio above this: an allocation worse
+ * posed than that is beyond what the precision resolves (near a singular configuration
+ * the least-norm inputs grow without bound). */
 #define WELL_POSED 0.0
 
 #define NCASES 8
@@ -1492,6 +1494,58 @@ static const double g_regcond[NCASES][1] = {
         1.29651319005297e-5
     },
 };
+static const double g_reggain[NCASES][1] = {
+    {
+        1.0
+    },
+    {
+        3.58933153321735
+    },
+    {
+        3.32589802662671
+    },
+    {
+        3.38051689594131e2
+    },
+    {
+        9.51351269423833e1
+    },
+    {
+        2.87481788169938e1
+    },
+    {
+        6.50725159542531e1
+    },
+    {
+        8.24972407891737e2
+    },
+};
+static const double g_regnormal[NCASES][1] = {
+    {
+        1.0e12
+    },
+    {
+        1.0e12
+    },
+    {
+        9.79124334718274e4
+    },
+    {
+        6.84521570315032e3
+    },
+    {
+        2.04441987746642e3
+    },
+    {
+        4.81199895910333e3
+    },
+    {
+        8.92369543221321e3
+    },
+    {
+        7.71299519104114e4
+    },
+};
 static const double g_theta[NCASES][16] = {
     {
         1.1, 1.3, 1.5, 9.0e-1, 8.0e-1, 7.0e-1, 1.3, 1.4, 1.5, 7.0e-1, 8.0e-1, 9.0e-1, 1.544e-2,
@@ -2423,6 +2477,58 @@ static const double g_pregsat[NCASES][1] = {
         0.0
     },
 };
+static const double g_preggain[NCASES][1] = {
+    {
+        1.81380056586767
+    },
+    {
+        3.59251992775799
+    },
+    {
+        3.36258582593184
+    },
+    {
+        3.38051689594131e2
+    },
+    {
+        9.51351269423833e1
+    },
+    {
+        2.87481788169938e1
+    },
+    {
+        6.50725159542531e1
+    },
+    {
+        8.24972407891737e2
+    },
+};
+static const double g_pregnormal[NCASES][1] = {
+    {
+        1.0e12
+    },
+    {
+        1.0e12
+    },
+    {
+        9.79124334718274e4
+    },
+    {
+        6.84521570315032e3
+    },
+    {
+        2.04441987746642e3
+    },
+    {
+        4.81199895910333e3
+    },
+    {
+        8.92369543221321e3
+    },
+    {
+        7.71299519104114e4
+    },
+};
 static const double g_qddY[NCASES][8] = {
     {
         -1.875, 7.5e-1, -3.0, -3.75e-1, 2.25, -1.5, 1.125, -2.625
@@ -2662,6 +2768,21 @@ static void check_within(const char *what, int c, const double got[], const doub
     }
 }
 
+static double rtol_equilibrium(double gain, double relative_residual)
+{
+    return max_d(RTOL_EQUILIBRIUM, 2.0 * gain * max_d(relative_residual, EQ_ROUNDING));
+}
+
+/* The regulators' inputs are judged at RTOL times the state's g_reggain (how much they
+ * move per unit of relative change in K, G, A, q and q', measured on the reference: the
+ * errors of those, RTOL, reach them that magnified) plus EQ_ROUNDING times g_regnormal
+ * (the condition of the allocation's normal equations, which magnifies their own
+ * rounding). */
+static double rtol_regulate(double gain, double normal)
+{
+    return RTOL * gain + EQ_ROUNDING * normal;
+}
+
 static void check(const char *what, int c, const double got[], const double want[], int len, double scale)
 {
     check_within(what, c, got, want, len, scale, RTOL);
@@ -2893,7 +3014,7 @@ int main(void)
             }
             status = hanging_taper_equilibrium(ueq, x, &info);
             expect(status == HANGING_TAPER_OK, "equilibrium status");
-            check_within("equilibrium", c, x, g_qeq[c], HANGING_TAPER_NQ, scale_qeq, max_d(RTOL_EQUILIBRIUM, EQ_ROUNDING * g_eqgain[c][0]));
+            check_within("equilibrium", c, x, g_qeq[c], HANGING_TAPER_NQ, scale_qeq, rtol_equilibrium(g_eqgain[c][0], (double)info.relative_residual));
             expect(info.stable == (g_eqstable[c][0] > 0.5), "equilibrium stability");
             expect(info.load >= 1.0 && info.relative_residual <= HANGING_TAPER_EQUILIBRIUM_TOLERANCE,
                 "equilibrium info");
@@ -2914,17 +3035,17 @@ int main(void)
                 kd[i] = (double)g_kd[c][i];
             }
             status = hanging_taper_regulate(HANGING_TAPER_LAW_BASELINE, target, kp, kd, q, qd, x);
-            expect(status == (g_regsat[c][0] > 0.5 ? HANGING_TAPER_SATURATED : HANGING_TAPER_OK), "regulate baseline status");
             if (g_regcond[c][0] > WELL_POSED) {
-                check("regulate baseline", c, x, g_ubase[c], HANGING_TAPER_NU, scale_ubase);
+                expect(status == (g_regsat[c][0] > 0.5 ? HANGING_TAPER_SATURATED : HANGING_TAPER_OK), "regulate baseline status");
+                check_within("regulate baseline", c, x, g_ubase[c], HANGING_TAPER_NU, scale_ubase, rtol_regulate(g_reggain[c][0], g_regnormal[c][0]));
             }
             poison(HANGING_TAPER_REGULATE_WORK);
             expect(hanging_taper_regulate_ws(HANGING_TAPER_LAW_BASELINE, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
             same("regulate baseline", c, y, x, HANGING_TAPER_NU, HANGING_TAPER_REGULATE_WORK);
             status = hanging_taper_regulate(HANGING_TAPER_LAW_COMPENSATED, target, kp, kd, q, qd, x);
-            expect(status == (g_regsat[c][1] > 0.5 ? HANGING_TAPER_SATURATED : HANGING_TAPER_OK), "regulate compensated status");
             if (g_regcond[c][0] > WELL_POSED) {
-                check("regulate compensated", c, x, g_ucomp[c], HANGING_TAPER_NU, scale_ucomp);
+                expect(status == (g_regsat[c][1] > 0.5 ? HANGING_TAPER_SATURATED : HANGING_TAPER_OK), "regulate compensated status");
+                check_within("regulate compensated", c, x, g_ucomp[c], HANGING_TAPER_NU, scale_ucomp, rtol_regulate(g_reggain[c][0], g_regnormal[c][0]));
             }
             poison(HANGING_TAPER_REGULATE_WORK);
             expect(hanging_taper_regulate_ws(HANGING_TAPER_LAW_COMPENSATED, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
@@ -3053,8 +3174,10 @@ int main(void)
                 for (i = 0; i < 3; ++i) {
                     ueq[i] = (double)g_ueq[c][i];
                 }
-                expect(hanging_taper_equilibrium_with(&P, ueq, z, 0) == HANGING_TAPER_OK, "equilibrium_with status");
-                check_within("equilibrium_with", c, z, g_pqeq[c], HANGING_TAPER_NQ, scale_pqeq, max_d(RTOL_EQUILIBRIUM, EQ_ROUNDING * g_peqgain[c][0]));
+                hanging_taper_equilibrium_info pinfo;
+                expect(hanging_taper_equilibrium_with(&P, ueq, z, &pinfo) == HANGING_TAPER_OK, "equilibrium_with status");
+                check_within("equilibrium_with", c, z, g_pqeq[c], HANGING_TAPER_NQ, scale_pqeq,
+                    rtol_equilibrium(g_peqgain[c][0], (double)pinfo.relative_residual));
             }
             {
                 double target[HANGING_TAPER_NY];
@@ -3069,7 +3192,7 @@ int main(void)
                 status = hanging_taper_regulate_with(&P, HANGING_TAPER_LAW_COMPENSATED, target, kp, kd, q, qd, uc);
                 if (g_regcond[c][0] > WELL_POSED) {
                     expect(status == (g_pregsat[c][0] > 0.5 ? HANGING_TAPER_SATURATED : HANGING_TAPER_OK), "regulate_with status");
-                    check("regulate_with compensated", c, uc, g_pucomp[c], HANGING_TAPER_NU, scale_pucomp);
+                    check_within("regulate_with compensated", c, uc, g_pucomp[c], HANGING_TAPER_NU, scale_pucomp, rtol_regulate(g_preggain[c][0], g_pregnormal[c][0]));
                 }
             }
         }

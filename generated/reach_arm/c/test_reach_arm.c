@@ -27,15 +27,17 @@
 /* Double precision: 64 units of rounding (2^-52) of each quantity's scale (the golden values carry 15 digits). Forward dynamics is judged by its residual, a backward error that does not grow with the condition of B. */
 #define RTOL 1.4e-14
 /* Equilibria are solved to a relative residual of REACH_ARM_EQUILIBRIUM_TOLERANCE; the
- * shape is judged at ten times that, or at EQ_ROUNDING times the state's g_eqgain if
- * more: how far the shape can move per unit of relative residual, ||J^-1|| (||K q|| +
- * ||G|| + ||A u||) / ||q|| (J the static Jacobian, from the reference), times four
- * units of this precision's rounding, the residual it can resolve. */
+ * shape is judged at ten times that, or (rtol_equilibrium) at twice the state's
+ * g_eqgain times the relative residual the solver reached (at least EQ_ROUNDING, four
+ * units of this precision's rounding) if more: g_eqgain is how far the shape can move
+ * per unit of relative residual, ||J^-1|| (||K q|| + ||G|| + ||A u||) / ||q|| (J the
+ * static Jacobian, from the reference). */
 #define RTOL_EQUILIBRIUM 1e-9
 #define EQ_ROUNDING 4.4e-16
-/* The regulators' inputs are compared where S A (S A)^T has an eigenvalue ratio above
- * this: an allocation worse posed than that is beyond what the precision resolves
- * (near a singular configuration the least-norm inputs grow without bound). */
+/* The regulators' inputs (and whether they saturate) are compared where the smaller of
+ * S A (S A)^T and (S A)^T S A has an eigenvalue ratio above this: an allocation worse
+ * posed than that is beyond what the precision resolves (near a singular configuration
+ * the least-norm inputs grow without bound). */
 #define WELL_POSED 0.0
 
 #define NCASES 8
@@ -1188,6 +1190,58 @@ static const double g_regcond[NCASES][1] = {
         1.3882446107328e-4
     },
 };
+static const double g_reggain[NCASES][1] = {
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.47640475936411e1
+    },
+    {
+        3.34232425761578e1
+    },
+    {
+        9.74212907093369
+    },
+    {
+        3.61569773965766e1
+    },
+    {
+        2.39577331967004e2
+    },
+    {
+        2.3894276389475e2
+    },
+};
+static const double g_regnormal[NCASES][1] = {
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+};
 static const double g_theta[NCASES][12] = {
     {
         1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 2.72e-2, 5.74e-6, 4.905, -8.49546
@@ -1912,6 +1966,58 @@ static const double g_pregsat[NCASES][1] = {
         0.0
     },
 };
+static const double g_preggain[NCASES][1] = {
+    {
+        1.0
+    },
+    {
+        1.0
+    },
+    {
+        1.47640475936411e1
+    },
+    {
+        3.34232425761578e1
+    },
+    {
+        1.09229167224045e1
+    },
+    {
+        3.61569773965766e1
+    },
+    {
+        2.39577331967004e2
+    },
+    {
+        2.3894276389475e2
+    },
+};
+static const double g_pregnormal[NCASES][1] = {
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+    {
+        7.20334148801151e3
+    },
+};
 static const double g_qddY[NCASES][6] = {
     {
         -1.875, 7.5e-1, -3.0, -3.75e-1, 2.25, -1.5
@@ -2089,6 +2195,21 @@ static void check_within(const char *what, int c, const double got[], const doub
         printf("FAIL %s [%s] entry %d: got %.17g, want %.17g (%.3g x tolerance)\n", what, case_label[c], at,
             (double)got[at], want[at], worst);
     }
+}
+
+static double rtol_equilibrium(double gain, double relative_residual)
+{
+    return max_d(RTOL_EQUILIBRIUM, 2.0 * gain * max_d(relative_residual, EQ_ROUNDING));
+}
+
+/* The regulators' inputs are judged at RTOL times the state's g_reggain (how much they
+ * move per unit of relative change in K, G, A, q and q', measured on the reference: the
+ * errors of those, RTOL, reach them that magnified) plus EQ_ROUNDING times g_regnormal
+ * (the condition of the allocation's normal equations, which magnifies their own
+ * rounding). */
+static double rtol_regulate(double gain, double normal)
+{
+    return RTOL * gain + EQ_ROUNDING * normal;
 }
 
 static void check(const char *what, int c, const double got[], const double want[], int len, double scale)
@@ -2322,7 +2443,7 @@ int main(void)
             }
             status = reach_arm_equilibrium(ueq, x, &info);
             expect(status == REACH_ARM_OK, "equilibrium status");
-            check_within("equilibrium", c, x, g_qeq[c], REACH_ARM_NQ, scale_qeq, max_d(RTOL_EQUILIBRIUM, EQ_ROUNDING * g_eqgain[c][0]));
+            check_within("equilibrium", c, x, g_qeq[c], REACH_ARM_NQ, scale_qeq, rtol_equilibrium(g_eqgain[c][0], (double)info.relative_residual));
             expect(info.stable == (g_eqstable[c][0] > 0.5), "equilibrium stability");
             expect(info.load >= 1.0 && info.relative_residual <= REACH_ARM_EQUILIBRIUM_TOLERANCE,
                 "equilibrium info");
@@ -2343,17 +2464,17 @@ int main(void)
                 kd[i] = (double)g_kd[c][i];
             }
             status = reach_arm_regulate(REACH_ARM_LAW_BASELINE, target, kp, kd, q, qd, x);
-            expect(status == (g_regsat[c][0] > 0.5 ? REACH_ARM_SATURATED : REACH_ARM_OK), "regulate baseline status");
             if (g_regcond[c][0] > WELL_POSED) {
-                check("regulate baseline", c, x, g_ubase[c], REACH_ARM_NU, scale_ubase);
+                expect(status == (g_regsat[c][0] > 0.5 ? REACH_ARM_SATURATED : REACH_ARM_OK), "regulate baseline status");
+                check_within("regulate baseline", c, x, g_ubase[c], REACH_ARM_NU, scale_ubase, rtol_regulate(g_reggain[c][0], g_regnormal[c][0]));
             }
             poison(REACH_ARM_REGULATE_WORK);
             expect(reach_arm_regulate_ws(REACH_ARM_LAW_BASELINE, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
             same("regulate baseline", c, y, x, REACH_ARM_NU, REACH_ARM_REGULATE_WORK);
             status = reach_arm_regulate(REACH_ARM_LAW_COMPENSATED, target, kp, kd, q, qd, x);
-            expect(status == (g_regsat[c][1] > 0.5 ? REACH_ARM_SATURATED : REACH_ARM_OK), "regulate compensated status");
             if (g_regcond[c][0] > WELL_POSED) {
-                check("regulate compensated", c, x, g_ucomp[c], REACH_ARM_NU, scale_ucomp);
+                expect(status == (g_regsat[c][1] > 0.5 ? REACH_ARM_SATURATED : REACH_ARM_OK), "regulate compensated status");
+                check_within("regulate compensated", c, x, g_ucomp[c], REACH_ARM_NU, scale_ucomp, rtol_regulate(g_reggain[c][0], g_regnormal[c][0]));
             }
             poison(REACH_ARM_REGULATE_WORK);
             expect(reach_arm_regulate_ws(REACH_ARM_LAW_COMPENSATED, target, kp, kd, q, qd, y, work) == status, "regulate_ws status");
@@ -2478,8 +2599,10 @@ int main(void)
                 for (i = 0; i < 4; ++i) {
                     ueq[i] = (double)g_ueq[c][i];
                 }
-                expect(reach_arm_equilibrium_with(&P, ueq, z, 0) == REACH_ARM_OK, "equilibrium_with status");
-                check_within("equilibrium_with", c, z, g_pqeq[c], REACH_ARM_NQ, scale_pqeq, max_d(RTOL_EQUILIBRIUM, EQ_ROUNDING * g_peqgain[c][0]));
+                reach_arm_equilibrium_info pinfo;
+                expect(reach_arm_equilibrium_with(&P, ueq, z, &pinfo) == REACH_ARM_OK, "equilibrium_with status");
+                check_within("equilibrium_with", c, z, g_pqeq[c], REACH_ARM_NQ, scale_pqeq,
+                    rtol_equilibrium(g_peqgain[c][0], (double)pinfo.relative_residual));
             }
             {
                 double target[REACH_ARM_NY];
@@ -2494,7 +2617,7 @@ int main(void)
                 status = reach_arm_regulate_with(&P, REACH_ARM_LAW_COMPENSATED, target, kp, kd, q, qd, uc);
                 if (g_regcond[c][0] > WELL_POSED) {
                     expect(status == (g_pregsat[c][0] > 0.5 ? REACH_ARM_SATURATED : REACH_ARM_OK), "regulate_with status");
-                    check("regulate_with compensated", c, uc, g_pucomp[c], REACH_ARM_NU, scale_pucomp);
+                    check_within("regulate_with compensated", c, uc, g_pucomp[c], REACH_ARM_NU, scale_pucomp, rtol_regulate(g_preggain[c][0], g_pregnormal[c][0]));
                 }
             }
         }

@@ -21,16 +21,26 @@ import reach_arm as arm  # noqa: E402
 
 # Double precision: 64 units of rounding (2^-52) of each quantity's scale (the golden values carry 15 digits). Forward dynamics is judged by its residual, a backward error that does not grow with the condition of B.
 RTOL = 1.4e-14
-# Equilibria: ten times the solver's relative residual.
+# Equilibria: ten times the solver's relative residual ...
 RTOL_EQUILIBRIUM = 1e-9
-# ... or EQ_ROUNDING times the state's G_EQGAIN if more: how far the shape can move per
-# unit of relative residual, ||J^-1|| (||K q|| + ||G|| + ||A u||) / ||q|| (J the static
-# Jacobian, from the reference), times four units of rounding, the residual it resolves.
+# ... or twice the state's G_EQGAIN times the relative residual the solver reached (at
+# least EQ_ROUNDING, four units of rounding) if more: G_EQGAIN is how far the shape can
+# move per unit of relative residual, ||J^-1|| (||K q|| + ||G|| + ||A u||) / ||q|| (J the
+# static Jacobian, from the reference).
 EQ_ROUNDING = 4.4e-16
 
 
-def _rtol_equilibrium(gain):
-    return max(RTOL_EQUILIBRIUM, EQ_ROUNDING * gain)
+def _rtol_equilibrium(gain, relative_residual):
+    return max(RTOL_EQUILIBRIUM, 2.0 * gain * max(relative_residual, EQ_ROUNDING))
+
+
+def _rtol_regulate(gain, normal):
+    """The regulators' inputs are judged at RTOL times the state's G_REGGAIN (how much
+    they move per unit of relative change in K, G, A, q and q', measured on the
+    reference: the errors of those, RTOL, reach them that magnified) plus EQ_ROUNDING
+    times G_REGNORMAL (the condition of the allocation's normal equations, which
+    magnifies their own rounding)."""
+    return RTOL * gain + EQ_ROUNDING * normal
 
 
 def _pivot_verdict(pivot):
@@ -1185,6 +1195,58 @@ G_REGSAT = np.array([
         0.0, 0.0
     ],
 ])
+G_REGGAIN = np.array([
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.47640475936411e1
+    ],
+    [
+        3.34232425761578e1
+    ],
+    [
+        9.74212907093369
+    ],
+    [
+        3.61569773965766e1
+    ],
+    [
+        2.39577331967004e2
+    ],
+    [
+        2.3894276389475e2
+    ],
+])
+G_REGNORMAL = np.array([
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+])
 G_THETA = np.array([
     [
         1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 2.72e-2, 5.74e-6, 4.905, -8.49546
@@ -1909,6 +1971,58 @@ G_PREGSAT = np.array([
         0.0
     ],
 ])
+G_PREGGAIN = np.array([
+    [
+        1.0
+    ],
+    [
+        1.0
+    ],
+    [
+        1.47640475936411e1
+    ],
+    [
+        3.34232425761578e1
+    ],
+    [
+        1.09229167224045e1
+    ],
+    [
+        3.61569773965766e1
+    ],
+    [
+        2.39577331967004e2
+    ],
+    [
+        2.3894276389475e2
+    ],
+])
+G_PREGNORMAL = np.array([
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+    [
+        7.20334148801151e3
+    ],
+])
 G_QDDY = np.array([
     [
         -1.875, 7.5e-1, -3.0, -3.75e-1, 2.25, -1.5
@@ -2122,7 +2236,7 @@ def test_statics():
         _check(f"static_residual [{label}]", arm.static_residual(q, u), G_R[c], SCALE_R)
         _check(f"static_jacobian [{label}]", arm.static_jacobian(q, u), G_JS[c], SCALE_JS)
         eq = arm.equilibrium(G_UEQ[c][: arm.NU])
-        _check(f"equilibrium [{label}]", eq["q"], G_QEQ[c], SCALE_QEQ, _rtol_equilibrium(G_EQGAIN[c][0]))
+        _check(f"equilibrium [{label}]", eq["q"], G_QEQ[c], SCALE_QEQ, _rtol_equilibrium(G_EQGAIN[c][0], eq["relative_residual"]))
         assert eq["stable"] == (G_EQSTABLE[c][0] > 0.5), f"equilibrium stability [{label}]"
         assert eq["relative_residual"] <= arm.EQUILIBRIUM_TOLERANCE
 
@@ -2135,7 +2249,7 @@ def test_regulators():
             (arm.LAW_COMPENSATED, G_UCOMP[c], SCALE_UCOMP, G_REGSAT[c][1] > 0.5),
         ):
             u, saturated = arm.regulate(law, G_YTARGET[c], G_KP[c], G_KD[c], q, qd)
-            _check(f"regulate {law} [{label}]", u, want, scale)
+            _check(f"regulate {law} [{label}]", u, want, scale, _rtol_regulate(G_REGGAIN[c][0], G_REGNORMAL[c][0]))
             assert saturated == sat, f"regulate {law} [{label}]: saturated {saturated}"
             for v, (lo, hi) in zip(u, arm.INPUT_LIMITS):
                 assert lo <= v <= hi, f"regulate {law} [{label}]: {v} outside [{lo}, {hi}]"
@@ -2233,9 +2347,9 @@ def test_parameter_variants_match_the_reference_at_changed_values():
             assert res <= bound, f"forward dynamics [{label}]: residual {res} > {bound}"
         if G_PEQOK[c][0] > 0.5:
             eq = arm.equilibrium(G_UEQ[c][: arm.NU], **p)
-            _check(f"equilibrium [{label}]", eq["q"], G_PQEQ[c], SCALE_PQEQ, _rtol_equilibrium(G_PEQGAIN[c][0]))
+            _check(f"equilibrium [{label}]", eq["q"], G_PQEQ[c], SCALE_PQEQ, _rtol_equilibrium(G_PEQGAIN[c][0], eq["relative_residual"]))
         uc, sat = arm.regulate(arm.LAW_COMPENSATED, G_YTARGET[c], G_KP[c], G_KD[c], q, qd, **p)
-        _check(f"regulate compensated [{label}]", uc, G_PUCOMP[c], SCALE_PUCOMP)
+        _check(f"regulate compensated [{label}]", uc, G_PUCOMP[c], SCALE_PUCOMP, _rtol_regulate(G_PREGGAIN[c][0], G_PREGNORMAL[c][0]))
         assert sat == (G_PREGSAT[c][0] > 0.5), f"regulate [{label}]: saturated {sat}"
     bad = dict(arm.PARAMS_DEFAULT._asdict(), payload_mass=math.nan)
     try:

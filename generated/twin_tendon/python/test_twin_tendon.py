@@ -21,16 +21,26 @@ import twin_tendon as arm  # noqa: E402
 
 # Double precision: 64 units of rounding (2^-52) of each quantity's scale (the golden values carry 15 digits). Forward dynamics is judged by its residual, a backward error that does not grow with the condition of B.
 RTOL = 1.4e-14
-# Equilibria: ten times the solver's relative residual.
+# Equilibria: ten times the solver's relative residual ...
 RTOL_EQUILIBRIUM = 1e-9
-# ... or EQ_ROUNDING times the state's G_EQGAIN if more: how far the shape can move per
-# unit of relative residual, ||J^-1|| (||K q|| + ||G|| + ||A u||) / ||q|| (J the static
-# Jacobian, from the reference), times four units of rounding, the residual it resolves.
+# ... or twice the state's G_EQGAIN times the relative residual the solver reached (at
+# least EQ_ROUNDING, four units of rounding) if more: G_EQGAIN is how far the shape can
+# move per unit of relative residual, ||J^-1|| (||K q|| + ||G|| + ||A u||) / ||q|| (J the
+# static Jacobian, from the reference).
 EQ_ROUNDING = 4.4e-16
 
 
-def _rtol_equilibrium(gain):
-    return max(RTOL_EQUILIBRIUM, EQ_ROUNDING * gain)
+def _rtol_equilibrium(gain, relative_residual):
+    return max(RTOL_EQUILIBRIUM, 2.0 * gain * max(relative_residual, EQ_ROUNDING))
+
+
+def _rtol_regulate(gain, normal):
+    """The regulators' inputs are judged at RTOL times the state's G_REGGAIN (how much
+    they move per unit of relative change in K, G, A, q and q', measured on the
+    reference: the errors of those, RTOL, reach them that magnified) plus EQ_ROUNDING
+    times G_REGNORMAL (the condition of the allocation's normal equations, which
+    magnifies their own rounding)."""
+    return RTOL * gain + EQ_ROUNDING * normal
 
 
 def _pivot_verdict(pivot):
@@ -843,6 +853,58 @@ G_REGSAT = np.array([
         0.0, 1.0
     ],
 ])
+G_REGGAIN = np.array([
+    [
+        1.46208167212112
+    ],
+    [
+        1.0
+    ],
+    [
+        5.7955149425205
+    ],
+    [
+        1.0
+    ],
+    [
+        1.23300469669944
+    ],
+    [
+        2.91302366940436e1
+    ],
+    [
+        6.80763077574707e6
+    ],
+    [
+        1.09252569437058e2
+    ],
+])
+G_REGNORMAL = np.array([
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+])
 G_THETA = np.array([
     [
         1.1, 1.3, 9.0e-1, 8.0e-1, 1.3, 1.4, 7.0e-1, 8.0e-1, 4.65e-2, 1.3692e-5, 4.905, -8.49546
@@ -1311,6 +1373,58 @@ G_PREGSAT = np.array([
         1.0
     ],
 ])
+G_PREGGAIN = np.array([
+    [
+        1.88292512563876
+    ],
+    [
+        1.32821856397502
+    ],
+    [
+        6.7511408348392
+    ],
+    [
+        1.0
+    ],
+    [
+        1.57209878271258
+    ],
+    [
+        2.91302366940436e1
+    ],
+    [
+        7.69319568214606e6
+    ],
+    [
+        1.09252569437058e2
+    ],
+])
+G_PREGNORMAL = np.array([
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+    [
+        8.77605356697421
+    ],
+])
 G_QDDY = np.array([
     [
         -1.875, 7.5e-1
@@ -1473,7 +1587,7 @@ def test_statics():
         _check(f"static_residual [{label}]", arm.static_residual(q, u), G_R[c], SCALE_R)
         _check(f"static_jacobian [{label}]", arm.static_jacobian(q, u), G_JS[c], SCALE_JS)
         eq = arm.equilibrium(G_UEQ[c][: arm.NU])
-        _check(f"equilibrium [{label}]", eq["q"], G_QEQ[c], SCALE_QEQ, _rtol_equilibrium(G_EQGAIN[c][0]))
+        _check(f"equilibrium [{label}]", eq["q"], G_QEQ[c], SCALE_QEQ, _rtol_equilibrium(G_EQGAIN[c][0], eq["relative_residual"]))
         assert eq["stable"] == (G_EQSTABLE[c][0] > 0.5), f"equilibrium stability [{label}]"
         assert eq["relative_residual"] <= arm.EQUILIBRIUM_TOLERANCE
 
@@ -1486,7 +1600,7 @@ def test_regulators():
             (arm.LAW_COMPENSATED, G_UCOMP[c], SCALE_UCOMP, G_REGSAT[c][1] > 0.5),
         ):
             u, saturated = arm.regulate(law, G_YTARGET[c], G_KP[c], G_KD[c], q, qd)
-            _check(f"regulate {law} [{label}]", u, want, scale)
+            _check(f"regulate {law} [{label}]", u, want, scale, _rtol_regulate(G_REGGAIN[c][0], G_REGNORMAL[c][0]))
             assert saturated == sat, f"regulate {law} [{label}]: saturated {saturated}"
             for v, (lo, hi) in zip(u, arm.INPUT_LIMITS):
                 assert lo <= v <= hi, f"regulate {law} [{label}]: {v} outside [{lo}, {hi}]"
@@ -1584,9 +1698,9 @@ def test_parameter_variants_match_the_reference_at_changed_values():
             assert res <= bound, f"forward dynamics [{label}]: residual {res} > {bound}"
         if G_PEQOK[c][0] > 0.5:
             eq = arm.equilibrium(G_UEQ[c][: arm.NU], **p)
-            _check(f"equilibrium [{label}]", eq["q"], G_PQEQ[c], SCALE_PQEQ, _rtol_equilibrium(G_PEQGAIN[c][0]))
+            _check(f"equilibrium [{label}]", eq["q"], G_PQEQ[c], SCALE_PQEQ, _rtol_equilibrium(G_PEQGAIN[c][0], eq["relative_residual"]))
         uc, sat = arm.regulate(arm.LAW_COMPENSATED, G_YTARGET[c], G_KP[c], G_KD[c], q, qd, **p)
-        _check(f"regulate compensated [{label}]", uc, G_PUCOMP[c], SCALE_PUCOMP)
+        _check(f"regulate compensated [{label}]", uc, G_PUCOMP[c], SCALE_PUCOMP, _rtol_regulate(G_PREGGAIN[c][0], G_PREGNORMAL[c][0]))
         assert sat == (G_PREGSAT[c][0] > 0.5), f"regulate [{label}]: saturated {sat}"
     bad = dict(arm.PARAMS_DEFAULT._asdict(), payload_mass=math.nan)
     try:

@@ -476,10 +476,11 @@ pub(crate) fn pivot_floor(precision: Precision) -> &'static str {
 }
 
 /// The allocation conditioning (`regcond`) above which the shipped tests check the
-/// regulators' inputs: single precision resolves the allocation only where
-/// `S A (S A)^T` is well posed (measured on reach_arm, eigenvalue ratio 1.4e-4: the
-/// compensated inputs at the second parameter set differ from the reference by 3.6e-3
-/// relative and flip to SATURATED at one state, so 1e-4 was too permissive).
+/// regulators' inputs: single precision resolves the allocation only where the smaller
+/// of `S A (S A)^T` and `(S A)^T S A` is well posed (measured on reach_arm, eigenvalue
+/// ratio 1.4e-4: the compensated inputs at the second parameter set differ from the
+/// reference by 3.6e-3 relative and flip to SATURATED at one state, so 1e-4 was too
+/// permissive).
 pub(crate) fn well_posed(precision: Precision) -> &'static str {
     match precision {
         Precision::F64 => "0.0",

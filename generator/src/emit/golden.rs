@@ -19,8 +19,20 @@ pub const SCALED: [&str; 28] = [
 ];
 
 /// The arrays of the regulator checks.
-const REGULATOR_ARRAYS: [&str; 9] = [
-    "ytarget", "kp", "kd", "ubase", "ucomp", "regsat", "regcond", "pucomp", "pregsat",
+const REGULATOR_ARRAYS: [&str; 13] = [
+    "ytarget",
+    "kp",
+    "kd",
+    "ubase",
+    "ucomp",
+    "regsat",
+    "regcond",
+    "reggain",
+    "regnormal",
+    "pucomp",
+    "pregsat",
+    "preggain",
+    "pregnormal",
 ];
 
 /// Relative shortfall `‖b − S A u‖ / ‖b‖` above which a regulator reports that the
@@ -276,6 +288,16 @@ struct RegulatorCase {
     u_compensated: Vec<f64>,
     saturated: Vec<f64>,
     conditioning: f64,
+    /// How much the inputs move per unit of relative change in what they are computed
+    /// from (`K`, `G`, `A`, `q`, `q̇`), measured: the largest `|Δu_i| / (ε (|u_i| +
+    /// max|u|))` over both laws and three perturbations of every entry by `±ε`
+    /// (`ε = 1e-7`), at least 1. The errors of those inputs (the tests' `RTOL`) reach the
+    /// inputs magnified by it.
+    gain: f64,
+    /// The condition of the normal equations the allocation solves: the inverse of
+    /// `conditioning`, at most 1e12 (the regularisation bounds it), at least 1. Their
+    /// own rounding reaches the inputs magnified by it.
+    normal: f64,
 }
 
 /// Targets near the state's outputs, gains that vary per output, and at the fourth
@@ -312,9 +334,11 @@ fn regulator_case(
             u_compensated: Vec::new(),
             saturated: vec![0.0, 0.0],
             conditioning: 0.0,
+            gain: 1.0,
+            normal: 1.0,
         };
     }
-    let run = |law| {
+    let solve = |law, k: &Matrix, g: &[f64], a: &Matrix, q: &[f64], qd: &[f64]| {
         let reg = Regulator::new(
             arm,
             law,
@@ -328,20 +352,71 @@ fn regulator_case(
         let sat = !ctl.allocation.met(&ctl.b, SATURATION);
         (ctl.allocation.u, f64::from(u8::from(sat)))
     };
+    let run = |law| solve(law, k, g, a, q, qd);
+    // Every entry scaled by 1 ± ε, the sign from a fixed pattern per perturbation.
+    const EPS: f64 = 1e-7;
+    let nudge = |v: &[f64], salt: usize| -> Vec<f64> {
+        v.iter()
+            .enumerate()
+            .map(|(i, x)| x * (1.0 + EPS * pattern(i, salt).signum()))
+            .collect()
+    };
+    let nudge_m = |m: &Matrix, salt: usize| -> Matrix {
+        m.iter()
+            .enumerate()
+            .map(|(r, row)| nudge(row, salt * 31 + r))
+            .collect()
+    };
+    // The smaller of M Mᵀ and Mᵀ M (M = S A): the other one is singular when M is not
+    // square. Its eigenvalue ratio says how well posed the allocation is, and its
+    // inverse is what the normal equations' rounding is magnified by.
     let m = crate::control::s_times(&s, a);
-    let gram: Vec<Vec<f64>> = m
-        .iter()
-        .map(|x| {
-            m.iter()
-                .map(|y| x.iter().zip(y).map(|(p, q)| p * q).sum())
-                .collect()
-        })
-        .collect();
+    let (rows, cols) = (m.len(), m.first().map_or(0, Vec::len));
+    let gram: Vec<Vec<f64>> = if rows <= cols {
+        m.iter()
+            .map(|x| {
+                m.iter()
+                    .map(|y| x.iter().zip(y).map(|(p, q)| p * q).sum())
+                    .collect()
+            })
+            .collect()
+    } else {
+        (0..cols)
+            .map(|i| {
+                (0..cols)
+                    .map(|j| m.iter().map(|r| r[i] * r[j]).sum())
+                    .collect()
+            })
+            .collect()
+    };
     let eig = crate::linalg::symmetric_eigenvalues(&gram);
     let conditioning = match (eig.first(), eig.last()) {
         (Some(&lo), Some(&hi)) if hi > 0.0 => lo.max(0.0) / hi,
         _ => 0.0,
     };
+    // At most 1e12: the allocation's regularisation bounds it.
+    let normal = (1.0 / conditioning.max(1e-12)).max(1.0);
+    let mut gain = 1.0f64;
+    for law in [Law::Baseline, Law::Compensated] {
+        let (u0, _) = run(law);
+        let size = u0.iter().fold(0.0f64, |m, v| m.max(v.abs()));
+        for salt in 0..3 {
+            let (u1, _) = solve(
+                law,
+                &nudge_m(k, salt),
+                &nudge(g, salt + 7),
+                &nudge_m(a, salt + 11),
+                &nudge(q, salt + 13),
+                &nudge(qd, salt + 17),
+            );
+            for (x, y) in u0.iter().zip(&u1) {
+                let scale = x.abs() + size;
+                if scale > 0.0 {
+                    gain = gain.max((x - y).abs() / (EPS * scale));
+                }
+            }
+        }
+    }
     let (u_baseline, sb) = run(Law::Baseline);
     let (u_compensated, sc) = run(Law::Compensated);
     RegulatorCase {
@@ -352,6 +427,8 @@ fn regulator_case(
         u_compensated,
         saturated: vec![sb, sc],
         conditioning,
+        gain,
+        normal,
     }
 }
 
@@ -393,7 +470,7 @@ impl Golden {
         let h = default_outputs(arm).len();
         let np = crate::params::ParamLayout::of(arm).len();
         let ny = crate::params::ParamLayout::of(arm).linear_len();
-        let names: [(&'static str, usize); 50] = [
+        let names: [(&'static str, usize); 54] = [
             ("q", n),
             ("qd", n),
             ("u", k),
@@ -433,8 +510,13 @@ impl Golden {
             ("ucomp", k),
             ("regsat", 2),
             // How well posed the allocation is: the smallest over the largest
-            // eigenvalue of S A (S A)ᵀ (single precision cannot resolve small ones).
+            // eigenvalue of the smaller of S A (S A)ᵀ and (S A)ᵀ S A (single precision
+            // cannot resolve small ones).
             ("regcond", 1),
+            // How much the inputs move per unit of relative change in K, G, A, q, q̇:
+            // the regulator checks scale their tolerance by it (RegulatorCase::gain).
+            ("reggain", 1),
+            ("regnormal", 1),
             // At the second parameter set `theta` (crate::params::test_values): the
             // reference evaluated on the arm with those values written in.
             ("theta", np),
@@ -457,6 +539,8 @@ impl Golden {
             // The compensated regulator and whether it saturates.
             ("pucomp", k),
             ("pregsat", 1),
+            ("preggain", 1),
+            ("pregnormal", 1),
             // The regressor at (q, q̇, q̈ = qddY): column k is the reference's
             // B q̈ + C q̇ + G + K q + D q̇ of the arm with every parameter zero but θ_k = 1.
             ("qddY", n),
@@ -596,6 +680,8 @@ impl Golden {
                 reg.u_compensated,
                 reg.saturated,
                 vec![reg.conditioning],
+                vec![reg.gain],
+                vec![reg.normal],
                 theta_f64.clone(),
                 flat(&tp.b),
                 flat(&tp.c),
@@ -614,6 +700,8 @@ impl Golden {
                 vec![peqgain],
                 reg_p.u_compensated,
                 vec![reg_p.saturated[1]],
+                vec![reg_p.gain],
+                vec![reg_p.normal],
                 qdd_y,
                 y,
             ];

@@ -11,14 +11,15 @@
 use hanging_taper::*;
 /// Double precision: 64 units of rounding (2^-52) of each quantity's scale (the golden values carry 15 digits). Forward dynamics is judged by its residual, a backward error that does not grow with the condition of B.
 const RTOL: f64 = 1.4e-14;
-/// Equilibria: ten times the solver's relative residual, or `EQ_ROUNDING` times the
-/// state's `G_EQGAIN` if more: how far the shape can move per unit of relative
-/// residual, `‖J⁻¹‖ (‖K q‖ + ‖G‖ + ‖A u‖) / ‖q‖` (`J` the static Jacobian, from the
-/// reference), times four units of this precision's rounding, the residual it resolves.
+/// Equilibria: ten times the solver's relative residual, or twice the state's
+/// `G_EQGAIN` times the relative residual the solver reached (at least `EQ_ROUNDING`,
+/// four units of this precision's rounding) if more: `G_EQGAIN` is how far the shape can
+/// move per unit of relative residual, `‖J⁻¹‖ (‖K q‖ + ‖G‖ + ‖A u‖) / ‖q‖` (`J` the
+/// static Jacobian, from the reference).
 const RTOL_EQUILIBRIUM: f64 = 1e-9;
 const EQ_ROUNDING: f64 = 4.4e-16;
-fn rtol_equilibrium(gain: f64) -> f64 {
-    RTOL_EQUILIBRIUM.max(EQ_ROUNDING * gain)
+fn rtol_equilibrium(gain: f64, relative_residual: Real) -> f64 {
+    RTOL_EQUILIBRIUM.max(2.0 * gain * f64::from(relative_residual).max(EQ_ROUNDING))
 }
 /// What forward dynamics must answer where `B`'s smallest Cholesky pivot relative to its
 /// diagonal entry is `pivot` (exact, from the reference): `Ok` well above
@@ -4396,6 +4397,26 @@ static G_REGCOND: [[f64; 1]; NCASES] = [
     [1.12061197919211e-4],
     [1.29651319005297e-5],
 ];
+static G_REGGAIN: [[f64; 1]; NCASES] = [
+    [1.0],
+    [3.58933153321735],
+    [3.32589802662671],
+    [3.38051689594131e2],
+    [9.51351269423833e1],
+    [2.87481788169938e1],
+    [6.50725159542531e1],
+    [8.24972407891737e2],
+];
+static G_REGNORMAL: [[f64; 1]; NCASES] = [
+    [1.0e12],
+    [1.0e12],
+    [9.79124334718274e4],
+    [6.84521570315032e3],
+    [2.04441987746642e3],
+    [4.81199895910333e3],
+    [8.92369543221321e3],
+    [7.71299519104114e4],
+];
 static G_THETA: [[f64; 16]; NCASES] = [
     [
         1.1,
@@ -7600,6 +7621,26 @@ static G_PREGSAT: [[f64; 1]; NCASES] = [
     [0.0],
     [0.0],
 ];
+static G_PREGGAIN: [[f64; 1]; NCASES] = [
+    [1.81380056586767],
+    [3.59251992775799],
+    [3.36258582593184],
+    [3.38051689594131e2],
+    [9.51351269423833e1],
+    [2.87481788169938e1],
+    [6.50725159542531e1],
+    [8.24972407891737e2],
+];
+static G_PREGNORMAL: [[f64; 1]; NCASES] = [
+    [1.0e12],
+    [1.0e12],
+    [9.79124334718274e4],
+    [6.84521570315032e3],
+    [2.04441987746642e3],
+    [4.81199895910333e3],
+    [8.92369543221321e3],
+    [7.71299519104114e4],
+];
 static G_QDDY: [[f64; 8]; NCASES] = [
     [-1.875, 7.5e-1, -3.0, -3.75e-1, 2.25, -1.5, 1.125, -2.625],
     [3.0, -7.5e-1, 1.875, -1.875, 7.5e-1, -3.0, -3.75e-1, 2.25],
@@ -8552,9 +8593,18 @@ const SCALE_PR: f64 = 2.43674596014656e-1;
 const SCALE_PQEQ: f64 = 1.1002761869259e1;
 const SCALE_PUCOMP: f64 = 3.79369939624053e3;
 const SCALE_Y: f64 = 1.8775625e-1;
-/// Single precision resolves the regulators' allocation only where `S A (S A)^T` is
-/// well posed (its eigenvalue ratio, `G_REGCOND`, above this); double everywhere.
+/// Single precision resolves the regulators' allocation only where the smaller of
+/// `S A (S A)^T` and `(S A)^T S A` is well posed (its eigenvalue ratio, `G_REGCOND`,
+/// above this); double everywhere.
 const WELL_POSED: f64 = 0.0;
+/// The regulators' inputs are judged at `RTOL` times the state's `G_REGGAIN` (how much
+/// they move per unit of relative change in `K`, `G`, `A`, `q` and `q̇`, measured on the
+/// reference: the errors of those, `RTOL`, reach them that magnified) plus
+/// `EQ_ROUNDING` times `G_REGNORMAL` (the condition of the allocation's normal
+/// equations, which magnifies their own rounding).
+fn rtol_regulate(gain: f64, normal: f64) -> f64 {
+    RTOL * gain + EQ_ROUNDING * normal
+}
 /// A golden vector in the crate's precision.
 fn real<const N: usize>(v: &[f64]) -> [Real; N] {
     let mut out = [0.0; N];
@@ -8785,7 +8835,7 @@ fn statics_match_reference() {
                     &eq.q,
                     &G_QEQ[c],
                     SCALE_QEQ,
-                    rtol_equilibrium(G_EQGAIN[c][0]),
+                    rtol_equilibrium(G_EQGAIN[c][0], eq.relative_residual),
                     f,
                 );
                 if eq.stable != (G_EQSTABLE[c][0] > 0.5) {
@@ -8822,14 +8872,23 @@ fn regulators_match_reference() {
         ] {
             let cmd = regulate(law, &target, &kp, &kd, &q, &qd).expect("regulate");
             if G_REGCOND[c][0] > WELL_POSED {
-                check(&format!("regulate {law:?}"), c, &cmd.u, want, scale, f);
-            }
-            if cmd.saturated != saturated {
-                f.push(
-                    format!(
-                        "regulate {law:?} [{}]: saturated {}", LABELS[c], cmd.saturated
-                    ),
+                check_within(
+                    &format!("regulate {law:?}"),
+                    c,
+                    &cmd.u,
+                    want,
+                    scale,
+                    rtol_regulate(G_REGGAIN[c][0], G_REGNORMAL[c][0]),
+                    f,
                 );
+                if cmd.saturated != saturated {
+                    f.push(
+                        format!(
+                            "regulate {law:?} [{}]: saturated {}", LABELS[c], cmd
+                            .saturated
+                        ),
+                    );
+                }
             }
             for (v, l) in cmd.u.iter().zip(INPUT_LIMITS.iter()) {
                 assert!(l[0] <= * v && * v <= l[1], "{v} outside {l:?}");
@@ -8996,7 +9055,7 @@ fn parameter_variants_match_the_reference_at_changed_values() {
                         &eq.q,
                         &G_PQEQ[c],
                         SCALE_PQEQ,
-                        rtol_equilibrium(G_PEQGAIN[c][0]),
+                        rtol_equilibrium(G_PEQGAIN[c][0], eq.relative_residual),
                         f,
                     )
                 }
@@ -9011,7 +9070,15 @@ fn parameter_variants_match_the_reference_at_changed_values() {
         let cmd = regulate_with(&p, Law::Compensated, &target, &kp, &kd, &q, &qd)
             .expect("regulate_with");
         if G_REGCOND[c][0] > WELL_POSED {
-            check("regulate_with compensated", c, &cmd.u, &G_PUCOMP[c], SCALE_PUCOMP, f);
+            check_within(
+                "regulate_with compensated",
+                c,
+                &cmd.u,
+                &G_PUCOMP[c],
+                SCALE_PUCOMP,
+                rtol_regulate(G_PREGGAIN[c][0], G_PREGNORMAL[c][0]),
+                f,
+            );
             if cmd.saturated != (G_PREGSAT[c][0] > 0.5) {
                 f.push(
                     format!("regulate_with [{}]: saturated {}", LABELS[c], cmd.saturated),
