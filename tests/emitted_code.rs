@@ -416,19 +416,28 @@ fn c_of_arms_with_constant_actuation_builds_strict() {
             .join("target/emitted-tests/constant-actuation")
             .join(name);
         write_tree(&out, &files, &|_| {}).expect("writes");
-        let exe = out.with_extension("bin");
-        run(
-            Command::new("gcc")
-                .args(["-std=c99", "-O1"])
-                .args(STRICT)
-                .arg(out.join(format!("c/test_{name}.c")))
-                .arg(out.join(format!("c/{name}.c")))
-                .args(["-lm", "-o"])
-                .arg(&exe),
-            &format!("gcc {name}"),
-        );
-        run(&mut Command::new(&exe), &format!("C cross-check of {name}"));
+        shipped_c(&out, name, name);
     }
+}
+
+/// Builds the shipped C test of the output folder `out` (arm `name`) at `-O1` under the
+/// strict warnings, runs it, and returns its summary line once it says nothing failed.
+fn shipped_c(out: &Path, name: &str, what: &str) -> String {
+    let exe = out.with_extension("bin");
+    run(
+        Command::new("gcc")
+            .args(["-std=c99", "-O1"])
+            .args(STRICT)
+            .arg(out.join(format!("c/test_{name}.c")))
+            .arg(out.join(format!("c/{name}.c")))
+            .args(["-lm", "-o"])
+            .arg(&exe),
+        &format!("gcc {what}"),
+    );
+    let text = run(&mut Command::new(&exe), &format!("C checks of {what}"));
+    let last = text.lines().last().unwrap_or("").to_string();
+    assert!(last.ends_with(" 0 failed"), "C {what}: {last}");
+    last
 }
 
 /// An arm whose first segment takes its double kernels from the recurrence and whose
@@ -462,21 +471,7 @@ fn c_of_an_arm_mixing_recurrence_and_dot_product_kernels_matches_reference() {
     let files = emit(&model, text, Options::default()).expect("emits");
     let out = root().join("target/emitted-tests/mixed-kernels");
     write_tree(&out, &files, &|_| {}).expect("writes");
-    let exe = out.with_extension("bin");
-    run(
-        Command::new("gcc")
-            .args(["-std=c99", "-O1"])
-            .args(STRICT)
-            .arg(out.join("c/test_mixed.c"))
-            .arg(out.join("c/mixed.c"))
-            .args(["-lm", "-o"])
-            .arg(&exe),
-        "gcc mixed",
-    );
-    let text = run(&mut Command::new(&exe), "C cross-check of mixed");
-    let last = text.lines().last().unwrap_or("");
-    println!("C mixed: {last}");
-    assert!(last.ends_with(" 0 failed"), "{last}");
+    println!("C mixed: {}", shipped_c(&out, "mixed", "mixed"));
 }
 
 /// Invented arms beyond the demos (tests/arms/*.toml: mixed degrees and tapers, only
@@ -520,24 +515,8 @@ fn shipped_checks_of_invented_arms_pass() {
             .expect("emits");
             let out = root().join(format!("target/emitted-tests/invented/{tag}/{name}"));
             write_tree(&out, &files, &|_| {}).expect("writes");
-            let exe = out.with_extension("bin");
-            run(
-                Command::new("gcc")
-                    .args(["-std=c99", "-O1"])
-                    .args(STRICT)
-                    .arg(out.join(format!("c/test_{name}.c")))
-                    .arg(out.join(format!("c/{name}.c")))
-                    .args(["-lm", "-o"])
-                    .arg(&exe),
-                &format!("gcc {tag} {name}"),
-            );
-            let text = run(
-                &mut Command::new(&exe),
-                &format!("C {tag} checks of {name}"),
-            );
-            let last = text.lines().last().unwrap_or("");
+            let last = shipped_c(&out, &name, &format!("{tag} {name}"));
             println!("C {tag} {name}: {last}");
-            assert!(last.ends_with(" 0 failed"), "C {tag} {name}: {last}");
             if precision == Precision::F64 && python {
                 let text = run(
                     Command::new("python3")

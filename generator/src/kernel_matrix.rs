@@ -275,12 +275,18 @@ mod tests {
             .map(|v| v.to_f64().unwrap())
             .collect();
         let f = recur_down(c.size, &m, a, &top);
+        worst_entry(c, &f, &re, &im)
+    }
+
+    /// The worst entry of the half kernels `f` as double kernels, against their dot
+    /// products over the moments `re`, `im`, relative to `max(|Re D|, |Im D|)`.
+    fn worst_entry(c: &Case, f: &[(f64, f64)], re: &[f64], im: &[f64]) -> f64 {
         let mut err = 0.0f64;
         for (s, t, sum, diff) in &c.rows {
-            let (dr, di) = (dot(sum, &re), dot(diff, &im));
+            let (dr, di) = (dot(sum, re), dot(diff, im));
             let scale = dr.abs().max(di.abs()).max(1e-300);
-            err = err.max((double_part(&f, c.size, *s, *t, false) - dr).abs() / scale);
-            err = err.max((double_part(&f, c.size, *s, *t, true) - di).abs() / scale);
+            err = err.max((double_part(f, c.size, *s, *t, false) - dr).abs() / scale);
+            err = err.max((double_part(f, c.size, *s, *t, true) - di).abs() / scale);
         }
         err
     }
@@ -390,14 +396,7 @@ mod tests {
             c.size - 1
         };
         let f = recur_split(c.size, &m, a, &top, &low, split);
-        let mut err = 0.0f64;
-        for (s, t, sum, diff) in &c.rows {
-            let (dr, di) = (dot(sum, &re), dot(diff, &im));
-            let scale = dr.abs().max(di.abs()).max(1e-300);
-            err = err.max((double_part(&f, c.size, *s, *t, false) - dr).abs() / scale);
-            err = err.max((double_part(&f, c.size, *s, *t, true) - di).abs() / scale);
-        }
-        err
+        worst_entry(c, &f, &re, &im)
     }
 
     /// The sweep behind the recurrence from both ends: every bending from 0 to 60 (both

@@ -371,6 +371,30 @@ pub fn refine(
     })
 }
 
+/// How far the shape of an equilibrium `q` under `u` can move per unit of the relative
+/// residual the solver stops at (`‖R‖ / scale`, see [`equilibrium`]): `‖J⁻¹‖₁ · scale /
+/// ‖q‖₂` (`J` the residual's Jacobian), at least 1; 1e300 where `J` is singular to
+/// working precision. An estimate up to the norms' `√n`: what the emitted code's tests
+/// scale their equilibrium tolerance by.
+pub fn shape_gain(model: &dyn StaticModel, q: &[f64], u: &[f64]) -> Result<f64, StaticsError> {
+    let lin = linearise(model, &model.stiffness(), q, u, 1.0)?;
+    let n = q.len();
+    let mut inverse = 0.0f64;
+    for col in 0..n {
+        let e: Vec<f64> = (0..n).map(|i| f64::from(u8::from(i == col))).collect();
+        match solve(&lin.jac, &e) {
+            Some(x) => inverse = inverse.max(x.iter().map(|v| v.abs()).sum()),
+            None => return Ok(1e300),
+        }
+    }
+    let size = norm(q);
+    Ok(if size > 0.0 {
+        (inverse * lin.scale / size).max(1.0)
+    } else {
+        1.0
+    })
+}
+
 /// The rest shape of the linear model around `q = 0` under inputs `u`, gravity left
 /// out: `q = K⁻¹ A(0) u`.
 pub fn linear_rest_shape(arm: &Arm, u: &[f64]) -> Result<Vec<f64>, DynamicsError> {

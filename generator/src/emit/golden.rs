@@ -7,7 +7,9 @@ use crate::arm::Arm;
 use crate::control::{default_outputs, Law, Regulator};
 use crate::dynamics::generalized_force;
 use crate::reference::{Kinematics, Reference};
-use crate::statics::{equilibrium, linear_rest_shape, segment_bending, Options, Quadrature};
+use crate::statics::{
+    equilibrium, linear_rest_shape, segment_bending, shape_gain, Options, Quadrature,
+};
 use crate::terms::Matrix;
 use num_traits::ToPrimitive;
 
@@ -168,51 +170,6 @@ fn relative_pivot(b: &[Vec<f64>]) -> f64 {
         }
     }
     worst
-}
-
-/// `||J⁻¹||₁ (||K q|| + ||G|| + ||A u||)₁ / ||q||₁` at the equilibrium `q` under `u`
-/// (at least 1): the factor from the solver's relative residual to the relative error
-/// of the shape, which the equilibrium checks scale their tolerance by. 1e300 (no
-/// check) when `J` is singular to working precision.
-fn equilibrium_gain(reference: &Reference, k: &[Vec<f64>], q: &[f64], u: &[f64]) -> f64 {
-    let n = q.len();
-    let st = reference.static_terms(q);
-    let jac: Vec<Vec<f64>> = (0..n)
-        .map(|i| {
-            (0..n)
-                .map(|x| {
-                    k[i][x] + st.dg[i][x]
-                        - u.iter()
-                            .enumerate()
-                            .map(|(c, uc)| st.da[x][i][c] * uc)
-                            .sum::<f64>()
-                })
-                .collect()
-        })
-        .collect();
-    let mut inverse_norm = 0.0f64;
-    for col in 0..n {
-        let e: Vec<f64> = (0..n).map(|i| f64::from(u8::from(i == col))).collect();
-        match crate::linalg::solve(&jac, &e) {
-            Some(x) => inverse_norm = inverse_norm.max(x.iter().map(|v| v.abs()).sum()),
-            None => return 1e300,
-        }
-    }
-    let one = |v: &mut dyn Iterator<Item = f64>| v.map(f64::abs).sum::<f64>();
-    let load = one(&mut (0..n).map(|i| (0..n).map(|x| k[i][x] * q[x]).sum::<f64>()))
-        + one(&mut st.g.iter().copied())
-        + one(&mut (0..n).map(|i| {
-            u.iter()
-                .enumerate()
-                .map(|(c, uc)| st.a[i][c] * uc)
-                .sum::<f64>()
-        }));
-    let size = one(&mut q.iter().copied());
-    if size > 0.0 {
-        (inverse_norm * load / size).max(1.0)
-    } else {
-        1.0
-    }
 }
 
 fn flat(m: &[Vec<f64>]) -> Vec<f64> {
@@ -497,9 +454,8 @@ impl Golden {
             ("ueq", k),
             ("qeq", n),
             ("eqstable", 1),
-            // How much the equilibrium's shape can move per unit of relative residual:
-            // ||J⁻¹||₁ (||K q|| + ||G|| + ||A u||)₁ / ||q||₁ at it (J the static
-            // Jacobian), at least 1.
+            // How much the equilibrium's shape can move per unit of relative residual
+            // (crate::statics::shape_gain).
             ("eqgain", 1),
             // Both regulators at (q, q̇): target, gains, inputs, and for each law
             // whether the limits kept it from its wanted force (1) or not (0).
@@ -554,6 +510,7 @@ impl Golden {
         let arm_p = crate::params::apply(arm, &theta);
         let reference_p = Reference::new(&arm_p, Kinematics::Truncated(arm.expansion_order));
         let model_p = Quadrature(Reference::new(&arm_p, reference_p.kinematics()));
+        let model_q = Quadrature(Reference::new(arm, reference.kinematics()));
         let fast_p =
             crate::statics::Derived(crate::evaluate::Evaluator::new(model).with_params(&theta_f64));
         let layout = crate::params::ParamLayout::of(arm);
@@ -609,7 +566,7 @@ impl Golden {
                 })
                 .collect();
             let (ueq, qeq, stable) = static_case(arm, &fast, &reference, c, &u)?;
-            let eqgain = equilibrium_gain(&reference, &t.k, &qeq, &ueq);
+            let eqgain = shape_gain(&model_q, &qeq, &ueq).map_err(|e| e.to_string())?;
             let reg = regulator_case(arm, &t.k, &st.g, &st.a, &q, &qd, c);
             // The same at the second parameter set.
             let tp = reference_p.terms(&q, &qd);
@@ -630,7 +587,7 @@ impl Golden {
                 Err(_) => (0.0, vec![0.0; n]),
             };
             let peqgain = if peqok > 0.5 {
-                equilibrium_gain(&reference_p, &tp.k, &pqeq, &ueq)
+                shape_gain(&model_p, &pqeq, &ueq).map_err(|e| e.to_string())?
             } else {
                 1.0
             };

@@ -151,9 +151,11 @@ pub struct Family {
     /// with both indices into the imaginary half.
     pub entries: Vec<FamilyEntry>,
     /// Operations of the family's kernels by the recurrence (rows, recurrence, entries)
-    /// from the cut top row and from both ends.
+    /// from the cut top row and from both ends, and by their own rows (what the
+    /// scheduler counted, and no path runs).
     pub fast: Ops,
     pub beyond: Ops,
+    pub own: Ops,
 }
 
 #[derive(Clone, Debug)]
@@ -407,19 +409,7 @@ impl Plan {
                 Func::moments_with(&block, &dots, &families, |f| &f.seeds, &layout, table);
             let nu_beyond =
                 Func::moments_with(&block, &dots, &families, |f| &f.ends, &layout, table);
-            // What the families' own rows cost in the block's count goes; their
-            // recurrence comes instead.
-            let own_rows: usize = families
-                .iter()
-                .flat_map(|f| &kernels[f.start..f.start + f.count])
-                .map(|u| table.rows[u.row].len())
-                .sum();
-            let mut ops = block.ops + angle_ops(block.angles)
-                - Ops {
-                    add: own_rows,
-                    mul: own_rows,
-                    ..Ops::default()
-                };
+            let mut ops = block.ops + angle_ops(block.angles);
             for &pc in &block.pose_nu_count {
                 ops += moment_ops(pc, true);
             }
@@ -428,8 +418,11 @@ impl Plan {
                 ops_beyond += moment_ops(c, false);
                 ops_fast += moment_ops(fc, false);
             }
-            let ops = families.iter().fold(ops_fast, |o, f| o + f.fast);
-            let ops_beyond = families.iter().fold(ops_beyond, |o, f| o + f.beyond);
+            // A family's own rows, which the block counted, give way to its recurrence.
+            let ops = families.iter().fold(ops_fast, |o, f| o - f.own + f.fast);
+            let ops_beyond = families
+                .iter()
+                .fold(ops_beyond, |o, f| o - f.own + f.beyond);
             block.nu_count = nu_beyond;
             Func {
                 block,
@@ -695,7 +688,12 @@ fn families(
             .iter()
             .map(|u| sched.table.rows[u.row].len())
             .sum();
-        if beyond.total().max(fast.total()) >= 2 * dot_nnz {
+        let own = Ops {
+            add: dot_nnz,
+            mul: dot_nnz,
+            ..Ops::default()
+        };
+        if beyond.total().max(fast.total()) >= own.total() {
             continue;
         }
         let seg = key.0 as u16;
@@ -746,6 +744,7 @@ fn families(
             entries,
             fast,
             beyond,
+            own,
         });
     }
     out
