@@ -351,11 +351,12 @@ fn regulator_case(
         (Some(&lo), Some(&hi)) if hi > 0.0 => lo.max(0.0) / hi,
         _ => 0.0,
     };
-    // At most 1e12: the allocation's regularisation bounds it.
-    let normal = (1.0 / conditioning.max(1e-12)).max(1.0);
+    // The allocation's regularisation bounds it.
+    let normal = (1.0 / conditioning.max(crate::allocation::REGULARISATION)).max(1.0);
+    let (u_baseline, sb) = run(Law::Baseline);
+    let (u_compensated, sc) = run(Law::Compensated);
     let mut gain = 1.0f64;
-    for law in [Law::Baseline, Law::Compensated] {
-        let (u0, _) = run(law);
+    for (law, u0) in [(Law::Baseline, &u_baseline), (Law::Compensated, &u_compensated)] {
         let size = u0.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         for salt in 0..3 {
             let (u1, _) = solve(
@@ -374,8 +375,6 @@ fn regulator_case(
             }
         }
     }
-    let (u_baseline, sb) = run(Law::Baseline);
-    let (u_compensated, sc) = run(Law::Compensated);
     RegulatorCase {
         target,
         kp,
