@@ -356,7 +356,10 @@ fn regulator_case(
     let (u_baseline, sb) = run(Law::Baseline);
     let (u_compensated, sc) = run(Law::Compensated);
     let mut gain = 1.0f64;
-    for (law, u0) in [(Law::Baseline, &u_baseline), (Law::Compensated, &u_compensated)] {
+    for (law, u0) in [
+        (Law::Baseline, &u_baseline),
+        (Law::Compensated, &u_compensated),
+    ] {
         let size = u0.iter().fold(0.0f64, |m, v| m.max(v.abs()));
         for salt in 0..3 {
             let (u1, _) = solve(
