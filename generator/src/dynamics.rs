@@ -67,10 +67,13 @@ pub fn forward_dynamics(
     cholesky_solve(&t.b, &rhs)
 }
 
-/// Solves `M x = b` for symmetric positive definite `M` (lower Cholesky factor).
-pub fn cholesky_solve(m: &[Vec<f64>], b: &[f64]) -> Result<Vec<f64>, DynamicsError> {
-    let n = b.len();
+/// The lower Cholesky factor of symmetric `m`, with its smallest pivot relative to the
+/// diagonal entry it came from (what the emitted forward dynamics compares with its
+/// `PIVOT_FLOOR`); `Err(i)` at the first pivot that is not positive and finite.
+pub fn cholesky_factor(m: &[Vec<f64>]) -> Result<(Vec<Vec<f64>>, f64), usize> {
+    let n = m.len();
     let mut l = vec![vec![0.0; n]; n];
+    let mut smallest = f64::INFINITY;
     for i in 0..n {
         for j in 0..=i {
             let mut s = m[i][j];
@@ -79,14 +82,23 @@ pub fn cholesky_solve(m: &[Vec<f64>], b: &[f64]) -> Result<Vec<f64>, DynamicsErr
             }
             if i == j {
                 if !(s > 0.0) || !s.is_finite() {
-                    return Err(DynamicsError::NotPositiveDefinite { pivot: i });
+                    return Err(i);
                 }
+                smallest = smallest.min(s / m[i][i]);
                 l[i][i] = s.sqrt();
             } else {
                 l[i][j] = s / l[j][j];
             }
         }
     }
+    Ok((l, smallest))
+}
+
+/// Solves `M x = b` for symmetric positive definite `M` (lower Cholesky factor).
+pub fn cholesky_solve(m: &[Vec<f64>], b: &[f64]) -> Result<Vec<f64>, DynamicsError> {
+    let n = b.len();
+    let (l, _) =
+        cholesky_factor(m).map_err(|pivot| DynamicsError::NotPositiveDefinite { pivot })?;
     let mut y = vec![0.0; n];
     for i in 0..n {
         let mut s = b[i];

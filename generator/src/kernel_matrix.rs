@@ -147,16 +147,7 @@ impl MatrixTable {
 /// The half kernels `F_st` (`F[s·size + t]`, real and imaginary parts) from the top row
 /// `top` (`F_{size−1,t}`) down, in `f64`; what the emitted routines do step for step.
 pub fn recur_down(size: usize, moments: &[f64], a: f64, top: &[(f64, f64)]) -> Vec<(f64, f64)> {
-    let mut f = vec![(0.0, 0.0); size * size];
-    f[(size - 1) * size..].copy_from_slice(top);
-    for s in (1..size).rev() {
-        let inv = 1.0 / s as f64;
-        for t in 0..size {
-            let (re, im) = f[s * size + t];
-            f[(s - 1) * size + t] = ((moments[s + t] - a * im) * inv, (a * re) * inv);
-        }
-    }
-    f
+    recur_split(size, moments, a, top, &[], 0)
 }
 
 /// The half kernels from both ends: rows `s > split` downward from the top row as in

@@ -148,28 +148,10 @@ fn configurations(arm: &Arm) -> Vec<(String, Vec<f64>)> {
     ]
 }
 
-/// The smallest pivot of the unpivoted Cholesky factorisation of `b` relative to its
-/// diagonal entry, as the emitted forward dynamics computes it (in `f64`): 0 or less
-/// when `b` is not positive definite.
+/// `B`'s smallest Cholesky pivot relative to its diagonal entry
+/// ([`crate::dynamics::cholesky_factor`]); 0 where `B` is not positive definite.
 fn relative_pivot(b: &[Vec<f64>]) -> f64 {
-    let n = b.len();
-    let mut l = vec![vec![0.0; n]; n];
-    let mut worst = f64::INFINITY;
-    for i in 0..n {
-        for j in 0..=i {
-            let s = b[i][j] - (0..j).map(|k| l[i][k] * l[j][k]).sum::<f64>();
-            if i == j {
-                worst = worst.min(s / b[i][i]);
-                if !(s > 0.0) {
-                    return worst.min(0.0);
-                }
-                l[i][i] = s.sqrt();
-            } else {
-                l[i][j] = s / l[j][j];
-            }
-        }
-    }
-    worst
+    crate::dynamics::cholesky_factor(b).map_or(0.0, |(_, pivot)| pivot)
 }
 
 fn flat(m: &[Vec<f64>]) -> Vec<f64> {
