@@ -70,6 +70,72 @@ pub struct Model {
     pub kernel_weights: Vec<Vec<Q>>,
 }
 
+impl Model {
+    /// Every node id the model holds: its outputs, then the kernel entries.
+    fn ids(&self) -> Vec<Id> {
+        let mut v: Vec<Id> = Vec::new();
+        let mat = |v: &mut Vec<Id>, x: &Vec<Vec<Id>>| v.extend(x.iter().flatten());
+        mat(&mut v, &self.inertia);
+        mat(&mut v, &self.coriolis);
+        v.extend(&self.gravity);
+        mat(&mut v, &self.stiffness);
+        mat(&mut v, &self.damping);
+        mat(&mut v, &self.actuation);
+        v.extend(self.tip_pose);
+        mat(&mut v, &self.tip_jacobian);
+        if let Some(s) = &self.statics {
+            mat(&mut v, &s.gravity_jacobian);
+            for a in &s.actuation_jacobian {
+                mat(&mut v, a);
+            }
+        }
+        v.push(self.kinetic_energy);
+        v.push(self.potential_energy);
+        for p in &self.pose {
+            v.extend(p);
+        }
+        if let Some(y) = &self.regressor {
+            mat(&mut v, y);
+        }
+        v.extend(self.kernel_entries.keys());
+        v
+    }
+
+    /// The same model over the program of [`crate::scaled_factors::share`].
+    fn with_shared_scaled_factors(self) -> Model {
+        let (program, map) = crate::scaled_factors::share(&self.program, &self.ids());
+        let m = |id: &Id| map[id.index()].expect("every id of the model is a root");
+        let mat = |x: &Vec<Vec<Id>>| -> Vec<Vec<Id>> {
+            x.iter().map(|r| r.iter().map(m).collect()).collect()
+        };
+        Model {
+            inertia: mat(&self.inertia),
+            coriolis: mat(&self.coriolis),
+            gravity: self.gravity.iter().map(m).collect(),
+            stiffness: mat(&self.stiffness),
+            damping: mat(&self.damping),
+            actuation: mat(&self.actuation),
+            tip_pose: self.tip_pose.map(|id| m(&id)),
+            tip_jacobian: mat(&self.tip_jacobian),
+            statics: self.statics.as_ref().map(|s| StaticRoots {
+                gravity_jacobian: mat(&s.gravity_jacobian),
+                actuation_jacobian: s.actuation_jacobian.iter().map(mat).collect(),
+            }),
+            kinetic_energy: m(&self.kinetic_energy),
+            potential_energy: m(&self.potential_energy),
+            pose: self.pose.iter().map(|p| p.map(|id| m(&id))).collect(),
+            regressor: self.regressor.as_ref().map(mat),
+            kernel_entries: self
+                .kernel_entries
+                .iter()
+                .map(|(id, e)| (m(id), *e))
+                .collect(),
+            program,
+            ..self
+        }
+    }
+}
+
 /// One part of a double kernel: `Re D_st` (or `Im D_st`, with `im`) of segment `seg`
 /// against weight `weight`, `s ≤ t`.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
@@ -148,7 +214,9 @@ fn derive_in_thread(arm: &Arm, progress: &(dyn Fn(DeriveStep) + Sync), opts: Opt
         std::thread::Builder::new()
             .stack_size(512 << 20)
             .spawn_scoped(scope, || {
-                Deriver::new(arm, opts.parametric).run(progress, opts.statics)
+                Deriver::new(arm, opts.parametric)
+                    .run(progress, opts.statics)
+                    .with_shared_scaled_factors()
             })
             .expect("spawning the derivation thread")
             .join()

@@ -108,6 +108,12 @@ impl Program {
         id
     }
 
+    /// A node as given, hash-consed but not simplified: for passes that copy an
+    /// already canonical program or build a deliberate non-canonical grouping.
+    pub(crate) fn raw(&mut self, node: Node) -> Id {
+        self.intern(node)
+    }
+
     pub fn zero(&self) -> Id {
         Id(0)
     }

@@ -31,6 +31,7 @@ pub mod optimise;
 pub mod outdir;
 pub mod params;
 pub mod reference;
+pub mod scaled_factors;
 pub mod segment_integrals;
 pub mod statics;
 pub mod stiff;

@@ -156,7 +156,7 @@ hanging_taper_status hanging_taper_check_range(const double q[HANGING_TAPER_NQ])
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 5659 add, 9129 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 10782 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -165,14 +165,14 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 16627 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_coriolis_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1899 add, 2725 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 1899 add, 2579 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
 void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
@@ -193,7 +193,7 @@ void hanging_taper_damping_with(const hanging_taper_params *P, double D[HANGING_
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
- * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 899 add, 1385 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_actuation_ws(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU], double work[]);
 
@@ -205,16 +205,16 @@ void hanging_taper_actuation_ws(const double q[HANGING_TAPER_NQ], double A[HANGI
  * +x [rad]. The tip is (segment NSEG - 1, sigma 1).
  * Invalid arguments (segment outside 0..NSEG-1, sigma outside [0, 1] or NaN) set all
  * three entries to NaN.
- * Segment 0: Operations: 222 add, 420 mul, 2 div, 0 sqrt, 2 trig.
- * Segment 1: Operations: 452 add, 805 mul, 4 div, 0 sqrt, 6 trig.
- * Segment 2: Operations: 543 add, 969 mul, 6 div, 0 sqrt, 10 trig.
+ * Segment 0: Operations: 222 add, 410 mul, 2 div, 0 sqrt, 2 trig.
+ * Segment 1: Operations: 452 add, 787 mul, 4 div, 0 sqrt, 6 trig.
+ * Segment 2: Operations: 543 add, 949 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_pose_ws(const double q[HANGING_TAPER_NQ], int segment, double sigma, double pose[3],
     double work[]);
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 899 add, 1415 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 899 add, 1385 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ], double work[]);
 
@@ -224,7 +224,7 @@ void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 9160 add, 14695 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 16627 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
     double G[HANGING_TAPER_NQ], double work[]);
@@ -233,14 +233,14 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 5723 add, 9202 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 10855 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
 double hanging_taper_kinetic_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
 
 /**
  * Potential energy [J]: gravity U_g (zero at q = 0) plus elastic 1/2 q^T K q.
- * Operations: 1217 add, 1719 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 1217 add, 1635 mul, 6 div, 0 sqrt, 10 trig.
  */
 double hanging_taper_potential_energy_ws(const double q[HANGING_TAPER_NQ], double work[]);
 double hanging_taper_potential_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double work[]);
@@ -258,7 +258,7 @@ double hanging_taper_potential_energy_with_ws(const hanging_taper_params *P, con
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 9386 add, 14880 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 16812 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_regressor_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ],
     double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA], double work[]);
@@ -275,7 +275,7 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 10231 add, 16300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 18232 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+ * Operations: 10231 add, 13792 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 15724 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
  */
 hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
     double qdd[HANGING_TAPER_NQ], double work[]);
@@ -284,7 +284,7 @@ hanging_taper_status hanging_taper_forward_dynamics_with_ws(const hanging_taper_
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 3015 add, 4306 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 3015 add, 4046 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity_jacobian_ws(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -293,7 +293,7 @@ void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns HANGING_TAPER_OK, HANGING_TAPER_ERR_NONFINITE_INPUT (R is then NaN) or
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations: 2886 add, 4228 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 2886 add, 4052 mul, 12 div, 0 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_static_residual_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
 hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
@@ -303,7 +303,7 @@ hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_p
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * hanging_taper_static_residual.
- * Operations: 4631 add, 6542 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 4631 add, 6236 mul, 12 div, 0 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_static_jacobian_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 hanging_taper_status hanging_taper_static_jacobian_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -349,8 +349,8 @@ typedef struct {
  * Returns HANGING_TAPER_OK; HANGING_TAPER_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 7872 add, 11102 mul, 60 div, 4 sqrt, 40 trig.
- * Per backtracking trial: 2937 add, 4269 mul, 12 div, 4 sqrt, 20 trig.
+ * Operations per Newton iteration, at most: 7872 add, 10620 mul, 60 div, 4 sqrt, 40 trig.
+ * Per backtracking trial: 2937 add, 4093 mul, 12 div, 4 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_equilibrium_ws(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
     double work[]);
@@ -388,7 +388,7 @@ typedef enum hanging_taper_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 2946 add, 4295 mul, 13 div, 0 sqrt, 20 trig.
+ * Operations before the allocation, at most: 2946 add, 4119 mul, 13 div, 0 sqrt, 20 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
 hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
@@ -405,23 +405,23 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
  * Keep it in static storage or a task's state: the functions' own frames are then a
  * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
  */
-#define HANGING_TAPER_INERTIA_WORK 1495 /* 11960 bytes */
-#define HANGING_TAPER_GRAVITY_WORK 393 /* 3144 bytes */
-#define HANGING_TAPER_ACTUATION_WORK 260 /* 2080 bytes */
-#define HANGING_TAPER_TIP_JACOBIAN_WORK 260 /* 2080 bytes */
-#define HANGING_TAPER_REGRESSOR_WORK 2122 /* 16976 bytes */
-#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 579 /* 4632 bytes */
-#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 292 /* 2336 bytes */
-#define HANGING_TAPER_TERMS_WORK 2071 /* 16568 bytes */
-#define HANGING_TAPER_KINETIC_ENERGY_WORK 1559 /* 12472 bytes */
-#define HANGING_TAPER_CORIOLIS_WORK 2143 /* 17144 bytes */
-#define HANGING_TAPER_POSE_WORK 271 /* 2168 bytes */
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2403 /* 19224 bytes */
-#define HANGING_TAPER_STATIC_RESIDUAL_WORK 481 /* 3848 bytes */
-#define HANGING_TAPER_STATIC_JACOBIAN_WORK 835 /* 6680 bytes */
-#define HANGING_TAPER_EQUILIBRIUM_WORK 1043 /* 8344 bytes */
-#define HANGING_TAPER_REGULATE_WORK 546 /* 4368 bytes */
-#define HANGING_TAPER_WORK_LEN 2403 /* 19224 bytes */
+#define HANGING_TAPER_INERTIA_WORK 1602 /* 12816 bytes */
+#define HANGING_TAPER_GRAVITY_WORK 429 /* 3432 bytes */
+#define HANGING_TAPER_ACTUATION_WORK 311 /* 2488 bytes */
+#define HANGING_TAPER_TIP_JACOBIAN_WORK 311 /* 2488 bytes */
+#define HANGING_TAPER_REGRESSOR_WORK 2246 /* 17968 bytes */
+#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 633 /* 5064 bytes */
+#define HANGING_TAPER_POTENTIAL_ENERGY_WORK 326 /* 2608 bytes */
+#define HANGING_TAPER_TERMS_WORK 2204 /* 17632 bytes */
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1666 /* 13328 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 2276 /* 18208 bytes */
+#define HANGING_TAPER_POSE_WORK 267 /* 2136 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2536 /* 20288 bytes */
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 517 /* 4136 bytes */
+#define HANGING_TAPER_STATIC_JACOBIAN_WORK 889 /* 7112 bytes */
+#define HANGING_TAPER_EQUILIBRIUM_WORK 1097 /* 8776 bytes */
+#define HANGING_TAPER_REGULATE_WORK 582 /* 4656 bytes */
+#define HANGING_TAPER_WORK_LEN 2536 /* 20288 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

@@ -555,7 +555,7 @@ static const unsigned char twin_tendon_regressor_rows[56] = {
 };
 
 /* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 60 reals.
- * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -577,65 +577,69 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t5 = kern[2] * sphi[0];
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
-    const double t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6);
-    const double t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    const double t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    const double t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27];
-    const double t12 = qd[0] * kern[12];
-    const double t13 = qd[0] * kern[13];
-    const double t14 = qd[1] * kern[5];
-    const double t15 = qd[1] * kern[4];
-    const double t16 = qd[0] * kern[22];
-    const double t17 = nu[16] * cphi[0];
-    const double t18 = nu[24] * sphi[0];
-    const double t19 = nu[24] * cphi[0];
-    const double t20 = nu[16] * sphi[0];
-    const double t21 = kern[10] - 0.018 * t20 - 0.018 * t19;
-    const double t22 = kern[11] - 0.018 * t18 + 0.018 * t17;
-    const double t23 = cphi[0] * kern[17];
-    const double t24 = sphi[0] * kern[16];
-    const double t25 = -0.0144 * t23 - 0.0144 * t24;
-    const double t26 = cphi[0] * kern[16];
-    const double t27 = sphi[0] * kern[17];
-    const double t28 = 0.0144 * t26 - 0.0144 * t27;
-    const double t29 = t21 * t25 + t22 * t28;
-    const double t30 = 0.00216 * t27 - 0.00216 * t26;
-    const double t31 = -0.00216 * t24 - 0.00216 * t23;
-    const double t32 = qd[0] * (kern[14] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30;
-    const double t33 = qd[0] * (kern[15] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31;
-    const double t34 = qd[0] * t30
-        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
-    const double t35 = qd[0] * t31
-        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
-    const double t36 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t8 + t8 + 9.72e-6 * kern[26];
-    const double t37 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
-        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15);
-    const double t38 = 0.03 * (7.59375e-5 * kern[9] * t12 - 7.59375e-5 * kern[8] * t13)
-        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t37
-        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[22];
-    const double t39 = 0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
-        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[24];
+    const double t8 = 0.0225 * t7;
+    const double t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6);
+    const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    const double t12 = 0.0225 * t11;
+    const double t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27];
+    const double t14 = qd[0] * kern[12];
+    const double t15 = qd[0] * kern[13];
+    const double t16 = qd[1] * kern[5];
+    const double t17 = qd[1] * kern[4];
+    const double t18 = -0.000432 * sphi[0];
+    const double t19 = -5.184e-5 * cphi[0];
+    const double t20 = -0.003375 * t15;
+    const double t21 = qd[0] * kern[22];
+    const double t22 = nu[16] * cphi[0];
+    const double t23 = nu[24] * sphi[0];
+    const double t24 = nu[24] * cphi[0];
+    const double t25 = nu[16] * sphi[0];
+    const double t26 = kern[10] - 0.018 * t25 - 0.018 * t24;
+    const double t27 = kern[11] - 0.018 * t23 + 0.018 * t22;
+    const double t28 = cphi[0] * kern[17];
+    const double t29 = sphi[0] * kern[16];
+    const double t30 = -0.0144 * t28 - 0.0144 * t29;
+    const double t31 = cphi[0] * kern[16];
+    const double t32 = sphi[0] * kern[17];
+    const double t33 = 0.0144 * t31 - 0.0144 * t32;
+    const double t34 = t26 * t30 + t27 * t33;
+    const double t35 = 0.00216 * t32 - 0.00216 * t31;
+    const double t36 = -0.00216 * t29 - 0.00216 * t28;
+    const double t37 = qd[0] * (kern[14] - 0.0027 * t22 + 0.0027 * t23) + qd[1] * t35;
+    const double t38 = qd[0] * (kern[15] - 0.0027 * t24 - 0.0027 * t25) + qd[1] * t36;
+    const double t39 = -0.001728 * cphi[0];
+    const double t40 = qd[0] * t35 + qd[1] * (kern[18] * t39 + 0.001728 * sphi[0] * kern[19]);
+    const double t41 = qd[0] * t36 + qd[1] * (kern[19] * t39 - 0.001728 * sphi[0] * kern[18]);
+    const double t42 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t9 + t9 + 9.72e-6 * kern[26];
+    const double t43 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t17 + t16 * t18)
+        + 0.0225 * kern[8] * (t17 * t18 - 0.000432 * cphi[0] * t16);
+    const double t44 = 0.03 * (7.59375e-5 * kern[9] * t14 - 7.59375e-5 * kern[8] * t15)
+        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t43
+        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[22];
+    const double t45 = 0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
+        - 0.0225 * kern[9] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[8] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
+        - 9.3312e-7 * qd[1] * kern[24];
     Y[0] = 0.00118125 * kern[1] * P->gravity[0] - 0.00118125 * kern[0] * P->gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
-    Y[1] = t36 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+    Y[1] = t42 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         - P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         - 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9])
-        + qd[0] * t38 + t11 * qdd[1] + qd[1] * t39;
+        + qd[0] * t44 + t13 * qdd[1] + qd[1] * t45;
     Y[2] = 1.125e-8 * qdd[0];
     Y[3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
     Y[4] = 0.00225 * q[0];
     Y[5] = 0.0;
     Y[6] = 4.5e-5 * qd[0];
     Y[7] = 0.0;
-    Y[8] = (t21 * t21 + t22 * t22) * qdd[0] - P->gravity[0] * t21 - P->gravity[1] * t22
-        + qd[0] * (t21 * t32 + t22 * t33) + t29 * qdd[1] + qd[1] * (t21 * t34 + t22 * t35);
+    Y[8] = (t26 * t26 + t27 * t27) * qdd[0] - P->gravity[0] * t26 - P->gravity[1] * t27
+        + qd[0] * (t26 * t37 + t27 * t38) + t34 * qdd[1] + qd[1] * (t26 * t40 + t27 * t41);
     Y[9] = 0.0225 * qdd[0] + 0.018 * qdd[1];
     Y[10] = 0.0;
-    Y[11] = t11 * qdd[0] - P->gravity[0] * t9 - P->gravity[1] * t10
-        + qd[0] * (1.1664e-6 * t16 - 0.003375 * t9 * t12 - 0.003375 * t10 * t13)
+    Y[11] = t13 * qdd[0] - P->gravity[0] * t10 - P->gravity[1] * t11
+        + qd[0] * (t11 * t20 - 0.003375 * t10 * t14 + 1.1664e-6 * t21)
         + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25];
     Y[12] = 0.0;
     Y[13] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
@@ -643,15 +647,15 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     Y[15] = 0.00108 * q[1];
     Y[16] = 0.0;
     Y[17] = 2.4e-5 * qd[1];
-    Y[18] = t29 * qdd[0] - P->gravity[0] * t25 - P->gravity[1] * t28
-        + qd[0] * (t25 * t32 + t28 * t33) + (t25 * t25 + t28 * t28) * qdd[1]
-        + qd[1] * (t25 * t34 + t28 * t35);
+    Y[18] = t34 * qdd[0] - P->gravity[0] * t30 - P->gravity[1] * t33
+        + qd[0] * (t30 * t37 + t33 * t38) + (t30 * t30 + t33 * t33) * qdd[1]
+        + qd[1] * (t30 * t40 + t33 * t41);
     Y[19] = 0.018 * qdd[0] + 0.0144 * qdd[1];
 }
 
 
 /* twin_tendon_regressor_with_ws at the arm file's parameters.
- * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
     twin_tendon_regressor_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, qdd, Y, work);
@@ -660,7 +664,7 @@ void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TW
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_regressor_with_ws with its scratch on this function's stack.
- * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
 {
     double work[TWIN_TENDON_REGRESSOR_WORK];
@@ -671,7 +675,7 @@ void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_regressor_ws with its scratch on this function's stack.
- * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
 {
     double work[TWIN_TENDON_REGRESSOR_WORK];
@@ -686,7 +690,7 @@ static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
 };
 
 /* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 48 reals.
- * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -700,30 +704,32 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_gravity_jacobian_rows, 16, nu, kern);
-    const double t0 = P->gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
+    const double t0 = -5.184e-5 * cphi[0];
+    const double t1 = -0.001728 * cphi[0];
+    const double t2 = P->gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
         + P->gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
-    const double t1 = P->gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
+    const double t3 = P->gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
         + P->gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]);
-    const double t2 = -P->density_scale[1] * t0 - P->payload_mass * t1;
-    const double t3 = P->gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
+    const double t4 = -P->density_scale[1] * t2 - P->payload_mass * t3;
+    const double t5 = P->gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
         + P->gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
         + 0.03 * (-0.003375 * P->gravity[0] * kern[8] - 0.003375 * P->gravity[1] * kern[9]);
-    const double t4 = P->gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+    const double t6 = P->gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
         + P->gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    const double t5 = P->gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
-        + P->gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]);
-    const double t6 = P->gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
-        + P->gravity[1] * (-0.001728 * cphi[0] * kern[15] - 0.001728 * sphi[0] * kern[14]);
+    const double t7 = P->gravity[0] * (kern[6] * t0 + 5.184e-5 * kern[7] * sphi[0])
+        + P->gravity[1] * (kern[7] * t0 - 5.184e-5 * kern[6] * sphi[0]);
+    const double t8 = P->gravity[0] * (kern[14] * t1 + 0.001728 * sphi[0] * kern[15])
+        + P->gravity[1] * (kern[15] * t1 - 0.001728 * sphi[0] * kern[14]);
     dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[0] * P->gravity[0] - 0.0001771875 * kern[1] * P->gravity[1])
-        - P->density_scale[1] * t3 - P->payload_mass * t4;
-    dG[1] = t2;
-    dG[2] = t2;
-    dG[3] = -P->density_scale[1] * t5 - P->payload_mass * t6;
+        - P->density_scale[1] * t5 - P->payload_mass * t6;
+    dG[1] = t4;
+    dG[2] = t4;
+    dG[3] = -P->density_scale[1] * t7 - P->payload_mass * t8;
 }
 
 
 /* twin_tendon_gravity_jacobian_with_ws at the arm file's parameters.
- * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_gravity_jacobian_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, dG, work);
@@ -732,7 +738,7 @@ void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_with_ws with its scratch on this function's stack.
- * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
@@ -743,7 +749,7 @@ void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
- * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
@@ -819,7 +825,7 @@ static const unsigned char twin_tendon_terms_rows[56] = {
 };
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 60 reals.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -841,75 +847,79 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     const double t5 = kern[2] * sphi[0];
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
-    const double t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6);
-    const double t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    const double t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    const double t11 = qd[0] * kern[12];
-    const double t12 = qd[0] * kern[13];
-    const double t13 = qd[1] * kern[5];
-    const double t14 = qd[1] * kern[4];
-    const double t15 = qd[0] * kern[22];
-    const double t16 = nu[16] * cphi[0];
-    const double t17 = nu[24] * sphi[0];
-    const double t18 = nu[24] * cphi[0];
-    const double t19 = nu[16] * sphi[0];
-    const double t20 = kern[10] - 0.018 * t19 - 0.018 * t18;
-    const double t21 = kern[11] - 0.018 * t17 + 0.018 * t16;
-    const double t22 = cphi[0] * kern[17];
-    const double t23 = sphi[0] * kern[16];
-    const double t24 = -0.0144 * t22 - 0.0144 * t23;
-    const double t25 = cphi[0] * kern[16];
-    const double t26 = sphi[0] * kern[17];
-    const double t27 = 0.0144 * t25 - 0.0144 * t26;
-    const double t28 = 0.00216 * t26 - 0.00216 * t25;
-    const double t29 = -0.00216 * t23 - 0.00216 * t22;
-    const double t30 = qd[0] * (kern[14] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28;
-    const double t31 = qd[0] * (kern[15] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29;
-    const double t32 = qd[0] * t28
-        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
-    const double t33 = qd[0] * t29
-        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
-    const double t34 = P->density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27])
-        + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t20 * t24 + t21 * t27)
+    const double t8 = 0.0225 * t7;
+    const double t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6);
+    const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    const double t12 = 0.0225 * t11;
+    const double t13 = qd[0] * kern[12];
+    const double t14 = qd[0] * kern[13];
+    const double t15 = qd[1] * kern[5];
+    const double t16 = qd[1] * kern[4];
+    const double t17 = -0.000432 * sphi[0];
+    const double t18 = -5.184e-5 * cphi[0];
+    const double t19 = -0.003375 * t14;
+    const double t20 = qd[0] * kern[22];
+    const double t21 = nu[16] * cphi[0];
+    const double t22 = nu[24] * sphi[0];
+    const double t23 = nu[24] * cphi[0];
+    const double t24 = nu[16] * sphi[0];
+    const double t25 = kern[10] - 0.018 * t24 - 0.018 * t23;
+    const double t26 = kern[11] - 0.018 * t22 + 0.018 * t21;
+    const double t27 = cphi[0] * kern[17];
+    const double t28 = sphi[0] * kern[16];
+    const double t29 = -0.0144 * t27 - 0.0144 * t28;
+    const double t30 = cphi[0] * kern[16];
+    const double t31 = sphi[0] * kern[17];
+    const double t32 = 0.0144 * t30 - 0.0144 * t31;
+    const double t33 = 0.00216 * t31 - 0.00216 * t30;
+    const double t34 = -0.00216 * t28 - 0.00216 * t27;
+    const double t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33;
+    const double t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34;
+    const double t37 = -0.001728 * cphi[0];
+    const double t38 = qd[0] * t33 + qd[1] * (kern[18] * t37 + 0.001728 * sphi[0] * kern[19]);
+    const double t39 = qd[0] * t34 + qd[1] * (kern[19] * t37 - 0.001728 * sphi[0] * kern[18]);
+    const double t40 = P->density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27])
+        + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t25 * t29 + t26 * t32)
         + 0.018 * P->payload_rotary_inertia;
-    const double t35 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t8 + t8 + 9.72e-6 * kern[26];
-    const double t36 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
-        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14);
-    const double t37 = 0.03 * (7.59375e-5 * kern[9] * t11 - 7.59375e-5 * kern[8] * t12)
-        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t36
-        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[22];
-    const double t38 = 0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
-        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[24];
-    const double t39 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+    const double t41 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t9 + t9 + 9.72e-6 * kern[26];
+    const double t42 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t16 + t15 * t17)
+        + 0.0225 * kern[8] * (t16 * t17 - 0.000432 * cphi[0] * t15);
+    const double t43 = 0.03 * (7.59375e-5 * kern[9] * t13 - 7.59375e-5 * kern[8] * t14)
+        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t42
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[22];
+    const double t44 = 0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
+        - 0.0225 * kern[9] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[8] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
+        - 9.3312e-7 * qd[1] * kern[24];
+    const double t45 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         + 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9]);
     B[0] = 2.6578125e-5 * kern[20] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
-        + P->density_scale[1] * t35 + 1.62e-8 * P->rotary_inertia_scale[1]
-        + P->payload_mass * (t20 * t20 + t21 * t21) + 0.0225 * P->payload_rotary_inertia;
-    B[1] = t34;
-    B[2] = t34;
+        + P->density_scale[1] * t41 + 1.62e-8 * P->rotary_inertia_scale[1]
+        + P->payload_mass * (t25 * t25 + t26 * t26) + 0.0225 * P->payload_rotary_inertia;
+    B[1] = t40;
+    B[2] = t40;
     B[3] = 6.2208e-6 * kern[23] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
-        + P->payload_mass * (t24 * t24 + t27 * t27) + 0.0144 * P->payload_rotary_inertia;
-    C[0] = P->density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[21] * P->density_scale[0]
-        + P->payload_mass * (t20 * t30 + t21 * t31);
-    C[1] = P->density_scale[1] * t38 + P->payload_mass * (t20 * t32 + t21 * t33);
-    C[2] = P->density_scale[1] * (1.1664e-6 * t15 - 0.003375 * t9 * t11 - 0.003375 * t10 * t12)
-        + P->payload_mass * (t24 * t30 + t27 * t31);
-    C[3] = P->payload_mass * (t24 * t32 + t27 * t33)
-        - 7.46496e-7 * qd[1] * kern[25] * P->density_scale[1];
+        + P->payload_mass * (t29 * t29 + t32 * t32) + 0.0144 * P->payload_rotary_inertia;
+    C[0] = P->density_scale[1] * t43 - 3.98671875e-6 * P->density_scale[0] * qd[0] * kern[21]
+        + P->payload_mass * (t25 * t35 + t26 * t36);
+    C[1] = P->density_scale[1] * t44 + P->payload_mass * (t25 * t38 + t26 * t39);
+    C[2] = P->density_scale[1] * (t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20)
+        + P->payload_mass * (t29 * t35 + t32 * t36);
+    C[3] = P->payload_mass * (t29 * t38 + t32 * t39)
+        - 7.46496e-7 * P->density_scale[1] * qd[1] * kern[25];
     G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
-        - P->density_scale[1] * t39
-        - P->payload_mass * (P->gravity[0] * t20 + P->gravity[1] * t21);
-    G[1] = -P->density_scale[1] * (P->gravity[0] * t9 + P->gravity[1] * t10)
-        - P->payload_mass * (P->gravity[0] * t24 + P->gravity[1] * t27);
+        - P->density_scale[1] * t45
+        - P->payload_mass * (P->gravity[0] * t25 + P->gravity[1] * t26);
+    G[1] = -P->density_scale[1] * (P->gravity[0] * t10 + P->gravity[1] * t11)
+        - P->payload_mass * (P->gravity[0] * t29 + P->gravity[1] * t32);
 }
 
 
 /* twin_tendon_terms_with_ws at the arm file's parameters.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_terms_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, B, C, G, work);
@@ -918,7 +928,7 @@ void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_with_ws with its scratch on this function's stack.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -929,7 +939,7 @@ void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TEN
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_ws with its scratch on this function's stack.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -989,7 +999,7 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 66 reals.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
@@ -999,7 +1009,7 @@ void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TW
 
 
 /* twin_tendon_coriolis_with_ws at the arm file's parameters.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_coriolis_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, C, work);
@@ -1008,7 +1018,7 @@ void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWI
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_with_ws with its scratch on this function's stack.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
@@ -1019,7 +1029,7 @@ void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_ws with its scratch on this function's stack.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
@@ -1029,19 +1039,20 @@ void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_T
 
 
 /* Backbone pose [x, y, angle] of segment 0 at sigma.
- * Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig. */
+ * Operations: 26 add, 62 mul, 2 div, 0 sqrt, 2 trig. */
 static void twin_tendon_pose_segment0(const double q[TWIN_TENDON_NQ], double sigma, double pose[3], double work[])
 {
     double *const pnu = &work[0]; /* 2 */
     twin_tendon_moments(0.15 * q[0] * sigma, 1, &pnu[0], &pnu[1]);
-    pose[0] = 0.15 * sigma * pnu[0];
-    pose[1] = 0.15 * sigma * pnu[1];
-    pose[2] = 0.15 * sigma * q[0];
+    const double t0 = 0.15 * sigma;
+    pose[0] = pnu[0] * t0;
+    pose[1] = pnu[1] * t0;
+    pose[2] = t0 * q[0];
 }
 
 
 /* Backbone pose [x, y, angle] of segment 1 at sigma.
- * Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 58 add, 130 mul, 4 div, 0 sqrt, 6 trig. */
 static void twin_tendon_pose_segment1(const double q[TWIN_TENDON_NQ], double sigma, double pose[3], double work[])
 {
     double *const nu = &work[0]; /* 32 */
@@ -1056,8 +1067,9 @@ static void twin_tendon_pose_segment1(const double q[TWIN_TENDON_NQ], double sig
     sphi[0] = sin(phi);
     const double t0 = sigma * pnu[0];
     const double t1 = sigma * pnu[1];
-    pose[0] = 0.15 * nu[0] + 0.12 * cphi[0] * t0 - 0.12 * sphi[0] * t1;
-    pose[1] = 0.15 * nu[8] + 0.12 * cphi[0] * t1 + 0.12 * sphi[0] * t0;
+    const double t2 = 0.12 * cphi[0];
+    pose[0] = 0.15 * nu[0] + t0 * t2 - 0.12 * sphi[0] * t1;
+    pose[1] = 0.15 * nu[8] + t1 * t2 + 0.12 * sphi[0] * t0;
     pose[2] = 0.15 * q[0] + 0.12 * sigma * q[1];
 }
 

@@ -165,7 +165,7 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -205,8 +205,8 @@ void twin_tendon_actuation_ws(const double q[TWIN_TENDON_NQ], double A[TWIN_TEND
  * +x [rad]. The tip is (segment NSEG - 1, sigma 1).
  * Invalid arguments (segment outside 0..NSEG-1, sigma outside [0, 1] or NaN) set all
  * three entries to NaN.
- * Segment 0: Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig.
- * Segment 1: Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig.
+ * Segment 0: Operations: 26 add, 62 mul, 2 div, 0 sqrt, 2 trig.
+ * Segment 1: Operations: 58 add, 130 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_pose_ws(const double q[TWIN_TENDON_NQ], int segment, double sigma, double pose[3],
     double work[]);
@@ -223,7 +223,7 @@ void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TW
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
     double G[TWIN_TENDON_NQ], double work[]);
@@ -257,7 +257,7 @@ double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const d
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ],
     double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[]);
@@ -274,7 +274,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
+ * Operations: 247 add, 473 mul, 9 div, 2 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ], double work[]);
@@ -283,7 +283,7 @@ twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -302,7 +302,7 @@ twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params 
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * twin_tendon_static_residual.
- * Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 139 add, 265 mul, 4 div, 0 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -348,7 +348,7 @@ typedef struct {
  * Returns TWIN_TENDON_OK; TWIN_TENDON_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * TWIN_TENDON_ERR_NONFINITE_INPUT (q = 0); TWIN_TENDON_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
+ * Operations per Newton iteration, at most: 281 add, 511 mul, 11 div, 4 sqrt, 12 trig.
  * Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,

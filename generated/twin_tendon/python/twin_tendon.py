@@ -340,7 +340,7 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
 def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     return terms(q, qd, **P._asdict())[1]
@@ -505,7 +505,7 @@ _GRAVITY_JACOBIAN_ROWS = _kernel_plan((
 def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric.
 
-    Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -519,25 +519,27 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     kern = _kernels(_GRAVITY_JACOBIAN_ROWS, nu)
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NQ))
-    t0 = (P.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
+    t0 = -5.184e-5 * cphi[0]
+    t1 = -0.001728 * cphi[0]
+    t2 = (P.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
         + P.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]))
-    t1 = (P.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
+    t3 = (P.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
         + P.gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]))
-    t2 = -P.density_scale[1] * t0 - P.payload_mass * t1
-    t3 = (P.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
+    t4 = -P.density_scale[1] * t2 - P.payload_mass * t3
+    t5 = (P.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
         + P.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
         + 0.03 * (-0.003375 * P.gravity[0] * kern[8] - 0.003375 * P.gravity[1] * kern[9]))
-    t4 = (P.gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+    t6 = (P.gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
         + P.gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
-    t5 = (P.gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
-        + P.gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]))
-    t6 = (P.gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
-        + P.gravity[1] * (-0.001728 * cphi[0] * kern[15] - 0.001728 * sphi[0] * kern[14]))
+    t7 = (P.gravity[0] * (kern[6] * t0 + 5.184e-5 * kern[7] * sphi[0])
+        + P.gravity[1] * (kern[7] * t0 - 5.184e-5 * kern[6] * sphi[0]))
+    t8 = (P.gravity[0] * (kern[14] * t1 + 0.001728 * sphi[0] * kern[15])
+        + P.gravity[1] * (kern[15] * t1 - 0.001728 * sphi[0] * kern[14]))
     out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[0] * P.gravity[0] - 0.0001771875 * kern[1] * P.gravity[1])
-        - P.density_scale[1] * t3 - P.payload_mass * t4)
-    out[0, 1] = t2
-    out[1, 0] = t2
-    out[1, 1] = -P.density_scale[1] * t5 - P.payload_mass * t6
+        - P.density_scale[1] * t5 - P.payload_mass * t6)
+    out[0, 1] = t4
+    out[1, 0] = t4
+    out[1, 1] = -P.density_scale[1] * t7 - P.payload_mass * t8
     return out
 
 # pairs (row, moment base)
@@ -550,7 +552,7 @@ _REGRESSOR_ROWS = _kernel_plan((
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Regressor Y(q, q', q''), NQ x NTHETA: Y theta = B q'' + C q' + G + K q + D q' exactly, for the linear parameters theta (the fields of Params but gravity, in order). Gravity is not in theta: the keyword gravity is read, the other parameters are ignored.
 
-    Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -574,63 +576,69 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t5 = kern[2] * sphi[0]
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
-    t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6)
-    t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
-    t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
-    t11 = 0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27]
-    t12 = qd[0] * kern[12]
-    t13 = qd[0] * kern[13]
-    t14 = qd[1] * kern[5]
-    t15 = qd[1] * kern[4]
-    t16 = qd[0] * kern[22]
-    t17 = nu[16] * cphi[0]
-    t18 = nu[24] * sphi[0]
-    t19 = nu[24] * cphi[0]
-    t20 = nu[16] * sphi[0]
-    t21 = kern[10] - 0.018 * t20 - 0.018 * t19
-    t22 = kern[11] - 0.018 * t18 + 0.018 * t17
-    t23 = cphi[0] * kern[17]
-    t24 = sphi[0] * kern[16]
-    t25 = -0.0144 * t23 - 0.0144 * t24
-    t26 = cphi[0] * kern[16]
-    t27 = sphi[0] * kern[17]
-    t28 = 0.0144 * t26 - 0.0144 * t27
-    t29 = t21 * t25 + t22 * t28
-    t30 = 0.00216 * t27 - 0.00216 * t26
-    t31 = -0.00216 * t24 - 0.00216 * t23
-    t32 = qd[0] * (kern[14] - 0.0027 * t17 + 0.0027 * t18) + qd[1] * t30
-    t33 = qd[0] * (kern[15] - 0.0027 * t19 - 0.0027 * t20) + qd[1] * t31
-    t34 = qd[0] * t30 + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18])
-    t35 = qd[0] * t31 + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18])
-    t36 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t8 + t8
+    t8 = 0.0225 * t7
+    t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6)
+    t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
+    t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
+    t12 = 0.0225 * t11
+    t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27]
+    t14 = qd[0] * kern[12]
+    t15 = qd[0] * kern[13]
+    t16 = qd[1] * kern[5]
+    t17 = qd[1] * kern[4]
+    t18 = -0.000432 * sphi[0]
+    t19 = -5.184e-5 * cphi[0]
+    t20 = -0.003375 * t15
+    t21 = qd[0] * kern[22]
+    t22 = nu[16] * cphi[0]
+    t23 = nu[24] * sphi[0]
+    t24 = nu[24] * cphi[0]
+    t25 = nu[16] * sphi[0]
+    t26 = kern[10] - 0.018 * t25 - 0.018 * t24
+    t27 = kern[11] - 0.018 * t23 + 0.018 * t22
+    t28 = cphi[0] * kern[17]
+    t29 = sphi[0] * kern[16]
+    t30 = -0.0144 * t28 - 0.0144 * t29
+    t31 = cphi[0] * kern[16]
+    t32 = sphi[0] * kern[17]
+    t33 = 0.0144 * t31 - 0.0144 * t32
+    t34 = t26 * t30 + t27 * t33
+    t35 = 0.00216 * t32 - 0.00216 * t31
+    t36 = -0.00216 * t29 - 0.00216 * t28
+    t37 = qd[0] * (kern[14] - 0.0027 * t22 + 0.0027 * t23) + qd[1] * t35
+    t38 = qd[0] * (kern[15] - 0.0027 * t24 - 0.0027 * t25) + qd[1] * t36
+    t39 = -0.001728 * cphi[0]
+    t40 = qd[0] * t35 + qd[1] * (kern[18] * t39 + 0.001728 * sphi[0] * kern[19])
+    t41 = qd[0] * t36 + qd[1] * (kern[19] * t39 - 0.001728 * sphi[0] * kern[18])
+    t42 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t9 + t9
         + 9.72e-6 * kern[26])
-    t37 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t15 - 0.000432 * sphi[0] * t14)
-        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t15))
-    t38 = (0.03 * (7.59375e-5 * kern[9] * t12 - 7.59375e-5 * kern[8] * t13)
-        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t37
-        + 0.15 * (0.003375 * t7 * t12 - 0.003375 * t6 * t13) - 1.1664e-6 * qd[1] * kern[22])
-    t39 = (0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
-        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t16 - 9.3312e-7 * qd[1] * kern[24])
+    t43 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t17 + t16 * t18)
+        + 0.0225 * kern[8] * (t17 * t18 - 0.000432 * cphi[0] * t16))
+    t44 = (0.03 * (7.59375e-5 * kern[9] * t14 - 7.59375e-5 * kern[8] * t15)
+        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t43
+        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[22])
+    t45 = (0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
+        - 0.0225 * kern[9] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[8] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
+        - 9.3312e-7 * qd[1] * kern[24])
     out[0, 0] = (0.00118125 * kern[1] * P.gravity[0] - 0.00118125 * kern[0] * P.gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21])
-    out[0, 1] = (t36 * qdd[0] - P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+    out[0, 1] = (t42 * qdd[0] - P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         - P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         - 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9])
-        + qd[0] * t38 + t11 * qdd[1] + qd[1] * t39)
+        + qd[0] * t44 + t13 * qdd[1] + qd[1] * t45)
     out[0, 2] = 1.125e-8 * qdd[0]
     out[0, 3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1]
     out[0, 4] = 0.00225 * q[0]
     out[0, 5] = 0.0
     out[0, 6] = 4.5e-5 * qd[0]
     out[0, 7] = 0.0
-    out[0, 8] = ((t21 * t21 + t22 * t22) * qdd[0] - P.gravity[0] * t21 - P.gravity[1] * t22
-        + qd[0] * (t21 * t32 + t22 * t33) + t29 * qdd[1] + qd[1] * (t21 * t34 + t22 * t35))
+    out[0, 8] = ((t26 * t26 + t27 * t27) * qdd[0] - P.gravity[0] * t26 - P.gravity[1] * t27
+        + qd[0] * (t26 * t37 + t27 * t38) + t34 * qdd[1] + qd[1] * (t26 * t40 + t27 * t41))
     out[0, 9] = 0.0225 * qdd[0] + 0.018 * qdd[1]
     out[1, 0] = 0.0
-    out[1, 1] = (t11 * qdd[0] - P.gravity[0] * t9 - P.gravity[1] * t10
-        + qd[0] * (1.1664e-6 * t16 - 0.003375 * t9 * t12 - 0.003375 * t10 * t13)
+    out[1, 1] = (t13 * qdd[0] - P.gravity[0] * t10 - P.gravity[1] * t11
+        + qd[0] * (t11 * t20 - 0.003375 * t10 * t14 + 1.1664e-6 * t21)
         + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25])
     out[1, 2] = 0.0
     out[1, 3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1]
@@ -638,9 +646,9 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[1, 5] = 0.00108 * q[1]
     out[1, 6] = 0.0
     out[1, 7] = 2.4e-5 * qd[1]
-    out[1, 8] = (t29 * qdd[0] - P.gravity[0] * t25 - P.gravity[1] * t28
-        + qd[0] * (t25 * t32 + t28 * t33) + (t25 * t25 + t28 * t28) * qdd[1]
-        + qd[1] * (t25 * t34 + t28 * t35))
+    out[1, 8] = (t34 * qdd[0] - P.gravity[0] * t30 - P.gravity[1] * t33
+        + qd[0] * (t30 * t37 + t33 * t38) + (t30 * t30 + t33 * t33) * qdd[1]
+        + qd[1] * (t30 * t40 + t33 * t41))
     out[1, 9] = 0.018 * qdd[0] + 0.0144 * qdd[1]
     return out
 
@@ -654,7 +662,7 @@ _TERMS_ROWS = _kernel_plan((
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -679,90 +687,97 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t5 = kern[2] * sphi[0]
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
-    t8 = 0.15 * (0.0225 * kern[9] * t7 + 0.0225 * kern[8] * t6)
-    t9 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
-    t10 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
-    t11 = qd[0] * kern[12]
-    t12 = qd[0] * kern[13]
-    t13 = qd[1] * kern[5]
-    t14 = qd[1] * kern[4]
-    t15 = qd[0] * kern[22]
-    t16 = nu[16] * cphi[0]
-    t17 = nu[24] * sphi[0]
-    t18 = nu[24] * cphi[0]
-    t19 = nu[16] * sphi[0]
-    t20 = kern[10] - 0.018 * t19 - 0.018 * t18
-    t21 = kern[11] - 0.018 * t17 + 0.018 * t16
-    t22 = cphi[0] * kern[17]
-    t23 = sphi[0] * kern[16]
-    t24 = -0.0144 * t22 - 0.0144 * t23
-    t25 = cphi[0] * kern[16]
-    t26 = sphi[0] * kern[17]
-    t27 = 0.0144 * t25 - 0.0144 * t26
-    t28 = 0.00216 * t26 - 0.00216 * t25
-    t29 = -0.00216 * t23 - 0.00216 * t22
-    t30 = qd[0] * (kern[14] - 0.0027 * t16 + 0.0027 * t17) + qd[1] * t28
-    t31 = qd[0] * (kern[15] - 0.0027 * t18 - 0.0027 * t19) + qd[1] * t29
-    t32 = qd[0] * t28 + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18])
-    t33 = qd[0] * t29 + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18])
-    t34 = (P.density_scale[1] * (0.0225 * kern[8] * t10 - 0.0225 * kern[9] * t9 + 7.776e-6 * kern[27])
-        + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t24 + t21 * t27)
+    t8 = 0.0225 * t7
+    t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6)
+    t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
+    t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
+    t12 = 0.0225 * t11
+    t13 = qd[0] * kern[12]
+    t14 = qd[0] * kern[13]
+    t15 = qd[1] * kern[5]
+    t16 = qd[1] * kern[4]
+    t17 = -0.000432 * sphi[0]
+    t18 = -5.184e-5 * cphi[0]
+    t19 = -0.003375 * t14
+    t20 = qd[0] * kern[22]
+    t21 = nu[16] * cphi[0]
+    t22 = nu[24] * sphi[0]
+    t23 = nu[24] * cphi[0]
+    t24 = nu[16] * sphi[0]
+    t25 = kern[10] - 0.018 * t24 - 0.018 * t23
+    t26 = kern[11] - 0.018 * t22 + 0.018 * t21
+    t27 = cphi[0] * kern[17]
+    t28 = sphi[0] * kern[16]
+    t29 = -0.0144 * t27 - 0.0144 * t28
+    t30 = cphi[0] * kern[16]
+    t31 = sphi[0] * kern[17]
+    t32 = 0.0144 * t30 - 0.0144 * t31
+    t33 = 0.00216 * t31 - 0.00216 * t30
+    t34 = -0.00216 * t28 - 0.00216 * t27
+    t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33
+    t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34
+    t37 = -0.001728 * cphi[0]
+    t38 = qd[0] * t33 + qd[1] * (kern[18] * t37 + 0.001728 * sphi[0] * kern[19])
+    t39 = qd[0] * t34 + qd[1] * (kern[19] * t37 - 0.001728 * sphi[0] * kern[18])
+    t40 = (P.density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27])
+        + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t25 * t29 + t26 * t32)
         + 0.018 * P.payload_rotary_inertia)
-    t35 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t8 + t8
+    t41 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t9 + t9
         + 9.72e-6 * kern[26])
-    t36 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t14 - 0.000432 * sphi[0] * t13)
-        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t13 - 0.000432 * sphi[0] * t14))
-    t37 = (0.03 * (7.59375e-5 * kern[9] * t11 - 7.59375e-5 * kern[8] * t12)
-        - 0.0225 * qd[0] * (0.0225 * kern[8] * t7 - 0.0225 * kern[9] * t6) + 0.15 * t36
-        + 0.15 * (0.003375 * t7 * t11 - 0.003375 * t6 * t12) - 1.1664e-6 * qd[1] * kern[22])
-    t38 = (0.15 * qd[0] * (0.0225 * kern[9] * t10 + 0.0225 * kern[8] * t9)
-        - 0.0225 * kern[9] * (5.184e-5 * t1 * sphi[0] - 5.184e-5 * t0 * cphi[0])
-        + 0.0225 * kern[8] * (-5.184e-5 * t1 * cphi[0] - 5.184e-5 * t0 * sphi[0])
-        - 1.1664e-6 * t15 - 9.3312e-7 * qd[1] * kern[24])
-    t39 = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+    t42 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t16 + t15 * t17)
+        + 0.0225 * kern[8] * (t16 * t17 - 0.000432 * cphi[0] * t15))
+    t43 = (0.03 * (7.59375e-5 * kern[9] * t13 - 7.59375e-5 * kern[8] * t14)
+        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t42
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[22])
+    t44 = (0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
+        - 0.0225 * kern[9] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[8] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
+        - 9.3312e-7 * qd[1] * kern[24])
+    t45 = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         + 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9]))
     b[0, 0] = (2.6578125e-5 * kern[20] * P.density_scale[0]
-        + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t35
-        + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t20 * t20 + t21 * t21)
+        + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t41
+        + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t25 * t25 + t26 * t26)
         + 0.0225 * P.payload_rotary_inertia)
-    b[0, 1] = t34
-    b[1, 0] = t34
+    b[0, 1] = t40
+    b[1, 0] = t40
     b[1, 1] = (6.2208e-6 * kern[23] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
-        + P.payload_mass * (t24 * t24 + t27 * t27) + 0.0144 * P.payload_rotary_inertia)
-    c[0, 0] = (P.density_scale[1] * t37 - 3.98671875e-6 * qd[0] * kern[21] * P.density_scale[0]
-        + P.payload_mass * (t20 * t30 + t21 * t31))
-    c[0, 1] = P.density_scale[1] * t38 + P.payload_mass * (t20 * t32 + t21 * t33)
-    c[1, 0] = (P.density_scale[1] * (1.1664e-6 * t15 - 0.003375 * t9 * t11 - 0.003375 * t10 * t12)
-        + P.payload_mass * (t24 * t30 + t27 * t31))
-    c[1, 1] = (P.payload_mass * (t24 * t32 + t27 * t33)
-        - 7.46496e-7 * qd[1] * kern[25] * P.density_scale[1])
+        + P.payload_mass * (t29 * t29 + t32 * t32) + 0.0144 * P.payload_rotary_inertia)
+    c[0, 0] = (P.density_scale[1] * t43 - 3.98671875e-6 * P.density_scale[0] * qd[0] * kern[21]
+        + P.payload_mass * (t25 * t35 + t26 * t36))
+    c[0, 1] = P.density_scale[1] * t44 + P.payload_mass * (t25 * t38 + t26 * t39)
+    c[1, 0] = (P.density_scale[1] * (t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20)
+        + P.payload_mass * (t29 * t35 + t32 * t36))
+    c[1, 1] = (P.payload_mass * (t29 * t38 + t32 * t39)
+        - 7.46496e-7 * P.density_scale[1] * qd[1] * kern[25])
     g[0] = (-P.density_scale[0] * (0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0])
-        - P.density_scale[1] * t39 - P.payload_mass * (P.gravity[0] * t20 + P.gravity[1] * t21))
-    g[1] = (-P.density_scale[1] * (P.gravity[0] * t9 + P.gravity[1] * t10)
-        - P.payload_mass * (P.gravity[0] * t24 + P.gravity[1] * t27))
+        - P.density_scale[1] * t45 - P.payload_mass * (P.gravity[0] * t25 + P.gravity[1] * t26))
+    g[1] = (-P.density_scale[1] * (P.gravity[0] * t10 + P.gravity[1] * t11)
+        - P.payload_mass * (P.gravity[0] * t29 + P.gravity[1] * t32))
     return b, c, g
 
 
 def _pose_segment0(q, sigma):
     """Backbone pose [x, y, angle] of segment 0 at sigma.
 
-    Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig.
+    Operations: 26 add, 62 mul, 2 div, 0 sqrt, 2 trig.
     """
     q = _vector(q, NQ, "q")
     pnu = [0.0] * 2
     _moments(0.15 * q[0] * sigma, 1, pnu, 0, 1)
     out = np.zeros(3)
-    out[0] = 0.15 * sigma * pnu[0]
-    out[1] = 0.15 * sigma * pnu[1]
-    out[2] = 0.15 * sigma * q[0]
+    t0 = 0.15 * sigma
+    out[0] = pnu[0] * t0
+    out[1] = pnu[1] * t0
+    out[2] = t0 * q[0]
     return out
 
 
 def _pose_segment1(q, sigma):
     """Backbone pose [x, y, angle] of segment 1 at sigma.
 
-    Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 58 add, 130 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -777,8 +792,9 @@ def _pose_segment1(q, sigma):
     out = np.zeros(3)
     t0 = sigma * pnu[0]
     t1 = sigma * pnu[1]
-    out[0] = 0.15 * nu[0] + 0.12 * cphi[0] * t0 - 0.12 * sphi[0] * t1
-    out[1] = 0.15 * nu[8] + 0.12 * cphi[0] * t1 + 0.12 * sphi[0] * t0
+    t2 = 0.12 * cphi[0]
+    out[0] = 0.15 * nu[0] + t0 * t2 - 0.12 * sphi[0] * t1
+    out[1] = 0.15 * nu[8] + t1 * t2 + 0.12 * sphi[0] * t0
     out[2] = 0.15 * q[0] + 0.12 * sigma * q[1]
     return out
 
@@ -808,7 +824,7 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
+    Operations: 247 add, 473 mul, 9 div, 2 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
@@ -978,7 +994,7 @@ def static_jacobian(q, u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     """Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq: symmetric (every
     load of the model is conservative), positive definite at a stable equilibrium.
 
-    Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 139 add, 265 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
@@ -1018,7 +1034,7 @@ def equilibrium(u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
 
-    Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
+    Operations per Newton iteration, at most: 281 add, 511 mul, 11 div, 4 sqrt, 12 trig.
     Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)

@@ -14,6 +14,8 @@
 //!    flop-counting cost made DAG-aware by re-extraction, a window's result taken only
 //!    if it is cheaper. Hard limits on nodes, iterations and time per window and in
 //!    total; a window that hits one keeps the best it has, which is still equivalent.
+//! 4. [`crate::scaled_factors`], as at the end of the derivation: a constant times a
+//!    factor that recurs in products becomes one node.
 //!
 //! Everything iterates in program order or over ordered maps, and egg runs with its
 //! `deterministic` feature, so equal inputs give byte-identical programs.
@@ -148,6 +150,13 @@ pub fn optimise(model: &Model, limits: &Limits) -> (Model, Report) {
     let (p1, ids1) = linear::run(&p1, &ids1, limits.time_limit / 4);
     let after_factoring = start.elapsed();
     let (p2, ids2, eg) = egraph::run(&p1, &ids1, limits);
+    // The stages rebuild through the canonical constructors, which pull constants out
+    // of products again; share the scaled factors as the derivation does.
+    let (p2, map) = crate::scaled_factors::share(&p2, &ids2);
+    let ids2: Vec<Id> = ids2
+        .iter()
+        .map(|id| map[id.index()].expect("roots are live"))
+        .collect();
 
     let mut per_function = Vec::new();
     let mut at = 0;

@@ -146,12 +146,12 @@ pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (91 reals, 728 bytes at most). Own one per
+/// plain functions keep on the stack (96 reals, 768 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 91;
+pub const WORK_LEN: usize = 96;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -700,9 +700,9 @@ static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
     8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2,
     16, 2, 24, 9, 16, 9, 24,
 ];
-/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 53 reals).
+/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 54 reals).
 ///
-/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
 fn gravity_jacobian_in(
     p: &Params,
     q: &[Real; NQ],
@@ -710,7 +710,7 @@ fn gravity_jacobian_in(
 ) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(16);
-    let t = &mut work[..5];
+    let t = &mut work[..6];
     moments(0.15 * q[0], 4, nu, 0, 8);
     moments(0.12 * q[1], 4, nu, 16, 24);
     let mut cphi = [0.0; 1];
@@ -720,54 +720,55 @@ fn gravity_jacobian_in(
     sphi[0] = libm::sin(phi);
     kernels(&GRAVITY_JACOBIAN_ROWS[0..32], nu, &mut kern[0..16]);
     let mut out = [[0.0; NQ]; NQ];
-    t[0] = p.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
+    t[0] = -5.184e-5 * cphi[0];
+    t[1] = -0.001728 * cphi[0];
+    t[2] = p.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
         + p.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
-    t[1] = p.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
+    t[3] = p.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
         + p.gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]);
-    t[2] = -p.density_scale[1] * t[0] - p.payload_mass * t[1];
-    t[0] = p.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
+    t[4] = -p.density_scale[1] * t[2] - p.payload_mass * t[3];
+    t[2] = p.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
         + p.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
         + 0.03
             * (-0.003375 * p.gravity[0] * kern[8] - 0.003375 * p.gravity[1] * kern[9]);
-    t[1] = p.gravity[0]
+    t[3] = p.gravity[0]
         * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
         + p.gravity[1]
             * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    t[3] = p.gravity[0] * (5.184e-5 * kern[7] * sphi[0] - 5.184e-5 * kern[6] * cphi[0])
-        + p.gravity[1] * (-5.184e-5 * kern[7] * cphi[0] - 5.184e-5 * kern[6] * sphi[0]);
-    t[4] = p.gravity[0] * (0.001728 * sphi[0] * kern[15] - 0.001728 * cphi[0] * kern[14])
-        + p.gravity[1]
-            * (-0.001728 * cphi[0] * kern[15] - 0.001728 * sphi[0] * kern[14]);
+    t[5] = p.gravity[0] * (kern[6] * t[0] + 5.184e-5 * kern[7] * sphi[0])
+        + p.gravity[1] * (kern[7] * t[0] - 5.184e-5 * kern[6] * sphi[0]);
+    t[0] = p.gravity[0] * (kern[14] * t[1] + 0.001728 * sphi[0] * kern[15])
+        + p.gravity[1] * (kern[15] * t[1] - 0.001728 * sphi[0] * kern[14]);
     out[0][0] = -p.density_scale[0]
         * (-0.0001771875 * kern[0] * p.gravity[0]
-            - 0.0001771875 * kern[1] * p.gravity[1]) - p.density_scale[1] * t[0]
-        - p.payload_mass * t[1];
-    out[0][1] = t[2];
-    out[1][0] = t[2];
-    out[1][1] = -p.density_scale[1] * t[3] - p.payload_mass * t[4];
+            - 0.0001771875 * kern[1] * p.gravity[1]) - p.density_scale[1] * t[2]
+        - p.payload_mass * t[3];
+    out[0][1] = t[4];
+    out[1][0] = t[4];
+    out[1][1] = -p.density_scale[1] * t[5] - p.payload_mass * t[0];
     out
 }
 /// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 53])
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 54])
 }
-/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
+/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (54 reals); the same values.
 ///
-/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity_jacobian`] at the runtime parameters `p`.
 ///
-/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(p, q, &mut [0.0; 53])
+    gravity_jacobian_in(p, q, &mut [0.0; 54])
 }
 /// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 135 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -836,9 +837,9 @@ static TERMS_ROWS: [u8; 56] = [
     9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24,
     11, 24, 6, 16, 7, 16,
 ];
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 89 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 94 reals).
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
     p: &Params,
     q: &[Real; NQ],
@@ -847,7 +848,7 @@ fn terms_in(
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
-    let t = &mut work[..29];
+    let t = &mut work[..34];
     moments(0.15 * q[0], 6, nu, 0, 8);
     moments(0.12 * q[1], 6, nu, 16, 24);
     let mut cphi = [0.0; 1];
@@ -867,95 +868,98 @@ fn terms_in(
     t[5] = kern[2] * sphi[0];
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
-    t[8] = 0.15 * (0.0225 * kern[9] * t[7] + 0.0225 * kern[8] * t[6]);
-    t[9] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    t[10] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    t[11] = qd[0] * kern[12];
-    t[12] = qd[0] * kern[13];
-    t[13] = qd[1] * kern[5];
-    t[14] = qd[1] * kern[4];
-    t[15] = qd[0] * kern[22];
-    t[16] = nu[16] * cphi[0];
-    t[17] = nu[24] * sphi[0];
-    t[18] = nu[24] * cphi[0];
-    t[19] = nu[16] * sphi[0];
-    t[20] = kern[10] - 0.018 * t[19] - 0.018 * t[18];
-    t[21] = kern[11] - 0.018 * t[17] + 0.018 * t[16];
-    t[22] = cphi[0] * kern[17];
-    t[23] = sphi[0] * kern[16];
-    t[24] = -0.0144 * t[22] - 0.0144 * t[23];
-    t[25] = cphi[0] * kern[16];
-    t[26] = sphi[0] * kern[17];
-    t[27] = 0.0144 * t[25] - 0.0144 * t[26];
-    t[28] = 0.00216 * t[26] - 0.00216 * t[25];
-    t[25] = -0.00216 * t[23] - 0.00216 * t[22];
-    t[22] = qd[0] * (kern[14] - 0.0027 * t[16] + 0.0027 * t[17]) + qd[1] * t[28];
-    t[16] = qd[0] * (kern[15] - 0.0027 * t[18] - 0.0027 * t[19]) + qd[1] * t[25];
-    t[17] = qd[0] * t[28]
-        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
-    t[18] = qd[0] * t[25]
-        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
-    t[19] = p.density_scale[1]
-        * (0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + 7.776e-6 * kern[27])
+    t[8] = 0.0225 * t[7];
+    t[9] = 0.15 * (kern[9] * t[8] + 0.0225 * kern[8] * t[6]);
+    t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    t[12] = 0.0225 * t[11];
+    t[13] = qd[0] * kern[12];
+    t[14] = qd[0] * kern[13];
+    t[15] = qd[1] * kern[5];
+    t[16] = qd[1] * kern[4];
+    t[17] = -0.000432 * sphi[0];
+    t[18] = -5.184e-5 * cphi[0];
+    t[19] = -0.003375 * t[14];
+    t[20] = qd[0] * kern[22];
+    t[21] = nu[16] * cphi[0];
+    t[22] = nu[24] * sphi[0];
+    t[23] = nu[24] * cphi[0];
+    t[24] = nu[16] * sphi[0];
+    t[25] = kern[10] - 0.018 * t[24] - 0.018 * t[23];
+    t[26] = kern[11] - 0.018 * t[22] + 0.018 * t[21];
+    t[27] = cphi[0] * kern[17];
+    t[28] = sphi[0] * kern[16];
+    t[29] = -0.0144 * t[27] - 0.0144 * t[28];
+    t[30] = cphi[0] * kern[16];
+    t[31] = sphi[0] * kern[17];
+    t[32] = 0.0144 * t[30] - 0.0144 * t[31];
+    t[33] = 0.00216 * t[31] - 0.00216 * t[30];
+    t[30] = -0.00216 * t[28] - 0.00216 * t[27];
+    t[27] = qd[0] * (kern[14] - 0.0027 * t[21] + 0.0027 * t[22]) + qd[1] * t[33];
+    t[21] = qd[0] * (kern[15] - 0.0027 * t[23] - 0.0027 * t[24]) + qd[1] * t[30];
+    t[22] = -0.001728 * cphi[0];
+    t[23] = qd[0] * t[33] + qd[1] * (kern[18] * t[22] + 0.001728 * sphi[0] * kern[19]);
+    t[24] = qd[0] * t[30] + qd[1] * (kern[19] * t[22] - 0.001728 * sphi[0] * kern[18]);
+    t[22] = p.density_scale[1]
+        * (kern[8] * t[12] - 0.0225 * kern[9] * t[10] + 7.776e-6 * kern[27])
         + 6.48e-9 * p.rotary_inertia_scale[1]
-        + p.payload_mass * (t[20] * t[24] + t[21] * t[27])
+        + p.payload_mass * (t[25] * t[29] + t[26] * t[32])
         + 0.018 * p.payload_rotary_inertia;
-    t[23] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t[8] + t[8] + 9.72e-6 * kern[26];
-    t[8] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[13])
-        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t[13] - 0.000432 * sphi[0] * t[14]);
-    t[13] = 0.03 * (7.59375e-5 * kern[9] * t[11] - 7.59375e-5 * kern[8] * t[12])
-        - 0.0225 * qd[0] * (0.0225 * kern[8] * t[7] - 0.0225 * kern[9] * t[6])
-        + 0.15 * t[8] + 0.15 * (0.003375 * t[7] * t[11] - 0.003375 * t[6] * t[12])
-        - 1.1664e-6 * qd[1] * kern[22];
-    t[6] = 0.15 * qd[0] * (0.0225 * kern[9] * t[10] + 0.0225 * kern[8] * t[9])
-        - 0.0225 * kern[9] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
-        + 0.0225 * kern[8] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[15] - 9.3312e-7 * qd[1] * kern[24];
+    t[28] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t[9] + t[9] + 9.72e-6 * kern[26];
+    t[9] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
+        + 0.0225 * kern[8] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
+    t[15] = 0.03 * (7.59375e-5 * kern[9] * t[13] - 7.59375e-5 * kern[8] * t[14])
+        - 0.0225 * qd[0] * (kern[8] * t[8] - 0.0225 * kern[9] * t[6]) + 0.15 * t[9]
+        + 0.15 * (0.003375 * t[7] * t[13] + t[6] * t[19]) - 1.1664e-6 * qd[1] * kern[22];
+    t[6] = 0.15 * qd[0] * (kern[9] * t[12] + 0.0225 * kern[8] * t[10])
+        - 0.0225 * kern[9] * (t[0] * t[18] + 5.184e-5 * t[1] * sphi[0])
+        + 0.0225 * kern[8] * (t[1] * t[18] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[20] - 9.3312e-7 * qd[1] * kern[24];
     t[0] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
         + 0.03 * (0.0225 * p.gravity[1] * kern[8] - 0.0225 * p.gravity[0] * kern[9]);
     b[0][0] = 2.6578125e-5 * kern[20] * p.density_scale[0]
-        + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[23]
+        + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[28]
         + 1.62e-8 * p.rotary_inertia_scale[1]
-        + p.payload_mass * (t[20] * t[20] + t[21] * t[21])
+        + p.payload_mass * (t[25] * t[25] + t[26] * t[26])
         + 0.0225 * p.payload_rotary_inertia;
-    b[0][1] = t[19];
-    b[1][0] = t[19];
+    b[0][1] = t[22];
+    b[1][0] = t[22];
     b[1][1] = 6.2208e-6 * kern[23] * p.density_scale[1]
         + 3.456e-9 * p.rotary_inertia_scale[1]
-        + p.payload_mass * (t[24] * t[24] + t[27] * t[27])
+        + p.payload_mass * (t[29] * t[29] + t[32] * t[32])
         + 0.0144 * p.payload_rotary_inertia;
-    c[0][0] = p.density_scale[1] * t[13]
-        - 3.98671875e-6 * qd[0] * kern[21] * p.density_scale[0]
-        + p.payload_mass * (t[20] * t[22] + t[21] * t[16]);
+    c[0][0] = p.density_scale[1] * t[15]
+        - 3.98671875e-6 * p.density_scale[0] * qd[0] * kern[21]
+        + p.payload_mass * (t[25] * t[27] + t[26] * t[21]);
     c[0][1] = p.density_scale[1] * t[6]
-        + p.payload_mass * (t[20] * t[17] + t[21] * t[18]);
+        + p.payload_mass * (t[25] * t[23] + t[26] * t[24]);
     c[1][0] = p.density_scale[1]
-        * (1.1664e-6 * t[15] - 0.003375 * t[9] * t[11] - 0.003375 * t[10] * t[12])
-        + p.payload_mass * (t[24] * t[22] + t[27] * t[16]);
-    c[1][1] = p.payload_mass * (t[24] * t[17] + t[27] * t[18])
-        - 7.46496e-7 * qd[1] * kern[25] * p.density_scale[1];
+        * (t[11] * t[19] - 0.003375 * t[10] * t[13] + 1.1664e-6 * t[20])
+        + p.payload_mass * (t[29] * t[27] + t[32] * t[21]);
+    c[1][1] = p.payload_mass * (t[29] * t[23] + t[32] * t[24])
+        - 7.46496e-7 * p.density_scale[1] * qd[1] * kern[25];
     g[0] = -p.density_scale[0]
         * (0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0])
         - p.density_scale[1] * t[0]
-        - p.payload_mass * (p.gravity[0] * t[20] + p.gravity[1] * t[21]);
-    g[1] = -p.density_scale[1] * (p.gravity[0] * t[9] + p.gravity[1] * t[10])
-        - p.payload_mass * (p.gravity[0] * t[24] + p.gravity[1] * t[27]);
+        - p.payload_mass * (p.gravity[0] * t[25] + p.gravity[1] * t[26]);
+    g[1] = -p.density_scale[1] * (p.gravity[0] * t[10] + p.gravity[1] * t[11])
+        - p.payload_mass * (p.gravity[0] * t[29] + p.gravity[1] * t[32]);
     (b, c, g)
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 94])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (94 reals); the same values.
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -965,17 +969,17 @@ pub fn terms_ws(
 }
 /// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with(
     p: &Params,
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 89])
+    terms_in(p, q, qd, &mut [0.0; 94])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -990,9 +994,9 @@ static REGRESSOR_ROWS: [u8; 56] = [
     9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24,
     11, 24, 6, 16, 7, 16,
 ];
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 91 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 96 reals).
 ///
-/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 fn regressor_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1002,7 +1006,7 @@ fn regressor_in(
 ) -> [[Real; NTHETA]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(28);
-    let t = &mut work[..31];
+    let t = &mut work[..36];
     moments(0.15 * q[0], 6, nu, 0, 8);
     moments(0.12 * q[1], 6, nu, 16, 24);
     let mut cphi = [0.0; 1];
@@ -1020,68 +1024,70 @@ fn regressor_in(
     t[5] = kern[2] * sphi[0];
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
-    t[8] = 0.15 * (0.0225 * kern[9] * t[7] + 0.0225 * kern[8] * t[6]);
-    t[9] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    t[10] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    t[11] = 0.0225 * kern[8] * t[10] - 0.0225 * kern[9] * t[9] + 7.776e-6 * kern[27];
-    t[12] = qd[0] * kern[12];
-    t[13] = qd[0] * kern[13];
-    t[14] = qd[1] * kern[5];
-    t[15] = qd[1] * kern[4];
-    t[16] = qd[0] * kern[22];
-    t[17] = nu[16] * cphi[0];
-    t[18] = nu[24] * sphi[0];
-    t[19] = nu[24] * cphi[0];
-    t[20] = nu[16] * sphi[0];
-    t[21] = kern[10] - 0.018 * t[20] - 0.018 * t[19];
-    t[22] = kern[11] - 0.018 * t[18] + 0.018 * t[17];
-    t[23] = cphi[0] * kern[17];
-    t[24] = sphi[0] * kern[16];
-    t[25] = -0.0144 * t[23] - 0.0144 * t[24];
-    t[26] = cphi[0] * kern[16];
-    t[27] = sphi[0] * kern[17];
-    t[28] = 0.0144 * t[26] - 0.0144 * t[27];
-    t[29] = t[21] * t[25] + t[22] * t[28];
-    t[30] = 0.00216 * t[27] - 0.00216 * t[26];
-    t[26] = -0.00216 * t[24] - 0.00216 * t[23];
-    t[23] = qd[0] * (kern[14] - 0.0027 * t[17] + 0.0027 * t[18]) + qd[1] * t[30];
-    t[17] = qd[0] * (kern[15] - 0.0027 * t[19] - 0.0027 * t[20]) + qd[1] * t[26];
-    t[18] = qd[0] * t[30]
-        + qd[1] * (0.001728 * sphi[0] * kern[19] - 0.001728 * cphi[0] * kern[18]);
-    t[19] = qd[0] * t[26]
-        + qd[1] * (-0.001728 * cphi[0] * kern[19] - 0.001728 * sphi[0] * kern[18]);
-    t[20] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t[8] + t[8] + 9.72e-6 * kern[26];
-    t[8] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[15] - 0.000432 * sphi[0] * t[14])
-        + 0.0225 * kern[8] * (-0.000432 * cphi[0] * t[14] - 0.000432 * sphi[0] * t[15]);
-    t[14] = 0.03 * (7.59375e-5 * kern[9] * t[12] - 7.59375e-5 * kern[8] * t[13])
-        - 0.0225 * qd[0] * (0.0225 * kern[8] * t[7] - 0.0225 * kern[9] * t[6])
-        + 0.15 * t[8] + 0.15 * (0.003375 * t[7] * t[12] - 0.003375 * t[6] * t[13])
-        - 1.1664e-6 * qd[1] * kern[22];
-    t[6] = 0.15 * qd[0] * (0.0225 * kern[9] * t[10] + 0.0225 * kern[8] * t[9])
-        - 0.0225 * kern[9] * (5.184e-5 * t[1] * sphi[0] - 5.184e-5 * t[0] * cphi[0])
-        + 0.0225 * kern[8] * (-5.184e-5 * t[1] * cphi[0] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[16] - 9.3312e-7 * qd[1] * kern[24];
+    t[8] = 0.0225 * t[7];
+    t[9] = 0.15 * (kern[9] * t[8] + 0.0225 * kern[8] * t[6]);
+    t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    t[12] = 0.0225 * t[11];
+    t[13] = kern[8] * t[12] - 0.0225 * kern[9] * t[10] + 7.776e-6 * kern[27];
+    t[14] = qd[0] * kern[12];
+    t[15] = qd[0] * kern[13];
+    t[16] = qd[1] * kern[5];
+    t[17] = qd[1] * kern[4];
+    t[18] = -0.000432 * sphi[0];
+    t[19] = -5.184e-5 * cphi[0];
+    t[20] = -0.003375 * t[15];
+    t[21] = qd[0] * kern[22];
+    t[22] = nu[16] * cphi[0];
+    t[23] = nu[24] * sphi[0];
+    t[24] = nu[24] * cphi[0];
+    t[25] = nu[16] * sphi[0];
+    t[26] = kern[10] - 0.018 * t[25] - 0.018 * t[24];
+    t[27] = kern[11] - 0.018 * t[23] + 0.018 * t[22];
+    t[28] = cphi[0] * kern[17];
+    t[29] = sphi[0] * kern[16];
+    t[30] = -0.0144 * t[28] - 0.0144 * t[29];
+    t[31] = cphi[0] * kern[16];
+    t[32] = sphi[0] * kern[17];
+    t[33] = 0.0144 * t[31] - 0.0144 * t[32];
+    t[34] = t[26] * t[30] + t[27] * t[33];
+    t[35] = 0.00216 * t[32] - 0.00216 * t[31];
+    t[31] = -0.00216 * t[29] - 0.00216 * t[28];
+    t[28] = qd[0] * (kern[14] - 0.0027 * t[22] + 0.0027 * t[23]) + qd[1] * t[35];
+    t[22] = qd[0] * (kern[15] - 0.0027 * t[24] - 0.0027 * t[25]) + qd[1] * t[31];
+    t[23] = -0.001728 * cphi[0];
+    t[24] = qd[0] * t[35] + qd[1] * (kern[18] * t[23] + 0.001728 * sphi[0] * kern[19]);
+    t[25] = qd[0] * t[31] + qd[1] * (kern[19] * t[23] - 0.001728 * sphi[0] * kern[18]);
+    t[23] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+        + t[9] + t[9] + 9.72e-6 * kern[26];
+    t[9] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[17] + t[16] * t[18])
+        + 0.0225 * kern[8] * (t[17] * t[18] - 0.000432 * cphi[0] * t[16]);
+    t[16] = 0.03 * (7.59375e-5 * kern[9] * t[14] - 7.59375e-5 * kern[8] * t[15])
+        - 0.0225 * qd[0] * (kern[8] * t[8] - 0.0225 * kern[9] * t[6]) + 0.15 * t[9]
+        + 0.15 * (0.003375 * t[7] * t[14] + t[6] * t[20]) - 1.1664e-6 * qd[1] * kern[22];
+    t[6] = 0.15 * qd[0] * (kern[9] * t[12] + 0.0225 * kern[8] * t[10])
+        - 0.0225 * kern[9] * (t[0] * t[19] + 5.184e-5 * t[1] * sphi[0])
+        + 0.0225 * kern[8] * (t[1] * t[19] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[21] - 9.3312e-7 * qd[1] * kern[24];
     out[0][0] = 0.00118125 * kern[1] * p.gravity[0] - 0.00118125 * kern[0] * p.gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
-    out[0][1] = t[20] * qdd[0] - p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
+    out[0][1] = t[23] * qdd[0] - p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         - p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
         - 0.03 * (0.0225 * p.gravity[1] * kern[8] - 0.0225 * p.gravity[0] * kern[9])
-        + qd[0] * t[14] + t[11] * qdd[1] + qd[1] * t[6];
+        + qd[0] * t[16] + t[13] * qdd[1] + qd[1] * t[6];
     out[0][2] = 1.125e-8 * qdd[0];
     out[0][3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
     out[0][4] = 0.00225 * q[0];
     out[0][5] = 0.0;
     out[0][6] = 4.5e-5 * qd[0];
     out[0][7] = 0.0;
-    out[0][8] = (t[21] * t[21] + t[22] * t[22]) * qdd[0] - p.gravity[0] * t[21]
-        - p.gravity[1] * t[22] + qd[0] * (t[21] * t[23] + t[22] * t[17]) + t[29] * qdd[1]
-        + qd[1] * (t[21] * t[18] + t[22] * t[19]);
+    out[0][8] = (t[26] * t[26] + t[27] * t[27]) * qdd[0] - p.gravity[0] * t[26]
+        - p.gravity[1] * t[27] + qd[0] * (t[26] * t[28] + t[27] * t[22]) + t[34] * qdd[1]
+        + qd[1] * (t[26] * t[24] + t[27] * t[25]);
     out[0][9] = 0.0225 * qdd[0] + 0.018 * qdd[1];
     out[1][0] = 0.0;
-    out[1][1] = t[11] * qdd[0] - p.gravity[0] * t[9] - p.gravity[1] * t[10]
-        + qd[0]
-            * (1.1664e-6 * t[16] - 0.003375 * t[9] * t[12] - 0.003375 * t[10] * t[13])
+    out[1][1] = t[13] * qdd[0] - p.gravity[0] * t[10] - p.gravity[1] * t[11]
+        + qd[0] * (t[11] * t[20] - 0.003375 * t[10] * t[14] + 1.1664e-6 * t[21])
         + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25];
     out[1][2] = 0.0;
     out[1][3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
@@ -1089,26 +1095,26 @@ fn regressor_in(
     out[1][5] = 0.00108 * q[1];
     out[1][6] = 0.0;
     out[1][7] = 2.4e-5 * qd[1];
-    out[1][8] = t[29] * qdd[0] - p.gravity[0] * t[25] - p.gravity[1] * t[28]
-        + qd[0] * (t[25] * t[23] + t[28] * t[17])
-        + (t[25] * t[25] + t[28] * t[28]) * qdd[1]
-        + qd[1] * (t[25] * t[18] + t[28] * t[19]);
+    out[1][8] = t[34] * qdd[0] - p.gravity[0] * t[30] - p.gravity[1] * t[33]
+        + qd[0] * (t[30] * t[28] + t[33] * t[22])
+        + (t[30] * t[30] + t[33] * t[33]) * qdd[1]
+        + qd[1] * (t[30] * t[24] + t[33] * t[25]);
     out[1][9] = 0.018 * qdd[0] + 0.0144 * qdd[1];
     out
 }
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor(
     q: &[Real; NQ],
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 91])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 96])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (91 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (96 reals); the same values.
 ///
-/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1119,18 +1125,18 @@ pub fn regressor_ws(
 }
 /// [`regressor`] at the runtime parameters `p`.
 ///
-/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with(
     p: &Params,
     q: &[Real; NQ],
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 91])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 96])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 235 add, 467 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -1140,9 +1146,9 @@ pub fn regressor_with_ws(
 ) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 89 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 94 reals).
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 fn coriolis_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1153,13 +1159,13 @@ fn coriolis_in(
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 89])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 94])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (89 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (94 reals); the same values.
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1169,13 +1175,13 @@ pub fn coriolis_ws(
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 89])
+    coriolis_in(p, q, qd, &mut [0.0; 94])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 234 add, 464 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -1269,23 +1275,25 @@ pub fn damping() -> [[Real; NQ]; NQ] {
 }
 /// Backbone pose `[x, y, angle]` of segment 0 at `sigma`.
 ///
-/// Operations: 26 add, 64 mul, 2 div, 0 sqrt, 2 trig.
+/// Operations: 26 add, 62 mul, 2 div, 0 sqrt, 2 trig.
 fn pose_segment0(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
-    let pnu = &mut work[..2];
+    let (pnu, work) = work.split_at_mut(2);
+    let t = &mut work[..1];
     moments(0.15 * q[0] * sigma, 1, pnu, 0, 1);
     let mut out = [0.0; 3];
-    out[0] = 0.15 * sigma * pnu[0];
-    out[1] = 0.15 * sigma * pnu[1];
-    out[2] = 0.15 * sigma * q[0];
+    t[0] = 0.15 * sigma;
+    out[0] = pnu[0] * t[0];
+    out[1] = pnu[1] * t[0];
+    out[2] = t[0] * q[0];
     out
 }
 /// Backbone pose `[x, y, angle]` of segment 1 at `sigma`.
 ///
-/// Operations: 58 add, 131 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 58 add, 130 mul, 4 div, 0 sqrt, 6 trig.
 fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (pnu, work) = work.split_at_mut(2);
-    let t = &mut work[..2];
+    let t = &mut work[..3];
     moments(0.15 * q[0], 1, nu, 0, 8);
     moments(0.12 * q[1] * sigma, 1, pnu, 0, 1);
     let mut cphi = [0.0; 1];
@@ -1296,12 +1304,13 @@ fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let mut out = [0.0; 3];
     t[0] = sigma * pnu[0];
     t[1] = sigma * pnu[1];
-    out[0] = 0.15 * nu[0] + 0.12 * cphi[0] * t[0] - 0.12 * sphi[0] * t[1];
-    out[1] = 0.15 * nu[8] + 0.12 * cphi[0] * t[1] + 0.12 * sphi[0] * t[0];
+    t[2] = 0.12 * cphi[0];
+    out[0] = 0.15 * nu[0] + t[0] * t[2] - 0.12 * sphi[0] * t[1];
+    out[1] = 0.15 * nu[8] + t[1] * t[2] + 0.12 * sphi[0] * t[0];
     out[2] = 0.15 * q[0] + 0.12 * sigma * q[1];
     out
 }
-/// The work of [`pose`] and [`pose_ws`], in `work` (at least 36 reals).
+/// The work of [`pose`] and [`pose_ws`], in `work` (at least 37 reals).
 fn pose_in(q: &[Real; NQ], segment: usize, sigma: Real, work: &mut [Real]) -> [Real; 3] {
     if segment >= NSEG || !(sigma >= 0.0 && sigma <= 1.0) {
         return [Real::NAN; 3];
@@ -1319,10 +1328,10 @@ fn pose_in(q: &[Real; NQ], segment: usize, sigma: Real, work: &mut [Real]) -> [R
 /// `(NSEG − 1, 1.0)`. Invalid arguments (segment out of range, sigma outside `[0, 1]`
 /// or NaN) give `[NaN; 3]`.
 pub fn pose(q: &[Real; NQ], segment: usize, sigma: Real) -> [Real; 3] {
-    pose_in(q, segment, sigma, &mut [0.0; 36])
+    pose_in(q, segment, sigma, &mut [0.0; 37])
 }
 /// [`pose`] with its scratch in the caller's [`Workspace`] instead of on the stack
-/// (36 reals); the same values.
+/// (37 reals); the same values.
 pub fn pose_ws(
     q: &[Real; NQ],
     segment: usize,
@@ -1335,13 +1344,13 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 247 add, 479 mul, 9 div, 2 sqrt, 6 trig.
+/// Operations: 247 add, 473 mul, 9 div, 2 sqrt, 6 trig.
 pub fn forward_dynamics(
     q: &[Real; NQ],
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 89])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 94])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -1350,10 +1359,10 @@ pub fn forward_dynamics_with(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 89])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 94])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (89 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (94 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1373,7 +1382,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 89 reals).
+/// 94 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1476,7 +1485,7 @@ const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
 const EQUILIBRIUM_MIN_STEP: Real = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
 const EQUILIBRIUM_MAX_BENDING_STEP: Real = 0.5;
-const STATICS_WORK: usize = 53;
+const STATICS_WORK: usize = 54;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
 fn bending(v: &[Real; NQ]) -> Real {
     let mut worst: Real = 0.0;
@@ -1622,7 +1631,7 @@ fn static_residual_in(
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
 ///
-/// Operations: 139 add, 267 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 139 add, 265 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
     q: &[Real; NQ],
     u: &[Real; NU],
@@ -1737,7 +1746,7 @@ fn linearise(
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
 ///
-/// Operations per Newton iteration, at most: 281 add, 513 mul, 11 div, 4 sqrt, 12 trig.
+/// Operations per Newton iteration, at most: 281 add, 511 mul, 11 div, 4 sqrt, 12 trig.
 /// Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
 pub fn equilibrium(u: &[Real; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut [0.0; STATICS_WORK])
