@@ -1,4 +1,4 @@
-//! `arcwright verify`, `compare` and `completions` driven as a reviewer drives them:
+//! `arcwright verify`, `compare`, `stack` and `completions` driven as a reviewer drives them:
 //! what they name, what they print and their exit codes. `verify` runs on a small arm
 //! generated into a temporary folder (the demo arm's C file takes minutes to compile)
 //! and skips the Rust cross-check, which compiles a crate.
@@ -458,6 +458,102 @@ fn verify_without_compilers_says_what_it_skipped() {
     assert!(text.contains("Rust test    skipped"), "{text}");
     assert!(text.contains("Python test  skipped"), "{text}");
     assert!(text.contains("files        ok"), "{text}");
+}
+
+/// Every file under `dir` with its bytes, to show that a command wrote nothing there.
+fn snapshot(dir: &Path) -> Vec<(PathBuf, Vec<u8>)> {
+    let mut out = Vec::new();
+    let mut todo = vec![dir.to_path_buf()];
+    while let Some(d) = todo.pop() {
+        for e in fs::read_dir(&d).unwrap().flatten() {
+            let p = e.path();
+            if p.is_dir() {
+                todo.push(p);
+            } else {
+                out.push((p.clone(), fs::read(&p).unwrap()));
+            }
+        }
+    }
+    out.sort();
+    out
+}
+
+/// `stack` on the shipped small demo: a row per public function whose worst case is at
+/// least its own frame, a limit that fails by name, bad folders refused, and nothing
+/// written into the folder.
+#[test]
+fn stack_reports_every_public_function_and_enforces_a_limit() {
+    if Command::new("cc").arg("--version").output().is_err() {
+        println!("SKIP: no cc on PATH");
+        return;
+    }
+    let dir = repo_root().join("generated/twin_tendon");
+    let before = snapshot(&dir);
+    let out = arcwright(&[
+        "stack",
+        "generated/twin_tendon",
+        "--cc",
+        "cc",
+        "--cflags",
+        "-O1",
+        "-q",
+    ]);
+    let text = stdout(&out);
+    assert_eq!(out.status.code(), Some(0), "{}", describe(&out));
+    let mut rows = 0;
+    for l in text.lines().filter(|l| l.starts_with("twin_tendon_")) {
+        let f: Vec<&str> = l.split_whitespace().collect();
+        let (frame, worst): (u64, u64) = (f[1].parse().unwrap(), f[2].parse().unwrap());
+        assert!(worst >= frame, "{l}");
+        rows += 1;
+    }
+    for f in [
+        "twin_tendon_terms_ws ",
+        "twin_tendon_forward_dynamics_ws ",
+        "twin_tendon_regulate_ws ",
+    ] {
+        assert!(text.contains(f), "{f} missing:\n{text}");
+    }
+    assert!(
+        !text.contains("twin_tendon_terms "),
+        "plain forms only with --plain:\n{text}"
+    );
+    assert!(rows >= 20, "{text}");
+    assert!(
+        text.contains("C library functions reached") && text.contains("sin"),
+        "{text}"
+    );
+
+    let out = arcwright(&[
+        "stack",
+        "generated/twin_tendon",
+        "--cc",
+        "cc",
+        "--cflags",
+        "-O1",
+        "--limit",
+        "1",
+        "-q",
+    ]);
+    assert_eq!(out.status.code(), Some(1), "{}", describe(&out));
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(
+        err.contains("above --limit 1 bytes") && err.contains("twin_tendon_terms_ws"),
+        "{err}"
+    );
+    assert_eq!(snapshot(&dir), before, "stack wrote into the output folder");
+
+    let out = arcwright(&["stack", "examples", "-q"]);
+    assert_eq!(out.status.code(), Some(2), "{}", describe(&out));
+    assert!(String::from_utf8_lossy(&out.stderr).contains("not an arcwright output folder"));
+    let out = arcwright(&[
+        "stack",
+        "generated/twin_tendon",
+        "--cc",
+        "no-such-compiler",
+        "-q",
+    ]);
+    assert_eq!(out.status.code(), Some(2), "{}", describe(&out));
 }
 
 #[test]

@@ -33,6 +33,7 @@ pub mod params;
 pub mod reference;
 pub mod scaled_factors;
 pub mod segment_integrals;
+pub mod stack_usage;
 pub mod statics;
 pub mod stiff;
 pub mod terms;

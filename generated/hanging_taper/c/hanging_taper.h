@@ -403,7 +403,11 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
  * with their size in bytes. It need not be initialised, its contents afterwards are
  * unspecified, and two calls running at once (threads, interrupts) need two arrays.
  * Keep it in static storage or a task's state: the functions' own frames are then a
- * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
+ * few hundred bytes to a few kilobytes with their callees. Frames depend on the
+ * compiler, the target and the flags, so they are not listed here: `arcwright stack
+ * DIR --cc CC --cflags "FLAGS"` compiles this code with -fstack-usage and prints each
+ * function's frame and worst case with everything it calls (`--limit` fails above a
+ * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
 #define HANGING_TAPER_INERTIA_WORK 1602 /* 12816 bytes */
 #define HANGING_TAPER_GRAVITY_WORK 429 /* 3432 bytes */

@@ -401,7 +401,11 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
  * with their size in bytes. It need not be initialised, its contents afterwards are
  * unspecified, and two calls running at once (threads, interrupts) need two arrays.
  * Keep it in static storage or a task's state: the functions' own frames are then a
- * few hundred bytes. The plain forms (opt-in, at the end) put it on their stack.
+ * few hundred bytes to a few kilobytes with their callees. Frames depend on the
+ * compiler, the target and the flags, so they are not listed here: `arcwright stack
+ * DIR --cc CC --cflags "FLAGS"` compiles this code with -fstack-usage and prints each
+ * function's frame and worst case with everything it calls (`--limit` fails above a
+ * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
 #define REACH_ARM_INERTIA_WORK 1348 /* 10784 bytes */
 #define REACH_ARM_GRAVITY_WORK 310 /* 2480 bytes */

@@ -12,7 +12,9 @@ mod plot;
 mod progress;
 mod report;
 mod simulate;
+mod stack;
 mod statics;
+mod toolchain;
 mod verify;
 
 use clap::{Parser, Subcommand};
@@ -44,6 +46,7 @@ enum Command {
     Identify(identify::IdentifyArgs),
     New(new::NewArgs),
     Verify(verify::VerifyArgs),
+    Stack(stack::StackArgs),
     Compare(compare::CompareArgs),
     Completions(completions::CompletionsArgs),
 }
@@ -95,6 +98,7 @@ pub fn main() -> ExitCode {
         Command::Identify(args) => identify::run(&args),
         Command::New(args) => new::run(&args),
         Command::Verify(args) => verify::run(&args),
+        Command::Stack(args) => stack::run(&args),
         Command::Compare(args) => compare::run(&args),
         Command::Completions(args) => completions::run(&args),
     };

@@ -13,6 +13,7 @@
 
 use super::arm_input::load_arm;
 use super::report::sample_configurations;
+use super::toolchain::{c_compiler, find_program};
 use super::{progress, CliError};
 use crate::arm::{Arm, MAX_SAMPLES};
 use crate::dynamics::{forward_dynamics, generalized_force};
@@ -336,13 +337,6 @@ fn copy_tree(from: &Path, to: &Path) -> Result<(), String> {
 }
 
 /// A program on PATH.
-fn find_program(name: &str) -> Option<PathBuf> {
-    let path = std::env::var_os("PATH")?;
-    std::env::split_paths(&path)
-        .map(|d| d.join(name))
-        .find(|p| p.is_file())
-}
-
 /// The last lines of a command's output, for a failure message.
 fn tail(out: &std::process::Output) -> String {
     let text = format!(
@@ -366,11 +360,7 @@ fn counts(out: &std::process::Output) -> String {
 }
 
 fn run_c(shipped: &Path, scratch: &Path, name: &str) -> Outcome {
-    let compiler = std::env::var_os("CC")
-        .map(PathBuf::from)
-        .filter(|p| p.is_file() || find_program(&p.to_string_lossy()).is_some())
-        .or_else(|| ["cc", "gcc", "clang"].iter().find_map(|c| find_program(c)));
-    let Some(cc) = compiler else {
+    let Some(cc) = c_compiler() else {
         return Outcome::Skipped("no C compiler (cc, gcc, clang) on PATH".into());
     };
     let c = shipped.join("c");
