@@ -550,8 +550,8 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 /* Dot-product kernels of twin_tendon_regressor: pairs (row, moment base). */
 static const unsigned char twin_tendon_regressor_rows[56] = {
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
-    7, 16
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    11, 24
 };
 
 /* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 60 reals.
@@ -582,7 +582,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     const double t12 = 0.0225 * t11;
-    const double t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27];
+    const double t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24];
     const double t14 = qd[0] * kern[12];
     const double t15 = qd[0] * kern[13];
     const double t16 = qd[1] * kern[5];
@@ -590,7 +590,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t18 = -0.000432 * sphi[0];
     const double t19 = -5.184e-5 * cphi[0];
     const double t20 = -0.003375 * t15;
-    const double t21 = qd[0] * kern[22];
+    const double t21 = qd[0] * kern[25];
     const double t22 = nu[16] * cphi[0];
     const double t23 = nu[24] * sphi[0];
     const double t24 = nu[24] * cphi[0];
@@ -612,16 +612,16 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t40 = qd[0] * t35 + qd[1] * (kern[18] * t39 + 0.001728 * sphi[0] * kern[19]);
     const double t41 = qd[0] * t36 + qd[1] * (kern[19] * t39 - 0.001728 * sphi[0] * kern[18]);
     const double t42 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t9 + t9 + 9.72e-6 * kern[26];
+        + t9 + t9 + 9.72e-6 * kern[23];
     const double t43 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t17 + t16 * t18)
         + 0.0225 * kern[8] * (t17 * t18 - 0.000432 * cphi[0] * t16);
     const double t44 = 0.03 * (7.59375e-5 * kern[9] * t14 - 7.59375e-5 * kern[8] * t15)
         - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t43
-        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[22];
+        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[25];
     const double t45 = 0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
         - 0.0225 * kern[9] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
         + 0.0225 * kern[8] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
-        - 9.3312e-7 * qd[1] * kern[24];
+        - 9.3312e-7 * qd[1] * kern[26];
     Y[0] = 0.00118125 * kern[1] * P->gravity[0] - 0.00118125 * kern[0] * P->gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
     Y[1] = t42 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
@@ -640,7 +640,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     Y[10] = 0.0;
     Y[11] = t13 * qdd[0] - P->gravity[0] * t10 - P->gravity[1] * t11
         + qd[0] * (t11 * t20 - 0.003375 * t10 * t14 + 1.1664e-6 * t21)
-        + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25];
+        + 6.2208e-6 * kern[22] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[27];
     Y[12] = 0.0;
     Y[13] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
     Y[14] = 0.0;
@@ -820,8 +820,8 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 /* Dot-product kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
-    7, 16
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    11, 24
 };
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 60 reals.
@@ -859,7 +859,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     const double t17 = -0.000432 * sphi[0];
     const double t18 = -5.184e-5 * cphi[0];
     const double t19 = -0.003375 * t14;
-    const double t20 = qd[0] * kern[22];
+    const double t20 = qd[0] * kern[25];
     const double t21 = nu[16] * cphi[0];
     const double t22 = nu[24] * sphi[0];
     const double t23 = nu[24] * cphi[0];
@@ -879,20 +879,20 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     const double t37 = -0.001728 * cphi[0];
     const double t38 = qd[0] * t33 + qd[1] * (kern[18] * t37 + 0.001728 * sphi[0] * kern[19]);
     const double t39 = qd[0] * t34 + qd[1] * (kern[19] * t37 - 0.001728 * sphi[0] * kern[18]);
-    const double t40 = P->density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27])
+    const double t40 = P->density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24])
         + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t25 * t29 + t26 * t32)
         + 0.018 * P->payload_rotary_inertia;
     const double t41 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
-        + t9 + t9 + 9.72e-6 * kern[26];
+        + t9 + t9 + 9.72e-6 * kern[23];
     const double t42 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t16 + t15 * t17)
         + 0.0225 * kern[8] * (t16 * t17 - 0.000432 * cphi[0] * t15);
     const double t43 = 0.03 * (7.59375e-5 * kern[9] * t13 - 7.59375e-5 * kern[8] * t14)
         - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t42
-        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[22];
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25];
     const double t44 = 0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
         - 0.0225 * kern[9] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
         + 0.0225 * kern[8] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
-        - 9.3312e-7 * qd[1] * kern[24];
+        - 9.3312e-7 * qd[1] * kern[26];
     const double t45 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         + 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9]);
@@ -901,7 +901,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
         + P->payload_mass * (t25 * t25 + t26 * t26) + 0.0225 * P->payload_rotary_inertia;
     B[1] = t40;
     B[2] = t40;
-    B[3] = 6.2208e-6 * kern[23] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+    B[3] = 6.2208e-6 * kern[22] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t29 * t29 + t32 * t32) + 0.0144 * P->payload_rotary_inertia;
     C[0] = P->density_scale[1] * t43 - 3.98671875e-6 * P->density_scale[0] * qd[0] * kern[21]
         + P->payload_mass * (t25 * t35 + t26 * t36);
@@ -909,7 +909,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     C[2] = P->density_scale[1] * (t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20)
         + P->payload_mass * (t29 * t35 + t32 * t36);
     C[3] = P->payload_mass * (t29 * t38 + t32 * t39)
-        - 7.46496e-7 * P->density_scale[1] * qd[1] * kern[25];
+        - 7.46496e-7 * P->density_scale[1] * qd[1] * kern[27];
     G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
         - P->density_scale[1] * t45
         - P->payload_mass * (P->gravity[0] * t25 + P->gravity[1] * t26);

@@ -545,8 +545,8 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 # pairs (row, moment base)
 _REGRESSOR_ROWS = _kernel_plan((
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
-    7, 16,
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    11, 24,
 ))
 
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -581,7 +581,7 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
     t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
     t12 = 0.0225 * t11
-    t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27]
+    t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24]
     t14 = qd[0] * kern[12]
     t15 = qd[0] * kern[13]
     t16 = qd[1] * kern[5]
@@ -589,7 +589,7 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t18 = -0.000432 * sphi[0]
     t19 = -5.184e-5 * cphi[0]
     t20 = -0.003375 * t15
-    t21 = qd[0] * kern[22]
+    t21 = qd[0] * kern[25]
     t22 = nu[16] * cphi[0]
     t23 = nu[24] * sphi[0]
     t24 = nu[24] * cphi[0]
@@ -611,16 +611,16 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t40 = qd[0] * t35 + qd[1] * (kern[18] * t39 + 0.001728 * sphi[0] * kern[19])
     t41 = qd[0] * t36 + qd[1] * (kern[19] * t39 - 0.001728 * sphi[0] * kern[18])
     t42 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t9 + t9
-        + 9.72e-6 * kern[26])
+        + 9.72e-6 * kern[23])
     t43 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t17 + t16 * t18)
         + 0.0225 * kern[8] * (t17 * t18 - 0.000432 * cphi[0] * t16))
     t44 = (0.03 * (7.59375e-5 * kern[9] * t14 - 7.59375e-5 * kern[8] * t15)
         - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t43
-        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[22])
+        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[25])
     t45 = (0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
         - 0.0225 * kern[9] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
         + 0.0225 * kern[8] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
-        - 9.3312e-7 * qd[1] * kern[24])
+        - 9.3312e-7 * qd[1] * kern[26])
     out[0, 0] = (0.00118125 * kern[1] * P.gravity[0] - 0.00118125 * kern[0] * P.gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21])
     out[0, 1] = (t42 * qdd[0] - P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
@@ -639,7 +639,7 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[1, 0] = 0.0
     out[1, 1] = (t13 * qdd[0] - P.gravity[0] * t10 - P.gravity[1] * t11
         + qd[0] * (t11 * t20 - 0.003375 * t10 * t14 + 1.1664e-6 * t21)
-        + 6.2208e-6 * kern[23] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[25])
+        + 6.2208e-6 * kern[22] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[27])
     out[1, 2] = 0.0
     out[1, 3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1]
     out[1, 4] = 0.0
@@ -655,8 +655,8 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 # pairs (row, moment base)
 _TERMS_ROWS = _kernel_plan((
     1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 12, 24, 5, 16, 13, 24, 11, 24, 6, 16,
-    7, 16,
+    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    11, 24,
 ))
 
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -699,7 +699,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t17 = -0.000432 * sphi[0]
     t18 = -5.184e-5 * cphi[0]
     t19 = -0.003375 * t14
-    t20 = qd[0] * kern[22]
+    t20 = qd[0] * kern[25]
     t21 = nu[16] * cphi[0]
     t22 = nu[24] * sphi[0]
     t23 = nu[24] * cphi[0]
@@ -719,20 +719,20 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t37 = -0.001728 * cphi[0]
     t38 = qd[0] * t33 + qd[1] * (kern[18] * t37 + 0.001728 * sphi[0] * kern[19])
     t39 = qd[0] * t34 + qd[1] * (kern[19] * t37 - 0.001728 * sphi[0] * kern[18])
-    t40 = (P.density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[27])
+    t40 = (P.density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24])
         + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t25 * t29 + t26 * t32)
         + 0.018 * P.payload_rotary_inertia)
     t41 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t9 + t9
-        + 9.72e-6 * kern[26])
+        + 9.72e-6 * kern[23])
     t42 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t16 + t15 * t17)
         + 0.0225 * kern[8] * (t16 * t17 - 0.000432 * cphi[0] * t15))
     t43 = (0.03 * (7.59375e-5 * kern[9] * t13 - 7.59375e-5 * kern[8] * t14)
         - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t42
-        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[22])
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25])
     t44 = (0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
         - 0.0225 * kern[9] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
         + 0.0225 * kern[8] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
-        - 9.3312e-7 * qd[1] * kern[24])
+        - 9.3312e-7 * qd[1] * kern[26])
     t45 = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         + 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9]))
@@ -742,7 +742,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
         + 0.0225 * P.payload_rotary_inertia)
     b[0, 1] = t40
     b[1, 0] = t40
-    b[1, 1] = (6.2208e-6 * kern[23] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
+    b[1, 1] = (6.2208e-6 * kern[22] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
         + P.payload_mass * (t29 * t29 + t32 * t32) + 0.0144 * P.payload_rotary_inertia)
     c[0, 0] = (P.density_scale[1] * t43 - 3.98671875e-6 * P.density_scale[0] * qd[0] * kern[21]
         + P.payload_mass * (t25 * t35 + t26 * t36))
@@ -750,7 +750,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     c[1, 0] = (P.density_scale[1] * (t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20)
         + P.payload_mass * (t29 * t35 + t32 * t36))
     c[1, 1] = (P.payload_mass * (t29 * t38 + t32 * t39)
-        - 7.46496e-7 * P.density_scale[1] * qd[1] * kern[25])
+        - 7.46496e-7 * P.density_scale[1] * qd[1] * kern[27])
     g[0] = (-P.density_scale[0] * (0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0])
         - P.density_scale[1] * t45 - P.payload_mass * (P.gravity[0] * t25 + P.gravity[1] * t26))
     g[1] = (-P.density_scale[1] * (P.gravity[0] * t10 + P.gravity[1] * t11)

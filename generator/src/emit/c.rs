@@ -279,7 +279,7 @@ impl Printer<'_> {
                      split = {n}_recurrence_split(a, {size});\n        \
                      }}\n        \
                      {n}_kernel_recurrence({size}, a, split, {n}_tail_moments{t}, F);\n        \
-                     {n}_kernel_entries({n}_{fname}_pairs{k}, {count}, {size}, F, &kern[{start}]);\n    \
+                     {n}_kernel_entries({n}_{fname}_pairs{k}, {sums}, {count}, F, &kern[{start}]);\n    \
                      }}\n",
                     abs = self.fabs(),
                     upper = self.upper(),
@@ -290,6 +290,7 @@ impl Printer<'_> {
                     size4 = 4 * size,
                     size6 = 6 * size,
                     t = f.table,
+                    sums = f.sums,
                     count = f.count,
                     start = f.start,
                 ));

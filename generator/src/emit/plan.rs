@@ -150,6 +150,9 @@ pub struct Family {
     /// Per use: `kern = F[first] + F[second]` (a real part), or `F[first] − F[second]`
     /// with both indices into the imaginary half.
     pub entries: Vec<FamilyEntry>,
+    /// How many of `entries`, the first ones, are real parts (sums); the rest are
+    /// imaginary parts (differences).
+    pub sums: usize,
     /// Operations of the family's kernels by the recurrence (rows, recurrence, entries)
     /// from the cut top row and from both ends, and by their own rows (what the
     /// scheduler counted, and no path runs).
@@ -734,6 +737,11 @@ fn families(
                 }
             })
             .collect();
+        let sums = group.iter().flatten().filter(|m| !m.entry.im).count();
+        debug_assert!(
+            group.iter().flatten().skip(sums).all(|m| m.entry.im),
+            "a family's real parts come first"
+        );
         out.push(Family {
             seg: key.0,
             table,
@@ -742,6 +750,7 @@ fn families(
             seeds,
             ends,
             entries,
+            sums,
             fast,
             beyond,
             own,

@@ -234,7 +234,7 @@ fn body(
              recurrence_split(a, {size})\n\
              }};\n\
              kernel_recurrence({size}, a, split, &TAIL_MOMENTS{t}, hk);\n\
-             kernel_entries(&{upper}_PAIRS{k}, {size}, hk, &mut kern[{s0}..{s1}]);\n\
+             kernel_entries(&{upper}_PAIRS{k}, {sums}, hk, &mut kern[{s0}..{s1}]);\n\
              }}\n",
             size2 = 2 * size,
             size4 = 4 * size,
@@ -246,6 +246,7 @@ fn body(
             bottom_im = size * size,
             bottom_im_end = size * size + size,
             t = f.table,
+            sums = f.sums,
         ));
     }
     if !b.reads_params && PARAMETRIC_FUNCTIONS.contains(&fname) {

@@ -510,14 +510,21 @@ impl<'p> Scheduler<'p> {
             next_temp: 0,
         };
         // Kernel rows first: those that are no double-kernel part in node order, then
-        // the parts grouped by (segment, weight), each group in node order.
-        // (family key: segment and weight, or none), node, the part it is
-        type Ordered = (Option<(usize, usize)>, usize, Option<MatrixUse>);
+        // the parts grouped by (segment, weight), in each group the real parts before
+        // the imaginary ones (so that the emitted loops over them need no branch), each
+        // in node order.
+        // (family key: segment, weight and imaginary part, or none), node, the part
+        type Ordered = (Option<(usize, usize, bool)>, usize, Option<MatrixUse>);
         let mut order: Vec<Ordered> = (0..n)
             .filter(|&i| live[i] && kroot[i])
             .map(|i| {
                 let m = self.matrix_use(Id(i as u32));
-                (m.as_ref().map(|m| (m.entry.seg, m.entry.weight)), i, m)
+                (
+                    m.as_ref()
+                        .map(|m| (m.entry.seg, m.entry.weight, m.entry.im)),
+                    i,
+                    m,
+                )
             })
             .collect();
         order.sort_by_key(|o| (o.0, o.1));
