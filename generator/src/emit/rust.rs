@@ -167,9 +167,7 @@ fn body(
             } else {
                 out.push_str(&format!("phi += {inc};\n"));
             }
-            out.push_str(&format!(
-                "cphi[{j}] = libm::cos{fs}(phi);\nsphi[{j}] = libm::sin{fs}(phi);\n"
-            ));
+            out.push_str(&format!("(sphi[{j}], cphi[{j}]) = sin_cos(phi);\n"));
         }
     }
     let upper = fname.to_uppercase();
@@ -721,6 +719,7 @@ pub fn emit(
     );
     ctx.insert("real_size", &precision.bytes());
     ctx.insert("fs", libm_suffix(precision));
+    ctx.insert("half_pi_parts", &half_pi_parts());
     let (big, small) = precision.rescale_bounds();
     ctx.insert("big", &rust_spelling(big.to_string()));
     ctx.insert("small", &rust_spelling(small.to_string()));
@@ -784,4 +783,19 @@ fn golden_rust(g: &Golden) -> String {
         ));
     }
     out
+}
+
+/// `π/2` as `P1 + P2 + P3` for the single-precision `sin_cos` of the Rust crate: `P1`
+/// rounded to 8 significant bits, `P2` (the rest) to 12, `P3` the remainder to `f32`;
+/// printed as `f32` literals that read back exactly.
+fn half_pi_parts() -> String {
+    let round_to_bits = |x: f64, bits: i32| {
+        let scale = 2f64.powi(bits - 1 - x.abs().log2().floor() as i32);
+        (x * scale).round() / scale
+    };
+    let half_pi = std::f64::consts::FRAC_PI_2;
+    let p1 = round_to_bits(half_pi, 8);
+    let p2 = round_to_bits(half_pi - p1, 12);
+    let p3 = (half_pi - p1 - p2) as f32;
+    format!("{:?}, {:?}, {:?}", p1 as f32, p2 as f32, p3)
 }

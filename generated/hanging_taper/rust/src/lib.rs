@@ -5102,6 +5102,10 @@ fn kernel_entries(pairs: &[u16], sums: usize, f: &[Real], kern: &mut [Real]) {
         *slot = at(pq[0]) - at(pq[1]);
     }
 }
+/// `(sin x, cos x)`.
+fn sin_cos(x: Real) -> (Real, Real) {
+    (libm::sin(x), libm::cos(x))
+}
 /// Legendre moments `ν_0(a) … ν_{count−1}(a)` into `out[re + n]` (real part) and
 /// `out[im + n]` (imaginary part); `x = a/2`. For `|x| < 1` the scaled
 /// `H_n = (2n+1)!! j_n / xⁿ` (within 20% of 1) is summed at orders `count − 1` and
@@ -5114,8 +5118,7 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     let mut j: [Real; MOMENTS_MAX] = [0.0; MOMENTS_MAX];
     let x = 0.5 * a;
     let ax = libm::fabs(x);
-    let s = libm::sin(x);
-    let c = libm::cos(x);
+    let (s, c) = sin_cos(x);
     if ax < 1.0 {
         let x2 = x * x;
         let h = -0.5 * x2;
@@ -5340,11 +5343,9 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&INERTIA_ROWS[0..264], nu, &mut kern[0..132]);
     {
         let a = 0.1 * q[0];
@@ -6927,11 +6928,9 @@ fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&GRAVITY_ROWS[0..320], nu, &mut kern[0..160]);
     let mut out = [0.0; NQ];
     t[0] = q[1] * q[1];
@@ -7347,11 +7346,9 @@ fn actuation_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NU]; NQ] {
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&ACTUATION_ROWS[0..156], nu, &mut kern[0..78]);
     let mut out = [[0.0; NU]; NQ];
     t[0] = q[1] * q[1];
@@ -7572,11 +7569,9 @@ fn tip_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; 3] {
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&TIP_JACOBIAN_ROWS[0..156], nu, &mut kern[0..78]);
     let mut out = [[0.0; NQ]; 3];
     t[0] = q[1] * q[1];
@@ -7816,11 +7811,9 @@ fn gravity_jacobian_in(
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&GRAVITY_JACOBIAN_ROWS[0..432], nu, &mut kern[0..216]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = q[1] * q[1];
@@ -8842,11 +8835,9 @@ fn potential_energy_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> Real {
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&POTENTIAL_ENERGY_ROWS[0..220], nu, &mut kern[0..110]);
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
@@ -9188,11 +9179,9 @@ fn terms_in(
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&TERMS_ROWS[0..400], nu, &mut kern[0..200]);
     {
         let a = 0.1 * q[0];
@@ -12553,11 +12542,9 @@ fn regressor_in(
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&REGRESSOR_ROWS[0..400], nu, &mut kern[0..200]);
     {
         let a = 0.1 * q[0];
@@ -16142,8 +16129,7 @@ fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     let mut out = [0.0; 3];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
@@ -16420,11 +16406,9 @@ fn pose_segment2(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     let mut out = [0.0; 3];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
@@ -16741,11 +16725,9 @@ fn actuation_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[[Real; NU]; NQ]
     let mut cphi = [0.0; 2];
     let mut sphi = [0.0; 2];
     let mut phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = libm::cos(phi);
-    sphi[1] = libm::sin(phi);
+    (sphi[1], cphi[1]) = sin_cos(phi);
     kernels(&ACTUATION_JACOBIAN_ROWS[0..212], nu, &mut kern[0..106]);
     let mut out = [[[0.0; NU]; NQ]; NQ];
     t[0] = q[1] * q[1];

@@ -2570,6 +2570,10 @@ fn kernel_entries(pairs: &[u16], sums: usize, f: &[Real], kern: &mut [Real]) {
         *slot = at(pq[0]) - at(pq[1]);
     }
 }
+/// `(sin x, cos x)`.
+fn sin_cos(x: Real) -> (Real, Real) {
+    (libm::sin(x), libm::cos(x))
+}
 /// Legendre moments `ν_0(a) … ν_{count−1}(a)` into `out[re + n]` (real part) and
 /// `out[im + n]` (imaginary part); `x = a/2`. For `|x| < 1` the scaled
 /// `H_n = (2n+1)!! j_n / xⁿ` (within 20% of 1) is summed at orders `count − 1` and
@@ -2582,8 +2586,7 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     let mut j: [Real; MOMENTS_MAX] = [0.0; MOMENTS_MAX];
     let x = 0.5 * a;
     let ax = libm::fabs(x);
-    let s = libm::sin(x);
-    let c = libm::cos(x);
+    let (s, c) = sin_cos(x);
     if ax < 1.0 {
         let x2 = x * x;
         let h = -0.5 * x2;
@@ -2772,8 +2775,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&INERTIA_ROWS[0..180], nu, &mut kern[0..90]);
     {
         let a = 0.12 * q[0];
@@ -4046,8 +4048,7 @@ fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&GRAVITY_ROWS[0..236], nu, &mut kern[0..118]);
     let mut out = [0.0; NQ];
     t[0] = q[1] * q[1];
@@ -4417,8 +4418,7 @@ fn tip_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; 3] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&TIP_JACOBIAN_ROWS[0..116], nu, &mut kern[0..58]);
     let mut out = [[0.0; NQ]; 3];
     t[0] = q[1] * q[1];
@@ -4625,8 +4625,7 @@ fn gravity_jacobian_in(
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&GRAVITY_JACOBIAN_ROWS[0..316], nu, &mut kern[0..158]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = q[1] * q[1];
@@ -5322,8 +5321,7 @@ fn potential_energy_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> Real {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&POTENTIAL_ENERGY_ROWS[0..184], nu, &mut kern[0..92]);
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
@@ -5598,8 +5596,7 @@ fn terms_in(
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&TERMS_ROWS[0..296], nu, &mut kern[0..148]);
     {
         let a = 0.12 * q[0];
@@ -8075,8 +8072,7 @@ fn regressor_in(
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&REGRESSOR_ROWS[0..296], nu, &mut kern[0..148]);
     {
         let a = 0.12 * q[0];
@@ -10759,8 +10755,7 @@ fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.12 * q[0] + 0.06 * q[1] + 0.04 * q[2];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     let mut out = [0.0; 3];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];

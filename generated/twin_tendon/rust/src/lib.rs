@@ -406,6 +406,10 @@ fn kernels(uses: &[u8], nu: &[Real], kern: &mut [Real]) {
         *slot = (s0 + s1) + (s2 + s3);
     }
 }
+/// `(sin x, cos x)`.
+fn sin_cos(x: Real) -> (Real, Real) {
+    (libm::sin(x), libm::cos(x))
+}
 /// Legendre moments `ν_0(a) … ν_{count−1}(a)` into `out[re + n]` (real part) and
 /// `out[im + n]` (imaginary part); `x = a/2`. For `|x| < 1` the scaled
 /// `H_n = (2n+1)!! j_n / xⁿ` (within 20% of 1) is summed at orders `count − 1` and
@@ -418,8 +422,7 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     let mut j: [Real; MOMENTS_MAX] = [0.0; MOMENTS_MAX];
     let x = 0.5 * a;
     let ax = libm::fabs(x);
-    let s = libm::sin(x);
-    let c = libm::cos(x);
+    let (s, c) = sin_cos(x);
     if ax < 1.0 {
         let x2 = x * x;
         let h = -0.5 * x2;
@@ -510,8 +513,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&INERTIA_ROWS[0..28], nu, &mut kern[0..14]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
@@ -588,8 +590,7 @@ fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&GRAVITY_ROWS[0..24], nu, &mut kern[0..12]);
     let mut out = [0.0; NQ];
     t[0] = p.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
@@ -671,8 +672,7 @@ fn tip_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; 3] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&TIP_JACOBIAN_ROWS[0..8], nu, &mut kern[0..4]);
     let mut out = [[0.0; NQ]; 3];
     out[0][0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
@@ -716,8 +716,7 @@ fn gravity_jacobian_in(
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&GRAVITY_JACOBIAN_ROWS[0..32], nu, &mut kern[0..16]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = -5.184e-5 * cphi[0];
@@ -790,8 +789,7 @@ fn potential_energy_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> Real {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&POTENTIAL_ENERGY_ROWS[0..8], nu, &mut kern[0..4]);
     t[0] = p.gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
         + p.gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
@@ -854,8 +852,7 @@ fn terms_in(
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&TERMS_ROWS[0..56], nu, &mut kern[0..28]);
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
@@ -1012,8 +1009,7 @@ fn regressor_in(
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&REGRESSOR_ROWS[0..56], nu, &mut kern[0..28]);
     let mut out = [[0.0; NTHETA]; NQ];
     t[0] = qd[1] * kern[6];
@@ -1299,8 +1295,7 @@ fn pose_segment1(q: &[Real; NQ], sigma: Real, work: &mut [Real]) -> [Real; 3] {
     let mut cphi = [0.0; 1];
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
-    cphi[0] = libm::cos(phi);
-    sphi[0] = libm::sin(phi);
+    (sphi[0], cphi[0]) = sin_cos(phi);
     let mut out = [0.0; 3];
     t[0] = sigma * pnu[0];
     t[1] = sigma * pnu[1];
