@@ -73,24 +73,14 @@ pub struct Model {
 impl Model {
     /// Every node id the model holds: its outputs, then the kernel entries.
     fn ids(&self) -> Vec<Id> {
-        let mut v: Vec<Id> = Vec::new();
+        let mut v = crate::evaluate::main_roots(self);
         let mat = |v: &mut Vec<Id>, x: &Vec<Vec<Id>>| v.extend(x.iter().flatten());
-        mat(&mut v, &self.inertia);
-        mat(&mut v, &self.coriolis);
-        v.extend(&self.gravity);
-        mat(&mut v, &self.stiffness);
-        mat(&mut v, &self.damping);
-        mat(&mut v, &self.actuation);
-        v.extend(self.tip_pose);
-        mat(&mut v, &self.tip_jacobian);
         if let Some(s) = &self.statics {
             mat(&mut v, &s.gravity_jacobian);
             for a in &s.actuation_jacobian {
                 mat(&mut v, a);
             }
         }
-        v.push(self.kinetic_energy);
-        v.push(self.potential_energy);
         for p in &self.pose {
             v.extend(p);
         }
