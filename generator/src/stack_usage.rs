@@ -141,8 +141,7 @@ fn without_comments(source: &str) -> String {
 }
 
 /// Identifiers directly followed by `(` (a call or a declarator), keywords left out.
-fn called_names(line: &str) -> Vec<String> {
-    let code = line;
+fn called_names(code: &str) -> Vec<String> {
     let b = code.as_bytes();
     let mut out = Vec::new();
     let mut i = 0;

@@ -125,6 +125,31 @@ pub(crate) fn within_budget(what: &str, estimate: crate::cost::Estimate) -> Resu
     .map_err(CliError::Input)
 }
 
+/// The marker of an output folder of `generate` that a command reads (`verify`,
+/// `stack`): a clear error when `dir` is missing, not a folder, or not one arcwright
+/// wrote.
+pub(crate) fn output_folder(
+    dir: &std::path::Path,
+) -> Result<crate::emit::marker::Record, CliError> {
+    match std::fs::symlink_metadata(dir) {
+        Err(_) => Err(CliError::Input(format!(
+            "{}: no such folder",
+            dir.display()
+        ))),
+        Ok(m) if !m.is_dir() => Err(CliError::Input(format!(
+            "{}: not a folder (give the output folder that `generate --out` wrote)",
+            dir.display()
+        ))),
+        Ok(_) => crate::outdir::read_marker(dir).ok_or_else(|| {
+            CliError::Input(format!(
+                "{}: not an arcwright output folder (no {} file that arcwright wrote)",
+                dir.display(),
+                crate::emit::marker::MARKER
+            ))
+        }),
+    }
+}
+
 /// Writes to standard output; a closed pipe (`arcwright … | head`) is not an error.
 pub(crate) fn print_stdout(text: &str) -> Result<(), CliError> {
     use std::io::Write;

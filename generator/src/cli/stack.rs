@@ -8,8 +8,6 @@
 
 use super::toolchain::{c_compiler, find_program};
 use super::{progress, CliError};
-use crate::emit::marker::MARKER;
-use crate::outdir::read_marker;
 use crate::stack_usage::{call_graph, parse_frames, worst_cases};
 use clap::Args;
 use std::collections::BTreeSet;
@@ -51,18 +49,7 @@ pub struct StackArgs {
 
 pub fn run(args: &StackArgs) -> Result<(), CliError> {
     let dir = &args.dir;
-    if !fs::symlink_metadata(dir).is_ok_and(|m| m.is_dir()) {
-        return Err(CliError::Input(format!(
-            "{}: no such folder (give the output folder that `generate --out` wrote)",
-            dir.display()
-        )));
-    }
-    let record = read_marker(dir).ok_or_else(|| {
-        CliError::Input(format!(
-            "{}: not an arcwright output folder (no {MARKER} file that arcwright wrote)",
-            dir.display()
-        ))
-    })?;
+    let record = super::output_folder(dir)?;
     let name = model_name(dir, record.files.as_ref())?;
     let cc = match &args.cc {
         Some(p) if p.is_file() || find_program(&p.to_string_lossy()).is_some() => p.clone(),

@@ -18,11 +18,10 @@ use super::{progress, CliError};
 use crate::arm::{Arm, MAX_SAMPLES};
 use crate::dynamics::{forward_dynamics, generalized_force};
 use crate::emit::golden::{self, SIGMAS};
-use crate::emit::marker::MARKER;
 use crate::emit::FUNCTIONS;
 use crate::emit::{emit, CStandard, Language, Languages, Meta, Options, Precision};
 use crate::evaluate::Evaluator;
-use crate::outdir::{compare, read_marker, walk::walk};
+use crate::outdir::{compare, walk::walk};
 use crate::reference::{Kinematics, Reference};
 use clap::{Args, ValueEnum};
 use rand::{Rng, SeedableRng};
@@ -103,27 +102,7 @@ impl Report {
 
 pub fn run(args: &VerifyArgs) -> Result<(), CliError> {
     let dir = &args.dir;
-    match fs::symlink_metadata(dir) {
-        Err(_) => {
-            return Err(CliError::Input(format!(
-                "{}: no such folder",
-                dir.display()
-            )))
-        }
-        Ok(m) if !m.is_dir() => {
-            return Err(CliError::Input(format!(
-                "{}: not a folder (give the output folder that `generate --out` wrote)",
-                dir.display()
-            )))
-        }
-        Ok(_) => {}
-    }
-    let record = read_marker(dir).ok_or_else(|| {
-        CliError::Input(format!(
-            "{}: not an arcwright output folder (no {MARKER} file that arcwright wrote)",
-            dir.display()
-        ))
-    })?;
+    let record = super::output_folder(dir)?;
     if args.samples > MAX_SAMPLES {
         return Err(CliError::Input(format!(
             "--samples: must be at most {MAX_SAMPLES}, got {}",
