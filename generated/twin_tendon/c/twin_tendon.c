@@ -549,8 +549,8 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 
 /* Dot-product kernels of twin_tendon_regressor: pairs (row, moment base). */
 static const unsigned char twin_tendon_regressor_rows[56] = {
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
+    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
     11, 24
 };
 
@@ -569,8 +569,8 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_regressor_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[6];
-    const double t1 = qd[1] * kern[7];
+    const double t0 = qd[1] * kern[18];
+    const double t1 = qd[1] * kern[19];
     const double t2 = kern[2] * cphi[0];
     const double t3 = kern[3] * sphi[0];
     const double t4 = kern[3] * cphi[0];
@@ -578,11 +578,11 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
     const double t8 = 0.0225 * t7;
-    const double t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6);
+    const double t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6);
     const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     const double t12 = 0.0225 * t11;
-    const double t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24];
+    const double t13 = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24];
     const double t14 = qd[0] * kern[12];
     const double t15 = qd[0] * kern[13];
     const double t16 = qd[1] * kern[5];
@@ -595,13 +595,13 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t23 = nu[24] * sphi[0];
     const double t24 = nu[24] * cphi[0];
     const double t25 = nu[16] * sphi[0];
-    const double t26 = kern[10] - 0.018 * t25 - 0.018 * t24;
-    const double t27 = kern[11] - 0.018 * t23 + 0.018 * t22;
-    const double t28 = cphi[0] * kern[17];
-    const double t29 = sphi[0] * kern[16];
+    const double t26 = kern[8] - 0.018 * t25 - 0.018 * t24;
+    const double t27 = kern[9] - 0.018 * t23 + 0.018 * t22;
+    const double t28 = cphi[0] * kern[11];
+    const double t29 = sphi[0] * kern[10];
     const double t30 = -0.0144 * t28 - 0.0144 * t29;
-    const double t31 = cphi[0] * kern[16];
-    const double t32 = sphi[0] * kern[17];
+    const double t31 = cphi[0] * kern[10];
+    const double t32 = sphi[0] * kern[11];
     const double t33 = 0.0144 * t31 - 0.0144 * t32;
     const double t34 = t26 * t30 + t27 * t33;
     const double t35 = 0.00216 * t32 - 0.00216 * t31;
@@ -609,24 +609,24 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
     const double t37 = qd[0] * (kern[14] - 0.0027 * t22 + 0.0027 * t23) + qd[1] * t35;
     const double t38 = qd[0] * (kern[15] - 0.0027 * t24 - 0.0027 * t25) + qd[1] * t36;
     const double t39 = -0.001728 * cphi[0];
-    const double t40 = qd[0] * t35 + qd[1] * (kern[18] * t39 + 0.001728 * sphi[0] * kern[19]);
-    const double t41 = qd[0] * t36 + qd[1] * (kern[19] * t39 - 0.001728 * sphi[0] * kern[18]);
-    const double t42 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+    const double t40 = qd[0] * t35 + qd[1] * (kern[16] * t39 + 0.001728 * sphi[0] * kern[17]);
+    const double t41 = qd[0] * t36 + qd[1] * (kern[17] * t39 - 0.001728 * sphi[0] * kern[16]);
+    const double t42 = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
         + t9 + t9 + 9.72e-6 * kern[23];
-    const double t43 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t17 + t16 * t18)
-        + 0.0225 * kern[8] * (t17 * t18 - 0.000432 * cphi[0] * t16);
-    const double t44 = 0.03 * (7.59375e-5 * kern[9] * t14 - 7.59375e-5 * kern[8] * t15)
-        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t43
+    const double t43 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t17 + t16 * t18)
+        + 0.0225 * kern[6] * (t17 * t18 - 0.000432 * cphi[0] * t16);
+    const double t44 = 0.03 * (7.59375e-5 * kern[7] * t14 - 7.59375e-5 * kern[6] * t15)
+        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t43
         + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[25];
-    const double t45 = 0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
-        - 0.0225 * kern[9] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
-        + 0.0225 * kern[8] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
+    const double t45 = 0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
+        - 0.0225 * kern[7] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[6] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
         - 9.3312e-7 * qd[1] * kern[26];
     Y[0] = 0.00118125 * kern[1] * P->gravity[0] - 0.00118125 * kern[0] * P->gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
     Y[1] = t42 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         - P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        - 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9])
+        - 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7])
         + qd[0] * t44 + t13 * qdd[1] + qd[1] * t45;
     Y[2] = 1.125e-8 * qdd[0];
     Y[3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
@@ -685,8 +685,8 @@ void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_
 
 /* Dot-product kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
 static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
-    8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2, 16, 2,
-    24, 9, 16, 9, 24
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 0, 8,
+    8, 8, 16, 8, 24
 };
 
 /* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 48 reals.
@@ -706,21 +706,21 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     twin_tendon_kernels(twin_tendon_gravity_jacobian_rows, 16, nu, kern);
     const double t0 = -5.184e-5 * cphi[0];
     const double t1 = -0.001728 * cphi[0];
-    const double t2 = P->gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
-        + P->gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
-    const double t3 = P->gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
-        + P->gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]);
+    const double t2 = P->gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
+        + P->gravity[1] * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0]);
+    const double t3 = P->gravity[0] * (0.00216 * sphi[0] * kern[5] - 0.00216 * cphi[0] * kern[4])
+        + P->gravity[1] * (-0.00216 * sphi[0] * kern[4] - 0.00216 * cphi[0] * kern[5]);
     const double t4 = -P->density_scale[1] * t2 - P->payload_mass * t3;
-    const double t5 = P->gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
-        + P->gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
-        + 0.03 * (-0.003375 * P->gravity[0] * kern[8] - 0.003375 * P->gravity[1] * kern[9]);
-    const double t6 = P->gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
-        + P->gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    const double t7 = P->gravity[0] * (kern[6] * t0 + 5.184e-5 * kern[7] * sphi[0])
-        + P->gravity[1] * (kern[7] * t0 - 5.184e-5 * kern[6] * sphi[0]);
-    const double t8 = P->gravity[0] * (kern[14] * t1 + 0.001728 * sphi[0] * kern[15])
-        + P->gravity[1] * (kern[15] * t1 - 0.001728 * sphi[0] * kern[14]);
-    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[0] * P->gravity[0] - 0.0001771875 * kern[1] * P->gravity[1])
+    const double t5 = P->gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
+        + P->gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
+        + 0.03 * (-0.003375 * P->gravity[0] * kern[6] - 0.003375 * P->gravity[1] * kern[7]);
+    const double t6 = P->gravity[0] * (kern[8] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        + P->gravity[1] * (kern[9] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
+    const double t7 = P->gravity[0] * (kern[14] * t0 + 5.184e-5 * kern[15] * sphi[0])
+        + P->gravity[1] * (kern[15] * t0 - 5.184e-5 * kern[14] * sphi[0]);
+    const double t8 = P->gravity[0] * (kern[10] * t1 + 0.001728 * sphi[0] * kern[11])
+        + P->gravity[1] * (kern[11] * t1 - 0.001728 * sphi[0] * kern[10]);
+    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[12] * P->gravity[0] - 0.0001771875 * kern[13] * P->gravity[1])
         - P->density_scale[1] * t5 - P->payload_mass * t6;
     dG[1] = t4;
     dG[2] = t4;
@@ -819,8 +819,8 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 
 /* Dot-product kernels of twin_tendon_terms: pairs (row, moment base). */
 static const unsigned char twin_tendon_terms_rows[56] = {
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
+    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
     11, 24
 };
 
@@ -839,8 +839,8 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernels(twin_tendon_terms_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[6];
-    const double t1 = qd[1] * kern[7];
+    const double t0 = qd[1] * kern[18];
+    const double t1 = qd[1] * kern[19];
     const double t2 = kern[2] * cphi[0];
     const double t3 = kern[3] * sphi[0];
     const double t4 = kern[3] * cphi[0];
@@ -848,7 +848,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
     const double t8 = 0.0225 * t7;
-    const double t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6);
+    const double t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6);
     const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     const double t12 = 0.0225 * t11;
@@ -864,38 +864,38 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
     const double t22 = nu[24] * sphi[0];
     const double t23 = nu[24] * cphi[0];
     const double t24 = nu[16] * sphi[0];
-    const double t25 = kern[10] - 0.018 * t24 - 0.018 * t23;
-    const double t26 = kern[11] - 0.018 * t22 + 0.018 * t21;
-    const double t27 = cphi[0] * kern[17];
-    const double t28 = sphi[0] * kern[16];
+    const double t25 = kern[8] - 0.018 * t24 - 0.018 * t23;
+    const double t26 = kern[9] - 0.018 * t22 + 0.018 * t21;
+    const double t27 = cphi[0] * kern[11];
+    const double t28 = sphi[0] * kern[10];
     const double t29 = -0.0144 * t27 - 0.0144 * t28;
-    const double t30 = cphi[0] * kern[16];
-    const double t31 = sphi[0] * kern[17];
+    const double t30 = cphi[0] * kern[10];
+    const double t31 = sphi[0] * kern[11];
     const double t32 = 0.0144 * t30 - 0.0144 * t31;
     const double t33 = 0.00216 * t31 - 0.00216 * t30;
     const double t34 = -0.00216 * t28 - 0.00216 * t27;
     const double t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33;
     const double t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34;
     const double t37 = -0.001728 * cphi[0];
-    const double t38 = qd[0] * t33 + qd[1] * (kern[18] * t37 + 0.001728 * sphi[0] * kern[19]);
-    const double t39 = qd[0] * t34 + qd[1] * (kern[19] * t37 - 0.001728 * sphi[0] * kern[18]);
-    const double t40 = P->density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24])
+    const double t38 = qd[0] * t33 + qd[1] * (kern[16] * t37 + 0.001728 * sphi[0] * kern[17]);
+    const double t39 = qd[0] * t34 + qd[1] * (kern[17] * t37 - 0.001728 * sphi[0] * kern[16]);
+    const double t40 = P->density_scale[1] * (kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24])
         + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t25 * t29 + t26 * t32)
         + 0.018 * P->payload_rotary_inertia;
-    const double t41 = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+    const double t41 = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
         + t9 + t9 + 9.72e-6 * kern[23];
-    const double t42 = 0.0225 * kern[9] * (0.000432 * cphi[0] * t16 + t15 * t17)
-        + 0.0225 * kern[8] * (t16 * t17 - 0.000432 * cphi[0] * t15);
-    const double t43 = 0.03 * (7.59375e-5 * kern[9] * t13 - 7.59375e-5 * kern[8] * t14)
-        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t42
+    const double t42 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
+        + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15);
+    const double t43 = 0.03 * (7.59375e-5 * kern[7] * t13 - 7.59375e-5 * kern[6] * t14)
+        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t42
         + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25];
-    const double t44 = 0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
-        - 0.0225 * kern[9] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
-        + 0.0225 * kern[8] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
+    const double t44 = 0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
+        - 0.0225 * kern[7] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[6] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
         - 9.3312e-7 * qd[1] * kern[26];
     const double t45 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        + 0.03 * (0.0225 * P->gravity[1] * kern[8] - 0.0225 * P->gravity[0] * kern[9]);
+        + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
     B[0] = 2.6578125e-5 * kern[20] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
         + P->density_scale[1] * t41 + 1.62e-8 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t25 * t25 + t26 * t26) + 0.0225 * P->payload_rotary_inertia;

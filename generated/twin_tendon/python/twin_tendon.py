@@ -498,8 +498,8 @@ def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _GRAVITY_JACOBIAN_ROWS = _kernel_plan((
-    8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2, 16, 2,
-    24, 9, 16, 9, 24,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 0, 8,
+    8, 8, 16, 8, 24,
 ))
 
 def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -521,21 +521,21 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     out = np.zeros((NQ, NQ))
     t0 = -5.184e-5 * cphi[0]
     t1 = -0.001728 * cphi[0]
-    t2 = (P.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
-        + P.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]))
-    t3 = (P.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
-        + P.gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]))
+    t2 = (P.gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
+        + P.gravity[1] * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0]))
+    t3 = (P.gravity[0] * (0.00216 * sphi[0] * kern[5] - 0.00216 * cphi[0] * kern[4])
+        + P.gravity[1] * (-0.00216 * sphi[0] * kern[4] - 0.00216 * cphi[0] * kern[5]))
     t4 = -P.density_scale[1] * t2 - P.payload_mass * t3
-    t5 = (P.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
-        + P.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
-        + 0.03 * (-0.003375 * P.gravity[0] * kern[8] - 0.003375 * P.gravity[1] * kern[9]))
-    t6 = (P.gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
-        + P.gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
-    t7 = (P.gravity[0] * (kern[6] * t0 + 5.184e-5 * kern[7] * sphi[0])
-        + P.gravity[1] * (kern[7] * t0 - 5.184e-5 * kern[6] * sphi[0]))
-    t8 = (P.gravity[0] * (kern[14] * t1 + 0.001728 * sphi[0] * kern[15])
-        + P.gravity[1] * (kern[15] * t1 - 0.001728 * sphi[0] * kern[14]))
-    out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[0] * P.gravity[0] - 0.0001771875 * kern[1] * P.gravity[1])
+    t5 = (P.gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
+        + P.gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
+        + 0.03 * (-0.003375 * P.gravity[0] * kern[6] - 0.003375 * P.gravity[1] * kern[7]))
+    t6 = (P.gravity[0] * (kern[8] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        + P.gravity[1] * (kern[9] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
+    t7 = (P.gravity[0] * (kern[14] * t0 + 5.184e-5 * kern[15] * sphi[0])
+        + P.gravity[1] * (kern[15] * t0 - 5.184e-5 * kern[14] * sphi[0]))
+    t8 = (P.gravity[0] * (kern[10] * t1 + 0.001728 * sphi[0] * kern[11])
+        + P.gravity[1] * (kern[11] * t1 - 0.001728 * sphi[0] * kern[10]))
+    out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[12] * P.gravity[0] - 0.0001771875 * kern[13] * P.gravity[1])
         - P.density_scale[1] * t5 - P.payload_mass * t6)
     out[0, 1] = t4
     out[1, 0] = t4
@@ -544,8 +544,8 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 
 # pairs (row, moment base)
 _REGRESSOR_ROWS = _kernel_plan((
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
+    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
     11, 24,
 ))
 
@@ -568,8 +568,8 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     kern = _kernels(_REGRESSOR_ROWS, nu)
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros((NQ, NTHETA))
-    t0 = qd[1] * kern[6]
-    t1 = qd[1] * kern[7]
+    t0 = qd[1] * kern[18]
+    t1 = qd[1] * kern[19]
     t2 = kern[2] * cphi[0]
     t3 = kern[3] * sphi[0]
     t4 = kern[3] * cphi[0]
@@ -577,11 +577,11 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
     t8 = 0.0225 * t7
-    t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6)
+    t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6)
     t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
     t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
     t12 = 0.0225 * t11
-    t13 = kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24]
+    t13 = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24]
     t14 = qd[0] * kern[12]
     t15 = qd[0] * kern[13]
     t16 = qd[1] * kern[5]
@@ -594,13 +594,13 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t23 = nu[24] * sphi[0]
     t24 = nu[24] * cphi[0]
     t25 = nu[16] * sphi[0]
-    t26 = kern[10] - 0.018 * t25 - 0.018 * t24
-    t27 = kern[11] - 0.018 * t23 + 0.018 * t22
-    t28 = cphi[0] * kern[17]
-    t29 = sphi[0] * kern[16]
+    t26 = kern[8] - 0.018 * t25 - 0.018 * t24
+    t27 = kern[9] - 0.018 * t23 + 0.018 * t22
+    t28 = cphi[0] * kern[11]
+    t29 = sphi[0] * kern[10]
     t30 = -0.0144 * t28 - 0.0144 * t29
-    t31 = cphi[0] * kern[16]
-    t32 = sphi[0] * kern[17]
+    t31 = cphi[0] * kern[10]
+    t32 = sphi[0] * kern[11]
     t33 = 0.0144 * t31 - 0.0144 * t32
     t34 = t26 * t30 + t27 * t33
     t35 = 0.00216 * t32 - 0.00216 * t31
@@ -608,24 +608,24 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t37 = qd[0] * (kern[14] - 0.0027 * t22 + 0.0027 * t23) + qd[1] * t35
     t38 = qd[0] * (kern[15] - 0.0027 * t24 - 0.0027 * t25) + qd[1] * t36
     t39 = -0.001728 * cphi[0]
-    t40 = qd[0] * t35 + qd[1] * (kern[18] * t39 + 0.001728 * sphi[0] * kern[19])
-    t41 = qd[0] * t36 + qd[1] * (kern[19] * t39 - 0.001728 * sphi[0] * kern[18])
-    t42 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t9 + t9
+    t40 = qd[0] * t35 + qd[1] * (kern[16] * t39 + 0.001728 * sphi[0] * kern[17])
+    t41 = qd[0] * t36 + qd[1] * (kern[17] * t39 - 0.001728 * sphi[0] * kern[16])
+    t42 = (0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t9 + t9
         + 9.72e-6 * kern[23])
-    t43 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t17 + t16 * t18)
-        + 0.0225 * kern[8] * (t17 * t18 - 0.000432 * cphi[0] * t16))
-    t44 = (0.03 * (7.59375e-5 * kern[9] * t14 - 7.59375e-5 * kern[8] * t15)
-        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t43
+    t43 = (0.0225 * kern[7] * (0.000432 * cphi[0] * t17 + t16 * t18)
+        + 0.0225 * kern[6] * (t17 * t18 - 0.000432 * cphi[0] * t16))
+    t44 = (0.03 * (7.59375e-5 * kern[7] * t14 - 7.59375e-5 * kern[6] * t15)
+        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t43
         + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[25])
-    t45 = (0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
-        - 0.0225 * kern[9] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
-        + 0.0225 * kern[8] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
+    t45 = (0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
+        - 0.0225 * kern[7] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[6] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
         - 9.3312e-7 * qd[1] * kern[26])
     out[0, 0] = (0.00118125 * kern[1] * P.gravity[0] - 0.00118125 * kern[0] * P.gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21])
     out[0, 1] = (t42 * qdd[0] - P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         - P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        - 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9])
+        - 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7])
         + qd[0] * t44 + t13 * qdd[1] + qd[1] * t45)
     out[0, 2] = 1.125e-8 * qdd[0]
     out[0, 3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1]
@@ -654,8 +654,8 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _TERMS_ROWS = _kernel_plan((
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0, 9, 8,
-    10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
+    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
     11, 24,
 ))
 
@@ -679,8 +679,8 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b = np.zeros((NQ, NQ))
     c = np.zeros((NQ, NQ))
     g = np.zeros(NQ)
-    t0 = qd[1] * kern[6]
-    t1 = qd[1] * kern[7]
+    t0 = qd[1] * kern[18]
+    t1 = qd[1] * kern[19]
     t2 = kern[2] * cphi[0]
     t3 = kern[3] * sphi[0]
     t4 = kern[3] * cphi[0]
@@ -688,7 +688,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
     t8 = 0.0225 * t7
-    t9 = 0.15 * (kern[9] * t8 + 0.0225 * kern[8] * t6)
+    t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6)
     t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
     t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
     t12 = 0.0225 * t11
@@ -704,38 +704,38 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t22 = nu[24] * sphi[0]
     t23 = nu[24] * cphi[0]
     t24 = nu[16] * sphi[0]
-    t25 = kern[10] - 0.018 * t24 - 0.018 * t23
-    t26 = kern[11] - 0.018 * t22 + 0.018 * t21
-    t27 = cphi[0] * kern[17]
-    t28 = sphi[0] * kern[16]
+    t25 = kern[8] - 0.018 * t24 - 0.018 * t23
+    t26 = kern[9] - 0.018 * t22 + 0.018 * t21
+    t27 = cphi[0] * kern[11]
+    t28 = sphi[0] * kern[10]
     t29 = -0.0144 * t27 - 0.0144 * t28
-    t30 = cphi[0] * kern[16]
-    t31 = sphi[0] * kern[17]
+    t30 = cphi[0] * kern[10]
+    t31 = sphi[0] * kern[11]
     t32 = 0.0144 * t30 - 0.0144 * t31
     t33 = 0.00216 * t31 - 0.00216 * t30
     t34 = -0.00216 * t28 - 0.00216 * t27
     t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33
     t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34
     t37 = -0.001728 * cphi[0]
-    t38 = qd[0] * t33 + qd[1] * (kern[18] * t37 + 0.001728 * sphi[0] * kern[19])
-    t39 = qd[0] * t34 + qd[1] * (kern[19] * t37 - 0.001728 * sphi[0] * kern[18])
-    t40 = (P.density_scale[1] * (kern[8] * t12 - 0.0225 * kern[9] * t10 + 7.776e-6 * kern[24])
+    t38 = qd[0] * t33 + qd[1] * (kern[16] * t37 + 0.001728 * sphi[0] * kern[17])
+    t39 = qd[0] * t34 + qd[1] * (kern[17] * t37 - 0.001728 * sphi[0] * kern[16])
+    t40 = (P.density_scale[1] * (kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24])
         + 6.48e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t25 * t29 + t26 * t32)
         + 0.018 * P.payload_rotary_inertia)
-    t41 = (0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8]) + t9 + t9
+    t41 = (0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t9 + t9
         + 9.72e-6 * kern[23])
-    t42 = (0.0225 * kern[9] * (0.000432 * cphi[0] * t16 + t15 * t17)
-        + 0.0225 * kern[8] * (t16 * t17 - 0.000432 * cphi[0] * t15))
-    t43 = (0.03 * (7.59375e-5 * kern[9] * t13 - 7.59375e-5 * kern[8] * t14)
-        - 0.0225 * qd[0] * (kern[8] * t8 - 0.0225 * kern[9] * t6) + 0.15 * t42
+    t42 = (0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
+        + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15))
+    t43 = (0.03 * (7.59375e-5 * kern[7] * t13 - 7.59375e-5 * kern[6] * t14)
+        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t42
         + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25])
-    t44 = (0.15 * qd[0] * (kern[9] * t12 + 0.0225 * kern[8] * t10)
-        - 0.0225 * kern[9] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
-        + 0.0225 * kern[8] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
+    t44 = (0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
+        - 0.0225 * kern[7] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[6] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
         - 9.3312e-7 * qd[1] * kern[26])
     t45 = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        + 0.03 * (0.0225 * P.gravity[1] * kern[8] - 0.0225 * P.gravity[0] * kern[9]))
+        + 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7]))
     b[0, 0] = (2.6578125e-5 * kern[20] * P.density_scale[0]
         + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t41
         + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t25 * t25 + t26 * t26)

@@ -697,8 +697,8 @@ pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
 }
 /// Dot-product kernels of `gravity_jacobian`: pairs (row, moment base).
 static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
-    8, 0, 8, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 9, 0, 9, 8, 10, 0, 10, 8, 2,
-    16, 2, 24, 9, 16, 9, 24,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8,
+    0, 8, 8, 8, 16, 8, 24,
 ];
 /// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 54 reals).
 ///
@@ -721,26 +721,26 @@ fn gravity_jacobian_in(
     let mut out = [[0.0; NQ]; NQ];
     t[0] = -5.184e-5 * cphi[0];
     t[1] = -0.001728 * cphi[0];
-    t[2] = p.gravity[0] * (6.48e-5 * kern[5] * sphi[0] - 6.48e-5 * kern[4] * cphi[0])
-        + p.gravity[1] * (-6.48e-5 * kern[4] * sphi[0] - 6.48e-5 * kern[5] * cphi[0]);
-    t[3] = p.gravity[0] * (0.00216 * sphi[0] * kern[13] - 0.00216 * cphi[0] * kern[12])
-        + p.gravity[1] * (-0.00216 * sphi[0] * kern[12] - 0.00216 * cphi[0] * kern[13]);
+    t[2] = p.gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
+        + p.gravity[1] * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0]);
+    t[3] = p.gravity[0] * (0.00216 * sphi[0] * kern[5] - 0.00216 * cphi[0] * kern[4])
+        + p.gravity[1] * (-0.00216 * sphi[0] * kern[4] - 0.00216 * cphi[0] * kern[5]);
     t[4] = -p.density_scale[1] * t[2] - p.payload_mass * t[3];
-    t[2] = p.gravity[0] * (8.1e-5 * kern[3] * sphi[0] - 8.1e-5 * kern[2] * cphi[0])
-        + p.gravity[1] * (-8.1e-5 * kern[3] * cphi[0] - 8.1e-5 * kern[2] * sphi[0])
+    t[2] = p.gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
+        + p.gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
         + 0.03
-            * (-0.003375 * p.gravity[0] * kern[8] - 0.003375 * p.gravity[1] * kern[9]);
+            * (-0.003375 * p.gravity[0] * kern[6] - 0.003375 * p.gravity[1] * kern[7]);
     t[3] = p.gravity[0]
-        * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        * (kern[8] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
         + p.gravity[1]
-            * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    t[5] = p.gravity[0] * (kern[6] * t[0] + 5.184e-5 * kern[7] * sphi[0])
-        + p.gravity[1] * (kern[7] * t[0] - 5.184e-5 * kern[6] * sphi[0]);
-    t[0] = p.gravity[0] * (kern[14] * t[1] + 0.001728 * sphi[0] * kern[15])
-        + p.gravity[1] * (kern[15] * t[1] - 0.001728 * sphi[0] * kern[14]);
+            * (kern[9] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
+    t[5] = p.gravity[0] * (kern[14] * t[0] + 5.184e-5 * kern[15] * sphi[0])
+        + p.gravity[1] * (kern[15] * t[0] - 5.184e-5 * kern[14] * sphi[0]);
+    t[0] = p.gravity[0] * (kern[10] * t[1] + 0.001728 * sphi[0] * kern[11])
+        + p.gravity[1] * (kern[11] * t[1] - 0.001728 * sphi[0] * kern[10]);
     out[0][0] = -p.density_scale[0]
-        * (-0.0001771875 * kern[0] * p.gravity[0]
-            - 0.0001771875 * kern[1] * p.gravity[1]) - p.density_scale[1] * t[2]
+        * (-0.0001771875 * kern[12] * p.gravity[0]
+            - 0.0001771875 * kern[13] * p.gravity[1]) - p.density_scale[1] * t[2]
         - p.payload_mass * t[3];
     out[0][1] = t[4];
     out[1][0] = t[4];
@@ -831,8 +831,8 @@ pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) 
 }
 /// Dot-product kernels of `terms`: pairs (row, moment base).
 static TERMS_ROWS: [u8; 56] = [
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0,
-    9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0,
+    9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
     24, 13, 24, 11, 24,
 ];
 /// The work of [`terms`] and [`terms_ws`], in `work` (at least 94 reals).
@@ -857,8 +857,8 @@ fn terms_in(
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
     let mut g = [0.0; NQ];
-    t[0] = qd[1] * kern[6];
-    t[1] = qd[1] * kern[7];
+    t[0] = qd[1] * kern[18];
+    t[1] = qd[1] * kern[19];
     t[2] = kern[2] * cphi[0];
     t[3] = kern[3] * sphi[0];
     t[4] = kern[3] * cphi[0];
@@ -866,7 +866,7 @@ fn terms_in(
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
     t[8] = 0.0225 * t[7];
-    t[9] = 0.15 * (kern[9] * t[8] + 0.0225 * kern[8] * t[6]);
+    t[9] = 0.15 * (kern[7] * t[8] + 0.0225 * kern[6] * t[6]);
     t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     t[12] = 0.0225 * t[11];
@@ -882,40 +882,40 @@ fn terms_in(
     t[22] = nu[24] * sphi[0];
     t[23] = nu[24] * cphi[0];
     t[24] = nu[16] * sphi[0];
-    t[25] = kern[10] - 0.018 * t[24] - 0.018 * t[23];
-    t[26] = kern[11] - 0.018 * t[22] + 0.018 * t[21];
-    t[27] = cphi[0] * kern[17];
-    t[28] = sphi[0] * kern[16];
+    t[25] = kern[8] - 0.018 * t[24] - 0.018 * t[23];
+    t[26] = kern[9] - 0.018 * t[22] + 0.018 * t[21];
+    t[27] = cphi[0] * kern[11];
+    t[28] = sphi[0] * kern[10];
     t[29] = -0.0144 * t[27] - 0.0144 * t[28];
-    t[30] = cphi[0] * kern[16];
-    t[31] = sphi[0] * kern[17];
+    t[30] = cphi[0] * kern[10];
+    t[31] = sphi[0] * kern[11];
     t[32] = 0.0144 * t[30] - 0.0144 * t[31];
     t[33] = 0.00216 * t[31] - 0.00216 * t[30];
     t[30] = -0.00216 * t[28] - 0.00216 * t[27];
     t[27] = qd[0] * (kern[14] - 0.0027 * t[21] + 0.0027 * t[22]) + qd[1] * t[33];
     t[21] = qd[0] * (kern[15] - 0.0027 * t[23] - 0.0027 * t[24]) + qd[1] * t[30];
     t[22] = -0.001728 * cphi[0];
-    t[23] = qd[0] * t[33] + qd[1] * (kern[18] * t[22] + 0.001728 * sphi[0] * kern[19]);
-    t[24] = qd[0] * t[30] + qd[1] * (kern[19] * t[22] - 0.001728 * sphi[0] * kern[18]);
+    t[23] = qd[0] * t[33] + qd[1] * (kern[16] * t[22] + 0.001728 * sphi[0] * kern[17]);
+    t[24] = qd[0] * t[30] + qd[1] * (kern[17] * t[22] - 0.001728 * sphi[0] * kern[16]);
     t[22] = p.density_scale[1]
-        * (kern[8] * t[12] - 0.0225 * kern[9] * t[10] + 7.776e-6 * kern[24])
+        * (kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[24])
         + 6.48e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[25] * t[29] + t[26] * t[32])
         + 0.018 * p.payload_rotary_inertia;
-    t[28] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+    t[28] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
         + t[9] + t[9] + 9.72e-6 * kern[23];
-    t[9] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
-        + 0.0225 * kern[8] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
-    t[15] = 0.03 * (7.59375e-5 * kern[9] * t[13] - 7.59375e-5 * kern[8] * t[14])
-        - 0.0225 * qd[0] * (kern[8] * t[8] - 0.0225 * kern[9] * t[6]) + 0.15 * t[9]
+    t[9] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
+        + 0.0225 * kern[6] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
+    t[15] = 0.03 * (7.59375e-5 * kern[7] * t[13] - 7.59375e-5 * kern[6] * t[14])
+        - 0.0225 * qd[0] * (kern[6] * t[8] - 0.0225 * kern[7] * t[6]) + 0.15 * t[9]
         + 0.15 * (0.003375 * t[7] * t[13] + t[6] * t[19]) - 1.1664e-6 * qd[1] * kern[25];
-    t[6] = 0.15 * qd[0] * (kern[9] * t[12] + 0.0225 * kern[8] * t[10])
-        - 0.0225 * kern[9] * (t[0] * t[18] + 5.184e-5 * t[1] * sphi[0])
-        + 0.0225 * kern[8] * (t[1] * t[18] - 5.184e-5 * t[0] * sphi[0])
+    t[6] = 0.15 * qd[0] * (kern[7] * t[12] + 0.0225 * kern[6] * t[10])
+        - 0.0225 * kern[7] * (t[0] * t[18] + 5.184e-5 * t[1] * sphi[0])
+        + 0.0225 * kern[6] * (t[1] * t[18] - 5.184e-5 * t[0] * sphi[0])
         - 1.1664e-6 * t[20] - 9.3312e-7 * qd[1] * kern[26];
     t[0] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
-        + 0.03 * (0.0225 * p.gravity[1] * kern[8] - 0.0225 * p.gravity[0] * kern[9]);
+        + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
     b[0][0] = 2.6578125e-5 * kern[20] * p.density_scale[0]
         + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[28]
         + 1.62e-8 * p.rotary_inertia_scale[1]
@@ -987,8 +987,8 @@ pub fn terms_with_ws(
 }
 /// Dot-product kernels of `regressor`: pairs (row, moment base).
 static REGRESSOR_ROWS: [u8; 56] = [
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 8, 16, 8, 24, 2, 0, 2, 8, 3, 8, 4, 0, 9, 0,
-    9, 8, 10, 0, 10, 8, 2, 16, 2, 24, 9, 16, 9, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0,
+    9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
     24, 13, 24, 11, 24,
 ];
 /// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 96 reals).
@@ -1012,8 +1012,8 @@ fn regressor_in(
     (sphi[0], cphi[0]) = sin_cos(phi);
     kernels(&REGRESSOR_ROWS[0..56], nu, &mut kern[0..28]);
     let mut out = [[0.0; NTHETA]; NQ];
-    t[0] = qd[1] * kern[6];
-    t[1] = qd[1] * kern[7];
+    t[0] = qd[1] * kern[18];
+    t[1] = qd[1] * kern[19];
     t[2] = kern[2] * cphi[0];
     t[3] = kern[3] * sphi[0];
     t[4] = kern[3] * cphi[0];
@@ -1021,11 +1021,11 @@ fn regressor_in(
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
     t[8] = 0.0225 * t[7];
-    t[9] = 0.15 * (kern[9] * t[8] + 0.0225 * kern[8] * t[6]);
+    t[9] = 0.15 * (kern[7] * t[8] + 0.0225 * kern[6] * t[6]);
     t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     t[12] = 0.0225 * t[11];
-    t[13] = kern[8] * t[12] - 0.0225 * kern[9] * t[10] + 7.776e-6 * kern[24];
+    t[13] = kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[24];
     t[14] = qd[0] * kern[12];
     t[15] = qd[0] * kern[13];
     t[16] = qd[1] * kern[5];
@@ -1038,13 +1038,13 @@ fn regressor_in(
     t[23] = nu[24] * sphi[0];
     t[24] = nu[24] * cphi[0];
     t[25] = nu[16] * sphi[0];
-    t[26] = kern[10] - 0.018 * t[25] - 0.018 * t[24];
-    t[27] = kern[11] - 0.018 * t[23] + 0.018 * t[22];
-    t[28] = cphi[0] * kern[17];
-    t[29] = sphi[0] * kern[16];
+    t[26] = kern[8] - 0.018 * t[25] - 0.018 * t[24];
+    t[27] = kern[9] - 0.018 * t[23] + 0.018 * t[22];
+    t[28] = cphi[0] * kern[11];
+    t[29] = sphi[0] * kern[10];
     t[30] = -0.0144 * t[28] - 0.0144 * t[29];
-    t[31] = cphi[0] * kern[16];
-    t[32] = sphi[0] * kern[17];
+    t[31] = cphi[0] * kern[10];
+    t[32] = sphi[0] * kern[11];
     t[33] = 0.0144 * t[31] - 0.0144 * t[32];
     t[34] = t[26] * t[30] + t[27] * t[33];
     t[35] = 0.00216 * t[32] - 0.00216 * t[31];
@@ -1052,24 +1052,24 @@ fn regressor_in(
     t[28] = qd[0] * (kern[14] - 0.0027 * t[22] + 0.0027 * t[23]) + qd[1] * t[35];
     t[22] = qd[0] * (kern[15] - 0.0027 * t[24] - 0.0027 * t[25]) + qd[1] * t[31];
     t[23] = -0.001728 * cphi[0];
-    t[24] = qd[0] * t[35] + qd[1] * (kern[18] * t[23] + 0.001728 * sphi[0] * kern[19]);
-    t[25] = qd[0] * t[31] + qd[1] * (kern[19] * t[23] - 0.001728 * sphi[0] * kern[18]);
-    t[23] = 0.03 * (0.00050625 * kern[9] * kern[9] + 0.00050625 * kern[8] * kern[8])
+    t[24] = qd[0] * t[35] + qd[1] * (kern[16] * t[23] + 0.001728 * sphi[0] * kern[17]);
+    t[25] = qd[0] * t[31] + qd[1] * (kern[17] * t[23] - 0.001728 * sphi[0] * kern[16]);
+    t[23] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
         + t[9] + t[9] + 9.72e-6 * kern[23];
-    t[9] = 0.0225 * kern[9] * (0.000432 * cphi[0] * t[17] + t[16] * t[18])
-        + 0.0225 * kern[8] * (t[17] * t[18] - 0.000432 * cphi[0] * t[16]);
-    t[16] = 0.03 * (7.59375e-5 * kern[9] * t[14] - 7.59375e-5 * kern[8] * t[15])
-        - 0.0225 * qd[0] * (kern[8] * t[8] - 0.0225 * kern[9] * t[6]) + 0.15 * t[9]
+    t[9] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[17] + t[16] * t[18])
+        + 0.0225 * kern[6] * (t[17] * t[18] - 0.000432 * cphi[0] * t[16]);
+    t[16] = 0.03 * (7.59375e-5 * kern[7] * t[14] - 7.59375e-5 * kern[6] * t[15])
+        - 0.0225 * qd[0] * (kern[6] * t[8] - 0.0225 * kern[7] * t[6]) + 0.15 * t[9]
         + 0.15 * (0.003375 * t[7] * t[14] + t[6] * t[20]) - 1.1664e-6 * qd[1] * kern[25];
-    t[6] = 0.15 * qd[0] * (kern[9] * t[12] + 0.0225 * kern[8] * t[10])
-        - 0.0225 * kern[9] * (t[0] * t[19] + 5.184e-5 * t[1] * sphi[0])
-        + 0.0225 * kern[8] * (t[1] * t[19] - 5.184e-5 * t[0] * sphi[0])
+    t[6] = 0.15 * qd[0] * (kern[7] * t[12] + 0.0225 * kern[6] * t[10])
+        - 0.0225 * kern[7] * (t[0] * t[19] + 5.184e-5 * t[1] * sphi[0])
+        + 0.0225 * kern[6] * (t[1] * t[19] - 5.184e-5 * t[0] * sphi[0])
         - 1.1664e-6 * t[21] - 9.3312e-7 * qd[1] * kern[26];
     out[0][0] = 0.00118125 * kern[1] * p.gravity[0] - 0.00118125 * kern[0] * p.gravity[1]
         + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
     out[0][1] = t[23] * qdd[0] - p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         - p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
-        - 0.03 * (0.0225 * p.gravity[1] * kern[8] - 0.0225 * p.gravity[0] * kern[9])
+        - 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7])
         + qd[0] * t[16] + t[13] * qdd[1] + qd[1] * t[6];
     out[0][2] = 1.125e-8 * qdd[0];
     out[0][3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
