@@ -411,19 +411,19 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
 #define REACH_ARM_GRAVITY_WORK 310 /* 2480 bytes */
 #define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
 #define REACH_ARM_TIP_JACOBIAN_WORK 186 /* 1488 bytes */
-#define REACH_ARM_REGRESSOR_WORK 1828 /* 14624 bytes */
+#define REACH_ARM_REGRESSOR_WORK 1943 /* 15544 bytes */
 #define REACH_ARM_GRAVITY_JACOBIAN_WORK 455 /* 3640 bytes */
 #define REACH_ARM_POTENTIAL_ENERGY_WORK 256 /* 2048 bytes */
-#define REACH_ARM_TERMS_WORK 1810 /* 14480 bytes */
+#define REACH_ARM_TERMS_WORK 1943 /* 15544 bytes */
 #define REACH_ARM_KINETIC_ENERGY_WORK 1384 /* 11072 bytes */
-#define REACH_ARM_CORIOLIS_WORK 1852 /* 14816 bytes */
+#define REACH_ARM_CORIOLIS_WORK 1985 /* 15880 bytes */
 #define REACH_ARM_POSE_WORK 212 /* 1696 bytes */
-#define REACH_ARM_FORWARD_DYNAMICS_WORK 2011 /* 16088 bytes */
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 2144 /* 17152 bytes */
 #define REACH_ARM_STATIC_RESIDUAL_WORK 370 /* 2960 bytes */
 #define REACH_ARM_STATIC_JACOBIAN_WORK 491 /* 3928 bytes */
 #define REACH_ARM_EQUILIBRIUM_WORK 629 /* 5032 bytes */
 #define REACH_ARM_REGULATE_WORK 442 /* 3536 bytes */
-#define REACH_ARM_WORK_LEN 2011 /* 16088 bytes */
+#define REACH_ARM_WORK_LEN 2144 /* 17152 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

@@ -14,6 +14,9 @@
  * combinations of moments ("kernels") from one banded constant table. Long
  * bodies are split into static parts that share one scratch array t[] (a slot is
  * reused once its temporary is dead), which keeps compile time roughly linear.
+ * twin_tendon_terms and twin_tendon_regressor are the same sums assembled differently:
+ * what they have in common is computed once, by twin_tendon_shares, and each finishes
+ * from its values s[].
  * Each function that takes q does its work in a _ws form, whose moment, kernel and
  * temporary arrays are carved out of the caller's work[]; the plain form declares
  * that scratch on its own stack and calls it.
@@ -344,6 +347,101 @@ void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
     twin_tendon_damping_with(&TWIN_TENDON_PARAMS_DEFAULT, D);
 }
 
+/* Dot-product kernels of twin_tendon_shares: pairs (row, moment base). */
+static const unsigned char twin_tendon_shares_rows[56] = {
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
+    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    11, 24
+};
+
+/* What twin_tendon_terms_with_ws and twin_tendon_regressor_with_ws have in common: the 21 values s[] that the rest of each reads. At the runtime parameters *P. Scratch: work[0 .. 60).
+ * Operations: 213 add, 428 mul, 4 div, 0 sqrt, 6 trig. */
+static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double s[], double work[])
+{
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 28 */
+    double cphi[1];
+    double sphi[1];
+    double phi;
+    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 6, &nu[16], &nu[24]);
+    phi = 0.15 * q[0];
+    cphi[0] = cos(phi);
+    sphi[0] = sin(phi);
+    twin_tendon_kernels(twin_tendon_shares_rows, 28, nu, kern);
+    const double t0 = qd[1] * kern[18];
+    const double t1 = qd[1] * kern[19];
+    const double t2 = kern[2] * cphi[0];
+    const double t3 = kern[3] * sphi[0];
+    const double t4 = kern[3] * cphi[0];
+    const double t5 = kern[2] * sphi[0];
+    const double t6 = 0.0036 * t2 - 0.0036 * t3;
+    const double t7 = 0.0036 * t4 + 0.0036 * t5;
+    const double t8 = 0.0225 * t7;
+    const double t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6);
+    const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    const double t12 = 0.0225 * t11;
+    const double t13 = qd[0] * kern[12];
+    const double t14 = qd[0] * kern[13];
+    const double t15 = qd[1] * kern[5];
+    const double t16 = qd[1] * kern[4];
+    const double t17 = -0.000432 * sphi[0];
+    const double t18 = -5.184e-5 * cphi[0];
+    const double t19 = -0.003375 * t14;
+    const double t20 = qd[0] * kern[25];
+    const double t21 = nu[16] * cphi[0];
+    const double t22 = nu[24] * sphi[0];
+    const double t23 = nu[24] * cphi[0];
+    const double t24 = nu[16] * sphi[0];
+    const double t25 = kern[8] - 0.018 * t24 - 0.018 * t23;
+    const double t26 = kern[9] - 0.018 * t22 + 0.018 * t21;
+    const double t27 = cphi[0] * kern[11];
+    const double t28 = sphi[0] * kern[10];
+    const double t29 = -0.0144 * t27 - 0.0144 * t28;
+    const double t30 = cphi[0] * kern[10];
+    const double t31 = sphi[0] * kern[11];
+    const double t32 = 0.0144 * t30 - 0.0144 * t31;
+    const double t33 = 0.00216 * t31 - 0.00216 * t30;
+    const double t34 = -0.00216 * t28 - 0.00216 * t27;
+    const double t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33;
+    const double t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34;
+    const double t37 = -0.001728 * cphi[0];
+    const double t38 = qd[0] * t33 + qd[1] * (kern[16] * t37 + 0.001728 * sphi[0] * kern[17]);
+    const double t39 = qd[0] * t34 + qd[1] * (kern[17] * t37 - 0.001728 * sphi[0] * kern[16]);
+    const double t40 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
+        + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15);
+    s[0] = kern[20];
+    s[1] = -3.98671875e-6 * qd[0] * kern[21];
+    s[2] = kern[22];
+    s[3] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t9 + t9
+        + 9.72e-6 * kern[23];
+    s[4] = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24];
+    s[5] = 0.03 * (7.59375e-5 * kern[7] * t13 - 7.59375e-5 * kern[6] * t14)
+        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t40
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25];
+    s[6] = 0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
+        - 0.0225 * kern[7] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
+        + 0.0225 * kern[6] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
+        - 9.3312e-7 * qd[1] * kern[26];
+    s[7] = t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20;
+    s[8] = -7.46496e-7 * qd[1] * kern[27];
+    s[9] = t25 * t25 + t26 * t26;
+    s[10] = t25 * t29 + t26 * t32;
+    s[11] = t29 * t29 + t32 * t32;
+    s[12] = t25 * t35 + t26 * t36;
+    s[13] = t25 * t38 + t26 * t39;
+    s[14] = t29 * t35 + t32 * t36;
+    s[15] = t29 * t38 + t32 * t39;
+    s[16] = 0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0];
+    s[17] = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
+        + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
+        + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
+    s[18] = P->gravity[0] * t25 + P->gravity[1] * t26;
+    s[19] = P->gravity[0] * t10 + P->gravity[1] * t11;
+    s[20] = P->gravity[0] * t29 + P->gravity[1] * t32;
+}
+
 /* Dot-product kernels of twin_tendon_inertia: pairs (row, moment base). */
 static const unsigned char twin_tendon_inertia_rows[28] = {
     0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16
@@ -547,109 +645,32 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 }
 #endif
 
-/* Dot-product kernels of twin_tendon_regressor: pairs (row, moment base). */
-static const unsigned char twin_tendon_regressor_rows[56] = {
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
-    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
-    11, 24
-};
 
-/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 60 reals.
+/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 81 reals.
  * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
-    double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 28 */
-    double cphi[1];
-    double sphi[1];
-    double phi;
-    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[8]);
-    twin_tendon_moments(0.12 * q[1], 6, &nu[16], &nu[24]);
-    phi = 0.15 * q[0];
-    cphi[0] = cos(phi);
-    sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_regressor_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[18];
-    const double t1 = qd[1] * kern[19];
-    const double t2 = kern[2] * cphi[0];
-    const double t3 = kern[3] * sphi[0];
-    const double t4 = kern[3] * cphi[0];
-    const double t5 = kern[2] * sphi[0];
-    const double t6 = 0.0036 * t2 - 0.0036 * t3;
-    const double t7 = 0.0036 * t4 + 0.0036 * t5;
-    const double t8 = 0.0225 * t7;
-    const double t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6);
-    const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    const double t12 = 0.0225 * t11;
-    const double t13 = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24];
-    const double t14 = qd[0] * kern[12];
-    const double t15 = qd[0] * kern[13];
-    const double t16 = qd[1] * kern[5];
-    const double t17 = qd[1] * kern[4];
-    const double t18 = -0.000432 * sphi[0];
-    const double t19 = -5.184e-5 * cphi[0];
-    const double t20 = -0.003375 * t15;
-    const double t21 = qd[0] * kern[25];
-    const double t22 = nu[16] * cphi[0];
-    const double t23 = nu[24] * sphi[0];
-    const double t24 = nu[24] * cphi[0];
-    const double t25 = nu[16] * sphi[0];
-    const double t26 = kern[8] - 0.018 * t25 - 0.018 * t24;
-    const double t27 = kern[9] - 0.018 * t23 + 0.018 * t22;
-    const double t28 = cphi[0] * kern[11];
-    const double t29 = sphi[0] * kern[10];
-    const double t30 = -0.0144 * t28 - 0.0144 * t29;
-    const double t31 = cphi[0] * kern[10];
-    const double t32 = sphi[0] * kern[11];
-    const double t33 = 0.0144 * t31 - 0.0144 * t32;
-    const double t34 = t26 * t30 + t27 * t33;
-    const double t35 = 0.00216 * t32 - 0.00216 * t31;
-    const double t36 = -0.00216 * t29 - 0.00216 * t28;
-    const double t37 = qd[0] * (kern[14] - 0.0027 * t22 + 0.0027 * t23) + qd[1] * t35;
-    const double t38 = qd[0] * (kern[15] - 0.0027 * t24 - 0.0027 * t25) + qd[1] * t36;
-    const double t39 = -0.001728 * cphi[0];
-    const double t40 = qd[0] * t35 + qd[1] * (kern[16] * t39 + 0.001728 * sphi[0] * kern[17]);
-    const double t41 = qd[0] * t36 + qd[1] * (kern[17] * t39 - 0.001728 * sphi[0] * kern[16]);
-    const double t42 = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t9 + t9 + 9.72e-6 * kern[23];
-    const double t43 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t17 + t16 * t18)
-        + 0.0225 * kern[6] * (t17 * t18 - 0.000432 * cphi[0] * t16);
-    const double t44 = 0.03 * (7.59375e-5 * kern[7] * t14 - 7.59375e-5 * kern[6] * t15)
-        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t43
-        + 0.15 * (0.003375 * t7 * t14 + t6 * t20) - 1.1664e-6 * qd[1] * kern[25];
-    const double t45 = 0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
-        - 0.0225 * kern[7] * (t0 * t19 + 5.184e-5 * t1 * sphi[0])
-        + 0.0225 * kern[6] * (t1 * t19 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t21
-        - 9.3312e-7 * qd[1] * kern[26];
-    Y[0] = 0.00118125 * kern[1] * P->gravity[0] - 0.00118125 * kern[0] * P->gravity[1]
-        + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
-    Y[1] = t42 * qdd[0] - P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
-        - P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        - 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7])
-        + qd[0] * t44 + t13 * qdd[1] + qd[1] * t45;
+    double *const s = &work[0]; /* 21 */
+    twin_tendon_shares(P, q, qd, s, &work[21]);
+    Y[0] = 2.6578125e-5 * s[0] * qdd[0] - s[16] + qd[0] * s[1];
+    Y[1] = s[3] * qdd[0] - s[17] + qd[0] * s[5] + s[4] * qdd[1] + qd[1] * s[6];
     Y[2] = 1.125e-8 * qdd[0];
     Y[3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
     Y[4] = 0.00225 * q[0];
     Y[5] = 0.0;
     Y[6] = 4.5e-5 * qd[0];
     Y[7] = 0.0;
-    Y[8] = (t26 * t26 + t27 * t27) * qdd[0] - P->gravity[0] * t26 - P->gravity[1] * t27
-        + qd[0] * (t26 * t37 + t27 * t38) + t34 * qdd[1] + qd[1] * (t26 * t40 + t27 * t41);
+    Y[8] = s[9] * qdd[0] - s[18] + qd[0] * s[12] + s[10] * qdd[1] + qd[1] * s[13];
     Y[9] = 0.0225 * qdd[0] + 0.018 * qdd[1];
     Y[10] = 0.0;
-    Y[11] = t13 * qdd[0] - P->gravity[0] * t10 - P->gravity[1] * t11
-        + qd[0] * (t11 * t20 - 0.003375 * t10 * t14 + 1.1664e-6 * t21)
-        + 6.2208e-6 * kern[22] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[27];
+    Y[11] = s[4] * qdd[0] - s[19] + qd[0] * s[7] + 6.2208e-6 * s[2] * qdd[1] + qd[1] * s[8];
     Y[12] = 0.0;
     Y[13] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
     Y[14] = 0.0;
     Y[15] = 0.00108 * q[1];
     Y[16] = 0.0;
     Y[17] = 2.4e-5 * qd[1];
-    Y[18] = t34 * qdd[0] - P->gravity[0] * t30 - P->gravity[1] * t33
-        + qd[0] * (t30 * t37 + t33 * t38) + (t30 * t30 + t33 * t33) * qdd[1]
-        + qd[1] * (t30 * t40 + t33 * t41);
+    Y[18] = s[10] * qdd[0] - s[20] + qd[0] * s[14] + s[11] * qdd[1] + qd[1] * s[15];
     Y[19] = 0.018 * qdd[0] + 0.0144 * qdd[1];
 }
 
@@ -817,104 +838,28 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 }
 #endif
 
-/* Dot-product kernels of twin_tendon_terms: pairs (row, moment base). */
-static const unsigned char twin_tendon_terms_rows[56] = {
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
-    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
-    11, 24
-};
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 60 reals.
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 81 reals.
  * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
-    double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 28 */
-    double cphi[1];
-    double sphi[1];
-    double phi;
-    twin_tendon_moments(0.15 * q[0], 6, &nu[0], &nu[8]);
-    twin_tendon_moments(0.12 * q[1], 6, &nu[16], &nu[24]);
-    phi = 0.15 * q[0];
-    cphi[0] = cos(phi);
-    sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_terms_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[18];
-    const double t1 = qd[1] * kern[19];
-    const double t2 = kern[2] * cphi[0];
-    const double t3 = kern[3] * sphi[0];
-    const double t4 = kern[3] * cphi[0];
-    const double t5 = kern[2] * sphi[0];
-    const double t6 = 0.0036 * t2 - 0.0036 * t3;
-    const double t7 = 0.0036 * t4 + 0.0036 * t5;
-    const double t8 = 0.0225 * t7;
-    const double t9 = 0.15 * (kern[7] * t8 + 0.0225 * kern[6] * t6);
-    const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    const double t12 = 0.0225 * t11;
-    const double t13 = qd[0] * kern[12];
-    const double t14 = qd[0] * kern[13];
-    const double t15 = qd[1] * kern[5];
-    const double t16 = qd[1] * kern[4];
-    const double t17 = -0.000432 * sphi[0];
-    const double t18 = -5.184e-5 * cphi[0];
-    const double t19 = -0.003375 * t14;
-    const double t20 = qd[0] * kern[25];
-    const double t21 = nu[16] * cphi[0];
-    const double t22 = nu[24] * sphi[0];
-    const double t23 = nu[24] * cphi[0];
-    const double t24 = nu[16] * sphi[0];
-    const double t25 = kern[8] - 0.018 * t24 - 0.018 * t23;
-    const double t26 = kern[9] - 0.018 * t22 + 0.018 * t21;
-    const double t27 = cphi[0] * kern[11];
-    const double t28 = sphi[0] * kern[10];
-    const double t29 = -0.0144 * t27 - 0.0144 * t28;
-    const double t30 = cphi[0] * kern[10];
-    const double t31 = sphi[0] * kern[11];
-    const double t32 = 0.0144 * t30 - 0.0144 * t31;
-    const double t33 = 0.00216 * t31 - 0.00216 * t30;
-    const double t34 = -0.00216 * t28 - 0.00216 * t27;
-    const double t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33;
-    const double t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34;
-    const double t37 = -0.001728 * cphi[0];
-    const double t38 = qd[0] * t33 + qd[1] * (kern[16] * t37 + 0.001728 * sphi[0] * kern[17]);
-    const double t39 = qd[0] * t34 + qd[1] * (kern[17] * t37 - 0.001728 * sphi[0] * kern[16]);
-    const double t40 = P->density_scale[1] * (kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24])
-        + 6.48e-9 * P->rotary_inertia_scale[1] + P->payload_mass * (t25 * t29 + t26 * t32)
-        + 0.018 * P->payload_rotary_inertia;
-    const double t41 = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t9 + t9 + 9.72e-6 * kern[23];
-    const double t42 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
-        + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15);
-    const double t43 = 0.03 * (7.59375e-5 * kern[7] * t13 - 7.59375e-5 * kern[6] * t14)
-        - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t42
-        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25];
-    const double t44 = 0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
-        - 0.0225 * kern[7] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
-        + 0.0225 * kern[6] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
-        - 9.3312e-7 * qd[1] * kern[26];
-    const double t45 = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
-        + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
-        + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
-    B[0] = 2.6578125e-5 * kern[20] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
-        + P->density_scale[1] * t41 + 1.62e-8 * P->rotary_inertia_scale[1]
-        + P->payload_mass * (t25 * t25 + t26 * t26) + 0.0225 * P->payload_rotary_inertia;
-    B[1] = t40;
-    B[2] = t40;
-    B[3] = 6.2208e-6 * kern[22] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
-        + P->payload_mass * (t29 * t29 + t32 * t32) + 0.0144 * P->payload_rotary_inertia;
-    C[0] = P->density_scale[1] * t43 - 3.98671875e-6 * P->density_scale[0] * qd[0] * kern[21]
-        + P->payload_mass * (t25 * t35 + t26 * t36);
-    C[1] = P->density_scale[1] * t44 + P->payload_mass * (t25 * t38 + t26 * t39);
-    C[2] = P->density_scale[1] * (t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20)
-        + P->payload_mass * (t29 * t35 + t32 * t36);
-    C[3] = P->payload_mass * (t29 * t38 + t32 * t39)
-        - 7.46496e-7 * P->density_scale[1] * qd[1] * kern[27];
-    G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
-        - P->density_scale[1] * t45
-        - P->payload_mass * (P->gravity[0] * t25 + P->gravity[1] * t26);
-    G[1] = -P->density_scale[1] * (P->gravity[0] * t10 + P->gravity[1] * t11)
-        - P->payload_mass * (P->gravity[0] * t29 + P->gravity[1] * t32);
+    double *const s = &work[0]; /* 21 */
+    twin_tendon_shares(P, q, qd, s, &work[21]);
+    const double t0 = P->density_scale[1] * s[4] + 6.48e-9 * P->rotary_inertia_scale[1]
+        + P->payload_mass * s[10] + 0.018 * P->payload_rotary_inertia;
+    B[0] = 2.6578125e-5 * s[0] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
+        + P->density_scale[1] * s[3] + 1.62e-8 * P->rotary_inertia_scale[1]
+        + P->payload_mass * s[9] + 0.0225 * P->payload_rotary_inertia;
+    B[1] = t0;
+    B[2] = t0;
+    B[3] = 6.2208e-6 * s[2] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+        + P->payload_mass * s[11] + 0.0144 * P->payload_rotary_inertia;
+    C[0] = P->density_scale[0] * s[1] + P->density_scale[1] * s[5] + P->payload_mass * s[12];
+    C[1] = P->density_scale[1] * s[6] + P->payload_mass * s[13];
+    C[2] = P->density_scale[1] * s[7] + P->payload_mass * s[14];
+    C[3] = P->density_scale[1] * s[8] + P->payload_mass * s[15];
+    G[0] = -P->density_scale[0] * s[16] - P->density_scale[1] * s[17] - P->payload_mass * s[18];
+    G[1] = -P->density_scale[1] * s[19] - P->payload_mass * s[20];
 }
 
 
@@ -998,7 +943,7 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 #endif
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 66 reals.
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 87 reals.
  * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
@@ -1129,7 +1074,7 @@ twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
      * All of them, and the scratch of terms and actuation, live in
-     * work[0 .. TWIN_TENDON_FORWARD_DYNAMICS_WORK), 91 reals. */
+     * work[0 .. TWIN_TENDON_FORWARD_DYNAMICS_WORK), 112 reals. */
     double *const B = &work[0];
     double *const C = &work[4];
     double *const G = &work[8];

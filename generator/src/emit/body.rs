@@ -46,6 +46,7 @@ impl Syntax for Spelling<'_> {
             },
             Leaf::Temp(t) => format!("t{t}"),
             Leaf::Kernel(r) => format!("kern[{r}]"),
+            Leaf::Shared(k) => format!("s[{k}]"),
             Leaf::Input(v) => match *v {
                 Var::Q(i) => format!("q[{i}]"),
                 Var::Qd(i) => format!("qd[{i}]"),
@@ -288,12 +289,13 @@ bending_stiffness = 0.008
         .unwrap();
         let plan = Plan::new(&derive_emitted(&arm), true, Precision::F64).unwrap();
         let mut checked = 0;
-        for f in [
+        let funcs = [
             &plan.inertia,
             &plan.terms,
             &plan.gravity,
             &plan.tip_jacobian,
-        ] {
+        ];
+        for f in funcs.into_iter().chain(&plan.shares) {
             let b = &f.block;
             // One slot per live temporary, and (parts of 7 statements) slots only for
             // temporaries read outside the part that defines them.

@@ -83,6 +83,8 @@ struct Printer<'a> {
     precision: Precision,
     standard: CStandard,
     name: &'a str,
+    /// Scratch of the shares helper ([`Plan::shares`]), lent by the functions over it.
+    shares_work: usize,
 }
 
 impl Printer<'_> {
@@ -146,6 +148,18 @@ impl Printer<'_> {
             ));
             used += len;
         };
+        // A function over the shares helper: s[] first, the helper's scratch after it,
+        // which the function's own temporaries reuse once the helper returns.
+        let mut lent = 0;
+        if let (true, Some(helper)) = (func.over_shares, &plan.shares) {
+            let len = helper.block.outputs.len();
+            carve(&mut decls, "s", len);
+            out.push_str(&format!(
+                "    {}_shares(P, q, qd, s, &work[{len}]);\n",
+                self.name
+            ));
+            lent = len + self.shares_work;
+        }
         let needs_nu = b.nu_count.iter().any(|&c| c > 0);
         if needs_nu {
             carve(&mut decls, "nu", plan.layout.len.max(1));
@@ -296,7 +310,8 @@ impl Printer<'_> {
                 ));
             }
         }
-        if !b.reads_q && fname != "stiffness" && fname != "damping" {
+        // (The shares helper says for itself which of its inputs it ignores.)
+        if !b.reads_q && !["stiffness", "damping", "shares"].contains(&fname) {
             out.push_str("    (void)q;\n");
         }
         if !b.reads_params && PARAMETRIC_FUNCTIONS.contains(&fname) {
@@ -312,7 +327,7 @@ impl Printer<'_> {
             out.push_str(&temporaries(b, &syn, &style));
         }
         out.push_str(&outputs(b, &syn, &style, target));
-        (rows, format!("{decls}{out}"), used)
+        (rows, format!("{decls}{out}"), used.max(lent))
     }
 
     /// How temporaries are written: `const` where computed (C99), or assigned to
@@ -363,7 +378,7 @@ impl Printer<'_> {
         let mut calls = String::new();
         for (c, chunk) in chunks.iter().enumerate() {
             // The inputs this part reads, in a fixed order.
-            let mut reads = [false; 10];
+            let mut reads = [false; 11];
             for s in chunk.iter() {
                 for_each_leaf(&s.expr, &mut |l| {
                     let k = match l {
@@ -377,13 +392,14 @@ impl Printer<'_> {
                         Leaf::Kernel(_) => 7,
                         Leaf::Input(Var::Param(_)) => 8,
                         Leaf::Input(Var::Qdd(_)) => 9,
+                        Leaf::Shared(_) => 10,
                         Leaf::Temp(_) => return,
                     };
                     reads[k] = true;
                 });
             }
             let names = [
-                "q", "qd", "sigma", "nu", "pnu", "cphi", "sphi", "kern", "P", "qdd",
+                "q", "qd", "sigma", "nu", "pnu", "cphi", "sphi", "kern", "P", "qdd", "s",
             ];
             let mut params = Vec::new();
             let mut args = Vec::new();
@@ -507,12 +523,46 @@ pub fn emit(
         precision,
         standard,
         name,
+        shares_work: 0,
     };
     let n = plan.n;
     let k = plan.k;
     let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_beyond);
 
     let mut funcs: Vec<CFunc> = Vec::new();
+    // The helper of terms and the regressor comes first: both call it.
+    let mut shares_work = 0;
+    if let Some(helper) = &plan.shares {
+        let (rows, body, len) = p.body(helper, "shares", None, &|i| format!("s[{i}]"));
+        let b = &helper.block;
+        let mut unused = String::new();
+        for (read, what) in [(b.reads_q, "q"), (b.reads_qd, "qd"), (b.reads_params, "P")] {
+            if !read {
+                unused.push_str(&format!("    (void){what};\n"));
+            }
+        }
+        if len == 0 {
+            unused.push_str("    (void)work;\n");
+        }
+        funcs.push(CFunc {
+            rows,
+            formula: format!(
+                "What {name}_terms_with_ws and {name}_regressor_with_ws have in common: the \
+                 {} values s[] that the rest of each reads. At the runtime parameters *P. \
+                 Scratch: work[0 .. {len}).",
+                b.outputs.len()
+            ),
+            ops: ops_line(helper),
+            signature: format!(
+                "static void {name}_shares(const {name}_params *P, const {r} q[{up}_NQ], \
+                 const {r} qd[{up}_NQ], {r} s[], {r} work[])"
+            ),
+            body: format!("{unused}{body}"),
+            plain: false,
+        });
+        shares_work = len;
+    }
+    let p = Printer { shares_work, ..p };
     let mut constant_funcs: Vec<CFunc> = Vec::new();
     // Scratch of every `_ws` function, by name (for the header and the wrappers).
     let mut work: Vec<(String, usize)> = Vec::new();
@@ -997,6 +1047,7 @@ pub fn emit(
     ctx.insert("kernel_first", &wrap_list(&strings(&mc.first), 4));
     ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));
     ctx.insert("functions", &funcs);
+    ctx.insert("shares", &plan.shares.is_some());
     ctx.insert(
         "matrix_tables",
         &matrix_table_context(plan, precision, &|v| wrap_list(v, 4)),

@@ -21,6 +21,7 @@ pub mod printer;
 pub mod python;
 pub mod rust;
 pub mod schedule;
+pub mod shares;
 pub mod templates;
 
 use crate::derive::Model;

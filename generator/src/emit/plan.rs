@@ -11,6 +11,7 @@ use crate::ir::{Id, Program};
 use crate::kernel_matrix::{resolved_band, MatrixTable};
 use crate::moments::{MILLER_EXTRA, SERIES_TERMS};
 use num_traits::Zero;
+use std::collections::BTreeMap;
 
 /// The generated functions whose result depends on a runtime parameter: each has a
 /// `_with` variant taking the parameters, and its old form means the arm file's values.
@@ -54,6 +55,10 @@ pub struct Func {
     /// besides the family rows reads, and the top rows' bands as the precision resolves
     /// them ([`crate::kernel_matrix::resolved_band`]). `block.nu_count` beyond.
     pub nu_fast: Vec<usize>,
+    /// Whether the function first calls the plan's shares helper ([`Plan::shares`])
+    /// and reads its values as `s[k]`; such a function has no preamble of its own, and
+    /// its `ops` include the helper's.
+    pub over_shares: bool,
 }
 
 /// Kernels `start .. start + uses.len()` of a function's `kern[]`, each the dot
@@ -236,7 +241,39 @@ pub struct Plan {
     /// The regressor `Y(q, q̇, q̈)`, n × `params.linear_len()` row-major (a parametric
     /// model's; `None` only in a [`Plan::build`] of a folded one).
     pub regressor: Option<Func>,
+    /// What `terms` and the regressor have in common, computed once by a private helper
+    /// that both call ([`super::shares`]): its outputs are the values `s[k]` they read.
+    /// `None` when the two share nothing (no regressor).
+    pub shares: Option<Func>,
     pub pose: Vec<Func>,
+}
+
+/// A function whose roots are scheduled over the shares helper's values: straight-line
+/// code only, reading what the helper reads (for its callers' signatures).
+fn over_shares(
+    sched: &mut Scheduler,
+    roots: &[Id],
+    frontier: &BTreeMap<Id, usize>,
+    helper: &Func,
+) -> Func {
+    let mut block = sched.block_over(roots, false, frontier);
+    debug_assert!(block.kernels.is_empty() && block.angles == 0);
+    debug_assert!(block.nu_count.iter().all(|&c| c == 0));
+    let hb = &helper.block;
+    block.reads_q |= hb.reads_q;
+    block.reads_qd |= hb.reads_qd;
+    block.reads_sigma |= hb.reads_sigma;
+    block.reads_params |= hb.reads_params;
+    Func {
+        kern_len: 0,
+        dots: Vec::new(),
+        families: Vec::new(),
+        ops: block.ops + helper.ops,
+        ops_beyond: block.ops + helper.ops_beyond,
+        nu_fast: vec![0; block.nu_count.len()],
+        block,
+        over_shares: true,
+    }
 }
 
 /// Worst-case operations of one moment evaluation of `count` moments, at argument
@@ -435,6 +472,7 @@ impl Plan {
                 ops,
                 ops_beyond,
                 nu_fast,
+                over_shares: false,
             }
         };
         let mut inertia = func(&mut sched, &flat(&model.inertia), false);
@@ -463,7 +501,24 @@ impl Plan {
         let kinetic_energy = inertia.ops + quadratic_form;
         let kinetic_energy_beyond = inertia.ops_beyond + quadratic_form;
         let mut potential_energy = func(&mut sched, &[model.potential_energy], false);
-        let mut terms = func(&mut sched, &terms_roots, false);
+        // `terms` and the regressor over one helper that computes what they share.
+        let regressor_roots = model.regressor.as_ref().map(flat);
+        let frontier = match &regressor_roots {
+            Some(y) => super::shares::frontier(prog, &terms_roots, y, |i| sched.is_moment_form(i)),
+            None => BTreeMap::new(),
+        };
+        let mut shares = (!frontier.is_empty()).then(|| {
+            let roots: Vec<Id> = frontier.keys().copied().collect();
+            func(&mut sched, &roots, false)
+        });
+        let mut over = |sched: &mut Scheduler, roots: &[Id]| -> Func {
+            match &shares {
+                Some(helper) => over_shares(sched, roots, &frontier, helper),
+                None => func(sched, roots, false),
+            }
+        };
+        let mut terms = over(&mut sched, &terms_roots);
+        let mut regressor = regressor_roots.map(|y| over(&mut sched, &y));
         let dynamics = terms.ops
             + actuation.ops
             + stiffness.ops
@@ -474,10 +529,6 @@ impl Plan {
             + stiffness.ops_beyond
             + damping.ops_beyond
             + dynamics_loop_ops(n, model.n_inputs);
-        let mut regressor = model
-            .regressor
-            .as_ref()
-            .map(|y| func(&mut sched, &flat(y), false));
         let mut pose: Vec<Func> = model
             .pose
             .iter()
@@ -495,6 +546,7 @@ impl Plan {
             &mut terms,
         ];
         funcs.extend(actuation_jacobian.as_mut());
+        funcs.extend(shares.as_mut());
         funcs.extend(regressor.as_mut());
         funcs.extend(pose.iter_mut());
         let table = compact_table(&sched.table, &mut funcs);
@@ -540,6 +592,7 @@ impl Plan {
             dynamics,
             dynamics_beyond,
             regressor,
+            shares,
             pose,
         })
     }

@@ -153,6 +153,9 @@ fn function(
     if with {
         out.push_str(&format!("    P = _params({})\n", param_names(plan)));
     }
+    if f.over_shares {
+        out.push_str("    s = _shares(q, qd, P)\n");
+    }
     out.push_str(spec.init);
     out.push_str(&temporaries(b, &syn, &style));
     out.push_str(&outputs(b, &syn, &style, target));
@@ -363,6 +366,24 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             None,
             &move |i| mat(i, ny),
         ));
+    }
+    if let Some(helper) = &plan.shares {
+        let b = &helper.block;
+        let mut shares = function(
+            plan,
+            helper,
+            &Spec {
+                fname: "_shares",
+                formula: "What terms() and regressor() have in common: the values s that the rest of each reads, at the parameters P (as _params returns them).",
+                params: &[],
+                init: &format!("    s = [0.0] * {}\n", b.outputs.len()),
+                ret: "    return s\n",
+            },
+            None,
+            &|i| format!("s[{i}]"),
+        );
+        shares.signature = "_shares(q, qd, P)".into();
+        funcs.push(shares);
     }
     let nn2 = n * n;
     let tspec = Spec {

@@ -59,16 +59,18 @@ fn format_rust(what: &str, src: &str) -> Result<String, String> {
     Ok(prettyplease::unparse(&file))
 }
 
-/// The body of one function's `_in` form, which works in the scratch slice `work`:
-/// the moment, kernel and temporary arrays are split off its front. Returns the
-/// constant tables it reads, the body, and the scratch length it needs.
 /// What every function body of the crate is printed for: the plan and the precision.
 #[derive(Clone, Copy)]
 struct Target<'a> {
     plan: &'a Plan,
     precision: Precision,
+    /// Scratch of the shares helper ([`Plan::shares`]), lent by the functions over it.
+    shares_work: usize,
 }
 
+/// The body of one function's `_in` form, which works in the scratch slice `work`:
+/// the moment, kernel and temporary arrays are split off its front. Returns the
+/// constant tables it reads, the body, and the scratch length it needs.
 fn body(
     target_crate: Target,
     func: &Func,
@@ -78,7 +80,11 @@ fn body(
     target: &dyn Fn(usize) -> String,
     ret: &str,
 ) -> (String, String, usize) {
-    let Target { plan, precision } = target_crate;
+    let Target {
+        plan,
+        precision,
+        shares_work,
+    } = target_crate;
     let b = &func.block;
     let fs = libm_suffix(precision);
     let pose_count = pose_seg.map(|s| b.pose_nu_count[s]).unwrap_or(0);
@@ -117,8 +123,17 @@ fn body(
     if slot_count > 0 {
         pieces.push(("t", slot_count));
     }
-    let len: usize = pieces.iter().map(|(_, l)| l).sum();
+    let mut len: usize = pieces.iter().map(|(_, l)| l).sum();
     let mut out = String::new();
+    // A function over the shares helper: s[] first, the helper's scratch after it,
+    // which the function's own pieces reuse once the helper returns.
+    if let (true, Some(helper)) = (func.over_shares, &plan.shares) {
+        let s_len = helper.block.outputs.len();
+        out.push_str(&format!(
+            "let (s, work) = work.split_at_mut({s_len});\nshares_in(p, q, qd, s, work);\n"
+        ));
+        len = s_len + len.max(shares_work);
+    }
     for (i, (what, l)) in pieces.iter().enumerate() {
         let l = if *what == "nu" {
             "NU_LEN".to_string()
@@ -263,12 +278,51 @@ pub fn emit(
     precision: Precision,
     golden: &Golden,
 ) -> Result<Vec<OutFile>, String> {
-    let tc = Target { plan, precision };
+    let mut tc = Target {
+        plan,
+        precision,
+        shares_work: 0,
+    };
     let name = plan.name.as_str();
     let n = plan.n;
     let k = plan.k;
     let ops_line = |f: &Func| super::plan::ops_sentence(f.ops, f.ops_beyond);
     let mut funcs = Vec::new();
+    // The helper of `terms` and the regressor: both call it.
+    if let Some(helper) = &plan.shares {
+        let b = &helper.block;
+        let s_len = b.outputs.len();
+        let (rows, body, len) = body(
+            tc,
+            helper,
+            "shares",
+            None,
+            &format!("let s = &mut s[..{s_len}];\n"),
+            &|i| format!("s[{i}]"),
+            "",
+        );
+        let unused = |read: bool| if read { "" } else { "_" };
+        let w = if len == 0 { "_work" } else { "work" };
+        funcs.push(RFunc {
+            rows,
+            formula: format!(
+                "What [`terms`] and [`regressor`] have in common: the {s_len} values `s` that \
+                 the rest of each reads, at the runtime parameters `p`, in `work` (at least \
+                 {len} reals)."
+            ),
+            ops: ops_line(helper),
+            signature: format!(
+                "fn shares_in({}p: &Params, {}q: &[Real; NQ], {}qd: &[Real; NQ], s: &mut [Real], \
+                 {w}: &mut [Real])",
+                unused(b.reads_params),
+                unused(b.reads_q),
+                unused(b.reads_qd),
+            ),
+            body,
+        });
+        tc.shares_work = len;
+    }
+    let tc = tc;
     let mat = |rows: &str, cols: &str| format!("[[Real; {cols}]; {rows}]");
     let mut work_len = 0usize;
     // One public function in three: `F_in` does the work in a scratch slice, `F` lends

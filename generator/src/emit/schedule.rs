@@ -96,6 +96,9 @@ pub enum Leaf {
     Temp(usize),
     /// Row `k` of this function's kernel list (`kern[k]`).
     Kernel(usize),
+    /// Value `k` of the shares the function's helper computed (`s[k]`, see
+    /// [`super::shares`]).
+    Shared(usize),
 }
 
 #[derive(Clone, Debug, PartialEq)]
@@ -300,7 +303,9 @@ pub struct Scheduler<'p> {
     pub table: KernelTable,
 }
 
-struct BlockState {
+struct BlockState<'s> {
+    /// Nodes another function computed for this one: read as [`Leaf::Shared`].
+    shared: &'s BTreeMap<Id, usize>,
     kernel_pos: BTreeMap<usize, usize>,
     /// The factor a kernel root's readers apply to its use (double-kernel parts).
     kernel_scale: BTreeMap<usize, Q>,
@@ -414,8 +419,24 @@ impl<'p> Scheduler<'p> {
         u
     }
 
+    /// Whether node `i` is a linear form in the moments (a moment leaf included).
+    pub fn is_moment_form(&self, i: usize) -> bool {
+        self.lin[i] > 0
+    }
+
     /// Schedules the given roots. `kernels` turns moment kernels into table rows.
     pub fn block(&mut self, roots: &[Id], use_kernels: bool) -> Block {
+        self.block_over(roots, use_kernels, &BTreeMap::new())
+    }
+
+    /// Schedules the given roots over values computed elsewhere: a node in `shared` is
+    /// read as [`Leaf::Shared`] and what lies below it is not this block's.
+    pub fn block_over(
+        &mut self,
+        roots: &[Id],
+        use_kernels: bool,
+        shared: &BTreeMap<Id, usize>,
+    ) -> Block {
         let prog = self.prog;
         let nodes = prog.nodes();
         let n = nodes.len();
@@ -453,7 +474,7 @@ impl<'p> Scheduler<'p> {
             uses[r.index()] += 1;
         }
         for i in (0..n).rev() {
-            if !live[i] || kroot[i] {
+            if !live[i] || kroot[i] || shared.contains_key(&Id(i as u32)) {
                 continue;
             }
             match &nodes[i] {
@@ -493,7 +514,7 @@ impl<'p> Scheduler<'p> {
             Var::Param(_) => reads_params = true,
         };
         for i in 0..n {
-            if !live[i] {
+            if !live[i] || shared.contains_key(&Id(i as u32)) {
                 continue;
             }
             if let Node::Var(v) = &nodes[i] {
@@ -502,6 +523,7 @@ impl<'p> Scheduler<'p> {
         }
         let nu_read = nu_count.clone();
         let mut st = BlockState {
+            shared,
             kernel_pos: BTreeMap::new(),
             kernel_scale: BTreeMap::new(),
             kernels: Vec::new(),
@@ -560,7 +582,8 @@ impl<'p> Scheduler<'p> {
         }
         for i in 0..n {
             let is_op = matches!(nodes[i], Node::Add(..) | Node::Mul(..) | Node::Neg(..));
-            if live[i] && !kroot[i] && is_op && uses[i] >= 2 {
+            let computed = !kroot[i] && !shared.contains_key(&Id(i as u32));
+            if live[i] && computed && is_op && uses[i] >= 2 {
                 let mut expr = self.build(Id(i as u32), &kroot, &mut st);
                 expr.lead_positive();
                 let t = st.next_temp;
@@ -612,6 +635,9 @@ impl<'p> Scheduler<'p> {
     /// The expression that reads node `id` from its user's point of view.
     fn operand(&mut self, id: Id, kroot: &[bool], st: &mut BlockState) -> Expr {
         let i = id.index();
+        if let Some(&k) = st.shared.get(&id) {
+            return Expr::leaf(Leaf::Shared(k));
+        }
         if let Some(&t) = st.temp_of.get(&(i as u32)) {
             return Expr::leaf(Leaf::Temp(t));
         }

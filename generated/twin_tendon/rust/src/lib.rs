@@ -146,12 +146,12 @@ pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (96 reals, 768 bytes at most). Own one per
+/// plain functions keep on the stack (115 reals, 920 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 96;
+pub const WORK_LEN: usize = 115;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -496,6 +496,105 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
         out[im + n] = i * j[n];
     }
 }
+/// Dot-product kernels of `shares`: pairs (row, moment base).
+static SHARES_ROWS: [u8; 56] = [
+    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0,
+    9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
+    24, 13, 24, 11, 24,
+];
+/// What [`terms`] and [`regressor`] have in common: the 21 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 94 reals).
+///
+/// Operations: 213 add, 428 mul, 4 div, 0 sqrt, 6 trig.
+fn shares_in(
+    p: &Params,
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    s: &mut [Real],
+    work: &mut [Real],
+) {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(28);
+    let t = &mut work[..34];
+    moments(0.15 * q[0], 6, nu, 0, 8);
+    moments(0.12 * q[1], 6, nu, 16, 24);
+    let mut cphi = [0.0; 1];
+    let mut sphi = [0.0; 1];
+    let phi = 0.15 * q[0];
+    (sphi[0], cphi[0]) = sin_cos(phi);
+    kernels(&SHARES_ROWS[0..56], nu, &mut kern[0..28]);
+    let s = &mut s[..21];
+    t[0] = qd[1] * kern[18];
+    t[1] = qd[1] * kern[19];
+    t[2] = kern[2] * cphi[0];
+    t[3] = kern[3] * sphi[0];
+    t[4] = kern[3] * cphi[0];
+    t[5] = kern[2] * sphi[0];
+    t[6] = 0.0036 * t[2] - 0.0036 * t[3];
+    t[7] = 0.0036 * t[4] + 0.0036 * t[5];
+    t[8] = 0.0225 * t[7];
+    t[9] = 0.15 * (kern[7] * t[8] + 0.0225 * kern[6] * t[6]);
+    t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
+    t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
+    t[12] = 0.0225 * t[11];
+    t[13] = qd[0] * kern[12];
+    t[14] = qd[0] * kern[13];
+    t[15] = qd[1] * kern[5];
+    t[16] = qd[1] * kern[4];
+    t[17] = -0.000432 * sphi[0];
+    t[18] = -5.184e-5 * cphi[0];
+    t[19] = -0.003375 * t[14];
+    t[20] = qd[0] * kern[25];
+    t[21] = nu[16] * cphi[0];
+    t[22] = nu[24] * sphi[0];
+    t[23] = nu[24] * cphi[0];
+    t[24] = nu[16] * sphi[0];
+    t[25] = kern[8] - 0.018 * t[24] - 0.018 * t[23];
+    t[26] = kern[9] - 0.018 * t[22] + 0.018 * t[21];
+    t[27] = cphi[0] * kern[11];
+    t[28] = sphi[0] * kern[10];
+    t[29] = -0.0144 * t[27] - 0.0144 * t[28];
+    t[30] = cphi[0] * kern[10];
+    t[31] = sphi[0] * kern[11];
+    t[32] = 0.0144 * t[30] - 0.0144 * t[31];
+    t[33] = 0.00216 * t[31] - 0.00216 * t[30];
+    t[30] = -0.00216 * t[28] - 0.00216 * t[27];
+    t[27] = qd[0] * (kern[14] - 0.0027 * t[21] + 0.0027 * t[22]) + qd[1] * t[33];
+    t[21] = qd[0] * (kern[15] - 0.0027 * t[23] - 0.0027 * t[24]) + qd[1] * t[30];
+    t[22] = -0.001728 * cphi[0];
+    t[23] = qd[0] * t[33] + qd[1] * (kern[16] * t[22] + 0.001728 * sphi[0] * kern[17]);
+    t[24] = qd[0] * t[30] + qd[1] * (kern[17] * t[22] - 0.001728 * sphi[0] * kern[16]);
+    t[22] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
+        + 0.0225 * kern[6] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
+    s[0] = kern[20];
+    s[1] = -3.98671875e-6 * qd[0] * kern[21];
+    s[2] = kern[22];
+    s[3] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
+        + t[9] + t[9] + 9.72e-6 * kern[23];
+    s[4] = kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[24];
+    s[5] = 0.03 * (7.59375e-5 * kern[7] * t[13] - 7.59375e-5 * kern[6] * t[14])
+        - 0.0225 * qd[0] * (kern[6] * t[8] - 0.0225 * kern[7] * t[6]) + 0.15 * t[22]
+        + 0.15 * (0.003375 * t[7] * t[13] + t[6] * t[19]) - 1.1664e-6 * qd[1] * kern[25];
+    s[6] = 0.15 * qd[0] * (kern[7] * t[12] + 0.0225 * kern[6] * t[10])
+        - 0.0225 * kern[7] * (t[0] * t[18] + 5.184e-5 * t[1] * sphi[0])
+        + 0.0225 * kern[6] * (t[1] * t[18] - 5.184e-5 * t[0] * sphi[0])
+        - 1.1664e-6 * t[20] - 9.3312e-7 * qd[1] * kern[26];
+    s[7] = t[11] * t[19] - 0.003375 * t[10] * t[13] + 1.1664e-6 * t[20];
+    s[8] = -7.46496e-7 * qd[1] * kern[27];
+    s[9] = t[25] * t[25] + t[26] * t[26];
+    s[10] = t[25] * t[29] + t[26] * t[32];
+    s[11] = t[29] * t[29] + t[32] * t[32];
+    s[12] = t[25] * t[27] + t[26] * t[21];
+    s[13] = t[25] * t[23] + t[26] * t[24];
+    s[14] = t[29] * t[27] + t[32] * t[21];
+    s[15] = t[29] * t[23] + t[32] * t[24];
+    s[16] = 0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0];
+    s[17] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
+        + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
+        + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
+    s[18] = p.gravity[0] * t[25] + p.gravity[1] * t[26];
+    s[19] = p.gravity[0] * t[10] + p.gravity[1] * t[11];
+    s[20] = p.gravity[0] * t[29] + p.gravity[1] * t[32];
+}
 /// Dot-product kernels of `inertia`: pairs (row, moment base).
 static INERTIA_ROWS: [u8; 28] = [
     0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16,
@@ -829,13 +928,7 @@ pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
 pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
-/// Dot-product kernels of `terms`: pairs (row, moment base).
-static TERMS_ROWS: [u8; 56] = [
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0,
-    9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
-    24, 13, 24, 11, 24,
-];
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 94 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 115 reals).
 ///
 /// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
@@ -844,105 +937,31 @@ fn terms_in(
     qd: &[Real; NQ],
     work: &mut [Real],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(28);
-    let t = &mut work[..34];
-    moments(0.15 * q[0], 6, nu, 0, 8);
-    moments(0.12 * q[1], 6, nu, 16, 24);
-    let mut cphi = [0.0; 1];
-    let mut sphi = [0.0; 1];
-    let phi = 0.15 * q[0];
-    (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&TERMS_ROWS[0..56], nu, &mut kern[0..28]);
+    let (s, work) = work.split_at_mut(21);
+    shares_in(p, q, qd, s, work);
+    let t = &mut work[..1];
     let mut b = [[0.0; NQ]; NQ];
     let mut c = [[0.0; NQ]; NQ];
     let mut g = [0.0; NQ];
-    t[0] = qd[1] * kern[18];
-    t[1] = qd[1] * kern[19];
-    t[2] = kern[2] * cphi[0];
-    t[3] = kern[3] * sphi[0];
-    t[4] = kern[3] * cphi[0];
-    t[5] = kern[2] * sphi[0];
-    t[6] = 0.0036 * t[2] - 0.0036 * t[3];
-    t[7] = 0.0036 * t[4] + 0.0036 * t[5];
-    t[8] = 0.0225 * t[7];
-    t[9] = 0.15 * (kern[7] * t[8] + 0.0225 * kern[6] * t[6]);
-    t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    t[12] = 0.0225 * t[11];
-    t[13] = qd[0] * kern[12];
-    t[14] = qd[0] * kern[13];
-    t[15] = qd[1] * kern[5];
-    t[16] = qd[1] * kern[4];
-    t[17] = -0.000432 * sphi[0];
-    t[18] = -5.184e-5 * cphi[0];
-    t[19] = -0.003375 * t[14];
-    t[20] = qd[0] * kern[25];
-    t[21] = nu[16] * cphi[0];
-    t[22] = nu[24] * sphi[0];
-    t[23] = nu[24] * cphi[0];
-    t[24] = nu[16] * sphi[0];
-    t[25] = kern[8] - 0.018 * t[24] - 0.018 * t[23];
-    t[26] = kern[9] - 0.018 * t[22] + 0.018 * t[21];
-    t[27] = cphi[0] * kern[11];
-    t[28] = sphi[0] * kern[10];
-    t[29] = -0.0144 * t[27] - 0.0144 * t[28];
-    t[30] = cphi[0] * kern[10];
-    t[31] = sphi[0] * kern[11];
-    t[32] = 0.0144 * t[30] - 0.0144 * t[31];
-    t[33] = 0.00216 * t[31] - 0.00216 * t[30];
-    t[30] = -0.00216 * t[28] - 0.00216 * t[27];
-    t[27] = qd[0] * (kern[14] - 0.0027 * t[21] + 0.0027 * t[22]) + qd[1] * t[33];
-    t[21] = qd[0] * (kern[15] - 0.0027 * t[23] - 0.0027 * t[24]) + qd[1] * t[30];
-    t[22] = -0.001728 * cphi[0];
-    t[23] = qd[0] * t[33] + qd[1] * (kern[16] * t[22] + 0.001728 * sphi[0] * kern[17]);
-    t[24] = qd[0] * t[30] + qd[1] * (kern[17] * t[22] - 0.001728 * sphi[0] * kern[16]);
-    t[22] = p.density_scale[1]
-        * (kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[24])
-        + 6.48e-9 * p.rotary_inertia_scale[1]
-        + p.payload_mass * (t[25] * t[29] + t[26] * t[32])
-        + 0.018 * p.payload_rotary_inertia;
-    t[28] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t[9] + t[9] + 9.72e-6 * kern[23];
-    t[9] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
-        + 0.0225 * kern[6] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
-    t[15] = 0.03 * (7.59375e-5 * kern[7] * t[13] - 7.59375e-5 * kern[6] * t[14])
-        - 0.0225 * qd[0] * (kern[6] * t[8] - 0.0225 * kern[7] * t[6]) + 0.15 * t[9]
-        + 0.15 * (0.003375 * t[7] * t[13] + t[6] * t[19]) - 1.1664e-6 * qd[1] * kern[25];
-    t[6] = 0.15 * qd[0] * (kern[7] * t[12] + 0.0225 * kern[6] * t[10])
-        - 0.0225 * kern[7] * (t[0] * t[18] + 5.184e-5 * t[1] * sphi[0])
-        + 0.0225 * kern[6] * (t[1] * t[18] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[20] - 9.3312e-7 * qd[1] * kern[26];
-    t[0] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
-        + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
-        + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
-    b[0][0] = 2.6578125e-5 * kern[20] * p.density_scale[0]
-        + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[28]
-        + 1.62e-8 * p.rotary_inertia_scale[1]
-        + p.payload_mass * (t[25] * t[25] + t[26] * t[26])
+    t[0] = p.density_scale[1] * s[4] + 6.48e-9 * p.rotary_inertia_scale[1]
+        + p.payload_mass * s[10] + 0.018 * p.payload_rotary_inertia;
+    b[0][0] = 2.6578125e-5 * s[0] * p.density_scale[0]
+        + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * s[3]
+        + 1.62e-8 * p.rotary_inertia_scale[1] + p.payload_mass * s[9]
         + 0.0225 * p.payload_rotary_inertia;
-    b[0][1] = t[22];
-    b[1][0] = t[22];
-    b[1][1] = 6.2208e-6 * kern[22] * p.density_scale[1]
-        + 3.456e-9 * p.rotary_inertia_scale[1]
-        + p.payload_mass * (t[29] * t[29] + t[32] * t[32])
+    b[0][1] = t[0];
+    b[1][0] = t[0];
+    b[1][1] = 6.2208e-6 * s[2] * p.density_scale[1]
+        + 3.456e-9 * p.rotary_inertia_scale[1] + p.payload_mass * s[11]
         + 0.0144 * p.payload_rotary_inertia;
-    c[0][0] = p.density_scale[1] * t[15]
-        - 3.98671875e-6 * p.density_scale[0] * qd[0] * kern[21]
-        + p.payload_mass * (t[25] * t[27] + t[26] * t[21]);
-    c[0][1] = p.density_scale[1] * t[6]
-        + p.payload_mass * (t[25] * t[23] + t[26] * t[24]);
-    c[1][0] = p.density_scale[1]
-        * (t[11] * t[19] - 0.003375 * t[10] * t[13] + 1.1664e-6 * t[20])
-        + p.payload_mass * (t[29] * t[27] + t[32] * t[21]);
-    c[1][1] = p.payload_mass * (t[29] * t[23] + t[32] * t[24])
-        - 7.46496e-7 * p.density_scale[1] * qd[1] * kern[27];
-    g[0] = -p.density_scale[0]
-        * (0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0])
-        - p.density_scale[1] * t[0]
-        - p.payload_mass * (p.gravity[0] * t[25] + p.gravity[1] * t[26]);
-    g[1] = -p.density_scale[1] * (p.gravity[0] * t[10] + p.gravity[1] * t[11])
-        - p.payload_mass * (p.gravity[0] * t[29] + p.gravity[1] * t[32]);
+    c[0][0] = p.density_scale[0] * s[1] + p.density_scale[1] * s[5]
+        + p.payload_mass * s[12];
+    c[0][1] = p.density_scale[1] * s[6] + p.payload_mass * s[13];
+    c[1][0] = p.density_scale[1] * s[7] + p.payload_mass * s[14];
+    c[1][1] = p.density_scale[1] * s[8] + p.payload_mass * s[15];
+    g[0] = -p.density_scale[0] * s[16] - p.density_scale[1] * s[17]
+        - p.payload_mass * s[18];
+    g[1] = -p.density_scale[1] * s[19] - p.payload_mass * s[20];
     (b, c, g)
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
@@ -952,9 +971,9 @@ pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 94])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 115])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (94 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (115 reals); the same values.
 ///
 /// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
@@ -972,7 +991,7 @@ pub fn terms_with(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 94])
+    terms_in(p, q, qd, &mut [0.0; 115])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -985,13 +1004,7 @@ pub fn terms_with_ws(
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
-/// Dot-product kernels of `regressor`: pairs (row, moment base).
-static REGRESSOR_ROWS: [u8; 56] = [
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0,
-    9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
-    24, 13, 24, 11, 24,
-];
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 96 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 115 reals).
 ///
 /// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 fn regressor_in(
@@ -1001,100 +1014,29 @@ fn regressor_in(
     qdd: &[Real; NQ],
     work: &mut [Real],
 ) -> [[Real; NTHETA]; NQ] {
-    let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(28);
-    let t = &mut work[..36];
-    moments(0.15 * q[0], 6, nu, 0, 8);
-    moments(0.12 * q[1], 6, nu, 16, 24);
-    let mut cphi = [0.0; 1];
-    let mut sphi = [0.0; 1];
-    let phi = 0.15 * q[0];
-    (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&REGRESSOR_ROWS[0..56], nu, &mut kern[0..28]);
+    let (s, work) = work.split_at_mut(21);
+    shares_in(p, q, qd, s, work);
     let mut out = [[0.0; NTHETA]; NQ];
-    t[0] = qd[1] * kern[18];
-    t[1] = qd[1] * kern[19];
-    t[2] = kern[2] * cphi[0];
-    t[3] = kern[3] * sphi[0];
-    t[4] = kern[3] * cphi[0];
-    t[5] = kern[2] * sphi[0];
-    t[6] = 0.0036 * t[2] - 0.0036 * t[3];
-    t[7] = 0.0036 * t[4] + 0.0036 * t[5];
-    t[8] = 0.0225 * t[7];
-    t[9] = 0.15 * (kern[7] * t[8] + 0.0225 * kern[6] * t[6]);
-    t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
-    t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
-    t[12] = 0.0225 * t[11];
-    t[13] = kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[24];
-    t[14] = qd[0] * kern[12];
-    t[15] = qd[0] * kern[13];
-    t[16] = qd[1] * kern[5];
-    t[17] = qd[1] * kern[4];
-    t[18] = -0.000432 * sphi[0];
-    t[19] = -5.184e-5 * cphi[0];
-    t[20] = -0.003375 * t[15];
-    t[21] = qd[0] * kern[25];
-    t[22] = nu[16] * cphi[0];
-    t[23] = nu[24] * sphi[0];
-    t[24] = nu[24] * cphi[0];
-    t[25] = nu[16] * sphi[0];
-    t[26] = kern[8] - 0.018 * t[25] - 0.018 * t[24];
-    t[27] = kern[9] - 0.018 * t[23] + 0.018 * t[22];
-    t[28] = cphi[0] * kern[11];
-    t[29] = sphi[0] * kern[10];
-    t[30] = -0.0144 * t[28] - 0.0144 * t[29];
-    t[31] = cphi[0] * kern[10];
-    t[32] = sphi[0] * kern[11];
-    t[33] = 0.0144 * t[31] - 0.0144 * t[32];
-    t[34] = t[26] * t[30] + t[27] * t[33];
-    t[35] = 0.00216 * t[32] - 0.00216 * t[31];
-    t[31] = -0.00216 * t[29] - 0.00216 * t[28];
-    t[28] = qd[0] * (kern[14] - 0.0027 * t[22] + 0.0027 * t[23]) + qd[1] * t[35];
-    t[22] = qd[0] * (kern[15] - 0.0027 * t[24] - 0.0027 * t[25]) + qd[1] * t[31];
-    t[23] = -0.001728 * cphi[0];
-    t[24] = qd[0] * t[35] + qd[1] * (kern[16] * t[23] + 0.001728 * sphi[0] * kern[17]);
-    t[25] = qd[0] * t[31] + qd[1] * (kern[17] * t[23] - 0.001728 * sphi[0] * kern[16]);
-    t[23] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t[9] + t[9] + 9.72e-6 * kern[23];
-    t[9] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[17] + t[16] * t[18])
-        + 0.0225 * kern[6] * (t[17] * t[18] - 0.000432 * cphi[0] * t[16]);
-    t[16] = 0.03 * (7.59375e-5 * kern[7] * t[14] - 7.59375e-5 * kern[6] * t[15])
-        - 0.0225 * qd[0] * (kern[6] * t[8] - 0.0225 * kern[7] * t[6]) + 0.15 * t[9]
-        + 0.15 * (0.003375 * t[7] * t[14] + t[6] * t[20]) - 1.1664e-6 * qd[1] * kern[25];
-    t[6] = 0.15 * qd[0] * (kern[7] * t[12] + 0.0225 * kern[6] * t[10])
-        - 0.0225 * kern[7] * (t[0] * t[19] + 5.184e-5 * t[1] * sphi[0])
-        + 0.0225 * kern[6] * (t[1] * t[19] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[21] - 9.3312e-7 * qd[1] * kern[26];
-    out[0][0] = 0.00118125 * kern[1] * p.gravity[0] - 0.00118125 * kern[0] * p.gravity[1]
-        + 2.6578125e-5 * kern[20] * qdd[0] - 3.98671875e-6 * qd[0] * qd[0] * kern[21];
-    out[0][1] = t[23] * qdd[0] - p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
-        - p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
-        - 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7])
-        + qd[0] * t[16] + t[13] * qdd[1] + qd[1] * t[6];
+    out[0][0] = 2.6578125e-5 * s[0] * qdd[0] - s[16] + qd[0] * s[1];
+    out[0][1] = s[3] * qdd[0] - s[17] + qd[0] * s[5] + s[4] * qdd[1] + qd[1] * s[6];
     out[0][2] = 1.125e-8 * qdd[0];
     out[0][3] = 1.62e-8 * qdd[0] + 6.48e-9 * qdd[1];
     out[0][4] = 0.00225 * q[0];
     out[0][5] = 0.0;
     out[0][6] = 4.5e-5 * qd[0];
     out[0][7] = 0.0;
-    out[0][8] = (t[26] * t[26] + t[27] * t[27]) * qdd[0] - p.gravity[0] * t[26]
-        - p.gravity[1] * t[27] + qd[0] * (t[26] * t[28] + t[27] * t[22]) + t[34] * qdd[1]
-        + qd[1] * (t[26] * t[24] + t[27] * t[25]);
+    out[0][8] = s[9] * qdd[0] - s[18] + qd[0] * s[12] + s[10] * qdd[1] + qd[1] * s[13];
     out[0][9] = 0.0225 * qdd[0] + 0.018 * qdd[1];
     out[1][0] = 0.0;
-    out[1][1] = t[13] * qdd[0] - p.gravity[0] * t[10] - p.gravity[1] * t[11]
-        + qd[0] * (t[11] * t[20] - 0.003375 * t[10] * t[14] + 1.1664e-6 * t[21])
-        + 6.2208e-6 * kern[22] * qdd[1] - 7.46496e-7 * qd[1] * qd[1] * kern[27];
+    out[1][1] = s[4] * qdd[0] - s[19] + qd[0] * s[7] + 6.2208e-6 * s[2] * qdd[1]
+        + qd[1] * s[8];
     out[1][2] = 0.0;
     out[1][3] = 6.48e-9 * qdd[0] + 3.456e-9 * qdd[1];
     out[1][4] = 0.0;
     out[1][5] = 0.00108 * q[1];
     out[1][6] = 0.0;
     out[1][7] = 2.4e-5 * qd[1];
-    out[1][8] = t[34] * qdd[0] - p.gravity[0] * t[30] - p.gravity[1] * t[33]
-        + qd[0] * (t[30] * t[28] + t[33] * t[22])
-        + (t[30] * t[30] + t[33] * t[33]) * qdd[1]
-        + qd[1] * (t[30] * t[24] + t[33] * t[25]);
+    out[1][8] = s[10] * qdd[0] - s[20] + qd[0] * s[14] + s[11] * qdd[1] + qd[1] * s[15];
     out[1][9] = 0.018 * qdd[0] + 0.0144 * qdd[1];
     out
 }
@@ -1106,9 +1048,9 @@ pub fn regressor(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 96])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 115])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (96 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (115 reals); the same values.
 ///
 /// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_ws(
@@ -1128,7 +1070,7 @@ pub fn regressor_with(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 96])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 115])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -1142,7 +1084,7 @@ pub fn regressor_with_ws(
 ) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 94 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 115 reals).
 ///
 /// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 fn coriolis_in(
@@ -1157,9 +1099,9 @@ fn coriolis_in(
 ///
 /// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 94])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 115])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (94 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (115 reals); the same values.
 ///
 /// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
@@ -1173,7 +1115,7 @@ pub fn coriolis_ws(
 ///
 /// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 94])
+    coriolis_in(p, q, qd, &mut [0.0; 115])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -1345,7 +1287,7 @@ pub fn forward_dynamics(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 94])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 115])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -1354,10 +1296,10 @@ pub fn forward_dynamics_with(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 94])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 115])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (94 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (115 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1377,7 +1319,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 94 reals).
+/// 115 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[Real; NQ],
