@@ -309,6 +309,32 @@ static void twin_tendon_kernels(const unsigned char uses[], int count, const dou
     }
 }
 
+/* re[i stride] and im[i stride] = kernel row uses[3i] at the moment bases uses[3i + 1]
+ * (a segment's real parts) and uses[3i + 2] (its imaginary parts), i < count: most rows
+ * are needed at both, and one pass loads each coefficient once for the two. Two
+ * partial sums per part keep the multiply-adds independent. */
+static void twin_tendon_kernel_reim(const unsigned char uses[], int count, const double nu[], double re[], double im[], int stride)
+{
+    int i;
+    for (i = 0; i < count; ++i) {
+        const int r = (int)uses[3 * i];
+        const int first = (int)twin_tendon_kernel_first[r];
+        const double *x = &nu[(int)uses[3 * i + 1] + first];
+        const double *y = &nu[(int)uses[3 * i + 2] + first];
+        const double *c = &twin_tendon_kernel_coef[twin_tendon_kernel_start[r]];
+        const int len = (int)twin_tendon_kernel_start[r + 1] - (int)twin_tendon_kernel_start[r];
+        double a = 0.0;
+        double b = 0.0;
+        int p;
+        for (p = 0; p < len; ++p) {
+            a += c[p] * x[p];
+            b += c[p] * y[p];
+        }
+        re[i * stride] = a;
+        im[i * stride] = b;
+    }
+}
+
 
 /* K, n x n, row-major. At the runtime parameters *P.
  * Operations: 0 add, 2 mul, 0 div, 0 sqrt, 0 trig. */
@@ -348,10 +374,12 @@ void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 }
 
 /* Dot-product kernels of twin_tendon_shares: pairs (row, moment base). */
-static const unsigned char twin_tendon_shares_rows[56] = {
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
-    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
-    11, 24
+static const unsigned char twin_tendon_shares_rows[20] = {
+    3, 8, 4, 0, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24, 11, 24
+};
+/* Dot-product kernels 0 .. 18 of twin_tendon_shares: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_shares_reim0[27] = {
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8, 16, 24
 };
 
 /* What twin_tendon_terms_with_ws and twin_tendon_regressor_with_ws have in common: the 21 values s[] that the rest of each reads. At the runtime parameters *P. Scratch: work[0 .. 60).
@@ -368,13 +396,14 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_shares_rows, 28, nu, kern);
-    const double t0 = qd[1] * kern[18];
-    const double t1 = qd[1] * kern[19];
-    const double t2 = kern[2] * cphi[0];
-    const double t3 = kern[3] * sphi[0];
-    const double t4 = kern[3] * cphi[0];
-    const double t5 = kern[2] * sphi[0];
+    twin_tendon_kernel_reim(twin_tendon_shares_reim0, 9, nu, kern, &kern[1], 2);
+    twin_tendon_kernels(twin_tendon_shares_rows, 10, nu, &kern[18]);
+    const double t0 = qd[1] * kern[16];
+    const double t1 = qd[1] * kern[17];
+    const double t2 = kern[0] * cphi[0];
+    const double t3 = kern[1] * sphi[0];
+    const double t4 = kern[1] * cphi[0];
+    const double t5 = kern[0] * sphi[0];
     const double t6 = 0.0036 * t2 - 0.0036 * t3;
     const double t7 = 0.0036 * t4 + 0.0036 * t5;
     const double t8 = 0.0225 * t7;
@@ -382,8 +411,8 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     const double t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     const double t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     const double t12 = 0.0225 * t11;
-    const double t13 = qd[0] * kern[12];
-    const double t14 = qd[0] * kern[13];
+    const double t13 = qd[0] * kern[10];
+    const double t14 = qd[0] * kern[11];
     const double t15 = qd[1] * kern[5];
     const double t16 = qd[1] * kern[4];
     const double t17 = -0.000432 * sphi[0];
@@ -394,21 +423,21 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     const double t22 = nu[24] * sphi[0];
     const double t23 = nu[24] * cphi[0];
     const double t24 = nu[16] * sphi[0];
-    const double t25 = kern[8] - 0.018 * t24 - 0.018 * t23;
-    const double t26 = kern[9] - 0.018 * t22 + 0.018 * t21;
-    const double t27 = cphi[0] * kern[11];
-    const double t28 = sphi[0] * kern[10];
+    const double t25 = kern[18] - 0.018 * t24 - 0.018 * t23;
+    const double t26 = kern[19] - 0.018 * t22 + 0.018 * t21;
+    const double t27 = cphi[0] * kern[9];
+    const double t28 = sphi[0] * kern[8];
     const double t29 = -0.0144 * t27 - 0.0144 * t28;
-    const double t30 = cphi[0] * kern[10];
-    const double t31 = sphi[0] * kern[11];
+    const double t30 = cphi[0] * kern[8];
+    const double t31 = sphi[0] * kern[9];
     const double t32 = 0.0144 * t30 - 0.0144 * t31;
     const double t33 = 0.00216 * t31 - 0.00216 * t30;
     const double t34 = -0.00216 * t28 - 0.00216 * t27;
     const double t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33;
     const double t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34;
     const double t37 = -0.001728 * cphi[0];
-    const double t38 = qd[0] * t33 + qd[1] * (kern[16] * t37 + 0.001728 * sphi[0] * kern[17]);
-    const double t39 = qd[0] * t34 + qd[1] * (kern[17] * t37 - 0.001728 * sphi[0] * kern[16]);
+    const double t38 = qd[0] * t33 + qd[1] * (kern[12] * t37 + 0.001728 * sphi[0] * kern[13]);
+    const double t39 = qd[0] * t34 + qd[1] * (kern[13] * t37 - 0.001728 * sphi[0] * kern[12]);
     const double t40 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
         + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15);
     s[0] = kern[20];
@@ -433,7 +462,7 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     s[13] = t25 * t38 + t26 * t39;
     s[14] = t29 * t35 + t32 * t36;
     s[15] = t29 * t38 + t32 * t39;
-    s[16] = 0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0];
+    s[16] = 0.00118125 * kern[2] * P->gravity[1] - 0.00118125 * kern[3] * P->gravity[0];
     s[17] = P->gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P->gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
@@ -443,8 +472,12 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
 }
 
 /* Dot-product kernels of twin_tendon_inertia: pairs (row, moment base). */
-static const unsigned char twin_tendon_inertia_rows[28] = {
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16
+static const unsigned char twin_tendon_inertia_rows[12] = {
+    3, 8, 4, 0, 5, 0, 5, 16, 6, 16, 7, 16
+};
+/* Dot-product kernels 0 .. 8 of twin_tendon_inertia: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_inertia_reim0[12] = {
+    0, 16, 24, 1, 16, 24, 2, 0, 8, 2, 16, 24
 };
 
 /* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 46 reals.
@@ -461,14 +494,15 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_inertia_rows, 14, nu, kern);
+    twin_tendon_kernel_reim(twin_tendon_inertia_reim0, 4, nu, kern, &kern[1], 2);
+    twin_tendon_kernels(twin_tendon_inertia_rows, 6, nu, &kern[8]);
     const double t0 = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
         + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]);
     const double t1 = 0.15 * t0;
-    const double t2 = kern[6] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
-    const double t3 = kern[7] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
-    const double t4 = -0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8];
-    const double t5 = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9];
+    const double t2 = kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    const double t3 = kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    const double t4 = -0.0144 * cphi[0] * kern[7] - 0.0144 * sphi[0] * kern[6];
+    const double t5 = 0.0144 * cphi[0] * kern[6] - 0.0144 * sphi[0] * kern[7];
     const double t6 = 0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
         + 7.776e-6 * kern[13];
@@ -516,8 +550,12 @@ void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ
 #endif
 
 /* Dot-product kernels of twin_tendon_gravity: pairs (row, moment base). */
-static const unsigned char twin_tendon_gravity_rows[24] = {
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24
+static const unsigned char twin_tendon_gravity_rows[4] = {
+    3, 8, 4, 0
+};
+/* Dot-product kernels 0 .. 10 of twin_tendon_gravity: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_gravity_reim0[15] = {
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24
 };
 
 /* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 44 reals.
@@ -534,17 +572,18 @@ void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWI
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_gravity_rows, 12, nu, kern);
-    const double t0 = P->gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
-        + P->gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
+    twin_tendon_kernel_reim(twin_tendon_gravity_reim0, 5, nu, kern, &kern[1], 2);
+    twin_tendon_kernels(twin_tendon_gravity_rows, 2, nu, &kern[10]);
+    const double t0 = P->gravity[0] * (-0.00054 * kern[0] * sphi[0] - 0.00054 * kern[1] * cphi[0])
+        + P->gravity[1] * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
         + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
-    const double t1 = P->gravity[0] * (kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
-        + P->gravity[1] * (kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
+    const double t1 = P->gravity[0] * (kern[10] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + P->gravity[1] * (kern[11] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
     const double t2 = P->gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + P->gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
-    const double t3 = P->gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
-        + P->gravity[1] * (0.0144 * cphi[0] * kern[10] - 0.0144 * sphi[0] * kern[11]);
-    G[0] = -P->density_scale[0] * (0.00118125 * kern[0] * P->gravity[1] - 0.00118125 * kern[1] * P->gravity[0])
+    const double t3 = P->gravity[0] * (-0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8])
+        + P->gravity[1] * (0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9]);
+    G[0] = -P->density_scale[0] * (0.00118125 * kern[2] * P->gravity[1] - 0.00118125 * kern[3] * P->gravity[0])
         - P->density_scale[1] * t0 - P->payload_mass * t1;
     G[1] = -P->density_scale[1] * t2 - P->payload_mass * t3;
 }
@@ -607,8 +646,12 @@ void twin_tendon_actuation(const double q[TWIN_TENDON_NQ], double A[TWIN_TENDON_
 #endif
 
 /* Dot-product kernels of twin_tendon_tip_jacobian: pairs (row, moment base). */
-static const unsigned char twin_tendon_tip_jacobian_rows[8] = {
-    3, 8, 4, 0, 2, 16, 2, 24
+static const unsigned char twin_tendon_tip_jacobian_rows[4] = {
+    3, 8, 4, 0
+};
+/* Dot-product kernels 0 .. 2 of twin_tendon_tip_jacobian: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_tip_jacobian_reim0[3] = {
+    2, 16, 24
 };
 
 /* Tip Jacobian, 3 x n, row-major. Scratch: work[0 .. TWIN_TENDON_TIP_JACOBIAN_WORK), 36 reals.
@@ -625,11 +668,12 @@ void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TW
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_tip_jacobian_rows, 4, nu, kern);
-    J[0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
-    J[1] = -0.0144 * cphi[0] * kern[3] - 0.0144 * sphi[0] * kern[2];
-    J[2] = kern[1] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
-    J[3] = 0.0144 * cphi[0] * kern[2] - 0.0144 * sphi[0] * kern[3];
+    twin_tendon_kernel_reim(twin_tendon_tip_jacobian_reim0, 1, nu, kern, &kern[1], 2);
+    twin_tendon_kernels(twin_tendon_tip_jacobian_rows, 2, nu, &kern[2]);
+    J[0] = kern[2] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    J[1] = -0.0144 * cphi[0] * kern[1] - 0.0144 * sphi[0] * kern[0];
+    J[2] = kern[3] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    J[3] = 0.0144 * cphi[0] * kern[0] - 0.0144 * sphi[0] * kern[1];
     J[4] = 0.15;
     J[5] = 0.12;
 }
@@ -704,10 +748,9 @@ void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_
 }
 #endif
 
-/* Dot-product kernels of twin_tendon_gravity_jacobian: pairs (row, moment base). */
-static const unsigned char twin_tendon_gravity_jacobian_rows[32] = {
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 0, 8,
-    8, 8, 16, 8, 24
+/* Dot-product kernels 0 .. 16 of twin_tendon_gravity_jacobian: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_gravity_jacobian_reim0[24] = {
+    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8, 0, 8, 8, 16, 24
 };
 
 /* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 48 reals.
@@ -724,7 +767,7 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_gravity_jacobian_rows, 16, nu, kern);
+    twin_tendon_kernel_reim(twin_tendon_gravity_jacobian_reim0, 8, nu, kern, &kern[1], 2);
     const double t0 = -5.184e-5 * cphi[0];
     const double t1 = -0.001728 * cphi[0];
     const double t2 = P->gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
@@ -735,12 +778,12 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     const double t5 = P->gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
         + P->gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
         + 0.03 * (-0.003375 * P->gravity[0] * kern[6] - 0.003375 * P->gravity[1] * kern[7]);
-    const double t6 = P->gravity[0] * (kern[8] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
-        + P->gravity[1] * (kern[9] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
+    const double t6 = P->gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        + P->gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
     const double t7 = P->gravity[0] * (kern[14] * t0 + 5.184e-5 * kern[15] * sphi[0])
         + P->gravity[1] * (kern[15] * t0 - 5.184e-5 * kern[14] * sphi[0]);
-    const double t8 = P->gravity[0] * (kern[10] * t1 + 0.001728 * sphi[0] * kern[11])
-        + P->gravity[1] * (kern[11] * t1 - 0.001728 * sphi[0] * kern[10]);
+    const double t8 = P->gravity[0] * (kern[8] * t1 + 0.001728 * sphi[0] * kern[9])
+        + P->gravity[1] * (kern[9] * t1 - 0.001728 * sphi[0] * kern[8]);
     dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[12] * P->gravity[0] - 0.0001771875 * kern[13] * P->gravity[1])
         - P->density_scale[1] * t5 - P->payload_mass * t6;
     dG[1] = t4;
@@ -778,9 +821,9 @@ void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN
 }
 #endif
 
-/* Dot-product kernels of twin_tendon_potential_energy: pairs (row, moment base). */
-static const unsigned char twin_tendon_potential_energy_rows[8] = {
-    0, 0, 0, 8, 0, 16, 0, 24
+/* Dot-product kernels 0 .. 4 of twin_tendon_potential_energy: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_potential_energy_reim0[6] = {
+    0, 0, 8, 0, 16, 24
 };
 
 /* U = U_g + 1/2 q^T K q. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_POTENTIAL_ENERGY_WORK), 36 reals.
@@ -797,7 +840,7 @@ double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const d
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernels(twin_tendon_potential_energy_rows, 4, nu, kern);
+    twin_tendon_kernel_reim(twin_tendon_potential_energy_reim0, 2, nu, kern, &kern[1], 2);
     const double t0 = P->gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
         + P->gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
         + 0.03 * (0.15 * nu[0] * P->gravity[0] + 0.15 * nu[8] * P->gravity[1]);

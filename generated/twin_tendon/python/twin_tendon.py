@@ -291,7 +291,7 @@ def _params_finite(p):
 
 # pairs (row, moment base)
 _INERTIA_ROWS = _kernel_plan((
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 3, 8, 4, 0, 5, 0, 5, 16, 6, 16, 7, 16,
 ))
 
 def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -314,10 +314,10 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     t0 = (0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
         + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]))
     t1 = 0.15 * t0
-    t2 = kern[6] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
-    t3 = kern[7] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
-    t4 = -0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8]
-    t5 = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9]
+    t2 = kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
+    t3 = kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
+    t4 = -0.0144 * cphi[0] * kern[7] - 0.0144 * sphi[0] * kern[6]
+    t5 = 0.0144 * cphi[0] * kern[6] - 0.0144 * sphi[0] * kern[7]
     t6 = (0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
         + 7.776e-6 * kern[13])
@@ -347,7 +347,7 @@ def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inerti
 
 # pairs (row, moment base)
 _GRAVITY_ROWS = _kernel_plan((
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24,
+    0, 16, 0, 24, 1, 0, 1, 8, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 3, 8, 4, 0,
 ))
 
 def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
@@ -367,16 +367,16 @@ def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     kern = _kernels(_GRAVITY_ROWS, nu)
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     out = np.zeros(NQ)
-    t0 = (P.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
-        + P.gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
+    t0 = (P.gravity[0] * (-0.00054 * kern[0] * sphi[0] - 0.00054 * kern[1] * cphi[0])
+        + P.gravity[1] * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
         + 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7]))
-    t1 = (P.gravity[0] * (kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
-        + P.gravity[1] * (kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]))
+    t1 = (P.gravity[0] * (kern[10] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + P.gravity[1] * (kern[11] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]))
     t2 = (P.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + P.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]))
-    t3 = (P.gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
-        + P.gravity[1] * (0.0144 * cphi[0] * kern[10] - 0.0144 * sphi[0] * kern[11]))
-    out[0] = (-P.density_scale[0] * (0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0])
+    t3 = (P.gravity[0] * (-0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8])
+        + P.gravity[1] * (0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9]))
+    out[0] = (-P.density_scale[0] * (0.00118125 * kern[2] * P.gravity[1] - 0.00118125 * kern[3] * P.gravity[0])
         - P.density_scale[1] * t0 - P.payload_mass * t1)
     out[1] = -P.density_scale[1] * t2 - P.payload_mass * t3
     return out
@@ -429,7 +429,7 @@ def actuation(q):
 
 # pairs (row, moment base)
 _TIP_JACOBIAN_ROWS = _kernel_plan((
-    3, 8, 4, 0, 2, 16, 2, 24,
+    2, 16, 2, 24, 3, 8, 4, 0,
 ))
 
 def tip_jacobian(q):
@@ -448,10 +448,10 @@ def tip_jacobian(q):
     sphi[0] = math.sin(phi)
     kern = _kernels(_TIP_JACOBIAN_ROWS, nu)
     out = np.zeros((3, NQ))
-    out[0, 0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
-    out[0, 1] = -0.0144 * cphi[0] * kern[3] - 0.0144 * sphi[0] * kern[2]
-    out[1, 0] = kern[1] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
-    out[1, 1] = 0.0144 * cphi[0] * kern[2] - 0.0144 * sphi[0] * kern[3]
+    out[0, 0] = kern[2] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
+    out[0, 1] = -0.0144 * cphi[0] * kern[1] - 0.0144 * sphi[0] * kern[0]
+    out[1, 0] = kern[3] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
+    out[1, 1] = 0.0144 * cphi[0] * kern[0] - 0.0144 * sphi[0] * kern[1]
     out[2, 0] = 0.15
     out[2, 1] = 0.12
     return out
@@ -498,7 +498,7 @@ def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _GRAVITY_JACOBIAN_ROWS = _kernel_plan((
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 0, 8,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 9, 16, 9, 24, 10, 0, 10, 8, 8, 0, 8,
     8, 8, 16, 8, 24,
 ))
 
@@ -529,12 +529,12 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     t5 = (P.gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
         + P.gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
         + 0.03 * (-0.003375 * P.gravity[0] * kern[6] - 0.003375 * P.gravity[1] * kern[7]))
-    t6 = (P.gravity[0] * (kern[8] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
-        + P.gravity[1] * (kern[9] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
+    t6 = (P.gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        + P.gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
     t7 = (P.gravity[0] * (kern[14] * t0 + 5.184e-5 * kern[15] * sphi[0])
         + P.gravity[1] * (kern[15] * t0 - 5.184e-5 * kern[14] * sphi[0]))
-    t8 = (P.gravity[0] * (kern[10] * t1 + 0.001728 * sphi[0] * kern[11])
-        + P.gravity[1] * (kern[11] * t1 - 0.001728 * sphi[0] * kern[10]))
+    t8 = (P.gravity[0] * (kern[8] * t1 + 0.001728 * sphi[0] * kern[9])
+        + P.gravity[1] * (kern[9] * t1 - 0.001728 * sphi[0] * kern[8]))
     out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[12] * P.gravity[0] - 0.0001771875 * kern[13] * P.gravity[1])
         - P.density_scale[1] * t5 - P.payload_mass * t6)
     out[0, 1] = t4
@@ -578,8 +578,8 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _SHARES_ROWS = _kernel_plan((
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0, 9, 8,
-    10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
+    0, 16, 0, 24, 1, 0, 1, 8, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 9, 0, 9, 8, 9, 16, 9, 24,
+    10, 0, 10, 8, 8, 16, 8, 24, 3, 8, 4, 0, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
     11, 24,
 ))
 
@@ -598,12 +598,12 @@ def _shares(q, qd, P):
     sphi[0] = math.sin(phi)
     kern = _kernels(_SHARES_ROWS, nu)
     s = [0.0] * 21
-    t0 = qd[1] * kern[18]
-    t1 = qd[1] * kern[19]
-    t2 = kern[2] * cphi[0]
-    t3 = kern[3] * sphi[0]
-    t4 = kern[3] * cphi[0]
-    t5 = kern[2] * sphi[0]
+    t0 = qd[1] * kern[16]
+    t1 = qd[1] * kern[17]
+    t2 = kern[0] * cphi[0]
+    t3 = kern[1] * sphi[0]
+    t4 = kern[1] * cphi[0]
+    t5 = kern[0] * sphi[0]
     t6 = 0.0036 * t2 - 0.0036 * t3
     t7 = 0.0036 * t4 + 0.0036 * t5
     t8 = 0.0225 * t7
@@ -611,8 +611,8 @@ def _shares(q, qd, P):
     t10 = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0]
     t11 = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]
     t12 = 0.0225 * t11
-    t13 = qd[0] * kern[12]
-    t14 = qd[0] * kern[13]
+    t13 = qd[0] * kern[10]
+    t14 = qd[0] * kern[11]
     t15 = qd[1] * kern[5]
     t16 = qd[1] * kern[4]
     t17 = -0.000432 * sphi[0]
@@ -623,21 +623,21 @@ def _shares(q, qd, P):
     t22 = nu[24] * sphi[0]
     t23 = nu[24] * cphi[0]
     t24 = nu[16] * sphi[0]
-    t25 = kern[8] - 0.018 * t24 - 0.018 * t23
-    t26 = kern[9] - 0.018 * t22 + 0.018 * t21
-    t27 = cphi[0] * kern[11]
-    t28 = sphi[0] * kern[10]
+    t25 = kern[18] - 0.018 * t24 - 0.018 * t23
+    t26 = kern[19] - 0.018 * t22 + 0.018 * t21
+    t27 = cphi[0] * kern[9]
+    t28 = sphi[0] * kern[8]
     t29 = -0.0144 * t27 - 0.0144 * t28
-    t30 = cphi[0] * kern[10]
-    t31 = sphi[0] * kern[11]
+    t30 = cphi[0] * kern[8]
+    t31 = sphi[0] * kern[9]
     t32 = 0.0144 * t30 - 0.0144 * t31
     t33 = 0.00216 * t31 - 0.00216 * t30
     t34 = -0.00216 * t28 - 0.00216 * t27
     t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33
     t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34
     t37 = -0.001728 * cphi[0]
-    t38 = qd[0] * t33 + qd[1] * (kern[16] * t37 + 0.001728 * sphi[0] * kern[17])
-    t39 = qd[0] * t34 + qd[1] * (kern[17] * t37 - 0.001728 * sphi[0] * kern[16])
+    t38 = qd[0] * t33 + qd[1] * (kern[12] * t37 + 0.001728 * sphi[0] * kern[13])
+    t39 = qd[0] * t34 + qd[1] * (kern[13] * t37 - 0.001728 * sphi[0] * kern[12])
     t40 = (0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
         + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15))
     s[0] = kern[20]
@@ -662,7 +662,7 @@ def _shares(q, qd, P):
     s[13] = t25 * t38 + t26 * t39
     s[14] = t29 * t35 + t32 * t36
     s[15] = t29 * t38 + t32 * t39
-    s[16] = 0.00118125 * kern[0] * P.gravity[1] - 0.00118125 * kern[1] * P.gravity[0]
+    s[16] = 0.00118125 * kern[2] * P.gravity[1] - 0.00118125 * kern[3] * P.gravity[0]
     s[17] = (P.gravity[0] * (-0.00054 * t5 - 0.00054 * t4)
         + P.gravity[1] * (0.00054 * t2 - 0.00054 * t3)
         + 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7]))

@@ -5,8 +5,8 @@ use super::body::{
     temporaries, Spelling, StmtStyle,
 };
 use super::constants::{
-    base_context, family_pairs, matrix_table_context, pair_max, strings, use_max, use_pairs,
-    MomentConstants,
+    base_context, family_pairs, matrix_table_context, pair_max, reim_triples, strings, use_max,
+    use_pairs, MomentConstants,
 };
 use super::control_code::{StaticsCallees, StaticsLayout};
 use super::golden::Golden;
@@ -170,17 +170,31 @@ impl Printer<'_> {
         if func.kern_len > 0 {
             carve(&mut decls, "kern", func.kern_len);
         }
-        if !func.dots.is_empty() {
-            let items = use_pairs(func.dot_uses());
-            let max = use_max(plan);
+        let singles = use_pairs(func.single_uses());
+        if !singles.is_empty() {
             rows = format!(
                 "/* Dot-product kernels of {n}_{fname}: pairs (row, moment base). */\n\
                  static const {} {n}_{fname}_rows[{}] = {{\n{}\n}};\n",
-                uint_type(max),
-                items.len(),
-                wrap_list(&items, 4),
+                uint_type(use_max(plan)),
+                singles.len(),
+                wrap_list(&singles, 4),
                 n = self.name,
             );
+        }
+        for (k, d) in func.dots.iter().enumerate().filter(|(_, d)| d.reim > 0) {
+            let (re, im) = d.reim_parts();
+            let items = reim_triples(&re, &im);
+            rows.push_str(&format!(
+                "/* Dot-product kernels {start} .. {end} of {n}_{fname}: one row at both parts \
+                 of a segment's moments, (row, real base, imaginary base). */\n\
+                 static const {} {n}_{fname}_reim{k}[{}] = {{\n{}\n}};\n",
+                uint_type(use_max(plan)),
+                items.len(),
+                wrap_list(&items, 4),
+                start = d.start,
+                end = d.start + 2 * d.reim,
+                n = self.name,
+            ));
         }
         if b.angles > 0 {
             decls.push_str(&format!(
@@ -231,23 +245,36 @@ impl Printer<'_> {
         }
         if func.kern_len > 0 {
             let n = self.name;
-            let mut at = 0;
-            for d in &func.dots {
-                let rows = if at == 0 {
-                    format!("{n}_{fname}_rows")
-                } else {
-                    format!("&{n}_{fname}_rows[{}]", 2 * at)
-                };
-                let kern = if d.start == 0 {
+            let at_kern = |i: usize| {
+                if i == 0 {
                     "kern".to_string()
                 } else {
-                    format!("&kern[{}]", d.start)
-                };
-                out.push_str(&format!(
-                    "    {n}_kernels({rows}, {}, nu, {kern});\n",
-                    d.uses.len()
-                ));
-                at += d.uses.len();
+                    format!("&kern[{i}]")
+                }
+            };
+            let mut at = 0;
+            for (k, d) in func.dots.iter().enumerate() {
+                if d.reim > 0 {
+                    out.push_str(&format!(
+                        "    {n}_kernel_reim({n}_{fname}_reim{k}, {}, nu, {}, &kern[{}], 2);\n",
+                        d.reim,
+                        at_kern(d.start),
+                        d.start + 1
+                    ));
+                }
+                let count = d.singles().len();
+                if count > 0 {
+                    let rows = if at == 0 {
+                        format!("{n}_{fname}_rows")
+                    } else {
+                        format!("&{n}_{fname}_rows[{}]", 2 * at)
+                    };
+                    out.push_str(&format!(
+                        "    {n}_kernels({rows}, {count}, nu, {});\n",
+                        at_kern(d.start + 2 * d.reim)
+                    ));
+                    at += count;
+                }
             }
             if !func.families.is_empty() {
                 carve(&mut decls, "F", func.matrix_scratch(&plan.matrix_tables));
@@ -257,8 +284,13 @@ impl Printer<'_> {
                 let arg = inline(&moment_argument(plan, f.seg, false), &syn);
                 let rt = uint_type(use_max(plan));
                 let idx = family_pairs(f);
+                // Each row at the real and the imaginary base: the top row's uses (real
+                // parts, then imaginary parts), then the bottom row's.
                 let list = |uses: &[KernelUse]| {
-                    let items = use_pairs(uses);
+                    let items: Vec<String> = uses
+                        .chunks(2 * size)
+                        .flat_map(|row| reim_triples(&row[..size], &row[size..]))
+                        .collect();
                     (items.len(), wrap_list(&items, 4))
                 };
                 let (ns, seeds) = list(&f.seeds);
@@ -266,7 +298,7 @@ impl Printer<'_> {
                 rows.push_str(&format!(
                     "/* Kernels {start} .. {end} of {n}_{fname}: segment {seg}'s double kernels, \
                      read off its half kernels F (see {n}_kernel_recurrence). Its rows' uses \
-                     (row, moment base): the top row's cut to the precision, for \
+                     (row, real base, imaginary base): the top row's cut to the precision, for \
                      |a| <= {upper}_FAST_BENDING; the top and bottom rows' whole, beyond. Then \
                      per kernel the two entries of F. */\n\
                      static const {rt} {n}_{fname}_seeds{k}[{ns}] = {{\n{seeds}\n}};\n\
@@ -283,13 +315,10 @@ impl Printer<'_> {
                 out.push_str(&format!(
                     "    {{\n        const {r} a = {arg};\n        int split = 0;\n        \
                      if ({abs}(a) <= {upper}_FAST_BENDING) {{\n            \
-                     {n}_kernels({n}_{fname}_seeds{k}, {size}, nu, &F[{top_re}]);\n            \
-                     {n}_kernels(&{n}_{fname}_seeds{k}[{size2}], {size}, nu, &F[{top_im}]);\n        \
+                     {n}_kernel_reim({n}_{fname}_seeds{k}, {size}, nu, &F[{top_re}], &F[{top_im}], 1);\n        \
                      }} else {{\n            \
-                     {n}_kernels({n}_{fname}_ends{k}, {size}, nu, &F[{top_re}]);\n            \
-                     {n}_kernels(&{n}_{fname}_ends{k}[{size2}], {size}, nu, &F[{top_im}]);\n            \
-                     {n}_kernels(&{n}_{fname}_ends{k}[{size4}], {size}, nu, F);\n            \
-                     {n}_kernels(&{n}_{fname}_ends{k}[{size6}], {size}, nu, &F[{bottom_im}]);\n            \
+                     {n}_kernel_reim({n}_{fname}_ends{k}, {size}, nu, &F[{top_re}], &F[{top_im}], 1);\n            \
+                     {n}_kernel_reim(&{n}_{fname}_ends{k}[{size3}], {size}, nu, F, &F[{bottom_im}], 1);\n            \
                      split = {n}_recurrence_split(a, {size});\n        \
                      }}\n        \
                      {n}_kernel_recurrence({size}, a, split, {n}_tail_moments{t}, F);\n        \
@@ -300,9 +329,7 @@ impl Printer<'_> {
                     top_re = (size - 1) * size,
                     top_im = size * size + (size - 1) * size,
                     bottom_im = size * size,
-                    size2 = 2 * size,
-                    size4 = 4 * size,
-                    size6 = 6 * size,
+                    size3 = 3 * size,
                     t = f.table,
                     sums = f.sums,
                     count = f.count,
@@ -1043,6 +1070,7 @@ pub fn emit(
     ctx.insert("start_type", uint_type(nnz));
     ctx.insert("index_type", uint_type(plan.moment_max));
     ctx.insert("row_type", uint_type(use_max(plan)));
+    ctx.insert("kernel_routines", &plan.kernel_routines());
     ctx.insert("kernel_start", &wrap_list(&strings(&mc.start), 4));
     ctx.insert("kernel_first", &wrap_list(&strings(&mc.first), 4));
     ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));

@@ -127,6 +127,16 @@ pub fn use_pairs<'a>(uses: impl IntoIterator<Item = &'a KernelUse>) -> Vec<Strin
         .collect()
 }
 
+/// Triples `row, real base, imaginary base` of kernel rows evaluated at both parts of
+/// one segment's moments: `re[i]` and `im[i]` are one row at the two bases.
+pub fn reim_triples(re: &[KernelUse], im: &[KernelUse]) -> Vec<String> {
+    debug_assert!(re.len() == im.len() && re.iter().zip(im).all(|(a, b)| a.row == b.row));
+    re.iter()
+        .zip(im)
+        .flat_map(|(a, b)| [a.row.to_string(), a.base.to_string(), b.base.to_string()])
+        .collect()
+}
+
 /// Largest value in any function's kernel-use pairs: every such array, and the kernel
 /// routine's parameter, share one element type.
 pub fn use_max(plan: &Plan) -> usize {

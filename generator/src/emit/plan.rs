@@ -61,16 +61,51 @@ pub struct Func {
     pub over_shares: bool,
 }
 
+/// What the emitted kernel rows need: rows evaluated one at a time (`singles`), rows
+/// evaluated at both parts of a segment's moments into `kern[]` (`pairs`, see
+/// [`DotRange::reim`]), and the families' half-kernel rows, evaluated the same way into
+/// two arrays (`families`).
+#[derive(Clone, Copy, Debug, serde::Serialize)]
+pub struct KernelRoutines {
+    pub singles: bool,
+    pub pairs: bool,
+    pub families: bool,
+}
+
 /// Kernels `start .. start + uses.len()` of a function's `kern[]`, each the dot
 /// product of a table row with the moments.
 #[derive(Clone, Debug)]
 pub struct DotRange {
     pub start: usize,
     pub uses: Vec<KernelUse>,
+    /// The first `2 · reim` uses are (real, imaginary) pairs of one row
+    /// ([`Block::reim`]), evaluated together.
+    pub reim: usize,
+}
+
+impl DotRange {
+    /// The uses evaluated one at a time, after the pairs.
+    pub fn singles(&self) -> &[KernelUse] {
+        &self.uses[2 * self.reim..]
+    }
+
+    /// The pairs' real uses and imaginary uses, in order.
+    pub fn reim_parts(&self) -> (Vec<KernelUse>, Vec<KernelUse>) {
+        let pairs = &self.uses[..2 * self.reim];
+        (
+            pairs.iter().step_by(2).copied().collect(),
+            pairs.iter().skip(1).step_by(2).copied().collect(),
+        )
+    }
 }
 
 impl Func {
-    /// Every dot-product use in `kern[]` order: what the function's rows array lists.
+    /// The dot-product uses evaluated one at a time, in `kern[]` order.
+    pub fn single_uses(&self) -> impl Iterator<Item = &KernelUse> {
+        self.dots.iter().flat_map(|d| d.singles())
+    }
+
+    /// Every dot-product use in `kern[]` order.
     pub fn dot_uses(&self) -> impl Iterator<Item = &KernelUse> {
         self.dots.iter().flat_map(|d| &d.uses)
     }
@@ -116,14 +151,18 @@ impl Func {
 }
 
 /// The uses of `kernels` outside the families, by range.
-fn dot_ranges(kernels: &[KernelUse], families: &[Family]) -> Vec<DotRange> {
+fn dot_ranges(kernels: &[KernelUse], reim: usize, families: &[Family]) -> Vec<DotRange> {
     let mut out = Vec::new();
     let mut at = 0;
     let mut range = |from: usize, to: usize| {
         if to > from {
+            // The pairs lead kern[], ahead of every family.
+            let reim = if from == 0 { reim } else { 0 };
+            debug_assert!(2 * reim <= to);
             out.push(DotRange {
                 start: from,
                 uses: kernels[from..to].to_vec(),
+                reim,
             });
         }
     };
@@ -443,7 +482,7 @@ impl Plan {
                 precision.unit_roundoff(),
             );
             let kernels = std::mem::take(&mut block.kernels);
-            let dots = dot_ranges(&kernels, &families);
+            let dots = dot_ranges(&kernels, block.reim, &families);
             let table = &sched.table;
             let nu_fast =
                 Func::moments_with(&block, &dots, &families, |f| &f.seeds, &layout, table);
@@ -595,6 +634,36 @@ impl Plan {
             shares,
             pose,
         })
+    }
+
+    /// Every function with a schedule of its own.
+    pub fn funcs(&self) -> impl Iterator<Item = &Func> {
+        [
+            &self.inertia,
+            &self.gravity,
+            &self.stiffness,
+            &self.damping,
+            &self.actuation,
+            &self.tip_jacobian,
+            &self.gravity_jacobian,
+            &self.potential_energy,
+            &self.terms,
+        ]
+        .into_iter()
+        .chain(&self.actuation_jacobian)
+        .chain(&self.shares)
+        .chain(&self.regressor)
+        .chain(&self.pose)
+    }
+
+    /// Which kernel routines the emitted code calls (an unused static routine is a
+    /// warning in C and Rust).
+    pub fn kernel_routines(&self) -> KernelRoutines {
+        KernelRoutines {
+            singles: self.funcs().any(|f| f.single_uses().next().is_some()),
+            pairs: self.funcs().any(|f| f.dots.iter().any(|d| d.reim > 0)),
+            families: self.funcs().any(|f| !f.families.is_empty()),
+        }
     }
 
     /// Every operation of the emitted functions that have code of their own (the

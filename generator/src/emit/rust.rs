@@ -7,12 +7,13 @@ use super::body::{
 };
 use super::c::wrap_list;
 use super::constants::{
-    base_context, family_pairs, matrix_table_context, pair_max, strings, use_max, use_pairs,
-    MomentConstants,
+    base_context, family_pairs, matrix_table_context, pair_max, reim_triples, strings, use_max,
+    use_pairs, MomentConstants,
 };
 use super::golden::{Golden, SIGMAS};
 use super::number::{rust_spelling, Precision};
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
+use super::schedule::KernelUse;
 use super::templates::render;
 use super::{Meta, OutFile};
 use serde::Serialize;
@@ -187,34 +188,63 @@ fn body(
     }
     let upper = fname.to_uppercase();
     let max = use_max(plan);
-    if !func.dots.is_empty() {
-        let items = use_pairs(func.dot_uses());
+    let singles = use_pairs(func.single_uses());
+    if !singles.is_empty() {
         rows = format!(
             "/// Dot-product kernels of `{fname}`: pairs (row, moment base).\nstatic {upper}_ROWS: [{}; {}] = [{}];\n",
             uint(max),
-            items.len(),
-            wrap_list(&items, 4)
+            singles.len(),
+            wrap_list(&singles, 4)
         );
-        let mut at = 0;
-        for d in &func.dots {
-            let (a, b) = (2 * at, 2 * (at + d.uses.len()));
-            out.push_str(&format!(
-                "kernels(&{upper}_ROWS[{a}..{b}], nu, &mut kern[{}..{}]);\n",
+    }
+    let mut at = 0;
+    for (k, d) in func.dots.iter().enumerate() {
+        if d.reim > 0 {
+            let (re, im) = d.reim_parts();
+            let items = reim_triples(&re, &im);
+            let end = d.start + 2 * d.reim;
+            rows.push_str(&format!(
+                "/// Dot-product kernels {}..{end} of `{fname}`: one row at both parts of a \
+                 segment's moments, (row, real base, imaginary base).\n\
+                 static {upper}_REIM{k}: [{}; {}] = [{}];\n",
                 d.start,
-                d.start + d.uses.len()
+                uint(max),
+                items.len(),
+                wrap_list(&items, 4)
             ));
-            at += d.uses.len();
+            out.push_str(&format!(
+                "kernels_reim(&{upper}_REIM{k}, nu, &mut kern[{}..{end}]);\n",
+                d.start
+            ));
+        }
+        let count = d.singles().len();
+        if count > 0 {
+            let (a, b) = (2 * at, 2 * (at + count));
+            let from = d.start + 2 * d.reim;
+            out.push_str(&format!(
+                "kernels(&{upper}_ROWS[{a}..{b}], nu, &mut kern[{from}..{}]);\n",
+                from + count
+            ));
+            at += count;
         }
     }
     for (k, f) in func.families.iter().enumerate() {
         let size = plan.matrix_tables[f.table].size;
         let arg = inline(&moment_argument(plan, f.seg, false), &syn);
-        let seeds = use_pairs(&f.seeds);
-        let ends = use_pairs(&f.ends);
+        // Each row at the real and the imaginary base: the top row's uses (real parts,
+        // then imaginary parts), then the bottom row's.
+        let triples = |uses: &[KernelUse]| -> Vec<String> {
+            uses.chunks(2 * size)
+                .flat_map(|row| reim_triples(&row[..size], &row[size..]))
+                .collect()
+        };
+        let seeds = triples(&f.seeds);
+        let ends = triples(&f.ends);
         let idx = family_pairs(f);
         rows.push_str(&format!(
             "/// Kernels {start}..{end} of `{fname}`: segment {seg}'s double kernels, read off \
-             its half kernels (`kernel_recurrence`). Its rows' uses (row, moment base): the \
+             its half kernels (`kernel_recurrence`). Its rows' uses (row, real base, imaginary \
+             base): the \
              top row's cut to the precision, for `|a| ≤ FAST_BENDING`; the top and bottom \
              rows' whole, beyond. Then per kernel two entries of the half kernels.\n\
              static {upper}_SEEDS{k}: [{rt}; {ns}] = [{}];\n\
@@ -235,29 +265,23 @@ fn body(
         let (s0, s1) = (f.start, f.start + f.count);
         out.push_str(&format!(
             "{{\nlet a = {arg};\n\
-             let split = if libm::fabs{fs}(a) <= FAST_BENDING {{\n\
-             kernels(&{upper}_SEEDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
-             kernels(&{upper}_SEEDS{k}[{size2}..], nu, &mut hk[{top_im}..{top_im_end}]);\n\
+             let split = {{\n\
+             let (real, imag) = hk.split_at_mut({half});\n\
+             if libm::fabs{fs}(a) <= FAST_BENDING {{\n\
+             kernels_reim_apart(&{upper}_SEEDS{k}, nu, &mut real[{top}..], &mut imag[{top}..]);\n\
              0\n\
              }} else {{\n\
-             kernels(&{upper}_ENDS{k}[..{size2}], nu, &mut hk[{top_re}..{top_re_end}]);\n\
-             kernels(&{upper}_ENDS{k}[{size2}..{size4}], nu, &mut hk[{top_im}..{top_im_end}]);\n\
-             kernels(&{upper}_ENDS{k}[{size4}..{size6}], nu, &mut hk[..{size}]);\n\
-             kernels(&{upper}_ENDS{k}[{size6}..], nu, &mut hk[{bottom_im}..{bottom_im_end}]);\n\
+             kernels_reim_apart(&{upper}_ENDS{k}[..{size3}], nu, &mut real[{top}..], &mut imag[{top}..]);\n\
+             kernels_reim_apart(&{upper}_ENDS{k}[{size3}..], nu, real, imag);\n\
              recurrence_split(a, {size})\n\
+             }}\n\
              }};\n\
              kernel_recurrence({size}, a, split, &TAIL_MOMENTS{t}, hk);\n\
              kernel_entries(&{upper}_PAIRS{k}, {sums}, hk, &mut kern[{s0}..{s1}]);\n\
              }}\n",
-            size2 = 2 * size,
-            size4 = 4 * size,
-            size6 = 6 * size,
-            top_re = (size - 1) * size,
-            top_re_end = size * size,
-            top_im = size * size + (size - 1) * size,
-            top_im_end = 2 * size * size,
-            bottom_im = size * size,
-            bottom_im_end = size * size + size,
+            size3 = 3 * size,
+            half = size * size,
+            top = (size - 1) * size,
             t = f.table,
             sums = f.sums,
         ));
@@ -707,6 +731,7 @@ pub fn emit(
     ctx.insert("start_type", uint(mc.coef.len()));
     ctx.insert("index_type", uint(plan.moment_max));
     ctx.insert("row_type", uint(use_max(plan)));
+    ctx.insert("kernel_routines", &plan.kernel_routines());
     ctx.insert("kernel_start", &strings(&mc.start).join(", "));
     ctx.insert("kernel_first", &strings(&mc.first).join(", "));
     ctx.insert("kernel_coef", &mc.coef.join(", "));

@@ -268,6 +268,10 @@ pub struct Block {
     /// Table rows this function evaluates, in `kern[]` order: the uses that are not
     /// double-kernel parts first, then those that are, grouped by segment and weight.
     pub kernels: Vec<KernelUse>,
+    /// The first `2 · reim` kernels are (real, imaginary) pairs: one row at one
+    /// segment's real and imaginary moment bases, which one pass over the row's
+    /// coefficients evaluates together.
+    pub reim: usize,
     /// Per kernel use, the double-kernel part it is, if any.
     pub matrix: Vec<Option<MatrixUse>>,
     pub stmts: Vec<Stmt>,
@@ -572,6 +576,10 @@ impl<'p> Scheduler<'p> {
             };
             (o.0, len, o.1)
         });
+        let plain = rows.iter().take_while(|(o, _)| o.0.is_none()).count();
+        let rest = rows.split_off(plain);
+        let (reim, mut rows) = self.pair_parts(rows);
+        rows.extend(rest);
         let mut matrix = Vec::with_capacity(rows.len());
         for ((_, i, m), u) in rows {
             // the moments a kernel reads count as read
@@ -617,6 +625,7 @@ impl<'p> Scheduler<'p> {
         reads_sigma |= pose_nu_count.iter().any(|&c| c > 0);
         Block {
             kernels: st.kernels,
+            reim,
             matrix,
             stmts: st.stmts,
             outputs,
@@ -630,6 +639,44 @@ impl<'p> Scheduler<'p> {
             reads_params,
             ops,
         }
+    }
+
+    /// Dot-product rows (in their order) regrouped: every row used at both a segment's
+    /// real and its imaginary moment base as an adjacent pair (real first), the pairs
+    /// by row length, then the rest as they came. Returns the number of pairs.
+    fn pair_parts<T>(&self, rows: Vec<(T, KernelUse)>) -> (usize, Vec<(T, KernelUse)>) {
+        let part = |u: &KernelUse| {
+            let (seg, _) = self.layout.locate(u.base);
+            (seg, u.base != self.layout.base(seg as u16, false))
+        };
+        let mut real: BTreeMap<(usize, usize), Vec<usize>> = BTreeMap::new();
+        for (k, (_, u)) in rows.iter().enumerate() {
+            if let (seg, false) = part(u) {
+                real.entry((u.row, seg)).or_default().push(k);
+            }
+        }
+        let mut pairs: Vec<(usize, usize)> = Vec::new();
+        for (k, (_, u)) in rows.iter().enumerate() {
+            if let (seg, true) = part(u) {
+                if let Some(r) = real.get_mut(&(u.row, seg)).and_then(|v| v.pop()) {
+                    pairs.push((r, k));
+                }
+            }
+        }
+        let key = |&(r, _): &(usize, usize)| {
+            let u = &rows[r].1;
+            (self.table.rows[u.row].len(), u.row, part(u).0)
+        };
+        pairs.sort_by_key(key);
+        let mut order: Vec<usize> = pairs.iter().flat_map(|&(r, i)| [r, i]).collect();
+        let mut paired = vec![false; rows.len()];
+        for &k in &order {
+            paired[k] = true;
+        }
+        order.extend((0..rows.len()).filter(|&k| !paired[k]));
+        let mut slots: Vec<Option<(T, KernelUse)>> = rows.into_iter().map(Some).collect();
+        let out = order.into_iter().filter_map(|k| slots[k].take()).collect();
+        (pairs.len(), out)
     }
 
     /// The expression that reads node `id` from its user's point of view.
@@ -710,5 +757,57 @@ impl<'p> Scheduler<'p> {
                 }
             }
         }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use crate::emit::plan::Plan;
+    use crate::emit::Precision;
+
+    /// Every function's leading kernels are (real, imaginary) pairs of one row at one
+    /// segment, and what is left to evaluate alone holds no such pair.
+    #[test]
+    fn dot_rows_at_both_parts_of_a_segment_are_paired() {
+        let arm = crate::arm::parse_arm_str(
+            "name = \"pairs\"\nexpansion_order = 3\ngravity = [0.0, -9.81]\n\
+             [[segment]]\nlength = 0.12\ncurvature_degree = 2\ndensity = 0.3\n\
+             bending_stiffness = 0.012\n\
+             [[segment]]\nlength = 0.1\ncurvature_degree = 0\ndensity = 0.25\n\
+             bending_stiffness = 0.008\n\
+             [[actuator]]\nkind = \"moment\"\nsegment = 2\n",
+            "pairs.toml",
+        )
+        .unwrap();
+        let plan = Plan::new(&crate::derive::derive_emitted(&arm), true, Precision::F64).unwrap();
+        let layout = &plan.layout;
+        let part = |base: usize| {
+            let (seg, _) = layout.locate(base);
+            (seg, base != layout.base(seg as u16, false))
+        };
+        let mut pairs = 0;
+        for f in plan.funcs() {
+            for d in &f.dots {
+                for p in d.uses[..2 * d.reim].chunks(2) {
+                    assert_eq!(p[0].row, p[1].row);
+                    let ((s0, im0), (s1, im1)) = (part(p[0].base), part(p[1].base));
+                    assert!(s0 == s1 && !im0 && im1, "{p:?}");
+                }
+                pairs += d.reim;
+                if d.start == 0 {
+                    let alone = d.singles();
+                    for u in alone.iter().filter(|u| !part(u.base).1) {
+                        let seg = part(u.base).0;
+                        assert!(
+                            !alone
+                                .iter()
+                                .any(|v| v.row == u.row && part(v.base) == (seg, true)),
+                            "{u:?} was left without its imaginary part"
+                        );
+                    }
+                }
+            }
+        }
+        assert!(pairs > 10, "too few pairs to mean anything: {pairs}");
     }
 }

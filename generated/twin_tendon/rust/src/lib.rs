@@ -406,6 +406,40 @@ fn kernels(uses: &[u8], nu: &[Real], kern: &mut [Real]) {
         *slot = (s0 + s1) + (s2 + s3);
     }
 }
+/// Kernel row `t[0]` at the moment bases `t[1]` (a segment's real parts) and `t[2]` (its
+/// imaginary parts): most rows are needed at both, and one pass loads each coefficient
+/// once for the two. Two partial sums per part keep the multiply-adds independent.
+#[inline]
+fn kernel_reim(t: &[u8], nu: &[Real]) -> (Real, Real) {
+    let r = t[0] as usize;
+    let row = KERNEL_START
+        .get(r..r + 2)
+        .zip(KERNEL_FIRST.get(r))
+        .and_then(|(span, first)| {
+            let c = KERNEL_COEF.get(span[0] as usize..span[1] as usize)?;
+            let (x, y) = (
+                t[1] as usize + *first as usize,
+                t[2] as usize + *first as usize,
+            );
+            Some((c, nu.get(x..x + c.len())?, nu.get(y..y + c.len())?))
+        });
+    let Some((c, x, y)) = row else {
+        return (Real::NAN, Real::NAN);
+    };
+    let (mut a, mut b): (Real, Real) = (0.0, 0.0);
+    for ((c, x), y) in c.iter().zip(x).zip(y) {
+        a += c * x;
+        b += c * y;
+    }
+    (a, b)
+}
+/// `kern = [re_0, im_0, re_1, im_1, …]`, pair `i` the row `uses[3i]` at the bases
+/// `uses[3i + 1]` and `uses[3i + 2]` ([`kernel_reim`]).
+fn kernels_reim(uses: &[u8], nu: &[Real], kern: &mut [Real]) {
+    for (out, t) in kern.chunks_exact_mut(2).zip(uses.chunks_exact(3)) {
+        (out[0], out[1]) = kernel_reim(t, nu);
+    }
+}
 /// `(sin x, cos x)`.
 fn sin_cos(x: Real) -> (Real, Real) {
     (libm::sin(x), libm::cos(x))
@@ -497,10 +531,13 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     }
 }
 /// Dot-product kernels of `shares`: pairs (row, moment base).
-static SHARES_ROWS: [u8; 56] = [
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 9, 0,
-    9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8, 16, 8, 24, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12,
-    24, 13, 24, 11, 24,
+static SHARES_ROWS: [u8; 20] = [
+    3, 8, 4, 0, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24, 11, 24,
+];
+/// Dot-product kernels 0..18 of `shares`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static SHARES_REIM0: [u8; 27] = [
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8,
+    16, 24,
 ];
 /// What [`terms`] and [`regressor`] have in common: the 21 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 94 reals).
 ///
@@ -521,14 +558,15 @@ fn shares_in(
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&SHARES_ROWS[0..56], nu, &mut kern[0..28]);
+    kernels_reim(&SHARES_REIM0, nu, &mut kern[0..18]);
+    kernels(&SHARES_ROWS[0..20], nu, &mut kern[18..28]);
     let s = &mut s[..21];
-    t[0] = qd[1] * kern[18];
-    t[1] = qd[1] * kern[19];
-    t[2] = kern[2] * cphi[0];
-    t[3] = kern[3] * sphi[0];
-    t[4] = kern[3] * cphi[0];
-    t[5] = kern[2] * sphi[0];
+    t[0] = qd[1] * kern[16];
+    t[1] = qd[1] * kern[17];
+    t[2] = kern[0] * cphi[0];
+    t[3] = kern[1] * sphi[0];
+    t[4] = kern[1] * cphi[0];
+    t[5] = kern[0] * sphi[0];
     t[6] = 0.0036 * t[2] - 0.0036 * t[3];
     t[7] = 0.0036 * t[4] + 0.0036 * t[5];
     t[8] = 0.0225 * t[7];
@@ -536,8 +574,8 @@ fn shares_in(
     t[10] = -0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0];
     t[11] = 0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0];
     t[12] = 0.0225 * t[11];
-    t[13] = qd[0] * kern[12];
-    t[14] = qd[0] * kern[13];
+    t[13] = qd[0] * kern[10];
+    t[14] = qd[0] * kern[11];
     t[15] = qd[1] * kern[5];
     t[16] = qd[1] * kern[4];
     t[17] = -0.000432 * sphi[0];
@@ -548,21 +586,21 @@ fn shares_in(
     t[22] = nu[24] * sphi[0];
     t[23] = nu[24] * cphi[0];
     t[24] = nu[16] * sphi[0];
-    t[25] = kern[8] - 0.018 * t[24] - 0.018 * t[23];
-    t[26] = kern[9] - 0.018 * t[22] + 0.018 * t[21];
-    t[27] = cphi[0] * kern[11];
-    t[28] = sphi[0] * kern[10];
+    t[25] = kern[18] - 0.018 * t[24] - 0.018 * t[23];
+    t[26] = kern[19] - 0.018 * t[22] + 0.018 * t[21];
+    t[27] = cphi[0] * kern[9];
+    t[28] = sphi[0] * kern[8];
     t[29] = -0.0144 * t[27] - 0.0144 * t[28];
-    t[30] = cphi[0] * kern[10];
-    t[31] = sphi[0] * kern[11];
+    t[30] = cphi[0] * kern[8];
+    t[31] = sphi[0] * kern[9];
     t[32] = 0.0144 * t[30] - 0.0144 * t[31];
     t[33] = 0.00216 * t[31] - 0.00216 * t[30];
     t[30] = -0.00216 * t[28] - 0.00216 * t[27];
     t[27] = qd[0] * (kern[14] - 0.0027 * t[21] + 0.0027 * t[22]) + qd[1] * t[33];
     t[21] = qd[0] * (kern[15] - 0.0027 * t[23] - 0.0027 * t[24]) + qd[1] * t[30];
     t[22] = -0.001728 * cphi[0];
-    t[23] = qd[0] * t[33] + qd[1] * (kern[16] * t[22] + 0.001728 * sphi[0] * kern[17]);
-    t[24] = qd[0] * t[30] + qd[1] * (kern[17] * t[22] - 0.001728 * sphi[0] * kern[16]);
+    t[23] = qd[0] * t[33] + qd[1] * (kern[12] * t[22] + 0.001728 * sphi[0] * kern[13]);
+    t[24] = qd[0] * t[30] + qd[1] * (kern[13] * t[22] - 0.001728 * sphi[0] * kern[12]);
     t[22] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
         + 0.0225 * kern[6] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
     s[0] = kern[20];
@@ -587,7 +625,7 @@ fn shares_in(
     s[13] = t[25] * t[23] + t[26] * t[24];
     s[14] = t[29] * t[27] + t[32] * t[21];
     s[15] = t[29] * t[23] + t[32] * t[24];
-    s[16] = 0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0];
+    s[16] = 0.00118125 * kern[2] * p.gravity[1] - 0.00118125 * kern[3] * p.gravity[0];
     s[17] = p.gravity[0] * (-0.00054 * t[5] - 0.00054 * t[4])
         + p.gravity[1] * (0.00054 * t[2] - 0.00054 * t[3])
         + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
@@ -596,10 +634,9 @@ fn shares_in(
     s[20] = p.gravity[0] * t[29] + p.gravity[1] * t[32];
 }
 /// Dot-product kernels of `inertia`: pairs (row, moment base).
-static INERTIA_ROWS: [u8; 28] = [
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16,
-    7, 16,
-];
+static INERTIA_ROWS: [u8; 12] = [3, 8, 4, 0, 5, 0, 5, 16, 6, 16, 7, 16];
+/// Dot-product kernels 0..8 of `inertia`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static INERTIA_REIM0: [u8; 12] = [0, 16, 24, 1, 16, 24, 2, 0, 8, 2, 16, 24];
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 53 reals).
 ///
 /// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
@@ -613,15 +650,16 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&INERTIA_ROWS[0..28], nu, &mut kern[0..14]);
+    kernels_reim(&INERTIA_REIM0, nu, &mut kern[0..8]);
+    kernels(&INERTIA_ROWS[0..12], nu, &mut kern[8..14]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
         + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]);
     t[1] = 0.15 * t[0];
-    t[0] = kern[6] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
-    t[2] = kern[7] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
-    t[3] = -0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8];
-    t[4] = 0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9];
+    t[0] = kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    t[2] = kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    t[3] = -0.0144 * cphi[0] * kern[7] - 0.0144 * sphi[0] * kern[6];
+    t[4] = 0.0144 * cphi[0] * kern[6] - 0.0144 * sphi[0] * kern[7];
     t[5] = 0.0225 * kern[4]
         * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5]
@@ -674,9 +712,9 @@ pub fn inertia_with_ws(
     inertia_in(p, q, &mut ws.0)
 }
 /// Dot-product kernels of `gravity`: pairs (row, moment base).
-static GRAVITY_ROWS: [u8; 24] = [
-    1, 0, 1, 8, 0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 3, 8, 4, 0, 2, 16, 2, 24,
-];
+static GRAVITY_ROWS: [u8; 4] = [3, 8, 4, 0];
+/// Dot-product kernels 0..10 of `gravity`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static GRAVITY_REIM0: [u8; 15] = [0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24];
 /// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 48 reals).
 ///
 /// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
@@ -690,19 +728,22 @@ fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&GRAVITY_ROWS[0..24], nu, &mut kern[0..12]);
+    kernels_reim(&GRAVITY_REIM0, nu, &mut kern[0..10]);
+    kernels(&GRAVITY_ROWS[0..4], nu, &mut kern[10..12]);
     let mut out = [0.0; NQ];
-    t[0] = p.gravity[0] * (-0.00054 * kern[2] * sphi[0] - 0.00054 * kern[3] * cphi[0])
-        + p.gravity[1] * (0.00054 * kern[2] * cphi[0] - 0.00054 * kern[3] * sphi[0])
+    t[0] = p.gravity[0] * (-0.00054 * kern[0] * sphi[0] - 0.00054 * kern[1] * cphi[0])
+        + p.gravity[1] * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
         + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
-    t[1] = p.gravity[0] * (kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
-        + p.gravity[1] * (kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
+    t[1] = p.gravity[0]
+        * (kern[10] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + p.gravity[1]
+            * (kern[11] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
     t[2] = p.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + p.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
-    t[3] = p.gravity[0] * (-0.0144 * cphi[0] * kern[11] - 0.0144 * sphi[0] * kern[10])
-        + p.gravity[1] * (0.0144 * cphi[0] * kern[10] - 0.0144 * sphi[0] * kern[11]);
+    t[3] = p.gravity[0] * (-0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8])
+        + p.gravity[1] * (0.0144 * cphi[0] * kern[8] - 0.0144 * sphi[0] * kern[9]);
     out[0] = -p.density_scale[0]
-        * (0.00118125 * kern[0] * p.gravity[1] - 0.00118125 * kern[1] * p.gravity[0])
+        * (0.00118125 * kern[2] * p.gravity[1] - 0.00118125 * kern[3] * p.gravity[0])
         - p.density_scale[1] * t[0] - p.payload_mass * t[1];
     out[1] = -p.density_scale[1] * t[2] - p.payload_mass * t[3];
     out
@@ -759,7 +800,9 @@ pub fn actuation_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NU]; NQ] {
     actuation_in(q, &mut ws.0)
 }
 /// Dot-product kernels of `tip_jacobian`: pairs (row, moment base).
-static TIP_JACOBIAN_ROWS: [u8; 8] = [3, 8, 4, 0, 2, 16, 2, 24];
+static TIP_JACOBIAN_ROWS: [u8; 4] = [3, 8, 4, 0];
+/// Dot-product kernels 0..2 of `tip_jacobian`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static TIP_JACOBIAN_REIM0: [u8; 3] = [2, 16, 24];
 /// The work of [`tip_jacobian`] and [`tip_jacobian_ws`], in `work` (at least 36 reals).
 ///
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
@@ -772,12 +815,13 @@ fn tip_jacobian_in(q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; 3] {
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&TIP_JACOBIAN_ROWS[0..8], nu, &mut kern[0..4]);
+    kernels_reim(&TIP_JACOBIAN_REIM0, nu, &mut kern[0..2]);
+    kernels(&TIP_JACOBIAN_ROWS[0..4], nu, &mut kern[2..4]);
     let mut out = [[0.0; NQ]; 3];
-    out[0][0] = kern[0] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
-    out[0][1] = -0.0144 * cphi[0] * kern[3] - 0.0144 * sphi[0] * kern[2];
-    out[1][0] = kern[1] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
-    out[1][1] = 0.0144 * cphi[0] * kern[2] - 0.0144 * sphi[0] * kern[3];
+    out[0][0] = kern[2] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    out[0][1] = -0.0144 * cphi[0] * kern[1] - 0.0144 * sphi[0] * kern[0];
+    out[1][0] = kern[3] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    out[1][1] = 0.0144 * cphi[0] * kern[0] - 0.0144 * sphi[0] * kern[1];
     out[2][0] = 0.15;
     out[2][1] = 0.12;
     out
@@ -794,10 +838,9 @@ pub fn tip_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; 3] {
 pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
-/// Dot-product kernels of `gravity_jacobian`: pairs (row, moment base).
-static GRAVITY_JACOBIAN_ROWS: [u8; 32] = [
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 10, 0, 10, 8, 9, 16, 9, 24, 8,
-    0, 8, 8, 8, 16, 8, 24,
+/// Dot-product kernels 0..16 of `gravity_jacobian`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static GRAVITY_JACOBIAN_REIM0: [u8; 24] = [
+    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8, 0, 8, 8, 16, 24,
 ];
 /// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 54 reals).
 ///
@@ -816,7 +859,7 @@ fn gravity_jacobian_in(
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&GRAVITY_JACOBIAN_ROWS[0..32], nu, &mut kern[0..16]);
+    kernels_reim(&GRAVITY_JACOBIAN_REIM0, nu, &mut kern[0..16]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = -5.184e-5 * cphi[0];
     t[1] = -0.001728 * cphi[0];
@@ -830,13 +873,13 @@ fn gravity_jacobian_in(
         + 0.03
             * (-0.003375 * p.gravity[0] * kern[6] - 0.003375 * p.gravity[1] * kern[7]);
     t[3] = p.gravity[0]
-        * (kern[8] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
         + p.gravity[1]
-            * (kern[9] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
+            * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
     t[5] = p.gravity[0] * (kern[14] * t[0] + 5.184e-5 * kern[15] * sphi[0])
         + p.gravity[1] * (kern[15] * t[0] - 5.184e-5 * kern[14] * sphi[0]);
-    t[0] = p.gravity[0] * (kern[10] * t[1] + 0.001728 * sphi[0] * kern[11])
-        + p.gravity[1] * (kern[11] * t[1] - 0.001728 * sphi[0] * kern[10]);
+    t[0] = p.gravity[0] * (kern[8] * t[1] + 0.001728 * sphi[0] * kern[9])
+        + p.gravity[1] * (kern[9] * t[1] - 0.001728 * sphi[0] * kern[8]);
     out[0][0] = -p.density_scale[0]
         * (-0.0001771875 * kern[12] * p.gravity[0]
             - 0.0001771875 * kern[13] * p.gravity[1]) - p.density_scale[1] * t[2]
@@ -874,8 +917,8 @@ pub fn gravity_jacobian_with_ws(
 ) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut ws.0)
 }
-/// Dot-product kernels of `potential_energy`: pairs (row, moment base).
-static POTENTIAL_ENERGY_ROWS: [u8; 8] = [0, 0, 0, 8, 0, 16, 0, 24];
+/// Dot-product kernels 0..4 of `potential_energy`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static POTENTIAL_ENERGY_REIM0: [u8; 6] = [0, 0, 8, 0, 16, 24];
 /// The work of [`potential_energy`] and [`potential_energy_ws`], in `work` (at least 38 reals).
 ///
 /// Operations: 78 add, 174 mul, 4 div, 0 sqrt, 6 trig.
@@ -889,7 +932,7 @@ fn potential_energy_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> Real {
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels(&POTENTIAL_ENERGY_ROWS[0..8], nu, &mut kern[0..4]);
+    kernels_reim(&POTENTIAL_ENERGY_REIM0, nu, &mut kern[0..4]);
     t[0] = p.gravity[0] * (0.0036 * kern[2] * cphi[0] - 0.0036 * kern[3] * sphi[0])
         + p.gravity[1] * (0.0036 * kern[3] * cphi[0] + 0.0036 * kern[2] * sphi[0])
         + 0.03 * (0.15 * nu[0] * p.gravity[0] + 0.15 * nu[8] * p.gravity[1]);
