@@ -396,7 +396,8 @@ fn c_square_roots_go_through_the_hook() {
 }
 
 /// Arms whose actuation does not depend on q (none at all; bending moments only) leave
-/// parameters unused; the C must still build under the strict warnings and pass.
+/// parameters unused; the C must still build under the strict warnings and pass, and
+/// the Rust crate without a warning.
 #[test]
 fn c_of_arms_with_constant_actuation_builds_strict() {
     if !have("gcc", "--version") {
@@ -417,6 +418,15 @@ fn c_of_arms_with_constant_actuation_builds_strict() {
             .join(name);
         write_tree(&out, &files, &|_| {}).expect("writes");
         shipped_c(&out, name, name);
+        let text = run(
+            Command::new(env!("CARGO"))
+                .args(["test", "--quiet"])
+                .current_dir(out.join("rust"))
+                .env("CARGO_TARGET_DIR", root().join("target/generated-rust"))
+                .env("RUSTFLAGS", "-D warnings"),
+            &format!("cargo test of the {name} crate"),
+        );
+        assert!(text.contains(" 0 failed"), "Rust {name}:\n{text}");
     }
 }
 

@@ -488,7 +488,12 @@ pub fn emit(
         &plan.actuation,
         &[q_of(&plan.actuation)],
         &mat("NQ", "NU"),
-        "let mut out = [[0.0; NU]; NQ];\n",
+        // An arm without inputs has an empty A: nothing is written into it.
+        if plan.actuation.block.outputs.is_empty() {
+            "let out = [[0.0; NU]; NQ];\n"
+        } else {
+            "let mut out = [[0.0; NU]; NQ];\n"
+        },
         &mat_target(k),
         "out\n",
     );
