@@ -288,22 +288,33 @@ pub struct Plan {
 }
 
 /// A function whose roots are scheduled over the shares helper's values: straight-line
-/// code only, reading what the helper reads (for its callers' signatures).
+/// code only, reading what the helper reads (for its callers' signatures). `None` if
+/// it would need moments, angles or kernels of its own, which the frontier leaves to
+/// the helper ([`super::shares::frontier`]); the caller then schedules it alone.
 fn over_shares(
     sched: &mut Scheduler,
     roots: &[Id],
     frontier: &BTreeMap<Id, usize>,
     helper: &Func,
-) -> Func {
+) -> Option<Func> {
     let mut block = sched.block_over(roots, false, frontier);
-    debug_assert!(block.kernels.is_empty() && block.angles == 0);
-    debug_assert!(block.nu_count.iter().all(|&c| c == 0));
+    let preamble = !block.kernels.is_empty()
+        || block.angles > 0
+        || block
+            .nu_count
+            .iter()
+            .chain(&block.pose_nu_count)
+            .any(|&c| c > 0);
+    debug_assert!(!preamble, "the frontier left a preamble to its reader");
+    if preamble {
+        return None;
+    }
     let hb = &helper.block;
     block.reads_q |= hb.reads_q;
     block.reads_qd |= hb.reads_qd;
     block.reads_sigma |= hb.reads_sigma;
     block.reads_params |= hb.reads_params;
-    Func {
+    Some(Func {
         kern_len: 0,
         dots: Vec::new(),
         families: Vec::new(),
@@ -312,7 +323,7 @@ fn over_shares(
         nu_fast: vec![0; block.nu_count.len()],
         block,
         over_shares: true,
-    }
+    })
 }
 
 /// Worst-case operations of one moment evaluation of `count` moments, at argument
@@ -551,13 +562,16 @@ impl Plan {
             func(&mut sched, &roots, false)
         });
         let mut over = |sched: &mut Scheduler, roots: &[Id]| -> Func {
-            match &shares {
-                Some(helper) => over_shares(sched, roots, &frontier, helper),
-                None => func(sched, roots, false),
-            }
+            shares
+                .as_ref()
+                .and_then(|helper| over_shares(sched, roots, &frontier, helper))
+                .unwrap_or_else(|| func(sched, roots, false))
         };
         let mut terms = over(&mut sched, &terms_roots);
         let mut regressor = regressor_roots.map(|y| over(&mut sched, &y));
+        if !terms.over_shares && !regressor.as_ref().is_some_and(|y| y.over_shares) {
+            shares = None; // no caller: not emitted
+        }
         let dynamics = terms.ops
             + actuation.ops
             + stiffness.ops
