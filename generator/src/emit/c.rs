@@ -5,8 +5,8 @@ use super::body::{
     temporaries, Spelling, StmtStyle,
 };
 use super::constants::{
-    base_context, family_pairs, matrix_table_context, pair_max, reim_triples, strings, use_max,
-    use_pairs, MomentConstants,
+    base_context, dot_pair_triples, family_pairs, half_kernel_triples, matrix_table_context,
+    pair_max, strings, use_max, use_pairs, MomentConstants,
 };
 use super::control_code::{StaticsCallees, StaticsLayout};
 use super::golden::Golden;
@@ -182,8 +182,7 @@ impl Printer<'_> {
             );
         }
         for (k, d) in func.dots.iter().enumerate().filter(|(_, d)| d.reim > 0) {
-            let (re, im) = d.reim_parts();
-            let items = reim_triples(&re, &im);
+            let items = dot_pair_triples(d);
             rows.push_str(&format!(
                 "/* Dot-product kernels {start} .. {end} of {n}_{fname}: one row at both parts \
                  of a segment's moments, (row, real base, imaginary base). */\n\
@@ -284,13 +283,8 @@ impl Printer<'_> {
                 let arg = inline(&moment_argument(plan, f.seg, false), &syn);
                 let rt = uint_type(use_max(plan));
                 let idx = family_pairs(f);
-                // Each row at the real and the imaginary base: the top row's uses (real
-                // parts, then imaginary parts), then the bottom row's.
                 let list = |uses: &[KernelUse]| {
-                    let items: Vec<String> = uses
-                        .chunks(2 * size)
-                        .flat_map(|row| reim_triples(&row[..size], &row[size..]))
-                        .collect();
+                    let items = half_kernel_triples(uses, size);
                     (items.len(), wrap_list(&items, 4))
                 };
                 let (ns, seeds) = list(&f.seeds);

@@ -2,7 +2,7 @@
 //! series and recurrence constants as exact literals, the kernel table in bands, and the template context entries all languages share.
 
 use super::number::{literal, Precision};
-use super::plan::{moment_ops, Family, Plan};
+use super::plan::{moment_ops, DotRange, Family, Plan};
 use super::schedule::KernelUse;
 use super::Meta;
 use crate::exact::{int, Q};
@@ -128,13 +128,28 @@ pub fn use_pairs<'a>(uses: impl IntoIterator<Item = &'a KernelUse>) -> Vec<Strin
 }
 
 /// Triples `row, real base, imaginary base` of kernel rows evaluated at both parts of
-/// one segment's moments: `re[i]` and `im[i]` are one row at the two bases.
-pub fn reim_triples(re: &[KernelUse], im: &[KernelUse]) -> Vec<String> {
-    debug_assert!(re.len() == im.len() && re.iter().zip(im).all(|(a, b)| a.row == b.row));
-    re.iter()
-        .zip(im)
-        .flat_map(|(a, b)| [a.row.to_string(), a.base.to_string(), b.base.to_string()])
+/// one segment's moments, from (real use, imaginary use) pairs of one row.
+fn reim_triples<'a>(pairs: impl Iterator<Item = (&'a KernelUse, &'a KernelUse)>) -> Vec<String> {
+    pairs
+        .flat_map(|(a, b)| {
+            debug_assert_eq!(a.row, b.row);
+            [a.row.to_string(), a.base.to_string(), b.base.to_string()]
+        })
         .collect()
+}
+
+/// A dot range's leading pairs ([`DotRange::reim`]) as triples.
+pub fn dot_pair_triples(d: &DotRange) -> Vec<String> {
+    reim_triples(d.uses[..2 * d.reim].chunks(2).map(|p| (&p[0], &p[1])))
+}
+
+/// A family's half-kernel rows as triples: each row is `size` uses at the real base,
+/// then the same rows at the imaginary base (the top row; for `ends`, then the bottom).
+pub fn half_kernel_triples(uses: &[KernelUse], size: usize) -> Vec<String> {
+    reim_triples(
+        uses.chunks(2 * size)
+            .flat_map(|row| row[..size].iter().zip(&row[size..])),
+    )
 }
 
 /// Largest value in any function's kernel-use pairs: every such array, and the kernel

@@ -88,15 +88,6 @@ impl DotRange {
     pub fn singles(&self) -> &[KernelUse] {
         &self.uses[2 * self.reim..]
     }
-
-    /// The pairs' real uses and imaginary uses, in order.
-    pub fn reim_parts(&self) -> (Vec<KernelUse>, Vec<KernelUse>) {
-        let pairs = &self.uses[..2 * self.reim];
-        (
-            pairs.iter().step_by(2).copied().collect(),
-            pairs.iter().skip(1).step_by(2).copied().collect(),
-        )
-    }
 }
 
 impl Func {

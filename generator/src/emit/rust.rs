@@ -7,13 +7,12 @@ use super::body::{
 };
 use super::c::wrap_list;
 use super::constants::{
-    base_context, family_pairs, matrix_table_context, pair_max, reim_triples, strings, use_max,
-    use_pairs, MomentConstants,
+    base_context, dot_pair_triples, family_pairs, half_kernel_triples, matrix_table_context,
+    pair_max, strings, use_max, use_pairs, MomentConstants,
 };
 use super::golden::{Golden, SIGMAS};
 use super::number::{rust_spelling, Precision};
 use super::plan::{Func, Plan, PARAMETRIC_FUNCTIONS};
-use super::schedule::KernelUse;
 use super::templates::render;
 use super::{Meta, OutFile};
 use serde::Serialize;
@@ -200,8 +199,7 @@ fn body(
     let mut at = 0;
     for (k, d) in func.dots.iter().enumerate() {
         if d.reim > 0 {
-            let (re, im) = d.reim_parts();
-            let items = reim_triples(&re, &im);
+            let items = dot_pair_triples(d);
             let end = d.start + 2 * d.reim;
             rows.push_str(&format!(
                 "/// Dot-product kernels {}..{end} of `{fname}`: one row at both parts of a \
@@ -231,15 +229,8 @@ fn body(
     for (k, f) in func.families.iter().enumerate() {
         let size = plan.matrix_tables[f.table].size;
         let arg = inline(&moment_argument(plan, f.seg, false), &syn);
-        // Each row at the real and the imaginary base: the top row's uses (real parts,
-        // then imaginary parts), then the bottom row's.
-        let triples = |uses: &[KernelUse]| -> Vec<String> {
-            uses.chunks(2 * size)
-                .flat_map(|row| reim_triples(&row[..size], &row[size..]))
-                .collect()
-        };
-        let seeds = triples(&f.seeds);
-        let ends = triples(&f.ends);
+        let seeds = half_kernel_triples(&f.seeds, size);
+        let ends = half_kernel_triples(&f.ends, size);
         let idx = family_pairs(f);
         rows.push_str(&format!(
             "/// Kernels {start}..{end} of `{fname}`: segment {seg}'s double kernels, read off \
@@ -277,9 +268,10 @@ fn body(
              }}\n\
              }};\n\
              kernel_recurrence({size}, a, split, &TAIL_MOMENTS{t}, hk);\n\
-             kernel_entries(&{upper}_PAIRS{k}, {sums}, hk, &mut kern[{s0}..{s1}]);\n\
+             kernel_entries::<{n_f}>(&{upper}_PAIRS{k}, {sums}, hk, &mut kern[{s0}..{s1}]);\n\
              }}\n",
             size3 = 3 * size,
+            n_f = 2 * size * size,
             half = size * size,
             top = (size - 1) * size,
             t = f.table,

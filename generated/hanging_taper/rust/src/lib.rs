@@ -5132,8 +5132,17 @@ fn kernel_recurrence(size: usize, a: Real, split: usize, m: &[Real], f: &mut [Re
 /// `kern[i] = Re D_st = F[p] + F[q]` for the real parts, `i < sums`, then
 /// `Im D_st = F[p] − F[q]` for the imaginary parts (`p, q = pairs[2i], pairs[2i + 1]`,
 /// in `F`'s second half): two loops, so that neither branches on the part.
-fn kernel_entries(pairs: &[u16], sums: usize, f: &[Real], kern: &mut [Real]) {
-    let at = |i: u16| f.get(i as usize).copied().unwrap_or(Real::NAN);
+fn kernel_entries<const N: usize>(
+    pairs: &[u16],
+    sums: usize,
+    f: &[Real],
+    kern: &mut [Real],
+) {
+    let Some(f) = f.first_chunk::<N>() else {
+        kern.fill(Real::NAN);
+        return;
+    };
+    let at = |i: u16| f[(i as usize).min(N - 1)];
     let (re, im) = kern.split_at_mut(sums.min(kern.len()));
     let (pre, pim) = pairs.split_at((2 * sums).min(pairs.len()));
     for (slot, pq) in re.iter_mut().zip(pre.chunks_exact(2)) {
@@ -5441,7 +5450,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS3, hk);
-        kernel_entries(&SHARES_PAIRS0, 131, hk, &mut kern[200..452]);
+        kernel_entries::<450>(&SHARES_PAIRS0, 131, hk, &mut kern[200..452]);
     }
     {
         let a = 0.09 * q[3];
@@ -5467,7 +5476,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS4, hk);
-        kernel_entries(&SHARES_PAIRS1, 163, hk, &mut kern[452..768]);
+        kernel_entries::<450>(&SHARES_PAIRS1, 163, hk, &mut kern[452..768]);
     }
     {
         let a = 0.08 * q[6];
@@ -5493,7 +5502,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(11, a, split, &TAIL_MOMENTS5, hk);
-        kernel_entries(&SHARES_PAIRS2, 74, hk, &mut kern[768..911]);
+        kernel_entries::<242>(&SHARES_PAIRS2, 74, hk, &mut kern[768..911]);
     }
     let s = &mut s[..302];
     t[0] = q[1] * q[1];
@@ -8544,7 +8553,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS0, hk);
-        kernel_entries(&INERTIA_PAIRS0, 109, hk, &mut kern[132..336]);
+        kernel_entries::<392>(&INERTIA_PAIRS0, 109, hk, &mut kern[132..336]);
     }
     {
         let a = 0.09 * q[3];
@@ -8570,7 +8579,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS1, hk);
-        kernel_entries(&INERTIA_PAIRS1, 143, hk, &mut kern[336..598]);
+        kernel_entries::<392>(&INERTIA_PAIRS1, 143, hk, &mut kern[336..598]);
     }
     {
         let a = 0.08 * q[6];
@@ -8596,7 +8605,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(10, a, split, &TAIL_MOMENTS2, hk);
-        kernel_entries(&INERTIA_PAIRS2, 55, hk, &mut kern[598..698]);
+        kernel_entries::<200>(&INERTIA_PAIRS2, 55, hk, &mut kern[598..698]);
     }
     let mut out = [[0.0; NQ]; NQ];
     t[0] = q[1] * q[1];

@@ -2600,8 +2600,17 @@ fn kernel_recurrence(size: usize, a: Real, split: usize, m: &[Real], f: &mut [Re
 /// `kern[i] = Re D_st = F[p] + F[q]` for the real parts, `i < sums`, then
 /// `Im D_st = F[p] − F[q]` for the imaginary parts (`p, q = pairs[2i], pairs[2i + 1]`,
 /// in `F`'s second half): two loops, so that neither branches on the part.
-fn kernel_entries(pairs: &[u16], sums: usize, f: &[Real], kern: &mut [Real]) {
-    let at = |i: u16| f.get(i as usize).copied().unwrap_or(Real::NAN);
+fn kernel_entries<const N: usize>(
+    pairs: &[u16],
+    sums: usize,
+    f: &[Real],
+    kern: &mut [Real],
+) {
+    let Some(f) = f.first_chunk::<N>() else {
+        kern.fill(Real::NAN);
+        return;
+    };
+    let at = |i: u16| f[(i as usize).min(N - 1)];
     let (re, im) = kern.split_at_mut(sums.min(kern.len()));
     let (pre, pim) = pairs.split_at((2 * sums).min(pairs.len()));
     for (slot, pq) in re.iter_mut().zip(pre.chunks_exact(2)) {
@@ -2868,7 +2877,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS1, hk);
-        kernel_entries(&SHARES_PAIRS0, 131, hk, &mut kern[148..400]);
+        kernel_entries::<450>(&SHARES_PAIRS0, 131, hk, &mut kern[148..400]);
     }
     {
         let a = 0.1 * q[3];
@@ -2894,7 +2903,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS1, hk);
-        kernel_entries(&SHARES_PAIRS1, 163, hk, &mut kern[400..716]);
+        kernel_entries::<450>(&SHARES_PAIRS1, 163, hk, &mut kern[400..716]);
     }
     let s = &mut s[..148];
     t[0] = q[1] * q[1];
@@ -5189,7 +5198,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS0, hk);
-        kernel_entries(&INERTIA_PAIRS0, 109, hk, &mut kern[90..294]);
+        kernel_entries::<392>(&INERTIA_PAIRS0, 109, hk, &mut kern[90..294]);
     }
     {
         let a = 0.1 * q[3];
@@ -5215,7 +5224,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS0, hk);
-        kernel_entries(&INERTIA_PAIRS1, 143, hk, &mut kern[294..556]);
+        kernel_entries::<392>(&INERTIA_PAIRS1, 143, hk, &mut kern[294..556]);
     }
     let mut out = [[0.0; NQ]; NQ];
     t[0] = q[1] * q[1];
