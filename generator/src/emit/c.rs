@@ -331,8 +331,7 @@ impl Printer<'_> {
                 ));
             }
         }
-        // (The shares helper says for itself which of its inputs it ignores.)
-        if !b.reads_q && !["stiffness", "damping", "shares"].contains(&fname) {
+        if !b.reads_q && fname != "stiffness" && fname != "damping" {
             out.push_str("    (void)q;\n");
         }
         if !b.reads_params && PARAMETRIC_FUNCTIONS.contains(&fname) {
@@ -557,7 +556,8 @@ pub fn emit(
         let (rows, body, len) = p.body(helper, "shares", None, &|i| format!("s[{i}]"));
         let b = &helper.block;
         let mut unused = String::new();
-        for (read, what) in [(b.reads_q, "q"), (b.reads_qd, "qd"), (b.reads_params, "P")] {
+        // (`body` says so for q, as for every function that takes it.)
+        for (read, what) in [(b.reads_qd, "qd"), (b.reads_params, "P")] {
             if !read {
                 unused.push_str(&format!("    (void){what};\n"));
             }
