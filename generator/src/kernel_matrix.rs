@@ -17,7 +17,7 @@
 //! ```
 //!
 //! Run downward from the top row `F_{P−1,t}` (dot products over the moments) this
-//! multiplies errors by `|a|/s` per step, and every entry below the top row costs five
+//! multiplies errors by `|a|/s` per step, and every entry below the top row costs four
 //! operations instead of a dot product of 10–30 terms. Run upward from the bottom row
 //! `F_{0,t}` (`F_st = (s F_{s−1,t} − m_{s+t})/(ia)`) it multiplies them by `s/|a|`. So
 //! each direction is stable on its own side of `s = |a|`, and [`recur_split`] takes the
@@ -25,8 +25,8 @@
 //!
 //! Measured against the dot products (relative error of the worst entry, f64, uniform
 //! and tapered weights, 4 to 29 powers):
-//! - down from the top row alone (`tests::sweep`): at most 1.1e-15 for `|a| ≤ 4`, but
-//!   with 15 powers 3.0e-15 at `|a| = 5`, 2.3e-14 at 6, 1.2e-13 at 7
+//! - down from the top row alone (`tests::sweep`): at most 1.2e-15 for `|a| ≤ 4`, but
+//!   with 15 powers 3.0e-15 at `|a| = 5`, 1.5e-14 at 6, 1.6e-13 at 7
 //!   (`tests::beyond_the_switch_the_recurrence_degrades`);
 //! - from both ends (`tests::split_sweep`): at most 1e-14 for `|a| ≤ 20`, 2.3e-14 to 40,
 //!   5.2e-14 to 100, and about `1.2e-16 |a|` beyond (1.2e-13 at 1000, 1.5e-11 at 1e5):
@@ -137,10 +137,11 @@ impl MatrixTable {
     }
 
     /// Additions, multiplications and divisions of [`recur_down`] below the top row:
-    /// per entry `(m − a·Im F)/s` and `(a·Re F)/s` with `1/s` formed once per row.
+    /// per entry `m·(1/s) − (a/s)·Im F` and `(a/s)·Re F`, with `1/s` and `a/s` formed
+    /// once per row.
     pub fn recurrence_ops(&self) -> (usize, usize, usize) {
         let entries = (self.size - 1) * self.size;
-        (entries, 4 * entries, self.size - 1)
+        (entries, 3 * entries + self.size - 1, self.size - 1)
     }
 }
 
@@ -167,19 +168,20 @@ pub fn recur_split(
     f[(size - 1) * size..].copy_from_slice(top);
     for s in (split + 1..size).rev() {
         let inv = 1.0 / s as f64;
+        let ainv = a * inv;
         for t in 0..size {
             let (re, im) = f[s * size + t];
-            f[(s - 1) * size + t] = ((moments[s + t] - a * im) * inv, (a * re) * inv);
+            f[(s - 1) * size + t] = (moments[s + t] * inv - ainv * im, ainv * re);
         }
     }
     if split > 0 {
         f[..size].copy_from_slice(bottom);
         let inv = 1.0 / a;
         for s in 1..=split {
-            let k = s as f64;
+            let kinv = s as f64 * inv;
             for t in 0..size {
                 let (re, im) = f[(s - 1) * size + t];
-                f[s * size + t] = (k * im * inv, (moments[s + t] - k * re) * inv);
+                f[s * size + t] = (kinv * im, moments[s + t] * inv - kinv * re);
             }
         }
     }

@@ -1627,8 +1627,7 @@ static void hanging_taper_kernels(const unsigned short uses[], int count, const 
 
 /* re[i stride] and im[i stride] = kernel row uses[3i] at the moment bases uses[3i + 1]
  * (a segment's real parts) and uses[3i + 2] (its imaginary parts), i < count: most rows
- * are needed at both, and one pass loads each coefficient once for the two. Two
- * partial sums per part keep the multiply-adds independent. */
+ * are needed at both, and one pass loads each coefficient once for the two. */
 static void hanging_taper_kernel_reim(const unsigned short uses[], int count, const double nu[], double re[], double im[], int stride)
 {
     int i;
@@ -1660,7 +1659,7 @@ static void hanging_taper_kernel_reim(const unsigned short uses[], int count, co
  * Run downward it multiplies errors by |a|/s per step, run upward
  * (F_st = (s F_{s-1,t} - m_{s+t}) / (i a)) by s/|a|: each direction is stable on its own
  * side of s = |a|. A segment bent by |a| <= FAST_BENDING runs down from the top row alone
- * (measured within 1.1e-15 of the dot products over the moments, up to 29 powers); the
+ * (measured within 1.2e-15 of the dot products over the moments, up to 29 powers); the
  * top row is then read only at |a| <= 4, so its bands stop where the moments left out can
  * change an entry by at most a quarter unit of this precision's rounding of it
  * (|nu_n| <= (|a|/2)^n / (2n+1)!!), and the moments are computed only that far. Bent
@@ -1746,28 +1745,29 @@ static void hanging_taper_kernel_recurrence(int size, double a, int split, const
     int s;
     for (s = size - 1; s > split; --s) {
         const double inv = 1.0 / (double)s;
+        const double ainv = a * inv;
         const int hi = s * size;
         const int lo = hi - size;
         int t;
         for (t = 0; t < size; ++t) {
             const double fr = re[hi + t];
             const double fi = im[hi + t];
-            re[lo + t] = (m[s + t] - a * fi) * inv;
-            im[lo + t] = (a * fr) * inv;
+            re[lo + t] = m[s + t] * inv - ainv * fi;
+            im[lo + t] = ainv * fr;
         }
     }
     if (split > 0) {
         const double inv = 1.0 / a;
         for (s = 1; s <= split; ++s) {
-            const double k = (double)s;
+            const double kinv = (double)s * inv;
             const int hi = s * size;
             const int lo = hi - size;
             int t;
             for (t = 0; t < size; ++t) {
                 const double fr = re[lo + t];
                 const double fi = im[lo + t];
-                re[hi + t] = k * fi * inv;
-                im[hi + t] = (m[s + t] - k * fr) * inv;
+                re[hi + t] = kinv * fi;
+                im[hi + t] = m[s + t] * inv - kinv * fr;
             }
         }
     }
@@ -4378,7 +4378,7 @@ static void hanging_taper_shares_part22(const double q[], const double kern[], d
 
 
 /* What hanging_taper_terms_with_ws and hanging_taper_regressor_with_ws have in common: the 302 values s[] that the rest of each reads. At the runtime parameters *P. Scratch: work[0 .. 2197).
- * Operations: 8864 add, 11830 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10544 add, 13762 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 8864 add, 11338 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10544 add, 13270 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 static void hanging_taper_shares(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double s[], double work[])
 {
     double *const nu = &work[0]; /* 182 */
@@ -6383,7 +6383,7 @@ static void hanging_taper_inertia_part11(const double kern[], double t[])
 
 
 /* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_INERTIA_WORK), 1602 reals.
- * Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     double *const nu = &work[0]; /* 182 */
@@ -6556,7 +6556,7 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
 
 
 /* hanging_taper_inertia_with_ws at the arm file's parameters.
- * Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     hanging_taper_inertia_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, B, work);
@@ -6565,7 +6565,7 @@ void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_inertia_with_ws with its scratch on this function's stack.
- * Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_inertia_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_INERTIA_WORK];
@@ -6576,7 +6576,7 @@ void hanging_taper_inertia_with(const hanging_taper_params *P, const double q[HA
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_inertia_ws with its scratch on this function's stack.
- * Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_inertia(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_INERTIA_WORK];
@@ -7489,7 +7489,7 @@ void hanging_taper_tip_jacobian(const double q[HANGING_TAPER_NQ], double J[3 * H
 
 
 /* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_REGRESSOR_WORK), 2499 reals.
- * Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ], double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA], double work[])
 {
     double *const s = &work[0]; /* 302 */
@@ -7712,7 +7712,7 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
 
 
 /* hanging_taper_regressor_with_ws at the arm file's parameters.
- * Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_regressor_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ], double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA], double work[])
 {
     hanging_taper_regressor_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, qd, qdd, Y, work);
@@ -7721,7 +7721,7 @@ void hanging_taper_regressor_ws(const double q[HANGING_TAPER_NQ], const double q
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_regressor_with_ws with its scratch on this function's stack.
- * Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_regressor_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ], double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA])
 {
     double work[HANGING_TAPER_REGRESSOR_WORK];
@@ -7732,7 +7732,7 @@ void hanging_taper_regressor_with(const hanging_taper_params *P, const double q[
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_regressor_ws with its scratch on this function's stack.
- * Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_regressor(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ], double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA])
 {
     double work[HANGING_TAPER_REGRESSOR_WORK];
@@ -9010,7 +9010,7 @@ double hanging_taper_potential_energy(const double q[HANGING_TAPER_NQ])
 
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_TERMS_WORK), 2499 reals.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
 {
     double *const s = &work[0]; /* 302 */
@@ -9291,7 +9291,7 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
 
 
 /* hanging_taper_terms_with_ws at the arm file's parameters.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
 {
     hanging_taper_terms_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, qd, B, C, G, work);
@@ -9300,7 +9300,7 @@ void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HA
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_terms_with_ws with its scratch on this function's stack.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_terms_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_TERMS_WORK];
@@ -9311,7 +9311,7 @@ void hanging_taper_terms_with(const hanging_taper_params *P, const double q[HANG
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_terms_ws with its scratch on this function's stack.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_terms(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_TERMS_WORK];
@@ -9321,7 +9321,7 @@ void hanging_taper_terms(const double q[HANGING_TAPER_NQ], const double qd[HANGI
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_KINETIC_ENERGY_WORK), 1666 reals.
- * Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 double hanging_taper_kinetic_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[])
 {
     double *const B = &work[0]; /* 64 */
@@ -9341,7 +9341,7 @@ double hanging_taper_kinetic_energy_with_ws(const hanging_taper_params *P, const
 
 
 /* hanging_taper_kinetic_energy_with_ws at the arm file's parameters.
- * Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[])
 {
     return hanging_taper_kinetic_energy_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, qd, work);
@@ -9350,7 +9350,7 @@ double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const d
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_kinetic_energy_with_ws with its scratch on this function's stack.
- * Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 double hanging_taper_kinetic_energy_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_KINETIC_ENERGY_WORK];
@@ -9361,7 +9361,7 @@ double hanging_taper_kinetic_energy_with(const hanging_taper_params *P, const do
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_kinetic_energy_ws with its scratch on this function's stack.
- * Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 double hanging_taper_kinetic_energy(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_KINETIC_ENERGY_WORK];
@@ -9371,7 +9371,7 @@ double hanging_taper_kinetic_energy(const double q[HANGING_TAPER_NQ], const doub
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_CORIOLIS_WORK), 2571 reals.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_coriolis_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     double *const B = &work[0]; /* 64 */
@@ -9381,7 +9381,7 @@ void hanging_taper_coriolis_with_ws(const hanging_taper_params *P, const double 
 
 
 /* hanging_taper_coriolis_with_ws at the arm file's parameters.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[])
 {
     hanging_taper_coriolis_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, qd, C, work);
@@ -9390,7 +9390,7 @@ void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_coriolis_with_ws with its scratch on this function's stack.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_coriolis_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_CORIOLIS_WORK];
@@ -9401,7 +9401,7 @@ void hanging_taper_coriolis_with(const hanging_taper_params *P, const double q[H
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* hanging_taper_coriolis_ws with its scratch on this function's stack.
- * Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
+ * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends). */
 void hanging_taper_coriolis(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ])
 {
     double work[HANGING_TAPER_CORIOLIS_WORK];

@@ -1381,7 +1381,7 @@ def _kernels(plan, nu):
 # R the weight's tail integral, and integration by parts gives
 # F_{s-1,t} = (m_{s+t} + i a F_st) / s with m_k = int_0^1 tau^k R. Run downward it
 # multiplies errors by |a|/s per step, upward by s/|a|. From the top row alone it is
-# within 1.1e-15 of the dot products over the moments for |a| <= 4 up to 29 powers, and
+# within 1.2e-15 of the dot products over the moments for |a| <= 4 up to 29 powers, and
 # that row, read only there, stops where the moments left out can change an entry by at
 # most a quarter unit of double rounding (|nu_n| <= (|a|/2)^n / (2n+1)!!); the moments
 # are computed only that far. Beyond, from both ends' whole rows turning at floor(|a|):
@@ -1428,13 +1428,15 @@ def _family(plan, a, nu):
     imf[size - 1] = top[size:2 * size]
     for s in range(size - 1, split, -1):
         inv = 1.0 / s
-        re[s - 1] = (m[s:s + size] - a * imf[s]) * inv
-        imf[s - 1] = (a * re[s]) * inv
+        ainv = a * inv
+        re[s - 1] = m[s:s + size] * inv - ainv * imf[s]
+        imf[s - 1] = ainv * re[s]
     if split > 0:
         inv = 1.0 / a
         for s in range(1, split + 1):
-            re[s] = s * imf[s - 1] * inv
-            imf[s] = (m[s:s + size] - s * re[s - 1]) * inv
+            kinv = s * inv
+            re[s] = kinv * imf[s - 1]
+            imf[s] = m[s:s + size] * inv - kinv * re[s - 1]
     f = np.concatenate((re.ravel(), imf.ravel()))
     return np.where(im, f[p] - f[q], f[p] + f[q]).tolist()
 
@@ -1693,7 +1695,7 @@ _INERTIA_FAMILY2 = _family_plan(
 def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
 
-    Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -3006,7 +3008,7 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
 def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     return terms(q, qd, **P._asdict())[1]
@@ -5062,7 +5064,7 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
 
-    Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     qd = np.asarray(_vector(qd, NQ, "qd"))
@@ -5654,7 +5656,7 @@ def _actuation_jacobian(q):
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Regressor Y(q, q', q''), NQ x NTHETA: Y theta = B q'' + C q' + G + K q + D q' exactly, for the linear parameters theta (the fields of Params but gravity, in order). Gravity is not in theta: the keyword gravity is read, the other parameters are ignored.
 
-    Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -6036,7 +6038,7 @@ _SHARES_FAMILY2 = _family_plan(
 def _shares(q, qd, P):
     """What terms() and regressor() have in common: the values s that the rest of each reads, at the parameters P (as _params returns them).
 
-    Operations: 8864 add, 11830 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10544 add, 13762 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    Operations: 8864 add, 11338 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10544 add, 13270 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     nu = [0.0] * _NU_LEN
     a = 0.1 * q[0]
@@ -8633,7 +8635,7 @@ def _shares(q, qd, P):
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -9605,7 +9607,7 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 10231 add, 13792 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 15724 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+    Operations: 10231 add, 13300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 15232 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")

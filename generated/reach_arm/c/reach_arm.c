@@ -921,8 +921,7 @@ static void reach_arm_kernels(const unsigned char uses[], int count, const doubl
 
 /* re[i stride] and im[i stride] = kernel row uses[3i] at the moment bases uses[3i + 1]
  * (a segment's real parts) and uses[3i + 2] (its imaginary parts), i < count: most rows
- * are needed at both, and one pass loads each coefficient once for the two. Two
- * partial sums per part keep the multiply-adds independent. */
+ * are needed at both, and one pass loads each coefficient once for the two. */
 static void reach_arm_kernel_reim(const unsigned char uses[], int count, const double nu[], double re[], double im[], int stride)
 {
     int i;
@@ -954,7 +953,7 @@ static void reach_arm_kernel_reim(const unsigned char uses[], int count, const d
  * Run downward it multiplies errors by |a|/s per step, run upward
  * (F_st = (s F_{s-1,t} - m_{s+t}) / (i a)) by s/|a|: each direction is stable on its own
  * side of s = |a|. A segment bent by |a| <= FAST_BENDING runs down from the top row alone
- * (measured within 1.1e-15 of the dot products over the moments, up to 29 powers); the
+ * (measured within 1.2e-15 of the dot products over the moments, up to 29 powers); the
  * top row is then read only at |a| <= 4, so its bands stop where the moments left out can
  * change an entry by at most a quarter unit of this precision's rounding of it
  * (|nu_n| <= (|a|/2)^n / (2n+1)!!), and the moments are computed only that far. Bent
@@ -1003,28 +1002,29 @@ static void reach_arm_kernel_recurrence(int size, double a, int split, const dou
     int s;
     for (s = size - 1; s > split; --s) {
         const double inv = 1.0 / (double)s;
+        const double ainv = a * inv;
         const int hi = s * size;
         const int lo = hi - size;
         int t;
         for (t = 0; t < size; ++t) {
             const double fr = re[hi + t];
             const double fi = im[hi + t];
-            re[lo + t] = (m[s + t] - a * fi) * inv;
-            im[lo + t] = (a * fr) * inv;
+            re[lo + t] = m[s + t] * inv - ainv * fi;
+            im[lo + t] = ainv * fr;
         }
     }
     if (split > 0) {
         const double inv = 1.0 / a;
         for (s = 1; s <= split; ++s) {
-            const double k = (double)s;
+            const double kinv = (double)s * inv;
             const int hi = s * size;
             const int lo = hi - size;
             int t;
             for (t = 0; t < size; ++t) {
                 const double fr = re[lo + t];
                 const double fi = im[lo + t];
-                re[hi + t] = k * fi * inv;
-                im[hi + t] = (m[s + t] - k * fr) * inv;
+                re[hi + t] = kinv * fi;
+                im[hi + t] = m[s + t] * inv - kinv * fr;
             }
         }
     }
@@ -3114,7 +3114,7 @@ static void reach_arm_shares_part17(const double q[], const double kern[], doubl
 
 
 /* What reach_arm_terms_with_ws and reach_arm_regressor_with_ws have in common: the 148 values s[] that the rest of each reads. At the runtime parameters *P. Scratch: work[0 .. 1795).
- * Operations: 6768 add, 8947 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7975 add, 10340 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6768 add, 8555 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7975 add, 9948 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 static void reach_arm_shares(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double s[], double work[])
 {
     double *const nu = &work[0]; /* 128 */
@@ -4611,7 +4611,7 @@ static void reach_arm_inertia_part9(const double kern[], double t[])
 
 
 /* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. REACH_ARM_INERTIA_WORK), 1348 reals.
- * Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     double *const nu = &work[0]; /* 128 */
@@ -4723,7 +4723,7 @@ void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_A
 
 
 /* reach_arm_inertia_with_ws at the arm file's parameters.
- * Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     reach_arm_inertia_with_ws(&REACH_ARM_PARAMS_DEFAULT, q, B, work);
@@ -4732,7 +4732,7 @@ void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * 
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_inertia_with_ws with its scratch on this function's stack.
- * Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_inertia_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_INERTIA_WORK];
@@ -4743,7 +4743,7 @@ void reach_arm_inertia_with(const reach_arm_params *P, const double q[REACH_ARM_
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_inertia_ws with its scratch on this function's stack.
- * Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_inertia(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_INERTIA_WORK];
@@ -5316,7 +5316,7 @@ void reach_arm_tip_jacobian(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM
 
 
 /* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. REACH_ARM_REGRESSOR_WORK), 1943 reals.
- * Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double qdd[REACH_ARM_NQ], double Y[REACH_ARM_NQ * REACH_ARM_NTHETA], double work[])
 {
     double *const s = &work[0]; /* 148 */
@@ -5435,7 +5435,7 @@ void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH
 
 
 /* reach_arm_regressor_with_ws at the arm file's parameters.
- * Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_regressor_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double qdd[REACH_ARM_NQ], double Y[REACH_ARM_NQ * REACH_ARM_NTHETA], double work[])
 {
     reach_arm_regressor_with_ws(&REACH_ARM_PARAMS_DEFAULT, q, qd, qdd, Y, work);
@@ -5444,7 +5444,7 @@ void reach_arm_regressor_ws(const double q[REACH_ARM_NQ], const double qd[REACH_
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_regressor_with_ws with its scratch on this function's stack.
- * Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_regressor_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double qdd[REACH_ARM_NQ], double Y[REACH_ARM_NQ * REACH_ARM_NTHETA])
 {
     double work[REACH_ARM_REGRESSOR_WORK];
@@ -5455,7 +5455,7 @@ void reach_arm_regressor_with(const reach_arm_params *P, const double q[REACH_AR
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_regressor_ws with its scratch on this function's stack.
- * Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_regressor(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double qdd[REACH_ARM_NQ], double Y[REACH_ARM_NQ * REACH_ARM_NTHETA])
 {
     double work[REACH_ARM_REGRESSOR_WORK];
@@ -6380,7 +6380,7 @@ double reach_arm_potential_energy(const double q[REACH_ARM_NQ])
 
 
 /* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. REACH_ARM_TERMS_WORK), 1943 reals.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[])
 {
     double *const s = &work[0]; /* 148 */
@@ -6515,7 +6515,7 @@ void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM
 
 
 /* reach_arm_terms_with_ws at the arm file's parameters.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[])
 {
     reach_arm_terms_with_ws(&REACH_ARM_PARAMS_DEFAULT, q, qd, B, C, G, work);
@@ -6524,7 +6524,7 @@ void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_terms_with_ws with its scratch on this function's stack.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_terms_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double G[REACH_ARM_NQ])
 {
     double work[REACH_ARM_TERMS_WORK];
@@ -6535,7 +6535,7 @@ void reach_arm_terms_with(const reach_arm_params *P, const double q[REACH_ARM_NQ
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_terms_ws with its scratch on this function's stack.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_terms(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double G[REACH_ARM_NQ])
 {
     double work[REACH_ARM_TERMS_WORK];
@@ -6545,7 +6545,7 @@ void reach_arm_terms(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ]
 
 
 /* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. REACH_ARM_KINETIC_ENERGY_WORK), 1384 reals.
- * Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 double reach_arm_kinetic_energy_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[])
 {
     double *const B = &work[0]; /* 36 */
@@ -6565,7 +6565,7 @@ double reach_arm_kinetic_energy_with_ws(const reach_arm_params *P, const double 
 
 
 /* reach_arm_kinetic_energy_with_ws at the arm file's parameters.
- * Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[])
 {
     return reach_arm_kinetic_energy_with_ws(&REACH_ARM_PARAMS_DEFAULT, q, qd, work);
@@ -6574,7 +6574,7 @@ double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_kinetic_energy_with_ws with its scratch on this function's stack.
- * Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 double reach_arm_kinetic_energy_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ])
 {
     double work[REACH_ARM_KINETIC_ENERGY_WORK];
@@ -6585,7 +6585,7 @@ double reach_arm_kinetic_energy_with(const reach_arm_params *P, const double q[R
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_kinetic_energy_ws with its scratch on this function's stack.
- * Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 double reach_arm_kinetic_energy(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ])
 {
     double work[REACH_ARM_KINETIC_ENERGY_WORK];
@@ -6595,7 +6595,7 @@ double reach_arm_kinetic_energy(const double q[REACH_ARM_NQ], const double qd[RE
 
 
 /* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. REACH_ARM_CORIOLIS_WORK), 1985 reals.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_coriolis_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     double *const B = &work[0]; /* 36 */
@@ -6605,7 +6605,7 @@ void reach_arm_coriolis_with_ws(const reach_arm_params *P, const double q[REACH_
 
 
 /* reach_arm_coriolis_with_ws at the arm file's parameters.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[])
 {
     reach_arm_coriolis_with_ws(&REACH_ARM_PARAMS_DEFAULT, q, qd, C, work);
@@ -6614,7 +6614,7 @@ void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_A
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_coriolis_with_ws with its scratch on this function's stack.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_coriolis_with(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_CORIOLIS_WORK];
@@ -6625,7 +6625,7 @@ void reach_arm_coriolis_with(const reach_arm_params *P, const double q[REACH_ARM
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* reach_arm_coriolis_ws with its scratch on this function's stack.
- * Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
+ * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends). */
 void reach_arm_coriolis(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ])
 {
     double work[REACH_ARM_CORIOLIS_WORK];

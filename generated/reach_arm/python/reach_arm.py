@@ -677,7 +677,7 @@ def _kernels(plan, nu):
 # R the weight's tail integral, and integration by parts gives
 # F_{s-1,t} = (m_{s+t} + i a F_st) / s with m_k = int_0^1 tau^k R. Run downward it
 # multiplies errors by |a|/s per step, upward by s/|a|. From the top row alone it is
-# within 1.1e-15 of the dot products over the moments for |a| <= 4 up to 29 powers, and
+# within 1.2e-15 of the dot products over the moments for |a| <= 4 up to 29 powers, and
 # that row, read only there, stops where the moments left out can change an entry by at
 # most a quarter unit of double rounding (|nu_n| <= (|a|/2)^n / (2n+1)!!); the moments
 # are computed only that far. Beyond, from both ends' whole rows turning at floor(|a|):
@@ -720,13 +720,15 @@ def _family(plan, a, nu):
     imf[size - 1] = top[size:2 * size]
     for s in range(size - 1, split, -1):
         inv = 1.0 / s
-        re[s - 1] = (m[s:s + size] - a * imf[s]) * inv
-        imf[s - 1] = (a * re[s]) * inv
+        ainv = a * inv
+        re[s - 1] = m[s:s + size] * inv - ainv * imf[s]
+        imf[s - 1] = ainv * re[s]
     if split > 0:
         inv = 1.0 / a
         for s in range(1, split + 1):
-            re[s] = s * imf[s - 1] * inv
-            imf[s] = (m[s:s + size] - s * re[s - 1]) * inv
+            kinv = s * inv
+            re[s] = kinv * imf[s - 1]
+            imf[s] = m[s:s + size] * inv - kinv * re[s - 1]
     f = np.concatenate((re.ravel(), imf.ravel()))
     return np.where(im, f[p] - f[q], f[p] + f[q]).tolist()
 
@@ -952,7 +954,7 @@ _INERTIA_FAMILY1 = _family_plan(
 def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
 
-    Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -2023,7 +2025,7 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
 def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     return terms(q, qd, **P._asdict())[1]
@@ -2741,7 +2743,7 @@ def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
 
-    Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     qd = np.asarray(_vector(qd, NQ, "qd"))
@@ -3410,7 +3412,7 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Regressor Y(q, q', q''), NQ x NTHETA: Y theta = B q'' + C q' + G + K q + D q' exactly, for the linear parameters theta (the fields of Params but gravity, in order). Gravity is not in theta: the keyword gravity is read, the other parameters are ignored.
 
-    Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -3648,7 +3650,7 @@ _SHARES_FAMILY1 = _family_plan(
 def _shares(q, qd, P):
     """What terms() and regressor() have in common: the values s that the rest of each reads, at the parameters P (as _params returns them).
 
-    Operations: 6768 add, 8947 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7975 add, 10340 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 6768 add, 8555 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7975 add, 9948 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
     """
     nu = [0.0] * _NU_LEN
     a = 0.12 * q[0]
@@ -5586,7 +5588,7 @@ def _shares(q, qd, P):
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -6145,7 +6147,7 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 6998 add, 9243 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8205 add, 10636 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
+    Operations: 6998 add, 8851 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8205 add, 10244 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")

@@ -311,8 +311,7 @@ static void twin_tendon_kernels(const unsigned char uses[], int count, const dou
 
 /* re[i stride] and im[i stride] = kernel row uses[3i] at the moment bases uses[3i + 1]
  * (a segment's real parts) and uses[3i + 2] (its imaginary parts), i < count: most rows
- * are needed at both, and one pass loads each coefficient once for the two. Two
- * partial sums per part keep the multiply-adds independent. */
+ * are needed at both, and one pass loads each coefficient once for the two. */
 static void twin_tendon_kernel_reim(const unsigned char uses[], int count, const double nu[], double re[], double im[], int stride)
 {
     int i;

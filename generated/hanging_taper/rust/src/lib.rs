@@ -4866,7 +4866,7 @@ fn kernels(uses: &[u16], nu: &[Real], kern: &mut [Real]) {
 }
 /// Kernel row `t[0]` at the moment bases `t[1]` (a segment's real parts) and `t[2]` (its
 /// imaginary parts): most rows are needed at both, and one pass loads each coefficient
-/// once for the two. Two partial sums per part keep the multiply-adds independent.
+/// once for the two.
 #[inline]
 fn kernel_reim(t: &[u16], nu: &[Real]) -> (Real, Real) {
     let r = t[0] as usize;
@@ -4913,7 +4913,7 @@ fn kernels_reim_apart(uses: &[u16], nu: &[Real], re: &mut [Real], im: &mut [Real
 /// with `m_k = ∫_0^1 τ^k Ρ`. Run downward it multiplies errors by `|a|/s` per step, run
 /// upward (`F_st = (s F_{s−1,t} − m_{s+t}) / (ia)`) by `s/|a|`: each direction is stable
 /// on its own side of `s = |a|`. Up to `FAST_BENDING` the top row alone serves
-/// (measured within 1.1e-15 of the dot products over the moments, up to 29 powers), and
+/// (measured within 1.2e-15 of the dot products over the moments, up to 29 powers), and
 /// since it is then read only at `|a| ≤ 4` its bands stop where the moments left out can
 /// change an entry by at most a quarter unit of this precision's rounding
 /// (`|ν_n| ≤ (|a|/2)ⁿ/(2n+1)!!`), and the moments are computed only that far. Beyond,
@@ -5105,26 +5105,27 @@ fn kernel_recurrence(size: usize, a: Real, split: usize, m: &[Real], f: &mut [Re
     let (re, im) = f.split_at_mut(size * size);
     for s in (split + 1..size).rev() {
         let inv = 1.0 / s as Real;
+        let ainv = a * inv;
         let (lo, hi) = ((s - 1) * size, s * size);
         let (re_lo, re_hi) = re[lo..hi + size].split_at_mut(size);
         let (im_lo, im_hi) = im[lo..hi + size].split_at_mut(size);
         let mk = &m[s..s + size];
         for t in 0..size {
-            re_lo[t] = (mk[t] - a * im_hi[t]) * inv;
-            im_lo[t] = (a * re_hi[t]) * inv;
+            re_lo[t] = mk[t] * inv - ainv * im_hi[t];
+            im_lo[t] = ainv * re_hi[t];
         }
     }
     if split > 0 {
         let inv = 1.0 / a;
         for s in 1..=split {
-            let k = s as Real;
+            let kinv = s as Real * inv;
             let (lo, hi) = ((s - 1) * size, s * size);
             let (re_lo, re_hi) = re[lo..hi + size].split_at_mut(size);
             let (im_lo, im_hi) = im[lo..hi + size].split_at_mut(size);
             let mk = &m[s..s + size];
             for t in 0..size {
-                re_hi[t] = k * im_lo[t] * inv;
-                im_hi[t] = (mk[t] - k * re_lo[t]) * inv;
+                re_hi[t] = kinv * im_lo[t];
+                im_hi[t] = mk[t] * inv - kinv * re_lo[t];
             }
         }
     }
@@ -5391,7 +5392,7 @@ static SHARES_PAIRS2: [u16; 286] = [
 ];
 /// What [`terms`] and [`regressor`] have in common: the 302 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 2198 reals).
 ///
-/// Operations: 8864 add, 11830 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10544 add, 13762 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 8864 add, 11338 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10544 add, 13270 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn shares_in(
     p: &Params,
     q: &[Real; NQ],
@@ -8500,7 +8501,7 @@ static INERTIA_PAIRS2: [u16; 200] = [
 ];
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1607 reals).
 ///
-/// Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(698);
@@ -10087,25 +10088,25 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
 }
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut [0.0; 1607])
 }
 /// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1607 reals); the same values.
 ///
-/// Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
-/// Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut [0.0; 1607])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 5659 add, 7650 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 9303 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -12234,7 +12235,7 @@ pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) 
 }
 /// The work of [`terms`] and [`terms_ws`], in `work` (at least 2500 reals).
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn terms_in(
     p: &Params,
     q: &[Real; NQ],
@@ -12526,7 +12527,7 @@ fn terms_in(
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -12535,7 +12536,7 @@ pub fn terms(
 }
 /// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (2500 reals); the same values.
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn terms_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -12545,7 +12546,7 @@ pub fn terms_ws(
 }
 /// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn terms_with(
     p: &Params,
     q: &[Real; NQ],
@@ -12555,7 +12556,7 @@ pub fn terms_with(
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn terms_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -12566,7 +12567,7 @@ pub fn terms_with_ws(
 }
 /// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 2500 reals).
 ///
-/// Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn regressor_in(
     p: &Params,
     q: &[Real; NQ],
@@ -12821,7 +12822,7 @@ fn regressor_in(
 }
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn regressor(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -12831,7 +12832,7 @@ pub fn regressor(
 }
 /// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (2500 reals); the same values.
 ///
-/// Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn regressor_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -12842,7 +12843,7 @@ pub fn regressor_ws(
 }
 /// [`regressor`] at the runtime parameters `p`.
 ///
-/// Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn regressor_with(
     p: &Params,
     q: &[Real; NQ],
@@ -12853,7 +12854,7 @@ pub fn regressor_with(
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 9386 add, 12410 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 14342 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn regressor_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -12865,7 +12866,7 @@ pub fn regressor_with_ws(
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 2500 reals).
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn coriolis_in(
     p: &Params,
     q: &[Real; NQ],
@@ -12876,13 +12877,13 @@ fn coriolis_in(
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 2500])
 }
 /// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (2500 reals); the same values.
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -12892,13 +12893,13 @@ pub fn coriolis_ws(
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut [0.0; 2500])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 9160 add, 12217 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 14149 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -12909,7 +12910,7 @@ pub fn coriolis_with_ws(
 }
 /// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1607 reals).
 ///
-/// Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn kinetic_energy_in(
     p: &Params,
     q: &[Real; NQ],
@@ -12929,25 +12930,25 @@ fn kinetic_energy_in(
 }
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1607])
 }
 /// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1607 reals); the same values.
 ///
-/// Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
-/// Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(p, q, qd, &mut [0.0; 1607])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 5723 add, 7723 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 9376 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+/// Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -14500,7 +14501,7 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 10231 add, 13792 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 15724 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+/// Operations: 10231 add, 13300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 15232 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
 pub fn forward_dynamics(
     q: &[Real; NQ],
     qd: &[Real; NQ],

@@ -2442,7 +2442,7 @@ fn kernels(uses: &[u8], nu: &[Real], kern: &mut [Real]) {
 }
 /// Kernel row `t[0]` at the moment bases `t[1]` (a segment's real parts) and `t[2]` (its
 /// imaginary parts): most rows are needed at both, and one pass loads each coefficient
-/// once for the two. Two partial sums per part keep the multiply-adds independent.
+/// once for the two.
 #[inline]
 fn kernel_reim(t: &[u8], nu: &[Real]) -> (Real, Real) {
     let r = t[0] as usize;
@@ -2489,7 +2489,7 @@ fn kernels_reim_apart(uses: &[u8], nu: &[Real], re: &mut [Real], im: &mut [Real]
 /// with `m_k = ∫_0^1 τ^k Ρ`. Run downward it multiplies errors by `|a|/s` per step, run
 /// upward (`F_st = (s F_{s−1,t} − m_{s+t}) / (ia)`) by `s/|a|`: each direction is stable
 /// on its own side of `s = |a|`. Up to `FAST_BENDING` the top row alone serves
-/// (measured within 1.1e-15 of the dot products over the moments, up to 29 powers), and
+/// (measured within 1.2e-15 of the dot products over the moments, up to 29 powers), and
 /// since it is then read only at `|a| ≤ 4` its bands stop where the moments left out can
 /// change an entry by at most a quarter unit of this precision's rounding
 /// (`|ν_n| ≤ (|a|/2)ⁿ/(2n+1)!!`), and the moments are computed only that far. Beyond,
@@ -2573,26 +2573,27 @@ fn kernel_recurrence(size: usize, a: Real, split: usize, m: &[Real], f: &mut [Re
     let (re, im) = f.split_at_mut(size * size);
     for s in (split + 1..size).rev() {
         let inv = 1.0 / s as Real;
+        let ainv = a * inv;
         let (lo, hi) = ((s - 1) * size, s * size);
         let (re_lo, re_hi) = re[lo..hi + size].split_at_mut(size);
         let (im_lo, im_hi) = im[lo..hi + size].split_at_mut(size);
         let mk = &m[s..s + size];
         for t in 0..size {
-            re_lo[t] = (mk[t] - a * im_hi[t]) * inv;
-            im_lo[t] = (a * re_hi[t]) * inv;
+            re_lo[t] = mk[t] * inv - ainv * im_hi[t];
+            im_lo[t] = ainv * re_hi[t];
         }
     }
     if split > 0 {
         let inv = 1.0 / a;
         for s in 1..=split {
-            let k = s as Real;
+            let kinv = s as Real * inv;
             let (lo, hi) = ((s - 1) * size, s * size);
             let (re_lo, re_hi) = re[lo..hi + size].split_at_mut(size);
             let (im_lo, im_hi) = im[lo..hi + size].split_at_mut(size);
             let mk = &m[s..s + size];
             for t in 0..size {
-                re_hi[t] = k * im_lo[t] * inv;
-                im_hi[t] = (mk[t] - k * re_lo[t]) * inv;
+                re_hi[t] = kinv * im_lo[t];
+                im_hi[t] = mk[t] * inv - kinv * re_lo[t];
             }
         }
     }
@@ -2825,7 +2826,7 @@ static SHARES_PAIRS1: [u16; 632] = [
 ];
 /// What [`terms`] and [`regressor`] have in common: the 148 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 1813 reals).
 ///
-/// Operations: 6768 add, 8947 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7975 add, 10340 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6768 add, 8555 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7975 add, 9948 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn shares_in(
     p: &Params,
     q: &[Real; NQ],
@@ -5152,7 +5153,7 @@ static INERTIA_PAIRS1: [u16; 524] = [
 ];
 /// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1360 reals).
 ///
-/// Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(556);
@@ -6413,25 +6414,25 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
 }
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut [0.0; 1360])
 }
 /// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1360 reals); the same values.
 ///
-/// Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
-/// Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut [0.0; 1360])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 4440 add, 5968 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 7155 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -7877,7 +7878,7 @@ pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) 
 }
 /// The work of [`terms`] and [`terms_ws`], in `work` (at least 1961 reals).
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn terms_in(
     p: &Params,
     q: &[Real; NQ],
@@ -8021,7 +8022,7 @@ fn terms_in(
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -8030,7 +8031,7 @@ pub fn terms(
 }
 /// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (1961 reals); the same values.
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn terms_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -8040,7 +8041,7 @@ pub fn terms_ws(
 }
 /// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn terms_with(
     p: &Params,
     q: &[Real; NQ],
@@ -8050,7 +8051,7 @@ pub fn terms_with(
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn terms_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -8061,7 +8062,7 @@ pub fn terms_with_ws(
 }
 /// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 1961 reals).
 ///
-/// Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn regressor_in(
     p: &Params,
     q: &[Real; NQ],
@@ -8192,7 +8193,7 @@ fn regressor_in(
 }
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn regressor(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -8202,7 +8203,7 @@ pub fn regressor(
 }
 /// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (1961 reals); the same values.
 ///
-/// Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn regressor_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -8213,7 +8214,7 @@ pub fn regressor_ws(
 }
 /// [`regressor`] at the runtime parameters `p`.
 ///
-/// Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn regressor_with(
     p: &Params,
     q: &[Real; NQ],
@@ -8224,7 +8225,7 @@ pub fn regressor_with(
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 7020 add, 9239 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10632 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn regressor_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -8236,7 +8237,7 @@ pub fn regressor_with_ws(
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 1961 reals).
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn coriolis_in(
     p: &Params,
     q: &[Real; NQ],
@@ -8247,13 +8248,13 @@ fn coriolis_in(
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 1961])
 }
 /// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (1961 reals); the same values.
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -8263,13 +8264,13 @@ pub fn coriolis_ws(
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut [0.0; 1961])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 6903 add, 9134 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10527 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -8280,7 +8281,7 @@ pub fn coriolis_with_ws(
 }
 /// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1360 reals).
 ///
-/// Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn kinetic_energy_in(
     p: &Params,
     q: &[Real; NQ],
@@ -8300,25 +8301,25 @@ fn kinetic_energy_in(
 }
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1360])
 }
 /// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1360 reals); the same values.
 ///
-/// Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
-/// Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
     kinetic_energy_in(p, q, qd, &mut [0.0; 1360])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 4476 add, 6011 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 7198 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -8891,7 +8892,7 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 6998 add, 9243 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8205 add, 10636 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
+/// Operations: 6998 add, 8851 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8205 add, 10244 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn forward_dynamics(
     q: &[Real; NQ],
     qd: &[Real; NQ],

@@ -408,7 +408,7 @@ fn kernels(uses: &[u8], nu: &[Real], kern: &mut [Real]) {
 }
 /// Kernel row `t[0]` at the moment bases `t[1]` (a segment's real parts) and `t[2]` (its
 /// imaginary parts): most rows are needed at both, and one pass loads each coefficient
-/// once for the two. Two partial sums per part keep the multiply-adds independent.
+/// once for the two.
 #[inline]
 fn kernel_reim(t: &[u8], nu: &[Real]) -> (Real, Real) {
     let r = t[0] as usize;
