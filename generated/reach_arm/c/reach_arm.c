@@ -921,7 +921,8 @@ static void reach_arm_kernels(const unsigned char uses[], int count, const doubl
 
 /* re[i stride] and im[i stride] = kernel row uses[3i] at the moment bases uses[3i + 1]
  * (a segment's real parts) and uses[3i + 2] (its imaginary parts), i < count: most rows
- * are needed at both, and one pass loads each coefficient once for the two. */
+ * are needed at both, and one pass loads each coefficient once for the two. No row is
+ * empty, so the pass tests its end once per coefficient, after it. */
 static void reach_arm_kernel_reim(const unsigned char uses[], int count, const double nu[], double re[], double im[], int stride)
 {
     int i;
@@ -931,14 +932,13 @@ static void reach_arm_kernel_reim(const unsigned char uses[], int count, const d
         const double *x = &nu[(int)uses[3 * i + 1] + first];
         const double *y = &nu[(int)uses[3 * i + 2] + first];
         const double *c = &reach_arm_kernel_coef[reach_arm_kernel_start[r]];
-        const int len = (int)reach_arm_kernel_start[r + 1] - (int)reach_arm_kernel_start[r];
+        const double *const end = &reach_arm_kernel_coef[reach_arm_kernel_start[r + 1]];
         double a = 0.0;
         double b = 0.0;
-        int p;
-        for (p = 0; p < len; ++p) {
-            a += c[p] * x[p];
-            b += c[p] * y[p];
-        }
+        do {
+            a += *c * *x++;
+            b += *c++ * *y++;
+        } while (c != end);
         re[i * stride] = a;
         im[i * stride] = b;
     }

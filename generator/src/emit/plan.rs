@@ -594,6 +594,10 @@ impl Plan {
         funcs.extend(regressor.as_mut());
         funcs.extend(pose.iter_mut());
         let table = compact_table(&sched.table, &mut funcs);
+        // The emitted row loops test their end after each coefficient.
+        if table.rows.iter().any(Vec::is_empty) {
+            return Err("internal error: an empty kernel row in the table".into());
+        }
         let moment_max = layout
             .count
             .iter()
