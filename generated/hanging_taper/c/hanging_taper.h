@@ -156,7 +156,7 @@ hanging_taper_status hanging_taper_check_range(const double q[HANGING_TAPER_NQ])
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 5659 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7078 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 5534 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6953 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -165,7 +165,7 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 8965 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10645 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_coriolis_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -224,7 +224,7 @@ void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 9160 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10840 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 8965 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10645 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
     double G[HANGING_TAPER_NQ], double work[]);
@@ -233,7 +233,7 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 5723 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7142 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 5598 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7017 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
 double hanging_taper_kinetic_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
@@ -258,7 +258,7 @@ double hanging_taper_potential_energy_with_ws(const hanging_taper_params *P, con
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 9386 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11066 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 9191 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10871 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_regressor_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ],
     double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA], double work[]);
@@ -275,7 +275,7 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 10231 add, 13300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11911 add, 15232 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+ * Operations: 10036 add, 13300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11716 add, 15232 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
  */
 hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
     double qdd[HANGING_TAPER_NQ], double work[]);
@@ -409,23 +409,23 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
  * function's frame and worst case with everything it calls (`--limit` fails above a
  * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
-#define HANGING_TAPER_INERTIA_WORK 1602 /* 12816 bytes */
+#define HANGING_TAPER_INERTIA_WORK 1477 /* 11816 bytes */
 #define HANGING_TAPER_GRAVITY_WORK 429 /* 3432 bytes */
 #define HANGING_TAPER_ACTUATION_WORK 311 /* 2488 bytes */
 #define HANGING_TAPER_TIP_JACOBIAN_WORK 311 /* 2488 bytes */
-#define HANGING_TAPER_REGRESSOR_WORK 2499 /* 19992 bytes */
+#define HANGING_TAPER_REGRESSOR_WORK 2304 /* 18432 bytes */
 #define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 633 /* 5064 bytes */
 #define HANGING_TAPER_POTENTIAL_ENERGY_WORK 326 /* 2608 bytes */
-#define HANGING_TAPER_TERMS_WORK 2499 /* 19992 bytes */
-#define HANGING_TAPER_KINETIC_ENERGY_WORK 1666 /* 13328 bytes */
-#define HANGING_TAPER_CORIOLIS_WORK 2571 /* 20568 bytes */
+#define HANGING_TAPER_TERMS_WORK 2304 /* 18432 bytes */
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1541 /* 12328 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 2376 /* 19008 bytes */
 #define HANGING_TAPER_POSE_WORK 267 /* 2136 bytes */
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2831 /* 22648 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2636 /* 21088 bytes */
 #define HANGING_TAPER_STATIC_RESIDUAL_WORK 517 /* 4136 bytes */
 #define HANGING_TAPER_STATIC_JACOBIAN_WORK 889 /* 7112 bytes */
 #define HANGING_TAPER_EQUILIBRIUM_WORK 1097 /* 8776 bytes */
 #define HANGING_TAPER_REGULATE_WORK 582 /* 4656 bytes */
-#define HANGING_TAPER_WORK_LEN 2831 /* 22648 bytes */
+#define HANGING_TAPER_WORK_LEN 2636 /* 21088 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

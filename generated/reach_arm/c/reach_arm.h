@@ -156,7 +156,7 @@ reach_arm_status reach_arm_check_range(const double q[REACH_ARM_NQ]);
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 4440 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5453 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 4330 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5343 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -165,7 +165,7 @@ void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_A
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6747 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7954 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 void reach_arm_coriolis_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -223,7 +223,7 @@ void reach_arm_tip_jacobian_ws(const double q[REACH_ARM_NQ], double J[3 * REACH_
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 6903 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8110 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6747 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7954 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
     double G[REACH_ARM_NQ], double work[]);
@@ -232,7 +232,7 @@ void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 4476 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5489 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 4366 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5379 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
 double reach_arm_kinetic_energy_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
@@ -257,7 +257,7 @@ double reach_arm_potential_energy_with_ws(const reach_arm_params *P, const doubl
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 7020 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8227 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6864 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8071 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_regressor_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double qdd[REACH_ARM_NQ],
     double Y[REACH_ARM_NQ * REACH_ARM_NTHETA], double work[]);
@@ -274,7 +274,7 @@ void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 6998 add, 8851 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8205 add, 10244 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6842 add, 8851 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8049 add, 10244 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
  */
 reach_arm_status reach_arm_forward_dynamics_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
     double qdd[REACH_ARM_NQ], double work[]);
@@ -407,23 +407,23 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
  * function's frame and worst case with everything it calls (`--limit` fails above a
  * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
-#define REACH_ARM_INERTIA_WORK 1348 /* 10784 bytes */
+#define REACH_ARM_INERTIA_WORK 1238 /* 9904 bytes */
 #define REACH_ARM_GRAVITY_WORK 310 /* 2480 bytes */
 #define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
 #define REACH_ARM_TIP_JACOBIAN_WORK 186 /* 1488 bytes */
-#define REACH_ARM_REGRESSOR_WORK 1943 /* 15544 bytes */
+#define REACH_ARM_REGRESSOR_WORK 1787 /* 14296 bytes */
 #define REACH_ARM_GRAVITY_JACOBIAN_WORK 455 /* 3640 bytes */
 #define REACH_ARM_POTENTIAL_ENERGY_WORK 256 /* 2048 bytes */
-#define REACH_ARM_TERMS_WORK 1943 /* 15544 bytes */
-#define REACH_ARM_KINETIC_ENERGY_WORK 1384 /* 11072 bytes */
-#define REACH_ARM_CORIOLIS_WORK 1985 /* 15880 bytes */
+#define REACH_ARM_TERMS_WORK 1787 /* 14296 bytes */
+#define REACH_ARM_KINETIC_ENERGY_WORK 1274 /* 10192 bytes */
+#define REACH_ARM_CORIOLIS_WORK 1829 /* 14632 bytes */
 #define REACH_ARM_POSE_WORK 212 /* 1696 bytes */
-#define REACH_ARM_FORWARD_DYNAMICS_WORK 2144 /* 17152 bytes */
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 1988 /* 15904 bytes */
 #define REACH_ARM_STATIC_RESIDUAL_WORK 370 /* 2960 bytes */
 #define REACH_ARM_STATIC_JACOBIAN_WORK 491 /* 3928 bytes */
 #define REACH_ARM_EQUILIBRIUM_WORK 629 /* 5032 bytes */
 #define REACH_ARM_REGULATE_WORK 442 /* 3536 bytes */
-#define REACH_ARM_WORK_LEN 2144 /* 17152 bytes */
+#define REACH_ARM_WORK_LEN 1988 /* 15904 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

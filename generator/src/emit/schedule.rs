@@ -217,7 +217,7 @@ pub struct Stmt {
 pub type KernelRow = Vec<(usize, Q)>;
 
 /// One evaluation of a kernel row: the row and the moment base it reads.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
 pub struct KernelUse {
     pub row: usize,
     pub base: usize,
@@ -576,6 +576,20 @@ impl<'p> Scheduler<'p> {
             };
             (o.0, len, o.1)
         });
+        // One kern[] slot per distinct use: kernel roots that are constant multiples of
+        // one double-kernel part read the same use, each with its own factor.
+        let mut first_of: BTreeMap<KernelUse, usize> = BTreeMap::new();
+        let mut aliases: Vec<(usize, usize)> = Vec::new();
+        rows.retain(|((_, i, _), u)| match first_of.entry(*u) {
+            std::collections::btree_map::Entry::Vacant(v) => {
+                v.insert(*i);
+                true
+            }
+            std::collections::btree_map::Entry::Occupied(o) => {
+                aliases.push((*i, *o.get()));
+                false
+            }
+        });
         let plain = rows.iter().take_while(|(o, _)| o.0.is_none()).count();
         let rest = rows.split_off(plain);
         let (reim, mut rows) = self.pair_parts(rows);
@@ -587,6 +601,10 @@ impl<'p> Scheduler<'p> {
             st.kernel_pos.insert(i, st.kernels.len());
             st.kernels.push(u);
             matrix.push(m);
+        }
+        for (i, first) in aliases {
+            let k = st.kernel_pos[&first];
+            st.kernel_pos.insert(i, k);
         }
         for i in 0..n {
             let is_op = matches!(nodes[i], Node::Add(..) | Node::Mul(..) | Node::Neg(..));
@@ -809,5 +827,43 @@ mod tests {
             }
         }
         assert!(pairs > 10, "too few pairs to mean anything: {pairs}");
+    }
+
+    /// A kernel is evaluated once per function however many constant multiples of it
+    /// the code reads: no two dot-product uses and no two double-kernel entries of a
+    /// function are the same.
+    #[test]
+    fn every_kernel_is_evaluated_once_per_function() {
+        let arm = crate::arm::parse_arm_str(
+            "name = \"once\"\nexpansion_order = 4\ngravity = [0.0, -9.81]\n\
+             [[segment]]\nlength = 0.12\ncurvature_degree = 2\ndensity = 0.3\n\
+             bending_stiffness = 0.012\n\
+             [[segment]]\nlength = 0.1\ncurvature_degree = 1\ndensity = [0.25, -0.1]\n\
+             bending_stiffness = 0.008\n\
+             [[actuator]]\nkind = \"moment\"\nsegment = 2\n",
+            "once.toml",
+        )
+        .unwrap();
+        let plan = Plan::new(&crate::derive::derive_emitted(&arm), true, Precision::F64).unwrap();
+        let mut entries = 0;
+        for f in plan.funcs() {
+            let mut seen = std::collections::BTreeSet::new();
+            for u in f.dot_uses() {
+                assert!(seen.insert((u.row, u.base)), "{u:?} evaluated twice");
+            }
+            for fam in &f.families {
+                let mut seen = std::collections::BTreeSet::new();
+                for (k, e) in fam.entries.iter().enumerate() {
+                    let part = k >= fam.sums;
+                    assert!(
+                        seen.insert((part, e.first, e.second)),
+                        "segment {}: entry {k} repeats an earlier one",
+                        fam.seg
+                    );
+                }
+                entries += fam.entries.len();
+            }
+        }
+        assert!(entries > 100, "too few entries to mean anything: {entries}");
     }
 }
