@@ -156,7 +156,7 @@ hanging_taper_status hanging_taper_check_range(const double q[HANGING_TAPER_NQ])
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 5534 add, 7231 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6953 add, 8884 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 5474 add, 7185 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6893 add, 8838 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_inertia_ws(const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -165,14 +165,14 @@ void hanging_taper_inertia_with_ws(const hanging_taper_params *P, const double q
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 8965 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10645 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_coriolis_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_coriolis_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1899 add, 2579 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
 void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[]);
@@ -193,7 +193,7 @@ void hanging_taper_damping_with(const hanging_taper_params *P, double D[HANGING_
 
 /**
  * Actuation matrix A(q), n x k: generalized force A u of the inputs u.
- * Operations: 899 add, 1385 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 871 add, 1365 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_actuation_ws(const double q[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU], double work[]);
 
@@ -214,7 +214,7 @@ void hanging_taper_pose_ws(const double q[HANGING_TAPER_NQ], int segment, double
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 899 add, 1385 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 871 add, 1365 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 * HANGING_TAPER_NQ], double work[]);
 
@@ -224,7 +224,7 @@ void hanging_taper_tip_jacobian_ws(const double q[HANGING_TAPER_NQ], double J[3 
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 8965 add, 11725 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10645 add, 13657 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_terms_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double B[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double C[HANGING_TAPER_NQ * HANGING_TAPER_NQ],
     double G[HANGING_TAPER_NQ], double work[]);
@@ -233,7 +233,7 @@ void hanging_taper_terms_with_ws(const hanging_taper_params *P, const double q[H
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 5598 add, 7304 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7017 add, 8957 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 5538 add, 7258 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6957 add, 8911 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 double hanging_taper_kinetic_energy_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
 double hanging_taper_kinetic_energy_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], double work[]);
@@ -258,7 +258,7 @@ double hanging_taper_potential_energy_with_ws(const hanging_taper_params *P, con
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 9191 add, 11918 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10871 add, 13850 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+ * Operations: 8975 add, 11754 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10655 add, 13686 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
  */
 void hanging_taper_regressor_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double qdd[HANGING_TAPER_NQ],
     double Y[HANGING_TAPER_NQ * HANGING_TAPER_NTHETA], double work[]);
@@ -275,7 +275,7 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 10036 add, 13300 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11716 add, 15232 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+ * Operations: 9792 add, 13116 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11472 add, 15048 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
  */
 hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
     double qdd[HANGING_TAPER_NQ], double work[]);
@@ -284,7 +284,7 @@ hanging_taper_status hanging_taper_forward_dynamics_with_ws(const hanging_taper_
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 3015 add, 4046 mul, 6 div, 0 sqrt, 10 trig.
+ * Operations: 2651 add, 3746 mul, 6 div, 0 sqrt, 10 trig.
  */
 void hanging_taper_gravity_jacobian_ws(const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double dG[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -293,7 +293,7 @@ void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns HANGING_TAPER_OK, HANGING_TAPER_ERR_NONFINITE_INPUT (R is then NaN) or
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations: 2886 add, 4052 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 2786 add, 3976 mul, 12 div, 0 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_static_residual_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
 hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
@@ -303,7 +303,7 @@ hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_p
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * hanging_taper_static_residual.
- * Operations: 4631 add, 6236 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 4117 add, 5818 mul, 12 div, 0 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_static_jacobian_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
 hanging_taper_status hanging_taper_static_jacobian_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double J[HANGING_TAPER_NQ * HANGING_TAPER_NQ], double work[]);
@@ -349,8 +349,8 @@ typedef struct {
  * Returns HANGING_TAPER_OK; HANGING_TAPER_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 7872 add, 10620 mul, 60 div, 4 sqrt, 40 trig.
- * Per backtracking trial: 2937 add, 4093 mul, 12 div, 4 sqrt, 20 trig.
+ * Operations per Newton iteration, at most: 7258 add, 10126 mul, 60 div, 4 sqrt, 40 trig.
+ * Per backtracking trial: 2837 add, 4017 mul, 12 div, 4 sqrt, 20 trig.
  */
 hanging_taper_status hanging_taper_equilibrium_ws(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
     double work[]);
@@ -388,7 +388,7 @@ typedef enum hanging_taper_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 2946 add, 4119 mul, 13 div, 0 sqrt, 20 trig.
+ * Operations before the allocation, at most: 2846 add, 4043 mul, 13 div, 0 sqrt, 20 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
 hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
@@ -409,23 +409,23 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
  * function's frame and worst case with everything it calls (`--limit` fails above a
  * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
-#define HANGING_TAPER_INERTIA_WORK 1477 /* 11816 bytes */
-#define HANGING_TAPER_GRAVITY_WORK 429 /* 3432 bytes */
-#define HANGING_TAPER_ACTUATION_WORK 311 /* 2488 bytes */
-#define HANGING_TAPER_TIP_JACOBIAN_WORK 311 /* 2488 bytes */
-#define HANGING_TAPER_REGRESSOR_WORK 2304 /* 18432 bytes */
-#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 633 /* 5064 bytes */
+#define HANGING_TAPER_INERTIA_WORK 1463 /* 11704 bytes */
+#define HANGING_TAPER_GRAVITY_WORK 413 /* 3304 bytes */
+#define HANGING_TAPER_ACTUATION_WORK 303 /* 2424 bytes */
+#define HANGING_TAPER_TIP_JACOBIAN_WORK 303 /* 2424 bytes */
+#define HANGING_TAPER_REGRESSOR_WORK 2258 /* 18064 bytes */
+#define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 569 /* 4552 bytes */
 #define HANGING_TAPER_POTENTIAL_ENERGY_WORK 326 /* 2608 bytes */
-#define HANGING_TAPER_TERMS_WORK 2304 /* 18432 bytes */
-#define HANGING_TAPER_KINETIC_ENERGY_WORK 1541 /* 12328 bytes */
-#define HANGING_TAPER_CORIOLIS_WORK 2376 /* 19008 bytes */
+#define HANGING_TAPER_TERMS_WORK 2258 /* 18064 bytes */
+#define HANGING_TAPER_KINETIC_ENERGY_WORK 1527 /* 12216 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 2330 /* 18640 bytes */
 #define HANGING_TAPER_POSE_WORK 267 /* 2136 bytes */
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2636 /* 21088 bytes */
-#define HANGING_TAPER_STATIC_RESIDUAL_WORK 517 /* 4136 bytes */
-#define HANGING_TAPER_STATIC_JACOBIAN_WORK 889 /* 7112 bytes */
-#define HANGING_TAPER_EQUILIBRIUM_WORK 1097 /* 8776 bytes */
-#define HANGING_TAPER_REGULATE_WORK 582 /* 4656 bytes */
-#define HANGING_TAPER_WORK_LEN 2636 /* 21088 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2590 /* 20720 bytes */
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 501 /* 4008 bytes */
+#define HANGING_TAPER_STATIC_JACOBIAN_WORK 825 /* 6600 bytes */
+#define HANGING_TAPER_EQUILIBRIUM_WORK 1033 /* 8264 bytes */
+#define HANGING_TAPER_REGULATE_WORK 566 /* 4528 bytes */
+#define HANGING_TAPER_WORK_LEN 2590 /* 20720 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

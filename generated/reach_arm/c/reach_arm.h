@@ -156,7 +156,7 @@ reach_arm_status reach_arm_check_range(const double q[REACH_ARM_NQ]);
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 4330 add, 5630 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5343 add, 6817 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 4290 add, 5600 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5303 add, 6787 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_inertia_ws(const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -165,14 +165,14 @@ void reach_arm_inertia_with_ws(const reach_arm_params *P, const double q[REACH_A
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 6747 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7954 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_coriolis_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 void reach_arm_coriolis_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 1391 add, 1887 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1341 add, 1849 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity_ws(const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[]);
 void reach_arm_gravity_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double G[REACH_ARM_NQ], double work[]);
@@ -213,7 +213,7 @@ void reach_arm_pose_ws(const double q[REACH_ARM_NQ], int segment, double sigma, 
 
 /**
  * Tip Jacobian, 3 x n: rows d x_tip/dq, d y_tip/dq, d angle_tip/dq.
- * Operations: 697 add, 1073 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 675 add, 1057 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_tip_jacobian_ws(const double q[REACH_ARM_NQ], double J[3 * REACH_ARM_NQ], double work[]);
 
@@ -223,7 +223,7 @@ void reach_arm_tip_jacobian_ws(const double q[REACH_ARM_NQ], double J[3 * REACH_
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 6747 add, 8742 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7954 add, 10135 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_terms_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double B[REACH_ARM_NQ * REACH_ARM_NQ], double C[REACH_ARM_NQ * REACH_ARM_NQ],
     double G[REACH_ARM_NQ], double work[]);
@@ -232,7 +232,7 @@ void reach_arm_terms_with_ws(const reach_arm_params *P, const double q[REACH_ARM
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 4366 add, 5673 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5379 add, 6860 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 4326 add, 5643 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5339 add, 6830 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 double reach_arm_kinetic_energy_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
 double reach_arm_kinetic_energy_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], double work[]);
@@ -257,7 +257,7 @@ double reach_arm_potential_energy_with_ws(const reach_arm_params *P, const doubl
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 6864 add, 8847 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8071 add, 10240 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6694 add, 8717 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7901 add, 10110 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
  */
 void reach_arm_regressor_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double qdd[REACH_ARM_NQ],
     double Y[REACH_ARM_NQ * REACH_ARM_NTHETA], double work[]);
@@ -274,7 +274,7 @@ void reach_arm_regressor_with_ws(const reach_arm_params *P, const double q[REACH
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 6842 add, 8851 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 8049 add, 10244 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
+ * Operations: 6672 add, 8721 mul, 59 div, 6 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7879 add, 10114 mul, 59 div, 6 sqrt, 6 trig beyond (whole rows at both ends).
  */
 reach_arm_status reach_arm_forward_dynamics_ws(const double q[REACH_ARM_NQ], const double qd[REACH_ARM_NQ], const double u[REACH_ARM_NU],
     double qdd[REACH_ARM_NQ], double work[]);
@@ -283,7 +283,7 @@ reach_arm_status reach_arm_forward_dynamics_with_ws(const reach_arm_params *P, c
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 2105 add, 2803 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1845 add, 2591 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity_jacobian_ws(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 void reach_arm_gravity_jacobian_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -292,7 +292,7 @@ void reach_arm_gravity_jacobian_with_ws(const reach_arm_params *P, const double 
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns REACH_ARM_OK, REACH_ARM_ERR_NONFINITE_INPUT (R is then NaN) or
  * REACH_ARM_ERR_NONFINITE_RESULT.
- * Operations: 1451 add, 1947 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1401 add, 1909 mul, 4 div, 0 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_static_residual_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ], double work[]);
 reach_arm_status reach_arm_static_residual_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double R[REACH_ARM_NQ], double work[]);
@@ -302,7 +302,7 @@ reach_arm_status reach_arm_static_residual_with_ws(const reach_arm_params *P, co
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * reach_arm_static_residual.
- * Operations: 2141 add, 2803 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 1881 add, 2591 mul, 4 div, 0 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_static_jacobian_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 reach_arm_status reach_arm_static_jacobian_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -348,8 +348,8 @@ typedef struct {
  * Returns REACH_ARM_OK; REACH_ARM_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * REACH_ARM_ERR_NONFINITE_INPUT (q = 0); REACH_ARM_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 3779 add, 4919 mul, 29 div, 4 sqrt, 12 trig.
- * Per backtracking trial: 1490 add, 1978 mul, 4 div, 4 sqrt, 6 trig.
+ * Operations per Newton iteration, at most: 3469 add, 4669 mul, 29 div, 4 sqrt, 12 trig.
+ * Per backtracking trial: 1440 add, 1940 mul, 4 div, 4 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_equilibrium_ws(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info,
     double work[]);
@@ -386,7 +386,7 @@ typedef enum reach_arm_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 1511 add, 2010 mul, 5 div, 0 sqrt, 6 trig.
+ * Operations before the allocation, at most: 1461 add, 1972 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
 reach_arm_status reach_arm_regulate_ws(reach_arm_law law, const double target[REACH_ARM_NY], const double kp[REACH_ARM_NY], const double kd[REACH_ARM_NY],
@@ -407,23 +407,23 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
  * function's frame and worst case with everything it calls (`--limit` fails above a
  * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
-#define REACH_ARM_INERTIA_WORK 1238 /* 9904 bytes */
-#define REACH_ARM_GRAVITY_WORK 310 /* 2480 bytes */
+#define REACH_ARM_INERTIA_WORK 1228 /* 9824 bytes */
+#define REACH_ARM_GRAVITY_WORK 298 /* 2384 bytes */
 #define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
-#define REACH_ARM_TIP_JACOBIAN_WORK 186 /* 1488 bytes */
-#define REACH_ARM_REGRESSOR_WORK 1787 /* 14296 bytes */
-#define REACH_ARM_GRAVITY_JACOBIAN_WORK 455 /* 3640 bytes */
+#define REACH_ARM_TIP_JACOBIAN_WORK 180 /* 1440 bytes */
+#define REACH_ARM_REGRESSOR_WORK 1751 /* 14008 bytes */
+#define REACH_ARM_GRAVITY_JACOBIAN_WORK 407 /* 3256 bytes */
 #define REACH_ARM_POTENTIAL_ENERGY_WORK 256 /* 2048 bytes */
-#define REACH_ARM_TERMS_WORK 1787 /* 14296 bytes */
-#define REACH_ARM_KINETIC_ENERGY_WORK 1274 /* 10192 bytes */
-#define REACH_ARM_CORIOLIS_WORK 1829 /* 14632 bytes */
+#define REACH_ARM_TERMS_WORK 1751 /* 14008 bytes */
+#define REACH_ARM_KINETIC_ENERGY_WORK 1264 /* 10112 bytes */
+#define REACH_ARM_CORIOLIS_WORK 1793 /* 14344 bytes */
 #define REACH_ARM_POSE_WORK 212 /* 1696 bytes */
-#define REACH_ARM_FORWARD_DYNAMICS_WORK 1988 /* 15904 bytes */
-#define REACH_ARM_STATIC_RESIDUAL_WORK 370 /* 2960 bytes */
-#define REACH_ARM_STATIC_JACOBIAN_WORK 491 /* 3928 bytes */
-#define REACH_ARM_EQUILIBRIUM_WORK 629 /* 5032 bytes */
-#define REACH_ARM_REGULATE_WORK 442 /* 3536 bytes */
-#define REACH_ARM_WORK_LEN 1988 /* 15904 bytes */
+#define REACH_ARM_FORWARD_DYNAMICS_WORK 1952 /* 15616 bytes */
+#define REACH_ARM_STATIC_RESIDUAL_WORK 358 /* 2864 bytes */
+#define REACH_ARM_STATIC_JACOBIAN_WORK 443 /* 3544 bytes */
+#define REACH_ARM_EQUILIBRIUM_WORK 581 /* 4648 bytes */
+#define REACH_ARM_REGULATE_WORK 430 /* 3440 bytes */
+#define REACH_ARM_WORK_LEN 1952 /* 15616 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

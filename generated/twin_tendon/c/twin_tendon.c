@@ -261,24 +261,24 @@ static void twin_tendon_moments(double a, int count, double re[], double im[])
  * Moment kernels: row r at moment base b is the dot product of its band
  * coef[start[r] .. start[r+1]) with nu[b + first[r] ...], exact rationals rounded once.
  * A row is shared by every segment (and by real and imaginary parts) with the same
- * weight shape. 14 rows, 48 coefficients.
+ * weight shape. 13 rows, 45 coefficients.
  */
-static const unsigned char twin_tendon_kernel_start[15] = {
-    0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48
+static const unsigned char twin_tendon_kernel_start[14] = {
+    0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 36, 40, 45
 };
-static const unsigned char twin_tendon_kernel_first[14] = {
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
+static const unsigned char twin_tendon_kernel_first[13] = {
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0
 };
-static const double twin_tendon_kernel_coef[48] = {
+static const double twin_tendon_kernel_coef[45] = {
     0.5, -0.5, 0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125,
     0.01125, 0.01125, 0.05, -0.08333333333333333, 0.03571428571428571, 0.0,
     -0.002380952380952381, 0.3333333333333333, -0.5, 0.16666666666666666, 0.125, -0.175,
     0.041666666666666664, 0.008333333333333333, 0.08333333333333333, 0.05, -0.08333333333333333,
-    -0.05, 0.3333333333333333, 0.5, 0.16666666666666666, -0.001125, -0.0016875, -0.0005625,
-    0.005555555555555556, -0.004761904761904762, -0.00496031746031746, 0.005092592592592593,
-    -0.0005952380952380953, -0.00033068783068783067, 0.041666666666666664, -0.025,
-    -0.041666666666666664, 0.025, 0.03333333333333333, -0.016666666666666666,
-    -0.03571428571428571, 0.016666666666666666, 0.002380952380952381
+    -0.05, 0.3333333333333333, 0.5, 0.16666666666666666, 0.005555555555555556,
+    -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
+    -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
+    0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
+    0.002380952380952381
 };
 
 /* kern[i] = kernel row uses[2i] at moment base uses[2i + 1], i < count; four partial
@@ -373,20 +373,20 @@ void twin_tendon_damping(double D[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 }
 
 /* Dot-product kernels of twin_tendon_shares: pairs (row, moment base). */
-static const unsigned char twin_tendon_shares_rows[20] = {
-    3, 8, 4, 0, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24, 11, 24
+static const unsigned char twin_tendon_shares_rows[16] = {
+    5, 0, 10, 8, 5, 16, 6, 16, 7, 16, 11, 24, 12, 24, 10, 24
 };
-/* Dot-product kernels 0 .. 18 of twin_tendon_shares: one row at both parts of a segment's moments, (row, real base, imaginary base). */
-static const unsigned char twin_tendon_shares_reim0[27] = {
-    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8, 16, 24
+/* Dot-product kernels 0 .. 16 of twin_tendon_shares: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_shares_reim0[24] = {
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 16, 24
 };
 
-/* What twin_tendon_terms_with_ws and twin_tendon_regressor_with_ws have in common: the 21 values s[] that the rest of each reads. At the runtime parameters *P. Scratch: work[0 .. 60).
- * Operations: 213 add, 428 mul, 4 div, 0 sqrt, 6 trig. */
+/* What twin_tendon_terms_with_ws and twin_tendon_regressor_with_ws have in common: the 21 values s[] that the rest of each reads. At the runtime parameters *P. Scratch: work[0 .. 56).
+ * Operations: 203 add, 422 mul, 4 div, 0 sqrt, 6 trig. */
 static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double s[], double work[])
 {
     double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 28 */
+    double *const kern = &work[32]; /* 24 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -395,10 +395,10 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernel_reim(twin_tendon_shares_reim0, 9, nu, kern, &kern[1], 2);
-    twin_tendon_kernels(twin_tendon_shares_rows, 10, nu, &kern[18]);
-    const double t0 = qd[1] * kern[16];
-    const double t1 = qd[1] * kern[17];
+    twin_tendon_kernel_reim(twin_tendon_shares_reim0, 8, nu, kern, &kern[1], 2);
+    twin_tendon_kernels(twin_tendon_shares_rows, 8, nu, &kern[16]);
+    const double t0 = qd[1] * kern[14];
+    const double t1 = qd[1] * kern[15];
     const double t2 = kern[0] * cphi[0];
     const double t3 = kern[1] * sphi[0];
     const double t4 = kern[1] * cphi[0];
@@ -417,13 +417,13 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     const double t17 = -0.000432 * sphi[0];
     const double t18 = -5.184e-5 * cphi[0];
     const double t19 = -0.003375 * t14;
-    const double t20 = qd[0] * kern[25];
+    const double t20 = qd[0] * kern[21];
     const double t21 = nu[16] * cphi[0];
     const double t22 = nu[24] * sphi[0];
     const double t23 = nu[24] * cphi[0];
     const double t24 = nu[16] * sphi[0];
-    const double t25 = kern[18] - 0.018 * t24 - 0.018 * t23;
-    const double t26 = kern[19] - 0.018 * t22 + 0.018 * t21;
+    const double t25 = -0.0225 * kern[7] - 0.018 * t24 - 0.018 * t23;
+    const double t26 = 0.0225 * kern[6] - 0.018 * t22 + 0.018 * t21;
     const double t27 = cphi[0] * kern[9];
     const double t28 = sphi[0] * kern[8];
     const double t29 = -0.0144 * t27 - 0.0144 * t28;
@@ -432,28 +432,29 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     const double t32 = 0.0144 * t30 - 0.0144 * t31;
     const double t33 = 0.00216 * t31 - 0.00216 * t30;
     const double t34 = -0.00216 * t28 - 0.00216 * t27;
-    const double t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33;
-    const double t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34;
+    const double t35 = qd[0] * (0.0027 * t22 - 0.003375 * kern[10] - 0.0027 * t21) + qd[1] * t33;
+    const double t36 = qd[0] * (-0.003375 * kern[11] - 0.0027 * t23 - 0.0027 * t24)
+        + qd[1] * t34;
     const double t37 = -0.001728 * cphi[0];
     const double t38 = qd[0] * t33 + qd[1] * (kern[12] * t37 + 0.001728 * sphi[0] * kern[13]);
     const double t39 = qd[0] * t34 + qd[1] * (kern[13] * t37 - 0.001728 * sphi[0] * kern[12]);
     const double t40 = 0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
         + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15);
-    s[0] = kern[20];
-    s[1] = -3.98671875e-6 * qd[0] * kern[21];
-    s[2] = kern[22];
+    s[0] = kern[16];
+    s[1] = -3.98671875e-6 * qd[0] * kern[17];
+    s[2] = kern[18];
     s[3] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t9 + t9
-        + 9.72e-6 * kern[23];
-    s[4] = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24];
+        + 9.72e-6 * kern[19];
+    s[4] = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[20];
     s[5] = 0.03 * (7.59375e-5 * kern[7] * t13 - 7.59375e-5 * kern[6] * t14)
         - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t40
-        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25];
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[21];
     s[6] = 0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
         - 0.0225 * kern[7] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
         + 0.0225 * kern[6] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
-        - 9.3312e-7 * qd[1] * kern[26];
+        - 9.3312e-7 * qd[1] * kern[22];
     s[7] = t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20;
-    s[8] = -7.46496e-7 * qd[1] * kern[27];
+    s[8] = -7.46496e-7 * qd[1] * kern[23];
     s[9] = t25 * t25 + t26 * t26;
     s[10] = t25 * t29 + t26 * t32;
     s[11] = t29 * t29 + t32 * t32;
@@ -471,20 +472,20 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
 }
 
 /* Dot-product kernels of twin_tendon_inertia: pairs (row, moment base). */
-static const unsigned char twin_tendon_inertia_rows[12] = {
-    3, 8, 4, 0, 5, 0, 5, 16, 6, 16, 7, 16
+static const unsigned char twin_tendon_inertia_rows[8] = {
+    5, 0, 5, 16, 6, 16, 7, 16
 };
 /* Dot-product kernels 0 .. 8 of twin_tendon_inertia: one row at both parts of a segment's moments, (row, real base, imaginary base). */
 static const unsigned char twin_tendon_inertia_reim0[12] = {
     0, 16, 24, 1, 16, 24, 2, 0, 8, 2, 16, 24
 };
 
-/* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 46 reals.
- * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
+/* B(q), n x n, row-major. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_INERTIA_WORK), 44 reals.
+ * Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 14 */
+    double *const kern = &work[32]; /* 12 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -494,33 +495,33 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernel_reim(twin_tendon_inertia_reim0, 4, nu, kern, &kern[1], 2);
-    twin_tendon_kernels(twin_tendon_inertia_rows, 6, nu, &kern[8]);
+    twin_tendon_kernels(twin_tendon_inertia_rows, 4, nu, &kern[8]);
     const double t0 = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
         + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]);
     const double t1 = 0.15 * t0;
-    const double t2 = kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
-    const double t3 = kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    const double t2 = -0.0225 * kern[5] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    const double t3 = 0.0225 * kern[4] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
     const double t4 = -0.0144 * cphi[0] * kern[7] - 0.0144 * sphi[0] * kern[6];
     const double t5 = 0.0144 * cphi[0] * kern[6] - 0.0144 * sphi[0] * kern[7];
     const double t6 = 0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
-        + 7.776e-6 * kern[13];
+        + 7.776e-6 * kern[11];
     const double t7 = P->density_scale[1] * t6 + 6.48e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P->payload_rotary_inertia;
     const double t8 = 0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4])
-        + t1 + t1 + 9.72e-6 * kern[12];
-    B[0] = 2.6578125e-5 * kern[10] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
+        + t1 + t1 + 9.72e-6 * kern[10];
+    B[0] = 2.6578125e-5 * kern[8] * P->density_scale[0] + 1.125e-8 * P->rotary_inertia_scale[0]
         + P->density_scale[1] * t8 + 1.62e-8 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t2 * t2 + t3 * t3) + 0.0225 * P->payload_rotary_inertia;
     B[1] = t7;
     B[2] = t7;
-    B[3] = 6.2208e-6 * kern[11] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
+    B[3] = 6.2208e-6 * kern[9] * P->density_scale[1] + 3.456e-9 * P->rotary_inertia_scale[1]
         + P->payload_mass * (t4 * t4 + t5 * t5) + 0.0144 * P->payload_rotary_inertia;
 }
 
 
 /* twin_tendon_inertia_with_ws at the arm file's parameters.
- * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_inertia_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, B, work);
@@ -529,7 +530,7 @@ void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_with_ws with its scratch on this function's stack.
- * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_INERTIA_WORK];
@@ -540,7 +541,7 @@ void twin_tendon_inertia_with(const twin_tendon_params *P, const double q[TWIN_T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_inertia_ws with its scratch on this function's stack.
- * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_INERTIA_WORK];
@@ -548,21 +549,17 @@ void twin_tendon_inertia(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ
 }
 #endif
 
-/* Dot-product kernels of twin_tendon_gravity: pairs (row, moment base). */
-static const unsigned char twin_tendon_gravity_rows[4] = {
-    3, 8, 4, 0
-};
 /* Dot-product kernels 0 .. 10 of twin_tendon_gravity: one row at both parts of a segment's moments, (row, real base, imaginary base). */
 static const unsigned char twin_tendon_gravity_reim0[15] = {
     0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24
 };
 
-/* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 44 reals.
- * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+/* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_WORK), 42 reals.
+ * Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 12 */
+    double *const kern = &work[32]; /* 10 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -572,12 +569,11 @@ void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWI
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
     twin_tendon_kernel_reim(twin_tendon_gravity_reim0, 5, nu, kern, &kern[1], 2);
-    twin_tendon_kernels(twin_tendon_gravity_rows, 2, nu, &kern[10]);
     const double t0 = P->gravity[0] * (-0.00054 * kern[0] * sphi[0] - 0.00054 * kern[1] * cphi[0])
         + P->gravity[1] * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
         + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
-    const double t1 = P->gravity[0] * (kern[10] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
-        + P->gravity[1] * (kern[11] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
+    const double t1 = P->gravity[0] * (-0.0225 * kern[7] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + P->gravity[1] * (0.0225 * kern[6] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
     const double t2 = P->gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + P->gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
     const double t3 = P->gravity[0] * (-0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8])
@@ -589,7 +585,7 @@ void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWI
 
 
 /* twin_tendon_gravity_with_ws at the arm file's parameters.
- * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_gravity_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, G, work);
@@ -598,7 +594,7 @@ void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_with_ws with its scratch on this function's stack.
- * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_WORK];
@@ -609,7 +605,7 @@ void twin_tendon_gravity_with(const twin_tendon_params *P, const double q[TWIN_T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_ws with its scratch on this function's stack.
- * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_WORK];
@@ -689,8 +685,8 @@ void twin_tendon_tip_jacobian(const double q[TWIN_TENDON_NQ], double J[3 * TWIN_
 #endif
 
 
-/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 81 reals.
- * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
+/* Regressor Y(q, q', q''), n x NTHETA, row-major: Y theta = B q'' + C q' + G + K q + D q' for the linear parameters theta (the fields of NAME_params but gravity, in order). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_REGRESSOR_WORK), 77 reals.
+ * Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
     double *const s = &work[0]; /* 21 */
@@ -719,7 +715,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
 
 
 /* twin_tendon_regressor_with_ws at the arm file's parameters.
- * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[])
 {
     twin_tendon_regressor_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, qdd, Y, work);
@@ -728,7 +724,7 @@ void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TW
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_regressor_with_ws with its scratch on this function's stack.
- * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
 {
     double work[TWIN_TENDON_REGRESSOR_WORK];
@@ -739,7 +735,7 @@ void twin_tendon_regressor_with(const twin_tendon_params *P, const double q[TWIN
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_regressor_ws with its scratch on this function's stack.
- * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ], double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA])
 {
     double work[TWIN_TENDON_REGRESSOR_WORK];
@@ -747,17 +743,17 @@ void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_
 }
 #endif
 
-/* Dot-product kernels 0 .. 16 of twin_tendon_gravity_jacobian: one row at both parts of a segment's moments, (row, real base, imaginary base). */
-static const unsigned char twin_tendon_gravity_jacobian_reim0[24] = {
-    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8, 0, 8, 8, 16, 24
+/* Dot-product kernels 0 .. 14 of twin_tendon_gravity_jacobian: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_gravity_jacobian_reim0[21] = {
+    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 0, 8, 8, 16, 24
 };
 
-/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 48 reals.
- * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
+/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 46 reals.
+ * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 16 */
+    double *const kern = &work[32]; /* 14 */
     double cphi[1];
     double sphi[1];
     double phi;
@@ -766,7 +762,7 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     phi = 0.15 * q[0];
     cphi[0] = cos(phi);
     sphi[0] = sin(phi);
-    twin_tendon_kernel_reim(twin_tendon_gravity_jacobian_reim0, 8, nu, kern, &kern[1], 2);
+    twin_tendon_kernel_reim(twin_tendon_gravity_jacobian_reim0, 7, nu, kern, &kern[1], 2);
     const double t0 = -5.184e-5 * cphi[0];
     const double t1 = -0.001728 * cphi[0];
     const double t2 = P->gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
@@ -777,13 +773,13 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
     const double t5 = P->gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
         + P->gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
         + 0.03 * (-0.003375 * P->gravity[0] * kern[6] - 0.003375 * P->gravity[1] * kern[7]);
-    const double t6 = P->gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
-        + P->gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    const double t7 = P->gravity[0] * (kern[14] * t0 + 5.184e-5 * kern[15] * sphi[0])
-        + P->gravity[1] * (kern[15] * t0 - 5.184e-5 * kern[14] * sphi[0]);
+    const double t6 = P->gravity[0] * (0.0027 * nu[24] * sphi[0] - 0.003375 * kern[6] - 0.0027 * nu[16] * cphi[0])
+        + P->gravity[1] * (-0.003375 * kern[7] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
+    const double t7 = P->gravity[0] * (kern[12] * t0 + 5.184e-5 * kern[13] * sphi[0])
+        + P->gravity[1] * (kern[13] * t0 - 5.184e-5 * kern[12] * sphi[0]);
     const double t8 = P->gravity[0] * (kern[8] * t1 + 0.001728 * sphi[0] * kern[9])
         + P->gravity[1] * (kern[9] * t1 - 0.001728 * sphi[0] * kern[8]);
-    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[12] * P->gravity[0] - 0.0001771875 * kern[13] * P->gravity[1])
+    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[10] * P->gravity[0] - 0.0001771875 * kern[11] * P->gravity[1])
         - P->density_scale[1] * t5 - P->payload_mass * t6;
     dG[1] = t4;
     dG[2] = t4;
@@ -792,7 +788,7 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
 
 
 /* twin_tendon_gravity_jacobian_with_ws at the arm file's parameters.
- * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_gravity_jacobian_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, dG, work);
@@ -801,7 +797,7 @@ void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_with_ws with its scratch on this function's stack.
- * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
@@ -812,7 +808,7 @@ void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
- * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
@@ -881,8 +877,8 @@ double twin_tendon_potential_energy(const double q[TWIN_TENDON_NQ])
 #endif
 
 
-/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 81 reals.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+/* B(q), C(q, q') (both n x n, row-major) and G(q) in one call. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_TERMS_WORK), 77 reals.
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     double *const s = &work[0]; /* 21 */
@@ -906,7 +902,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
 
 
 /* twin_tendon_terms_with_ws at the arm file's parameters.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_terms_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, B, C, G, work);
@@ -915,7 +911,7 @@ void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_T
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_with_ws with its scratch on this function's stack.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -926,7 +922,7 @@ void twin_tendon_terms_with(const twin_tendon_params *P, const double q[TWIN_TEN
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_terms_ws with its scratch on this function's stack.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_TERMS_WORK];
@@ -935,8 +931,8 @@ void twin_tendon_terms(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TEND
 #endif
 
 
-/* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 50 reals.
- * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
+/* T = 1/2 q'^T B q', with B from the inertia function. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_KINETIC_ENERGY_WORK), 48 reals.
+ * Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
@@ -956,7 +952,7 @@ double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const dou
 
 
 /* twin_tendon_kinetic_energy_with_ws at the arm file's parameters.
- * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[])
 {
     return twin_tendon_kinetic_energy_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, work);
@@ -965,7 +961,7 @@ double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const doubl
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_with_ws with its scratch on this function's stack.
- * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
@@ -976,7 +972,7 @@ double twin_tendon_kinetic_energy_with(const twin_tendon_params *P, const double
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_kinetic_energy_ws with its scratch on this function's stack.
- * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig. */
 double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
@@ -985,8 +981,8 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 #endif
 
 
-/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 87 reals.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+/* C(q, q'), n x n, row-major, from terms (C shares nearly all of its work with B and G). At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_CORIOLIS_WORK), 83 reals.
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     double *const B = &work[0]; /* 4 */
@@ -996,7 +992,7 @@ void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TW
 
 
 /* twin_tendon_coriolis_with_ws at the arm file's parameters.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     twin_tendon_coriolis_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, qd, C, work);
@@ -1005,7 +1001,7 @@ void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWI
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_with_ws with its scratch on this function's stack.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
@@ -1016,7 +1012,7 @@ void twin_tendon_coriolis_with(const twin_tendon_params *P, const double q[TWIN_
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /* twin_tendon_coriolis_ws with its scratch on this function's stack.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig. */
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig. */
 void twin_tendon_coriolis(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
 {
     double work[TWIN_TENDON_CORIOLIS_WORK];
@@ -1116,7 +1112,7 @@ twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params
     /* B, C, G, K, D and A from the functions above; f = A u - C q' - G - K q - D q';
      * m: B's lower triangle, packed row by row (row i at i(i+1)/2), factorised in place.
      * All of them, and the scratch of terms and actuation, live in
-     * work[0 .. TWIN_TENDON_FORWARD_DYNAMICS_WORK), 112 reals. */
+     * work[0 .. TWIN_TENDON_FORWARD_DYNAMICS_WORK), 108 reals. */
     double *const B = &work[0];
     double *const C = &work[4];
     double *const G = &work[8];
@@ -1419,7 +1415,7 @@ static int twin_tendon_all_finite(const double v[], int len)
 twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
-     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 56 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_RESIDUAL_WORK), 54 reals. */
     double *const K = &work[0];
     double *const A = &work[4];
     int i;
@@ -1468,7 +1464,7 @@ twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], c
 twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     /* K and the scratch of gravity_jacobian in
-     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 52 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 50 reals. */
     double *const K = &work[0];
     int i;
     int x;
@@ -1513,7 +1509,7 @@ twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], c
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
- * 58 reals. Returns 0 when r or jac is not finite. */
+ * 56 reals. Returns 0 when r or jac is not finite. */
 static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double lambda,
     const double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
@@ -1565,7 +1561,7 @@ twin_tendon_status twin_tendon_equilibrium_with_ws(const twin_tendon_params *P, 
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
      * step dq, the candidate, a copy of jac for the solver, then the linearisation's
-     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 82 reals. */
+     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 80 reals. */
     double *const K = &work[0];
     double *const r = &work[4];
     double *const jac = &work[6];
@@ -1805,7 +1801,7 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
      * polish's Gram matrix, then G, K and the scratch of actuation and gravity, in
-     * work[0 .. TWIN_TENDON_REGULATE_WORK), 124 reals. */
+     * work[0 .. TWIN_TENDON_REGULATE_WORK), 122 reals. */
     double *const A = &work[0];
     double *const M = &work[8];
     double *const b = &work[16];

@@ -156,7 +156,7 @@ twin_tendon_status twin_tendon_check_range(const double q[TWIN_TENDON_NQ]);
 /**
  * Inertia matrix B(q), n x n, symmetric positive definite [kg m^2 and mixed units
  * per coordinate pair]. Kinetic energy T = 1/2 q'^T B q'.
- * Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_inertia_ws(const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -165,14 +165,14 @@ void twin_tendon_inertia_with_ws(const twin_tendon_params *P, const double q[TWI
  * Coriolis/centrifugal matrix C(q, q'), n x n, from the Christoffel symbols of the
  * first kind: C_ik = sum_l 1/2 (dB_ik/dq_l + dB_il/dq_k - dB_kl/dq_i) q'_l, so that
  * B' - 2C is skew-symmetric. The generalized force is C q'.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_coriolis_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_coriolis_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 
 /**
  * Gravity vector G(q) = dU_g/dq, length n.
- * Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_gravity_ws(const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[]);
 void twin_tendon_gravity_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double work[]);
@@ -223,7 +223,7 @@ void twin_tendon_tip_jacobian_ws(const double q[TWIN_TENDON_NQ], double J[3 * TW
  * 1e-14 relative: shared sums are added in another order). This is the call for a
  * controller that needs all three (computed torque, PD+ with compensation): the
  * moments and everything B, C and G share are computed once.
- * Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_terms_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double B[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double C[TWIN_TENDON_NQ * TWIN_TENDON_NQ],
     double G[TWIN_TENDON_NQ], double work[]);
@@ -232,7 +232,7 @@ void twin_tendon_terms_with_ws(const twin_tendon_params *P, const double q[TWIN_
 
 /**
  * Kinetic energy T = 1/2 q'^T B(q) q' [J].
- * Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
  */
 double twin_tendon_kinetic_energy_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
 double twin_tendon_kinetic_energy_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], double work[]);
@@ -257,7 +257,7 @@ double twin_tendon_potential_energy_with_ws(const twin_tendon_params *P, const d
  * file's gravity.
  * Use it to identify theta from measurements (arcwright identify does, offline) or in
  * an adaptive controller.
- * Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_regressor_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double qdd[TWIN_TENDON_NQ],
     double Y[TWIN_TENDON_NQ * TWIN_TENDON_NTHETA], double work[]);
@@ -274,7 +274,7 @@ void twin_tendon_regressor_with_ws(const twin_tendon_params *P, const double q[T
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 247 add, 473 mul, 9 div, 2 sqrt, 6 trig.
+ * Operations: 237 add, 467 mul, 9 div, 2 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_forward_dynamics_ws(const double q[TWIN_TENDON_NQ], const double qd[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU],
     double qdd[TWIN_TENDON_NQ], double work[]);
@@ -283,7 +283,7 @@ twin_tendon_status twin_tendon_forward_dynamics_with_ws(const twin_tendon_params
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
  */
 void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -292,7 +292,7 @@ void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const dou
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns TWIN_TENDON_OK, TWIN_TENDON_ERR_NONFINITE_INPUT (R is then NaN) or
  * TWIN_TENDON_ERR_NONFINITE_RESULT.
- * Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 111 add, 223 mul, 4 div, 0 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_static_residual_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[]);
 twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double R[TWIN_TENDON_NQ], double work[]);
@@ -302,7 +302,7 @@ twin_tendon_status twin_tendon_static_residual_with_ws(const twin_tendon_params 
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * twin_tendon_static_residual.
- * Operations: 139 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 133 add, 261 mul, 4 div, 0 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_static_jacobian_ws(const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
 twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[]);
@@ -348,8 +348,8 @@ typedef struct {
  * Returns TWIN_TENDON_OK; TWIN_TENDON_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * TWIN_TENDON_ERR_NONFINITE_INPUT (q = 0); TWIN_TENDON_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 281 add, 511 mul, 11 div, 4 sqrt, 12 trig.
- * Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
+ * Operations per Newton iteration, at most: 271 add, 505 mul, 11 div, 4 sqrt, 12 trig.
+ * Per backtracking trial: 126 add, 234 mul, 4 div, 4 sqrt, 6 trig.
  */
 twin_tendon_status twin_tendon_equilibrium_ws(const double u[TWIN_TENDON_NU], double q[TWIN_TENDON_NQ], twin_tendon_equilibrium_info *info,
     double work[]);
@@ -386,7 +386,7 @@ typedef enum twin_tendon_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 163 add, 276 mul, 5 div, 0 sqrt, 6 trig.
+ * Operations before the allocation, at most: 159 add, 274 mul, 5 div, 0 sqrt, 6 trig.
  * Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
  */
 twin_tendon_status twin_tendon_regulate_ws(twin_tendon_law law, const double target[TWIN_TENDON_NY], const double kp[TWIN_TENDON_NY], const double kd[TWIN_TENDON_NY],
@@ -407,23 +407,23 @@ twin_tendon_status twin_tendon_regulate_with_ws(const twin_tendon_params *P, twi
  * function's frame and worst case with everything it calls (`--limit` fails above a
  * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
-#define TWIN_TENDON_INERTIA_WORK 46 /* 368 bytes */
-#define TWIN_TENDON_GRAVITY_WORK 44 /* 352 bytes */
+#define TWIN_TENDON_INERTIA_WORK 44 /* 352 bytes */
+#define TWIN_TENDON_GRAVITY_WORK 42 /* 336 bytes */
 #define TWIN_TENDON_ACTUATION_WORK 1 /* 8 bytes */
 #define TWIN_TENDON_TIP_JACOBIAN_WORK 36 /* 288 bytes */
-#define TWIN_TENDON_REGRESSOR_WORK 81 /* 648 bytes */
-#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 48 /* 384 bytes */
+#define TWIN_TENDON_REGRESSOR_WORK 77 /* 616 bytes */
+#define TWIN_TENDON_GRAVITY_JACOBIAN_WORK 46 /* 368 bytes */
 #define TWIN_TENDON_POTENTIAL_ENERGY_WORK 36 /* 288 bytes */
-#define TWIN_TENDON_TERMS_WORK 81 /* 648 bytes */
-#define TWIN_TENDON_KINETIC_ENERGY_WORK 50 /* 400 bytes */
-#define TWIN_TENDON_CORIOLIS_WORK 87 /* 696 bytes */
+#define TWIN_TENDON_TERMS_WORK 77 /* 616 bytes */
+#define TWIN_TENDON_KINETIC_ENERGY_WORK 48 /* 384 bytes */
+#define TWIN_TENDON_CORIOLIS_WORK 83 /* 664 bytes */
 #define TWIN_TENDON_POSE_WORK 34 /* 272 bytes */
-#define TWIN_TENDON_FORWARD_DYNAMICS_WORK 112 /* 896 bytes */
-#define TWIN_TENDON_STATIC_RESIDUAL_WORK 56 /* 448 bytes */
-#define TWIN_TENDON_STATIC_JACOBIAN_WORK 52 /* 416 bytes */
-#define TWIN_TENDON_EQUILIBRIUM_WORK 82 /* 656 bytes */
-#define TWIN_TENDON_REGULATE_WORK 124 /* 992 bytes */
-#define TWIN_TENDON_WORK_LEN 124 /* 992 bytes */
+#define TWIN_TENDON_FORWARD_DYNAMICS_WORK 108 /* 864 bytes */
+#define TWIN_TENDON_STATIC_RESIDUAL_WORK 54 /* 432 bytes */
+#define TWIN_TENDON_STATIC_JACOBIAN_WORK 50 /* 400 bytes */
+#define TWIN_TENDON_EQUILIBRIUM_WORK 80 /* 640 bytes */
+#define TWIN_TENDON_REGULATE_WORK 122 /* 976 bytes */
+#define TWIN_TENDON_WORK_LEN 122 /* 976 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

@@ -130,21 +130,21 @@ _SERIES = (
 # _KERNEL_COEF[_KERNEL_START[r]:_KERNEL_START[r + 1]] with nu[b + _KERNEL_FIRST[r]:]; a row
 # is shared by every segment (and by real and imaginary parts) with the same weight shape.
 _KERNEL_START = (
-    0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48,
+    0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 36, 40, 45,
 )
 _KERNEL_FIRST = (
-    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
+    0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0,
 )
 _KERNEL_COEF = np.array((
     0.5, -0.5, 0.16666666666666666, 0.0, -0.16666666666666666, 0.5, 0.5, -0.01125, -0.01125,
     0.01125, 0.01125, 0.05, -0.08333333333333333, 0.03571428571428571, 0.0,
     -0.002380952380952381, 0.3333333333333333, -0.5, 0.16666666666666666, 0.125, -0.175,
     0.041666666666666664, 0.008333333333333333, 0.08333333333333333, 0.05, -0.08333333333333333,
-    -0.05, 0.3333333333333333, 0.5, 0.16666666666666666, -0.001125, -0.0016875, -0.0005625,
-    0.005555555555555556, -0.004761904761904762, -0.00496031746031746, 0.005092592592592593,
-    -0.0005952380952380953, -0.00033068783068783067, 0.041666666666666664, -0.025,
-    -0.041666666666666664, 0.025, 0.03333333333333333, -0.016666666666666666,
-    -0.03571428571428571, 0.016666666666666666, 0.002380952380952381,
+    -0.05, 0.3333333333333333, 0.5, 0.16666666666666666, 0.005555555555555556,
+    -0.004761904761904762, -0.00496031746031746, 0.005092592592592593, -0.0005952380952380953,
+    -0.00033068783068783067, 0.041666666666666664, -0.025, -0.041666666666666664, 0.025,
+    0.03333333333333333, -0.016666666666666666, -0.03571428571428571, 0.016666666666666666,
+    0.002380952380952381,
 ))
 
 
@@ -291,13 +291,13 @@ def _params_finite(p):
 
 # pairs (row, moment base)
 _INERTIA_ROWS = _kernel_plan((
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 3, 8, 4, 0, 5, 0, 5, 16, 6, 16, 7, 16,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 5, 0, 5, 16, 6, 16, 7, 16,
 ))
 
 def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Inertia matrix B(q), NQ x NQ, symmetric positive definite; T = 1/2 q'^T B q'.
 
-    Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -314,46 +314,45 @@ def inertia(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     t0 = (0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
         + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]))
     t1 = 0.15 * t0
-    t2 = kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
-    t3 = kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
+    t2 = -0.0225 * kern[5] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0]
+    t3 = 0.0225 * kern[4] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]
     t4 = -0.0144 * cphi[0] * kern[7] - 0.0144 * sphi[0] * kern[6]
     t5 = 0.0144 * cphi[0] * kern[6] - 0.0144 * sphi[0] * kern[7]
     t6 = (0.0225 * kern[4] * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5] * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
-        + 7.776e-6 * kern[13])
+        + 7.776e-6 * kern[11])
     t7 = (P.density_scale[1] * t6 + 6.48e-9 * P.rotary_inertia_scale[1]
         + P.payload_mass * (t2 * t4 + t3 * t5) + 0.018 * P.payload_rotary_inertia)
     t8 = (0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4]) + t1 + t1
-        + 9.72e-6 * kern[12])
-    out[0, 0] = (2.6578125e-5 * kern[10] * P.density_scale[0]
+        + 9.72e-6 * kern[10])
+    out[0, 0] = (2.6578125e-5 * kern[8] * P.density_scale[0]
         + 1.125e-8 * P.rotary_inertia_scale[0] + P.density_scale[1] * t8
         + 1.62e-8 * P.rotary_inertia_scale[1] + P.payload_mass * (t2 * t2 + t3 * t3)
         + 0.0225 * P.payload_rotary_inertia)
     out[0, 1] = t7
     out[1, 0] = t7
-    out[1, 1] = (6.2208e-6 * kern[11] * P.density_scale[1]
-        + 3.456e-9 * P.rotary_inertia_scale[1] + P.payload_mass * (t4 * t4 + t5 * t5)
-        + 0.0144 * P.payload_rotary_inertia)
+    out[1, 1] = (6.2208e-6 * kern[9] * P.density_scale[1] + 3.456e-9 * P.rotary_inertia_scale[1]
+        + P.payload_mass * (t4 * t4 + t5 * t5) + 0.0144 * P.payload_rotary_inertia)
     return out
 
 
 def coriolis(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Coriolis matrix C(q, q') (Christoffel symbols of the first kind; B' - 2C skew), NQ x NQ. From terms(): C shares nearly all of its work with B and G.
 
-    Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     return terms(q, qd, **P._asdict())[1]
 
 # pairs (row, moment base)
 _GRAVITY_ROWS = _kernel_plan((
-    0, 16, 0, 24, 1, 0, 1, 8, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 3, 8, 4, 0,
+    0, 16, 0, 24, 1, 0, 1, 8, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24,
 ))
 
 def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Gravity vector G(q) = dU_g/dq, length NQ.
 
-    Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -370,8 +369,8 @@ def gravity(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_sca
     t0 = (P.gravity[0] * (-0.00054 * kern[0] * sphi[0] - 0.00054 * kern[1] * cphi[0])
         + P.gravity[1] * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
         + 0.03 * (0.0225 * P.gravity[1] * kern[6] - 0.0225 * P.gravity[0] * kern[7]))
-    t1 = (P.gravity[0] * (kern[10] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
-        + P.gravity[1] * (kern[11] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]))
+    t1 = (P.gravity[0] * (-0.0225 * kern[7] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        + P.gravity[1] * (0.0225 * kern[6] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]))
     t2 = (P.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + P.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]))
     t3 = (P.gravity[0] * (-0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8])
@@ -490,7 +489,7 @@ def potential_energy(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Kinetic energy T = 1/2 q'^T B(q) q' [J], with B from inertia().
 
-    Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     qd = np.asarray(_vector(qd, NQ, "qd"))
@@ -498,14 +497,13 @@ def kinetic_energy(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 
 # pairs (row, moment base)
 _GRAVITY_JACOBIAN_ROWS = _kernel_plan((
-    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 9, 16, 9, 24, 10, 0, 10, 8, 8, 0, 8,
-    8, 8, 16, 8, 24,
+    0, 16, 0, 24, 1, 16, 1, 24, 2, 16, 2, 24, 9, 0, 9, 8, 9, 16, 9, 24, 8, 0, 8, 8, 8, 16, 8, 24,
 ))
 
 def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric.
 
-    Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     nu = [0.0] * _NU_LEN
@@ -529,13 +527,13 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
     t5 = (P.gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
         + P.gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
         + 0.03 * (-0.003375 * P.gravity[0] * kern[6] - 0.003375 * P.gravity[1] * kern[7]))
-    t6 = (P.gravity[0] * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
-        + P.gravity[1] * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
-    t7 = (P.gravity[0] * (kern[14] * t0 + 5.184e-5 * kern[15] * sphi[0])
-        + P.gravity[1] * (kern[15] * t0 - 5.184e-5 * kern[14] * sphi[0]))
+    t6 = (P.gravity[0] * (0.0027 * nu[24] * sphi[0] - 0.003375 * kern[6] - 0.0027 * nu[16] * cphi[0])
+        + P.gravity[1] * (-0.003375 * kern[7] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]))
+    t7 = (P.gravity[0] * (kern[12] * t0 + 5.184e-5 * kern[13] * sphi[0])
+        + P.gravity[1] * (kern[13] * t0 - 5.184e-5 * kern[12] * sphi[0]))
     t8 = (P.gravity[0] * (kern[8] * t1 + 0.001728 * sphi[0] * kern[9])
         + P.gravity[1] * (kern[9] * t1 - 0.001728 * sphi[0] * kern[8]))
-    out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[12] * P.gravity[0] - 0.0001771875 * kern[13] * P.gravity[1])
+    out[0, 0] = (-P.density_scale[0] * (-0.0001771875 * kern[10] * P.gravity[0] - 0.0001771875 * kern[11] * P.gravity[1])
         - P.density_scale[1] * t5 - P.payload_mass * t6)
     out[0, 1] = t4
     out[1, 0] = t4
@@ -546,7 +544,7 @@ def gravity_jacobian(q, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_in
 def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """Regressor Y(q, q', q''), NQ x NTHETA: Y theta = B q'' + C q' + G + K q + D q' exactly, for the linear parameters theta (the fields of Params but gravity, in order). Gravity is not in theta: the keyword gravity is read, the other parameters are ignored.
 
-    Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -579,14 +577,13 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
 # pairs (row, moment base)
 _SHARES_ROWS = _kernel_plan((
     0, 16, 0, 24, 1, 0, 1, 8, 1, 16, 1, 24, 2, 0, 2, 8, 2, 16, 2, 24, 9, 0, 9, 8, 9, 16, 9, 24,
-    10, 0, 10, 8, 8, 16, 8, 24, 3, 8, 4, 0, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24,
-    11, 24,
+    8, 16, 8, 24, 5, 0, 10, 8, 5, 16, 6, 16, 7, 16, 11, 24, 12, 24, 10, 24,
 ))
 
 def _shares(q, qd, P):
     """What terms() and regressor() have in common: the values s that the rest of each reads, at the parameters P (as _params returns them).
 
-    Operations: 213 add, 428 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 203 add, 422 mul, 4 div, 0 sqrt, 6 trig.
     """
     nu = [0.0] * _NU_LEN
     _moments(0.15 * q[0], 6, nu, 0, 8)
@@ -598,8 +595,8 @@ def _shares(q, qd, P):
     sphi[0] = math.sin(phi)
     kern = _kernels(_SHARES_ROWS, nu)
     s = [0.0] * 21
-    t0 = qd[1] * kern[16]
-    t1 = qd[1] * kern[17]
+    t0 = qd[1] * kern[14]
+    t1 = qd[1] * kern[15]
     t2 = kern[0] * cphi[0]
     t3 = kern[1] * sphi[0]
     t4 = kern[1] * cphi[0]
@@ -618,13 +615,13 @@ def _shares(q, qd, P):
     t17 = -0.000432 * sphi[0]
     t18 = -5.184e-5 * cphi[0]
     t19 = -0.003375 * t14
-    t20 = qd[0] * kern[25]
+    t20 = qd[0] * kern[21]
     t21 = nu[16] * cphi[0]
     t22 = nu[24] * sphi[0]
     t23 = nu[24] * cphi[0]
     t24 = nu[16] * sphi[0]
-    t25 = kern[18] - 0.018 * t24 - 0.018 * t23
-    t26 = kern[19] - 0.018 * t22 + 0.018 * t21
+    t25 = -0.0225 * kern[7] - 0.018 * t24 - 0.018 * t23
+    t26 = 0.0225 * kern[6] - 0.018 * t22 + 0.018 * t21
     t27 = cphi[0] * kern[9]
     t28 = sphi[0] * kern[8]
     t29 = -0.0144 * t27 - 0.0144 * t28
@@ -633,28 +630,28 @@ def _shares(q, qd, P):
     t32 = 0.0144 * t30 - 0.0144 * t31
     t33 = 0.00216 * t31 - 0.00216 * t30
     t34 = -0.00216 * t28 - 0.00216 * t27
-    t35 = qd[0] * (kern[14] - 0.0027 * t21 + 0.0027 * t22) + qd[1] * t33
-    t36 = qd[0] * (kern[15] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34
+    t35 = qd[0] * (0.0027 * t22 - 0.003375 * kern[10] - 0.0027 * t21) + qd[1] * t33
+    t36 = qd[0] * (-0.003375 * kern[11] - 0.0027 * t23 - 0.0027 * t24) + qd[1] * t34
     t37 = -0.001728 * cphi[0]
     t38 = qd[0] * t33 + qd[1] * (kern[12] * t37 + 0.001728 * sphi[0] * kern[13])
     t39 = qd[0] * t34 + qd[1] * (kern[13] * t37 - 0.001728 * sphi[0] * kern[12])
     t40 = (0.0225 * kern[7] * (0.000432 * cphi[0] * t16 + t15 * t17)
         + 0.0225 * kern[6] * (t16 * t17 - 0.000432 * cphi[0] * t15))
-    s[0] = kern[20]
-    s[1] = -3.98671875e-6 * qd[0] * kern[21]
-    s[2] = kern[22]
+    s[0] = kern[16]
+    s[1] = -3.98671875e-6 * qd[0] * kern[17]
+    s[2] = kern[18]
     s[3] = (0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6]) + t9 + t9
-        + 9.72e-6 * kern[23])
-    s[4] = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[24]
+        + 9.72e-6 * kern[19])
+    s[4] = kern[6] * t12 - 0.0225 * kern[7] * t10 + 7.776e-6 * kern[20]
     s[5] = (0.03 * (7.59375e-5 * kern[7] * t13 - 7.59375e-5 * kern[6] * t14)
         - 0.0225 * qd[0] * (kern[6] * t8 - 0.0225 * kern[7] * t6) + 0.15 * t40
-        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[25])
+        + 0.15 * (0.003375 * t7 * t13 + t6 * t19) - 1.1664e-6 * qd[1] * kern[21])
     s[6] = (0.15 * qd[0] * (kern[7] * t12 + 0.0225 * kern[6] * t10)
         - 0.0225 * kern[7] * (t0 * t18 + 5.184e-5 * t1 * sphi[0])
         + 0.0225 * kern[6] * (t1 * t18 - 5.184e-5 * t0 * sphi[0]) - 1.1664e-6 * t20
-        - 9.3312e-7 * qd[1] * kern[26])
+        - 9.3312e-7 * qd[1] * kern[22])
     s[7] = t11 * t19 - 0.003375 * t10 * t13 + 1.1664e-6 * t20
-    s[8] = -7.46496e-7 * qd[1] * kern[27]
+    s[8] = -7.46496e-7 * qd[1] * kern[23]
     s[9] = t25 * t25 + t26 * t26
     s[10] = t25 * t29 + t26 * t32
     s[11] = t29 * t29 + t32 * t32
@@ -675,7 +672,7 @@ def _shares(q, qd, P):
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
     """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
 
-    Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
@@ -768,7 +765,7 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 247 add, 473 mul, 9 div, 2 sqrt, 6 trig.
+    Operations: 237 add, 467 mul, 9 div, 2 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
@@ -924,7 +921,7 @@ def static_residual(q, u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     """Static residual R = K q + G(q) - A(q) u: zero at an equilibrium under u.
     Raises StaticsError on a non-finite input.
 
-    Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 111 add, 223 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
@@ -938,7 +935,7 @@ def static_jacobian(q, u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     """Jacobian of the static residual, dR/dq = K + dG/dq - d(A u)/dq: symmetric (every
     load of the model is conservative), positive definite at a stable equilibrium.
 
-    Operations: 139 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+    Operations: 133 add, 261 mul, 4 div, 0 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
@@ -978,8 +975,8 @@ def equilibrium(u, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia
     iterations, load_steps, residual, relative_residual and stable; raises
     StaticsError when there is none.
 
-    Operations per Newton iteration, at most: 281 add, 511 mul, 11 div, 4 sqrt, 12 trig.
-    Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
+    Operations per Newton iteration, at most: 271 add, 505 mul, 11 div, 4 sqrt, 12 trig.
+    Per backtracking trial: 126 add, 234 mul, 4 div, 4 sqrt, 6 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     u = _vector(u, NU, "u")
@@ -1102,7 +1099,7 @@ def regulate(law, target, kp, kd, q, qd, *, density_scale=PARAMS_DEFAULT.density
     This computes a command; it does not make it safe. Rate-limit and bound it, and
     stop the arm when the result or the state is not what you expect.
 
-    Operations before the allocation, at most: 163 add, 276 mul, 5 div, 0 sqrt, 6 trig.
+    Operations before the allocation, at most: 159 add, 274 mul, 5 div, 0 sqrt, 6 trig.
     Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)

@@ -576,18 +576,35 @@ impl<'p> Scheduler<'p> {
             };
             (o.0, len, o.1)
         });
-        // One kern[] slot per distinct use: kernel roots that are constant multiples of
-        // one double-kernel part read the same use, each with its own factor.
-        let mut first_of: BTreeMap<KernelUse, usize> = BTreeMap::new();
+        // One kern[] slot per kernel up to a constant factor: kernel roots that are
+        // constant multiples of one double-kernel part read the same use, and so does a
+        // dot product proportional to an earlier one at the same moment base, each with
+        // its factor in the code that reads it.
+        let mut first_of: BTreeMap<(bool, usize, KernelRow), (usize, Q)> = BTreeMap::new();
         let mut aliases: Vec<(usize, usize)> = Vec::new();
-        rows.retain(|((_, i, _), u)| match first_of.entry(*u) {
-            std::collections::btree_map::Entry::Vacant(v) => {
-                v.insert(*i);
-                true
-            }
-            std::collections::btree_map::Entry::Occupied(o) => {
-                aliases.push((*i, *o.get()));
-                false
+        let table = &self.table;
+        rows.retain(|((part, i, _), u)| {
+            let row = &table.rows[u.row];
+            // A double-kernel part's row is its bare part, which the families compute:
+            // only the same use is the same kernel.
+            let lead = match (part, row.first()) {
+                (None, Some((_, c))) => c.clone(),
+                _ => Q::one(),
+            };
+            let shape: KernelRow = row.iter().map(|(n, c)| (*n, c / &lead)).collect();
+            match first_of.entry((part.is_some(), u.base, shape)) {
+                std::collections::btree_map::Entry::Vacant(v) => {
+                    v.insert((*i, lead));
+                    true
+                }
+                std::collections::btree_map::Entry::Occupied(o) => {
+                    let (first, first_lead) = o.get();
+                    if part.is_none() {
+                        st.kernel_scale.insert(*i, &lead / first_lead);
+                    }
+                    aliases.push((*i, *first));
+                    false
+                }
             }
         });
         let plain = rows.iter().take_while(|(o, _)| o.0.is_none()).count();
@@ -830,8 +847,8 @@ mod tests {
     }
 
     /// A kernel is evaluated once per function however many constant multiples of it
-    /// the code reads: no two dot-product uses and no two double-kernel entries of a
-    /// function are the same.
+    /// the code reads: no two dot-product uses of a function are proportional, and no
+    /// two of its double-kernel entries are the same.
     #[test]
     fn every_kernel_is_evaluated_once_per_function() {
         let arm = crate::arm::parse_arm_str(
@@ -849,7 +866,11 @@ mod tests {
         for f in plan.funcs() {
             let mut seen = std::collections::BTreeSet::new();
             for u in f.dot_uses() {
-                assert!(seen.insert((u.row, u.base)), "{u:?} evaluated twice");
+                let row = &plan.table.rows[u.row];
+                let lead = &row[0].1;
+                let shape: Vec<(usize, crate::exact::Q)> =
+                    row.iter().map(|(n, c)| (*n, c / lead)).collect();
+                assert!(seen.insert((u.base, shape)), "{u:?} evaluated twice");
             }
             for fam in &f.families {
                 let mut seen = std::collections::BTreeSet::new();

@@ -146,12 +146,12 @@ pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (115 reals, 920 bytes at most). Own one per
+/// plain functions keep on the stack (111 reals, 888 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 115;
+pub const WORK_LEN: usize = 111;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -317,9 +317,9 @@ fn scaled_series(h: Real, n: usize) -> Real {
 /// Moment kernels: row `r` at moment base `b` is the dot product of its band
 /// `COEF[START[r]..START[r+1]]` with `nu[b + FIRST[r]..]`; a row is shared by every
 /// segment (and by real and imaginary parts) with the same weight shape.
-static KERNEL_START: [u8; 15] = [0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 33, 39, 43, 48];
-static KERNEL_FIRST: [u8; 14] = [0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
-static KERNEL_COEF: [Real; 48] = [
+static KERNEL_START: [u8; 14] = [0, 2, 5, 7, 9, 11, 16, 19, 23, 27, 30, 36, 40, 45];
+static KERNEL_FIRST: [u8; 13] = [0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0, 0];
+static KERNEL_COEF: [Real; 45] = [
     0.5,
     -0.5,
     0.16666666666666666,
@@ -350,9 +350,6 @@ static KERNEL_COEF: [Real; 48] = [
     0.3333333333333333,
     0.5,
     0.16666666666666666,
-    -0.001125,
-    -0.0016875,
-    -0.0005625,
     0.005555555555555556,
     -0.004761904761904762,
     -0.00496031746031746,
@@ -531,17 +528,16 @@ fn moments(a: Real, count: usize, out: &mut [Real], re: usize, im: usize) {
     }
 }
 /// Dot-product kernels of `shares`: pairs (row, moment base).
-static SHARES_ROWS: [u8; 20] = [
-    3, 8, 4, 0, 5, 0, 11, 8, 5, 16, 6, 16, 7, 16, 12, 24, 13, 24, 11, 24,
+static SHARES_ROWS: [u8; 16] = [
+    5, 0, 10, 8, 5, 16, 6, 16, 7, 16, 11, 24, 12, 24, 10, 24,
 ];
-/// Dot-product kernels 0..18 of `shares`: one row at both parts of a segment's moments, (row, real base, imaginary base).
-static SHARES_REIM0: [u8; 27] = [
-    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8,
-    16, 24,
+/// Dot-product kernels 0..16 of `shares`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static SHARES_REIM0: [u8; 24] = [
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 16, 24,
 ];
-/// What [`terms`] and [`regressor`] have in common: the 21 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 94 reals).
+/// What [`terms`] and [`regressor`] have in common: the 21 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 90 reals).
 ///
-/// Operations: 213 add, 428 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 203 add, 422 mul, 4 div, 0 sqrt, 6 trig.
 fn shares_in(
     p: &Params,
     q: &[Real; NQ],
@@ -550,7 +546,7 @@ fn shares_in(
     work: &mut [Real],
 ) {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(28);
+    let (kern, work) = work.split_at_mut(24);
     let t = &mut work[..34];
     moments(0.15 * q[0], 6, nu, 0, 8);
     moments(0.12 * q[1], 6, nu, 16, 24);
@@ -558,11 +554,11 @@ fn shares_in(
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels_reim(&SHARES_REIM0, nu, &mut kern[0..18]);
-    kernels(&SHARES_ROWS[0..20], nu, &mut kern[18..28]);
+    kernels_reim(&SHARES_REIM0, nu, &mut kern[0..16]);
+    kernels(&SHARES_ROWS[0..16], nu, &mut kern[16..24]);
     let s = &mut s[..21];
-    t[0] = qd[1] * kern[16];
-    t[1] = qd[1] * kern[17];
+    t[0] = qd[1] * kern[14];
+    t[1] = qd[1] * kern[15];
     t[2] = kern[0] * cphi[0];
     t[3] = kern[1] * sphi[0];
     t[4] = kern[1] * cphi[0];
@@ -581,13 +577,13 @@ fn shares_in(
     t[17] = -0.000432 * sphi[0];
     t[18] = -5.184e-5 * cphi[0];
     t[19] = -0.003375 * t[14];
-    t[20] = qd[0] * kern[25];
+    t[20] = qd[0] * kern[21];
     t[21] = nu[16] * cphi[0];
     t[22] = nu[24] * sphi[0];
     t[23] = nu[24] * cphi[0];
     t[24] = nu[16] * sphi[0];
-    t[25] = kern[18] - 0.018 * t[24] - 0.018 * t[23];
-    t[26] = kern[19] - 0.018 * t[22] + 0.018 * t[21];
+    t[25] = -0.0225 * kern[7] - 0.018 * t[24] - 0.018 * t[23];
+    t[26] = 0.0225 * kern[6] - 0.018 * t[22] + 0.018 * t[21];
     t[27] = cphi[0] * kern[9];
     t[28] = sphi[0] * kern[8];
     t[29] = -0.0144 * t[27] - 0.0144 * t[28];
@@ -596,28 +592,30 @@ fn shares_in(
     t[32] = 0.0144 * t[30] - 0.0144 * t[31];
     t[33] = 0.00216 * t[31] - 0.00216 * t[30];
     t[30] = -0.00216 * t[28] - 0.00216 * t[27];
-    t[27] = qd[0] * (kern[14] - 0.0027 * t[21] + 0.0027 * t[22]) + qd[1] * t[33];
-    t[21] = qd[0] * (kern[15] - 0.0027 * t[23] - 0.0027 * t[24]) + qd[1] * t[30];
+    t[27] = qd[0] * (0.0027 * t[22] - 0.003375 * kern[10] - 0.0027 * t[21])
+        + qd[1] * t[33];
+    t[21] = qd[0] * (-0.003375 * kern[11] - 0.0027 * t[23] - 0.0027 * t[24])
+        + qd[1] * t[30];
     t[22] = -0.001728 * cphi[0];
     t[23] = qd[0] * t[33] + qd[1] * (kern[12] * t[22] + 0.001728 * sphi[0] * kern[13]);
     t[24] = qd[0] * t[30] + qd[1] * (kern[13] * t[22] - 0.001728 * sphi[0] * kern[12]);
     t[22] = 0.0225 * kern[7] * (0.000432 * cphi[0] * t[16] + t[15] * t[17])
         + 0.0225 * kern[6] * (t[16] * t[17] - 0.000432 * cphi[0] * t[15]);
-    s[0] = kern[20];
-    s[1] = -3.98671875e-6 * qd[0] * kern[21];
-    s[2] = kern[22];
+    s[0] = kern[16];
+    s[1] = -3.98671875e-6 * qd[0] * kern[17];
+    s[2] = kern[18];
     s[3] = 0.03 * (0.00050625 * kern[7] * kern[7] + 0.00050625 * kern[6] * kern[6])
-        + t[9] + t[9] + 9.72e-6 * kern[23];
-    s[4] = kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[24];
+        + t[9] + t[9] + 9.72e-6 * kern[19];
+    s[4] = kern[6] * t[12] - 0.0225 * kern[7] * t[10] + 7.776e-6 * kern[20];
     s[5] = 0.03 * (7.59375e-5 * kern[7] * t[13] - 7.59375e-5 * kern[6] * t[14])
         - 0.0225 * qd[0] * (kern[6] * t[8] - 0.0225 * kern[7] * t[6]) + 0.15 * t[22]
-        + 0.15 * (0.003375 * t[7] * t[13] + t[6] * t[19]) - 1.1664e-6 * qd[1] * kern[25];
+        + 0.15 * (0.003375 * t[7] * t[13] + t[6] * t[19]) - 1.1664e-6 * qd[1] * kern[21];
     s[6] = 0.15 * qd[0] * (kern[7] * t[12] + 0.0225 * kern[6] * t[10])
         - 0.0225 * kern[7] * (t[0] * t[18] + 5.184e-5 * t[1] * sphi[0])
         + 0.0225 * kern[6] * (t[1] * t[18] - 5.184e-5 * t[0] * sphi[0])
-        - 1.1664e-6 * t[20] - 9.3312e-7 * qd[1] * kern[26];
+        - 1.1664e-6 * t[20] - 9.3312e-7 * qd[1] * kern[22];
     s[7] = t[11] * t[19] - 0.003375 * t[10] * t[13] + 1.1664e-6 * t[20];
-    s[8] = -7.46496e-7 * qd[1] * kern[27];
+    s[8] = -7.46496e-7 * qd[1] * kern[23];
     s[9] = t[25] * t[25] + t[26] * t[26];
     s[10] = t[25] * t[29] + t[26] * t[32];
     s[11] = t[29] * t[29] + t[32] * t[32];
@@ -634,15 +632,15 @@ fn shares_in(
     s[20] = p.gravity[0] * t[29] + p.gravity[1] * t[32];
 }
 /// Dot-product kernels of `inertia`: pairs (row, moment base).
-static INERTIA_ROWS: [u8; 12] = [3, 8, 4, 0, 5, 0, 5, 16, 6, 16, 7, 16];
+static INERTIA_ROWS: [u8; 8] = [5, 0, 5, 16, 6, 16, 7, 16];
 /// Dot-product kernels 0..8 of `inertia`: one row at both parts of a segment's moments, (row, real base, imaginary base).
 static INERTIA_REIM0: [u8; 12] = [0, 16, 24, 1, 16, 24, 2, 0, 8, 2, 16, 24];
-/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 53 reals).
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 51 reals).
 ///
-/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(14);
+    let (kern, work) = work.split_at_mut(12);
     let t = &mut work[..7];
     moments(0.15 * q[0], 5, nu, 0, 8);
     moments(0.12 * q[1], 5, nu, 16, 24);
@@ -651,33 +649,33 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
     kernels_reim(&INERTIA_REIM0, nu, &mut kern[0..8]);
-    kernels(&INERTIA_ROWS[0..12], nu, &mut kern[8..14]);
+    kernels(&INERTIA_ROWS[0..8], nu, &mut kern[8..12]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = 0.0225 * kern[5] * (0.0036 * kern[1] * cphi[0] + 0.0036 * kern[0] * sphi[0])
         + 0.0225 * kern[4] * (0.0036 * kern[0] * cphi[0] - 0.0036 * kern[1] * sphi[0]);
     t[1] = 0.15 * t[0];
-    t[0] = kern[8] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
-    t[2] = kern[9] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
+    t[0] = -0.0225 * kern[5] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0];
+    t[2] = 0.0225 * kern[4] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0];
     t[3] = -0.0144 * cphi[0] * kern[7] - 0.0144 * sphi[0] * kern[6];
     t[4] = 0.0144 * cphi[0] * kern[6] - 0.0144 * sphi[0] * kern[7];
     t[5] = 0.0225 * kern[4]
         * (0.000432 * kern[2] * cphi[0] - 0.000432 * kern[3] * sphi[0])
         - 0.0225 * kern[5]
             * (-0.000432 * kern[3] * cphi[0] - 0.000432 * kern[2] * sphi[0])
-        + 7.776e-6 * kern[13];
+        + 7.776e-6 * kern[11];
     t[6] = p.density_scale[1] * t[5] + 6.48e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[0] * t[3] + t[2] * t[4])
         + 0.018 * p.payload_rotary_inertia;
     t[5] = 0.03 * (0.00050625 * kern[5] * kern[5] + 0.00050625 * kern[4] * kern[4])
-        + t[1] + t[1] + 9.72e-6 * kern[12];
-    out[0][0] = 2.6578125e-5 * kern[10] * p.density_scale[0]
+        + t[1] + t[1] + 9.72e-6 * kern[10];
+    out[0][0] = 2.6578125e-5 * kern[8] * p.density_scale[0]
         + 1.125e-8 * p.rotary_inertia_scale[0] + p.density_scale[1] * t[5]
         + 1.62e-8 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[0] * t[0] + t[2] * t[2])
         + 0.0225 * p.payload_rotary_inertia;
     out[0][1] = t[6];
     out[1][0] = t[6];
-    out[1][1] = 6.2208e-6 * kern[11] * p.density_scale[1]
+    out[1][1] = 6.2208e-6 * kern[9] * p.density_scale[1]
         + 3.456e-9 * p.rotary_inertia_scale[1]
         + p.payload_mass * (t[3] * t[3] + t[4] * t[4])
         + 0.0144 * p.payload_rotary_inertia;
@@ -685,25 +683,25 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
 }
 /// Inertia matrix `B(q)`, NQ×NQ, symmetric positive definite; `T = ½ q̇ᵀ B q̇`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    inertia_in(&Params::DEFAULT, q, &mut [0.0; 53])
+    inertia_in(&Params::DEFAULT, q, &mut [0.0; 51])
 }
-/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (51 reals); the same values.
 ///
-/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     inertia_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`inertia`] at the runtime parameters `p`.
 ///
-/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    inertia_in(p, q, &mut [0.0; 53])
+    inertia_in(p, q, &mut [0.0; 51])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 127 add, 264 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 123 add, 262 mul, 4 div, 0 sqrt, 6 trig.
 pub fn inertia_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -711,16 +709,14 @@ pub fn inertia_with_ws(
 ) -> [[Real; NQ]; NQ] {
     inertia_in(p, q, &mut ws.0)
 }
-/// Dot-product kernels of `gravity`: pairs (row, moment base).
-static GRAVITY_ROWS: [u8; 4] = [3, 8, 4, 0];
 /// Dot-product kernels 0..10 of `gravity`: one row at both parts of a segment's moments, (row, real base, imaginary base).
 static GRAVITY_REIM0: [u8; 15] = [0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24];
-/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 48 reals).
+/// The work of [`gravity`] and [`gravity_ws`], in `work` (at least 46 reals).
 ///
-/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
 fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(12);
+    let (kern, work) = work.split_at_mut(10);
     let t = &mut work[..4];
     moments(0.15 * q[0], 3, nu, 0, 8);
     moments(0.12 * q[1], 3, nu, 16, 24);
@@ -729,15 +725,14 @@ fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
     kernels_reim(&GRAVITY_REIM0, nu, &mut kern[0..10]);
-    kernels(&GRAVITY_ROWS[0..4], nu, &mut kern[10..12]);
     let mut out = [0.0; NQ];
     t[0] = p.gravity[0] * (-0.00054 * kern[0] * sphi[0] - 0.00054 * kern[1] * cphi[0])
         + p.gravity[1] * (0.00054 * kern[0] * cphi[0] - 0.00054 * kern[1] * sphi[0])
         + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
     t[1] = p.gravity[0]
-        * (kern[10] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
+        * (-0.0225 * kern[7] - 0.018 * nu[16] * sphi[0] - 0.018 * nu[24] * cphi[0])
         + p.gravity[1]
-            * (kern[11] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
+            * (0.0225 * kern[6] - 0.018 * nu[24] * sphi[0] + 0.018 * nu[16] * cphi[0]);
     t[2] = p.gravity[0] * (-0.000432 * kern[5] * cphi[0] - 0.000432 * kern[4] * sphi[0])
         + p.gravity[1] * (0.000432 * kern[4] * cphi[0] - 0.000432 * kern[5] * sphi[0]);
     t[3] = p.gravity[0] * (-0.0144 * cphi[0] * kern[9] - 0.0144 * sphi[0] * kern[8])
@@ -750,25 +745,25 @@ fn gravity_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [Real; NQ] {
 }
 /// Gravity vector `G(q) = ∂U_g/∂q`. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity(q: &[Real; NQ]) -> [Real; NQ] {
-    gravity_in(&Params::DEFAULT, q, &mut [0.0; 48])
+    gravity_in(&Params::DEFAULT, q, &mut [0.0; 46])
 }
-/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (48 reals); the same values.
+/// [`gravity`] with its scratch in the caller's [`Workspace`] instead of on the stack (46 reals); the same values.
 ///
-/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_ws(q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity`] at the runtime parameters `p`.
 ///
-/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_with(p: &Params, q: &[Real; NQ]) -> [Real; NQ] {
-    gravity_in(p, q, &mut [0.0; 48])
+    gravity_in(p, q, &mut [0.0; 46])
 }
 /// [`gravity_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 103 add, 213 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 99 add, 211 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(p, q, &mut ws.0)
 }
@@ -838,20 +833,20 @@ pub fn tip_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; 3] {
 pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
 }
-/// Dot-product kernels 0..16 of `gravity_jacobian`: one row at both parts of a segment's moments, (row, real base, imaginary base).
-static GRAVITY_JACOBIAN_REIM0: [u8; 24] = [
-    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 10, 0, 8, 8, 0, 8, 8, 16, 24,
+/// Dot-product kernels 0..14 of `gravity_jacobian`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static GRAVITY_JACOBIAN_REIM0: [u8; 21] = [
+    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 0, 8, 8, 16, 24,
 ];
-/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 54 reals).
+/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 52 reals).
 ///
-/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
 fn gravity_jacobian_in(
     p: &Params,
     q: &[Real; NQ],
     work: &mut [Real],
 ) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(16);
+    let (kern, work) = work.split_at_mut(14);
     let t = &mut work[..6];
     moments(0.15 * q[0], 4, nu, 0, 8);
     moments(0.12 * q[1], 4, nu, 16, 24);
@@ -859,7 +854,7 @@ fn gravity_jacobian_in(
     let mut sphi = [0.0; 1];
     let phi = 0.15 * q[0];
     (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels_reim(&GRAVITY_JACOBIAN_REIM0, nu, &mut kern[0..16]);
+    kernels_reim(&GRAVITY_JACOBIAN_REIM0, nu, &mut kern[0..14]);
     let mut out = [[0.0; NQ]; NQ];
     t[0] = -5.184e-5 * cphi[0];
     t[1] = -0.001728 * cphi[0];
@@ -873,16 +868,17 @@ fn gravity_jacobian_in(
         + 0.03
             * (-0.003375 * p.gravity[0] * kern[6] - 0.003375 * p.gravity[1] * kern[7]);
     t[3] = p.gravity[0]
-        * (kern[10] - 0.0027 * nu[16] * cphi[0] + 0.0027 * nu[24] * sphi[0])
+        * (0.0027 * nu[24] * sphi[0] - 0.003375 * kern[6] - 0.0027 * nu[16] * cphi[0])
         + p.gravity[1]
-            * (kern[11] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    t[5] = p.gravity[0] * (kern[14] * t[0] + 5.184e-5 * kern[15] * sphi[0])
-        + p.gravity[1] * (kern[15] * t[0] - 5.184e-5 * kern[14] * sphi[0]);
+            * (-0.003375 * kern[7] - 0.0027 * nu[24] * cphi[0]
+                - 0.0027 * nu[16] * sphi[0]);
+    t[5] = p.gravity[0] * (kern[12] * t[0] + 5.184e-5 * kern[13] * sphi[0])
+        + p.gravity[1] * (kern[13] * t[0] - 5.184e-5 * kern[12] * sphi[0]);
     t[0] = p.gravity[0] * (kern[8] * t[1] + 0.001728 * sphi[0] * kern[9])
         + p.gravity[1] * (kern[9] * t[1] - 0.001728 * sphi[0] * kern[8]);
     out[0][0] = -p.density_scale[0]
-        * (-0.0001771875 * kern[12] * p.gravity[0]
-            - 0.0001771875 * kern[13] * p.gravity[1]) - p.density_scale[1] * t[2]
+        * (-0.0001771875 * kern[10] * p.gravity[0]
+            - 0.0001771875 * kern[11] * p.gravity[1]) - p.density_scale[1] * t[2]
         - p.payload_mass * t[3];
     out[0][1] = t[4];
     out[1][0] = t[4];
@@ -891,25 +887,25 @@ fn gravity_jacobian_in(
 }
 /// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 54])
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 52])
 }
-/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (54 reals); the same values.
+/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (52 reals); the same values.
 ///
-/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
 }
 /// [`gravity_jacobian`] at the runtime parameters `p`.
 ///
-/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(p, q, &mut [0.0; 54])
+    gravity_jacobian_in(p, q, &mut [0.0; 52])
 }
 /// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 135 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
 pub fn gravity_jacobian_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -971,9 +967,9 @@ pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
 pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 115 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 111 reals).
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 fn terms_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1009,16 +1005,16 @@ fn terms_in(
 }
 /// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 115])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 111])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (115 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (111 reals); the same values.
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1028,17 +1024,17 @@ pub fn terms_ws(
 }
 /// [`terms`] at the runtime parameters `p`.
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with(
     p: &Params,
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 115])
+    terms_in(p, q, qd, &mut [0.0; 111])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn terms_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -1047,9 +1043,9 @@ pub fn terms_with_ws(
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 115 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 111 reals).
 ///
-/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
 fn regressor_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1085,17 +1081,17 @@ fn regressor_in(
 }
 /// Regressor `Y(q, q̇, q̈)`, NQ×NTHETA: `Y θ = B q̈ + C q̇ + G + K q + D q̇` exactly, for the linear parameters `θ` (the fields of [`Params`] but gravity, in order). Gravity is not in `θ`: the `_with` forms read `p.gravity` and ignore `p`'s other fields. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor(
     q: &[Real; NQ],
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 115])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 111])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (115 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (111 reals); the same values.
 ///
-/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1106,18 +1102,18 @@ pub fn regressor_ws(
 }
 /// [`regressor`] at the runtime parameters `p`.
 ///
-/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with(
     p: &Params,
     q: &[Real; NQ],
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 115])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 111])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 235 add, 461 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 225 add, 455 mul, 4 div, 0 sqrt, 6 trig.
 pub fn regressor_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -1127,9 +1123,9 @@ pub fn regressor_with_ws(
 ) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 115 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 111 reals).
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 fn coriolis_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1140,13 +1136,13 @@ fn coriolis_in(
 }
 /// Coriolis matrix `C(q, q̇)` (Christoffel symbols of the first kind; `Ḃ − 2C` skew), NQ×NQ. From [`terms`]: C shares nearly all of its work with B and G. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 115])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 111])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (115 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (111 reals); the same values.
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1156,13 +1152,13 @@ pub fn coriolis_ws(
 }
 /// [`coriolis`] at the runtime parameters `p`.
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 115])
+    coriolis_in(p, q, qd, &mut [0.0; 111])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 234 add, 458 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 224 add, 452 mul, 4 div, 0 sqrt, 6 trig.
 pub fn coriolis_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -1171,9 +1167,9 @@ pub fn coriolis_with_ws(
 ) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 53 reals).
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 51 reals).
 ///
-/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 fn kinetic_energy_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1193,25 +1189,25 @@ fn kinetic_energy_in(
 }
 /// Kinetic energy `T = ½ q̇ᵀ B(q) q̇` [J], with `B` from [`inertia`]. At the arm file's parameters ([`Params::DEFAULT`]).
 ///
-/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
-    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 53])
+    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 51])
 }
-/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (53 reals); the same values.
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (51 reals); the same values.
 ///
-/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
     kinetic_energy_in(&Params::DEFAULT, q, qd, &mut ws.0)
 }
 /// [`kinetic_energy`] at the runtime parameters `p`.
 ///
-/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
-    kinetic_energy_in(p, q, qd, &mut [0.0; 53])
+    kinetic_energy_in(p, q, qd, &mut [0.0; 51])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
-/// Operations: 131 add, 271 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 127 add, 269 mul, 4 div, 0 sqrt, 6 trig.
 pub fn kinetic_energy_with_ws(
     p: &Params,
     q: &[Real; NQ],
@@ -1324,13 +1320,13 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 247 add, 473 mul, 9 div, 2 sqrt, 6 trig.
+/// Operations: 237 add, 467 mul, 9 div, 2 sqrt, 6 trig.
 pub fn forward_dynamics(
     q: &[Real; NQ],
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 115])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 111])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -1339,10 +1335,10 @@ pub fn forward_dynamics_with(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 115])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 111])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (115 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (111 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -1362,7 +1358,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 115 reals).
+/// 111 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[Real; NQ],
@@ -1465,7 +1461,7 @@ const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
 const EQUILIBRIUM_MIN_STEP: Real = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
 const EQUILIBRIUM_MAX_BENDING_STEP: Real = 0.5;
-const STATICS_WORK: usize = 54;
+const STATICS_WORK: usize = 52;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
 fn bending(v: &[Real; NQ]) -> Real {
     let mut worst: Real = 0.0;
@@ -1554,7 +1550,7 @@ fn cholesky(h: usize, ld: usize, a: &mut [Real], b: &mut [Real], floor: Real) ->
 }
 /// Static residual `R = K q + G(q) − A(q) u`: zero at an equilibrium under `u`.
 ///
-/// Operations: 115 add, 225 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 111 add, 223 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_residual(
     q: &[Real; NQ],
     u: &[Real; NU],
@@ -1611,7 +1607,7 @@ fn static_residual_in(
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
 ///
-/// Operations: 139 add, 265 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 133 add, 261 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
     q: &[Real; NQ],
     u: &[Real; NU],
@@ -1726,8 +1722,8 @@ fn linearise(
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
 ///
-/// Operations per Newton iteration, at most: 281 add, 511 mul, 11 div, 4 sqrt, 12 trig.
-/// Per backtracking trial: 130 add, 236 mul, 4 div, 4 sqrt, 6 trig.
+/// Operations per Newton iteration, at most: 271 add, 505 mul, 11 div, 4 sqrt, 12 trig.
+/// Per backtracking trial: 126 add, 234 mul, 4 div, 4 sqrt, 6 trig.
 pub fn equilibrium(u: &[Real; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut [0.0; STATICS_WORK])
 }
@@ -1927,7 +1923,7 @@ fn select(v: &[Real; NQ]) -> [Real; NY] {
 /// This computes a command; it does not make it safe. Rate-limit and bound it, and stop
 /// the arm when the result or the state is not what you expect.
 ///
-/// Operations before the allocation, at most: 163 add, 276 mul, 5 div, 0 sqrt, 6 trig.
+/// Operations before the allocation, at most: 159 add, 274 mul, 5 div, 0 sqrt, 6 trig.
 /// Per active-set iteration: 78 add, 70 mul, 18 div, 6 sqrt, 0 trig.
 pub fn regulate(
     law: Law,
