@@ -283,7 +283,7 @@ reach_arm_status reach_arm_forward_dynamics_with_ws(const reach_arm_params *P, c
 
 /**
  * Gravity Jacobian dG/dq, n x n, row-major: the Hessian of U_g, so symmetric.
- * Operations: 1845 add, 2591 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 2047 add, 2854 mul, 4 div, 0 sqrt, 6 trig.
  */
 void reach_arm_gravity_jacobian_ws(const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 void reach_arm_gravity_jacobian_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], double dG[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -302,7 +302,7 @@ reach_arm_status reach_arm_static_residual_with_ws(const reach_arm_params *P, co
  * Every load of the model is conservative, so it is symmetric: the Hessian of the
  * potential energy, positive definite at a stable equilibrium. Return codes as
  * reach_arm_static_residual.
- * Operations: 1881 add, 2591 mul, 4 div, 0 sqrt, 6 trig.
+ * Operations: 2083 add, 2854 mul, 4 div, 0 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_static_jacobian_ws(const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
 reach_arm_status reach_arm_static_jacobian_with_ws(const reach_arm_params *P, const double q[REACH_ARM_NQ], const double u[REACH_ARM_NU], double J[REACH_ARM_NQ * REACH_ARM_NQ], double work[]);
@@ -348,7 +348,7 @@ typedef struct {
  * Returns REACH_ARM_OK; REACH_ARM_ERR_NOT_CONVERGED (q then holds the last equilibrium
  * on the way, at load fraction info->load: never take it for the answer);
  * REACH_ARM_ERR_NONFINITE_INPUT (q = 0); REACH_ARM_ERR_NONFINITE_RESULT.
- * Operations per Newton iteration, at most: 3469 add, 4669 mul, 29 div, 4 sqrt, 12 trig.
+ * Operations per Newton iteration, at most: 2330 add, 3083 mul, 25 div, 4 sqrt, 6 trig.
  * Per backtracking trial: 1440 add, 1940 mul, 4 div, 4 sqrt, 6 trig.
  */
 reach_arm_status reach_arm_equilibrium_ws(const double u[REACH_ARM_NU], double q[REACH_ARM_NQ], reach_arm_equilibrium_info *info,
@@ -412,16 +412,16 @@ reach_arm_status reach_arm_regulate_with_ws(const reach_arm_params *P, reach_arm
 #define REACH_ARM_ACTUATION_WORK 1 /* 8 bytes */
 #define REACH_ARM_TIP_JACOBIAN_WORK 180 /* 1440 bytes */
 #define REACH_ARM_REGRESSOR_WORK 1751 /* 14008 bytes */
-#define REACH_ARM_GRAVITY_JACOBIAN_WORK 407 /* 3256 bytes */
 #define REACH_ARM_POTENTIAL_ENERGY_WORK 256 /* 2048 bytes */
 #define REACH_ARM_TERMS_WORK 1751 /* 14008 bytes */
 #define REACH_ARM_KINETIC_ENERGY_WORK 1264 /* 10112 bytes */
+#define REACH_ARM_GRAVITY_JACOBIAN_WORK 473 /* 3784 bytes */
 #define REACH_ARM_CORIOLIS_WORK 1793 /* 14344 bytes */
 #define REACH_ARM_POSE_WORK 212 /* 1696 bytes */
 #define REACH_ARM_FORWARD_DYNAMICS_WORK 1952 /* 15616 bytes */
 #define REACH_ARM_STATIC_RESIDUAL_WORK 358 /* 2864 bytes */
-#define REACH_ARM_STATIC_JACOBIAN_WORK 443 /* 3544 bytes */
-#define REACH_ARM_EQUILIBRIUM_WORK 581 /* 4648 bytes */
+#define REACH_ARM_STATIC_JACOBIAN_WORK 509 /* 4072 bytes */
+#define REACH_ARM_EQUILIBRIUM_WORK 647 /* 5176 bytes */
 #define REACH_ARM_REGULATE_WORK 430 /* 3440 bytes */
 #define REACH_ARM_WORK_LEN 1952 /* 15616 bytes */
 

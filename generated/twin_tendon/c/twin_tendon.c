@@ -471,6 +471,77 @@ static void twin_tendon_shares(const twin_tendon_params *P, const double q[TWIN_
     s[20] = P->gravity[0] * t29 + P->gravity[1] * t32;
 }
 
+/* Dot-product kernels 0 .. 18 of twin_tendon_gravity_linearised: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned char twin_tendon_gravity_linearised_reim0[27] = {
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 0, 8, 8, 16, 24
+};
+
+/* G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs. At the runtime parameters *P. Scratch: work[0 .. 50).
+ * Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig. */
+static void twin_tendon_gravity_linearised_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double G[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    double *const nu = &work[0]; /* 32 */
+    double *const kern = &work[32]; /* 18 */
+    double cphi[1];
+    double sphi[1];
+    double phi;
+    twin_tendon_moments(0.15 * q[0], 4, &nu[0], &nu[8]);
+    twin_tendon_moments(0.12 * q[1], 4, &nu[16], &nu[24]);
+    phi = 0.15 * q[0];
+    cphi[0] = cos(phi);
+    sphi[0] = sin(phi);
+    twin_tendon_kernel_reim(twin_tendon_gravity_linearised_reim0, 9, nu, kern, &kern[1], 2);
+    const double t0 = kern[0] * cphi[0];
+    const double t1 = kern[1] * sphi[0];
+    const double t2 = kern[1] * cphi[0];
+    const double t3 = kern[0] * sphi[0];
+    const double t4 = kern[5] * cphi[0];
+    const double t5 = kern[4] * sphi[0];
+    const double t6 = kern[4] * cphi[0];
+    const double t7 = kern[5] * sphi[0];
+    const double t8 = -5.184e-5 * cphi[0];
+    const double t9 = nu[16] * cphi[0];
+    const double t10 = nu[24] * sphi[0];
+    const double t11 = nu[24] * cphi[0];
+    const double t12 = nu[16] * sphi[0];
+    const double t13 = cphi[0] * kern[9];
+    const double t14 = sphi[0] * kern[8];
+    const double t15 = cphi[0] * kern[8];
+    const double t16 = sphi[0] * kern[9];
+    const double t17 = -0.001728 * cphi[0];
+    const double t18 = P->gravity[0] * (6.48e-5 * t7 - 6.48e-5 * t6)
+        + P->gravity[1] * (-6.48e-5 * t5 - 6.48e-5 * t4);
+    const double t19 = P->gravity[0] * (0.00216 * t16 - 0.00216 * t15)
+        + P->gravity[1] * (-0.00216 * t14 - 0.00216 * t13);
+    const double t20 = -P->density_scale[1] * t18 - P->payload_mass * t19;
+    const double t21 = P->gravity[0] * (-0.00054 * t3 - 0.00054 * t2)
+        + P->gravity[1] * (0.00054 * t0 - 0.00054 * t1)
+        + 0.03 * (0.0225 * P->gravity[1] * kern[6] - 0.0225 * P->gravity[0] * kern[7]);
+    const double t22 = P->gravity[0] * (-0.0225 * kern[7] - 0.018 * t12 - 0.018 * t11)
+        + P->gravity[1] * (0.0225 * kern[6] - 0.018 * t10 + 0.018 * t9);
+    const double t23 = P->gravity[0] * (-0.000432 * t4 - 0.000432 * t5)
+        + P->gravity[1] * (0.000432 * t6 - 0.000432 * t7);
+    const double t24 = P->gravity[0] * (-0.0144 * t13 - 0.0144 * t14)
+        + P->gravity[1] * (0.0144 * t15 - 0.0144 * t16);
+    const double t25 = P->gravity[0] * (8.1e-5 * t1 - 8.1e-5 * t0)
+        + P->gravity[1] * (-8.1e-5 * t2 - 8.1e-5 * t3)
+        + 0.03 * (-0.003375 * P->gravity[0] * kern[10] - 0.003375 * P->gravity[1] * kern[11]);
+    const double t26 = P->gravity[0] * (0.0027 * t10 - 0.003375 * kern[10] - 0.0027 * t9)
+        + P->gravity[1] * (-0.003375 * kern[11] - 0.0027 * t11 - 0.0027 * t12);
+    const double t27 = P->gravity[0] * (kern[16] * t8 + 5.184e-5 * kern[17] * sphi[0])
+        + P->gravity[1] * (kern[17] * t8 - 5.184e-5 * kern[16] * sphi[0]);
+    const double t28 = P->gravity[0] * (kern[12] * t17 + 0.001728 * sphi[0] * kern[13])
+        + P->gravity[1] * (kern[13] * t17 - 0.001728 * sphi[0] * kern[12]);
+    G[0] = -P->density_scale[0] * (0.00118125 * kern[2] * P->gravity[1] - 0.00118125 * kern[3] * P->gravity[0])
+        - P->density_scale[1] * t21 - P->payload_mass * t22;
+    G[1] = -P->density_scale[1] * t23 - P->payload_mass * t24;
+    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[14] * P->gravity[0] - 0.0001771875 * kern[15] * P->gravity[1])
+        - P->density_scale[1] * t25 - P->payload_mass * t26;
+    dG[1] = t20;
+    dG[2] = t20;
+    dG[3] = -P->density_scale[1] * t27 - P->payload_mass * t28;
+}
+
 /* Dot-product kernels of twin_tendon_inertia: pairs (row, moment base). */
 static const unsigned char twin_tendon_inertia_rows[8] = {
     5, 0, 5, 16, 6, 16, 7, 16
@@ -743,79 +814,6 @@ void twin_tendon_regressor(const double q[TWIN_TENDON_NQ], const double qd[TWIN_
 }
 #endif
 
-/* Dot-product kernels 0 .. 14 of twin_tendon_gravity_jacobian: one row at both parts of a segment's moments, (row, real base, imaginary base). */
-static const unsigned char twin_tendon_gravity_jacobian_reim0[21] = {
-    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 0, 8, 8, 16, 24
-};
-
-/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 46 reals.
- * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
-{
-    double *const nu = &work[0]; /* 32 */
-    double *const kern = &work[32]; /* 14 */
-    double cphi[1];
-    double sphi[1];
-    double phi;
-    twin_tendon_moments(0.15 * q[0], 4, &nu[0], &nu[8]);
-    twin_tendon_moments(0.12 * q[1], 4, &nu[16], &nu[24]);
-    phi = 0.15 * q[0];
-    cphi[0] = cos(phi);
-    sphi[0] = sin(phi);
-    twin_tendon_kernel_reim(twin_tendon_gravity_jacobian_reim0, 7, nu, kern, &kern[1], 2);
-    const double t0 = -5.184e-5 * cphi[0];
-    const double t1 = -0.001728 * cphi[0];
-    const double t2 = P->gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
-        + P->gravity[1] * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0]);
-    const double t3 = P->gravity[0] * (0.00216 * sphi[0] * kern[5] - 0.00216 * cphi[0] * kern[4])
-        + P->gravity[1] * (-0.00216 * sphi[0] * kern[4] - 0.00216 * cphi[0] * kern[5]);
-    const double t4 = -P->density_scale[1] * t2 - P->payload_mass * t3;
-    const double t5 = P->gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
-        + P->gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
-        + 0.03 * (-0.003375 * P->gravity[0] * kern[6] - 0.003375 * P->gravity[1] * kern[7]);
-    const double t6 = P->gravity[0] * (0.0027 * nu[24] * sphi[0] - 0.003375 * kern[6] - 0.0027 * nu[16] * cphi[0])
-        + P->gravity[1] * (-0.003375 * kern[7] - 0.0027 * nu[24] * cphi[0] - 0.0027 * nu[16] * sphi[0]);
-    const double t7 = P->gravity[0] * (kern[12] * t0 + 5.184e-5 * kern[13] * sphi[0])
-        + P->gravity[1] * (kern[13] * t0 - 5.184e-5 * kern[12] * sphi[0]);
-    const double t8 = P->gravity[0] * (kern[8] * t1 + 0.001728 * sphi[0] * kern[9])
-        + P->gravity[1] * (kern[9] * t1 - 0.001728 * sphi[0] * kern[8]);
-    dG[0] = -P->density_scale[0] * (-0.0001771875 * kern[10] * P->gravity[0] - 0.0001771875 * kern[11] * P->gravity[1])
-        - P->density_scale[1] * t5 - P->payload_mass * t6;
-    dG[1] = t4;
-    dG[2] = t4;
-    dG[3] = -P->density_scale[1] * t7 - P->payload_mass * t8;
-}
-
-
-/* twin_tendon_gravity_jacobian_with_ws at the arm file's parameters.
- * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
-{
-    twin_tendon_gravity_jacobian_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, dG, work);
-}
-
-
-#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-/* twin_tendon_gravity_jacobian_with_ws with its scratch on this function's stack.
- * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
-{
-    double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
-    twin_tendon_gravity_jacobian_with_ws(P, q, dG, work);
-}
-#endif
-
-
-#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-/* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
- * Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig. */
-void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
-{
-    double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
-    twin_tendon_gravity_jacobian_ws(q, dG, work);
-}
-#endif
-
 /* Dot-product kernels 0 .. 4 of twin_tendon_potential_energy: one row at both parts of a segment's moments, (row, real base, imaginary base). */
 static const unsigned char twin_tendon_potential_energy_reim0[6] = {
     0, 0, 8, 0, 16, 24
@@ -977,6 +975,45 @@ double twin_tendon_kinetic_energy(const double q[TWIN_TENDON_NQ], const double q
 {
     double work[TWIN_TENDON_KINETIC_ENERGY_WORK];
     return twin_tendon_kinetic_energy_ws(q, qd, work);
+}
+#endif
+
+
+/* dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Computed with G(q), which shares nearly all of its work. At the runtime parameters *P. Scratch: work[0 .. TWIN_TENDON_GRAVITY_JACOBIAN_WORK), 52 reals.
+ * Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    double *const G = &work[0]; /* 2 */
+    twin_tendon_gravity_linearised_with_ws(P, q, G, dG, &work[2]);
+}
+
+
+/* twin_tendon_gravity_jacobian_with_ws at the arm file's parameters.
+ * Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_ws(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
+{
+    twin_tendon_gravity_jacobian_with_ws(&TWIN_TENDON_PARAMS_DEFAULT, q, dG, work);
+}
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_gravity_jacobian_with_ws with its scratch on this function's stack.
+ * Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian_with(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
+    twin_tendon_gravity_jacobian_with_ws(P, q, dG, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* twin_tendon_gravity_jacobian_ws with its scratch on this function's stack.
+ * Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig. */
+void twin_tendon_gravity_jacobian(const double q[TWIN_TENDON_NQ], double dG[TWIN_TENDON_NQ * TWIN_TENDON_NQ])
+{
+    double work[TWIN_TENDON_GRAVITY_JACOBIAN_WORK];
+    twin_tendon_gravity_jacobian_ws(q, dG, work);
 }
 #endif
 
@@ -1464,7 +1501,7 @@ twin_tendon_status twin_tendon_static_residual(const double q[TWIN_TENDON_NQ], c
 twin_tendon_status twin_tendon_static_jacobian_with_ws(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double J[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double work[])
 {
     /* K and the scratch of gravity_jacobian in
-     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 50 reals. */
+     * work[0 .. TWIN_TENDON_STATIC_JACOBIAN_WORK), 56 reals. */
     double *const K = &work[0];
     int i;
     int x;
@@ -1509,7 +1546,7 @@ twin_tendon_status twin_tendon_static_jacobian(const double q[TWIN_TENDON_NQ], c
  * G - A u (the derivative in lambda), the scale ||K q|| + lambda (||G|| + ||A u||) it
  * is judged against, and (when jac is not null) its Jacobian
  * K + lambda (dG/dq - d(A u)/dq). G, A and their scratch live in work,
- * 56 reals. Returns 0 when r or jac is not finite. */
+ * 62 reals. Returns 0 when r or jac is not finite. */
 static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWIN_TENDON_NQ], const double u[TWIN_TENDON_NU], double lambda,
     const double K[TWIN_TENDON_NQ * TWIN_TENDON_NQ], double r[], double jac[], double load[], double *scale,
     double work[])
@@ -1522,7 +1559,12 @@ static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWI
     int i;
     int x;
     int c;
-    twin_tendon_gravity_with_ws(P, q, G, &work[10]);
+    /* With the Jacobian, G comes with dG/dq (into jac), which shares its work. */
+    if (jac == 0) {
+        twin_tendon_gravity_with_ws(P, q, G, &work[10]);
+    } else {
+        twin_tendon_gravity_linearised_with_ws(P, q, G, jac, &work[10]);
+    }
     twin_tendon_actuation_ws(q, A, &work[10]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         double kq = 0.0;
@@ -1546,7 +1588,6 @@ static int twin_tendon_linearise(const twin_tendon_params *P, const double q[TWI
     if (jac == 0) {
         return 1;
     }
-    twin_tendon_gravity_jacobian_with_ws(P, q, jac, &work[10]);
     for (i = 0; i < TWIN_TENDON_NQ; ++i) {
         for (x = 0; x < TWIN_TENDON_NQ; ++x) {
             double d = jac[i * TWIN_TENDON_NQ + x];
@@ -1561,7 +1602,7 @@ twin_tendon_status twin_tendon_equilibrium_with_ws(const twin_tendon_params *P, 
 {
     /* K, the residual r, Jacobian jac, load, the tangent, the trial point, the Newton
      * step dq, the candidate, a copy of jac for the solver, then the linearisation's
-     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 80 reals. */
+     * scratch, in work[0 .. TWIN_TENDON_EQUILIBRIUM_WORK), 86 reals. */
     double *const K = &work[0];
     double *const r = &work[4];
     double *const jac = &work[6];

@@ -584,6 +584,44 @@ pub fn emit(
         shares_work = len;
     }
     let p = Printer { shares_work, ..p };
+    // G and dG/dq in one schedule, for the statics' Newton steps; gravity_jacobian is
+    // it, keeping dG.
+    let linearised_work = {
+        let f = &plan.gravity_jacobian;
+        let (rows, body, len) = p.body(f, "gravity_linearised", None, &|i: usize| {
+            if i < n {
+                format!("G[{i}]")
+            } else {
+                format!("dG[{}]", i - n)
+            }
+        });
+        let body = if len == 0 {
+            format!("    (void)work;\n{body}")
+        } else {
+            body
+        };
+        let body = if f.block.reads_params {
+            body
+        } else {
+            format!("    (void)P;\n{body}")
+        };
+        funcs.push(CFunc {
+            rows,
+            formula: format!(
+                "G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels \
+                 and sums: what a Newton step of the statics needs. At the runtime parameters \
+                 *P. Scratch: work[0 .. {len})."
+            ),
+            ops: ops_line(f),
+            signature: format!(
+                "static void {name}_gravity_linearised_with_ws(const {name}_params *P, \
+                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {r} dG[{up}_NQ * {up}_NQ], {r} work[])"
+            ),
+            body,
+            plain: false,
+        });
+        len
+    };
     let mut constant_funcs: Vec<CFunc> = Vec::new();
     // Scratch of every `_ws` function, by name (for the header and the wrappers).
     let mut work: Vec<(String, usize)> = Vec::new();
@@ -812,14 +850,6 @@ pub fn emit(
             &flat("Y"),
         );
     }
-    let gravity_jacobian_work = generated(
-        "gravity_jacobian",
-        "dG/dq, n x n, row-major: the Hessian of U_g, symmetric.",
-        &plan.gravity_jacobian,
-        "void",
-        &[q.clone(), out("dG")],
-        &flat("dG"),
-    );
     generated(
         "potential_energy",
         "U = U_g + 1/2 q^T K q.",
@@ -862,6 +892,21 @@ pub fn emit(
         ),
         nn + inertia_work,
     );
+    public(
+        "gravity_jacobian",
+        "dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Computed with G(q), which \
+         shares nearly all of its work.",
+        ops_line(&plan.gravity_jacobian),
+        "void",
+        &[q.clone(), out("dG")],
+        String::new(),
+        format!(
+            "    {r} *const G = &work[0]; /* {n} */\n\
+             \x20   {name}_gravity_linearised_with_ws(P, q, G, dG, &work[{n}]);\n"
+        ),
+        n + linearised_work,
+    );
+    let gravity_jacobian_work = n + linearised_work;
     // C alone needs nearly everything B and G need too, so it costs about as much as
     // terms: it is terms, keeping C.
     public(

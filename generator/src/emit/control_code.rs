@@ -494,7 +494,9 @@ impl StaticsOps {
             mul: plan.segments,
             ..Ops::default()
         };
-        let newton = trial + jacobian + mul_add(n * n) + solve + bending;
+        // With the Jacobian the linearisation takes G from the Jacobian's schedule
+        // (`Plan::gravity_jacobian`), not from the gravity function as a trial does.
+        let newton = trial - plan.gravity.ops_beyond + jacobian + mul_add(n * n) + solve + bending;
         let s_terms: usize = plan.outputs.iter().map(|o| o.terms.len()).sum();
         let select = Ops {
             add: s_terms.saturating_sub(h),

@@ -294,19 +294,39 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
     for (spec, f, target) in &specs {
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
-    funcs.push(function(
+    // G and dG/dq in one schedule, for the statics' Newton steps; gravity_jacobian() is
+    // it, keeping dG/dq.
+    let mut linearised = function(
         plan,
         &plan.gravity_jacobian,
         &Spec {
-            fname: "gravity_jacobian",
-            formula: "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric.",
-            params: &["q"],
-            init: &nn,
-            ret,
+            fname: "_gravity_linearised",
+            formula: "(G(q), dG/dq) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs, at the parameters P (as _params returns them).",
+            params: &[],
+            init: "    g = np.zeros(NQ)\n    out = np.zeros((NQ, NQ))\n",
+            ret: "    return g, out\n",
         },
         None,
-        &move |i| mat(i, n),
-    ));
+        &move |i| {
+            if i < n {
+                format!("g[{i}]")
+            } else {
+                mat(i - n, n)
+            }
+        },
+    );
+    linearised.signature = "_gravity_linearised(q, P)".into();
+    funcs.push(linearised);
+    funcs.push(PyFunc {
+        rows: String::new(),
+        formula: "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric. Computed with G(q), which shares nearly all of its work.".into(),
+        ops: super::plan::ops_sentence(plan.gravity_jacobian.ops, plan.gravity_jacobian.ops_beyond),
+        signature: signature(plan, "gravity_jacobian", &["q"], true),
+        body: format!(
+            "    q = _vector(q, NQ, \"q\")\n    P = _params({})\n    return _gravity_linearised(q, P)[1]\n",
+            param_names(plan)
+        ),
+    });
     if let Some(f) = &plan.actuation_jacobian {
         funcs.push(function(
             plan,

@@ -338,6 +338,44 @@ pub fn emit(
         });
         tc.shares_work = len;
     }
+    // G and ∂G/∂q in one schedule, for the statics' Newton steps; `gravity_jacobian` is
+    // it, keeping ∂G/∂q.
+    let linearised_work = {
+        let f = &plan.gravity_jacobian;
+        let (rows, body, len) = body(
+            tc,
+            f,
+            "gravity_linearised",
+            None,
+            "let mut g = [0.0; NQ];\nlet mut out = [[0.0; NQ]; NQ];\n",
+            &|i: usize| {
+                if i < n {
+                    format!("g[{i}]")
+                } else {
+                    format!("out[{}][{}]", (i - n) / n, (i - n) % n)
+                }
+            },
+            "(g, out)\n",
+        );
+        let unused = |read: bool| if read { "" } else { "_" };
+        let w = if len == 0 { "_work" } else { "work" };
+        funcs.push(RFunc {
+            rows,
+            formula: format!(
+                "`G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: \
+                 what a Newton step of the statics needs, in `work` (at least {len} reals)."
+            ),
+            ops: ops_line(f),
+            signature: format!(
+                "fn gravity_linearised_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) \
+                 -> ([Real; NQ], [[Real; NQ]; NQ])",
+                unused(f.block.reads_params),
+                unused(f.block.reads_q),
+            ),
+            body,
+        });
+        len
+    };
     let tc = tc;
     let mat = |rows: &str, cols: &str| format!("[[Real; {cols}]; {rows}]");
     let mut work_len = 0usize;
@@ -499,16 +537,6 @@ pub fn emit(
         &mat_target(n),
         "out\n",
     );
-    let gravity_jacobian_work = generated(
-        "gravity_jacobian",
-        "Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric.",
-        &plan.gravity_jacobian,
-        &[q_of(&plan.gravity_jacobian)],
-        &nn,
-        "let mut out = [[0.0; NQ]; NQ];\n",
-        &mat_target(n),
-        "out\n",
-    );
     generated(
         "potential_energy",
         "Potential energy [J]: gravity (zero at q = 0) plus elastic `½ qᵀ K q`.",
@@ -557,6 +585,17 @@ pub fn emit(
         );
     }
     let both = [("q", "&[Real; NQ]", true), ("qd", "&[Real; NQ]", true)];
+    public(
+        "gravity_jacobian",
+        "Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. Computed with `G(q)`, which shares nearly all of its work.",
+        ops_line(&plan.gravity_jacobian),
+        &[q_of(&plan.gravity_jacobian)],
+        &nn,
+        String::new(),
+        "gravity_linearised_in(p, q, work).1\n".into(),
+        linearised_work,
+    );
+    let gravity_jacobian_work = linearised_work;
     // C alone needs nearly everything B and G need too: it is `terms`, keeping C.
     public(
         "coriolis",

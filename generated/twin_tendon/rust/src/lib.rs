@@ -631,6 +631,86 @@ fn shares_in(
     s[19] = p.gravity[0] * t[10] + p.gravity[1] * t[11];
     s[20] = p.gravity[0] * t[29] + p.gravity[1] * t[32];
 }
+/// Dot-product kernels 0..18 of `gravity_linearised`: one row at both parts of a segment's moments, (row, real base, imaginary base).
+static GRAVITY_LINEARISED_REIM0: [u8; 27] = [
+    0, 16, 24, 1, 0, 8, 1, 16, 24, 2, 0, 8, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 0, 8, 8,
+    16, 24,
+];
+/// `G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs, in `work` (at least 72 reals).
+///
+/// Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig.
+fn gravity_linearised_in(
+    p: &Params,
+    q: &[Real; NQ],
+    work: &mut [Real],
+) -> ([Real; NQ], [[Real; NQ]; NQ]) {
+    let (nu, work) = work.split_at_mut(NU_LEN);
+    let (kern, work) = work.split_at_mut(18);
+    let t = &mut work[..22];
+    moments(0.15 * q[0], 4, nu, 0, 8);
+    moments(0.12 * q[1], 4, nu, 16, 24);
+    let mut cphi = [0.0; 1];
+    let mut sphi = [0.0; 1];
+    let phi = 0.15 * q[0];
+    (sphi[0], cphi[0]) = sin_cos(phi);
+    kernels_reim(&GRAVITY_LINEARISED_REIM0, nu, &mut kern[0..18]);
+    let mut g = [0.0; NQ];
+    let mut out = [[0.0; NQ]; NQ];
+    t[0] = kern[0] * cphi[0];
+    t[1] = kern[1] * sphi[0];
+    t[2] = kern[1] * cphi[0];
+    t[3] = kern[0] * sphi[0];
+    t[4] = kern[5] * cphi[0];
+    t[5] = kern[4] * sphi[0];
+    t[6] = kern[4] * cphi[0];
+    t[7] = kern[5] * sphi[0];
+    t[8] = -5.184e-5 * cphi[0];
+    t[9] = nu[16] * cphi[0];
+    t[10] = nu[24] * sphi[0];
+    t[11] = nu[24] * cphi[0];
+    t[12] = nu[16] * sphi[0];
+    t[13] = cphi[0] * kern[9];
+    t[14] = sphi[0] * kern[8];
+    t[15] = cphi[0] * kern[8];
+    t[16] = sphi[0] * kern[9];
+    t[17] = -0.001728 * cphi[0];
+    t[18] = p.gravity[0] * (6.48e-5 * t[7] - 6.48e-5 * t[6])
+        + p.gravity[1] * (-6.48e-5 * t[5] - 6.48e-5 * t[4]);
+    t[19] = p.gravity[0] * (0.00216 * t[16] - 0.00216 * t[15])
+        + p.gravity[1] * (-0.00216 * t[14] - 0.00216 * t[13]);
+    t[20] = -p.density_scale[1] * t[18] - p.payload_mass * t[19];
+    t[18] = p.gravity[0] * (-0.00054 * t[3] - 0.00054 * t[2])
+        + p.gravity[1] * (0.00054 * t[0] - 0.00054 * t[1])
+        + 0.03 * (0.0225 * p.gravity[1] * kern[6] - 0.0225 * p.gravity[0] * kern[7]);
+    t[19] = p.gravity[0] * (-0.0225 * kern[7] - 0.018 * t[12] - 0.018 * t[11])
+        + p.gravity[1] * (0.0225 * kern[6] - 0.018 * t[10] + 0.018 * t[9]);
+    t[21] = p.gravity[0] * (-0.000432 * t[4] - 0.000432 * t[5])
+        + p.gravity[1] * (0.000432 * t[6] - 0.000432 * t[7]);
+    t[4] = p.gravity[0] * (-0.0144 * t[13] - 0.0144 * t[14])
+        + p.gravity[1] * (0.0144 * t[15] - 0.0144 * t[16]);
+    t[5] = p.gravity[0] * (8.1e-5 * t[1] - 8.1e-5 * t[0])
+        + p.gravity[1] * (-8.1e-5 * t[2] - 8.1e-5 * t[3])
+        + 0.03
+            * (-0.003375 * p.gravity[0] * kern[10] - 0.003375 * p.gravity[1] * kern[11]);
+    t[0] = p.gravity[0] * (0.0027 * t[10] - 0.003375 * kern[10] - 0.0027 * t[9])
+        + p.gravity[1] * (-0.003375 * kern[11] - 0.0027 * t[11] - 0.0027 * t[12]);
+    t[1] = p.gravity[0] * (kern[16] * t[8] + 5.184e-5 * kern[17] * sphi[0])
+        + p.gravity[1] * (kern[17] * t[8] - 5.184e-5 * kern[16] * sphi[0]);
+    t[2] = p.gravity[0] * (kern[12] * t[17] + 0.001728 * sphi[0] * kern[13])
+        + p.gravity[1] * (kern[13] * t[17] - 0.001728 * sphi[0] * kern[12]);
+    g[0] = -p.density_scale[0]
+        * (0.00118125 * kern[2] * p.gravity[1] - 0.00118125 * kern[3] * p.gravity[0])
+        - p.density_scale[1] * t[18] - p.payload_mass * t[19];
+    g[1] = -p.density_scale[1] * t[21] - p.payload_mass * t[4];
+    out[0][0] = -p.density_scale[0]
+        * (-0.0001771875 * kern[14] * p.gravity[0]
+            - 0.0001771875 * kern[15] * p.gravity[1]) - p.density_scale[1] * t[5]
+        - p.payload_mass * t[0];
+    out[0][1] = t[20];
+    out[1][0] = t[20];
+    out[1][1] = -p.density_scale[1] * t[1] - p.payload_mass * t[2];
+    (g, out)
+}
 /// Dot-product kernels of `inertia`: pairs (row, moment base).
 static INERTIA_ROWS: [u8; 8] = [5, 0, 5, 16, 6, 16, 7, 16];
 /// Dot-product kernels 0..8 of `inertia`: one row at both parts of a segment's moments, (row, real base, imaginary base).
@@ -832,86 +912,6 @@ pub fn tip_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; 3] {
 /// Operations: 69 add, 149 mul, 4 div, 0 sqrt, 6 trig.
 pub fn tip_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; 3] {
     tip_jacobian_in(q, &mut ws.0)
-}
-/// Dot-product kernels 0..14 of `gravity_jacobian`: one row at both parts of a segment's moments, (row, real base, imaginary base).
-static GRAVITY_JACOBIAN_REIM0: [u8; 21] = [
-    0, 16, 24, 1, 16, 24, 2, 16, 24, 9, 0, 8, 9, 16, 24, 8, 0, 8, 8, 16, 24,
-];
-/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 52 reals).
-///
-/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
-fn gravity_jacobian_in(
-    p: &Params,
-    q: &[Real; NQ],
-    work: &mut [Real],
-) -> [[Real; NQ]; NQ] {
-    let (nu, work) = work.split_at_mut(NU_LEN);
-    let (kern, work) = work.split_at_mut(14);
-    let t = &mut work[..6];
-    moments(0.15 * q[0], 4, nu, 0, 8);
-    moments(0.12 * q[1], 4, nu, 16, 24);
-    let mut cphi = [0.0; 1];
-    let mut sphi = [0.0; 1];
-    let phi = 0.15 * q[0];
-    (sphi[0], cphi[0]) = sin_cos(phi);
-    kernels_reim(&GRAVITY_JACOBIAN_REIM0, nu, &mut kern[0..14]);
-    let mut out = [[0.0; NQ]; NQ];
-    t[0] = -5.184e-5 * cphi[0];
-    t[1] = -0.001728 * cphi[0];
-    t[2] = p.gravity[0] * (6.48e-5 * kern[3] * sphi[0] - 6.48e-5 * kern[2] * cphi[0])
-        + p.gravity[1] * (-6.48e-5 * kern[2] * sphi[0] - 6.48e-5 * kern[3] * cphi[0]);
-    t[3] = p.gravity[0] * (0.00216 * sphi[0] * kern[5] - 0.00216 * cphi[0] * kern[4])
-        + p.gravity[1] * (-0.00216 * sphi[0] * kern[4] - 0.00216 * cphi[0] * kern[5]);
-    t[4] = -p.density_scale[1] * t[2] - p.payload_mass * t[3];
-    t[2] = p.gravity[0] * (8.1e-5 * kern[1] * sphi[0] - 8.1e-5 * kern[0] * cphi[0])
-        + p.gravity[1] * (-8.1e-5 * kern[1] * cphi[0] - 8.1e-5 * kern[0] * sphi[0])
-        + 0.03
-            * (-0.003375 * p.gravity[0] * kern[6] - 0.003375 * p.gravity[1] * kern[7]);
-    t[3] = p.gravity[0]
-        * (0.0027 * nu[24] * sphi[0] - 0.003375 * kern[6] - 0.0027 * nu[16] * cphi[0])
-        + p.gravity[1]
-            * (-0.003375 * kern[7] - 0.0027 * nu[24] * cphi[0]
-                - 0.0027 * nu[16] * sphi[0]);
-    t[5] = p.gravity[0] * (kern[12] * t[0] + 5.184e-5 * kern[13] * sphi[0])
-        + p.gravity[1] * (kern[13] * t[0] - 5.184e-5 * kern[12] * sphi[0]);
-    t[0] = p.gravity[0] * (kern[8] * t[1] + 0.001728 * sphi[0] * kern[9])
-        + p.gravity[1] * (kern[9] * t[1] - 0.001728 * sphi[0] * kern[8]);
-    out[0][0] = -p.density_scale[0]
-        * (-0.0001771875 * kern[10] * p.gravity[0]
-            - 0.0001771875 * kern[11] * p.gravity[1]) - p.density_scale[1] * t[2]
-        - p.payload_mass * t[3];
-    out[0][1] = t[4];
-    out[1][0] = t[4];
-    out[1][1] = -p.density_scale[1] * t[5] - p.payload_mass * t[0];
-    out
-}
-/// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. At the arm file's parameters ([`Params::DEFAULT`]).
-///
-/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 52])
-}
-/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (52 reals); the same values.
-///
-/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
-}
-/// [`gravity_jacobian`] at the runtime parameters `p`.
-///
-/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(p, q, &mut [0.0; 52])
-}
-/// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
-///
-/// Operations: 129 add, 261 mul, 4 div, 0 sqrt, 6 trig.
-pub fn gravity_jacobian_with_ws(
-    p: &Params,
-    q: &[Real; NQ],
-    ws: &mut Workspace,
-) -> [[Real; NQ]; NQ] {
-    gravity_jacobian_in(p, q, &mut ws.0)
 }
 /// Dot-product kernels 0..4 of `potential_energy`: one row at both parts of a segment's moments, (row, real base, imaginary base).
 static POTENTIAL_ENERGY_REIM0: [u8; 6] = [0, 0, 8, 0, 16, 24];
@@ -1122,6 +1122,44 @@ pub fn regressor_with_ws(
     ws: &mut Workspace,
 ) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
+}
+/// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 72 reals).
+///
+/// Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig.
+fn gravity_jacobian_in(
+    p: &Params,
+    q: &[Real; NQ],
+    work: &mut [Real],
+) -> [[Real; NQ]; NQ] {
+    gravity_linearised_in(p, q, work).1
+}
+/// Gravity Jacobian `∂G/∂q`, NQ×NQ: the Hessian of `U_g`, so symmetric. Computed with `G(q)`, which shares nearly all of its work. At the arm file's parameters ([`Params::DEFAULT`]).
+///
+/// Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut [0.0; 72])
+}
+/// [`gravity_jacobian`] with its scratch in the caller's [`Workspace`] instead of on the stack (72 reals); the same values.
+///
+/// Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
+    gravity_jacobian_in(&Params::DEFAULT, q, &mut ws.0)
+}
+/// [`gravity_jacobian`] at the runtime parameters `p`.
+///
+/// Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
+    gravity_jacobian_in(p, q, &mut [0.0; 72])
+}
+/// [`gravity_jacobian_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 159 add, 309 mul, 4 div, 0 sqrt, 6 trig.
+pub fn gravity_jacobian_with_ws(
+    p: &Params,
+    q: &[Real; NQ],
+    ws: &mut Workspace,
+) -> [[Real; NQ]; NQ] {
+    gravity_jacobian_in(p, q, &mut ws.0)
 }
 /// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 111 reals).
 ///
@@ -1461,7 +1499,7 @@ const EQUILIBRIUM_ITERATIONS_PER_STEP: usize = 12;
 const EQUILIBRIUM_MIN_STEP: Real = 1e-6;
 /// Largest bending `L Σ|Δq|` [rad] of any segment in one Newton step.
 const EQUILIBRIUM_MAX_BENDING_STEP: Real = 0.5;
-const STATICS_WORK: usize = 52;
+const STATICS_WORK: usize = 72;
 /// Largest total bending `L_j Σ_i |v_{j,i}|` [rad] of any segment for a change `v` of `q`.
 fn bending(v: &[Real; NQ]) -> Real {
     let mut worst: Real = 0.0;
@@ -1607,7 +1645,7 @@ fn static_residual_in(
 /// Jacobian of the static residual, `∂R/∂q = K + ∂G/∂q − ∂(A u)/∂q`: symmetric (every
 /// load of the model is conservative), positive definite at a stable equilibrium.
 ///
-/// Operations: 133 add, 261 mul, 4 div, 0 sqrt, 6 trig.
+/// Operations: 163 add, 309 mul, 4 div, 0 sqrt, 6 trig.
 pub fn static_jacobian(
     q: &[Real; NQ],
     u: &[Real; NU],
@@ -1674,7 +1712,12 @@ fn linearise(
     with_jacobian: bool,
     work: &mut [Real],
 ) -> Option<Linearised> {
-    let g = gravity_in(p, q, work);
+    let (g, dg) = if with_jacobian {
+        let (g, dg) = gravity_linearised_in(p, q, work);
+        (g, Some(dg))
+    } else {
+        (gravity_in(p, q, work), None)
+    };
     let a = actuation_in(q, work);
     let mut lin = Linearised {
         r: [0.0; NQ],
@@ -1702,8 +1745,7 @@ fn linearise(
     if !all_finite(&lin.r) {
         return None;
     }
-    if with_jacobian {
-        let dg = gravity_jacobian_in(p, q, work);
+    if let Some(dg) = dg {
         for i in 0..NQ {
             for x in 0..NQ {
                 let d = dg[i][x];
@@ -1722,7 +1764,7 @@ fn linearise(
 /// reaches when the load is applied slowly (the algorithm and settings of
 /// `arcwright statics`). At most [`EQUILIBRIUM_MAX_ITERATIONS`] Newton iterations.
 ///
-/// Operations per Newton iteration, at most: 271 add, 505 mul, 11 div, 4 sqrt, 12 trig.
+/// Operations per Newton iteration, at most: 202 add, 342 mul, 7 div, 4 sqrt, 6 trig.
 /// Per backtracking trial: 126 add, 234 mul, 4 div, 4 sqrt, 6 trig.
 pub fn equilibrium(u: &[Real; NU]) -> Result<Equilibrium, StaticsError> {
     equilibrium_in(&Params::DEFAULT, u, &mut [0.0; STATICS_WORK])
