@@ -210,12 +210,16 @@ pub fn temp_slots(block: &Block, part: Option<usize>) -> (Vec<Option<usize>>, us
     let mut last = vec![0usize; temps];
     let mut defined = vec![0usize; temps];
     let mut crosses = vec![part.is_none(); temps];
+    // Writes and reads of each temporary.
+    let mut refs = vec![0usize; temps];
     for (k, s) in block.stmts.iter().enumerate() {
         last[s.temp] = last[s.temp].max(k);
         defined[s.temp] = k;
+        refs[s.temp] += 1;
         for_each_leaf(&s.expr, &mut |l| {
             if let Leaf::Temp(t) = l {
                 last[*t] = last[*t].max(k);
+                refs[*t] += 1;
                 if part_of(k) != part_of(defined[*t]) {
                     crosses[*t] = true;
                 }
@@ -226,6 +230,7 @@ pub fn temp_slots(block: &Block, part: Option<usize>) -> (Vec<Option<usize>>, us
         for_each_leaf(e, &mut |l| {
             if let Leaf::Temp(t) = l {
                 last[*t] = n;
+                refs[*t] += 1;
                 crosses[*t] = true;
             }
         });
@@ -264,25 +269,10 @@ pub fn temp_slots(block: &Block, part: Option<usize>) -> (Vec<Option<usize>>, us
         return (slot, count);
     }
     let mut uses = vec![0usize; count];
-    let mut note = |t: usize| {
-        if let Some(c) = slot[t] {
-            uses[c] += 1;
+    for (t, c) in slot.iter().enumerate() {
+        if let Some(c) = c {
+            uses[*c] += refs[t];
         }
-    };
-    for s in &block.stmts {
-        note(s.temp);
-        for_each_leaf(&s.expr, &mut |l| {
-            if let Leaf::Temp(t) = l {
-                note(*t);
-            }
-        });
-    }
-    for e in &block.outputs {
-        for_each_leaf(e, &mut |l| {
-            if let Leaf::Temp(t) = l {
-                note(*t);
-            }
-        });
     }
     let mut order: Vec<usize> = (0..count).collect();
     order.sort_by_key(|&c| (std::cmp::Reverse(uses[c]), c));

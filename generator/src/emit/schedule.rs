@@ -217,7 +217,7 @@ pub struct Stmt {
 pub type KernelRow = Vec<(usize, Q)>;
 
 /// One evaluation of a kernel row: the row and the moment base it reads.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord)]
+#[derive(Clone, Copy, Debug, PartialEq, Eq)]
 pub struct KernelUse {
     pub row: usize,
     pub base: usize,
