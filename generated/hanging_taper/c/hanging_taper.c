@@ -6116,6 +6116,450 @@ static void hanging_taper_gravity_linearised_with_ws(const hanging_taper_params 
     dG[63] = -P->density_scale[2] * t[189] - P->payload_mass * t[190];
 }
 
+/* Dot-product kernels of hanging_taper_gravity_actuation: pairs (row, moment base). */
+static const unsigned short hanging_taper_gravity_actuation_rows[32] = {
+    26, 33, 28, 0, 42, 99, 43, 66, 44, 157, 45, 132, 29, 33, 30, 0, 169, 0, 170, 33, 23, 66, 24,
+    99, 36, 132, 37, 157, 172, 0, 173, 33
+};
+/* Dot-product kernels 0 .. 128 of hanging_taper_gravity_actuation: one row at both parts of a segment's moments, (row, real base, imaginary base). */
+static const unsigned short hanging_taper_gravity_actuation_reim0[192] = {
+    10, 66, 99, 10, 132, 157, 11, 66, 99, 31, 132, 157, 0, 0, 33, 0, 66, 99, 0, 132, 157, 1, 0,
+    33, 1, 66, 99, 1, 132, 157, 12, 66, 99, 32, 132, 157, 2, 0, 33, 2, 66, 99, 2, 132, 157, 13,
+    66, 99, 38, 132, 157, 159, 0, 33, 3, 0, 33, 3, 66, 99, 3, 132, 157, 14, 66, 99, 33, 132,
+    157, 160, 0, 33, 4, 0, 33, 4, 66, 99, 4, 132, 157, 15, 66, 99, 39, 132, 157, 161, 0, 33, 5,
+    0, 33, 5, 66, 99, 5, 132, 157, 16, 66, 99, 34, 132, 157, 162, 0, 33, 6, 0, 33, 6, 66, 99, 6,
+    132, 157, 17, 66, 99, 40, 132, 157, 163, 0, 33, 7, 0, 33, 7, 66, 99, 18, 66, 99, 35, 132,
+    157, 164, 0, 33, 8, 0, 33, 8, 66, 99, 19, 66, 99, 41, 132, 157, 165, 0, 33, 9, 0, 33, 9, 66,
+    99, 20, 66, 99, 166, 0, 33, 21, 66, 99, 27, 0, 33, 27, 66, 99, 167, 0, 33, 22, 66, 99, 168,
+    0, 33, 25, 66, 99, 171, 0, 33
+};
+/* Part 1 of 4 of hanging_taper_gravity_actuation: temporaries into the caller's scratch t[]. */
+static void hanging_taper_gravity_actuation_part1(const double q[], const hanging_taper_params *P, double t[])
+{
+    t[2] = q[1] * q[1]; /* t0 */
+    t[5] = q[1] * q[2]; /* t1 */
+    t[3] = q[2] * q[2]; /* t2 */
+    t[11] = q[1] * t[2]; /* t3 */
+    t[33] = q[1] * t[5]; /* t4 */
+    const double t5 = t[2] * t[2];
+    t[27] = q[1] * t[3]; /* t6 */
+    const double t7 = t[2] * t[5];
+    t[12] = q[2] * t[3]; /* t8 */
+    const double t9 = t[2] * t[3];
+    const double t10 = t[5] * t[3];
+    const double t11 = t[3] * t[3];
+    t[36] = -0.0005 * q[1]; /* t12 */
+    t[37] = -0.0003333333333333333 * q[2]; /* t13 */
+    t[52] = -1.25e-5 * t[2]; /* t14 */
+    t[53] = 1.25e-5 * t[2]; /* t15 */
+    t[54] = -1.6666666666666667e-5 * t[5]; /* t16 */
+    t[55] = 1.6666666666666667e-5 * t[5]; /* t17 */
+    t[38] = 2.0833333333333333e-7 * t[11]; /* t18 */
+    t[56] = -5.555555555555556e-6 * t[3]; /* t19 */
+    t[57] = 5.555555555555556e-6 * t[3]; /* t20 */
+    t[39] = 4.1666666666666667e-7 * t[33]; /* t21 */
+    t[40] = 2.7777777777777776e-7 * t[27]; /* t22 */
+    t[58] = 2.604166666666667e-9 * t5; /* t23 */
+    t[70] = -2.604166666666667e-9 * t5; /* t24 */
+    t[59] = 6.17283950617284e-8 * t[12]; /* t25 */
+    t[71] = 6.944444444444444e-9 * t7; /* t26 */
+    t[72] = -6.944444444444444e-9 * t7; /* t27 */
+    t[73] = 6.944444444444444e-9 * t9; /* t28 */
+    t[74] = -6.944444444444444e-9 * t9; /* t29 */
+    t[75] = 3.08641975308642e-9 * t10; /* t30 */
+    t[76] = -3.08641975308642e-9 * t10; /* t31 */
+    t[77] = 5.1440329218107e-10 * t11; /* t32 */
+    t[78] = -5.1440329218107e-10 * t11; /* t33 */
+    t[64] = 0.04 * P->gravity[0]; /* t34 */
+    t[65] = 0.04 * P->gravity[1]; /* t35 */
+    t[0] = q[4] * q[4]; /* t36 */
+    t[4] = q[4] * q[5]; /* t37 */
+    t[1] = q[5] * q[5]; /* t38 */
+    t[13] = q[4] * t[0]; /* t39 */
+    t[34] = q[4] * t[4]; /* t40 */
+    t[14] = t[0] * t[0]; /* t41 */
+    t[15] = q[4] * t[1]; /* t42 */
+    t[24] = t[0] * t[4]; /* t43 */
+    t[16] = q[5] * t[1]; /* t44 */
+    t[25] = t[0] * t[1]; /* t45 */
+    t[26] = t[4] * t[1]; /* t46 */
+    t[41] = t[1] * t[1]; /* t47 */
+    t[17] = 0.00405 * q[4]; /* t48 */
+    t[6] = -0.00405 * q[4]; /* t49 */
+    t[8] = 0.0027 * q[5]; /* t50 */
+    t[9] = -0.0027 * q[5]; /* t51 */
+    t[7] = -9.1125e-5 * t[0]; /* t52 */
+    t[18] = -0.0001215 * t[4]; /* t53 */
+    t[10] = -4.05e-5 * t[1]; /* t54 */
+    t[28] = -1.366875e-6 * t[13]; /* t55 */
+    t[29] = 1.366875e-6 * t[13]; /* t56 */
+    t[19] = -2.73375e-6 * t[34]; /* t57 */
+    t[20] = 2.73375e-6 * t[34]; /* t58 */
+    t[21] = 1.537734375e-8 * t[14]; /* t59 */
+    t[30] = -1.8225e-6 * t[15]; /* t60 */
+    t[31] = 1.8225e-6 * t[15]; /* t61 */
+    t[22] = 4.100625e-8 * t[24]; /* t62 */
+    t[32] = -4.05e-7 * t[16]; /* t63 */
+}
+
+/* Part 2 of 4 of hanging_taper_gravity_actuation: temporaries into the caller's scratch t[]. */
+static void hanging_taper_gravity_actuation_part2(const double q[], const double nu[], const double cphi[], const double sphi[], const double kern[], double t[])
+{
+    const double t64 = 4.05e-7 * t[16];
+    const double t65 = 4.100625e-8 * t[25];
+    const double t66 = 1.8225e-8 * t[26];
+    const double t67 = 3.0375e-9 * t[41];
+    const double t68 = 0.09 * nu[66] + kern[1] * t[6] + kern[11] * t[9] + kern[16] * t[7]
+        + kern[26] * t[18] + kern[38] * t[10] + kern[39] * t[29] + kern[51] * t[20]
+        + kern[62] * t[21] + kern[63] * t[31] + kern[74] * t[22] + kern[75] * t64
+        + kern[86] * t65 + kern[96] * t66 + kern[106] * t67;
+    const double t69 = 0.09 * nu[99] + kern[0] * t[17] + kern[10] * t[8] + kern[17] * t[7]
+        + kern[27] * t[18] + kern[39] * t[10] + kern[38] * t[28] + kern[50] * t[19]
+        + kern[63] * t[21] + kern[62] * t[30] + kern[75] * t[22] + kern[74] * t[32]
+        + kern[87] * t65 + kern[97] * t66 + kern[107] * t67;
+    const double t70 = kern[4] + t[6] * kern[21] + t[9] * kern[31] + t[7] * kern[42]
+        + t[18] * kern[54] + t[10] * kern[66] + t[29] * kern[67] + t[20] * kern[79]
+        + t[21] * kern[88] + t[31] * kern[89] + t[22] * kern[98] + t64 * kern[99]
+        + t65 * kern[108] + t66 * kern[112] + t67 * kern[120];
+    const double t71 = kern[5] + t[17] * kern[20] + t[8] * kern[30] + t[7] * kern[43]
+        + t[18] * kern[55] + t[10] * kern[67] + t[28] * kern[66] + t[19] * kern[78]
+        + t[21] * kern[89] + t[30] * kern[88] + t[22] * kern[99] + t[32] * kern[98]
+        + t65 * kern[109] + t66 * kern[113] + t67 * kern[121];
+    t[17] = -0.0003645 * q[4]; /* t72 */
+    t[6] = -0.000243 * q[5]; /* t73 */
+    t[8] = -8.20125e-6 * t[0]; /* t74 */
+    t[9] = 8.20125e-6 * t[0]; /* t75 */
+    t[7] = -1.0935e-5 * t[4]; /* t76 */
+    t[18] = 1.0935e-5 * t[4]; /* t77 */
+    t[10] = 1.2301875e-7 * t[13]; /* t78 */
+    t[28] = -3.645e-6 * t[1]; /* t79 */
+    t[29] = 3.645e-6 * t[1]; /* t80 */
+    t[19] = 2.460375e-7 * t[34]; /* t81 */
+    t[20] = 1.64025e-7 * t[15]; /* t82 */
+    t[21] = 1.3839609375e-9 * t[14]; /* t83 */
+    t[30] = -1.3839609375e-9 * t[14]; /* t84 */
+    t[14] = 3.645e-8 * t[16]; /* t85 */
+    t[31] = 3.6905625e-9 * t[24]; /* t86 */
+    t[22] = -3.6905625e-9 * t[24]; /* t87 */
+    t[24] = 3.6905625e-9 * t[25]; /* t88 */
+    t[32] = -3.6905625e-9 * t[25]; /* t89 */
+    t[25] = 1.64025e-9 * t[26]; /* t90 */
+    t[47] = -1.64025e-9 * t[26]; /* t91 */
+    t[26] = 2.73375e-10 * t[41]; /* t92 */
+    t[48] = -2.73375e-10 * t[41]; /* t93 */
+    t[41] = kern[139] + kern[30] * t[17] + kern[42] * t[6] + kern[55] * t[9] + kern[67] * t[18]
+        + kern[78] * t[10] + kern[79] * t[29] + kern[88] * t[19] + kern[98] * t[20]
+        + kern[99] * t[30] + kern[108] * t[14] + kern[109] * t[22] + kern[113] * t[32]
+        + kern[121] * t[47] + kern[125] * t[48]; /* t94 */
+    t[79] = kern[138] + kern[31] * t[17] + kern[43] * t[6] + kern[54] * t[8] + kern[66] * t[7]
+        + kern[79] * t[10] + kern[78] * t[28] + kern[89] * t[19] + kern[99] * t[20]
+        + kern[98] * t[21] + kern[109] * t[14] + kern[108] * t[31] + kern[112] * t[24]
+        + kern[120] * t[25] + kern[124] * t[26]; /* t95 */
+    t[80] = kern[128] + kern[8] * t[36] + kern[14] * t[37] + kern[25] * t[53] + kern[37] * t[55]
+        + kern[49] * t[57] + kern[48] * t[38] + kern[60] * t[39] + kern[73] * t[70]
+        + kern[72] * t[40] + kern[85] * t[72] + kern[84] * t[59] + kern[95] * t[74]
+        + kern[105] * t[76] + t[78] * kern[115]; /* t96 */
+    t[81] = kern[129] + kern[9] * t[36] + kern[15] * t[37] + kern[24] * t[52] + kern[36] * t[54]
+        + kern[48] * t[56] + kern[49] * t[38] + kern[61] * t[39] + kern[72] * t[58]
+        + kern[73] * t[40] + kern[84] * t[71] + kern[85] * t[59] + kern[94] * t[73]
+        + kern[104] * t[75] + t[77] * kern[114]; /* t97 */
+    const double t98 = q[2] * t[2];
+    t[60] = 6.944444444444444e-8 * (2.0 * t[33] + t98); /* t99 */
+    t[33] = kern[134] - 0.00025 * q[1] * kern[14] - 0.00016666666666666666 * q[2] * kern[24]
+        + 6.25e-6 * t[2] * kern[37] + 8.333333333333334e-6 * t[5] * kern[49]
+        + 1.0416666666666667e-7 * t[11] * kern[60] + 2.777777777777778e-6 * t[3] * kern[61]
+        + kern[72] * t[60] + 1.3888888888888888e-7 * t[27] * kern[84]
+        + 3.08641975308642e-8 * t[12] * kern[94]; /* t100 */
+    t[82] = kern[135] - 0.00025 * q[1] * kern[15] - 0.00016666666666666666 * q[2] * kern[25]
+        - 6.25e-6 * t[2] * kern[36] - 8.333333333333334e-6 * t[5] * kern[48]
+        + 1.0416666666666667e-7 * t[11] * kern[61] - 2.777777777777778e-6 * t[3] * kern[60]
+        + kern[73] * t[60] + 1.3888888888888888e-7 * t[27] * kern[85]
+        + 3.08641975308642e-8 * t[12] * kern[95]; /* t101 */
+    t[61] = 1.3888888888888888e-7 * t98; /* t102 */
+    t[62] = 3.08641975308642e-8 * (t[27] + 2.0 * q[2] * t[5]); /* t103 */
+    t[83] = 4.166666666666667e-6 * t[2] * kern[49] - 0.0033333333333333335 * kern[9]
+        - 0.00016666666666666666 * q[1] * kern[24] - 0.00011111111111111112 * q[2] * kern[36]
+        + 5.555555555555556e-6 * t[5] * kern[61] + 6.944444444444444e-8 * t[11] * kern[72]
+        + 1.8518518518518519e-6 * t[3] * kern[73] + kern[84] * t[61] + kern[94] * t[62]
+        + 2.05761316872428e-8 * t[12] * kern[104]; /* t104 */
+    t[84] = 0.0033333333333333335 * kern[8] - 0.00016666666666666666 * q[1] * kern[25]
+        - 0.00011111111111111112 * q[2] * kern[37] - 4.166666666666667e-6 * t[2] * kern[48]
+        - 5.555555555555556e-6 * t[5] * kern[60] + 6.944444444444444e-8 * t[11] * kern[73]
+        - 1.8518518518518519e-6 * t[3] * kern[72] + kern[85] * t[61] + kern[95] * t[62]
+        + 2.05761316872428e-8 * t[12] * kern[105]; /* t105 */
+    t[66] = t70 * cphi[0]; /* t106 */
+    t[67] = t71 * sphi[0]; /* t107 */
+    t[68] = t71 * cphi[0]; /* t108 */
+    t[69] = t70 * sphi[0]; /* t109 */
+    t[42] = t68 * cphi[0]; /* t110 */
+    t[43] = t69 * sphi[0]; /* t111 */
+    t[44] = t69 * cphi[0]; /* t112 */
+    t[45] = t68 * sphi[0]; /* t113 */
+    t[23] = q[7] * q[7]; /* t114 */
+    t[35] = q[7] * t[23]; /* t115 */
+    t[46] = t[23] * t[23]; /* t116 */
+    const double t117 = 0.0032 * q[7];
+    const double t118 = -0.0032 * q[7];
+    const double t119 = -6.4e-5 * t[23];
+    const double t120 = -8.533333333333334e-7 * t[35];
+    const double t121 = 8.533333333333334e-7 * t[35];
+    const double t122 = 8.533333333333334e-9 * t[46];
+    t[49] = 0.08 * nu[132] + kern[3] * t118 + kern[18] * t119 + kern[41] * t121
+        + kern[64] * t122; /* t123 */
+    t[50] = 0.08 * nu[157] + kern[2] * t117 + kern[19] * t119 + kern[40] * t120
+        + kern[65] * t122; /* t124 */
+    t[51] = kern[6] + t118 * kern[23] + t119 * kern[44] + t121 * kern[69] + t122 * kern[90]; /* t125 */
+    t[85] = kern[7] + t117 * kern[22] + t119 * kern[45] + t120 * kern[68] + t122 * kern[91]; /* t126 */
+    t[63] = -0.000256 * q[7]; /* t127 */
+}
+
+/* Part 3 of 4 of hanging_taper_gravity_actuation: temporaries into the caller's scratch t[]. */
+static void hanging_taper_gravity_actuation_part3(const double q[], const double cphi[], const double sphi[], const double kern[], double t[])
+{
+    const double t128 = -5.12e-6 * t[23];
+    const double t129 = 5.12e-6 * t[23];
+    const double t130 = 6.826666666666667e-8 * t[35];
+    const double t131 = 6.826666666666667e-10 * t[46];
+    const double t132 = -6.826666666666667e-10 * t[46];
+    t[46] = kern[141] + kern[32] * t[63] + kern[57] * t129 + kern[80] * t130 + kern[101] * t132; /* t133 */
+    t[86] = kern[140] + kern[33] * t[63] + kern[56] * t128 + kern[81] * t130 + kern[100] * t131; /* t134 */
+    t[87] = t[80] - 0.1 * t[45] - 0.1 * t[44]; /* t135 */
+    t[88] = t[81] - 0.1 * t[43] + 0.1 * t[42]; /* t136 */
+    t[89] = t[33] - 0.05 * t[45] - 0.05 * t[44]; /* t137 */
+    t[90] = t[82] - 0.05 * t[43] + 0.05 * t[42]; /* t138 */
+    t[91] = t[83] - 0.03333333333333333 * t[45] - 0.03333333333333333 * t[44]; /* t139 */
+    t[44] = t[84] - 0.03333333333333333 * t[43] + 0.03333333333333333 * t[42]; /* t140 */
+    const double t141 = kern[130] + kern[10] * t[17] + kern[16] * t[6] + kern[27] * t[9]
+        + kern[39] * t[18] + kern[51] * t[29] + kern[50] * t[10] + kern[62] * t[19]
+        + kern[75] * t[30] + kern[74] * t[20] + kern[87] * t[22] + kern[86] * t[14]
+        + kern[97] * t[32] + kern[107] * t[47] + t[48] * kern[117];
+    const double t142 = kern[131] + kern[11] * t[17] + kern[17] * t[6] + kern[26] * t[8]
+        + kern[38] * t[7] + kern[50] * t[28] + kern[51] * t[10] + kern[63] * t[19]
+        + kern[74] * t[21] + kern[75] * t[20] + kern[86] * t[31] + kern[87] * t[14]
+        + kern[96] * t[24] + kern[106] * t[25] + t[26] * kern[116];
+    t[14] = cphi[0] * t141 - sphi[0] * t142; /* t143 */
+    t[24] = cphi[0] * t142 + sphi[0] * t141; /* t144 */
+    const double t145 = q[5] * t[0];
+    const double t146 = 4.100625e-8 * (2.0 * t[34] + t145);
+    const double t147 = 4.100625e-6 * t[0] * kern[39] - 0.00405 * kern[1]
+        - 0.00018225 * q[4] * kern[16] - 0.0001215 * q[5] * kern[26]
+        + 5.4675e-6 * t[4] * kern[51] + 6.1509375e-8 * t[13] * kern[62]
+        + 1.8225e-6 * t[1] * kern[63] + kern[74] * t146 + 8.20125e-8 * t[15] * kern[86]
+        + 1.8225e-8 * t[16] * kern[96];
+    const double t148 = 0.00405 * kern[0] - 0.00018225 * q[4] * kern[17]
+        - 0.0001215 * q[5] * kern[27] - 4.100625e-6 * t[0] * kern[38]
+        - 5.4675e-6 * t[4] * kern[50] + 6.1509375e-8 * t[13] * kern[63]
+        - 1.8225e-6 * t[1] * kern[62] + kern[75] * t146 + 8.20125e-8 * t[15] * kern[87]
+        + 1.8225e-8 * t[16] * kern[97];
+    t[34] = cphi[0] * t147 - sphi[0] * t148; /* t149 */
+    t[25] = cphi[0] * t148 + sphi[0] * t147; /* t150 */
+    const double t151 = 8.20125e-8 * t145;
+    const double t152 = 1.8225e-8 * (t[15] + 2.0 * q[5] * t[4]);
+    const double t153 = 2.73375e-6 * t[0] * kern[51] - 0.0027 * kern[11]
+        - 0.0001215 * q[4] * kern[26] - 8.1e-5 * q[5] * kern[38] + 3.645e-6 * t[4] * kern[63]
+        + 4.100625e-8 * t[13] * kern[74] + 1.215e-6 * t[1] * kern[75] + kern[86] * t151
+        + kern[96] * t152 + 1.215e-8 * t[16] * kern[106];
+    const double t154 = 0.0027 * kern[10] - 0.0001215 * q[4] * kern[27]
+        - 8.1e-5 * q[5] * kern[39] - 2.73375e-6 * t[0] * kern[50] - 3.645e-6 * t[4] * kern[62]
+        + 4.100625e-8 * t[13] * kern[75] - 1.215e-6 * t[1] * kern[74] + kern[87] * t151
+        + kern[97] * t152 + 1.215e-8 * t[16] * kern[107];
+    t[26] = cphi[0] * t153 - sphi[0] * t154; /* t155 */
+    t[17] = cphi[0] * t154 + sphi[0] * t153; /* t156 */
+    t[6] = t[51] * cphi[1]; /* t157 */
+    t[8] = t[85] * sphi[1]; /* t158 */
+    t[9] = t[85] * cphi[1]; /* t159 */
+    t[7] = t[51] * sphi[1]; /* t160 */
+    const double t161 = t[49] * cphi[1];
+    const double t162 = t[50] * sphi[1];
+    const double t163 = t[50] * cphi[1];
+    const double t164 = t[49] * sphi[1];
+    t[18] = t[87] - 0.1 * t164 - 0.1 * t163; /* t165 */
+    t[10] = t[88] - 0.1 * t162 + 0.1 * t161; /* t166 */
+    t[28] = t[89] - 0.05 * t164 - 0.05 * t163; /* t167 */
+    t[29] = t[90] - 0.05 * t162 + 0.05 * t161; /* t168 */
+    t[19] = t[91] - 0.03333333333333333 * t164 - 0.03333333333333333 * t163; /* t169 */
+    t[20] = t[44] - 0.03333333333333333 * t162 + 0.03333333333333333 * t161; /* t170 */
+    t[21] = t[14] - 0.09 * t164 - 0.09 * t163; /* t171 */
+    t[30] = t[24] - 0.09 * t162 + 0.09 * t161; /* t172 */
+    t[31] = t[34] - 0.045 * t164 - 0.045 * t163; /* t173 */
+    t[22] = t[25] - 0.045 * t162 + 0.045 * t161; /* t174 */
+    t[32] = t[26] - 0.03 * t164 - 0.03 * t163; /* t175 */
+    t[47] = t[17] - 0.03 * t162 + 0.03 * t161; /* t176 */
+    const double t177 = kern[132] + t[63] * kern[12] + t129 * kern[29] + t130 * kern[52]
+        + t132 * kern[77];
+    const double t178 = kern[133] + t[63] * kern[13] + t128 * kern[28] + t130 * kern[53]
+        + t131 * kern[76];
+    t[48] = cphi[1] * t177 - sphi[1] * t178; /* t179 */
+    t[42] = cphi[1] * t178 + sphi[1] * t177; /* t180 */
+    const double t181 = 2.56e-6 * t[23] * kern[41] - 0.0032 * kern[3]
+        - 0.000128 * q[7] * kern[18] + 3.4133333333333335e-8 * t[35] * kern[64];
+    const double t182 = 0.0032 * kern[2] - 0.000128 * q[7] * kern[19]
+        - 2.56e-6 * t[23] * kern[40] + 3.4133333333333335e-8 * t[35] * kern[65];
+    t[43] = cphi[1] * t181 - sphi[1] * t182; /* t183 */
+    t[45] = cphi[1] * t182 + sphi[1] * t181; /* t184 */
+    t[49] = 4.100625e-6 * t[0] * kern[67] - 0.00405 * kern[21] - 0.00018225 * q[4] * kern[42]
+        - 0.0001215 * q[5] * kern[54] + 8.20125e-8 * t[15] * kern[108]
+        + 1.8225e-8 * t[16] * kern[112] + 5.4675e-6 * t[4] * kern[79]
+        + 6.1509375e-8 * t[13] * kern[88] + 1.8225e-6 * t[1] * kern[89] + kern[98] * t146; /* t185 */
+    t[50] = 0.00405 * kern[20] - 0.00018225 * q[4] * kern[43] - 0.0001215 * q[5] * kern[55]
+        - 4.100625e-6 * t[0] * kern[66] + 8.20125e-8 * t[15] * kern[109]
+        + 1.8225e-8 * t[16] * kern[113] - 5.4675e-6 * t[4] * kern[78]
+        + 6.1509375e-8 * t[13] * kern[89] - 1.8225e-6 * t[1] * kern[88] + kern[99] * t146; /* t186 */
+    t[15] = 2.73375e-6 * t[0] * kern[79] - 0.0027 * kern[31] - 0.0001215 * q[4] * kern[54]
+        - 8.1e-5 * q[5] * kern[66] + 3.645e-6 * t[4] * kern[89] + 4.100625e-8 * t[13] * kern[98]
+        + 1.215e-6 * t[1] * kern[99] + kern[108] * t151 + 1.215e-8 * t[16] * kern[120]
+        + kern[112] * t152; /* t187 */
+    t[51] = 0.0027 * kern[30] - 0.0001215 * q[4] * kern[55] - 8.1e-5 * q[5] * kern[67]
+        - 2.73375e-6 * t[0] * kern[78] - 3.645e-6 * t[4] * kern[88]
+        + 4.100625e-8 * t[13] * kern[99] - 1.215e-6 * t[1] * kern[98] + kern[109] * t151
+        + 1.215e-8 * t[16] * kern[121] + kern[113] * t152; /* t188 */
+    t[0] = 2.56e-6 * t[23] * kern[69] - 0.0032 * kern[23] - 0.000128 * q[7] * kern[44]
+        + 3.4133333333333335e-8 * t[35] * kern[90]; /* t189 */
+    t[4] = 0.0032 * kern[22] - 0.000128 * q[7] * kern[45] - 2.56e-6 * t[23] * kern[68]
+        + 3.4133333333333335e-8 * t[35] * kern[91]; /* t190 */
+    t[1] = kern[137] + kern[34] * t[36] + kern[46] * t[37] + kern[59] * t[53] + kern[71] * t[55]
+        + kern[82] * t[38] + kern[83] * t[57] + kern[92] * t[39] + kern[102] * t[40]
+        + kern[103] * t[70] + kern[110] * t[59] + kern[111] * t[72] + kern[119] * t[74]
+        + kern[123] * t[76] + kern[127] * t[78]; /* t191 */
+}
+
+/* Part 4 of 4 of hanging_taper_gravity_actuation: temporaries into the caller's scratch t[]. */
+static void hanging_taper_gravity_actuation_part4(const double q[], const double cphi[], const double sphi[], const double kern[], const hanging_taper_params *P, double t[])
+{
+    t[53] = kern[136] + kern[35] * t[36] + kern[47] * t[37] + kern[58] * t[52]
+        + kern[70] * t[54] + kern[83] * t[38] + kern[82] * t[56] + kern[93] * t[39]
+        + kern[103] * t[40] + kern[102] * t[58] + kern[111] * t[59] + kern[110] * t[71]
+        + kern[118] * t[73] + kern[122] * t[75] + kern[126] * t[77]; /* t192 */
+    t[36] = P->gravity[0] * (-0.00288 * t[69] - 0.00288 * t[68])
+        + P->gravity[1] * (0.00288 * t[66] - 0.00288 * t[67])
+        + 0.0252 * (P->gravity[0] * t[80] + P->gravity[1] * t[81]); /* t193 */
+    t[37] = P->gravity[0] * (-0.00192 * t[7] - 0.00192 * t[9])
+        + P->gravity[1] * (0.00192 * t[6] - 0.00192 * t[8])
+        + 0.016 * (P->gravity[0] * t[87] + P->gravity[1] * t[88]); /* t194 */
+    t[52] = kern[143] - 0.00025 * q[1] * kern[46] - 0.00016666666666666666 * q[2] * kern[58]
+        + 6.25e-6 * t[2] * kern[71] + 1.3888888888888888e-7 * t[27] * kern[110]
+        + 3.08641975308642e-8 * t[12] * kern[118] + 8.333333333333334e-6 * t[5] * kern[83]
+        + 1.0416666666666667e-7 * t[11] * kern[92] + 2.777777777777778e-6 * t[3] * kern[93]
+        + kern[102] * t[60]; /* t195 */
+    t[54] = kern[142] - 0.00025 * q[1] * kern[47] - 0.00016666666666666666 * q[2] * kern[59]
+        - 6.25e-6 * t[2] * kern[70] + 1.3888888888888888e-7 * t[27] * kern[111]
+        + 3.08641975308642e-8 * t[12] * kern[119] - 8.333333333333334e-6 * t[5] * kern[82]
+        + 1.0416666666666667e-7 * t[11] * kern[93] - 2.777777777777778e-6 * t[3] * kern[92]
+        + kern[103] * t[60]; /* t196 */
+    t[27] = P->gravity[0] * (-0.00144 * t[69] - 0.00144 * t[68])
+        + P->gravity[1] * (0.00144 * t[66] - 0.00144 * t[67])
+        + 0.0252 * (P->gravity[0] * t[33] + P->gravity[1] * t[82]); /* t197 */
+    t[33] = P->gravity[0] * (-0.00096 * t[7] - 0.00096 * t[9])
+        + P->gravity[1] * (0.00096 * t[6] - 0.00096 * t[8])
+        + 0.016 * (P->gravity[0] * t[89] + P->gravity[1] * t[90]); /* t198 */
+    t[55] = 4.166666666666667e-6 * t[2] * kern[83] - 0.0033333333333333335 * kern[35]
+        - 0.00016666666666666666 * q[1] * kern[58] - 0.00011111111111111112 * q[2] * kern[70]
+        + 5.555555555555556e-6 * t[5] * kern[93] + 6.944444444444444e-8 * t[11] * kern[102]
+        + 1.8518518518518519e-6 * t[3] * kern[103] + kern[110] * t[61]
+        + 2.05761316872428e-8 * t[12] * kern[122] + kern[118] * t[62]; /* t199 */
+    t[38] = 0.0033333333333333335 * kern[34] - 0.00016666666666666666 * q[1] * kern[59]
+        - 0.00011111111111111112 * q[2] * kern[71] - 4.166666666666667e-6 * t[2] * kern[82]
+        - 5.555555555555556e-6 * t[5] * kern[92] + 6.944444444444444e-8 * t[11] * kern[103]
+        - 1.8518518518518519e-6 * t[3] * kern[102] + kern[111] * t[61]
+        + 2.05761316872428e-8 * t[12] * kern[123] + kern[119] * t[62]; /* t200 */
+    t[2] = P->gravity[0] * (-0.00096 * t[69] - 0.00096 * t[68])
+        + P->gravity[1] * (0.00096 * t[66] - 0.00096 * t[67])
+        + 0.0252 * (P->gravity[0] * t[83] + P->gravity[1] * t[84]); /* t201 */
+    t[5] = P->gravity[0] * (-0.00064 * t[7] - 0.00064 * t[9])
+        + P->gravity[1] * (0.00064 * t[6] - 0.00064 * t[8])
+        + 0.016 * (P->gravity[0] * t[91] + P->gravity[1] * t[44]); /* t202 */
+    t[3] = P->gravity[0] * (0.0288 * t[41] * cphi[0] - 0.0288 * t[79] * sphi[0])
+        + P->gravity[1] * (0.0288 * t[79] * cphi[0] + 0.0288 * t[41] * sphi[0]); /* t203 */
+    t[11] = P->gravity[0] * (-0.001728 * t[7] - 0.001728 * t[9])
+        + P->gravity[1] * (0.001728 * t[6] - 0.001728 * t[8])
+        + 0.016 * (P->gravity[0] * t[14] + P->gravity[1] * t[24]); /* t204 */
+    t[12] = P->gravity[0] * (0.0288 * cphi[0] * t[49] - 0.0288 * sphi[0] * t[50])
+        + P->gravity[1] * (0.0288 * cphi[0] * t[50] + 0.0288 * sphi[0] * t[49]); /* t205 */
+    t[56] = P->gravity[0] * (-0.000864 * t[7] - 0.000864 * t[9])
+        + P->gravity[1] * (0.000864 * t[6] - 0.000864 * t[8])
+        + 0.016 * (P->gravity[0] * t[34] + P->gravity[1] * t[25]); /* t206 */
+    t[57] = P->gravity[0] * (0.0288 * cphi[0] * t[15] - 0.0288 * sphi[0] * t[51])
+        + P->gravity[1] * (0.0288 * cphi[0] * t[51] + 0.0288 * sphi[0] * t[15]); /* t207 */
+    t[39] = P->gravity[0] * (-0.000576 * t[7] - 0.000576 * t[9])
+        + P->gravity[1] * (0.000576 * t[6] - 0.000576 * t[8])
+        + 0.016 * (P->gravity[0] * t[26] + P->gravity[1] * t[17]); /* t208 */
+    t[40] = P->gravity[0] * (0.0192 * t[46] * cphi[1] - 0.0192 * t[86] * sphi[1])
+        + P->gravity[1] * (0.0192 * t[86] * cphi[1] + 0.0192 * t[46] * sphi[1]); /* t209 */
+    t[58] = P->gravity[0] * (0.0192 * cphi[1] * t[0] - 0.0192 * sphi[1] * t[4])
+        + P->gravity[1] * (0.0192 * cphi[1] * t[4] + 0.0192 * sphi[1] * t[0]); /* t210 */
+}
+
+
+/* G(q) and A(q) (n x k, row-major) in one call: A's end forces lie inside G's sums. What the statics' residual and the regulator need. At the runtime parameters *P. Scratch: work[0 .. 418).
+ * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
+static void hanging_taper_gravity_actuation_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double A[HANGING_TAPER_NQ * HANGING_TAPER_NU], double work[])
+{
+    double *const nu = &work[0]; /* 182 */
+    double *const kern = &work[182]; /* 144 */
+    double cphi[2];
+    double sphi[2];
+    double phi;
+    double *const t = &work[326]; /* 92 */
+    hanging_taper_moments(0.1 * q[0], 16, &nu[0], &nu[33]);
+    hanging_taper_moments(0.09 * q[3], 16, &nu[66], &nu[99]);
+    hanging_taper_moments(0.08 * q[6], 12, &nu[132], &nu[157]);
+    phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
+    cphi[0] = cos(phi);
+    sphi[0] = sin(phi);
+    phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
+    cphi[1] = cos(phi);
+    sphi[1] = sin(phi);
+    hanging_taper_kernel_reim(hanging_taper_gravity_actuation_reim0, 64, nu, kern, &kern[1], 2);
+    hanging_taper_kernels(hanging_taper_gravity_actuation_rows, 16, nu, &kern[128]);
+    hanging_taper_gravity_actuation_part1(q, P, t);
+    hanging_taper_gravity_actuation_part2(q, nu, cphi, sphi, kern, t);
+    hanging_taper_gravity_actuation_part3(q, cphi, sphi, kern, t);
+    hanging_taper_gravity_actuation_part4(q, cphi, sphi, kern, P, t);
+    G[0] = -P->density_scale[0] * (t[1] * t[64] + t[53] * t[65]) - P->density_scale[1] * t[36]
+        - P->density_scale[2] * t[37]
+        - P->payload_mass * (P->gravity[0] * t[18] + P->gravity[1] * t[10]);
+    G[1] = -P->density_scale[0] * (t[64] * t[52] + t[65] * t[54]) - P->density_scale[1] * t[27]
+        - P->density_scale[2] * t[33]
+        - P->payload_mass * (P->gravity[0] * t[28] + P->gravity[1] * t[29]);
+    G[2] = -P->density_scale[0] * (t[64] * t[55] + t[65] * t[38]) - P->density_scale[1] * t[2]
+        - P->density_scale[2] * t[5]
+        - P->payload_mass * (P->gravity[0] * t[19] + P->gravity[1] * t[20]);
+    G[3] = -P->density_scale[1] * t[3] - P->density_scale[2] * t[11]
+        - P->payload_mass * (P->gravity[0] * t[21] + P->gravity[1] * t[30]);
+    G[4] = -P->density_scale[1] * t[12] - P->density_scale[2] * t[56]
+        - P->payload_mass * (P->gravity[0] * t[31] + P->gravity[1] * t[22]);
+    G[5] = -P->density_scale[1] * t[57] - P->density_scale[2] * t[39]
+        - P->payload_mass * (P->gravity[0] * t[32] + P->gravity[1] * t[47]);
+    G[6] = -P->density_scale[2] * t[40]
+        - P->payload_mass * (P->gravity[0] * t[48] + P->gravity[1] * t[42]);
+    G[7] = -P->density_scale[2] * t[58]
+        - P->payload_mass * (P->gravity[0] * t[43] + P->gravity[1] * t[45]);
+    A[0] = t[18];
+    A[1] = t[10];
+    A[2] = 0.0;
+    A[3] = t[28];
+    A[4] = t[29];
+    A[5] = 0.0;
+    A[6] = t[19];
+    A[7] = t[20];
+    A[8] = 0.0;
+    A[9] = t[21];
+    A[10] = t[30];
+    A[11] = 0.09;
+    A[12] = t[31];
+    A[13] = t[22];
+    A[14] = 0.045;
+    A[15] = t[32];
+    A[16] = t[47];
+    A[17] = 0.03;
+    A[18] = t[48];
+    A[19] = t[42];
+    A[20] = 0.0;
+    A[21] = t[43];
+    A[22] = t[45];
+    A[23] = 0.0;
+}
+
 /* Dot-product kernels of hanging_taper_inertia: pairs (row, moment base). */
 static const unsigned short hanging_taper_inertia_rows[24] = {
     26, 33, 28, 0, 42, 99, 43, 66, 44, 157, 45, 132, 29, 33, 30, 0, 23, 66, 24, 99, 36, 132, 37,
@@ -7738,446 +8182,6 @@ void hanging_taper_inertia(const double q[HANGING_TAPER_NQ], double B[HANGING_TA
 }
 #endif
 
-/* Dot-product kernels of hanging_taper_gravity: pairs (row, moment base). */
-static const unsigned short hanging_taper_gravity_rows[32] = {
-    26, 33, 28, 0, 42, 99, 43, 66, 44, 157, 45, 132, 29, 33, 30, 0, 169, 0, 170, 33, 23, 66, 24,
-    99, 36, 132, 37, 157, 172, 0, 173, 33
-};
-/* Dot-product kernels 0 .. 128 of hanging_taper_gravity: one row at both parts of a segment's moments, (row, real base, imaginary base). */
-static const unsigned short hanging_taper_gravity_reim0[192] = {
-    10, 66, 99, 10, 132, 157, 11, 66, 99, 31, 132, 157, 0, 0, 33, 0, 66, 99, 0, 132, 157, 1, 0,
-    33, 1, 66, 99, 1, 132, 157, 12, 66, 99, 32, 132, 157, 2, 0, 33, 2, 66, 99, 2, 132, 157, 13,
-    66, 99, 38, 132, 157, 159, 0, 33, 3, 0, 33, 3, 66, 99, 3, 132, 157, 14, 66, 99, 33, 132,
-    157, 160, 0, 33, 4, 0, 33, 4, 66, 99, 4, 132, 157, 15, 66, 99, 39, 132, 157, 161, 0, 33, 5,
-    0, 33, 5, 66, 99, 5, 132, 157, 16, 66, 99, 34, 132, 157, 162, 0, 33, 6, 0, 33, 6, 66, 99, 6,
-    132, 157, 17, 66, 99, 40, 132, 157, 163, 0, 33, 7, 0, 33, 7, 66, 99, 18, 66, 99, 35, 132,
-    157, 164, 0, 33, 8, 0, 33, 8, 66, 99, 19, 66, 99, 41, 132, 157, 165, 0, 33, 9, 0, 33, 9, 66,
-    99, 20, 66, 99, 166, 0, 33, 21, 66, 99, 27, 0, 33, 27, 66, 99, 167, 0, 33, 22, 66, 99, 168,
-    0, 33, 25, 66, 99, 171, 0, 33
-};
-/* Part 1 of 4 of hanging_taper_gravity: temporaries into the caller's scratch t[]. */
-static void hanging_taper_gravity_part1(const double q[], const hanging_taper_params *P, double t[])
-{
-    t[2] = q[1] * q[1]; /* t0 */
-    t[5] = q[1] * q[2]; /* t1 */
-    t[3] = q[2] * q[2]; /* t2 */
-    t[14] = q[1] * t[2]; /* t3 */
-    t[33] = q[1] * t[5]; /* t4 */
-    const double t5 = t[2] * t[2];
-    t[29] = q[1] * t[3]; /* t6 */
-    const double t7 = t[2] * t[5];
-    t[15] = q[2] * t[3]; /* t8 */
-    const double t9 = t[2] * t[3];
-    const double t10 = t[5] * t[3];
-    const double t11 = t[3] * t[3];
-    t[36] = -0.0005 * q[1]; /* t12 */
-    t[37] = -0.0003333333333333333 * q[2]; /* t13 */
-    t[44] = -1.25e-5 * t[2]; /* t14 */
-    t[45] = 1.25e-5 * t[2]; /* t15 */
-    t[46] = -1.6666666666666667e-5 * t[5]; /* t16 */
-    t[47] = 1.6666666666666667e-5 * t[5]; /* t17 */
-    t[38] = 2.0833333333333333e-7 * t[14]; /* t18 */
-    t[48] = -5.555555555555556e-6 * t[3]; /* t19 */
-    t[49] = 5.555555555555556e-6 * t[3]; /* t20 */
-    t[39] = 4.1666666666666667e-7 * t[33]; /* t21 */
-    t[40] = 2.7777777777777776e-7 * t[29]; /* t22 */
-    t[50] = 2.604166666666667e-9 * t5; /* t23 */
-    t[51] = -2.604166666666667e-9 * t5; /* t24 */
-    t[41] = 6.17283950617284e-8 * t[15]; /* t25 */
-    t[52] = 6.944444444444444e-9 * t7; /* t26 */
-    t[53] = -6.944444444444444e-9 * t7; /* t27 */
-    t[54] = 6.944444444444444e-9 * t9; /* t28 */
-    t[55] = -6.944444444444444e-9 * t9; /* t29 */
-    t[56] = 3.08641975308642e-9 * t10; /* t30 */
-    t[57] = -3.08641975308642e-9 * t10; /* t31 */
-    t[72] = 5.1440329218107e-10 * t11; /* t32 */
-    t[73] = -5.1440329218107e-10 * t11; /* t33 */
-    t[62] = 0.04 * P->gravity[0]; /* t34 */
-    t[63] = 0.04 * P->gravity[1]; /* t35 */
-    t[0] = q[4] * q[4]; /* t36 */
-    t[4] = q[4] * q[5]; /* t37 */
-    t[1] = q[5] * q[5]; /* t38 */
-    t[16] = q[4] * t[0]; /* t39 */
-    t[34] = q[4] * t[4]; /* t40 */
-    t[17] = t[0] * t[0]; /* t41 */
-    t[18] = q[4] * t[1]; /* t42 */
-    t[26] = t[0] * t[4]; /* t43 */
-    t[19] = q[5] * t[1]; /* t44 */
-    t[27] = t[0] * t[1]; /* t45 */
-    t[28] = t[4] * t[1]; /* t46 */
-    t[42] = t[1] * t[1]; /* t47 */
-    t[20] = 0.00405 * q[4]; /* t48 */
-    t[7] = -0.00405 * q[4]; /* t49 */
-    t[10] = 0.0027 * q[5]; /* t50 */
-    t[11] = -0.0027 * q[5]; /* t51 */
-    t[8] = -9.1125e-5 * t[0]; /* t52 */
-    t[9] = -0.0001215 * t[4]; /* t53 */
-    t[6] = -4.05e-5 * t[1]; /* t54 */
-    t[12] = -1.366875e-6 * t[16]; /* t55 */
-    t[13] = 1.366875e-6 * t[16]; /* t56 */
-    t[21] = -2.73375e-6 * t[34]; /* t57 */
-    t[22] = 2.73375e-6 * t[34]; /* t58 */
-    t[23] = 1.537734375e-8 * t[17]; /* t59 */
-    t[30] = -1.8225e-6 * t[18]; /* t60 */
-    t[31] = 1.8225e-6 * t[18]; /* t61 */
-    t[24] = 4.100625e-8 * t[26]; /* t62 */
-    t[32] = -4.05e-7 * t[19]; /* t63 */
-}
-
-/* Part 2 of 4 of hanging_taper_gravity: temporaries into the caller's scratch t[]. */
-static void hanging_taper_gravity_part2(const double q[], const double nu[], const double cphi[], const double sphi[], const double kern[], double t[])
-{
-    const double t64 = 4.05e-7 * t[19];
-    const double t65 = 4.100625e-8 * t[27];
-    const double t66 = 1.8225e-8 * t[28];
-    const double t67 = 3.0375e-9 * t[42];
-    const double t68 = 0.09 * nu[66] + kern[1] * t[7] + kern[11] * t[11] + kern[16] * t[8]
-        + kern[26] * t[9] + kern[38] * t[6] + kern[39] * t[13] + kern[51] * t[22]
-        + kern[62] * t[23] + kern[63] * t[31] + kern[74] * t[24] + kern[75] * t64
-        + kern[86] * t65 + kern[96] * t66 + kern[106] * t67;
-    const double t69 = 0.09 * nu[99] + kern[0] * t[20] + kern[10] * t[10] + kern[17] * t[8]
-        + kern[27] * t[9] + kern[39] * t[6] + kern[38] * t[12] + kern[50] * t[21]
-        + kern[63] * t[23] + kern[62] * t[30] + kern[75] * t[24] + kern[74] * t[32]
-        + kern[87] * t65 + kern[97] * t66 + kern[107] * t67;
-    const double t70 = kern[4] + t[7] * kern[21] + t[11] * kern[31] + t[8] * kern[42]
-        + t[9] * kern[54] + t[6] * kern[66] + t[13] * kern[67] + t[22] * kern[79]
-        + t[23] * kern[88] + t[31] * kern[89] + t[24] * kern[98] + t64 * kern[99]
-        + t65 * kern[108] + t66 * kern[112] + t67 * kern[120];
-    const double t71 = kern[5] + t[20] * kern[20] + t[10] * kern[30] + t[8] * kern[43]
-        + t[9] * kern[55] + t[6] * kern[67] + t[12] * kern[66] + t[21] * kern[78]
-        + t[23] * kern[89] + t[30] * kern[88] + t[24] * kern[99] + t[32] * kern[98]
-        + t65 * kern[109] + t66 * kern[113] + t67 * kern[121];
-    t[20] = -0.0003645 * q[4]; /* t72 */
-    t[7] = -0.000243 * q[5]; /* t73 */
-    t[10] = -8.20125e-6 * t[0]; /* t74 */
-    t[11] = 8.20125e-6 * t[0]; /* t75 */
-    t[8] = -1.0935e-5 * t[4]; /* t76 */
-    t[9] = 1.0935e-5 * t[4]; /* t77 */
-    t[6] = 1.2301875e-7 * t[16]; /* t78 */
-    t[12] = -3.645e-6 * t[1]; /* t79 */
-    t[13] = 3.645e-6 * t[1]; /* t80 */
-    t[21] = 2.460375e-7 * t[34]; /* t81 */
-    t[22] = 1.64025e-7 * t[18]; /* t82 */
-    t[23] = 1.3839609375e-9 * t[17]; /* t83 */
-    t[30] = -1.3839609375e-9 * t[17]; /* t84 */
-    t[17] = 3.645e-8 * t[19]; /* t85 */
-    t[31] = 3.6905625e-9 * t[26]; /* t86 */
-    t[24] = -3.6905625e-9 * t[26]; /* t87 */
-    t[26] = 3.6905625e-9 * t[27]; /* t88 */
-    t[32] = -3.6905625e-9 * t[27]; /* t89 */
-    t[27] = 1.64025e-9 * t[28]; /* t90 */
-    t[74] = -1.64025e-9 * t[28]; /* t91 */
-    t[28] = 2.73375e-10 * t[42]; /* t92 */
-    t[75] = -2.73375e-10 * t[42]; /* t93 */
-    t[42] = kern[139] + kern[30] * t[20] + kern[42] * t[7] + kern[55] * t[11] + kern[67] * t[9]
-        + kern[78] * t[6] + kern[79] * t[13] + kern[88] * t[21] + kern[98] * t[22]
-        + kern[99] * t[30] + kern[108] * t[17] + kern[109] * t[24] + kern[113] * t[32]
-        + kern[121] * t[74] + kern[125] * t[75]; /* t94 */
-    t[76] = kern[138] + kern[31] * t[20] + kern[43] * t[7] + kern[54] * t[10] + kern[66] * t[8]
-        + kern[79] * t[6] + kern[78] * t[12] + kern[89] * t[21] + kern[99] * t[22]
-        + kern[98] * t[23] + kern[109] * t[17] + kern[108] * t[31] + kern[112] * t[26]
-        + kern[120] * t[27] + kern[124] * t[28]; /* t95 */
-    t[77] = kern[128] + kern[8] * t[36] + kern[14] * t[37] + kern[25] * t[45] + kern[37] * t[47]
-        + kern[49] * t[49] + kern[48] * t[38] + kern[60] * t[39] + kern[73] * t[51]
-        + kern[72] * t[40] + kern[85] * t[53] + kern[84] * t[41] + kern[95] * t[55]
-        + kern[105] * t[57] + t[73] * kern[115]; /* t96 */
-    t[78] = kern[129] + kern[9] * t[36] + kern[15] * t[37] + kern[24] * t[44] + kern[36] * t[46]
-        + kern[48] * t[48] + kern[49] * t[38] + kern[61] * t[39] + kern[72] * t[50]
-        + kern[73] * t[40] + kern[84] * t[52] + kern[85] * t[41] + kern[94] * t[54]
-        + kern[104] * t[56] + t[72] * kern[114]; /* t97 */
-    const double t98 = q[2] * t[2];
-    t[58] = 6.944444444444444e-8 * (2.0 * t[33] + t98); /* t99 */
-    t[33] = kern[134] - 0.00025 * q[1] * kern[14] - 0.00016666666666666666 * q[2] * kern[24]
-        + 6.25e-6 * t[2] * kern[37] + 8.333333333333334e-6 * t[5] * kern[49]
-        + 1.0416666666666667e-7 * t[14] * kern[60] + 2.777777777777778e-6 * t[3] * kern[61]
-        + kern[72] * t[58] + 1.3888888888888888e-7 * t[29] * kern[84]
-        + 3.08641975308642e-8 * t[15] * kern[94]; /* t100 */
-    t[79] = kern[135] - 0.00025 * q[1] * kern[15] - 0.00016666666666666666 * q[2] * kern[25]
-        - 6.25e-6 * t[2] * kern[36] - 8.333333333333334e-6 * t[5] * kern[48]
-        + 1.0416666666666667e-7 * t[14] * kern[61] - 2.777777777777778e-6 * t[3] * kern[60]
-        + kern[73] * t[58] + 1.3888888888888888e-7 * t[29] * kern[85]
-        + 3.08641975308642e-8 * t[15] * kern[95]; /* t101 */
-    t[59] = 1.3888888888888888e-7 * t98; /* t102 */
-    t[60] = 3.08641975308642e-8 * (t[29] + 2.0 * q[2] * t[5]); /* t103 */
-    t[80] = 4.166666666666667e-6 * t[2] * kern[49] - 0.0033333333333333335 * kern[9]
-        - 0.00016666666666666666 * q[1] * kern[24] - 0.00011111111111111112 * q[2] * kern[36]
-        + 5.555555555555556e-6 * t[5] * kern[61] + 6.944444444444444e-8 * t[14] * kern[72]
-        + 1.8518518518518519e-6 * t[3] * kern[73] + kern[84] * t[59] + kern[94] * t[60]
-        + 2.05761316872428e-8 * t[15] * kern[104]; /* t104 */
-    t[81] = 0.0033333333333333335 * kern[8] - 0.00016666666666666666 * q[1] * kern[25]
-        - 0.00011111111111111112 * q[2] * kern[37] - 4.166666666666667e-6 * t[2] * kern[48]
-        - 5.555555555555556e-6 * t[5] * kern[60] + 6.944444444444444e-8 * t[14] * kern[73]
-        - 1.8518518518518519e-6 * t[3] * kern[72] + kern[85] * t[59] + kern[95] * t[60]
-        + 2.05761316872428e-8 * t[15] * kern[105]; /* t105 */
-    t[64] = t70 * cphi[0]; /* t106 */
-    t[65] = t71 * sphi[0]; /* t107 */
-    t[66] = t71 * cphi[0]; /* t108 */
-    t[67] = t70 * sphi[0]; /* t109 */
-    t[68] = t68 * cphi[0]; /* t110 */
-    t[69] = t69 * sphi[0]; /* t111 */
-    t[70] = t69 * cphi[0]; /* t112 */
-    t[71] = t68 * sphi[0]; /* t113 */
-    t[25] = q[7] * q[7]; /* t114 */
-    t[35] = q[7] * t[25]; /* t115 */
-    t[43] = t[25] * t[25]; /* t116 */
-    const double t117 = 0.0032 * q[7];
-    const double t118 = -0.0032 * q[7];
-    const double t119 = -6.4e-5 * t[25];
-    const double t120 = -8.533333333333334e-7 * t[35];
-    const double t121 = 8.533333333333334e-7 * t[35];
-    const double t122 = 8.533333333333334e-9 * t[43];
-    t[82] = 0.08 * nu[132] + kern[3] * t118 + kern[18] * t119 + kern[41] * t121
-        + kern[64] * t122; /* t123 */
-    t[83] = 0.08 * nu[157] + kern[2] * t117 + kern[19] * t119 + kern[40] * t120
-        + kern[65] * t122; /* t124 */
-    t[84] = kern[6] + t118 * kern[23] + t119 * kern[44] + t121 * kern[69] + t122 * kern[90]; /* t125 */
-    t[85] = kern[7] + t117 * kern[22] + t119 * kern[45] + t120 * kern[68] + t122 * kern[91]; /* t126 */
-    t[61] = -0.000256 * q[7]; /* t127 */
-}
-
-/* Part 3 of 4 of hanging_taper_gravity: temporaries into the caller's scratch t[]. */
-static void hanging_taper_gravity_part3(const double q[], const double cphi[], const double sphi[], const double kern[], const hanging_taper_params *P, double t[])
-{
-    const double t128 = -5.12e-6 * t[25];
-    const double t129 = 5.12e-6 * t[25];
-    const double t130 = 6.826666666666667e-8 * t[35];
-    const double t131 = 6.826666666666667e-10 * t[43];
-    const double t132 = -6.826666666666667e-10 * t[43];
-    t[43] = kern[141] + kern[32] * t[61] + kern[57] * t129 + kern[80] * t130 + kern[101] * t132; /* t133 */
-    t[86] = kern[140] + kern[33] * t[61] + kern[56] * t128 + kern[81] * t130 + kern[100] * t131; /* t134 */
-    const double t135 = t[77] - 0.1 * t[71] - 0.1 * t[70];
-    const double t136 = t[78] - 0.1 * t[69] + 0.1 * t[68];
-    const double t137 = t[33] - 0.05 * t[71] - 0.05 * t[70];
-    const double t138 = t[79] - 0.05 * t[69] + 0.05 * t[68];
-    const double t139 = t[80] - 0.03333333333333333 * t[71] - 0.03333333333333333 * t[70];
-    const double t140 = t[81] - 0.03333333333333333 * t[69] + 0.03333333333333333 * t[68];
-    const double t141 = kern[130] + kern[10] * t[20] + kern[16] * t[7] + kern[27] * t[11]
-        + kern[39] * t[9] + kern[51] * t[13] + kern[50] * t[6] + kern[62] * t[21]
-        + kern[75] * t[30] + kern[74] * t[22] + kern[87] * t[24] + kern[86] * t[17]
-        + kern[97] * t[32] + kern[107] * t[74] + t[75] * kern[117];
-    const double t142 = kern[131] + kern[11] * t[20] + kern[17] * t[7] + kern[26] * t[10]
-        + kern[38] * t[8] + kern[50] * t[12] + kern[51] * t[6] + kern[63] * t[21]
-        + kern[74] * t[23] + kern[75] * t[22] + kern[86] * t[31] + kern[87] * t[17]
-        + kern[96] * t[26] + kern[106] * t[27] + t[28] * kern[116];
-    t[17] = cphi[0] * t141 - sphi[0] * t142; /* t143 */
-    t[26] = cphi[0] * t142 + sphi[0] * t141; /* t144 */
-    const double t145 = q[5] * t[0];
-    const double t146 = 4.100625e-8 * (2.0 * t[34] + t145);
-    const double t147 = 4.100625e-6 * t[0] * kern[39] - 0.00405 * kern[1]
-        - 0.00018225 * q[4] * kern[16] - 0.0001215 * q[5] * kern[26]
-        + 5.4675e-6 * t[4] * kern[51] + 6.1509375e-8 * t[16] * kern[62]
-        + 1.8225e-6 * t[1] * kern[63] + kern[74] * t146 + 8.20125e-8 * t[18] * kern[86]
-        + 1.8225e-8 * t[19] * kern[96];
-    const double t148 = 0.00405 * kern[0] - 0.00018225 * q[4] * kern[17]
-        - 0.0001215 * q[5] * kern[27] - 4.100625e-6 * t[0] * kern[38]
-        - 5.4675e-6 * t[4] * kern[50] + 6.1509375e-8 * t[16] * kern[63]
-        - 1.8225e-6 * t[1] * kern[62] + kern[75] * t146 + 8.20125e-8 * t[18] * kern[87]
-        + 1.8225e-8 * t[19] * kern[97];
-    t[34] = cphi[0] * t147 - sphi[0] * t148; /* t149 */
-    t[27] = cphi[0] * t148 + sphi[0] * t147; /* t150 */
-    const double t151 = 8.20125e-8 * t145;
-    const double t152 = 1.8225e-8 * (t[18] + 2.0 * q[5] * t[4]);
-    const double t153 = 2.73375e-6 * t[0] * kern[51] - 0.0027 * kern[11]
-        - 0.0001215 * q[4] * kern[26] - 8.1e-5 * q[5] * kern[38] + 3.645e-6 * t[4] * kern[63]
-        + 4.100625e-8 * t[16] * kern[74] + 1.215e-6 * t[1] * kern[75] + kern[86] * t151
-        + kern[96] * t152 + 1.215e-8 * t[19] * kern[106];
-    const double t154 = 0.0027 * kern[10] - 0.0001215 * q[4] * kern[27]
-        - 8.1e-5 * q[5] * kern[39] - 2.73375e-6 * t[0] * kern[50] - 3.645e-6 * t[4] * kern[62]
-        + 4.100625e-8 * t[16] * kern[75] - 1.215e-6 * t[1] * kern[74] + kern[87] * t151
-        + kern[97] * t152 + 1.215e-8 * t[19] * kern[107];
-    t[28] = cphi[0] * t153 - sphi[0] * t154; /* t155 */
-    t[20] = cphi[0] * t154 + sphi[0] * t153; /* t156 */
-    t[7] = t[84] * cphi[1]; /* t157 */
-    t[10] = t[85] * sphi[1]; /* t158 */
-    t[11] = t[85] * cphi[1]; /* t159 */
-    t[8] = t[84] * sphi[1]; /* t160 */
-    t[9] = t[82] * cphi[1]; /* t161 */
-    t[6] = t[83] * sphi[1]; /* t162 */
-    t[12] = t[83] * cphi[1]; /* t163 */
-    t[13] = t[82] * sphi[1]; /* t164 */
-    t[21] = kern[132] + t[61] * kern[12] + t129 * kern[29] + t130 * kern[52] + t132 * kern[77]; /* t165 */
-    t[22] = kern[133] + t[61] * kern[13] + t128 * kern[28] + t130 * kern[53] + t131 * kern[76]; /* t166 */
-    t[23] = 2.56e-6 * t[25] * kern[41] - 0.0032 * kern[3] - 0.000128 * q[7] * kern[18]
-        + 3.4133333333333335e-8 * t[35] * kern[64]; /* t167 */
-    t[30] = 0.0032 * kern[2] - 0.000128 * q[7] * kern[19] - 2.56e-6 * t[25] * kern[40]
-        + 3.4133333333333335e-8 * t[35] * kern[65]; /* t168 */
-    t[31] = 4.100625e-6 * t[0] * kern[67] - 0.00405 * kern[21] - 0.00018225 * q[4] * kern[42]
-        - 0.0001215 * q[5] * kern[54] + 8.20125e-8 * t[18] * kern[108]
-        + 1.8225e-8 * t[19] * kern[112] + 5.4675e-6 * t[4] * kern[79]
-        + 6.1509375e-8 * t[16] * kern[88] + 1.8225e-6 * t[1] * kern[89] + kern[98] * t146; /* t169 */
-    t[24] = 0.00405 * kern[20] - 0.00018225 * q[4] * kern[43] - 0.0001215 * q[5] * kern[55]
-        - 4.100625e-6 * t[0] * kern[66] + 8.20125e-8 * t[18] * kern[109]
-        + 1.8225e-8 * t[19] * kern[113] - 5.4675e-6 * t[4] * kern[78]
-        + 6.1509375e-8 * t[16] * kern[89] - 1.8225e-6 * t[1] * kern[88] + kern[99] * t146; /* t170 */
-    t[18] = 2.73375e-6 * t[0] * kern[79] - 0.0027 * kern[31] - 0.0001215 * q[4] * kern[54]
-        - 8.1e-5 * q[5] * kern[66] + 3.645e-6 * t[4] * kern[89] + 4.100625e-8 * t[16] * kern[98]
-        + 1.215e-6 * t[1] * kern[99] + kern[108] * t151 + 1.215e-8 * t[19] * kern[120]
-        + kern[112] * t152; /* t171 */
-    t[32] = 0.0027 * kern[30] - 0.0001215 * q[4] * kern[55] - 8.1e-5 * q[5] * kern[67]
-        - 2.73375e-6 * t[0] * kern[78] - 3.645e-6 * t[4] * kern[88]
-        + 4.100625e-8 * t[16] * kern[99] - 1.215e-6 * t[1] * kern[98] + kern[109] * t151
-        + 1.215e-8 * t[19] * kern[121] + kern[113] * t152; /* t172 */
-    t[0] = 2.56e-6 * t[25] * kern[69] - 0.0032 * kern[23] - 0.000128 * q[7] * kern[44]
-        + 3.4133333333333335e-8 * t[35] * kern[90]; /* t173 */
-    t[4] = 0.0032 * kern[22] - 0.000128 * q[7] * kern[45] - 2.56e-6 * t[25] * kern[68]
-        + 3.4133333333333335e-8 * t[35] * kern[91]; /* t174 */
-    t[1] = kern[137] + kern[34] * t[36] + kern[46] * t[37] + kern[59] * t[45] + kern[71] * t[47]
-        + kern[82] * t[38] + kern[83] * t[49] + kern[92] * t[39] + kern[102] * t[40]
-        + kern[103] * t[51] + kern[110] * t[41] + kern[111] * t[53] + kern[119] * t[55]
-        + kern[123] * t[57] + kern[127] * t[73]; /* t175 */
-    t[45] = kern[136] + kern[35] * t[36] + kern[47] * t[37] + kern[58] * t[44]
-        + kern[70] * t[46] + kern[83] * t[38] + kern[82] * t[48] + kern[93] * t[39]
-        + kern[103] * t[40] + kern[102] * t[50] + kern[111] * t[41] + kern[110] * t[52]
-        + kern[118] * t[54] + kern[122] * t[56] + kern[126] * t[72]; /* t176 */
-    t[36] = P->gravity[0] * (-0.00288 * t[67] - 0.00288 * t[66])
-        + P->gravity[1] * (0.00288 * t[64] - 0.00288 * t[65])
-        + 0.0252 * (P->gravity[0] * t[77] + P->gravity[1] * t[78]); /* t177 */
-    t[37] = P->gravity[0] * (-0.00192 * t[8] - 0.00192 * t[11])
-        + P->gravity[1] * (0.00192 * t[7] - 0.00192 * t[10])
-        + 0.016 * (P->gravity[0] * t135 + P->gravity[1] * t136); /* t178 */
-    t[44] = P->gravity[0] * (t135 - 0.1 * t[13] - 0.1 * t[12])
-        + P->gravity[1] * (t136 - 0.1 * t[6] + 0.1 * t[9]); /* t179 */
-    t[46] = kern[143] - 0.00025 * q[1] * kern[46] - 0.00016666666666666666 * q[2] * kern[58]
-        + 6.25e-6 * t[2] * kern[71] + 1.3888888888888888e-7 * t[29] * kern[110]
-        + 3.08641975308642e-8 * t[15] * kern[118] + 8.333333333333334e-6 * t[5] * kern[83]
-        + 1.0416666666666667e-7 * t[14] * kern[92] + 2.777777777777778e-6 * t[3] * kern[93]
-        + kern[102] * t[58]; /* t180 */
-    t[47] = kern[142] - 0.00025 * q[1] * kern[47] - 0.00016666666666666666 * q[2] * kern[59]
-        - 6.25e-6 * t[2] * kern[70] + 1.3888888888888888e-7 * t[29] * kern[111]
-        + 3.08641975308642e-8 * t[15] * kern[119] - 8.333333333333334e-6 * t[5] * kern[82]
-        + 1.0416666666666667e-7 * t[14] * kern[93] - 2.777777777777778e-6 * t[3] * kern[92]
-        + kern[103] * t[58]; /* t181 */
-    t[29] = P->gravity[0] * (-0.00144 * t[67] - 0.00144 * t[66])
-        + P->gravity[1] * (0.00144 * t[64] - 0.00144 * t[65])
-        + 0.0252 * (P->gravity[0] * t[33] + P->gravity[1] * t[79]); /* t182 */
-    t[33] = P->gravity[0] * (-0.00096 * t[8] - 0.00096 * t[11])
-        + P->gravity[1] * (0.00096 * t[7] - 0.00096 * t[10])
-        + 0.016 * (P->gravity[0] * t137 + P->gravity[1] * t138); /* t183 */
-    t[38] = P->gravity[0] * (t137 - 0.05 * t[13] - 0.05 * t[12])
-        + P->gravity[1] * (t138 - 0.05 * t[6] + 0.05 * t[9]); /* t184 */
-    t[48] = 4.166666666666667e-6 * t[2] * kern[83] - 0.0033333333333333335 * kern[35]
-        - 0.00016666666666666666 * q[1] * kern[58] - 0.00011111111111111112 * q[2] * kern[70]
-        + 5.555555555555556e-6 * t[5] * kern[93] + 6.944444444444444e-8 * t[14] * kern[102]
-        + 1.8518518518518519e-6 * t[3] * kern[103] + kern[110] * t[59]
-        + 2.05761316872428e-8 * t[15] * kern[122] + kern[118] * t[60]; /* t185 */
-    t[49] = 0.0033333333333333335 * kern[34] - 0.00016666666666666666 * q[1] * kern[59]
-        - 0.00011111111111111112 * q[2] * kern[71] - 4.166666666666667e-6 * t[2] * kern[82]
-        - 5.555555555555556e-6 * t[5] * kern[92] + 6.944444444444444e-8 * t[14] * kern[103]
-        - 1.8518518518518519e-6 * t[3] * kern[102] + kern[111] * t[59]
-        + 2.05761316872428e-8 * t[15] * kern[123] + kern[119] * t[60]; /* t186 */
-    t[2] = P->gravity[0] * (-0.00096 * t[67] - 0.00096 * t[66])
-        + P->gravity[1] * (0.00096 * t[64] - 0.00096 * t[65])
-        + 0.0252 * (P->gravity[0] * t[80] + P->gravity[1] * t[81]); /* t187 */
-    t[5] = P->gravity[0] * (-0.00064 * t[8] - 0.00064 * t[11])
-        + P->gravity[1] * (0.00064 * t[7] - 0.00064 * t[10])
-        + 0.016 * (P->gravity[0] * t139 + P->gravity[1] * t140); /* t188 */
-    t[3] = P->gravity[0] * (t139 - 0.03333333333333333 * t[13] - 0.03333333333333333 * t[12])
-        + P->gravity[1] * (t140 - 0.03333333333333333 * t[6] + 0.03333333333333333 * t[9]); /* t189 */
-    t[14] = P->gravity[0] * (0.0288 * t[42] * cphi[0] - 0.0288 * t[76] * sphi[0])
-        + P->gravity[1] * (0.0288 * t[76] * cphi[0] + 0.0288 * t[42] * sphi[0]); /* t190 */
-    t[15] = P->gravity[0] * (-0.001728 * t[8] - 0.001728 * t[11])
-        + P->gravity[1] * (0.001728 * t[7] - 0.001728 * t[10])
-        + 0.016 * (P->gravity[0] * t[17] + P->gravity[1] * t[26]); /* t191 */
-}
-
-/* Part 4 of 4 of hanging_taper_gravity: temporaries into the caller's scratch t[]. */
-static void hanging_taper_gravity_part4(const double cphi[], const double sphi[], const hanging_taper_params *P, double t[])
-{
-    t[39] = P->gravity[0] * (t[17] - 0.09 * t[13] - 0.09 * t[12])
-        + P->gravity[1] * (t[26] - 0.09 * t[6] + 0.09 * t[9]); /* t192 */
-    t[40] = P->gravity[0] * (0.0288 * cphi[0] * t[31] - 0.0288 * sphi[0] * t[24])
-        + P->gravity[1] * (0.0288 * cphi[0] * t[24] + 0.0288 * sphi[0] * t[31]); /* t193 */
-    t[50] = P->gravity[0] * (-0.000864 * t[8] - 0.000864 * t[11])
-        + P->gravity[1] * (0.000864 * t[7] - 0.000864 * t[10])
-        + 0.016 * (P->gravity[0] * t[34] + P->gravity[1] * t[27]); /* t194 */
-    t[51] = P->gravity[0] * (t[34] - 0.045 * t[13] - 0.045 * t[12])
-        + P->gravity[1] * (t[27] - 0.045 * t[6] + 0.045 * t[9]); /* t195 */
-    t[41] = P->gravity[0] * (0.0288 * cphi[0] * t[18] - 0.0288 * sphi[0] * t[32])
-        + P->gravity[1] * (0.0288 * cphi[0] * t[32] + 0.0288 * sphi[0] * t[18]); /* t196 */
-    t[52] = P->gravity[0] * (-0.000576 * t[8] - 0.000576 * t[11])
-        + P->gravity[1] * (0.000576 * t[7] - 0.000576 * t[10])
-        + 0.016 * (P->gravity[0] * t[28] + P->gravity[1] * t[20]); /* t197 */
-    t[53] = P->gravity[0] * (t[28] - 0.03 * t[13] - 0.03 * t[12])
-        + P->gravity[1] * (t[20] - 0.03 * t[6] + 0.03 * t[9]); /* t198 */
-    t[54] = P->gravity[0] * (0.0192 * t[43] * cphi[1] - 0.0192 * t[86] * sphi[1])
-        + P->gravity[1] * (0.0192 * t[86] * cphi[1] + 0.0192 * t[43] * sphi[1]); /* t199 */
-    t[55] = P->gravity[0] * (cphi[1] * t[21] - sphi[1] * t[22])
-        + P->gravity[1] * (cphi[1] * t[22] + sphi[1] * t[21]); /* t200 */
-    t[56] = P->gravity[0] * (0.0192 * cphi[1] * t[0] - 0.0192 * sphi[1] * t[4])
-        + P->gravity[1] * (0.0192 * cphi[1] * t[4] + 0.0192 * sphi[1] * t[0]); /* t201 */
-    t[57] = P->gravity[0] * (cphi[1] * t[23] - sphi[1] * t[30])
-        + P->gravity[1] * (cphi[1] * t[30] + sphi[1] * t[23]); /* t202 */
-}
-
-
-/* G(q) = dU_g/dq. At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_GRAVITY_WORK), 413 reals.
- * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
-{
-    double *const nu = &work[0]; /* 182 */
-    double *const kern = &work[182]; /* 144 */
-    double cphi[2];
-    double sphi[2];
-    double phi;
-    double *const t = &work[326]; /* 87 */
-    hanging_taper_moments(0.1 * q[0], 16, &nu[0], &nu[33]);
-    hanging_taper_moments(0.09 * q[3], 16, &nu[66], &nu[99]);
-    hanging_taper_moments(0.08 * q[6], 12, &nu[132], &nu[157]);
-    phi = 0.1 * q[0] + 0.05 * q[1] + 0.03333333333333333 * q[2];
-    cphi[0] = cos(phi);
-    sphi[0] = sin(phi);
-    phi += 0.09 * q[3] + 0.045 * q[4] + 0.03 * q[5];
-    cphi[1] = cos(phi);
-    sphi[1] = sin(phi);
-    hanging_taper_kernel_reim(hanging_taper_gravity_reim0, 64, nu, kern, &kern[1], 2);
-    hanging_taper_kernels(hanging_taper_gravity_rows, 16, nu, &kern[128]);
-    hanging_taper_gravity_part1(q, P, t);
-    hanging_taper_gravity_part2(q, nu, cphi, sphi, kern, t);
-    hanging_taper_gravity_part3(q, cphi, sphi, kern, P, t);
-    hanging_taper_gravity_part4(cphi, sphi, P, t);
-    G[0] = -P->density_scale[0] * (t[1] * t[62] + t[45] * t[63]) - P->density_scale[1] * t[36]
-        - P->density_scale[2] * t[37] - P->payload_mass * t[44];
-    G[1] = -P->density_scale[0] * (t[62] * t[46] + t[63] * t[47]) - P->density_scale[1] * t[29]
-        - P->density_scale[2] * t[33] - P->payload_mass * t[38];
-    G[2] = -P->density_scale[0] * (t[62] * t[48] + t[63] * t[49]) - P->density_scale[1] * t[2]
-        - P->density_scale[2] * t[5] - P->payload_mass * t[3];
-    G[3] = -P->density_scale[1] * t[14] - P->density_scale[2] * t[15] - P->payload_mass * t[39];
-    G[4] = -P->density_scale[1] * t[40] - P->density_scale[2] * t[50] - P->payload_mass * t[51];
-    G[5] = -P->density_scale[1] * t[41] - P->density_scale[2] * t[52] - P->payload_mass * t[53];
-    G[6] = -P->density_scale[2] * t[54] - P->payload_mass * t[55];
-    G[7] = -P->density_scale[2] * t[56] - P->payload_mass * t[57];
-}
-
-
-/* hanging_taper_gravity_with_ws at the arm file's parameters.
- * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
-{
-    hanging_taper_gravity_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, G, work);
-}
-
-
-#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-/* hanging_taper_gravity_with_ws with its scratch on this function's stack.
- * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
-{
-    double work[HANGING_TAPER_GRAVITY_WORK];
-    hanging_taper_gravity_with_ws(P, q, G, work);
-}
-#endif
-
-
-#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
-/* hanging_taper_gravity_ws with its scratch on this function's stack.
- * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
-void hanging_taper_gravity(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
-{
-    double work[HANGING_TAPER_GRAVITY_WORK];
-    hanging_taper_gravity_ws(q, G, work);
-}
-#endif
-
 /* Dot-product kernels of hanging_taper_actuation: pairs (row, moment base). */
 static const unsigned short hanging_taper_actuation_rows[16] = {
     26, 33, 28, 0, 42, 99, 43, 66, 44, 157, 45, 132, 29, 33, 30, 0
@@ -9489,6 +9493,45 @@ void hanging_taper_gravity_jacobian(const double q[HANGING_TAPER_NQ], double dG[
 {
     double work[HANGING_TAPER_GRAVITY_JACOBIAN_WORK];
     hanging_taper_gravity_jacobian_ws(q, dG, work);
+}
+#endif
+
+
+/* G(q) = dU_g/dq. Computed with A(q), whose end forces lie inside its sums. At the runtime parameters *P. Scratch: work[0 .. HANGING_TAPER_GRAVITY_WORK), 442 reals.
+ * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_gravity_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
+{
+    double *const A = &work[0]; /* 24 */
+    hanging_taper_gravity_actuation_with_ws(P, q, G, A, &work[24]);
+}
+
+
+/* hanging_taper_gravity_with_ws at the arm file's parameters.
+ * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_gravity_ws(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ], double work[])
+{
+    hanging_taper_gravity_with_ws(&HANGING_TAPER_PARAMS_DEFAULT, q, G, work);
+}
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* hanging_taper_gravity_with_ws with its scratch on this function's stack.
+ * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_gravity_with(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
+{
+    double work[HANGING_TAPER_GRAVITY_WORK];
+    hanging_taper_gravity_with_ws(P, q, G, work);
+}
+#endif
+
+
+#ifdef ARCWRIGHT_PLAIN_FUNCTIONS
+/* hanging_taper_gravity_ws with its scratch on this function's stack.
+ * Operations: 1827 add, 2523 mul, 6 div, 0 sqrt, 10 trig. */
+void hanging_taper_gravity(const double q[HANGING_TAPER_NQ], double G[HANGING_TAPER_NQ])
+{
+    double work[HANGING_TAPER_GRAVITY_WORK];
+    hanging_taper_gravity_ws(q, G, work);
 }
 #endif
 
@@ -11235,7 +11278,7 @@ static int hanging_taper_all_finite(const double v[], int len)
 hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[])
 {
     /* K, A and the scratch of gravity and actuation in
-     * work[0 .. HANGING_TAPER_STATIC_RESIDUAL_WORK), 501 reals. */
+     * work[0 .. HANGING_TAPER_STATIC_RESIDUAL_WORK), 530 reals. */
     double *const K = &work[0];
     double *const A = &work[64];
     int i;
@@ -11247,8 +11290,7 @@ hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_p
         return HANGING_TAPER_ERR_NONFINITE_INPUT;
     }
     hanging_taper_stiffness_with(P, K);
-    hanging_taper_gravity_with_ws(P, q, R, &work[88]);
-    hanging_taper_actuation_ws(q, A, &work[88]);
+    hanging_taper_gravity_actuation_with_ws(P, q, R, A, &work[88]);
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         double s = R[i];
         for (c = 0; c < HANGING_TAPER_NQ; ++c) {
@@ -11348,13 +11390,14 @@ static int hanging_taper_linearise(const hanging_taper_params *P, const double q
     int i;
     int x;
     int c;
-    /* With the Jacobian, G comes with dG/dq (into jac), which shares its work. */
+    /* With the Jacobian, G comes with dG/dq (into jac), which shares its work;
+     * without it, with A, whose end forces lie inside G's sums. */
     if (jac == 0) {
-        hanging_taper_gravity_with_ws(P, q, G, &work[224]);
+        hanging_taper_gravity_actuation_with_ws(P, q, G, A, &work[224]);
     } else {
         hanging_taper_gravity_linearised_with_ws(P, q, G, jac, &work[224]);
+        hanging_taper_actuation_ws(q, A, &work[224]);
     }
-    hanging_taper_actuation_ws(q, A, &work[224]);
     for (i = 0; i < HANGING_TAPER_NQ; ++i) {
         double kq = 0.0;
         double au = 0.0;
@@ -11637,7 +11680,7 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
     /* A, M = S A, the wanted force b, y and y', the normal equations (hess, f), the
      * free optimum, the gradient, the solver's sub-matrix and right-hand side, the
      * polish's Gram matrix, then G, K and the scratch of actuation and gravity, in
-     * work[0 .. HANGING_TAPER_REGULATE_WORK), 566 reals. */
+     * work[0 .. HANGING_TAPER_REGULATE_WORK), 595 reals. */
     double *const A = &work[0];
     double *const M = &work[24];
     double *const b = &work[33];
@@ -11683,14 +11726,18 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
         }
     }
     /* b = Kp (target - S q) - Kd S q' [+ S (K q + G)]. */
-    hanging_taper_actuation_ws(q, A, rest);
+    /* The compensated law needs G too, which brings A with it. */
+    if (law == HANGING_TAPER_LAW_COMPENSATED) {
+        hanging_taper_gravity_actuation_with_ws(P, q, G, A, rest);
+    } else {
+        hanging_taper_actuation_ws(q, A, rest);
+    }
     hanging_taper_select(q, 1, y, 1);
     hanging_taper_select(qd, 1, yd, 1);
     for (r = 0; r < HANGING_TAPER_NY; ++r) {
         b[r] = kp[r] * (target[r] - y[r]) - kd[r] * yd[r];
     }
     if (law == HANGING_TAPER_LAW_COMPENSATED) {
-        hanging_taper_gravity_with_ws(P, q, G, rest);
         hanging_taper_stiffness_with(P, K);
         for (i = 0; i < HANGING_TAPER_NQ; ++i) {
             for (j = 0; j < HANGING_TAPER_NQ; ++j) {

@@ -293,7 +293,7 @@ void hanging_taper_gravity_jacobian_with_ws(const hanging_taper_params *P, const
  * Static residual R = K q + G(q) - A(q) u, length n: zero at an equilibrium under the
  * inputs u. Returns HANGING_TAPER_OK, HANGING_TAPER_ERR_NONFINITE_INPUT (R is then NaN) or
  * HANGING_TAPER_ERR_NONFINITE_RESULT.
- * Operations: 2786 add, 3976 mul, 12 div, 0 sqrt, 20 trig.
+ * Operations: 1915 add, 2611 mul, 6 div, 0 sqrt, 10 trig.
  */
 hanging_taper_status hanging_taper_static_residual_ws(const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
 hanging_taper_status hanging_taper_static_residual_with_ws(const hanging_taper_params *P, const double q[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU], double R[HANGING_TAPER_NQ], double work[]);
@@ -350,7 +350,7 @@ typedef struct {
  * on the way, at load fraction info->load: never take it for the answer);
  * HANGING_TAPER_ERR_NONFINITE_INPUT (q = 0); HANGING_TAPER_ERR_NONFINITE_RESULT.
  * Operations per Newton iteration, at most: 5713 add, 7974 mul, 54 div, 4 sqrt, 30 trig.
- * Per backtracking trial: 2837 add, 4017 mul, 12 div, 4 sqrt, 20 trig.
+ * Per backtracking trial: 1966 add, 2652 mul, 6 div, 4 sqrt, 10 trig.
  */
 hanging_taper_status hanging_taper_equilibrium_ws(const double u[HANGING_TAPER_NU], double q[HANGING_TAPER_NQ], hanging_taper_equilibrium_info *info,
     double work[]);
@@ -388,7 +388,7 @@ typedef enum hanging_taper_law {
  * nearest 0: tendons at their pretension).
  * This computes a command; it does not make it safe. Rate-limit and bound it, and
  * stop the arm when the return code or the state is not what you expect.
- * Operations before the allocation, at most: 2846 add, 4043 mul, 13 div, 0 sqrt, 20 trig.
+ * Operations before the allocation, at most: 1975 add, 2678 mul, 7 div, 0 sqrt, 10 trig.
  * Per active-set iteration: 46 add, 40 mul, 12 div, 5 sqrt, 0 trig.
  */
 hanging_taper_status hanging_taper_regulate_ws(hanging_taper_law law, const double target[HANGING_TAPER_NY], const double kp[HANGING_TAPER_NY], const double kd[HANGING_TAPER_NY],
@@ -410,7 +410,6 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
  * budget). The plain forms (opt-in, at the end) put the scratch on their stack.
  */
 #define HANGING_TAPER_INERTIA_WORK 1463 /* 11704 bytes */
-#define HANGING_TAPER_GRAVITY_WORK 413 /* 3304 bytes */
 #define HANGING_TAPER_ACTUATION_WORK 303 /* 2424 bytes */
 #define HANGING_TAPER_TIP_JACOBIAN_WORK 303 /* 2424 bytes */
 #define HANGING_TAPER_REGRESSOR_WORK 2258 /* 18064 bytes */
@@ -418,13 +417,14 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
 #define HANGING_TAPER_TERMS_WORK 2258 /* 18064 bytes */
 #define HANGING_TAPER_KINETIC_ENERGY_WORK 1527 /* 12216 bytes */
 #define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 649 /* 5192 bytes */
+#define HANGING_TAPER_GRAVITY_WORK 442 /* 3536 bytes */
 #define HANGING_TAPER_CORIOLIS_WORK 2330 /* 18640 bytes */
 #define HANGING_TAPER_POSE_WORK 267 /* 2136 bytes */
 #define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2590 /* 20720 bytes */
-#define HANGING_TAPER_STATIC_RESIDUAL_WORK 501 /* 4008 bytes */
+#define HANGING_TAPER_STATIC_RESIDUAL_WORK 530 /* 4240 bytes */
 #define HANGING_TAPER_STATIC_JACOBIAN_WORK 905 /* 7240 bytes */
 #define HANGING_TAPER_EQUILIBRIUM_WORK 1113 /* 8904 bytes */
-#define HANGING_TAPER_REGULATE_WORK 566 /* 4528 bytes */
+#define HANGING_TAPER_REGULATE_WORK 595 /* 4760 bytes */
 #define HANGING_TAPER_WORK_LEN 2590 /* 20720 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS

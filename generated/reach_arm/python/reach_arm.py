@@ -6423,8 +6423,9 @@ def _linearise(P, q, u, lam, k, with_jacobian):
         g, dg = _gravity_linearised(q, P)
     else:
         g = _gravity(q, **P._asdict())
+    a = actuation(q)
     kq = k @ np.asarray(q)
-    au = actuation(q) @ np.asarray(u)
+    au = a @ np.asarray(u)
     load = g - au
     r = kq + lam * load
     scale = _norm(kq) + lam * (_norm(g) + _norm(au)) + 1e-300

@@ -622,6 +622,45 @@ pub fn emit(
         });
         len
     };
+    // G and a q-dependent A in one schedule, for the statics' residual and the
+    // regulator; gravity is it, keeping G.
+    let nk = n * k;
+    let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
+        let f = &plan.gravity;
+        let (rows, body, len) = p.body(f, "gravity_actuation", None, &|i: usize| {
+            if i < n {
+                format!("G[{i}]")
+            } else {
+                format!("A[{}]", i - n)
+            }
+        });
+        let body = if len == 0 {
+            format!("    (void)work;\n{body}")
+        } else {
+            body
+        };
+        let body = if f.block.reads_params {
+            body
+        } else {
+            format!("    (void)P;\n{body}")
+        };
+        funcs.push(CFunc {
+            rows,
+            formula: format!(
+                "G(q) and A(q) (n x k, row-major) in one call: A's end forces lie inside G's \
+                 sums. What the statics' residual and the regulator need. At the runtime \
+                 parameters *P. Scratch: work[0 .. {len})."
+            ),
+            ops: ops_line(f),
+            signature: format!(
+                "static void {name}_gravity_actuation_with_ws(const {name}_params *P, \
+                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {r} A[{up}_NQ * {up}_NU], {r} work[])"
+            ),
+            body,
+            plain: false,
+        });
+        len
+    });
     let mut constant_funcs: Vec<CFunc> = Vec::new();
     // Scratch of every `_ws` function, by name (for the header and the wrappers).
     let mut work: Vec<(String, usize)> = Vec::new();
@@ -810,14 +849,16 @@ pub fn emit(
         &[q.clone(), out("B")],
         &flat("B"),
     );
-    generated(
-        "gravity",
-        "G(q) = dU_g/dq.",
-        &plan.gravity,
-        "void",
-        &[q.clone(), out("G")],
-        &flat("G"),
-    );
+    if gravity_actuation_work.is_none() {
+        generated(
+            "gravity",
+            "G(q) = dU_g/dq.",
+            &plan.gravity,
+            "void",
+            &[q.clone(), out("G")],
+            &flat("G"),
+        );
+    }
     let actuation_work = generated(
         "actuation",
         "A(q), n x k, row-major.",
@@ -907,6 +948,21 @@ pub fn emit(
         n + linearised_work,
     );
     let gravity_jacobian_work = n + linearised_work;
+    if let Some(len) = gravity_actuation_work {
+        public(
+            "gravity",
+            "G(q) = dU_g/dq. Computed with A(q), whose end forces lie inside its sums.",
+            ops_line(&plan.gravity),
+            "void",
+            &[q.clone(), out("G")],
+            String::new(),
+            format!(
+                "    {r} *const A = &work[0]; /* {nk} */\n\
+                 \x20   {name}_gravity_actuation_with_ws(P, q, G, A, &work[{nk}]);\n"
+            ),
+            nk + len,
+        );
+    }
     // C alone needs nearly everything B and G need too, so it costs about as much as
     // terms: it is terms, keeping C.
     public(
@@ -1115,6 +1171,7 @@ pub fn emit(
     ctx.insert("kernel_coef", &wrap_list(&mc.coef, 4));
     ctx.insert("functions", &funcs);
     ctx.insert("shares", &plan.shares.is_some());
+    ctx.insert("gravity_actuation", &plan.gravity_with_actuation);
     ctx.insert(
         "matrix_tables",
         &matrix_table_context(plan, precision, &|v| wrap_list(v, 4)),

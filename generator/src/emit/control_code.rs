@@ -455,7 +455,13 @@ impl StaticsOps {
         } else {
             Ops::default()
         };
-        let residual = plan.gravity.ops_beyond + plan.actuation.ops_beyond + mul_add(n * n + n * k);
+        // G and A: one schedule when A depends on q (`Plan::gravity_with_actuation`).
+        let g_and_a = if plan.gravity_with_actuation {
+            plan.gravity.ops_beyond
+        } else {
+            plan.gravity.ops_beyond + plan.actuation.ops_beyond
+        };
+        let residual = g_and_a + mul_add(n * n + n * k);
         let jacobian = plan.gravity_jacobian.ops_beyond
             + da
             + da_u
@@ -495,16 +501,20 @@ impl StaticsOps {
             ..Ops::default()
         };
         // With the Jacobian the linearisation takes G from the Jacobian's schedule
-        // (`Plan::gravity_jacobian`), not from the gravity function as a trial does.
-        let newton = trial - plan.gravity.ops_beyond + jacobian + mul_add(n * n) + solve + bending;
+        // (`Plan::gravity_jacobian`) and A from its own, not both as a trial does.
+        let newton = trial - g_and_a
+            + plan.actuation.ops_beyond
+            + jacobian
+            + mul_add(n * n)
+            + solve
+            + bending;
         let s_terms: usize = plan.outputs.iter().map(|o| o.terms.len()).sum();
         let select = Ops {
             add: s_terms.saturating_sub(h),
             mul: s_terms,
             ..Ops::default()
         };
-        let regulate = plan.actuation.ops_beyond
-            + plan.gravity.ops_beyond
+        let regulate = g_and_a
             + mul_add(n * n)
             + select * (3 + k)
             + mul_add(h * 2)

@@ -292,6 +292,42 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         ),
     ];
     for (spec, f, target) in &specs {
+        if spec.fname == "gravity" && plan.gravity_with_actuation {
+            // G and a q-dependent A in one schedule, for the statics' residual and the
+            // regulator; gravity() is it, keeping G.
+            let mut both = function(
+                plan,
+                f,
+                &Spec {
+                    fname: "_gravity_actuation",
+                    formula: "(G(q), A(q)) in one call: A's end forces lie inside G's sums. What the statics' residual and the regulator need, at the parameters P (as _params returns them).",
+                    params: &[],
+                    init: "    g = np.zeros(NQ)\n    out = np.zeros((NQ, NU))\n",
+                    ret: "    return g, out\n",
+                },
+                None,
+                &move |i| {
+                    if i < n {
+                        format!("g[{i}]")
+                    } else {
+                        mat(i - n, k)
+                    }
+                },
+            );
+            both.signature = "_gravity_actuation(q, P)".into();
+            funcs.push(both);
+            funcs.push(PyFunc {
+                rows: String::new(),
+                formula: "Gravity vector G(q) = dU_g/dq, length NQ. Computed with A(q), whose end forces lie inside its sums.".into(),
+                ops: super::plan::ops_sentence(f.ops, f.ops_beyond),
+                signature: signature(plan, "gravity", &["q"], true),
+                body: format!(
+                    "    q = _vector(q, NQ, \"q\")\n    P = _params({})\n    return _gravity_actuation(q, P)[0]\n",
+                    param_names(plan)
+                ),
+            });
+            continue;
+        }
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
     // G and dG/dq in one schedule, for the statics' Newton steps; gravity_jacobian() is
@@ -454,6 +490,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         "non_finite_policy",
         &super::constants::non_finite_policy("raises DynamicsError", ""),
     );
+    ctx.insert("gravity_actuation", &plan.gravity_with_actuation);
     ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&mc.odd_inv, 4)));
     ctx.insert("pair_inv", &format!("\n{},\n", wrap_list(&mc.pair_inv, 4)));
     ctx.insert("series", &format!("\n    {},\n", series.join(",\n    ")));

@@ -376,6 +376,44 @@ pub fn emit(
         });
         len
     };
+    // G and a q-dependent A in one schedule, for the statics' residual and the
+    // regulator; `gravity` is it, keeping G.
+    let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
+        let f = &plan.gravity;
+        let (rows, body, len) = body(
+            tc,
+            f,
+            "gravity_actuation",
+            None,
+            "let mut g = [0.0; NQ];\nlet mut a = [[0.0; NU]; NQ];\n",
+            &|i: usize| {
+                if i < n {
+                    format!("g[{i}]")
+                } else {
+                    format!("a[{}][{}]", (i - n) / k, (i - n) % k)
+                }
+            },
+            "(g, a)\n",
+        );
+        let unused = |read: bool| if read { "" } else { "_" };
+        let w = if len == 0 { "_work" } else { "work" };
+        funcs.push(RFunc {
+            rows,
+            formula: format!(
+                "`G(q)` and `A(q)` in one call: `A`'s end forces lie inside `G`'s sums. What \
+                 the statics' residual and the regulator need, in `work` (at least {len} reals)."
+            ),
+            ops: ops_line(f),
+            signature: format!(
+                "fn gravity_actuation_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) \
+                 -> ([Real; NQ], [[Real; NU]; NQ])",
+                unused(f.block.reads_params),
+                unused(f.block.reads_q),
+            ),
+            body,
+        });
+        len
+    });
     let tc = tc;
     let mat = |rows: &str, cols: &str| format!("[[Real; {cols}]; {rows}]");
     let mut work_len = 0usize;
@@ -502,16 +540,19 @@ pub fn emit(
         &mat_target(n),
         "out\n",
     );
-    let gravity_work = generated(
-        "gravity",
-        "Gravity vector `G(q) = ∂U_g/∂q`.",
-        &plan.gravity,
-        &[q_of(&plan.gravity)],
-        "[Real; NQ]",
-        "let mut out = [0.0; NQ];\n",
-        &|i| format!("out[{i}]"),
-        "out\n",
-    );
+    let gravity_work = match gravity_actuation_work {
+        Some(len) => len,
+        None => generated(
+            "gravity",
+            "Gravity vector `G(q) = ∂U_g/∂q`.",
+            &plan.gravity,
+            &[q_of(&plan.gravity)],
+            "[Real; NQ]",
+            "let mut out = [0.0; NQ];\n",
+            &|i| format!("out[{i}]"),
+            "out\n",
+        ),
+    };
     let actuation_work = generated(
         "actuation",
         "Actuation matrix `A(q)`, NQ×NU: generalized force `A u`.",
@@ -596,6 +637,18 @@ pub fn emit(
         linearised_work,
     );
     let gravity_jacobian_work = linearised_work;
+    if let Some(len) = gravity_actuation_work {
+        public(
+            "gravity",
+            "Gravity vector `G(q) = ∂U_g/∂q`. Computed with `A(q)`, whose end forces lie inside its sums.",
+            ops_line(&plan.gravity),
+            &[q_of(&plan.gravity)],
+            "[Real; NQ]",
+            String::new(),
+            "gravity_actuation_in(p, q, work).0\n".into(),
+            len,
+        );
+    }
     // C alone needs nearly everything B and G need too: it is `terms`, keeping C.
     public(
         "coriolis",
@@ -768,6 +821,7 @@ pub fn emit(
     ctx.insert("index_type", uint(plan.moment_max));
     ctx.insert("row_type", uint(use_max(plan)));
     ctx.insert("kernel_routines", &plan.kernel_routines());
+    ctx.insert("gravity_actuation", &plan.gravity_with_actuation);
     ctx.insert("kernel_start", &strings(&mc.start).join(", "));
     ctx.insert("kernel_first", &strings(&mc.first).join(", "));
     ctx.insert("kernel_coef", &mc.coef.join(", "));
