@@ -584,82 +584,56 @@ pub fn emit(
         shares_work = len;
     }
     let p = Printer { shares_work, ..p };
-    // G and dG/dq in one schedule, for the statics' Newton steps; gravity_jacobian is
-    // it, keeping dG.
-    let linearised_work = {
-        let f = &plan.gravity_jacobian;
-        let (rows, body, len) = p.body(f, "gravity_linearised", None, &|i: usize| {
+    // G and, after it, a second output in one schedule: what the statics need at one
+    // point, with what the two share computed once. Returns the scratch length.
+    let mut g_and = |f: &Func, fname: &str, second: &str, second_len: &str, formula: &str| {
+        let (rows, body, len) = p.body(f, fname, None, &|i: usize| {
             if i < n {
                 format!("G[{i}]")
             } else {
-                format!("dG[{}]", i - n)
+                format!("{second}[{}]", i - n)
             }
         });
-        let body = if len == 0 {
-            format!("    (void)work;\n{body}")
-        } else {
-            body
-        };
-        let body = if f.block.reads_params {
-            body
-        } else {
-            format!("    (void)P;\n{body}")
-        };
+        let mut unused = String::new();
+        if !f.block.reads_params {
+            unused.push_str("    (void)P;\n");
+        }
+        if len == 0 {
+            unused.push_str("    (void)work;\n");
+        }
         funcs.push(CFunc {
             rows,
-            formula: format!(
-                "G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels \
-                 and sums: what a Newton step of the statics needs. At the runtime parameters \
-                 *P. Scratch: work[0 .. {len})."
-            ),
+            formula: format!("{formula} At the runtime parameters *P. Scratch: work[0 .. {len})."),
             ops: ops_line(f),
             signature: format!(
-                "static void {name}_gravity_linearised_with_ws(const {name}_params *P, \
-                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {r} dG[{up}_NQ * {up}_NQ], {r} work[])"
+                "static void {name}_{fname}_with_ws(const {name}_params *P, \
+                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {r} {second}[{second_len}], {r} work[])"
             ),
-            body,
+            body: format!("{unused}{body}"),
             plain: false,
         });
         len
     };
-    // G and a q-dependent A in one schedule, for the statics' residual and the
-    // regulator; gravity is it, keeping G.
+    // gravity_jacobian is the first, keeping dG.
+    let linearised_work = g_and(
+        &plan.gravity_jacobian,
+        "gravity_linearised",
+        "dG",
+        &format!("{up}_NQ * {up}_NQ"),
+        "G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels and \
+         sums: what a Newton step of the statics needs.",
+    );
+    // gravity is the second, keeping G, when A depends on q.
     let nk = n * k;
     let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
-        let f = &plan.gravity;
-        let (rows, body, len) = p.body(f, "gravity_actuation", None, &|i: usize| {
-            if i < n {
-                format!("G[{i}]")
-            } else {
-                format!("A[{}]", i - n)
-            }
-        });
-        let body = if len == 0 {
-            format!("    (void)work;\n{body}")
-        } else {
-            body
-        };
-        let body = if f.block.reads_params {
-            body
-        } else {
-            format!("    (void)P;\n{body}")
-        };
-        funcs.push(CFunc {
-            rows,
-            formula: format!(
-                "G(q) and A(q) (n x k, row-major) in one call: A's end forces lie inside G's \
-                 sums. What the statics' residual and the regulator need. At the runtime \
-                 parameters *P. Scratch: work[0 .. {len})."
-            ),
-            ops: ops_line(f),
-            signature: format!(
-                "static void {name}_gravity_actuation_with_ws(const {name}_params *P, \
-                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {r} A[{up}_NQ * {up}_NU], {r} work[])"
-            ),
-            body,
-            plain: false,
-        });
-        len
+        g_and(
+            &plan.gravity,
+            "gravity_actuation",
+            "A",
+            &format!("{up}_NQ * {up}_NU"),
+            "G(q) and A(q) (n x k, row-major) in one call: A's end forces lie inside G's \
+             sums. What the statics' residual and the regulator need.",
+        )
     });
     let mut constant_funcs: Vec<CFunc> = Vec::new();
     // Scratch of every `_ws` function, by name (for the header and the wrappers).

@@ -291,78 +291,79 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             Box::new(|_| String::new()),
         ),
     ];
+    // G and, after it, a second output (NQ rows of `cols`, the constant `width`) in one
+    // schedule, `_{fname}(q, P)` returning both: what the statics need at one point, with
+    // what the two share computed once. And the public function that keeps one of them.
+    let g_and = |f: &Func, fname: &str, (cols, width): (usize, &str), formula: &str| {
+        let helper = format!("_{fname}");
+        let mut both = function(
+            plan,
+            f,
+            &Spec {
+                fname: &helper,
+                formula: &format!("{formula}, at the parameters P (as _params returns them)."),
+                params: &[],
+                init: &format!("    g = np.zeros(NQ)\n    out = np.zeros((NQ, {width}))\n"),
+                ret: "    return g, out\n",
+            },
+            None,
+            &move |i| {
+                if i < n {
+                    format!("g[{i}]")
+                } else {
+                    mat(i - n, cols)
+                }
+            },
+        );
+        both.signature = format!("{helper}(q, P)");
+        both
+    };
+    let keeping = |public: &str, formula: &str, f: &Func, helper: &str, which: usize| {
+        PyFunc {
+        rows: String::new(),
+        formula: formula.into(),
+        ops: super::plan::ops_sentence(f.ops, f.ops_beyond),
+        signature: signature(plan, public, &["q"], true),
+        body: format!(
+            "    q = _vector(q, NQ, \"q\")\n    P = _params({})\n    return _{helper}(q, P)[{which}]\n",
+            param_names(plan)
+        ),
+    }
+    };
     for (spec, f, target) in &specs {
         if spec.fname == "gravity" && plan.gravity_with_actuation {
-            // G and a q-dependent A in one schedule, for the statics' residual and the
-            // regulator; gravity() is it, keeping G.
-            let mut both = function(
-                plan,
+            // gravity() is G with a q-dependent A, keeping G.
+            funcs.push(g_and(
                 f,
-                &Spec {
-                    fname: "_gravity_actuation",
-                    formula: "(G(q), A(q)) in one call: A's end forces lie inside G's sums. What the statics' residual and the regulator need, at the parameters P (as _params returns them).",
-                    params: &[],
-                    init: "    g = np.zeros(NQ)\n    out = np.zeros((NQ, NU))\n",
-                    ret: "    return g, out\n",
-                },
-                None,
-                &move |i| {
-                    if i < n {
-                        format!("g[{i}]")
-                    } else {
-                        mat(i - n, k)
-                    }
-                },
-            );
-            both.signature = "_gravity_actuation(q, P)".into();
-            funcs.push(both);
-            funcs.push(PyFunc {
-                rows: String::new(),
-                formula: "Gravity vector G(q) = dU_g/dq, length NQ. Computed with A(q), whose end forces lie inside its sums.".into(),
-                ops: super::plan::ops_sentence(f.ops, f.ops_beyond),
-                signature: signature(plan, "gravity", &["q"], true),
-                body: format!(
-                    "    q = _vector(q, NQ, \"q\")\n    P = _params({})\n    return _gravity_actuation(q, P)[0]\n",
-                    param_names(plan)
-                ),
-            });
+                "gravity_actuation",
+                (k, "NU"),
+                "(G(q), A(q)) in one call: A's end forces lie inside G's sums. What the statics' residual and the regulator need",
+            ));
+            funcs.push(keeping(
+                "gravity",
+                "Gravity vector G(q) = dU_g/dq, length NQ. Computed with A(q), whose end forces lie inside its sums.",
+                f,
+                "gravity_actuation",
+                0,
+            ));
             continue;
         }
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
-    // G and dG/dq in one schedule, for the statics' Newton steps; gravity_jacobian() is
-    // it, keeping dG/dq.
-    let mut linearised = function(
-        plan,
+    // gravity_jacobian() is G with dG/dq, keeping dG/dq.
+    funcs.push(g_and(
         &plan.gravity_jacobian,
-        &Spec {
-            fname: "_gravity_linearised",
-            formula: "(G(q), dG/dq) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs, at the parameters P (as _params returns them).",
-            params: &[],
-            init: "    g = np.zeros(NQ)\n    out = np.zeros((NQ, NQ))\n",
-            ret: "    return g, out\n",
-        },
-        None,
-        &move |i| {
-            if i < n {
-                format!("g[{i}]")
-            } else {
-                mat(i - n, n)
-            }
-        },
-    );
-    linearised.signature = "_gravity_linearised(q, P)".into();
-    funcs.push(linearised);
-    funcs.push(PyFunc {
-        rows: String::new(),
-        formula: "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric. Computed with G(q), which shares nearly all of its work.".into(),
-        ops: super::plan::ops_sentence(plan.gravity_jacobian.ops, plan.gravity_jacobian.ops_beyond),
-        signature: signature(plan, "gravity_jacobian", &["q"], true),
-        body: format!(
-            "    q = _vector(q, NQ, \"q\")\n    P = _params({})\n    return _gravity_linearised(q, P)[1]\n",
-            param_names(plan)
-        ),
-    });
+        "gravity_linearised",
+        (n, "NQ"),
+        "(G(q), dG/dq) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs",
+    ));
+    funcs.push(keeping(
+        "gravity_jacobian",
+        "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric. Computed with G(q), which shares nearly all of its work.",
+        &plan.gravity_jacobian,
+        "gravity_linearised",
+        1,
+    ));
     if let Some(f) = &plan.actuation_jacobian {
         funcs.push(function(
             plan,

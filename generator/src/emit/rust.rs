@@ -338,81 +338,62 @@ pub fn emit(
         });
         tc.shares_work = len;
     }
-    // G and ∂G/∂q in one schedule, for the statics' Newton steps; `gravity_jacobian` is
-    // it, keeping ∂G/∂q.
-    let linearised_work = {
-        let f = &plan.gravity_jacobian;
-        let (rows, body, len) = body(
-            tc,
-            f,
-            "gravity_linearised",
-            None,
-            "let mut g = [0.0; NQ];\nlet mut out = [[0.0; NQ]; NQ];\n",
-            &|i: usize| {
-                if i < n {
-                    format!("g[{i}]")
-                } else {
-                    format!("out[{}][{}]", (i - n) / n, (i - n) % n)
-                }
-            },
-            "(g, out)\n",
-        );
-        let unused = |read: bool| if read { "" } else { "_" };
-        let w = if len == 0 { "_work" } else { "work" };
-        funcs.push(RFunc {
-            rows,
-            formula: format!(
-                "`G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: \
-                 what a Newton step of the statics needs, in `work` (at least {len} reals)."
-            ),
-            ops: ops_line(f),
-            signature: format!(
-                "fn gravity_linearised_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) \
-                 -> ([Real; NQ], [[Real; NQ]; NQ])",
-                unused(f.block.reads_params),
-                unused(f.block.reads_q),
-            ),
-            body,
-        });
-        len
-    };
-    // G and a q-dependent A in one schedule, for the statics' residual and the
-    // regulator; `gravity` is it, keeping G.
+    // G and, after it, a second output (NQ rows of `cols`, the constant `width`) in one
+    // schedule: what the statics need at one point, with what the two share computed
+    // once. Returns the scratch length.
+    let mut g_and =
+        |f: &Func, fname: &str, second: &str, (cols, width): (usize, &str), formula: &str| {
+            let ty = format!("[[Real; {width}]; NQ]");
+            let (rows, body, len) = body(
+                tc,
+                f,
+                fname,
+                None,
+                &format!("let mut g = [0.0; NQ];\nlet mut {second} = [[0.0; {width}]; NQ];\n"),
+                &|i: usize| {
+                    if i < n {
+                        format!("g[{i}]")
+                    } else {
+                        format!("{second}[{}][{}]", (i - n) / cols, (i - n) % cols)
+                    }
+                },
+                &format!("(g, {second})\n"),
+            );
+            let unused = |read: bool| if read { "" } else { "_" };
+            let w = if len == 0 { "_work" } else { "work" };
+            funcs.push(RFunc {
+                rows,
+                formula: format!("{formula}, in `work` (at least {len} reals)."),
+                ops: ops_line(f),
+                signature: format!(
+                    "fn {fname}_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) \
+                 -> ([Real; NQ], {ty})",
+                    unused(f.block.reads_params),
+                    unused(f.block.reads_q),
+                ),
+                body,
+            });
+            len
+        };
+    // `gravity_jacobian` is the first, keeping ∂G/∂q.
+    let linearised_work = g_and(
+        &plan.gravity_jacobian,
+        "gravity_linearised",
+        "out",
+        (n, "NQ"),
+        "`G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: what a \
+         Newton step of the statics needs",
+    );
+    // `gravity` is the second, keeping G, when A depends on q.
     let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
-        let f = &plan.gravity;
-        let (rows, body, len) = body(
-            tc,
-            f,
+        g_and(
+            &plan.gravity,
             "gravity_actuation",
-            None,
-            "let mut g = [0.0; NQ];\nlet mut a = [[0.0; NU]; NQ];\n",
-            &|i: usize| {
-                if i < n {
-                    format!("g[{i}]")
-                } else {
-                    format!("a[{}][{}]", (i - n) / k, (i - n) % k)
-                }
-            },
-            "(g, a)\n",
-        );
-        let unused = |read: bool| if read { "" } else { "_" };
-        let w = if len == 0 { "_work" } else { "work" };
-        funcs.push(RFunc {
-            rows,
-            formula: format!(
-                "`G(q)` and `A(q)` in one call: `A`'s end forces lie inside `G`'s sums. What \
-                 the statics' residual and the regulator need, in `work` (at least {len} reals)."
-            ),
-            ops: ops_line(f),
-            signature: format!(
-                "fn gravity_actuation_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) \
-                 -> ([Real; NQ], [[Real; NU]; NQ])",
-                unused(f.block.reads_params),
-                unused(f.block.reads_q),
-            ),
-            body,
-        });
-        len
+            "a",
+            (k, "NU"),
+            "`G(q)` and `A(q)` in one call: `A`'s end forces lie inside `G`'s sums. What the \
+             statics' residual and the regulator need",
+        )
     });
     let tc = tc;
     let mat = |rows: &str, cols: &str| format!("[[Real; {cols}]; {rows}]");
