@@ -584,16 +584,27 @@ pub fn emit(
         shares_work = len;
     }
     let p = Printer { shares_work, ..p };
-    // G and, after it, a second output in one schedule: what the statics need at one
-    // point, with what the two share computed once. Returns the scratch length.
-    let mut g_and = |f: &Func, fname: &str, second: &str, second_len: &str, formula: &str| {
+    // G and, after it, more outputs (name, declared length, values) in one schedule:
+    // what the statics need at one point, with what they share computed once. Returns
+    // the scratch length.
+    let mut g_and = |f: &Func, fname: &str, more: &[(&str, String, usize)], formula: &str| {
         let (rows, body, len) = p.body(f, fname, None, &|i: usize| {
-            if i < n {
-                format!("G[{i}]")
-            } else {
-                format!("{second}[{}]", i - n)
+            let mut at = n;
+            if i < at {
+                return format!("G[{i}]");
             }
+            for (array, _, count) in more {
+                if i < at + count {
+                    return format!("{array}[{}]", i - at);
+                }
+                at += count;
+            }
+            unreachable!("output {i} beyond the arrays")
         });
+        let arrays: String = more
+            .iter()
+            .map(|(array, decl, _)| format!("{r} {array}[{decl}], "))
+            .collect();
         let mut unused = String::new();
         if !f.block.reads_params {
             unused.push_str("    (void)P;\n");
@@ -607,30 +618,41 @@ pub fn emit(
             ops: ops_line(f),
             signature: format!(
                 "static void {name}_{fname}_with_ws(const {name}_params *P, \
-                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {r} {second}[{second_len}], {r} work[])"
+                 const {r} q[{up}_NQ], {r} G[{up}_NQ], {arrays}{r} work[])"
             ),
             body: format!("{unused}{body}"),
             plain: false,
         });
         len
     };
-    // gravity_jacobian is the first, keeping dG.
-    let linearised_work = g_and(
-        &plan.gravity_jacobian,
-        "gravity_linearised",
-        "dG",
-        &format!("{up}_NQ * {up}_NQ"),
-        "G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels and \
-         sums: what a Newton step of the statics needs.",
-    );
-    // gravity is the second, keeping G, when A depends on q.
     let nk = n * k;
+    let dg_out = ("dG", format!("{up}_NQ * {up}_NQ"), n * n);
+    let a_out = ("A", format!("{up}_NQ * {up}_NU"), nk);
+    // gravity_jacobian is the first, keeping dG.
+    let linearised_work = if plan.gravity_with_actuation {
+        g_and(
+            &plan.gravity_jacobian,
+            "gravity_linearised",
+            &[dg_out, a_out.clone()],
+            "G(q), dG/dq (n x n, row-major) and A(q) (n x k) in one call, sharing their \
+             moments, kernels and sums (A's end forces lie inside G's): what a Newton step of \
+             the statics needs.",
+        )
+    } else {
+        g_and(
+            &plan.gravity_jacobian,
+            "gravity_linearised",
+            &[dg_out],
+            "G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels and \
+             sums: what a Newton step of the statics needs.",
+        )
+    };
+    // gravity is the second, keeping G, when A depends on q.
     let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
         g_and(
             &plan.gravity,
             "gravity_actuation",
-            "A",
-            &format!("{up}_NQ * {up}_NU"),
+            &[a_out],
             "G(q) and A(q) (n x k, row-major) in one call: A's end forces lie inside G's \
              sums. What the statics' residual and the regulator need.",
         )
@@ -907,6 +929,8 @@ pub fn emit(
         ),
         nn + inertia_work,
     );
+    let gravity_jacobian_work =
+        n + if plan.gravity_with_actuation { nk } else { 0 } + linearised_work;
     public(
         "gravity_jacobian",
         "dG/dq, n x n, row-major: the Hessian of U_g, symmetric. Computed with G(q), which \
@@ -915,13 +939,20 @@ pub fn emit(
         "void",
         &[q.clone(), out("dG")],
         String::new(),
-        format!(
-            "    {r} *const G = &work[0]; /* {n} */\n\
-             \x20   {name}_gravity_linearised_with_ws(P, q, G, dG, &work[{n}]);\n"
-        ),
-        n + linearised_work,
+        if plan.gravity_with_actuation {
+            format!(
+                "    {r} *const G = &work[0]; /* {n} */\n    {r} *const A = &work[{n}]; /* {nk} */\n\
+                 \x20   {name}_gravity_linearised_with_ws(P, q, G, dG, A, &work[{}]);\n",
+                n + nk
+            )
+        } else {
+            format!(
+                "    {r} *const G = &work[0]; /* {n} */\n\
+                 \x20   {name}_gravity_linearised_with_ws(P, q, G, dG, &work[{n}]);\n"
+            )
+        },
+        gravity_jacobian_work,
     );
-    let gravity_jacobian_work = n + linearised_work;
     if let Some(len) = gravity_actuation_work {
         public(
             "gravity",

@@ -501,13 +501,14 @@ impl StaticsOps {
             ..Ops::default()
         };
         // With the Jacobian the linearisation takes G from the Jacobian's schedule
-        // (`Plan::gravity_jacobian`) and A from its own, not both as a trial does.
-        let newton = trial - g_and_a
-            + plan.actuation.ops_beyond
-            + jacobian
-            + mul_add(n * n)
-            + solve
-            + bending;
+        // (`Plan::gravity_jacobian`), and A too when that schedules it, not as a trial
+        // does.
+        let a_apart = if plan.gravity_with_actuation {
+            Ops::default()
+        } else {
+            plan.actuation.ops_beyond
+        };
+        let newton = trial - g_and_a + a_apart + jacobian + mul_add(n * n) + solve + bending;
         let s_terms: usize = plan.outputs.iter().map(|o| o.terms.len()).sum();
         let select = Ops {
             add: s_terms.saturating_sub(h),

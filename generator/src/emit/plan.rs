@@ -256,10 +256,11 @@ pub struct Plan {
     pub damping: Func,
     pub actuation: Func,
     pub tip_jacobian: Func,
-    /// `G` (n) and then `∂G/∂q` (n×n row-major) in one schedule: a Newton step of the
-    /// statics needs both at one point, and they share the moments, the kernels and
-    /// most sums (on reach_arm 4,901 operations against 3,190 + 4,436 apart). The
-    /// emitted `gravity_jacobian` is this one keeping `∂G/∂q`.
+    /// `G` (n) and then `∂G/∂q` (n×n row-major) in one schedule, and `A` (n×k) after them
+    /// when [`Plan::gravity_with_actuation`]: a Newton step of the statics needs them at
+    /// one point, and they share the moments, the kernels and most sums (on reach_arm
+    /// 4,901 operations against 3,190 + 4,436 apart). The emitted `gravity_jacobian` is
+    /// this one keeping `∂G/∂q`.
     pub gravity_jacobian: Func,
     /// `∂A_ik/∂q_x` flattened `[x][i][k]`, when any entry is not identically zero (end
     /// forces): the static Jacobian's `−∂(A u)/∂q`.
@@ -541,6 +542,9 @@ impl Plan {
         let mut gravity_jacobian = {
             let mut roots = model.gravity.clone();
             roots.extend(statics.gravity_jacobian.iter().flatten());
+            if gravity_with_actuation {
+                roots.extend(flat(&model.actuation));
+            }
             func(&mut sched, &roots, false)
         };
         let da: Vec<Id> = statics
@@ -932,7 +936,7 @@ mod tests {
     /// The statics' Jacobian schedule computes `G` too (its first n outputs), which a
     /// Newton step then takes from it: the step is counted at less than a trial (the
     /// residual, with `G` on its own) and the Jacobian together. A `q`-dependent `A`
-    /// (an end force) is scheduled with `G`, a constant one is not.
+    /// (an end force) is scheduled with `G` in both, a constant one is not.
     #[test]
     fn the_statics_schedules_share_g() {
         let arm = crate::arm::parse_arm_str(
@@ -947,8 +951,9 @@ mod tests {
         .unwrap();
         let model = crate::derive::derive_emitted(&arm);
         let plan = Plan::new(&model, true, Precision::F64).unwrap();
-        let n = plan.n;
-        assert_eq!(plan.gravity_jacobian.block.outputs.len(), n + n * n);
+        let (n, k) = (plan.n, plan.k);
+        // G, ∂G/∂q and (the end force's A depends on q) A.
+        assert_eq!(plan.gravity_jacobian.block.outputs.len(), n + n * n + n * k);
         let ops = super::super::control_code::StaticsOps::of(&plan);
         let apart = (ops.trial + ops.jacobian).total();
         assert!(
@@ -959,7 +964,7 @@ mod tests {
         // The end force's A depends on q: it is scheduled with G, and a residual costs
         // less than G's and A's schedules would apart.
         assert!(plan.gravity_with_actuation);
-        assert_eq!(plan.gravity.block.outputs.len(), n + n * plan.k);
+        assert_eq!(plan.gravity.block.outputs.len(), n + n * k);
         let separate = (plan.gravity.ops_beyond + plan.actuation.ops_beyond).total();
         assert!(ops.residual.total() < separate, "{:?}", ops.residual);
         // A constant A (a moment) is not.
@@ -979,5 +984,9 @@ mod tests {
         .unwrap();
         assert!(!plan.gravity_with_actuation);
         assert_eq!(plan.gravity.block.outputs.len(), plan.n);
+        assert_eq!(
+            plan.gravity_jacobian.block.outputs.len(),
+            plan.n * (plan.n + 1)
+        );
     }
 }

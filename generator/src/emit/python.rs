@@ -291,32 +291,46 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             Box::new(|_| String::new()),
         ),
     ];
-    // G and, after it, a second output (NQ rows of `cols`, the constant `width`) in one
-    // schedule, `_{fname}(q, P)` returning both: what the statics need at one point, with
-    // what the two share computed once. And the public function that keeps one of them.
-    let g_and = |f: &Func, fname: &str, (cols, width): (usize, &str), formula: &str| {
+    // G and, after it, more NQ-row outputs (name, columns, their constant) in one
+    // schedule, `_{fname}(q, P)` returning them all: what the statics need at one point,
+    // with what they share computed once. And the public function that keeps one of them.
+    let g_and = |f: &Func, fname: &str, more: &[(&'static str, usize, &str)], formula: &str| {
         let helper = format!("_{fname}");
-        let mut both = function(
+        let mut init = String::from("    g = np.zeros(NQ)\n");
+        let mut ret = String::from("    return g");
+        for (array, _, width) in more {
+            init.push_str(&format!("    {array} = np.zeros((NQ, {width}))\n"));
+            ret.push_str(&format!(", {array}"));
+        }
+        ret.push('\n');
+        let more: Vec<(&'static str, usize)> = more.iter().map(|(a, c, _)| (*a, *c)).collect();
+        let mut all = function(
             plan,
             f,
             &Spec {
                 fname: &helper,
                 formula: &format!("{formula}, at the parameters P (as _params returns them)."),
                 params: &[],
-                init: &format!("    g = np.zeros(NQ)\n    out = np.zeros((NQ, {width}))\n"),
-                ret: "    return g, out\n",
+                init: &init,
+                ret: &ret,
             },
             None,
             &move |i| {
-                if i < n {
-                    format!("g[{i}]")
-                } else {
-                    mat(i - n, cols)
+                let mut at = n;
+                if i < at {
+                    return format!("g[{i}]");
                 }
+                for (array, cols) in &more {
+                    if i < at + n * cols {
+                        return format!("{array}[{}, {}]", (i - at) / cols, (i - at) % cols);
+                    }
+                    at += n * cols;
+                }
+                unreachable!("output {i} beyond the arrays")
             },
         );
-        both.signature = format!("{helper}(q, P)");
-        both
+        all.signature = format!("{helper}(q, P)");
+        all
     };
     let keeping = |public: &str, formula: &str, f: &Func, helper: &str, which: usize| {
         PyFunc {
@@ -336,7 +350,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             funcs.push(g_and(
                 f,
                 "gravity_actuation",
-                (k, "NU"),
+                &[("out", k, "NU")],
                 "(G(q), A(q)) in one call: A's end forces lie inside G's sums. What the statics' residual and the regulator need",
             ));
             funcs.push(keeping(
@@ -351,12 +365,21 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
     // gravity_jacobian() is G with dG/dq, keeping dG/dq.
-    funcs.push(g_and(
-        &plan.gravity_jacobian,
-        "gravity_linearised",
-        (n, "NQ"),
-        "(G(q), dG/dq) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs",
-    ));
+    funcs.push(if plan.gravity_with_actuation {
+        g_and(
+            &plan.gravity_jacobian,
+            "gravity_linearised",
+            &[("out", n, "NQ"), ("a", k, "NU")],
+            "(G(q), dG/dq, A(q)) in one call, sharing their moments, kernels and sums (A's end forces lie inside G's): what a Newton step of the statics needs",
+        )
+    } else {
+        g_and(
+            &plan.gravity_jacobian,
+            "gravity_linearised",
+            &[("out", n, "NQ")],
+            "(G(q), dG/dq) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs",
+        )
+    });
     funcs.push(keeping(
         "gravity_jacobian",
         "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric. Computed with G(q), which shares nearly all of its work.",

@@ -338,59 +338,80 @@ pub fn emit(
         });
         tc.shares_work = len;
     }
-    // G and, after it, a second output (NQ rows of `cols`, the constant `width`) in one
-    // schedule: what the statics need at one point, with what the two share computed
-    // once. Returns the scratch length.
-    let mut g_and =
-        |f: &Func, fname: &str, second: &str, (cols, width): (usize, &str), formula: &str| {
-            let ty = format!("[[Real; {width}]; NQ]");
-            let (rows, body, len) = body(
-                tc,
-                f,
-                fname,
-                None,
-                &format!("let mut g = [0.0; NQ];\nlet mut {second} = [[0.0; {width}]; NQ];\n"),
-                &|i: usize| {
-                    if i < n {
-                        format!("g[{i}]")
-                    } else {
-                        format!("{second}[{}][{}]", (i - n) / cols, (i - n) % cols)
+    // G and, after it, more NQ-row outputs (name, columns, their constant) in one
+    // schedule: what the statics need at one point, with what they share computed once.
+    // Returns the scratch length.
+    let mut g_and = |f: &Func, fname: &str, more: &[(&str, usize, &str)], formula: &str| {
+        let mut init = String::from("let mut g = [0.0; NQ];\n");
+        let mut ret = String::from("(g");
+        let mut ty = String::from("([Real; NQ]");
+        for (array, _, width) in more {
+            init.push_str(&format!("let mut {array} = [[0.0; {width}]; NQ];\n"));
+            ret.push_str(&format!(", {array}"));
+            ty.push_str(&format!(", [[Real; {width}]; NQ]"));
+        }
+        ret.push_str(")\n");
+        ty.push(')');
+        let (rows, body, len) = body(
+            tc,
+            f,
+            fname,
+            None,
+            &init,
+            &|i: usize| {
+                let mut at = n;
+                if i < at {
+                    return format!("g[{i}]");
+                }
+                for (array, cols, _) in more {
+                    if i < at + n * cols {
+                        return format!("{array}[{}][{}]", (i - at) / cols, (i - at) % cols);
                     }
-                },
-                &format!("(g, {second})\n"),
-            );
-            let unused = |read: bool| if read { "" } else { "_" };
-            let w = if len == 0 { "_work" } else { "work" };
-            funcs.push(RFunc {
-                rows,
-                formula: format!("{formula}, in `work` (at least {len} reals)."),
-                ops: ops_line(f),
-                signature: format!(
-                    "fn {fname}_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) \
-                 -> ([Real; NQ], {ty})",
-                    unused(f.block.reads_params),
-                    unused(f.block.reads_q),
-                ),
-                body,
-            });
-            len
-        };
+                    at += n * cols;
+                }
+                unreachable!("output {i} beyond the arrays")
+            },
+            &ret,
+        );
+        let unused = |read: bool| if read { "" } else { "_" };
+        let w = if len == 0 { "_work" } else { "work" };
+        funcs.push(RFunc {
+            rows,
+            formula: format!("{formula}, in `work` (at least {len} reals)."),
+            ops: ops_line(f),
+            signature: format!(
+                "fn {fname}_in({}p: &Params, {}q: &[Real; NQ], {w}: &mut [Real]) -> {ty}",
+                unused(f.block.reads_params),
+                unused(f.block.reads_q),
+            ),
+            body,
+        });
+        len
+    };
     // `gravity_jacobian` is the first, keeping ∂G/∂q.
-    let linearised_work = g_and(
-        &plan.gravity_jacobian,
-        "gravity_linearised",
-        "out",
-        (n, "NQ"),
-        "`G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: what a \
-         Newton step of the statics needs",
-    );
+    let linearised_work = if plan.gravity_with_actuation {
+        g_and(
+            &plan.gravity_jacobian,
+            "gravity_linearised",
+            &[("out", n, "NQ"), ("a", k, "NU")],
+            "`G(q)`, `∂G/∂q` and `A(q)` in one call, sharing their moments, kernels and sums \
+             (`A`'s end forces lie inside `G`'s): what a Newton step of the statics needs",
+        )
+    } else {
+        g_and(
+            &plan.gravity_jacobian,
+            "gravity_linearised",
+            &[("out", n, "NQ")],
+            "`G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: what a \
+             Newton step of the statics needs",
+        )
+    };
     // `gravity` is the second, keeping G, when A depends on q.
     let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
         g_and(
             &plan.gravity,
             "gravity_actuation",
-            "a",
-            (k, "NU"),
+            &[("a", k, "NU")],
             "`G(q)` and `A(q)` in one call: `A`'s end forces lie inside `G`'s sums. What the \
              statics' residual and the regulator need",
         )
