@@ -629,24 +629,21 @@ pub fn emit(
     let dg_out = ("dG", format!("{up}_NQ * {up}_NQ"), n * n);
     let a_out = ("A", format!("{up}_NQ * {up}_NU"), nk);
     // gravity_jacobian is the first, keeping dG.
-    let linearised_work = if plan.gravity_with_actuation {
-        g_and(
-            &plan.gravity_jacobian,
-            "gravity_linearised",
-            &[dg_out, a_out.clone()],
+    let (more, formula) = if plan.gravity_with_actuation {
+        (
+            vec![dg_out, a_out.clone()],
             "G(q), dG/dq (n x n, row-major) and A(q) (n x k) in one call, sharing their \
              moments, kernels and sums (A's end forces lie inside G's): what a Newton step of \
              the statics needs.",
         )
     } else {
-        g_and(
-            &plan.gravity_jacobian,
-            "gravity_linearised",
-            &[dg_out],
+        (
+            vec![dg_out],
             "G(q) and dG/dq (n x n, row-major) in one call, sharing their moments, kernels and \
              sums: what a Newton step of the statics needs.",
         )
     };
+    let linearised_work = g_and(&plan.gravity_jacobian, "gravity_linearised", &more, formula);
     // gravity is the second, keeping G, when A depends on q.
     let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
         g_and(

@@ -365,21 +365,23 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         funcs.push(function(plan, f, spec, None, target.as_ref()));
     }
     // gravity_jacobian() is G with dG/dq, keeping dG/dq.
-    funcs.push(if plan.gravity_with_actuation {
-        g_and(
-            &plan.gravity_jacobian,
-            "gravity_linearised",
-            &[("out", n, "NQ"), ("a", k, "NU")],
+    let (more, formula) = if plan.gravity_with_actuation {
+        (
+            vec![("out", n, "NQ"), ("a", k, "NU")],
             "(G(q), dG/dq, A(q)) in one call, sharing their moments, kernels and sums (A's end forces lie inside G's): what a Newton step of the statics needs",
         )
     } else {
-        g_and(
-            &plan.gravity_jacobian,
-            "gravity_linearised",
-            &[("out", n, "NQ")],
+        (
+            vec![("out", n, "NQ")],
             "(G(q), dG/dq) in one call, sharing their moments, kernels and sums: what a Newton step of the statics needs",
         )
-    });
+    };
+    funcs.push(g_and(
+        &plan.gravity_jacobian,
+        "gravity_linearised",
+        &more,
+        formula,
+    ));
     funcs.push(keeping(
         "gravity_jacobian",
         "Gravity Jacobian dG/dq, NQ x NQ: the Hessian of U_g, so symmetric. Computed with G(q), which shares nearly all of its work.",

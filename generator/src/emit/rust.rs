@@ -389,23 +389,20 @@ pub fn emit(
         len
     };
     // `gravity_jacobian` is the first, keeping ∂G/∂q.
-    let linearised_work = if plan.gravity_with_actuation {
-        g_and(
-            &plan.gravity_jacobian,
-            "gravity_linearised",
-            &[("out", n, "NQ"), ("a", k, "NU")],
+    let (more, formula) = if plan.gravity_with_actuation {
+        (
+            vec![("out", n, "NQ"), ("a", k, "NU")],
             "`G(q)`, `∂G/∂q` and `A(q)` in one call, sharing their moments, kernels and sums \
              (`A`'s end forces lie inside `G`'s): what a Newton step of the statics needs",
         )
     } else {
-        g_and(
-            &plan.gravity_jacobian,
-            "gravity_linearised",
-            &[("out", n, "NQ")],
+        (
+            vec![("out", n, "NQ")],
             "`G(q)` and `∂G/∂q` in one call, sharing their moments, kernels and sums: what a \
              Newton step of the statics needs",
         )
     };
+    let linearised_work = g_and(&plan.gravity_jacobian, "gravity_linearised", &more, formula);
     // `gravity` is the second, keeping G, when A depends on q.
     let gravity_actuation_work = plan.gravity_with_actuation.then(|| {
         g_and(
