@@ -92,6 +92,7 @@ fn not_converged(load: f64, residual: f64, iterations: usize) -> StaticsError {
         load,
         residual,
         iterations,
+        turn: None,
     }
 }
 

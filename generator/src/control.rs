@@ -26,7 +26,7 @@ use crate::allocation::{allocate, Allocation};
 use crate::arm::{Arm, InputLimits};
 use crate::continuation::{continue_root, Residual};
 use crate::linalg::{norm, symmetric_eigenvalues};
-use crate::statics::{segment_bending, Options, StaticModel, StaticsError};
+use crate::statics::{most_bent, Options, StaticModel, StaticsError};
 use crate::terms::Matrix;
 use std::fmt;
 
@@ -298,7 +298,7 @@ impl From<StaticsError> for ControlError {
 /// Step limiter shared by the solvers: at most `max_bending_step` of bending change.
 fn bending_limit<'a>(arm: &'a Arm, opts: &'a Options) -> impl Fn(&[f64]) -> f64 + 'a {
     move |dq: &[f64]| {
-        let worst = segment_bending(arm, dq).into_iter().fold(0.0f64, f64::max);
+        let worst = most_bent(arm, dq);
         if worst > opts.max_bending_step {
             opts.max_bending_step / worst
         } else {

@@ -119,11 +119,14 @@ pub struct Equilibrium {
 /// Why no equilibrium was returned.
 #[derive(Clone, Debug, PartialEq)]
 pub enum StaticsError {
-    /// The continuation stalled: the load fraction reached, the last residual.
+    /// The continuation stalled: the load fraction reached, the last residual, and
+    /// where the shape is known (the equilibria of [`equilibrium`]) the segment that
+    /// turns most at the last equilibrium on the way ([`most_turned`]).
     NotConverged {
         load: f64,
         residual: f64,
         iterations: usize,
+        turn: Option<(usize, f64)>,
     },
     /// A configuration the model cannot evaluate (the reference's bending bound).
     OutOfRange(String),
@@ -138,12 +141,21 @@ impl fmt::Display for StaticsError {
                 load,
                 residual,
                 iterations,
-            } => write!(
-                f,
-                "no equilibrium found: the load continuation stalled at {:.1}% of the load \
-                 after {iterations} Newton iterations, last residual {residual:.3e}",
-                100.0 * load
-            ),
+                turn,
+            } => {
+                write!(
+                    f,
+                    "no equilibrium found: the load continuation stalled at {:.1}% of the load",
+                    100.0 * load
+                )?;
+                if let Some((j, t)) = turn {
+                    write!(f, ", where segment {} turns by {t:.2} rad,", j + 1)?;
+                }
+                write!(
+                    f,
+                    " after {iterations} Newton iterations, last residual {residual:.3e}"
+                )
+            }
             StaticsError::OutOfRange(m) | StaticsError::BadInput(m) => f.write_str(m),
         }
     }
@@ -223,7 +235,7 @@ pub fn equilibrium(
     let k = model.stiffness();
     // The largest factor ≤ 1 that keeps every segment's bending change within bounds.
     let limit = |dq: &[f64]| -> f64 {
-        let worst = segment_bending(arm, dq).into_iter().fold(0.0f64, f64::max);
+        let worst = most_bent(arm, dq);
         if worst > opts.max_bending_step {
             opts.max_bending_step / worst
         } else {
@@ -244,9 +256,7 @@ pub fn equilibrium(
             .map(|t| t.iter().map(|v| -v).collect())
             .unwrap_or_else(|| vec![0.0; n]);
         let mut dl = step.min(1.0 - lambda);
-        let reach = segment_bending(arm, &tangent)
-            .into_iter()
-            .fold(0.0f64, f64::max);
+        let reach = most_bent(arm, &tangent);
         if reach * dl > opts.max_bending_step {
             dl = (opts.max_bending_step / reach).max(opts.min_step);
         }
@@ -306,6 +316,7 @@ pub fn equilibrium(
                     load: lambda,
                     residual: last_residual,
                     iterations,
+                    turn: (lambda > 0.0).then(|| most_turned(arm, &q)),
                 });
             }
         }
@@ -368,7 +379,70 @@ pub fn refine(
         load: 1.0,
         residual,
         iterations: 2 * opts.iterations_per_step,
+        turn: None,
     })
+}
+
+/// How many expansion orders above the arm's own [`order_advice`] tries.
+pub const ADVICE_ORDERS: u32 = 4;
+
+/// What a truncated model that found no equilibrium is missing, when the arm's exact
+/// kinematics do have one: the expansion does not hold at the bending the arm reaches.
+/// A heavy arm standing against gravity at orders 1 and 2 stalls this way at a fold of
+/// its truncated model (four of 200 invented arms did), while the exact kinematics
+/// and the orders above rest with a segment bent by 3–4 rad.
+#[derive(Clone, Debug, PartialEq)]
+pub struct OrderAdvice {
+    /// The segment that turns most at the exact kinematics' equilibrium, and its turn
+    /// [rad] ([`most_turned`]).
+    pub exact_turn: (usize, f64),
+    /// The lowest order above the arm's (at most [`ADVICE_ORDERS`] above, and at most
+    /// [`crate::arm::MAX_EXPANSION_ORDER`]) whose truncated model has an equilibrium.
+    pub order: Option<u32>,
+    /// The highest order tried.
+    pub tried_up_to: u32,
+}
+
+/// Advice for an arm whose order-`N` model found no equilibrium under `u`: `None` when
+/// the exact kinematics (quadrature) find none either, so that the order is not the
+/// cause. Costs a few continuations of the quadrature reference (about 0.1 s on a
+/// three-segment arm).
+pub fn order_advice(arm: &Arm, u: &[f64], opts: &Options) -> Option<OrderAdvice> {
+    let exact = equilibrium(&Quadrature(Reference::new(arm, Kinematics::Exact)), u, opts).ok()?;
+    let from = arm.expansion_order + 1;
+    let tried_up_to = (arm.expansion_order + ADVICE_ORDERS).min(crate::arm::MAX_EXPANSION_ORDER);
+    let order = (from..=tried_up_to).find(|&m| {
+        let model = Quadrature(Reference::new(arm, Kinematics::Truncated(m)));
+        equilibrium(&model, u, opts).is_ok()
+    });
+    Some(OrderAdvice {
+        exact_turn: most_turned(arm, &exact.q),
+        order,
+        tried_up_to,
+    })
+}
+
+impl OrderAdvice {
+    /// The advice as a clause for an error message, for an arm file read at `order`.
+    pub fn sentence(&self, order: u32) -> String {
+        let (j, turn) = self.exact_turn;
+        let head = format!(
+            "the exact kinematics do rest, where segment {} turns by {turn:.2} rad, beyond \
+             what the order-{order} expansion holds",
+            j + 1
+        );
+        match self.order {
+            Some(m) => format!(
+                "{head}; order {m} finds the rest shape: set expansion_order = {m} in the arm \
+                 file, or pass --order {m}"
+            ),
+            None if self.tried_up_to > order => format!(
+                "{head}, and no order up to {} finds it either",
+                self.tried_up_to
+            ),
+            None => format!("{head}, and no higher order is supported"),
+        }
+    }
 }
 
 /// How far the shape of an equilibrium `q` under `u` can move per unit of the relative
@@ -406,6 +480,32 @@ pub fn linear_rest_shape(arm: &Arm, u: &[f64]) -> Result<Vec<f64>, DynamicsError
         .map(|row| row.iter().zip(u).map(|(aik, uk)| aik * uk).sum())
         .collect();
     cholesky_solve(&r.stiffness(), &rhs)
+}
+
+/// The segment whose end tangent turns most against its base tangent at `q`, and that
+/// turn `|Φ_j − Φ_{j−1}| = |L_j Σ_i q_{j,i}/(i+1)|` [rad]: how bent a shape is, in words
+/// a user can picture.
+pub fn most_turned(arm: &Arm, q: &[f64]) -> (usize, f64) {
+    let mut worst = (0, 0.0f64);
+    for (j, s) in arm.segments.iter().enumerate() {
+        let off = arm.coord_offset(j);
+        let l = num_traits::ToPrimitive::to_f64(&s.length).unwrap_or(f64::NAN);
+        let turn = (l * q[off..off + s.n_coords()]
+            .iter()
+            .enumerate()
+            .map(|(i, v)| v / (i + 1) as f64)
+            .sum::<f64>())
+        .abs();
+        if turn > worst.1 {
+            worst = (j, turn);
+        }
+    }
+    worst
+}
+
+/// The largest [`segment_bending`] at `q` [rad].
+pub fn most_bent(arm: &Arm, q: &[f64]) -> f64 {
+    segment_bending(arm, q).into_iter().fold(0.0f64, f64::max)
 }
 
 /// Total bending `L_j Σ_i |q_{j,i}|` [rad] of each segment at `q`.
@@ -512,6 +612,39 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn an_arm_bent_beyond_its_order_is_told_the_order_that_rests() {
+        // Invented: mounted 70° above the horizontal with a heavy payload. Its order-1
+        // model stalls at a fold on the way to the load; the exact kinematics rest.
+        let upright = arm(include_str!(
+            "../../tests/hostile/upright_at_order_one.toml"
+        ));
+        let model = derive_statics(&upright);
+        let err =
+            equilibrium(&Derived(Evaluator::new(&model)), &[], &Options::default()).unwrap_err();
+        let StaticsError::NotConverged {
+            load,
+            turn: Some((0, stalled)),
+            ..
+        } = err
+        else {
+            panic!("{err:?}");
+        };
+        assert!(load > 0.3 && load < 0.9 && stalled > 0.5, "{err:?}");
+        let advice = order_advice(&upright, &[], &Options::default()).unwrap();
+        assert_eq!(advice.order, Some(2), "{advice:?}");
+        assert_eq!(advice.exact_turn.0, 0);
+        assert!(advice.exact_turn.1 > stalled, "{advice:?}");
+        // What the advice promises holds: order 2 rests.
+        let two = derive_statics(&upright.with_order(2));
+        assert!(equilibrium(&Derived(Evaluator::new(&two)), &[], &Options::default()).is_ok());
+        // A limp arm is not the order's fault: no advice.
+        let limp = arm(include_str!(
+            "../../tests/hostile/too_soft_to_hold_itself.toml"
+        ));
+        assert_eq!(order_advice(&limp, &[], &Options::default()), None);
     }
 
     #[test]

@@ -6,7 +6,9 @@ use crate::control::{hold, reach_tip, ControlError, Output, Rest};
 use crate::derive::derive_statics;
 use crate::evaluate::Evaluator;
 use crate::reference::{Kinematics, Reference};
-use crate::statics::{equilibrium, Derived, Options, Quadrature, StaticModel, StaticsError};
+use crate::statics::{
+    equilibrium, order_advice, Derived, Options, Quadrature, StaticModel, StaticsError,
+};
 use clap::Args;
 use serde::Serialize;
 use std::fmt::Write as _;
@@ -127,7 +129,7 @@ pub fn run(args: &StaticsArgs) -> Result<(), CliError> {
     let (kinematics, result) = if args.exact {
         bar.set_message("solving the exact kinematics (quadrature)");
         let model = Quadrature(Reference::new(&arm, Kinematics::Exact));
-        ("exact".to_string(), solve(&model, &goal, &opts))
+        ("exact".to_string(), solve(&model, &goal, &opts, false))
     } else {
         bar.set_message(format!(
             "deriving order {} with its statics",
@@ -138,7 +140,7 @@ pub fn run(args: &StaticsArgs) -> Result<(), CliError> {
         let model = Derived(Evaluator::new(&derived));
         (
             format!("order {}", arm.expansion_order),
-            solve(&model, &goal, &opts),
+            solve(&model, &goal, &opts, true),
         )
     };
     bar.finish_and_clear();
@@ -165,7 +167,14 @@ enum Goal {
     Tip([f64; 2], Vec<Output>),
 }
 
-fn solve(model: &dyn StaticModel, goal: &Goal, opts: &Options) -> Result<StaticsOut, CliError> {
+/// `truncated`: the model is the arm's order-`N` expansion, so that an equilibrium it
+/// cannot reach gets [`order_advice`] when the exact kinematics do rest.
+fn solve(
+    model: &dyn StaticModel,
+    goal: &Goal,
+    opts: &Options,
+    truncated: bool,
+) -> Result<StaticsOut, CliError> {
     let arm = model.arm();
     let labels = arm.coordinate_labels();
     let failed = |e: ControlError| match e {
@@ -196,7 +205,18 @@ fn solve(model: &dyn StaticModel, goal: &Goal, opts: &Options) -> Result<Statics
     };
     match goal {
         Goal::Inputs(u) => {
-            let eq = equilibrium(model, u, opts).map_err(|e| failed(e.into()))?;
+            let eq = equilibrium(model, u, opts).map_err(|e| match e {
+                StaticsError::NotConverged { .. } if truncated => {
+                    match order_advice(arm, u, opts) {
+                        Some(advice) => CliError::Failed(format!(
+                            "{e}: {}",
+                            advice.sentence(arm.expansion_order)
+                        )),
+                        None => failed(e.into()),
+                    }
+                }
+                e => failed(e.into()),
+            })?;
             Ok(StaticsOut {
                 arm: String::new(),
                 kinematics: String::new(),

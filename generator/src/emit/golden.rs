@@ -8,7 +8,7 @@ use crate::control::{default_outputs, Law, Regulator};
 use crate::dynamics::generalized_force;
 use crate::reference::{Kinematics, Reference};
 use crate::statics::{
-    equilibrium, linear_rest_shape, segment_bending, shape_gain, Options, Quadrature,
+    equilibrium, linear_rest_shape, most_bent, order_advice, shape_gain, Options, Quadrature,
 };
 use crate::terms::Matrix;
 use num_traits::ToPrimitive;
@@ -194,7 +194,7 @@ fn static_case(
     let mut scale = 0.0;
     if c > 0 && !u.is_empty() {
         if let Ok(q) = linear_rest_shape(arm, u) {
-            let worst = segment_bending(arm, &q).into_iter().fold(0.0f64, f64::max);
+            let worst = most_bent(arm, &q);
             if worst > 0.0 {
                 scale = 0.4 * c as f64 / worst;
             }
@@ -206,12 +206,18 @@ fn static_case(
         match reference_equilibrium(fast, &model, &ueq) {
             Ok(eq) => return Ok((ueq, eq.q, eq.stable)),
             Err(e) if scale == 0.0 => {
+                let order = arm.expansion_order;
+                let why = match order_advice(arm, &ueq, &Options::default()) {
+                    Some(advice) => advice.sentence(order),
+                    None => "it is too soft or too heavy to hold itself (compare each \
+                             [[segment]]'s bending_stiffness with its density and length, \
+                             and the gravity)"
+                        .to_string(),
+                };
                 return Err(format!(
-                    "the arm finds no rest shape under its own weight ({e}): it is too soft \
-                     or too heavy to hold itself (compare each [[segment]]'s bending_stiffness \
-                     with its density and length, and the gravity), and the emitted \
-                     equilibrium and its tests need one"
-                ))
+                    "the order-{order} model finds no rest shape under the arm's own weight \
+                     ({e}): {why}; the emitted equilibrium and its tests need one"
+                ));
             }
             Err(_) => scale = if scale < 1e-12 { 0.0 } else { 0.5 * scale },
         }
