@@ -118,7 +118,12 @@ fn body(
         pieces.push(("kern", func.kern_len));
     }
     if !func.families.is_empty() {
-        pieces.push(("hk", func.matrix_scratch(&plan.matrix_tables)));
+        // A power of two, so that `kernel_entries` proves its lookups in range with a
+        // mask instead of a compare and select per lookup.
+        pieces.push((
+            "hk",
+            func.matrix_scratch(&plan.matrix_tables).next_power_of_two(),
+        ));
     }
     if slot_count > 0 {
         pieces.push(("t", slot_count));
@@ -271,7 +276,7 @@ fn body(
              kernel_entries::<{n_f}>(&{upper}_PAIRS{k}, {sums}, hk, &mut kern[{s0}..{s1}]);\n\
              }}\n",
             size3 = 3 * size,
-            n_f = 2 * size * size,
+            n_f = (2 * size * size).next_power_of_two(),
             half = size * size,
             top = (size - 1) * size,
             t = f.table,

@@ -156,12 +156,12 @@ pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (2259 reals, 18072 bytes at most). Own one per
+/// plain functions keep on the stack (2321 reals, 18568 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 2259;
+pub const WORK_LEN: usize = 2321;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -4888,7 +4888,8 @@ fn kernel_recurrence(size: usize, a: Real, split: usize, m: &[Real], f: &mut [Re
 }
 /// `kern[i] = Re D_st = F[p] + F[q]` for the real parts, `i < sums`, then
 /// `Im D_st = F[p] − F[q]` for the imaginary parts (`p, q = pairs[2i], pairs[2i + 1]`,
-/// in `F`'s second half): two loops, so that neither branches on the part.
+/// in `F`'s second half): two loops, so that neither branches on the part. `N` is a
+/// power of two at least `F`'s length (the scratch is padded to it).
 fn kernel_entries<const N: usize>(
     pairs: &[u16],
     sums: usize,
@@ -4899,7 +4900,7 @@ fn kernel_entries<const N: usize>(
         kern.fill(Real::NAN);
         return;
     };
-    let at = |i: u16| f[(i as usize).min(N - 1)];
+    let at = |i: u16| f[i as usize & (N - 1)];
     let (re, im) = kern.split_at_mut(sums.min(kern.len()));
     let (pre, pim) = pairs.split_at((2 * sums).min(pairs.len()));
     for (slot, pq) in re.iter_mut().zip(pre.chunks_exact(2)) {
@@ -5119,7 +5120,7 @@ static SHARES_PAIRS2: [u16; 208] = [
     207, 227, 131, 231, 175, 235, 197, 237, 219, 239, 142, 232, 186, 236, 230, 240, 153,
     233,
 ];
-/// What [`terms`] and [`regressor`] have in common: the 302 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 1957 reals).
+/// What [`terms`] and [`regressor`] have in common: the 302 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 2019 reals).
 ///
 /// Operations: 8453 add, 11174 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10133 add, 13106 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn shares_in(
@@ -5131,7 +5132,7 @@ fn shares_in(
 ) {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(670);
-    let (hk, work) = work.split_at_mut(450);
+    let (hk, work) = work.split_at_mut(512);
     let t = &mut work[..655];
     {
         let a = 0.1 * q[0];
@@ -5180,7 +5181,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS3, hk);
-        kernel_entries::<450>(&SHARES_PAIRS0, 101, hk, &mut kern[154..345]);
+        kernel_entries::<512>(&SHARES_PAIRS0, 101, hk, &mut kern[154..345]);
     }
     {
         let a = 0.09 * q[3];
@@ -5206,7 +5207,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS4, hk);
-        kernel_entries::<450>(&SHARES_PAIRS1, 116, hk, &mut kern[345..566]);
+        kernel_entries::<512>(&SHARES_PAIRS1, 116, hk, &mut kern[345..566]);
     }
     {
         let a = 0.08 * q[6];
@@ -5232,7 +5233,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(11, a, split, &TAIL_MOMENTS5, hk);
-        kernel_entries::<242>(&SHARES_PAIRS2, 55, hk, &mut kern[566..670]);
+        kernel_entries::<256>(&SHARES_PAIRS2, 55, hk, &mut kern[566..670]);
     }
     let s = &mut s[..302];
     t[0] = q[1] * q[1];
@@ -9923,13 +9924,13 @@ static INERTIA_PAIRS2: [u16; 170] = [
     156, 165, 167, 176, 169, 196, 118, 181, 138, 183, 158, 185, 178, 187, 189, 198, 113,
     131, 117, 171, 135, 153, 139, 193, 157, 175, 179, 197, 123, 132, 127, 172,
 ];
-/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1468 reals).
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1588 reals).
 ///
 /// Operations: 5474 add, 7185 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6893 add, 8838 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(559);
-    let (hk, work) = work.split_at_mut(392);
+    let (hk, work) = work.split_at_mut(512);
     let t = &mut work[..335];
     {
         let a = 0.1 * q[0];
@@ -9978,7 +9979,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS0, hk);
-        kernel_entries::<392>(&INERTIA_PAIRS0, 88, hk, &mut kern[118..281]);
+        kernel_entries::<512>(&INERTIA_PAIRS0, 88, hk, &mut kern[118..281]);
     }
     {
         let a = 0.09 * q[3];
@@ -10004,7 +10005,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS1, hk);
-        kernel_entries::<392>(&INERTIA_PAIRS1, 105, hk, &mut kern[281..474]);
+        kernel_entries::<512>(&INERTIA_PAIRS1, 105, hk, &mut kern[281..474]);
     }
     {
         let a = 0.08 * q[6];
@@ -10030,7 +10031,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(10, a, split, &TAIL_MOMENTS2, hk);
-        kernel_entries::<200>(&INERTIA_PAIRS2, 47, hk, &mut kern[474..559]);
+        kernel_entries::<256>(&INERTIA_PAIRS2, 47, hk, &mut kern[474..559]);
     }
     let mut out = [[0.0; NQ]; NQ];
     t[0] = q[1] * q[1];
@@ -11515,9 +11516,9 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
 ///
 /// Operations: 5474 add, 7185 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6893 add, 8838 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    inertia_in(&Params::DEFAULT, q, &mut [0.0; 1468])
+    inertia_in(&Params::DEFAULT, q, &mut [0.0; 1588])
 }
-/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1468 reals); the same values.
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1588 reals); the same values.
 ///
 /// Operations: 5474 add, 7185 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6893 add, 8838 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
@@ -11527,7 +11528,7 @@ pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
 ///
 /// Operations: 5474 add, 7185 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6893 add, 8838 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    inertia_in(p, q, &mut [0.0; 1468])
+    inertia_in(p, q, &mut [0.0; 1588])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -12186,7 +12187,7 @@ pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
 pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 2259 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 2321 reals).
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn terms_in(
@@ -12485,9 +12486,9 @@ pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 2259])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 2321])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (2259 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn terms_ws(
@@ -12505,7 +12506,7 @@ pub fn terms_with(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 2259])
+    terms_in(p, q, qd, &mut [0.0; 2321])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -12518,7 +12519,7 @@ pub fn terms_with_ws(
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 2259 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 2321 reals).
 ///
 /// Operations: 8975 add, 11754 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10655 add, 13686 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn regressor_in(
@@ -12781,9 +12782,9 @@ pub fn regressor(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 2259])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 2321])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (2259 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
 ///
 /// Operations: 8975 add, 11754 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10655 add, 13686 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn regressor_ws(
@@ -12803,7 +12804,7 @@ pub fn regressor_with(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 2259])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 2321])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -12885,7 +12886,7 @@ pub fn gravity_with(p: &Params, q: &[Real; NQ]) -> [Real; NQ] {
 pub fn gravity_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(p, q, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 2259 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 2321 reals).
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn coriolis_in(
@@ -12900,9 +12901,9 @@ fn coriolis_in(
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 2259])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 2321])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (2259 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_ws(
@@ -12916,7 +12917,7 @@ pub fn coriolis_ws(
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 2259])
+    coriolis_in(p, q, qd, &mut [0.0; 2321])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -12929,7 +12930,7 @@ pub fn coriolis_with_ws(
 ) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1468 reals).
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1588 reals).
 ///
 /// Operations: 5538 add, 7258 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6957 add, 8911 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn kinetic_energy_in(
@@ -12953,9 +12954,9 @@ fn kinetic_energy_in(
 ///
 /// Operations: 5538 add, 7258 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6957 add, 8911 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
-    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1468])
+    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1588])
 }
-/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1468 reals); the same values.
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1588 reals); the same values.
 ///
 /// Operations: 5538 add, 7258 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6957 add, 8911 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
@@ -12965,7 +12966,7 @@ pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) ->
 ///
 /// Operations: 5538 add, 7258 mul, 41 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 6957 add, 8911 mul, 41 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
-    kinetic_energy_in(p, q, qd, &mut [0.0; 1468])
+    kinetic_energy_in(p, q, qd, &mut [0.0; 1588])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -14525,7 +14526,7 @@ pub fn forward_dynamics(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 2259])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 2321])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -14534,10 +14535,10 @@ pub fn forward_dynamics_with(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 2259])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 2321])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (2259 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -14557,7 +14558,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 2259 reals).
+/// 2321 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[Real; NQ],

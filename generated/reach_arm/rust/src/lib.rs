@@ -151,12 +151,12 @@ pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (1769 reals, 14152 bytes at most). Own one per
+/// plain functions keep on the stack (1831 reals, 14648 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 1769;
+pub const WORK_LEN: usize = 1831;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -2413,7 +2413,8 @@ fn kernel_recurrence(size: usize, a: Real, split: usize, m: &[Real], f: &mut [Re
 }
 /// `kern[i] = Re D_st = F[p] + F[q]` for the real parts, `i < sums`, then
 /// `Im D_st = F[p] − F[q]` for the imaginary parts (`p, q = pairs[2i], pairs[2i + 1]`,
-/// in `F`'s second half): two loops, so that neither branches on the part.
+/// in `F`'s second half): two loops, so that neither branches on the part. `N` is a
+/// power of two at least `F`'s length (the scratch is padded to it).
 fn kernel_entries<const N: usize>(
     pairs: &[u16],
     sums: usize,
@@ -2424,7 +2425,7 @@ fn kernel_entries<const N: usize>(
         kern.fill(Real::NAN);
         return;
     };
-    let at = |i: u16| f[(i as usize).min(N - 1)];
+    let at = |i: u16| f[i as usize & (N - 1)];
     let (re, im) = kern.split_at_mut(sums.min(kern.len()));
     let (pre, pim) = pairs.split_at((2 * sums).min(pairs.len()));
     for (slot, pq) in re.iter_mut().zip(pre.chunks_exact(2)) {
@@ -2615,7 +2616,7 @@ static SHARES_PAIRS1: [u16; 442] = [
     421, 239, 435, 299, 439, 314, 440, 329, 441, 344, 442, 359, 443, 374, 444, 389, 445,
     404, 446, 419, 447, 254, 436, 434, 448, 269, 437, 284, 438,
 ];
-/// What [`terms`] and [`regressor`] have in common: the 148 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 1621 reals).
+/// What [`terms`] and [`regressor`] have in common: the 148 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 1683 reals).
 ///
 /// Operations: 6442 add, 8425 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7649 add, 9818 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn shares_in(
@@ -2627,7 +2628,7 @@ fn shares_in(
 ) {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(524);
-    let (hk, work) = work.split_at_mut(450);
+    let (hk, work) = work.split_at_mut(512);
     let t = &mut work[..519];
     {
         let a = 0.12 * q[0];
@@ -2669,7 +2670,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS1, hk);
-        kernel_entries::<450>(&SHARES_PAIRS0, 101, hk, &mut kern[112..303]);
+        kernel_entries::<512>(&SHARES_PAIRS0, 101, hk, &mut kern[112..303]);
     }
     {
         let a = 0.1 * q[3];
@@ -2695,7 +2696,7 @@ fn shares_in(
             }
         };
         kernel_recurrence(15, a, split, &TAIL_MOMENTS1, hk);
-        kernel_entries::<450>(&SHARES_PAIRS1, 116, hk, &mut kern[303..524]);
+        kernel_entries::<512>(&SHARES_PAIRS1, 116, hk, &mut kern[303..524]);
     }
     let s = &mut s[..148];
     t[0] = q[1] * q[1];
@@ -5778,13 +5779,13 @@ static INERTIA_PAIRS1: [u16; 386] = [
     218, 309, 321, 386, 219, 323, 335, 387, 220, 337, 349, 388, 221, 351, 363, 389, 222,
     365, 377, 390, 227, 240,
 ];
-/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1240 reals).
+/// The work of [`inertia`] and [`inertia_ws`], in `work` (at least 1360 reals).
 ///
 /// Operations: 4290 add, 5600 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5303 add, 6787 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ] {
     let (nu, work) = work.split_at_mut(NU_LEN);
     let (kern, work) = work.split_at_mut(436);
-    let (hk, work) = work.split_at_mut(392);
+    let (hk, work) = work.split_at_mut(512);
     let t = &mut work[..284];
     {
         let a = 0.12 * q[0];
@@ -5826,7 +5827,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS0, hk);
-        kernel_entries::<392>(&INERTIA_PAIRS0, 88, hk, &mut kern[80..243]);
+        kernel_entries::<512>(&INERTIA_PAIRS0, 88, hk, &mut kern[80..243]);
     }
     {
         let a = 0.1 * q[3];
@@ -5852,7 +5853,7 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
             }
         };
         kernel_recurrence(14, a, split, &TAIL_MOMENTS0, hk);
-        kernel_entries::<392>(&INERTIA_PAIRS1, 105, hk, &mut kern[243..436]);
+        kernel_entries::<512>(&INERTIA_PAIRS1, 105, hk, &mut kern[243..436]);
     }
     let mut out = [[0.0; NQ]; NQ];
     t[0] = q[1] * q[1];
@@ -7043,9 +7044,9 @@ fn inertia_in(p: &Params, q: &[Real; NQ], work: &mut [Real]) -> [[Real; NQ]; NQ]
 ///
 /// Operations: 4290 add, 5600 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5303 add, 6787 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia(q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    inertia_in(&Params::DEFAULT, q, &mut [0.0; 1240])
+    inertia_in(&Params::DEFAULT, q, &mut [0.0; 1360])
 }
-/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1240 reals); the same values.
+/// [`inertia`] with its scratch in the caller's [`Workspace`] instead of on the stack (1360 reals); the same values.
 ///
 /// Operations: 4290 add, 5600 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5303 add, 6787 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
@@ -7055,7 +7056,7 @@ pub fn inertia_ws(q: &[Real; NQ], ws: &mut Workspace) -> [[Real; NQ]; NQ] {
 ///
 /// Operations: 4290 add, 5600 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5303 add, 6787 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn inertia_with(p: &Params, q: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    inertia_in(p, q, &mut [0.0; 1240])
+    inertia_in(p, q, &mut [0.0; 1360])
 }
 /// [`inertia_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -7795,7 +7796,7 @@ pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
 pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 1769 reals).
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 1831 reals).
 ///
 /// Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn terms_in(
@@ -7946,9 +7947,9 @@ pub fn terms(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 1769])
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 1831])
 }
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (1769 reals); the same values.
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (1831 reals); the same values.
 ///
 /// Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn terms_ws(
@@ -7966,7 +7967,7 @@ pub fn terms_with(
     q: &[Real; NQ],
     qd: &[Real; NQ],
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 1769])
+    terms_in(p, q, qd, &mut [0.0; 1831])
 }
 /// [`terms_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -7979,7 +7980,7 @@ pub fn terms_with_ws(
 ) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
     terms_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 1769 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 1831 reals).
 ///
 /// Operations: 6694 add, 8717 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7901 add, 10110 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn regressor_in(
@@ -8118,9 +8119,9 @@ pub fn regressor(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 1769])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 1831])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (1769 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (1831 reals); the same values.
 ///
 /// Operations: 6694 add, 8717 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7901 add, 10110 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn regressor_ws(
@@ -8140,7 +8141,7 @@ pub fn regressor_with(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 1769])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 1831])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -8192,7 +8193,7 @@ pub fn gravity_jacobian_with_ws(
 ) -> [[Real; NQ]; NQ] {
     gravity_jacobian_in(p, q, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 1769 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 1831 reals).
 ///
 /// Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn coriolis_in(
@@ -8207,9 +8208,9 @@ fn coriolis_in(
 ///
 /// Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 1769])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 1831])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (1769 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (1831 reals); the same values.
 ///
 /// Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis_ws(
@@ -8223,7 +8224,7 @@ pub fn coriolis_ws(
 ///
 /// Operations: 6577 add, 8612 mul, 32 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 7784 add, 10005 mul, 32 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 1769])
+    coriolis_in(p, q, qd, &mut [0.0; 1831])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -8236,7 +8237,7 @@ pub fn coriolis_with_ws(
 ) -> [[Real; NQ]; NQ] {
     coriolis_in(p, q, qd, &mut ws.0)
 }
-/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1240 reals).
+/// The work of [`kinetic_energy`] and [`kinetic_energy_ws`], in `work` (at least 1360 reals).
 ///
 /// Operations: 4326 add, 5643 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5339 add, 6830 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 fn kinetic_energy_in(
@@ -8260,9 +8261,9 @@ fn kinetic_energy_in(
 ///
 /// Operations: 4326 add, 5643 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5339 add, 6830 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy(q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
-    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1240])
+    kinetic_energy_in(&Params::DEFAULT, q, qd, &mut [0.0; 1360])
 }
-/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1240 reals); the same values.
+/// [`kinetic_energy`] with its scratch in the caller's [`Workspace`] instead of on the stack (1360 reals); the same values.
 ///
 /// Operations: 4326 add, 5643 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5339 add, 6830 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) -> Real {
@@ -8272,7 +8273,7 @@ pub fn kinetic_energy_ws(q: &[Real; NQ], qd: &[Real; NQ], ws: &mut Workspace) ->
 ///
 /// Operations: 4326 add, 5643 mul, 30 div, 0 sqrt, 6 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 5339 add, 6830 mul, 30 div, 0 sqrt, 6 trig beyond (whole rows at both ends).
 pub fn kinetic_energy_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> Real {
-    kinetic_energy_in(p, q, qd, &mut [0.0; 1240])
+    kinetic_energy_in(p, q, qd, &mut [0.0; 1360])
 }
 /// [`kinetic_energy_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -8855,7 +8856,7 @@ pub fn forward_dynamics(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 1769])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 1831])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -8864,10 +8865,10 @@ pub fn forward_dynamics_with(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 1769])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 1831])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (1769 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (1831 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -8887,7 +8888,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 1769 reals).
+/// 1831 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[Real; NQ],
