@@ -275,7 +275,7 @@ void hanging_taper_regressor_with_ws(const hanging_taper_params *P, const double
  * on an error qdd is filled with NaN. qdd may alias q, qd or u (it is written last).
  * B is badly conditioned on realistic arms (condition numbers 1e7 and more): check
  * results by the residual of B q'' = rhs, not entry by entry.
- * Operations: 9792 add, 13116 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11472 add, 15048 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+ * Operations: 8921 add, 11751 mul, 88 div, 8 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10601 add, 13683 mul, 88 div, 8 sqrt, 10 trig beyond (whole rows at both ends).
  */
 hanging_taper_status hanging_taper_forward_dynamics_ws(const double q[HANGING_TAPER_NQ], const double qd[HANGING_TAPER_NQ], const double u[HANGING_TAPER_NU],
     double qdd[HANGING_TAPER_NQ], double work[]);
@@ -412,20 +412,20 @@ hanging_taper_status hanging_taper_regulate_with_ws(const hanging_taper_params *
 #define HANGING_TAPER_INERTIA_WORK 1463 /* 11704 bytes */
 #define HANGING_TAPER_ACTUATION_WORK 303 /* 2424 bytes */
 #define HANGING_TAPER_TIP_JACOBIAN_WORK 303 /* 2424 bytes */
-#define HANGING_TAPER_REGRESSOR_WORK 2258 /* 18064 bytes */
+#define HANGING_TAPER_REGRESSOR_WORK 2274 /* 18192 bytes */
 #define HANGING_TAPER_POTENTIAL_ENERGY_WORK 326 /* 2608 bytes */
-#define HANGING_TAPER_TERMS_WORK 2258 /* 18064 bytes */
+#define HANGING_TAPER_TERMS_WORK 2298 /* 18384 bytes */
 #define HANGING_TAPER_KINETIC_ENERGY_WORK 1527 /* 12216 bytes */
 #define HANGING_TAPER_GRAVITY_JACOBIAN_WORK 689 /* 5512 bytes */
 #define HANGING_TAPER_GRAVITY_WORK 442 /* 3536 bytes */
-#define HANGING_TAPER_CORIOLIS_WORK 2330 /* 18640 bytes */
+#define HANGING_TAPER_CORIOLIS_WORK 2370 /* 18960 bytes */
 #define HANGING_TAPER_POSE_WORK 267 /* 2136 bytes */
-#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2590 /* 20720 bytes */
+#define HANGING_TAPER_FORWARD_DYNAMICS_WORK 2606 /* 20848 bytes */
 #define HANGING_TAPER_STATIC_RESIDUAL_WORK 530 /* 4240 bytes */
 #define HANGING_TAPER_STATIC_JACOBIAN_WORK 945 /* 7560 bytes */
 #define HANGING_TAPER_EQUILIBRIUM_WORK 1153 /* 9224 bytes */
 #define HANGING_TAPER_REGULATE_WORK 595 /* 4760 bytes */
-#define HANGING_TAPER_WORK_LEN 2590 /* 20720 bytes */
+#define HANGING_TAPER_WORK_LEN 2606 /* 20848 bytes */
 
 #ifdef ARCWRIGHT_PLAIN_FUNCTIONS
 /*

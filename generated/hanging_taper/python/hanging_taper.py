@@ -5880,12 +5880,12 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     t8 = 0.0288 * s[19]
     t9 = 0.0192 * s[76]
     t10 = 1.3333333333333334e-10 * qdd[2]
-    out[0, 0] = (0.04 * s[0] * qdd[0] - s[277] + s[6] * t0 + qdd[1] * t1 + s[7] * t2
+    out[0, 0] = (0.04 * s[0] * qdd[0] - s[293] + s[6] * t0 + qdd[1] * t1 + s[7] * t2
         + qdd[2] * t3 + s[8] * t4)
-    out[0, 1] = (s[24] * qdd[0] - s[278] + qd[0] * s[42] + s[25] * qdd[1] + qd[1] * s[43]
+    out[0, 1] = (s[24] * qdd[0] - s[294] + qd[0] * s[42] + s[25] * qdd[1] + qd[1] * s[43]
         + s[26] * qdd[2] + qd[2] * s[44] + s[27] * qdd[3] + qd[3] * s[45] + s[28] * qdd[4]
         + qd[4] * s[46] + s[29] * qdd[5] + qd[5] * s[47])
-    out[0, 2] = (s[80] * qdd[0] - s[279] + qd[0] * s[115] + s[81] * qdd[1] + qd[1] * s[116]
+    out[0, 2] = (s[80] * qdd[0] - s[295] + qd[0] * s[115] + s[81] * qdd[1] + qd[1] * s[116]
         + s[82] * qdd[2] + qd[2] * s[117] + s[83] * qdd[3] + qd[3] * s[118] + s[84] * qdd[4]
         + qd[4] * s[119] + s[85] * qdd[5] + qd[5] * s[120] + s[86] * qdd[6] + qd[6] * s[121]
         + s[87] * qdd[7] + qd[7] * s[122])
@@ -5901,18 +5901,18 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[0, 9] = 3e-5 * qd[0] + 1.5e-5 * qd[1] + 1e-5 * qd[2]
     out[0, 10] = 0.0
     out[0, 11] = 0.0
-    out[0, 12] = (s[177] * qdd[0] - s[280] + qd[0] * s[213] + s[178] * qdd[1] + qd[1] * s[214]
-        + s[179] * qdd[2] + qd[2] * s[215] + s[180] * qdd[3] + qd[3] * s[216] + s[181] * qdd[4]
-        + qd[4] * s[217] + s[182] * qdd[5] + qd[5] * s[218] + s[183] * qdd[6] + qd[6] * s[219]
-        + s[184] * qdd[7] + qd[7] * s[220])
+    out[0, 12] = (s[193] * qdd[0] - s[296] + qd[0] * s[229] + s[194] * qdd[1] + qd[1] * s[230]
+        + s[195] * qdd[2] + qd[2] * s[231] + s[196] * qdd[3] + qd[3] * s[232] + s[197] * qdd[4]
+        + qd[4] * s[233] + s[198] * qdd[5] + qd[5] * s[234] + s[199] * qdd[6] + qd[6] * s[235]
+        + s[200] * qdd[7] + qd[7] * s[236])
     out[0, 13] = (0.01 * qdd[0] + 0.005 * qdd[1] + 0.0033333333333333335 * qdd[2]
         + 0.009 * qdd[3] + 0.0045 * qdd[4] + 0.003 * qdd[5] + 0.008 * qdd[6] + 0.004 * qdd[7])
-    out[1, 0] = (qdd[0] * t1 - s[281] + s[9] * t0 + 0.04 * s[3] * qdd[1] + s[10] * t2
+    out[1, 0] = (qdd[0] * t1 - s[297] + s[9] * t0 + 0.04 * s[3] * qdd[1] + s[10] * t2
         + qdd[2] * t5 + s[11] * t4)
-    out[1, 1] = (s[25] * qdd[0] - s[282] + qd[0] * s[48] + s[30] * qdd[1] + qd[1] * s[49]
+    out[1, 1] = (s[25] * qdd[0] - s[298] + qd[0] * s[48] + s[30] * qdd[1] + qd[1] * s[49]
         + s[31] * qdd[2] + qd[2] * s[50] + s[32] * qdd[3] + qd[3] * s[51] + s[33] * qdd[4]
         + qd[4] * s[52] + s[34] * qdd[5] + qd[5] * s[53])
-    out[1, 2] = (s[81] * qdd[0] - s[283] + qd[0] * s[123] + s[88] * qdd[1] + qd[1] * s[124]
+    out[1, 2] = (s[81] * qdd[0] - s[299] + qd[0] * s[123] + s[88] * qdd[1] + qd[1] * s[124]
         + s[89] * qdd[2] + qd[2] * s[125] + s[90] * qdd[3] + qd[3] * s[126] + s[91] * qdd[4]
         + qd[4] * s[127] + s[92] * qdd[5] + qd[5] * s[128] + s[93] * qdd[6] + qd[6] * s[129]
         + s[94] * qdd[7] + qd[7] * s[130])
@@ -5927,18 +5927,18 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[1, 9] = 1.5e-5 * qd[0] + 1e-5 * qd[1] + 7.5e-6 * qd[2]
     out[1, 10] = 0.0
     out[1, 11] = 0.0
-    out[1, 12] = (s[178] * qdd[0] - s[284] + qd[0] * s[221] + s[185] * qdd[1] + qd[1] * s[222]
-        + s[186] * qdd[2] + qd[2] * s[223] + s[187] * qdd[3] + qd[3] * s[224] + s[188] * qdd[4]
-        + qd[4] * s[225] + s[189] * qdd[5] + qd[5] * s[226] + s[190] * qdd[6] + qd[6] * s[227]
-        + s[191] * qdd[7] + qd[7] * s[228])
+    out[1, 12] = (s[194] * qdd[0] - s[300] + qd[0] * s[237] + s[201] * qdd[1] + qd[1] * s[238]
+        + s[202] * qdd[2] + qd[2] * s[239] + s[203] * qdd[3] + qd[3] * s[240] + s[204] * qdd[4]
+        + qd[4] * s[241] + s[205] * qdd[5] + qd[5] * s[242] + s[206] * qdd[6] + qd[6] * s[243]
+        + s[207] * qdd[7] + qd[7] * s[244])
     out[1, 13] = (0.005 * qdd[0] + 0.0025 * qdd[1] + 0.0016666666666666668 * qdd[2]
         + 0.0045 * qdd[3] + 0.00225 * qdd[4] + 0.0015 * qdd[5] + 0.004 * qdd[6] + 0.002 * qdd[7])
-    out[2, 0] = (qdd[0] * t3 - s[285] + s[12] * t0 + qdd[1] * t5 + s[13] * t2
+    out[2, 0] = (qdd[0] * t3 - s[301] + s[12] * t0 + qdd[1] * t5 + s[13] * t2
         + 0.04 * s[5] * qdd[2] + s[14] * t4)
-    out[2, 1] = (s[26] * qdd[0] - s[286] + qd[0] * s[54] + s[31] * qdd[1] + qd[1] * s[55]
+    out[2, 1] = (s[26] * qdd[0] - s[302] + qd[0] * s[54] + s[31] * qdd[1] + qd[1] * s[55]
         + s[35] * qdd[2] + qd[2] * s[56] + s[36] * qdd[3] + qd[3] * s[57] + s[37] * qdd[4]
         + qd[4] * s[58] + s[38] * qdd[5] + qd[5] * s[59])
-    out[2, 2] = (s[82] * qdd[0] - s[287] + qd[0] * s[131] + s[89] * qdd[1] + qd[1] * s[132]
+    out[2, 2] = (s[82] * qdd[0] - s[303] + qd[0] * s[131] + s[89] * qdd[1] + qd[1] * s[132]
         + s[95] * qdd[2] + qd[2] * s[133] + s[96] * qdd[3] + qd[3] * s[134] + s[97] * qdd[4]
         + qd[4] * s[135] + s[98] * qdd[5] + qd[5] * s[136] + s[99] * qdd[6] + qd[6] * s[137]
         + s[100] * qdd[7] + qd[7] * s[138])
@@ -5955,18 +5955,18 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[2, 9] = 1e-5 * qd[0] + 7.5e-6 * qd[1] + 6e-6 * qd[2]
     out[2, 10] = 0.0
     out[2, 11] = 0.0
-    out[2, 12] = (s[179] * qdd[0] - s[288] + qd[0] * s[229] + s[186] * qdd[1] + qd[1] * s[230]
-        + s[192] * qdd[2] + qd[2] * s[231] + s[193] * qdd[3] + qd[3] * s[232] + s[194] * qdd[4]
-        + qd[4] * s[233] + s[195] * qdd[5] + qd[5] * s[234] + s[196] * qdd[6] + qd[6] * s[235]
-        + s[197] * qdd[7] + qd[7] * s[236])
+    out[2, 12] = (s[195] * qdd[0] - s[304] + qd[0] * s[245] + s[202] * qdd[1] + qd[1] * s[246]
+        + s[208] * qdd[2] + qd[2] * s[247] + s[209] * qdd[3] + qd[3] * s[248] + s[210] * qdd[4]
+        + qd[4] * s[249] + s[211] * qdd[5] + qd[5] * s[250] + s[212] * qdd[6] + qd[6] * s[251]
+        + s[213] * qdd[7] + qd[7] * s[252])
     out[2, 13] = (0.0033333333333333335 * qdd[0] + 0.0016666666666666668 * qdd[1]
         + 0.0011111111111111111 * qdd[2] + 0.003 * qdd[3] + 0.0015 * qdd[4] + 0.001 * qdd[5]
         + 0.0026666666666666666 * qdd[6] + 0.0013333333333333333 * qdd[7])
     out[3, 0] = 0.0
-    out[3, 1] = (s[27] * qdd[0] - s[289] + qd[0] * s[60] + s[32] * qdd[1] + qd[1] * s[61]
+    out[3, 1] = (s[27] * qdd[0] - s[305] + qd[0] * s[60] + s[32] * qdd[1] + qd[1] * s[61]
         + s[36] * qdd[2] + qd[2] * s[62] + 0.0288 * s[15] * qdd[3] + s[21] * s[39] + qdd[4] * t6
         + qd[4] * s[63] + qdd[5] * t7 + qd[5] * s[64])
-    out[3, 2] = (s[83] * qdd[0] - s[290] + qd[0] * s[139] + s[90] * qdd[1] + qd[1] * s[140]
+    out[3, 2] = (s[83] * qdd[0] - s[306] + qd[0] * s[139] + s[90] * qdd[1] + qd[1] * s[140]
         + s[96] * qdd[2] + qd[2] * s[141] + s[101] * qdd[3] + qd[3] * s[142] + s[102] * qdd[4]
         + qd[4] * s[143] + s[103] * qdd[5] + qd[5] * s[144] + s[104] * qdd[6] + qd[6] * s[145]
         + s[105] * qdd[7] + qd[7] * s[146])
@@ -5981,17 +5981,17 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[3, 9] = 0.0
     out[3, 10] = 1.8e-5 * qd[3] + 9e-6 * qd[4] + 6e-6 * qd[5]
     out[3, 11] = 0.0
-    out[3, 12] = (s[180] * qdd[0] - s[291] + qd[0] * s[237] + s[187] * qdd[1] + qd[1] * s[238]
-        + s[193] * qdd[2] + qd[2] * s[239] + s[198] * qdd[3] + qd[3] * s[240] + s[199] * qdd[4]
-        + qd[4] * s[241] + s[200] * qdd[5] + qd[5] * s[242] + s[201] * qdd[6] + qd[6] * s[243]
-        + s[202] * qdd[7] + qd[7] * s[244])
+    out[3, 12] = (s[196] * qdd[0] - s[307] + qd[0] * s[253] + s[203] * qdd[1] + qd[1] * s[254]
+        + s[209] * qdd[2] + qd[2] * s[255] + s[214] * qdd[3] + qd[3] * s[256] + s[215] * qdd[4]
+        + qd[4] * s[257] + s[216] * qdd[5] + qd[5] * s[258] + s[217] * qdd[6] + qd[6] * s[259]
+        + s[218] * qdd[7] + qd[7] * s[260])
     out[3, 13] = (0.009 * qdd[0] + 0.0045 * qdd[1] + 0.003 * qdd[2] + 0.0081 * qdd[3]
         + 0.00405 * qdd[4] + 0.0027 * qdd[5] + 0.0072 * qdd[6] + 0.0036 * qdd[7])
     out[4, 0] = 0.0
-    out[4, 1] = (s[28] * qdd[0] - s[292] + qd[0] * s[65] + s[33] * qdd[1] + qd[1] * s[66]
+    out[4, 1] = (s[28] * qdd[0] - s[308] + qd[0] * s[65] + s[33] * qdd[1] + qd[1] * s[66]
         + s[37] * qdd[2] + qd[2] * s[67] + qdd[3] * t6 + qd[3] * s[68] + 0.0288 * s[18] * qdd[4]
         + s[22] * s[40] + qdd[5] * t8 + qd[5] * s[69])
-    out[4, 2] = (s[84] * qdd[0] - s[293] + qd[0] * s[147] + s[91] * qdd[1] + qd[1] * s[148]
+    out[4, 2] = (s[84] * qdd[0] - s[309] + qd[0] * s[147] + s[91] * qdd[1] + qd[1] * s[148]
         + s[97] * qdd[2] + qd[2] * s[149] + s[102] * qdd[3] + qd[3] * s[150] + s[106] * qdd[4]
         + qd[4] * s[151] + s[107] * qdd[5] + qd[5] * s[152] + s[108] * qdd[6] + qd[6] * s[153]
         + s[109] * qdd[7] + qd[7] * s[154])
@@ -6006,17 +6006,17 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[4, 9] = 0.0
     out[4, 10] = 9e-6 * qd[3] + 6e-6 * qd[4] + 4.5e-6 * qd[5]
     out[4, 11] = 0.0
-    out[4, 12] = (s[181] * qdd[0] - s[294] + qd[0] * s[245] + s[188] * qdd[1] + qd[1] * s[246]
-        + s[194] * qdd[2] + qd[2] * s[247] + s[199] * qdd[3] + qd[3] * s[248] + s[203] * qdd[4]
-        + qd[4] * s[249] + s[204] * qdd[5] + qd[5] * s[250] + s[205] * qdd[6] + qd[6] * s[251]
-        + s[206] * qdd[7] + qd[7] * s[252])
+    out[4, 12] = (s[197] * qdd[0] - s[310] + qd[0] * s[261] + s[204] * qdd[1] + qd[1] * s[262]
+        + s[210] * qdd[2] + qd[2] * s[263] + s[215] * qdd[3] + qd[3] * s[264] + s[219] * qdd[4]
+        + qd[4] * s[265] + s[220] * qdd[5] + qd[5] * s[266] + s[221] * qdd[6] + qd[6] * s[267]
+        + s[222] * qdd[7] + qd[7] * s[268])
     out[4, 13] = (0.0045 * qdd[0] + 0.00225 * qdd[1] + 0.0015 * qdd[2] + 0.00405 * qdd[3]
         + 0.002025 * qdd[4] + 0.00135 * qdd[5] + 0.0036 * qdd[6] + 0.0018 * qdd[7])
     out[5, 0] = 0.0
-    out[5, 1] = (s[29] * qdd[0] - s[295] + qd[0] * s[70] + s[34] * qdd[1] + qd[1] * s[71]
+    out[5, 1] = (s[29] * qdd[0] - s[311] + qd[0] * s[70] + s[34] * qdd[1] + qd[1] * s[71]
         + s[38] * qdd[2] + qd[2] * s[72] + qdd[3] * t7 + qd[3] * s[73] + qdd[4] * t8
         + qd[4] * s[74] + 0.0288 * s[20] * qdd[5] + s[23] * s[41])
-    out[5, 2] = (s[85] * qdd[0] - s[296] + qd[0] * s[155] + s[92] * qdd[1] + qd[1] * s[156]
+    out[5, 2] = (s[85] * qdd[0] - s[312] + qd[0] * s[155] + s[92] * qdd[1] + qd[1] * s[156]
         + s[98] * qdd[2] + qd[2] * s[157] + s[103] * qdd[3] + qd[3] * s[158] + s[107] * qdd[4]
         + qd[4] * s[159] + s[110] * qdd[5] + qd[5] * s[160] + s[111] * qdd[6] + qd[6] * s[161]
         + s[112] * qdd[7] + qd[7] * s[162])
@@ -6031,15 +6031,15 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[5, 9] = 0.0
     out[5, 10] = 6e-6 * qd[3] + 4.5e-6 * qd[4] + 3.6e-6 * qd[5]
     out[5, 11] = 0.0
-    out[5, 12] = (s[182] * qdd[0] - s[297] + qd[0] * s[253] + s[189] * qdd[1] + qd[1] * s[254]
-        + s[195] * qdd[2] + qd[2] * s[255] + s[200] * qdd[3] + qd[3] * s[256] + s[204] * qdd[4]
-        + qd[4] * s[257] + s[207] * qdd[5] + qd[5] * s[258] + s[208] * qdd[6] + qd[6] * s[259]
-        + s[209] * qdd[7] + qd[7] * s[260])
+    out[5, 12] = (s[198] * qdd[0] - s[313] + qd[0] * s[269] + s[205] * qdd[1] + qd[1] * s[270]
+        + s[211] * qdd[2] + qd[2] * s[271] + s[216] * qdd[3] + qd[3] * s[272] + s[220] * qdd[4]
+        + qd[4] * s[273] + s[223] * qdd[5] + qd[5] * s[274] + s[224] * qdd[6] + qd[6] * s[275]
+        + s[225] * qdd[7] + qd[7] * s[276])
     out[5, 13] = (0.003 * qdd[0] + 0.0015 * qdd[1] + 0.001 * qdd[2] + 0.0027 * qdd[3]
         + 0.00135 * qdd[4] + 0.0009 * qdd[5] + 0.0024 * qdd[6] + 0.0012 * qdd[7])
     out[6, 0] = 0.0
     out[6, 1] = 0.0
-    out[6, 2] = (s[86] * qdd[0] - s[298] + qd[0] * s[163] + s[93] * qdd[1] + qd[1] * s[164]
+    out[6, 2] = (s[86] * qdd[0] - s[314] + qd[0] * s[163] + s[93] * qdd[1] + qd[1] * s[164]
         + s[99] * qdd[2] + qd[2] * s[165] + s[104] * qdd[3] + qd[3] * s[166] + s[108] * qdd[4]
         + qd[4] * s[167] + s[111] * qdd[5] + qd[5] * s[168] + 0.0192 * s[75] * qdd[6]
         + s[78] * s[113] + qdd[7] * t9 + qd[7] * s[169])
@@ -6054,16 +6054,16 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[6, 9] = 0.0
     out[6, 10] = 0.0
     out[6, 11] = 8e-6 * qd[6] + 4e-6 * qd[7]
-    out[6, 12] = (s[183] * qdd[0] - s[299] + qd[0] * s[261] + s[190] * qdd[1] + qd[1] * s[262]
-        + s[196] * qdd[2] + qd[2] * s[263] + s[201] * qdd[3] + qd[3] * s[264] + s[205] * qdd[4]
-        + qd[4] * s[265] + s[208] * qdd[5] + qd[5] * s[266] + s[210] * qdd[6] + qd[6] * s[267]
-        + s[211] * qdd[7] + qd[7] * s[268])
+    out[6, 12] = (s[199] * qdd[0] - s[315] + qd[0] * s[277] + s[206] * qdd[1] + qd[1] * s[278]
+        + s[212] * qdd[2] + qd[2] * s[279] + s[217] * qdd[3] + qd[3] * s[280] + s[221] * qdd[4]
+        + qd[4] * s[281] + s[224] * qdd[5] + qd[5] * s[282] + s[226] * qdd[6] + qd[6] * s[283]
+        + s[227] * qdd[7] + qd[7] * s[284])
     out[6, 13] = (0.008 * qdd[0] + 0.004 * qdd[1] + 0.0026666666666666666 * qdd[2]
         + 0.0072 * qdd[3] + 0.0036 * qdd[4] + 0.0024 * qdd[5] + 0.0064 * qdd[6]
         + 0.0032 * qdd[7])
     out[7, 0] = 0.0
     out[7, 1] = 0.0
-    out[7, 2] = (s[87] * qdd[0] - s[300] + qd[0] * s[170] + s[94] * qdd[1] + qd[1] * s[171]
+    out[7, 2] = (s[87] * qdd[0] - s[316] + qd[0] * s[170] + s[94] * qdd[1] + qd[1] * s[171]
         + s[100] * qdd[2] + qd[2] * s[172] + s[105] * qdd[3] + qd[3] * s[173] + s[109] * qdd[4]
         + qd[4] * s[174] + s[112] * qdd[5] + qd[5] * s[175] + qdd[6] * t9 + qd[6] * s[176]
         + 0.0192 * s[77] * qdd[7] + s[79] * s[114])
@@ -6078,10 +6078,10 @@ def regressor(q, qd, qdd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_
     out[7, 9] = 0.0
     out[7, 10] = 0.0
     out[7, 11] = 4e-6 * qd[6] + 2.666666666666667e-6 * qd[7]
-    out[7, 12] = (s[184] * qdd[0] - s[301] + qd[0] * s[269] + s[191] * qdd[1] + qd[1] * s[270]
-        + s[197] * qdd[2] + qd[2] * s[271] + s[202] * qdd[3] + qd[3] * s[272] + s[206] * qdd[4]
-        + qd[4] * s[273] + s[209] * qdd[5] + qd[5] * s[274] + s[211] * qdd[6] + qd[6] * s[275]
-        + s[212] * qdd[7] + qd[7] * s[276])
+    out[7, 12] = (s[200] * qdd[0] - s[317] + qd[0] * s[285] + s[207] * qdd[1] + qd[1] * s[286]
+        + s[213] * qdd[2] + qd[2] * s[287] + s[218] * qdd[3] + qd[3] * s[288] + s[222] * qdd[4]
+        + qd[4] * s[289] + s[225] * qdd[5] + qd[5] * s[290] + s[227] * qdd[6] + qd[6] * s[291]
+        + s[228] * qdd[7] + qd[7] * s[292])
     out[7, 13] = (0.004 * qdd[0] + 0.002 * qdd[1] + 0.0013333333333333333 * qdd[2]
         + 0.0036 * qdd[3] + 0.0018 * qdd[4] + 0.0012 * qdd[5] + 0.0032 * qdd[6]
         + 0.0016 * qdd[7])
@@ -6242,7 +6242,7 @@ def _shares(q, qd, P):
     kern[154:345] = _family(_SHARES_FAMILY0, 0.1 * q[0], nu)
     kern[345:566] = _family(_SHARES_FAMILY1, 0.09 * q[3], nu)
     kern[566:670] = _family(_SHARES_FAMILY2, 0.08 * q[6], nu)
-    s = [0.0] * 302
+    s = [0.0] * 318
     t0 = q[1] * q[1]
     t1 = q[1] * q[2]
     t2 = q[2] * q[2]
@@ -8672,167 +8672,193 @@ def _shares(q, qd, P):
     s[174] = t1072 * t1150 + t1073 * t1151 - 0.000864 * t1205 + 0.000864 * t1173
     s[175] = t1072 * t1159 + t1073 * t1160 - 0.000576 * t1205 + 0.000576 * t1173
     s[176] = 0.0192 * t1372 + 0.0192 * t1206
-    s[177] = t1211 * t1211 + t1212 * t1212
-    s[178] = t1211 * t1213 + t1212 * t1214
-    s[179] = t1211 * t1215 + t1212 * t1216
-    s[180] = t1211 * t1217 + t1212 * t1218
-    s[181] = t1211 * t1219 + t1212 * t1220
-    s[182] = t1211 * t1221 + t1212 * t1222
-    s[183] = t1211 * t1227 + t1212 * t1230
-    s[184] = t1211 * t1241 + t1212 * t1244
-    s[185] = t1213 * t1213 + t1214 * t1214
-    s[186] = t1213 * t1215 + t1214 * t1216
-    s[187] = t1213 * t1217 + t1214 * t1218
-    s[188] = t1213 * t1219 + t1214 * t1220
-    s[189] = t1213 * t1221 + t1214 * t1222
-    s[190] = t1213 * t1227 + t1214 * t1230
-    s[191] = t1213 * t1241 + t1214 * t1244
-    s[192] = t1215 * t1215 + t1216 * t1216
-    s[193] = t1215 * t1217 + t1216 * t1218
-    s[194] = t1215 * t1219 + t1216 * t1220
-    s[195] = t1215 * t1221 + t1216 * t1222
-    s[196] = t1215 * t1227 + t1216 * t1230
-    s[197] = t1215 * t1241 + t1216 * t1244
-    s[198] = t1217 * t1217 + t1218 * t1218
-    s[199] = t1217 * t1219 + t1218 * t1220
-    s[200] = t1217 * t1221 + t1218 * t1222
-    s[201] = t1217 * t1227 + t1218 * t1230
-    s[202] = t1217 * t1241 + t1218 * t1244
-    s[203] = t1219 * t1219 + t1220 * t1220
-    s[204] = t1219 * t1221 + t1220 * t1222
-    s[205] = t1219 * t1227 + t1220 * t1230
-    s[206] = t1219 * t1241 + t1220 * t1244
-    s[207] = t1221 * t1221 + t1222 * t1222
-    s[208] = t1221 * t1227 + t1222 * t1230
-    s[209] = t1221 * t1241 + t1222 * t1244
-    s[210] = t1227 * t1227 + t1230 * t1230
-    s[211] = t1227 * t1241 + t1230 * t1244
-    s[212] = t1241 * t1241 + t1244 * t1244
-    s[213] = t1211 * t1263 + t1212 * t1264
-    s[214] = t1211 * t1279 + t1212 * t1280
-    s[215] = t1211 * t1291 + t1212 * t1292
-    s[216] = t1211 * t1301 + t1212 * t1302
-    s[217] = t1211 * t1309 + t1212 * t1310
-    s[218] = t1211 * t1315 + t1212 * t1316
-    s[219] = t1211 * t1325 + t1212 * t1326
-    s[220] = t1211 * t1330 + t1212 * t1331
-    s[221] = t1213 * t1263 + t1214 * t1264
-    s[222] = t1213 * t1279 + t1214 * t1280
-    s[223] = t1213 * t1291 + t1214 * t1292
-    s[224] = t1213 * t1301 + t1214 * t1302
-    s[225] = t1213 * t1309 + t1214 * t1310
-    s[226] = t1213 * t1315 + t1214 * t1316
-    s[227] = t1213 * t1325 + t1214 * t1326
-    s[228] = t1213 * t1330 + t1214 * t1331
-    s[229] = t1215 * t1263 + t1216 * t1264
-    s[230] = t1215 * t1279 + t1216 * t1280
-    s[231] = t1215 * t1291 + t1216 * t1292
-    s[232] = t1215 * t1301 + t1216 * t1302
-    s[233] = t1215 * t1309 + t1216 * t1310
-    s[234] = t1215 * t1315 + t1216 * t1316
-    s[235] = t1215 * t1325 + t1216 * t1326
-    s[236] = t1215 * t1330 + t1216 * t1331
-    s[237] = t1217 * t1263 + t1218 * t1264
-    s[238] = t1217 * t1279 + t1218 * t1280
-    s[239] = t1217 * t1291 + t1218 * t1292
-    s[240] = t1217 * t1301 + t1218 * t1302
-    s[241] = t1217 * t1309 + t1218 * t1310
-    s[242] = t1217 * t1315 + t1218 * t1316
-    s[243] = t1217 * t1325 + t1218 * t1326
-    s[244] = t1217 * t1330 + t1218 * t1331
-    s[245] = t1219 * t1263 + t1220 * t1264
-    s[246] = t1219 * t1279 + t1220 * t1280
-    s[247] = t1219 * t1291 + t1220 * t1292
-    s[248] = t1219 * t1301 + t1220 * t1302
-    s[249] = t1219 * t1309 + t1220 * t1310
-    s[250] = t1219 * t1315 + t1220 * t1316
-    s[251] = t1219 * t1325 + t1220 * t1326
-    s[252] = t1219 * t1330 + t1220 * t1331
-    s[253] = t1221 * t1263 + t1222 * t1264
-    s[254] = t1221 * t1279 + t1222 * t1280
-    s[255] = t1221 * t1291 + t1222 * t1292
-    s[256] = t1221 * t1301 + t1222 * t1302
-    s[257] = t1221 * t1309 + t1222 * t1310
-    s[258] = t1221 * t1315 + t1222 * t1316
-    s[259] = t1221 * t1325 + t1222 * t1326
-    s[260] = t1221 * t1330 + t1222 * t1331
-    s[261] = t1227 * t1263 + t1230 * t1264
-    s[262] = t1227 * t1279 + t1230 * t1280
-    s[263] = t1227 * t1291 + t1230 * t1292
-    s[264] = t1227 * t1301 + t1230 * t1302
-    s[265] = t1227 * t1309 + t1230 * t1310
-    s[266] = t1227 * t1315 + t1230 * t1316
-    s[267] = t1227 * t1325 + t1230 * t1326
-    s[268] = t1227 * t1330 + t1230 * t1331
-    s[269] = t1241 * t1263 + t1244 * t1264
-    s[270] = t1241 * t1279 + t1244 * t1280
-    s[271] = t1241 * t1291 + t1244 * t1292
-    s[272] = t1241 * t1301 + t1244 * t1302
-    s[273] = t1241 * t1309 + t1244 * t1310
-    s[274] = t1241 * t1315 + t1244 * t1316
-    s[275] = t1241 * t1325 + t1244 * t1326
-    s[276] = t1241 * t1330 + t1244 * t1331
-    s[277] = t1373 * t260 + t1374 * t261
-    s[278] = (P.gravity[0] * (-0.00288 * t760 - 0.00288 * t759)
+    s[177] = t1211
+    s[178] = t1212
+    s[179] = t1213
+    s[180] = t1214
+    s[181] = t1215
+    s[182] = t1216
+    s[183] = t1217
+    s[184] = t1218
+    s[185] = t1219
+    s[186] = t1220
+    s[187] = t1221
+    s[188] = t1222
+    s[189] = t1227
+    s[190] = t1230
+    s[191] = t1241
+    s[192] = t1244
+    s[193] = t1211 * t1211 + t1212 * t1212
+    s[194] = t1211 * t1213 + t1212 * t1214
+    s[195] = t1211 * t1215 + t1212 * t1216
+    s[196] = t1211 * t1217 + t1212 * t1218
+    s[197] = t1211 * t1219 + t1212 * t1220
+    s[198] = t1211 * t1221 + t1212 * t1222
+    s[199] = t1211 * t1227 + t1212 * t1230
+    s[200] = t1211 * t1241 + t1212 * t1244
+    s[201] = t1213 * t1213 + t1214 * t1214
+    s[202] = t1213 * t1215 + t1214 * t1216
+    s[203] = t1213 * t1217 + t1214 * t1218
+    s[204] = t1213 * t1219 + t1214 * t1220
+    s[205] = t1213 * t1221 + t1214 * t1222
+    s[206] = t1213 * t1227 + t1214 * t1230
+    s[207] = t1213 * t1241 + t1214 * t1244
+    s[208] = t1215 * t1215 + t1216 * t1216
+    s[209] = t1215 * t1217 + t1216 * t1218
+    s[210] = t1215 * t1219 + t1216 * t1220
+    s[211] = t1215 * t1221 + t1216 * t1222
+    s[212] = t1215 * t1227 + t1216 * t1230
+    s[213] = t1215 * t1241 + t1216 * t1244
+    s[214] = t1217 * t1217 + t1218 * t1218
+    s[215] = t1217 * t1219 + t1218 * t1220
+    s[216] = t1217 * t1221 + t1218 * t1222
+    s[217] = t1217 * t1227 + t1218 * t1230
+    s[218] = t1217 * t1241 + t1218 * t1244
+    s[219] = t1219 * t1219 + t1220 * t1220
+    s[220] = t1219 * t1221 + t1220 * t1222
+    s[221] = t1219 * t1227 + t1220 * t1230
+    s[222] = t1219 * t1241 + t1220 * t1244
+    s[223] = t1221 * t1221 + t1222 * t1222
+    s[224] = t1221 * t1227 + t1222 * t1230
+    s[225] = t1221 * t1241 + t1222 * t1244
+    s[226] = t1227 * t1227 + t1230 * t1230
+    s[227] = t1227 * t1241 + t1230 * t1244
+    s[228] = t1241 * t1241 + t1244 * t1244
+    s[229] = t1211 * t1263 + t1212 * t1264
+    s[230] = t1211 * t1279 + t1212 * t1280
+    s[231] = t1211 * t1291 + t1212 * t1292
+    s[232] = t1211 * t1301 + t1212 * t1302
+    s[233] = t1211 * t1309 + t1212 * t1310
+    s[234] = t1211 * t1315 + t1212 * t1316
+    s[235] = t1211 * t1325 + t1212 * t1326
+    s[236] = t1211 * t1330 + t1212 * t1331
+    s[237] = t1213 * t1263 + t1214 * t1264
+    s[238] = t1213 * t1279 + t1214 * t1280
+    s[239] = t1213 * t1291 + t1214 * t1292
+    s[240] = t1213 * t1301 + t1214 * t1302
+    s[241] = t1213 * t1309 + t1214 * t1310
+    s[242] = t1213 * t1315 + t1214 * t1316
+    s[243] = t1213 * t1325 + t1214 * t1326
+    s[244] = t1213 * t1330 + t1214 * t1331
+    s[245] = t1215 * t1263 + t1216 * t1264
+    s[246] = t1215 * t1279 + t1216 * t1280
+    s[247] = t1215 * t1291 + t1216 * t1292
+    s[248] = t1215 * t1301 + t1216 * t1302
+    s[249] = t1215 * t1309 + t1216 * t1310
+    s[250] = t1215 * t1315 + t1216 * t1316
+    s[251] = t1215 * t1325 + t1216 * t1326
+    s[252] = t1215 * t1330 + t1216 * t1331
+    s[253] = t1217 * t1263 + t1218 * t1264
+    s[254] = t1217 * t1279 + t1218 * t1280
+    s[255] = t1217 * t1291 + t1218 * t1292
+    s[256] = t1217 * t1301 + t1218 * t1302
+    s[257] = t1217 * t1309 + t1218 * t1310
+    s[258] = t1217 * t1315 + t1218 * t1316
+    s[259] = t1217 * t1325 + t1218 * t1326
+    s[260] = t1217 * t1330 + t1218 * t1331
+    s[261] = t1219 * t1263 + t1220 * t1264
+    s[262] = t1219 * t1279 + t1220 * t1280
+    s[263] = t1219 * t1291 + t1220 * t1292
+    s[264] = t1219 * t1301 + t1220 * t1302
+    s[265] = t1219 * t1309 + t1220 * t1310
+    s[266] = t1219 * t1315 + t1220 * t1316
+    s[267] = t1219 * t1325 + t1220 * t1326
+    s[268] = t1219 * t1330 + t1220 * t1331
+    s[269] = t1221 * t1263 + t1222 * t1264
+    s[270] = t1221 * t1279 + t1222 * t1280
+    s[271] = t1221 * t1291 + t1222 * t1292
+    s[272] = t1221 * t1301 + t1222 * t1302
+    s[273] = t1221 * t1309 + t1222 * t1310
+    s[274] = t1221 * t1315 + t1222 * t1316
+    s[275] = t1221 * t1325 + t1222 * t1326
+    s[276] = t1221 * t1330 + t1222 * t1331
+    s[277] = t1227 * t1263 + t1230 * t1264
+    s[278] = t1227 * t1279 + t1230 * t1280
+    s[279] = t1227 * t1291 + t1230 * t1292
+    s[280] = t1227 * t1301 + t1230 * t1302
+    s[281] = t1227 * t1309 + t1230 * t1310
+    s[282] = t1227 * t1315 + t1230 * t1316
+    s[283] = t1227 * t1325 + t1230 * t1326
+    s[284] = t1227 * t1330 + t1230 * t1331
+    s[285] = t1241 * t1263 + t1244 * t1264
+    s[286] = t1241 * t1279 + t1244 * t1280
+    s[287] = t1241 * t1291 + t1244 * t1292
+    s[288] = t1241 * t1301 + t1244 * t1302
+    s[289] = t1241 * t1309 + t1244 * t1310
+    s[290] = t1241 * t1315 + t1244 * t1316
+    s[291] = t1241 * t1325 + t1244 * t1326
+    s[292] = t1241 * t1330 + t1244 * t1331
+    s[293] = t1373 * t260 + t1374 * t261
+    s[294] = (P.gravity[0] * (-0.00288 * t760 - 0.00288 * t759)
         + P.gravity[1] * (0.00288 * t757 - 0.00288 * t758)
         + 0.0252 * (P.gravity[0] * t715 + P.gravity[1] * t716))
-    s[279] = (P.gravity[0] * (-0.00192 * t1049 - 0.00192 * t1048)
+    s[295] = (P.gravity[0] * (-0.00192 * t1049 - 0.00192 * t1048)
         + P.gravity[1] * (0.00192 * t1046 - 0.00192 * t1047)
         + 0.016 * (P.gravity[0] * t980 + P.gravity[1] * t981))
-    s[280] = P.gravity[0] * t1211 + P.gravity[1] * t1212
-    s[281] = t260 * t1375 + t261 * t1376
-    s[282] = (P.gravity[0] * (-0.00144 * t760 - 0.00144 * t759)
+    s[296] = P.gravity[0] * t1211 + P.gravity[1] * t1212
+    s[297] = t260 * t1375 + t261 * t1376
+    s[298] = (P.gravity[0] * (-0.00144 * t760 - 0.00144 * t759)
         + P.gravity[1] * (0.00144 * t757 - 0.00144 * t758)
         + 0.0252 * (P.gravity[0] * t728 + P.gravity[1] * t737))
-    s[283] = (P.gravity[0] * (-0.00096 * t1049 - 0.00096 * t1048)
+    s[299] = (P.gravity[0] * (-0.00096 * t1049 - 0.00096 * t1048)
         + P.gravity[1] * (0.00096 * t1046 - 0.00096 * t1047)
         + 0.016 * (P.gravity[0] * t982 + P.gravity[1] * t983))
-    s[284] = P.gravity[0] * t1213 + P.gravity[1] * t1214
-    s[285] = t260 * t1377 + t261 * t1378
-    s[286] = (P.gravity[0] * (-0.00096 * t760 - 0.00096 * t759)
+    s[300] = P.gravity[0] * t1213 + P.gravity[1] * t1214
+    s[301] = t260 * t1377 + t261 * t1378
+    s[302] = (P.gravity[0] * (-0.00096 * t760 - 0.00096 * t759)
         + P.gravity[1] * (0.00096 * t757 - 0.00096 * t758)
         + 0.0252 * (P.gravity[0] * t748 + P.gravity[1] * t756))
-    s[287] = (P.gravity[0] * (-0.00064 * t1049 - 0.00064 * t1048)
+    s[303] = (P.gravity[0] * (-0.00064 * t1049 - 0.00064 * t1048)
         + P.gravity[1] * (0.00064 * t1046 - 0.00064 * t1047)
         + 0.016 * (P.gravity[0] * t984 + P.gravity[1] * t985))
-    s[288] = P.gravity[0] * t1215 + P.gravity[1] * t1216
-    s[289] = P.gravity[0] * t769 + P.gravity[1] * t770
-    s[290] = (P.gravity[0] * (-0.001728 * t1049 - 0.001728 * t1048)
+    s[304] = P.gravity[0] * t1215 + P.gravity[1] * t1216
+    s[305] = P.gravity[0] * t769 + P.gravity[1] * t770
+    s[306] = (P.gravity[0] * (-0.001728 * t1049 - 0.001728 * t1048)
         + P.gravity[1] * (0.001728 * t1046 - 0.001728 * t1047)
         + 0.016 * (P.gravity[0] * t990 + P.gravity[1] * t993))
-    s[291] = P.gravity[0] * t1217 + P.gravity[1] * t1218
-    s[292] = (P.gravity[0] * (0.0288 * cphi[0] * t1332 - 0.0288 * sphi[0] * t1333)
+    s[307] = P.gravity[0] * t1217 + P.gravity[1] * t1218
+    s[308] = (P.gravity[0] * (0.0288 * cphi[0] * t1332 - 0.0288 * sphi[0] * t1333)
         + P.gravity[1] * (0.0288 * cphi[0] * t1333 + 0.0288 * sphi[0] * t1332))
-    s[293] = (P.gravity[0] * (-0.000864 * t1049 - 0.000864 * t1048)
+    s[309] = (P.gravity[0] * (-0.000864 * t1049 - 0.000864 * t1048)
         + P.gravity[1] * (0.000864 * t1046 - 0.000864 * t1047)
         + 0.016 * (P.gravity[0] * t1017 + P.gravity[1] * t1020))
-    s[294] = P.gravity[0] * t1219 + P.gravity[1] * t1220
-    s[295] = (P.gravity[0] * (0.0288 * cphi[0] * t1334 - 0.0288 * sphi[0] * t1335)
+    s[310] = P.gravity[0] * t1219 + P.gravity[1] * t1220
+    s[311] = (P.gravity[0] * (0.0288 * cphi[0] * t1334 - 0.0288 * sphi[0] * t1335)
         + P.gravity[1] * (0.0288 * cphi[0] * t1335 + 0.0288 * sphi[0] * t1334))
-    s[296] = (P.gravity[0] * (-0.000576 * t1049 - 0.000576 * t1048)
+    s[312] = (P.gravity[0] * (-0.000576 * t1049 - 0.000576 * t1048)
         + P.gravity[1] * (0.000576 * t1046 - 0.000576 * t1047)
         + 0.016 * (P.gravity[0] * t1042 + P.gravity[1] * t1045))
-    s[297] = P.gravity[0] * t1221 + P.gravity[1] * t1222
-    s[298] = P.gravity[0] * t1067 + P.gravity[1] * t1068
-    s[299] = P.gravity[0] * t1227 + P.gravity[1] * t1230
-    s[300] = (P.gravity[0] * (0.0192 * cphi[1] * t1336 - 0.0192 * sphi[1] * t1337)
+    s[313] = P.gravity[0] * t1221 + P.gravity[1] * t1222
+    s[314] = P.gravity[0] * t1067 + P.gravity[1] * t1068
+    s[315] = P.gravity[0] * t1227 + P.gravity[1] * t1230
+    s[316] = (P.gravity[0] * (0.0192 * cphi[1] * t1336 - 0.0192 * sphi[1] * t1337)
         + P.gravity[1] * (0.0192 * cphi[1] * t1337 + 0.0192 * sphi[1] * t1336))
-    s[301] = P.gravity[0] * t1241 + P.gravity[1] * t1244
+    s[317] = P.gravity[0] * t1241 + P.gravity[1] * t1244
     return s
 
 
 def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_scale=PARAMS_DEFAULT.rotary_inertia_scale, stiffness_scale=PARAMS_DEFAULT.stiffness_scale, damping_scale=PARAMS_DEFAULT.damping_scale, payload_mass=PARAMS_DEFAULT.payload_mass, payload_rotary_inertia=PARAMS_DEFAULT.payload_rotary_inertia, gravity=PARAMS_DEFAULT.gravity):
-    """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).
+    """B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G). Computed with A(q), whose end forces lie inside their sums.
 
     Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
     """
     q = _vector(q, NQ, "q")
     qd = _vector(qd, NQ, "qd")
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
+    b, c, g, _ = _terms_actuation(q, qd, P)
+    return b, c, g
+
+
+def _terms_actuation(q, qd, P):
+    """(B(q), C(q, q'), G(q), A(q)) in one call: A's end forces lie inside the sums of terms(), so they come at no cost. What forward_dynamics() needs, at the parameters P (as _params returns them).
+
+    Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+    """
     s = _shares(q, qd, P)
     b = np.zeros((NQ, NQ))
     c = np.zeros((NQ, NQ))
     g = np.zeros(NQ)
+    a = np.zeros((NQ, NU))
     t0 = 0.04 * P.density_scale[0]
     t1 = 0.0288 * P.density_scale[1]
     t2 = 2.025e-10 * P.rotary_inertia_scale[1]
@@ -8850,74 +8876,74 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     t14 = 0.0036 * P.payload_rotary_inertia
     t15 = (s[1] * t0 + 2.5e-10 * P.rotary_inertia_scale[0] + P.density_scale[1] * s[25]
         + 6.75e-10 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[81]
-        + 4e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[178]
+        + 4e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[194]
         + 0.005 * P.payload_rotary_inertia)
     t16 = (s[2] * t0 + 1.3333333333333334e-10 * P.rotary_inertia_scale[0]
         + P.density_scale[1] * s[26] + 4.5e-10 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[82] + 2.666666666666667e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[179] + 0.0033333333333333335 * P.payload_rotary_inertia)
+        + P.payload_mass * s[195] + 0.0033333333333333335 * P.payload_rotary_inertia)
     t17 = (P.density_scale[1] * s[27] + 6.075e-10 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[83] + 7.2e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[180] + 0.009 * P.payload_rotary_inertia)
+        + P.payload_mass * s[196] + 0.009 * P.payload_rotary_inertia)
     t18 = (P.density_scale[1] * s[28] + t2 + P.density_scale[2] * s[84] + t5
-        + P.payload_mass * s[181] + t10)
+        + P.payload_mass * s[197] + t10)
     t19 = (P.density_scale[1] * s[29] + t3 + P.density_scale[2] * s[85] + t6
-        + P.payload_mass * s[182] + t11)
+        + P.payload_mass * s[198] + t11)
     t20 = (P.density_scale[2] * s[86] + 3.2e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[183] + 0.008 * P.payload_rotary_inertia)
-    t21 = P.density_scale[2] * s[87] + t7 + P.payload_mass * s[184] + t12
+        + P.payload_mass * s[199] + 0.008 * P.payload_rotary_inertia)
+    t21 = P.density_scale[2] * s[87] + t7 + P.payload_mass * s[200] + t12
     t22 = (s[4] * t0 + 5.5555555555555553e-11 * P.rotary_inertia_scale[0]
         + P.density_scale[1] * s[31] + 2.25e-10 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[89] + 1.3333333333333334e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[186] + 0.0016666666666666668 * P.payload_rotary_inertia)
+        + P.payload_mass * s[202] + 0.0016666666666666668 * P.payload_rotary_inertia)
     t23 = (P.density_scale[1] * s[32] + 3.0375e-10 * P.rotary_inertia_scale[1]
-        + P.density_scale[2] * s[90] + t5 + t10 + P.payload_mass * s[187])
+        + P.density_scale[2] * s[90] + t5 + t10 + P.payload_mass * s[203])
     t24 = (P.density_scale[1] * s[33] + t3 + P.density_scale[2] * s[91]
-        + 1.8e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[188]
+        + 1.8e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[204]
         + 0.00225 * P.payload_rotary_inertia)
     t25 = (P.density_scale[1] * s[34] + 5.0625e-11 * P.rotary_inertia_scale[1]
-        + P.density_scale[2] * s[92] + t8 + P.payload_mass * s[189] + t13)
+        + P.density_scale[2] * s[92] + t8 + P.payload_mass * s[205] + t13)
     t26 = (P.density_scale[2] * s[93] + 1.6e-10 * P.rotary_inertia_scale[2] + t12
-        + P.payload_mass * s[190])
+        + P.payload_mass * s[206])
     t27 = (P.density_scale[2] * s[94] + 5.333333333333333e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[191] + 0.002 * P.payload_rotary_inertia)
+        + P.payload_mass * s[207] + 0.002 * P.payload_rotary_inertia)
     t28 = (P.density_scale[1] * s[36] + t2 + P.density_scale[2] * s[96] + t6 + t11
-        + P.payload_mass * s[193])
+        + P.payload_mass * s[209])
     t29 = (P.density_scale[1] * s[37] + 6.75e-11 * P.rotary_inertia_scale[1]
-        + P.density_scale[2] * s[97] + t8 + t13 + P.payload_mass * s[194])
+        + P.density_scale[2] * s[97] + t8 + t13 + P.payload_mass * s[210])
     t30 = (P.density_scale[1] * s[38] + 3.375e-11 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[98] + 8e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[195] + 0.001 * P.payload_rotary_inertia)
-    t31 = (P.density_scale[2] * s[99] + t7 + P.payload_mass * s[196]
+        + P.payload_mass * s[211] + 0.001 * P.payload_rotary_inertia)
+    t31 = (P.density_scale[2] * s[99] + t7 + P.payload_mass * s[212]
         + 0.0026666666666666666 * P.payload_rotary_inertia)
     t32 = (P.density_scale[2] * s[100] + 3.555555555555556e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[197] + 0.0013333333333333333 * P.payload_rotary_inertia)
+        + P.payload_mass * s[213] + 0.0013333333333333333 * P.payload_rotary_inertia)
     t33 = (s[16] * t1 + 1.366875e-10 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[102]
-        + 3.24e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[199]
+        + 3.24e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[215]
         + 0.00405 * P.payload_rotary_inertia)
     t34 = (s[17] * t1 + 7.29e-11 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[103]
-        + 2.16e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[200]
+        + 2.16e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[216]
         + 0.0027 * P.payload_rotary_inertia)
     t35 = (P.density_scale[2] * s[104] + 2.88e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[201] + 0.0072 * P.payload_rotary_inertia)
-    t36 = P.density_scale[2] * s[105] + t9 + P.payload_mass * s[202] + t14
+        + P.payload_mass * s[217] + 0.0072 * P.payload_rotary_inertia)
+    t36 = P.density_scale[2] * s[105] + t9 + P.payload_mass * s[218] + t14
     t37 = (s[19] * t1 + 3.0375e-11 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[107]
-        + 1.08e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[204]
+        + 1.08e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[220]
         + 0.00135 * P.payload_rotary_inertia)
     t38 = (P.density_scale[2] * s[108] + 1.44e-10 * P.rotary_inertia_scale[2] + t14
-        + P.payload_mass * s[205])
+        + P.payload_mass * s[221])
     t39 = (P.density_scale[2] * s[109] + 4.8e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[206] + 0.0018 * P.payload_rotary_inertia)
-    t40 = (P.density_scale[2] * s[111] + t9 + P.payload_mass * s[208]
+        + P.payload_mass * s[222] + 0.0018 * P.payload_rotary_inertia)
+    t40 = (P.density_scale[2] * s[111] + t9 + P.payload_mass * s[224]
         + 0.0024 * P.payload_rotary_inertia)
     t41 = (P.density_scale[2] * s[112] + 3.2e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[209] + 0.0012 * P.payload_rotary_inertia)
-    t42 = (s[76] * t4 + 6.4e-11 * P.rotary_inertia_scale[2] + P.payload_mass * s[211]
+        + P.payload_mass * s[225] + 0.0012 * P.payload_rotary_inertia)
+    t42 = (s[76] * t4 + 6.4e-11 * P.rotary_inertia_scale[2] + P.payload_mass * s[227]
         + 0.0032 * P.payload_rotary_inertia)
     b[0, 0] = (s[0] * t0 + 6.666666666666666e-10 * P.rotary_inertia_scale[0]
         + P.density_scale[1] * s[24] + 1.35e-9 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[80] + 8e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[177] + 0.01 * P.payload_rotary_inertia)
+        + P.payload_mass * s[193] + 0.01 * P.payload_rotary_inertia)
     b[0, 1] = t15
     b[0, 2] = t16
     b[0, 3] = t17
@@ -8928,7 +8954,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[1, 0] = t15
     b[1, 1] = (s[3] * t0 + 1e-10 * P.rotary_inertia_scale[0] + P.density_scale[1] * s[30]
         + 3.375e-10 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[88]
-        + 2e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[185]
+        + 2e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[201]
         + 0.0025 * P.payload_rotary_inertia)
     b[1, 2] = t22
     b[1, 3] = t23
@@ -8941,7 +8967,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[2, 2] = (s[5] * t0 + 3.174603174603175e-11 * P.rotary_inertia_scale[0]
         + P.density_scale[1] * s[35] + 1.5e-10 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[95] + 8.888888888888889e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[192] + 0.0011111111111111111 * P.payload_rotary_inertia)
+        + P.payload_mass * s[208] + 0.0011111111111111111 * P.payload_rotary_inertia)
     b[2, 3] = t28
     b[2, 4] = t29
     b[2, 5] = t30
@@ -8951,7 +8977,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[3, 1] = t23
     b[3, 2] = t28
     b[3, 3] = (s[15] * t1 + 3.645e-10 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[101]
-        + 6.48e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[198]
+        + 6.48e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[214]
         + 0.0081 * P.payload_rotary_inertia)
     b[3, 4] = t33
     b[3, 5] = t34
@@ -8962,7 +8988,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[4, 2] = t29
     b[4, 3] = t33
     b[4, 4] = (s[18] * t1 + 5.4675e-11 * P.rotary_inertia_scale[1] + P.density_scale[2] * s[106]
-        + 1.62e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[203]
+        + 1.62e-10 * P.rotary_inertia_scale[2] + P.payload_mass * s[219]
         + 0.002025 * P.payload_rotary_inertia)
     b[4, 5] = t37
     b[4, 6] = t38
@@ -8974,7 +9000,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[5, 4] = t37
     b[5, 5] = (s[20] * t1 + 1.735714285714286e-11 * P.rotary_inertia_scale[1]
         + P.density_scale[2] * s[110] + 7.2e-11 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[207] + 0.0009 * P.payload_rotary_inertia)
+        + P.payload_mass * s[223] + 0.0009 * P.payload_rotary_inertia)
     b[5, 6] = t40
     b[5, 7] = t41
     b[6, 0] = t20
@@ -8984,7 +9010,7 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[6, 4] = t38
     b[6, 5] = t40
     b[6, 6] = (s[75] * t4 + 1.7066666666666667e-10 * P.rotary_inertia_scale[2]
-        + P.payload_mass * s[210] + 0.0064 * P.payload_rotary_inertia)
+        + P.payload_mass * s[226] + 0.0064 * P.payload_rotary_inertia)
     b[6, 7] = t42
     b[7, 0] = t21
     b[7, 1] = t27
@@ -8993,93 +9019,117 @@ def terms(q, qd, *, density_scale=PARAMS_DEFAULT.density_scale, rotary_inertia_s
     b[7, 4] = t39
     b[7, 5] = t41
     b[7, 6] = t42
-    b[7, 7] = (s[77] * t4 + 2.56e-11 * P.rotary_inertia_scale[2] + P.payload_mass * s[212]
+    b[7, 7] = (s[77] * t4 + 2.56e-11 * P.rotary_inertia_scale[2] + P.payload_mass * s[228]
         + 0.0016 * P.payload_rotary_inertia)
     c[0, 0] = (s[6] * t0 + P.density_scale[1] * s[42] + P.density_scale[2] * s[115]
-        + P.payload_mass * s[213])
-    c[0, 1] = (s[7] * t0 + P.density_scale[1] * s[43] + P.density_scale[2] * s[116]
-        + P.payload_mass * s[214])
-    c[0, 2] = (s[8] * t0 + P.density_scale[1] * s[44] + P.density_scale[2] * s[117]
-        + P.payload_mass * s[215])
-    c[0, 3] = P.density_scale[1] * s[45] + P.density_scale[2] * s[118] + P.payload_mass * s[216]
-    c[0, 4] = P.density_scale[1] * s[46] + P.density_scale[2] * s[119] + P.payload_mass * s[217]
-    c[0, 5] = P.density_scale[1] * s[47] + P.density_scale[2] * s[120] + P.payload_mass * s[218]
-    c[0, 6] = P.density_scale[2] * s[121] + P.payload_mass * s[219]
-    c[0, 7] = P.density_scale[2] * s[122] + P.payload_mass * s[220]
-    c[1, 0] = (s[9] * t0 + P.density_scale[1] * s[48] + P.density_scale[2] * s[123]
-        + P.payload_mass * s[221])
-    c[1, 1] = (s[10] * t0 + P.density_scale[1] * s[49] + P.density_scale[2] * s[124]
-        + P.payload_mass * s[222])
-    c[1, 2] = (s[11] * t0 + P.density_scale[1] * s[50] + P.density_scale[2] * s[125]
-        + P.payload_mass * s[223])
-    c[1, 3] = P.density_scale[1] * s[51] + P.density_scale[2] * s[126] + P.payload_mass * s[224]
-    c[1, 4] = P.density_scale[1] * s[52] + P.density_scale[2] * s[127] + P.payload_mass * s[225]
-    c[1, 5] = P.density_scale[1] * s[53] + P.density_scale[2] * s[128] + P.payload_mass * s[226]
-    c[1, 6] = P.density_scale[2] * s[129] + P.payload_mass * s[227]
-    c[1, 7] = P.density_scale[2] * s[130] + P.payload_mass * s[228]
-    c[2, 0] = (s[12] * t0 + P.density_scale[1] * s[54] + P.density_scale[2] * s[131]
         + P.payload_mass * s[229])
-    c[2, 1] = (s[13] * t0 + P.density_scale[1] * s[55] + P.density_scale[2] * s[132]
+    c[0, 1] = (s[7] * t0 + P.density_scale[1] * s[43] + P.density_scale[2] * s[116]
         + P.payload_mass * s[230])
-    c[2, 2] = (s[14] * t0 + P.density_scale[1] * s[56] + P.density_scale[2] * s[133]
+    c[0, 2] = (s[8] * t0 + P.density_scale[1] * s[44] + P.density_scale[2] * s[117]
         + P.payload_mass * s[231])
-    c[2, 3] = P.density_scale[1] * s[57] + P.density_scale[2] * s[134] + P.payload_mass * s[232]
-    c[2, 4] = P.density_scale[1] * s[58] + P.density_scale[2] * s[135] + P.payload_mass * s[233]
-    c[2, 5] = P.density_scale[1] * s[59] + P.density_scale[2] * s[136] + P.payload_mass * s[234]
-    c[2, 6] = P.density_scale[2] * s[137] + P.payload_mass * s[235]
-    c[2, 7] = P.density_scale[2] * s[138] + P.payload_mass * s[236]
-    c[3, 0] = P.density_scale[1] * s[60] + P.density_scale[2] * s[139] + P.payload_mass * s[237]
-    c[3, 1] = P.density_scale[1] * s[61] + P.density_scale[2] * s[140] + P.payload_mass * s[238]
-    c[3, 2] = P.density_scale[1] * s[62] + P.density_scale[2] * s[141] + P.payload_mass * s[239]
-    c[3, 3] = s[21] * t1 + P.density_scale[2] * s[142] + P.payload_mass * s[240]
-    c[3, 4] = P.density_scale[1] * s[63] + P.density_scale[2] * s[143] + P.payload_mass * s[241]
-    c[3, 5] = P.density_scale[1] * s[64] + P.density_scale[2] * s[144] + P.payload_mass * s[242]
-    c[3, 6] = P.density_scale[2] * s[145] + P.payload_mass * s[243]
-    c[3, 7] = P.density_scale[2] * s[146] + P.payload_mass * s[244]
-    c[4, 0] = P.density_scale[1] * s[65] + P.density_scale[2] * s[147] + P.payload_mass * s[245]
-    c[4, 1] = P.density_scale[1] * s[66] + P.density_scale[2] * s[148] + P.payload_mass * s[246]
-    c[4, 2] = P.density_scale[1] * s[67] + P.density_scale[2] * s[149] + P.payload_mass * s[247]
-    c[4, 3] = P.density_scale[1] * s[68] + P.density_scale[2] * s[150] + P.payload_mass * s[248]
-    c[4, 4] = s[22] * t1 + P.density_scale[2] * s[151] + P.payload_mass * s[249]
-    c[4, 5] = P.density_scale[1] * s[69] + P.density_scale[2] * s[152] + P.payload_mass * s[250]
-    c[4, 6] = P.density_scale[2] * s[153] + P.payload_mass * s[251]
-    c[4, 7] = P.density_scale[2] * s[154] + P.payload_mass * s[252]
-    c[5, 0] = P.density_scale[1] * s[70] + P.density_scale[2] * s[155] + P.payload_mass * s[253]
-    c[5, 1] = P.density_scale[1] * s[71] + P.density_scale[2] * s[156] + P.payload_mass * s[254]
-    c[5, 2] = P.density_scale[1] * s[72] + P.density_scale[2] * s[157] + P.payload_mass * s[255]
-    c[5, 3] = P.density_scale[1] * s[73] + P.density_scale[2] * s[158] + P.payload_mass * s[256]
-    c[5, 4] = P.density_scale[1] * s[74] + P.density_scale[2] * s[159] + P.payload_mass * s[257]
-    c[5, 5] = s[23] * t1 + P.density_scale[2] * s[160] + P.payload_mass * s[258]
-    c[5, 6] = P.density_scale[2] * s[161] + P.payload_mass * s[259]
-    c[5, 7] = P.density_scale[2] * s[162] + P.payload_mass * s[260]
-    c[6, 0] = P.density_scale[2] * s[163] + P.payload_mass * s[261]
-    c[6, 1] = P.density_scale[2] * s[164] + P.payload_mass * s[262]
-    c[6, 2] = P.density_scale[2] * s[165] + P.payload_mass * s[263]
-    c[6, 3] = P.density_scale[2] * s[166] + P.payload_mass * s[264]
-    c[6, 4] = P.density_scale[2] * s[167] + P.payload_mass * s[265]
-    c[6, 5] = P.density_scale[2] * s[168] + P.payload_mass * s[266]
-    c[6, 6] = s[78] * t4 + P.payload_mass * s[267]
-    c[6, 7] = P.density_scale[2] * s[169] + P.payload_mass * s[268]
-    c[7, 0] = P.density_scale[2] * s[170] + P.payload_mass * s[269]
-    c[7, 1] = P.density_scale[2] * s[171] + P.payload_mass * s[270]
-    c[7, 2] = P.density_scale[2] * s[172] + P.payload_mass * s[271]
-    c[7, 3] = P.density_scale[2] * s[173] + P.payload_mass * s[272]
-    c[7, 4] = P.density_scale[2] * s[174] + P.payload_mass * s[273]
-    c[7, 5] = P.density_scale[2] * s[175] + P.payload_mass * s[274]
-    c[7, 6] = P.density_scale[2] * s[176] + P.payload_mass * s[275]
-    c[7, 7] = s[79] * t4 + P.payload_mass * s[276]
-    g[0] = (-P.density_scale[0] * s[277] - P.density_scale[1] * s[278]
-        - P.density_scale[2] * s[279] - P.payload_mass * s[280])
-    g[1] = (-P.density_scale[0] * s[281] - P.density_scale[1] * s[282]
-        - P.density_scale[2] * s[283] - P.payload_mass * s[284])
-    g[2] = (-P.density_scale[0] * s[285] - P.density_scale[1] * s[286]
-        - P.density_scale[2] * s[287] - P.payload_mass * s[288])
-    g[3] = -P.density_scale[1] * s[289] - P.density_scale[2] * s[290] - P.payload_mass * s[291]
-    g[4] = -P.density_scale[1] * s[292] - P.density_scale[2] * s[293] - P.payload_mass * s[294]
-    g[5] = -P.density_scale[1] * s[295] - P.density_scale[2] * s[296] - P.payload_mass * s[297]
-    g[6] = -P.density_scale[2] * s[298] - P.payload_mass * s[299]
-    g[7] = -P.density_scale[2] * s[300] - P.payload_mass * s[301]
-    return b, c, g
+    c[0, 3] = P.density_scale[1] * s[45] + P.density_scale[2] * s[118] + P.payload_mass * s[232]
+    c[0, 4] = P.density_scale[1] * s[46] + P.density_scale[2] * s[119] + P.payload_mass * s[233]
+    c[0, 5] = P.density_scale[1] * s[47] + P.density_scale[2] * s[120] + P.payload_mass * s[234]
+    c[0, 6] = P.density_scale[2] * s[121] + P.payload_mass * s[235]
+    c[0, 7] = P.density_scale[2] * s[122] + P.payload_mass * s[236]
+    c[1, 0] = (s[9] * t0 + P.density_scale[1] * s[48] + P.density_scale[2] * s[123]
+        + P.payload_mass * s[237])
+    c[1, 1] = (s[10] * t0 + P.density_scale[1] * s[49] + P.density_scale[2] * s[124]
+        + P.payload_mass * s[238])
+    c[1, 2] = (s[11] * t0 + P.density_scale[1] * s[50] + P.density_scale[2] * s[125]
+        + P.payload_mass * s[239])
+    c[1, 3] = P.density_scale[1] * s[51] + P.density_scale[2] * s[126] + P.payload_mass * s[240]
+    c[1, 4] = P.density_scale[1] * s[52] + P.density_scale[2] * s[127] + P.payload_mass * s[241]
+    c[1, 5] = P.density_scale[1] * s[53] + P.density_scale[2] * s[128] + P.payload_mass * s[242]
+    c[1, 6] = P.density_scale[2] * s[129] + P.payload_mass * s[243]
+    c[1, 7] = P.density_scale[2] * s[130] + P.payload_mass * s[244]
+    c[2, 0] = (s[12] * t0 + P.density_scale[1] * s[54] + P.density_scale[2] * s[131]
+        + P.payload_mass * s[245])
+    c[2, 1] = (s[13] * t0 + P.density_scale[1] * s[55] + P.density_scale[2] * s[132]
+        + P.payload_mass * s[246])
+    c[2, 2] = (s[14] * t0 + P.density_scale[1] * s[56] + P.density_scale[2] * s[133]
+        + P.payload_mass * s[247])
+    c[2, 3] = P.density_scale[1] * s[57] + P.density_scale[2] * s[134] + P.payload_mass * s[248]
+    c[2, 4] = P.density_scale[1] * s[58] + P.density_scale[2] * s[135] + P.payload_mass * s[249]
+    c[2, 5] = P.density_scale[1] * s[59] + P.density_scale[2] * s[136] + P.payload_mass * s[250]
+    c[2, 6] = P.density_scale[2] * s[137] + P.payload_mass * s[251]
+    c[2, 7] = P.density_scale[2] * s[138] + P.payload_mass * s[252]
+    c[3, 0] = P.density_scale[1] * s[60] + P.density_scale[2] * s[139] + P.payload_mass * s[253]
+    c[3, 1] = P.density_scale[1] * s[61] + P.density_scale[2] * s[140] + P.payload_mass * s[254]
+    c[3, 2] = P.density_scale[1] * s[62] + P.density_scale[2] * s[141] + P.payload_mass * s[255]
+    c[3, 3] = s[21] * t1 + P.density_scale[2] * s[142] + P.payload_mass * s[256]
+    c[3, 4] = P.density_scale[1] * s[63] + P.density_scale[2] * s[143] + P.payload_mass * s[257]
+    c[3, 5] = P.density_scale[1] * s[64] + P.density_scale[2] * s[144] + P.payload_mass * s[258]
+    c[3, 6] = P.density_scale[2] * s[145] + P.payload_mass * s[259]
+    c[3, 7] = P.density_scale[2] * s[146] + P.payload_mass * s[260]
+    c[4, 0] = P.density_scale[1] * s[65] + P.density_scale[2] * s[147] + P.payload_mass * s[261]
+    c[4, 1] = P.density_scale[1] * s[66] + P.density_scale[2] * s[148] + P.payload_mass * s[262]
+    c[4, 2] = P.density_scale[1] * s[67] + P.density_scale[2] * s[149] + P.payload_mass * s[263]
+    c[4, 3] = P.density_scale[1] * s[68] + P.density_scale[2] * s[150] + P.payload_mass * s[264]
+    c[4, 4] = s[22] * t1 + P.density_scale[2] * s[151] + P.payload_mass * s[265]
+    c[4, 5] = P.density_scale[1] * s[69] + P.density_scale[2] * s[152] + P.payload_mass * s[266]
+    c[4, 6] = P.density_scale[2] * s[153] + P.payload_mass * s[267]
+    c[4, 7] = P.density_scale[2] * s[154] + P.payload_mass * s[268]
+    c[5, 0] = P.density_scale[1] * s[70] + P.density_scale[2] * s[155] + P.payload_mass * s[269]
+    c[5, 1] = P.density_scale[1] * s[71] + P.density_scale[2] * s[156] + P.payload_mass * s[270]
+    c[5, 2] = P.density_scale[1] * s[72] + P.density_scale[2] * s[157] + P.payload_mass * s[271]
+    c[5, 3] = P.density_scale[1] * s[73] + P.density_scale[2] * s[158] + P.payload_mass * s[272]
+    c[5, 4] = P.density_scale[1] * s[74] + P.density_scale[2] * s[159] + P.payload_mass * s[273]
+    c[5, 5] = s[23] * t1 + P.density_scale[2] * s[160] + P.payload_mass * s[274]
+    c[5, 6] = P.density_scale[2] * s[161] + P.payload_mass * s[275]
+    c[5, 7] = P.density_scale[2] * s[162] + P.payload_mass * s[276]
+    c[6, 0] = P.density_scale[2] * s[163] + P.payload_mass * s[277]
+    c[6, 1] = P.density_scale[2] * s[164] + P.payload_mass * s[278]
+    c[6, 2] = P.density_scale[2] * s[165] + P.payload_mass * s[279]
+    c[6, 3] = P.density_scale[2] * s[166] + P.payload_mass * s[280]
+    c[6, 4] = P.density_scale[2] * s[167] + P.payload_mass * s[281]
+    c[6, 5] = P.density_scale[2] * s[168] + P.payload_mass * s[282]
+    c[6, 6] = s[78] * t4 + P.payload_mass * s[283]
+    c[6, 7] = P.density_scale[2] * s[169] + P.payload_mass * s[284]
+    c[7, 0] = P.density_scale[2] * s[170] + P.payload_mass * s[285]
+    c[7, 1] = P.density_scale[2] * s[171] + P.payload_mass * s[286]
+    c[7, 2] = P.density_scale[2] * s[172] + P.payload_mass * s[287]
+    c[7, 3] = P.density_scale[2] * s[173] + P.payload_mass * s[288]
+    c[7, 4] = P.density_scale[2] * s[174] + P.payload_mass * s[289]
+    c[7, 5] = P.density_scale[2] * s[175] + P.payload_mass * s[290]
+    c[7, 6] = P.density_scale[2] * s[176] + P.payload_mass * s[291]
+    c[7, 7] = s[79] * t4 + P.payload_mass * s[292]
+    g[0] = (-P.density_scale[0] * s[293] - P.density_scale[1] * s[294]
+        - P.density_scale[2] * s[295] - P.payload_mass * s[296])
+    g[1] = (-P.density_scale[0] * s[297] - P.density_scale[1] * s[298]
+        - P.density_scale[2] * s[299] - P.payload_mass * s[300])
+    g[2] = (-P.density_scale[0] * s[301] - P.density_scale[1] * s[302]
+        - P.density_scale[2] * s[303] - P.payload_mass * s[304])
+    g[3] = -P.density_scale[1] * s[305] - P.density_scale[2] * s[306] - P.payload_mass * s[307]
+    g[4] = -P.density_scale[1] * s[308] - P.density_scale[2] * s[309] - P.payload_mass * s[310]
+    g[5] = -P.density_scale[1] * s[311] - P.density_scale[2] * s[312] - P.payload_mass * s[313]
+    g[6] = -P.density_scale[2] * s[314] - P.payload_mass * s[315]
+    g[7] = -P.density_scale[2] * s[316] - P.payload_mass * s[317]
+    a[0, 0] = s[177]
+    a[0, 1] = s[178]
+    a[0, 2] = 0.0
+    a[1, 0] = s[179]
+    a[1, 1] = s[180]
+    a[1, 2] = 0.0
+    a[2, 0] = s[181]
+    a[2, 1] = s[182]
+    a[2, 2] = 0.0
+    a[3, 0] = s[183]
+    a[3, 1] = s[184]
+    a[3, 2] = 0.09
+    a[4, 0] = s[185]
+    a[4, 1] = s[186]
+    a[4, 2] = 0.045
+    a[5, 0] = s[187]
+    a[5, 1] = s[188]
+    a[5, 2] = 0.03
+    a[6, 0] = s[189]
+    a[6, 1] = s[190]
+    a[6, 2] = 0.0
+    a[7, 0] = s[191]
+    a[7, 1] = s[192]
+    a[7, 2] = 0.0
+    return b, c, g, a
 
 
 def _pose_segment0(q, sigma):
@@ -9796,7 +9846,7 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     or a non-finite result. B is badly conditioned on realistic arms: check results
     by the residual, not entry by entry.
 
-    Operations: 9792 add, 13116 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11472 add, 15048 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+    Operations: 8921 add, 11751 mul, 88 div, 8 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10601 add, 13683 mul, 88 div, 8 sqrt, 10 trig beyond (whole rows at both ends).
     """
     P = _params(density_scale, rotary_inertia_scale, stiffness_scale, damping_scale, payload_mass, payload_rotary_inertia, gravity)
     q = _vector(q, NQ, "q")
@@ -9804,8 +9854,8 @@ def forward_dynamics(q, qd, u, *, density_scale=PARAMS_DEFAULT.density_scale, ro
     u = _vector(u, NU, "u")
     if not _params_finite(P) or not all(math.isfinite(v) for v in q + qd + u):
         raise DynamicsError("non-finite input")
-    b, c, g = terms(q, qd, **P._asdict())
-    a = actuation(q)
+    # A with B, C and G: its end forces lie inside their sums.
+    b, c, g, a = _terms_actuation(q, qd, P)
     with np.errstate(over="ignore", invalid="ignore"):
         rhs_ = a @ np.asarray(u) - (c + damping(**P._asdict())) @ np.asarray(qd) - g
         rhs_ -= stiffness(**P._asdict()) @ np.asarray(q)

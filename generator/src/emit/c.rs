@@ -654,6 +654,39 @@ pub fn emit(
              sums. What the statics' residual and the regulator need.",
         )
     });
+    // With an end force, B, C, G and A in one schedule for forward dynamics.
+    let terms_actuation_work = plan.terms_actuation.as_ref().map(|f| {
+        let nn = n * n;
+        let (rows, body, len) = p.body(f, "terms_actuation", None, &move |i: usize| {
+            if i < nn {
+                format!("B[{i}]")
+            } else if i < 2 * nn {
+                format!("C[{}]", i - nn)
+            } else if i < 2 * nn + n {
+                format!("G[{}]", i - 2 * nn)
+            } else {
+                format!("A[{}]", i - 2 * nn - n)
+            }
+        });
+        funcs.push(CFunc {
+            rows,
+            formula: format!(
+                "B(q), C(q, q') (both n x n, row-major), G(q) and A(q) (n x k, row-major) in \
+                 one call: A's end forces lie inside the sums of terms, so they come at no \
+                 cost. What forward dynamics needs. At the runtime parameters *P. Scratch: \
+                 work[0 .. {len})."
+            ),
+            ops: ops_line(f),
+            signature: format!(
+                "static void {name}_terms_actuation_with_ws(const {name}_params *P, \
+                 const {r} q[{up}_NQ], const {r} qd[{up}_NQ], {r} B[{up}_NQ * {up}_NQ], \
+                 {r} C[{up}_NQ * {up}_NQ], {r} G[{up}_NQ], {r} A[{up}_NQ * {up}_NU], {r} work[])"
+            ),
+            body,
+            plain: false,
+        });
+        len
+    });
     let mut constant_funcs: Vec<CFunc> = Vec::new();
     // Scratch of every `_ws` function, by name (for the header and the wrappers).
     let mut work: Vec<(String, usize)> = Vec::new();
@@ -893,22 +926,43 @@ pub fn emit(
         &|_| String::new(),
     );
     let nn = n * n;
-    let terms_work = generated(
-        "terms",
-        "B(q), C(q, q') (both n x n, row-major) and G(q) in one call.",
-        &plan.terms,
-        "void",
-        &[q.clone(), qd.clone(), out("B"), out("C"), out("G")],
-        &move |i: usize| {
-            if i < nn {
-                format!("B[{i}]")
-            } else if i < 2 * nn {
-                format!("C[{}]", i - nn)
-            } else {
-                format!("G[{}]", i - 2 * nn)
-            }
-        },
-    );
+    let terms_params = [q.clone(), qd.clone(), out("B"), out("C"), out("G")];
+    let terms_work = match (terms_actuation_work, &plan.terms_actuation) {
+        // With an end force, terms is the schedule with A, keeping B, C and G.
+        (Some(len), Some(f)) => {
+            public(
+                "terms",
+                "B(q), C(q, q') (both n x n, row-major) and G(q) in one call. Computed with \
+                 A(q), whose end forces lie inside their sums.",
+                ops_line(f),
+                "void",
+                &terms_params,
+                String::new(),
+                format!(
+                    "    {r} *const A = &work[0]; /* {nk} */\n\
+                     \x20   {name}_terms_actuation_with_ws(P, q, qd, B, C, G, A, &work[{nk}]);\n"
+                ),
+                nk + len,
+            );
+            nk + len
+        }
+        _ => generated(
+            "terms",
+            "B(q), C(q, q') (both n x n, row-major) and G(q) in one call.",
+            &plan.terms,
+            "void",
+            &terms_params,
+            &move |i: usize| {
+                if i < nn {
+                    format!("B[{i}]")
+                } else if i < 2 * nn {
+                    format!("C[{}]", i - nn)
+                } else {
+                    format!("G[{}]", i - 2 * nn)
+                }
+            },
+        ),
+    };
     public(
         "kinetic_energy",
         "T = 1/2 q'^T B q', with B from the inertia function.",
@@ -1032,7 +1086,11 @@ pub fn emit(
     funcs.splice(0..0, constant_funcs);
     // Forward dynamics: B, C, G, K, D, A, the packed factor m and f, then the scratch of
     // terms and actuation (called one after the other, so they share it).
-    let fd = ForwardLayout::new(n, k, terms_work.max(actuation_work));
+    let fd = ForwardLayout::new(
+        n,
+        k,
+        terms_actuation_work.unwrap_or(terms_work.max(actuation_work)),
+    );
     work.push(("pose".into(), pose_work));
     work.push(("forward_dynamics".into(), fd.len));
     let gravity_work = work_of(&work, "gravity");
@@ -1174,6 +1232,7 @@ pub fn emit(
     ctx.insert("functions", &funcs);
     ctx.insert("shares", &plan.shares.is_some());
     ctx.insert("gravity_actuation", &plan.gravity_with_actuation);
+    ctx.insert("terms_actuation", &plan.terms_actuation.is_some());
     ctx.insert(
         "matrix_tables",
         &matrix_table_context(plan, precision, &|v| wrap_list(v, 4)),

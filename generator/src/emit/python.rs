@@ -475,21 +475,66 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         init: "    b = np.zeros((NQ, NQ))\n    c = np.zeros((NQ, NQ))\n    g = np.zeros(NQ)\n",
         ret: "    return b, c, g\n",
     };
-    funcs.push(function(
-        plan,
-        &plan.terms,
-        &tspec,
-        None,
-        &move |i: usize| {
-            if i < nn2 {
-                format!("b[{}, {}]", i / n, i % n)
-            } else if i < 2 * nn2 {
-                format!("c[{}, {}]", (i - nn2) / n, (i - nn2) % n)
-            } else {
-                format!("g[{}]", i - 2 * nn2)
-            }
-        },
-    ));
+    match &plan.terms_actuation {
+        // With an end force, terms() is the schedule with A, keeping B, C and G.
+        Some(f) => funcs.push(PyFunc {
+            rows: String::new(),
+            formula: format!(
+                "{} Computed with A(q), whose end forces lie inside their sums.",
+                tspec.formula
+            ),
+            ops: super::plan::ops_sentence(f.ops, f.ops_beyond),
+            signature: signature(plan, "terms", &["q", "qd"], true),
+            body: format!(
+                "    q = _vector(q, NQ, \"q\")\n    qd = _vector(qd, NQ, \"qd\")\n    P = _params({})\n\
+                 \x20   b, c, g, _ = _terms_actuation(q, qd, P)\n    return b, c, g\n",
+                param_names(plan)
+            ),
+        }),
+        None => funcs.push(function(
+            plan,
+            &plan.terms,
+            &tspec,
+            None,
+            &move |i: usize| {
+                if i < nn2 {
+                    format!("b[{}, {}]", i / n, i % n)
+                } else if i < 2 * nn2 {
+                    format!("c[{}, {}]", (i - nn2) / n, (i - nn2) % n)
+                } else {
+                    format!("g[{}]", i - 2 * nn2)
+                }
+            },
+        )),
+    }
+    if let Some(f) = &plan.terms_actuation {
+        let mut all = function(
+            plan,
+            f,
+            &Spec {
+                fname: "_terms_actuation",
+                formula: "(B(q), C(q, q'), G(q), A(q)) in one call: A's end forces lie inside the sums of terms(), so they come at no cost. What forward_dynamics() needs, at the parameters P (as _params returns them).",
+                params: &[],
+                init: "    b = np.zeros((NQ, NQ))\n    c = np.zeros((NQ, NQ))\n    g = np.zeros(NQ)\n    a = np.zeros((NQ, NU))\n",
+                ret: "    return b, c, g, a\n",
+            },
+            None,
+            &move |i: usize| {
+                if i < nn2 {
+                    format!("b[{}, {}]", i / n, i % n)
+                } else if i < 2 * nn2 {
+                    format!("c[{}, {}]", (i - nn2) / n, (i - nn2) % n)
+                } else if i < 2 * nn2 + n {
+                    format!("g[{}]", i - 2 * nn2)
+                } else {
+                    let at = i - 2 * nn2 - n;
+                    format!("a[{}, {}]", at / k, at % k)
+                }
+            },
+        );
+        all.signature = "_terms_actuation(q, qd, P)".into();
+        funcs.push(all);
+    }
     let mut pose_names = Vec::new();
     for (j, f) in plan.pose.iter().enumerate() {
         let fname = format!("_pose_segment{j}");
@@ -517,6 +562,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         &super::constants::non_finite_policy("raises DynamicsError", ""),
     );
     ctx.insert("gravity_actuation", &plan.gravity_with_actuation);
+    ctx.insert("terms_actuation", &plan.terms_actuation.is_some());
     ctx.insert("odd_inv", &format!("\n{},\n", wrap_list(&mc.odd_inv, 4)));
     ctx.insert("pair_inv", &format!("\n{},\n", wrap_list(&mc.pair_inv, 4)));
     ctx.insert("series", &format!("\n    {},\n", series.join(",\n    ")));

@@ -423,6 +423,48 @@ pub fn emit(
     let mut work_len = 0usize;
     // One public function in three: `F_in` does the work in a scratch slice, `F` lends
     // it scratch on the stack, `F_ws` the caller's [`Workspace`].
+    // With an end force, B, C, G and A in one schedule for forward dynamics.
+    let terms_actuation_work = plan.terms_actuation.as_ref().map(|f| {
+        let nn2 = n * n;
+        let nn = mat("NQ", "NQ");
+        let (rows, body, len) = body(
+            tc,
+            f,
+            "terms_actuation",
+            None,
+            "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n\
+             let mut a = [[0.0; NU]; NQ];\n",
+            &move |i: usize| {
+                if i < nn2 {
+                    format!("b[{}][{}]", i / n, i % n)
+                } else if i < 2 * nn2 {
+                    format!("c[{}][{}]", (i - nn2) / n, (i - nn2) % n)
+                } else if i < 2 * nn2 + n {
+                    format!("g[{}]", i - 2 * nn2)
+                } else {
+                    let at = i - 2 * nn2 - n;
+                    format!("a[{}][{}]", at / k, at % k)
+                }
+            },
+            "(b, c, g, a)\n",
+        );
+        funcs.push(RFunc {
+            rows,
+            formula: format!(
+                "`B(q)`, `C(q, q̇)`, `G(q)` and `A(q)` in one call: `A`'s end forces lie inside \
+                 the sums of [`terms`], so they come at no cost. What forward dynamics needs, \
+                 in `work` (at least {len} reals)."
+            ),
+            ops: ops_line(f),
+            signature: format!(
+                "fn terms_actuation_in(p: &Params, q: &[Real; NQ], qd: &[Real; NQ], work: &mut \
+                 [Real]) -> ({nn}, {nn}, [Real; NQ], {})",
+                mat("NQ", "NU")
+            ),
+            body,
+        });
+        len
+    });
     let mut public = |fname: &str,
                       formula: &str,
                       ops: String,
@@ -594,24 +636,27 @@ pub fn emit(
     );
     let nn2 = n * n;
     let terms_ret = format!("({nn}, {nn}, [Real; NQ])");
-    let terms_work = generated(
-        "terms",
-        "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.",
-        &plan.terms,
-        &[q_of(&plan.terms), qd_of(&plan.terms)],
-        &terms_ret,
-        "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n",
-        &move |i: usize| {
-            if i < nn2 {
-                format!("b[{}][{}]", i / n, i % n)
-            } else if i < 2 * nn2 {
-                format!("c[{}][{}]", (i - nn2) / n, (i - nn2) % n)
-            } else {
-                format!("g[{}]", i - 2 * nn2)
-            }
-        },
-        "(b, c, g)\n",
-    );
+    // With an end force, `terms` is the schedule with A, keeping B, C and G (below).
+    let terms_work = plan.terms_actuation.is_none().then(|| {
+        generated(
+                "terms",
+                "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once.",
+                &plan.terms,
+                &[q_of(&plan.terms), qd_of(&plan.terms)],
+                &terms_ret,
+                "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n",
+                &move |i: usize| {
+                    if i < nn2 {
+                        format!("b[{}][{}]", i / n, i % n)
+                    } else if i < 2 * nn2 {
+                        format!("c[{}][{}]", (i - nn2) / n, (i - nn2) % n)
+                    } else {
+                        format!("g[{}]", i - 2 * nn2)
+                    }
+                },
+                "(b, c, g)\n",
+            )
+    });
     if let Some(f) = &plan.regressor {
         let ny = plan.params.linear_len();
         generated(
@@ -629,6 +674,23 @@ pub fn emit(
             "out\n",
         );
     }
+    let terms_work = match terms_actuation_work.zip(plan.terms_actuation.as_ref()) {
+        Some((len, f)) => {
+            public(
+                "terms",
+                "`B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Computed with `A(q)`, whose end forces lie inside their sums.",
+                ops_line(f),
+                &[q_of(f), qd_of(f)],
+                &terms_ret,
+                String::new(),
+                "let (b, c, g, _) = terms_actuation_in(p, q, qd, work);\n(b, c, g)\n".into(),
+                len,
+            );
+            len
+        }
+        // Generated above.
+        None => terms_work.unwrap_or(0),
+    };
     let both = [("q", "&[Real; NQ]", true), ("qd", "&[Real; NQ]", true)];
     public(
         "gravity_jacobian",
@@ -780,7 +842,7 @@ pub fn emit(
         .max(gravity_jacobian_work)
         .max(da_work)
         .max(1);
-    let dynamics_work = terms_work.max(actuation_work);
+    let dynamics_work = terms_actuation_work.unwrap_or(terms_work.max(actuation_work));
     work_len = work_len
         .max(pose_work)
         .max(dynamics_work)
@@ -833,6 +895,7 @@ pub fn emit(
     ctx.insert("pose_names", &pose_names);
     ctx.insert("pose_work", &pose_work);
     ctx.insert("dynamics_work", &dynamics_work);
+    ctx.insert("terms_actuation", &plan.terms_actuation.is_some());
     ctx.insert("work_len", &work_len);
     ctx.insert(
         "dynamics_ops",

@@ -156,12 +156,12 @@ pub fn check_range(q: &[Real; NQ]) -> Result<(), DynamicsError> {
 /// working precision. The demo arms' smallest ratio over 2000 random states is 5e-5.
 pub const PIVOT_FLOOR: Real = 1.4e-14;
 /// Scratch for the `_ws` functions: the moment, kernel and temporary arrays that the
-/// plain functions keep on the stack (2321 reals, 18568 bytes at most). Own one per
+/// plain functions keep on the stack (2337 reals, 18696 bytes at most). Own one per
 /// thread of execution (a task's state, a `static` behind your RTOS's lock) where the
 /// stack is small; the values are the same either way.
 pub struct Workspace([Real; WORK_LEN]);
 /// Length of a [`Workspace`] in reals.
-pub const WORK_LEN: usize = 2321;
+pub const WORK_LEN: usize = 2337;
 impl Workspace {
     pub const fn new() -> Workspace {
         Workspace([0.0; WORK_LEN])
@@ -5120,7 +5120,7 @@ static SHARES_PAIRS2: [u16; 208] = [
     207, 227, 131, 231, 175, 235, 197, 237, 219, 239, 142, 232, 186, 236, 230, 240, 153,
     233,
 ];
-/// What [`terms`] and [`regressor`] have in common: the 302 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 2019 reals).
+/// What [`terms`] and [`regressor`] have in common: the 318 values `s` that the rest of each reads, at the runtime parameters `p`, in `work` (at least 2019 reals).
 ///
 /// Operations: 8453 add, 11174 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10133 add, 13106 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn shares_in(
@@ -5235,7 +5235,7 @@ fn shares_in(
         kernel_recurrence(11, a, split, &TAIL_MOMENTS5, hk);
         kernel_entries::<256>(&SHARES_PAIRS2, 55, hk, &mut kern[566..670]);
     }
-    let s = &mut s[..302];
+    let s = &mut s[..318];
     t[0] = q[1] * q[1];
     t[1] = q[1] * q[2];
     t[2] = q[2] * q[2];
@@ -7964,152 +7964,168 @@ fn shares_in(
     s[174] = t[604] * t[210] + t[605] * t[270] - 0.000864 * t[484] + 0.000864 * t[490];
     s[175] = t[604] * t[181] + t[605] * t[344] - 0.000576 * t[484] + 0.000576 * t[490];
     s[176] = 0.0192 * t[280] + 0.0192 * t[532];
-    s[177] = t[469] * t[469] + t[574] * t[574];
-    s[178] = t[469] * t[575] + t[574] * t[576];
-    s[179] = t[469] * t[577] + t[574] * t[579];
-    s[180] = t[469] * t[583] + t[574] * t[601];
-    s[181] = t[469] * t[602] + t[574] * t[603];
-    s[182] = t[469] * t[624] + t[574] * t[625];
-    s[183] = t[469] * t[628] + t[574] * t[626];
-    s[184] = t[469] * t[640] + t[574] * t[633];
-    s[185] = t[575] * t[575] + t[576] * t[576];
-    s[186] = t[575] * t[577] + t[576] * t[579];
-    s[187] = t[575] * t[583] + t[576] * t[601];
-    s[188] = t[575] * t[602] + t[576] * t[603];
-    s[189] = t[575] * t[624] + t[576] * t[625];
-    s[190] = t[575] * t[628] + t[576] * t[626];
-    s[191] = t[575] * t[640] + t[576] * t[633];
-    s[192] = t[577] * t[577] + t[579] * t[579];
-    s[193] = t[577] * t[583] + t[579] * t[601];
-    s[194] = t[577] * t[602] + t[579] * t[603];
-    s[195] = t[577] * t[624] + t[579] * t[625];
-    s[196] = t[577] * t[628] + t[579] * t[626];
-    s[197] = t[577] * t[640] + t[579] * t[633];
-    s[198] = t[583] * t[583] + t[601] * t[601];
-    s[199] = t[583] * t[602] + t[601] * t[603];
-    s[200] = t[583] * t[624] + t[601] * t[625];
-    s[201] = t[583] * t[628] + t[601] * t[626];
-    s[202] = t[583] * t[640] + t[601] * t[633];
-    s[203] = t[602] * t[602] + t[603] * t[603];
-    s[204] = t[602] * t[624] + t[603] * t[625];
-    s[205] = t[602] * t[628] + t[603] * t[626];
-    s[206] = t[602] * t[640] + t[603] * t[633];
-    s[207] = t[624] * t[624] + t[625] * t[625];
-    s[208] = t[624] * t[628] + t[625] * t[626];
-    s[209] = t[624] * t[640] + t[625] * t[633];
-    s[210] = t[628] * t[628] + t[626] * t[626];
-    s[211] = t[628] * t[640] + t[626] * t[633];
-    s[212] = t[640] * t[640] + t[633] * t[633];
-    s[213] = t[469] * t[650] + t[574] * t[607];
-    s[214] = t[469] * t[654] + t[574] * t[615];
-    s[215] = t[469] * t[616] + t[574] * t[4];
-    s[216] = t[469] * t[618] + t[574] * t[183];
-    s[217] = t[469] * t[212] + t[574] * t[7];
-    s[218] = t[469] * t[215] + t[574] * t[11];
-    s[219] = t[469] * t[186] + t[574] * t[9];
-    s[220] = t[469] * t[180] + t[574] * t[179];
-    s[221] = t[575] * t[650] + t[576] * t[607];
-    s[222] = t[575] * t[654] + t[576] * t[615];
-    s[223] = t[575] * t[616] + t[576] * t[4];
-    s[224] = t[575] * t[618] + t[576] * t[183];
-    s[225] = t[575] * t[212] + t[576] * t[7];
-    s[226] = t[575] * t[215] + t[576] * t[11];
-    s[227] = t[575] * t[186] + t[576] * t[9];
-    s[228] = t[575] * t[180] + t[576] * t[179];
-    s[229] = t[577] * t[650] + t[579] * t[607];
-    s[230] = t[577] * t[654] + t[579] * t[615];
-    s[231] = t[577] * t[616] + t[579] * t[4];
-    s[232] = t[577] * t[618] + t[579] * t[183];
-    s[233] = t[577] * t[212] + t[579] * t[7];
-    s[234] = t[577] * t[215] + t[579] * t[11];
-    s[235] = t[577] * t[186] + t[579] * t[9];
-    s[236] = t[577] * t[180] + t[579] * t[179];
-    s[237] = t[583] * t[650] + t[601] * t[607];
-    s[238] = t[583] * t[654] + t[601] * t[615];
-    s[239] = t[583] * t[616] + t[601] * t[4];
-    s[240] = t[583] * t[618] + t[601] * t[183];
-    s[241] = t[583] * t[212] + t[601] * t[7];
-    s[242] = t[583] * t[215] + t[601] * t[11];
-    s[243] = t[583] * t[186] + t[601] * t[9];
-    s[244] = t[583] * t[180] + t[601] * t[179];
-    s[245] = t[602] * t[650] + t[603] * t[607];
-    s[246] = t[602] * t[654] + t[603] * t[615];
-    s[247] = t[602] * t[616] + t[603] * t[4];
-    s[248] = t[602] * t[618] + t[603] * t[183];
-    s[249] = t[602] * t[212] + t[603] * t[7];
-    s[250] = t[602] * t[215] + t[603] * t[11];
-    s[251] = t[602] * t[186] + t[603] * t[9];
-    s[252] = t[602] * t[180] + t[603] * t[179];
-    s[253] = t[624] * t[650] + t[625] * t[607];
-    s[254] = t[624] * t[654] + t[625] * t[615];
-    s[255] = t[624] * t[616] + t[625] * t[4];
-    s[256] = t[624] * t[618] + t[625] * t[183];
-    s[257] = t[624] * t[212] + t[625] * t[7];
-    s[258] = t[624] * t[215] + t[625] * t[11];
-    s[259] = t[624] * t[186] + t[625] * t[9];
-    s[260] = t[624] * t[180] + t[625] * t[179];
-    s[261] = t[628] * t[650] + t[626] * t[607];
-    s[262] = t[628] * t[654] + t[626] * t[615];
-    s[263] = t[628] * t[616] + t[626] * t[4];
-    s[264] = t[628] * t[618] + t[626] * t[183];
-    s[265] = t[628] * t[212] + t[626] * t[7];
-    s[266] = t[628] * t[215] + t[626] * t[11];
-    s[267] = t[628] * t[186] + t[626] * t[9];
-    s[268] = t[628] * t[180] + t[626] * t[179];
-    s[269] = t[640] * t[650] + t[633] * t[607];
-    s[270] = t[640] * t[654] + t[633] * t[615];
-    s[271] = t[640] * t[616] + t[633] * t[4];
-    s[272] = t[640] * t[618] + t[633] * t[183];
-    s[273] = t[640] * t[212] + t[633] * t[7];
-    s[274] = t[640] * t[215] + t[633] * t[11];
-    s[275] = t[640] * t[186] + t[633] * t[9];
-    s[276] = t[640] * t[180] + t[633] * t[179];
-    s[277] = t[281] * t[177] + t[26] * t[178];
-    s[278] = p.gravity[0] * (-0.00288 * t[250] - 0.00288 * t[373])
+    s[177] = t[469];
+    s[178] = t[574];
+    s[179] = t[575];
+    s[180] = t[576];
+    s[181] = t[577];
+    s[182] = t[579];
+    s[183] = t[583];
+    s[184] = t[601];
+    s[185] = t[602];
+    s[186] = t[603];
+    s[187] = t[624];
+    s[188] = t[625];
+    s[189] = t[628];
+    s[190] = t[626];
+    s[191] = t[640];
+    s[192] = t[633];
+    s[193] = t[469] * t[469] + t[574] * t[574];
+    s[194] = t[469] * t[575] + t[574] * t[576];
+    s[195] = t[469] * t[577] + t[574] * t[579];
+    s[196] = t[469] * t[583] + t[574] * t[601];
+    s[197] = t[469] * t[602] + t[574] * t[603];
+    s[198] = t[469] * t[624] + t[574] * t[625];
+    s[199] = t[469] * t[628] + t[574] * t[626];
+    s[200] = t[469] * t[640] + t[574] * t[633];
+    s[201] = t[575] * t[575] + t[576] * t[576];
+    s[202] = t[575] * t[577] + t[576] * t[579];
+    s[203] = t[575] * t[583] + t[576] * t[601];
+    s[204] = t[575] * t[602] + t[576] * t[603];
+    s[205] = t[575] * t[624] + t[576] * t[625];
+    s[206] = t[575] * t[628] + t[576] * t[626];
+    s[207] = t[575] * t[640] + t[576] * t[633];
+    s[208] = t[577] * t[577] + t[579] * t[579];
+    s[209] = t[577] * t[583] + t[579] * t[601];
+    s[210] = t[577] * t[602] + t[579] * t[603];
+    s[211] = t[577] * t[624] + t[579] * t[625];
+    s[212] = t[577] * t[628] + t[579] * t[626];
+    s[213] = t[577] * t[640] + t[579] * t[633];
+    s[214] = t[583] * t[583] + t[601] * t[601];
+    s[215] = t[583] * t[602] + t[601] * t[603];
+    s[216] = t[583] * t[624] + t[601] * t[625];
+    s[217] = t[583] * t[628] + t[601] * t[626];
+    s[218] = t[583] * t[640] + t[601] * t[633];
+    s[219] = t[602] * t[602] + t[603] * t[603];
+    s[220] = t[602] * t[624] + t[603] * t[625];
+    s[221] = t[602] * t[628] + t[603] * t[626];
+    s[222] = t[602] * t[640] + t[603] * t[633];
+    s[223] = t[624] * t[624] + t[625] * t[625];
+    s[224] = t[624] * t[628] + t[625] * t[626];
+    s[225] = t[624] * t[640] + t[625] * t[633];
+    s[226] = t[628] * t[628] + t[626] * t[626];
+    s[227] = t[628] * t[640] + t[626] * t[633];
+    s[228] = t[640] * t[640] + t[633] * t[633];
+    s[229] = t[469] * t[650] + t[574] * t[607];
+    s[230] = t[469] * t[654] + t[574] * t[615];
+    s[231] = t[469] * t[616] + t[574] * t[4];
+    s[232] = t[469] * t[618] + t[574] * t[183];
+    s[233] = t[469] * t[212] + t[574] * t[7];
+    s[234] = t[469] * t[215] + t[574] * t[11];
+    s[235] = t[469] * t[186] + t[574] * t[9];
+    s[236] = t[469] * t[180] + t[574] * t[179];
+    s[237] = t[575] * t[650] + t[576] * t[607];
+    s[238] = t[575] * t[654] + t[576] * t[615];
+    s[239] = t[575] * t[616] + t[576] * t[4];
+    s[240] = t[575] * t[618] + t[576] * t[183];
+    s[241] = t[575] * t[212] + t[576] * t[7];
+    s[242] = t[575] * t[215] + t[576] * t[11];
+    s[243] = t[575] * t[186] + t[576] * t[9];
+    s[244] = t[575] * t[180] + t[576] * t[179];
+    s[245] = t[577] * t[650] + t[579] * t[607];
+    s[246] = t[577] * t[654] + t[579] * t[615];
+    s[247] = t[577] * t[616] + t[579] * t[4];
+    s[248] = t[577] * t[618] + t[579] * t[183];
+    s[249] = t[577] * t[212] + t[579] * t[7];
+    s[250] = t[577] * t[215] + t[579] * t[11];
+    s[251] = t[577] * t[186] + t[579] * t[9];
+    s[252] = t[577] * t[180] + t[579] * t[179];
+    s[253] = t[583] * t[650] + t[601] * t[607];
+    s[254] = t[583] * t[654] + t[601] * t[615];
+    s[255] = t[583] * t[616] + t[601] * t[4];
+    s[256] = t[583] * t[618] + t[601] * t[183];
+    s[257] = t[583] * t[212] + t[601] * t[7];
+    s[258] = t[583] * t[215] + t[601] * t[11];
+    s[259] = t[583] * t[186] + t[601] * t[9];
+    s[260] = t[583] * t[180] + t[601] * t[179];
+    s[261] = t[602] * t[650] + t[603] * t[607];
+    s[262] = t[602] * t[654] + t[603] * t[615];
+    s[263] = t[602] * t[616] + t[603] * t[4];
+    s[264] = t[602] * t[618] + t[603] * t[183];
+    s[265] = t[602] * t[212] + t[603] * t[7];
+    s[266] = t[602] * t[215] + t[603] * t[11];
+    s[267] = t[602] * t[186] + t[603] * t[9];
+    s[268] = t[602] * t[180] + t[603] * t[179];
+    s[269] = t[624] * t[650] + t[625] * t[607];
+    s[270] = t[624] * t[654] + t[625] * t[615];
+    s[271] = t[624] * t[616] + t[625] * t[4];
+    s[272] = t[624] * t[618] + t[625] * t[183];
+    s[273] = t[624] * t[212] + t[625] * t[7];
+    s[274] = t[624] * t[215] + t[625] * t[11];
+    s[275] = t[624] * t[186] + t[625] * t[9];
+    s[276] = t[624] * t[180] + t[625] * t[179];
+    s[277] = t[628] * t[650] + t[626] * t[607];
+    s[278] = t[628] * t[654] + t[626] * t[615];
+    s[279] = t[628] * t[616] + t[626] * t[4];
+    s[280] = t[628] * t[618] + t[626] * t[183];
+    s[281] = t[628] * t[212] + t[626] * t[7];
+    s[282] = t[628] * t[215] + t[626] * t[11];
+    s[283] = t[628] * t[186] + t[626] * t[9];
+    s[284] = t[628] * t[180] + t[626] * t[179];
+    s[285] = t[640] * t[650] + t[633] * t[607];
+    s[286] = t[640] * t[654] + t[633] * t[615];
+    s[287] = t[640] * t[616] + t[633] * t[4];
+    s[288] = t[640] * t[618] + t[633] * t[183];
+    s[289] = t[640] * t[212] + t[633] * t[7];
+    s[290] = t[640] * t[215] + t[633] * t[11];
+    s[291] = t[640] * t[186] + t[633] * t[9];
+    s[292] = t[640] * t[180] + t[633] * t[179];
+    s[293] = t[281] * t[177] + t[26] * t[178];
+    s[294] = p.gravity[0] * (-0.00288 * t[250] - 0.00288 * t[373])
         + p.gravity[1] * (0.00288 * t[367] - 0.00288 * t[368])
         + 0.0252 * (p.gravity[0] * t[193] + p.gravity[1] * t[197]);
-    s[279] = p.gravity[0] * (-0.00192 * t[472] - 0.00192 * t[582])
+    s[295] = p.gravity[0] * (-0.00192 * t[472] - 0.00192 * t[582])
         + p.gravity[1] * (0.00192 * t[580] - 0.00192 * t[581])
         + 0.016 * (p.gravity[0] * t[358] + p.gravity[1] * t[376]);
-    s[280] = p.gravity[0] * t[469] + p.gravity[1] * t[574];
-    s[281] = t[177] * t[30] + t[178] * t[51];
-    s[282] = p.gravity[0] * (-0.00144 * t[250] - 0.00144 * t[373])
+    s[296] = p.gravity[0] * t[469] + p.gravity[1] * t[574];
+    s[297] = t[177] * t[30] + t[178] * t[51];
+    s[298] = p.gravity[0] * (-0.00144 * t[250] - 0.00144 * t[373])
         + p.gravity[1] * (0.00144 * t[367] - 0.00144 * t[368])
         + 0.0252 * (p.gravity[0] * t[234] + p.gravity[1] * t[300]);
-    s[283] = p.gravity[0] * (-0.00096 * t[472] - 0.00096 * t[582])
+    s[299] = p.gravity[0] * (-0.00096 * t[472] - 0.00096 * t[582])
         + p.gravity[1] * (0.00096 * t[580] - 0.00096 * t[581])
         + 0.016 * (p.gravity[0] * t[405] + p.gravity[1] * t[406]);
-    s[284] = p.gravity[0] * t[575] + p.gravity[1] * t[576];
-    s[285] = t[177] * t[6] + t[178] * t[55];
-    s[286] = p.gravity[0] * (-0.00096 * t[250] - 0.00096 * t[373])
+    s[300] = p.gravity[0] * t[575] + p.gravity[1] * t[576];
+    s[301] = t[177] * t[6] + t[178] * t[55];
+    s[302] = p.gravity[0] * (-0.00096 * t[250] - 0.00096 * t[373])
         + p.gravity[1] * (0.00096 * t[367] - 0.00096 * t[368])
         + 0.0252 * (p.gravity[0] * t[333] + p.gravity[1] * t[363]);
-    s[287] = p.gravity[0] * (-0.00064 * t[472] - 0.00064 * t[582])
+    s[303] = p.gravity[0] * (-0.00064 * t[472] - 0.00064 * t[582])
         + p.gravity[1] * (0.00064 * t[580] - 0.00064 * t[581])
         + 0.016 * (p.gravity[0] * t[445] + p.gravity[1] * t[453]);
-    s[288] = p.gravity[0] * t[577] + p.gravity[1] * t[579];
-    s[289] = p.gravity[0] * t[441] + p.gravity[1] * t[444];
-    s[290] = p.gravity[0] * (-0.001728 * t[472] - 0.001728 * t[582])
+    s[304] = p.gravity[0] * t[577] + p.gravity[1] * t[579];
+    s[305] = p.gravity[0] * t[441] + p.gravity[1] * t[444];
+    s[306] = p.gravity[0] * (-0.001728 * t[472] - 0.001728 * t[582])
         + p.gravity[1] * (0.001728 * t[580] - 0.001728 * t[581])
         + 0.016 * (p.gravity[0] * t[263] + p.gravity[1] * t[268]);
-    s[291] = p.gravity[0] * t[583] + p.gravity[1] * t[601];
-    s[292] = p.gravity[0] * (0.0288 * cphi[0] * t[182] - 0.0288 * sphi[0] * t[185])
+    s[307] = p.gravity[0] * t[583] + p.gravity[1] * t[601];
+    s[308] = p.gravity[0] * (0.0288 * cphi[0] * t[182] - 0.0288 * sphi[0] * t[185])
         + p.gravity[1] * (0.0288 * cphi[0] * t[185] + 0.0288 * sphi[0] * t[182]);
-    s[293] = p.gravity[0] * (-0.000864 * t[472] - 0.000864 * t[582])
+    s[309] = p.gravity[0] * (-0.000864 * t[472] - 0.000864 * t[582])
         + p.gravity[1] * (0.000864 * t[580] - 0.000864 * t[581])
         + 0.016 * (p.gravity[0] * t[555] + p.gravity[1] * t[496]);
-    s[294] = p.gravity[0] * t[602] + p.gravity[1] * t[603];
-    s[295] = p.gravity[0] * (0.0288 * cphi[0] * t[187] - 0.0288 * sphi[0] * t[188])
+    s[310] = p.gravity[0] * t[602] + p.gravity[1] * t[603];
+    s[311] = p.gravity[0] * (0.0288 * cphi[0] * t[187] - 0.0288 * sphi[0] * t[188])
         + p.gravity[1] * (0.0288 * cphi[0] * t[188] + 0.0288 * sphi[0] * t[187]);
-    s[296] = p.gravity[0] * (-0.000576 * t[472] - 0.000576 * t[582])
+    s[312] = p.gravity[0] * (-0.000576 * t[472] - 0.000576 * t[582])
         + p.gravity[1] * (0.000576 * t[580] - 0.000576 * t[581])
         + 0.016 * (p.gravity[0] * t[578] + p.gravity[1] * t[567]);
-    s[297] = p.gravity[0] * t[624] + p.gravity[1] * t[625];
-    s[298] = p.gravity[0] * t[599] + p.gravity[1] * t[600];
-    s[299] = p.gravity[0] * t[628] + p.gravity[1] * t[626];
-    s[300] = p.gravity[0] * (0.0192 * cphi[1] * t[189] - 0.0192 * sphi[1] * t[190])
+    s[313] = p.gravity[0] * t[624] + p.gravity[1] * t[625];
+    s[314] = p.gravity[0] * t[599] + p.gravity[1] * t[600];
+    s[315] = p.gravity[0] * t[628] + p.gravity[1] * t[626];
+    s[316] = p.gravity[0] * (0.0192 * cphi[1] * t[189] - 0.0192 * sphi[1] * t[190])
         + p.gravity[1] * (0.0192 * cphi[1] * t[190] + 0.0192 * sphi[1] * t[189]);
-    s[301] = p.gravity[0] * t[640] + p.gravity[1] * t[633];
+    s[317] = p.gravity[0] * t[640] + p.gravity[1] * t[633];
 }
 /// Dot-product kernels of `gravity_linearised`: pairs (row, moment base).
 static GRAVITY_LINEARISED_ROWS: [u16; 32] = [
@@ -9817,6 +9833,323 @@ fn gravity_actuation_in(
     a[7][1] = t[84];
     a[7][2] = 0.0;
     (g, a)
+}
+/// `B(q)`, `C(q, q̇)`, `G(q)` and `A(q)` in one call: `A`'s end forces lie inside the sums of [`terms`], so they come at no cost. What forward dynamics needs, in `work` (at least 2337 reals).
+///
+/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+fn terms_actuation_in(
+    p: &Params,
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ], [[Real; NU]; NQ]) {
+    let (s, work) = work.split_at_mut(318);
+    shares_in(p, q, qd, s, work);
+    let t = &mut work[..31];
+    let mut b = [[0.0; NQ]; NQ];
+    let mut c = [[0.0; NQ]; NQ];
+    let mut g = [0.0; NQ];
+    let mut a = [[0.0; NU]; NQ];
+    t[0] = 0.04 * p.density_scale[0];
+    t[1] = 0.0288 * p.density_scale[1];
+    t[2] = 2.025e-10 * p.rotary_inertia_scale[1];
+    t[3] = 1.0125e-10 * p.rotary_inertia_scale[1];
+    t[4] = 0.0192 * p.density_scale[2];
+    t[5] = 3.6e-10 * p.rotary_inertia_scale[2];
+    t[6] = 2.4e-10 * p.rotary_inertia_scale[2];
+    t[7] = 1.0666666666666666e-10 * p.rotary_inertia_scale[2];
+    t[8] = 1.2e-10 * p.rotary_inertia_scale[2];
+    t[9] = 9.6e-11 * p.rotary_inertia_scale[2];
+    t[10] = 0.0045 * p.payload_rotary_inertia;
+    t[11] = 0.003 * p.payload_rotary_inertia;
+    t[12] = 0.004 * p.payload_rotary_inertia;
+    t[13] = 0.0015 * p.payload_rotary_inertia;
+    t[14] = 0.0036 * p.payload_rotary_inertia;
+    t[15] = s[1] * t[0] + 2.5e-10 * p.rotary_inertia_scale[0]
+        + p.density_scale[1] * s[25] + 6.75e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[81] + 4e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[194] + 0.005 * p.payload_rotary_inertia;
+    t[16] = s[2] * t[0] + 1.3333333333333334e-10 * p.rotary_inertia_scale[0]
+        + p.density_scale[1] * s[26] + 4.5e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[82] + 2.666666666666667e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[195] + 0.0033333333333333335 * p.payload_rotary_inertia;
+    t[17] = p.density_scale[1] * s[27] + 6.075e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[83] + 7.2e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[196] + 0.009 * p.payload_rotary_inertia;
+    t[18] = p.density_scale[1] * s[28] + t[2] + p.density_scale[2] * s[84] + t[5]
+        + p.payload_mass * s[197] + t[10];
+    t[19] = p.density_scale[1] * s[29] + t[3] + p.density_scale[2] * s[85] + t[6]
+        + p.payload_mass * s[198] + t[11];
+    t[20] = p.density_scale[2] * s[86] + 3.2e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[199] + 0.008 * p.payload_rotary_inertia;
+    t[21] = p.density_scale[2] * s[87] + t[7] + p.payload_mass * s[200] + t[12];
+    t[22] = s[4] * t[0] + 5.5555555555555553e-11 * p.rotary_inertia_scale[0]
+        + p.density_scale[1] * s[31] + 2.25e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[89] + 1.3333333333333334e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[202] + 0.0016666666666666668 * p.payload_rotary_inertia;
+    t[23] = p.density_scale[1] * s[32] + 3.0375e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[90] + t[5] + t[10] + p.payload_mass * s[203];
+    t[5] = p.density_scale[1] * s[33] + t[3] + p.density_scale[2] * s[91]
+        + 1.8e-10 * p.rotary_inertia_scale[2] + p.payload_mass * s[204]
+        + 0.00225 * p.payload_rotary_inertia;
+    t[3] = p.density_scale[1] * s[34] + 5.0625e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[92] + t[8] + p.payload_mass * s[205] + t[13];
+    t[10] = p.density_scale[2] * s[93] + 1.6e-10 * p.rotary_inertia_scale[2] + t[12]
+        + p.payload_mass * s[206];
+    t[12] = p.density_scale[2] * s[94]
+        + 5.333333333333333e-11 * p.rotary_inertia_scale[2] + p.payload_mass * s[207]
+        + 0.002 * p.payload_rotary_inertia;
+    t[24] = p.density_scale[1] * s[36] + t[2] + p.density_scale[2] * s[96] + t[6] + t[11]
+        + p.payload_mass * s[209];
+    t[2] = p.density_scale[1] * s[37] + 6.75e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[97] + t[8] + t[13] + p.payload_mass * s[210];
+    t[6] = p.density_scale[1] * s[38] + 3.375e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[98] + 8e-11 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[211] + 0.001 * p.payload_rotary_inertia;
+    t[8] = p.density_scale[2] * s[99] + t[7] + p.payload_mass * s[212]
+        + 0.0026666666666666666 * p.payload_rotary_inertia;
+    t[7] = p.density_scale[2] * s[100]
+        + 3.555555555555556e-11 * p.rotary_inertia_scale[2] + p.payload_mass * s[213]
+        + 0.0013333333333333333 * p.payload_rotary_inertia;
+    t[11] = s[16] * t[1] + 1.366875e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[102] + 3.24e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[215] + 0.00405 * p.payload_rotary_inertia;
+    t[13] = s[17] * t[1] + 7.29e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[103] + 2.16e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[216] + 0.0027 * p.payload_rotary_inertia;
+    t[25] = p.density_scale[2] * s[104] + 2.88e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[217] + 0.0072 * p.payload_rotary_inertia;
+    t[26] = p.density_scale[2] * s[105] + t[9] + p.payload_mass * s[218] + t[14];
+    t[27] = s[19] * t[1] + 3.0375e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[107] + 1.08e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[220] + 0.00135 * p.payload_rotary_inertia;
+    t[28] = p.density_scale[2] * s[108] + 1.44e-10 * p.rotary_inertia_scale[2] + t[14]
+        + p.payload_mass * s[221];
+    t[14] = p.density_scale[2] * s[109] + 4.8e-11 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[222] + 0.0018 * p.payload_rotary_inertia;
+    t[29] = p.density_scale[2] * s[111] + t[9] + p.payload_mass * s[224]
+        + 0.0024 * p.payload_rotary_inertia;
+    t[9] = p.density_scale[2] * s[112] + 3.2e-11 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[225] + 0.0012 * p.payload_rotary_inertia;
+    t[30] = s[76] * t[4] + 6.4e-11 * p.rotary_inertia_scale[2] + p.payload_mass * s[227]
+        + 0.0032 * p.payload_rotary_inertia;
+    b[0][0] = s[0] * t[0] + 6.666666666666666e-10 * p.rotary_inertia_scale[0]
+        + p.density_scale[1] * s[24] + 1.35e-9 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[80] + 8e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[193] + 0.01 * p.payload_rotary_inertia;
+    b[0][1] = t[15];
+    b[0][2] = t[16];
+    b[0][3] = t[17];
+    b[0][4] = t[18];
+    b[0][5] = t[19];
+    b[0][6] = t[20];
+    b[0][7] = t[21];
+    b[1][0] = t[15];
+    b[1][1] = s[3] * t[0] + 1e-10 * p.rotary_inertia_scale[0]
+        + p.density_scale[1] * s[30] + 3.375e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[88] + 2e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[201] + 0.0025 * p.payload_rotary_inertia;
+    b[1][2] = t[22];
+    b[1][3] = t[23];
+    b[1][4] = t[5];
+    b[1][5] = t[3];
+    b[1][6] = t[10];
+    b[1][7] = t[12];
+    b[2][0] = t[16];
+    b[2][1] = t[22];
+    b[2][2] = s[5] * t[0] + 3.174603174603175e-11 * p.rotary_inertia_scale[0]
+        + p.density_scale[1] * s[35] + 1.5e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[95] + 8.888888888888889e-11 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[208] + 0.0011111111111111111 * p.payload_rotary_inertia;
+    b[2][3] = t[24];
+    b[2][4] = t[2];
+    b[2][5] = t[6];
+    b[2][6] = t[8];
+    b[2][7] = t[7];
+    b[3][0] = t[17];
+    b[3][1] = t[23];
+    b[3][2] = t[24];
+    b[3][3] = s[15] * t[1] + 3.645e-10 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[101] + 6.48e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[214] + 0.0081 * p.payload_rotary_inertia;
+    b[3][4] = t[11];
+    b[3][5] = t[13];
+    b[3][6] = t[25];
+    b[3][7] = t[26];
+    b[4][0] = t[18];
+    b[4][1] = t[5];
+    b[4][2] = t[2];
+    b[4][3] = t[11];
+    b[4][4] = s[18] * t[1] + 5.4675e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[106] + 1.62e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[219] + 0.002025 * p.payload_rotary_inertia;
+    b[4][5] = t[27];
+    b[4][6] = t[28];
+    b[4][7] = t[14];
+    b[5][0] = t[19];
+    b[5][1] = t[3];
+    b[5][2] = t[6];
+    b[5][3] = t[13];
+    b[5][4] = t[27];
+    b[5][5] = s[20] * t[1] + 1.735714285714286e-11 * p.rotary_inertia_scale[1]
+        + p.density_scale[2] * s[110] + 7.2e-11 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[223] + 0.0009 * p.payload_rotary_inertia;
+    b[5][6] = t[29];
+    b[5][7] = t[9];
+    b[6][0] = t[20];
+    b[6][1] = t[10];
+    b[6][2] = t[8];
+    b[6][3] = t[25];
+    b[6][4] = t[28];
+    b[6][5] = t[29];
+    b[6][6] = s[75] * t[4] + 1.7066666666666667e-10 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[226] + 0.0064 * p.payload_rotary_inertia;
+    b[6][7] = t[30];
+    b[7][0] = t[21];
+    b[7][1] = t[12];
+    b[7][2] = t[7];
+    b[7][3] = t[26];
+    b[7][4] = t[14];
+    b[7][5] = t[9];
+    b[7][6] = t[30];
+    b[7][7] = s[77] * t[4] + 2.56e-11 * p.rotary_inertia_scale[2]
+        + p.payload_mass * s[228] + 0.0016 * p.payload_rotary_inertia;
+    c[0][0] = s[6] * t[0] + p.density_scale[1] * s[42] + p.density_scale[2] * s[115]
+        + p.payload_mass * s[229];
+    c[0][1] = s[7] * t[0] + p.density_scale[1] * s[43] + p.density_scale[2] * s[116]
+        + p.payload_mass * s[230];
+    c[0][2] = s[8] * t[0] + p.density_scale[1] * s[44] + p.density_scale[2] * s[117]
+        + p.payload_mass * s[231];
+    c[0][3] = p.density_scale[1] * s[45] + p.density_scale[2] * s[118]
+        + p.payload_mass * s[232];
+    c[0][4] = p.density_scale[1] * s[46] + p.density_scale[2] * s[119]
+        + p.payload_mass * s[233];
+    c[0][5] = p.density_scale[1] * s[47] + p.density_scale[2] * s[120]
+        + p.payload_mass * s[234];
+    c[0][6] = p.density_scale[2] * s[121] + p.payload_mass * s[235];
+    c[0][7] = p.density_scale[2] * s[122] + p.payload_mass * s[236];
+    c[1][0] = s[9] * t[0] + p.density_scale[1] * s[48] + p.density_scale[2] * s[123]
+        + p.payload_mass * s[237];
+    c[1][1] = s[10] * t[0] + p.density_scale[1] * s[49] + p.density_scale[2] * s[124]
+        + p.payload_mass * s[238];
+    c[1][2] = s[11] * t[0] + p.density_scale[1] * s[50] + p.density_scale[2] * s[125]
+        + p.payload_mass * s[239];
+    c[1][3] = p.density_scale[1] * s[51] + p.density_scale[2] * s[126]
+        + p.payload_mass * s[240];
+    c[1][4] = p.density_scale[1] * s[52] + p.density_scale[2] * s[127]
+        + p.payload_mass * s[241];
+    c[1][5] = p.density_scale[1] * s[53] + p.density_scale[2] * s[128]
+        + p.payload_mass * s[242];
+    c[1][6] = p.density_scale[2] * s[129] + p.payload_mass * s[243];
+    c[1][7] = p.density_scale[2] * s[130] + p.payload_mass * s[244];
+    c[2][0] = s[12] * t[0] + p.density_scale[1] * s[54] + p.density_scale[2] * s[131]
+        + p.payload_mass * s[245];
+    c[2][1] = s[13] * t[0] + p.density_scale[1] * s[55] + p.density_scale[2] * s[132]
+        + p.payload_mass * s[246];
+    c[2][2] = s[14] * t[0] + p.density_scale[1] * s[56] + p.density_scale[2] * s[133]
+        + p.payload_mass * s[247];
+    c[2][3] = p.density_scale[1] * s[57] + p.density_scale[2] * s[134]
+        + p.payload_mass * s[248];
+    c[2][4] = p.density_scale[1] * s[58] + p.density_scale[2] * s[135]
+        + p.payload_mass * s[249];
+    c[2][5] = p.density_scale[1] * s[59] + p.density_scale[2] * s[136]
+        + p.payload_mass * s[250];
+    c[2][6] = p.density_scale[2] * s[137] + p.payload_mass * s[251];
+    c[2][7] = p.density_scale[2] * s[138] + p.payload_mass * s[252];
+    c[3][0] = p.density_scale[1] * s[60] + p.density_scale[2] * s[139]
+        + p.payload_mass * s[253];
+    c[3][1] = p.density_scale[1] * s[61] + p.density_scale[2] * s[140]
+        + p.payload_mass * s[254];
+    c[3][2] = p.density_scale[1] * s[62] + p.density_scale[2] * s[141]
+        + p.payload_mass * s[255];
+    c[3][3] = s[21] * t[1] + p.density_scale[2] * s[142] + p.payload_mass * s[256];
+    c[3][4] = p.density_scale[1] * s[63] + p.density_scale[2] * s[143]
+        + p.payload_mass * s[257];
+    c[3][5] = p.density_scale[1] * s[64] + p.density_scale[2] * s[144]
+        + p.payload_mass * s[258];
+    c[3][6] = p.density_scale[2] * s[145] + p.payload_mass * s[259];
+    c[3][7] = p.density_scale[2] * s[146] + p.payload_mass * s[260];
+    c[4][0] = p.density_scale[1] * s[65] + p.density_scale[2] * s[147]
+        + p.payload_mass * s[261];
+    c[4][1] = p.density_scale[1] * s[66] + p.density_scale[2] * s[148]
+        + p.payload_mass * s[262];
+    c[4][2] = p.density_scale[1] * s[67] + p.density_scale[2] * s[149]
+        + p.payload_mass * s[263];
+    c[4][3] = p.density_scale[1] * s[68] + p.density_scale[2] * s[150]
+        + p.payload_mass * s[264];
+    c[4][4] = s[22] * t[1] + p.density_scale[2] * s[151] + p.payload_mass * s[265];
+    c[4][5] = p.density_scale[1] * s[69] + p.density_scale[2] * s[152]
+        + p.payload_mass * s[266];
+    c[4][6] = p.density_scale[2] * s[153] + p.payload_mass * s[267];
+    c[4][7] = p.density_scale[2] * s[154] + p.payload_mass * s[268];
+    c[5][0] = p.density_scale[1] * s[70] + p.density_scale[2] * s[155]
+        + p.payload_mass * s[269];
+    c[5][1] = p.density_scale[1] * s[71] + p.density_scale[2] * s[156]
+        + p.payload_mass * s[270];
+    c[5][2] = p.density_scale[1] * s[72] + p.density_scale[2] * s[157]
+        + p.payload_mass * s[271];
+    c[5][3] = p.density_scale[1] * s[73] + p.density_scale[2] * s[158]
+        + p.payload_mass * s[272];
+    c[5][4] = p.density_scale[1] * s[74] + p.density_scale[2] * s[159]
+        + p.payload_mass * s[273];
+    c[5][5] = s[23] * t[1] + p.density_scale[2] * s[160] + p.payload_mass * s[274];
+    c[5][6] = p.density_scale[2] * s[161] + p.payload_mass * s[275];
+    c[5][7] = p.density_scale[2] * s[162] + p.payload_mass * s[276];
+    c[6][0] = p.density_scale[2] * s[163] + p.payload_mass * s[277];
+    c[6][1] = p.density_scale[2] * s[164] + p.payload_mass * s[278];
+    c[6][2] = p.density_scale[2] * s[165] + p.payload_mass * s[279];
+    c[6][3] = p.density_scale[2] * s[166] + p.payload_mass * s[280];
+    c[6][4] = p.density_scale[2] * s[167] + p.payload_mass * s[281];
+    c[6][5] = p.density_scale[2] * s[168] + p.payload_mass * s[282];
+    c[6][6] = s[78] * t[4] + p.payload_mass * s[283];
+    c[6][7] = p.density_scale[2] * s[169] + p.payload_mass * s[284];
+    c[7][0] = p.density_scale[2] * s[170] + p.payload_mass * s[285];
+    c[7][1] = p.density_scale[2] * s[171] + p.payload_mass * s[286];
+    c[7][2] = p.density_scale[2] * s[172] + p.payload_mass * s[287];
+    c[7][3] = p.density_scale[2] * s[173] + p.payload_mass * s[288];
+    c[7][4] = p.density_scale[2] * s[174] + p.payload_mass * s[289];
+    c[7][5] = p.density_scale[2] * s[175] + p.payload_mass * s[290];
+    c[7][6] = p.density_scale[2] * s[176] + p.payload_mass * s[291];
+    c[7][7] = s[79] * t[4] + p.payload_mass * s[292];
+    g[0] = -p.density_scale[0] * s[293] - p.density_scale[1] * s[294]
+        - p.density_scale[2] * s[295] - p.payload_mass * s[296];
+    g[1] = -p.density_scale[0] * s[297] - p.density_scale[1] * s[298]
+        - p.density_scale[2] * s[299] - p.payload_mass * s[300];
+    g[2] = -p.density_scale[0] * s[301] - p.density_scale[1] * s[302]
+        - p.density_scale[2] * s[303] - p.payload_mass * s[304];
+    g[3] = -p.density_scale[1] * s[305] - p.density_scale[2] * s[306]
+        - p.payload_mass * s[307];
+    g[4] = -p.density_scale[1] * s[308] - p.density_scale[2] * s[309]
+        - p.payload_mass * s[310];
+    g[5] = -p.density_scale[1] * s[311] - p.density_scale[2] * s[312]
+        - p.payload_mass * s[313];
+    g[6] = -p.density_scale[2] * s[314] - p.payload_mass * s[315];
+    g[7] = -p.density_scale[2] * s[316] - p.payload_mass * s[317];
+    a[0][0] = s[177];
+    a[0][1] = s[178];
+    a[0][2] = 0.0;
+    a[1][0] = s[179];
+    a[1][1] = s[180];
+    a[1][2] = 0.0;
+    a[2][0] = s[181];
+    a[2][1] = s[182];
+    a[2][2] = 0.0;
+    a[3][0] = s[183];
+    a[3][1] = s[184];
+    a[3][2] = 0.09;
+    a[4][0] = s[185];
+    a[4][1] = s[186];
+    a[4][2] = 0.045;
+    a[5][0] = s[187];
+    a[5][1] = s[188];
+    a[5][2] = 0.03;
+    a[6][0] = s[189];
+    a[6][1] = s[190];
+    a[6][2] = 0.0;
+    a[7][0] = s[191];
+    a[7][1] = s[192];
+    a[7][2] = 0.0;
+    (b, c, g, a)
 }
 /// Dot-product kernels of `inertia`: pairs (row, moment base).
 static INERTIA_ROWS: [u16; 24] = [
@@ -12187,339 +12520,7 @@ pub fn potential_energy_with(p: &Params, q: &[Real; NQ]) -> Real {
 pub fn potential_energy_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> Real {
     potential_energy_in(p, q, &mut ws.0)
 }
-/// The work of [`terms`] and [`terms_ws`], in `work` (at least 2321 reals).
-///
-/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
-fn terms_in(
-    p: &Params,
-    q: &[Real; NQ],
-    qd: &[Real; NQ],
-    work: &mut [Real],
-) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    let (s, work) = work.split_at_mut(302);
-    shares_in(p, q, qd, s, work);
-    let t = &mut work[..31];
-    let mut b = [[0.0; NQ]; NQ];
-    let mut c = [[0.0; NQ]; NQ];
-    let mut g = [0.0; NQ];
-    t[0] = 0.04 * p.density_scale[0];
-    t[1] = 0.0288 * p.density_scale[1];
-    t[2] = 2.025e-10 * p.rotary_inertia_scale[1];
-    t[3] = 1.0125e-10 * p.rotary_inertia_scale[1];
-    t[4] = 0.0192 * p.density_scale[2];
-    t[5] = 3.6e-10 * p.rotary_inertia_scale[2];
-    t[6] = 2.4e-10 * p.rotary_inertia_scale[2];
-    t[7] = 1.0666666666666666e-10 * p.rotary_inertia_scale[2];
-    t[8] = 1.2e-10 * p.rotary_inertia_scale[2];
-    t[9] = 9.6e-11 * p.rotary_inertia_scale[2];
-    t[10] = 0.0045 * p.payload_rotary_inertia;
-    t[11] = 0.003 * p.payload_rotary_inertia;
-    t[12] = 0.004 * p.payload_rotary_inertia;
-    t[13] = 0.0015 * p.payload_rotary_inertia;
-    t[14] = 0.0036 * p.payload_rotary_inertia;
-    t[15] = s[1] * t[0] + 2.5e-10 * p.rotary_inertia_scale[0]
-        + p.density_scale[1] * s[25] + 6.75e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[81] + 4e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[178] + 0.005 * p.payload_rotary_inertia;
-    t[16] = s[2] * t[0] + 1.3333333333333334e-10 * p.rotary_inertia_scale[0]
-        + p.density_scale[1] * s[26] + 4.5e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[82] + 2.666666666666667e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[179] + 0.0033333333333333335 * p.payload_rotary_inertia;
-    t[17] = p.density_scale[1] * s[27] + 6.075e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[83] + 7.2e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[180] + 0.009 * p.payload_rotary_inertia;
-    t[18] = p.density_scale[1] * s[28] + t[2] + p.density_scale[2] * s[84] + t[5]
-        + p.payload_mass * s[181] + t[10];
-    t[19] = p.density_scale[1] * s[29] + t[3] + p.density_scale[2] * s[85] + t[6]
-        + p.payload_mass * s[182] + t[11];
-    t[20] = p.density_scale[2] * s[86] + 3.2e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[183] + 0.008 * p.payload_rotary_inertia;
-    t[21] = p.density_scale[2] * s[87] + t[7] + p.payload_mass * s[184] + t[12];
-    t[22] = s[4] * t[0] + 5.5555555555555553e-11 * p.rotary_inertia_scale[0]
-        + p.density_scale[1] * s[31] + 2.25e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[89] + 1.3333333333333334e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[186] + 0.0016666666666666668 * p.payload_rotary_inertia;
-    t[23] = p.density_scale[1] * s[32] + 3.0375e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[90] + t[5] + t[10] + p.payload_mass * s[187];
-    t[5] = p.density_scale[1] * s[33] + t[3] + p.density_scale[2] * s[91]
-        + 1.8e-10 * p.rotary_inertia_scale[2] + p.payload_mass * s[188]
-        + 0.00225 * p.payload_rotary_inertia;
-    t[3] = p.density_scale[1] * s[34] + 5.0625e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[92] + t[8] + p.payload_mass * s[189] + t[13];
-    t[10] = p.density_scale[2] * s[93] + 1.6e-10 * p.rotary_inertia_scale[2] + t[12]
-        + p.payload_mass * s[190];
-    t[12] = p.density_scale[2] * s[94]
-        + 5.333333333333333e-11 * p.rotary_inertia_scale[2] + p.payload_mass * s[191]
-        + 0.002 * p.payload_rotary_inertia;
-    t[24] = p.density_scale[1] * s[36] + t[2] + p.density_scale[2] * s[96] + t[6] + t[11]
-        + p.payload_mass * s[193];
-    t[2] = p.density_scale[1] * s[37] + 6.75e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[97] + t[8] + t[13] + p.payload_mass * s[194];
-    t[6] = p.density_scale[1] * s[38] + 3.375e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[98] + 8e-11 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[195] + 0.001 * p.payload_rotary_inertia;
-    t[8] = p.density_scale[2] * s[99] + t[7] + p.payload_mass * s[196]
-        + 0.0026666666666666666 * p.payload_rotary_inertia;
-    t[7] = p.density_scale[2] * s[100]
-        + 3.555555555555556e-11 * p.rotary_inertia_scale[2] + p.payload_mass * s[197]
-        + 0.0013333333333333333 * p.payload_rotary_inertia;
-    t[11] = s[16] * t[1] + 1.366875e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[102] + 3.24e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[199] + 0.00405 * p.payload_rotary_inertia;
-    t[13] = s[17] * t[1] + 7.29e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[103] + 2.16e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[200] + 0.0027 * p.payload_rotary_inertia;
-    t[25] = p.density_scale[2] * s[104] + 2.88e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[201] + 0.0072 * p.payload_rotary_inertia;
-    t[26] = p.density_scale[2] * s[105] + t[9] + p.payload_mass * s[202] + t[14];
-    t[27] = s[19] * t[1] + 3.0375e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[107] + 1.08e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[204] + 0.00135 * p.payload_rotary_inertia;
-    t[28] = p.density_scale[2] * s[108] + 1.44e-10 * p.rotary_inertia_scale[2] + t[14]
-        + p.payload_mass * s[205];
-    t[14] = p.density_scale[2] * s[109] + 4.8e-11 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[206] + 0.0018 * p.payload_rotary_inertia;
-    t[29] = p.density_scale[2] * s[111] + t[9] + p.payload_mass * s[208]
-        + 0.0024 * p.payload_rotary_inertia;
-    t[9] = p.density_scale[2] * s[112] + 3.2e-11 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[209] + 0.0012 * p.payload_rotary_inertia;
-    t[30] = s[76] * t[4] + 6.4e-11 * p.rotary_inertia_scale[2] + p.payload_mass * s[211]
-        + 0.0032 * p.payload_rotary_inertia;
-    b[0][0] = s[0] * t[0] + 6.666666666666666e-10 * p.rotary_inertia_scale[0]
-        + p.density_scale[1] * s[24] + 1.35e-9 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[80] + 8e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[177] + 0.01 * p.payload_rotary_inertia;
-    b[0][1] = t[15];
-    b[0][2] = t[16];
-    b[0][3] = t[17];
-    b[0][4] = t[18];
-    b[0][5] = t[19];
-    b[0][6] = t[20];
-    b[0][7] = t[21];
-    b[1][0] = t[15];
-    b[1][1] = s[3] * t[0] + 1e-10 * p.rotary_inertia_scale[0]
-        + p.density_scale[1] * s[30] + 3.375e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[88] + 2e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[185] + 0.0025 * p.payload_rotary_inertia;
-    b[1][2] = t[22];
-    b[1][3] = t[23];
-    b[1][4] = t[5];
-    b[1][5] = t[3];
-    b[1][6] = t[10];
-    b[1][7] = t[12];
-    b[2][0] = t[16];
-    b[2][1] = t[22];
-    b[2][2] = s[5] * t[0] + 3.174603174603175e-11 * p.rotary_inertia_scale[0]
-        + p.density_scale[1] * s[35] + 1.5e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[95] + 8.888888888888889e-11 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[192] + 0.0011111111111111111 * p.payload_rotary_inertia;
-    b[2][3] = t[24];
-    b[2][4] = t[2];
-    b[2][5] = t[6];
-    b[2][6] = t[8];
-    b[2][7] = t[7];
-    b[3][0] = t[17];
-    b[3][1] = t[23];
-    b[3][2] = t[24];
-    b[3][3] = s[15] * t[1] + 3.645e-10 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[101] + 6.48e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[198] + 0.0081 * p.payload_rotary_inertia;
-    b[3][4] = t[11];
-    b[3][5] = t[13];
-    b[3][6] = t[25];
-    b[3][7] = t[26];
-    b[4][0] = t[18];
-    b[4][1] = t[5];
-    b[4][2] = t[2];
-    b[4][3] = t[11];
-    b[4][4] = s[18] * t[1] + 5.4675e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[106] + 1.62e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[203] + 0.002025 * p.payload_rotary_inertia;
-    b[4][5] = t[27];
-    b[4][6] = t[28];
-    b[4][7] = t[14];
-    b[5][0] = t[19];
-    b[5][1] = t[3];
-    b[5][2] = t[6];
-    b[5][3] = t[13];
-    b[5][4] = t[27];
-    b[5][5] = s[20] * t[1] + 1.735714285714286e-11 * p.rotary_inertia_scale[1]
-        + p.density_scale[2] * s[110] + 7.2e-11 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[207] + 0.0009 * p.payload_rotary_inertia;
-    b[5][6] = t[29];
-    b[5][7] = t[9];
-    b[6][0] = t[20];
-    b[6][1] = t[10];
-    b[6][2] = t[8];
-    b[6][3] = t[25];
-    b[6][4] = t[28];
-    b[6][5] = t[29];
-    b[6][6] = s[75] * t[4] + 1.7066666666666667e-10 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[210] + 0.0064 * p.payload_rotary_inertia;
-    b[6][7] = t[30];
-    b[7][0] = t[21];
-    b[7][1] = t[12];
-    b[7][2] = t[7];
-    b[7][3] = t[26];
-    b[7][4] = t[14];
-    b[7][5] = t[9];
-    b[7][6] = t[30];
-    b[7][7] = s[77] * t[4] + 2.56e-11 * p.rotary_inertia_scale[2]
-        + p.payload_mass * s[212] + 0.0016 * p.payload_rotary_inertia;
-    c[0][0] = s[6] * t[0] + p.density_scale[1] * s[42] + p.density_scale[2] * s[115]
-        + p.payload_mass * s[213];
-    c[0][1] = s[7] * t[0] + p.density_scale[1] * s[43] + p.density_scale[2] * s[116]
-        + p.payload_mass * s[214];
-    c[0][2] = s[8] * t[0] + p.density_scale[1] * s[44] + p.density_scale[2] * s[117]
-        + p.payload_mass * s[215];
-    c[0][3] = p.density_scale[1] * s[45] + p.density_scale[2] * s[118]
-        + p.payload_mass * s[216];
-    c[0][4] = p.density_scale[1] * s[46] + p.density_scale[2] * s[119]
-        + p.payload_mass * s[217];
-    c[0][5] = p.density_scale[1] * s[47] + p.density_scale[2] * s[120]
-        + p.payload_mass * s[218];
-    c[0][6] = p.density_scale[2] * s[121] + p.payload_mass * s[219];
-    c[0][7] = p.density_scale[2] * s[122] + p.payload_mass * s[220];
-    c[1][0] = s[9] * t[0] + p.density_scale[1] * s[48] + p.density_scale[2] * s[123]
-        + p.payload_mass * s[221];
-    c[1][1] = s[10] * t[0] + p.density_scale[1] * s[49] + p.density_scale[2] * s[124]
-        + p.payload_mass * s[222];
-    c[1][2] = s[11] * t[0] + p.density_scale[1] * s[50] + p.density_scale[2] * s[125]
-        + p.payload_mass * s[223];
-    c[1][3] = p.density_scale[1] * s[51] + p.density_scale[2] * s[126]
-        + p.payload_mass * s[224];
-    c[1][4] = p.density_scale[1] * s[52] + p.density_scale[2] * s[127]
-        + p.payload_mass * s[225];
-    c[1][5] = p.density_scale[1] * s[53] + p.density_scale[2] * s[128]
-        + p.payload_mass * s[226];
-    c[1][6] = p.density_scale[2] * s[129] + p.payload_mass * s[227];
-    c[1][7] = p.density_scale[2] * s[130] + p.payload_mass * s[228];
-    c[2][0] = s[12] * t[0] + p.density_scale[1] * s[54] + p.density_scale[2] * s[131]
-        + p.payload_mass * s[229];
-    c[2][1] = s[13] * t[0] + p.density_scale[1] * s[55] + p.density_scale[2] * s[132]
-        + p.payload_mass * s[230];
-    c[2][2] = s[14] * t[0] + p.density_scale[1] * s[56] + p.density_scale[2] * s[133]
-        + p.payload_mass * s[231];
-    c[2][3] = p.density_scale[1] * s[57] + p.density_scale[2] * s[134]
-        + p.payload_mass * s[232];
-    c[2][4] = p.density_scale[1] * s[58] + p.density_scale[2] * s[135]
-        + p.payload_mass * s[233];
-    c[2][5] = p.density_scale[1] * s[59] + p.density_scale[2] * s[136]
-        + p.payload_mass * s[234];
-    c[2][6] = p.density_scale[2] * s[137] + p.payload_mass * s[235];
-    c[2][7] = p.density_scale[2] * s[138] + p.payload_mass * s[236];
-    c[3][0] = p.density_scale[1] * s[60] + p.density_scale[2] * s[139]
-        + p.payload_mass * s[237];
-    c[3][1] = p.density_scale[1] * s[61] + p.density_scale[2] * s[140]
-        + p.payload_mass * s[238];
-    c[3][2] = p.density_scale[1] * s[62] + p.density_scale[2] * s[141]
-        + p.payload_mass * s[239];
-    c[3][3] = s[21] * t[1] + p.density_scale[2] * s[142] + p.payload_mass * s[240];
-    c[3][4] = p.density_scale[1] * s[63] + p.density_scale[2] * s[143]
-        + p.payload_mass * s[241];
-    c[3][5] = p.density_scale[1] * s[64] + p.density_scale[2] * s[144]
-        + p.payload_mass * s[242];
-    c[3][6] = p.density_scale[2] * s[145] + p.payload_mass * s[243];
-    c[3][7] = p.density_scale[2] * s[146] + p.payload_mass * s[244];
-    c[4][0] = p.density_scale[1] * s[65] + p.density_scale[2] * s[147]
-        + p.payload_mass * s[245];
-    c[4][1] = p.density_scale[1] * s[66] + p.density_scale[2] * s[148]
-        + p.payload_mass * s[246];
-    c[4][2] = p.density_scale[1] * s[67] + p.density_scale[2] * s[149]
-        + p.payload_mass * s[247];
-    c[4][3] = p.density_scale[1] * s[68] + p.density_scale[2] * s[150]
-        + p.payload_mass * s[248];
-    c[4][4] = s[22] * t[1] + p.density_scale[2] * s[151] + p.payload_mass * s[249];
-    c[4][5] = p.density_scale[1] * s[69] + p.density_scale[2] * s[152]
-        + p.payload_mass * s[250];
-    c[4][6] = p.density_scale[2] * s[153] + p.payload_mass * s[251];
-    c[4][7] = p.density_scale[2] * s[154] + p.payload_mass * s[252];
-    c[5][0] = p.density_scale[1] * s[70] + p.density_scale[2] * s[155]
-        + p.payload_mass * s[253];
-    c[5][1] = p.density_scale[1] * s[71] + p.density_scale[2] * s[156]
-        + p.payload_mass * s[254];
-    c[5][2] = p.density_scale[1] * s[72] + p.density_scale[2] * s[157]
-        + p.payload_mass * s[255];
-    c[5][3] = p.density_scale[1] * s[73] + p.density_scale[2] * s[158]
-        + p.payload_mass * s[256];
-    c[5][4] = p.density_scale[1] * s[74] + p.density_scale[2] * s[159]
-        + p.payload_mass * s[257];
-    c[5][5] = s[23] * t[1] + p.density_scale[2] * s[160] + p.payload_mass * s[258];
-    c[5][6] = p.density_scale[2] * s[161] + p.payload_mass * s[259];
-    c[5][7] = p.density_scale[2] * s[162] + p.payload_mass * s[260];
-    c[6][0] = p.density_scale[2] * s[163] + p.payload_mass * s[261];
-    c[6][1] = p.density_scale[2] * s[164] + p.payload_mass * s[262];
-    c[6][2] = p.density_scale[2] * s[165] + p.payload_mass * s[263];
-    c[6][3] = p.density_scale[2] * s[166] + p.payload_mass * s[264];
-    c[6][4] = p.density_scale[2] * s[167] + p.payload_mass * s[265];
-    c[6][5] = p.density_scale[2] * s[168] + p.payload_mass * s[266];
-    c[6][6] = s[78] * t[4] + p.payload_mass * s[267];
-    c[6][7] = p.density_scale[2] * s[169] + p.payload_mass * s[268];
-    c[7][0] = p.density_scale[2] * s[170] + p.payload_mass * s[269];
-    c[7][1] = p.density_scale[2] * s[171] + p.payload_mass * s[270];
-    c[7][2] = p.density_scale[2] * s[172] + p.payload_mass * s[271];
-    c[7][3] = p.density_scale[2] * s[173] + p.payload_mass * s[272];
-    c[7][4] = p.density_scale[2] * s[174] + p.payload_mass * s[273];
-    c[7][5] = p.density_scale[2] * s[175] + p.payload_mass * s[274];
-    c[7][6] = p.density_scale[2] * s[176] + p.payload_mass * s[275];
-    c[7][7] = s[79] * t[4] + p.payload_mass * s[276];
-    g[0] = -p.density_scale[0] * s[277] - p.density_scale[1] * s[278]
-        - p.density_scale[2] * s[279] - p.payload_mass * s[280];
-    g[1] = -p.density_scale[0] * s[281] - p.density_scale[1] * s[282]
-        - p.density_scale[2] * s[283] - p.payload_mass * s[284];
-    g[2] = -p.density_scale[0] * s[285] - p.density_scale[1] * s[286]
-        - p.density_scale[2] * s[287] - p.payload_mass * s[288];
-    g[3] = -p.density_scale[1] * s[289] - p.density_scale[2] * s[290]
-        - p.payload_mass * s[291];
-    g[4] = -p.density_scale[1] * s[292] - p.density_scale[2] * s[293]
-        - p.payload_mass * s[294];
-    g[5] = -p.density_scale[1] * s[295] - p.density_scale[2] * s[296]
-        - p.payload_mass * s[297];
-    g[6] = -p.density_scale[2] * s[298] - p.payload_mass * s[299];
-    g[7] = -p.density_scale[2] * s[300] - p.payload_mass * s[301];
-    (b, c, g)
-}
-/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. At the arm file's parameters ([`Params::DEFAULT`]).
-///
-/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
-pub fn terms(
-    q: &[Real; NQ],
-    qd: &[Real; NQ],
-) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 2321])
-}
-/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
-///
-/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
-pub fn terms_ws(
-    q: &[Real; NQ],
-    qd: &[Real; NQ],
-    ws: &mut Workspace,
-) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(&Params::DEFAULT, q, qd, &mut ws.0)
-}
-/// [`terms`] at the runtime parameters `p`.
-///
-/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
-pub fn terms_with(
-    p: &Params,
-    q: &[Real; NQ],
-    qd: &[Real; NQ],
-) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut [0.0; 2321])
-}
-/// [`terms_with`] with its scratch in the caller's [`Workspace`].
-///
-/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
-pub fn terms_with_ws(
-    p: &Params,
-    q: &[Real; NQ],
-    qd: &[Real; NQ],
-    ws: &mut Workspace,
-) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
-    terms_in(p, q, qd, &mut ws.0)
-}
-/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 2321 reals).
+/// The work of [`regressor`] and [`regressor_ws`], in `work` (at least 2337 reals).
 ///
 /// Operations: 8975 add, 11754 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10655 add, 13686 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn regressor_in(
@@ -12529,7 +12530,7 @@ fn regressor_in(
     qdd: &[Real; NQ],
     work: &mut [Real],
 ) -> [[Real; NTHETA]; NQ] {
-    let (s, work) = work.split_at_mut(302);
+    let (s, work) = work.split_at_mut(318);
     shares_in(p, q, qd, s, work);
     let t = &mut work[..11];
     let mut out = [[0.0; NTHETA]; NQ];
@@ -12544,12 +12545,12 @@ fn regressor_in(
     t[8] = 0.0288 * s[19];
     t[9] = 0.0192 * s[76];
     t[10] = 1.3333333333333334e-10 * qdd[2];
-    out[0][0] = 0.04 * s[0] * qdd[0] - s[277] + s[6] * t[0] + qdd[1] * t[1] + s[7] * t[2]
+    out[0][0] = 0.04 * s[0] * qdd[0] - s[293] + s[6] * t[0] + qdd[1] * t[1] + s[7] * t[2]
         + qdd[2] * t[3] + s[8] * t[4];
-    out[0][1] = s[24] * qdd[0] - s[278] + qd[0] * s[42] + s[25] * qdd[1] + qd[1] * s[43]
+    out[0][1] = s[24] * qdd[0] - s[294] + qd[0] * s[42] + s[25] * qdd[1] + qd[1] * s[43]
         + s[26] * qdd[2] + qd[2] * s[44] + s[27] * qdd[3] + qd[3] * s[45]
         + s[28] * qdd[4] + qd[4] * s[46] + s[29] * qdd[5] + qd[5] * s[47];
-    out[0][2] = s[80] * qdd[0] - s[279] + qd[0] * s[115] + s[81] * qdd[1]
+    out[0][2] = s[80] * qdd[0] - s[295] + qd[0] * s[115] + s[81] * qdd[1]
         + qd[1] * s[116] + s[82] * qdd[2] + qd[2] * s[117] + s[83] * qdd[3]
         + qd[3] * s[118] + s[84] * qdd[4] + qd[4] * s[119] + s[85] * qdd[5]
         + qd[5] * s[120] + s[86] * qdd[6] + qd[6] * s[121] + s[87] * qdd[7]
@@ -12566,20 +12567,20 @@ fn regressor_in(
     out[0][9] = 3e-5 * qd[0] + 1.5e-5 * qd[1] + 1e-5 * qd[2];
     out[0][10] = 0.0;
     out[0][11] = 0.0;
-    out[0][12] = s[177] * qdd[0] - s[280] + qd[0] * s[213] + s[178] * qdd[1]
-        + qd[1] * s[214] + s[179] * qdd[2] + qd[2] * s[215] + s[180] * qdd[3]
-        + qd[3] * s[216] + s[181] * qdd[4] + qd[4] * s[217] + s[182] * qdd[5]
-        + qd[5] * s[218] + s[183] * qdd[6] + qd[6] * s[219] + s[184] * qdd[7]
-        + qd[7] * s[220];
+    out[0][12] = s[193] * qdd[0] - s[296] + qd[0] * s[229] + s[194] * qdd[1]
+        + qd[1] * s[230] + s[195] * qdd[2] + qd[2] * s[231] + s[196] * qdd[3]
+        + qd[3] * s[232] + s[197] * qdd[4] + qd[4] * s[233] + s[198] * qdd[5]
+        + qd[5] * s[234] + s[199] * qdd[6] + qd[6] * s[235] + s[200] * qdd[7]
+        + qd[7] * s[236];
     out[0][13] = 0.01 * qdd[0] + 0.005 * qdd[1] + 0.0033333333333333335 * qdd[2]
         + 0.009 * qdd[3] + 0.0045 * qdd[4] + 0.003 * qdd[5] + 0.008 * qdd[6]
         + 0.004 * qdd[7];
-    out[1][0] = qdd[0] * t[1] - s[281] + s[9] * t[0] + 0.04 * s[3] * qdd[1]
+    out[1][0] = qdd[0] * t[1] - s[297] + s[9] * t[0] + 0.04 * s[3] * qdd[1]
         + s[10] * t[2] + qdd[2] * t[5] + s[11] * t[4];
-    out[1][1] = s[25] * qdd[0] - s[282] + qd[0] * s[48] + s[30] * qdd[1] + qd[1] * s[49]
+    out[1][1] = s[25] * qdd[0] - s[298] + qd[0] * s[48] + s[30] * qdd[1] + qd[1] * s[49]
         + s[31] * qdd[2] + qd[2] * s[50] + s[32] * qdd[3] + qd[3] * s[51]
         + s[33] * qdd[4] + qd[4] * s[52] + s[34] * qdd[5] + qd[5] * s[53];
-    out[1][2] = s[81] * qdd[0] - s[283] + qd[0] * s[123] + s[88] * qdd[1]
+    out[1][2] = s[81] * qdd[0] - s[299] + qd[0] * s[123] + s[88] * qdd[1]
         + qd[1] * s[124] + s[89] * qdd[2] + qd[2] * s[125] + s[90] * qdd[3]
         + qd[3] * s[126] + s[91] * qdd[4] + qd[4] * s[127] + s[92] * qdd[5]
         + qd[5] * s[128] + s[93] * qdd[6] + qd[6] * s[129] + s[94] * qdd[7]
@@ -12596,20 +12597,20 @@ fn regressor_in(
     out[1][9] = 1.5e-5 * qd[0] + 1e-5 * qd[1] + 7.5e-6 * qd[2];
     out[1][10] = 0.0;
     out[1][11] = 0.0;
-    out[1][12] = s[178] * qdd[0] - s[284] + qd[0] * s[221] + s[185] * qdd[1]
-        + qd[1] * s[222] + s[186] * qdd[2] + qd[2] * s[223] + s[187] * qdd[3]
-        + qd[3] * s[224] + s[188] * qdd[4] + qd[4] * s[225] + s[189] * qdd[5]
-        + qd[5] * s[226] + s[190] * qdd[6] + qd[6] * s[227] + s[191] * qdd[7]
-        + qd[7] * s[228];
+    out[1][12] = s[194] * qdd[0] - s[300] + qd[0] * s[237] + s[201] * qdd[1]
+        + qd[1] * s[238] + s[202] * qdd[2] + qd[2] * s[239] + s[203] * qdd[3]
+        + qd[3] * s[240] + s[204] * qdd[4] + qd[4] * s[241] + s[205] * qdd[5]
+        + qd[5] * s[242] + s[206] * qdd[6] + qd[6] * s[243] + s[207] * qdd[7]
+        + qd[7] * s[244];
     out[1][13] = 0.005 * qdd[0] + 0.0025 * qdd[1] + 0.0016666666666666668 * qdd[2]
         + 0.0045 * qdd[3] + 0.00225 * qdd[4] + 0.0015 * qdd[5] + 0.004 * qdd[6]
         + 0.002 * qdd[7];
-    out[2][0] = qdd[0] * t[3] - s[285] + s[12] * t[0] + qdd[1] * t[5] + s[13] * t[2]
+    out[2][0] = qdd[0] * t[3] - s[301] + s[12] * t[0] + qdd[1] * t[5] + s[13] * t[2]
         + 0.04 * s[5] * qdd[2] + s[14] * t[4];
-    out[2][1] = s[26] * qdd[0] - s[286] + qd[0] * s[54] + s[31] * qdd[1] + qd[1] * s[55]
+    out[2][1] = s[26] * qdd[0] - s[302] + qd[0] * s[54] + s[31] * qdd[1] + qd[1] * s[55]
         + s[35] * qdd[2] + qd[2] * s[56] + s[36] * qdd[3] + qd[3] * s[57]
         + s[37] * qdd[4] + qd[4] * s[58] + s[38] * qdd[5] + qd[5] * s[59];
-    out[2][2] = s[82] * qdd[0] - s[287] + qd[0] * s[131] + s[89] * qdd[1]
+    out[2][2] = s[82] * qdd[0] - s[303] + qd[0] * s[131] + s[89] * qdd[1]
         + qd[1] * s[132] + s[95] * qdd[2] + qd[2] * s[133] + s[96] * qdd[3]
         + qd[3] * s[134] + s[97] * qdd[4] + qd[4] * s[135] + s[98] * qdd[5]
         + qd[5] * s[136] + s[99] * qdd[6] + qd[6] * s[137] + s[100] * qdd[7]
@@ -12628,20 +12629,20 @@ fn regressor_in(
     out[2][9] = 1e-5 * qd[0] + 7.5e-6 * qd[1] + 6e-6 * qd[2];
     out[2][10] = 0.0;
     out[2][11] = 0.0;
-    out[2][12] = s[179] * qdd[0] - s[288] + qd[0] * s[229] + s[186] * qdd[1]
-        + qd[1] * s[230] + s[192] * qdd[2] + qd[2] * s[231] + s[193] * qdd[3]
-        + qd[3] * s[232] + s[194] * qdd[4] + qd[4] * s[233] + s[195] * qdd[5]
-        + qd[5] * s[234] + s[196] * qdd[6] + qd[6] * s[235] + s[197] * qdd[7]
-        + qd[7] * s[236];
+    out[2][12] = s[195] * qdd[0] - s[304] + qd[0] * s[245] + s[202] * qdd[1]
+        + qd[1] * s[246] + s[208] * qdd[2] + qd[2] * s[247] + s[209] * qdd[3]
+        + qd[3] * s[248] + s[210] * qdd[4] + qd[4] * s[249] + s[211] * qdd[5]
+        + qd[5] * s[250] + s[212] * qdd[6] + qd[6] * s[251] + s[213] * qdd[7]
+        + qd[7] * s[252];
     out[2][13] = 0.0033333333333333335 * qdd[0] + 0.0016666666666666668 * qdd[1]
         + 0.0011111111111111111 * qdd[2] + 0.003 * qdd[3] + 0.0015 * qdd[4]
         + 0.001 * qdd[5] + 0.0026666666666666666 * qdd[6]
         + 0.0013333333333333333 * qdd[7];
     out[3][0] = 0.0;
-    out[3][1] = s[27] * qdd[0] - s[289] + qd[0] * s[60] + s[32] * qdd[1] + qd[1] * s[61]
+    out[3][1] = s[27] * qdd[0] - s[305] + qd[0] * s[60] + s[32] * qdd[1] + qd[1] * s[61]
         + s[36] * qdd[2] + qd[2] * s[62] + 0.0288 * s[15] * qdd[3] + s[21] * s[39]
         + qdd[4] * t[6] + qd[4] * s[63] + qdd[5] * t[7] + qd[5] * s[64];
-    out[3][2] = s[83] * qdd[0] - s[290] + qd[0] * s[139] + s[90] * qdd[1]
+    out[3][2] = s[83] * qdd[0] - s[306] + qd[0] * s[139] + s[90] * qdd[1]
         + qd[1] * s[140] + s[96] * qdd[2] + qd[2] * s[141] + s[101] * qdd[3]
         + qd[3] * s[142] + s[102] * qdd[4] + qd[4] * s[143] + s[103] * qdd[5]
         + qd[5] * s[144] + s[104] * qdd[6] + qd[6] * s[145] + s[105] * qdd[7]
@@ -12658,18 +12659,18 @@ fn regressor_in(
     out[3][9] = 0.0;
     out[3][10] = 1.8e-5 * qd[3] + 9e-6 * qd[4] + 6e-6 * qd[5];
     out[3][11] = 0.0;
-    out[3][12] = s[180] * qdd[0] - s[291] + qd[0] * s[237] + s[187] * qdd[1]
-        + qd[1] * s[238] + s[193] * qdd[2] + qd[2] * s[239] + s[198] * qdd[3]
-        + qd[3] * s[240] + s[199] * qdd[4] + qd[4] * s[241] + s[200] * qdd[5]
-        + qd[5] * s[242] + s[201] * qdd[6] + qd[6] * s[243] + s[202] * qdd[7]
-        + qd[7] * s[244];
+    out[3][12] = s[196] * qdd[0] - s[307] + qd[0] * s[253] + s[203] * qdd[1]
+        + qd[1] * s[254] + s[209] * qdd[2] + qd[2] * s[255] + s[214] * qdd[3]
+        + qd[3] * s[256] + s[215] * qdd[4] + qd[4] * s[257] + s[216] * qdd[5]
+        + qd[5] * s[258] + s[217] * qdd[6] + qd[6] * s[259] + s[218] * qdd[7]
+        + qd[7] * s[260];
     out[3][13] = 0.009 * qdd[0] + 0.0045 * qdd[1] + 0.003 * qdd[2] + 0.0081 * qdd[3]
         + 0.00405 * qdd[4] + 0.0027 * qdd[5] + 0.0072 * qdd[6] + 0.0036 * qdd[7];
     out[4][0] = 0.0;
-    out[4][1] = s[28] * qdd[0] - s[292] + qd[0] * s[65] + s[33] * qdd[1] + qd[1] * s[66]
+    out[4][1] = s[28] * qdd[0] - s[308] + qd[0] * s[65] + s[33] * qdd[1] + qd[1] * s[66]
         + s[37] * qdd[2] + qd[2] * s[67] + qdd[3] * t[6] + qd[3] * s[68]
         + 0.0288 * s[18] * qdd[4] + s[22] * s[40] + qdd[5] * t[8] + qd[5] * s[69];
-    out[4][2] = s[84] * qdd[0] - s[293] + qd[0] * s[147] + s[91] * qdd[1]
+    out[4][2] = s[84] * qdd[0] - s[309] + qd[0] * s[147] + s[91] * qdd[1]
         + qd[1] * s[148] + s[97] * qdd[2] + qd[2] * s[149] + s[102] * qdd[3]
         + qd[3] * s[150] + s[106] * qdd[4] + qd[4] * s[151] + s[107] * qdd[5]
         + qd[5] * s[152] + s[108] * qdd[6] + qd[6] * s[153] + s[109] * qdd[7]
@@ -12686,18 +12687,18 @@ fn regressor_in(
     out[4][9] = 0.0;
     out[4][10] = 9e-6 * qd[3] + 6e-6 * qd[4] + 4.5e-6 * qd[5];
     out[4][11] = 0.0;
-    out[4][12] = s[181] * qdd[0] - s[294] + qd[0] * s[245] + s[188] * qdd[1]
-        + qd[1] * s[246] + s[194] * qdd[2] + qd[2] * s[247] + s[199] * qdd[3]
-        + qd[3] * s[248] + s[203] * qdd[4] + qd[4] * s[249] + s[204] * qdd[5]
-        + qd[5] * s[250] + s[205] * qdd[6] + qd[6] * s[251] + s[206] * qdd[7]
-        + qd[7] * s[252];
+    out[4][12] = s[197] * qdd[0] - s[310] + qd[0] * s[261] + s[204] * qdd[1]
+        + qd[1] * s[262] + s[210] * qdd[2] + qd[2] * s[263] + s[215] * qdd[3]
+        + qd[3] * s[264] + s[219] * qdd[4] + qd[4] * s[265] + s[220] * qdd[5]
+        + qd[5] * s[266] + s[221] * qdd[6] + qd[6] * s[267] + s[222] * qdd[7]
+        + qd[7] * s[268];
     out[4][13] = 0.0045 * qdd[0] + 0.00225 * qdd[1] + 0.0015 * qdd[2] + 0.00405 * qdd[3]
         + 0.002025 * qdd[4] + 0.00135 * qdd[5] + 0.0036 * qdd[6] + 0.0018 * qdd[7];
     out[5][0] = 0.0;
-    out[5][1] = s[29] * qdd[0] - s[295] + qd[0] * s[70] + s[34] * qdd[1] + qd[1] * s[71]
+    out[5][1] = s[29] * qdd[0] - s[311] + qd[0] * s[70] + s[34] * qdd[1] + qd[1] * s[71]
         + s[38] * qdd[2] + qd[2] * s[72] + qdd[3] * t[7] + qd[3] * s[73] + qdd[4] * t[8]
         + qd[4] * s[74] + 0.0288 * s[20] * qdd[5] + s[23] * s[41];
-    out[5][2] = s[85] * qdd[0] - s[296] + qd[0] * s[155] + s[92] * qdd[1]
+    out[5][2] = s[85] * qdd[0] - s[312] + qd[0] * s[155] + s[92] * qdd[1]
         + qd[1] * s[156] + s[98] * qdd[2] + qd[2] * s[157] + s[103] * qdd[3]
         + qd[3] * s[158] + s[107] * qdd[4] + qd[4] * s[159] + s[110] * qdd[5]
         + qd[5] * s[160] + s[111] * qdd[6] + qd[6] * s[161] + s[112] * qdd[7]
@@ -12713,16 +12714,16 @@ fn regressor_in(
     out[5][9] = 0.0;
     out[5][10] = 6e-6 * qd[3] + 4.5e-6 * qd[4] + 3.6e-6 * qd[5];
     out[5][11] = 0.0;
-    out[5][12] = s[182] * qdd[0] - s[297] + qd[0] * s[253] + s[189] * qdd[1]
-        + qd[1] * s[254] + s[195] * qdd[2] + qd[2] * s[255] + s[200] * qdd[3]
-        + qd[3] * s[256] + s[204] * qdd[4] + qd[4] * s[257] + s[207] * qdd[5]
-        + qd[5] * s[258] + s[208] * qdd[6] + qd[6] * s[259] + s[209] * qdd[7]
-        + qd[7] * s[260];
+    out[5][12] = s[198] * qdd[0] - s[313] + qd[0] * s[269] + s[205] * qdd[1]
+        + qd[1] * s[270] + s[211] * qdd[2] + qd[2] * s[271] + s[216] * qdd[3]
+        + qd[3] * s[272] + s[220] * qdd[4] + qd[4] * s[273] + s[223] * qdd[5]
+        + qd[5] * s[274] + s[224] * qdd[6] + qd[6] * s[275] + s[225] * qdd[7]
+        + qd[7] * s[276];
     out[5][13] = 0.003 * qdd[0] + 0.0015 * qdd[1] + 0.001 * qdd[2] + 0.0027 * qdd[3]
         + 0.00135 * qdd[4] + 0.0009 * qdd[5] + 0.0024 * qdd[6] + 0.0012 * qdd[7];
     out[6][0] = 0.0;
     out[6][1] = 0.0;
-    out[6][2] = s[86] * qdd[0] - s[298] + qd[0] * s[163] + s[93] * qdd[1]
+    out[6][2] = s[86] * qdd[0] - s[314] + qd[0] * s[163] + s[93] * qdd[1]
         + qd[1] * s[164] + s[99] * qdd[2] + qd[2] * s[165] + s[104] * qdd[3]
         + qd[3] * s[166] + s[108] * qdd[4] + qd[4] * s[167] + s[111] * qdd[5]
         + qd[5] * s[168] + 0.0192 * s[75] * qdd[6] + s[78] * s[113] + qdd[7] * t[9]
@@ -12738,17 +12739,17 @@ fn regressor_in(
     out[6][9] = 0.0;
     out[6][10] = 0.0;
     out[6][11] = 8e-6 * qd[6] + 4e-6 * qd[7];
-    out[6][12] = s[183] * qdd[0] - s[299] + qd[0] * s[261] + s[190] * qdd[1]
-        + qd[1] * s[262] + s[196] * qdd[2] + qd[2] * s[263] + s[201] * qdd[3]
-        + qd[3] * s[264] + s[205] * qdd[4] + qd[4] * s[265] + s[208] * qdd[5]
-        + qd[5] * s[266] + s[210] * qdd[6] + qd[6] * s[267] + s[211] * qdd[7]
-        + qd[7] * s[268];
+    out[6][12] = s[199] * qdd[0] - s[315] + qd[0] * s[277] + s[206] * qdd[1]
+        + qd[1] * s[278] + s[212] * qdd[2] + qd[2] * s[279] + s[217] * qdd[3]
+        + qd[3] * s[280] + s[221] * qdd[4] + qd[4] * s[281] + s[224] * qdd[5]
+        + qd[5] * s[282] + s[226] * qdd[6] + qd[6] * s[283] + s[227] * qdd[7]
+        + qd[7] * s[284];
     out[6][13] = 0.008 * qdd[0] + 0.004 * qdd[1] + 0.0026666666666666666 * qdd[2]
         + 0.0072 * qdd[3] + 0.0036 * qdd[4] + 0.0024 * qdd[5] + 0.0064 * qdd[6]
         + 0.0032 * qdd[7];
     out[7][0] = 0.0;
     out[7][1] = 0.0;
-    out[7][2] = s[87] * qdd[0] - s[300] + qd[0] * s[170] + s[94] * qdd[1]
+    out[7][2] = s[87] * qdd[0] - s[316] + qd[0] * s[170] + s[94] * qdd[1]
         + qd[1] * s[171] + s[100] * qdd[2] + qd[2] * s[172] + s[105] * qdd[3]
         + qd[3] * s[173] + s[109] * qdd[4] + qd[4] * s[174] + s[112] * qdd[5]
         + qd[5] * s[175] + qdd[6] * t[9] + qd[6] * s[176] + 0.0192 * s[77] * qdd[7]
@@ -12764,11 +12765,11 @@ fn regressor_in(
     out[7][9] = 0.0;
     out[7][10] = 0.0;
     out[7][11] = 4e-6 * qd[6] + 2.666666666666667e-6 * qd[7];
-    out[7][12] = s[184] * qdd[0] - s[301] + qd[0] * s[269] + s[191] * qdd[1]
-        + qd[1] * s[270] + s[197] * qdd[2] + qd[2] * s[271] + s[202] * qdd[3]
-        + qd[3] * s[272] + s[206] * qdd[4] + qd[4] * s[273] + s[209] * qdd[5]
-        + qd[5] * s[274] + s[211] * qdd[6] + qd[6] * s[275] + s[212] * qdd[7]
-        + qd[7] * s[276];
+    out[7][12] = s[200] * qdd[0] - s[317] + qd[0] * s[285] + s[207] * qdd[1]
+        + qd[1] * s[286] + s[213] * qdd[2] + qd[2] * s[287] + s[218] * qdd[3]
+        + qd[3] * s[288] + s[222] * qdd[4] + qd[4] * s[289] + s[225] * qdd[5]
+        + qd[5] * s[290] + s[227] * qdd[6] + qd[6] * s[291] + s[228] * qdd[7]
+        + qd[7] * s[292];
     out[7][13] = 0.004 * qdd[0] + 0.002 * qdd[1] + 0.0013333333333333333 * qdd[2]
         + 0.0036 * qdd[3] + 0.0018 * qdd[4] + 0.0012 * qdd[5] + 0.0032 * qdd[6]
         + 0.0016 * qdd[7];
@@ -12782,9 +12783,9 @@ pub fn regressor(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 2321])
+    regressor_in(&Params::DEFAULT, q, qd, qdd, &mut [0.0; 2337])
 }
-/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
+/// [`regressor`] with its scratch in the caller's [`Workspace`] instead of on the stack (2337 reals); the same values.
 ///
 /// Operations: 8975 add, 11754 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10655 add, 13686 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn regressor_ws(
@@ -12804,7 +12805,7 @@ pub fn regressor_with(
     qd: &[Real; NQ],
     qdd: &[Real; NQ],
 ) -> [[Real; NTHETA]; NQ] {
-    regressor_in(p, q, qd, qdd, &mut [0.0; 2321])
+    regressor_in(p, q, qd, qdd, &mut [0.0; 2337])
 }
 /// [`regressor_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -12817,6 +12818,58 @@ pub fn regressor_with_ws(
     ws: &mut Workspace,
 ) -> [[Real; NTHETA]; NQ] {
     regressor_in(p, q, qd, qdd, &mut ws.0)
+}
+/// The work of [`terms`] and [`terms_ws`], in `work` (at least 2337 reals).
+///
+/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+fn terms_in(
+    p: &Params,
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    work: &mut [Real],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
+    let (b, c, g, _) = terms_actuation_in(p, q, qd, work);
+    (b, c, g)
+}
+/// `B(q)`, `C(q, q̇)` and `G(q)` in one call, equal to [`inertia`], [`coriolis`] and [`gravity`] to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Computed with `A(q)`, whose end forces lie inside their sums. At the arm file's parameters ([`Params::DEFAULT`]).
+///
+/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+pub fn terms(
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
+    terms_in(&Params::DEFAULT, q, qd, &mut [0.0; 2337])
+}
+/// [`terms`] with its scratch in the caller's [`Workspace`] instead of on the stack (2337 reals); the same values.
+///
+/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+pub fn terms_ws(
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    ws: &mut Workspace,
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
+    terms_in(&Params::DEFAULT, q, qd, &mut ws.0)
+}
+/// [`terms`] at the runtime parameters `p`.
+///
+/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+pub fn terms_with(
+    p: &Params,
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
+    terms_in(p, q, qd, &mut [0.0; 2337])
+}
+/// [`terms_with`] with its scratch in the caller's [`Workspace`].
+///
+/// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
+pub fn terms_with_ws(
+    p: &Params,
+    q: &[Real; NQ],
+    qd: &[Real; NQ],
+    ws: &mut Workspace,
+) -> ([[Real; NQ]; NQ], [[Real; NQ]; NQ], [Real; NQ]) {
+    terms_in(p, q, qd, &mut ws.0)
 }
 /// The work of [`gravity_jacobian`] and [`gravity_jacobian_ws`], in `work` (at least 657 reals).
 ///
@@ -12886,7 +12939,7 @@ pub fn gravity_with(p: &Params, q: &[Real; NQ]) -> [Real; NQ] {
 pub fn gravity_with_ws(p: &Params, q: &[Real; NQ], ws: &mut Workspace) -> [Real; NQ] {
     gravity_in(p, q, &mut ws.0)
 }
-/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 2321 reals).
+/// The work of [`coriolis`] and [`coriolis_ws`], in `work` (at least 2337 reals).
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 fn coriolis_in(
@@ -12901,9 +12954,9 @@ fn coriolis_in(
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis(q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 2321])
+    coriolis_in(&Params::DEFAULT, q, qd, &mut [0.0; 2337])
 }
-/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
+/// [`coriolis`] with its scratch in the caller's [`Workspace`] instead of on the stack (2337 reals); the same values.
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_ws(
@@ -12917,7 +12970,7 @@ pub fn coriolis_ws(
 ///
 /// Operations: 8749 add, 11561 mul, 44 div, 0 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10429 add, 13493 mul, 44 div, 0 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn coriolis_with(p: &Params, q: &[Real; NQ], qd: &[Real; NQ]) -> [[Real; NQ]; NQ] {
-    coriolis_in(p, q, qd, &mut [0.0; 2321])
+    coriolis_in(p, q, qd, &mut [0.0; 2337])
 }
 /// [`coriolis_with`] with its scratch in the caller's [`Workspace`].
 ///
@@ -14520,13 +14573,13 @@ pub fn pose_ws(
 /// in-place Cholesky factorisation of `B` on the stack. `B` is badly conditioned on
 /// realistic arms: check results by the residual, not entry by entry.
 ///
-/// Operations: 9792 add, 13116 mul, 94 div, 8 sqrt, 20 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 11472 add, 15048 mul, 94 div, 8 sqrt, 20 trig beyond (whole rows at both ends).
+/// Operations: 8921 add, 11751 mul, 88 div, 8 sqrt, 10 trig with every segment's |a_j| <= 4 (top rows cut to the precision); 10601 add, 13683 mul, 88 div, 8 sqrt, 10 trig beyond (whole rows at both ends).
 pub fn forward_dynamics(
     q: &[Real; NQ],
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 2321])
+    forward_dynamics_in(&Params::DEFAULT, q, qd, u, &mut [0.0; 2337])
 }
 /// [`forward_dynamics`] at the runtime parameters `p`.
 pub fn forward_dynamics_with(
@@ -14535,10 +14588,10 @@ pub fn forward_dynamics_with(
     qd: &[Real; NQ],
     u: &[Real; NU],
 ) -> Result<[Real; NQ], DynamicsError> {
-    forward_dynamics_in(p, q, qd, u, &mut [0.0; 2321])
+    forward_dynamics_in(p, q, qd, u, &mut [0.0; 2337])
 }
 /// [`forward_dynamics`] with the scratch of [`terms`] and [`actuation`] in the
-/// caller's [`Workspace`] instead of on the stack (2321 reals); the same values.
+/// caller's [`Workspace`] instead of on the stack (2337 reals); the same values.
 pub fn forward_dynamics_ws(
     q: &[Real; NQ],
     qd: &[Real; NQ],
@@ -14558,7 +14611,7 @@ pub fn forward_dynamics_with_ws(
     forward_dynamics_in(p, q, qd, u, &mut ws.0)
 }
 /// The work of [`forward_dynamics`] and [`forward_dynamics_ws`], in `work` (at least
-/// 2321 reals).
+/// 2337 reals).
 fn forward_dynamics_in(
     p: &Params,
     q: &[Real; NQ],
@@ -14571,8 +14624,8 @@ fn forward_dynamics_in(
     {
         return Err(DynamicsError::NonFiniteInput);
     }
-    let (b, c, g) = terms_in(p, q, qd, work);
-    let (stiff, damp, a) = (stiffness_with(p), damping_with(p), actuation_in(q, work));
+    let (b, c, g, a) = terms_actuation_in(p, q, qd, work);
+    let (stiff, damp) = (stiffness_with(p), damping_with(p));
     if !(all_finite(b.as_flattened()) && all_finite(c.as_flattened()) && all_finite(&g)
         && all_finite(a.as_flattened()))
     {
