@@ -452,6 +452,22 @@ impl Printer<'_> {
     }
 }
 
+/// Where output `i` of `terms` (B, C, G) or of `terms_actuation` (and then A) goes.
+fn terms_target(n: usize) -> impl Fn(usize) -> String {
+    let nn = n * n;
+    move |i| {
+        if i < nn {
+            format!("B[{i}]")
+        } else if i < 2 * nn {
+            format!("C[{}]", i - nn)
+        } else if i < 2 * nn + n {
+            format!("G[{}]", i - 2 * nn)
+        } else {
+            format!("A[{}]", i - 2 * nn - n)
+        }
+    }
+}
+
 /// Where forward dynamics keeps its arrays in the caller's scratch: offsets of
 /// `B, C, G, K, D, A, m, f` and of the scratch it lends to `terms` and `actuation`.
 #[derive(Serialize)]
@@ -656,18 +672,7 @@ pub fn emit(
     });
     // With an end force, B, C, G and A in one schedule for forward dynamics.
     let terms_actuation_work = plan.terms_actuation.as_ref().map(|f| {
-        let nn = n * n;
-        let (rows, body, len) = p.body(f, "terms_actuation", None, &move |i: usize| {
-            if i < nn {
-                format!("B[{i}]")
-            } else if i < 2 * nn {
-                format!("C[{}]", i - nn)
-            } else if i < 2 * nn + n {
-                format!("G[{}]", i - 2 * nn)
-            } else {
-                format!("A[{}]", i - 2 * nn - n)
-            }
-        });
+        let (rows, body, len) = p.body(f, "terms_actuation", None, &terms_target(n));
         funcs.push(CFunc {
             rows,
             formula: format!(
@@ -952,15 +957,7 @@ pub fn emit(
             &plan.terms,
             "void",
             &terms_params,
-            &move |i: usize| {
-                if i < nn {
-                    format!("B[{i}]")
-                } else if i < 2 * nn {
-                    format!("C[{}]", i - nn)
-                } else {
-                    format!("G[{}]", i - 2 * nn)
-                }
-            },
+            &terms_target(n),
         ),
     };
     public(

@@ -200,6 +200,23 @@ fn signature(plan: &Plan, fname: &str, params: &[&str], with: bool) -> String {
     format!("{fname}({})", all.join(", "))
 }
 
+/// Where output `i` of `terms` (B, C, G) or of `_terms_actuation` (and then A) goes.
+fn terms_target(n: usize, k: usize) -> impl Fn(usize) -> String {
+    let nn = n * n;
+    move |i| {
+        if i < nn {
+            format!("b[{}, {}]", i / n, i % n)
+        } else if i < 2 * nn {
+            format!("c[{}, {}]", (i - nn) / n, (i - nn) % n)
+        } else if i < 2 * nn + n {
+            format!("g[{}]", i - 2 * nn)
+        } else {
+            let at = i - 2 * nn - n;
+            format!("a[{}, {}]", at / k, at % k)
+        }
+    }
+}
+
 pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, String> {
     let name = plan.name.as_str();
     let n = plan.n;
@@ -467,7 +484,6 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
         shares.signature = "_shares(q, qd, P)".into();
         funcs.push(shares);
     }
-    let nn2 = n * n;
     let tspec = Spec {
         fname: "terms",
         formula: "B(q), C(q, q') and G(q) in one call, equal to inertia(q), coriolis(q, qd) and gravity(q) to rounding (shared sums are added in another order): the call for a controller that needs all three, with what they share computed once. Returns (B, C, G).",
@@ -496,15 +512,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
             &plan.terms,
             &tspec,
             None,
-            &move |i: usize| {
-                if i < nn2 {
-                    format!("b[{}, {}]", i / n, i % n)
-                } else if i < 2 * nn2 {
-                    format!("c[{}, {}]", (i - nn2) / n, (i - nn2) % n)
-                } else {
-                    format!("g[{}]", i - 2 * nn2)
-                }
-            },
+            &terms_target(n, k),
         )),
     }
     if let Some(f) = &plan.terms_actuation {
@@ -519,18 +527,7 @@ pub fn emit(plan: &Plan, meta: &Meta, golden: &Golden) -> Result<Vec<OutFile>, S
                 ret: "    return b, c, g, a\n",
             },
             None,
-            &move |i: usize| {
-                if i < nn2 {
-                    format!("b[{}, {}]", i / n, i % n)
-                } else if i < 2 * nn2 {
-                    format!("c[{}, {}]", (i - nn2) / n, (i - nn2) % n)
-                } else if i < 2 * nn2 + n {
-                    format!("g[{}]", i - 2 * nn2)
-                } else {
-                    let at = i - 2 * nn2 - n;
-                    format!("a[{}, {}]", at / k, at % k)
-                }
-            },
+            &terms_target(n, k),
         );
         all.signature = "_terms_actuation(q, qd, P)".into();
         funcs.push(all);

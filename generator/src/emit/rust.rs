@@ -293,6 +293,23 @@ fn body(
     (rows, out, len)
 }
 
+/// Where output `i` of `terms` (B, C, G) or of `terms_actuation` (and then A) goes.
+fn terms_target(n: usize, k: usize) -> impl Fn(usize) -> String {
+    let nn = n * n;
+    move |i| {
+        if i < nn {
+            format!("b[{}][{}]", i / n, i % n)
+        } else if i < 2 * nn {
+            format!("c[{}][{}]", (i - nn) / n, (i - nn) % n)
+        } else if i < 2 * nn + n {
+            format!("g[{}]", i - 2 * nn)
+        } else {
+            let at = i - 2 * nn - n;
+            format!("a[{}][{}]", at / k, at % k)
+        }
+    }
+}
+
 pub fn emit(
     plan: &Plan,
     meta: &Meta,
@@ -425,7 +442,6 @@ pub fn emit(
     // it scratch on the stack, `F_ws` the caller's [`Workspace`].
     // With an end force, B, C, G and A in one schedule for forward dynamics.
     let terms_actuation_work = plan.terms_actuation.as_ref().map(|f| {
-        let nn2 = n * n;
         let nn = mat("NQ", "NQ");
         let (rows, body, len) = body(
             tc,
@@ -434,18 +450,7 @@ pub fn emit(
             None,
             "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n\
              let mut a = [[0.0; NU]; NQ];\n",
-            &move |i: usize| {
-                if i < nn2 {
-                    format!("b[{}][{}]", i / n, i % n)
-                } else if i < 2 * nn2 {
-                    format!("c[{}][{}]", (i - nn2) / n, (i - nn2) % n)
-                } else if i < 2 * nn2 + n {
-                    format!("g[{}]", i - 2 * nn2)
-                } else {
-                    let at = i - 2 * nn2 - n;
-                    format!("a[{}][{}]", at / k, at % k)
-                }
-            },
+            &terms_target(n, k),
             "(b, c, g, a)\n",
         );
         funcs.push(RFunc {
@@ -634,7 +639,6 @@ pub fn emit(
         &|_| String::new(),
         "",
     );
-    let nn2 = n * n;
     let terms_ret = format!("({nn}, {nn}, [Real; NQ])");
     // With an end force, `terms` is the schedule with A, keeping B, C and G (below).
     let terms_work = plan.terms_actuation.is_none().then(|| {
@@ -645,15 +649,7 @@ pub fn emit(
                 &[q_of(&plan.terms), qd_of(&plan.terms)],
                 &terms_ret,
                 "let mut b = [[0.0; NQ]; NQ];\nlet mut c = [[0.0; NQ]; NQ];\nlet mut g = [0.0; NQ];\n",
-                &move |i: usize| {
-                    if i < nn2 {
-                        format!("b[{}][{}]", i / n, i % n)
-                    } else if i < 2 * nn2 {
-                        format!("c[{}][{}]", (i - nn2) / n, (i - nn2) % n)
-                    } else {
-                        format!("g[{}]", i - 2 * nn2)
-                    }
-                },
+                &terms_target(n, k),
                 "(b, c, g)\n",
             )
     });
